@@ -1,0 +1,3 @@
+from perfcheck.cli import main
+
+main()

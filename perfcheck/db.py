@@ -1,0 +1,62 @@
+"""The one place that opens DuckDB and loads SQL from ``sql/*.sql``.
+
+The SQL files live in the project's top-level ``sql/`` folder and are shipped inside the wheel
+as ``perfcheck/sql``; an editable checkout reads them from the folder beside the package.
+"""
+
+from __future__ import annotations
+
+import functools
+import importlib.resources
+from pathlib import Path
+
+import duckdb
+
+from perfcheck.errors import DataError
+
+
+def _sql_dir() -> Path:
+    packaged = importlib.resources.files("perfcheck") / "sql"
+    if packaged.is_dir():
+        return Path(str(packaged))
+    return Path(__file__).resolve().parent.parent / "sql"
+
+
+@functools.cache
+def sql(name: str) -> str:
+    """The text of ``sql/<name>.sql``."""
+    path = _sql_dir() / f"{name}.sql"
+    return path.read_text(encoding="utf-8")
+
+
+def default_db_path(site_path: str | Path) -> Path:
+    """The database beside the site file: ``site.toml`` -> ``site.duckdb``."""
+    return Path(site_path).with_suffix(".duckdb")
+
+
+def connect(path: str | Path, read_only: bool = False) -> duckdb.DuckDBPyConnection:
+    """Open (creating if needed) a site database and make sure its schema exists."""
+    path = Path(path)
+    if read_only and not path.exists():
+        raise DataError(f"{path}: no database yet (run 'perfcheck ingest' first)")
+    try:
+        con = duckdb.connect(str(path), read_only=read_only)
+    except duckdb.Error as exc:
+        raise DataError(f"{path}: cannot open database ({exc})") from None
+    con.execute("SET TimeZone = 'UTC'")
+    if not read_only:
+        for name in schema_names():
+            con.execute(sql(name))
+    return con
+
+
+def schema_names() -> list[str]:
+    """The schema files, one per stage (``sql/schema_<stage>.sql``), in a fixed order."""
+    return sorted(p.stem for p in _sql_dir().glob("schema_*.sql"))
+
+
+def quote_ident(name: str) -> str:
+    """A DuckDB identifier in double quotes, for names that come from a user's file."""
+    if "\x00" in name:
+        raise ValueError("identifier contains a NUL byte")
+    return '"' + name.replace('"', '""') + '"'

@@ -1,0 +1,494 @@
+"""The site file: one TOML document describing the plant, its design and its logger files.
+
+It is read with the standard library's ``tomllib`` and validated into small frozen dataclasses.
+Every error names the key path (``inverters[1].arrays[0].tilt_deg``) and what was expected.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import tomllib
+import zoneinfo
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from perfcheck.errors import SiteFileError
+
+# Quantities a logger column can carry, with the units accepted for each. The stored name
+# (with its SI unit suffix) is what the database and JSON use.
+QUANTITIES: dict[str, tuple[str, tuple[str, ...]]] = {
+    # quantity: (stored name, accepted units)
+    "ac_power": ("ac_power_w", ("W", "kW", "MW")),
+    "dc_power": ("dc_power_w", ("W", "kW", "MW")),
+    "energy_register": ("energy_register_wh", ("Wh", "kWh", "MWh")),
+    "energy_interval": ("energy_interval_wh", ("Wh", "kWh", "MWh")),
+    "poa": ("poa_wm2", ("W/m2",)),
+    "ghi": ("ghi_wm2", ("W/m2",)),
+    "dhi": ("dhi_wm2", ("W/m2",)),
+    "dni": ("dni_wm2", ("W/m2",)),
+    "temp_air": ("temp_air_c", ("C", "K")),
+    "temp_module": ("temp_module_c", ("C", "K")),
+    "wind_speed": ("wind_speed_ms", ("m/s", "km/h")),
+    "rain": ("rain_mm", ("mm",)),
+}
+# Quantities that belong to an inverter (or to the plant meter); the others are site weather.
+DEVICE_QUANTITIES = ("ac_power", "dc_power", "energy_register", "energy_interval")
+
+MOUNTINGS = ("open_rack", "close_roof", "insulated_back")
+CONSTRUCTIONS = ("glass_glass", "glass_polymer")
+DECOMPOSITIONS = ("erbs", "boland", "disc")
+TRANSPOSITIONS = ("perez", "haydavies", "isotropic")
+TEMPERATURE_MODELS = ("sapm", "faiman")
+IAM_MODELS = ("physical", "ashrae", "martin_ruiz", "none")
+POA_SENSOR_KINDS = ("pyranometer", "reference_cell")
+IRRADIANCE_SOURCES = ("auto", "poa_sensor", "ghi")
+TIME_KINDS = ("iso", "utc", "local", "epoch")
+LABELS = ("start", "end")
+
+
+@dataclass(frozen=True)
+class Array:
+    """One orientation of modules feeding an inverter."""
+
+    dc_kwp: float
+    tilt_deg: float
+    azimuth_deg: float  # clockwise from north
+    gamma_pct_per_c: float  # temperature coefficient of Pmax [%/C], e.g. -0.37
+    mounting: str
+    construction: str
+    strings: int
+    albedo: float
+    horizon: tuple[tuple[float, float], ...]  # (azimuth_deg, elevation_deg), sorted by azimuth
+
+
+@dataclass(frozen=True)
+class Inverter:
+    id: str
+    ac_kw: float
+    efficiency_pct: float  # nominal (CEC/EU-style weighted) efficiency [%]
+    arrays: tuple[Array, ...]
+    night_tare_w: float
+
+    @property
+    def dc_kwp(self) -> float:
+        return sum(a.dc_kwp for a in self.arrays)
+
+
+@dataclass(frozen=True)
+class Losses:
+    """Design losses in percent, combined multiplicatively (Dobos 2014)."""
+
+    wiring_pct: float = 2.0
+    mismatch_pct: float = 2.0
+    nameplate_pct: float = 1.0
+    lid_pct: float = 1.5
+    other_pct: float = 0.0
+    degradation_pct_per_year: float = 0.5
+
+    @property
+    def dc_factor(self) -> float:
+        """Product of (1 - L_i/100) over the DC losses (age not included)."""
+        f = 1.0
+        for pct in (
+            self.wiring_pct,
+            self.mismatch_pct,
+            self.nameplate_pct,
+            self.lid_pct,
+            self.other_pct,
+        ):
+            f *= 1.0 - pct / 100.0
+        return f
+
+
+@dataclass(frozen=True)
+class Model:
+    """Model choices for the expected series; defaults are documented in the README."""
+
+    irradiance_source: str = "auto"
+    poa_sensor_kind: str = "pyranometer"
+    poa_sensor_tilt_deg: float | None = None  # default: plane of the first array
+    poa_sensor_azimuth_deg: float | None = None
+    decomposition: str = "erbs"
+    transposition: str = "perez"
+    temperature_model: str = "sapm"
+    iam: str = "physical"
+    poa_uncertainty_pct: float | None = None  # default from the sensor class
+    sensor_class: str = "A"
+
+
+@dataclass(frozen=True)
+class Column:
+    """One logger column: where it is, what it holds, in which unit."""
+
+    name: str
+    quantity: str
+    unit: str
+    device: str  # inverter id, "plant", or "site" for weather
+    rollover_wh: float | None = None  # for energy registers that wrap
+
+    @property
+    def stored(self) -> str:
+        return QUANTITIES[self.quantity][0]
+
+
+@dataclass(frozen=True)
+class TimeSpec:
+    columns: tuple[str, ...]  # one column, or date and time columns joined with a space
+    kind: str  # iso (with offset), utc (naive UTC), local (naive site-local), epoch (seconds)
+    format: str | None  # strptime format for utc/local; None: ISO 8601
+    label: str  # the logger labels an interval by its "start" or its "end"
+
+
+@dataclass(frozen=True)
+class Logger:
+    """How one kind of logger file is written."""
+
+    name: str
+    match: str  # filename glob that selects this logger for a file
+    delimiter: str
+    decimal: str
+    preamble_lines: int
+    units_row: bool
+    interval_min: int
+    time: TimeSpec
+    sentinels: tuple[str, ...]
+    columns: tuple[Column, ...]
+
+
+@dataclass(frozen=True)
+class Site:
+    name: str
+    latitude_deg: float
+    longitude_deg: float
+    altitude_m: float
+    timezone: str
+    commissioned: dt.date
+    export_limit_kw: float | None
+    inverters: tuple[Inverter, ...]
+    losses: Losses
+    model: Model
+    loggers: tuple[Logger, ...]
+    inbox: str | None
+    path: Path
+    raw: dict[str, Any] = field(repr=False, compare=False)
+
+    @property
+    def tz(self) -> zoneinfo.ZoneInfo:
+        return zoneinfo.ZoneInfo(self.timezone)
+
+    @property
+    def dc_kwp(self) -> float:
+        return sum(i.dc_kwp for i in self.inverters)
+
+    @property
+    def ac_kw(self) -> float:
+        return sum(i.ac_kw for i in self.inverters)
+
+    def inverter(self, inverter_id: str) -> Inverter:
+        for inv in self.inverters:
+            if inv.id == inverter_id:
+                return inv
+        raise KeyError(inverter_id)
+
+    def logger_for(self, filename: str) -> Logger:
+        """The logger whose ``match`` glob fits the file's name (first match wins)."""
+        import fnmatch
+
+        name = Path(filename).name
+        for lg in self.loggers:
+            if fnmatch.fnmatch(name, lg.match):
+                return lg
+        globs = ", ".join(repr(lg.match) for lg in self.loggers)
+        raise SiteFileError(
+            f"{filename}: no [[loggers]] entry matches this file name (match globs: {globs})"
+        )
+
+
+# --------------------------------------------------------------------------------------------
+# validation
+
+
+class Table:
+    """Reads one TOML table, remembering which keys were used, so unknown keys are refused."""
+
+    def __init__(self, data: Any, path: str, file: Path):
+        if not isinstance(data, dict):
+            raise SiteFileError(f"{file}: {path}: expected a table, got {type(data).__name__}")
+        self.data, self.path, self.file, self.used = data, path, file, set()
+
+    def _key(self, key: str) -> str:
+        return f"{self.path}.{key}" if self.path else key
+
+    def _err(self, key: str, msg: str) -> SiteFileError:
+        return SiteFileError(f"{self.file}: {self._key(key)}: {msg}")
+
+    def get(self, key: str, kind: Any, default: Any = ..., choices: tuple | None = None) -> Any:
+        self.used.add(key)
+        if key not in self.data:
+            if default is ...:
+                raise self._err(key, f"missing key (expected {_kind_name(kind)})")
+            return default
+        value = self.data[key]
+        if kind is float and isinstance(value, int) and not isinstance(value, bool):
+            value = float(value)
+        if not isinstance(value, kind) or (isinstance(value, bool) and kind is not bool):
+            got = type(value).__name__
+            raise self._err(key, f"expected {_kind_name(kind)}, got {got} {value!r}")
+        if choices is not None and value not in choices:
+            raise self._err(key, f"{value!r} is not one of {', '.join(map(repr, choices))}")
+        return value
+
+    def number(
+        self, key: str, default: Any = ..., lo: float | None = None, hi: float | None = None
+    ) -> Any:
+        value = self.get(key, float, default)
+        if value is None or value is default and default is not ...:
+            return value
+        if (lo is not None and value < lo) or (hi is not None and value > hi):
+            raise self._err(key, f"{value} is outside the range {lo} to {hi}")
+        return value
+
+    def table(self, key: str, required: bool = False) -> Table:
+        self.used.add(key)
+        if key not in self.data:
+            if required:
+                raise self._err(key, "missing table")
+            return Table({}, self._key(key), self.file)
+        return Table(self.data[key], self._key(key), self.file)
+
+    def tables(self, key: str, required: bool = True) -> list[Table]:
+        self.used.add(key)
+        items = self.data.get(key)
+        if items is None:
+            if required:
+                raise self._err(key, "missing (expected one or more [[" + self._key(key) + "]])")
+            return []
+        if not isinstance(items, list) or not items:
+            raise self._err(key, "expected a non-empty array of tables")
+        return [Table(t, f"{self._key(key)}[{i}]", self.file) for i, t in enumerate(items)]
+
+    def done(self) -> None:
+        unknown = sorted(set(self.data) - self.used)
+        if unknown:
+            known = ", ".join(sorted(self.used))
+            raise self._err(unknown[0], f"unknown key (known keys here: {known})")
+
+
+def _kind_name(kind: Any) -> str:
+    names = {float: "a number", int: "an integer", str: "a string", bool: "true or false",
+             list: "an array", dt.date: "a date like 2024-03-01", dict: "a table"}
+    if isinstance(kind, tuple):
+        return " or ".join(names.get(k, k.__name__) for k in kind)
+    return names.get(kind, kind.__name__)
+
+
+def _horizon(t: Table, key: str, default: Any) -> tuple[tuple[float, float], ...]:
+    raw = t.get(key, list, None)
+    if raw is None:
+        return default
+    points = []
+    for i, pair in enumerate(raw):
+        ok = (
+            isinstance(pair, list)
+            and len(pair) == 2
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in pair)
+        )
+        if not ok:
+            raise t._err(f"{key}[{i}]", "expected [azimuth_deg, elevation_deg]")
+        az, el = float(pair[0]), float(pair[1])
+        if not (0 <= az <= 360 and 0 <= el < 90):
+            raise t._err(f"{key}[{i}]", "azimuth must be 0-360 and elevation 0-90 degrees")
+        points.append((az, el))
+    return tuple(sorted(points))
+
+
+def _array(t: Table, albedo: float, horizon: tuple) -> Array:
+    a = Array(
+        dc_kwp=t.number("dc_kwp", lo=0.001, hi=1e7),
+        tilt_deg=t.number("tilt_deg", lo=0, hi=90),
+        azimuth_deg=t.number("azimuth_deg", lo=0, hi=360),
+        gamma_pct_per_c=t.number("gamma_pct_per_c", lo=-1.0, hi=0.0),
+        mounting=t.get("mounting", str, "open_rack", MOUNTINGS),
+        construction=t.get("construction", str, "glass_polymer", CONSTRUCTIONS),
+        strings=t.get("strings", int),
+        albedo=t.number("albedo", albedo, lo=0, hi=1),
+        horizon=_horizon(t, "horizon", horizon),
+    )
+    if a.strings < 1:
+        raise t._err("strings", "expected at least 1")
+    t.done()
+    return a
+
+
+def _column(t: Table, inverter_ids: set[str]) -> Column:
+    quantity = t.get("quantity", str, choices=tuple(QUANTITIES))
+    units = QUANTITIES[quantity][1]
+    unit = t.get("unit", str)
+    if unit not in units:
+        raise t._err("unit", f"unit {unit!r} not recognised for {quantity} (use one of "
+                     f"{', '.join(units)})")
+    if quantity in DEVICE_QUANTITIES:
+        device = t.get("inverter", str, "plant")
+        if device != "plant" and device not in inverter_ids:
+            raise t._err("inverter", f"{device!r} is not an inverter id of this site "
+                         f"(ids: {', '.join(sorted(inverter_ids))}, or 'plant')")
+    else:
+        device = "site"
+    rollover = t.number("rollover", None, lo=0) if quantity == "energy_register" else None
+    col = Column(
+        name=t.get("name", str),
+        quantity=quantity,
+        unit=unit,
+        device=device,
+        rollover_wh=None if rollover is None else rollover * _ENERGY_SCALE[unit],
+    )
+    t.done()
+    return col
+
+
+_ENERGY_SCALE = {"Wh": 1.0, "kWh": 1e3, "MWh": 1e6}
+
+
+def _logger(t: Table, inverter_ids: set[str]) -> Logger:
+    tt = t.table("time", required=True)
+    cols = tt.get("columns", list)
+    if not cols or not all(isinstance(c, str) for c in cols) or len(cols) > 2:
+        raise tt._err("columns", "expected one or two column names, e.g. [\"Date\", \"Time\"]")
+    kind = tt.get("kind", str, choices=TIME_KINDS)
+    fmt = tt.get("format", str, None)
+    if kind in ("utc", "local") and fmt is None:
+        fmt = "%Y-%m-%d %H:%M:%S"
+    time = TimeSpec(tuple(cols), kind, fmt, tt.get("label", str, "start", LABELS))
+    tt.done()
+    interval = t.get("interval_min", int)
+    if interval not in (1, 5, 10, 15, 30, 60):
+        raise t._err("interval_min", f"{interval} is not one of 1, 5, 10, 15, 30, 60")
+    delimiter = t.get("delimiter", str, ",")
+    if delimiter == "\\t":
+        delimiter = "\t"
+    if delimiter not in (",", ";", "\t", "|"):
+        raise t._err("delimiter", "expected one of ',', ';', '\\t', '|'")
+    sentinels = t.get("sentinels", list, [])
+    if not all(isinstance(s, str) for s in sentinels):
+        raise t._err("sentinels", "expected strings, e.g. [\"-9999\", \"#N/A\"]")
+    columns = tuple(_column(c, inverter_ids) for c in t.tables("columns"))
+    names = [c.name for c in columns] + list(time.columns)
+    dup = {n for n in names if names.count(n) > 1}
+    if dup:
+        raise t._err("columns", f"column {sorted(dup)[0]!r} is mapped twice")
+    lg = Logger(
+        name=t.get("name", str),
+        match=t.get("match", str, "*"),
+        delimiter=delimiter,
+        decimal=t.get("decimal", str, ".", (".", ",")),
+        preamble_lines=t.get("preamble_lines", int, 0),
+        units_row=t.get("units_row", bool, False),
+        interval_min=interval,
+        time=time,
+        sentinels=tuple(sentinels),
+        columns=columns,
+    )
+    if lg.preamble_lines < 0:
+        raise t._err("preamble_lines", "expected 0 or more")
+    t.done()
+    return lg
+
+
+def load_site(path: str | Path) -> Site:
+    """Read and validate a site file.
+
+    Raises :class:`SiteFileError` with the key path and the expectation on any problem.
+    """
+    path = Path(path)
+    try:
+        text = path.read_bytes().decode("utf-8")
+    except FileNotFoundError:
+        raise SiteFileError(f"{path}: site file not found") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SiteFileError(f"{path}: cannot read site file ({exc})") from None
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SiteFileError(f"{path}: not valid TOML: {exc}") from None
+    return parse_site(raw, path)
+
+
+def parse_site(raw: dict[str, Any], path: Path) -> Site:
+    top = Table(raw, "", path)
+    s = top.table("site", required=True)
+    tzname = s.get("timezone", str)
+    try:
+        zoneinfo.ZoneInfo(tzname)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        raise s._err("timezone", f"unknown IANA time zone {tzname!r} (e.g. 'Europe/Berlin')")\
+            from None
+    albedo = s.number("albedo", 0.2, lo=0, hi=1)
+    horizon = _horizon(s, "horizon", ())
+    site_fields = dict(
+        name=s.get("name", str),
+        latitude_deg=s.number("latitude_deg", lo=-90, hi=90),
+        longitude_deg=s.number("longitude_deg", lo=-180, hi=180),
+        altitude_m=s.number("altitude_m", 0.0, lo=-500, hi=9000),
+        timezone=tzname,
+        commissioned=s.get("commissioned", dt.date),
+        export_limit_kw=s.number("export_limit_kw", None, lo=0),
+        inbox=s.get("inbox", str, None),
+    )
+    s.done()
+
+    inverters = []
+    for t in top.tables("inverters"):
+        night = t.number("night_tare_w", 0.0, lo=0)
+        arrays = tuple(_array(a, albedo, horizon) for a in t.tables("arrays"))
+        inv = Inverter(
+            id=t.get("id", str),
+            ac_kw=t.number("ac_kw", lo=0.001, hi=1e6),
+            efficiency_pct=t.number("efficiency_pct", 96.0, lo=50, hi=100),
+            arrays=arrays,
+            night_tare_w=night,
+        )
+        t.done()
+        inverters.append(inv)
+    ids = [i.id for i in inverters]
+    if len(set(ids)) != len(ids) or "plant" in ids or "site" in ids:
+        raise SiteFileError(f"{path}: inverters: ids must be unique and not 'plant' or 'site'")
+
+    lt = top.table("losses")
+    losses = Losses(
+        **{k: lt.number(k, getattr(Losses, k), lo=0, hi=50) for k in Losses.__dataclass_fields__}
+    )
+    lt.done()
+
+    mt = top.table("model")
+    model = Model(
+        irradiance_source=mt.get("irradiance_source", str, "auto", IRRADIANCE_SOURCES),
+        poa_sensor_kind=mt.get("poa_sensor_kind", str, "pyranometer", POA_SENSOR_KINDS),
+        poa_sensor_tilt_deg=mt.number("poa_sensor_tilt_deg", None, lo=0, hi=90),
+        poa_sensor_azimuth_deg=mt.number("poa_sensor_azimuth_deg", None, lo=0, hi=360),
+        decomposition=mt.get("decomposition", str, "erbs", DECOMPOSITIONS),
+        transposition=mt.get("transposition", str, "perez", TRANSPOSITIONS),
+        temperature_model=mt.get("temperature_model", str, "sapm", TEMPERATURE_MODELS),
+        iam=mt.get("iam", str, "physical", IAM_MODELS),
+        poa_uncertainty_pct=mt.number("poa_uncertainty_pct", None, lo=0, hi=50),
+        sensor_class=mt.get("sensor_class", str, "A", ("A", "B", "C")),
+    )
+    mt.done()
+
+    loggers = tuple(_logger(t, set(ids)) for t in top.tables("loggers"))
+    names = [lg.name for lg in loggers]
+    if len(set(names)) != len(names):
+        raise SiteFileError(f"{path}: loggers: names must be unique")
+    # Sections that later stages read are validated by those stages; accept them here.
+    for later in ("metrics", "detect", "guarantees", "report"):
+        top.used.add(later)
+    top.done()
+    return Site(
+        inverters=tuple(inverters),
+        losses=losses,
+        model=model,
+        loggers=loggers,
+        path=path,
+        raw=raw,
+        **site_fields,
+    )
