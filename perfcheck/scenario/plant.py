@@ -1,0 +1,261 @@
+"""Plant physics of the demo scenario, with the faults switched on one stage at a time.
+
+Per array: Perez (1990) transposition with its circumsolar part treated as beam; beam and
+circumsolar light blocked below the horizon profile (and dimmed by the tree's crown where the
+shading fault applies); the physical IAM (De Soto et al. 2006) for beam and Marion's (2017)
+integrated IAM for diffuse; SAPM cell and back-of-module temperature (King et al. 2004); a linear
+DC model with the site file's losses and the Dobos (2014) part-load inverter efficiency, the AC
+rating as the clipping limit and the plant export limit shared pro rata over the inverters.
+
+References
+----------
+R. Perez, P. Ineichen, R. Seals, J. Michalsky, R. Stewart, 1990, Solar Energy 44(5):271-289.
+W. De Soto, S. Klein, W. Beckman, 2006, Solar Energy 80(1):78-88.
+B. Marion, 2017, "Numerical method for angle-of-incidence correction factors for diffuse
+radiation incident photovoltaic modules", Solar Energy 147:344-348.
+D. King, W. Boyson, J. Kratochvil, 2004, SAND2004-3535.
+A. P. Dobos, 2014, NREL/TP-6A20-62641 (report number from memory).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pvlib
+
+from perfcheck.scenario.faults import ATTRIBUTION_ORDER, Faults, iso, local_ts, window
+from perfcheck.scenario.sitefile import POA_INVERTER
+from perfcheck.scenario.weather import Weather
+from perfcheck.site import Site
+
+_SAPM_KEYS = {
+    ("open_rack", "glass_glass"): "open_rack_glass_glass",
+    ("open_rack", "glass_polymer"): "open_rack_glass_polymer",
+    ("close_roof", "glass_glass"): "close_mount_glass_glass",
+    ("close_roof", "glass_polymer"): "close_mount_glass_glass",
+    ("insulated_back", "glass_glass"): "insulated_back_glass_polymer",
+    ("insulated_back", "glass_polymer"): "insulated_back_glass_polymer",
+}
+_YEAR_S = 365.25 * 86400
+
+
+def horizon_elevation(azimuth: np.ndarray, horizon: tuple) -> np.ndarray:
+    """Elevation of a horizon profile at ``azimuth`` [deg]: linear between points, periodic."""
+    if not horizon:
+        return np.zeros_like(azimuth, dtype=float)
+    az = np.array([p[0] for p in horizon])
+    el = np.array([p[1] for p in horizon])
+    return np.interp(azimuth, az, el, period=360.0)
+
+
+def array_irradiance(
+    w: Weather, tilt: float, azimuth: float, albedo: float, beam_factor: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Plane-of-array global and IAM-effective irradiance [W/m^2].
+
+    ``beam_factor`` (0..1) is the unobstructed share of the beam and circumsolar light.
+    """
+    zen = w.solpos["apparent_zenith"].to_numpy()
+    saz = w.solpos["azimuth"].to_numpy()
+    aoi = pvlib.irradiance.aoi(tilt, azimuth, zen, saz)
+    comp = pvlib.irradiance.perez(
+        tilt, azimuth, w.dhi, w.dni, w.dni_extra, zen, saz, w.airmass, return_components=True
+    )
+    circ = np.nan_to_num(np.asarray(comp["poa_circumsolar"], dtype=float)) * beam_factor
+    rest = np.nan_to_num(np.asarray(comp["poa_isotropic"] + comp["poa_horizon"], dtype=float))
+    beam = w.dni * np.clip(np.cos(np.radians(aoi)), 0, None) * beam_factor
+    ground = np.asarray(pvlib.irradiance.get_ground_diffuse(tilt, w.ghi, albedo), dtype=float)
+    iam_beam = np.nan_to_num(pvlib.iam.physical(aoi))
+    iam_d = pvlib.iam.marion_diffuse("physical", tilt)
+    poa_global = beam + circ + rest + ground
+    poa_eff = (beam + circ) * iam_beam + rest * iam_d["sky"] + ground * iam_d["ground"]
+    return poa_global, np.maximum(poa_eff, 0.0)
+
+
+def dobos_ac(pdc: np.ndarray, pdc0: float, eta_nom: float) -> np.ndarray:
+    """Inverter AC output before the AC limit [W], part-load efficiency of Dobos (2014).
+
+    Parameters
+    ----------
+    pdc : DC input [W].
+    pdc0 : DC input at the AC rating, AC rating / eta_nom [W].
+    eta_nom : nominal efficiency [-].
+
+    Notes
+    -----
+    eta = eta_nom / 0.9637 * (-0.0162 zeta - 0.0059 / zeta + 0.9858), zeta = pdc / pdc0;
+    AC = max(eta * pdc, 0). The AC limit is applied by the caller, so the unlimited potential
+    (for the clipping energy) comes from the same curve.
+
+    References
+    ----------
+    A. P. Dobos, 2014, NREL/TP-6A20-62641 (report number from memory), inverter section.
+    """
+    live = pdc > 0
+    zeta = np.where(live, pdc, 1.0) / pdc0
+    eta = eta_nom / 0.9637 * (-0.0162 * zeta - 0.0059 / zeta + 0.9858)
+    return np.where(live, np.maximum(eta * pdc, 0.0), 0.0)
+
+
+@dataclass
+class Plant:
+    """Per-inverter series of one run of the plant [W]; arrays of shape (n_inverters, n)."""
+
+    ac: np.ndarray
+    ac_unlimited: np.ndarray  # no AC limit, no export limit
+
+
+@dataclass
+class Physics:
+    """What the plant sees, computed once; the faults are switched on by :func:`run_plant`."""
+
+    site: Site
+    times: pd.DatetimeIndex
+    weather: Weather
+    poa: dict = field(default_factory=dict)  # inverter id -> [(global, effective)] per array
+    poa_tree: dict = field(default_factory=dict)  # the same behind the growing tree
+    temp_cell: dict = field(default_factory=dict)  # inverter id -> [temp_cell] per array
+    poa_sensor: np.ndarray | None = None  # pyranometer in the first array of POA_INVERTER
+    temp_module: np.ndarray | None = None  # back-of-module sensor on that array
+
+
+def tree_factor(times: pd.DatetimeIndex, w: Weather, tree: Any, tz: Any) -> np.ndarray:
+    """Share of the beam that passes the tree (1 outside its crown)."""
+    app_el = 90.0 - w.solpos["apparent_zenith"].to_numpy()
+    saz = w.solpos["azimuth"].to_numpy()
+    years = (times - local_ts(tree.reference, tz)).total_seconds().to_numpy() / _YEAR_S
+    top = tree.top_deg + tree.growth_deg_per_year * years
+    crown = (saz >= tree.azimuth_from_deg) & (saz <= tree.azimuth_to_deg) & (app_el < top)
+    return np.where(crown, tree.transmittance, 1.0)
+
+
+def make_physics(site: Site, times: pd.DatetimeIndex, w: Weather, faults: Faults) -> Physics:
+    """Irradiance and temperatures of every array, with and without the tree."""
+    ph = Physics(site, times, w)
+    app_el = 90.0 - w.solpos["apparent_zenith"].to_numpy()
+    saz = w.solpos["azimuth"].to_numpy()
+    tree = faults.tree
+    for inv in site.inverters:
+        ph.poa[inv.id], ph.temp_cell[inv.id] = [], []
+        for arr in inv.arrays:
+            visible = (app_el > horizon_elevation(saz, arr.horizon)).astype(float)
+            g, e = array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, visible)
+            ph.poa[inv.id].append((g, e))
+            if tree is not None and inv.id == tree.inverter:
+                behind = visible * tree_factor(times, w, tree, site.tz)
+                ph.poa_tree.setdefault(inv.id, []).append(
+                    array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, behind)
+                )
+            p = pvlib.temperature.TEMPERATURE_MODEL_PARAMETERS["sapm"][
+                _SAPM_KEYS[(arr.mounting, arr.construction)]
+            ]
+            ph.temp_cell[inv.id].append(
+                pvlib.temperature.sapm_cell(g, w.temp_air, w.wind_speed, **p)
+            )
+            if inv.id == POA_INVERTER and ph.poa_sensor is None:
+                ph.poa_sensor = g
+                ph.temp_module = pvlib.temperature.sapm_module(
+                    g, w.temp_air, w.wind_speed, p["a"], p["b"]
+                )
+    return ph
+
+
+def _dc(ph: Physics, inv: Any, shaded: bool) -> np.ndarray:
+    """Linear DC model: P = P_stc G_eff/1000 (1 + gamma (T_cell - 25)) x design losses [W]."""
+    pdc = np.zeros(len(ph.times))
+    for k, arr in enumerate(inv.arrays):
+        eff = (ph.poa_tree if shaded else ph.poa)[inv.id][k][1]
+        gamma = arr.gamma_pct_per_c / 100
+        pdc += arr.dc_kwp * eff * (1 + gamma * (ph.temp_cell[inv.id][k] - 25))
+    return pdc * ph.site.losses.dc_factor
+
+
+def run_plant(ph: Physics, faults: Faults, stage: int) -> Plant:
+    """The plant with the first ``stage`` faults of ATTRIBUTION_ORDER switched on."""
+    site, times, tz = ph.site, ph.times, ph.site.tz
+    on = set(ATTRIBUTION_ORDER[:stage])
+    age_s = (times - local_ts(str(site.commissioned), tz)).total_seconds().to_numpy()
+    common = np.ones(len(times))
+    if "degradation" in on:
+        common *= 1 - faults.degradation_pct_per_year / 100 * np.maximum(age_s, 0) / _YEAR_S
+    if "soiling" in on:
+        common *= soiling_ratio(times, ph.weather.rain, faults, tz)
+    acs, unlimited = [], []
+    for inv in site.inverters:
+        pdc = _dc(ph, inv, "shading" in on and inv.id in ph.poa_tree) * common
+        cut = faults.string_loss
+        if "partial_outage" in on and cut is not None and cut.inverter == inv.id:
+            strings = sum(a.strings for a in inv.arrays)
+            lost = window(times, cut.start, cut.end, tz)
+            pdc = np.where(lost, pdc * (strings - cut.strings_lost) / strings, pdc)
+        eta = inv.efficiency_pct / 100
+        ac_u = dobos_ac(pdc, inv.ac_kw * 1000 / eta, eta)
+        ac = np.minimum(ac_u, inv.ac_kw * 1000)
+        off = faults.outage
+        if "outage" in on and off is not None and off.inverter == inv.id:
+            down = window(times, off.start, off.end, tz)
+            ac, ac_u = np.where(down, 0.0, ac), np.where(down, 0.0, ac_u)
+        acs.append(ac)
+        unlimited.append(ac_u)
+    ac = np.array(acs)
+    limit = np.full(len(times), np.inf if site.export_limit_kw is None
+                    else site.export_limit_kw * 1000)
+    if "curtailment" in on:
+        for c in faults.curtailment:
+            limit = np.where(window(times, c.start, c.end, tz),
+                             np.minimum(limit, c.setpoint_kw * 1000), limit)
+    total = ac.sum(axis=0)
+    scale = np.where(total > limit, limit / np.where(total > 0, total, 1.0), 1.0)
+    return Plant(ac=ac * scale, ac_unlimited=np.array(unlimited))
+
+
+def soiling_ratio(times: pd.DatetimeIndex, rain: np.ndarray, faults: Faults, tz: Any
+                  ) -> np.ndarray:
+    """Soiling ratio (clean = 1): linear loss between washes, in the manner of Kimber et al.
+
+    Within each dusty episode the loss grows at the episode's rate [%/day]; rain of at least
+    ``faults.soiling_rain_mm`` within 24 h washes the modules; the episode ends with a cleaning.
+
+    References
+    ----------
+    A. Kimber, L. Mitchell, S. Nogradi, H. Wenger, 2006, "The effect of soiling on large
+    grid-connected photovoltaic systems in California and the Southwest region of the United
+    States", IEEE 4th World Conference on Photovoltaic Energy Conversion.
+    """
+    ratio = np.ones(len(times))
+    step = (times[1] - times[0]) if len(times) > 1 else pd.Timedelta(minutes=5)
+    per_day = int(pd.Timedelta(days=1) / step)
+    total = np.cumsum(rain)
+    rain24 = total - np.concatenate([np.zeros(per_day), total[:-per_day]])[: len(rain)]
+    washed = rain24 >= faults.soiling_rain_mm
+    t_days = (times - times[0]).total_seconds().to_numpy() / 86400
+    for ep in faults.soiling:
+        inside = np.flatnonzero(window(times, ep.start, ep.cleaning, tz))
+        if not len(inside):
+            continue
+        # days since the last wash: the episode start, or the latest washed interval
+        wash_at = np.where(washed[inside], t_days[inside], -np.inf)
+        wash_at[0] = max(wash_at[0], t_days[inside[0]])
+        last = np.maximum.accumulate(wash_at)
+        ratio[inside] = 1 - ep.rate_pct_per_day / 100 * (t_days[inside] - last)
+    return ratio
+
+
+def soiling_recoveries(times: pd.DatetimeIndex, rain: np.ndarray, faults: Faults, tz: Any
+                       ) -> list[dict]:
+    """Recoveries in the soiling episodes: the first interval of each rain wash, and cleanings."""
+    ratio = soiling_ratio(times, rain, faults, tz)
+    out = []
+    for ep in faults.soiling:
+        inside = np.flatnonzero(window(times, ep.start, ep.cleaning, tz))
+        if not len(inside):
+            continue
+        jumps = inside[1:][np.diff(ratio[inside]) > 1e-9]
+        out += [{"at": iso(times[i], tz), "cause": "rain",
+                 "soiling_loss_pct_before": round(100 * (1 - ratio[i - 1]), 2)} for i in jumps]
+        out.append({"at": iso(local_ts(ep.cleaning, tz), tz), "cause": "cleaning",
+                    "soiling_loss_pct_before": round(100 * (1 - ratio[inside[-1]]), 2)})
+    return out

@@ -1,0 +1,220 @@
+"""The demo site file: the complete, commented example of every key perfcheck reads."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+MAIN_LOGGER = "fl3"
+WEATHER_LOGGER = "ws2"
+POA_INVERTER = "inv1"  # the POA pyranometer and the module sensor sit on this inverter's array
+
+SITE_TEMPLATE = """\
+# Site file of the invented demo plant "Solarpark Talbrunn" (no such plant exists; the data in
+# this folder are written by perfcheck.scenario). Every key that perfcheck reads is shown here.
+# Units are in the key names; "default" says what happens when a key is left out.
+
+[site]
+name = "Solarpark Talbrunn"          # free text, shown in reports (required)
+latitude_deg = 48.262                # degrees north, -90..90 (required)
+longitude_deg = 15.874               # degrees east, -180..180 (required)
+altitude_m = 238.0                   # above sea level [m] (default 0)
+timezone = "Europe/Vienna"           # IANA zone: day and month boundaries, local logger clocks
+commissioned = {commissioned:<22}# date of commissioning, reference for ageing (required)
+export_limit_kw = 125.0              # plant export limit at the grid point [kW] (default: none)
+albedo = 0.20                        # ground reflectance 0..1, default for every array (0.2)
+# inbox = "incoming/*.csv"           # glob of newly arrived logger files, relative to this
+#                                    # file's folder, for the monthly job (default: none)
+# Horizon seen from the plant, [azimuth_deg, elevation_deg] pairs, azimuth clockwise from
+# north; linear between points, wraps at 360. Default for every array (default: flat, 0 deg).
+horizon = [
+  [0.0, 2.0], [45.0, 3.0], [80.0, 5.5], [100.0, 7.0], [120.0, 5.0], [150.0, 2.5],
+  [180.0, 1.5], [210.0, 2.0], [240.0, 3.0], [270.0, 2.5], [300.0, 2.0], [330.0, 2.0],
+]
+
+# One [[inverters]] table per inverter, each with one or more [[inverters.arrays]].
+[[inverters]]
+id = "inv1"                          # unique id used in logger mappings and reports (required)
+ac_kw = 50.0                         # AC rating, the clipping limit [kW] (required)
+efficiency_pct = 98.0                # nominal (weighted) efficiency [%] (default 96)
+night_tare_w = 0.0                   # power drawn at night [W] (default 0)
+
+  [[inverters.arrays]]
+  dc_kwp = 66.0                      # DC nameplate at STC [kWp] (required)
+  tilt_deg = 25.0                    # from horizontal, 0..90 [deg] (required)
+  azimuth_deg = 180.0                # clockwise from north, 180 = south [deg] (required)
+  gamma_pct_per_c = -0.35            # temperature coefficient of Pmax [%/C] (required)
+  mounting = "open_rack"             # open_rack | close_roof | insulated_back (open_rack)
+  construction = "glass_polymer"     # glass_polymer | glass_glass (glass_polymer)
+  strings = 6                        # number of parallel strings (required)
+  # albedo = 0.20                    # overrides [site].albedo for this array
+  # horizon = [[0.0, 0.0]]           # overrides [site].horizon for this array
+
+[[inverters]]
+id = "inv2"
+ac_kw = 40.0
+efficiency_pct = 98.0
+night_tare_w = 0.0
+
+  [[inverters.arrays]]
+  dc_kwp = 44.0
+  tilt_deg = 15.0
+  azimuth_deg = 95.0                 # east
+  gamma_pct_per_c = -0.35
+  mounting = "open_rack"
+  construction = "glass_polymer"
+  strings = 4
+
+[[inverters]]
+id = "inv3"
+ac_kw = 40.0
+efficiency_pct = 98.0
+night_tare_w = 0.0
+
+  [[inverters.arrays]]
+  dc_kwp = 33.0
+  tilt_deg = 15.0
+  azimuth_deg = 265.0                # west
+  gamma_pct_per_c = -0.35
+  mounting = "open_rack"
+  construction = "glass_polymer"
+  strings = 3
+
+  [[inverters.arrays]]
+  dc_kwp = 11.0
+  tilt_deg = 20.0
+  azimuth_deg = 225.0                # south-west
+  gamma_pct_per_c = -0.35
+  mounting = "open_rack"
+  construction = "glass_polymer"
+  strings = 1
+
+# Design losses in percent, combined multiplicatively (defaults in brackets).
+[losses]
+wiring_pct = 1.5                     # DC wiring (2.0)
+mismatch_pct = 1.0                   # module and string mismatch (2.0)
+nameplate_pct = 0.5                  # nameplate tolerance (1.0)
+lid_pct = 1.5                        # light-induced degradation (1.5)
+other_pct = 0.5                      # anything else (0.0)
+degradation_pct_per_year = 0.5       # assumed ageing since commissioning [%/year] (0.5)
+
+# Choices for the expected series.
+[model]
+irradiance_source = "auto"           # auto | poa_sensor | ghi (auto: the POA sensor where valid)
+poa_sensor_kind = "pyranometer"      # pyranometer | reference_cell (pyranometer)
+poa_sensor_tilt_deg = 25.0           # plane of the POA sensor (default: first array's plane)
+poa_sensor_azimuth_deg = 180.0       # clockwise from north (default: first array's azimuth)
+decomposition = "erbs"               # GHI to DNI/DHI: erbs | boland | disc (erbs)
+transposition = "perez"              # perez | haydavies | isotropic (perez)
+temperature_model = "sapm"           # sapm | faiman (sapm)
+iam = "physical"                     # physical | ashrae | martin_ruiz | none (physical)
+sensor_class = "A"                   # IEC 61724-1 monitoring class A | B | C (A)
+# poa_uncertainty_pct = 1.5          # POA uncertainty [%] (default: from sensor_class)
+
+# Sections read by later stages ([metrics], [detect], [guarantees], [report]) are optional
+# and described in the README.
+
+# Main logger (invented "Ferrantel FL-3"): one file per month, ';' with decimal comma, three
+# preamble lines, a units row, naive local time (summer time: the October hour appears twice,
+# the March hour is missing), labels at the END of each {interval}-minute interval, CRLF, UTF-8 BOM.
+[[loggers]]
+name = "fl3"                         # unique name (required)
+match = "talbrunn_fl3_*.csv"         # file-name glob that selects this logger ("*")
+delimiter = ";"                      # , ; \\t | (",")
+decimal = ","                        # "." or "," (".")
+preamble_lines = 3                   # lines before the header row (0)
+units_row = true                     # a units row follows the header (false)
+interval_min = {interval:<22}# 1, 5, 10, 15, 30 or 60 (required)
+sentinels = ["-9999", "#N/A"]        # values meaning "no reading" ([])
+
+  [loggers.time]
+  columns = ["Zeit"]                 # one column, or [date, time] columns (required)
+  kind = "local"                     # iso (with offset) | utc | local | epoch (required)
+  format = "%d.%m.%Y %H:%M"          # strptime format for utc/local ("%Y-%m-%d %H:%M:%S")
+  label = "end"                      # the row's time is the interval's start | end ("start")
+
+  [[loggers.columns]]
+  name = "P_WR1"                     # header text in the file (required)
+  # quantity (required): ac_power, dc_power [W kW MW]; energy_register, energy_interval
+  # [Wh kWh MWh]; poa, ghi, dhi, dni [W/m2]; temp_air, temp_module [C K];
+  # wind_speed [m/s km/h]; rain [mm per interval]
+  quantity = "ac_power"
+  unit = "kW"                        # unit as written (required)
+  inverter = "inv1"                  # device quantities: inverter id or "plant" ("plant")
+
+  [[loggers.columns]]
+  name = "P_WR2"
+  quantity = "ac_power"
+  unit = "kW"
+  inverter = "inv2"
+
+  [[loggers.columns]]
+  name = "P_WR3"
+  quantity = "ac_power"
+  unit = "kW"
+  inverter = "inv3"
+
+  [[loggers.columns]]
+  name = "E_Netz"
+  quantity = "energy_register"       # cumulative meter reading
+  unit = "kWh"
+  inverter = "plant"
+  # rollover = 1000000.0             # register wraps at this value, in the column's unit
+
+  [[loggers.columns]]
+  name = "G_Modul"
+  quantity = "poa"
+  unit = "W/m2"
+
+  [[loggers.columns]]
+  name = "T_Modul"
+  quantity = "temp_module"
+  unit = "C"
+
+# Weather station (invented "Nubila WS-2"): ',' with decimal point, ISO 8601 with offset,
+# {ws_interval}-minute means (rain: sum) labelled at the START of the interval, LF line ends.
+[[loggers]]
+name = "ws2"
+match = "talbrunn_ws2_*.csv"
+delimiter = ","
+decimal = "."
+preamble_lines = 0
+units_row = false
+interval_min = {ws_interval}
+sentinels = ["NaN"]
+
+  [loggers.time]
+  columns = ["time"]
+  kind = "iso"
+  label = "start"
+
+  [[loggers.columns]]
+  name = "ghi"
+  quantity = "ghi"
+  unit = "W/m2"
+
+  [[loggers.columns]]
+  name = "tamb"
+  quantity = "temp_air"
+  unit = "C"
+
+  [[loggers.columns]]
+  name = "wind"
+  quantity = "wind_speed"
+  unit = "m/s"
+
+  [[loggers.columns]]
+  name = "rain"
+  quantity = "rain"
+  unit = "mm"
+"""
+
+
+def weather_factor(interval_min: int) -> int:
+    """The weather station averages this many logger intervals (10-minute means if it can)."""
+    return 10 // interval_min if 10 % interval_min == 0 else 1
+
+
+def site_text(start: dt.date, interval_min: int = 5) -> str:
+    """The demo site file for a plant commissioned on ``start``."""
+    return SITE_TEMPLATE.format(commissioned=start.isoformat(), interval=interval_min,
+                                ws_interval=interval_min * weather_factor(interval_min))
