@@ -1,0 +1,204 @@
+"""Measured beside expected: the ``aligned`` table, one row per (interval, inverter).
+
+Stage "align". Measured AC power of an inverter comes, in this order, from its mean AC power
+readings, from its interval energy (divided by the logging interval), or from differences of
+its energy register (:func:`register_power`). Expected values, sun position and site weather
+are joined on the same interval; the quality flags of the readings behind each row come from
+the ``flags`` table through the ``aligned`` view (see ``sql/schema_30_model.sql``).
+
+:func:`refresh` is called by :func:`perfcheck.model.run`; later stages read
+:func:`load_aligned`.
+"""
+
+from __future__ import annotations
+
+import duckdb
+import pandas as pd
+
+from perfcheck import db
+from perfcheck.errors import DataError
+from perfcheck.site import Site
+
+ALIGNED_COLUMNS = (
+    "ts", "inverter_id", "interval_s", "measured_ac_w", "expected_ac_w", "potential_ac_w",
+    "expected_dc_w", "poa_wm2", "poa_modelled_wm2", "poa_source", "ghi_wm2", "clearsky_ghi_wm2",
+    "temp_air_c", "wind_speed_ms", "temp_module_c", "temp_cell_c", "rain_mm", "sun_zenith_deg",
+    "sun_azimuth_deg", "flags",
+)
+# A register step above this multiple of the inverter's AC rating times the elapsed time is a
+# reset or a replaced meter, not energy (physical bound with margin; common practice).
+REGISTER_MAX_RATING_MULTIPLE = 1.5
+CHUNK_DAYS = 31  # intervals are processed a month at a time, which bounds the memory used
+
+
+def register_power(register_wh: pd.Series, register_ts: pd.Series, interval_s: float,
+                   rollover_wh: float | None, pac0: float) -> pd.Series:
+    """Mean power between successive readings of a cumulative energy register [W].
+
+    Each value is the register's last reading within an interval (``register_ts`` its stored
+    instant). A register reading stored at an interval's start is taken as the count when that
+    interval closed (a logger writes its record, and reads the register, as the interval ends);
+    so the power of an interval is the step from the previous interval's last reading divided
+    by the time between the two readings. A negative step is a rollover when ``rollover_wh`` is
+    set (the register wraps at that value: step + rollover), else a reset (NaN). Steps spanning
+    more than 1.5 intervals (a gap) and steps above 1.5 times the rating (``pac0`` [W]) over
+    the elapsed time are NaN: their energy cannot be placed in one interval.
+
+    Parameters
+    ----------
+    register_wh : pandas.Series
+        Register readings [Wh], one per interval, in time order.
+    register_ts : pandas.Series
+        Instants of those readings (UTC).
+    interval_s : float
+        Interval [s].
+    rollover_wh : float or None
+        Value at which the register wraps to zero [Wh].
+    pac0 : float
+        AC rating of the inverter [W].
+    """
+    step = register_wh.diff()
+    elapsed = register_ts.diff().dt.total_seconds()
+    if rollover_wh is not None:
+        step = step.where(step >= 0, step + rollover_wh)
+    step = step.where(step >= 0)
+    power = step / elapsed * 3600.0
+    ok = (elapsed > 0) & (elapsed <= 1.5 * interval_s) \
+        & (power <= REGISTER_MAX_RATING_MULTIPLE * pac0)
+    return power.where(ok)
+
+
+def measured_power(raw: pd.DataFrame, site: Site, interval_s: float) -> pd.DataFrame:
+    """Measured AC power per (ts, inverter_id) from the per-interval readings of
+    ``sql/align_measured.sql`` [W]: AC power, else interval energy, else register steps."""
+    energy_s = _column_intervals(site, "energy_interval")
+    rollover = {c.device: c.rollover_wh for lg in site.loggers for c in lg.columns
+                if c.quantity == "energy_register"}
+    parts = []
+    for inv_id, g in raw.groupby("inverter_id", sort=False):
+        if inv_id not in {i.id for i in site.inverters}:
+            continue
+        pac0 = site.inverter(str(inv_id)).ac_kw * 1000.0
+        from_energy = g["energy_interval_wh"] / (energy_s.get(inv_id, interval_s) / 3600.0)
+        reg = register_power(g["register_wh"], g["register_ts"], interval_s,
+                             rollover.get(inv_id), pac0)
+        parts.append(pd.DataFrame({
+            "ts": g["ts"], "inverter_id": inv_id,
+            "measured_ac_w": g["ac_power_w"].fillna(from_energy).fillna(reg),
+        }))
+    if not parts:
+        return pd.DataFrame({"ts": pd.Series([], dtype="datetime64[us, UTC]"),
+                             "inverter_id": pd.Series([], dtype=str),
+                             "measured_ac_w": pd.Series([], dtype=float)})
+    return pd.concat(parts, ignore_index=True)
+
+
+def _column_intervals(site: Site, quantity: str) -> dict[str, float]:
+    """Logging interval [s] of each inverter's column of ``quantity``."""
+    return {c.device: lg.interval_min * 60.0 for lg in site.loggers for c in lg.columns
+            if c.quantity == quantity}
+
+
+def first_row(con: duckdb.DuckDBPyConnection, query: str, params: object = None) -> tuple | None:
+    """The first row of a query, with the result consumed (DuckDB refuses other work on a
+    connection while a result is still open)."""
+    rows = con.execute(query, params).fetchall()
+    return rows[0] if rows else None
+
+
+def changed_span(con: duckdb.DuckDBPyConnection, last_file_id: int, interval_s: int
+                 ) -> tuple[pd.Timestamp, pd.Timestamp] | None:
+    """Interval starts [start, end) touched by readings of files after ``last_file_id``."""
+    first, last = first_row(con, db.sql("align_changed_span"), {"file_id": last_file_id})
+    if first is None:
+        return None
+    start = pd.Timestamp(first).tz_convert("UTC").floor(f"{interval_s}s")
+    end = pd.Timestamp(last).tz_convert("UTC").floor(f"{interval_s}s") \
+        + pd.Timedelta(seconds=interval_s)
+    return start, end
+
+
+def chunks(start: pd.Timestamp, end: pd.Timestamp, days: int = CHUNK_DAYS
+           ) -> list[tuple[pd.Timestamp, pd.Timestamp]]:
+    """[start, end) cut into consecutive pieces of at most ``days`` days (bounded memory)."""
+    edges = list(pd.date_range(start, end, freq=f"{days}D")) + [end]
+    return [(a, b) for a, b in zip(edges[:-1], edges[1:], strict=True) if b > a]
+
+
+def refresh(con: duckdb.DuckDBPyConnection, site: Site, model_run_id: int, interval_s: int,
+            latest_file_id: int) -> int:
+    """Bring ``aligned_base`` up to date with model run ``model_run_id``; returns rows written.
+
+    Rebuilds everything when the table holds another run, else only the intervals touched by
+    readings that arrived since the last refresh (one interval more, for register steps).
+    """
+    state = first_row(con, "SELECT model_run_id, last_file_id FROM align_state")
+    same = state is not None and state[0] == model_run_id
+    if not same:
+        con.execute("DELETE FROM aligned_base")
+    span = changed_span(con, state[1] if same else 0, interval_s)
+    rows = 0
+    if span is not None:
+        end = span[1] + pd.Timedelta(seconds=interval_s)
+        for a, b in chunks(span[0], end):
+            rows += _rebuild(con, site, model_run_id, interval_s, a, b)
+    con.execute("DELETE FROM align_state")
+    con.execute("INSERT INTO align_state VALUES (?, ?)", [model_run_id, latest_file_id])
+    return rows
+
+
+def _rebuild(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, interval_s: int,
+             start: pd.Timestamp, end: pd.Timestamp) -> int:
+    span = {"start": start, "end": end}
+    lookback = {"iv": interval_s, "start": start - pd.Timedelta(seconds=interval_s), "end": end}
+    raw = con.execute(db.sql("align_measured"), lookback).df()
+    meas = measured_power(raw, site, interval_s)
+    meas = meas[meas["ts"] >= start]
+    con.execute(db.sql("align_delete_span"), span)
+    con.register("_measured", meas)
+    try:
+        rows = first_row(con, db.sql("align_build"), {"id": run_id, "iv": interval_s, **span})
+    finally:
+        con.unregister("_measured")
+    return int(rows[0]) if rows else 0
+
+
+def load_aligned(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp | None = None,
+                 end: pd.Timestamp | None = None) -> pd.DataFrame:
+    """The aligned rows (columns of the data contract) between ``start`` and ``end``.
+
+    Parameters
+    ----------
+    con : duckdb.DuckDBPyConnection
+    site : Site
+    start, end : pandas.Timestamp, optional
+        Tz-aware bounds; ``end`` is exclusive. Default: everything.
+
+    Raises DataError when nothing has been aligned yet.
+    """
+    if first_row(con, "SELECT count(*) FROM align_state")[0] == 0:
+        raise DataError(f"{site.path}: no expected series yet (run 'perfcheck model' first)")
+    lo = pd.Timestamp("1900-01-01", tz="UTC") if start is None else _utc(start, "start")
+    hi = pd.Timestamp("2200-01-01", tz="UTC") if end is None else _utc(end, "end")
+    df = con.execute(db.sql("align_load"), {"start": lo, "end": hi}).df()
+    df["ts"] = pd.to_datetime(df["ts"], utc=True)
+    for c in ("measured_ac_w", "expected_ac_w", "potential_ac_w", "expected_dc_w"):
+        df[c] = df[c].astype(float)
+    return df[list(ALIGNED_COLUMNS)]
+
+
+def _utc(t: pd.Timestamp, name: str) -> pd.Timestamp:
+    t = pd.Timestamp(t)
+    if t.tzinfo is None:
+        raise ValueError(f"load_aligned: {name} must be tz-aware, got {t}")
+    return t.tz_convert("UTC")
+
+
+def monthly_summary(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
+    """Expected and measured AC energy per inverter and site-local month, and the plant total.
+
+    Columns ``inverter_id`` ('plant' for the sum), ``month`` (YYYY-MM), ``expected_kwh``,
+    ``measured_kwh``, ``ratio`` (measured / expected over intervals that have both),
+    ``coverage`` (share of the expected energy that has a measurement).
+    """
+    return con.execute(db.sql("align_monthly"), {"tz": site.timezone}).df()

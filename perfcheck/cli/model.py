@@ -1,0 +1,63 @@
+"""``perfcheck model``: build or refresh the expected series and show it beside the measured."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import click
+import pandas as pd
+
+from perfcheck import align, db, model, progress
+from perfcheck.cli.common import site_argument
+from perfcheck.site import Site
+
+
+def _num(v: float, fmt: str) -> str:
+    return "-" if v is None or (isinstance(v, float) and math.isnan(v)) else format(v, fmt)
+
+
+def format_summary(summary: pd.DataFrame) -> str:
+    """The per-inverter monthly table (as printed by ``perfcheck model`` and the demo)."""
+    lines = [f"{'inverter':<12} {'month':<8} {'expected kWh':>13} {'measured kWh':>13} "
+             f"{'measured/expected':>18} {'coverage':>9}"]
+    for r in summary.itertuples(index=False):
+        lines.append(f"{r.inverter_id:<12} {r.month:<8} {_num(r.expected_kwh, '13.1f')} "
+                     f"{_num(r.measured_kwh, '13.1f')} {_num(r.ratio, '18.3f')} "
+                     f"{_num(r.coverage, '9.1%')}")
+    return "\n".join(lines)
+
+
+@click.command("model")
+@site_argument
+@click.option("--quiet", is_flag=True, help="No progress bar (there is none without a terminal).")
+def model_command(site: Site, db_path: Path, quiet: bool) -> None:
+    """Build or refresh the expected power series from the stored weather and the site's
+    design, align it with the measured power, and print expected against measured energy
+    per inverter and month (site-local months).
+
+    Only intervals with readings that arrived since the last run are computed; a change of
+    the design or the model settings in the site file starts a new, separately stored run.
+    The ratio uses the intervals where both values exist; coverage is the share of the
+    expected energy that has a measurement.
+
+    \b
+    Example:
+      perfcheck model site.toml --db site.duckdb
+    """
+    con = db.connect(db_path)
+    try:
+        with progress.bar("model", None, quiet) as bar:
+            res = model.run(con, site, progress=bar.step)
+        if res["computed_from"] is None:
+            click.echo(f"model run {res['model_run_id']}: no new readings, nothing recomputed")
+        else:
+            click.echo(f"model run {res['model_run_id']}: {res['rows']} rows from "
+                       f"{res['computed_from']:%Y-%m-%d %H:%M} to "
+                       f"{res['computed_to']:%Y-%m-%d %H:%M} UTC")
+        click.echo(format_summary(align.monthly_summary(con, site)))
+    finally:
+        con.close()
+
+
+COMMANDS = [model_command]

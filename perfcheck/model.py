@@ -1,0 +1,508 @@
+"""The expected series: from site weather and design to expected DC and AC power per inverter.
+
+Stage "model". The physics lives in :mod:`perfcheck.physics`; this module chooses the irradiance
+source, runs the chain per array and inverter (:func:`expected_power`, pure), and stores the
+result (:func:`run`, the only function here that touches DuckDB).
+
+Choices (all from the site file, ``[model]`` and ``[losses]``):
+
+* Sun position once per site and time axis, at interval mid-points (see
+  :func:`perfcheck.physics.interval_midpoints`), shared by every inverter.
+* Irradiance source ``auto`` uses the plane-of-array sensor where one is logged, else GHI.
+  The sensor plane defaults to the first array's plane. An array in the sensor's plane takes the
+  sensor's reading (``poa_source = 'sensor'``; in ``auto`` intervals without a reading fall back
+  to the model); an array in another plane is transposed from GHI (+ DHI/DNI where measured) when
+  GHI is logged, else from the components that explain the sensor's reading (GTI-DIRINT, Marion
+  2015), i.e. decomposed and transposed again. The modelled POA is kept beside the sensor's,
+  and their daily ratio is summarised in the run's checks.
+* Incidence-angle losses apply to modelled irradiance and to a pyranometer's reading (scaled by
+  the modelled ratio of effective to total POA); a reference cell's reading is taken as the
+  effective irradiance.
+* Cell temperature: a logged back-of-module temperature applies to every array (the site
+  file maps one per site); intervals without it, and sites without one, use the site's
+  ``temperature_model`` (SAPM by mounting and construction, or Faiman) from ambient
+  temperature, wind (1 m/s where none is logged) and the array's POA.
+* Intervals: the model runs at the interval of the loggers that record inverter power (the
+  shortest, if several); finer weather readings are averaged into it, coarser ones held over
+  their own interval (:func:`hold_coarse_weather`).
+* Long spans are computed a month at a time (bounded memory); only intervals touched by new
+  readings are recomputed, per parameter set (``model_runs``, keyed by the hash of
+  :func:`parameters`).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import hashlib
+import json
+from collections.abc import Callable
+from typing import Any
+
+import duckdb
+import numpy as np
+import pandas as pd
+import pvlib
+
+from perfcheck import __version__, align, db
+from perfcheck import physics as ph
+from perfcheck.errors import DataError
+from perfcheck.site import DEVICE_QUANTITIES, Array, Inverter, Site
+
+# Bump when a change of the code changes the expected series: cached runs are then not reused.
+MODEL_VERSION = "1"
+DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
+PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
+
+# weather stored beside the sun in model_conditions, as the model used it
+CONDITION_COLUMNS = ("ghi_wm2", "temp_air_c", "wind_speed_ms", "temp_module_c", "rain_mm")
+# readings quantity -> pvlib name in the weather frame
+WEATHER = {
+    "ghi_wm2": "ghi",
+    "dhi_wm2": "dhi",
+    "dni_wm2": "dni",
+    "poa_wm2": "poa_sensor",
+    "temp_air_c": "temp_air",
+    "temp_module_c": "temp_module",
+    "wind_speed_ms": "wind_speed",
+    "rain_mm": "rain",
+}
+
+
+# --------------------------------------------------------------------------------------------
+# parameters
+
+
+def interval_s(site: Site) -> int:
+    """The model's interval [s]: the shortest interval of the loggers that record inverter or
+    plant power and energy (of all loggers if none does)."""
+    power = [lg.interval_min for lg in site.loggers
+             if any(c.quantity in DEVICE_QUANTITIES for c in lg.columns)]
+    return min(power or [lg.interval_min for lg in site.loggers]) * 60
+
+
+def weather_intervals(site: Site) -> dict[str, int]:
+    """Logging interval [s] of each site-weather quantity (pvlib names), shortest if several
+    loggers record it."""
+    out: dict[str, int] = {}
+    for lg in site.loggers:
+        for c in lg.columns:
+            if c.device == "site":
+                name = WEATHER[c.stored]
+                out[name] = min(out.get(name, lg.interval_min * 60), lg.interval_min * 60)
+    return out
+
+
+def hold_coarse_weather(weather: pd.DataFrame, step_s: int, intervals: dict[str, int]
+                        ) -> pd.DataFrame:
+    """Weather logged at a longer interval than the model's, held over its own interval.
+
+    A mean over a logger interval applies to each model interval inside it (a 10-minute mean
+    starting at 12:00 also stands for 12:05 in a 5-minute model). Rain, a sum per interval, is
+    not held (the daily sums stay right). Readings finer than the model were averaged already.
+    """
+    coarse = {c: iv // step_s for c, iv in intervals.items()
+              if iv > step_s and c in weather and c != "rain"}
+    if not coarse or weather.empty:
+        return weather
+    full = weather.asfreq(pd.Timedelta(seconds=step_s))
+    for c, k in coarse.items():
+        full[c] = full[c].ffill(limit=k - 1)
+    return full.dropna(how="all")
+
+
+def parameters(site: Site) -> dict[str, Any]:
+    """Everything that determines the expected series, as plain JSON-able values."""
+    return {
+        "model_version": MODEL_VERSION,
+        "latitude_deg": site.latitude_deg,
+        "longitude_deg": site.longitude_deg,
+        "altitude_m": site.altitude_m,
+        "commissioned": site.commissioned.isoformat(),
+        "export_limit_kw": site.export_limit_kw,
+        "interval_s": interval_s(site),
+        "inverters": [dataclasses.asdict(inv) for inv in site.inverters],
+        "losses": dataclasses.asdict(site.losses),
+        "model": dataclasses.asdict(site.model),
+        "defaults": {"wind_speed_ms": DEFAULT_WIND_SPEED, "inverter_eta_ref": 0.9637,
+                     "sapm_substitutes": ph.SAPM_SUBSTITUTES},
+        "pvlib": pvlib.__version__,
+    }
+
+
+def parameters_hash(params: dict[str, Any]) -> str:
+    """SHA-256 of the parameters' canonical JSON."""
+    text = json.dumps(params, sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def versions() -> dict[str, str]:
+    """Versions of the code behind a run."""
+    return {"perfcheck": __version__, "model": MODEL_VERSION, "pvlib": pvlib.__version__,
+            "numpy": np.__version__, "pandas": pd.__version__, "duckdb": duckdb.__version__}
+
+
+def sensor_plane(site: Site) -> tuple[float, float]:
+    """(tilt, azimuth) of the plane-of-array sensor [deg]: as configured, else the first array's."""
+    first = site.inverters[0].arrays[0]
+    m = site.model
+    tilt = first.tilt_deg if m.poa_sensor_tilt_deg is None else m.poa_sensor_tilt_deg
+    az = first.azimuth_deg if m.poa_sensor_azimuth_deg is None else m.poa_sensor_azimuth_deg
+    return tilt, az
+
+
+def sensor_array(site: Site) -> Array:
+    """The first array in the sensor's plane (its albedo and horizon are the sensor's), else
+    the first array."""
+    arrays = [a for inv in site.inverters for a in inv.arrays]
+    return next((a for a in arrays if in_plane(a, sensor_plane(site))), arrays[0])
+
+
+def in_plane(array: Array, plane: tuple[float, float]) -> bool:
+    """True when the array lies in ``plane`` (tilt, azimuth) within PLANE_TOLERANCE_DEG."""
+    d_az = abs((array.azimuth_deg - plane[1] + 180.0) % 360.0 - 180.0)
+    flat = array.tilt_deg < PLANE_TOLERANCE_DEG and plane[0] < PLANE_TOLERANCE_DEG
+    return abs(array.tilt_deg - plane[0]) <= PLANE_TOLERANCE_DEG and (d_az <= PLANE_TOLERANCE_DEG
+                                                                      or flat)
+
+
+# --------------------------------------------------------------------------------------------
+# the chain (pure)
+
+
+def site_sun(times: pd.DatetimeIndex, site: Site, step_s: float) -> pd.DataFrame:
+    """Sun position, air mass, extraterrestrial and clear-sky irradiance for interval starts.
+
+    Computed at the interval mid-points, indexed by the interval starts ``times``.
+    """
+    pressure = float(pvlib.atmosphere.alt2pres(site.altitude_m))
+    mid = ph.interval_midpoints(times, step_s)
+    sun = ph.solar_position(mid, site.latitude_deg, site.longitude_deg, site.altitude_m, pressure)
+    sun = sun.join(ph.atmosphere(sun, pressure))
+    sun["clearsky_ghi"] = ph.clearsky_ghi(sun, site.latitude_deg, site.longitude_deg,
+                                          site.altitude_m, sun["airmass_absolute"],
+                                          sun["dni_extra"])
+    sun.index = times
+    return sun
+
+
+def irradiance_source(site: Site, weather: pd.DataFrame) -> str:
+    """``sensor`` or ``ghi``: where plane-of-array irradiance comes from for this data.
+
+    Raises DataError when the configured source has no readings.
+    """
+    has = {c: c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")}
+    choice = site.model.irradiance_source
+    if choice == "poa_sensor" and not has["poa_sensor"]:
+        raise DataError(f"{site.path}: model.irradiance_source is 'poa_sensor' but no poa_wm2 "
+                        "readings are stored (map a 'poa' column in [[loggers]])")
+    if choice == "ghi" and not has["ghi"]:
+        raise DataError(f"{site.path}: model.irradiance_source is 'ghi' but no ghi_wm2 readings "
+                        "are stored (map a 'ghi' column in [[loggers]])")
+    if not has["poa_sensor"] and not has["ghi"]:
+        raise DataError(f"{site.path}: no irradiance readings (poa_wm2 or ghi_wm2) in the "
+                        "database: the expected series needs one")
+    if choice == "auto":
+        return "sensor" if has["poa_sensor"] else "ghi"
+    return "sensor" if choice == "poa_sensor" else "ghi"
+
+
+def horizontal_components(weather: pd.DataFrame, sun: pd.DataFrame, site: Site
+                          ) -> pd.DataFrame:
+    """GHI, DNI, DHI for transposition: measured (completed by decomposition), else GTI-DIRINT."""
+    pressure = float(pvlib.atmosphere.alt2pres(site.altitude_m))
+    if "ghi" in weather and weather["ghi"].notna().any():
+        return ph.complete_components(weather["ghi"], sun["zenith"], weather.get("dhi"),
+                                      weather.get("dni"), site.model.decomposition, pressure)
+    tilt, az = sensor_plane(site)
+    return ph.components_from_poa(weather["poa_sensor"], tilt, az, sun, pressure,
+                                  sensor_array(site).albedo)
+
+
+def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
+                     weather: pd.DataFrame, site: Site, source: str) -> pd.DataFrame:
+    """POA (total, effective, modelled) and its source for one array.
+
+    Returns ``poa_global``, ``poa_effective``, ``poa_modelled`` [W/m^2] and ``from_sensor``
+    (bool).
+    """
+    m = site.model
+    mod = ph.poa_components(array.tilt_deg, array.azimuth_deg, sun, comps["ghi"], comps["dni"],
+                            comps["dhi"], sun["dni_extra"], sun["airmass_relative"],
+                            array.albedo, array.horizon, m.transposition, m.iam)
+    from_sensor = pd.Series(False, index=sun.index)
+    glob, eff = mod["poa_global"], mod["poa_effective"]
+    if source == "sensor" and in_plane(array, sensor_plane(site)):
+        sensor = weather["poa_sensor"]
+        from_sensor = sensor.notna()
+        if m.poa_sensor_kind == "reference_cell":
+            ratio = pd.Series(1.0, index=sun.index)
+        else:
+            ratio = (mod["poa_effective"] / mod["poa_global"]).where(mod["poa_global"] > 0, 1.0)
+        sensor_eff = sensor * ratio.fillna(1.0)
+        if m.irradiance_source == "auto":
+            glob, eff = sensor.fillna(glob), sensor_eff.fillna(eff)
+        else:
+            glob, eff = sensor, sensor_eff
+    return pd.DataFrame({"poa_global": glob, "poa_effective": eff,
+                         "poa_modelled": mod["poa_global"], "from_sensor": from_sensor})
+
+
+def array_temperature(array: Array, irr: pd.DataFrame, weather: pd.DataFrame, site: Site
+                      ) -> pd.Series:
+    """Cell temperature of one array [C] (measured module temperature where logged)."""
+    wind = weather["wind_speed"] if "wind_speed" in weather else None
+    if wind is None or wind.isna().all():
+        wind = pd.Series(DEFAULT_WIND_SPEED, index=weather.index)
+    temp_air = weather.get("temp_air", pd.Series(np.nan, index=weather.index))
+    return ph.cell_temperature(irr["poa_global"], temp_air, wind, array.mounting,
+                               array.construction, site.model.temperature_model,
+                               weather.get("temp_module"))
+
+
+def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: pd.DataFrame,
+                site: Site, source: str, loss_factor: np.ndarray,
+                planes: dict[tuple, tuple[pd.DataFrame, pd.Series]]) -> pd.DataFrame:
+    """DC power of an inverter (sum over its arrays) and DC-rating-weighted plane quantities.
+
+    ``planes`` caches irradiance and cell temperature per distinct plane and mounting, so
+    arrays that share them are computed once.
+    """
+    total = inv.dc_kwp
+    out: pd.DataFrame | None = None
+    sensor_all = pd.Series(True, index=sun.index)
+    for array in inv.arrays:
+        key = (array.tilt_deg, array.azimuth_deg, array.albedo, array.horizon, array.mounting,
+               array.construction)
+        if key not in planes:
+            irr = array_irradiance(array, sun, comps, weather, site, source)
+            planes[key] = irr, array_temperature(array, irr, weather, site)
+        irr, temp_cell = planes[key]
+        dc = ph.dc_power(irr["poa_effective"], temp_cell, array.dc_kwp * 1000.0,
+                         array.gamma_pct_per_c / 100.0, loss_factor)
+        w = array.dc_kwp / total
+        frame = pd.DataFrame({
+            "poa_global": irr["poa_global"] * w,
+            "poa_effective": irr["poa_effective"] * w,
+            "poa_modelled": irr["poa_modelled"] * w,
+            "temp_cell": temp_cell * w,
+            "dc": dc,
+        })
+        out = frame if out is None else out + frame
+        sensor_all &= irr["from_sensor"]
+    assert out is not None
+    out["poa_source"] = np.where(sensor_all, "sensor", "model")
+    return out
+
+
+def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.DataFrame:
+    """The expected series of every inverter, long format.
+
+    Parameters
+    ----------
+    weather : pandas.DataFrame
+        Interval means on interval starts (UTC): ``ghi``, ``dhi``, ``dni``, ``poa_sensor``
+        [W/m^2], ``temp_air``, ``temp_module`` [C], ``wind_speed`` [m/s]; absent columns are
+        treated as not measured.
+    sun : pandas.DataFrame
+        From :func:`site_sun` on the same index.
+    site : Site
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``ts``, ``inverter_id``, ``poa_global_wm2``, ``poa_effective_wm2``,
+        ``poa_modelled_wm2``, ``poa_source``, ``temp_cell_c``, ``dc_w``, ``ac_potential_w``,
+        ``ac_w`` (AC rating and plant export limit applied).
+    """
+    source = irradiance_source(site, weather)
+    comps = horizontal_components(weather, sun, site)
+    loss = site.losses.dc_factor * ph.age_factor(
+        sun.index, site.commissioned, site.losses.degradation_pct_per_year)
+    per_inv: dict[str, pd.DataFrame] = {}
+    planes: dict[tuple, tuple[pd.DataFrame, pd.Series]] = {}
+    for inv in site.inverters:
+        d = inverter_dc(inv, sun, comps, weather, site, source, loss, planes)
+        ac = ph.ac_power(d["dc"], inv.ac_kw * 1000.0, inv.efficiency_pct / 100.0,
+                         inv.night_tare_w)
+        per_inv[inv.id] = d.join(ac)
+    limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
+    limited = ph.export_limited(pd.DataFrame({k: v["ac"] for k, v in per_inv.items()}), limit)
+    frames = []
+    for inv_id, d in per_inv.items():
+        frames.append(pd.DataFrame({
+            "ts": d.index,
+            "inverter_id": inv_id,
+            "poa_global_wm2": d["poa_global"].to_numpy(),
+            "poa_effective_wm2": d["poa_effective"].to_numpy(),
+            "poa_modelled_wm2": d["poa_modelled"].to_numpy(),
+            "poa_source": d["poa_source"].to_numpy(),
+            "temp_cell_c": d["temp_cell"].to_numpy(),
+            "dc_w": d["dc"].to_numpy(),
+            "ac_potential_w": d["ac_potential"].to_numpy(),
+            "ac_w": limited[inv_id].to_numpy(),
+        }))
+    return pd.concat(frames, ignore_index=True)
+
+
+CLEAR_SKY_INDEX = 0.7  # intervals this close to clear sky are compared (common practice)
+
+
+def daily_irradiation(measured: pd.Series, modelled: pd.Series, solar_zenith: pd.Series,
+                      clear_sky_index: pd.Series, tz: str) -> pd.DataFrame:
+    """Daily sums of measured and modelled POA irradiance over near-clear daylight intervals.
+
+    Only intervals with the sun above 20 degrees (zenith < 70), a clear-sky index (GHI over
+    clear-sky GHI) of at least ``CLEAR_SKY_INDEX`` and both values present count: under cloud
+    and at low sun the split of GHI into beam and diffuse (Erbs's model sees only the
+    clearness index, not the air mass), and so the modelled POA, is uncertain by more than a
+    sensor's calibration. Columns ``measured``, ``modelled`` (sums of interval means
+    [W/m^2]), index: site-local date.
+    """
+    ok = (solar_zenith < 70) & (clear_sky_index >= CLEAR_SKY_INDEX) & measured.notna() \
+        & modelled.notna() & (modelled > 0)
+    frame = pd.DataFrame({"measured": measured.where(ok, 0.0), "modelled": modelled.where(ok, 0.0),
+                          "day": measured.index.tz_convert(tz).date})
+    return frame[ok.to_numpy()].groupby("day").sum()
+
+
+def poa_plausibility(daily: pd.DataFrame) -> dict[str, Any]:
+    """The daily ratio of the sensor's POA irradiation to the modelled one, summarised.
+
+    ``daily`` from :func:`daily_irradiation` (pieces may be concatenated). Reported: the
+    ratio over all days, the median and 10/90 % quantiles of the daily ratio, and its median
+    per month: the model's own error changes with the season (low sun), so a sensor that
+    drifts, sticks or is shaded shows as a month that departs from its neighbours. Finding
+    such faults is the sensor detector's job; this is the record of the cross-check.
+    """
+    daily = daily.groupby(level=0).sum()
+    daily = daily[daily["modelled"] > 0]
+    if daily.empty:
+        return {"days": 0}
+    ratio = daily["measured"] / daily["modelled"]
+    month = pd.DatetimeIndex(pd.to_datetime(ratio.index)).strftime("%Y-%m")
+    monthly = ratio.groupby(month).median()
+    return {"days": int(len(ratio)), "median_ratio": float(ratio.median()),
+            "p10": float(ratio.quantile(0.1)), "p90": float(ratio.quantile(0.9)),
+            "total_ratio": float(daily["measured"].sum() / daily["modelled"].sum()),
+            "monthly_median_ratio": {k: round(float(v), 4) for k, v in monthly.items()}}
+
+
+# --------------------------------------------------------------------------------------------
+# the stage (DuckDB)
+
+
+def load_weather(con: duckdb.DuckDBPyConnection, step_s: int, start: pd.Timestamp,
+                 end: pd.Timestamp) -> pd.DataFrame:
+    """Site weather averaged into model intervals (rain summed), pvlib column names."""
+    df = con.execute(db.sql("model_weather"), {"iv": step_s, "start": start, "end": end}).df()
+    df = df.set_index(pd.DatetimeIndex(df.pop("ts")).tz_convert("UTC"))
+    return df.rename(columns=WEATHER).astype(float)
+
+
+def _run_record(con: duckdb.DuckDBPyConnection, params: dict[str, Any]) -> tuple[int, int]:
+    """(model_run_id, last_file_id) of the run with these parameters, created if new."""
+    h = parameters_hash(params)
+    row = align.first_row(con, db.sql("model_run_find"), [h])
+    if row:
+        return int(row[0]), int(row[1])
+    run_id = align.first_row(con, db.sql("model_run_insert"), {
+        "hash": h, "params": json.dumps(params, sort_keys=True),
+        "versions": json.dumps(versions(), sort_keys=True),
+        "now": dt.datetime.now(dt.UTC)})[0]
+    return int(run_id), 0
+
+
+def run(con: duckdb.DuckDBPyConnection, site: Site,
+        progress: Callable[[str], None] | None = None) -> dict[str, Any]:
+    """Build or refresh the expected series and the aligned table for the stored readings.
+
+    Only intervals touched by readings that arrived since the last run with the same
+    parameters are computed. Returns a summary: ``model_run_id``, ``computed_from``,
+    ``computed_to`` (None when nothing was new), ``rows``, ``checks``.
+
+    Raises DataError when there are no readings or no irradiance readings.
+    """
+    say = progress or (lambda _msg: None)
+    params = parameters(site)
+    step = params["interval_s"]
+    latest = align.first_row(con, "SELECT max(file_id) FROM readings")[0]
+    if latest is None:
+        raise DataError(f"{site.path}: no readings in the database yet (run 'perfcheck ingest' "
+                        "first)")
+    has_irradiance = align.first_row(con, db.sql("model_has_irradiance"))[0]
+    if not has_irradiance:
+        raise DataError(f"{site.path}: no irradiance readings (poa_wm2 or ghi_wm2) in the "
+                        "database: the expected series needs one (map a 'poa' or 'ghi' column "
+                        "in [[loggers]])")
+    con.begin()
+    try:
+        run_id, last_file = _run_record(con, params)
+        span = align.changed_span(con, last_file, step)
+        result: dict[str, Any] = {"model_run_id": run_id, "computed_from": None,
+                                  "computed_to": None, "rows": 0, "checks": None}
+        if span is not None:
+            start, end = span
+            say(f"model: {start:%Y-%m-%d} to {end:%Y-%m-%d}")
+            parts = [_compute(con, site, run_id, step, a, b) for a, b in align.chunks(start, end)]
+            daily = [p["daily"] for p in parts if p["daily"] is not None]
+            result.update(computed_from=start, computed_to=end,
+                          rows=sum(p["rows"] for p in parts),
+                          checks=None if not daily else
+                          {"poa_sensor_vs_model": poa_plausibility(pd.concat(daily)),
+                           "from": start.isoformat(), "to": end.isoformat()})
+        con.execute(db.sql("model_run_update"), {"id": run_id, "file_id": int(latest),
+                                                  "now": dt.datetime.now(dt.UTC),
+                                                  "checks": json.dumps(result["checks"])
+                                                  if result["checks"] is not None else None})
+        say("align")
+        align.refresh(con, site, run_id, step, int(latest))
+        con.commit()
+    except BaseException:
+        con.rollback()
+        raise
+    return result
+
+
+def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
+             start: pd.Timestamp, end: pd.Timestamp) -> dict[str, Any]:
+    intervals = weather_intervals(site)
+    back = pd.Timedelta(seconds=max(intervals.values(), default=step))
+    weather = hold_coarse_weather(load_weather(con, step, start - back, end), step, intervals)
+    weather = weather[weather.index >= start]
+    if weather.empty:
+        return {"rows": 0, "daily": None}
+    sun = site_sun(weather.index, site, step)
+    exp = expected_power(weather, sun, site)
+    exp["model_run_id"] = run_id
+    cond = pd.DataFrame({
+        "ts": sun.index, "model_run_id": run_id,
+        "sun_zenith_deg": sun["apparent_zenith"].to_numpy(),
+        "sun_azimuth_deg": sun["azimuth"].to_numpy(),
+        "clearsky_ghi_wm2": sun["clearsky_ghi"].to_numpy(),
+        **{q: weather[name].to_numpy() for q, name in WEATHER.items()
+           if q in CONDITION_COLUMNS},
+    })
+    bounds = {"id": run_id, "start": start, "end": end}
+    con.execute(db.sql("model_delete_expected"), bounds)
+    con.execute(db.sql("model_delete_conditions"), bounds)
+    con.register("_expected_new", exp)
+    con.register("_conditions_new", cond)
+    try:
+        con.execute("INSERT INTO expected BY NAME SELECT * FROM _expected_new")
+        con.execute("INSERT INTO model_conditions BY NAME SELECT * FROM _conditions_new")
+    finally:
+        con.unregister("_expected_new")
+        con.unregister("_conditions_new")
+    daily = None
+    if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
+        tilt, az = sensor_plane(site)
+        ref = sensor_array(site)
+        comps = horizontal_components(weather, sun, site)
+        modelled = ph.poa_components(tilt, az, sun, comps["ghi"], comps["dni"], comps["dhi"],
+                                     sun["dni_extra"], sun["airmass_relative"], ref.albedo,
+                                     ref.horizon, site.model.transposition, "none")["poa_global"]
+        csi = weather["ghi"] / sun["clearsky_ghi"].where(sun["clearsky_ghi"] > 0)
+        daily = daily_irradiation(weather["poa_sensor"], modelled, sun["zenith"], csi,
+                                  site.timezone)
+    return {"rows": len(exp), "daily": daily}

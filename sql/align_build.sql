@@ -1,0 +1,18 @@
+-- Aligned rows of run $id for interval starts in [$start, $end): expected beside the measured
+-- power in _measured (registered by perfcheck.align), with the sun and weather of the interval
+-- as the model used them. $iv interval [s].
+INSERT INTO aligned_base BY NAME
+WITH e AS (
+    SELECT * FROM expected WHERE model_run_id = $id AND ts >= $start AND ts < $end
+), j AS (
+    SELECT coalesce(e.ts, m.ts) AS ts, coalesce(e.inverter_id, m.inverter_id) AS inverter_id,
+           m.measured_ac_w, e.ac_w AS expected_ac_w, e.ac_potential_w AS potential_ac_w,
+           e.dc_w AS expected_dc_w, e.poa_global_wm2 AS poa_wm2, e.poa_modelled_wm2,
+           e.poa_source, e.temp_cell_c
+    FROM e FULL JOIN _measured m ON m.ts = e.ts AND m.inverter_id = e.inverter_id
+)
+SELECT j.*, $iv AS interval_s, $id AS model_run_id, c.ghi_wm2, c.temp_air_c,
+       c.wind_speed_ms, c.temp_module_c, c.rain_mm, c.sun_zenith_deg, c.sun_azimuth_deg,
+       c.clearsky_ghi_wm2
+FROM j
+LEFT JOIN model_conditions c ON c.model_run_id = $id AND c.ts = j.ts;

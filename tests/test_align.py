@@ -1,0 +1,132 @@
+"""The align stage: measured power from each kind of reading, flags, loading, monthly sums."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from model_fixtures import clear_days, make_site, open_db, store
+from numpy.testing import assert_allclose
+
+from perfcheck import align, model
+from perfcheck.cli import main
+from perfcheck.errors import DataError
+
+
+def _ts(*hhmm: str) -> pd.Series:
+    return pd.Series(pd.to_datetime([f"2024-06-01 {t}" for t in hhmm], utc=True))
+
+
+def test_register_power_rollover_reset_and_gaps():
+    # Steps of a cumulative register: 250 Wh per 15 min = 1000 W. Row 2 wraps at 1e6 Wh
+    # (rollover), row 4 jumps by 599,750 Wh (a replaced meter), row 6 follows a gap.
+    reg = pd.Series([999_500.0, 999_750.0, 0.0, 250.0, 600_000.0, 600_250.0, 600_750.0])
+    ts = _ts("10:14", "10:29", "10:44", "10:59", "11:14", "11:29", "12:14")
+    p = align.register_power(reg, ts, 900, 1_000_000.0, 5000.0)
+    assert np.isnan(p.iloc[0])  # no previous reading
+    assert_allclose(p.iloc[[1, 2, 3, 5]], [1000.0] * 4)
+    assert np.isnan(p.iloc[4])  # 599,750 Wh in 15 min: far above 1.5 x 5 kW
+    assert np.isnan(p.iloc[6])  # 45 minutes since the previous reading: cannot be placed
+    reset = align.register_power(pd.Series([5000.0, 100.0, 350.0]), ts.iloc[:3], 900, None,
+                                 5000.0)
+    assert np.isnan(reset.iloc[1]) and reset.iloc[2] == 1000.0
+
+
+def test_measured_power_prefers_ac_then_energy_then_register(tmp_path):
+    site = make_site(tmp_path)
+    ts = _ts("10:00", "10:15", "10:30")
+    raw = pd.DataFrame({
+        "ts": list(ts) * 2, "inverter_id": ["INV1"] * 3 + ["INV2"] * 3,
+        "ac_power_w": [1000.0, np.nan, np.nan, np.nan, np.nan, np.nan],
+        "energy_interval_wh": [np.nan, 300.0, np.nan, np.nan, np.nan, np.nan],
+        "register_wh": [np.nan, np.nan, np.nan, 0.0, 500.0, 1000.0],
+        "register_ts": list(ts) * 2,
+    })
+    out = align.measured_power(raw, site, 900).set_index(["inverter_id", "ts"])
+    inv1 = out.loc["INV1", "measured_ac_w"]
+    assert_allclose(inv1.iloc[:2], [1000.0, 1200.0])  # 300 Wh per 15 min = 1200 W
+    assert np.isnan(inv1.iloc[2])
+    assert_allclose(out.loc["INV2", "measured_ac_w"].iloc[1:], [2000.0, 2000.0])
+
+
+def _stored_site(tmp_path):
+    site = make_site(tmp_path)
+    con = open_db(tmp_path)
+    w = clear_days("2024-06-30", 2)
+    store(con, w, "site", file_id=1)
+    store(con, pd.DataFrame({"ac_power_w": w["ghi_wm2"] * 7.0}, index=w.index), "INV1", 1)
+    reg = (w["ghi_wm2"] * 7.0 * 0.25).cumsum()
+    store(con, pd.DataFrame({"energy_register_wh": reg}, index=w.index), "INV2", 1)
+    return site, con
+
+
+def test_aligned_rows_columns_and_flags(tmp_path):
+    site, con = _stored_site(tmp_path)
+    flagged = pd.Timestamp("2024-06-30 10:05", tz="UTC")
+    con.execute("INSERT INTO flags VALUES (?, 'ghi_wm2', 'site', 'stuck', ''), "
+                "(?, 'ac_power_w', 'INV1', 'out_of_range', '')", [flagged, flagged])
+    model.run(con, site)
+    df = align.load_aligned(con, site)
+    assert tuple(df.columns) == align.ALIGNED_COLUMNS
+    assert str(df["ts"].dt.tz) == "UTC"
+    assert len(df) == 2 * 96 * 2
+    row = df[df["ts"] == pd.Timestamp("2024-06-30 10:00", tz="UTC")].set_index("inverter_id")
+    assert row.loc["INV1", "flags"] == "out_of_range,stuck"
+    assert row.loc["INV2", "flags"] == "stuck"  # the weather's flag reaches every inverter
+    assert (df[df["ts"] != pd.Timestamp("2024-06-30 10:00", tz="UTC")]["flags"] == "").all()
+    noon = df[(df["ts"].dt.hour == 11)].set_index("inverter_id")
+    assert_allclose(noon.loc["INV1", "measured_ac_w"], noon.loc["INV1", "ghi_wm2"] * 7.0)
+    # INV2's register steps: the last reading of the interval minus the previous one.
+    inv2 = df[df["inverter_id"] == "INV2"].set_index("ts")["measured_ac_w"]
+    ghi = df[df["inverter_id"] == "INV2"].set_index("ts")["ghi_wm2"]
+    assert_allclose(inv2.iloc[1:], ghi.iloc[1:] * 7.0, rtol=1e-9)
+    assert (df["interval_s"] == 900).all() and set(df["poa_source"]) == {"model"}
+    assert df["sun_zenith_deg"].min() > 20 and df["clearsky_ghi_wm2"].max() > 800
+
+
+def test_load_aligned_bounds(tmp_path):
+    site, con = _stored_site(tmp_path)
+    with pytest.raises(DataError, match="run 'perfcheck model' first"):
+        align.load_aligned(con, site)
+    model.run(con, site)
+    start = pd.Timestamp("2024-07-01 00:00", tz="Europe/Berlin")
+    df = align.load_aligned(con, site, start, start + pd.Timedelta(hours=1))
+    assert len(df) == 4 * 2  # end exclusive
+    assert df["ts"].min() == start.tz_convert("UTC")
+    with pytest.raises(ValueError, match="tz-aware"):
+        align.load_aligned(con, site, pd.Timestamp("2024-07-01"))
+
+
+def test_monthly_summary_local_months_and_ratio(tmp_path):
+    site, con = _stored_site(tmp_path)
+    model.run(con, site)
+    s = align.monthly_summary(con, site).set_index(["inverter_id", "month"])
+    # Months are site-local: 2024-06-30 22:00 UTC is already July in Berlin (UTC+2).
+    assert set(s.index.get_level_values("month")) == {"2024-06", "2024-07"}
+    df = align.load_aligned(con, site)
+    july = df[df["ts"] >= pd.Timestamp("2024-07-01", tz="Europe/Berlin")]
+    inv1 = july[july["inverter_id"] == "INV1"]
+    assert_allclose(s.loc[("INV1", "2024-07"), "expected_kwh"],
+                    inv1["expected_ac_w"].sum() * 900 / 3.6e6)
+    both = inv1.dropna(subset=["measured_ac_w", "expected_ac_w"])
+    assert_allclose(s.loc[("INV1", "2024-07"), "ratio"],
+                    both["measured_ac_w"].sum() / both["expected_ac_w"].sum())
+    plant = s.loc[("plant", "2024-07")]
+    assert_allclose(plant["expected_kwh"], s.loc[("INV1", "2024-07"), "expected_kwh"]
+                    + s.loc[("INV2", "2024-07"), "expected_kwh"])
+
+
+def test_cli_model(tmp_path):
+    site, con = _stored_site(tmp_path)
+    con.close()
+    res = CliRunner().invoke(main, ["model", str(tmp_path / "site.toml")])
+    assert res.exit_code == 0, res.output
+    assert "INV1" in res.output and "plant" in res.output and "2024-07" in res.output
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    make_site(empty)
+    res = CliRunner().invoke(main, ["model", str(empty / "site.toml")])
+    assert res.exit_code == 2
+    assert res.output.strip().endswith(
+        "site.toml: no readings in the database yet (run 'perfcheck ingest' first)")

@@ -1,0 +1,237 @@
+"""The model stage: source choice, the chain per inverter, storage and caching."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from model_fixtures import clear_days, make_site, open_db, store
+from numpy.testing import assert_allclose
+
+from perfcheck import model
+from perfcheck import physics as ph
+from perfcheck.errors import DataError
+
+
+def _weather(idx: pd.DatetimeIndex, **cols: float) -> pd.DataFrame:
+    return pd.DataFrame({k: float(v) for k, v in cols.items()}, index=idx)
+
+
+def test_stc_sanity_through_the_chain(tmp_path):
+    # A reference cell reading 1000 W/m^2 and a module temperature that puts the cell at 25 C
+    # (T_c = T_m + E/1000 deltaT, King et al. 2004 eq. 12, deltaT 3 for glass/glass open rack)
+    # on the commissioning day: DC = P_dc0 x (1 - DC losses), the losses combined
+    # multiplicatively (Dobos 2014). Tolerance 1e-5 relative (half a day of age allowance).
+    site = make_site(tmp_path, model='irradiance_source = "poa_sensor"\n'
+                                      'poa_sensor_kind = "reference_cell"')
+    idx = pd.DatetimeIndex([pd.Timestamp("2024-06-01 11:00", tz="UTC")])
+    w = _weather(idx, poa_sensor=1000.0, temp_module=22.0, temp_air=20.0, wind_speed=1.0,
+                 ghi=np.nan)
+    sun = model.site_sun(idx, site, 900)
+    out = model.expected_power(w, sun, site).set_index("inverter_id")
+    f = site.losses.dc_factor
+    assert_allclose(f, 0.98 * 0.98 * 0.99 * 0.985)  # default losses 2, 2, 1, 1.5 %
+    assert_allclose(out.loc["INV1", "dc_w"], 10_000.0 * f, rtol=1e-5)
+    assert out.loc["INV1", "poa_source"] == "sensor"
+    assert_allclose(out.loc["INV1", "temp_cell_c"], 25.0)
+    # INV2's planes differ from the sensor's and no GHI is logged: decomposed from the sensor
+    # (GTI-DIRINT) and transposed again, so modelled, not the sensor's value.
+    assert out.loc["INV2", "poa_source"] == "model"
+
+
+def test_source_errors_name_the_key(tmp_path):
+    site = make_site(tmp_path, model='irradiance_source = "poa_sensor"')
+    idx = pd.date_range("2024-06-01 10:00", periods=2, freq="15min", tz="UTC")
+    w = _weather(idx, ghi=500.0, poa_sensor=np.nan, temp_air=20.0)
+    with pytest.raises(DataError, match="model.irradiance_source is 'poa_sensor' but no poa_wm2"):
+        model.expected_power(w, model.site_sun(idx, site, 900), site)
+    w = _weather(idx, ghi=np.nan, poa_sensor=np.nan, temp_air=20.0)
+    site = make_site(tmp_path)
+    with pytest.raises(DataError, match="no irradiance readings"):
+        model.expected_power(w, model.site_sun(idx, site, 900), site)
+
+
+def test_ghi_chain_two_orientations_and_limits(tmp_path):
+    site = make_site(tmp_path, site_extra="export_limit_kw = 10.0")
+    w = clear_days("2024-06-01", 1, scale=1.0).rename(
+        columns={"ghi_wm2": "ghi", "temp_air_c": "temp_air", "wind_speed_ms": "wind_speed"})
+    sun = model.site_sun(w.index, site, 900)
+    out = model.expected_power(w, sun, site)
+    wide = out.pivot(index="ts", columns="inverter_id", values="ac_w")
+    assert (wide.sum(axis=1) <= 10_000.0 + 1e-6).all()  # export limit shared
+    assert (out["ac_w"] <= 8000.0 + 1e-6).all()  # AC rating
+    assert (out["ac_potential_w"] >= out["ac_w"] - 1e-9).all()
+    assert (out["poa_source"] == "model").all()
+    inv2 = out[out["inverter_id"] == "INV2"].set_index("ts")
+    # INV2: east and west halves, DC-weighted plane quantities, DC summed over both arrays.
+    east = ph.poa_components(15, 90, sun, w["ghi"], *_erbs(w, sun), sun["dni_extra"],
+                             sun["airmass_relative"], 0.2, (), "perez", "physical")
+    west = ph.poa_components(15, 270, sun, w["ghi"], *_erbs(w, sun), sun["dni_extra"],
+                             sun["airmass_relative"], 0.2, (), "perez", "physical")
+    assert_allclose(inv2["poa_global_wm2"], (east["poa_global"] + west["poa_global"]) / 2)
+
+
+def _erbs(w: pd.DataFrame, sun: pd.DataFrame) -> tuple[pd.Series, pd.Series]:
+    c = ph.complete_components(w["ghi"], sun["zenith"])
+    return c["dni"], c["dhi"]
+
+
+def test_pyranometer_reading_gets_the_incidence_loss(tmp_path):
+    site = make_site(tmp_path)  # auto, pyranometer
+    w = clear_days("2024-06-01", 1, scale=1.0).rename(
+        columns={"ghi_wm2": "ghi", "temp_air_c": "temp_air", "wind_speed_ms": "wind_speed"})
+    sun = model.site_sun(w.index, site, 900)
+    modelled = model.expected_power(w, sun, site)
+    poa = modelled[modelled["inverter_id"] == "INV1"].set_index("ts")["poa_global_wm2"]
+    w["poa_sensor"] = poa * 1.05
+    out = model.expected_power(w, sun, site)
+    inv1 = out[out["inverter_id"] == "INV1"].set_index("ts")
+    day = poa > 100
+    assert (inv1.loc[day, "poa_source"] == "sensor").all()
+    assert_allclose(inv1.loc[day, "poa_global_wm2"], 1.05 * poa[day])
+    ratio = inv1["poa_effective_wm2"] / inv1["poa_global_wm2"]
+    assert (ratio[day] < 1.0).all()
+    noon = (ratio.index.hour >= 9) & (ratio.index.hour < 13)
+    assert (ratio[noon] > 0.93).all()  # small angles of incidence: a few % (De Soto 2006)
+    assert_allclose(inv1.loc[day, "poa_modelled_wm2"], poa[day])
+    csi = pd.Series(1.0, index=w.index)
+    check = model.poa_plausibility(
+        model.daily_irradiation(w["poa_sensor"], poa, sun["zenith"], csi, site.timezone))
+    assert_allclose(check["median_ratio"], 1.05, rtol=1e-6)
+
+
+def test_parameters_hash_changes_with_the_design(tmp_path):
+    a = model.parameters_hash(model.parameters(make_site(tmp_path)))
+    b = model.parameters_hash(model.parameters(make_site(tmp_path, losses="wiring_pct = 3.0")))
+    assert a != b
+    assert a == model.parameters_hash(model.parameters(make_site(tmp_path)))
+
+
+def test_run_stores_and_computes_only_what_is_new(tmp_path):
+    site = make_site(tmp_path)
+    con = open_db(tmp_path)
+    with pytest.raises(DataError, match="no readings in the database yet"):
+        model.run(con, site)
+    w = clear_days("2024-06-01", 2)
+    store(con, w, "site", file_id=1)
+    first = model.run(con, site)
+    assert first["rows"] == 2 * 96 * 2
+    n = con.execute("SELECT count(*) FROM expected").fetchall()[0][0]
+    assert n == 2 * 96 * 2
+    again = model.run(con, site)
+    assert again["computed_from"] is None and again["rows"] == 0
+    # A new file with a third day: only that day is computed.
+    store(con, clear_days("2024-06-03", 1), "site", file_id=2)
+    third = model.run(con, site)
+    assert third["computed_from"] == pd.Timestamp("2024-06-03", tz="UTC")
+    assert third["rows"] == 96 * 2
+    assert con.execute("SELECT count(*) FROM expected").fetchall()[0][0] == 3 * 96 * 2
+    # Other parameters: a new run over everything; back to the first: nothing recomputed.
+    other = make_site(tmp_path, losses="wiring_pct = 3.0")
+    assert model.run(con, other)["model_run_id"] != first["model_run_id"]
+    back = model.run(con, site)
+    assert back["model_run_id"] == first["model_run_id"] and back["rows"] == 0
+    row = con.execute("SELECT parameters_json, versions_json FROM model_runs "
+                      "WHERE model_run_id = ?", [first["model_run_id"]]).fetchall()[0]
+    params, versions = json.loads(row[0]), json.loads(row[1])
+    assert params["model"]["transposition"] == "perez" and "pvlib" in versions
+    # The aligned table follows the current run.
+    runs = con.execute("SELECT DISTINCT model_run_id FROM aligned_base").fetchall()
+    assert runs == [(first["model_run_id"],)]
+
+
+def test_run_without_irradiance_says_so(tmp_path):
+    site = make_site(tmp_path)
+    con = open_db(tmp_path)
+    store(con, clear_days("2024-06-01", 1)[["temp_air_c"]], "site", file_id=1)
+    with pytest.raises(DataError, match=r"site.toml: no irradiance readings \(poa_wm2 or ghi"):
+        model.run(con, site)
+
+
+def test_run_failure_keeps_what_was_stored(tmp_path):
+    site = make_site(tmp_path)
+    con = open_db(tmp_path)
+    store(con, clear_days("2024-06-01", 1), "site", file_id=1)
+    model.run(con, site)
+    before = con.execute("SELECT count(*), sum(ac_w) FROM expected").fetchall()[0]
+    store(con, pd.DataFrame({"temp_air_c": [20.0]},
+                            index=pd.DatetimeIndex([pd.Timestamp("2024-06-05", tz="UTC")])),
+          "site", file_id=2)
+    bad = make_site(tmp_path, model='irradiance_source = "poa_sensor"')
+    with pytest.raises(DataError):
+        model.run(con, bad)
+    assert con.execute("SELECT count(*), sum(ac_w) FROM expected").fetchall()[0] == before
+
+
+def test_model_interval_and_coarse_weather_held(tmp_path):
+    site = make_site(tmp_path)
+    assert model.interval_s(site) == 900
+    idx = pd.date_range("2024-06-01 10:00", periods=3, freq="10min", tz="UTC")
+    w = pd.DataFrame({"ghi": [100.0, 200.0, 300.0], "rain": [1.0, 0.0, 2.0]}, index=idx)
+    w = w.reindex(w.index.union(idx[:2] + pd.Timedelta(minutes=5)))
+    w["poa_sensor"] = 50.0
+    out = model.hold_coarse_weather(w, 300, {"ghi": 600, "rain": 600, "poa_sensor": 300})
+    # A 10-minute mean stands for both 5-minute intervals inside it; rain (a sum) is not held.
+    assert_allclose(out["ghi"], [100.0, 100.0, 200.0, 200.0, 300.0])
+    assert out["rain"].isna().sum() == 2
+
+
+def _fault_days(truth: dict, tz: str) -> set[tuple[str, str]]:
+    """(local date, scope) of every day a fault of the demo touches (design facts, the
+    plant-wide degradation and scattered corrupt rows aside)."""
+    out = set()
+    for f in truth["faults"]:
+        if f.get("design") or f["kind"] in ("degradation", "corrupt_rows"):
+            continue
+        first = pd.Timestamp(f["start"]).tz_convert(tz).normalize()
+        for day in pd.date_range(first, pd.Timestamp(f["end"]).tz_convert(tz), freq="D"):
+            out.add((day.strftime("%Y-%m-%d"), f["scope"]))
+    return out
+
+
+@pytest.mark.slow
+def test_demo_fault_free_days_match_the_generators_truth(demo_db):
+    # Synthetic truth: demo_logs/truth_daily.csv (clean_energy_kwh: fault-free AC energy per
+    # local day and inverter, written by perfcheck.scenario). Days touched by a fault in
+    # truth.json are left out, and days with under 10 % of the inverter's median daily energy
+    # (snow, deep overcast: relative errors of a few kWh blow up).
+    truth = json.loads((demo_db.logs / "truth.json").read_text())
+    daily_truth = pd.read_csv(demo_db.logs / "truth_daily.csv")
+    con = demo_db.connect()
+    try:
+        ours = con.execute(
+            "SELECT strftime(timezone($tz, ts), '%Y-%m-%d') AS date, inverter_id, "
+            "sum(expected_ac_w * interval_s) / 3.6e6 AS expected_kwh, "
+            "avg(CASE WHEN poa_source = 'sensor' THEN 1.0 ELSE 0.0 END) "
+            "FILTER (WHERE sun_zenith_deg < 85) AS sensor_share "
+            "FROM aligned GROUP BY ALL", {"tz": demo_db.site.timezone}).df()
+    finally:
+        con.close()
+    d = daily_truth.merge(ours, on=["date", "inverter_id"])
+    bad = _fault_days(truth, demo_db.site.timezone)
+    keep = [(r.date, "plant") not in bad and (r.date, f"inverter:{r.inverter_id}") not in bad
+            for r in d.itertuples()]
+    d = d[keep]
+    median = d.groupby("inverter_id")["clean_energy_kwh"].transform("median")
+    d = d[d["clean_energy_kwh"] >= 0.1 * median]
+    # The truth's clean energy has no ageing; our expected carries the site's age allowance
+    # (0.5 %/year, [losses]), which is taken out here.
+    noon = pd.DatetimeIndex(pd.to_datetime(d["date"]) + pd.Timedelta(hours=12), tz="UTC")
+    allowance = ph.age_factor(noon, demo_db.site.commissioned,
+                              demo_db.site.losses.degradation_pct_per_year)
+    d["ratio"] = d["expected_kwh"] / allowance / d["clean_energy_kwh"]
+    for inv_id, g in d.groupby("inverter_id"):
+        assert len(g) > 100, inv_id
+        if g["sensor_share"].median() > 0.9:
+            # From the plane-of-array sensor: every fault-free day within 2 % (issue 3).
+            assert ((g["ratio"] - 1).abs() <= 0.02).all(), g.sort_values("ratio").iloc[[0, -1]]
+        else:
+            # From GHI (Erbs split, Perez): the decomposition of measured GHI differs from the
+            # generator's cloud-process split by 1-3 % per day, the logged GHI reads about
+            # 0.6 % low and the generator does not reduce the sky diffuse by the horizon
+            # profile (0.4-0.7 % here). So: period energy within 3 %, half the days within 2 %.
+            total = (g["ratio"] * g["clean_energy_kwh"]).sum() / g["clean_energy_kwh"].sum()
+            assert abs(total - 1) <= 0.03, (inv_id, total)
+            assert ((g["ratio"] - 1).abs() <= 0.02).mean() >= 0.4, inv_id
