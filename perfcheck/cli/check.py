@@ -1,0 +1,141 @@
+"""``perfcheck check``: the monthly metrics table, and the whole check document as JSON."""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+from pathlib import Path
+from typing import Any
+
+import click
+
+from perfcheck import db, metrics
+from perfcheck.errors import DataError
+from perfcheck.site import Site
+
+from .common import site_argument
+
+DATE = click.DateTime(formats=["%Y-%m-%d"])
+
+
+def date_options(fn: Any) -> Any:
+    """--from/--to: site-local days, both included; missing ends default to the data's."""
+    fn = click.option("--to", "date_to", type=DATE, default=None,
+                      help="Last day, site-local, included (YYYY-MM-DD; default: last data).")(fn)
+    return click.option("--from", "date_from", type=DATE, default=None,
+                        help="First day, site-local (YYYY-MM-DD; default: first data).")(fn)
+
+
+def open_db(db_path: Path) -> Any:
+    if not db_path.exists():
+        raise DataError(f"{db_path}: no database yet (run 'perfcheck ingest' first)")
+    return db.connect(db_path)
+
+
+def json_target(path: Path | None) -> None:
+    """Refuse a --json path whose folder does not exist, before any work starts."""
+    if path is not None and not path.parent.is_dir():
+        raise DataError(f"{path}: the folder for the JSON file does not exist")
+
+
+def write_json(path: Path, doc: dict[str, Any]) -> None:
+    """Write a result document as UTF-8 JSON; a path that cannot be written is a user error."""
+    try:
+        path.write_text(json.dumps(doc, indent=1, ensure_ascii=False) + "\n", encoding="utf-8")
+    except OSError as exc:
+        raise DataError(f"{path}: cannot write the JSON file ({exc.strerror})") from None
+
+
+def _day(value: dt.datetime | None) -> dt.date | None:
+    return None if value is None else value.date()
+
+
+def _pct(value: float | None) -> str:
+    return "  -  " if value is None else f"{100 * value:5.1f}"
+
+
+def _band(row: dict[str, Any], key: str) -> str:
+    lo, hi = row.get(f"{key}_ci_low"), row.get(f"{key}_ci_high")
+    band = "" if lo is None or hi is None else f"{100 * lo:.1f}-{100 * hi:.1f}"
+    return f"{_pct(row[key])} {band:<12}"
+
+
+def _num(value: float | None, width: int) -> str:
+    return f"{'-':>{width}}" if value is None else f"{value:{width}.1f}"
+
+
+HEADER = (f"{'':9}{'Yr':>6}{'Yf':>7}  {'PR %':<19}{'PR T-corr %':<19}{'PR weather %':<19}"
+          f"{'EPI %':<19}{'avail %':<19}{'kWh/kWp':>7}  coverage")
+
+
+def table_line(label: str, row: dict[str, Any]) -> str:
+    """One line of the monthly table: yields [h], ratios [%] with their intervals."""
+    cov = row["coverage"]
+    coverage = (f"{_pct(cov)} % ({row['valid_intervals']}/{row['daylight_intervals']})"
+                if cov is not None else "  -")
+    if row["reason"]:
+        return f"{label:<9}{'':13}  {row['reason']}; {coverage.strip()}"
+    return (f"{label:<9}{_num(row['yr_h'], 6)}{_num(row['yf_h'], 7)}  "
+            + "".join(f"{_band(row, k):<19}" for k in
+                      ("pr", "pr_temp_corrected", "pr_weather_corrected", "epi", "availability"))
+            + f"{_num(row['specific_yield_kwh_per_kwp'], 7)}  {coverage}")
+
+
+def format_table(doc: dict[str, Any], site: Site) -> str:
+    """The compact monthly table of a check document, plant level, with the period total."""
+    s = doc["settings"]
+    lines = [
+        f"{site.name}: {doc['period']['start'][:10]} to {doc['period']['end'][:10]} (end "
+        f"excluded, {site.timezone}); {site.dc_kwp:g} kWp, {len(site.inverters)} inverters",
+        f"Yr, Yf in h; ratios in % with their {s['confidence']:.0%} interval (day-block "
+        f"bootstrap, irradiance uncertainty {s['poa_uncertainty_pct']:g} % added); "
+        f"PR T-corr at {s['pr_temp_ref_used_c']:.1f} C, weather at "
+        f"{s['t_cell_typ_avg_used_c']:.1f} C",
+        "",
+        HEADER,
+    ]
+    lines += [table_line(m["month"], m) for m in doc["metrics"]["monthly"]]
+    lines.append(table_line("period", doc["metrics"]["period"]))
+    kinds: dict[str, int] = {}
+    for ev in doc["events"]:
+        kinds[ev["kind"]] = kinds.get(ev["kind"], 0) + 1
+    found = ", ".join(f"{k} {n}" for k, n in sorted(kinds.items())) or "none"
+    losses = doc["losses"]
+    lines += ["", f"events: {len(doc['events'])} ({found}); expected {losses['expected_kwh']:.0f}"
+              f" kWh, measured {losses['measured_kwh']:.0f} kWh, unexplained "
+              f"{losses['unexplained_kwh']:.0f} kWh; guarantees checked: {len(doc['guarantees'])}"]
+    return "\n".join(lines)
+
+
+@click.command("check")
+@site_argument
+@date_options
+@click.option("--json", "json_path", type=click.Path(dir_okay=False, path_type=Path),
+              default=None, help="Write the whole check document (metrics, events, losses, "
+                                 "degradation, guarantees) to this JSON file.")
+def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
+                  date_to: dt.datetime | None, json_path: Path | None) -> None:
+    """Yields, performance ratios (plain, temperature- and weather-corrected), EPI,
+    availability, specific yield and data coverage per month, each with its interval, then
+    the detected events and the loss balance. The filtering rules come from the optional
+    [metrics] table of the site file and are stored with the results.
+
+    \b
+    Example:
+      perfcheck check site.toml --from 2025-06-01 --to 2025-06-30 --json june.json
+    """
+    metrics.load_settings(site)  # a bad [metrics] table fails before any work
+    json_target(json_path)
+    con = open_db(db_path)
+    try:
+        start, end = metrics.resolve_period(con, site, _day(date_from), _day(date_to))
+        doc = metrics.check(con, site, start, end)
+        metrics.store(con, doc)
+    finally:
+        con.close()
+    if json_path is not None:
+        write_json(json_path, doc)
+    click.echo(format_table(doc, site))
+
+
+COMMANDS = [check_command]

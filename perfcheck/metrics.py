@@ -1,0 +1,917 @@
+"""Metrics stage: IEC 61724-1 yields and performance ratios, EPI, availability, coverage.
+
+One pass of SQL (``sql/metrics_daily.sql``) turns the ``aligned`` rows into daily sums per
+inverter; everything else is small pure functions over those sums. Every sum is additive, so
+months, years, any period and the plant are sums of days and inverters, and the day-block
+bootstrap resamples days whole and recomputes each ratio from the resampled sums.
+
+Rules (also written into every result's ``settings``):
+
+- Daylight row: sun above the horizon (zenith < 90 degrees at the interval's centre).
+- Valid row: measured power, expected power and plane-of-array irradiance present and none of
+  the excluded quality flags (default: all flags).
+- Used row (yields, PR, EPI): daylight, valid, outside the exclusion windows (curtailment, and
+  grid outages if chosen) and irradiance at least ``min_poa_wm2`` (default 0: IEC 61724-1 sums
+  all daylight intervals).
+- Availability base: daylight, valid, outside the exclusion windows, irradiance at least
+  ``availability_min_poa_wm2``. The inverter is up in a base interval when its AC power is at
+  least ``availability_down_below_pct`` of its AC rating. Time-based availability is the
+  P0-weighted share of base intervals that are up; energy-based availability is
+  1 - (expected energy of the down intervals) / (expected energy of all base intervals).
+  Excluded windows are outside the base, so curtailment and (if chosen) grid outages never count
+  against the plant (IEC TS 63019:2019 treats them as outside the plant's responsibility; from
+  memory). Rows without valid data are neither up nor down: they lower the coverage instead.
+- Coverage: valid daylight intervals / daylight intervals of the calendar (computed from the
+  geometric sunrise and sunset, so days with no rows at all count as missing). A value is
+  reported only when coverage is at least ``min_coverage``; otherwise it is null with a reason.
+- Sensor-fault windows (detected events): the reference yield uses the modelled irradiance
+  there, with the modelled-irradiance uncertainty, and the rows are counted.
+- Plant: sums over inverters. The plant's reference yield is the P0-weighted mean of the
+  inverters' plane-of-array irradiation (each inverter's irradiance as ``aligned`` gives it for
+  its plane), so a plant with several orientations gets PR = sum E / sum(P0_i H_i / G_STC).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import math
+import warnings
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import asdict, dataclass
+from typing import Any
+
+import duckdb
+import numpy as np
+import pandas as pd
+
+from perfcheck import __version__, db
+from perfcheck.errors import DataError
+from perfcheck.site import Site, Table
+
+G_STC = 1000.0  # reference irradiance [W/m^2] (IEC 61724-1)
+FLAG_NAMES = ("out_of_range", "stuck", "gap", "night_offset", "power_without_irradiance")
+# Expanded (95 %) uncertainty of plane-of-array irradiation per IEC 61724-1 monitoring class.
+# From memory, not verified against the standard's text: class A 3 %, class B 8 %, class C 10 %.
+SENSOR_CLASS_UNCERTAINTY_PCT = {"A": 3.0, "B": 8.0, "C": 10.0}
+# Metrics with an interval: the ratios get a day-block bootstrap interval (those of
+# IRRADIANCE_METRICS widened by the irradiance uncertainty, each being inversely proportional
+# to the plane-of-array irradiation); the specific yield, a measured total, gets the band of
+# its data gaps (see gap_band).
+BOOTSTRAP_METRICS = (
+    "pr",
+    "pr_temp_corrected",
+    "pr_weather_corrected",
+    "epi",
+    "availability",
+    "availability_energy",
+)
+CI_METRICS = (*BOOTSTRAP_METRICS, "specific_yield_kwh_per_kwp")
+IRRADIANCE_METRICS = ("pr", "pr_temp_corrected", "pr_weather_corrected", "epi")
+# The additive daily columns the metrics are built from (after scaling by P0, see scope_sums).
+SUM_COLUMNS = (
+    "p0_w", "n_daylight", "n_nominal", "n_valid", "n_excluded", "n_used", "n_fallback", "n_dc",
+    "e_meas_wh", "e_exp_wh", "e_dc_wh", "ref_wh", "ref_sensor_wh", "refg_wh", "refgt_wh",
+    "w_base", "w_up", "e_base_exp_wh", "e_down_exp_wh", "e_meas_all_wh", "e_exp_all_wh",
+    "e_exp_gap_wh",
+)
+
+
+# --------------------------------------------------------------------------------------------
+# settings
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Filtering rules and uncertainty settings (``[metrics]`` of the site file).
+
+    Attributes (site-file keys; all optional)
+    -----------------------------------------
+    min_poa_wm2 : irradiance floor for the rows behind yields, PR and EPI [W/m^2]; 0 keeps
+        all daylight rows as IEC 61724-1 sums them
+    availability_min_poa_wm2 : irradiance from which an inverter is expected to run [W/m^2]
+        (50, common practice)
+    availability_down_below_pct : AC power below this share of the AC rating counts as down
+        [%] (1, common practice)
+    exclude_flags : quality flags that make a row invalid (default: all five)
+    min_coverage : least share of daylight intervals with valid data before a value is
+        reported [-] (0.8, common practice)
+    exclude_curtailment : leave curtailment events out of yields, PR, EPI and availability
+        (true; IEC 61724-1 and IEC TS 63019, from memory)
+    exclude_grid_outages : leave plant-wide outage events out likewise (false: from power data
+        alone they cannot be told from a plant fault)
+    sensor_fault_fallback : inside sensor-fault events use the modelled plane-of-array
+        irradiance for the reference yield (true); counted as model_poa_intervals
+    pr_temp_ref_c : T_ref of the temperature-corrected PR [C] (25), or "annual" for the
+        irradiance-weighted mean cell temperature (then equal to the weather-corrected PR)
+    t_cell_typ_avg_c : T_cell_typ_avg of the weather-corrected PR [C] (default: from the data)
+    bootstrap_samples, confidence, seed : the day-block bootstrap (1000, 0.95, 61724)
+    modelled_poa_uncertainty_pct : expanded uncertainty of modelled (transposed) irradiance
+        [%] (5, common practice)
+
+    The sensor's uncertainty is ``[model] poa_uncertainty_pct``, by default that of the
+    ``[model] sensor_class`` (:data:`SENSOR_CLASS_UNCERTAINTY_PCT`).
+    """
+
+    min_poa_wm2: float = 0.0
+    availability_min_poa_wm2: float = 50.0  # common practice, no source
+    availability_down_below_pct: float = 1.0  # common practice, no source
+    exclude_flags: tuple[str, ...] = FLAG_NAMES
+    min_coverage: float = 0.8  # common practice, no source
+    exclude_curtailment: bool = True
+    exclude_grid_outages: bool = False
+    sensor_fault_fallback: bool = True
+    pr_temp_ref_c: float | str = 25.0  # or "annual": T_ref = t_cell_typ_avg_c
+    t_cell_typ_avg_c: float | None = None  # None: from the data
+    bootstrap_samples: int = 1000
+    confidence: float = 0.95
+    seed: int = 61724
+    poa_uncertainty_pct: float = 3.0
+    poa_uncertainty_source: str = "IEC 61724-1 class A (from memory)"
+    modelled_poa_uncertainty_pct: float = 5.0  # common practice, no source
+
+
+def load_settings(site: Site) -> Settings:
+    """Validate the optional ``[metrics]`` table of the site file into :class:`Settings`."""
+    t = Table(site.raw.get("metrics", {}), "metrics", site.path)
+    d = Settings()
+    flags = t.get("exclude_flags", list, list(d.exclude_flags))
+    for i, name in enumerate(flags):
+        if name not in FLAG_NAMES:
+            raise t._err(f"exclude_flags[{i}]", f"{name!r} is not one of "
+                         f"{', '.join(map(repr, FLAG_NAMES))}")
+    temp_ref = t.get("pr_temp_ref_c", (int, float, str), d.pr_temp_ref_c)
+    if isinstance(temp_ref, bool) or (isinstance(temp_ref, str) and temp_ref != "annual"):
+        raise t._err("pr_temp_ref_c", f"expected a temperature in C or 'annual', got {temp_ref!r}")
+    if not isinstance(temp_ref, str):
+        temp_ref = float(temp_ref)
+        if not -40 <= temp_ref <= 90:
+            raise t._err("pr_temp_ref_c", f"{temp_ref} is outside the range -40 to 90")
+    samples = t.get("bootstrap_samples", int, d.bootstrap_samples)
+    if not 100 <= samples <= 100_000:
+        raise t._err("bootstrap_samples", f"{samples} is outside the range 100 to 100000")
+    model = site.model
+    if model.poa_uncertainty_pct is not None:
+        u_pct, u_source = model.poa_uncertainty_pct, "site file model.poa_uncertainty_pct"
+    else:
+        u_pct = SENSOR_CLASS_UNCERTAINTY_PCT[model.sensor_class]
+        u_source = f"IEC 61724-1 class {model.sensor_class} (from memory)"
+    s = Settings(
+        min_poa_wm2=t.number("min_poa_wm2", d.min_poa_wm2, lo=0, hi=1500),
+        availability_min_poa_wm2=t.number(
+            "availability_min_poa_wm2", d.availability_min_poa_wm2, lo=0, hi=1500
+        ),
+        availability_down_below_pct=t.number(
+            "availability_down_below_pct", d.availability_down_below_pct, lo=0, hi=50
+        ),
+        exclude_flags=tuple(flags),
+        min_coverage=t.number("min_coverage", d.min_coverage, lo=0, hi=1),
+        exclude_curtailment=t.get("exclude_curtailment", bool, d.exclude_curtailment),
+        exclude_grid_outages=t.get("exclude_grid_outages", bool, d.exclude_grid_outages),
+        sensor_fault_fallback=t.get("sensor_fault_fallback", bool, d.sensor_fault_fallback),
+        pr_temp_ref_c=temp_ref,
+        t_cell_typ_avg_c=t.number("t_cell_typ_avg_c", None, lo=-40, hi=90),
+        bootstrap_samples=samples,
+        confidence=t.number("confidence", d.confidence, lo=0.5, hi=0.999),
+        seed=t.get("seed", int, d.seed),
+        poa_uncertainty_pct=u_pct,
+        poa_uncertainty_source=u_source,
+        modelled_poa_uncertainty_pct=t.number(
+            "modelled_poa_uncertainty_pct", d.modelled_poa_uncertainty_pct, lo=0, hi=50
+        ),
+    )
+    t.done()
+    return s
+
+
+# --------------------------------------------------------------------------------------------
+# pure formulas
+
+
+def corrected_reference(
+    ref_wh: np.ndarray | float,
+    refg_wh: np.ndarray | float,
+    refgt_wh: np.ndarray | float,
+    temp_ref: float,
+) -> np.ndarray | float:
+    r"""Temperature-corrected reference energy from the additive sums.
+
+    Parameters
+    ----------
+    ref_wh : sum of P0 G_k tau_k / G_STC [Wh]
+    refg_wh : sum of gamma P0 G_k tau_k / G_STC over rows with a cell temperature [Wh/C]
+    refgt_wh : sum of gamma P0 G_k T_k tau_k / G_STC over the same rows [Wh]
+    temp_ref : reference cell temperature T_ref [C]
+
+    Returns
+    -------
+    sum of P0 (1 + gamma (T_k - T_ref)) G_k tau_k / G_STC [Wh]
+
+    Notes
+    -----
+    The IEC 61724-1 temperature-corrected PR divides the AC energy by this sum (rated power of
+    each interval corrected by C_k = 1 + gamma (T_k - T_ref)). With T_ref = T_cell_typ_avg it
+    is also the denominator of the weather-corrected PR of Dierauf et al. 2013, eq. for PR_corr
+    (1 - delta/100 (T_cell_typ_avg - T_cell) with delta = 100 gamma): the IEC
+    annual-average-temperature variant and Dierauf's correction are the same formula.
+    Rows without a cell temperature enter uncorrected.
+
+    References
+    ----------
+    IEC 61724-1 (temperature-corrected PR; clause number from memory).
+    Dierauf, T. et al. 2013, Weather-Corrected Performance Ratio, NREL/TP-5200-57991.
+    """
+    return ref_wh + refgt_wh - temp_ref * refg_wh
+
+
+def ratios(s: Mapping[str, Any], temp_ref_c: float, t_cell_typ_avg_c: float) -> dict[str, Any]:
+    """Yields and ratios from additive sums (scalars or arrays of equal shape).
+
+    Parameters
+    ----------
+    s : the sums of :data:`SUM_COLUMNS` (energies [Wh], P0 [W], counts)
+    temp_ref_c : T_ref of the temperature-corrected PR [C]
+    t_cell_typ_avg_c : T_cell_typ_avg of the weather-corrected PR [C]
+
+    Returns
+    -------
+    dict with yr_h, ya_h, yf_h, lc_h, ls_h [h = kWh/kWp], pr, pr_temp_corrected,
+    pr_weather_corrected, epi, availability, availability_energy, specific_yield_kwh_per_kwp,
+    coverage (NaN where a denominator is zero).
+
+    Notes
+    -----
+    IEC 61724-1: Yr = H_POA / G_STC, Ya = E_DC / P0, Yf = E_AC / P0, PR = Yf / Yr,
+    L_C = Yr - Ya, L_S = Ya - Yf. Ya is NaN unless DC power is measured on at least 99 % of the
+    used rows. Specific yield: AC energy of all valid daylight rows plus, for the daylight rows
+    without valid data, their expected energy times the EPI of the valid rows, per kWp.
+
+    References
+    ----------
+    IEC 61724-1 (yields and PR); IEC 61836 (vocabulary). Dierauf et al. 2013,
+    NREL/TP-5200-57991 (weather-corrected PR).
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p0 = np.asarray(s["p0_w"], dtype=float)
+        yr = _div(s["ref_wh"], p0)
+        ya = np.where(np.asarray(s["n_dc"]) >= 0.99 * np.asarray(s["n_used"]),
+                      _div(s["e_dc_wh"], p0), np.nan)
+        ya = np.where(np.asarray(s["n_used"]) > 0, ya, np.nan)
+        yf = _div(s["e_meas_wh"], p0)
+        epi_all = _div(s["e_meas_all_wh"], s["e_exp_all_wh"])
+        gap = np.asarray(s["e_exp_gap_wh"], dtype=float)
+        return {
+            "yr_h": yr,
+            "ya_h": ya,
+            "yf_h": yf,
+            "lc_h": yr - ya,
+            "ls_h": ya - yf,
+            "pr": _div(s["e_meas_wh"], s["ref_wh"]),
+            "pr_temp_corrected": _div(s["e_meas_wh"], corrected_reference(
+                s["ref_wh"], s["refg_wh"], s["refgt_wh"], temp_ref_c)),
+            "pr_weather_corrected": _div(s["e_meas_wh"], corrected_reference(
+                s["ref_wh"], s["refg_wh"], s["refgt_wh"], t_cell_typ_avg_c)),
+            "epi": _div(s["e_meas_wh"], s["e_exp_wh"]),
+            "availability": _div(s["w_up"], s["w_base"]),
+            "availability_energy": 1.0 - _div(s["e_down_exp_wh"], s["e_base_exp_wh"]),
+            "specific_yield_kwh_per_kwp": _div(
+                np.asarray(s["e_meas_all_wh"]) + np.where(gap > 0, gap * epi_all, 0.0), p0),
+            "coverage": np.minimum(_div(s["n_valid"], s["n_nominal"]), 1.0),
+        }
+
+
+def _div(a: Any, b: Any) -> np.ndarray:
+    a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(b != 0, a / np.where(b != 0, b, 1.0), np.nan)
+
+
+def block_bootstrap(
+    blocks: np.ndarray,
+    statistic: Callable[[np.ndarray], np.ndarray],
+    n_samples: int,
+    confidence: float,
+    rng: np.random.Generator,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Percentile interval of a statistic of summed blocks, blocks resampled whole.
+
+    Parameters
+    ----------
+    blocks : array (n_blocks, ...) of additive sums, one block per day
+    statistic : maps summed blocks (n_samples, ...) to statistics (n_samples, ...)
+    n_samples : number of bootstrap resamples
+    confidence : two-sided level, e.g. 0.95
+    rng : seeded generator (identical seeds give identical intervals)
+
+    Returns
+    -------
+    (low, high) of the statistic's shape without the sample axis; NaN where fewer than two
+    blocks or no finite resample.
+
+    Notes
+    -----
+    Each resample draws n_blocks days with replacement (multinomial counts), sums them, and
+    evaluates the statistic: a block bootstrap with the day as block, which keeps the
+    autocorrelation within each day (Kunsch 1989, Ann. Statist. 17(3):1217; percentile
+    interval: Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 13).
+    """
+    n = blocks.shape[0]
+    shape = np.shape(statistic(blocks.sum(axis=0)[None, ...]))[1:]
+    if n < 2:
+        return np.full(shape, np.nan), np.full(shape, np.nan)
+    counts = rng.multinomial(n, np.full(n, 1.0 / n), size=n_samples).astype(float)
+    stats = np.asarray(statistic(np.tensordot(counts, blocks, axes=(1, 0))), dtype=float)
+    stats[~np.isfinite(stats)] = np.nan
+    alpha = (1.0 - confidence) / 2.0
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN columns give NaN
+        low, high = np.nanquantile(stats, [alpha, 1.0 - alpha], axis=0)
+    return low, high
+
+
+def combine_band(value: Any, low: Any, high: Any, u_rel: Any) -> tuple[Any, Any]:
+    """Widen a sampling interval by a systematic relative uncertainty, in quadrature.
+
+    Parameters
+    ----------
+    value : the estimate (scalar or array)
+    low, high : sampling interval at a confidence level
+    u_rel : relative expanded uncertainty at the same level (e.g. 0.03 for 3 %) [-]
+
+    Returns
+    -------
+    (low, high) with half-widths sqrt(d_sampling^2 + (value u_rel)^2) on each side.
+
+    Notes
+    -----
+    The irradiance error is a calibration-type offset, the same on every day of a month, so it
+    does not average down and the bootstrap cannot see it; the two are independent, so their
+    half-widths add in quadrature (JCGM 100:2008, GUM, 5.1.2, uncorrelated inputs).
+    """
+    d = np.asarray(value) * np.asarray(u_rel)
+    return value - np.hypot(value - low, d), value + np.hypot(high - value, d)
+
+
+def gap_band(s: Mapping[str, Any]) -> tuple[Any, Any]:
+    """Band of the specific yield from its data gaps [kWh/kWp].
+
+    Parameters
+    ----------
+    s : additive sums (e_meas_all_wh, e_exp_all_wh, e_exp_gap_wh [Wh], p0_w [W])
+
+    Returns
+    -------
+    (low, high): low assumes the daylight intervals without valid data produced nothing, high
+    that they produced their expected energy times max(1, EPI of the valid intervals). Meter
+    uncertainty is not included (not known from the site file).
+    """
+    epi = np.nan_to_num(_div(s["e_meas_all_wh"], s["e_exp_all_wh"]), nan=1.0)
+    low = _div(s["e_meas_all_wh"], s["p0_w"])
+    return low, low + _div(np.asarray(s["e_exp_gap_wh"]) * np.maximum(1.0, epi), s["p0_w"])
+
+
+def daylight_seconds(
+    site: Site, days: pd.DatetimeIndex, start: pd.Timestamp, end: pd.Timestamp
+) -> np.ndarray:
+    """Seconds of each local day between geometric sunrise and sunset, clipped to [start, end).
+
+    Parameters
+    ----------
+    site : the site (latitude, longitude, time zone)
+    days : local midnights (tz-aware, site zone)
+    start, end : the analysed period (tz-aware)
+
+    Returns
+    -------
+    daylight per day [s]; polar day gives 86400 (clipped), polar night 0.
+
+    References
+    ----------
+    Spencer 1971, Search 2(5):172 (declination, equation of time), via pvlib's
+    ``sun_rise_set_transit_geometric`` (accuracy a few minutes, enough for counting intervals).
+    """
+    from pvlib import solarposition as sp
+
+    doy = days.day_of_year.to_numpy()
+    rise, sset, _ = sp.sun_rise_set_transit_geometric(
+        days, site.latitude_deg, site.longitude_deg,
+        sp.declination_spencer71(doy), sp.equation_of_time_spencer71(doy),
+    )
+    day_end = days + pd.Timedelta(days=1)
+    dec = np.asarray(sp.declination_spencer71(doy))
+    polar_day = np.sign(dec) == np.sign(site.latitude_deg)
+    rise = pd.Series(rise, index=days).fillna(pd.Series(np.where(polar_day, days, day_end),
+                                                        index=days))
+    sset = pd.Series(sset, index=days).fillna(pd.Series(np.where(polar_day, day_end, days),
+                                                        index=days))
+    lo = np.maximum(rise.to_numpy(), np.full(len(days), start.tz_convert(days.tz)))
+    hi = np.minimum(sset.to_numpy(), np.full(len(days), end.tz_convert(days.tz)))
+    return np.clip((hi - lo) / np.timedelta64(1, "s"), 0, None).astype(float)
+
+
+# --------------------------------------------------------------------------------------------
+# daily sums (the one SQL pass) and their scaling to scopes
+
+
+def _inverter_table(site: Site, settings: Settings) -> pd.DataFrame:
+    return pd.DataFrame({
+        "inverter_id": [i.id for i in site.inverters],
+        "down_w": [i.ac_kw * 1000.0 * settings.availability_down_below_pct / 100.0
+                   for i in site.inverters],
+    })
+
+
+def inverter_gamma(site: Site) -> dict[str, float]:
+    """P0-weighted power temperature coefficient of each inverter's arrays [1/C]."""
+    return {
+        i.id: sum(a.dc_kwp * a.gamma_pct_per_c for a in i.arrays) / i.dc_kwp / 100.0
+        for i in site.inverters
+    }
+
+
+def daily_sums(
+    con: duckdb.DuckDBPyConnection,
+    site: Site,
+    start: pd.Timestamp,
+    end: pd.Timestamp,
+    settings: Settings,
+    windows: pd.DataFrame | None = None,
+) -> pd.DataFrame:
+    """Daily sums per inverter over ``aligned`` in ``[start, end)``, every calendar day present.
+
+    ``windows`` (see :func:`event_windows`) has columns action ('exclude' or 'model_poa'),
+    scope ('plant' or 'inverter:<id>'), start_ts, end_ts (UTC).
+    """
+    if windows is None or windows.empty:
+        windows = pd.DataFrame({
+            "action": pd.Series([], dtype=object),
+            "scope": pd.Series([], dtype=object),
+            "start_ts": pd.Series([], dtype="datetime64[us, UTC]"),
+            "end_ts": pd.Series([], dtype="datetime64[us, UTC]"),
+        })
+    con.register("_metrics_inverters", _inverter_table(site, settings))
+    con.register("_metrics_windows", windows[["action", "scope", "start_ts", "end_ts"]])
+    try:
+        df = con.execute(db.sql("metrics_daily"), {
+            "tz": site.timezone, "start": start.to_pydatetime(), "end": end.to_pydatetime(),
+            "min_poa": settings.min_poa_wm2, "avail_min_poa": settings.availability_min_poa_wm2,
+            "exclude_flags": list(settings.exclude_flags),
+        }).df()
+    except duckdb.CatalogException as exc:
+        raise DataError(f"no aligned series in the database ({exc}); run the model first")\
+            from None
+    finally:
+        con.unregister("_metrics_inverters")
+        con.unregister("_metrics_windows")
+    return _complete_calendar(df, site, start, end)
+
+
+def _complete_calendar(
+    df: pd.DataFrame, site: Site, start: pd.Timestamp, end: pd.Timestamp
+) -> pd.DataFrame:
+    """Every (local day, inverter) of the period, zeros where no rows; nominal daylight count."""
+    tz = site.tz
+    first = start.tz_convert(tz).normalize()
+    days = pd.date_range(first, end.tz_convert(tz) - pd.Timedelta(microseconds=1),
+                         freq="D", tz=tz).normalize()
+    ids = [i.id for i in site.inverters]
+    grid = pd.MultiIndex.from_product([days.date, ids], names=["day", "inverter_id"])
+    df = df.assign(day=pd.to_datetime(df["day"]).dt.date).set_index(["day", "inverter_id"])
+    out = df.reindex(grid)
+    counts = [c for c in out.columns if c != "interval_s"]
+    out[counts] = out[counts].fillna(0.0)
+    fallback = min(lg.interval_min for lg in site.loggers) * 60.0
+    interval = out["interval_s"].groupby(level="inverter_id").transform(
+        lambda s: s.mode().iloc[0] if s.notna().any() else fallback)
+    daylight = pd.Series(daylight_seconds(site, days, start, end), index=days.date)
+    nominal = np.floor(daylight.reindex(out.index.get_level_values("day")).to_numpy()
+                       / interval.to_numpy() + 0.5)
+    out["n_nominal"] = np.maximum(nominal, out["n_daylight"].to_numpy())
+    out["interval_s"] = interval
+    return out.reset_index()
+
+
+def scope_sums(daily: pd.DataFrame, site: Site) -> pd.DataFrame:
+    """Scale the per-inverter daily sums by P0 and add the plant; columns :data:`SUM_COLUMNS`.
+
+    Returns one row per (day, scope), scope 'plant' or 'inverter:<id>'.
+    """
+    p0 = {i.id: i.dc_kwp * 1000.0 for i in site.inverters}
+    gamma = inverter_gamma(site)
+    d = daily.copy()
+    d["p0_w"] = d["inverter_id"].map(p0)
+    g = d["inverter_id"].map(gamma)
+    d["ref_wh"] = d["p0_w"] * d["h_whm2"] / G_STC
+    d["ref_sensor_wh"] = d["p0_w"] * d["h_sensor_whm2"] / G_STC
+    d["refg_wh"] = g * d["p0_w"] * d["h_t_whm2"] / G_STC
+    d["refgt_wh"] = g * d["p0_w"] * d["ht_whm2c"] / G_STC
+    d["w_base"] = d["p0_w"] * d["n_base"]
+    d["w_up"] = d["p0_w"] * d["n_up"]
+    d["scope"] = "inverter:" + d["inverter_id"].astype(str)
+    inv = d[["day", "scope", *SUM_COLUMNS]]
+    plant = inv.groupby("day", as_index=False)[list(SUM_COLUMNS)].sum()
+    plant.insert(1, "scope", "plant")
+    return pd.concat([plant, inv], ignore_index=True)
+
+
+# --------------------------------------------------------------------------------------------
+# summaries with intervals
+
+
+ADDITIVE = tuple(c for c in SUM_COLUMNS if c != "p0_w")
+
+
+def _sums(tot: np.ndarray, p0: np.ndarray) -> dict[str, np.ndarray]:
+    """Named sums from an array (..., n_scopes, len(ADDITIVE)) and P0 per scope [W]."""
+    s = {c: tot[..., j] for j, c in enumerate(ADDITIVE)}
+    s["p0_w"] = np.broadcast_to(p0, tot.shape[:-1])
+    return s
+
+
+def _uncertainty(s: Mapping[str, np.ndarray], settings: Settings) -> np.ndarray:
+    """Relative irradiance uncertainty: sensor and modelled shares weighted by irradiation."""
+    sensor = _div(s["ref_sensor_wh"], s["ref_wh"])
+    return (sensor * settings.poa_uncertainty_pct
+            + (1.0 - sensor) * settings.modelled_poa_uncertainty_pct) / 100.0
+
+
+def summarise(
+    cube: np.ndarray,
+    p0: np.ndarray,
+    scopes: Sequence[str],
+    label: dict[str, Any],
+    settings: Settings,
+    temp_refs: tuple[float, float],
+    with_ci: bool,
+) -> dict[str, Any]:
+    """One summary row (plant, with an ``inverters`` list) over the days of ``cube``.
+
+    ``cube`` is (n_days, n_scopes, len(ADDITIVE)) daily sums, scope 0 the plant; ``p0`` the
+    scopes' P0 [W]; ``temp_refs`` (T_ref, T_cell_typ_avg) [C]; ``label`` the period fields,
+    its ``_key`` seeding the bootstrap so a month's interval does not depend on the period.
+    """
+    s = _sums(cube.sum(axis=0), p0)
+    vals = ratios(s, *temp_refs)
+    reasons = _reasons(vals, s, settings)
+    ok = np.array([r is None for r in reasons])
+    ci = {k: (np.full(len(scopes), np.nan), np.full(len(scopes), np.nan)) for k in CI_METRICS}
+    ci["specific_yield_kwh_per_kwp"] = gap_band(s)
+    if with_ci and ok.any():
+        rng = np.random.default_rng([settings.seed, *(int(x) for x in label["_key"])])
+
+        def stat(summed: np.ndarray) -> np.ndarray:
+            r = ratios(_sums(summed, p0), *temp_refs)
+            return np.stack([r[k] for k in BOOTSTRAP_METRICS], axis=-1)
+
+        days = cube[cube[:, 0, ADDITIVE.index("n_used")] > 0]
+        low, high = block_bootstrap(days, stat, settings.bootstrap_samples,
+                                    settings.confidence, rng)
+        u = _uncertainty(s, settings)
+        for j, k in enumerate(BOOTSTRAP_METRICS):
+            lo, hi = low[:, j], high[:, j]
+            ci[k] = combine_band(vals[k], lo, hi, u) if k in IRRADIANCE_METRICS else (lo, hi)
+    rows = []
+    for i, scope in enumerate(scopes):
+        row: dict[str, Any] = {"scope": scope, **_amounts(s, i)}
+        for k, v in vals.items():
+            row[k] = v[i] if ok[i] or k == "coverage" else None
+        for k in CI_METRICS:
+            lo, hi = ci[k]
+            row[f"{k}_ci_low"] = lo[i] if ok[i] else None
+            row[f"{k}_ci_high"] = hi[i] if ok[i] else None
+        row["reason"] = reasons[i]
+        rows.append(row)
+    out = {k: v for k, v in label.items() if not k.startswith("_")}
+    out.update(rows[0])
+    out["inverters"] = rows[1:]
+    for r in out["inverters"]:
+        r["days"] = out["days"]
+    return json_ready(out)
+
+
+def _amounts(s: Mapping[str, np.ndarray], i: int) -> dict[str, Any]:
+    return {
+        "measured_kwh": s["e_meas_wh"][i] / 1000.0,
+        "expected_kwh": s["e_exp_wh"][i] / 1000.0,
+        "irradiation_kwh_m2": s["ref_wh"][i] / s["p0_w"][i],
+        "daylight_intervals": int(s["n_nominal"][i]),
+        "valid_intervals": int(s["n_valid"][i]),
+        "used_intervals": int(s["n_used"][i]),
+        "excluded_intervals": int(s["n_excluded"][i]),
+        "model_poa_intervals": int(s["n_fallback"][i]),
+    }
+
+
+def _reasons(
+    vals: Mapping[str, np.ndarray], s: Mapping[str, np.ndarray], settings: Settings
+) -> list[str | None]:
+    out: list[str | None] = []
+    for cov, nominal, ref in zip(vals["coverage"], s["n_nominal"], s["ref_wh"], strict=True):
+        if nominal <= 0:
+            out.append("no daylight intervals in this period")
+        elif not cov >= settings.min_coverage:
+            out.append(f"coverage {cov:.3f} of daylight intervals is below the minimum "
+                       f"{settings.min_coverage:.2f} (metrics.min_coverage)")
+        elif ref <= 0:
+            out.append("no plane-of-array irradiation in the used intervals")
+        else:
+            out.append(None)
+    return out
+
+
+def json_ready(obj: Any) -> Any:
+    """NaN to None and floats rounded to 7 significant digits (stable JSON across reruns)."""
+    if isinstance(obj, dict):
+        return {k: json_ready(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [json_ready(v) for v in obj]
+    if isinstance(obj, float | np.floating):
+        v = float(obj)
+        return None if not math.isfinite(v) else float(f"{v:.7g}")
+    if isinstance(obj, np.integer):
+        return int(obj)
+    return obj
+
+
+# --------------------------------------------------------------------------------------------
+# periods
+
+
+def load_schema(name: str) -> dict[str, Any]:
+    """A JSON Schema shipped in ``perfcheck/schemas`` (e.g. ``check``, ``capacity``)."""
+    import importlib.resources
+
+    text = (importlib.resources.files("perfcheck") / "schemas" / f"{name}.schema.json")\
+        .read_text(encoding="utf-8")
+    return json.loads(text)
+
+
+def local_iso(ts: pd.Timestamp, site: Site) -> str:
+    """ISO 8601 with the site's UTC offset, e.g. 2025-06-01T00:00:00+02:00."""
+    return ts.tz_convert(site.tz).isoformat()
+
+
+def resolve_period(
+    con: duckdb.DuckDBPyConnection,
+    site: Site,
+    date_from: dt.date | None,
+    date_to: dt.date | None,
+) -> tuple[pd.Timestamp, pd.Timestamp]:
+    """[start, end) in UTC from local dates (``date_to`` inclusive); missing ends from the data."""
+    if date_from is None or date_to is None:
+        try:
+            first, last = con.execute(db.sql("metrics_range")).fetchall()[0]
+        except duckdb.CatalogException:
+            raise DataError("no aligned series in the database; run the model first") from None
+        if first is None:
+            raise DataError("the aligned series is empty; ingest and model some data first")
+        first = pd.Timestamp(first).tz_convert(site.tz)
+        last = pd.Timestamp(last).tz_convert(site.tz)
+        date_from = date_from or first.date()
+        date_to = date_to or last.date()
+    if date_to < date_from:
+        raise DataError(f"--to {date_to} is before --from {date_from}")
+    start = pd.Timestamp(date_from).tz_localize(site.tz)
+    end = pd.Timestamp(date_to + dt.timedelta(days=1)).tz_localize(site.tz)
+    return start.tz_convert("UTC"), end.tz_convert("UTC")
+
+
+def typical_cell_temperature(
+    con: duckdb.DuckDBPyConnection, site: Site, end: pd.Timestamp, settings: Settings
+) -> tuple[float, str]:
+    """T_cell_typ_avg [C] and where it came from.
+
+    Given in the site file, or the irradiance-weighted mean cell temperature of the 365 days
+    before ``end`` (or of all data there if less): Dierauf et al. 2013, NREL/TP-5200-57991, ask
+    for a year of typical weather; a year of the site's own data is the nearest we have.
+    """
+    if settings.t_cell_typ_avg_c is not None:
+        return settings.t_cell_typ_avg_c, "given (metrics.t_cell_typ_avg_c)"
+    t, first, last = con.execute(db.sql("metrics_t_cell_typ"), {
+        "start": (end - pd.Timedelta(days=365)).to_pydatetime(), "end": end.to_pydatetime(),
+    }).fetchall()[0]
+    if t is None:
+        return 25.0, "no cell temperatures in the data; 25 C used"
+    days = (pd.Timestamp(last) - pd.Timestamp(first)) / pd.Timedelta(days=1)
+    return float(t), f"irradiance-weighted mean of {days:.0f} days of data before the end"
+
+
+def compute(
+    con: duckdb.DuckDBPyConnection,
+    site: Site,
+    start: pd.Timestamp,
+    end: pd.Timestamp,
+    windows: pd.DataFrame | None = None,
+    settings: Settings | None = None,
+) -> dict[str, Any]:
+    """The ``metrics`` block (monthly, yearly, period, daily) and the ``settings`` used.
+
+    ``windows``: exclusion and sensor-fallback windows from detected events
+    (:func:`event_windows`); none by default.
+    """
+    settings = settings or load_settings(site)
+    sums = scope_sums(daily_sums(con, site, start, end, settings, windows), site)
+    t_typ, t_typ_source = typical_cell_temperature(con, site, end, settings)
+    temp_ref = t_typ if settings.pr_temp_ref_c == "annual" else float(settings.pr_temp_ref_c)
+    temp_refs = (temp_ref, t_typ)
+    scopes = ["plant", *(f"inverter:{i.id}" for i in site.inverters)]
+    sums = sums.assign(_order=sums["scope"].map({sc: k for k, sc in enumerate(scopes)}))
+    sums = sums.sort_values(["day", "_order"])
+    days = list(dict.fromkeys(sums["day"]))
+    cube = sums[list(ADDITIVE)].to_numpy(dtype=float).reshape(len(days), len(scopes), -1)
+    p0 = sums["p0_w"].to_numpy(dtype=float)[: len(scopes)]
+    tz = site.tz
+
+    def bounds(first: dt.date, after: dt.date) -> dict[str, Any]:
+        lo = max(pd.Timestamp(first).tz_localize(tz), start.tz_convert(tz))
+        hi = min(pd.Timestamp(after).tz_localize(tz), end.tz_convert(tz))
+        return {"start": lo.isoformat(), "end": hi.isoformat(),
+                "_key": (lo.toordinal(), hi.toordinal()),
+                "days": round((hi - lo) / pd.Timedelta(days=1))}
+
+    def group(key: Callable[[dt.date], dt.date], name: str, fmt: Callable[[dt.date], str],
+              nxt: Callable[[dt.date], dt.date], with_ci: bool) -> list[dict[str, Any]]:
+        keys = [key(d) for d in days]
+        out, i = [], 0
+        while i < len(days):
+            j = i
+            while j < len(days) and keys[j] == keys[i]:
+                j += 1
+            label = {name: fmt(keys[i]), **bounds(keys[i], nxt(keys[i]))}
+            out.append(summarise(cube[i:j], p0, scopes, label, settings, temp_refs, with_ci))
+            i = j
+        return out
+
+    monthly = group(lambda d: d.replace(day=1), "month", lambda d: d.strftime("%Y-%m"),
+                    _next_month, True)
+    yearly = group(lambda d: d.replace(month=1, day=1), "year", lambda d: str(d.year),
+                   lambda d: d.replace(year=d.year + 1), True)
+    daily_rows = group(lambda d: d, "date", lambda d: d.isoformat(),
+                       lambda d: d + dt.timedelta(days=1), False)
+    p_start, p_end = start.tz_convert(tz), end.tz_convert(tz)
+    label = {"start": p_start.isoformat(), "end": p_end.isoformat(),
+             "_key": (1, p_start.toordinal(), p_end.toordinal()),
+             "days": round((p_end - p_start) / pd.Timedelta(days=1))}
+    period = summarise(cube, p0, scopes, label, settings, temp_refs, True)
+    return {
+        "settings": settings_record(settings, temp_ref, t_typ, t_typ_source),
+        "metrics": {"monthly": monthly, "yearly": yearly, "period": period, "daily": daily_rows},
+    }
+
+
+def _next_month(d: dt.date) -> dt.date:
+    return (d.replace(day=28) + dt.timedelta(days=4)).replace(day=1)
+
+
+def settings_record(
+    settings: Settings, temp_ref_c: float, t_typ: float, t_typ_source: str
+) -> dict[str, Any]:
+    """The settings as stored with each result (JSON ``settings``, table ``metrics_runs``)."""
+    rec = asdict(settings)
+    rec["exclude_flags"] = list(settings.exclude_flags)
+    rec.update({
+        "pr_temp_ref_used_c": temp_ref_c,
+        "t_cell_typ_avg_used_c": t_typ,
+        "t_cell_typ_avg_source": t_typ_source,
+        "g_stc_wm2": G_STC,
+        "interval_method": (
+            f"day-block bootstrap ({settings.bootstrap_samples} resamples, seed "
+            f"{settings.seed}, percentile interval at {settings.confidence:.0%}); for PR, "
+            "temperature- and weather-corrected PR and EPI widened in quadrature by the "
+            "irradiance uncertainty (sensor share at poa_uncertainty_pct, modelled share at "
+            "modelled_poa_uncertainty_pct)"
+        ),
+        "rules": list(_RULES),
+    })
+    return json_ready(rec)
+
+
+_RULES = [
+    "daylight: sun above the horizon at the interval's centre",
+    "valid: measured power, expected power and plane-of-array irradiance present, none of "
+    "exclude_flags",
+    "used (yields, PR, EPI): daylight, valid, outside exclusion windows, POA >= min_poa_wm2",
+    "availability base: daylight, valid, outside exclusion windows, POA >= "
+    "availability_min_poa_wm2; up when AC power >= availability_down_below_pct of AC rating",
+    "exclusion windows: curtailment events (exclude_curtailment) and plant-wide outage events "
+    "taken as grid outages (exclude_grid_outages)",
+    "sensor-fault events (sensor_fault_fallback): modelled plane-of-array irradiance for the "
+    "reference yield, counted as model_poa_intervals, at modelled_poa_uncertainty_pct",
+    "coverage: valid daylight intervals / calendar daylight intervals; below min_coverage a "
+    "value is null with a reason",
+    "plant reference yield: P0-weighted mean of the inverters' plane-of-array irradiation",
+]
+
+
+# --------------------------------------------------------------------------------------------
+# the whole check document
+
+
+def event_windows(events: Sequence[Mapping[str, Any]], settings: Settings) -> pd.DataFrame:
+    """Windows the metrics treat specially, from detected events.
+
+    action 'exclude': curtailment (any scope) if ``exclude_curtailment``; plant-scope outages,
+    taken as grid outages, if ``exclude_grid_outages`` (from power data alone a grid outage
+    cannot be told from a plant-wide stop: turn it on where the grid operator confirms them).
+    action 'model_poa': sensor faults if ``sensor_fault_fallback``; there the reference yield
+    uses the modelled plane-of-array irradiance (with the modelled-irradiance uncertainty).
+    """
+    keep = []
+    for ev in events:
+        kind, scope = ev["kind"], ev["scope"]
+        if (kind == "curtailment" and settings.exclude_curtailment) or (
+            kind == "outage" and scope == "plant" and settings.exclude_grid_outages
+        ):
+            action = "exclude"
+        elif kind == "sensor_fault" and settings.sensor_fault_fallback:
+            action = "model_poa"
+        else:
+            continue
+        keep.append((action, scope, pd.Timestamp(ev["start"]).tz_convert("UTC"),
+                     pd.Timestamp(ev["end"]).tz_convert("UTC")))
+    return pd.DataFrame(keep, columns=["action", "scope", "start_ts", "end_ts"])
+
+
+def site_record(site: Site) -> dict[str, Any]:
+    return {
+        "name": site.name,
+        "site_file": site.path.name,
+        "latitude_deg": site.latitude_deg,
+        "longitude_deg": site.longitude_deg,
+        "timezone": site.timezone,
+        "dc_kwp": site.dc_kwp,
+        "ac_kw": site.ac_kw,
+        "inverters": [{"id": i.id, "dc_kwp": i.dc_kwp, "ac_kw": i.ac_kw} for i in site.inverters],
+    }
+
+
+def run_record() -> dict[str, Any]:
+    import platform
+
+    import pvlib
+    import statsmodels
+
+    return {
+        "tool_version": __version__,
+        "created_at": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
+        "python": platform.python_version(),
+        "dependencies": {"pandas": pd.__version__, "numpy": np.__version__,
+                         "pvlib": pvlib.__version__, "duckdb": duckdb.__version__,
+                         "statsmodels": statsmodels.__version__},
+    }
+
+
+def check(
+    con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: pd.Timestamp
+) -> dict[str, Any]:
+    """The whole ``perfcheck check`` document (see ``perfcheck/schemas/check.schema.json``)."""
+    from perfcheck import detect, guarantees
+
+    settings = load_settings(site)
+    found = detect.run(con, site, start, end)
+    result = compute(con, site, start, end, event_windows(found["events"], settings),
+                     settings)
+    doc = {
+        "site": site_record(site),
+        "period": {"start": local_iso(start, site), "end": local_iso(end, site)},
+        "settings": result["settings"],
+        "metrics": result["metrics"],
+        "events": found["events"],
+        "losses": found["losses"],
+        "degradation": found["degradation"],
+        "guarantees": [],
+        "run": run_record(),
+    }
+    doc["guarantees"] = guarantees.evaluate(site, doc)
+    return doc
+
+
+def store(con: duckdb.DuckDBPyConnection, doc: Mapping[str, Any]) -> int:
+    """Write the metric values of a check document with its settings; returns the run id."""
+    run_id = con.execute("SELECT nextval('metrics_run_id')").fetchall()[0][0]
+    con.execute(
+        "INSERT INTO metrics_runs VALUES (?, ?, ?, ?, ?, ?)",
+        [run_id, doc["run"]["created_at"], doc["period"]["start"], doc["period"]["end"],
+         json.dumps(doc["settings"], sort_keys=True), doc["run"]["tool_version"]],
+    )
+    rows = []
+    levels = [("month", doc["metrics"]["monthly"]), ("year", doc["metrics"]["yearly"]),
+              ("day", doc["metrics"]["daily"]), ("period", [doc["metrics"]["period"]])]
+    for level, items in levels:
+        for item in items:
+            for r in [item, *item["inverters"]]:
+                for m in (*CI_METRICS, "yr_h", "ya_h", "yf_h", "lc_h", "ls_h", "coverage"):
+                    rows.append((run_id, level, item["start"], item["end"], r["scope"], m,
+                                 r[m], r.get(f"{m}_ci_low"), r.get(f"{m}_ci_high"),
+                                 r["reason"]))
+    frame = pd.DataFrame(rows, columns=["run_id", "level", "period_start", "period_end",
+                                        "scope", "metric", "value", "ci_low", "ci_high",
+                                        "reason"])
+    frame["period_start"] = pd.to_datetime(frame["period_start"], utc=True)
+    frame["period_end"] = pd.to_datetime(frame["period_end"], utc=True)
+    con.register("_metrics_rows", frame)
+    try:
+        con.execute("INSERT INTO metrics_values SELECT * FROM _metrics_rows")
+    finally:
+        con.unregister("_metrics_rows")
+    return int(run_id)

@@ -1,0 +1,91 @@
+-- Daily sums per inverter over the aligned rows: the only pass over interval data that the
+-- metrics need (perfcheck.metrics.daily_sums). Everything after this works on these sums.
+-- Parameters: $tz (site zone, for day boundaries), $start, $end (end exclusive), $min_poa and
+-- $avail_min_poa [W/m2], $exclude_flags (flag names that make a row invalid).
+-- Registered relations: _metrics_inverters(inverter_id, down_w) and
+-- _metrics_windows(action, scope, start_ts, end_ts) from detected events: action 'exclude'
+-- (curtailment / grid outage) or 'model_poa' (suspect irradiance sensor: use modelled POA).
+-- Rules: a row is daylight when the sun is above the horizon; valid when measured power,
+-- expected power and plane-of-array irradiance are present and it carries none of the excluded
+-- flags; used (for yields, PR, EPI) when daylight, valid, outside the exclusion windows and its
+-- irradiance is at least $min_poa; in the availability base when daylight, valid, outside the
+-- windows and its irradiance is at least $avail_min_poa. Energy sums are in Wh, irradiation in
+-- Wh/m2, irradiation times cell temperature in Wh/m2*C.
+WITH dc AS (
+    SELECT ts, device, value AS dc_w FROM readings WHERE quantity = 'dc_power_w'
+),
+w AS (
+    SELECT
+        a.*,
+        EXISTS (
+            SELECT 1 FROM _metrics_windows x
+            WHERE x.action = 'exclude'
+              AND (x.scope = 'plant' OR x.scope = 'inverter:' || a.inverter_id)
+              AND a.ts >= x.start_ts AND a.ts < x.end_ts
+        ) AS excluded,
+        a.poa_modelled_wm2 IS NOT NULL AND EXISTS (
+            SELECT 1 FROM _metrics_windows x
+            WHERE x.action = 'model_poa'
+              AND (x.scope = 'plant' OR x.scope = 'inverter:' || a.inverter_id)
+              AND a.ts >= x.start_ts AND a.ts < x.end_ts
+        ) AS fallback
+    FROM aligned a
+    WHERE a.ts >= $start AND a.ts < $end
+),
+r AS (
+    SELECT
+        w.inverter_id,
+        CAST(timezone($tz, w.ts) AS DATE) AS day,
+        w.interval_s,
+        w.interval_s / 3600.0 AS dt_h,
+        w.measured_ac_w AS p,
+        w.expected_ac_w AS p_exp,
+        CASE WHEN w.fallback THEN w.poa_modelled_wm2 ELSE w.poa_wm2 END AS g,
+        w.temp_cell_c AS t,
+        coalesce(w.poa_source = 'sensor', false) AND NOT w.fallback AS sensor,
+        w.fallback,
+        w.excluded,
+        dc.dc_w,
+        coalesce(w.sun_zenith_deg < 90, false) AS daylight,
+        w.measured_ac_w IS NOT NULL AND w.expected_ac_w IS NOT NULL
+            AND (w.poa_wm2 IS NOT NULL OR w.fallback)
+            AND (coalesce(w.flags, '') = ''
+                 OR NOT list_has_any(string_split(w.flags, ','), $exclude_flags)) AS valid,
+        i.down_w
+    FROM w
+    JOIN _metrics_inverters i ON i.inverter_id = w.inverter_id
+    LEFT JOIN dc ON dc.ts = w.ts AND dc.device = w.inverter_id
+),
+u AS (
+    SELECT *,
+        daylight AND valid AND NOT excluded AND g >= $min_poa AS used,
+        daylight AND valid AND NOT excluded AND g >= $avail_min_poa AS base
+    FROM r
+)
+SELECT
+    day,
+    inverter_id,
+    mode(interval_s) AS interval_s,
+    count(*) FILTER (WHERE daylight) AS n_daylight,
+    count(*) FILTER (WHERE daylight AND valid) AS n_valid,
+    count(*) FILTER (WHERE daylight AND valid AND excluded) AS n_excluded,
+    count(*) FILTER (WHERE used) AS n_used,
+    count(*) FILTER (WHERE used AND fallback) AS n_fallback,
+    count(dc_w) FILTER (WHERE used) AS n_dc,
+    coalesce(sum(p * dt_h) FILTER (WHERE used), 0) AS e_meas_wh,
+    coalesce(sum(p_exp * dt_h) FILTER (WHERE used), 0) AS e_exp_wh,
+    coalesce(sum(dc_w * dt_h) FILTER (WHERE used), 0) AS e_dc_wh,
+    coalesce(sum(g * dt_h) FILTER (WHERE used), 0) AS h_whm2,
+    coalesce(sum(g * dt_h) FILTER (WHERE used AND sensor), 0) AS h_sensor_whm2,
+    coalesce(sum(g * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS h_t_whm2,
+    coalesce(sum(g * t * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS ht_whm2c,
+    count(*) FILTER (WHERE base) AS n_base,
+    count(*) FILTER (WHERE base AND p >= down_w) AS n_up,
+    coalesce(sum(p_exp * dt_h) FILTER (WHERE base), 0) AS e_base_exp_wh,
+    coalesce(sum(p_exp * dt_h) FILTER (WHERE base AND p < down_w), 0) AS e_down_exp_wh,
+    coalesce(sum(p * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_meas_all_wh,
+    coalesce(sum(p_exp * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_exp_all_wh,
+    coalesce(sum(p_exp * dt_h) FILTER (WHERE daylight AND NOT valid), 0) AS e_exp_gap_wh
+FROM u
+GROUP BY day, inverter_id
+ORDER BY day, inverter_id

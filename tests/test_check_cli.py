@@ -1,0 +1,108 @@
+"""``perfcheck check``: table, JSON document against its schema, stored results, errors."""
+
+from __future__ import annotations
+
+import json
+
+import jsonschema
+import pytest
+from click.testing import CliRunner
+from metrics_support import connect_with, make_site, synthetic_aligned, write_site
+
+from perfcheck import db, metrics
+from perfcheck.cli import main
+
+
+@pytest.fixture(scope="module")
+def checked(tmp_path_factory):
+    """A two-inverter invented site with five weeks of aligned data, checked once."""
+    tmp = tmp_path_factory.mktemp("check")
+    site_path = write_site(tmp / "hollerbach.toml", n_inverters=2)
+    frame = synthetic_aligned(make_site(n_inverters=2), "2025-05-25", "2025-07-02")
+    connect_with(frame, path=tmp / "hollerbach.duckdb").close()
+    out = tmp / "check.json"
+    result = CliRunner().invoke(main, ["check", str(site_path), "--from", "2025-06-01", "--to",
+                                       "2025-06-30", "--json", str(out)])
+    return site_path, result, out
+
+
+def test_check_prints_the_monthly_table(checked):
+    _, result, _ = checked
+    assert result.exit_code == 0, result.output
+    lines = result.output.splitlines()
+    assert lines[0].startswith("Testfeld Hollerbach: 2025-06-01 to 2025-07-01")
+    assert any(line.startswith("2025-06 ") for line in lines)
+    assert any(line.startswith("period ") for line in lines)
+    assert "PR T-corr %" in result.output and "coverage" in result.output
+
+
+def test_check_json_follows_its_schema(checked):
+    _, _, out = checked
+    doc = json.loads(out.read_text())
+    jsonschema.validate(doc, metrics.load_schema("check"))
+    assert doc["period"] == {"start": "2025-06-01T00:00:00+02:00",
+                             "end": "2025-07-01T00:00:00+02:00"}
+    june = doc["metrics"]["monthly"][0]
+    assert june["month"] == "2025-06" and len(june["inverters"]) == 2
+    for key in ("pr", "pr_temp_corrected", "pr_weather_corrected", "epi", "availability",
+                "specific_yield_kwh_per_kwp"):
+        assert june[f"{key}_ci_low"] <= june[key] <= june[f"{key}_ci_high"]
+    assert len(doc["metrics"]["daily"]) == 30
+    assert doc["site"]["site_file"] == "hollerbach.toml"  # no absolute paths
+
+
+def test_check_schema_refuses_a_broken_document(checked):
+    _, _, out = checked
+    doc = json.loads(out.read_text())
+    doc["metrics"]["monthly"][0]["pr"] = "high"
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.validate(doc, metrics.load_schema("check"))
+    doc = json.loads(out.read_text())
+    doc["events"].append({"kind": "gremlins", "scope": "plant"})
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.validate(doc, metrics.load_schema("check"))
+
+
+def test_check_stores_values_with_their_settings(checked):
+    site_path, _, _ = checked
+    con = db.connect(db.default_db_path(site_path), read_only=True)
+    runs = con.execute("SELECT run_id, settings_json FROM metrics_runs").fetchall()
+    assert len(runs) == 1
+    assert json.loads(runs[0][1])["min_coverage"] == 0.8
+    (n,) = con.execute("SELECT count(*) FROM metrics_values WHERE level = 'month' AND "
+                       "scope = 'plant' AND metric = 'pr' AND value IS NOT NULL").fetchall()[0]
+    assert n == 1
+    con.close()
+
+
+def test_check_errors_are_one_line(tmp_path):
+    runner = CliRunner()
+    site_path = write_site(tmp_path / "hollerbach.toml")
+    r = runner.invoke(main, ["check", str(site_path)])
+    assert r.exit_code == 2
+    assert r.output == (f"perfcheck: error: {tmp_path / 'hollerbach.duckdb'}: no database yet "
+                        "(run 'perfcheck ingest' first)\n")
+    bad = write_site(tmp_path / "bad.toml", metrics={"min_coverage": 2})
+    r = runner.invoke(main, ["check", str(bad)])
+    assert r.exit_code == 2
+    assert r.output == (f"perfcheck: error: {bad}: metrics.min_coverage: 2.0 is outside the "
+                        "range 0 to 1\n")
+    connect_with(synthetic_aligned(make_site(), "2025-06-01", "2025-06-03"),
+                 path=tmp_path / "hollerbach.duckdb").close()
+    r = runner.invoke(main, ["check", str(site_path), "--from", "2025-06-03", "--to",
+                             "2025-06-01"])
+    assert r.exit_code == 2
+    assert r.output == "perfcheck: error: --to 2025-06-01 is before --from 2025-06-03\n"
+    target = tmp_path / "missing" / "check.json"
+    r = runner.invoke(main, ["check", str(site_path), "--json", str(target)])
+    assert r.exit_code == 2
+    assert r.output == f"perfcheck: error: {target}: the folder for the JSON file does not exist\n"
+
+
+def test_schemas_ship_inside_the_package():
+    import importlib.resources
+
+    files = importlib.resources.files("perfcheck") / "schemas"
+    for name in ("check", "capacity"):
+        schema = json.loads((files / f"{name}.schema.json").read_text(encoding="utf-8"))
+        jsonschema.Draft202012Validator.check_schema(schema)
