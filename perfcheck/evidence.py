@@ -1,0 +1,391 @@
+"""Evidence bundles for a warranty or insurance claim, and their verification.
+
+``build_bundle`` writes one zip holding everything needed to check the findings without us:
+the raw logger files, the site file, the results (JSON, CSV), the report (PDF, HTML, figures),
+data coverage and quality, the methods statement, versions and the exact command, and
+``MANIFEST.json`` with the sha256 of every other file. ``verify_bundle`` checks every hash,
+names any tampered byte, and re-runs the whole analysis from the bundle alone in a temporary
+folder, confirming that the results are reproduced (identical JSON apart from run timestamps).
+
+Locating a changed byte: the manifest stores, for every 64 KiB block of a file, a short hash
+and two checksums, S1 = sum(b_i) and S2 = sum((i + 1) b_i), both mod the prime 2^31 - 1 (the
+position-weighted checksum in the manner of Fletcher's, Fletcher 1982, IEEE Trans. Commun.
+30(1):247; from memory). One changed byte at position j by d changes S1 by d and S2 by
+(j + 1) d, so j = dS2 / dS1 - 1 (mod the prime); the repaired block is then checked against the
+block hash. Other changes are named by the block (byte range) they touch.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import shlex
+import tempfile
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path, PurePosixPath
+from typing import Any
+
+import duckdb
+import numpy as np
+import pandas as pd
+
+from perfcheck import __version__, db, report
+from perfcheck.errors import DataError, PerfcheckError
+from perfcheck.site import Site, load_site
+
+BLOCK = 65536
+PRIME = 2**31 - 1
+MANIFEST = "MANIFEST.json"
+BUNDLE_FORMAT = "perfcheck-evidence-1"
+# Fields of the check document that legitimately differ between runs.
+VOLATILE = (("run", "created_at"),)
+_FIXED_TIME = (2000, 1, 1, 0, 0, 0)  # zip member times: the bundle's bytes depend on content only
+
+README = """\
+Evidence bundle written by perfcheck {version}
+Site: {site}    Period: {start} to {end} (end exclusive)
+
+Contents
+  MANIFEST.json      sha256 (and block checksums) of every other file in this bundle
+  bundle.json        period, site file and raw files in ingest order, tool version
+  command.txt        the exact command that wrote this bundle
+  versions.json      tool, Python and dependency versions
+  methods.txt        methods statement with references
+  site/              the site file used
+  raw/               the raw logger files: those covering the period, and the earlier ones the
+                     reference windows (detector baselines, typical cell temperature) draw on
+  results/           check.json (metrics, events, losses, degradation, guarantees), events.csv,
+                     monthly.csv, guarantees.csv, coverage.json (data coverage and quality)
+  report/            report.pdf, report.html and the figures as PNG
+
+Check it:  perfcheck verify {name}
+verify checks every hash against MANIFEST.json and names any changed byte, then re-runs the
+analysis from this bundle alone and compares the results. Quote the sha256 of MANIFEST.json
+(printed by 'perfcheck evidence' and by 'perfcheck verify') in the claim, so that the manifest
+itself can be checked.
+
+{cautions}
+"""
+
+
+# --------------------------------------------------------------------------------------------
+# checksums (pure)
+
+
+def block_sums(data: bytes, block: int = BLOCK) -> list[list[Any]]:
+    """Per block: [first 16 hex digits of its sha256, S1, S2] (see the module docstring)."""
+    out = []
+    for off in range(0, max(len(data), 1), block):
+        chunk = data[off:off + block]
+        b = np.frombuffer(chunk, dtype=np.uint8).astype(np.int64)
+        s1 = int(b.sum() % PRIME)
+        s2 = int((b * np.arange(1, len(b) + 1, dtype=np.int64)).sum() % PRIME)
+        out.append([hashlib.sha256(chunk).hexdigest()[:16], s1, s2])
+    return out
+
+
+def locate_change(old: list[list[Any]], data: bytes, block: int = BLOCK) -> list[str]:
+    """Describe where ``data`` differs from the file the block sums ``old`` were taken of."""
+    new = block_sums(data, block)
+    notes = []
+    for k, (was, now) in enumerate(zip(old, new, strict=False)):
+        if was[0] == now[0]:
+            continue
+        off = k * block
+        one = _single_byte(was, now, data[off:off + block])
+        if one is not None:
+            j, before, after = one
+            notes.append(f"byte {off + j} changed from {before:#04x} {_char(before)} to "
+                         f"{after:#04x} {_char(after)}")
+        else:
+            end = off + len(data[off:off + block]) - 1
+            notes.append(f"bytes {off}-{end} changed")
+    if len(old) != len(new):
+        notes.append(f"length changed ({len(old)} blocks recorded, {len(new)} now)")
+    return notes
+
+
+def _single_byte(was: list, now: list, chunk: bytes) -> tuple[int, int, int] | None:
+    d1 = (now[1] - was[1]) % PRIME
+    d2 = (now[2] - was[2]) % PRIME
+    if d1 == 0:
+        return None
+    j = (d2 * pow(d1, -1, PRIME)) % PRIME - 1
+    delta = d1 if d1 <= 255 else d1 - PRIME
+    if not (0 <= j < len(chunk)) or not -255 <= delta <= 255:
+        return None
+    after = chunk[j]
+    before = after - delta
+    if not 0 <= before <= 255:
+        return None
+    repaired = chunk[:j] + bytes([before]) + chunk[j + 1:]
+    if hashlib.sha256(repaired).hexdigest()[:16] != was[0]:
+        return None
+    return j, before, after
+
+
+def _char(b: int) -> str:
+    return repr(chr(b)) if 32 <= b < 127 else "(not printable)"
+
+
+def safe_member(name: str) -> bool:
+    """A zip member name that stays inside the bundle: relative, no '..', no drive, no '\\'."""
+    p = PurePosixPath(name)
+    return bool(name) and "\\" not in name and not p.is_absolute() and ".." not in p.parts \
+        and ":" not in p.parts[0]
+
+
+def strip_volatile(doc: dict) -> dict:
+    out = json.loads(json.dumps(doc))
+    for path in VOLATILE:
+        node = out
+        for key in path[:-1]:
+            node = node.get(key, {})
+        node.pop(path[-1], None)
+    return out
+
+
+def json_differences(a: Any, b: Any, where: str = "", limit: int = 10) -> list[str]:
+    """Up to ``limit`` JSON pointers where ``a`` and ``b`` differ, with both values."""
+    out: list[str] = []
+
+    def walk(x: Any, y: Any, at: str) -> None:
+        if len(out) >= limit:
+            return
+        if isinstance(x, dict) and isinstance(y, dict):
+            for k in sorted(set(x) | set(y)):
+                walk(x.get(k, "<missing>"), y.get(k, "<missing>"), f"{at}/{k}")
+        elif isinstance(x, list) and isinstance(y, list) and len(x) == len(y):
+            for i, (u, v) in enumerate(zip(x, y, strict=True)):
+                walk(u, v, f"{at}/{i}")
+        elif x != y:
+            out.append(f"{at or '/'}: bundle {_brief(x)}, re-run {_brief(y)}")
+
+    walk(a, b, where)
+    return out
+
+
+def _brief(v: Any) -> str:
+    text = json.dumps(v)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+# --------------------------------------------------------------------------------------------
+# building
+
+
+def _resolve(site: Site, given: str, sha256: str) -> Path:
+    """The ingested file on disk: as given, else relative to the site file; same sha256."""
+    for p in (Path(given), site.path.parent / given):
+        if p.is_file():
+            if hashlib.sha256(p.read_bytes()).hexdigest() != sha256:
+                raise DataError(f"{p}: logger file changed since it was ingested (sha256 differs)"
+                                "; re-ingest it or restore the original")
+            return p
+    raise DataError(f"{given}: ingested logger file not found (looked as given and beside "
+                    f"{site.path.name})")
+
+
+def raw_files(con: duckdb.DuckDBPyConnection, site: Site, end: pd.Timestamp) -> list[dict]:
+    rows = con.execute(db.sql("evidence_files"), {"end": end.to_pydatetime()}).df()
+    if rows.empty:
+        raise DataError(f"{site.path}: no ingested logger files before {end:%Y-%m-%d}")
+    out, names = [], set()
+    for r in rows.to_dict("records"):
+        src = _resolve(site, r["path"], r["sha256"])
+        name = f"raw/{src.name}"
+        if name in names:  # two files of the same name from different folders
+            name = f"raw/{r['file_id']}/{src.name}"
+        names.add(name)
+        out.append({"member": name, "source": src, "source_path": r["path"],
+                    "sha256": r["sha256"]})
+    return out
+
+
+def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
+                 end: pd.Timestamp, out_zip: Path, command: str,
+                 result: dict | None = None) -> dict[str, Any]:
+    """Write the evidence bundle for [start, end) to ``out_zip``.
+
+    Returns ``{"path": Path, "manifest_sha256": str, "files": int}``.
+    """
+    from perfcheck import align, metrics  # noqa: PLC0415 - later stages import report
+
+    out_zip = Path(out_zip)
+    files = raw_files(con, site, end)
+    if result is None:
+        result = metrics.check(con, site, start, end)
+    aligned = align.load_aligned(con, site, start, end)
+    quality = report.db_quality(con, start, end)
+    # inside the bundle a logger file is named by its place in the bundle, not on our disk
+    where = {f["source_path"]: f["member"] for f in files}
+    quality["files"] = [{**f, "path": where.get(f["path"], Path(f["path"]).name)}
+                        for f in quality["files"]]
+    members: dict[str, bytes] = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        paths = report.render(site, result, aligned, quality, Path(tmp))
+        for key, p in paths.items():
+            if key.startswith("figure_"):
+                members[f"report/figures/{p.name}"] = p.read_bytes()
+        for key, name in (("pdf", "report/report.pdf"), ("html", "report/report.html"),
+                          ("json", "results/check.json"), ("events_csv", "results/events.csv"),
+                          ("monthly_csv", "results/monthly.csv")):
+            members[name] = paths[key].read_bytes()
+    members["results/guarantees.csv"] = report.records_csv(result.get("guarantees", [])).encode()
+    coverage = {"per_inverter": report.quality_summary(aligned, site.timezone), **quality}
+    members["results/coverage.json"] = report.dump_json(coverage).encode()
+    members[f"site/{site.path.name}"] = site.path.read_bytes()
+    for f in files:
+        members[f["member"]] = f["source"].read_bytes()
+    members["bundle.json"] = report.dump_json({
+        "format": BUNDLE_FORMAT, "tool_version": __version__,
+        "period": {"start": start.isoformat(), "end": end.isoformat()},
+        "site_file": f"site/{site.path.name}",
+        "raw_files": [f["member"] for f in files],
+    }).encode()
+    members["command.txt"] = (command + "\n").encode()
+    members["versions.json"] = report.dump_json(report.versions()).encode()
+    members["methods.txt"] = methods_text(result).encode()
+    readme = README.format(version=__version__, site=site.name, start=start.isoformat(),
+                           end=end.isoformat(), name=out_zip.name,
+                           cautions="\n".join(report.CAUTIONS))
+    members["README.txt"] = readme.encode()
+    manifest = manifest_for(members)
+    manifest_bytes = report.dump_json(manifest).encode()
+    manifest_sha = hashlib.sha256(manifest_bytes).hexdigest()
+    out_zip.parent.mkdir(parents=True, exist_ok=True)
+    tmp_zip = out_zip.with_name(out_zip.name + ".part")
+    with zipfile.ZipFile(tmp_zip, "w", zipfile.ZIP_DEFLATED) as z:
+        for name in [MANIFEST, *sorted(members)]:
+            info = zipfile.ZipInfo(name, date_time=_FIXED_TIME)
+            info.compress_type = zipfile.ZIP_DEFLATED
+            z.writestr(info, manifest_bytes if name == MANIFEST else members[name])
+    tmp_zip.replace(out_zip)
+    return {"path": out_zip, "manifest_sha256": manifest_sha, "files": len(members) + 1}
+
+
+def _entry(data: bytes) -> dict[str, Any]:
+    return {"sha256": hashlib.sha256(data).hexdigest(), "size_bytes": len(data),
+            "block_bytes": BLOCK, "blocks": block_sums(data)}
+
+
+def manifest_for(members: dict[str, bytes]) -> dict[str, Any]:
+    return {"format": BUNDLE_FORMAT, "files": {n: _entry(d) for n, d in sorted(members.items())}}
+
+
+def methods_text(result: dict) -> str:
+    lines = ["Methods statement", "", "Each quantity and finding, with its published source:", ""]
+    lines += [f"- {name}: {source}." for name, source in report.METHODS]
+    methods = sorted({e["method"] for e in result.get("events", []) if e.get("method")})
+    if methods:
+        lines += ["", "Methods named by the events found:", ""] + [f"- {m}" for m in methods]
+    rules = result.get("settings", {}).get("rules", [])
+    if rules:
+        lines += ["", "Filtering rules:", ""] + [f"- {r}" for r in rules]
+    lines += ["", "Settings:", "", json.dumps(result.get("settings", {}), indent=2,
+                                               sort_keys=True), ""]
+    return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------------------------
+# verifying
+
+
+@dataclass
+class Verification:
+    ok: bool = True
+    manifest_sha256: str = ""
+    files_checked: int = 0
+    problems: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    def fail(self, text: str) -> None:
+        self.ok = False
+        self.problems.append(text)
+
+
+def _read_zip(path: Path) -> dict[str, bytes]:
+    try:
+        with zipfile.ZipFile(path) as z:
+            names = z.namelist()
+            bad = [n for n in names if not safe_member(n)]
+            if bad:
+                raise PerfcheckError(f"{path}: unsafe path in bundle: {bad[0]!r} (absolute or "
+                                     "leaving the bundle); not extracted")
+            return {n: z.read(n) for n in names if not n.endswith("/")}
+    except (zipfile.BadZipFile, OSError) as exc:
+        raise PerfcheckError(f"{path}: not a readable zip file ({exc})") from None
+
+
+def check_hashes(members: dict[str, bytes], v: Verification) -> dict[str, Any]:
+    if MANIFEST not in members:
+        raise PerfcheckError(f"bundle has no {MANIFEST}")
+    v.manifest_sha256 = hashlib.sha256(members[MANIFEST]).hexdigest()
+    try:
+        manifest = json.loads(members[MANIFEST])
+        listed = manifest["files"]
+    except (ValueError, KeyError, TypeError):
+        raise PerfcheckError(f"{MANIFEST}: not a perfcheck manifest") from None
+    for name in sorted(set(members) - set(listed) - {MANIFEST}):
+        v.fail(f"{name}: in the bundle but not in the manifest")
+    for name, entry in sorted(listed.items()):
+        if name not in members:
+            v.fail(f"{name}: listed in the manifest but missing from the bundle")
+            continue
+        v.files_checked += 1
+        data = members[name]
+        if hashlib.sha256(data).hexdigest() == entry["sha256"]:
+            continue
+        where = locate_change(entry["blocks"], data, entry["block_bytes"])
+        v.fail(f"{name}: sha256 differs from the manifest: " + "; ".join(where or ["changed"]))
+    return manifest
+
+
+def rerun(members: dict[str, bytes], v: Verification) -> None:
+    """Re-run the analysis from the bundle's own files in a temporary folder and compare."""
+    from perfcheck import pipeline  # noqa: PLC0415
+
+    info = json.loads(members["bundle.json"])
+    if info.get("tool_version") != __version__:
+        v.notes.append(f"bundle written by perfcheck {info.get('tool_version')}, verified with "
+                       f"{__version__}: small numeric differences may come from the versions")
+    with tempfile.TemporaryDirectory() as tmp:
+        root = Path(tmp)
+        for name, data in members.items():
+            target = root / name
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(data)
+        site = load_site(root / info["site_file"])
+        con = db.connect(root / "verify.duckdb")
+        try:
+            pipeline.update(con, site, [root / m for m in info["raw_files"]])
+            start, end = (pd.Timestamp(info["period"][k]) for k in ("start", "end"))
+            again = pipeline.analyse(con, site, start, end)
+        finally:
+            con.close()
+    stored = json.loads(members["results/check.json"])
+    diffs = json_differences(strip_volatile(stored), strip_volatile(json.loads(
+        report.dump_json(again))))
+    if diffs:
+        v.fail("re-run from the bundle does not reproduce results/check.json: " + "; ".join(diffs))
+    else:
+        v.notes.append("re-run from the bundle alone reproduced results/check.json "
+                       "(apart from run.created_at)")
+
+
+def verify_bundle(path: Path, rerun_analysis: bool = True) -> Verification:
+    """Check every hash of the bundle at ``path`` and (by default) re-run its analysis."""
+    v = Verification()
+    members = _read_zip(Path(path))
+    check_hashes(members, v)
+    if rerun_analysis and v.ok:
+        rerun(members, v)
+    elif rerun_analysis:
+        v.notes.append("re-run skipped: the bundle's files do not match their manifest")
+    return v
+
+
+def command_line(argv: list[str]) -> str:
+    """The exact command as a shell would read it back."""
+    return shlex.join(["perfcheck", *argv])

@@ -1,0 +1,422 @@
+"""The report's figures: one small function per figure, each returning a matplotlib Figure.
+
+Figures are built on ``matplotlib.figure.Figure`` directly (no pyplot state, Agg canvas), so
+they can be written to PNG for the HTML report and to pages of the PDF. Inputs are the aligned
+frame (``perfcheck.align.load_aligned``: one row per instant and inverter, ``ts`` in UTC) and
+parts of the ``perfcheck check`` result. Every function draws something readable even when its
+data is missing (a note on the axes), so a report never has a blank figure.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Callable
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+
+# Our palette for this report: ink on warm paper, teal for what was measured, ochre for what the
+# model expected, brick for losses; causes get a fixed colour each so figures and tables agree.
+INK = "#23262b"
+PAPER = "#fbfaf6"
+GRID = "#e3e0d6"
+MEASURED = "#16706b"
+EXPECTED = "#c98b2b"
+LOSS = "#a4432f"
+MUTED = "#8a8d93"
+CAUSE_COLOURS = {
+    "outage": "#7b2d26",
+    "partial_outage": "#b5553c",
+    "clipping": "#d9a441",
+    "curtailment": "#8f7ab8",
+    "soiling": "#8c6d46",
+    "shading": "#3d5a80",
+    "degradation": "#6b8f71",
+    "sensor_fault": "#c27c9e",
+    "clock_fault": "#5f9ea0",
+    "underperformance": "#9a9a9a",
+    "unexplained": "#cfcac0",
+}
+FLAG_COLOURS = ("#16706b", "#c98b2b", "#a4432f", "#3d5a80", "#8f7ab8", "#6b8f71", "#c27c9e")
+
+WIDTH_IN, HEIGHT_IN = 7.6, 3.6
+
+
+def _figure(height: float = HEIGHT_IN, ncols: int = 1) -> tuple[Figure, list]:
+    fig = Figure(figsize=(WIDTH_IN, height), dpi=110, facecolor=PAPER, layout="constrained")
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(1, ncols, squeeze=False)[0].tolist()
+    for ax in axes:
+        ax.set_facecolor("white")
+        ax.grid(True, color=GRID, linewidth=0.6)
+        ax.set_axisbelow(True)
+        for side in ("top", "right"):
+            ax.spines[side].set_visible(False)
+        ax.tick_params(colors=INK, labelsize=8)
+    return fig, axes
+
+
+def _note(ax, text: str) -> None:
+    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color=MUTED,
+            fontsize=10, bbox=dict(facecolor=PAPER, edgecolor=GRID, boxstyle="round,pad=0.6"))
+
+
+def _title(ax, text: str) -> None:
+    ax.set_title(text, loc="left", fontsize=10, color=INK, fontweight="bold")
+
+
+def energy_kwh(power_w: pd.Series, interval_s: pd.Series) -> pd.Series:
+    """Energy of each interval [kWh] from its mean power [W] and length [s]."""
+    return power_w * interval_s / 3.6e6
+
+
+def local_days(aligned: pd.DataFrame, tz: str) -> pd.Series:
+    """The site-local calendar day of each row (day boundaries follow the site's zone)."""
+    return aligned["ts"].dt.tz_convert(tz).dt.tz_localize(None).dt.normalize()
+
+
+def daily_energy(aligned: pd.DataFrame, tz: str) -> pd.DataFrame:
+    """Plant daily measured, expected and unlimited expected energy [kWh], indexed by day."""
+    df = pd.DataFrame({
+        "day": local_days(aligned, tz),
+        "measured_kwh": energy_kwh(aligned["measured_ac_w"], aligned["interval_s"]),
+        "expected_kwh": energy_kwh(aligned["expected_ac_w"], aligned["interval_s"]),
+        "rain_mm": aligned["rain_mm"],
+        "inverter_id": aligned["inverter_id"],
+    })
+    sums = df.groupby("day")[["measured_kwh", "expected_kwh"]].sum(min_count=1)
+    # rain is a site quantity repeated on every inverter's row: count it once
+    first = df["inverter_id"] == df["inverter_id"].iloc[0] if len(df) else df["inverter_id"]
+    sums["rain_mm"] = df[first].groupby("day")["rain_mm"].sum(min_count=1)
+    return sums
+
+
+def fig_daily_energy(aligned: pd.DataFrame, tz: str) -> Figure:
+    """Daily measured against expected plant energy, the gap shaded."""
+    fig, (ax,) = _figure()
+    _title(ax, "Daily energy: measured against expected")
+    d = daily_energy(aligned, tz) if len(aligned) else pd.DataFrame()
+    if d.empty:
+        _note(ax, "no aligned data in this period")
+        return fig
+    x = d.index
+    ax.fill_between(x, d["measured_kwh"], d["expected_kwh"],
+                    where=d["expected_kwh"] > d["measured_kwh"], color=LOSS, alpha=0.3,
+                    step="mid", label="shortfall")
+    if len(d) <= 62:  # a bar per day while the bars stay readable
+        ax.bar(x, d["measured_kwh"], width=0.8, color=MEASURED, alpha=0.85, label="measured")
+        ax.step(x, d["expected_kwh"], where="mid", color=EXPECTED, lw=1.4, label="expected")
+    else:
+        ax.fill_between(x, 0, d["measured_kwh"], color=MEASURED, alpha=0.75, step="mid",
+                        label="measured", lw=0)
+        ax.step(x, d["expected_kwh"], where="mid", color=EXPECTED, lw=0.7, label="expected")
+    ax.set_ylabel("energy per day [kWh]", fontsize=8)
+    ax.legend(fontsize=8, frameon=False, ncols=3, loc="upper left")
+    fig.autofmt_xdate()
+    return fig
+
+
+def fig_monthly_pr(monthly: list[dict]) -> Figure:
+    """Monthly PR, temperature-corrected PR and EPI, each with its interval."""
+    fig, (ax,) = _figure()
+    _title(ax, "Monthly performance ratio with intervals")
+    series = [("pr", "PR", MEASURED), ("pr_temp_corrected", "PR, temperature-corrected", INK),
+              ("epi", "EPI (measured / expected)", EXPECTED)]
+    months = [m["month"] for m in monthly]
+    x = np.arange(len(months))
+    drawn = False
+    for k, (key, label, colour) in enumerate(series):
+        v = np.array([_num(m.get(key)) for m in monthly])
+        lo = np.array([_num(m.get(f"{key}_ci_low")) for m in monthly])
+        hi = np.array([_num(m.get(f"{key}_ci_high")) for m in monthly])
+        if np.all(np.isnan(v)):
+            continue
+        drawn = True
+        xs = x + (k - 1) * 0.18
+        ax.errorbar(xs, v, yerr=[v - lo, hi - v], fmt="o", color=colour, ms=5, capsize=3,
+                    lw=1.2, label=label)
+    if not drawn:
+        _note(ax, "no month had enough data for a value")
+        return fig
+    ax.set_xticks(x, months, fontsize=8)
+    ax.set_xlim(-0.6, len(months) - 0.4)
+    ax.set_ylabel("ratio [-]", fontsize=8)
+    ax.legend(fontsize=8, frameon=False, ncols=3, loc="upper center",
+              bbox_to_anchor=(0.5, -0.1))
+    return fig
+
+
+def fig_loss_attribution(losses: dict) -> Figure:
+    """From expected to measured energy: one bar per cause, unexplained last."""
+    fig, (ax,) = _figure()
+    _title(ax, "Where the expected energy went")
+    if not losses or losses.get("expected_kwh") is None:
+        _note(ax, "no loss attribution in this period")
+        return fig
+    causes = [(k, v) for k, v in losses.get("by_cause_kwh", {}).items() if v]
+    causes.append(("unexplained", losses.get("unexplained_kwh", 0.0)))
+    labels = ["expected"] + [k.replace("_", " ") for k, _ in causes] + ["measured"]
+    level = losses["expected_kwh"]
+    ax.bar(0, level, color=EXPECTED, width=0.6)
+    for i, (kind, kwh) in enumerate(causes, start=1):
+        ax.bar(i, -kwh, bottom=level, color=CAUSE_COLOURS.get(kind, MUTED), width=0.6)
+        ax.text(i, max(level, level - kwh), f"{kwh:,.0f}", ha="center", va="bottom", fontsize=7,
+                color=INK)
+        level -= kwh
+    ax.bar(len(causes) + 1, losses["measured_kwh"], color=MEASURED, width=0.6)
+    ax.set_xticks(range(len(labels)), labels, rotation=25, ha="right", fontsize=8)
+    lo = min(losses["measured_kwh"], losses["expected_kwh"])
+    hi = max(losses["measured_kwh"], losses["expected_kwh"])
+    ax.set_ylim(lo - 0.6 * (hi - lo) - 0.02 * hi, hi + 0.05 * (hi - lo) + 0.01 * hi)
+    ax.set_ylabel("energy [kWh]", fontsize=8)
+    return fig
+
+
+def fig_soiling(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
+    """Daily performance index (measured/expected) with rain and the recoveries found."""
+    fig, (ax,) = _figure()
+    _title(ax, "Soiling profile: daily performance index, rain and recoveries")
+    d = daily_energy(aligned, tz) if len(aligned) else pd.DataFrame()
+    if d.empty or not (d["expected_kwh"] > 0).any():
+        _note(ax, "no daily data in this period")
+        return fig
+    pi = d["measured_kwh"] / d["expected_kwh"].where(d["expected_kwh"] > 0)
+    ax.plot(pi.index, pi, "o", ms=3, color=MEASURED, alpha=0.7, label="daily index")
+    lo, hi = pi.quantile(0.02), pi.quantile(0.98)  # outliers (outage days) may leave the frame
+    if np.isfinite(lo) and np.isfinite(hi):
+        ax.set_ylim(lo - 0.4 * (hi - lo) - 0.01, hi + 0.4 * (hi - lo) + 0.01)
+    ax.plot(pi.index, pi.rolling(7, center=True, min_periods=3).median(), color=INK, lw=1.3,
+            label="7-day median")
+    for ev in events:
+        if ev.get("kind") != "soiling":
+            continue
+        s, e = (pd.Timestamp(ev[k]).tz_convert(tz).tz_localize(None) for k in ("start", "end"))
+        ax.axvspan(s, e, color=CAUSE_COLOURS["soiling"], alpha=0.12)
+        for rec in ev.get("recoveries", []):  # {"at": local date, "cause": rain|cleaning}
+            t = pd.Timestamp(rec["at"])
+            ax.axvline(t, color=LOSS if rec.get("cause") == "cleaning" else "#3d5a80", lw=1.2,
+                       ls="--")
+            ax.text(t, 1.0, f" {rec.get('cause', 'recovery')}", transform=ax.get_xaxis_transform(),
+                    rotation=90, va="top", fontsize=7, color=INK)
+    ax.set_ylabel("measured / expected [-]", fontsize=8)
+    rain = d["rain_mm"]
+    if rain.notna().any():
+        ax2 = ax.twinx()
+        ax2.bar(rain.index, rain.fillna(0), width=0.8, color="#3d5a80", alpha=0.3)
+        ax2.set_ylabel("rain [mm/day]", fontsize=8, color="#3d5a80")
+        ax2.tick_params(labelsize=8, colors="#3d5a80")
+        ax2.spines["top"].set_visible(False)
+    else:
+        ax.text(0.99, 0.02, "no rain gauge in the logger files", transform=ax.transAxes,
+                ha="right", fontsize=7, color=MUTED)
+    ax.legend(fontsize=8, frameon=False, loc="lower left")
+    fig.autofmt_xdate()
+    return fig
+
+
+def shading_bins(aligned: pd.DataFrame, slices: int = 4) -> tuple[list[str], list[pd.DataFrame]]:
+    """Median relative loss 1 - measured/expected by sun azimuth and elevation, per time slice.
+
+    Only rows with the sun up and a clear sky (GHI at least 70 % of clear-sky GHI) count, so the
+    loss is dominated by beam obstruction. Bins are 10 degrees of azimuth by 5 of elevation.
+    """
+    ok = (aligned["sun_zenith_deg"] < 85) & (aligned["expected_ac_w"] > 0) & (
+        aligned["ghi_wm2"] >= 0.7 * aligned["clearsky_ghi_wm2"])
+    df = aligned.loc[ok, ["ts", "sun_azimuth_deg", "sun_zenith_deg"]].copy()
+    df["loss"] = (1 - aligned.loc[ok, "measured_ac_w"] / aligned.loc[ok, "expected_ac_w"]).clip(
+        -0.5, 1.0)
+    if df.empty:
+        return [], []
+    df["az"] = (df["sun_azimuth_deg"] // 10) * 10
+    df["el"] = ((90 - df["sun_zenith_deg"]) // 5) * 5
+    edges = pd.date_range(df["ts"].min(), df["ts"].max(), periods=slices + 1)
+    labels, grids = [], []
+    for a, b in zip(edges[:-1], edges[1:], strict=True):
+        part = df[(df["ts"] >= a) & (df["ts"] <= b)]
+        labels.append(f"{a:%d %b %Y} to {b:%d %b %Y}")
+        grids.append(part.pivot_table(index="el", columns="az", values="loss", aggfunc="median"))
+    return labels, grids
+
+
+def fig_shading_map(aligned: pd.DataFrame) -> Figure:
+    """Sun-position map (azimuth, elevation) of the relative loss, in four time slices."""
+    fig, axes = _figure(height=3.4, ncols=4)
+    fig.suptitle("Loss by sun position over time (clear-sky intervals)", x=0.01, ha="left",
+                 fontsize=10, fontweight="bold", color=INK)
+    labels, grids = shading_bins(aligned) if len(aligned) else ([], [])
+    if not grids:
+        for ax in axes:
+            _note(ax, "no clear-sky data")
+        return fig
+    mesh = None
+    az_lo = min(g.columns.min() for g in grids if not g.empty)
+    az_hi = max(g.columns.max() for g in grids if not g.empty) + 10
+    el_hi = max(g.index.max() for g in grids if not g.empty) + 5
+    values = np.concatenate([g.to_numpy(float).ravel() for g in grids])
+    vmax = max(0.05, float(np.nanpercentile(values, 95))) if np.isfinite(values).any() else 0.5
+    for ax, label, g in zip(axes, labels, grids, strict=False):
+        ax.grid(False)
+        if g.empty:
+            _note(ax, "no data")
+            continue
+        mesh = ax.pcolormesh(np.r_[g.columns, g.columns[-1] + 10], np.r_[g.index, g.index[-1] + 5],
+                             g.to_numpy(float), cmap="YlOrBr", vmin=0, vmax=vmax, shading="flat")
+        ax.set_title(label, fontsize=7, color=INK)
+        ax.set_xlabel("azimuth [deg]", fontsize=7)
+        ax.set_xlim(az_lo, az_hi)
+        ax.set_ylim(0, el_hi)
+    axes[0].set_ylabel("sun elevation [deg]", fontsize=8)
+    if mesh is not None:
+        cb = fig.colorbar(mesh, ax=axes, shrink=0.85)
+        cb.set_label("loss 1 - measured/expected [-]", fontsize=7)
+        cb.ax.tick_params(labelsize=7)
+    return fig
+
+
+def fig_limits_by_hour(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
+    """Energy above the AC limit (clipping) and held back by curtailment, by local hour."""
+    fig, (ax,) = _figure()
+    _title(ax, "Clipping and curtailment by hour of day")
+    if not len(aligned):
+        _note(ax, "no aligned data in this period")
+        return fig
+    hour = aligned["ts"].dt.tz_convert(tz).dt.hour
+    clip = energy_kwh((aligned["potential_ac_w"] - aligned["expected_ac_w"]).clip(lower=0),
+                      aligned["interval_s"])
+    in_curt = pd.Series(False, index=aligned.index)
+    for ev in events:
+        if ev.get("kind") == "curtailment":
+            w = (aligned["ts"] >= pd.Timestamp(ev["start"])) & (
+                aligned["ts"] < pd.Timestamp(ev["end"]))
+            in_curt |= w & _in_scope(aligned, ev.get("scope", "plant"))
+    curt = energy_kwh((aligned["expected_ac_w"] - aligned["measured_ac_w"]).clip(lower=0)
+                      .where(in_curt, 0.0), aligned["interval_s"])
+    by = pd.DataFrame({"clip": clip, "curt": curt, "hour": hour}).groupby("hour").sum()
+    by = by.reindex(range(24), fill_value=0.0)
+    ax.bar(by.index, by["clip"], color=CAUSE_COLOURS["clipping"], label="clipping (above AC limit)")
+    ax.bar(by.index, by["curt"], bottom=by["clip"], color=CAUSE_COLOURS["curtailment"],
+           label="curtailment (found events)")
+    ax.set_xticks(range(0, 24, 2))
+    ax.set_xlabel("local hour [h]", fontsize=8)
+    ax.set_ylabel("energy [kWh]", fontsize=8)
+    ax.legend(fontsize=8, frameon=False, loc="upper left")
+    if not (by["clip"].sum() + by["curt"].sum()) > 0:
+        _note(ax, "no clipping or curtailment in this period")
+    return fig
+
+
+def _in_scope(aligned: pd.DataFrame, scope: str) -> pd.Series:
+    if scope.startswith("inverter:"):
+        return aligned["inverter_id"] == scope.split(":", 1)[1]
+    return pd.Series(True, index=aligned.index)
+
+
+def sibling_ratio(aligned: pd.DataFrame, tz: str) -> pd.DataFrame:
+    """Each inverter's daily measured/expected divided by the median of the others' [-]."""
+    df = pd.DataFrame({
+        "day": local_days(aligned, tz), "inv": aligned["inverter_id"],
+        "m": energy_kwh(aligned["measured_ac_w"], aligned["interval_s"]),
+        "e": energy_kwh(aligned["expected_ac_w"], aligned["interval_s"]),
+    })
+    daily = df.groupby(["day", "inv"])[["m", "e"]].sum(min_count=1)
+    pi = (daily["m"] / daily["e"].where(daily["e"] > 0)).unstack("inv")
+    out = {}
+    for inv in pi.columns:
+        others = pi.drop(columns=inv)
+        out[inv] = pi[inv] / others.median(axis=1) if others.shape[1] else pi[inv]
+    return pd.DataFrame(out)
+
+
+def fig_sibling_ratio(aligned: pd.DataFrame, tz: str) -> Figure:
+    """Inverter-against-siblings ratio per day: a drop on one line points at that inverter."""
+    fig, (ax,) = _figure()
+    _title(ax, "Each inverter against its siblings (daily)")
+    r = sibling_ratio(aligned, tz) if len(aligned) else pd.DataFrame()
+    if r.empty:
+        _note(ax, "no aligned data in this period")
+        return fig
+    for i, inv in enumerate(r.columns):
+        ax.plot(r.index, r[inv], lw=1.2, color=FLAG_COLOURS[i % len(FLAG_COLOURS)], label=inv)
+    ax.axhline(1.0, color=INK, lw=0.8, ls=":")
+    ax.set_ylabel("ratio to median of the others [-]", fontsize=8)
+    ax.legend(fontsize=8, framealpha=0.9, edgecolor=GRID, ncols=min(len(r.columns), 6),
+              loc="best")
+    if r.shape[1] < 2:
+        _note(ax, "one inverter only: nothing to compare with")
+    fig.autofmt_xdate()
+    return fig
+
+
+def fig_power_scatter(aligned: pd.DataFrame, max_points: int = 20000) -> Figure:
+    """Measured against expected power per interval, coloured by quality flag."""
+    fig, (ax,) = _figure(height=4.2)
+    _title(ax, "Measured against expected power, by quality flag")
+    df = aligned[(aligned["expected_ac_w"] > 0) | (aligned["measured_ac_w"] > 0)]
+    if df.empty:
+        _note(ax, "no daylight data in this period")
+        return fig
+    if len(df) > max_points:
+        df = df.sample(max_points, random_state=1)
+    flag = df["flags"].fillna("").astype(str).str.split(",").str[0].replace("", "no flag")
+    top = max(df["expected_ac_w"].max(), df["measured_ac_w"].max()) / 1e3
+    ax.plot([0, top], [0, top], color=INK, lw=1.0, ls=":", zorder=3)
+    order = ["no flag"] + sorted(set(flag) - {"no flag"})
+    for i, name in enumerate(order):
+        sel = flag == name
+        if sel.any():
+            ax.scatter(df.loc[sel, "expected_ac_w"] / 1e3, df.loc[sel, "measured_ac_w"] / 1e3,
+                       s=3 if name == "no flag" else 6, alpha=0.35 if name == "no flag" else 0.8,
+                       color=FLAG_COLOURS[i % len(FLAG_COLOURS)], label=f"{name} ({sel.sum()})",
+                       rasterized=True, linewidths=0)
+    ax.set_xlabel("expected AC power [kW]", fontsize=8)
+    ax.set_ylabel("measured AC power [kW]", fontsize=8)
+    ax.legend(fontsize=8, frameon=False, loc="upper left", markerscale=3)
+    return fig
+
+
+# (file stem, caption) for each figure, in report order; the builder gets (aligned, result, tz).
+FIGURES: list[tuple[str, str, Callable]] = [
+    ("daily_energy", "Daily measured against expected energy for the plant; the shaded gap is "
+     "the daily shortfall.", lambda a, r, tz: fig_daily_energy(a, tz)),
+    ("monthly_pr", "Monthly PR, temperature-corrected PR and EPI with their intervals (day-block "
+     "bootstrap plus irradiance-sensor uncertainty).",
+     lambda a, r, tz: fig_monthly_pr(r["metrics"]["monthly"])),
+    ("loss_attribution", "From expected to measured energy: energy lost to each cause found, in "
+     "the order of attribution, and what no cause explains.",
+     lambda a, r, tz: fig_loss_attribution(r.get("losses", {}))),
+    ("soiling", "Daily measured/expected index with rain (bars) and the recoveries the soiling "
+     "detector found (dashed: blue rain, red cleaning).",
+     lambda a, r, tz: fig_soiling(a, tz, r.get("events", []))),
+    ("shading_map", "Median relative loss on clear-sky intervals by sun azimuth and elevation, "
+     "in four time slices: a patch that darkens over time is an obstruction growing.",
+     lambda a, r, tz: fig_shading_map(a)),
+    ("limits_by_hour", "Energy above the inverters' AC limit (clipping, from the unlimited model) "
+     "and held back during curtailment events, by local hour.",
+     lambda a, r, tz: fig_limits_by_hour(a, tz, r.get("events", []))),
+    ("sibling_ratio", "Each inverter's daily measured/expected divided by the median of the "
+     "others: a lasting drop on one line points at that inverter.",
+     lambda a, r, tz: fig_sibling_ratio(a, tz)),
+    ("power_scatter", "Measured against expected AC power per interval, coloured by the first "
+     "quality flag of the readings behind it; the dotted line is measured = expected.",
+     lambda a, r, tz: fig_power_scatter(a)),
+]
+
+
+DPI = 160  # one rendering serves the HTML (scaled to the page width) and the PDF
+
+
+def png_bytes(fig: Figure) -> bytes:
+    """The figure as PNG bytes at ``DPI``."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI, facecolor=fig.get_facecolor())
+    return buf.getvalue()
+
+
+def _num(v: object) -> float:
+    return float("nan") if v is None else float(v)

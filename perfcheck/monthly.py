@@ -1,0 +1,207 @@
+"""The monthly job for cron: new inbox files in, last complete month out, loud only on trouble.
+
+``run_monthly`` takes the lock, ingests the inbox files not seen before, runs the model,
+checks the month, writes report, JSON and CSV into ``<out_dir>/<YYYY-MM>/`` (replacing the
+folder on a re-run), records the month in the ``history`` table (one row per month) and the
+run in ``runs``, and compares the month with the previous ones.
+
+Exit codes (``EXIT_*``): 0 healthy; 1 underperformance (EPI below 1 - threshold, or too little
+data for a verdict); 3 a critical event (default: any outage); 2 input or configuration error;
+4 another run holds the lock for longer than the wait.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import fcntl
+import fnmatch
+import glob
+import hashlib
+import logging
+import os
+import shutil
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import duckdb
+import pandas as pd
+
+from perfcheck import __version__, db, pipeline, report
+from perfcheck.errors import PerfcheckError, SiteFileError
+from perfcheck.site import Site
+
+EXIT_HEALTHY, EXIT_UNDERPERFORMANCE, EXIT_INPUT, EXIT_CRITICAL, EXIT_BUSY = 0, 1, 2, 3, 4
+TREND_MONTHS = 12
+log = logging.getLogger("perfcheck.monthly")
+
+
+class LockBusy(PerfcheckError):
+    """Another monthly run holds the site's lock for longer than we may wait."""
+
+
+@contextmanager
+def lock(path: Path, wait_s: float, poll_s: float = 0.2) -> Iterator[None]:
+    """An exclusive lock on ``path`` (flock); waits up to ``wait_s``, then raises LockBusy."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fh = open(path, "a+", encoding="utf-8")  # noqa: SIM115 - held for the whole block
+    deadline = time.monotonic() + wait_s
+    try:
+        while True:
+            try:
+                fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except BlockingIOError:
+                if time.monotonic() >= deadline:
+                    fh.seek(0)
+                    holder = fh.read().strip() or "unknown process"
+                    raise LockBusy(f"{path}: another perfcheck monthly run holds the lock "
+                                   f"({holder}); gave up after {wait_s:g} s") from None
+                time.sleep(poll_s)
+        fh.seek(0)
+        fh.truncate()
+        fh.write(f"pid {os.getpid()} since {dt.datetime.now(dt.UTC):%Y-%m-%d %H:%M:%S} UTC\n")
+        fh.flush()
+        yield
+    finally:
+        fh.close()  # closing releases the lock
+
+
+@dataclass
+class Outcome:
+    month: str
+    exit_code: int
+    status: str
+    summary: str
+    out_dir: Path | None = None
+    new_files: list[str] = field(default_factory=list)
+
+
+def inbox_files(site: Site) -> list[Path]:
+    """Files matching ``site.inbox`` (a glob, relative to the site file's folder) that one of
+    the site's loggers reads (by its ``match`` glob), sorted; other files are logged and left."""
+    if not site.inbox:
+        raise SiteFileError(f"{site.path}: site.inbox: not set; the monthly job needs the glob of "
+                            "the folder where new logger files arrive, e.g. \"inbox/*.csv\"")
+    pattern = site.inbox if Path(site.inbox).is_absolute() else str(site.path.parent / site.inbox)
+    if Path(pattern).is_dir():
+        pattern = str(Path(pattern) / "*")
+    found = sorted(Path(p) for p in glob.glob(pattern, recursive=True) if Path(p).is_file())
+    readable = [p for p in found if any(fnmatch.fnmatch(p.name, lg.match) for lg in site.loggers)]
+    for p in sorted(set(found) - set(readable)):
+        log.warning("%s: no [[loggers]] entry matches this file name; left in the inbox", p)
+    return readable
+
+
+def new_files(con: duckdb.DuckDBPyConnection, candidates: list[Path]) -> list[Path]:
+    known = {r[0] for r in con.execute(db.sql("monthly_known_files")).fetchall()}
+    return [p for p in candidates if hashlib.sha256(p.read_bytes()).hexdigest() not in known]
+
+
+def classify(result: dict, settings: report.ReportSettings) -> tuple[str, int, str]:
+    """(status, exit code, reason) of a month's check result."""
+    critical = [e for e in result.get("events", []) if e["kind"] in settings.critical_kinds]
+    p = result["metrics"]["period"]
+    limit = 1 - settings.underperformance_threshold_pct / 100
+    if critical:
+        e = critical[0]
+        return "critical", EXIT_CRITICAL, (
+            f"{len(critical)} critical event(s) ({', '.join(settings.critical_kinds)}), first: "
+            f"{e['kind'].replace('_', ' ')} on {report.scope_words(e['scope'])} from "
+            f"{e['start']} to {e['end']}")
+    if p.get("epi") is None:
+        return "no_verdict", EXIT_UNDERPERFORMANCE, (
+            f"too little valid data for a verdict ({p.get('reason') or 'no EPI'})")
+    if p["epi"] < limit:
+        return "underperformance", EXIT_UNDERPERFORMANCE, (
+            f"EPI {report.fmt_interval(p, 'epi')} is below {limit:.3f} "
+            f"(report.underperformance_threshold_pct = "
+            f"{settings.underperformance_threshold_pct:g})")
+    return "healthy", EXIT_HEALTHY, f"EPI {report.fmt_interval(p, 'epi')} at or above {limit:.3f}"
+
+
+def top_events(result: dict, n: int = 3) -> str:
+    evs = sorted(result.get("events", []), key=lambda e: -(e.get("energy_loss_kwh") or 0))[:n]
+    return "; ".join(f"{e['kind']} {e['scope']} {e.get('energy_loss_kwh') or 0:,.0f} kWh"
+                     for e in evs)
+
+
+def trend(con: duckdb.DuckDBPyConnection, site: Site, month: str, epi: float | None) -> str:
+    rows = con.execute(db.sql("monthly_history_before"),
+                       {"site": site.name, "month": month, "n": TREND_MONTHS}).fetchall()
+    past = [r[1] for r in rows if r[1] is not None]
+    if not past:
+        return "no earlier months in the history to compare with"
+    mean = sum(past) / len(past)
+    if epi is None:
+        return f"mean EPI of the previous {len(past)} month(s) {mean:.3f}"
+    word = "down" if epi < mean else "up"
+    return (f"EPI {word} {abs(epi - mean):.3f} against the mean of the previous {len(past)} "
+            f"month(s) ({mean:.3f}); last month {past[0]:.3f}")
+
+
+def _write_month(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
+                 end: pd.Timestamp, result: dict, target: Path) -> None:
+    """Write the month's outputs into a fresh folder, then swap it in for ``target``."""
+    tmp = target.with_name(f".{target.name}.partial")
+    shutil.rmtree(tmp, ignore_errors=True)
+    report.write_report(con, site, start, end, tmp, result=result)
+    if target.exists():
+        shutil.rmtree(target)
+    tmp.rename(target)
+
+
+def run_monthly(site: Site, db_path: Path, month: str | None = None, out_root: Path | None = None,
+                command: str = "perfcheck monthly", quiet: bool = True,
+                now: pd.Timestamp | None = None) -> Outcome:
+    """The whole monthly job (see the module docstring); raises PerfcheckError on bad input."""
+    settings = report.report_settings(site)
+    out_root = Path(out_root) if out_root else site.path.parent / settings.out_dir
+    month = month or report.last_complete_month(site, now)
+    start, end = report.month_period(site, month)
+    with lock(Path(db_path).with_suffix(".monthly.lock"), settings.lock_wait_s):
+        con = db.connect(db_path)
+        try:
+            return _run_locked(con, site, month, start, end, out_root, settings, command, quiet)
+        finally:
+            con.close()
+
+
+def _run_locked(con: duckdb.DuckDBPyConnection, site: Site, month: str, start: pd.Timestamp,
+                end: pd.Timestamp, out_root: Path, settings: report.ReportSettings,
+                command: str, quiet: bool) -> Outcome:
+    started = dt.datetime.now(dt.UTC)
+    run_id = con.execute(db.sql("monthly_run_insert"), {
+        "command": command, "started_at": started, "tool_version": __version__}).fetchone()[0]
+    log.info("run %s started: %s", run_id, command)
+    fresh = new_files(con, inbox_files(site))
+    log.info("%d new file(s) in the inbox", len(fresh))
+    for p in fresh:
+        log.info("ingest %s", p)
+    pipeline.update(con, site, fresh, quiet=quiet)
+    result = pipeline.analyse(con, site, start, end)
+    status, code, reason = classify(result, settings)
+    target = out_root / month
+    _write_month(con, site, start, end, result, target)
+    p = result["metrics"]["period"]
+    the_trend = trend(con, site, month, p.get("epi"))
+    con.execute(db.sql("monthly_history_upsert"), {
+        "site": site.name, "month": month, "measured_kwh": p.get("measured_kwh"),
+        "expected_kwh": p.get("expected_kwh"), "epi": p.get("epi"),
+        "epi_ci_low": p.get("epi_ci_low"), "epi_ci_high": p.get("epi_ci_high"),
+        "pr": p.get("pr"), "pr_temp_corrected": p.get("pr_temp_corrected"),
+        "availability": p.get("availability"), "coverage": p.get("coverage"),
+        "top_events": top_events(result), "status": status, "exit_code": code,
+        "run_id": run_id})
+    con.execute(db.sql("monthly_run_finish"), {
+        "finished_at": dt.datetime.now(dt.UTC), "exit_code": code, "files_new": len(fresh),
+        "out_dir": str(target), "run_id": run_id})
+    summary = (f"perfcheck monthly: {site.name}, {month}: {status.replace('_', ' ').upper()}. "
+               f"{reason}. {report.verdict(result, site.timezone)} "
+               f"{len(fresh)} new file(s) ingested. Top events: {top_events(result) or 'none'}. "
+               f"Trend: {the_trend}. Report: {target / 'report.html'}")
+    log.info("run %s finished with exit code %d", run_id, code)
+    log.info("%s", summary)
+    return Outcome(month, code, status, summary, target, [str(f) for f in fresh])

@@ -1,0 +1,264 @@
+"""Evidence bundles: contents, manifest, tamper detection down to the byte, safe paths, re-run.
+
+The analysis stages are replaced by the invented check result here (the bundle's mechanics are
+under test); the end-to-end build and verify on the demo site run in the demo's test.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import shutil
+import zipfile
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from report_fixtures import checked, example_aligned, example_check, write_site
+
+from perfcheck import align, db, evidence, pipeline
+from perfcheck.cli import main
+from perfcheck.errors import DataError, PerfcheckError
+
+RAW = "time,p1\n" + "".join(f"2025-06-{d:02d}T12:00:00+02:00,{1000 + d}\n" for d in range(1, 31))
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory) -> tuple[Path, Path]:
+    """One bundle for the module (writing its report takes a few seconds)."""
+    tmp = tmp_path_factory.mktemp("evidence")
+    site = write_site(tmp)
+    logs = tmp / "logs"
+    logs.mkdir()
+    raw = logs / "box_2025-06.csv"
+    raw.write_text(RAW * 100)  # > 64 KiB, so the file has more than one checksum block
+    con = db.connect(tmp / "site.duckdb")
+    add_file(con, str(raw), hashlib.sha256(raw.read_bytes()).hexdigest(), raw.stat().st_size)
+    from perfcheck import report
+
+    start, end = report.month_period(site, "2025-06")
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(align, "load_aligned", lambda *a, **k: example_aligned())
+        out = evidence.build_bundle(con, site, start, end, tmp / "claim.zip",
+                                    "perfcheck evidence site.toml --month 2025-06 --out claim.zip",
+                                    result=checked(site, example_check()))
+    con.close()
+    return out["path"], raw
+
+
+@pytest.fixture()
+def bundle(built, tmp_path, monkeypatch) -> tuple[Path, Path]:
+    """A fresh copy of the bundle; the re-run's stages give the invented result again."""
+    monkeypatch.setattr(pipeline, "update", lambda *a, **k: [])
+    monkeypatch.setattr(pipeline, "analyse", lambda con, site, s, e: checked(site, fresh_run()))
+    path = tmp_path / "claim.zip"
+    shutil.copy(built[0], path)
+    return path, built[1]
+
+
+def add_file(con: duckdb.DuckDBPyConnection, path: str, sha256: str, size: int) -> None:
+    """A source_files row as ingest writes it, for a June 2025 file."""
+    con.execute("INSERT INTO source_files (file_id, path, logger, sha256, size_bytes, rows_read, "
+                "rows_loaded, rows_duplicate, rows_quarantined, conflicts, first_ts, last_ts, "
+                "ingested_at, tool_version) VALUES (1, ?, 'box', ?, ?, 30, 30, 0, 0, 0, "
+                "'2025-06-01 10:00+00', '2025-06-30 10:00+00', now(), '0.1.0')",
+                [path, sha256, size])
+
+
+def fresh_run() -> dict:
+    r = example_check()
+    r["run"]["created_at"] = "2030-01-01T00:00:00+00:00"  # a later run: only this may differ
+    return r
+
+
+def rewrite(path: Path, name: str, change) -> None:
+    with zipfile.ZipFile(path) as z:
+        members = {n: z.read(n) for n in z.namelist()}
+    members[name] = change(members[name])
+    with zipfile.ZipFile(path, "w") as z:
+        for n, data in members.items():
+            z.writestr(n, data)
+
+
+def test_bundle_contents(bundle):
+    path, _ = bundle
+    with zipfile.ZipFile(path) as z:
+        names = z.namelist()
+        manifest = json.loads(z.read("MANIFEST.json"))
+        info = json.loads(z.read("bundle.json"))
+        command = z.read("command.txt").decode()
+    for name in ("raw/box_2025-06.csv", "site/site.toml", "results/check.json",
+                 "results/events.csv", "results/monthly.csv", "results/guarantees.csv",
+                 "results/coverage.json", "report/report.pdf", "report/report.html",
+                 "report/figures/daily_energy.png", "methods.txt", "versions.json",
+                 "README.txt"):
+        assert name in names, name
+    assert set(manifest["files"]) == set(names) - {"MANIFEST.json"}
+    assert all(evidence.safe_member(n) for n in names)
+    assert info["raw_files"] == ["raw/box_2025-06.csv"]
+    assert command == "perfcheck evidence site.toml --month 2025-06 --out claim.zip\n"
+
+
+def test_verify_passes_and_reruns(bundle):
+    v = evidence.verify_bundle(bundle[0])
+    assert v.ok, v.problems
+    # 8 figures, PDF, HTML, 5 results, site file, 1 raw file, bundle.json, command, versions,
+    # methods, README
+    assert v.files_checked == 22
+    assert any("reproduced results/check.json" in n for n in v.notes)
+
+
+def test_one_changed_byte_is_named(bundle):
+    path, raw = bundle
+    data = raw.read_bytes()
+    pos = 70000 + data[70000:].index(b"1012")  # a digit in the second 64 KiB block
+    rewrite(path, "raw/box_2025-06.csv",
+            lambda b: b[:pos + 3] + b"9" + b[pos + 4:])  # "1012" -> "1019"
+    v = evidence.verify_bundle(path)
+    assert not v.ok
+    assert v.problems == [f"raw/box_2025-06.csv: sha256 differs from the manifest: byte "
+                          f"{pos + 3} changed from 0x32 '2' to 0x39 '9'"]
+    assert v.notes == ["re-run skipped: the bundle's files do not match their manifest"]
+
+
+def test_longer_change_is_named_by_block(bundle):
+    path, _ = bundle
+    rewrite(path, "results/check.json", lambda b: b.replace(b'"epi": 0.944', b'"epi": 0.99'))
+    with zipfile.ZipFile(path) as z:
+        size = len(z.read("results/check.json"))  # one block: the file is below 64 KiB
+    v = evidence.verify_bundle(path, rerun_analysis=False)
+    assert v.problems == [f"results/check.json: sha256 differs from the manifest: bytes "
+                          f"0-{size - 1} changed"]
+
+
+def test_unlisted_and_missing_files(bundle):
+    path, _ = bundle
+    with zipfile.ZipFile(path, "a") as z:
+        z.writestr("extra.txt", b"added later")
+    v = evidence.verify_bundle(path, rerun_analysis=False)
+    assert v.problems == ["extra.txt: in the bundle but not in the manifest"]
+
+
+@pytest.mark.parametrize("name", ["../outside.txt", "/etc/passwd", "raw/../../x", "C:\\x"])
+def test_unsafe_paths_refused(tmp_path, name):
+    path = tmp_path / "bad.zip"
+    with zipfile.ZipFile(path, "w") as z:
+        z.writestr(name, b"x")
+    with pytest.raises(PerfcheckError, match="unsafe path in bundle"):
+        evidence.verify_bundle(path)
+
+
+def test_rerun_difference_is_reported(bundle, monkeypatch):
+    def drifted(con, site, s, e):
+        r = checked(site, fresh_run())
+        r["metrics"]["period"]["epi"] = 0.95
+        return r
+
+    monkeypatch.setattr(pipeline, "analyse", drifted)
+    v = evidence.verify_bundle(bundle[0])
+    assert not v.ok
+    assert v.problems == ["re-run from the bundle does not reproduce results/check.json: "
+                          "/metrics/period/epi: bundle 0.944, re-run 0.95"]
+
+
+def test_locate_single_byte_and_insertion():
+    rng = np.random.default_rng(7)
+    data = rng.integers(0, 256, 200_000, dtype=np.uint8).tobytes()
+    sums = evidence.block_sums(data)
+    changed = bytearray(data)
+    changed[150_000] = (changed[150_000] + 1) % 256
+    assert evidence.locate_change(sums, bytes(changed)) == [
+        f"byte 150000 changed from {data[150_000]:#04x} {evidence._char(data[150_000])} to "
+        f"{changed[150_000]:#04x} {evidence._char(changed[150_000])}"]
+    inserted = data[:10] + b"x" + data[10:]
+    notes = evidence.locate_change(sums, inserted)
+    assert notes[0] == "bytes 0-65535 changed"  # every later block shifts too
+    assert len(notes) == 4
+
+
+def test_strip_volatile_only_run_time():
+    a, b = example_check(), fresh_run()
+    assert evidence.json_differences(evidence.strip_volatile(a), evidence.strip_volatile(b)) == []
+    assert evidence.json_differences(a, b) == [
+        '/run/created_at: bundle "2025-07-02T04:00:00+00:00", re-run "2030-01-01T00:00:00+00:00"']
+
+
+def test_changed_raw_file_refused(tmp_path, monkeypatch):
+    site = write_site(tmp_path)
+    raw = tmp_path / "box.csv"
+    raw.write_text(RAW)
+    con = db.connect(tmp_path / "site.duckdb")
+    add_file(con, "box.csv", "ab", 1)
+    import pandas as pd
+
+    with pytest.raises(DataError, match=r"box.csv: logger file changed since it was ingested"):
+        evidence.raw_files(con, site, pd.Timestamp("2025-07-01", tz="UTC"))
+
+
+def test_cli_verify_exit_codes(bundle, tmp_path):
+    runner = CliRunner()
+    ok = runner.invoke(main, ["verify", str(bundle[0])])
+    assert ok.exit_code == 0 and ok.output.strip().endswith("verified")
+    rewrite(bundle[0], "site/site.toml", lambda b: b.replace(b"ac_kw = 50", b"ac_kw = 60"))
+    bad = runner.invoke(main, ["verify", str(bundle[0]), "--no-rerun"])
+    assert bad.exit_code == 1 and "FAILED: site/site.toml: sha256 differs" in bad.output
+    junk = tmp_path / "junk.zip"
+    junk.write_bytes(b"not a zip")
+    r = runner.invoke(main, ["verify", str(junk)])
+    assert r.exit_code == 2
+    assert r.output.startswith(f"perfcheck: error: {junk}: not a readable zip file")
+
+
+@pytest.fixture(scope="module")
+def demo_months(tmp_path_factory):
+    """Two months of the invented demo plant, ingested and modelled in a fresh database."""
+    from perfcheck.scenario import demo_dir
+    from perfcheck.site import load_site
+
+    tmp = tmp_path_factory.mktemp("demo_months")
+    src = demo_dir()
+    shutil.copy(src / "site.toml", tmp / "site.toml")
+    logs = []
+    for p in sorted(src.glob("*_2024-0[56].csv")):
+        shutil.copy(p, tmp / p.name)
+        logs.append(tmp / p.name)
+    site = load_site(tmp / "site.toml")
+    con = db.connect(tmp / "site.duckdb")
+    try:
+        pipeline.update(con, site, logs)
+    finally:
+        con.close()
+    return site, tmp
+
+
+@pytest.mark.slow
+def test_demo_bundle_verifies_and_names_a_changed_byte(demo_months):
+    site, tmp = demo_months
+    runner = CliRunner()
+    out = runner.invoke(main, ["evidence", str(tmp / "site.toml"), "--from", "2024-06-01",
+                               "--to", "2024-06-30", "--out", str(tmp / "claim.zip")])
+    assert out.exit_code == 0, out.output
+    ok = runner.invoke(main, ["verify", str(tmp / "claim.zip")])
+    assert ok.exit_code == 0, ok.output
+    assert "reproduced results/check.json" in ok.output
+    with zipfile.ZipFile(tmp / "claim.zip") as z:
+        raw = sorted(n for n in z.namelist() if n.startswith("raw/"))
+        command = z.read("command.txt").decode()
+    assert len(raw) == 4  # May (reference windows draw on it) and June, two loggers each
+    assert command.startswith("perfcheck evidence ") and "--from 2024-06-01 --to 2024-06-30" \
+        in command
+    name = raw[1]
+    rewrite(tmp / "claim.zip", name, lambda b: b[:5000] + bytes([b[5000] ^ 1]) + b[5001:])
+    bad = runner.invoke(main, ["verify", str(tmp / "claim.zip")])
+    assert bad.exit_code == 1
+    assert f"FAILED: {name}: sha256 differs from the manifest: byte 5000 changed" in bad.output
+
+
+def test_bundle_names_files_by_their_place_in_the_bundle(bundle):
+    with zipfile.ZipFile(bundle[0]) as z:
+        coverage = json.loads(z.read("results/coverage.json"))
+        html = z.read("report/report.html").decode()
+    assert [f["path"] for f in coverage["files"]] == ["raw/box_2025-06.csv"]
+    assert str(bundle[1].parent) not in html  # no path of our disk inside the bundle
