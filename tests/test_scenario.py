@@ -315,3 +315,72 @@ def test_annual_figures_are_plausible_for_lower_austria(truth: dict, daily: pd.D
 
 def test_command_line_usage_error() -> None:
     assert scenario.main([]) == 2
+
+
+# ---------------------------------------------------------------------------------------------
+# the horizon's sky view and the diffuse pyranometer
+
+UNIFORM_10 = ((0.0, 10.0), (180.0, 10.0))  # a horizon 10 degrees high all round
+
+
+def test_sky_view_of_a_uniform_horizon_matches_the_view_factor_integral() -> None:
+    # Derived (D) from the isotropic view-factor integral of an obstructed sky dome (Duffie &
+    # Beckman 2013, sections 2.16 and 3.8, from memory): a horizon of elevation h all round
+    # leaves a horizontal plane cos^2 h of its view (1 - sin^2 h) and a vertical plane
+    # 1 - (2h + sin 2h)/pi. Tolerance 1e-9: the elevation integral is closed form and the
+    # integrand is constant in azimuth for the horizontal plane, a cosine for the vertical.
+    h = np.radians(10.0)
+    assert_allclose(scenario.plant.sky_view_ratio(0.0, 180.0, UNIFORM_10), np.cos(h) ** 2,
+                    rtol=1e-9)
+    assert_allclose(scenario.plant.sky_view_ratio(90.0, 180.0, UNIFORM_10),
+                    1 - (2 * h + np.sin(2 * h)) / np.pi, rtol=1e-9)
+    # a flat horizon hides nothing; one above Perez's 6.5-degree band hides all of that band
+    assert scenario.plant.sky_view_ratio(25.0, 180.0, ()) == 1.0
+    assert_allclose(scenario.plant.sky_view_ratio(25.0, 180.0, UNIFORM_10,
+                                                  scenario.plant.PEREZ_BAND_DEG), 0.0,
+                    atol=1e-12)
+    # an obstruction behind a plane, lower than the plane's own edge, is not seen: tilt 30 deg
+    # facing south sees the northern sky only above 30 deg elevation (cos theta = 0 there)
+    behind = ((0.0, 10.0), (20.0, 10.0), (25.0, 0.0), (335.0, 0.0), (340.0, 10.0))
+    assert_allclose(scenario.plant.sky_view_ratio(30.0, 180.0, behind), 1.0, atol=1e-12)
+
+
+def test_horizon_takes_its_share_of_the_isotropic_diffuse_only() -> None:
+    # Perez et al. 1990 on a horizontal plane: horizon band term F2 sin(0) = 0, so the horizon
+    # (beam left visible) removes exactly sin^2 h of the isotropic part (view-factor integral,
+    # D, as above). Tolerance 1e-9 W/m^2.
+    w, _, _ = _june_weather()
+    visible = np.ones(len(w.ghi))
+    open_sky, _ = scenario.plant.array_irradiance(w, 0.0, 180.0, 0.2, visible)
+    walled, _ = scenario.plant.array_irradiance(w, 0.0, 180.0, 0.2, visible, UNIFORM_10)
+    zen, saz = w.solpos["apparent_zenith"].to_numpy(), w.solpos["azimuth"].to_numpy()
+    iso = np.nan_to_num(np.asarray(pvlib.irradiance.perez(
+        0.0, 180.0, w.dhi, w.dni, w.dni_extra, zen, saz, w.airmass,
+        return_components=True)["poa_isotropic"], dtype=float))
+    assert_allclose(open_sky - walled, iso * np.sin(np.radians(10.0)) ** 2, atol=1e-9)
+    assert (open_sky - walled).max() > 1.0
+
+
+def test_weather_station_logs_diffuse_horizontal_irradiance(full: Path, truth: dict) -> None:
+    site = load_site(full / "site.toml")
+    ws = next(lg for lg in site.loggers if lg.name == "ws2")
+    assert "dhi" in {c.quantity for c in ws.columns}
+    frames = [pd.read_csv(p, na_values=["NaN"]) for p in sorted(full.glob("talbrunn_ws2_*.csv"))]
+    df = pd.concat(frames)
+    df["date"] = df["time"].str[:10]
+    day = df[df["ghi"] > 50]
+    # DHI is part of GHI (closure GHI = DNI cos z + DHI); allow both sensors' noise
+    assert not (day["dhi"] > day["ghi"] * 1.03 + 2.0).any()
+    # overcast days (the sun disc out for at most a tenth of the time, generator's day types):
+    # most of GHI is diffuse; clear days: mostly beam
+    types = pd.Series(truth["day_types"])
+    overcast = day[day["date"].map(types) == "overcast"]
+    clear = day[day["date"].map(types) == "clear"]
+    assert (overcast["dhi"].sum() / overcast["ghi"].sum()) > 0.8
+    assert (clear["dhi"].sum() / clear["ghi"].sum()) < 0.3
+    # sentinels: the wind and DHI columns both write NaN, counted per column in the truth
+    counts = next(h["parameters"] for h in truth["logger_habits"]
+                  if h["kind"] == "sentinels" and h["parameters"]["logger"] == "ws2")
+    assert counts["columns"] == {"wind": int(df["wind"].isna().sum()),
+                                 "dhi": int(df["dhi"].isna().sum())}
+    assert min(counts["columns"].values()) > 5

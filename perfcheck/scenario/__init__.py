@@ -42,7 +42,7 @@ __all__ = [
 DEFAULT_SEED = 61724
 DEFAULT_START = dt.date(2024, 5, 1)
 DEFAULT_DAYS = 730
-GENERATOR_VERSION = "1"
+GENERATOR_VERSION = "2"
 # Truth entries that describe how the loggers write, not faults of the plant or its sensors.
 LOGGER_HABITS = ("meter_reset", "duplicate_export", "sentinels")
 ATTRIBUTION_RULE = (
@@ -92,8 +92,9 @@ def generate(
         old.unlink(missing_ok=True)
     (out / "site.toml").write_bytes(site_text(start, interval_min).encode("utf-8"))
     site = load_site(out / "site.toml")
-    weather_rng, sensor_rng = (np.random.default_rng(s)
-                               for s in np.random.SeedSequence(seed).spawn(2))
+    # the DHI pyranometer's stream was added last: the first two streams are as before
+    weather_rng, sensor_rng, dhi_rng = (np.random.default_rng(s)
+                                        for s in np.random.SeedSequence(seed).spawn(3))
     t0 = pd.Timestamp(start).tz_localize(site.tz)
     t1 = (pd.Timestamp(start) + pd.Timedelta(days=days)).tz_localize(site.tz)
     times = pd.date_range(t0, t1, freq=f"{interval_min}min", inclusive="left").tz_convert("UTC")
@@ -102,7 +103,7 @@ def generate(
     ph = make_physics(site, times, weather, schedule)
     plant, daily, entries = energy_truth(site, ph, schedule, interval_min)
     readings, sensor_truth = sensor_readings(site, times, weather, ph, plant, schedule,
-                                             sensor_rng, interval_min,
+                                             sensor_rng, dhi_rng, interval_min,
                                              0.03 if pure_noise else 0.002)
     entries += sensor_truth
     entries += write_main_logger(out, site, times, weather, plant, readings, schedule,

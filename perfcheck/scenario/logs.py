@@ -5,7 +5,8 @@ preamble lines, a header and a units row, ``;`` and decimal comma, naive local t
 time written ``DD.MM.YYYY HH:MM`` at the END of each interval (the October hour appears twice in
 order, the March hour is missing), sentinels ``-9999`` and ``#N/A``. Weather station "ws2"
 (invented): ``,`` and decimal point, ISO 8601 with offset at the START of each interval, LF,
-10-minute means (rain: sums), sentinel ``NaN``.
+10-minute means (rain: sums), sentinel ``NaN``. Besides GHI the station logs the diffuse
+horizontal irradiance (DHI) of a second pyranometer under a shading ball on a sun tracker.
 """
 
 from __future__ import annotations
@@ -30,10 +31,11 @@ PREAMBLE = (
 )
 MAIN_HEADER = "Zeit;P_WR1;P_WR2;P_WR3;E_Netz;G_Modul;T_Modul\r\n;kW;kW;kW;kWh;W/m²;°C\r\n"
 MAIN_FIRST_DATA_LINE = 6  # 3 preamble lines, header, units row
-WEATHER_HEADER = "time,ghi,tamb,wind,rain\n"
+WEATHER_HEADER = "time,ghi,tamb,wind,rain,dhi\n"
 # Calibration of the two pyranometers against the truth (within a class A sensor's tolerance).
 POA_CALIBRATION = 1.005
 GHI_CALIBRATION = 0.996
+DHI_CALIBRATION = 1.004  # the shaded pyranometer (class A tolerance; common practice)
 
 
 @dataclass
@@ -45,6 +47,8 @@ class Readings:
     poa: np.ndarray
     poa_sentinel: np.ndarray  # the logger wrote -9999
     ghi: np.ndarray
+    dhi: np.ndarray
+    dhi_nan: np.ndarray  # the station wrote NaN
     temp_module: np.ndarray
     temp_air: np.ndarray
     wind_speed: np.ndarray
@@ -69,9 +73,14 @@ def _join(cols: list[np.ndarray], sep: str) -> np.ndarray:
 
 def sensor_readings(
     site: Site, times: pd.DatetimeIndex, w: Weather, ph: Physics, plant: Plant, faults: Faults,
-    rng: np.random.Generator, interval_min: int, power_noise: float,
+    rng: np.random.Generator, dhi_rng: np.random.Generator, interval_min: int,
+    power_noise: float,
 ) -> tuple[Readings, list[dict]]:
-    """Sensor values with noise, offsets and the sensor faults; their truth entries."""
+    """Sensor values with noise, offsets and the sensor faults; their truth entries.
+
+    The DHI pyranometer draws from its own stream ``dhi_rng``, so the other sensors' noise does
+    not depend on it.
+    """
     tz, n = site.tz, len(times)
     day = w.solpos["apparent_zenith"].to_numpy() < 90
     power = plant.ac * (1 + power_noise * rng.standard_normal(plant.ac.shape))
@@ -83,6 +92,10 @@ def sensor_readings(
     ghi = GHI_CALIBRATION * w.ghi * (1 + 0.005 * rng.standard_normal(n)) \
         + 0.4 * rng.standard_normal(n)
     ghi = np.where(day, ghi, -1.2 + 0.3 * rng.standard_normal(n))
+    dhi = DHI_CALIBRATION * w.dhi * (1 + 0.005 * dhi_rng.standard_normal(n)) \
+        + 0.4 * dhi_rng.standard_normal(n)
+    dhi = np.where(day, dhi, -1.0 + 0.3 * dhi_rng.standard_normal(n))
+    dhi_nan = dhi_rng.random(n) < 3e-4
     truth = []
     for f in faults.poa_sensor:
         inside = window(times, f.start, f.end, tz)
@@ -109,7 +122,7 @@ def sensor_readings(
             truth.append(entry("meter_reset", "plant", faults.meter_reset, faults.meter_reset,
                                tz, {"logger": MAIN_LOGGER, "column": "E_Netz",
                                     "note": "meter replaced; the register restarts at 0"}))
-    return Readings(power, power_na, poa, poa_sentinel, ghi, temp_module, temp_air,
+    return Readings(power, power_na, poa, poa_sentinel, ghi, dhi, dhi_nan, temp_module, temp_air,
                     w.wind_speed, wind_nan, register), truth
 
 
@@ -256,8 +269,12 @@ def write_weather_station(
     stamp = [s[:-2] + ":" + s[-2:] for s in local.strftime("%Y-%m-%dT%H:%M:%S%z")]
     wind = fmt(mean(r.wind_speed), 1, False)
     wind[r.wind_nan[::k]] = "NaN"
+    dhi = fmt(mean(r.dhi), 1, False)
+    dhi[r.dhi_nan[::k]] = "NaN"
     lines = _join([np.array(stamp, dtype=object), fmt(mean(r.ghi), 1, False),
-                   fmt(mean(r.temp_air), 1, False), wind, fmt(mean(w.rain) * k, 1, False)], ",")
+                   fmt(mean(r.temp_air), 1, False), wind, fmt(mean(w.rain) * k, 1, False), dhi],
+                  ",")
+    nan_wind, nan_dhi = (int((col == "NaN")[keep].sum()) for col in (wind, dhi))
     month = np.asarray(local.strftime("%Y-%m"), dtype=object)
     for m in sorted(set(month[keep])):
         text = WEATHER_HEADER + "".join(s + "\n" for s in lines[keep & (month == m)])
@@ -265,6 +282,7 @@ def write_weather_station(
     truth.append({"kind": "sentinels", "scope": "plant", "start": iso(times[0], site.tz),
                   "end": iso(times[-1], site.tz), "energy_loss_kwh": 0.0,
                   "parameters": {"logger": WEATHER_LOGGER,
-                                 "count": {"NaN": int((wind == "NaN")[keep].sum())},
+                                 "count": {"NaN": nan_wind + nan_dhi},
+                                 "columns": {"wind": nan_wind, "dhi": nan_dhi},
                                  "note": "values written instead of a reading"}})
     return truth

@@ -2,8 +2,10 @@
 
 Per array: Perez (1990) transposition with its circumsolar part treated as beam; beam and
 circumsolar light blocked below the horizon profile (and dimmed by the tree's crown where the
-shading fault applies); the physical IAM (De Soto et al. 2006) for beam and Marion's (2017)
-integrated IAM for diffuse; SAPM cell and back-of-module temperature (King et al. 2004); a linear
+shading fault applies); the isotropic and horizon-band parts of the sky diffuse reduced by the
+share of their view factor that the horizon profile hides (:func:`sky_view_ratio`); the physical
+IAM (De Soto et al. 2006) for beam and Marion's (2017) integrated IAM for the sky, horizon band
+and ground diffuse; SAPM cell and back-of-module temperature (King et al. 2004); a linear
 DC model with the site file's losses and the Dobos (2014) part-load inverter efficiency, the AC
 rating as the clipping limit and the plant export limit shared pro rata over the inverters.
 
@@ -11,6 +13,11 @@ References
 ----------
 R. Perez, P. Ineichen, R. Seals, J. Michalsky, R. Stewart, 1990, Solar Energy 44(5):271-289.
 W. De Soto, S. Klein, W. Beckman, 2006, Solar Energy 80(1):78-88.
+R. Perez, R. Seals, P. Ineichen, R. Stewart, D. Menicucci, 1987, "A new simplified version of
+the Perez diffuse irradiance model for tilted surfaces", Solar Energy 39(3):221-231 (the 6.5 deg
+horizon band; from memory).
+J. A. Duffie, W. A. Beckman, 2013, Solar Engineering of Thermal Processes, 4th ed., Wiley,
+sections 2.16 and 3.8 (isotropic view factors of a tilted plane; from memory).
 B. Marion, 2017, "Numerical method for angle-of-incidence correction factors for diffuse
 radiation incident photovoltaic modules", Solar Energy 147:344-348.
 D. King, W. Boyson, J. Kratochvil, 2004, SAND2004-3535.
@@ -40,6 +47,7 @@ _SAPM_KEYS = {
     ("insulated_back", "glass_polymer"): "insulated_back_glass_polymer",
 }
 _YEAR_S = 365.25 * 86400
+PEREZ_BAND_DEG = 6.5  # width of Perez's horizon-brightening band above the horizon [deg]
 
 
 def horizon_elevation(azimuth: np.ndarray, horizon: tuple) -> np.ndarray:
@@ -51,12 +59,62 @@ def horizon_elevation(azimuth: np.ndarray, horizon: tuple) -> np.ndarray:
     return np.interp(azimuth, az, el, period=360.0)
 
 
+def sky_view_ratio(tilt: float, azimuth: float, horizon: tuple, band_deg: float = 90.0,
+                   step_deg: float = 0.1) -> float:
+    """Share of a plane's isotropic view factor of a sky band that the horizon profile leaves
+    open [-] (1 for a flat horizon).
+
+    A sky element at azimuth phi, elevation e reaches a plane of tilt b and azimuth g with
+    weight cos(theta) cos(e) de dphi, cos(theta) = a cos e + c sin e, a = sin b cos(phi - g),
+    c = cos b (the view-factor integral of an isotropic sky dome). Along each azimuth the
+    positive part of that weight is integrated in closed form,
+    F(e) = a (e/2 + sin 2e / 4) + c sin^2(e) / 2, from where the sky is in front of the plane,
+    e0 = atan2(max(-a, 0), c), up to ``band_deg``; the horizon hides the part below its
+    elevation h(phi). The azimuth integral is a midpoint sum on a ``step_deg`` grid. Over the
+    whole dome (band 90 deg) and a flat horizon the integral is pi (1 + cos b)/2, Liu & Jordan's
+    view factor times pi.
+
+    Parameters
+    ----------
+    tilt, azimuth : plane [deg], azimuth clockwise from north.
+    horizon : (azimuth [deg], elevation [deg]) points of the profile.
+    band_deg : top of the sky band [deg]: 90 for the isotropic sky, ``PEREZ_BAND_DEG`` for
+        Perez's horizon-brightening band.
+    step_deg : azimuth step [deg].
+
+    References
+    ----------
+    J. A. Duffie, W. A. Beckman, 2013, Solar Engineering of Thermal Processes, 4th ed., sections
+    2.16 and 3.8 (view factors, isotropic sky; from memory).
+    B. Y. H. Liu, R. C. Jordan, 1963, Solar Energy 7(2):53-74.
+    R. Perez et al., 1987, Solar Energy 39(3):221-231 (horizon band; from memory).
+    """
+    phi = np.arange(step_deg / 2, 360.0, step_deg)
+    h = np.radians(np.clip(horizon_elevation(phi, horizon), 0.0, 90.0))
+    a = np.sin(np.radians(tilt)) * np.cos(np.radians(phi - azimuth))
+    c = np.cos(np.radians(tilt))
+    top = np.radians(band_deg)
+
+    def f(e: np.ndarray | float) -> np.ndarray:
+        return a * (e / 2 + np.sin(2 * e) / 4) + c * np.sin(e) ** 2 / 2
+
+    lo = np.minimum(np.arctan2(np.maximum(-a, 0.0), c), top)
+    seen = (f(top) - f(lo)).sum()
+    if seen <= 0:
+        return 1.0
+    hidden = (f(np.minimum(np.maximum(h, lo), top)) - f(lo)).sum()
+    return float(1.0 - hidden / seen)
+
+
 def array_irradiance(
-    w: Weather, tilt: float, azimuth: float, albedo: float, beam_factor: np.ndarray
+    w: Weather, tilt: float, azimuth: float, albedo: float, beam_factor: np.ndarray,
+    horizon: tuple = (),
 ) -> tuple[np.ndarray, np.ndarray]:
     """Plane-of-array global and IAM-effective irradiance [W/m^2].
 
-    ``beam_factor`` (0..1) is the unobstructed share of the beam and circumsolar light.
+    ``beam_factor`` (0..1) is the unobstructed share of the beam and circumsolar light;
+    ``horizon`` reduces the isotropic sky by its sky view and the horizon band by its share of
+    that band (:func:`sky_view_ratio`). Light reflected by the obstructions is neglected.
     """
     zen = w.solpos["apparent_zenith"].to_numpy()
     saz = w.solpos["azimuth"].to_numpy()
@@ -65,13 +123,17 @@ def array_irradiance(
         tilt, azimuth, w.dhi, w.dni, w.dni_extra, zen, saz, w.airmass, return_components=True
     )
     circ = np.nan_to_num(np.asarray(comp["poa_circumsolar"], dtype=float)) * beam_factor
-    rest = np.nan_to_num(np.asarray(comp["poa_isotropic"] + comp["poa_horizon"], dtype=float))
+    iso = np.nan_to_num(np.asarray(comp["poa_isotropic"], dtype=float)) \
+        * sky_view_ratio(tilt, azimuth, horizon)
+    band = np.nan_to_num(np.asarray(comp["poa_horizon"], dtype=float)) \
+        * sky_view_ratio(tilt, azimuth, horizon, PEREZ_BAND_DEG)
     beam = w.dni * np.clip(np.cos(np.radians(aoi)), 0, None) * beam_factor
     ground = np.asarray(pvlib.irradiance.get_ground_diffuse(tilt, w.ghi, albedo), dtype=float)
     iam_beam = np.nan_to_num(pvlib.iam.physical(aoi))
     iam_d = pvlib.iam.marion_diffuse("physical", tilt)
-    poa_global = beam + circ + rest + ground
-    poa_eff = (beam + circ) * iam_beam + rest * iam_d["sky"] + ground * iam_d["ground"]
+    poa_global = beam + circ + iso + band + ground
+    poa_eff = ((beam + circ) * iam_beam + iso * iam_d["sky"] + band * iam_d["horizon"]
+               + ground * iam_d["ground"])
     return poa_global, np.maximum(poa_eff, 0.0)
 
 
@@ -142,12 +204,14 @@ def make_physics(site: Site, times: pd.DatetimeIndex, w: Weather, faults: Faults
         ph.poa[inv.id], ph.temp_cell[inv.id] = [], []
         for arr in inv.arrays:
             visible = (app_el > horizon_elevation(saz, arr.horizon)).astype(float)
-            g, e = array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, visible)
+            g, e = array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, visible,
+                                    arr.horizon)
             ph.poa[inv.id].append((g, e))
             if tree is not None and inv.id == tree.inverter:
                 behind = visible * tree_factor(times, w, tree, site.tz)
                 ph.poa_tree.setdefault(inv.id, []).append(
-                    array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, behind)
+                    array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, behind,
+                                     arr.horizon)
                 )
             p = pvlib.temperature.TEMPERATURE_MODEL_PARAMETERS["sapm"][
                 _SAPM_KEYS[(arr.mounting, arr.construction)]

@@ -171,7 +171,8 @@ sentinels = ["-9999", "#N/A"]        # values meaning "no reading" ([])
   unit = "C"
 
 # Weather station (invented "Nubila WS-2"): ',' with decimal point, ISO 8601 with offset,
-# {ws_interval}-minute means (rain: sum) labelled at the START of the interval, LF line ends.
+# {ws_interval}-minute means (rain: sum) labelled at the START of the interval, LF line ends;
+# global and diffuse horizontal irradiance, air temperature, wind, rain.
 [[loggers]]
 name = "ws2"
 match = "talbrunn_ws2_*.csv"
@@ -206,6 +207,15 @@ sentinels = ["NaN"]
   name = "rain"
   quantity = "rain"
   unit = "mm"
+
+  # Diffuse horizontal irradiance from a second pyranometer of the same class, shaded from the
+  # sun disc by a ball on a sun tracker. With GHI and DHI both measured the model splits
+  # nothing: DNI follows from GHI = DNI cos(zenith) + DHI, and a decomposition model (see
+  # [model] decomposition) only fills intervals where DHI is missing.
+  [[loggers.columns]]
+  name = "dhi"
+  quantity = "dhi"
+  unit = "W/m2"
 """
 
 
