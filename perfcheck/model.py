@@ -50,8 +50,9 @@ from perfcheck.errors import DataError
 from perfcheck.site import DEVICE_QUANTITIES, Array, Inverter, Site
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "1"
+MODEL_VERSION = "2"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
+WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
 
 # weather stored beside the sun in model_conditions, as the model used it
@@ -250,14 +251,30 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
 
 def array_temperature(array: Array, irr: pd.DataFrame, weather: pd.DataFrame, site: Site
                       ) -> pd.Series:
-    """Cell temperature of one array [C] (measured module temperature where logged)."""
+    """Cell temperature of one array [C].
+
+    A logged back-of-module temperature is used only for arrays that share the plane,
+    mounting and construction of the array carrying the POA sensor, where it is taken to be
+    fitted: a module in another plane or mounting runs at another temperature (an east array
+    at low sun is cooler than a south one), so those arrays are modelled from the weather.
+    """
     wind = weather["wind_speed"] if "wind_speed" in weather else None
     if wind is None or wind.isna().all():
         wind = pd.Series(DEFAULT_WIND_SPEED, index=weather.index)
+    else:
+        # A missing wind reading should not void the expected power: bridge short gaps
+        # linearly, fill longer ones with the default speed.
+        step_s = (weather.index[1] - weather.index[0]).total_seconds() if len(wind) > 1 else 1
+        limit = max(1, int(WIND_GAP_BRIDGED_S // step_s))
+        wind = wind.interpolate(limit=limit, limit_area="inside").fillna(DEFAULT_WIND_SPEED)
     temp_air = weather.get("temp_air", pd.Series(np.nan, index=weather.index))
+    twin = sensor_array(site)
+    measured = (weather.get("temp_module")
+                if in_plane(array, sensor_plane(site))
+                and (array.mounting, array.construction) == (twin.mounting, twin.construction)
+                else None)
     return ph.cell_temperature(irr["poa_global"], temp_air, wind, array.mounting,
-                               array.construction, site.model.temperature_model,
-                               weather.get("temp_module"))
+                               array.construction, site.model.temperature_model, measured)
 
 
 def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: pd.DataFrame,
