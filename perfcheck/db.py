@@ -44,6 +44,7 @@ def connect(path: str | Path, read_only: bool = False) -> duckdb.DuckDBPyConnect
     except duckdb.Error as exc:
         raise DataError(f"{path}: cannot open database ({exc})") from None
     con.execute("SET TimeZone = 'UTC'")
+    con.execute("SET enable_progress_bar = false")
     if not read_only:
         for name in schema_names():
             con.execute(sql(name))

@@ -2,6 +2,8 @@
 -- start of the logger interval. Values are in SI units, named with their unit suffix.
 CREATE SEQUENCE IF NOT EXISTS source_file_id START 1;
 
+-- One row per logger file ingested. rows_read = rows_loaded + rows_duplicate + rows_quarantined
+-- (blank lines, the header, the units row and preamble lines are not rows).
 CREATE TABLE IF NOT EXISTS source_files (
     file_id        INTEGER PRIMARY KEY,
     path           VARCHAR NOT NULL,      -- as given on the command line
@@ -12,30 +14,71 @@ CREATE TABLE IF NOT EXISTS source_files (
     rows_loaded    BIGINT NOT NULL,
     rows_duplicate BIGINT NOT NULL,
     rows_quarantined BIGINT NOT NULL,
+    conflicts      BIGINT NOT NULL,       -- values that differ from a stored value (table conflicts)
     first_ts       TIMESTAMPTZ,
     last_ts        TIMESTAMPTZ,
     ingested_at    TIMESTAMPTZ NOT NULL,
     tool_version   VARCHAR NOT NULL
 );
 
--- One row per (instant, quantity, device). quantity is the stored name with its unit
+-- A channel is one (quantity, device) pair: quantity is the stored name with its unit
 -- (ac_power_w, poa_wm2 ...); device is an inverter id, 'plant' or 'site'.
-CREATE TABLE IF NOT EXISTS readings (
-    ts        TIMESTAMPTZ NOT NULL,
-    quantity  VARCHAR NOT NULL,
-    device    VARCHAR NOT NULL,
-    value     DOUBLE,
-    file_id   INTEGER NOT NULL,
-    line      BIGINT NOT NULL
+CREATE TABLE IF NOT EXISTS channels (
+    channel_id SMALLINT PRIMARY KEY,
+    quantity   VARCHAR NOT NULL,
+    device     VARCHAR NOT NULL,
+    UNIQUE (quantity, device)
 );
 
+-- Values are stored as the loggers write them: one wide table per logger, logger_rows_<id>
+-- (ts, file_id, line, c<channel_id> ...), a row per loaded line, NULL where a value is missing
+-- or was stored already. Created and widened by the ingest (sql/ingest_logger_table.sql), no
+-- index: only ever appended to and scanned. Later stages read the long views below.
+CREATE TABLE IF NOT EXISTS loggers (
+    logger_id SMALLINT PRIMARY KEY,
+    name      VARCHAR NOT NULL UNIQUE       -- [[loggers]] name in the site file
+);
+
+CREATE TABLE IF NOT EXISTS logger_channels (
+    logger_id  SMALLINT NOT NULL,
+    channel_id SMALLINT NOT NULL,
+    PRIMARY KEY (logger_id, channel_id)
+);
+
+-- Long rows written directly (by tests' fixtures or an importer that has no logger file); the
+-- ingest itself writes the logger tables. Part of channel_values.
+CREATE TABLE IF NOT EXISTS reading_values (
+    ts         TIMESTAMPTZ NOT NULL,
+    channel_id SMALLINT NOT NULL,
+    value      DOUBLE NOT NULL,
+    file_id    INTEGER NOT NULL,
+    line       INTEGER NOT NULL
+);
+
+-- One row per (instant, channel) with a value: reading_values and the logger tables unpivoted.
+-- Rebuilt by the ingest (sql/ingest_view.sql) whenever a logger or channel is added.
+CREATE VIEW IF NOT EXISTS channel_values AS
+SELECT ts, channel_id, value, file_id, line FROM reading_values;
+
+-- What later stages read: one row per (instant, quantity, device).
+CREATE OR REPLACE VIEW readings AS
+SELECT v.ts, c.quantity, c.device, v.value, v.file_id, v.line
+FROM channel_values v JOIN channels c USING (channel_id);
+
+-- Input rows that were not loaded, with their raw text and why. ts is the line's own instant
+-- where it could be read, else that of the nearest readable line before it in the file (for
+-- coverage counts by month; NULL when no line before it is readable).
 CREATE TABLE IF NOT EXISTS quarantine (
     file_id   INTEGER NOT NULL,
     line      BIGINT NOT NULL,
+    ts        TIMESTAMPTZ,
     raw       VARCHAR,
     reason    VARCHAR NOT NULL
 );
 
+-- Values that disagree with a value stored for the same instant and channel (from an earlier
+-- file, or from an earlier line of the same file). The stored value is kept; the row that
+-- brought the new value is quarantined.
 CREATE TABLE IF NOT EXISTS conflicts (
     ts            TIMESTAMPTZ NOT NULL,
     quantity      VARCHAR NOT NULL,
@@ -43,6 +86,17 @@ CREATE TABLE IF NOT EXISTS conflicts (
     stored_value  DOUBLE,
     new_value     DOUBLE,
     stored_file_id INTEGER NOT NULL,
+    stored_line   BIGINT NOT NULL,
     new_file_id   INTEGER NOT NULL,
     new_line      BIGINT NOT NULL
 );
+
+-- A wall-clock time read with a strptime format, else with the spaces around it trimmed. '24:00',
+-- which loggers that label the end of an interval write for the end of a day, is read as 00:00
+-- of the next day. (Each fallback is evaluated only where the reading before it failed.)
+CREATE OR REPLACE MACRO wall_clock(t, fmt) AS
+    coalesce(try_strptime(t, fmt),
+             try_strptime(trim(t), fmt),
+             CASE WHEN contains(t, '24:00')
+                  THEN try_strptime(replace(trim(t), '24:00', '00:00'), fmt) + INTERVAL 1 DAY
+             END);

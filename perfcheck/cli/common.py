@@ -36,7 +36,8 @@ def handle_errors(fn: Callable) -> Callable:
         except PerfcheckError as exc:
             raise UserError(str(exc)) from None
         except KeyboardInterrupt:
-            click.echo("perfcheck: interrupted; the last file in progress was rolled back", err=True)
+            click.echo("perfcheck: interrupted; the last file in progress was rolled back",
+                       err=True)
             sys.exit(130)
 
     return wrapper

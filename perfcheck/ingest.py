@@ -1,0 +1,568 @@
+"""Ingest: logger CSV files into the site database, nothing lost, nothing invented.
+
+Every non-blank data line of a file ends up in exactly one place:
+
+* **loaded**: its new values are stored, with the file id and line number, and seen through
+  the views ``channel_values`` (ts, channel_id, value, file_id, line) and ``readings`` (ts,
+  quantity, device, value, file_id, line), one row per (instant, channel) with a value;
+* **duplicate**: every value it holds is stored already (an overlapping export, a file ingested
+  under another name, or a line repeating an earlier line of the same file);
+* **quarantined**: kept in ``quarantine`` with line number, raw text and reason. This includes
+  a line that disagrees with a value stored for the same instant and channel: the stored value
+  is never overwritten, each differing value goes to ``conflicts`` and the whole line to
+  quarantine, so a user can see and settle it.
+
+So ``rows_read = rows_loaded + rows_duplicate + rows_quarantined`` for every file; the counts
+are stored in ``source_files`` with the file's sha256, size, time span and the tool version.
+A file whose sha256 is already stored is reported as already ingested and changes nothing.
+
+Conventions: instants are UTC and label the **start** of the logger interval (a logger that
+labels the end has its times moved back by one interval). Values are converted once, here, to
+SI units: W, Wh, W/m2, C, m/s, mm. Empty fields and the logger's sentinels are missing values
+and are not stored; ``NaN`` is always missing.
+
+Storage: values are kept as the logger writes them, one wide table per logger
+(``logger_rows_<id>``: ts, file_id, line and one column per channel, NULL where a value is
+missing or was stored already), and ``channel_values`` unpivots them (together with the long
+table ``reading_values``, for values written directly, without a logger file). A site-year of
+1-minute data is then one row per minute instead of one per value, which makes storing it
+several times faster than appending to a long table (tests/benchmark.py), while later stages
+read the same long views.
+
+A line whose time repeats an earlier line of the same file (after time-zone resolution) is a
+duplicate when all its values equal that line's, else it is quarantined as a conflict. Naive
+local times are resolved by the order of the lines in the autumn hour that repeats; a local
+time in the skipped spring hour is quarantined ("does not exist"), never shifted.
+
+Parsing is done by DuckDB over the file's lines (split, quote handling, typing, time zones,
+comparison with stored values), so there is no Python loop over data rows; Python checks only
+what must hold for the whole file before any of it is read: it exists, is UTF-8, is not empty,
+has the mapped columns in its header and does not end in a truncated line. Each file is stored
+in one transaction: an error or a kill mid-file leaves the database as it was before that file.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import fnmatch
+import glob
+import hashlib
+import re
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+from pathlib import Path
+
+import duckdb
+import pandas as pd
+
+from perfcheck import __version__, db
+from perfcheck.errors import LoggerFileError, SiteFileError
+from perfcheck.site import Column, Logger, Site
+
+_NOT_BLANK = re.compile(rb"[^\s\xef\xbb\xbf]")
+
+# Factor and offset to SI for every unit the site file accepts: si = value * factor + offset.
+UNIT_TO_SI: dict[str, tuple[float, float]] = {
+    "W": (1.0, 0.0),
+    "kW": (1e3, 0.0),
+    "MW": (1e6, 0.0),
+    "Wh": (1.0, 0.0),
+    "kWh": (1e3, 0.0),
+    "MWh": (1e6, 0.0),
+    "W/m2": (1.0, 0.0),
+    "C": (1.0, 0.0),
+    "K": (1.0, -273.15),
+    "m/s": (1.0, 0.0),
+    "km/h": (1.0 / 3.6, 0.0),
+    "mm": (1.0, 0.0),
+}
+
+
+@dataclass(frozen=True)
+class FileResult:
+    """What happened to one file. For a loaded file rows_read = loaded + duplicate + quarantined;
+    a file already ingested reports its earlier file id and zero counts."""
+
+    path: str
+    file_id: int
+    status: str  # 'loaded' or 'already ingested'
+    rows_read: int
+    rows_loaded: int
+    rows_duplicate: int
+    rows_quarantined: int
+    conflicts: int
+    first_ts: dt.datetime | None
+    last_ts: dt.datetime | None
+
+
+@dataclass(frozen=True)
+class _Checked:
+    """A file that passed the whole-file checks, with what the SQL needs to read it."""
+
+    path: Path
+    given: str
+    logger: Logger
+    sha256: str
+    size_bytes: int
+    n_fields: int
+    positions: tuple[int, ...]  # 1-based field position of each mapped column
+    time_positions: tuple[int, ...]
+    header_end: int  # last line number that is not data (preamble, header, units row)
+    crlf: bool  # the file holds CRLF line ends
+
+
+def expand_paths(patterns: Iterable[str | Path]) -> list[Path]:
+    """Expand shell-style globs, in sorted order; a pattern without glob characters is kept
+    as it is (a missing file is reported when it is read). Raises LoggerFileError for a glob
+    that matches nothing."""
+    out: list[Path] = []
+    for pattern in patterns:
+        text = str(pattern)
+        if glob.has_magic(text) and not Path(text).exists():
+            found = sorted(glob.glob(text, recursive=True))
+            if not found:
+                raise LoggerFileError(f"{text}: no file matches this pattern")
+            out.extend(Path(p) for p in found)
+        else:
+            out.append(Path(text))
+    return out
+
+
+def logger_files(site: Site, folder: str | Path) -> list[Path]:
+    """The files directly in ``folder`` whose name a ``[[loggers]]`` entry of the site matches
+    (its ``match`` glob), sorted by name."""
+    out = []
+    for path in sorted(Path(folder).iterdir()):
+        if path.is_file() and any(fnmatch.fnmatch(path.name, lg.match) for lg in site.loggers):
+            out.append(path)
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# whole-file checks (Python, before any SQL)
+
+
+def _read_bytes(path: Path) -> bytes:
+    try:
+        return path.read_bytes()
+    except FileNotFoundError:
+        raise LoggerFileError(f"{path}: file not found") from None
+    except IsADirectoryError:
+        raise LoggerFileError(f"{path}: is a directory, not a logger file") from None
+    except OSError as exc:
+        raise LoggerFileError(f"{path}: cannot read file ({exc.strerror})") from None
+
+
+def _check_utf8(path: Path, data: bytes) -> None:
+    if data.isascii():
+        return
+    try:
+        data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data.count(b"\n", 0, exc.start) + 1
+        col = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
+        raise LoggerFileError(
+            f"{path}: line {line}: byte 0x{data[exc.start]:02x} at column {col} is not UTF-8 "
+            "(save the file as UTF-8)"
+        ) from None
+
+
+def _split_fields(line: str, delimiter: str) -> list[str]:
+    return next(csv.reader([line], delimiter=delimiter, quotechar='"'), [])
+
+
+def _line_at(data: bytes, number: int) -> tuple[str | None, int]:
+    """Line ``number`` (1-based) as text without its line end (None past the end of the
+    file), and the offset just after it. Only the lines up to ``number`` are looked at."""
+    start = 0
+    for _ in range(number - 1):
+        start = data.find(b"\n", start) + 1
+        if start == 0:
+            return None, len(data)
+    if start >= len(data):
+        return None, len(data)
+    end = data.find(b"\n", start)
+    end = len(data) if end < 0 else end
+    return data[start:end].decode("utf-8").removeprefix("\ufeff").rstrip("\r"), end + 1
+
+
+def _column_positions(path: Path, lg: Logger, header: list[str], line: int) -> dict[str, int]:
+    names = [h.strip() for h in header]
+    wanted = list(lg.time.columns) + [c.name for c in lg.columns]
+    positions: dict[str, int] = {}
+    for name in wanted:
+        if names.count(name) > 1:
+            raise LoggerFileError(f"{path}: line {line}: column {name!r} appears twice in the "
+                                  "header; the mapping cannot tell which one is meant")
+        if name not in names:
+            shown = ", ".join(repr(n) for n in names[:12]) + (" ..." if len(names) > 12 else "")
+            hint = ""
+            others = [d for d in (",", ";", "\t", "|") if d != lg.delimiter and d in header[0]]
+            if len(names) == 1 and others:
+                hint = f"; the header holds {others[0]!r}: is delimiter {lg.delimiter!r} right?"
+            raise LoggerFileError(
+                f"{path}: line {line}: no column {name!r} (mapped in [[loggers]] {lg.name!r}); "
+                f"found {len(names)} column(s) with delimiter {lg.delimiter!r}: {shown}{hint}"
+            )
+        positions[name] = names.index(name) + 1
+    return positions
+
+
+def _check_units_row(path: Path, lg: Logger, units: str | None, positions: dict[str, int],
+                     line: int) -> None:
+    """A units row must not hold numbers where values are mapped: that is a data row, and
+    reading it as units would lose it."""
+    fields = _split_fields(units or "", lg.delimiter)
+    for col in lg.columns:
+        text = fields[positions[col.name] - 1].strip() if len(fields) >= positions[col.name] else ""
+        try:
+            float(text.replace(",", "."))
+        except ValueError:
+            continue
+        raise LoggerFileError(
+            f"{path}: line {line}: expected the units row (units_row = true in [[loggers]] "
+            f"{lg.name!r}) but column {col.name!r} holds the number {text!r}"
+        )
+
+
+def check_file(site: Site, path: str | Path) -> _Checked:
+    """Whole-file checks; raises LoggerFileError (one line, naming file and line) on failure."""
+    path = Path(path)
+    lg = site.logger_for(str(path))
+    data = _read_bytes(path)
+    if _NOT_BLANK.search(data) is None:
+        raise LoggerFileError(f"{path}: empty file ({len(data)} bytes, no lines)")
+    _check_utf8(path, data)
+    header_no = lg.preamble_lines + 1
+    header, after = _line_at(data, header_no)
+    if header is None:
+        raise LoggerFileError(
+            f"{path}: line {header_no}: file ends before the header "
+            f"(preamble_lines = {lg.preamble_lines} in [[loggers]] {lg.name!r})"
+        )
+    fields = _split_fields(header, lg.delimiter)
+    positions = _column_positions(path, lg, fields, header_no)
+    header_end = header_no + (1 if lg.units_row else 0)
+    if lg.units_row:
+        units, after = _line_at(data, header_end)
+        _check_units_row(path, lg, units, positions, header_end)
+    if _NOT_BLANK.search(data, after) is None:
+        raise LoggerFileError(f"{path}: empty file (no data lines after the header, "
+                              f"line {header_end})")
+    if not data.endswith(b"\n"):
+        last = data[data.rfind(b"\n") + 1:].decode("utf-8")
+        n_last = len(_split_fields(last, lg.delimiter)) if last.strip() else len(fields)
+        if n_last < len(fields):
+            line = data.count(b"\n") + 1
+            raise LoggerFileError(
+                f"{path}: line {line}: truncated last line ({n_last} of "
+                f"{len(fields)} fields, no line end): the file may still be being written"
+            )
+    return _Checked(
+        path=path,
+        given=str(path),
+        logger=lg,
+        sha256=hashlib.sha256(data).hexdigest(),
+        size_bytes=len(data),
+        n_fields=len(fields),
+        positions=tuple(positions[c.name] for c in lg.columns),
+        time_positions=tuple(positions[c] for c in lg.time.columns),
+        header_end=header_end,
+        crlf=b"\r" in data,  # one byte: a fast scan; a lone CR is harmless
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# SQL building: only integers and fixed unit factors are put into the SQL text
+
+
+def _one(con: duckdb.DuckDBPyConnection, query: str, params: object = None) -> tuple | None:
+    """The first row of a query (all rows are fetched, so the connection is free again)."""
+    rows = con.execute(query, params).fetchall()
+    return rows[0] if rows else None
+
+
+def _channel_ids(con: duckdb.DuckDBPyConnection, lg: Logger) -> list[int]:
+    ids = []
+    for col in lg.columns:
+        row = _one(
+            con,
+            "SELECT channel_id FROM channels WHERE quantity = ? AND device = ?",
+            [col.stored, col.device],
+        )
+        if row is None:
+            row = _one(
+                con,
+                "INSERT INTO channels SELECT coalesce(max(channel_id), 0) + 1, ?, ? "
+                "FROM channels RETURNING channel_id",
+                [col.stored, col.device],
+            )
+        ids.append(int(row[0]))
+    return ids
+
+
+def _logger_table(con: duckdb.DuckDBPyConnection, lg: Logger, channels: list[int]) -> int:
+    """The id of the logger's wide table, created or widened for ``channels``; when that adds
+    a channel, the view channel_values is rebuilt over all logger tables."""
+    row = _one(con, "SELECT logger_id FROM loggers WHERE name = ?", [lg.name])
+    if row is None:
+        row = _one(con, "INSERT INTO loggers SELECT coalesce(max(logger_id), 0) + 1, ? "
+                        "FROM loggers RETURNING logger_id", [lg.name])
+    logger_id = int(row[0])
+    known = {int(r[0]) for r in con.execute(
+        "SELECT channel_id FROM logger_channels WHERE logger_id = ?", [logger_id]).fetchall()}
+    new = [ch for ch in channels if ch not in known]
+    if not new:
+        return logger_id
+    add = "\n;\n".join(f"ALTER TABLE logger_rows_{logger_id} ADD COLUMN IF NOT EXISTS "
+                        f"c{ch} DOUBLE" for ch in new)
+    for stmt in db.sql("ingest_logger_table").format(logger_id=logger_id,
+                                                      add_columns=add).split("\n;\n"):
+        con.execute(stmt)
+    con.executemany("INSERT INTO logger_channels VALUES (?, ?)", [[logger_id, ch] for ch in new])
+    pairs = con.execute("SELECT logger_id, channel_id FROM logger_channels "
+                        "ORDER BY logger_id, channel_id").fetchall()
+    unions = " UNION ALL ".join(
+        f"SELECT ts, {ch}::SMALLINT AS channel_id, c{ch} AS value, file_id, line "
+        f"FROM logger_rows_{lid} WHERE c{ch} IS NOT NULL" for lid, ch in pairs)
+    con.execute(db.sql("ingest_view").format(unions=unions))
+    return logger_id
+
+
+def _check_loggers(con: duckdb.DuckDBPyConnection, site: Site) -> None:
+    """What the site file's own validation cannot see: one channel mapped twice in a logger,
+    a time format DuckDB cannot use."""
+    for i, lg in enumerate(site.loggers):
+        seen: dict[tuple[str, str], str] = {}
+        for col in lg.columns:
+            key = (col.stored, col.device)
+            if key in seen:
+                raise SiteFileError(
+                    f"{site.path}: loggers[{i}].columns: {seen[key]!r} and {col.name!r} both "
+                    f"map to {col.quantity} of {col.device!r}"
+                )
+            seen[key] = col.name
+        if lg.time.kind in ("utc", "local"):
+            try:
+                _one(con, "SELECT try_strptime('2000-01-01', $f)", {"f": lg.time.format})
+            except duckdb.Error as exc:
+                reason = str(exc).splitlines()[0].split("Error: ", 1)[-1]
+                raise SiteFileError(f"{site.path}: loggers[{i}].time.format: "
+                                    f"{lg.time.format!r} is not a usable format ({reason})"
+                                    ) from None
+
+
+def _value_sql(k: int, col: Column, decimal: str, numeric_sentinels: bool) -> tuple[str, ...]:
+    """SQL for mapped column k: its number (and field text), its SI value, its error."""
+    factor, offset = UNIT_TO_SI[col.unit]
+    text = f"s{k}"
+    num = f"replace({text}, ',', '.')" if decimal == "," else text
+    missing = f"isnan(n{k})"
+    if numeric_sentinels:
+        missing += f" OR list_contains($num_sentinels, n{k})"
+    number = f"TRY_CAST({num} AS DOUBLE) AS n{k}, {text}"
+    value = f"CASE WHEN {missing} THEN NULL ELSE n{k} * {factor!r} + {offset!r} END AS v{k}"
+    error = (
+        f"CASE WHEN n{k} IS NULL AND trim({text}) <> '' "
+        f"AND NOT list_contains($sentinels, trim({text})) "
+        f"THEN 'column ' || $names[{k}] || ': ''' || {text} || ''' is not a number' END"
+    )
+    return number, value, error
+
+
+def _rows_sql(chk: _Checked) -> str:
+    lg = chk.logger
+    numeric = bool(_numeric(lg.sentinels))
+    parts = [_value_sql(k, c, lg.decimal, numeric) for k, c in enumerate(lg.columns, start=1)]
+    time_text = " || ' ' || ".join(f"f[{p}]" for p in chk.time_positions)
+    return db.sql("ingest_rows").format(
+        lines=db.sql("ingest_lines"),
+        time_text=time_text,
+        field_texts=", ".join(
+            f"f[{p}] AS s{k}" for k, p in enumerate(chk.positions, start=1)
+        ),
+        numbers=", ".join(p[0] for p in parts),
+        time_ctes=db.sql(f"ingest_time_{lg.time.kind}"),
+        values=", ".join(p[1] for p in parts),
+        any_bad=" OR ".join(f"(n{k} IS NULL AND s{k} <> '')" for k in range(1, len(parts) + 1)),
+        value_errors=", ".join(p[2] for p in parts),
+    )
+
+
+def _long_sql(channels: list[int]) -> str:
+    """The readable rows of ``_ingest_rows`` in long form: (line, ts, channel_id, value),
+    missing values left out."""
+    return " UNION ALL ".join(
+        f"SELECT line, ts, {ch}::SMALLINT AS channel_id, v{k} AS value FROM _ingest_rows "
+        f"WHERE reason IS NULL AND v{k} IS NOT NULL"
+        for k, ch in enumerate(channels, start=1)
+    )
+
+
+def _numeric(sentinels: tuple[str, ...]) -> list[float]:
+    out = []
+    for s in sentinels:
+        try:
+            out.append(float(s.replace(",", ".")))
+        except ValueError:
+            continue
+    return [v for v in out if v == v]
+
+
+def _quoted_patterns(delimiter: str) -> tuple[str, str]:
+    d = re.escape(delimiter)
+    field = f'"(?:[^"]|"")*"|[^{d}"]*'
+    return f"(?:{field})(?:{d}(?:{field}))*", f"(?:^|{d})({field})"
+
+
+# --------------------------------------------------------------------------------------------
+# one file, one transaction
+
+
+def _read_params(site: Site, chk: _Checked) -> dict[str, object]:
+    """The bound parameters of sql/ingest_rows.sql (and its time fragment) for one file."""
+    lg = chk.logger
+    quoted_line, quoted_field = _quoted_patterns(lg.delimiter)
+    params: dict[str, object] = {
+        "path": str(chk.path),
+        "header_end": chk.header_end,
+        "crlf": chk.crlf,
+        "delim": lg.delimiter,
+        "quoted_line": quoted_line,
+        "quoted_field": quoted_field,
+        "n_fields": chk.n_fields,
+        "sentinels": list(lg.sentinels),
+        "names": [c.name for c in lg.columns],
+        "label_shift_min": lg.interval_min if lg.time.label == "end" else 0,
+    }
+    if _numeric(lg.sentinels):
+        params["num_sentinels"] = _numeric(lg.sentinels)
+    if lg.time.kind in ("utc", "local"):
+        params["time_format"] = lg.time.format
+    if lg.time.kind == "local":
+        params["tz"] = site.timezone
+    return params
+
+
+def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> FileResult:
+    known = _one(con, "SELECT file_id FROM source_files WHERE sha256 = ?", [chk.sha256])
+    if known is not None:
+        return FileResult(chk.given, int(known[0]), "already ingested", 0, 0, 0, 0, 0, None, None)
+    con.execute("BEGIN TRANSACTION")
+    try:
+        row = _store_file(con, site, chk)
+        con.execute("COMMIT")
+    except BaseException as exc:
+        con.execute("ROLLBACK")
+        if isinstance(exc, duckdb.Error):
+            reason = str(exc).splitlines()[0]
+            raise LoggerFileError(f"{chk.given}: cannot be read ({reason}); nothing of this "
+                                  "file was stored") from None
+        raise
+    return FileResult(chk.given, int(row[0]), "loaded", *(int(v) for v in row[1:6]),
+                      row[6], row[7])
+
+
+def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> tuple:
+    """Read, compare and store one file inside the caller's transaction; returns its
+    source_files row (file_id, rows_read, loaded, duplicate, quarantined, conflicts,
+    first_ts, last_ts)."""
+    channels = _channel_ids(con, chk.logger)
+    logger_id = _logger_table(con, chk.logger, channels)
+    con.execute(_rows_sql(chk), _read_params(site, chk))
+    lo, hi = _one(con, "SELECT min(ts), max(ts) FROM _ingest_rows WHERE reason IS NULL")
+    unions = _long_sql(channels)
+    con.execute(db.sql("ingest_compare").format(unions=unions),
+                {"lo": lo, "hi": hi, "channels": channels})
+    ks = range(1, len(channels) + 1)
+    con.execute(db.sql("ingest_outcome").format(
+        same=" AND ".join(f"c.v{k} IS NOT DISTINCT FROM f.v{k}" for k in ks),
+        n_values=" + ".join(f"(c.v{k} IS NOT NULL)::INTEGER" for k in ks),
+    ))
+    missing_raw = _one(con, "SELECT count(*) FROM _ingest_outcome JOIN _ingest_rows USING (line) "
+                            "WHERE outcome = 'quarantined' AND raw IS NULL")[0]
+    if missing_raw:
+        params = _read_params(site, chk)
+        con.execute(db.sql("ingest_raw").format(lines=db.sql("ingest_lines")),
+                    {k: params[k] for k in ("path", "header_end", "crlf")})
+    file_id = int(_one(con, "SELECT nextval('source_file_id')")[0])
+    store = db.sql("ingest_store").format(
+        unions=unions,
+        logger_id=logger_id,
+        value_columns=", ".join(f"c{ch}" for ch in channels),
+        values=", ".join(f"v{k}" for k in ks),
+        null_dups=", ".join(f"c{ch} = CASE WHEN list_contains(d.dup, {ch}) THEN NULL "
+                            f"ELSE t.c{ch} END" for ch in channels),
+    )
+    for stmt in store.split("\n;\n"):
+        con.execute(stmt, {"file_id": file_id} if "$file_id" in stmt else None)
+    row = _one(con, db.sql("ingest_source_file"), {
+        "file_id": file_id,
+        "path": chk.given,
+        "logger": chk.logger.name,
+        "sha256": chk.sha256,
+        "size_bytes": chk.size_bytes,
+        "tool_version": __version__,
+    })
+    for table in ("_ingest_rows", "_ingest_match", "_ingest_outcome"):
+        con.execute(f"DROP TABLE {table}")
+    return row
+
+
+def ingest_files(
+    con: duckdb.DuckDBPyConnection,
+    site: Site,
+    paths: Iterable[str | Path],
+    progress: Callable[[FileResult], None] | None = None,
+) -> list[FileResult]:
+    """Ingest logger files into the site database, one transaction per file.
+
+    Every file is checked first (exists, UTF-8, not empty, mapped columns present, last line
+    complete), so a bad file stops the run before anything is stored. ``progress`` is called
+    with each file's result as soon as it is committed.
+    """
+    _check_loggers(con, site)
+    checked = [check_file(site, p) for p in paths]
+    results = []
+    for chk in checked:
+        res = _ingest_one(con, site, chk)
+        results.append(res)
+        if progress is not None:
+            progress(res)
+    return results
+
+
+# --------------------------------------------------------------------------------------------
+# summaries
+
+
+def coverage_summary(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
+    """Data coverage per channel and site-local month.
+
+    Columns: ``month`` (YYYY-MM in the site's zone), ``quantity``, ``device``, ``expected``
+    (intervals between the channel's first and last reading within the month, at the shortest
+    interval of the loggers that carry it), ``present`` (intervals with a value), ``share``
+    (present / expected) and ``quarantined`` (quarantined lines of those loggers' files, by the
+    month of the line's instant).
+    """
+    frame = pd.DataFrame(
+        [(lg.name, c.stored, c.device, lg.interval_min) for lg in site.loggers for c in lg.columns],
+        columns=["logger", "quantity", "device", "interval_min"],
+    )
+    con.register("_coverage_channels", frame)
+    try:
+        return con.execute(db.sql("ingest_coverage"), {"tz": site.timezone}).df()
+    finally:
+        con.unregister("_coverage_channels")
+
+
+__all__ = [
+    "FileResult",
+    "UNIT_TO_SI",
+    "check_file",
+    "coverage_summary",
+    "expand_paths",
+    "ingest_files",
+    "logger_files",
+]

@@ -1,0 +1,231 @@
+"""Quality: flags stored beside the readings, never deletions.
+
+``run(con, site)`` recomputes the table ``flags(ts, quantity, device, flag, detail)`` from all
+stored readings, in DuckDB SQL (window functions over each channel in time order):
+
+``out_of_range``
+    A value outside the physically possible range of its quantity (table ``LIMITS`` below and
+    :func:`channel_limits`); irradiance upper limits follow the sun (Long & Dutton 2002).
+``stuck``
+    The same value, unchanged, over at least :data:`STUCK_MINUTES` of daylight (sun more than
+    :data:`DAY_ELEVATION_DEG` up), and a run so long that, were the channel's daylight steps
+    to repeat independently at its own observed repeat rate p, a run like it would occur
+    anywhere in its record with a chance below :data:`STUCK_CHANCE` (n * p^(k-1), n steps,
+    k readings). Runs at rest (``REST_LEVEL``: zero power or irradiance, calm), power runs
+    at or above :data:`CLIPPING_SHARE` of the rating (clipping, export limit) and quantities
+    that accumulate in steps (energy registers, rain) are never stuck.
+``gap``
+    Missing intervals between two readings of a channel: one flag at the first missing
+    interval; ``detail`` says how many intervals are missing and until when.
+``night_offset``
+    Irradiance readings with the sun more than :data:`NIGHT_ELEVATION_DEG` below the horizon
+    whose magnitude exceeds the zero-offset allowance of the sensor class (``NIGHT_OFFSET_WM2``).
+``power_without_irradiance``
+    AC power above :data:`POWER_SHARE` of the rating while the plane-of-array (else global)
+    irradiance of the same interval is below :data:`IRRADIANCE_FLOOR_WM2`, or the sun is down.
+
+The sun position is computed once per distinct interval mid-point with pvlib (NREL SPA).
+
+References
+----------
+Long, C. N. and Dutton, E. G. (2002). BSRN Global Network recommended QC tests, V2.0.
+    Physically possible limits. (From memory.)
+Reda, I. and Andreas, A. (2004). Solar position algorithm for solar radiation applications.
+    NREL/TP-560-34302.
+ISO 9060:2018, Solar energy - Specification and classification of instruments for measuring
+    hemispherical solar and direct solar radiation: zero offset a (response to 200 W/m^2 net
+    thermal radiation) class A 7, class B 15, class C 30 W/m^2. (From memory.)
+WMO Archive of Weather and Climate Extremes: lowest air temperature -89.2 C (Vostok, 1983),
+    highest 56.7 C (Death Valley, 1913), highest gust 113.2 m/s (Barrow Island, 1996),
+    greatest 60-minute rainfall 305 mm (Holt, 1947). (From memory.)
+"""
+
+from __future__ import annotations
+
+import re
+
+import duckdb
+import numpy as np
+import pandas as pd
+import pvlib
+
+from perfcheck import db
+from perfcheck.site import Site
+
+# Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
+# fixed limit on that side. Power and energy limits scale with the device's rating
+# (channel_limits); irradiance upper limits follow the sun (sql/quality_out_of_range.sql).
+LIMITS: dict[str, tuple[float | None, float | None]] = {
+    # BSRN physically possible minimum for GHI, DHI, DNI (Long & Dutton 2002, from memory);
+    # applied to POA too.
+    "poa_wm2": (-4.0, None),
+    "ghi_wm2": (-4.0, None),
+    "dhi_wm2": (-4.0, None),
+    "dni_wm2": (-4.0, None),
+    # WMO world extremes of air temperature (from memory)
+    "temp_air_c": (-89.2, 56.7),
+    # ambient record low; a module in full sun runs some 30-40 C above ambient, so 100 C is
+    # beyond any working module (common practice)
+    "temp_module_c": (-89.2, 100.0),
+    # WMO highest gust (from memory)
+    "wind_speed_ms": (0.0, 113.2),
+    # WMO greatest 60-minute rainfall (from memory); per interval of up to 60 min
+    "rain_mm": (0.0, 305.0),
+    "energy_register_wh": (0.0, None),
+}
+# Power may exceed the AC rating by this factor at most (inverter overload headroom, cold
+# weather): common practice. Negative down to this share of the rating (night consumption).
+POWER_OVER = 1.1
+POWER_UNDER = -0.05
+# DC power: up to 1.5 x DC nameplate (cloud enhancement and cold cells; common practice).
+DC_OVER = 1.5
+
+STUCK_MINUTES = 60  # at least this long, and at least STUCK_MIN_INTERVALS intervals
+STUCK_MIN_INTERVALS = 3
+STUCK_CHANCE = 0.01  # a run this long anywhere in the channel's record, by chance
+NEVER_STUCK = ("energy_register_wh", "rain_mm")  # accumulate in steps of their resolution
+DAY_ELEVATION_DEG = 5.0  # sun above this: quantities should vary
+CLIPPING_SHARE = 0.95  # power runs at or above this share of the rating are not stuck
+NIGHT_ELEVATION_DEG = -6.0  # end of civil twilight: no sunlight reaches a sensor
+NIGHT_OFFSET_WM2 = {"A": 7.0, "B": 15.0, "C": 30.0}  # ISO 9060:2018 zero offset a (from memory)
+POWER_SHARE = 0.05  # of the AC rating (common practice)
+IRRADIANCE_FLOOR_WM2 = 10.0  # below this, DC output is about 1 % of nameplate
+
+FLAG_NAMES = ("out_of_range", "stuck", "gap", "night_offset", "power_without_irradiance")
+IRRADIANCE = ("poa_wm2", "ghi_wm2", "dhi_wm2", "dni_wm2")
+# Levels at or below which a quantity is at rest and may hold still: zero for power, energy and
+# irradiance; 0.5 m/s for wind, about the starting threshold of a cup anemometer (from memory).
+REST_LEVEL = {"ac_power_w": 0.0, "dc_power_w": 0.0, "energy_interval_wh": 0.0, "poa_wm2": 0.0,
+              "ghi_wm2": 0.0, "dhi_wm2": 0.0, "dni_wm2": 0.0, "wind_speed_ms": 0.5}
+
+
+def channel_limits(site: Site) -> pd.DataFrame:
+    """One row per logged channel: its interval, rating and fixed range.
+
+    Columns: quantity, device, interval_min, rating_w (AC rating of the inverter, or of the
+    plant: sum of ratings, capped by the export limit; missing for weather), lo, hi (missing:
+    no limit), rest_level (at or below it the quantity may hold still; missing: none).
+    """
+    rows = {}
+    for lg in site.loggers:
+        for col in lg.columns:
+            key = (col.stored, col.device)
+            if key in rows:
+                rows[key][2] = min(rows[key][2], lg.interval_min)
+                continue
+            rows[key] = [col.stored, col.device, lg.interval_min]
+    out = []
+    for quantity, device, interval in rows.values():
+        rating = _rating_w(site, device)
+        dc = _dc_w(site, device)
+        lo, hi = LIMITS.get(quantity, (None, None))
+        if quantity == "ac_power_w":
+            lo, hi = POWER_UNDER * rating, POWER_OVER * rating
+        elif quantity == "dc_power_w":
+            lo, hi = POWER_UNDER * dc, DC_OVER * dc
+        elif quantity == "energy_interval_wh":
+            lo, hi = POWER_UNDER * rating * interval / 60, POWER_OVER * rating * interval / 60
+        out.append((quantity, device, interval, rating, lo, hi, REST_LEVEL.get(quantity)))
+    frame = pd.DataFrame(out, columns=["quantity", "device", "interval_min", "rating_w",
+                                       "lo", "hi", "rest_level"])
+    # nullable floats: a missing limit reaches SQL as NULL, not NaN
+    return frame.astype({c: "Float64" for c in ("rating_w", "lo", "hi", "rest_level")})
+
+
+def _rating_w(site: Site, device: str) -> float:
+    if device == "site":
+        return float("nan")
+    if device == "plant":
+        total = site.ac_kw
+        if site.export_limit_kw is not None:
+            total = min(total, site.export_limit_kw)
+        return 1e3 * total
+    return 1e3 * site.inverter(device).ac_kw
+
+
+def _dc_w(site: Site, device: str) -> float:
+    if device == "site":
+        return float("nan")
+    if device == "plant":
+        return 1e3 * site.dc_kwp
+    return 1e3 * site.inverter(device).dc_kwp
+
+
+def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.DataFrame:
+    """Sun at the mid-point of each interval starting at ``starts`` (UTC).
+
+    Returns columns ts (interval start), interval_min, elevation_deg (apparent, refracted),
+    mu0 (cosine of the zenith, 0 when the sun is down) and sa_wm2 (extraterrestrial normal
+    irradiance for the day, pvlib's ``get_extra_radiation``, Spencer 1971).
+    """
+    mid = starts + pd.Timedelta(minutes=interval_min / 2)
+    pos = pvlib.solarposition.get_solarposition(
+        mid, site.latitude_deg, site.longitude_deg, altitude=site.altitude_m)
+    zenith = pos["apparent_zenith"].to_numpy()
+    return pd.DataFrame({
+        "ts": starts,
+        "interval_min": np.int32(interval_min),
+        "elevation_deg": pos["apparent_elevation"].to_numpy(),
+        "mu0": np.clip(np.cos(np.radians(zenith)), 0.0, None),
+        "sa_wm2": pvlib.irradiance.get_extra_radiation(mid).to_numpy(),
+    })
+
+
+def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
+                      channels: pd.DataFrame) -> pd.DataFrame:
+    frames = []
+    for interval in sorted(set(channels["interval_min"])):
+        chans = channels[channels["interval_min"] == interval]
+        con.register("_quality_sel", chans[["quantity", "device"]])
+        try:
+            ts = con.execute(
+                "SELECT DISTINCT r.ts FROM readings r "
+                "JOIN _quality_sel s USING (quantity, device) ORDER BY r.ts").df()["ts"]
+        finally:
+            con.unregister("_quality_sel")
+        if len(ts):
+            frames.append(sun_table(site, pd.DatetimeIndex(ts).tz_convert("UTC"), interval))
+    if not frames:
+        return sun_table(site, pd.DatetimeIndex([], tz="UTC"), 5)
+    return pd.concat(frames, ignore_index=True)
+
+
+def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
+    """Recompute all flags from the stored readings; returns the count per flag name."""
+    channels = channel_limits(site)
+    sun = _sun_for_readings(con, site, channels)
+    params = {
+        "stuck_minutes": STUCK_MINUTES,
+        "stuck_min_intervals": STUCK_MIN_INTERVALS,
+        "day_elevation": DAY_ELEVATION_DEG,
+        "clipping_share": CLIPPING_SHARE,
+        "never_stuck": list(NEVER_STUCK),
+        "stuck_chance": STUCK_CHANCE,
+        "night_elevation": NIGHT_ELEVATION_DEG,
+        "night_offset_wm2": NIGHT_OFFSET_WM2[site.model.sensor_class],
+        "irradiance": list(IRRADIANCE),
+        "power_share": POWER_SHARE,
+        "irradiance_floor": IRRADIANCE_FLOOR_WM2,
+    }
+    con.register("_quality_channels", channels)
+    con.register("_quality_sun", sun)
+    try:
+        con.execute("BEGIN TRANSACTION")
+        try:
+            con.execute("DELETE FROM flags")
+            for name in FLAG_NAMES:
+                query = db.sql(f"quality_{name}")
+                used = {k: v for k, v in params.items() if re.search(rf"\${k}\b", query)}
+                con.execute(query, used)
+            con.execute("COMMIT")
+        except BaseException:
+            con.execute("ROLLBACK")
+            raise
+        counts = dict(con.execute("SELECT flag, count(*) FROM flags GROUP BY flag").fetchall())
+    finally:
+        con.unregister("_quality_channels")
+        con.unregister("_quality_sun")
+    return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
+
+
+__all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "sun_table"]

@@ -1,0 +1,56 @@
+-- Naive site-local wall-clock times -> UTC. Each wall time is tried with the UTC offset in force
+-- 14 h before and 14 h after it; a candidate is valid when it maps back to the same wall time.
+-- Two valid candidates: the repeated hour when clocks go back. Its lines are read with the
+-- summer offset until the wall clock steps back within that hour (order of lines), then with
+-- the winter offset. No valid candidate: the wall time was skipped when clocks went forward;
+-- the line is quarantined, never shifted. Times are microseconds since 1970 (wall times as if
+-- they were UTC); only timezone() consults the zone rules.
+local_wall AS (
+    SELECT *, epoch_us(naive) AS wall
+    FROM (SELECT *, wall_clock(time_text, $time_format) AS naive FROM typed)
+),
+local_cand AS (
+    SELECT *,
+           wall - (epoch_us(timezone($tz, make_timestamptz(wall - 50400000000)))
+                   - (wall - 50400000000)) AS cand_before,
+           wall - (epoch_us(timezone($tz, make_timestamptz(wall + 50400000000)))
+                   - (wall + 50400000000)) AS cand_after
+    FROM local_wall
+),
+local_ok AS (
+    SELECT *,
+           coalesce(epoch_us(timezone($tz, make_timestamptz(cand_before))) = wall, false)
+               AS ok_before,
+           coalesce(epoch_us(timezone($tz, make_timestamptz(cand_after))) = wall, false)
+               AS ok_after
+    FROM local_cand
+),
+local_step AS (
+    SELECT *,
+           coalesce(naive < lag(naive) OVER w, false) AS stepped_back
+    FROM (SELECT *, ok_before AND ok_after AND cand_before <> cand_after AS ambiguous
+          FROM local_ok)
+    WINDOW w AS (PARTITION BY CASE WHEN ambiguous THEN naive::DATE END ORDER BY line)
+),
+timed AS (
+    SELECT *,
+           make_timestamptz(
+               CASE WHEN ambiguous THEN
+                        CASE WHEN sum(stepped_back::INTEGER) OVER (
+                                      PARTITION BY CASE WHEN ambiguous THEN naive::DATE END
+                                      ORDER BY line) > 0
+                             THEN greatest(cand_before, cand_after)
+                             ELSE least(cand_before, cand_after) END
+                    WHEN ok_before THEN cand_before
+                    WHEN ok_after THEN cand_after
+               END) AS ts,
+           CASE WHEN shape_error IS NOT NULL THEN NULL
+                WHEN naive IS NULL
+                THEN 'time ''' || time_text || ''' does not match the format ''' || $time_format
+                     || ''''
+                WHEN NOT ok_before AND NOT ok_after
+                THEN 'local time ''' || time_text || ''' does not exist in ' || $tz
+                     || ' (clocks went forward)'
+           END AS time_error
+    FROM local_step
+)

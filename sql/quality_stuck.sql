@@ -1,0 +1,62 @@
+-- stuck: a value repeated unchanged (exactly) over daylight intervals (sun above
+-- $day_elevation degrees) where the quantity should vary. A run is stuck when
+--  * it holds at least $stuck_min_intervals daylight readings spanning $stuck_minutes, and
+--  * so long a run is improbable for this channel: if daylight steps repeated independently
+--    at the channel's own repeat rate p, the chance of a run this long anywhere among its n
+--    daylight steps, about n * p^(k-1), is below $stuck_chance. This adapts to each sensor's
+--    resolution (a 0.1 C thermometer repeats often, a pyranometer rarely).
+-- Not stuck: runs at rest (at or below the channel's rest_level: zero power or irradiance,
+-- calm wind); AC power (or
+-- interval energy) at or above $clipping_share of the rating (clipping and export limits hold
+-- it flat); quantities that accumulate in steps ($never_stuck: energy registers, rain), which
+-- hold still whenever the increment is below their resolution. Every reading of a stuck run is
+-- flagged.
+INSERT INTO flags
+WITH r AS (
+    SELECT r.ts, r.quantity, r.device, r.value, c.interval_min, c.rating_w,
+           coalesce(s.elevation_deg > $day_elevation, false) AS day,
+           coalesce(abs(r.value) <= c.rest_level, false) AS at_rest,
+           CASE WHEN r.value IS DISTINCT FROM lag(r.value) OVER w THEN 1 ELSE 0 END AS starts
+    FROM readings r
+    JOIN _quality_channels c USING (quantity, device)
+    LEFT JOIN _quality_sun s ON s.ts = r.ts AND s.interval_min = c.interval_min
+    WHERE NOT list_contains($never_stuck, r.quantity)
+    WINDOW w AS (PARTITION BY r.quantity, r.device ORDER BY r.ts)
+),
+runs AS (
+    SELECT *, sum(starts) OVER (PARTITION BY quantity, device ORDER BY ts
+                                ROWS UNBOUNDED PRECEDING) AS run_id
+    FROM r
+),
+rates AS (
+    SELECT quantity, device,
+           count(*) FILTER (WHERE day AND NOT at_rest AND starts = 0)
+               / greatest(count(*) FILTER (WHERE day AND NOT at_rest), 1) AS p_repeat,
+           greatest(count(*) FILTER (WHERE day AND NOT at_rest), 1) AS n_steps
+    FROM r GROUP BY quantity, device
+),
+stats AS (
+    SELECT quantity, device, run_id, any_value(value) AS value, count(*) AS n,
+           count(*) FILTER (WHERE day) AS n_day, bool_or(at_rest) AS at_rest,
+           min(ts) AS t0, max(ts) AS t1,
+           any_value(interval_min) AS interval_min, any_value(rating_w) AS rating_w
+    FROM runs
+    GROUP BY quantity, device, run_id
+),
+stuck AS (
+    SELECT s.*, r.p_repeat
+    FROM stats s JOIN rates r USING (quantity, device)
+    WHERE s.n_day >= greatest($stuck_min_intervals, ceil($stuck_minutes / s.interval_min))
+      AND (r.p_repeat = 0
+           OR (s.n_day - 1) * ln(r.p_repeat) + ln(r.n_steps) < ln($stuck_chance))
+      AND NOT s.at_rest
+      AND NOT (s.quantity = 'ac_power_w' AND s.value >= $clipping_share * s.rating_w)
+      AND NOT (s.quantity = 'energy_interval_wh'
+               AND s.value >= $clipping_share * s.rating_w * s.interval_min / 60)
+)
+SELECT u.ts, u.quantity, u.device, 'stuck',
+       printf('%.6g unchanged for %d intervals (%d in daylight), %s to %s UTC; '
+              || 'this channel repeats a value in %.1f %% of daylight steps',
+              t.value, t.n, t.n_day, strftime(t.t0, '%Y-%m-%d %H:%M'),
+              strftime(t.t1, '%Y-%m-%d %H:%M'), 100 * t.p_repeat)
+FROM runs u JOIN stuck t USING (quantity, device, run_id);

@@ -1,0 +1,535 @@
+"""Ingest: logger habits, time conventions, units, accounting, idempotency, conflicts, atomicity."""
+
+from __future__ import annotations
+
+import calendar
+import datetime as dt
+import multiprocessing as mp
+import time
+
+import numpy as np
+import pandas as pd
+import pytest
+from logger_files import logger_toml, run_ingest, write_case
+from numpy.testing import assert_allclose
+
+from perfcheck import db
+from perfcheck.ingest import coverage_summary, expand_paths, ingest_files, logger_files
+from perfcheck.site import load_site
+
+UTC = dt.UTC
+
+
+def ingest(tmp_path, body, **kw):
+    site_path, log = write_case(tmp_path, body, **kw)
+    site = load_site(site_path)
+    con = db.connect(tmp_path / "site.duckdb")
+    results = ingest_files(con, site, [log])
+    return con, site, results
+
+
+def series(con, quantity, device=None):
+    """ts -> value of one quantity, as a pandas Series with a UTC index."""
+    df = con.execute(
+        "SELECT ts, value FROM readings WHERE quantity = ? AND (? IS NULL OR device = ?) "
+        "ORDER BY ts", [quantity, device, device]).df()
+    return pd.Series(df["value"].to_numpy(), index=pd.DatetimeIndex(df["ts"]).tz_convert("UTC"))
+
+
+def utc(*args):
+    return pd.Timestamp(dt.datetime(*args, tzinfo=UTC))
+
+
+# --------------------------------------------------------------------------------------------
+# format habits
+
+
+@pytest.mark.parametrize(
+    "delimiter, decimal, body",
+    [
+        (",", ".", "ts,P,G\n2024-06-01 10:00,1.5,500.5\n2024-06-01 10:05,2.25,600\n"),
+        (";", ",", "ts;P;G\n2024-06-01 10:00;1,5;500,5\n2024-06-01 10:05;2,25;600\n"),
+        ("\t", ".", "ts\tP\tG\n2024-06-01 10:00\t1.5\t500.5\n2024-06-01 10:05\t2.25\t600\n"),
+        # a comma-delimited file with decimal commas needs quotes
+        (",", ",", 'ts,P,G\n2024-06-01 10:00,"1,5","500,5"\n2024-06-01 10:05,"2,25",600\n'),
+    ],
+    ids=["comma", "semicolon-decimal-comma", "tab", "quoted-decimal-comma"],
+)
+def test_delimiters_and_decimal_separators(tmp_path, delimiter, decimal, body):
+    con, _, (res,) = ingest(tmp_path, body, delimiter=delimiter, decimal=decimal)
+    assert (res.rows_read, res.rows_loaded, res.rows_quarantined) == (2, 2, 0)
+    # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019, table 7)
+    assert_allclose(series(con, "ac_power_w").to_numpy(), [1500.0, 2250.0], rtol=1e-12)
+    assert_allclose(series(con, "poa_wm2").to_numpy(), [500.5, 600.0], rtol=1e-12)
+
+
+def test_preamble_units_row_quotes_bom_crlf(tmp_path):
+    body = ("\ufeffLogger X200 export\r\nSerial;12345\r\n"
+            '"ts";"P";"G"\r\n"";"kW";"W/m2"\r\n'
+            '"2024-06-01 10:00";"1,5";"500"\r\n"2024-06-01 10:05";"2";"600"\r\n')
+    con, _, (res,) = ingest(tmp_path, body, delimiter=";", decimal=",", preamble_lines=2,
+                            units_row=True)
+    assert (res.rows_read, res.rows_loaded) == (2, 2)
+    s = series(con, "ac_power_w")
+    assert list(s.index) == [utc(2024, 6, 1, 10, 0), utc(2024, 6, 1, 10, 5)]
+    assert_allclose(s.to_numpy(), [1500.0, 2000.0], rtol=1e-12)
+    # line numbers count every physical line: preamble 1-2, header 3, units 4, data from 5
+    assert con.execute("SELECT min(line) FROM readings").fetchall() == [(5,)]
+
+
+def test_quoted_field_with_delimiter_and_escaped_quote(tmp_path):
+    body = 'ts,note,P,G\n2024-06-01 10:00,"a, ""b""",1,2\n2024-06-01 10:05,"x,2\n'
+    con, _, (res,) = ingest(tmp_path, body)
+    assert (res.rows_loaded, res.rows_quarantined) == (1, 1)
+    assert con.execute("SELECT line, reason FROM quarantine").fetchall() == [
+        (3, "a quoted field is not closed")]
+
+
+def test_sentinels_are_missing_values_not_readings(tmp_path):
+    body = "ts,P,G\n2024-06-01 10:00,-9999,#N/A\n2024-06-01 10:05,NaN,100\n"
+    con, _, (res,) = ingest(tmp_path, body, sentinels=["-9999", "#N/A"])
+    assert (res.rows_read, res.rows_loaded, res.rows_quarantined) == (2, 2, 0)
+    assert con.execute("SELECT quantity, value FROM readings").fetchall() == [("poa_wm2", 100.0)]
+
+
+# --------------------------------------------------------------------------------------------
+# time conventions
+
+
+@pytest.mark.parametrize(
+    "kind, fmt, columns, header, rows",
+    [
+        ("iso", None, ("ts",), "ts", ["2024-06-01T12:00:00+02:00", "2024-06-01T10:05:00Z"]),
+        ("utc", "%Y-%m-%d %H:%M:%S", ("ts",), "ts", ["2024-06-01 10:00:00",
+                                                     "2024-06-01 10:05:00"]),
+        ("utc", "%d.%m.%Y %H:%M", ("Datum", "Zeit"), "Datum,Zeit",
+         ["01.06.2024,10:00", "01.06.2024,10:05"]),
+        ("local", "%d.%m.%Y %H:%M", ("ts",), "ts", ["01.06.2024 12:00", "01.06.2024 12:05"]),
+        # 1717236000 s after 1970-01-01T00:00Z is 2024-06-01T10:00Z (POSIX time, IEEE 1003.1)
+        ("epoch", None, ("ts",), "ts", ["1717236000", "1717236300"]),
+    ],
+    ids=["iso-offset", "naive-utc", "date-and-time-columns", "local-summer", "epoch"],
+)
+def test_time_kinds(tmp_path, kind, fmt, columns, header, rows):
+    body = f"{header},P,G\n" + "".join(f"{r},1,2\n" for r in rows)
+    con, _, (res,) = ingest(tmp_path, body, time_kind=kind, time_format=fmt,
+                            time_columns=columns)
+    assert res.rows_loaded == 2, con.execute("SELECT * FROM quarantine").fetchall()
+    # Europe/Berlin is UTC+2 in June (summer time, Directive 2000/84/EC)
+    assert list(series(con, "ac_power_w").index) == [utc(2024, 6, 1, 10, 0),
+                                                     utc(2024, 6, 1, 10, 5)]
+
+
+def test_iso_without_offset_is_quarantined(tmp_path):
+    con, _, (res,) = ingest(tmp_path, "ts,P,G\n2024-06-01T10:00:00,1,2\n", time_kind="iso")
+    assert res.rows_quarantined == 1
+    assert con.execute("SELECT reason FROM quarantine").fetchall() == [
+        ("time '2024-06-01T10:00:00' has no UTC offset",)]
+
+
+@pytest.mark.parametrize("interval", [1, 5, 10, 15, 30, 60])
+def test_interval_end_labels_become_interval_start(tmp_path, interval):
+    stamps = pd.date_range("2024-06-01 10:00", periods=3, freq=f"{interval}min")
+    body = "ts,P,G\n" + "".join(f"{t:%Y-%m-%d %H:%M},1,2\n" for t in stamps)
+    con, _, _ = ingest(tmp_path, body, interval_min=interval, label="end")
+    got = series(con, "ac_power_w").index
+    expected = (stamps - pd.Timedelta(minutes=interval)).tz_localize("UTC")
+    assert list(got) == list(expected)
+
+
+def _last_sunday(year, month):
+    """Last Sunday of a month, from the calendar alone (not from any time-zone database)."""
+    last = calendar.monthrange(year, month)[1]
+    return max(d for d in range(last - 6, last + 1)
+               if calendar.weekday(year, month, d) == calendar.SUNDAY)
+
+
+def test_dst_autumn_repeated_hour_resolved_by_order(tmp_path):
+    # Directive 2000/84/EC, art. 2-3: summer time ends at 01:00 UTC on the last Sunday of
+    # October. Europe/Berlin is then UTC+2 before and UTC+1 after; local 02:00-02:59 repeats.
+    day = _last_sunday(2024, 10)
+    assert day == 27
+    change = utc(2024, 10, day, 1, 0)
+    local = [f"2024-10-{day} {h:02d}:{m:02d}" for h in (1, 2) for m in range(0, 60, 15)]
+    local += [f"2024-10-{day} 02:{m:02d}" for m in range(0, 60, 15)]
+    local += [f"2024-10-{day} 03:00"]
+    body = "ts,P,G\n" + "".join(f"{t},{i},1\n" for i, t in enumerate(local))
+    con, _, (res,) = ingest(tmp_path, body, time_kind="local", interval_min=15)
+    assert (res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (len(local), 0, 0)
+    s = series(con, "ac_power_w")
+    # nothing dropped or merged: 13 distinct instants, 15 minutes apart, in file order
+    expected = pd.date_range(change - pd.Timedelta(hours=2), periods=len(local), freq="15min")
+    assert list(s.index) == list(expected)
+    assert_allclose(s.to_numpy(), 1000.0 * np.arange(len(local)), rtol=0)  # P in kW
+    # the first line read with the winter offset (02:00 the second time) is the changeover
+    assert s.index[8] == change and s.iloc[8] == 8000.0
+
+
+def test_dst_spring_skipped_hour(tmp_path):
+    # Directive 2000/84/EC, art. 2: summer time begins at 01:00 UTC on the last Sunday of
+    # March; in Europe/Berlin local 02:00-02:59 does not exist that day.
+    day = _last_sunday(2024, 3)
+    assert day == 31
+    change = utc(2024, 3, day, 1, 0)
+    local = ["01:30", "01:45", "03:00", "03:15", "02:30"]
+    body = "ts,P,G\n" + "".join(f"2024-03-{day} {t},1,1\n" for t in local)
+    con, _, (res,) = ingest(tmp_path, body, time_kind="local", interval_min=15)
+    assert (res.rows_loaded, res.rows_quarantined) == (4, 1)
+    assert list(series(con, "ac_power_w").index) == [
+        change - pd.Timedelta(minutes=30), change - pd.Timedelta(minutes=15), change,
+        change + pd.Timedelta(minutes=15)]
+    assert con.execute("SELECT line, reason FROM quarantine").fetchall() == [
+        (6, f"local time '2024-03-{day} 02:30' does not exist in Europe/Berlin "
+            "(clocks went forward)")]
+
+
+# --------------------------------------------------------------------------------------------
+# units
+
+
+@pytest.mark.parametrize(
+    "quantity, unit, raw, stored, si",
+    [
+        # SI prefixes k = 1e3, M = 1e6 (BIPM SI Brochure, 9th ed. 2019, table 7)
+        ("ac_power", "W", 1234.5, "ac_power_w", 1234.5),
+        ("ac_power", "kW", 1.2345, "ac_power_w", 1234.5),
+        ("ac_power", "MW", 0.0012345, "ac_power_w", 1234.5),
+        ("energy_register", "Wh", 5e6, "energy_register_wh", 5e6),
+        ("energy_register", "kWh", 5000.0, "energy_register_wh", 5e6),
+        ("energy_register", "MWh", 5.0, "energy_register_wh", 5e6),
+        ("energy_interval", "kWh", 0.25, "energy_interval_wh", 250.0),
+        # t/C = T/K - 273.15 (BIPM SI Brochure, 9th ed. 2019, section 2.3.1)
+        ("temp_air", "K", 298.15, "temp_air_c", 25.0),
+        ("temp_module", "C", 41.5, "temp_module_c", 41.5),
+        # 1 km/h = 1000 m / 3600 s
+        ("wind_speed", "km/h", 36.0, "wind_speed_ms", 10.0),
+        ("rain", "mm", 0.4, "rain_mm", 0.4),
+        ("ghi", "W/m2", 812.0, "ghi_wm2", 812.0),
+    ],
+)
+def test_units_are_converted_to_si(tmp_path, quantity, unit, raw, stored, si):
+    inverter = "INV1" if quantity in ("ac_power", "energy_register", "energy_interval") else None
+    con, _, _ = ingest(tmp_path, f"ts,X\n2024-06-01 10:00,{raw!r}\n",
+                       columns=(("X", quantity, unit, inverter),))
+    assert_allclose(series(con, stored).to_numpy(), [si], rtol=1e-12)
+
+
+def test_every_unit_the_site_file_accepts_has_a_conversion():
+    from perfcheck.ingest import UNIT_TO_SI
+    from perfcheck.site import QUANTITIES
+
+    assert {u for _, units in QUANTITIES.values() for u in units} == set(UNIT_TO_SI)
+
+
+# --------------------------------------------------------------------------------------------
+# accounting, idempotency, conflicts
+
+
+MIXED = (
+    "ts,P,G\n"
+    "2024-06-01 10:00,1,100\n"       # 2 loaded
+    "2024-06-01 10:05,x,100\n"       # 3 quarantined: not a number
+    "\n"                             # 4 blank: not a row
+    "2024-06-01 10:10,2,200\n"       # 5 loaded
+    "2024-06-01 10:10,2,200\n"       # 6 duplicate of line 5
+    "2024-06-01 10:10,3,200\n"       # 7 quarantined: same time, different value
+    "2024-06-01 10:15,4\n"           # 8 quarantined: too few fields
+    "not a time,5,5\n"               # 9 quarantined: bad time
+    "2024-06-01 10:20,5,500\n"       # 10 loaded
+)
+
+
+def test_accounting_every_row_in_exactly_one_place(tmp_path):
+    con, _, (res,) = ingest(tmp_path, MIXED)
+    assert (res.rows_read, res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (
+        8, 3, 1, 4)
+    assert res.rows_read == res.rows_loaded + res.rows_duplicate + res.rows_quarantined
+    stored = con.execute("SELECT rows_read, rows_loaded, rows_duplicate, rows_quarantined, "
+                         "conflicts FROM source_files").fetchall()
+    assert stored == [(8, 3, 1, 4, 1)]
+    assert con.execute("SELECT line, raw, reason FROM quarantine ORDER BY line").fetchall() == [
+        (3, "2024-06-01 10:05,x,100", "column P: 'x' is not a number"),
+        (7, "2024-06-01 10:10,3,200",
+         "same time as line 5 with different values (see table conflicts)"),
+        (8, "2024-06-01 10:15,4", "2 fields where the header has 3"),
+        (9, "not a time,5,5", "time 'not a time' does not match the format '%Y-%m-%d %H:%M'"),
+    ]
+    assert con.execute("SELECT DISTINCT line FROM readings ORDER BY line").fetchall() == [
+        (2,), (5,), (10,)]
+    assert con.execute("SELECT stored_value, new_value, stored_line, new_line FROM conflicts"
+                       ).fetchall() == [(2000.0, 3000.0, 5, 7)]
+
+
+def test_same_file_again_changes_nothing(tmp_path):
+    con, site, (first,) = ingest(tmp_path, MIXED)
+    before = {t: con.execute(f"SELECT count(*) FROM {t}").fetchall()
+              for t in ("channel_values", "quarantine", "conflicts", "source_files")}
+    copy = tmp_path / "copy_of_log.csv"
+    copy.write_bytes((tmp_path / "log.csv").read_bytes())
+    again = ingest_files(con, site, [tmp_path / "log.csv", copy])
+    assert [r.status for r in again] == ["already ingested"] * 2
+    assert {r.file_id for r in again} == {first.file_id}
+    after = {t: con.execute(f"SELECT count(*) FROM {t}").fetchall() for t in before}
+    assert after == before
+
+
+def test_overlapping_exports_duplicates_and_conflicts(tmp_path):
+    con, site, _ = ingest(tmp_path, "ts,P,G\n2024-06-01 10:00,1,100\n2024-06-01 10:05,2,200\n")
+    second = tmp_path / "second.csv"
+    # 10:00 identical (kW 1 == W 1000), 10:05 differs in G, 10:10 new
+    second.write_text("ts,P,G\n2024-06-01 10:00,1.0,100\n2024-06-01 10:05,2,250\n"
+                      "2024-06-01 10:10,3,300\n")
+    (res,) = ingest_files(con, site, [second])
+    assert (res.rows_read, res.rows_loaded, res.rows_duplicate, res.rows_quarantined,
+            res.conflicts) == (3, 1, 1, 1, 1)
+    # the stored value is kept, the new one is in conflicts
+    assert_allclose(series(con, "poa_wm2").to_numpy(), [100.0, 200.0, 300.0], rtol=0)
+    assert con.execute("SELECT ts, quantity, device, stored_value, new_value, stored_file_id, "
+                       "stored_line, new_file_id, new_line FROM conflicts").fetchall() == [
+        (utc(2024, 6, 1, 10, 5).to_pydatetime(), "poa_wm2", "site", 200.0, 250.0, 1, 3, 2, 3)]
+    assert con.execute("SELECT reason FROM quarantine").fetchall() == [
+        ("1 value(s) differ from those stored from file 1 line 3 (see table conflicts)",)]
+
+
+def test_expand_paths_sorted_globs(tmp_path):
+    for name in ("b.csv", "a.csv", "c.txt"):
+        (tmp_path / name).write_text("x")
+    assert expand_paths([str(tmp_path / "*.csv")]) == [tmp_path / "a.csv", tmp_path / "b.csv"]
+
+
+def test_coverage_summary(tmp_path):
+    # 10:00 .. 10:55 at 5 min = 12 intervals; 10:20 missing for P and G, 10:25 has no G
+    stamps = [f"2024-06-01 10:{m:02d}" for m in range(0, 60, 5) if m != 20]
+    body = "ts,P,G\n" + "".join(f"{t},1,{'' if t.endswith(':25') else 5}\n" for t in stamps)
+    body += "2024-06-01 10:57,x,1\n"
+    con, site, _ = ingest(tmp_path, body)
+    cov = coverage_summary(con, site).set_index(["device", "quantity"])
+    assert list(cov["month"]) == ["2024-06", "2024-06"]
+    assert cov.loc[("INV1", "ac_power_w"), ["expected", "present", "quarantined"]].tolist() == [
+        12, 11, 1]
+    assert cov.loc[("site", "poa_wm2"), ["expected", "present"]].tolist() == [12, 10]
+    assert_allclose(cov.loc[("site", "poa_wm2"), "share"], 10 / 12, rtol=1e-12)
+
+
+# --------------------------------------------------------------------------------------------
+# atomicity
+
+
+class _PausesAfterStoring:
+    """A connection that, once the file's readings are inserted (not yet committed), leaves a
+    marker file and waits: the test kills the process right there."""
+
+    def __init__(self, con, marker):
+        self._con, self._marker = con, marker
+
+    def execute(self, query, params=None):
+        result = self._con.execute(query, params)
+        if query.lstrip().startswith("INSERT INTO logger_rows_"):
+            self._marker.write_text("inside the transaction")
+            time.sleep(120)
+        return result
+
+
+def _ingest_in_child(site_path: str, log: str, db_path: str, marker: str) -> None:
+    from pathlib import Path
+
+    con = _PausesAfterStoring(db.connect(db_path), Path(marker))
+    ingest_files(con, load_site(site_path), [log])
+
+
+def test_kill_mid_file_leaves_database_as_before(tmp_path):
+    con, site, _ = ingest(tmp_path, "ts,P,G\n2024-01-01 00:00,1,1\n")
+
+    def state(c):
+        return [c.execute(f"SELECT count(*) FROM {t}").fetchall()
+                for t in ("channel_values", "quarantine", "source_files", "channels")]
+
+    before = state(con)
+    con.close()
+    big = tmp_path / "big.csv"
+    stamps = pd.date_range("2024-02-01", periods=100_000, freq="min")
+    frame = pd.DataFrame({"ts": stamps.strftime("%Y-%m-%d %H:%M"), "P": "1.0", "G": 2.0})
+    frame.loc[5, "P"] = "bad"  # so that quarantine is written inside the transaction too
+    frame.to_csv(big, index=False)
+    marker = tmp_path / "marker"
+    child = mp.get_context("spawn").Process(
+        target=_ingest_in_child,
+        args=(str(tmp_path / "site.toml"), str(big), str(tmp_path / "site.duckdb"), str(marker)))
+    child.start()
+    deadline = time.monotonic() + 120
+    while not marker.exists() and child.is_alive() and time.monotonic() < deadline:
+        time.sleep(0.01)
+    assert marker.exists(), "the child never reached the insert"
+    child.kill()  # SIGKILL: no rollback, no clean-up, the transaction is simply cut off
+    child.join()
+    con = db.connect(tmp_path / "site.duckdb")
+    assert state(con) == before
+    # and the same file can then be ingested in full
+    (res,) = ingest_files(con, site, [big])
+    assert (res.rows_loaded, res.rows_quarantined) == (99_999, 1)
+
+
+# --------------------------------------------------------------------------------------------
+# errors a user will hit: one line naming file and line, exit 2, nothing stored is lost
+
+GOOD = "ts,P,G\n2024-06-01 10:00,1,100\n"
+
+
+def _db_state(path):
+    con = db.connect(path)
+    try:
+        return [con.execute(f"SELECT count(*) FROM {t}").fetchall()
+                for t in ("channel_values", "quarantine", "conflicts", "source_files")]
+    finally:
+        con.close()
+
+
+@pytest.mark.parametrize(
+    "name, content, message",
+    [
+        ("missing.csv", None, "{f}: file not found"),
+        ("folder.csv", "dir", "{f}: is a directory, not a logger file"),
+        ("empty.csv", b"", "{f}: empty file (0 bytes, no lines)"),
+        ("blank.csv", b"\xef\xbb\xbf\r\n\r\n", "{f}: empty file (7 bytes, no lines)"),
+        ("header.csv", b"ts,P,G\r\n", "{f}: empty file (no data lines after the header, line 1)"),
+        ("latin1.csv", "ts,P,G\n2024-06-01 10:00,1,2\n2024-06-01 10:05,1,\xb0\n".encode("latin-1"),
+         "{f}: line 3: byte 0xb0 at column 20 is not UTF-8 (save the file as UTF-8)"),
+        ("cut.csv", b"ts,P,G\n2024-06-01 10:00,1,2\n2024-06-01 10:05,1",
+         "{f}: line 3: truncated last line (2 of 3 fields, no line end): the file may still be "
+         "being written"),
+        ("semicolon.csv", b"ts;P;G\n2024-06-01 10:00;1;2\n",
+         "{f}: line 1: no column 'ts' (mapped in [[loggers]] 'main'); found 1 column(s) with "
+         "delimiter ',': 'ts;P;G'; the header holds ';': is delimiter ',' right?"),
+        ("renamed.csv", b"time,P,G\n2024-06-01 10:00,1,2\n",
+         "{f}: line 1: no column 'ts' (mapped in [[loggers]] 'main'); found 3 column(s) with "
+         "delimiter ',': 'time', 'P', 'G'"),
+        ("log.txt", b"ts,P,G\n",
+         "{f}: no [[loggers]] entry matches this file name (match globs: '*.csv')"),
+    ],
+)
+def test_bad_logger_file_errors(tmp_path, name, content, message):
+    site, good = write_case(tmp_path, GOOD)
+    dbp = tmp_path / "site.duckdb"
+    assert run_ingest(site, good, db=dbp).exit_code == 0
+    before = _db_state(dbp)
+    bad = tmp_path / name
+    if content == "dir":
+        bad.mkdir()
+    elif content is not None:
+        bad.write_bytes(content)
+    # the bad file comes second: nothing of the good third file is stored either, since all
+    # files are checked before any is read
+    third = tmp_path / "third.csv"
+    third.write_text("ts,P,G\n2024-06-02 10:00,1,100\n")
+    result = run_ingest(site, good, bad, third, db=dbp)
+    assert result.exit_code == 2
+    assert result.stderr == f"perfcheck: error: {message.format(f=bad)}\n"
+    assert "Traceback" not in result.output
+    assert _db_state(dbp) == before
+
+
+def test_glob_that_matches_nothing(tmp_path):
+    site, _ = write_case(tmp_path, GOOD)
+    result = run_ingest(site, str(tmp_path / "nope_*.csv"))
+    assert result.exit_code == 2
+    assert result.stderr == (f"perfcheck: error: {tmp_path}/nope_*.csv: "
+                             "no file matches this pattern\n")
+
+
+def test_cli_prints_accounting_and_says_when_nothing_changed(tmp_path):
+    site, log = write_case(tmp_path, MIXED)
+    first = run_ingest(site, log)
+    assert first.exit_code == 0, first.output
+    assert first.stdout.splitlines()[0] == (
+        f"{log}: 8 rows read = 3 loaded + 1 duplicate + 4 quarantined; 1 conflicting values, "
+        "2024-06-01 10:00 to 2024-06-01 10:20 UTC")
+    assert first.stdout.splitlines()[-1].startswith("quality flags: out_of_range 0, stuck 0,")
+    again = run_ingest(site, log)
+    assert again.exit_code == 0
+    assert again.stdout == (
+        f"{log}: already ingested (file 1), nothing changed\n"
+        "total: 0 file(s) loaded, 1 already ingested; 0 rows read = 0 loaded + 0 duplicate"
+        " + 0 quarantined; 0 conflicting values\n")
+    assert (tmp_path / "site.duckdb").exists()  # default: beside the site file
+
+
+def test_two_loggers_share_instants_without_conflicts(tmp_path):
+    # an inverter logger and a weather logger write the same instants: different channels,
+    # so neither is a duplicate or a conflict of the other
+    weather = logger_toml(name="weather", match="wx_*.csv", interval_min=10, time_kind="iso",
+                          time_columns=("time",),
+                          columns=(("ghi", "ghi", "W/m2", None), ("t", "temp_air", "K", None)))
+    site_path, inv = write_case(tmp_path, "ts,P,G\n2024-06-01 10:00,1,100\n",
+                                filename="inv_1.csv",
+                                loggers=logger_toml(match="inv_*.csv") + weather)
+    wx = tmp_path / "wx_1.csv"
+    wx.write_text("time,ghi,t\n2024-06-01T12:00:00+02:00,800,293.15\n")
+    site = load_site(site_path)
+    con = db.connect(tmp_path / "site.duckdb")
+    results = ingest_files(con, site, [inv, wx])
+    assert [(r.rows_loaded, r.rows_duplicate, r.conflicts) for r in results] == [(1, 0, 0),
+                                                                                  (1, 0, 0)]
+    assert con.execute("SELECT quantity, device, round(value, 9) FROM readings ORDER BY quantity"
+                       ).fetchall() == [("ac_power_w", "INV1", 1000.0), ("ghi_wm2", "site", 800.0),
+                                        ("poa_wm2", "site", 100.0), ("temp_air_c", "site", 20.0)]
+
+
+def test_end_of_day_written_as_24_00(tmp_path):
+    body = "ts,P,G\n01.06.2024 23:55,1,1\n01.06.2024 24:00,2,2\n02.06.2024 00:05,3,3\n"
+    con, _, (res,) = ingest(tmp_path, body, time_format="%d.%m.%Y %H:%M", label="end")
+    assert res.rows_loaded == 3
+    # interval ends 23:55, 24:00 (= 00:00 next day), 00:05 -> starts 23:50, 23:55, 00:00
+    assert list(series(con, "ac_power_w").index) == [
+        utc(2024, 6, 1, 23, 50), utc(2024, 6, 1, 23, 55), utc(2024, 6, 2, 0, 0)]
+
+
+def test_epoch_in_milliseconds_is_refused_per_line(tmp_path):
+    con, _, (res,) = ingest(tmp_path, "ts,P,G\n1717236000000,1,2\n1717236300,1,2\n",
+                            time_kind="epoch")
+    assert (res.rows_loaded, res.rows_quarantined) == (1, 1)
+    assert con.execute("SELECT reason FROM quarantine").fetchall() == [
+        ("time '1717236000000' is not a number of seconds since 1970",)]
+
+
+def test_a_later_export_that_fills_a_missing_value(tmp_path):
+    # the first export lacks G at 10:00; a later one has it: the line is loaded, but only its
+    # new value is stored, P is not stored twice
+    con, site, _ = ingest(tmp_path, "ts,P,G\n2024-06-01 10:00,1,\n")
+    later = tmp_path / "later.csv"
+    later.write_text("ts,P,G\n2024-06-01 10:00,1,100\n")
+    (res,) = ingest_files(con, site, [later])
+    assert (res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (1, 0, 0)
+    assert con.execute("SELECT quantity, value, file_id FROM readings ORDER BY quantity"
+                       ).fetchall() == [("ac_power_w", 1000.0, 1), ("poa_wm2", 100.0, 2)]
+
+
+def test_units_row_that_is_data(tmp_path):
+    site, log = write_case(tmp_path, "ts,P,G\n2024-06-01 10:00,1,2\n2024-06-01 10:05,1,2\n",
+                           units_row=True)
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == (
+        f"perfcheck: error: {log}: line 2: expected the units row (units_row = true in "
+        "[[loggers]] 'main') but column 'P' holds the number '1'\n")
+
+
+def test_logger_files_of_a_folder(tmp_path):
+    site_path, log = write_case(tmp_path, GOOD)
+    (tmp_path / "notes.txt").write_text("x")
+    (tmp_path / "sub.csv").mkdir()
+    assert logger_files(load_site(site_path), tmp_path) == [log]
+
+
+def test_dst_autumn_with_interval_end_labels(tmp_path):
+    # As above (Directive 2000/84/EC), for a logger labelling interval ends: the interval that
+    # ends at the changeover, 01:00 UTC, is labelled 02:00 on the winter clock, after 02:45.
+    local = ["01:15", "01:30", "01:45", "02:00", "02:15", "02:30", "02:45",
+             "02:00", "02:15", "02:30", "02:45", "03:00"]
+    body = "ts,P,G\n" + "".join(f"2024-10-27 {t},1,1\n" for t in local)
+    con, _, (res,) = ingest(tmp_path, body, time_kind="local", interval_min=15, label="end")
+    assert res.rows_loaded == len(local)
+    change = utc(2024, 10, 27, 1, 0)
+    expected = pd.date_range(change - pd.Timedelta(minutes=120), periods=len(local),
+                             freq="15min")
+    assert list(series(con, "ac_power_w").index) == list(expected)
+    assert expected[7] + pd.Timedelta(minutes=15) == change  # the one ending at 01:00 UTC

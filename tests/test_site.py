@@ -1,0 +1,93 @@
+"""Site-file validation: each mistake gives one line naming the file and key, exit code 2."""
+
+from __future__ import annotations
+
+import pytest
+from logger_files import DEFAULT_COLUMNS, logger_toml, run_ingest, write_case
+
+from perfcheck import db
+from perfcheck.site import load_site
+
+GOOD = "ts,P,G\n2024-06-01 10:00,1,100\n"
+
+
+def _edit(site, old, new):
+    text = site.read_text()
+    assert old in text, old
+    site.write_text(text.replace(old, new, 1))
+
+
+@pytest.mark.parametrize(
+    "old, new, message",
+    [
+        ("latitude_deg = 48.0\n", "", "site.latitude_deg: missing key (expected a number)"),
+        ("latitude_deg = 48.0", 'latitude_deg = "48.0"',
+         "site.latitude_deg: expected a number, got str '48.0'"),
+        ("latitude_deg = 48.0", "latitude_deg = 48.0\nlatitude = 48.0",
+         "site.latitude: unknown key (known keys here: albedo, altitude_m, commissioned, "
+         "export_limit_kw, horizon, inbox, latitude_deg, longitude_deg, name, timezone)"),
+        ("latitude_deg = 48.0", "latitude_deg = 98.0",
+         "site.latitude_deg: 98.0 is outside the range -90 to 90"),
+        ("Europe/Berlin", "Europe/Berlyn",
+         "site.timezone: unknown IANA time zone 'Europe/Berlyn' (e.g. 'Europe/Berlin')"),
+        ("commissioned = 2023-05-01", 'commissioned = "May 2023"',
+         "site.commissioned: expected a date like 2024-03-01, got str 'May 2023'"),
+        ("strings = 2", "strings = 2.5",
+         "inverters[0].arrays[0].strings: expected an integer, got float 2.5"),
+        ('unit = "kW"', 'unit = "kV"',
+         "loggers[0].columns[0].unit: unit 'kV' not recognised for ac_power (use one of W, kW, "
+         "MW)"),
+        ('quantity = "poa"', 'quantity = "irradiance"',
+         "loggers[0].columns[1].quantity: 'irradiance' is not one of 'ac_power', 'dc_power', "
+         "'energy_register', 'energy_interval', 'poa', 'ghi', 'dhi', 'dni', 'temp_air', "
+         "'temp_module', 'wind_speed', 'rain'"),
+        ('inverter = "INV1"', 'inverter = "INV9"',
+         "loggers[0].columns[0].inverter: 'INV9' is not an inverter id of this site "
+         "(ids: INV1, INV2, or 'plant')"),
+        ('kind = "utc"', 'kind = "UTC"',
+         "loggers[0].time.kind: 'UTC' is not one of 'iso', 'utc', 'local', 'epoch'"),
+        ("interval_min = 5", "interval_min = 7",
+         "loggers[0].interval_min: 7 is not one of 1, 5, 10, 15, 30, 60"),
+        ('format = "%Y-%m-%d %H:%M"', 'format = "%Y-%m-%d %Q"',
+         "loggers[0].time.format: '%Y-%m-%d %Q' is not a usable format (Failed to parse "
+         "format specifier %Y-%m-%d %Q: Unrecognized format for strftime/strptime: %Q)"),
+        ("[site]", "[site", "not valid TOML: Expected ']' at the end of a table declaration "
+                            "(at line 1, column 6)"),
+    ],
+)
+def test_site_file_errors(tmp_path, old, new, message):
+    site, log = write_case(tmp_path, GOOD)
+    _edit(site, old, new)
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == f"perfcheck: error: {site}: {message}\n"
+    assert "Traceback" not in result.output
+    dbp = tmp_path / "site.duckdb"
+    if dbp.exists():  # a time format is checked by DuckDB, once the database is open
+        con = db.connect(dbp)
+        assert con.execute("SELECT count(*) FROM source_files").fetchall() == [(0,)]
+        con.close()
+
+
+def test_channel_mapped_twice(tmp_path):
+    columns = (*DEFAULT_COLUMNS, ("P2", "ac_power", "W", "INV1"))
+    site, log = write_case(tmp_path, GOOD, loggers=logger_toml(columns=columns))
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == (f"perfcheck: error: {site}: loggers[0].columns: 'P' and 'P2' both "
+                             "map to ac_power of 'INV1'\n")
+
+
+def test_site_file_not_found(tmp_path):
+    result = run_ingest(tmp_path / "nope.toml", tmp_path / "x.csv")
+    assert result.exit_code == 2
+    assert result.stderr == f"perfcheck: error: {tmp_path / 'nope.toml'}: site file not found\n"
+
+
+def test_units_and_rollover_are_read(tmp_path):
+    columns = (("E", "energy_register", "MWh", "plant"),)
+    site, _ = write_case(tmp_path, GOOD, loggers=logger_toml(columns=columns))
+    _edit(site, 'inverter = "plant"', 'inverter = "plant"\nrollover = 100.0')
+    col = load_site(site).loggers[0].columns[0]
+    # 100 MWh = 1e8 Wh (SI prefix M = 1e6, BIPM SI Brochure 9th ed. 2019)
+    assert (col.stored, col.device, col.rollover_wh) == ("energy_register_wh", "plant", 1e8)
