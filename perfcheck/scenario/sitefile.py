@@ -113,6 +113,52 @@ sensor_class = "A"                   # IEC 61724-1 monitoring class A | B | C (A
 # Sections read by later stages ([metrics], [detect], [guarantees], [report]) are optional
 # and described in the README.
 
+# Filtering rules of the performance metrics (optional; all shown with their defaults).
+[metrics]
+# min_poa_wm2 = 0.0                  # irradiance floor for yields, PR and EPI [W/m2]
+# availability_min_poa_wm2 = 50.0    # intervals above it count for availability [W/m2]
+# availability_down_below_pct = 1.0  # an inverter below this share of expected is down [%]
+# exclude_flags = ["out_of_range", "stuck", "gap", "night_offset", "power_without_irradiance"]
+min_coverage = 0.8                   # least share of daylight intervals with data (0.8)
+exclude_curtailment = true           # curtailment events left out of PR, EPI, availability
+# exclude_grid_outages = false       # plant-wide stops left out likewise (false)
+# sensor_fault_fallback = true       # modelled irradiance inside sensor-fault events (true)
+# pr_temp_ref_c = 25.0               # T_ref of the temperature-corrected PR, or "annual"
+# t_cell_typ_avg_c = 30.0            # for the weather-corrected PR (default: from the data)
+# bootstrap_samples = 1000           # day-block bootstrap resamples (1000)
+# confidence = 0.95                  # level of every interval (0.95)
+# seed = 61724                       # bootstrap seed: reruns give identical numbers
+# modelled_poa_uncertainty_pct = 5.0 # uncertainty of modelled irradiance [%] (5)
+
+# What was promised (optional). perfcheck check and the evidence bundle test each promise
+# one-sided against the measured value and its interval; a shortfall inside the interval is
+# "not shown", never a breach. The findings are evidence, not legal advice.
+[guarantees]
+confidence = 0.95                    # level of the one-sided tests (0.95)
+price_per_kwh = 0.09                 # price of a kWh short, in currency (default: no price)
+currency = "EUR"                     # ("")
+
+  # O&M performance guarantee (invented contract)
+  [guarantees.performance]
+  metric = "pr_temp_corrected"       # pr_temp_corrected | epi | pr | pr_weather_corrected
+  yearly = [0.82, 0.815]             # guaranteed value per contract year; the last repeats
+  availability = 0.98                # guaranteed availability 0..1 (default: none)
+  availability_basis = "time"        # time | energy (time)
+  # start = 2024-05-01               # start of contract year 1 (default: commissioned)
+
+  # Module power warranty: the warranted power curve
+  [guarantees.module_warranty]
+  first_year_loss_pct = 2.0          # largest loss in the first year [%]
+  yearly_loss_pct = 0.55             # largest loss each year after [%/year]
+  # start = 2024-05-01               # (default: commissioned)
+
+# The monthly job (optional; defaults in brackets).
+[report]
+underperformance_threshold_pct = 5.0 # exit 1 when EPI < 1 - this/100 (5)
+critical_kinds = ["outage"]          # event kinds that make the job exit 3 (["outage"])
+lock_wait_s = 300                    # a second run waits this long for the first [s] (300)
+# out_dir = "reports"                # dated report folders, relative to this file ("reports")
+
 # Main logger (invented "Ferrantel FL-3"): one file per month, ';' with decimal comma, three
 # preamble lines, a units row, naive local time (summer time: the October hour appears twice,
 # the March hour is missing), labels at the END of each {interval}-minute interval, CRLF, UTF-8 BOM.

@@ -1,0 +1,61 @@
+"""Project-level checks: the README's commands, CI, help texts, packaging, lint."""
+
+from __future__ import annotations
+
+import importlib.util
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from perfcheck import db
+from perfcheck.cli import main
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def readme_commands() -> list[str]:
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    setup = text.split("## Set-up on a fresh machine", 1)[1].split("\n## ", 1)[0]
+    return re.findall(r"```\n(.+?)\n```", setup)
+
+
+def test_readme_has_exactly_two_setup_commands_and_ci_runs_the_test_one():
+    demo, tests = readme_commands()
+    assert "perfcheck demo" in demo
+    assert "pytest" in tests
+    ci = (ROOT / ".ci" / "run").read_text(encoding="utf-8").splitlines()
+    assert tests in ci, "the README's test command must appear verbatim in .ci/run"
+
+
+def test_every_command_has_help_with_an_example_and_is_in_the_readme():
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    runner = CliRunner()
+    for name, cmd in main.commands.items():
+        result = runner.invoke(main, [name, "--help"])
+        assert result.exit_code == 0, name
+        assert "Example" in result.output, f"{name} --help has no example"
+        assert f"perfcheck {name}" in readme, f"{name} is not documented in the README"
+        assert cmd.help
+
+
+def test_sql_files_are_found_and_every_schema_runs(tmp_path):
+    con = db.connect(tmp_path / "x.duckdb")
+    tables = {r[0] for r in con.execute("SELECT table_name FROM duckdb_tables()").fetchall()}
+    views = {r[0] for r in con.execute("SELECT view_name FROM duckdb_views()").fetchall()}
+    assert {"source_files", "readings", "quarantine", "conflicts"} <= tables | views
+    assert db.schema_names() == sorted(db.schema_names())
+
+
+def test_user_names_are_quoted_as_identifiers():
+    assert db.quote_ident('P "WR1"') == '"P ""WR1"""'
+
+
+@pytest.mark.skipif(importlib.util.find_spec("ruff") is None, reason="ruff not installed")
+def test_lint_clean():
+    out = subprocess.run([sys.executable, "-m", "ruff", "check", "perfcheck", "tests"], cwd=ROOT,
+                         capture_output=True, text=True)
+    assert out.returncode == 0, out.stdout + out.stderr
