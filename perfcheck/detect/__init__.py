@@ -1,0 +1,336 @@
+"""Detect stage: find the underperformance in the aligned series and cost it.
+
+``run(con, site, start, end)`` reads the aligned measured/expected series, runs every detector
+(:func:`analyse`, pure) and returns ``{"events": [...], "losses": {...}, "degradation": {...}}``;
+the events are also stored in the ``events`` table.
+
+Order of the work (each step sees the corrections of the steps before):
+clock faults (readings shifted back) -> sensor faults (the expected power of the sensor-fed
+inverters rebuilt from modelled POA where the sensor is suspect) -> outages -> clipping ->
+curtailment -> partial outages -> shading -> soiling -> degradation -> baseline regression and
+CUSUM -> attribution (:mod:`perfcheck.detect.attribution` documents the order of the losses).
+
+Settings (optional ``[detect]`` table of the site file):
+
+``reference_from`` (date, default: the first day with data on or after commissioning) and
+``reference_days`` (int, 28): the baseline regression's reference window;
+``alpha`` (1e-3): significance of every change-point and level test (false-alarm probability
+per test); ``cusum_k`` (0.5) and ``cusum_h`` (5.5): the CUSUM's reference value and decision
+interval in standard deviations; ``soiling_rain_mm`` (5.0): daily rain that counts as a
+recovery candidate; ``clock_min_offset_min`` (20): smallest clock offset reported;
+``shading_min_deficit`` (0.05): smallest beam deficit of a shaded sky bin.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import json
+import time
+from typing import Any
+
+import duckdb
+import numpy as np
+import pandas as pd
+
+from perfcheck import db
+from perfcheck.detect import (
+    attribution,
+    baseline,
+    clipping,
+    clock,
+    curtailment,
+    degradation,
+    outage,
+    partial,
+    sensor,
+    shading,
+    soiling,
+)
+from perfcheck.detect.common import (
+    MODEL_FLOOR,
+    Event,
+    Footprint,
+    Wide,
+    clear_days,
+    clearsky_poa,
+    daily_pi,
+    daylight,
+    ratio_noise,
+    robust_sigma,
+    wide,
+)
+from perfcheck.model import sensor_plane
+from perfcheck.site import DEVICE_QUANTITIES, Site, Table
+
+
+@dataclasses.dataclass(frozen=True)
+class Settings:
+    reference_from: dt.date | None = None
+    reference_days: int = 28
+    alpha: float = 1e-3
+    cusum_k: float = 0.5
+    cusum_h: float = 5.5
+    soiling_rain_mm: float = 5.0
+    clock_min_offset_min: float = 20.0
+    shading_min_deficit: float = 0.05
+
+
+def load_settings(site: Site) -> Settings:
+    """The ``[detect]`` table of the site file, validated (errors name the key)."""
+    t = Table(site.raw.get("detect", {}), "detect", site.path)
+    d = Settings()
+    s = Settings(
+        reference_from=t.get("reference_from", dt.date, None),
+        reference_days=t.get("reference_days", int, d.reference_days),
+        alpha=t.number("alpha", d.alpha, lo=1e-9, hi=0.1),
+        cusum_k=t.number("cusum_k", d.cusum_k, lo=0.0, hi=5.0),
+        cusum_h=t.number("cusum_h", d.cusum_h, lo=0.5, hi=50.0),
+        soiling_rain_mm=t.number("soiling_rain_mm", d.soiling_rain_mm, lo=0.0, hi=500.0),
+        clock_min_offset_min=t.number("clock_min_offset_min", d.clock_min_offset_min,
+                                      lo=1.0, hi=720.0),
+        shading_min_deficit=t.number("shading_min_deficit", d.shading_min_deficit,
+                                     lo=0.001, hi=1.0),
+    )
+    if s.reference_days < 7:
+        raise t._err("reference_days", f"{s.reference_days} is too short (at least 7 days)")
+    t.done()
+    return s
+
+
+def _planes(site: Site) -> dict[str, list[tuple[float, float, float]]]:
+    return {inv.id: [(a.tilt_deg, a.azimuth_deg, a.dc_kwp / inv.dc_kwp) for a in inv.arrays]
+            for inv in site.inverters}
+
+
+def _model_sigma(w: Wide, valid: pd.DataFrame) -> float:
+    """Relative standard error of a day's expected energy: robust scale of daily log PI, at
+    least ``MODEL_FLOOR``."""
+    pi = daily_pi(w, valid)
+    s = [robust_sigma(np.log(pi[c].where(pi[c] > 0)).dropna().to_numpy()) for c in pi]
+    s = [v for v in s if np.isfinite(v)]
+    return max(float(np.median(s)) if s else 0.05, MODEL_FLOOR)
+
+
+def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
+            timings: dict[str, float] | None = None) -> dict[str, Any]:
+    """Run every detector over aligned rows; pure (no database).
+
+    Returns ``{"events": [Event], "losses": {...}, "degradation": {...}, "suspect_windows":
+    [...], "clock_shifts": [...], "footprints": [...], "wide": Wide}`` (events as
+    :class:`Event`, not yet JSON; ``wide`` is the corrected series the detectors saw).
+    """
+    st = settings or load_settings(site)
+    clock_t = timings if timings is not None else {}
+
+    def lap(name: str, t0: float) -> float:
+        t1 = time.perf_counter()
+        clock_t[name] = clock_t.get(name, 0.0) + t1 - t0
+        return t1
+
+    t = time.perf_counter()
+    ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
+    limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
+    w0 = wide(df, ac, limit, site.tz)
+    clear = clear_days(w0)
+    planes = _planes(site)
+    planes["_sensor"] = [(*sensor_plane(site), 1.0)]
+    cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
+    t = lap("prepare", t)
+    groups = [sorted({c.device for c in lg.columns if c.quantity in DEVICE_QUANTITIES
+                      and c.device in ac}) for lg in site.loggers]
+    shifts = clock.find(w0, cs[w0.inverters], clear, groups, alpha=st.alpha,
+                        min_offset_min=st.clock_min_offset_min)
+    sens = sensor.sensor_series(w0)
+    too = [sens is not None and clock.sensor_moved(w0, s, sens, cs["_sensor"]) for s in shifts]
+    w1 = clock.corrected(w0, shifts, too)
+    events: list[Event] = clock.events(w0, w1, shifts, too, len(site.inverters))
+    t = lap("clock", t)
+    suspects = sensor.find(w1, clear, cs["_sensor"], alpha=st.alpha)
+    w = sensor.corrected(w1, suspects)
+    events += sensor.events(w1, w, suspects)
+    t = lap("sensor", t)
+
+    valid = daylight(w) & ~w.flagged & w.expected.notna()
+    rel_sigma = _model_sigma(w, valid)
+    step_noise, spread = ratio_noise(w, valid)
+    ev, out_mask = outage.detect(w, rel_sigma)
+    events += ev
+    t = lap("outage", t)
+    ev, clip_mask = clipping.detect(w, rel_sigma, step_noise, out_mask)
+    events += ev
+    t = lap("clipping", t)
+    ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask)
+    events += ev
+    t = lap("curtailment", t)
+    excluded = out_mask | clip_mask | curt_mask
+    unclipped = w.potential.lt(w.ac_w * 0.98, axis=1)
+    usable = valid & ~excluded & unclipped & w.expected.ge(w.ac_w * 0.2, axis=1)
+    strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
+    ev, prints = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha)
+    events += ev
+    t = lap("partial", t)
+    meas_fixed = _undo(w, prints)
+    w_fixed = dataclasses.replace(w, measured=meas_fixed)
+    horizon = {i.id: i.arrays[0].horizon for i in site.inverters}
+    ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded, rel_sigma, horizon,
+                                    min_deficit=st.shading_min_deficit)
+    events += ev
+    prints += fp
+    t = lap("shading", t)
+    # the slow statistics leave out the windows whose data were repaired (sensor, clock)
+    repaired = _in_windows(w.index, [(x.start, x.end) for x in suspects]
+                           + [(x.start, x.end) for x in shifts])
+    keep = valid & ~excluded & ~shaded & ~repaired[:, None]
+    pi = daily_pi(w_fixed, keep)
+    ev, fp, soil_ratio = soiling.detect(w_fixed, pi, rel_sigma, rain_mm=st.soiling_rain_mm,
+                                        alpha=st.alpha)
+    events += ev
+    prints += fp
+    t = lap("soiling", t)
+    ratio_iv = soil_ratio.reindex(w.day.to_numpy()).fillna(1.0).to_numpy()
+    m_clean = w_fixed.measured.div(ratio_iv, axis=0)
+    keep_clear = keep & pd.DataFrame(
+        np.repeat(clear.reindex(w.day.to_numpy()).fillna(False).to_numpy(dtype=bool)[:, None],
+                  len(w.inverters), axis=1), index=w.index, columns=w.inverters)
+    pi_plant = _plant_pi(w, keep_clear, m_clean)
+    block, ev, fp = degradation.detect(w, pi_plant, site.losses.degradation_pct_per_year,
+                                       pd.Timestamp(site.commissioned), rel_sigma)
+    events += ev
+    prints += fp
+    t = lap("degradation", t)
+    ref_first = _reference_start(w, site, st)
+    fits = baseline.fit(w, valid & ~excluded, ref_first, st.reference_days)
+    flagged, info = baseline.flag(w, valid, fits, k=st.cusum_k, h=st.cusum_h)
+    t = lap("baseline", t)
+    losses, under = attribution.losses(
+        w0, w1, w, {"outage": out_mask, "clipping": clip_mask, "curtailment": curt_mask},
+        prints, flagged, rel_sigma)
+    events += under
+    lap("attribution", t)
+    losses["model_relative_sigma_daily"] = rel_sigma
+    losses["baseline"] = {
+        "reference_from": ref_first.date().isoformat(), "reference_days": st.reference_days,
+        "cusum_k": st.cusum_k, "cusum_h": st.cusum_h,
+        "arl0_days": baseline.arl0(st.cusum_k, st.cusum_h),
+        "false_alarms_per_inverter_year": 365.25 / baseline.arl0(st.cusum_k, st.cusum_h),
+        "flagged_periods": len(flagged),
+        "fits": {k: {"params": v["params"], "rows": v["rows"]} for k, v in fits.items()},
+        "per_inverter": info}
+    events.sort(key=lambda e: (e.start, e.kind, e.scope))
+    return {"events": events, "losses": losses, "degradation": block,
+            "suspect_windows": suspects, "clock_shifts": shifts, "footprints": prints,
+            "wide": w}
+
+
+def _in_windows(index: pd.DatetimeIndex, windows: list[tuple[pd.Timestamp, pd.Timestamp]]
+                ) -> np.ndarray:
+    out = np.zeros(len(index), dtype=bool)
+    for a, b in windows:
+        out |= (index >= a) & (index < b)
+    return out
+
+
+def _undo(w: Wide, prints: list[Footprint]) -> pd.DataFrame:
+    """Measured power with the partial outages' shares put back (for the shared detectors)."""
+    m = w.measured.copy()
+    for fp in prints:
+        for j, c in enumerate(fp.cols):
+            pos = m.columns.get_loc(c)
+            m.iloc[fp.lo:fp.hi, pos] = m.iloc[fp.lo:fp.hi, pos].to_numpy() / (
+                1 - fp.factor[:, j])
+    return m
+
+
+def _plant_pi(w: Wide, keep: pd.DataFrame, measured: pd.DataFrame) -> pd.Series:
+    """Daily plant index sum(measured) / sum(expected) over the kept intervals."""
+    days = w.day.to_numpy()
+    m = measured.where(keep).sum(axis=1, min_count=1).groupby(days).sum(min_count=1)
+    e = w.expected.where(keep & measured.notna()).sum(axis=1, min_count=1).groupby(days).sum(
+        min_count=1)
+    pi = m / e
+    return pi.where(e >= 0.25 * e.median())
+
+
+def _reference_start(w: Wide, site: Site, st: Settings) -> pd.Timestamp:
+    first = pd.Timestamp(w.day.iloc[0])
+    if st.reference_from is not None:
+        return pd.Timestamp(st.reference_from)
+    return max(first, pd.Timestamp(site.commissioned))
+
+
+def to_json(result: dict[str, Any], site: Site) -> dict[str, Any]:
+    """The ``events``, ``losses`` and ``degradation`` parts of the check document."""
+    tz = site.tz
+    return {
+        "events": [e.to_dict(tz) for e in result["events"]],
+        "losses": _round_block(result["losses"]),
+        "degradation": _round_block(result["degradation"]),
+    }
+
+
+def _round_block(obj: Any) -> Any:
+    from perfcheck.detect.common import _jsonable
+
+    return _jsonable(obj)
+
+
+def store(con: duckdb.DuckDBPyConnection, events: list[dict[str, Any]], start: pd.Timestamp,
+          end: pd.Timestamp) -> None:
+    """Replace the stored events of this period by ``events`` (JSON form), one transaction."""
+    now = dt.datetime.now(dt.UTC)
+    con.begin()
+    try:
+        con.execute(db.sql("detect_delete"), {"period_start": start, "period_end": end})
+        for i, e in enumerate(events):
+            extra = {k: v for k, v in e.items() if k not in (
+                "kind", "scope", "start", "end", "energy_loss_kwh", "energy_loss_kwh_low",
+                "energy_loss_kwh_high", "method", "evidence")}
+            con.execute(db.sql("detect_insert"), {
+                "period_start": start, "period_end": end, "seq": i, "kind": e["kind"],
+                "scope": e["scope"], "start_ts": pd.Timestamp(e["start"]),
+                "end_ts": pd.Timestamp(e["end"]), "energy_loss_kwh": e["energy_loss_kwh"],
+                "energy_loss_kwh_low": e["energy_loss_kwh_low"],
+                "energy_loss_kwh_high": e["energy_loss_kwh_high"], "method": e["method"],
+                "evidence_json": json.dumps(e["evidence"]), "detail_json": json.dumps(extra),
+                "created_at": now})
+        con.commit()
+    except BaseException:
+        con.rollback()
+        raise
+
+
+def run(
+    con: duckdb.DuckDBPyConnection,
+    site: Site,
+    start: pd.Timestamp | None = None,
+    end: pd.Timestamp | None = None,
+) -> dict[str, Any]:
+    """Run the detectors over ``[start, end)`` and return events, losses and degradation.
+
+    The events are stored in the ``events`` table (replacing those of an earlier run over the
+    same period). Raises DataError when nothing has been aligned yet.
+    """
+    from perfcheck.align import load_aligned
+
+    settings = load_settings(site)
+    df = load_aligned(con, site, start, end)
+    if df.empty or df["measured_ac_w"].notna().sum() == 0:
+        return _empty(df)
+    result = analyse(df, site, settings)
+    out = to_json(result, site)
+    lo = pd.Timestamp(df["ts"].min()) if start is None else pd.Timestamp(start)
+    hi = pd.Timestamp(df["ts"].max()) + pd.Timedelta(seconds=float(df["interval_s"].iloc[-1])) \
+        if end is None else pd.Timestamp(end)
+    store(con, out["events"], lo, hi)
+    return out
+
+
+def _empty(df: pd.DataFrame) -> dict[str, Any]:
+    return {
+        "events": [],
+        "losses": {"expected_kwh": 0.0, "measured_kwh": 0.0, "by_cause_kwh": {},
+                   "unexplained_kwh": 0.0},
+        "degradation": {"rate_pct_per_year": None, "ci_low": None, "ci_high": None,
+                        "method": degradation.METHOD, "status": "not enough data"},
+    }

@@ -1,0 +1,204 @@
+"""Clock faults: the logger's time labels off by a constant offset for a while.
+
+On clear days the centre (power-weighted mean time) of an inverter's measured power is
+compared with the centre of its clear-sky plane-of-array irradiance computed from the sun
+position (:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by
+DC rating). For a south-facing array this is the solar noon; for other
+orientations it is the same astronomy seen from their plane. The difference [min] per clear day
+is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
+segment whose level differs from the reference level (the longest segment) by at least
+``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
+size; its edges are then placed on the day using every day's centre. Inverters whose windows
+agree form one event, reported only when it covers every inverter of a logger (a clock
+belongs to a logger); plant scope when it covers all inverters.
+
+:func:`corrected` shifts the readings of the window back by the offset (rounded to the
+interval), for the measured power and, where the POA sensor sits on the same clock (its centre
+moved too), for the expected power built from it.
+
+References
+----------
+Ineichen & Perez 2002 clear sky, Hay & Davies 1980 transposition; Olshen et al. 2004
+(segmentation). The power-centre test is our own formulation.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from perfcheck.detect.common import Event, Wide, change_points, despike
+from perfcheck.detect.sensor import refine_edge
+
+METHOD = ("daily power centre on clear days against the clear-sky plane irradiance centre "
+          "from the sun position; segmentation and Welch t test")
+
+
+@dataclasses.dataclass(frozen=True)
+class Shift:
+    start: pd.Timestamp
+    end: pd.Timestamp
+    offset_min: float  # positive: labels late
+    inverters: tuple[str, ...]
+    evidence: dict[str, Any]
+
+
+def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
+    """Power-weighted mean time of each day [min since the day's first interval]."""
+    t = ((w.index - w.index[0]) / pd.Timedelta(minutes=1)).to_numpy(dtype=float)
+    t = t + w.interval_s.to_numpy() / 120.0  # interval mid-point
+    days = w.day.to_numpy()
+    p = power.clip(lower=0)
+    num = p.mul(t, axis=0).groupby(days).sum(min_count=1)
+    den = p.groupby(days).sum(min_count=1)
+    return num / den
+
+
+def find(w: Wide, reference: pd.DataFrame, clear: pd.Series, groups: list[list[str]],
+         alpha: float = 1e-3, min_offset_min: float = 20.0, min_days: int = 3) -> list[Shift]:
+    """Clock shifts of the measured power (see module docstring).
+
+    ``groups`` lists the inverters whose power comes from one logger: a clock belongs to a
+    logger, so a shift is reported only when every inverter of some logger shows it (this
+    keeps a shade on one side of the day, which also moves the centre, from passing as a
+    clock fault).
+    """
+    ok = w.measured.notna() & reference.gt(0)
+    days = w.day.to_numpy()
+    ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
+    d_all = centres(w, w.measured.where(ok)) - centres(w, reference.where(ok))
+    d_all = d_all.where(ok_day > 0.9)
+    is_clear = clear.reindex(d_all.index).fillna(False).astype(bool)
+    found: list[Shift] = []
+    for inv in w.inverters:
+        q = d_all[inv][is_clear].dropna()
+        if len(q) < 4 * min_days:
+            continue
+        x = despike(q.to_numpy())
+        segs = change_points(x, alpha=alpha, min_size=min_days)
+        ref = max(segs, key=lambda g: g.stop - g.start)
+        for g in segs:
+            off = g.mean - ref.mean
+            if g is ref or abs(off) < min_offset_min:
+                continue
+            t = stats.ttest_ind(x[g.start:g.stop], x[ref.start:ref.stop], equal_var=False)
+            if not t.pvalue < alpha:
+                continue
+            allq = d_all[inv]
+            prev = q.index[g.start - 1] if g.start > 0 else allq.index[0] - pd.Timedelta(days=1)
+            nxt = q.index[g.stop] if g.stop < len(q) else allq.index[-1]
+            d0 = refine_edge(allq, prev, q.index[g.start])
+            d1 = refine_edge(allq, q.index[g.stop - 1], nxt)
+            found.append(Shift(
+                pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
+                pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
+                {"test": "Welch t", "p_value": float(t.pvalue), "clear_days": g.stop - g.start,
+                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)}))
+    return [s for s in _merge(found) if any(set(g) <= set(s.inverters) for g in groups if g)]
+
+
+def _merge(found: list[Shift]) -> list[Shift]:
+    """Windows of several inverters that overlap, with offsets within 15 min, become one."""
+    out: list[Shift] = []
+    for s in sorted(found, key=lambda s: s.start):
+        for i, o in enumerate(out):
+            if s.start < o.end and o.start < s.end and abs(s.offset_min - o.offset_min) < 15:
+                inv = o.inverters + s.inverters
+                out[i] = Shift(min(o.start, s.start), max(o.end, s.end),
+                               float(np.mean([o.offset_min, s.offset_min])), inv,
+                               {**o.evidence, "per_inverter_offset_min": {
+                                   **o.evidence.get("per_inverter_offset_min",
+                                                    {o.inverters[0]: o.offset_min}),
+                                   s.inverters[0]: s.offset_min}})
+                break
+        else:
+            out.append(s)
+    return out
+
+
+def sensor_moved(w: Wide, shift: Shift, sensor: pd.Series, sensor_clear: pd.Series) -> bool:
+    """Whether the POA sensor's readings moved with the power in the shift's window (the
+    sensor sits on the same clock): its daily centre moved by more than half the offset."""
+    inside = (w.index >= shift.start) & (w.index < shift.end)
+    ok = inside & sensor.notna().to_numpy() & (sensor_clear.to_numpy() > 0)
+    if not ok.any():
+        return False
+    d = centres(w, pd.DataFrame({"s": sensor.where(ok)})) - centres(
+        w, pd.DataFrame({"s": sensor_clear.where(ok)}))
+    moved = float(np.nanmedian(d["s"].to_numpy()))
+    return bool(np.isfinite(moved) and abs(moved - shift.offset_min) < abs(moved))
+
+
+def corrected(w: Wide, shifts: list[Shift], sensor_too: list[bool]) -> Wide:
+    """The series with the measured power shifted back by each offset inside its window, and,
+    where the POA sensor sits on the same clock, the sensor's plane irradiance and the expected
+    power built from it too (for the inverters fed by the sensor)."""
+    if not shifts:
+        return w
+    meas, exp, pot, poa = (w.measured.copy(), w.expected.copy(), w.potential.copy(),
+                           w.poa.copy())
+    step = float(np.median(w.interval_s))
+    for s, too in zip(shifts, sensor_too, strict=True):
+        n = int(round(s.offset_min * 60 / step))
+        if n == 0:
+            continue
+        inside = (w.index >= s.start) & (w.index < s.end)
+        for c in s.inverters:
+            meas.loc[inside, c] = w.measured[c].shift(-n).to_numpy()[inside]
+        if not too:
+            continue
+        for c in w.inverters:
+            if w.from_sensor[c].to_numpy()[inside].mean() > 0.5:
+                for frame, src in ((exp, w.expected), (pot, w.potential), (poa, w.poa)):
+                    frame.loc[inside, c] = src[c].shift(-n).to_numpy()[inside]
+    return dataclasses.replace(w, measured=meas, expected=exp, potential=pot, poa=poa)
+
+
+def events(w_before: Wide, w_after: Wide, shifts: list[Shift], sensor_too: list[bool],
+           n_inverters: int) -> list[Event]:
+    out = []
+    step = w_before.interval_s.to_numpy()
+    for s, too in zip(shifts, sensor_too, strict=True):
+        inside = (w_before.index >= s.start) & (w_before.index < s.end)
+        gap_b = (w_before.expected - w_before.measured).to_numpy()[inside]
+        gap_a = (w_after.expected - w_after.measured).to_numpy()[inside]
+        change = float((np.nansum(gap_b * step[inside, None]) - np.nansum(
+            gap_a * step[inside, None])) / 3.6e6)
+        scope = "plant" if len(s.inverters) == n_inverters else f"inverter:{s.inverters[0]}"
+        out.append(Event(kind="clock_fault", scope=scope, start=s.start, end=s.end,
+                         energy_loss_kwh=0.0, energy_loss_kwh_low=0.0, energy_loss_kwh_high=0.0,
+                         method=METHOD, evidence=s.evidence,
+                         detail={"offset_min": round(s.offset_min, 1),
+                                 "direction": "labels late" if s.offset_min > 0
+                                 else "labels early",
+                                 "inverters": list(s.inverters),
+                                 "poa_sensor_on_same_clock": too,
+                                 "correction": f"shift readings by {-s.offset_min:+.0f} min",
+                                 "shortfall_change_kwh": change}))
+    return out
+
+
+def shift_frame(frame: pd.DataFrame, shifts: list[Shift], devices: dict[str, list[str]]
+                ) -> pd.DataFrame:
+    """Readings with the clock faults corrected, for a correction on request.
+
+    ``frame`` is long-format readings (``ts`` UTC, ``device``, ...), e.g. the ``readings``
+    table; ``devices`` maps each shift's inverter ids to the devices logged on the same clock
+    (the inverters, and ``site`` where the weather sensors share the logger). Rows of those
+    devices inside a shift's window get ``ts - offset`` (rounded to the minute); other rows
+    are returned unchanged. Pure: the caller decides whether to store the result.
+    """
+    out = frame.copy()
+    ts = pd.to_datetime(out["ts"], utc=True)
+    for s in shifts:
+        devs = sorted({d for inv in s.inverters for d in devices.get(inv, [inv])})
+        sel = out["device"].isin(devs).to_numpy() & (ts >= s.start).to_numpy() & (
+            ts < s.end).to_numpy()
+        offset = pd.Timedelta(minutes=round(s.offset_min))
+        ts = ts.where(~sel, ts - offset)
+    out["ts"] = ts
+    return out

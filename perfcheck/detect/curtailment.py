@@ -1,0 +1,165 @@
+"""Curtailment: output held on a plateau below what the plant could deliver, either by every
+inverter at once (a set-point from the grid operator or the plant controller) or with the
+plant total at its export limit. Kept apart from clipping (one inverter at its own limit).
+
+Shared plateau: in the same intervals every producing inverter holds a flat level (relative
+change to a neighbouring interval within the plateau tolerance, three times the interval noise)
+while its expected power is above that level by more than ``margin`` (three times the
+interval-level spread of measured/expected), for at least ``min_minutes``. Export limit: the
+plant total within the tolerance of ``export_limit_kw`` while the sum of the unlimited
+expected powers (each capped at its inverter rating) is above it; since the expected series
+already stops at the export limit, that energy is a design fact and is reported as such.
+The multiples are common practice (no source).
+
+References
+----------
+IEC TS 61724-2:2016 treats operation limited by the inverter and by the interconnection
+separately (from memory).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from perfcheck.detect.common import Event, Wide, energy_band, plateaus, runs
+
+METHOD_SHARED = ("shared plateau: every inverter flat below its expected power at the same "
+                 "time (interval noise test, common practice)")
+METHOD_EXPORT = "plant total held at the export limit while the plant could deliver more"
+
+
+def _events(mask: np.ndarray, w: Wide, energy: np.ndarray, gap: np.ndarray, rel_sigma: float,
+            method: str, evidence: dict, detail: dict) -> list[Event]:
+    """One event per site-local day with masked intervals (a set-point is a day's order)."""
+    step = w.interval_s.to_numpy()
+    days = w.day.to_numpy()
+    out = []
+    for day in np.unique(days[mask]):
+        sel = mask & (days == day)
+        pos = np.flatnonzero(sel)
+        e = float(np.nansum(energy[sel] * step[sel]) / 3.6e6)
+        g = float(np.nansum(gap[sel] * step[sel]) / 3.6e6)
+        low, high = energy_band(e, rel_sigma)
+        levels = evidence.get("_level")
+        ev = {k: v for k, v in evidence.items() if k != "_level"}
+        if levels is not None:
+            ev["plateau_level_share_of_rating"] = float(np.nanmedian(levels[sel]))
+        ev["intervals"] = int(sel.sum())
+        out.append(Event(
+            kind="curtailment", scope="plant", start=w.index[pos[0]],
+            end=w.index[pos[-1]] + pd.Timedelta(seconds=float(step[pos[-1]])),
+            energy_loss_kwh=e, energy_loss_kwh_low=max(low, 0.0), energy_loss_kwh_high=high,
+            method=method, evidence=ev, detail={**detail, "shortfall_kwh": g}))
+    return out
+
+
+def _flatter(m: np.ndarray, e: np.ndarray, margin: float) -> bool:
+    """The run's measured spread (10-90 % range) under half the expected one's, and the
+    expected one at least ``margin`` (while the expected power is flat too, as at a clear
+    noon, a held power cannot be told from a lower but healthy one)."""
+    rm = np.subtract(*np.nanpercentile(m, [90, 10])) / max(np.nanmean(m), 1e-9)
+    re = np.subtract(*np.nanpercentile(e, [90, 10])) / max(np.nanmean(e), 1e-9)
+    return bool(rm <= 0.5 * re and re >= margin)
+
+
+HOLD = 0.005  # a set-point holds the power within +-0.5 % (common practice, no source)
+
+
+def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, margin: float,
+                min_count: int) -> np.ndarray:
+    """Days on which the plant power returns to one level again and again while the expected
+    power is above it: at least ``min_count`` intervals within +-``HOLD`` of one value (power
+    that follows the sun and clouds does not repeat a value that often; a set-point under
+    broken clouds does). Levels at the rating (clipping) are left out."""
+    out = np.zeros(len(level), dtype=bool)
+    cand = (exp_level >= level * (1 + margin)) & (level > 0.05) & (level < 0.98)
+    for day in np.unique(days[cand]):
+        sel = np.flatnonzero(cand & (days == day))
+        if len(sel) < min_count:
+            continue
+        v = np.sort(level[sel])
+        hi = np.searchsorted(v, v * (1 + 2 * HOLD), side="right")
+        counts = hi - np.arange(len(v))
+        best = int(np.argmax(counts))
+        if counts[best] < min_count:
+            continue
+        centre = float(np.median(v[best:hi[best]]))
+        held = sel[np.abs(level[sel] - centre) <= HOLD * centre]
+        # a held value stands out of its surroundings (values that only scatter put as many
+        # next to it as on it), and the expected power moves more than the held one
+        around = np.abs(level[sel] - centre) <= 10 * HOLD * centre
+        if len(held) >= 0.5 * around.sum() and _flatter(level[held], exp_level[held], margin):
+            out[held] = True
+    return out
+
+
+def _whole_day(keep: np.ndarray, level: np.ndarray, exp_level: np.ndarray, days: np.ndarray,
+               tol: float, margin: float) -> np.ndarray:
+    """Extend each day's curtailed runs to every interval of that day held at the same level
+    (within the tolerance) while the expected power is above it by the margin."""
+    out = keep.copy()
+    for day in np.unique(days[keep]):
+        sel = days == day
+        lv = float(np.median(level[keep & sel]))
+        near = sel & (np.abs(level - lv) <= tol * lv) & (exp_level >= lv * (1 + margin))
+        out |= near
+    return out
+
+
+def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude: pd.DataFrame,
+           min_minutes: float = 30.0) -> tuple[list[Event], pd.DataFrame]:
+    """Curtailment events and the (interval x inverter) mask of curtailed intervals."""
+    tol = max(3 * step_noise, 0.005)
+    margin = max(3 * spread, 0.05)
+    step_s = float(np.median(w.interval_s))
+    min_len = max(3, int(np.ceil(min_minutes * 60 / step_s)))
+    m, e = w.measured, w.expected
+    flat = pd.DataFrame(False, index=w.index, columns=w.inverters)
+    for inv in w.inverters:
+        flat[inv] = plateaus(m[inv].to_numpy(), e[inv].to_numpy(), tol, margin, min_len)
+    producing = m.gt(w.ac_w * 0.02, axis=1) & ~exclude
+    shared = (flat | ~producing).all(axis=1) & producing.any(axis=1) & flat.any(axis=1)
+    shared_np = shared.to_numpy()
+    # runs of the shared state that are long enough on their own
+    # a set-point holds the power flat while the expected power moves: the measured plant
+    # power's range over the run must be under half the expected power's range
+    keep = np.zeros(len(shared_np), dtype=bool)
+    tot_m = m.where(producing).sum(axis=1).to_numpy()
+    tot_e = e.where(producing).sum(axis=1).to_numpy()
+    n_flat = (flat & producing).sum(axis=1).to_numpy()
+    need = min(2, len(w.inverters))
+    for a, b in runs(shared_np & (n_flat >= need)):
+        if b - a >= min_len and _flatter(tot_m[a:b], tot_e[a:b], margin):
+            keep[a:b] = True
+    level, exp_level = tot_m / w.ac_w.sum(), tot_e / w.ac_w.sum()
+    held = _held_level(level, exp_level, w.day.to_numpy(), margin,
+                       max(3, int(np.ceil(3600 / step_s))))
+    # shared: on a held day every producing inverter is below its expected power too
+    ratio = (m / e).where(producing).to_numpy()
+    for day in np.unique(w.day.to_numpy()[held]):
+        sel = held & (w.day.to_numpy() == day)
+        if not (np.nanmedian(ratio[sel], axis=0) <= 1 - margin).all():
+            held[sel] = False
+    keep |= held
+    keep = _whole_day(keep, level, exp_level, w.day.to_numpy(), tol, margin)
+    mask = producing & pd.DataFrame(
+        np.repeat(keep[:, None], len(w.inverters), axis=1), index=w.index, columns=w.inverters)
+    gap = (e - m).where(mask).sum(axis=1).to_numpy()
+    level = (m.where(mask).sum(axis=1) / w.ac_w.sum()).to_numpy()
+    events = _events(keep, w, gap, gap, rel_sigma, METHOD_SHARED,
+                     {"tolerance": tol, "margin": margin, "_level": level},
+                     {"design": False, "cause": "set-point below nameplate on all inverters"})
+    if w.export_limit_w:
+        lim = float(w.export_limit_w)
+        total = m.sum(axis=1, min_count=1).to_numpy()
+        could = w.potential.clip(upper=w.ac_w, axis=1).sum(axis=1).to_numpy()
+        at_limit = (np.abs(total - lim) <= tol * lim) & (could > lim * (1 + tol)) & ~keep
+        extra = np.where(at_limit, could - lim, 0.0)
+        gap_lim = np.where(at_limit, (e - m).sum(axis=1).to_numpy(), 0.0)
+        events += _events(at_limit, w, extra, gap_lim, rel_sigma, METHOD_EXPORT,
+                          {"export_limit_w": lim, "tolerance": tol},
+                          {"design": True, "cause": "export limit of the site (design)"})
+        mask = mask | pd.DataFrame(np.repeat(at_limit[:, None], len(w.inverters), axis=1),
+                                   index=w.index, columns=w.inverters)
+    return events, mask

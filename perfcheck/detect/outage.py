@@ -1,0 +1,107 @@
+"""Outages: an inverter at (or near) zero while the sun is up and its siblings produce, and
+plant-wide stops with irradiance present.
+
+An interval is *judged* when the model expects at least ``min_expected_share`` of the
+inverter's AC rating (there is enough light that a working inverter would clearly produce).
+A judged interval is *out* when the measured power is below ``near_zero`` of the expected
+power; with normal operation at a ratio near 1 (spread a few %), a ratio under 0.05 is many
+standard deviations away, so a false alarm from noise is practically impossible. A run of out
+intervals may bridge the night and unjudged low-light intervals, never a producing one, and
+is widened to the neighbouring low-light intervals where the inverter produced nothing, so
+start and end sit on the interval. Runs shorter than ``min_minutes`` are ignored.
+These limits are common practice (no published source).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from perfcheck.detect.common import Event, Wide, energy_band, runs, scope_of
+
+METHOD = ("interval state: measured/expected below 5 % with at least 10 % of rating expected; "
+          "siblings producing (inverter) or all stopped (plant); common practice")
+
+
+def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05
+           ) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Per interval and inverter: 1 out, 0 producing, -1 not judged; and 'produced nothing'.
+
+    Returns ``(state, nothing)``; ``nothing`` marks intervals with expected > 0 where the
+    inverter's measured power is below 1 % of its rating (used to widen a run).
+    """
+    e, m = w.expected, w.measured
+    judged = e.ge(w.ac_w * min_expected_share, axis=1) & m.notna()
+    ratio = m / e
+    state = pd.DataFrame(-1, index=e.index, columns=e.columns, dtype=np.int8)
+    state = state.mask(judged & (ratio >= near_zero), 0).mask(judged & (ratio < near_zero), 1)
+    nothing = (e > 0) & m.le(w.ac_w * 0.01, axis=1)
+    return state, nothing
+
+
+def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
+                scope: str, min_minutes: float, rel_sigma: float
+                ) -> tuple[list[Event], np.ndarray]:
+    """Runs of state 1 (bridging -1) to events; the mask of the intervals they cover."""
+    pos = np.flatnonzero(state >= 0)
+    mask = np.zeros(len(state), dtype=bool)
+    events: list[Event] = []
+    step = w.interval_s.to_numpy()
+    for a, b in runs(state[pos] == 1):
+        lo, hi = pos[a], pos[b - 1] + 1
+        out_minutes = step[pos[a:b]].sum() / 60
+        if out_minutes < min_minutes:
+            continue
+        while lo > 0 and state[lo - 1] != 0 and nothing[lo - 1]:
+            lo -= 1
+        while hi < len(state) and state[hi] != 0 and nothing[hi]:
+            hi += 1
+        mask[lo:hi] = True
+        sl = slice(lo, hi)
+        gap = (w.expected.iloc[sl][col].to_numpy() - w.measured.iloc[sl][col].to_numpy())
+        energy = float(np.nansum(gap * step[sl, None]) / 3.6e6)
+        low, high = energy_band(energy, rel_sigma)
+        events.append(Event(
+            kind="outage", scope=scope, start=w.index[lo],
+            end=w.index[hi - 1] + pd.Timedelta(seconds=float(step[hi - 1])),
+            energy_loss_kwh=energy, energy_loss_kwh_low=max(low, 0.0),
+            energy_loss_kwh_high=high, method=METHOD,
+            evidence={"judged_out_intervals": int(b - a), "out_minutes": float(out_minutes),
+                      "inverters": col},
+        ))
+    return events, mask
+
+
+def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0, **kw: float
+           ) -> tuple[list[Event], pd.DataFrame]:
+    """Outage events and the (interval x inverter) mask of the intervals they cover.
+
+    Parameters
+    ----------
+    w : the aligned series
+    rel_sigma : relative standard error of the expected energy [-], for the energy band
+    min_minutes : shortest outage reported [min]
+    """
+    state, nothing = states(w, **kw)
+    st, no = state.to_numpy(), nothing.to_numpy()
+    ids = w.inverters
+    mask = pd.DataFrame(False, index=w.index, columns=ids)
+    events: list[Event] = []
+    # plant-wide: every judged inverter out, with at least two judged (one inverter alone
+    # cannot tell a plant stop from its own)
+    judged = st >= 0
+    need = min(2, len(ids))
+    all_out = (judged.sum(axis=1) >= need) & ((st == 1) | ~judged).all(axis=1)
+    any_prod = (st == 0).any(axis=1)
+    plant_state = np.where(all_out, 1, np.where(any_prod, 0, -1)).astype(np.int8)
+    ev, pm = _events_for(plant_state, no.all(axis=1), w, ids, "plant", min_minutes, rel_sigma)
+    events += ev
+    mask.loc[pm, :] = True
+    if len(ids) > 1:
+        for j, inv in enumerate(ids):
+            s = st[:, j].copy()
+            s[pm & (s == 1)] = -1  # already part of a plant stop
+            ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma)
+            events += ev
+            mask.loc[im, inv] = True
+    return events, mask

@@ -1,0 +1,175 @@
+"""Partial outages (string faults): a step down in an inverter's output relative to its
+expected power and to its sibling inverters.
+
+For each inverter the daily value is the median, over the day's usable intervals, of
+(measured/expected of this inverter) / (median of the same ratio over its siblings); with one
+inverter, its own measured/expected. The median over the day keeps the value robust to shading
+that touches only part of the day; dividing by the siblings removes what all arrays share
+(weather-model error, soiling, degradation). Changes of the mean of the log daily value are
+located by binary segmentation with a significance test at each split
+(:func:`perfcheck.detect.common.change_points`); a segment whose level is below the reference
+level (the longest segment) by a Welch t-test p-value below ``alpha`` and by at least half a
+string's share of the DC power is a partial outage, when two physical checks hold: every edge
+of the segment inside the data is a step (the median of the ``min_days`` days on either side
+differs by at least half the segment's shift: a lost string is a step, a seasonal drift or a
+growing shade is not), and the loss is the same share in the morning and in the afternoon
+(half-day values within a factor two: a lost string takes its share all day, a shade takes it
+on one side of the day only). The share of DC lost, times the number of strings in the site
+file, gives the number of strings lost.
+
+The false-alarm rate per inverter and series is bounded by about ``alpha`` per split tested
+(Bonferroni), default 1e-3.
+
+References
+----------
+Scott & Knott 1974 (binary segmentation), Welch 1947 (Biometrika 34:28) (both from memory).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from perfcheck.detect.common import (
+    Event,
+    Footprint,
+    Wide,
+    change_points,
+    coarsen,
+    despike,
+    energy_band,
+    scope_of,
+)
+
+METHOD = ("binary segmentation of the daily median ratio to expected and to sibling inverters, "
+          "Bonferroni-bounded t test per split and Welch t test against the reference level "
+          "(Scott & Knott 1974; Welch 1947)")
+
+
+def daily_relative(w: Wide, usable: pd.DataFrame, siblings: bool = True,
+                   min_intervals: int = 3) -> pd.DataFrame:
+    """Daily median of each inverter's ratio to expected, divided by its siblings' median
+    (``siblings=False``: the inverter's own ratio to expected).
+
+    ``usable`` marks the intervals to use (daylight, unclipped, not already explained).
+    """
+    r = (w.measured / w.expected).where(usable)
+    if siblings and len(w.inverters) > 1:
+        rel = pd.DataFrame(index=r.index, columns=r.columns, dtype=float)
+        for inv in r.columns:
+            sib = r.drop(columns=inv).median(axis=1)
+            rel[inv] = r[inv] / sib
+    else:
+        rel = r
+    days = w.day.to_numpy()
+    n = rel.notna().groupby(days).sum()
+    med = rel.groupby(days).median()
+    return med.where(n >= min_intervals)
+
+
+def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: float,
+           alpha: float = 1e-3, min_days: int = 3) -> tuple[list[Event], list[Footprint]]:
+    """Partial-outage events with their footprints (share of expected power lost).
+
+    The daily statistics are taken on 15-minute blocks (:func:`coarsen`), the energy on
+    the series as given.
+    """
+    wc, uc = coarsen(w, usable)
+    daily = daily_relative(wc, uc)
+    own = np.log(daily_relative(wc, uc, siblings=False))
+    morning = (wc.azimuth < 180).to_numpy()[:, None]
+    halves = [np.log(daily_relative(wc, uc & morning, min_intervals=2)),
+              np.log(daily_relative(wc, uc & ~morning, min_intervals=2))]
+    events: list[Event] = []
+    prints: list[Footprint] = []
+    days_of = w.day.to_numpy()
+    for inv in w.inverters:
+        s = np.log(daily[inv].where(daily[inv] > 0)).dropna()
+        if len(s) < 4 * min_days:
+            continue
+        x = despike(s.to_numpy())
+        segs = change_points(x, alpha=alpha, min_size=min_days)
+        if len(segs) < 2:
+            continue
+        longest = max(g.stop - g.start for g in segs)
+        ref = max((g for g in segs if g.stop - g.start >= max(2 * min_days, 0.2 * longest)),
+                  key=lambda g: g.mean)
+        xr = x[ref.start:ref.stop]
+        own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
+        n_str = max(1, strings.get(inv, 1))
+        for g in segs:
+            if g is ref or g.mean >= ref.mean:
+                continue
+            xs = x[g.start:g.stop]
+            t = stats.ttest_ind(xs, xr, equal_var=False)
+            share = 1 - math.exp(g.mean - ref.mean)
+            if not (t.pvalue < alpha and share >= 0.5 / n_str):
+                continue
+            # the inverter's own ratio to expected must drop too (with two inverters the
+            # sibling ratio alone cannot tell which one changed)
+            own_s = own[inv].reindex(s.index[g.start:g.stop]).dropna().to_numpy()
+            t_own = stats.ttest_ind(own_s, own_r, equal_var=False, alternative="less")
+            if not t_own.pvalue < 0.05:
+                continue
+            steps = _edge_steps(x, g.start, g.stop, min_days)
+            if any(st < 0.5 * share for st in steps):
+                continue
+            half = [_share(h[inv], s.index[g.start:g.stop], s.index[ref.start:ref.stop])
+                    for h in halves]
+            if not (min(half) >= 0.5 * max(half) and min(half) > 0):
+                continue
+            se = math.sqrt(np.var(xs, ddof=1) / len(xs) + np.var(xr, ddof=1) / len(xr))
+            share_lo = 1 - math.exp(g.mean - ref.mean + 1.96 * se)
+            share_hi = 1 - math.exp(g.mean - ref.mean - 1.96 * se)
+            d0, d1 = s.index[g.start], s.index[g.stop - 1]
+            rows = np.flatnonzero((days_of >= d0) & (days_of <= d1))
+            lo, hi = int(rows[0]), int(rows[-1]) + 1
+            exp = w.expected[inv].to_numpy()[lo:hi]
+            step = w.interval_s.to_numpy()[lo:hi]
+            energy = float(np.nansum(exp * share * step) / 3.6e6)
+            lo_e, hi_e = energy_band(energy, rel_sigma)
+            k = round(share * n_str)
+            ev = Event(
+                kind="partial_outage", scope=scope_of(inv),
+                start=pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
+                end=(pd.Timestamp(d1) + pd.Timedelta(days=1)).tz_localize(w.tz)
+                .tz_convert("UTC"),
+                energy_loss_kwh=energy,
+                energy_loss_kwh_low=max(0.0, min(lo_e, energy * share_lo / share)),
+                energy_loss_kwh_high=max(hi_e, energy * share_hi / share),
+                method=METHOD,
+                evidence={"test": "Welch t", "p_value": float(t.pvalue), "t": float(t.statistic),
+                          "days": int(len(xs)), "reference_days": int(len(xr)),
+                          "share_of_dc_lost": share, "share_ci95": [share_lo, share_hi],
+                          "own_ratio_p_value": float(t_own.pvalue),
+                          "edge_steps_share": steps, "morning_afternoon_share": half,
+                          "segments": len(segs)},
+                detail={"strings_lost": int(max(k, 1)), "strings_total": n_str,
+                        "share_of_dc_lost": share},
+            )
+            events.append(ev)
+            prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share)))
+    return events, prints
+
+
+def _edge_steps(x: np.ndarray, start: int, stop: int, k: int) -> list[float]:
+    """Share lost across each inner edge of x[start:stop] (median of k values each side)."""
+    out = []
+    if start > 0:
+        out.append(1 - math.exp(np.median(x[start:start + k]) - np.median(x[max(0, start - k):
+                                                                           start])))
+    if stop < len(x):
+        out.append(1 - math.exp(np.median(x[max(start, stop - k):stop]) - np.median(
+            x[stop:stop + k])))
+    return out
+
+
+def _share(h: pd.Series, seg_days: pd.Index, ref_days: pd.Index) -> float:
+    a = h.reindex(seg_days).dropna()
+    b = h.reindex(ref_days).dropna()
+    if len(a) < 2 or len(b) < 2:
+        return float("nan")
+    return 1 - math.exp(float(a.mean() - b.mean()))

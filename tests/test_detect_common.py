@@ -1,0 +1,103 @@
+"""The statistics the detectors share: change points, CUSUM, robust scale, Theil-Sen, runs."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from perfcheck.detect import baseline, common
+
+
+def test_change_points_find_a_change_and_back():
+    # synthetic: level 0, then -0.12 for 21 values, then 0 again, noise sd 0.003
+    rng = np.random.default_rng(1)
+    x = np.r_[np.zeros(19), np.full(21, -0.12), np.zeros(20)] + rng.normal(0, 0.003, 60)
+    segs = common.change_points(x, alpha=1e-3, min_size=3)
+    assert [(s.start, s.stop) for s in segs] == [(0, 19), (19, 40), (40, 60)]
+    np.testing.assert_allclose(segs[1].mean, -0.12, atol=0.003)  # within 1 sd of the noise
+
+
+def test_change_points_false_alarm_rate_on_noise():
+    # The Bonferroni bound makes the chance of any split on pure noise at most alpha per
+    # test (Olshen et al. 2004 use permutations; the bound is conservative): with alpha 0.05
+    # and 200 white-noise series, expect at most about 10 series split (5 %); allow 15.
+    rng = np.random.default_rng(7)
+    split = sum(len(common.change_points(rng.normal(size=120), alpha=0.05, min_size=3)) > 1
+                for _ in range(200))
+    assert split <= 15
+
+
+def test_cusum_average_run_length_siegmund():
+    # Siegmund 1985 approximation ARL0 = (exp(2kh') - 2kh' - 1) / (2k^2), h' = h + 1.166;
+    # derived: k 0.5, h 5 -> h' 6.166, exp(6.166) = 476.3 -> (476.3 - 6.166 - 1) / 0.5 = 938.3
+    assert baseline.arl0(0.5, 5.0) == pytest.approx(938.3, abs=0.5)
+    # Monte Carlo check on N(0,1) noise (400 seeded runs, vectorised recursion, checked
+    # against cusum_lower on the first run): the mean run length within 15 % (3 standard
+    # errors) of the approximation
+    rng = np.random.default_rng(3)
+    z = rng.normal(size=(400, 12000))
+    s = np.zeros(400)
+    first = np.full(400, -1)
+    for t in range(z.shape[1]):
+        s = np.minimum(0.0, s + z[:, t] + 0.5)
+        new = (s <= -5.0) & (first < 0)
+        first[new] = t + 1
+    assert (first > 0).all()
+    s0, _ = baseline.cusum_lower(z[0], 0.5, 5.0)
+    assert np.flatnonzero(s0 <= -5.0)[0] + 1 == first[0]
+    assert first.mean() == pytest.approx(938.3, rel=0.15)
+
+
+def test_cusum_periods_bounds():
+    z = np.r_[np.zeros(10), np.full(10, -3.0), np.full(20, 1.0)]
+    s, periods = baseline.cusum_lower(z, 0.5, 5.0)
+    # by hand: S = 0 for 10 zeros; each -3 adds -2.5 (S = -25 after ten); each +1 adds +1.5,
+    # back to 0 at the 17th (index 36): the period is values 10..35
+    assert periods == [(10, 36)]
+
+
+def test_robust_sigma_of_white_noise_and_with_a_step():
+    rng = np.random.default_rng(5)
+    x = rng.normal(0, 2.0, 20000)
+    # MAD-based scale of differences: consistent for the normal (factor 1.4826, Hampel 1974)
+    assert common.robust_sigma(x) == pytest.approx(2.0, rel=0.03)
+    x[10000:] += 50  # one level shift touches one difference only
+    assert common.robust_sigma(x) == pytest.approx(2.0, rel=0.03)
+
+
+def test_theil_sen_slope_of_a_line():
+    x = np.arange(30.0)
+    y = 1.0 - 0.003 * x
+    f = common.mann_kendall_slope(y, x)
+    assert f["slope"] == pytest.approx(-0.003)
+    assert f["p_value"] < 1e-6
+
+
+def test_runs_and_energy_band():
+    assert common.runs(np.array([0, 1, 1, 0, 1], dtype=bool)) == [(1, 3), (4, 5)]
+    lo, hi = common.energy_band(100.0, 0.05)
+    # 95 % band: 100 +- 1.96 * 5
+    assert (lo, hi) == pytest.approx((100 - 9.8, 100 + 9.8), abs=0.01)
+
+
+def test_despike_keeps_steps():
+    x = np.r_[np.zeros(10), [5.0], np.zeros(10), np.ones(10)]
+    y = common.despike(x + np.random.default_rng(0).normal(0, 0.01, len(x)))
+    assert abs(y[10]) < 0.1  # the lone spike is gone
+    assert y[-5:].mean() == pytest.approx(1.0, abs=0.02)  # the step stays
+
+
+def test_clock_correction_shifts_only_the_window():
+    import pandas as pd
+
+    from perfcheck.detect import clock
+
+    s = clock.Shift(pd.Timestamp("2025-01-13", tz="UTC"), pd.Timestamp("2025-02-10", tz="UTC"),
+                    60.0, ("inv1",), {})
+    df = pd.DataFrame({"ts": pd.to_datetime(["2025-01-14 12:00", "2025-01-14 12:00",
+                                             "2025-03-01 00:00", "2025-01-14 12:00"], utc=True),
+                       "device": ["inv1", "site", "inv1", "inv2"], "value": [1, 2, 3, 4]})
+    out = clock.shift_frame(df, [s], {"inv1": ["inv1", "site"]})
+    # labels late by 60 min: inside the window inv1 and the weather on its logger move back
+    assert list(out["ts"].dt.strftime("%m-%d %H:%M")) == ["01-14 11:00", "01-14 11:00",
+                                                          "03-01 00:00", "01-14 12:00"]
