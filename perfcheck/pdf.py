@@ -20,7 +20,7 @@ A4 = (8.27, 11.69)
 MARGIN = 0.7
 LINE = {"title": 0.32, "h": 0.26, "lead": 0.19, "para": 0.155, "pre": 0.12, "table": 0.15}
 SIZE = {"title": 14, "h": 11, "lead": 10.5, "para": 8.5, "pre": 6.5, "table": 7}
-WRAP = {"lead": 92, "para": 104, "pre": 125}
+WRAP = {"title": 64, "h": 84, "lead": 92, "para": 104, "pre": 125}
 FIGURE_WIDTH = 0.84  # share of the text width, so that three figures fit on a page
 
 
@@ -142,7 +142,8 @@ def write_pdf(blocks: list[tuple[str, Any]], pngs: dict[str, bytes], path: Path,
             elif kind in ("title", "h"):
                 pages.need(LINE[kind] + 3 * LINE["para"])  # keep a heading with its text
                 pages.y -= 0.08
-                pages.text(kind, content)
+                for line in _wrap(content, WRAP[kind]):
+                    pages.text(kind, line)
                 pages.y -= 0.04
             else:
                 for line in _wrap(content, WRAP[kind]):

@@ -130,6 +130,17 @@ exclude_curtailment = true           # curtailment events left out of PR, EPI, a
 # seed = 61724                       # bootstrap seed: reruns give identical numbers
 # modelled_poa_uncertainty_pct = 5.0 # uncertainty of modelled irradiance [%] (5)
 
+# Settings of the detectors (optional; all shown with their defaults).
+[detect]
+# reference_from = 2024-05-01        # start of the baseline's reference window (commissioned)
+# reference_days = 28                # length of the reference window, at least 7 [days]
+# alpha = 0.001                      # false-alarm level of each change-point test
+# cusum_k = 0.5                      # CUSUM allowance, in standard deviations
+# cusum_h = 5.5                      # CUSUM decision limit, in standard deviations
+# soiling_rain_mm = 5.0              # daily rain that washes the modules [mm]
+# clock_min_offset_min = 20.0        # smallest clock offset reported [min]
+# shading_min_deficit = 0.05         # smallest beam loss of a sky region that counts [-]
+
 # What was promised (optional). perfcheck check and the evidence bundle test each promise
 # one-sided against the measured value and its interval; a shortfall inside the interval is
 # "not shown", never a breach. The findings are evidence, not legal advice.
