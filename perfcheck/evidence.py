@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import shlex
 import tempfile
 import zipfile
 from dataclasses import dataclass, field
@@ -30,7 +29,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, db, report
+from perfcheck import __version__, db, report, versions
 from perfcheck.errors import DataError, PerfcheckError
 from perfcheck.site import Site, load_site
 
@@ -245,7 +244,7 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
         "raw_files": [f["member"] for f in files],
     }).encode()
     members["command.txt"] = (command + "\n").encode()
-    members["versions.json"] = report.dump_json(report.versions()).encode()
+    members["versions.json"] = report.dump_json(versions.versions()).encode()
     members["methods.txt"] = methods_text(result).encode()
     readme = README.format(version=__version__, site=site.name, start=start.isoformat(),
                            end=end.isoformat(), name=out_zip.name,
@@ -384,8 +383,3 @@ def verify_bundle(path: Path, rerun_analysis: bool = True) -> Verification:
     elif rerun_analysis:
         v.notes.append("re-run skipped: the bundle's files do not match their manifest")
     return v
-
-
-def command_line(argv: list[str]) -> str:
-    """The exact command as a shell would read it back."""
-    return shlex.join(["perfcheck", *argv])

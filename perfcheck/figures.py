@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import io
 from collections.abc import Callable
+from typing import Any
 
 import matplotlib
 
@@ -71,6 +72,18 @@ def _title(ax, text: str) -> None:
     ax.set_title(text, loc="left", fontsize=10, color=INK, fontweight="bold")
 
 
+def _daily_panel(title: str, per_day: Callable[[pd.DataFrame, str], pd.DataFrame],
+                 aligned: pd.DataFrame, tz: str) -> tuple[Figure, Any, pd.DataFrame]:
+    """A one-panel figure titled ``title`` and ``per_day(aligned, tz)``; without aligned data
+    the frame is empty and the panel says so."""
+    fig, (ax,) = _figure()
+    _title(ax, title)
+    d = per_day(aligned, tz) if len(aligned) else pd.DataFrame()
+    if d.empty:
+        _note(ax, "no aligned data in this period")
+    return fig, ax, d
+
+
 def energy_kwh(power_w: pd.Series, interval_s: pd.Series) -> pd.Series:
     """Energy of each interval [kWh] from its mean power [W] and length [s]."""
     return power_w * interval_s / 3.6e6
@@ -99,11 +112,9 @@ def daily_energy(aligned: pd.DataFrame, tz: str) -> pd.DataFrame:
 
 def fig_daily_energy(aligned: pd.DataFrame, tz: str) -> Figure:
     """Daily measured against expected plant energy, the gap shaded."""
-    fig, (ax,) = _figure()
-    _title(ax, "Daily energy: measured against expected")
-    d = daily_energy(aligned, tz) if len(aligned) else pd.DataFrame()
+    fig, ax, d = _daily_panel("Daily energy: measured against expected", daily_energy,
+                              aligned, tz)
     if d.empty:
-        _note(ax, "no aligned data in this period")
         return fig
     x = d.index
     ax.fill_between(x, d["measured_kwh"], d["expected_kwh"],
@@ -335,11 +346,9 @@ def sibling_ratio(aligned: pd.DataFrame, tz: str) -> pd.DataFrame:
 
 def fig_sibling_ratio(aligned: pd.DataFrame, tz: str) -> Figure:
     """Inverter-against-siblings ratio per day: a drop on one line points at that inverter."""
-    fig, (ax,) = _figure()
-    _title(ax, "Each inverter against its siblings (daily)")
-    r = sibling_ratio(aligned, tz) if len(aligned) else pd.DataFrame()
+    fig, ax, r = _daily_panel("Each inverter against its siblings (daily)", sibling_ratio,
+                              aligned, tz)
     if r.empty:
-        _note(ax, "no aligned data in this period")
         return fig
     for i, inv in enumerate(r.columns):
         ax.plot(r.index, r[inv], lw=1.2, color=FLAG_COLOURS[i % len(FLAG_COLOURS)], label=inv)

@@ -29,7 +29,7 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 
-from perfcheck import __version__, db, pipeline, report
+from perfcheck import __version__, db, periods, pipeline, report
 from perfcheck.errors import PerfcheckError, SiteFileError
 from perfcheck.site import Site
 
@@ -159,8 +159,8 @@ def run_monthly(site: Site, db_path: Path, month: str | None = None, out_root: P
     """The whole monthly job (see the module docstring); raises PerfcheckError on bad input."""
     settings = report.report_settings(site)
     out_root = Path(out_root) if out_root else site.path.parent / settings.out_dir
-    month = month or report.last_complete_month(site, now)
-    start, end = report.month_period(site, month)
+    month = month or periods.last_complete_month(site, now)
+    start, end = periods.month_period(site, month)
     with lock(Path(db_path).with_suffix(".monthly.lock"), settings.lock_wait_s):
         con = db.connect(db_path)
         try:

@@ -24,7 +24,8 @@ stored readings, in DuckDB SQL (window functions over each channel in time order
     AC power above :data:`POWER_SHARE` of the rating while the plane-of-array (else global)
     irradiance of the same interval is below :data:`IRRADIANCE_FLOOR_WM2`, or the sun is down.
 
-The sun position is computed once per distinct interval mid-point with pvlib (NREL SPA).
+The sun position is computed once per distinct interval mid-point by the SPA of
+:func:`perfcheck.physics.solar_position` (the one the model uses).
 
 References
 ----------
@@ -49,7 +50,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from perfcheck import db
+from perfcheck import db, physics
 from perfcheck.site import Site
 
 # Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
@@ -158,9 +159,12 @@ def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.Dat
     mu0 (cosine of the zenith, 0 when the sun is down) and sa_wm2 (extraterrestrial normal
     irradiance for the day, pvlib's ``get_extra_radiation``, Spencer 1971).
     """
-    mid = starts + pd.Timedelta(minutes=interval_min / 2)
-    pos = pvlib.solarposition.get_solarposition(
-        mid, site.latitude_deg, site.longitude_deg, altitude=site.altitude_m)
+    mid = physics.interval_midpoints(starts, 60.0 * interval_min)
+    if len(mid):  # delta_t: pvlib's default for get_solarposition (TT - UT1 [s])
+        pos = physics.solar_position(mid, site.latitude_deg, site.longitude_deg,
+                                     altitude=site.altitude_m, delta_t=67.0)
+    else:  # physics.solar_position needs at least one instant
+        pos = pd.DataFrame({"apparent_zenith": [], "apparent_elevation": []}, dtype=float)
     zenith = pos["apparent_zenith"].to_numpy()
     return pd.DataFrame({
         "ts": starts,

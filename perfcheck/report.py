@@ -11,11 +11,8 @@ from __future__ import annotations
 
 import base64
 import csv
-import datetime as dt
-import importlib.metadata
 import io
 import json
-import platform
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -25,12 +22,8 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, db, figures, pdf
-from perfcheck.errors import PerfcheckError
+from perfcheck import db, figures, pdf, versions
 from perfcheck.site import Site, Table
-
-DEPENDENCIES = ("pandas", "numpy", "pvlib", "duckdb", "statsmodels", "scipy", "matplotlib",
-                "jinja2", "click", "jsonschema")
 
 # Each metric and detector with its published source (shown in the report and the bundle).
 METHODS: list[tuple[str, str]] = [
@@ -152,47 +145,7 @@ def report_settings(site: Site) -> ReportSettings:
 
 
 # --------------------------------------------------------------------------------------------
-# periods
-
-
-def month_period(site: Site, month: str) -> tuple[pd.Timestamp, pd.Timestamp]:
-    """[start, end) of a calendar month ``YYYY-MM`` in the site's zone, as UTC instants."""
-    try:
-        first = dt.datetime.strptime(month, "%Y-%m")
-    except ValueError:
-        raise PerfcheckError(f"--month: {month!r} is not a month like 2025-06") from None
-    start = pd.Timestamp(first, tz=site.timezone)
-    return start.tz_convert("UTC"), (start + pd.DateOffset(months=1)).tz_convert("UTC")
-
-
-def day_period(site: Site, first: dt.date, last: dt.date) -> tuple[pd.Timestamp, pd.Timestamp]:
-    """[start of ``first``, end of ``last``] in the site's zone (both days included), in UTC."""
-    if last < first:
-        raise PerfcheckError(f"--to {last} is before --from {first}")
-    start = pd.Timestamp(first, tz=site.timezone)
-    end = pd.Timestamp(last + dt.timedelta(days=1), tz=site.timezone)
-    return start.tz_convert("UTC"), end.tz_convert("UTC")
-
-
-def last_complete_month(site: Site, now: pd.Timestamp | None = None) -> str:
-    """The month before the current one in the site's zone, ``YYYY-MM``."""
-    now = (now or pd.Timestamp.now(tz="UTC")).tz_convert(site.timezone)
-    return (now.replace(day=1) - pd.Timedelta(days=1)).strftime("%Y-%m")
-
-
-# --------------------------------------------------------------------------------------------
 # content
-
-
-def versions() -> dict[str, str]:
-    """Tool, Python and dependency versions."""
-    out = {"perfcheck": __version__, "python": platform.python_version()}
-    for name in DEPENDENCIES:
-        try:
-            out[name] = importlib.metadata.version(name)
-        except importlib.metadata.PackageNotFoundError:
-            out[name] = "not installed"
-    return out
 
 
 def fmt_interval(rec: dict, key: str, spec: str = "{:.3f}") -> str:
@@ -319,7 +272,7 @@ def monthly_rows(monthly: list[dict]) -> list[list[str]]:
         row = [m["month"]]
         for key, _, spec in MONTHLY_COLUMNS:
             row.append(fmt_interval(m, key, spec) if f"{key}_ci_low" in m else
-                       ("n/a" if m.get(key) is None else spec.format(m[key])))
+                       _v(m.get(key), spec))
         rows.append(row)
     return rows
 
@@ -373,7 +326,7 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "methods": METHODS,
         "site_text": site.path.read_text(encoding="utf-8"),
         "site_file": site.path.name,
-        "versions": versions(),
+        "versions": versions.versions(),
         "settings": {k: v for k, v in result.get("settings", {}).items()
                      if k not in ("rules", "interval_method")},
         "rules": result.get("settings", {}).get("rules", []),
@@ -393,24 +346,22 @@ def degradation_text(d: dict) -> str:
 
 def guarantee_row(g: dict) -> dict:
     """A guarantee finding with the texts the report's table shows."""
-    def num(v: Any) -> str:
-        return "n/a" if v is None else f"{v:.4g}"
-
+    spec = "{:.4g}"
     if g["kind"] == "module_warranty":  # shown as loss rates [%/yr], positive
         g = {**g, "promised": -g["promised"], "measured": None if g["measured"] is None else
              -g["measured"], "measured_ci_low": None if g.get("measured_ci_high") is None else
              -g["measured_ci_high"], "measured_ci_high": None if g.get("measured_ci_low") is None
              else -g["measured_ci_low"]}
-    measured = num(g.get("measured"))
+    measured = _v(g.get("measured"), spec)
     if g.get("measured_ci_low") is not None:
-        measured += f" ({num(g['measured_ci_low'])} to {num(g['measured_ci_high'])})"
+        measured += f" ({_v(g['measured_ci_low'], spec)} to {_v(g['measured_ci_high'], spec)})"
     kwh = g.get("energy_short_kwh")
     money = g.get("money_short")
-    promised = num(g.get("promised"))
+    promised = _v(g.get("promised"), spec)
     if g["kind"] == "module_warranty":
         promised, measured = f"loss ≤ {promised} %/yr", f"loss {measured} %/yr"
     return {**g, "promised_text": promised, "measured_text": measured,
-            "energy_short_text": "n/a" if kwh is None else f"{kwh:,.0f} kWh",
+            "energy_short_text": _v(kwh, "{:,.0f} kWh"),
             "money_short_text": "n/a" if money is None else
             f"{money:,.2f} {g.get('currency', '')}".rstrip()}
 

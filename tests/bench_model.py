@@ -22,8 +22,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from benchmark import INVERTER, MINUTES_PER_YEAR, in_child
 
-MINUTES_PER_YEAR = 525_600
 LAT, LON, ALT = 47.5, 8.7, 450.0
 
 SITE = """
@@ -54,19 +54,6 @@ name = "WS"
 quantity = "wind_speed"
 unit = "m/s"
 """
-
-INVERTER = """
-[[inverters]]
-id = "INV{i}"
-ac_kw = 50
-[[inverters.arrays]]
-dc_kwp = 60
-tilt_deg = {tilt}
-azimuth_deg = {az}
-gamma_pct_per_c = -0.37
-strings = 10
-"""
-
 
 def _times() -> pd.DatetimeIndex:
     return pd.date_range("2024-01-01", periods=MINUTES_PER_YEAR, freq="min", tz="UTC")
@@ -166,16 +153,6 @@ def _stage(site_path: str, db_path: str, out: mp.Queue) -> None:
     out.put(((first, second), resource.getrusage(resource.RUSAGE_SELF).ru_maxrss))
 
 
-def _in_child(target: Callable, *args: str) -> tuple:
-    ctx = mp.get_context("spawn")
-    q = ctx.Queue()
-    proc = ctx.Process(target=target, args=(*args, q))
-    proc.start()
-    result = q.get()
-    proc.join()
-    return result
-
-
 def bench(print_row: Callable[[str, str], None]) -> None:
     here = str(Path(__file__).resolve().parent)
     if here not in sys.path:  # the children import this module by name
@@ -187,9 +164,9 @@ def bench(print_row: Callable[[str, str], None]) -> None:
         write_readings(str(site), db_path)
         print_row("model: data", f"{MINUTES_PER_YEAR} 1-min intervals, 4 inverters, "
                   "2 orientations, from GHI")
-        bare_s, bare_kb = _in_child(me._bare, str(site), db_path)
-        mem_s, mem_kb = _in_child(me._in_memory, str(site), db_path)
-        (run_s, again_s), run_kb = _in_child(me._stage, str(site), db_path)
+        bare_s, bare_kb = in_child(me._bare, str(site), db_path)
+        mem_s, mem_kb = in_child(me._in_memory, str(site), db_path)
+        (run_s, again_s), run_kb = in_child(me._stage, str(site), db_path)
         print_row("model: bare pvlib SPA + Perez", f"{bare_s:.2f} s, peak {bare_kb / 1024:.0f} MB")
         print_row("model: perfcheck model (in memory)",
                   f"{mem_s:.2f} s, peak {mem_kb / 1024:.0f} MB, ratio {mem_s / bare_s:.2f} "

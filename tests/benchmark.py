@@ -55,8 +55,8 @@ id = "INV{i}"
 ac_kw = 50
 [[inverters.arrays]]
 dc_kwp = 60
-tilt_deg = 25
-azimuth_deg = 180
+tilt_deg = {tilt}
+azimuth_deg = {az}
 gamma_pct_per_c = -0.37
 strings = 10
 """
@@ -96,8 +96,8 @@ def write_site_year(folder: Path) -> tuple[Path, Path]:
         cols.append(f'[[loggers.columns]]\nname = "{name}"\nquantity = "{quantity}"\n'
                     f'unit = "{unit}"' + (f'\ninverter = "{inverter}"' if inverter else ""))
     site = folder / "site.toml"
-    site.write_text(SITE_TOML.format(
-        inverters="\n".join(INVERTER.format(i=i) for i in (1, 2, 3)), columns="\n".join(cols)))
+    inverters = "\n".join(INVERTER.format(i=i, tilt=25, az=180) for i in (1, 2, 3))
+    site.write_text(SITE_TOML.format(inverters=inverters, columns="\n".join(cols)))
     return site, csv
 
 
@@ -126,7 +126,9 @@ def _ingest(site_path: str, csv: str, db_path: str, out: mp.Queue) -> None:
     out.put((elapsed, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss))
 
 
-def _in_child(target: Callable, *args: str) -> tuple[float, int]:
+def in_child(target: Callable, *args: str) -> tuple:
+    """Run ``target(*args, queue)`` in a fresh process; return what it put on the queue (a
+    measurement and that process's own peak memory)."""
     ctx = mp.get_context("spawn")
     out = ctx.Queue()
     proc = ctx.Process(target=target, args=(*args, out))
@@ -147,8 +149,8 @@ def bench_ingest(print_row: Callable[[str, str], None]) -> None:
         # machine is shared, and the minimum is the least disturbed run of each
         bare, ours = [], []
         for i in range(REPEATS):
-            bare.append(_in_child(_bare, str(csv), str(folder / f"bare{i}.duckdb")))
-            ours.append(_in_child(_ingest, str(site), str(csv), str(folder / f"site{i}.duckdb")))
+            bare.append(in_child(_bare, str(csv), str(folder / f"bare{i}.duckdb")))
+            ours.append(in_child(_ingest, str(site), str(csv), str(folder / f"site{i}.duckdb")))
         bare_s, bare_kb = min(t for t, _ in bare), max(m for _, m in bare)
         ingest_s, ingest_kb = min(t for t, _ in ours), max(m for _, m in ours)
         print_row("ingest: bare read_csv", f"{bare_s:.2f} s, peak {bare_kb / 1024:.0f} MB "

@@ -18,9 +18,9 @@ altitude_m = 420
 timezone = "Europe/Zurich"
 commissioned = 2024-04-01
 inbox = "inbox/*.csv"
-
+""" + "".join(f"""
 [[inverters]]
-id = "INV1"
+id = "{inv}"
 ac_kw = 50
 [[inverters.arrays]]
 dc_kwp = 60
@@ -28,17 +28,7 @@ tilt_deg = 25
 azimuth_deg = 180
 gamma_pct_per_c = -0.37
 strings = 10
-
-[[inverters]]
-id = "INV2"
-ac_kw = 50
-[[inverters.arrays]]
-dc_kwp = 60
-tilt_deg = 25
-azimuth_deg = 180
-gamma_pct_per_c = -0.37
-strings = 10
-
+""" for inv in ("INV1", "INV2")) + """
 [[loggers]]
 name = "box"
 match = "box_*.csv"
@@ -76,6 +66,16 @@ def checked(site, result: dict) -> dict:
 
     result["guarantees"] = guarantees.evaluate(site, result)
     return result
+
+
+def rendered_example(tmp):
+    """Site and output paths of the example check rendered into ``tmp/out`` (no database)."""
+    from perfcheck import report
+
+    site = write_site(tmp)
+    paths = report.render(site, checked(site, example_check()), example_aligned(),
+                          {"files": [], "flags": []}, tmp / "out")
+    return site, paths
 
 
 def write_site(tmp_path, extra: str = GUARANTEES_TOML):

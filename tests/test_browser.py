@@ -16,9 +16,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 from PIL import Image
-from report_fixtures import checked, example_aligned, example_check, write_site
+from report_fixtures import rendered_example
 
-from perfcheck import figures, report
+from perfcheck import figures
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 PDFTOPPM = shutil.which("pdftoppm")
@@ -74,9 +74,7 @@ def ink_share(img: np.ndarray) -> float:
 @pytest.fixture(scope="module")
 def written(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("browser")
-    site = write_site(tmp)
-    paths = report.render(site, checked(site, example_check()), example_aligned(),
-                          {"files": [], "flags": []}, tmp / "out")
+    _, paths = rendered_example(tmp)
     return tmp, paths
 
 

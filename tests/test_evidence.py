@@ -18,7 +18,7 @@ import pytest
 from click.testing import CliRunner
 from report_fixtures import checked, example_aligned, example_check, write_site
 
-from perfcheck import align, db, evidence, pipeline
+from perfcheck import align, db, evidence, periods, pipeline
 from perfcheck.cli import main
 from perfcheck.errors import DataError, PerfcheckError
 
@@ -36,9 +36,7 @@ def built(tmp_path_factory) -> tuple[Path, Path]:
     raw.write_text(RAW * 100)  # > 64 KiB, so the file has more than one checksum block
     con = db.connect(tmp / "site.duckdb")
     add_file(con, str(raw), hashlib.sha256(raw.read_bytes()).hexdigest(), raw.stat().st_size)
-    from perfcheck import report
-
-    start, end = report.month_period(site, "2025-06")
+    start, end = periods.month_period(site, "2025-06")
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(align, "load_aligned", lambda *a, **k: example_aligned())
         out = evidence.build_bundle(con, site, start, end, tmp / "claim.zip",

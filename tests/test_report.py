@@ -8,23 +8,18 @@ import json
 import re
 from pathlib import Path
 
-import pandas as pd
 import pytest
 from click.testing import CliRunner
-from report_fixtures import checked, example_aligned, example_check, write_site
+from report_fixtures import example_check, rendered_example, write_site
 
-from perfcheck import figures, report
+from perfcheck import figures, periods, report
 from perfcheck.cli import main
 from perfcheck.errors import SiteFileError
 
 
 @pytest.fixture(scope="module")
 def written(tmp_path_factory) -> tuple[object, dict[str, Path]]:
-    tmp = tmp_path_factory.mktemp("report")
-    site = write_site(tmp)
-    paths = report.render(site, checked(site, example_check()), example_aligned(),
-                          {"files": [], "flags": []}, tmp / "out")
-    return site, paths
+    return rendered_example(tmp_path_factory.mktemp("report"))
 
 
 def test_all_outputs_written(written):
@@ -94,14 +89,6 @@ def test_events_csv_stable_columns(written):
     assert rows[0]["kind"] == "partial_outage" and rows[0]["duration_h"] == "144.0"
 
 
-def test_month_period_follows_site_zone(tmp_path):
-    site = write_site(tmp_path)
-    start, end = report.month_period(site, "2025-03")
-    # Europe/Zurich: UTC+1 on 1 March, UTC+2 on 1 April (DST from 30 March 2025)
-    assert start == pd.Timestamp("2025-02-28T23:00Z") and end == pd.Timestamp("2025-03-31T22:00Z")
-    assert report.last_complete_month(site, pd.Timestamp("2025-07-01T00:30+02:00")) == "2025-06"
-
-
 def test_report_settings_key_errors(tmp_path):
     site = write_site(tmp_path, "[report]\ncritical_kinds = [\"fire\"]\n")
     with pytest.raises(SiteFileError, match=r"report.critical_kinds: 'fire' is not an event"):
@@ -134,7 +121,7 @@ def test_cli_bad_month(tmp_path):
 def test_demo_month_report(demo_db, tmp_path):
     """The report on a month of the invented demo plant, every stage real."""
     site = demo_db.site
-    start, end = report.month_period(site, "2025-06")
+    start, end = periods.month_period(site, "2025-06")
     con = demo_db.connect()
     try:
         paths = report.write_report(con, site, start, end, tmp_path / "out")

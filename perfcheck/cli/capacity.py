@@ -11,8 +11,8 @@ import click
 from perfcheck import capacity, metrics
 from perfcheck.site import Site
 
-from .check import DATE, json_target, open_db, write_json
-from .common import UserError, site_argument
+from .check import json_target, open_db, write_json
+from .common import UserError, day_options, site_argument
 
 
 def format_report(doc: dict[str, Any]) -> str:
@@ -49,10 +49,8 @@ def format_report(doc: dict[str, Any]) -> str:
 
 @click.command("capacity")
 @site_argument
-@click.option("--from", "date_from", type=DATE, required=True,
-              help="First day of the test window, site-local (YYYY-MM-DD).")
-@click.option("--to", "date_to", type=DATE, required=True,
-              help="Last day of the test window, site-local, included.")
+@day_options("First day of the test window, site-local (YYYY-MM-DD).",
+             "Last day of the test window, site-local, included.", required=True)
 @click.option("--guaranteed-ratio", type=click.FloatRange(0.5, 1.2), default=0.97,
               show_default=True, help="Pass when measured / expected capacity is at least this.")
 @click.option("--json", "json_path", type=click.Path(dir_okay=False, path_type=Path),

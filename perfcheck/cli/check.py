@@ -13,17 +13,7 @@ from perfcheck import db, metrics
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
-from .common import site_argument
-
-DATE = click.DateTime(formats=["%Y-%m-%d"])
-
-
-def date_options(fn: Any) -> Any:
-    """--from/--to: site-local days, both included; missing ends default to the data's."""
-    fn = click.option("--to", "date_to", type=DATE, default=None,
-                      help="Last day, site-local, included (YYYY-MM-DD; default: last data).")(fn)
-    return click.option("--from", "date_from", type=DATE, default=None,
-                        help="First day, site-local (YYYY-MM-DD; default: first data).")(fn)
+from .common import day_options, site_argument
 
 
 def open_db(db_path: Path) -> Any:
@@ -109,7 +99,8 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
 
 @click.command("check")
 @site_argument
-@date_options
+@day_options("First day, site-local (YYYY-MM-DD; default: first data).",
+             "Last day, site-local, included (YYYY-MM-DD; default: last data).")
 @click.option("--json", "json_path", type=click.Path(dir_okay=False, path_type=Path),
               default=None, help="Write the whole check document (metrics, events, losses, "
                                  "degradation, guarantees) to this JSON file.")

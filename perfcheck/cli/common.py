@@ -1,7 +1,9 @@
-"""What every command shares: the site argument, the database option, error handling."""
+"""What every command shares: the site argument, the database option, the period options,
+error handling."""
 
 from __future__ import annotations
 
+import datetime as dt
 import functools
 import sys
 from collections.abc import Callable
@@ -9,10 +11,11 @@ from pathlib import Path
 from typing import Any
 
 import click
+import pandas as pd
 
-from perfcheck import db
+from perfcheck import db, periods
 from perfcheck.errors import PerfcheckError
-from perfcheck.site import load_site
+from perfcheck.site import Site, load_site
 
 EXIT_INPUT_ERROR = 2
 
@@ -62,3 +65,50 @@ def site_argument(fn: Callable) -> Callable:
 
     return wrapper
 
+
+
+DATE = click.DateTime(formats=["%Y-%m-%d"])
+
+
+def day_options(from_help: str, to_help: str,
+                required: bool = False) -> Callable[[Callable], Callable]:
+    """--from/--to (``date_from``, ``date_to``): site-local days, both included."""
+
+    def decorate(fn: Callable) -> Callable:
+        fn = click.option("--to", "date_to", type=DATE, default=None, required=required,
+                          help=to_help)(fn)
+        return click.option("--from", "date_from", type=DATE, default=None, required=required,
+                            help=from_help)(fn)
+
+    return decorate
+
+
+def period_options(fn: Callable) -> Callable:
+    """--month or --from/--to (site-local days, both included); see :func:`resolve_period`."""
+    fn = day_options("First day, site-local (YYYY-MM-DD).",
+                     "Last day, site-local, included (YYYY-MM-DD).")(fn)
+    return click.option("--month", default=None, help="A calendar month, YYYY-MM.")(fn)
+
+
+def resolve_period(site: Site, month: str | None, date_from: dt.datetime | None,
+                   date_to: dt.datetime | None) -> tuple[pd.Timestamp, pd.Timestamp]:
+    """The [start, end) in UTC from the period options; refuses conflicting options."""
+    if month and (date_from or date_to):
+        raise UserError("give either --month or --from/--to, not both")
+    if month:
+        return periods.month_period(site, month)
+    if date_from is None or date_to is None:
+        raise UserError("give --month YYYY-MM, or both --from and --to")
+    return periods.day_period(site, date_from.date(), date_to.date())
+
+
+def period_args(month: str | None, date_from: Any, date_to: Any) -> str:
+    """The period options as typed, for the command line recorded with a result."""
+    if month:
+        return f"--month {month}"
+    return f"--from {date_from:%Y-%m-%d} --to {date_to:%Y-%m-%d}"
+
+
+def utc_span(first: dt.datetime, last: dt.datetime) -> str:
+    """``YYYY-MM-DD HH:MM to YYYY-MM-DD HH:MM UTC`` for two UTC instants."""
+    return f"{first:%Y-%m-%d %H:%M} to {last:%Y-%m-%d %H:%M} UTC"

@@ -8,8 +8,13 @@ from typing import Any
 import click
 
 from perfcheck import db, evidence
-from perfcheck.cli.common import handle_errors, site_argument
-from perfcheck.cli.report import period_args, period_options, resolve_period
+from perfcheck.cli.common import (
+    handle_errors,
+    period_args,
+    period_options,
+    resolve_period,
+    site_argument,
+)
 from perfcheck.site import Site
 
 
@@ -29,7 +34,7 @@ def evidence_command(site: Site, db_path: Path, month: str | None, date_from: An
       perfcheck evidence site.toml --from 2025-04-01 --to 2025-06-30 --out claim.zip
     """
     start, end = resolve_period(site, month, date_from, date_to)
-    command = f"perfcheck evidence {site.path} {period_args(site, month, date_from, date_to)} " \
+    command = f"perfcheck evidence {site.path} {period_args(month, date_from, date_to)} " \
               f"--out {out_zip}"
     con = db.connect(db_path)  # the check stores its events
     try:

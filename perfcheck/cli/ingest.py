@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from perfcheck import db, quality
-from perfcheck.cli.common import site_argument
+from perfcheck.cli.common import site_argument, utc_span
 from perfcheck.ingest import FileResult, expand_paths, ingest_files
 from perfcheck.site import Site
 
@@ -18,7 +18,7 @@ def format_result(res: FileResult) -> str:
         return f"{res.path}: already ingested (file {res.file_id}), nothing changed"
     span = ""
     if res.first_ts is not None:
-        span = f", {res.first_ts:%Y-%m-%d %H:%M} to {res.last_ts:%Y-%m-%d %H:%M} UTC"
+        span = f", {utc_span(res.first_ts, res.last_ts)}"
     return (
         f"{res.path}: {res.rows_read} rows read = {res.rows_loaded} loaded"
         f" + {res.rows_duplicate} duplicate + {res.rows_quarantined} quarantined;"

@@ -9,7 +9,7 @@ import click
 import pandas as pd
 
 from perfcheck import align, db, model, progress
-from perfcheck.cli.common import site_argument
+from perfcheck.cli.common import site_argument, utc_span
 from perfcheck.site import Site
 
 
@@ -53,8 +53,7 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
             click.echo(f"model run {res['model_run_id']}: no new readings, nothing recomputed")
         else:
             click.echo(f"model run {res['model_run_id']}: {res['rows']} rows from "
-                       f"{res['computed_from']:%Y-%m-%d %H:%M} to "
-                       f"{res['computed_to']:%Y-%m-%d %H:%M} UTC")
+                       f"{utc_span(res['computed_from'], res['computed_to'])}")
         click.echo(format_summary(align.monthly_summary(con, site)))
     finally:
         con.close()

@@ -2,46 +2,14 @@
 
 from __future__ import annotations
 
-import datetime as dt
-from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 import click
-import pandas as pd
 
 from perfcheck import db, report
-from perfcheck.cli.common import UserError, site_argument
+from perfcheck.cli.common import period_options, resolve_period, site_argument
 from perfcheck.site import Site
-
-DATE = click.DateTime(formats=["%Y-%m-%d"])
-
-
-def period_options(fn: Callable) -> Callable:
-    """--month or --from/--to (site-local days, both included)."""
-    fn = click.option("--to", "date_to", type=DATE, default=None,
-                      help="Last day, site-local, included (YYYY-MM-DD).")(fn)
-    fn = click.option("--from", "date_from", type=DATE, default=None,
-                      help="First day, site-local (YYYY-MM-DD).")(fn)
-    return click.option("--month", default=None, help="A calendar month, YYYY-MM.")(fn)
-
-
-def resolve_period(site: Site, month: str | None, date_from: dt.datetime | None,
-                   date_to: dt.datetime | None) -> tuple[pd.Timestamp, pd.Timestamp]:
-    """The [start, end) in UTC from the period options; refuses conflicting options."""
-    if month and (date_from or date_to):
-        raise UserError("give either --month or --from/--to, not both")
-    if month:
-        return report.month_period(site, month)
-    if date_from is None or date_to is None:
-        raise UserError("give --month YYYY-MM, or both --from and --to")
-    return report.day_period(site, date_from.date(), date_to.date())
-
-
-def period_args(site: Site, month: str | None, date_from: Any, date_to: Any) -> str:
-    if month:
-        return f"--month {month}"
-    return f"--from {date_from:%Y-%m-%d} --to {date_to:%Y-%m-%d}"
 
 
 @click.command("report")
