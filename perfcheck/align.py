@@ -3,8 +3,11 @@
 Stage "align". Measured AC power of an inverter comes, in this order, from its mean AC power
 readings, from its interval energy (divided by the logging interval), or from differences of
 its energy register (:func:`register_power`). Expected values, sun position and site weather
-are joined on the same interval; the quality flags of the readings behind each row come from
-the ``flags`` table through the ``aligned`` view (see ``sql/schema_30_model.sql``).
+are joined on the same interval (with the expected power and cell temperature from the
+modelled POA alone, ``expected_ac_modelled_w``, ``potential_ac_modelled_w`` and
+``temp_cell_modelled_c``, the stand-in where the POA sensor is suspect); the quality flags of
+the readings behind each row come from the ``flags`` table through the ``aligned`` view
+(see ``sql/schema_30_model.sql``).
 
 :func:`refresh` is called by :func:`perfcheck.model.run`; later stages read
 :func:`load_aligned`.
@@ -23,7 +26,8 @@ ALIGNED_COLUMNS = (
     "ts", "inverter_id", "interval_s", "measured_ac_w", "expected_ac_w", "potential_ac_w",
     "expected_dc_w", "poa_wm2", "poa_modelled_wm2", "poa_source", "ghi_wm2", "clearsky_ghi_wm2",
     "temp_air_c", "wind_speed_ms", "temp_module_c", "temp_cell_c", "rain_mm", "sun_zenith_deg",
-    "sun_azimuth_deg", "flags",
+    "sun_azimuth_deg", "flags", "expected_ac_modelled_w", "potential_ac_modelled_w",
+    "temp_cell_modelled_c",
 )
 # A register step above this multiple of the inverter's AC rating times the elapsed time is a
 # reset or a replaced meter, not energy (physical bound with margin; common practice).
@@ -182,7 +186,8 @@ def load_aligned(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
     hi = pd.Timestamp("2200-01-01", tz="UTC") if end is None else _utc(end, "end")
     df = con.execute(db.sql("align_load"), {"start": lo, "end": hi}).df()
     df["ts"] = pd.to_datetime(df["ts"], utc=True)
-    for c in ("measured_ac_w", "expected_ac_w", "potential_ac_w", "expected_dc_w"):
+    for c in ("measured_ac_w", "expected_ac_w", "potential_ac_w", "expected_dc_w",
+              "expected_ac_modelled_w", "potential_ac_modelled_w"):
         df[c] = df[c].astype(float)
     return df[list(ALIGNED_COLUMNS)]
 

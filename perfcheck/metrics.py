@@ -25,7 +25,10 @@ Rules (also written into every result's ``settings``):
   geometric sunrise and sunset, so days with no rows at all count as missing). A value is
   reported only when coverage is at least ``min_coverage``; otherwise it is null with a reason.
 - Sensor-fault windows (detected events): the reference yield uses the modelled irradiance
-  there, with the modelled-irradiance uncertainty, and the rows are counted.
+  there, with the modelled-irradiance uncertainty, and the expected power (EPI, energy-based
+  availability, gap filling of the specific yield) the expected power computed from that
+  modelled irradiance (``expected_ac_modelled_w`` of ``aligned``); the rows and their expected
+  energy are reported (``model_poa_intervals``, ``model_poa_expected_kwh``).
 - Plant: sums over inverters. The plant's reference yield is the P0-weighted mean of the
   inverters' plane-of-array irradiation (each inverter's irradiance as ``aligned`` gives it for
   its plane), so a plant with several orientations gets PR = sum E / sum(P0_i H_i / G_STC).
@@ -71,9 +74,9 @@ IRRADIANCE_METRICS = ("pr", "pr_temp_corrected", "pr_weather_corrected", "epi")
 # The additive daily columns the metrics are built from (after scaling by P0, see scope_sums).
 SUM_COLUMNS = (
     "p0_w", "n_daylight", "n_nominal", "n_valid", "n_excluded", "n_used", "n_fallback", "n_dc",
-    "e_meas_wh", "e_exp_wh", "e_dc_wh", "ref_wh", "ref_sensor_wh", "refg_wh", "refgt_wh",
-    "w_base", "w_up", "e_base_exp_wh", "e_down_exp_wh", "e_meas_all_wh", "e_exp_all_wh",
-    "e_exp_gap_wh",
+    "e_meas_wh", "e_exp_wh", "e_exp_fallback_wh", "e_dc_wh", "ref_wh", "ref_sensor_wh",
+    "refg_wh", "refgt_wh", "w_base", "w_up", "e_base_exp_wh", "e_down_exp_wh", "e_meas_all_wh",
+    "e_exp_all_wh", "e_exp_gap_wh",
 )
 
 
@@ -101,7 +104,8 @@ class Settings:
     exclude_grid_outages : leave plant-wide outage events out likewise (false: from power data
         alone they cannot be told from a plant fault)
     sensor_fault_fallback : inside sensor-fault events use the modelled plane-of-array
-        irradiance for the reference yield (true); counted as model_poa_intervals
+        irradiance for the reference yield and the expected power from it (true); counted
+        as model_poa_intervals and model_poa_expected_kwh
     pr_temp_ref_c : T_ref of the temperature-corrected PR [C] (25), or "annual" for the
         irradiance-weighted mean cell temperature (then equal to the weather-corrected PR)
     t_cell_typ_avg_c : T_cell_typ_avg of the weather-corrected PR [C] (default: from the data)
@@ -599,6 +603,7 @@ def _amounts(s: Mapping[str, np.ndarray], i: int) -> dict[str, Any]:
         "used_intervals": int(s["n_used"][i]),
         "excluded_intervals": int(s["n_excluded"][i]),
         "model_poa_intervals": int(s["n_fallback"][i]),
+        "model_poa_expected_kwh": s["e_exp_fallback_wh"][i] / 1000.0,
     }
 
 
@@ -796,7 +801,8 @@ _RULES = [
     "exclusion windows: curtailment events (exclude_curtailment) and plant-wide outage events "
     "taken as grid outages (exclude_grid_outages)",
     "sensor-fault events (sensor_fault_fallback): modelled plane-of-array irradiance for the "
-    "reference yield, counted as model_poa_intervals, at modelled_poa_uncertainty_pct",
+    "reference yield, at modelled_poa_uncertainty_pct, and the expected power computed from it "
+    "for EPI and availability, counted as model_poa_intervals and model_poa_expected_kwh",
     "coverage: valid daylight intervals / calendar daylight intervals; below min_coverage a "
     "value is null with a reason",
     "plant reference yield: P0-weighted mean of the inverters' plane-of-array irradiation",
@@ -814,7 +820,8 @@ def event_windows(events: Sequence[Mapping[str, Any]], settings: Settings) -> pd
     taken as grid outages, if ``exclude_grid_outages`` (from power data alone a grid outage
     cannot be told from a plant-wide stop: turn it on where the grid operator confirms them).
     action 'model_poa': sensor faults if ``sensor_fault_fallback``; there the reference yield
-    uses the modelled plane-of-array irradiance (with the modelled-irradiance uncertainty).
+    uses the modelled plane-of-array irradiance (with the modelled-irradiance uncertainty) and
+    the expected power the one computed from it.
     """
     keep = []
     for ev in events:

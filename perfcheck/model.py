@@ -15,6 +15,13 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
   GHI is logged, else from the components that explain the sensor's reading (GTI-DIRINT, Marion
   2015), i.e. decomposed and transposed again. The modelled POA is kept beside the sensor's,
   and their daily ratio is summarised in the run's checks.
+* Beside the expected series from the irradiance used, the same chain is run from the
+  modelled POA alone (``ac_modelled_w``, ``ac_potential_modelled_w``, and the cell
+  temperature ``temp_cell_modelled_c``, which depends on the POA unless a module temperature
+  is logged): equal to the normal series for arrays the sensor does not feed, and the
+  stand-in where the sensor is suspect (the metrics use it inside detected sensor-fault
+  windows). Where no GHI is logged the modelled POA itself comes from the sensor (GTI-DIRINT),
+  so it cannot stand in for a faulty sensor there.
 * Incidence-angle losses apply to modelled irradiance and to a pyranometer's reading (scaled by
   the modelled ratio of effective to total POA); a reference cell's reading is taken as the
   effective irradiance.
@@ -50,7 +57,7 @@ from perfcheck.errors import DataError
 from perfcheck.site import DEVICE_QUANTITIES, Array, Inverter, Site
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "2"
+MODEL_VERSION = "3"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
 WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
@@ -224,8 +231,8 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
                      weather: pd.DataFrame, site: Site, source: str) -> pd.DataFrame:
     """POA (total, effective, modelled) and its source for one array.
 
-    Returns ``poa_global``, ``poa_effective``, ``poa_modelled`` [W/m^2] and ``from_sensor``
-    (bool).
+    Returns ``poa_global``, ``poa_effective``, ``poa_modelled``, ``poa_effective_modelled``
+    [W/m^2] (the last two from the GHI path, whatever the source) and ``from_sensor`` (bool).
     """
     m = site.model
     mod = ph.poa_components(array.tilt_deg, array.azimuth_deg, sun, comps["ghi"], comps["dni"],
@@ -246,12 +253,14 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
         else:
             glob, eff = sensor, sensor_eff
     return pd.DataFrame({"poa_global": glob, "poa_effective": eff,
-                         "poa_modelled": mod["poa_global"], "from_sensor": from_sensor})
+                         "poa_modelled": mod["poa_global"],
+                         "poa_effective_modelled": mod["poa_effective"],
+                         "from_sensor": from_sensor})
 
 
-def array_temperature(array: Array, irr: pd.DataFrame, weather: pd.DataFrame, site: Site
+def array_temperature(array: Array, poa_global: pd.Series, weather: pd.DataFrame, site: Site
                       ) -> pd.Series:
-    """Cell temperature of one array [C].
+    """Cell temperature of one array [C] at plane-of-array irradiance ``poa_global`` [W/m^2].
 
     A logged back-of-module temperature is used only for arrays that share the plane,
     mounting and construction of the array carrying the POA sensor, where it is taken to be
@@ -273,17 +282,20 @@ def array_temperature(array: Array, irr: pd.DataFrame, weather: pd.DataFrame, si
                 if in_plane(array, sensor_plane(site))
                 and (array.mounting, array.construction) == (twin.mounting, twin.construction)
                 else None)
-    return ph.cell_temperature(irr["poa_global"], temp_air, wind, array.mounting,
+    return ph.cell_temperature(poa_global, temp_air, wind, array.mounting,
                                array.construction, site.model.temperature_model, measured)
 
 
 def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: pd.DataFrame,
                 site: Site, source: str, loss_factor: np.ndarray,
-                planes: dict[tuple, tuple[pd.DataFrame, pd.Series]]) -> pd.DataFrame:
+                planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]]
+                ) -> pd.DataFrame:
     """DC power of an inverter (sum over its arrays) and DC-rating-weighted plane quantities.
 
-    ``planes`` caches irradiance and cell temperature per distinct plane and mounting, so
-    arrays that share them are computed once.
+    ``dc`` from the irradiance used, ``dc_modelled`` from the modelled POA alone (the same
+    values for arrays the sensor does not feed). ``planes`` caches irradiance and cell
+    temperature (from the irradiance used, and from the modelled POA) per distinct plane and
+    mounting, so arrays that share them are computed once.
     """
     total = inv.dc_kwp
     out: pd.DataFrame | None = None
@@ -293,17 +305,24 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
                array.construction)
         if key not in planes:
             irr = array_irradiance(array, sun, comps, weather, site, source)
-            planes[key] = irr, array_temperature(array, irr, weather, site)
-        irr, temp_cell = planes[key]
-        dc = ph.dc_power(irr["poa_effective"], temp_cell, array.dc_kwp * 1000.0,
-                         array.gamma_pct_per_c / 100.0, loss_factor)
+            temp_cell = array_temperature(array, irr["poa_global"], weather, site)
+            temp_modelled = (array_temperature(array, irr["poa_modelled"], weather, site)
+                             if irr["from_sensor"].any() else None)
+            planes[key] = irr, temp_cell, temp_modelled
+        irr, temp_cell, temp_modelled = planes[key]
+        pdc0, gamma = array.dc_kwp * 1000.0, array.gamma_pct_per_c / 100.0
+        dc = ph.dc_power(irr["poa_effective"], temp_cell, pdc0, gamma, loss_factor)
+        dc_modelled = dc if temp_modelled is None else ph.dc_power(
+            irr["poa_effective_modelled"], temp_modelled, pdc0, gamma, loss_factor)
         w = array.dc_kwp / total
         frame = pd.DataFrame({
             "poa_global": irr["poa_global"] * w,
             "poa_effective": irr["poa_effective"] * w,
             "poa_modelled": irr["poa_modelled"] * w,
             "temp_cell": temp_cell * w,
+            "temp_cell_modelled": (temp_cell if temp_modelled is None else temp_modelled) * w,
             "dc": dc,
+            "dc_modelled": dc_modelled,
         })
         out = frame if out is None else out + frame
         sensor_all &= irr["from_sensor"]
@@ -330,36 +349,53 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.D
     pandas.DataFrame
         ``ts``, ``inverter_id``, ``poa_global_wm2``, ``poa_effective_wm2``,
         ``poa_modelled_wm2``, ``poa_source``, ``temp_cell_c``, ``dc_w``, ``ac_potential_w``,
-        ``ac_w`` (AC rating and plant export limit applied).
+        ``ac_w`` (AC rating and plant export limit applied), and ``temp_cell_modelled_c``,
+        ``ac_potential_modelled_w``, ``ac_modelled_w``: the same three from the modelled POA
+        alone (cell temperature, DC and AC rerun from it for arrays in the sensor's plane;
+        equal to the normal values for the others).
     """
     source = irradiance_source(site, weather)
     comps = horizontal_components(weather, sun, site)
     loss = site.losses.dc_factor * ph.age_factor(
         sun.index, site.commissioned, site.losses.degradation_pct_per_year)
     per_inv: dict[str, pd.DataFrame] = {}
-    planes: dict[tuple, tuple[pd.DataFrame, pd.Series]] = {}
+    # AC power from the modelled POA alone, where it differs (an array fed by the sensor)
+    per_mod: dict[str, pd.DataFrame] = {}
+    planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]] = {}
     for inv in site.inverters:
         d = inverter_dc(inv, sun, comps, weather, site, source, loss, planes)
         ac = ph.ac_power(d["dc"], inv.ac_kw * 1000.0, inv.efficiency_pct / 100.0,
                          inv.night_tare_w)
         per_inv[inv.id] = d.join(ac)
+        if not d["dc_modelled"].equals(d["dc"]):
+            per_mod[inv.id] = ph.ac_power(d["dc_modelled"], inv.ac_kw * 1000.0,
+                                          inv.efficiency_pct / 100.0, inv.night_tare_w)
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     limited = ph.export_limited(pd.DataFrame({k: v["ac"] for k, v in per_inv.items()}), limit)
-    frames = []
-    for inv_id, d in per_inv.items():
-        frames.append(pd.DataFrame({
-            "ts": d.index,
-            "inverter_id": inv_id,
-            "poa_global_wm2": d["poa_global"].to_numpy(),
-            "poa_effective_wm2": d["poa_effective"].to_numpy(),
-            "poa_modelled_wm2": d["poa_modelled"].to_numpy(),
-            "poa_source": d["poa_source"].to_numpy(),
-            "temp_cell_c": d["temp_cell"].to_numpy(),
-            "dc_w": d["dc"].to_numpy(),
-            "ac_potential_w": d["ac_potential"].to_numpy(),
-            "ac_w": limited[inv_id].to_numpy(),
-        }))
-    return pd.concat(frames, ignore_index=True)
+    # the export limit is shared by the plant: applied to the all-modelled series as a whole
+    modelled = {k: per_mod.get(k, v) for k, v in per_inv.items()}
+    limited_mod = limited if not per_mod else ph.export_limited(
+        pd.DataFrame({k: v["ac"] for k, v in modelled.items()}), limit)
+    # Long format, inverter after inverter. The float columns are written straight into one
+    # block (a single copy of the data: this frame is the largest thing the model makes).
+    ids = list(per_inv)
+    floats = {out: [per_inv[k][col] for k in ids] for out, col in (
+        ("poa_global_wm2", "poa_global"), ("poa_effective_wm2", "poa_effective"),
+        ("poa_modelled_wm2", "poa_modelled"), ("temp_cell_c", "temp_cell"), ("dc_w", "dc"),
+        ("ac_potential_w", "ac_potential"), ("temp_cell_modelled_c", "temp_cell_modelled"))}
+    floats["ac_w"] = [limited[k] for k in ids]
+    floats["ac_potential_modelled_w"] = [modelled[k]["ac_potential"] for k in ids]
+    floats["ac_modelled_w"] = [limited_mod[k] for k in ids]
+    n = len(sun.index)
+    block = np.empty((len(floats), len(ids) * n))
+    for row, parts in zip(block, floats.values(), strict=True):
+        np.concatenate([p.to_numpy(dtype=float) for p in parts], out=row)
+    out = pd.DataFrame(block.T, columns=list(floats), copy=False)
+    out.insert(0, "ts", sun.index[np.tile(np.arange(n), len(ids))])
+    out.insert(1, "inverter_id", np.repeat(np.array(ids, dtype=object), n))
+    out.insert(5, "poa_source", np.concatenate([per_inv[k]["poa_source"].to_numpy()
+                                                for k in ids]))
+    return out
 
 
 CLEAR_SKY_INDEX = 0.7  # intervals this close to clear sky are compared (common practice)

@@ -8,7 +8,8 @@ WITH e AS (
     SELECT coalesce(e.ts, m.ts) AS ts, coalesce(e.inverter_id, m.inverter_id) AS inverter_id,
            m.measured_ac_w, e.ac_w AS expected_ac_w, e.ac_potential_w AS potential_ac_w,
            e.dc_w AS expected_dc_w, e.poa_global_wm2 AS poa_wm2, e.poa_modelled_wm2,
-           e.poa_source, e.temp_cell_c
+           e.poa_source, e.temp_cell_c, e.ac_modelled_w AS expected_ac_modelled_w,
+           e.ac_potential_modelled_w AS potential_ac_modelled_w, e.temp_cell_modelled_c
     FROM e FULL JOIN _measured m ON m.ts = e.ts AND m.inverter_id = e.inverter_id
 )
 SELECT j.*, $iv AS interval_s, $id AS model_run_id, c.ghi_wm2, c.temp_air_c,

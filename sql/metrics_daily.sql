@@ -4,7 +4,10 @@
 -- $avail_min_poa [W/m2], $exclude_flags (flag names that make a row invalid).
 -- Registered relations: _metrics_inverters(inverter_id, down_w) and
 -- _metrics_windows(action, scope, start_ts, end_ts) from detected events: action 'exclude'
--- (curtailment / grid outage) or 'model_poa' (suspect irradiance sensor: use modelled POA).
+-- (curtailment / grid outage) or 'model_poa' (suspect irradiance sensor: there the
+-- irradiance, the expected power and the cell temperature come from the modelled POA,
+-- poa_modelled_wm2, expected_ac_modelled_w, temp_cell_modelled_c, and the rows are counted
+-- as fallback).
 -- Rules: a row is daylight when the sun is above the horizon; valid when measured power,
 -- expected power and plane-of-array irradiance are present and it carries none of the excluded
 -- flags; used (for yields, PR, EPI) when daylight, valid, outside the exclusion windows and its
@@ -23,7 +26,7 @@ w AS (
               AND (x.scope = 'plant' OR x.scope = 'inverter:' || a.inverter_id)
               AND a.ts >= x.start_ts AND a.ts < x.end_ts
         ) AS excluded,
-        a.poa_modelled_wm2 IS NOT NULL AND EXISTS (
+        a.poa_modelled_wm2 IS NOT NULL AND a.expected_ac_modelled_w IS NOT NULL AND EXISTS (
             SELECT 1 FROM _metrics_windows x
             WHERE x.action = 'model_poa'
               AND (x.scope = 'plant' OR x.scope = 'inverter:' || a.inverter_id)
@@ -39,15 +42,16 @@ r AS (
         w.interval_s,
         w.interval_s / 3600.0 AS dt_h,
         w.measured_ac_w AS p,
-        w.expected_ac_w AS p_exp,
+        CASE WHEN w.fallback THEN w.expected_ac_modelled_w ELSE w.expected_ac_w END AS p_exp,
         CASE WHEN w.fallback THEN w.poa_modelled_wm2 ELSE w.poa_wm2 END AS g,
-        w.temp_cell_c AS t,
+        CASE WHEN w.fallback THEN coalesce(w.temp_cell_modelled_c, w.temp_cell_c)
+             ELSE w.temp_cell_c END AS t,
         coalesce(w.poa_source = 'sensor', false) AND NOT w.fallback AS sensor,
         w.fallback,
         w.excluded,
         dc.dc_w,
         coalesce(w.sun_zenith_deg < 90, false) AS daylight,
-        w.measured_ac_w IS NOT NULL AND w.expected_ac_w IS NOT NULL
+        w.measured_ac_w IS NOT NULL AND (w.expected_ac_w IS NOT NULL OR w.fallback)
             AND (w.poa_wm2 IS NOT NULL OR w.fallback)
             AND (coalesce(w.flags, '') = ''
                  OR NOT list_has_any(string_split(w.flags, ','), $exclude_flags)) AS valid,
@@ -74,6 +78,7 @@ SELECT
     count(dc_w) FILTER (WHERE used) AS n_dc,
     coalesce(sum(p * dt_h) FILTER (WHERE used), 0) AS e_meas_wh,
     coalesce(sum(p_exp * dt_h) FILTER (WHERE used), 0) AS e_exp_wh,
+    coalesce(sum(p_exp * dt_h) FILTER (WHERE used AND fallback), 0) AS e_exp_fallback_wh,
     coalesce(sum(dc_w * dt_h) FILTER (WHERE used), 0) AS e_dc_wh,
     coalesce(sum(g * dt_h) FILTER (WHERE used), 0) AS h_whm2,
     coalesce(sum(g * dt_h) FILTER (WHERE used AND sensor), 0) AS h_sensor_whm2,

@@ -28,6 +28,13 @@ CREATE TABLE IF NOT EXISTS expected (
     ac_w              DOUBLE,   -- with AC rating (clipping) and plant export limit
     model_run_id      INTEGER NOT NULL
 );
+-- Cell temperature and the AC powers from the modelled POA alone (equal to the above for
+-- arrays the POA sensor does not feed): the stand-in where the sensor is suspect. Added by
+-- ALTER so that databases made before these columns existed get them too (their runs are not
+-- reused: perfcheck.model.MODEL_VERSION is part of the run's parameters).
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_potential_modelled_w DOUBLE;
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_modelled_w DOUBLE;
 
 -- The conditions of each interval as the model used them: the sun at the interval's mid-point
 -- and the site weather (coarser weather held over its own interval, finer weather averaged).
@@ -67,6 +74,9 @@ CREATE TABLE IF NOT EXISTS aligned_base (
     sun_azimuth_deg  DOUBLE,
     model_run_id     INTEGER NOT NULL
 );
+ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;
+ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS expected_ac_modelled_w DOUBLE;
+ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS potential_ac_modelled_w DOUBLE;
 
 -- Which model run and which source files aligned_base reflects (one row).
 CREATE TABLE IF NOT EXISTS align_state (
@@ -90,5 +100,6 @@ WITH fl AS (
 SELECT a.ts, a.inverter_id, a.interval_s, a.measured_ac_w, a.expected_ac_w, a.potential_ac_w,
        a.expected_dc_w, a.poa_wm2, a.poa_modelled_wm2, a.poa_source, a.ghi_wm2,
        a.clearsky_ghi_wm2, a.temp_air_c, a.wind_speed_ms, a.temp_module_c, a.temp_cell_c,
-       a.rain_mm, a.sun_zenith_deg, a.sun_azimuth_deg, coalesce(fa.flags, '') AS flags
+       a.rain_mm, a.sun_zenith_deg, a.sun_azimuth_deg, coalesce(fa.flags, '') AS flags,
+       a.expected_ac_modelled_w, a.potential_ac_modelled_w, a.temp_cell_modelled_c
 FROM aligned_base a LEFT JOIN fa USING (ts, inverter_id);

@@ -51,7 +51,8 @@ COLUMNS = [
     "ts", "inverter_id", "interval_s", "measured_ac_w", "expected_ac_w", "potential_ac_w",
     "expected_dc_w", "poa_wm2", "poa_modelled_wm2", "poa_source", "ghi_wm2", "clearsky_ghi_wm2",
     "temp_air_c", "wind_speed_ms", "temp_module_c", "temp_cell_c", "rain_mm", "sun_zenith_deg",
-    "sun_azimuth_deg", "flags",
+    "sun_azimuth_deg", "flags", "expected_ac_modelled_w", "potential_ac_modelled_w",
+    "temp_cell_modelled_c",
 ]
 
 
@@ -149,8 +150,9 @@ def synthetic_aligned(
 
     Truth: measured = performance * P0 * G/1000 * (1 + gamma (T_cell - 25)) * (1 + noise e),
     e standard normal per interval; expected is the same without noise and with performance
-    0.85 fixed, so the true EPI is performance / 0.85. Irradiance is Haurwitz clear sky times a
-    random daily cloud factor; air temperature has a yearly and a daily cycle.
+    0.85 fixed, so the true EPI is performance / 0.85; the modelled-POA expected power and
+    cell temperature equal the normal ones (sensor and model agree). Irradiance is Haurwitz
+    clear sky times a random daily cloud factor; air temperature has a yearly and a daily cycle.
     """
     rng = np.random.default_rng(seed)
     step = pd.Timedelta(freq)
@@ -186,6 +188,8 @@ def synthetic_aligned(
             "clearsky_ghi_wm2": ghi_clear, "temp_air_c": temp_air, "wind_speed_ms": wind,
             "temp_module_c": temp_cell - 3.0, "temp_cell_c": temp_cell, "rain_mm": 0.0,
             "sun_zenith_deg": zen, "sun_azimuth_deg": sun["azimuth"].to_numpy(), "flags": "",
+            "expected_ac_modelled_w": expected, "potential_ac_modelled_w": expected_unlimited,
+            "temp_cell_modelled_c": temp_cell,
         }))
     return pd.concat(frames, ignore_index=True)
 

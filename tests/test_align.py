@@ -85,6 +85,31 @@ def test_aligned_rows_columns_and_flags(tmp_path):
     assert df["sun_zenith_deg"].min() > 20 and df["clearsky_ghi_wm2"].max() > 800
 
 
+def test_aligned_carries_the_modelled_poa_expected_power(tmp_path):
+    # Synthetic truth (invented readings): a POA sensor in INV1's plane reading 10 % below a
+    # plain 1.1 x GHI. The aligned rows carry the expected power from the modelled POA beside
+    # the normal one: for INV1 (fed by the sensor) as the model stored it, above the sensor's
+    # expected power at midday; for INV2 (other planes) the same as the normal expected power.
+    site, con = _stored_site(tmp_path)
+    w = clear_days("2024-06-30", 2)
+    store(con, pd.DataFrame({"poa_wm2": w["ghi_wm2"] * 1.1 * 0.9}, index=w.index), "site", 1)
+    model.run(con, site)
+    df = align.load_aligned(con, site).set_index(["inverter_id", "ts"])
+    exp = con.execute("SELECT inverter_id, ts, ac_modelled_w, ac_potential_modelled_w, "
+                      "temp_cell_modelled_c FROM expected").df()
+    exp = exp.set_index(["inverter_id", pd.to_datetime(exp["ts"], utc=True)]).drop(columns="ts")
+    exp = exp.reindex(df.index)
+    assert_allclose(df["expected_ac_modelled_w"], exp["ac_modelled_w"], rtol=1e-12)
+    assert_allclose(df["potential_ac_modelled_w"], exp["ac_potential_modelled_w"], rtol=1e-12)
+    assert_allclose(df["temp_cell_modelled_c"], exp["temp_cell_modelled_c"], rtol=1e-12)
+    inv1, inv2 = df.loc["INV1"], df.loc["INV2"]
+    assert (inv1["poa_source"][inv1["poa_wm2"] > 100] == "sensor").all()
+    noon = inv1.index.hour == 11
+    assert (inv1.loc[noon, "expected_ac_modelled_w"] > inv1.loc[noon, "expected_ac_w"]).all()
+    assert_allclose(inv2["expected_ac_modelled_w"], inv2["expected_ac_w"], rtol=0, atol=0)
+    assert_allclose(inv2["potential_ac_modelled_w"], inv2["potential_ac_w"], rtol=0, atol=0)
+
+
 def test_load_aligned_bounds(tmp_path):
     site, con = _stored_site(tmp_path)
     with pytest.raises(DataError, match="run 'perfcheck model' first"):

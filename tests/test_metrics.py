@@ -349,3 +349,37 @@ def test_sensor_fault_window_falls_back_to_modelled_irradiance():
     assert fixed["model_poa_intervals"] > 0 and biased["model_poa_intervals"] == 0
     # the modelled share carries the larger modelled-irradiance uncertainty (5 % vs 3 %)
     assert fixed["pr_ci_high"] - fixed["pr_ci_low"] > healthy["pr_ci_high"] - healthy["pr_ci_low"]
+
+
+def test_sensor_fault_window_takes_the_expected_power_from_the_modelled_poa():
+    # Synthetic truth (invented fault): for a week the POA sensor reads 10 % low, and so do
+    # the expected power built from it (expected and potential x 0.9, AC limit kept) and the
+    # cell temperature modelled from it (the generator's T_air + 25 C x POA / 1000); the
+    # values from the modelled POA are the true ones. Inside the detected window the EPI,
+    # energy-based availability, reference yield and temperature-corrected PR must be those of
+    # the fault-free data (exactly: the same sums), and the result says how much came from
+    # the model.
+    site = make_site()
+    frame = synthetic_aligned(site, "2025-06-01", "2025-07-01")
+    week = (frame["ts"] >= utc("2025-06-10")) & (frame["ts"] < utc("2025-06-17"))
+    truth = connect_with(frame)
+    frame.loc[week, "poa_wm2"] *= 0.9
+    frame.loc[week, "potential_ac_w"] *= 0.9
+    frame.loc[week, "expected_ac_w"] = np.minimum(frame.loc[week, "potential_ac_w"], 90_000.0)
+    frame.loc[week, "temp_cell_c"] = (frame.loc[week, "temp_air_c"]
+                                      + frame.loc[week, "poa_wm2"] / 1000.0 * 25.0)
+    con = connect_with(frame)
+    start, end = metrics.resolve_period(con, site, None, None)
+    healthy = metrics.compute(truth, site, start, end)["metrics"]["period"]
+    biased = metrics.compute(con, site, start, end)["metrics"]["period"]
+    event = [{"kind": "sensor_fault", "scope": "plant", "start": "2025-06-10T02:00:00+02:00",
+              "end": "2025-06-17T02:00:00+02:00"}]
+    windows = metrics.event_windows(event, metrics.load_settings(site))
+    fixed = metrics.compute(con, site, start, end, windows)["metrics"]["period"]
+    assert biased["epi"] > healthy["epi"] * 1.015  # a week of 30 days 10 % low: about 2 %
+    for k in ("epi", "pr", "pr_temp_corrected", "availability_energy", "expected_kwh"):
+        assert_allclose(fixed[k], healthy[k], rtol=1e-9)
+    inside = week & (frame["sun_zenith_deg"] < 90)
+    want_kwh = (frame.loc[inside, "expected_ac_modelled_w"] * 0.25).sum() / 1000.0
+    assert_allclose(fixed["model_poa_expected_kwh"], want_kwh, rtol=1e-6)
+    assert biased["model_poa_expected_kwh"] == 0

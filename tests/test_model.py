@@ -102,6 +102,39 @@ def test_pyranometer_reading_gets_the_incidence_loss(tmp_path):
     assert_allclose(check["median_ratio"], 1.05, rtol=1e-6)
 
 
+def test_modelled_poa_expected_power_beside_the_sensor_one(tmp_path):
+    # Synthetic truth (invented weather): a pyranometer in INV1's plane that reads 10 % low.
+    # The expected power "from the modelled POA alone" must be what the same chain gives with
+    # no sensor at all (the GHI path), for every inverter, with and without a shared export
+    # limit; INV2 is in other planes, so there it equals the normal expected power.
+    for extra in ("", "export_limit_kw = 10.0"):
+        site = make_site(tmp_path, site_extra=extra)
+        w = clear_days("2024-06-01", 1, scale=1.0).rename(
+            columns={"ghi_wm2": "ghi", "temp_air_c": "temp_air", "wind_speed_ms": "wind_speed"})
+        sun = model.site_sun(w.index, site, 900)
+        ghi_only = model.expected_power(w, sun, site).set_index(["inverter_id", "ts"])
+        w["poa_sensor"] = ghi_only.loc["INV1", "poa_global_wm2"] * 0.9
+        out = model.expected_power(w, sun, site).set_index(["inverter_id", "ts"])
+        for col, mod in (("ac_w", "ac_modelled_w"), ("ac_potential_w", "ac_potential_modelled_w"),
+                         ("temp_cell_c", "temp_cell_modelled_c")):
+            assert_allclose(out[mod], ghi_only[col], rtol=1e-12, atol=1e-9)
+        inv1 = out.loc["INV1"]
+        day = inv1["poa_global_wm2"] > 100
+        assert (inv1.loc[day, "poa_source"] == "sensor").all()
+        assert (inv1.loc[day, "ac_modelled_w"] > inv1.loc[day, "ac_w"]).all()
+        # no module temperature logged: the cell temperature follows the POA (SAPM)
+        assert (inv1.loc[day, "temp_cell_modelled_c"] > inv1.loc[day, "temp_cell_c"]).all()
+        if not extra:
+            inv2 = out.loc["INV2"]
+            assert_allclose(inv2["ac_modelled_w"], inv2["ac_w"], rtol=0, atol=0)
+            assert_allclose(inv2["ac_potential_modelled_w"], inv2["ac_potential_w"], rtol=0,
+                            atol=0)
+            assert_allclose(inv2["temp_cell_modelled_c"], inv2["temp_cell_c"], rtol=0, atol=0)
+        else:
+            wide = out["ac_modelled_w"].unstack("inverter_id")
+            assert (wide.sum(axis=1) <= 10_000.0 + 1e-6).all()  # export limit shared
+
+
 def test_parameters_hash_changes_with_the_design(tmp_path):
     a = model.parameters_hash(model.parameters(make_site(tmp_path)))
     b = model.parameters_hash(model.parameters(make_site(tmp_path, losses="wiring_pct = 3.0")))
