@@ -48,7 +48,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, db
+from perfcheck import __version__, db, periods
 from perfcheck.errors import DataError
 from perfcheck.site import Site, Table
 
@@ -674,11 +674,7 @@ def resolve_period(
         last = pd.Timestamp(last).tz_convert(site.tz)
         date_from = date_from or first.date()
         date_to = date_to or last.date()
-    if date_to < date_from:
-        raise DataError(f"--to {date_to} is before --from {date_from}")
-    start = pd.Timestamp(date_from).tz_localize(site.tz)
-    end = pd.Timestamp(date_to + dt.timedelta(days=1)).tz_localize(site.tz)
-    return start.tz_convert("UTC"), end.tz_convert("UTC")
+    return periods.day_period(site, date_from, date_to)
 
 
 def typical_cell_temperature(

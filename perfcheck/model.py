@@ -51,10 +51,11 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from perfcheck import __version__, align, db
+from perfcheck import align, db
 from perfcheck import physics as ph
 from perfcheck.errors import DataError
 from perfcheck.site import DEVICE_QUANTITIES, Array, Inverter, Site
+from perfcheck.versions import versions
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
 MODEL_VERSION = "3"
@@ -142,12 +143,6 @@ def parameters_hash(params: dict[str, Any]) -> str:
     """SHA-256 of the parameters' canonical JSON."""
     text = json.dumps(params, sort_keys=True, separators=(",", ":"))
     return hashlib.sha256(text.encode()).hexdigest()
-
-
-def versions() -> dict[str, str]:
-    """Versions of the code behind a run."""
-    return {"perfcheck": __version__, "model": MODEL_VERSION, "pvlib": pvlib.__version__,
-            "numpy": np.__version__, "pandas": pd.__version__, "duckdb": duckdb.__version__}
 
 
 def sensor_plane(site: Site) -> tuple[float, float]:
@@ -461,7 +456,7 @@ def _run_record(con: duckdb.DuckDBPyConnection, params: dict[str, Any]) -> tuple
         return int(row[0]), int(row[1])
     run_id = align.first_row(con, db.sql("model_run_insert"), {
         "hash": h, "params": json.dumps(params, sort_keys=True),
-        "versions": json.dumps(versions(), sort_keys=True),
+        "versions": json.dumps({**versions(), "model": MODEL_VERSION}, sort_keys=True),
         "now": dt.datetime.now(dt.UTC)})[0]
     return int(run_id), 0
 

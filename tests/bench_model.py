@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import importlib
 import multiprocessing as mp
-import resource
 import sys
 import tempfile
 import time
@@ -22,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from benchmark import INVERTER, MINUTES_PER_YEAR, in_child
+from benchmark import INVERTER, MINUTES_PER_YEAR, in_child, peak_kb
 
 LAT, LON, ALT = 47.5, 8.7, 450.0
 
@@ -115,7 +114,7 @@ def _bare(site_path: str, db_path: str, out: mp.Queue) -> None:
         dni_extra=pvlib.irradiance.get_extra_radiation(mid),
         airmass=pvlib.atmosphere.get_relative_airmass(sp["apparent_zenith"]), model="perez")
     t3 = time.perf_counter()
-    out.put(((t1 - t0) + (t3 - t2), resource.getrusage(resource.RUSAGE_SELF).ru_maxrss))
+    out.put(((t1 - t0) + (t3 - t2), peak_kb()))
 
 
 def _in_memory(site_path: str, db_path: str, out: mp.Queue) -> None:
@@ -132,7 +131,7 @@ def _in_memory(site_path: str, db_path: str, out: mp.Queue) -> None:
     exp = model.expected_power(weather, sun, site)
     elapsed = time.perf_counter() - t0
     assert len(exp) == 4 * MINUTES_PER_YEAR
-    out.put((elapsed, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss))
+    out.put((elapsed, peak_kb()))
 
 
 def _stage(site_path: str, db_path: str, out: mp.Queue) -> None:
@@ -150,7 +149,7 @@ def _stage(site_path: str, db_path: str, out: mp.Queue) -> None:
     res = model.run(con, site)
     second = time.perf_counter() - t0
     assert res["rows"] == 0, res
-    out.put(((first, second), resource.getrusage(resource.RUSAGE_SELF).ru_maxrss))
+    out.put(((first, second), peak_kb()))
 
 
 def bench(print_row: Callable[[str, str], None]) -> None:
