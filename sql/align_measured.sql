@@ -2,8 +2,8 @@
 -- energy-register value with its instant. $iv interval [s]; $start, $end interval starts.
 SELECT to_timestamp(floor(epoch(ts) / $iv) * $iv) AS ts,
        device AS inverter_id,
-       avg(value) FILTER (WHERE quantity = 'ac_power_w') AS ac_power_w,
-       avg(value) FILTER (WHERE quantity = 'energy_interval_wh') AS energy_interval_wh,
+       favg(value) FILTER (WHERE quantity = 'ac_power_w') AS ac_power_w,
+       favg(value) FILTER (WHERE quantity = 'energy_interval_wh') AS energy_interval_wh,
        arg_max(value, ts) FILTER (WHERE quantity = 'energy_register_wh'
                                   AND value IS NOT NULL) AS register_wh,
        max(ts) FILTER (WHERE quantity = 'energy_register_wh' AND value IS NOT NULL)

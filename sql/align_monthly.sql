@@ -8,12 +8,12 @@ WITH e AS (
     FROM aligned_base
 )
 SELECT coalesce(inverter_id, 'plant') AS inverter_id, month,
-       sum(expected_kwh) AS expected_kwh,
-       sum(measured_kwh) AS measured_kwh,
-       sum(measured_kwh) FILTER (WHERE expected_kwh IS NOT NULL)
-         / nullif(sum(expected_kwh) FILTER (WHERE measured_kwh IS NOT NULL), 0) AS ratio,
-       sum(expected_kwh) FILTER (WHERE measured_kwh IS NOT NULL)
-         / nullif(sum(expected_kwh), 0) AS coverage
+       fsum(expected_kwh) AS expected_kwh,
+       fsum(measured_kwh) AS measured_kwh,
+       fsum(measured_kwh) FILTER (WHERE expected_kwh IS NOT NULL)
+         / nullif(fsum(expected_kwh) FILTER (WHERE measured_kwh IS NOT NULL), 0) AS ratio,
+       fsum(expected_kwh) FILTER (WHERE measured_kwh IS NOT NULL)
+         / nullif(fsum(expected_kwh), 0) AS coverage
 FROM e
 GROUP BY GROUPING SETS ((inverter_id, month), (month))
 ORDER BY grouping(inverter_id), 1, month;

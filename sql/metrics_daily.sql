@@ -13,7 +13,9 @@
 -- flags; used (for yields, PR, EPI) when daylight, valid, outside the exclusion windows and its
 -- irradiance is at least $min_poa; in the availability base when daylight, valid, outside the
 -- windows and its irradiance is at least $avail_min_poa. Energy sums are in Wh, irradiation in
--- Wh/m2, irradiation times cell temperature in Wh/m2*C.
+-- Wh/m2, irradiation times cell temperature in Wh/m2*C. Sums are compensated (fsum), so they do
+-- not depend on the order in which DuckDB's threads add the rows: a re-run from an evidence
+-- bundle must reproduce every digit.
 WITH dc AS (
     SELECT ts, device, value AS dc_w FROM readings WHERE quantity = 'dc_power_w'
 ),
@@ -76,21 +78,21 @@ SELECT
     count(*) FILTER (WHERE used) AS n_used,
     count(*) FILTER (WHERE used AND fallback) AS n_fallback,
     count(dc_w) FILTER (WHERE used) AS n_dc,
-    coalesce(sum(p * dt_h) FILTER (WHERE used), 0) AS e_meas_wh,
-    coalesce(sum(p_exp * dt_h) FILTER (WHERE used), 0) AS e_exp_wh,
-    coalesce(sum(p_exp * dt_h) FILTER (WHERE used AND fallback), 0) AS e_exp_fallback_wh,
-    coalesce(sum(dc_w * dt_h) FILTER (WHERE used), 0) AS e_dc_wh,
-    coalesce(sum(g * dt_h) FILTER (WHERE used), 0) AS h_whm2,
-    coalesce(sum(g * dt_h) FILTER (WHERE used AND sensor), 0) AS h_sensor_whm2,
-    coalesce(sum(g * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS h_t_whm2,
-    coalesce(sum(g * t * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS ht_whm2c,
+    coalesce(fsum(p * dt_h) FILTER (WHERE used), 0) AS e_meas_wh,
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE used), 0) AS e_exp_wh,
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE used AND fallback), 0) AS e_exp_fallback_wh,
+    coalesce(fsum(dc_w * dt_h) FILTER (WHERE used), 0) AS e_dc_wh,
+    coalesce(fsum(g * dt_h) FILTER (WHERE used), 0) AS h_whm2,
+    coalesce(fsum(g * dt_h) FILTER (WHERE used AND sensor), 0) AS h_sensor_whm2,
+    coalesce(fsum(g * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS h_t_whm2,
+    coalesce(fsum(g * t * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS ht_whm2c,
     count(*) FILTER (WHERE base) AS n_base,
     count(*) FILTER (WHERE base AND p >= down_w) AS n_up,
-    coalesce(sum(p_exp * dt_h) FILTER (WHERE base), 0) AS e_base_exp_wh,
-    coalesce(sum(p_exp * dt_h) FILTER (WHERE base AND p < down_w), 0) AS e_down_exp_wh,
-    coalesce(sum(p * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_meas_all_wh,
-    coalesce(sum(p_exp * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_exp_all_wh,
-    coalesce(sum(p_exp * dt_h) FILTER (WHERE daylight AND NOT valid), 0) AS e_exp_gap_wh
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE base), 0) AS e_base_exp_wh,
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE base AND p < down_w), 0) AS e_down_exp_wh,
+    coalesce(fsum(p * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_meas_all_wh,
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_exp_all_wh,
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE daylight AND NOT valid), 0) AS e_exp_gap_wh
 FROM u
 GROUP BY day, inverter_id
 ORDER BY day, inverter_id
