@@ -155,7 +155,8 @@ def fig_monthly_pr(monthly: list[dict]) -> Figure:
     if not drawn:
         _note(ax, "no month had enough data for a value")
         return fig
-    ax.set_xticks(x, months, fontsize=8)
+    every = -(-len(months) // 12)  # at most 12 labels, so they never run into each other
+    ax.set_xticks(x[::every], months[::every], fontsize=8)
     ax.set_xlim(-0.6, len(months) - 0.4)
     ax.set_ylabel("ratio [-]", fontsize=8)
     ax.legend(fontsize=8, frameon=False, ncols=3, loc="upper center",
