@@ -2,19 +2,16 @@
 
 from __future__ import annotations
 
+import datetime as dt
+
 import numpy as np
 import pandas as pd
 import pytest
 from metrics_support import connect_with, make_site, synthetic_aligned, utc
 from numpy.testing import assert_allclose
 
-from perfcheck import metrics
+from perfcheck import metrics, periods
 from perfcheck.errors import SiteFileError
-
-
-def _day_period(site, day: str):
-    start = pd.Timestamp(day).tz_localize(site.tz).tz_convert("UTC")
-    return start, start + pd.Timedelta(days=1)
 
 
 def _hand_rows(site) -> pd.DataFrame:
@@ -32,7 +29,7 @@ def _hand_rows(site) -> pd.DataFrame:
 def _hand_metrics(extra: dict) -> dict:
     site = make_site(metrics={"min_coverage": 0.0, **extra})
     con = connect_with(_hand_rows(site))
-    start, end = _day_period(site, "2025-06-15")
+    start, end = periods.day_period(site, dt.date(2025, 6, 15), dt.date(2025, 6, 15))
     return metrics.compute(con, site, start, end)["metrics"]["period"]
 
 
@@ -79,7 +76,7 @@ def test_array_yield_and_losses_where_dc_is_measured():
                        "value": [70_000.0, 55_000.0], "file_id": 1, "line": [1, 2]})
     con.register("_dc", dc)
     con.execute("CREATE OR REPLACE VIEW readings AS SELECT * FROM _dc")
-    start, end = _day_period(site, "2025-06-15")
+    start, end = periods.day_period(site, dt.date(2025, 6, 15), dt.date(2025, 6, 15))
     p = metrics.compute(con, site, start, end)["metrics"]["period"]
     assert_allclose([p["ya_h"], p["lc_h"], p["ls_h"]], [1.25, 0.15, 0.11], rtol=1e-5)
 
@@ -329,13 +326,16 @@ def test_demo_outage_month_shows_in_availability(demo_db, demo_metrics):
     assert inv2["availability_energy"] < 0.97
 
 
-def test_sensor_fault_window_falls_back_to_modelled_irradiance():
-    # invented fault: the POA sensor reads 10 % low for a week; the modelled POA is right
+def _sensor_week(bias) -> tuple[dict, dict, dict, pd.DataFrame, pd.Series]:
+    """Metrics of an invented June with a week in which the POA sensor reads 10 % low:
+    fault-free, biased (``bias(frame, week)`` applied to the week's rows), and biased with
+    that week declared a sensor fault. Returns healthy, biased, fixed, the frame, the week."""
     site = make_site()
     frame = synthetic_aligned(site, "2025-06-01", "2025-07-01")
     week = (frame["ts"] >= utc("2025-06-10")) & (frame["ts"] < utc("2025-06-17"))
     truth = connect_with(frame)
     frame.loc[week, "poa_wm2"] *= 0.9
+    bias(frame, week)
     con = connect_with(frame)
     start, end = metrics.resolve_period(con, site, None, None)
     healthy = metrics.compute(truth, site, start, end)["metrics"]["period"]
@@ -344,6 +344,12 @@ def test_sensor_fault_window_falls_back_to_modelled_irradiance():
               "end": "2025-06-17T02:00:00+02:00"}]
     windows = metrics.event_windows(event, metrics.load_settings(site))
     fixed = metrics.compute(con, site, start, end, windows)["metrics"]["period"]
+    return healthy, biased, fixed, frame, week
+
+
+def test_sensor_fault_window_falls_back_to_modelled_irradiance():
+    # invented fault: the POA sensor reads 10 % low for a week; the modelled POA is right
+    healthy, biased, fixed, _, _ = _sensor_week(lambda frame, week: None)
     assert biased["pr"] > healthy["pr"] * 1.01
     assert_allclose(fixed["pr"], healthy["pr"], rtol=1e-6)
     assert fixed["model_poa_intervals"] > 0 and biased["model_poa_intervals"] == 0
@@ -359,23 +365,14 @@ def test_sensor_fault_window_takes_the_expected_power_from_the_modelled_poa():
     # energy-based availability, reference yield and temperature-corrected PR must be those of
     # the fault-free data (exactly: the same sums), and the result says how much came from
     # the model.
-    site = make_site()
-    frame = synthetic_aligned(site, "2025-06-01", "2025-07-01")
-    week = (frame["ts"] >= utc("2025-06-10")) & (frame["ts"] < utc("2025-06-17"))
-    truth = connect_with(frame)
-    frame.loc[week, "poa_wm2"] *= 0.9
-    frame.loc[week, "potential_ac_w"] *= 0.9
-    frame.loc[week, "expected_ac_w"] = np.minimum(frame.loc[week, "potential_ac_w"], 90_000.0)
-    frame.loc[week, "temp_cell_c"] = (frame.loc[week, "temp_air_c"]
-                                      + frame.loc[week, "poa_wm2"] / 1000.0 * 25.0)
-    con = connect_with(frame)
-    start, end = metrics.resolve_period(con, site, None, None)
-    healthy = metrics.compute(truth, site, start, end)["metrics"]["period"]
-    biased = metrics.compute(con, site, start, end)["metrics"]["period"]
-    event = [{"kind": "sensor_fault", "scope": "plant", "start": "2025-06-10T02:00:00+02:00",
-              "end": "2025-06-17T02:00:00+02:00"}]
-    windows = metrics.event_windows(event, metrics.load_settings(site))
-    fixed = metrics.compute(con, site, start, end, windows)["metrics"]["period"]
+    def bias(frame, week):
+        frame.loc[week, "potential_ac_w"] *= 0.9
+        frame.loc[week, "expected_ac_w"] = np.minimum(frame.loc[week, "potential_ac_w"],
+                                                      90_000.0)
+        frame.loc[week, "temp_cell_c"] = (frame.loc[week, "temp_air_c"]
+                                          + frame.loc[week, "poa_wm2"] / 1000.0 * 25.0)
+
+    healthy, biased, fixed, frame, week = _sensor_week(bias)
     assert biased["epi"] > healthy["epi"] * 1.015  # a week of 30 days 10 % low: about 2 %
     for k in ("epi", "pr", "pr_temp_corrected", "availability_energy", "expected_kwh"):
         assert_allclose(fixed[k], healthy[k], rtol=1e-9)
