@@ -115,6 +115,7 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
 
         potential = ac_of(poa_sensor)
         expected = np.minimum(potential, inv.ac_kw * 1000)
+        potential_modelled = ac_of(poa)  # what the model stage computes from modelled POA
         true_factor = np.ones(len(idx))
         beam_factor = np.ones(len(idx))
         for f in faults:
@@ -161,6 +162,8 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
         rows.append(pd.DataFrame({
             "ts": idx, "inverter_id": inv.id, "interval_s": freq_min * 60.0,
             "measured_ac_w": measured, "expected_ac_w": expected, "potential_ac_w": potential,
+            "expected_ac_modelled_w": np.minimum(potential_modelled, inv.ac_kw * 1000),
+            "potential_ac_modelled_w": potential_modelled,
             "expected_dc_w": potential / 0.96, "poa_wm2": poa_sensor,
             "poa_modelled_wm2": poa, "poa_source": "sensor", "ghi_wm2": ghi,
             "clearsky_ghi_wm2": cs["ghi"].to_numpy(), "temp_air_c": temp_air,

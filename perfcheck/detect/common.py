@@ -117,6 +117,8 @@ class Wide:
     measured: pd.DataFrame
     expected: pd.DataFrame
     potential: pd.DataFrame
+    expected_modelled: pd.DataFrame  # expected from the modelled POA alone (model stage)
+    potential_modelled: pd.DataFrame
     poa: pd.DataFrame
     poa_modelled: pd.DataFrame
     temp_cell: pd.DataFrame
@@ -178,6 +180,8 @@ def wide(df: pd.DataFrame, ac_w: dict[str, float], export_limit_w: float | None,
         measured=grid(num("measured_ac_w")),
         expected=grid(num("expected_ac_w")),
         potential=grid(num("potential_ac_w")),
+        expected_modelled=grid(num("expected_ac_modelled_w")),
+        potential_modelled=grid(num("potential_ac_modelled_w")),
         poa=grid(num("poa_wm2")),
         poa_modelled=grid(num("poa_modelled_wm2")),
         temp_cell=grid(num("temp_cell_c")),
@@ -524,6 +528,8 @@ def coarsen(w: Wide, usable: pd.DataFrame, target_s: float = 900.0) -> tuple[Wid
 
     wc = Wide(
         measured=frame(w.measured), expected=frame(w.expected), potential=frame(w.potential),
+        expected_modelled=frame(w.expected_modelled),
+        potential_modelled=frame(w.potential_modelled),
         poa=frame(w.poa), poa_modelled=frame(w.poa_modelled), temp_cell=frame(w.temp_cell),
         flagged=frame(w.flagged, "any"), from_sensor=frame(w.from_sensor, "all"),
         interval_s=series(w.interval_s, "sum"), ghi=series(w.ghi),

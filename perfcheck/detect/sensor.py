@@ -239,26 +239,21 @@ def _mirrored(pi_fed: pd.Series, s: Suspect, tz: Any) -> bool:
 
 
 def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
-    """The series with the expected power of the sensor-fed inverters rebuilt in the windows."""
+    """The series with the expected power of the sensor-fed inverters taken, inside the
+    suspect windows, from the model stage's series built on modelled POA alone (its own cell
+    temperature, part-load efficiency and limits), and their irradiance from the modelled
+    POA."""
     if not suspects:
         return w
-    exp, pot = w.expected.copy(), w.potential.copy()
-    poa = w.poa.copy()
+    exp, pot, poa = w.expected.copy(), w.potential.copy(), w.poa.copy()
     for s in suspects:
         inside = (w.index >= s.start) & (w.index < s.end)
         for c in w.inverters:
             use = inside & w.from_sensor[c].to_numpy()
             if not use.any():
                 continue
-            if s.mode == "level":
-                k = np.full(use.sum(), 1.0 / s.factor)
-            else:
-                sv = w.poa[c].to_numpy()[use]
-                rv = w.poa_modelled[c].to_numpy()[use]
-                k = np.where(sv > 0, rv / np.where(sv > 0, sv, 1.0), 0.0)
-            new_pot = pot[c].to_numpy()[use] * k
-            pot.loc[use, c] = new_pot
-            exp.loc[use, c] = np.minimum(new_pot, w.ac_w[c])
+            pot.loc[use, c] = w.potential_modelled[c].to_numpy()[use]
+            exp.loc[use, c] = w.expected_modelled[c].to_numpy()[use]
             poa.loc[use, c] = w.poa_modelled[c].to_numpy()[use]
     return dataclasses.replace(w, expected=exp, potential=pot, poa=poa)
 
