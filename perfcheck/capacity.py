@@ -35,6 +35,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
+from perfcheck import analysis, metrics
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
@@ -327,13 +328,12 @@ def run(
 ) -> dict[str, Any]:
     """The capacity document for ``[start, end)`` (see ``perfcheck/schemas/capacity.schema.json``).
 
-    Curtailment windows come from the detect stage's events over the same window.
+    Curtailment windows come from the stored analysis's events over the same window, and the
+    measured power from its ledger (clock faults shifted back).
     """
-    from perfcheck import detect, metrics
-    from perfcheck.align import load_aligned
-
-    aligned = load_aligned(con, site, start, end)
-    events = detect.run(con, site, start, end)["events"]
+    stored = analysis.update(con, site)
+    aligned = analysis.series(con, site, start, end, stored)
+    events = analysis.events(con, site, stored, start, end)
     curtailed = metrics.event_windows(
         [e for e in events if e["kind"] == "curtailment"], metrics.Settings())
     res = run_test(aligned, site, guaranteed_ratio, rc, curtailed, settings)

@@ -29,7 +29,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, db, report, versions
+from perfcheck import __version__, analysis, db, pipeline, report, versions
 from perfcheck.errors import DataError, PerfcheckError
 from perfcheck.site import Site, load_site
 
@@ -186,10 +186,11 @@ def _resolve(site: Site, given: str, sha256: str) -> Path:
                     f"{site.path.name})")
 
 
-def raw_files(con: duckdb.DuckDBPyConnection, site: Site, end: pd.Timestamp) -> list[dict]:
-    rows = con.execute(db.sql("evidence_files"), {"end": end.to_pydatetime()}).df()
+def raw_files(con: duckdb.DuckDBPyConnection, site: Site) -> list[dict]:
+    """Every ingested logger file (the analysis behind any window reads the whole history)."""
+    rows = con.execute(db.sql("evidence_files")).df()
     if rows.empty:
-        raise DataError(f"{site.path}: no ingested logger files before {end:%Y-%m-%d}")
+        raise DataError(f"{site.path}: no ingested logger files")
     out, names = [], set()
     for r in rows.to_dict("records"):
         src = _resolve(site, r["path"], r["sha256"])
@@ -209,13 +210,11 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
 
     Returns ``{"path": Path, "manifest_sha256": str, "files": int}``.
     """
-    from perfcheck import align, metrics  # noqa: PLC0415 - later stages import report
-
     out_zip = Path(out_zip)
-    files = raw_files(con, site, end)
+    files = raw_files(con, site)
     if result is None:
-        result = metrics.check(con, site, start, end)
-    aligned = align.load_aligned(con, site, start, end)
+        result = analysis.view(con, site, start, end, analysis.update(con, site))
+    aligned = analysis.series(con, site, start, end)
     quality = report.db_quality(con, start, end)
     # inside the bundle a logger file is named by its place in the bundle, not on our disk
     where = {f["source_path"]: f["member"] for f in files}
@@ -343,8 +342,6 @@ def check_hashes(members: dict[str, bytes], v: Verification) -> dict[str, Any]:
 
 def rerun(members: dict[str, bytes], v: Verification) -> None:
     """Re-run the analysis from the bundle's own files in a temporary folder and compare."""
-    from perfcheck import pipeline  # noqa: PLC0415
-
     info = json.loads(members["bundle.json"])
     if info.get("tool_version") != __version__:
         v.notes.append(f"bundle written by perfcheck {info.get('tool_version')}, verified with "
@@ -360,7 +357,7 @@ def rerun(members: dict[str, bytes], v: Verification) -> None:
         try:
             pipeline.update(con, site, [root / m for m in info["raw_files"]])
             start, end = (pd.Timestamp(info["period"][k]) for k in ("start", "end"))
-            again = pipeline.analyse(con, site, start, end)
+            again = pipeline.view(con, site, start, end)
         finally:
             con.close()
     stored = json.loads(members["results/check.json"])

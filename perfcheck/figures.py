@@ -22,6 +22,8 @@ import pandas as pd  # noqa: E402
 from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
+from perfcheck import kinds  # noqa: E402
+
 # Our palette for this report: ink on warm paper, teal for what was measured, ochre for what the
 # model expected, brick for losses; causes get a fixed colour each so figures and tables agree.
 INK = "#23262b"
@@ -31,19 +33,6 @@ MEASURED = "#16706b"
 EXPECTED = "#c98b2b"
 LOSS = "#a4432f"
 MUTED = "#8a8d93"
-CAUSE_COLOURS = {
-    "outage": "#7b2d26",
-    "partial_outage": "#b5553c",
-    "clipping": "#d9a441",
-    "curtailment": "#8f7ab8",
-    "soiling": "#8c6d46",
-    "shading": "#3d5a80",
-    "degradation": "#6b8f71",
-    "sensor_fault": "#c27c9e",
-    "clock_fault": "#5f9ea0",
-    "underperformance": "#9a9a9a",
-    "unexplained": "#cfcac0",
-}
 FLAG_COLOURS = ("#16706b", "#c98b2b", "#a4432f", "#3d5a80", "#8f7ab8", "#6b8f71", "#c27c9e")
 
 WIDTH_IN, HEIGHT_IN = 7.6, 3.6
@@ -173,11 +162,11 @@ def fig_loss_attribution(losses: dict) -> Figure:
         return fig
     causes = [(k, v) for k, v in losses.get("by_cause_kwh", {}).items() if v]
     causes.append(("unexplained", losses.get("unexplained_kwh", 0.0)))
-    labels = ["expected"] + [k.replace("_", " ") for k, _ in causes] + ["measured"]
+    labels = ["expected"] + [kinds.words(k) for k, _ in causes] + ["measured"]
     level = losses["expected_kwh"]
     ax.bar(0, level, color=EXPECTED, width=0.6)
     for i, (kind, kwh) in enumerate(causes, start=1):
-        ax.bar(i, -kwh, bottom=level, color=CAUSE_COLOURS.get(kind, MUTED), width=0.6)
+        ax.bar(i, -kwh, bottom=level, color=kinds.colour(kind), width=0.6)
         ax.text(i, max(level, level - kwh), f"{kwh:,.0f}", ha="center", va="bottom", fontsize=7,
                 color=INK)
         level -= kwh
@@ -209,7 +198,7 @@ def fig_soiling(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
         if ev.get("kind") != "soiling":
             continue
         s, e = (pd.Timestamp(ev[k]).tz_convert(tz).tz_localize(None) for k in ("start", "end"))
-        ax.axvspan(s, e, color=CAUSE_COLOURS["soiling"], alpha=0.12)
+        ax.axvspan(s, e, color=kinds.colour("soiling"), alpha=0.12)
         for rec in ev.get("recoveries", []):  # {"at": local date, "cause": rain|cleaning}
             t = pd.Timestamp(rec["at"])
             ax.axvline(t, color=LOSS if rec.get("cause") == "cleaning" else "#3d5a80", lw=1.2,
@@ -311,8 +300,9 @@ def fig_limits_by_hour(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Fi
                       .where(in_curt, 0.0), aligned["interval_s"])
     by = pd.DataFrame({"clip": clip, "curt": curt, "hour": hour}).groupby("hour").sum()
     by = by.reindex(range(24), fill_value=0.0)
-    ax.bar(by.index, by["clip"], color=CAUSE_COLOURS["clipping"], label="clipping (above AC limit)")
-    ax.bar(by.index, by["curt"], bottom=by["clip"], color=CAUSE_COLOURS["curtailment"],
+    ax.bar(by.index, by["clip"], color=kinds.colour("design_clipping"),
+           label=kinds.words("design_clipping"))
+    ax.bar(by.index, by["curt"], bottom=by["clip"], color=kinds.colour("curtailment"),
            label="curtailment (found events)")
     ax.set_xticks(range(0, 24, 2))
     ax.set_xlabel("local hour [h]", fontsize=8)

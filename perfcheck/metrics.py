@@ -15,7 +15,10 @@ Rules (also written into every result's ``settings``):
   all daylight intervals).
 - Availability base: daylight, valid, outside the exclusion windows, irradiance at least
   ``availability_min_poa_wm2``. The inverter is up in a base interval when its AC power is at
-  least ``availability_down_below_pct`` of its AC rating. Time-based availability is the
+  least ``availability_down_below_pct`` of its AC rating; with an analysis, it is down in the
+  intervals its outage events cover (the ledger gives them to the outage), so availability
+  and the events agree and a low output explained otherwise (shading, a fault of the data) is
+  never downtime. Time-based availability is the
   P0-weighted share of base intervals that are up; energy-based availability is
   1 - (expected energy of the down intervals) / (expected energy of all base intervals).
   Excluded windows are outside the base, so curtailment and (if chosen) grid outages never count
@@ -48,7 +51,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, db, periods
+from perfcheck import __version__, db, kinds, periods
 from perfcheck.errors import DataError
 from perfcheck.site import Site, Table
 
@@ -76,7 +79,7 @@ SUM_COLUMNS = (
     "p0_w", "n_daylight", "n_nominal", "n_valid", "n_excluded", "n_used", "n_fallback", "n_dc",
     "e_meas_wh", "e_exp_wh", "e_exp_fallback_wh", "e_dc_wh", "ref_wh", "ref_sensor_wh",
     "refg_wh", "refgt_wh", "w_base", "w_up", "e_base_exp_wh", "e_down_exp_wh", "e_meas_all_wh",
-    "e_exp_all_wh", "e_exp_gap_wh",
+    "e_exp_all_wh", "e_exp_gap_wh", "e_ledger_meas_wh", "e_ledger_exp_wh",
 )
 
 
@@ -439,10 +442,13 @@ def daily_sums(
     start: pd.Timestamp,
     end: pd.Timestamp,
     settings: Settings,
+    analysis_id: int | None = None,
     windows: pd.DataFrame | None = None,
 ) -> pd.DataFrame:
     """Daily sums per inverter over ``aligned`` in ``[start, end)``, every calendar day present.
 
+    The measured power and the one measured and expected energy come from the ledger of
+    ``analysis_id`` (without one, from the aligned readings as they are).
     ``windows`` (see :func:`event_windows`) has columns action ('exclude' or 'model_poa'),
     scope ('plant' or 'inverter:<id>'), start_ts, end_ts (UTC).
     """
@@ -459,7 +465,8 @@ def daily_sums(
         df = con.execute(db.sql("metrics_daily"), {
             "tz": site.timezone, "start": start.to_pydatetime(), "end": end.to_pydatetime(),
             "min_poa": settings.min_poa_wm2, "avail_min_poa": settings.availability_min_poa_wm2,
-            "exclude_flags": list(settings.exclude_flags),
+            "exclude_flags": list(settings.exclude_flags), "analysis": analysis_id,
+            "downtime_kinds": [k.name for k in kinds.TABLE if k.downtime],
         }).df()
     except duckdb.CatalogException as exc:
         raise DataError(f"no aligned series in the database ({exc}); run the model first")\
@@ -467,10 +474,10 @@ def daily_sums(
     finally:
         con.unregister("_metrics_inverters")
         con.unregister("_metrics_windows")
-    return _complete_calendar(df, site, start, end)
+    return complete_calendar(df, site, start, end)
 
 
-def _complete_calendar(
+def complete_calendar(
     df: pd.DataFrame, site: Site, start: pd.Timestamp, end: pd.Timestamp
 ) -> pd.DataFrame:
     """Every (local day, inverter) of the period, zeros where no rows; nominal daylight count."""
@@ -595,8 +602,8 @@ def summarise(
 
 def _amounts(s: Mapping[str, np.ndarray], i: int) -> dict[str, Any]:
     return {
-        "measured_kwh": s["e_meas_wh"][i] / 1000.0,
-        "expected_kwh": s["e_exp_wh"][i] / 1000.0,
+        "measured_kwh": s["e_ledger_meas_wh"][i] / 1000.0,
+        "expected_kwh": s["e_ledger_exp_wh"][i] / 1000.0,
         "irradiation_kwh_m2": s["ref_wh"][i] / s["p0_w"][i],
         "daylight_intervals": int(s["n_nominal"][i]),
         "valid_intervals": int(s["n_valid"][i]),
@@ -683,8 +690,10 @@ def typical_cell_temperature(
     """T_cell_typ_avg [C] and where it came from.
 
     Given in the site file, or the irradiance-weighted mean cell temperature of the 365 days
-    before ``end`` (or of all data there if less): Dierauf et al. 2013, NREL/TP-5200-57991, ask
-    for a year of typical weather; a year of the site's own data is the nearest we have.
+    before ``end`` (or of all data there if less); the analysis takes ``end`` at the end of the
+    whole history, so every view uses the same value. Dierauf et al. 2013,
+    NREL/TP-5200-57991, ask for a year of typical weather; a year of the site's own data is the
+    nearest we have.
     """
     if settings.t_cell_typ_avg_c is not None:
         return settings.t_cell_typ_avg_c, "given (metrics.t_cell_typ_avg_c)"
@@ -698,23 +707,22 @@ def typical_cell_temperature(
 
 
 def compute(
-    con: duckdb.DuckDBPyConnection,
+    daily: pd.DataFrame,
     site: Site,
     start: pd.Timestamp,
     end: pd.Timestamp,
-    windows: pd.DataFrame | None = None,
-    settings: Settings | None = None,
+    settings: Settings,
+    t_typ: tuple[float, str],
 ) -> dict[str, Any]:
-    """The ``metrics`` block (monthly, yearly, period, daily) and the ``settings`` used.
+    """The ``metrics`` block (monthly, yearly, period, daily) and the ``settings`` used, from
+    the per-inverter daily sums of the days of ``[start, end)`` (:func:`daily_sums`).
 
-    ``windows``: exclusion and sensor-fallback windows from detected events
-    (:func:`event_windows`); none by default.
+    ``t_typ`` is T_cell_typ_avg [C] and where it came from (:func:`typical_cell_temperature`).
     """
-    settings = settings or load_settings(site)
-    sums = scope_sums(daily_sums(con, site, start, end, settings, windows), site)
-    t_typ, t_typ_source = typical_cell_temperature(con, site, end, settings)
-    temp_ref = t_typ if settings.pr_temp_ref_c == "annual" else float(settings.pr_temp_ref_c)
-    temp_refs = (temp_ref, t_typ)
+    sums = scope_sums(daily, site)
+    t_typ_c, t_typ_source = t_typ
+    temp_ref = t_typ_c if settings.pr_temp_ref_c == "annual" else float(settings.pr_temp_ref_c)
+    temp_refs = (temp_ref, t_typ_c)
     scopes = ["plant", *(f"inverter:{i.id}" for i in site.inverters)]
     sums = sums.assign(_order=sums["scope"].map({sc: k for k, sc in enumerate(scopes)}))
     sums = sums.sort_values(["day", "_order"])
@@ -755,9 +763,26 @@ def compute(
              "days": round((p_end - p_start) / pd.Timedelta(days=1))}
     period = summarise(cube, p0, scopes, label, settings, temp_refs, True)
     return {
-        "settings": settings_record(settings, temp_ref, t_typ, t_typ_source),
+        "settings": settings_record(settings, temp_ref, t_typ_c, t_typ_source),
         "metrics": {"monthly": monthly, "yearly": yearly, "period": period, "daily": daily_rows},
     }
+
+
+def period(
+    con: duckdb.DuckDBPyConnection,
+    site: Site,
+    start: pd.Timestamp,
+    end: pd.Timestamp,
+    windows: pd.DataFrame | None = None,
+    settings: Settings | None = None,
+    analysis_id: int | None = None,
+) -> dict[str, Any]:
+    """:func:`compute` straight from the aligned series of ``[start, end)`` (and the ledger of
+    ``analysis_id``, if given), with T_cell_typ_avg from the year before ``end``."""
+    settings = settings or load_settings(site)
+    daily = daily_sums(con, site, start, end, settings, analysis_id, windows)
+    return compute(daily, site, start, end, settings,
+                   typical_cell_temperature(con, site, end, settings))
 
 
 def _next_month(d: dt.date) -> dt.date:
@@ -810,27 +835,24 @@ _RULES = [
 
 
 def event_windows(events: Sequence[Mapping[str, Any]], settings: Settings) -> pd.DataFrame:
-    """Windows the metrics treat specially, from detected events.
+    """Windows the metrics treat specially, from detected events (:mod:`perfcheck.kinds`).
 
-    action 'exclude': curtailment (any scope) if ``exclude_curtailment``; plant-scope outages,
-    taken as grid outages, if ``exclude_grid_outages`` (from power data alone a grid outage
-    cannot be told from a plant-wide stop: turn it on where the grid operator confirms them).
+    action 'exclude': kinds whose metrics treatment is ``exclude`` when their setting is on
+    (curtailment with ``exclude_curtailment``; outages with ``exclude_grid_outages``, and then
+    only plant-wide ones, taken as grid outages: from power data alone a grid outage cannot be
+    told from a plant-wide stop, so turn it on where the grid operator confirms them).
     action 'model_poa': sensor faults if ``sensor_fault_fallback``; there the reference yield
     uses the modelled plane-of-array irradiance (with the modelled-irradiance uncertainty) and
     the expected power the one computed from it.
     """
     keep = []
     for ev in events:
-        kind, scope = ev["kind"], ev["scope"]
-        if (kind == "curtailment" and settings.exclude_curtailment) or (
-            kind == "outage" and scope == "plant" and settings.exclude_grid_outages
-        ):
-            action = "exclude"
-        elif kind == "sensor_fault" and settings.sensor_fault_fallback:
-            action = "model_poa"
-        else:
+        k = kinds.get(ev["kind"])
+        if k.metrics not in ("exclude", "model_poa") or not getattr(settings, k.metrics_setting):
             continue
-        keep.append((action, scope, pd.Timestamp(ev["start"]).tz_convert("UTC"),
+        if k.name == "outage" and ev["scope"] != "plant":
+            continue
+        keep.append((k.metrics, ev["scope"], pd.Timestamp(ev["start"]).tz_convert("UTC"),
                      pd.Timestamp(ev["end"]).tz_convert("UTC")))
     return pd.DataFrame(keep, columns=["action", "scope", "start_ts", "end_ts"])
 
@@ -862,59 +884,3 @@ def run_record() -> dict[str, Any]:
                          "pvlib": pvlib.__version__, "duckdb": duckdb.__version__,
                          "statsmodels": statsmodels.__version__},
     }
-
-
-def check(
-    con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: pd.Timestamp
-) -> dict[str, Any]:
-    """The whole ``perfcheck check`` document (see ``perfcheck/schemas/check.schema.json``)."""
-    from perfcheck import detect, guarantees
-
-    settings = load_settings(site)
-    found = detect.run(con, site, start, end)
-    result = compute(con, site, start, end, event_windows(found["events"], settings),
-                     settings)
-    doc = {
-        "site": site_record(site),
-        "period": {"start": local_iso(start, site), "end": local_iso(end, site)},
-        "settings": result["settings"],
-        "metrics": result["metrics"],
-        "events": found["events"],
-        "losses": found["losses"],
-        "degradation": found["degradation"],
-        "guarantees": [],
-        "run": run_record(),
-    }
-    doc["guarantees"] = guarantees.evaluate(site, doc)
-    return doc
-
-
-def store(con: duckdb.DuckDBPyConnection, doc: Mapping[str, Any]) -> int:
-    """Write the metric values of a check document with its settings; returns the run id."""
-    run_id = con.execute("SELECT nextval('metrics_run_id')").fetchall()[0][0]
-    con.execute(
-        "INSERT INTO metrics_runs VALUES (?, ?, ?, ?, ?, ?)",
-        [run_id, doc["run"]["created_at"], doc["period"]["start"], doc["period"]["end"],
-         json.dumps(doc["settings"], sort_keys=True), doc["run"]["tool_version"]],
-    )
-    rows = []
-    levels = [("month", doc["metrics"]["monthly"]), ("year", doc["metrics"]["yearly"]),
-              ("day", doc["metrics"]["daily"]), ("period", [doc["metrics"]["period"]])]
-    for level, items in levels:
-        for item in items:
-            for r in [item, *item["inverters"]]:
-                for m in (*CI_METRICS, "yr_h", "ya_h", "yf_h", "lc_h", "ls_h", "coverage"):
-                    rows.append((run_id, level, item["start"], item["end"], r["scope"], m,
-                                 r[m], r.get(f"{m}_ci_low"), r.get(f"{m}_ci_high"),
-                                 r["reason"]))
-    frame = pd.DataFrame(rows, columns=["run_id", "level", "period_start", "period_end",
-                                        "scope", "metric", "value", "ci_low", "ci_high",
-                                        "reason"])
-    frame["period_start"] = pd.to_datetime(frame["period_start"], utc=True)
-    frame["period_end"] = pd.to_datetime(frame["period_end"], utc=True)
-    con.register("_metrics_rows", frame)
-    try:
-        con.execute("INSERT INTO metrics_values SELECT * FROM _metrics_rows")
-    finally:
-        con.unregister("_metrics_rows")
-    return int(run_id)

@@ -181,7 +181,7 @@ def _run_locked(con: duckdb.DuckDBPyConnection, site: Site, month: str, start: p
     for p in fresh:
         log.info("ingest %s", p)
     pipeline.update(con, site, fresh, quiet=quiet)
-    result = pipeline.analyse(con, site, start, end)
+    result = pipeline.view(con, site, start, end)
     status, code, reason = classify(result, settings)
     target = out_root / month
     _write_month(con, site, start, end, result, target)

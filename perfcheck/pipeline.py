@@ -1,7 +1,8 @@
 """The stages in order, for the commands that run them all (monthly job, bundle verification).
 
-``update`` ingests logger files and brings the expected and aligned series up to date;
-``analyse`` then returns the ``perfcheck check`` document for a period.
+``update`` ingests logger files, brings the expected and aligned series up to date and
+re-analyses the whole history if any input changed; ``view`` then returns the ``perfcheck check``
+document of a period, clipped from the stored analysis.
 """
 
 from __future__ import annotations
@@ -13,14 +14,14 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from perfcheck import ingest, metrics, model, progress, quality
+from perfcheck import analysis, ingest, model, progress, quality
 from perfcheck.site import Site
 
 
 def update(con: duckdb.DuckDBPyConnection, site: Site, paths: Iterable[str | Path],
            quiet: bool = True) -> list[ingest.FileResult]:
-    """Ingest ``paths`` (in this order), run the quality checks and the model; return the
-    ingest accounting per file."""
+    """Ingest ``paths`` (in this order), run the quality checks, the model and the analysis;
+    return the ingest accounting per file."""
     paths = list(paths)
     with progress.bar("ingest", len(paths), quiet) as b:
         results = ingest.ingest_files(con, site, paths, progress=lambda r: b.step(
@@ -28,10 +29,12 @@ def update(con: duckdb.DuckDBPyConnection, site: Site, paths: Iterable[str | Pat
     quality.run(con, site)
     with progress.bar("model", None, quiet) as b:
         model.run(con, site, progress=b.step)
+    with progress.bar("analysis", None, quiet) as b:
+        analysis.update(con, site, progress=b.step)
     return results
 
 
-def analyse(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
-            end: pd.Timestamp) -> dict[str, Any]:
-    """The check document for [start, end)."""
-    return metrics.check(con, site, start, end)
+def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
+         end: pd.Timestamp) -> dict[str, Any]:
+    """The check document for [start, end), from the analysis brought up to date."""
+    return analysis.view(con, site, start, end, analysis.update(con, site))

@@ -22,7 +22,7 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from perfcheck import db, figures, pdf, versions
+from perfcheck import analysis, db, figures, kinds, pdf, versions
 from perfcheck.site import Site, Table
 
 # Each metric and detector with its published source (shown in the report and the bundle).
@@ -60,40 +60,6 @@ CAUTIONS = [
     "A claim document built from this report is evidence, not legal advice.",
 ]
 
-# What to say about each kind of event: why the data points at it, what to check on site.
-PLAIN: dict[str, tuple[str, str]] = {
-    "outage": ("output stayed at or near zero while there was irradiance and the other inverters "
-               "produced", "the inverter's fault log and display, AC and DC isolators, fuses and "
-               "the grid-protection relay"),
-    "partial_outage": ("the output stepped down against both its expected output and its sibling "
-                       "inverters and stayed down, the pattern of strings or an MPP input dropping "
-                       "out", "string currents, string fuses and connectors, and the inverter's "
-                       "input-side alarms"),
-    "clipping": ("the power sat on a plateau at the inverter's AC limit while the unlimited model "
-                 "was above it; with the site's DC/AC ratio this is expected by design",
-                 "the inverter's power-limit setting, but only if the plateau lies below its "
-                 "rating"),
-    "curtailment": ("the output sat on a plateau below the nameplate, shared by the inverters at "
-                    "the same time or at the export limit", "the grid operator's curtailment "
-                    "records and the plant controller's set-points"),
-    "soiling": ("the daily performance index declined gradually and recovered after rain or a "
-                "detected step up", "the module surfaces, and whether a cleaning would pay for "
-                "itself at the rate found"),
-    "shading": ("the loss concentrates at particular sun positions and grew over the months",
-                "vegetation or new structures in the direction given, and the horizon profile in "
-                "the site file"),
-    "degradation": ("the clear-day performance index fell from one year to the next",
-                    "a sample of modules with an I-V curve tracer against the warranty"),
-    "sensor_fault": ("the irradiance sensor disagreed with the clear-sky model and with what all "
-                     "inverters together produced", "the sensor's level, cleanliness, wiring and "
-                     "calibration date"),
-    "clock_fault": ("the daily centre of the measured power is shifted from solar noon",
-                    "the logger's clock, its time zone and daylight-saving setting"),
-    "underperformance": ("the output was significantly below the baseline regression and no "
-                         "detector could explain it", "the inverter and array in that window: "
-                         "alarms, string currents, visible damage or shading"),
-}
-
 # (field, heading, format) of the monthly table; intervals are <field>_ci_low / _ci_high.
 MONTHLY_COLUMNS = [
     ("measured_kwh", "Measured [kWh]", "{:,.0f}"),
@@ -108,6 +74,10 @@ MONTHLY_COLUMNS = [
     ("specific_yield_kwh_per_kwp", "Specific yield [kWh/kWp]", "{:.1f}"),
     ("coverage", "Coverage", "{:.0%}"),
 ]
+
+LOSSES_LEAD = ("Where the expected energy went: every energy in this report is a sum over one "
+               "ledger of the intervals that have both a measured and an expected value, so "
+               "expected less the causes and the unexplained rest is the measured energy.")
 
 EVENT_FIELDS = ["kind", "scope", "start", "end", "duration_h", "energy_loss_kwh",
                 "energy_loss_kwh_low", "energy_loss_kwh_high", "method", "evidence_json"]
@@ -128,15 +98,16 @@ def report_settings(site: Site) -> ReportSettings:
     """Read and validate ``[report]`` (key-path errors from :class:`perfcheck.site.Table`)."""
     t = Table(site.raw.get("report", {}), "report", site.path)
     d = ReportSettings()
-    kinds = t.get("critical_kinds", list, list(d.critical_kinds))
-    bad = [k for k in kinds if k not in PLAIN]
+    critical = t.get("critical_kinds", list, list(d.critical_kinds))
+    bad = [k for k in critical if k not in kinds.NAMES]
     if bad:
-        raise t._err("critical_kinds", f"{bad[0]!r} is not an event kind ({', '.join(PLAIN)})")
+        raise t._err("critical_kinds",
+                     f"{bad[0]!r} is not an event kind ({', '.join(kinds.NAMES)})")
     s = ReportSettings(
         out_dir=t.get("out_dir", str, d.out_dir),
         underperformance_threshold_pct=t.number("underperformance_threshold_pct",
                                                 d.underperformance_threshold_pct, lo=0, hi=100),
-        critical_kinds=tuple(kinds),
+        critical_kinds=tuple(critical),
         log_file=t.get("log_file", str, d.log_file),
         lock_wait_s=t.number("lock_wait_s", d.lock_wait_s, lo=0, hi=86400),
     )
@@ -178,7 +149,9 @@ def scope_words(scope: str) -> str:
 
 
 def top_cause(result: dict) -> dict | None:
-    events = [e for e in result.get("events", []) if e.get("energy_loss_kwh")]
+    """The event that lost the most energy in the period (losses only, not design facts)."""
+    events = [e for e in result.get("events", [])
+              if e.get("energy_loss_kwh") and kinds.is_loss(e["kind"])]
     return max(events, key=lambda e: e["energy_loss_kwh"], default=None)
 
 
@@ -202,7 +175,7 @@ def verdict(result: dict, tz: str) -> str:
             f"{fmt_interval(p, 'pr_temp_corrected')}")
     top = top_cause(result)
     if top is not None and short > 0:
-        text += (f"; the largest cause found is {top['kind'].replace('_', ' ')} on "
+        text += (f"; the largest cause found is {kinds.words(top['kind'])} on "
                  f"{scope_words(top['scope'])} ({_kwh_interval(top)})")
     return text + "."
 
@@ -215,16 +188,41 @@ def _kwh_interval(ev: dict) -> str:
 
 def event_paragraph(ev: dict, tz: str) -> str:
     """What we saw, why we think it is this kind, what to check on site."""
-    why, check = PLAIN.get(ev["kind"], ("the detector's test was significant", "the plant"))
-    saw = (f"From {local_text(ev['start'], tz)} to {local_text(ev['end'], tz)} "
-           f"{scope_words(ev['scope'])} lost about {_kwh_interval(ev)}.")
+    k = kinds.get(ev["kind"])
+    when = (f"From {local_text(ev['start'], tz)} to {local_text(ev['end'], tz)} "
+            f"{scope_words(ev['scope'])}")
+    if k.ledger == "correction":
+        saw = f"{when}: the data were at fault, not the plant; they were corrected and cost no " \
+              "energy."
+    elif k.ledger == "design":
+        saw = f"{when} kept about {_kwh_interval(ev)} out of the expected series by design " \
+              "(not a loss)."
+    else:
+        saw = f"{when} lost about {_kwh_interval(ev)}."
     extra = {k: v for k, v in ev.items() if k not in EVENT_FIELDS}  # the detector's details
     stats = ", ".join(f"{k.replace('_', ' ')} {_short(v)}"
                       for k, v in {**ev.get("evidence", {}), **extra}.items()
                       if v is not None and not isinstance(v, (list, dict)))
-    because = f" We think it is {ev['kind'].replace('_', ' ')} because {why}"
+    because = f" We think it is {k.words} because {k.why}"
     because += f" ({ev.get('method', 'method not stated')}{'; ' + stats if stats else ''})."
-    return saw + because + f" On site, check {check}."
+    return saw + because + f" On site, check {k.check}."
+
+
+def revision_text(r: dict, tz: str) -> str:
+    """One revision of an earlier finding in plain words."""
+    def span(x: dict) -> str:
+        return (f"{local_text(x['start'], tz)} to {local_text(x['end'], tz)}, "
+                f"{x['energy_loss_kwh']:,.1f} kWh")
+
+    what = f"{kinds.words(r['kind'])} on {scope_words(r['scope'])}"
+    when = local_text(r["revised_at"], tz)
+    if r["change"] == "withdrawn":
+        return f"Withdrawn on {when}: {what} ({span(r['before'])}); reason: {r['reason']}."
+    if r["change"] == "found earlier":
+        return (f"Found on {when} in data analysed before: {what} ({span(r['after'])}); "
+                f"reason: {r['reason']}.")
+    return (f"Revised on {when}: {what}, earlier {span(r['before'])}, now {span(r['after'])}; "
+            f"reason: {r['reason']}.")
 
 
 def _short(v: Any) -> str:
@@ -320,9 +318,13 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "monthly_rows": monthly_rows(result["metrics"]["monthly"]),
         "events": [{**e, "start_local": local_text(e["start"], tz),
                     "end_local": local_text(e["end"], tz), "kwh": _kwh_interval(e),
+                    "kind_words": kinds.words(e["kind"]), "scope_words": scope_words(e["scope"]),
                     "paragraph": event_paragraph(e, tz)} for e in events],
         "guarantees": [guarantee_row(g) for g in result.get("guarantees", [])],
         "degradation_text": degradation_text(result.get("degradation") or {}),
+        "revisions": [revision_text(r, tz) for r in result.get("revisions", [])],
+        "losses_rows": losses_rows(result.get("losses", {})),
+        "losses_lead": LOSSES_LEAD,
         "methods": METHODS,
         "site_text": site.path.read_text(encoding="utf-8"),
         "site_file": site.path.name,
@@ -334,6 +336,21 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "cautions": CAUTIONS,
         "created_at": result.get("run", {}).get("created_at", ""),
     }
+
+
+def losses_rows(losses: dict) -> list[list[str]]:
+    """The losses block as table rows, from expected down to measured, every energy a sum over
+    the ledger (the step chart draws the same numbers)."""
+    if not losses or losses.get("expected_kwh") is None:
+        return []
+    rows = [["Expected (design at its ageing allowance)", f"{losses['expected_kwh']:,.1f}"]]
+    rows += [[f"less {kinds.words(k)}", f"{v:,.1f}"]
+             for k, v in losses.get("by_cause_kwh", {}).items()]
+    rows.append(["less unexplained (model error and noise)", f"{losses['unexplained_kwh']:,.1f}"])
+    rows.append(["Measured", f"{losses['measured_kwh']:,.1f}"])
+    rows += [[f"Not a loss: {kinds.words(k)}", f"{v:,.1f}"]
+             for k, v in losses.get("design_kwh", {}).items()]
+    return rows
 
 
 def degradation_text(d: dict) -> str:
@@ -434,17 +451,16 @@ def dump_json(result: dict) -> str:
 
 def write_report(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
                  end: pd.Timestamp, out_dir: Path, result: dict | None = None) -> dict[str, Path]:
-    """Check the period [start, end) and write the report into ``out_dir``.
+    """Write the report of the period [start, end) into ``out_dir``, clipped from the stored
+    analysis (brought up to date first), unless ``result``, the check document, is given.
 
     Returns the paths written, keyed ``html``, ``pdf``, ``json``, ``events_csv``, ``monthly_csv``
     and ``figure_<name>``.
     """
-    from perfcheck import align, metrics  # noqa: PLC0415 - later stages import this module
-
     if result is None:
-        result = metrics.check(con, site, start, end)
-    aligned = align.load_aligned(con, site, start, end)
-    return render(site, result, aligned, db_quality(con, start, end), Path(out_dir))
+        result = analysis.view(con, site, start, end, analysis.update(con, site))
+    series = analysis.series(con, site, start, end)
+    return render(site, result, series, db_quality(con, start, end), Path(out_dir))
 
 
 def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
@@ -465,12 +481,20 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
     b.append(("monthly", (ctx["monthly_head"], ctx["monthly_rows"])))
     b.append(("figures", None))
     b.append(("h", "Events"))
+    if ctx["losses_rows"]:
+        b.append(("para", LOSSES_LEAD))
+        b.append(("table", (["Where the expected energy went", "Energy [kWh]"],
+                            ctx["losses_rows"])))
     if not ctx["events"]:
         b.append(("para", "No events were found in this period."))
     for e in ctx["events"]:
-        b.append(("para", f"{e['kind'].replace('_', ' ').upper()}, {e['scope']}: "
+        b.append(("para", f"{kinds.words(e['kind']).upper()}, {scope_words(e['scope'])}: "
                   + e["paragraph"]))
     b.append(("para", ctx["degradation_text"]))
+    if ctx["revisions"]:
+        b.append(("h", "Revised findings"))
+        for r in ctx["revisions"]:
+            b.append(("para", r))
     if ctx["guarantees"]:
         b.append(("h", "Guarantees and warranties"))
         b.append(("table", (["Promise", "Promised", "Measured (interval)", "Finding",

@@ -1,6 +1,5 @@
--- Logger files with readings before $end, in ingest order: the period's own files plus the
--- earlier ones that reference windows (detector baselines, typical cell temperature) draw on.
+-- Every ingested logger file, in ingest order: the analysis behind any window reads the whole
+-- history, so a bundle carries all of it.
 SELECT file_id, path, logger, sha256, size_bytes, first_ts, last_ts
 FROM source_files
-WHERE first_ts < $end
 ORDER BY file_id;

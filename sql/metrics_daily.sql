@@ -1,7 +1,10 @@
 -- Daily sums per inverter over the aligned rows: the only pass over interval data that the
 -- metrics need (perfcheck.metrics.daily_sums). Everything after this works on these sums.
 -- Parameters: $tz (site zone, for day boundaries), $start, $end (end exclusive), $min_poa and
--- $avail_min_poa [W/m2], $exclude_flags (flag names that make a row invalid).
+-- $avail_min_poa [W/m2], $exclude_flags (flag names that make a row invalid), $analysis (the
+-- analysis whose ledger gives the measured power (NULL: the aligned readings): readings with clock faults shifted back, so
+-- a fault of the data never counts as downtime; and the ledger's measured and expected energy
+-- over the intervals that have both, the one "measured" and "expected" of every view).
 -- Registered relations: _metrics_inverters(inverter_id, down_w) and
 -- _metrics_windows(action, scope, start_ts, end_ts) from detected events: action 'exclude'
 -- (curtailment / grid outage) or 'model_poa' (suspect irradiance sensor: there the
@@ -37,15 +40,33 @@ w AS (
     FROM aligned a
     WHERE a.ts >= $start AND a.ts < $end
 ),
+l AS (
+    SELECT ts, inverter_id, measured_wh, expected_wh, poa_wm2 FROM ledger
+    WHERE analysis_id = $analysis AND ts >= $start AND ts < $end
+),
+-- with an analysis, an inverter is down in the intervals the ledger gives to a kind of
+-- downtime ($downtime_kinds: outage), so availability and the outage events agree; a low
+-- output that the analysis explains otherwise (a shaded array, a fault of the data) is not
+-- downtime
+down AS (
+    SELECT DISTINCT x.ts, x.inverter_id
+    FROM analysis_entries x
+    JOIN analysis_events e ON e.analysis_id = x.analysis_id AND e.event_id = x.event_id
+    WHERE x.analysis_id = $analysis AND x.ts >= $start AND x.ts < $end
+      AND list_contains($downtime_kinds, e.kind)
+),
 r AS (
     SELECT
         w.inverter_id,
         CAST(timezone($tz, w.ts) AS DATE) AS day,
         w.interval_s,
         w.interval_s / 3600.0 AS dt_h,
-        w.measured_ac_w AS p,
-        CASE WHEN w.fallback THEN w.expected_ac_modelled_w ELSE w.expected_ac_w END AS p_exp,
-        CASE WHEN w.fallback THEN w.poa_modelled_wm2 ELSE w.poa_wm2 END AS g,
+        m.wh * 3600.0 / w.interval_s AS p,
+        CASE WHEN m.wh IS NOT NULL AND m.exp_wh IS NOT NULL THEN m.wh END AS lm_wh,
+        CASE WHEN m.wh IS NOT NULL AND m.exp_wh IS NOT NULL THEN m.exp_wh END AS le_wh,
+        CASE WHEN w.fallback THEN w.expected_ac_modelled_w
+             ELSE m.exp_wh * 3600.0 / w.interval_s END AS p_exp,
+        CASE WHEN w.fallback THEN w.poa_modelled_wm2 ELSE m.poa END AS g,
         CASE WHEN w.fallback THEN coalesce(w.temp_cell_modelled_c, w.temp_cell_c)
              ELSE w.temp_cell_c END AS t,
         coalesce(w.poa_source = 'sensor', false) AND NOT w.fallback AS sensor,
@@ -53,13 +74,25 @@ r AS (
         w.excluded,
         dc.dc_w,
         coalesce(w.sun_zenith_deg < 90, false) AS daylight,
-        w.measured_ac_w IS NOT NULL AND (w.expected_ac_w IS NOT NULL OR w.fallback)
-            AND (w.poa_wm2 IS NOT NULL OR w.fallback)
+        m.wh IS NOT NULL AND (m.exp_wh IS NOT NULL OR w.fallback)
+            AND (m.poa IS NOT NULL OR w.fallback)
             AND (coalesce(w.flags, '') = ''
                  OR NOT list_has_any(string_split(w.flags, ','), $exclude_flags)) AS valid,
-        i.down_w
+        CASE WHEN l.ts IS NULL THEN m.wh * 3600.0 / w.interval_s < i.down_w
+             ELSE dn.ts IS NOT NULL END AS is_down
     FROM w
     JOIN _metrics_inverters i ON i.inverter_id = w.inverter_id
+    LEFT JOIN l ON l.ts = w.ts AND l.inverter_id = w.inverter_id
+    LEFT JOIN down dn ON dn.ts = w.ts AND dn.inverter_id = w.inverter_id
+    -- measured and expected energy and plane irradiance: the ledger's (clock faults shifted
+    -- back, sensor faults rebuilt); without a ledger (no analysis yet) the aligned values
+    CROSS JOIN LATERAL (SELECT
+        CASE WHEN l.ts IS NULL THEN w.poa_wm2 ELSE l.poa_wm2 END AS poa,
+        CASE WHEN l.ts IS NULL THEN w.measured_ac_w * w.interval_s / 3600.0
+             ELSE l.measured_wh END AS wh,
+        CASE WHEN l.ts IS NOT NULL THEN l.expected_wh
+             WHEN w.fallback THEN w.expected_ac_modelled_w * w.interval_s / 3600.0
+             ELSE w.expected_ac_w * w.interval_s / 3600.0 END AS exp_wh) m
     LEFT JOIN dc ON dc.ts = w.ts AND dc.device = w.inverter_id
 ),
 u AS (
@@ -87,12 +120,14 @@ SELECT
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS h_t_whm2,
     coalesce(fsum(g * t * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS ht_whm2c,
     count(*) FILTER (WHERE base) AS n_base,
-    count(*) FILTER (WHERE base AND p >= down_w) AS n_up,
+    count(*) FILTER (WHERE base AND NOT is_down) AS n_up,
     coalesce(fsum(p_exp * dt_h) FILTER (WHERE base), 0) AS e_base_exp_wh,
-    coalesce(fsum(p_exp * dt_h) FILTER (WHERE base AND p < down_w), 0) AS e_down_exp_wh,
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE base AND is_down), 0) AS e_down_exp_wh,
     coalesce(fsum(p * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_meas_all_wh,
     coalesce(fsum(p_exp * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_exp_all_wh,
-    coalesce(fsum(p_exp * dt_h) FILTER (WHERE daylight AND NOT valid), 0) AS e_exp_gap_wh
+    coalesce(fsum(p_exp * dt_h) FILTER (WHERE daylight AND NOT valid), 0) AS e_exp_gap_wh,
+    coalesce(fsum(lm_wh), 0) AS e_ledger_meas_wh,
+    coalesce(fsum(le_wh), 0) AS e_ledger_exp_wh
 FROM u
 GROUP BY day, inverter_id
 ORDER BY day, inverter_id

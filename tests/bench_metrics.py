@@ -29,7 +29,7 @@ def bench(print_row: Callable[[str, str], None]) -> None:
     best = float("inf")
     for _ in range(3):
         t0 = time.perf_counter()
-        result = metrics.compute(con, site, start, end)
+        result = metrics.period(con, site, start, end)
         best = min(best, time.perf_counter() - t0)
     m = result["metrics"]
     print_row("metrics: monthly + bootstrap, site-year",

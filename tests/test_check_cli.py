@@ -63,16 +63,16 @@ def test_check_schema_refuses_a_broken_document(checked):
         jsonschema.validate(doc, metrics.load_schema("check"))
 
 
-def test_check_stores_values_with_their_settings(checked):
-    site_path, _, _ = checked
+def test_check_reads_the_stored_analysis(checked):
+    site_path, _, out = checked
     con = db.connect(db.default_db_path(site_path), read_only=True)
-    runs = con.execute("SELECT run_id, settings_json FROM metrics_runs").fetchall()
-    assert len(runs) == 1
-    assert json.loads(runs[0][1])["min_coverage"] == 0.8
-    (n,) = con.execute("SELECT count(*) FROM metrics_values WHERE level = 'month' AND "
-                       "scope = 'plant' AND metric = 'pr' AND value IS NOT NULL").fetchall()[0]
+    (n,) = con.execute("SELECT count(*) FROM analyses WHERE is_current").fetchone()
     assert n == 1
+    (days,) = con.execute("SELECT count(DISTINCT day) FROM analysis_daily").fetchone()
+    assert days >= 1
     con.close()
+    doc = json.loads(out.read_text())
+    assert doc["analysis"]["id"] >= 1 and len(doc["analysis"]["input_hash"]) == 64
 
 
 def test_check_errors_are_one_line(tmp_path):
@@ -106,3 +106,23 @@ def test_schemas_ship_inside_the_package():
     for name in ("check", "capacity"):
         schema = json.loads((files / f"{name}.schema.json").read_text(encoding="utf-8"))
         jsonschema.Draft202012Validator.check_schema(schema)
+
+
+def test_schema_event_kinds_are_the_kinds_table():
+    """Every list of event kinds in the shipped schema is perfcheck.kinds' table, in order."""
+    from perfcheck import kinds
+
+    found = []
+
+    def walk(node):
+        if isinstance(node, dict):
+            if "outage" in node.get("enum", []):
+                found.append(node["enum"])
+            for v in node.values():
+                walk(v)
+        elif isinstance(node, list):
+            for v in node:
+                walk(v)
+
+    walk(metrics.load_schema("check"))
+    assert len(found) >= 2 and all(e == list(kinds.NAMES) for e in found)

@@ -30,7 +30,7 @@ def _hand_metrics(extra: dict) -> dict:
     site = make_site(metrics={"min_coverage": 0.0, **extra})
     con = connect_with(_hand_rows(site))
     start, end = periods.day_period(site, dt.date(2025, 6, 15), dt.date(2025, 6, 15))
-    return metrics.compute(con, site, start, end)["metrics"]["period"]
+    return metrics.period(con, site, start, end)["metrics"]["period"]
 
 
 def test_hand_worked_iec_61724_example():
@@ -77,7 +77,7 @@ def test_array_yield_and_losses_where_dc_is_measured():
     con.register("_dc", dc)
     con.execute("CREATE OR REPLACE VIEW readings AS SELECT * FROM _dc")
     start, end = periods.day_period(site, dt.date(2025, 6, 15), dt.date(2025, 6, 15))
-    p = metrics.compute(con, site, start, end)["metrics"]["period"]
+    p = metrics.period(con, site, start, end)["metrics"]["period"]
     assert_allclose([p["ya_h"], p["lc_h"], p["ls_h"]], [1.25, 0.15, 0.11], rtol=1e-5)
 
 
@@ -89,7 +89,7 @@ def test_weather_corrected_pr_removes_the_seasonal_swing():
     con = connect_with(synthetic_aligned(site, "2025-01-01", "2026-01-01", freq="1h",
                                          noise=0.0))
     start, end = metrics.resolve_period(con, site, None, None)
-    m = metrics.compute(con, site, start, end)["metrics"]
+    m = metrics.period(con, site, start, end)["metrics"]
     full = [r for r in m["monthly"] if r["days"] >= 28 and r["pr"] is not None]
     plain = np.array([r["pr"] for r in full])
     corrected = np.array([r["pr_weather_corrected"] for r in full])
@@ -127,8 +127,8 @@ def test_monthly_intervals_contain_the_synthetic_truth_and_are_seeded():
                               noise=0.03)
     con = connect_with(frame)
     start, end = metrics.resolve_period(con, site, None, None)
-    a = metrics.compute(con, site, start, end)["metrics"]
-    b = metrics.compute(con, site, start, end)["metrics"]
+    a = metrics.period(con, site, start, end)["metrics"]
+    b = metrics.period(con, site, start, end)["metrics"]
     assert a == b  # seeded: identical reruns
     # the UTC data reach two hours into July (local): that month is reported as too thin
     assert [r["month"] for r in a["monthly"]] == ["2025-05", "2025-06", "2025-07"]
@@ -138,7 +138,7 @@ def test_monthly_intervals_contain_the_synthetic_truth_and_are_seeded():
         assert row["pr_ci_low"] < row["pr"] < row["pr_ci_high"]
         assert row["inverters"][0]["scope"] == "inverter:WR1"
     other = make_site(n_inverters=2, metrics={"seed": 7})
-    c = metrics.compute(con, other, start, end)["metrics"]
+    c = metrics.period(con, other, start, end)["metrics"]
     assert c["monthly"][0]["pr_ci_low"] != a["monthly"][0]["pr_ci_low"]
     assert c["monthly"][0]["pr"] == a["monthly"][0]["pr"]
 
@@ -150,8 +150,8 @@ def test_irradiance_uncertainty_is_added_in_quadrature():
     site = make_site()
     con = connect_with(synthetic_aligned(site, "2025-06-01", "2025-07-01"))
     start, end = metrics.resolve_period(con, site, None, None)
-    narrow = metrics.compute(con, site, start, end)["metrics"]["period"]  # class A default
-    wide = metrics.compute(con, make_site(model={"poa_uncertainty_pct": 10.0}), start, end)
+    narrow = metrics.period(con, site, start, end)["metrics"]["period"]  # class A default
+    wide = metrics.period(con, make_site(model={"poa_uncertainty_pct": 10.0}), start, end)
     p = wide["metrics"]["period"]
     assert p["pr_ci_high"] - p["pr_ci_low"] > narrow["pr_ci_high"] - narrow["pr_ci_low"]
     assert p["pr_ci_high"] - p["pr"] >= 0.10 * p["pr"] * 0.999
@@ -165,7 +165,7 @@ def test_coverage_below_the_minimum_gives_null_and_a_reason():
     gap = (frame["ts"] >= utc("2025-06-05")) & (frame["ts"] < utc("2025-06-15"))
     con = connect_with(frame[~gap])
     start, end = metrics.resolve_period(con, site, None, None)
-    m = metrics.compute(con, site, start, end)["metrics"]
+    m = metrics.period(con, site, start, end)["metrics"]
     june = m["monthly"][0]
     # 10 of 30 days missing: coverage about 20/30 (day lengths differ a little)
     assert_allclose(june["coverage"], 20 / 30, atol=0.01)
@@ -184,7 +184,7 @@ def test_flagged_rows_are_not_valid():
                           "flag": "stuck"})
     con = connect_with(frame, flags)
     start, end = metrics.resolve_period(con, site, None, None)
-    days = {r["date"]: r for r in metrics.compute(con, site, start, end)["metrics"]["daily"]}
+    days = {r["date"]: r for r in metrics.period(con, site, start, end)["metrics"]["daily"]}
     assert days["2025-06-02"]["valid_intervals"] == 0
     assert days["2025-06-01"]["valid_intervals"] == days["2025-06-01"]["daylight_intervals"]
 
@@ -197,7 +197,7 @@ def test_availability_time_and_energy_and_the_exclusion_rule():
     frame.loc[down, "measured_ac_w"] = 0.0
     con = connect_with(frame)
     start, end = metrics.resolve_period(con, site, None, None)
-    wr2 = metrics.compute(con, site, start, end)["metrics"]["monthly"][0]["inverters"][1]
+    wr2 = metrics.period(con, site, start, end)["metrics"]["monthly"][0]["inverters"][1]
     # by hand from the frame: base = daylight rows with POA >= 50 W/m2 (metrics rules)
     f = frame[(frame["inverter_id"] == "WR2") & (frame["sun_zenith_deg"] < 90)
               & (frame["poa_wm2"] >= 50)]
@@ -208,7 +208,7 @@ def test_availability_time_and_energy_and_the_exclusion_rule():
     events = [{"kind": "curtailment", "scope": "inverter:WR2",
                "start": "2025-06-10T08:00:00+02:00", "end": "2025-06-11T08:00:00+02:00"}]
     windows = metrics.event_windows(events, metrics.load_settings(site))
-    excl = metrics.compute(con, site, start, end, windows)["metrics"]["monthly"][0]
+    excl = metrics.period(con, site, start, end, windows)["metrics"]["monthly"][0]
     assert excl["inverters"][1]["availability"] == 1.0
     assert excl["inverters"][1]["excluded_intervals"] > 0
     assert excl["inverters"][0]["excluded_intervals"] == 0
@@ -229,7 +229,7 @@ def test_plant_reference_yield_is_p0_weighted_over_orientations():
     frame.loc[wr2, "poa_wm2"] *= 0.9
     con = connect_with(frame)
     start, end = metrics.resolve_period(con, site, None, None)
-    p = metrics.compute(con, site, start, end)["metrics"]["period"]
+    p = metrics.period(con, site, start, end)["metrics"]["period"]
     day = frame[frame["sun_zenith_deg"] < 90]
     h = day.groupby("inverter_id")["poa_wm2"].sum() * 0.25  # Wh/m2 at 15 min
     e = day["measured_ac_w"].sum() * 0.25
@@ -263,7 +263,7 @@ def test_annual_reference_temperature_option():
     site = make_site(metrics={"pr_temp_ref_c": "annual"})
     con = connect_with(synthetic_aligned(site, "2025-06-01", "2025-06-11"))
     start, end = metrics.resolve_period(con, site, None, None)
-    out = metrics.compute(con, site, start, end)
+    out = metrics.period(con, site, start, end)
     p = out["metrics"]["period"]
     assert p["pr_temp_corrected"] == p["pr_weather_corrected"]
     assert out["settings"]["pr_temp_ref_used_c"] == out["settings"]["t_cell_typ_avg_used_c"]
@@ -299,7 +299,7 @@ def demo_metrics(demo_db):
     con = demo_db.connect()
     try:
         start, end = metrics.resolve_period(con, demo_db.site, None, None)
-        yield metrics.compute(con, demo_db.site, start, end)["metrics"]
+        yield metrics.period(con, demo_db.site, start, end)["metrics"]
     finally:
         con.close()
 
@@ -338,12 +338,12 @@ def _sensor_week(bias) -> tuple[dict, dict, dict, pd.DataFrame, pd.Series]:
     bias(frame, week)
     con = connect_with(frame)
     start, end = metrics.resolve_period(con, site, None, None)
-    healthy = metrics.compute(truth, site, start, end)["metrics"]["period"]
-    biased = metrics.compute(con, site, start, end)["metrics"]["period"]
+    healthy = metrics.period(truth, site, start, end)["metrics"]["period"]
+    biased = metrics.period(con, site, start, end)["metrics"]["period"]
     event = [{"kind": "sensor_fault", "scope": "plant", "start": "2025-06-10T02:00:00+02:00",
               "end": "2025-06-17T02:00:00+02:00"}]
     windows = metrics.event_windows(event, metrics.load_settings(site))
-    fixed = metrics.compute(con, site, start, end, windows)["metrics"]["period"]
+    fixed = metrics.period(con, site, start, end, windows)["metrics"]["period"]
     return healthy, biased, fixed, frame, week
 
 

@@ -41,7 +41,7 @@ def job(tmp_path, monkeypatch):
                         "?, 1, 1, 1, 0, 0, 0, now(), '0.1.0')", [str(p), digest])
         return []
 
-    def analyse(con, site, start, end):
+    def view(con, site, start, end):
         r = example_check(start.tz_convert(site.timezone).isoformat(),
                           end.tz_convert(site.timezone).isoformat())
         month = start.tz_convert(site.timezone).strftime("%Y-%m")
@@ -51,7 +51,7 @@ def job(tmp_path, monkeypatch):
         return checked(site, r)
 
     monkeypatch.setattr(pipeline, "update", update)
-    monkeypatch.setattr(pipeline, "analyse", analyse)
+    monkeypatch.setattr(pipeline, "view", view)
     monkeypatch.setattr(align, "load_aligned", lambda *a, **k: example_aligned())
     return tmp_path, state
 

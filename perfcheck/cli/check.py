@@ -9,7 +9,7 @@ from typing import Any
 
 import click
 
-from perfcheck import db, metrics
+from perfcheck import analysis, db, metrics
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
@@ -108,20 +108,19 @@ def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
                   date_to: dt.datetime | None, json_path: Path | None) -> None:
     """Yields, performance ratios (plain, temperature- and weather-corrected), EPI,
     availability, specific yield and data coverage per month, each with its interval, then
-    the detected events and the loss balance. The filtering rules come from the optional
-    [metrics] table of the site file and are stored with the results.
+    the events and the loss balance, clipped from the analysis of the whole history (made
+    first if the data, the model or the site file changed since the last one). The filtering
+    rules come from the optional [metrics] table of the site file.
 
     \b
     Example:
       perfcheck check site.toml --from 2025-06-01 --to 2025-06-30 --json june.json
     """
-    metrics.load_settings(site)  # a bad [metrics] table fails before any work
     json_target(json_path)
     con = open_db(db_path)
     try:
         start, end = metrics.resolve_period(con, site, _day(date_from), _day(date_to))
-        doc = metrics.check(con, site, start, end)
-        metrics.store(con, doc)
+        doc = analysis.view(con, site, start, end, analysis.update(con, site))
     finally:
         con.close()
     if json_path is not None:

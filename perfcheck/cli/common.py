@@ -13,7 +13,7 @@ from typing import Any
 import click
 import pandas as pd
 
-from perfcheck import db, periods
+from perfcheck import db, periods, sections
 from perfcheck.errors import PerfcheckError
 from perfcheck.site import Site, load_site
 
@@ -60,7 +60,7 @@ def site_argument(fn: Callable) -> Callable:
     @functools.wraps(fn)
     @handle_errors
     def wrapper(site_file: Path, db_path: Path | None, **kwargs: Any) -> Any:
-        site = load_site(site_file)
+        site = sections.validate(load_site(site_file))
         return fn(site=site, db_path=db_path or db.default_db_path(site_file), **kwargs)
 
     return wrapper

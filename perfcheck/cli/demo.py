@@ -88,8 +88,7 @@ def demo_command(out_dir: Path, quiet: bool) -> None:
 
         _heading("performance per month")
         start, end = metrics.resolve_period(con, site, None, None)
-        doc = metrics.check(con, site, start, end)
-        metrics.store(con, doc)
+        doc = pipeline.view(con, site, start, end)
         write_json(out_dir / "check.json", doc)
         click.echo(format_table(doc, site))
 

@@ -1,21 +1,22 @@
 """Detect stage: find the underperformance in the aligned series and cost it.
 
-``run(con, site, start, end)`` reads the aligned measured/expected series, runs every detector
-(:func:`analyse`, pure) and returns ``{"events": [...], "losses": {...}, "degradation": {...}}``;
-the events are also stored in the ``events`` table.
+:func:`analyse` (pure, no database) runs every detector over the aligned rows of the plant's
+whole history and returns the events, the loss ledger (:mod:`perfcheck.detect.attribution`)
+and the degradation block; :mod:`perfcheck.analysis` stores them and every view reads them.
 
 Order of the work (each step sees the corrections of the steps before):
 clock faults (readings shifted back) -> sensor faults (the expected power of the sensor-fed
 inverters rebuilt from modelled POA where the sensor is suspect) -> outages -> clipping ->
 curtailment -> partial outages -> shading -> soiling -> degradation -> baseline regression and
-CUSUM -> attribution (:mod:`perfcheck.detect.attribution` documents the order of the losses).
+CUSUM -> ledger (:mod:`perfcheck.detect.attribution` documents the order of the losses).
 
 Settings (optional ``[detect]`` table of the site file):
 
 ``reference_from`` (date, default: the first day with data on or after commissioning) and
 ``reference_days`` (int, 28): the baseline regression's reference window;
-``alpha`` (1e-3): significance of every change-point and level test (false-alarm probability
-per test); ``cusum_k`` (0.5) and ``cusum_h`` (5.5): the CUSUM's reference value and decision
+``alpha`` (1e-3): significance of every statistical test of the detectors (change points, level
+tests, the sky-region test of shading; false-alarm probability per test);
+``cusum_k`` (0.5) and ``cusum_h`` (5.5): the CUSUM's reference value and decision
 interval in standard deviations; ``soiling_rain_mm`` (5.0): daily rain that counts as a
 recovery candidate; ``clock_min_offset_min`` (20): smallest clock offset reported;
 ``shading_min_deficit`` (0.05): smallest beam deficit of a shaded sky bin.
@@ -25,15 +26,12 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
-import json
 import time
 from typing import Any
 
-import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import db
 from perfcheck.detect import (
     attribution,
     baseline,
@@ -116,9 +114,10 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
             timings: dict[str, float] | None = None) -> dict[str, Any]:
     """Run every detector over aligned rows; pure (no database).
 
-    Returns ``{"events": [Event], "losses": {...}, "degradation": {...}, "suspect_windows":
-    [...], "clock_shifts": [...], "footprints": [...], "wide": Wide}`` (events as
-    :class:`Event`, not yet JSON; ``wide`` is the corrected series the detectors saw).
+    Returns ``{"events": [Event], "ledger": Ledger, "degradation": {...}, "model": {...},
+    "suspect_windows": [...], "clock_shifts": [...], "footprints": [...], "wide": Wide}``
+    (events as :class:`Event`, their energies still the detectors' own: the analysis restates
+    them from the ledger; ``wide`` is the corrected series the detectors saw).
     """
     st = settings or load_settings(site)
     clock_t = timings if timings is not None else {}
@@ -157,7 +156,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ev, out_mask = outage.detect(w, rel_sigma)
     events += ev
     t = lap("outage", t)
-    ev, clip_mask = clipping.detect(w, rel_sigma, step_noise, out_mask)
+    ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask)
     events += ev
     t = lap("clipping", t)
     ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask)
@@ -174,7 +173,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w_fixed = dataclasses.replace(w, measured=meas_fixed)
     horizon = {i.id: i.arrays[0].horizon for i in site.inverters}
     ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded, rel_sigma, horizon,
-                                    min_deficit=st.shading_min_deficit)
+                                    alpha=st.alpha, min_deficit=st.shading_min_deficit)
     events += ev
     prints += fp
     t = lap("shading", t)
@@ -203,22 +202,23 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     fits = baseline.fit(w, valid & ~excluded, ref_first, st.reference_days)
     flagged, info = baseline.flag(w, valid, fits, k=st.cusum_k, h=st.cusum_h)
     t = lap("baseline", t)
-    losses, under = attribution.losses(
-        w0, w1, w, {"outage": out_mask, "clipping": clip_mask, "curtailment": curt_mask},
-        prints, flagged, rel_sigma)
+    ledger, under = attribution.build(
+        w, events, {"outage": out_mask, "clipping": clip_mask, "curtailment": curt_mask},
+        prints, design, flagged, rel_sigma)
     events += under
     lap("attribution", t)
-    losses["model_relative_sigma_daily"] = rel_sigma
-    losses["baseline"] = {
-        "reference_from": ref_first.date().isoformat(), "reference_days": st.reference_days,
-        "cusum_k": st.cusum_k, "cusum_h": st.cusum_h,
-        "arl0_days": baseline.arl0(st.cusum_k, st.cusum_h),
-        "false_alarms_per_inverter_year": 365.25 / baseline.arl0(st.cusum_k, st.cusum_h),
-        "flagged_periods": len(flagged),
-        "fits": {k: {"params": v["params"], "rows": v["rows"]} for k, v in fits.items()},
-        "per_inverter": info}
+    model = {
+        "model_relative_sigma_daily": rel_sigma,
+        "baseline": {
+            "reference_from": ref_first.date().isoformat(),
+            "reference_days": st.reference_days, "cusum_k": st.cusum_k, "cusum_h": st.cusum_h,
+            "arl0_days": baseline.arl0(st.cusum_k, st.cusum_h),
+            "false_alarms_per_inverter_year": 365.25 / baseline.arl0(st.cusum_k, st.cusum_h),
+            "flagged_periods": len(flagged),
+            "fits": {k: {"params": v["params"], "rows": v["rows"]} for k, v in fits.items()},
+            "per_inverter": info}}
     events.sort(key=lambda e: (e.start, e.kind, e.scope))
-    return {"events": events, "losses": losses, "degradation": block,
+    return {"events": events, "ledger": ledger, "degradation": block, "model": model,
             "suspect_windows": suspects, "clock_shifts": shifts, "footprints": prints,
             "wide": w}
 
@@ -257,80 +257,3 @@ def _reference_start(w: Wide, site: Site, st: Settings) -> pd.Timestamp:
     if st.reference_from is not None:
         return pd.Timestamp(st.reference_from)
     return max(first, pd.Timestamp(site.commissioned))
-
-
-def to_json(result: dict[str, Any], site: Site) -> dict[str, Any]:
-    """The ``events``, ``losses`` and ``degradation`` parts of the check document."""
-    tz = site.tz
-    return {
-        "events": [e.to_dict(tz) for e in result["events"]],
-        "losses": _round_block(result["losses"]),
-        "degradation": _round_block(result["degradation"]),
-    }
-
-
-def _round_block(obj: Any) -> Any:
-    from perfcheck.detect.common import _jsonable
-
-    return _jsonable(obj)
-
-
-def store(con: duckdb.DuckDBPyConnection, events: list[dict[str, Any]], start: pd.Timestamp,
-          end: pd.Timestamp) -> None:
-    """Replace the stored events of this period by ``events`` (JSON form), one transaction."""
-    now = dt.datetime.now(dt.UTC)
-    con.begin()
-    try:
-        con.execute(db.sql("detect_delete"), {"period_start": start, "period_end": end})
-        for i, e in enumerate(events):
-            extra = {k: v for k, v in e.items() if k not in (
-                "kind", "scope", "start", "end", "energy_loss_kwh", "energy_loss_kwh_low",
-                "energy_loss_kwh_high", "method", "evidence")}
-            con.execute(db.sql("detect_insert"), {
-                "period_start": start, "period_end": end, "seq": i, "kind": e["kind"],
-                "scope": e["scope"], "start_ts": pd.Timestamp(e["start"]),
-                "end_ts": pd.Timestamp(e["end"]), "energy_loss_kwh": e["energy_loss_kwh"],
-                "energy_loss_kwh_low": e["energy_loss_kwh_low"],
-                "energy_loss_kwh_high": e["energy_loss_kwh_high"], "method": e["method"],
-                "evidence_json": json.dumps(e["evidence"]), "detail_json": json.dumps(extra),
-                "created_at": now})
-        con.commit()
-    except BaseException:
-        con.rollback()
-        raise
-
-
-def run(
-    con: duckdb.DuckDBPyConnection,
-    site: Site,
-    start: pd.Timestamp | None = None,
-    end: pd.Timestamp | None = None,
-) -> dict[str, Any]:
-    """Run the detectors over ``[start, end)`` and return events, losses and degradation.
-
-    The events are stored in the ``events`` table (replacing those of an earlier run over the
-    same period). Raises DataError when nothing has been aligned yet.
-    """
-    from perfcheck.align import load_aligned
-
-    settings = load_settings(site)
-    df = load_aligned(con, site, start, end)
-    if df.empty or df["measured_ac_w"].notna().sum() == 0:
-        return _empty(df)
-    result = analyse(df, site, settings)
-    out = to_json(result, site)
-    lo = pd.Timestamp(df["ts"].min()) if start is None else pd.Timestamp(start)
-    hi = pd.Timestamp(df["ts"].max()) + pd.Timedelta(seconds=float(df["interval_s"].iloc[-1])) \
-        if end is None else pd.Timestamp(end)
-    store(con, out["events"], lo, hi)
-    return out
-
-
-def _empty(df: pd.DataFrame) -> dict[str, Any]:
-    return {
-        "events": [],
-        "losses": {"expected_kwh": 0.0, "measured_kwh": 0.0, "by_cause_kwh": {},
-                   "unexplained_kwh": 0.0},
-        "degradation": {"rate_pct_per_year": None, "ci_low": None, "ci_high": None,
-                        "method": degradation.METHOD, "status": "not enough data"},
-    }

@@ -1,136 +1,177 @@
-"""The losses block: expected minus measured energy split by cause, with nothing counted twice.
+"""The loss ledger: per interval and inverter, expected energy, each cause's loss, the
+unexplained rest and the measured energy, with nothing counted twice.
 
-Order of attribution (each step works on what the steps before it left):
+The ledger's expected energy is the design's at its ageing allowance, with the irradiance
+sensor's suspect windows rebuilt from modelled irradiance; its measured energy is the readings
+with the clock faults shifted back. Corrections (:mod:`perfcheck.kinds`, class ``correction``)
+therefore cost nothing: they change the reference, not the plant. On the intervals that have
+both, the shortfall is split in this order (each step works on what the steps before left):
 
-1. ``clock_fault``: the change of the shortfall when the readings of a clock fault window are
-   shifted back.
-2. ``sensor_fault``: the expected energy minus the expected energy rebuilt from modelled POA
-   in the sensor's suspect windows (the reference was wrong, not the plant; negative when the
-   sensor read low).
-3. Whole intervals, in this order, each interval to one cause only: ``outage``, ``clipping``
-   (a limit below the rating), ``curtailment``: the whole shortfall of the interval.
-4. Shares of the remaining intervals' expected power, one after another on what is left:
+1. Whole intervals (class ``interval``), in the order ``outage``, ``clipping`` (a limit below the
+   rating), ``curtailment``: the whole shortfall of each interval an event of that kind covers.
+2. Shares of the remaining intervals' expected power (class ``share``), one after another:
    ``degradation`` (beyond the site file's ageing allowance), ``soiling``, ``shading``,
-   ``partial_outage``: loss = share x (expected less the losses of the causes before it).
-5. ``underperformance``: in each period flagged by the baseline CUSUM, what steps 1-4 leave,
-   when it is significant: above 3 times the daily relative model error (at least 1 %)
-   times the period's expected energy (model errors taken as fully correlated over the
-   period, conservative; one-sided false-alarm probability 0.13 % per flagged period).
-6. ``unexplained_kwh``: the rest (noise and model error, either sign).
+   ``partial_outage``: loss = share x (expected less the losses of the shares before it).
+3. ``underperformance`` (class ``residual``): in each period flagged by the baseline CUSUM, what
+   steps 1-2 leave, when it is significant: above 3 times the daily relative model error (at
+   least 1 %) times the period's expected energy (model errors taken as fully correlated over
+   the period, conservative; one-sided false-alarm probability 0.13 % per flagged period).
+4. Unexplained: the rest (noise and model error, either sign).
 
-By construction expected_kwh - measured_kwh = sum(by_cause_kwh) + unexplained_kwh exactly
-(summed over the intervals that have both a measured and an expected value).
+Clipping at the AC rating (class ``design``) lies inside the expected series; its energy, the
+unlimited expected power above the rating, is recorded beside the losses, never among them.
+The intervals it holds at the rating take no share-type loss (a DC-side loss does not lower an
+output held at the rating); their small gap stays unexplained.
+
+Every entry names its event, so an event's energy over any window is the sum of its entries
+there, and expected - measured = sum of the losses + unexplained holds on any window.
 """
 
 from __future__ import annotations
 
-import math
-from typing import Any
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
+from perfcheck import kinds
 from perfcheck.detect.baseline import Flagged
 from perfcheck.detect.common import MODEL_FLOOR, Event, Footprint, Wide, energy_band, scope_of
 
 Z_UNDER = 3.0  # one-sided 0.13 % per flagged period
-MULTIPLICATIVE_ORDER = ("degradation", "soiling", "shading", "partial_outage")
-EXCLUSIVE_ORDER = ("outage", "clipping", "curtailment")
 
 
-def _kwh(x: np.ndarray, step: np.ndarray) -> float:
-    return float(np.nansum(x * step[:, None]) / 3.6e6)
+@dataclass
+class Entry:
+    """The energy one event takes from some intervals: ``power_w[i]`` at row ``rows[i]`` of
+    column ``cols[i]`` (a loss, or for a design event the energy it keeps out of the expected
+    series)."""
+
+    event: Event
+    rows: np.ndarray
+    cols: np.ndarray
+    power_w: np.ndarray
 
 
-def losses(w0: Wide, w1: Wide, w2: Wide, exclusive: dict[str, pd.DataFrame],
-           prints: list[Footprint], flagged: list[Flagged], rel_sigma: float
-           ) -> tuple[dict[str, Any], list[Event]]:
-    """The losses block and the ``underperformance`` events.
+@dataclass
+class Ledger:
+    """Per interval (rows) and inverter (columns): power [W] over the interval ``interval_s``."""
 
-    ``w0`` as aligned, ``w1`` after the clock correction, ``w2`` after the sensor correction.
+    index: pd.DatetimeIndex
+    inverters: list[str]
+    interval_s: np.ndarray
+    measured_w: np.ndarray  # clock faults shifted back; NaN where none
+    expected_w: np.ndarray  # at the ageing allowance, sensor fallback applied; NaN where none
+    poa: np.ndarray  # plane-of-array irradiance behind expected_w [W/m^2]
+    entries: list[Entry] = field(default_factory=list)
+
+    @property
+    def both(self) -> np.ndarray:
+        return np.isfinite(self.measured_w) & np.isfinite(self.expected_w)
+
+    def loss_w(self) -> np.ndarray:
+        """Sum of the loss entries per interval and inverter [W]."""
+        out = np.zeros_like(self.expected_w)
+        for e in self.entries:
+            if kinds.is_loss(e.event.kind):
+                np.add.at(out, (e.rows, e.cols), e.power_w)
+        return out
+
+    def unexplained_w(self) -> np.ndarray:
+        """Expected - measured - losses on the intervals with both; NaN elsewhere."""
+        gap = self.expected_w - self.measured_w
+        return np.where(self.both, gap - self.loss_w(), np.nan)
+
+    def energy_kwh(self, entry: Entry) -> float:
+        return float(np.sum(entry.power_w * self.interval_s[entry.rows]) / 3.6e6)
+
+
+def _scope_cols(ev: Event, col_pos: dict[str, int]) -> list[int]:
+    if ev.scope == "plant":
+        return list(col_pos.values())
+    return [col_pos[ev.scope.split(":", 1)[1]]]
+
+
+def _window_rows(index: pd.DatetimeIndex, ev: Event) -> slice:
+    return slice(int(index.searchsorted(ev.start)), int(index.searchsorted(ev.end)))
+
+
+def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
+          prints: list[Footprint], design: dict[int, pd.DataFrame], flagged: list[Flagged],
+          rel_sigma: float) -> tuple[Ledger, list[Event]]:
+    """The ledger of the corrected series ``w`` and the ``underperformance`` events.
+
+    Parameters
+    ----------
+    w : the series after the clock and sensor corrections
+    events : every event found so far (interval-class events take the intervals of their
+        kind's mask inside their window and scope)
+    masks : per interval-class kind, the (interval x inverter) mask of its intervals
+    prints : the share-class footprints
+    design : per design event (by ``id``), the power it keeps out of the expected series [W]
+    flagged : the baseline test's flagged periods
+    rel_sigma : daily relative model error [-]
     """
-    cols = w0.inverters
-    step = w0.interval_s.to_numpy()
-    both = (w0.measured.notna() & w0.expected.notna()).to_numpy()
-    e0 = np.where(both, w0.expected.to_numpy(), 0.0)
-    m0 = np.where(both, w0.measured.to_numpy(), 0.0)
-    e1 = np.where(both, w1.expected.fillna(w0.expected).to_numpy(), 0.0)
-    m1 = np.where(both, w1.measured.fillna(w0.measured).to_numpy(), 0.0)
-    e2 = np.where(both, w2.expected.fillna(w1.expected).to_numpy(), 0.0)
-    m2 = m1
-    by: dict[str, float] = {}
-    by["clock_fault"] = _kwh((e0 - m0) - (e1 - m1), step)
-    by["sensor_fault"] = _kwh(e1 - e2, step)
-    gap = e2 - m2
-    taken = np.zeros_like(both)
-    for kind in EXCLUSIVE_ORDER:
-        if kind not in exclusive:
-            continue
-        mk = exclusive[kind].reindex(columns=cols).fillna(False).to_numpy(dtype=bool) & ~taken
-        by[kind] = _kwh(np.where(mk, gap, 0.0), step)
-        taken |= mk
-    free = both & ~taken
-    left = np.where(free, e2, 0.0)
-    explained = np.zeros_like(left)
+    cols = w.inverters
     col_pos = {c: i for i, c in enumerate(cols)}
-    for kind in MULTIPLICATIVE_ORDER:
-        total = 0.0
+    led = Ledger(index=w.index, inverters=cols, interval_s=w.interval_s.to_numpy(dtype=float),
+                 measured_w=w.measured.to_numpy(dtype=float),
+                 expected_w=w.expected.to_numpy(dtype=float), poa=w.poa.to_numpy(dtype=float))
+    both = led.both
+    gap = np.where(both, led.expected_w - led.measured_w, 0.0)
+    taken = np.zeros_like(both)
+    for kind in (k.name for k in kinds.TABLE if k.ledger == "interval"):
+        if kind not in masks:
+            continue
+        mk = masks[kind].reindex(columns=cols).fillna(False).to_numpy(dtype=bool) & both
+        for ev in (e for e in events if e.kind == kind):
+            sl = _window_rows(w.index, ev)
+            sub = np.zeros_like(mk)
+            ci = _scope_cols(ev, col_pos)
+            sub[sl, ci] = mk[sl][:, ci] & ~taken[sl][:, ci]
+            _add(led, ev, sub, gap)
+            taken |= sub
+    # intervals held at the AC rating by design: the output stays at the rating whatever
+    # happens on the DC side, so no share-type cause can take from them
+    held = np.zeros_like(both)
+    if "clipping" in masks:
+        clip = masks["clipping"].reindex(columns=cols).fillna(False).to_numpy(dtype=bool)
+        for ev in (e for e in events if id(e) in design):
+            sl, ci = _window_rows(w.index, ev), _scope_cols(ev, col_pos)
+            held[sl, ci] = clip[sl][:, ci]
+    free = both & ~taken & ~held
+    left = np.where(free, led.expected_w, 0.0)
+    explained = np.zeros_like(left)
+    for kind in (k.name for k in kinds.TABLE if k.ledger == "share"):
         for fp in (p for p in prints if p.event.kind == kind):
             ci = [col_pos[c] for c in fp.cols]
             sub = left[fp.lo:fp.hi][:, ci]
-            loss = sub * fp.factor
+            loss = np.where(free[fp.lo:fp.hi][:, ci], sub * fp.factor, 0.0)
             left[fp.lo:fp.hi, ci] = sub - loss
             explained[fp.lo:fp.hi, ci] += loss
-            e = _kwh(loss, step[fp.lo:fp.hi])
-            _restate(fp.event, e)
-            total += e
-        if total:
-            by[kind] = total
+            rows, cc = np.nonzero(loss)
+            led.entries.append(Entry(fp.event, rows + fp.lo, np.asarray(ci)[cc], loss[rows, cc]))
+    for ev in events:
+        if id(ev) in design:
+            d = design[id(ev)].reindex(columns=cols).fillna(0.0).to_numpy(dtype=float)
+            _add(led, ev, d != 0, d)
     residual = np.where(free, gap - explained, 0.0)
-    periods: list[dict] = []
-    events = _underperformance(w0, residual, e2, flagged, rel_sigma, col_pos, step, by,
-                               periods)
-    expected_kwh = _kwh(e0, step)
-    measured_kwh = _kwh(m0, step)
-    by = {k: v for k, v in by.items() if v != 0.0}
-    unexplained = (expected_kwh - measured_kwh) - math.fsum(by.values())
-    block = {
-        "expected_kwh": expected_kwh,
-        "measured_kwh": measured_kwh,
-        "by_cause_kwh": by,
-        "unexplained_kwh": unexplained,
-        "flagged_periods": periods,
-        "order": ["clock_fault", "sensor_fault", *EXCLUSIVE_ORDER, *MULTIPLICATIVE_ORDER,
-                  "underperformance", "unexplained"],
-        "rule": "clock and sensor corrections first; then whole intervals (outage, clipping "
-                "below the rating, curtailment); then shares of what is left (degradation "
-                "beyond the allowance, soiling, shading, partial outage) one after another; "
-                "the significant rest of each period flagged by the baseline test is "
-                "underperformance; the remainder is unexplained",
-    }
-    return block, events
+    under = _underperformance(w, led, residual, np.where(free, led.expected_w, 0.0), flagged,
+                              rel_sigma, col_pos, free)
+    return led, under
 
 
-def _restate(ev: Event, attributed: float) -> None:
-    """A share-type event reports the energy the attribution gave it (the band scaled alike),
-    so events and the losses block agree; degradation keeps its own figure (against a plant
-    that does not age) and records the attributed part beside it."""
-    ev.detail["attributed_kwh"] = attributed
-    if ev.kind == "degradation" or ev.energy_loss_kwh == 0:
-        return
-    k = attributed / ev.energy_loss_kwh
-    ev.energy_loss_kwh = attributed
-    ev.energy_loss_kwh_low *= k
-    ev.energy_loss_kwh_high *= k
+def _add(led: Ledger, ev: Event, sel: np.ndarray, power: np.ndarray) -> None:
+    rows, cols = np.nonzero(sel)
+    led.entries.append(Entry(ev, rows, cols, power[rows, cols]))
 
 
-def _underperformance(w: Wide, residual: np.ndarray, expected: np.ndarray,
+def _underperformance(w: Wide, led: Ledger, residual: np.ndarray, expected: np.ndarray,
                       flagged: list[Flagged], rel_sigma: float, col_pos: dict[str, int],
-                      step: np.ndarray, by: dict[str, float], record: list[dict]
-                      ) -> list[Event]:
+                      free: np.ndarray) -> list[Event]:
     days = w.day.to_numpy()
+    step = led.interval_s
     out = []
-    total = 0.0
     for f in flagged:
         j = col_pos[f.inverter]
         sel = (days >= np.datetime64(f.first_day)) & (days <= np.datetime64(f.last_day))
@@ -138,15 +179,10 @@ def _underperformance(w: Wide, residual: np.ndarray, expected: np.ndarray,
         # model errors persist over days (season, weather regime): the period's relative error
         # is taken as large as a single day's (fully correlated), a conservative bound
         sigma = max(rel_sigma, MODEL_FLOOR) * float(np.sum(expected[sel, j] * step[sel]) / 3.6e6)
-        significant = bool(u > Z_UNDER * sigma and u > 0)
-        record.append({"scope": scope_of(f.inverter), "first_day": f.first_day.date(),
-                       "last_day": f.last_day.date(), "baseline_shortfall_kwh": f.shortfall_kwh,
-                       "left_unexplained_kwh": u, "underperformance": significant})
-        if not significant:
+        if not (u > Z_UNDER * sigma and u > 0):
             continue
-        total += u
         low, high = energy_band(u, 0.0, sigma)
-        out.append(Event(
+        ev = Event(
             kind="underperformance", scope=scope_of(f.inverter),
             start=pd.Timestamp(f.first_day).tz_localize(w.tz).tz_convert("UTC"),
             end=(pd.Timestamp(f.last_day) + pd.Timedelta(days=1)).tz_localize(w.tz)
@@ -157,7 +193,8 @@ def _underperformance(w: Wide, residual: np.ndarray, expected: np.ndarray,
             evidence={"test": "lower CUSUM of standardised daily residuals",
                       "cusum_min": f.cusum_min, "baseline_shortfall_kwh": f.shortfall_kwh,
                       "z": u / sigma if sigma > 0 else None},
-            detail={"cause": "unknown"}))
-    if total:
-        by["underperformance"] = total
+            detail={"cause": "unknown"})
+        rows = np.flatnonzero(sel & free[:, j])
+        led.entries.append(Entry(ev, rows, np.full(len(rows), j), residual[rows, j]))
+        out.append(ev)
     return out

@@ -6,10 +6,10 @@ over the intervals where the unlimited model exceeds the rating by more than the
 noise. An interval is clipped when the unlimited expected power is above that limit and the
 measured power sits within the plateau tolerance of it. The energy is the unlimited expected
 power minus the limit, summed. With the limit at the rating this is the natural clipping of a
-high DC/AC ratio: a design fact, reported as such (``detail.design = true``); the expected series
-already stops at the rating, so it adds nothing to the shortfall. A limit clearly below the
-rating (beyond the tolerance) is a derated inverter: then the shortfall of those intervals is
-attributed to clipping.
+high DC/AC ratio: a design fact, reported as its own kind ``design_clipping``; the expected
+series already stops at the rating, so its energy is kept beside the losses, never among them.
+A limit clearly below the rating (beyond the tolerance) is a derated inverter (kind
+``clipping``): then the shortfall of those intervals is attributed to clipping.
 
 References
 ----------
@@ -30,8 +30,9 @@ METHOD = ("plateau at the inverter's AC limit while unlimited expected power exc
 
 
 def detect(w: Wide, rel_sigma: float, step_noise: float, exclude: pd.DataFrame
-           ) -> tuple[list[Event], pd.DataFrame]:
-    """Clipping events (one per inverter with clipping) and the mask of clipped intervals.
+           ) -> tuple[list[Event], pd.DataFrame, dict[int, pd.DataFrame]]:
+    """Clipping events (one per inverter with clipping), the mask of clipped intervals, and
+    per design event (by ``id``) the unlimited expected power above the rating [W].
 
     Parameters
     ----------
@@ -42,6 +43,7 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, exclude: pd.DataFrame
     tol = max(3 * step_noise, 0.005)
     mask = pd.DataFrame(False, index=w.index, columns=w.inverters)
     events: list[Event] = []
+    design: dict[int, pd.DataFrame] = {}
     step = w.interval_s.to_numpy()
     for inv in w.inverters:
         rating = float(w.ac_w[inv])
@@ -68,18 +70,19 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, exclude: pd.DataFrame
         gap_kwh = float(np.nansum(gap[clipped] * step[clipped]) / 3.6e6)
         pos = np.flatnonzero(clipped)
         days = w.day.to_numpy()[clipped]
-        events.append(Event(
-            kind="clipping", scope=scope_of(inv), start=w.index[pos[0]],
+        ev = Event(
+            kind="clipping" if derated else "design_clipping", scope=scope_of(inv),
+            start=w.index[pos[0]],
             end=w.index[pos[-1]] + pd.Timedelta(seconds=float(step[pos[-1]])),
             energy_loss_kwh=e_kwh, energy_loss_kwh_low=max(low, 0.0), energy_loss_kwh_high=high,
             method=METHOD,
             evidence={"limit_w": limit, "rating_w": rating, "tolerance": tol,
                       "clipped_intervals": n, "clipped_hours": float(step[clipped].sum() / 3600),
                       "days_with_clipping": int(len(np.unique(days)))},
-            detail={"design": not derated,
-                    "note": ("natural clipping at the AC rating (DC/AC ratio): a design fact, "
-                             "not a fault") if not derated else
-                    "inverter held a limit below its rating (derated)",
-                    "shortfall_kwh": gap_kwh},
-        ))
-    return events, mask
+            detail={"shortfall_kwh": gap_kwh},
+        )
+        events.append(ev)
+        if not derated:
+            above = np.where(over_lim, pot - limit, 0.0)
+            design[id(ev)] = pd.DataFrame({inv: above}, index=w.index)
+    return events, mask, design

@@ -76,15 +76,15 @@ def detect(w: Wide, pi_plant: pd.Series, allowance_pct: float, commissioned: pd.
                   "confidence": 0.95})
     years = ((w.index - pd.Timestamp(commissioned, tz="UTC")) / pd.Timedelta(days=365.25)
              ).to_numpy(dtype=float).clip(0, None)
-    age = (1 - a) ** years
-    unaged = w.expected.to_numpy() / age[:, None]
     step = w.interval_s.to_numpy()[:, None] / 3.6e6
 
-    def energy(r_pct: float) -> float:
-        return float(np.nansum(unaged * (1 - (1 + r_pct / 100) ** years)[:, None] * step))
+    def energy(r_rel_pct: float) -> float:
+        """Energy lost beyond the allowance at a relative rate [%/yr] [kWh]."""
+        return float(np.nansum(w.expected.to_numpy() * (1 - (1 + r_rel_pct / 100) ** years
+                                                         )[:, None] * step))
 
-    total = energy(rate)
-    e_lo, e_hi = sorted((energy(lo), energy(hi)))
+    total = energy(y["rate"])
+    e_lo, e_hi = sorted((energy(y["low"]), energy(y["high"])))
     b_lo, b_hi = energy_band(total, rel_sigma)
     ev = Event(kind="degradation", scope="plant", start=w.index[0],
                end=w.index[-1] + pd.Timedelta(seconds=float(w.interval_s.iloc[-1])),
@@ -94,9 +94,8 @@ def detect(w: Wide, pi_plant: pd.Series, allowance_pct: float, commissioned: pd.
                          "ci95": [lo, hi], "pairs": y["pairs"],
                          "relative_to_allowance_pct_per_year": y["rate"]},
                detail={"rate_pct_per_year": rate, "allowance_pct_per_year": allowance_pct,
-                       "note": "energy against a plant that does not age; the expected series "
-                               "already allows for the site file's ageing, so only the part "
-                               "beyond it enters the losses block"})
+                       "note": "energy lost beyond the ageing allowance that the expected "
+                               "series already carries"})
     extra = 1 - (1 + y["rate"] / 100) ** years
     fp = Footprint(ev, 0, len(w.index), w.inverters,
                    factor=np.repeat(extra[:, None], len(w.inverters), axis=1))

@@ -1,0 +1,440 @@
+"""Stage "analysis": the plant's whole history analysed once, stored, and read by every view.
+
+``update(con, site)`` runs every detector over all aligned data of the site
+(:func:`perfcheck.detect.analyse`), builds the loss ledger, the daily metric sums and the
+degradation block, and stores them under an analysis id with the hash of its inputs (the logger
+files, the aligned series, the site file's settings, the versions). It does nothing when an analysis
+with the same inputs is stored already. A new analysis keeps a revision record of the earlier
+findings it changed, with the reason.
+
+``view(con, site, start, end)`` is the check document of ``[start, end)``: the stored events
+clipped to the window (kind and scope kept, start and end clipped, energies summed from the
+ledger over the clipped window), the losses block and the metrics summed from the ledger and
+the daily sums, the guarantees. It runs no detector, so every command that asks for the same
+window gets the same document.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import hashlib
+import json
+import math
+from collections.abc import Callable
+from typing import Any
+
+import duckdb
+import numpy as np
+import pandas as pd
+
+from perfcheck import align, db, detect, guarantees, kinds, metrics, versions
+from perfcheck.detect.attribution import Ledger
+from perfcheck.detect.common import Event, _jsonable
+from perfcheck.errors import DataError
+from perfcheck.site import Site
+
+# A revised energy counts as changed beyond this share of the earlier value, or 1 kWh
+# (common practice: smaller changes are the rounding of a re-run, not a new verdict).
+REVISION_SHARE = 0.05
+REVISION_MIN_KWH = 1.0
+
+
+@dataclasses.dataclass(frozen=True)
+class Stored:
+    """A stored analysis: its id, input hash and the history it covers [first_ts, end_ts)."""
+
+    id: int
+    input_hash: str
+    first_ts: pd.Timestamp
+    end_ts: pd.Timestamp
+    created: bool  # made by this call (False: the stored one was current)
+
+
+# --------------------------------------------------------------------------------------------
+# inputs
+
+
+def inputs(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, Any]:
+    """What an analysis depends on, in a form that hashes the same on every machine."""
+    files = [r[0] for r in con.execute(db.sql("analysis_input_files")).fetchall()]
+    n, first, last, meas, exp = con.execute(db.sql("analysis_input_aligned")).fetchall()[0]
+    return {
+        "files_sha256": files,
+        "aligned": {"rows": int(n), "first_ts": None if first is None else str(first),
+                    "last_ts": None if last is None else str(last),
+                    "measured_wh": None if meas is None else repr(float(meas)),
+                    "expected_wh": None if exp is None else repr(float(exp))},
+        "site_sha256": _site_digest(site),
+        "versions": versions.versions(),
+    }
+
+
+# Site-file parts that only views read: changing them needs no new analysis.
+VIEW_ONLY_SECTIONS = ("report", "guarantees")
+
+
+def _site_digest(site: Site) -> str:
+    """Hash of the site file's content that the analysis depends on (comments, the monthly
+    job's inbox and the view-only sections left out)."""
+    raw = {k: v for k, v in site.raw.items() if k not in VIEW_ONLY_SECTIONS}
+    raw["site"] = {k: v for k, v in raw.get("site", {}).items() if k != "inbox"}
+    return hashlib.sha256(json.dumps(raw, sort_keys=True, default=str).encode()).hexdigest()
+
+
+def input_hash(spec: dict[str, Any]) -> str:
+    return hashlib.sha256(json.dumps(spec, sort_keys=True).encode()).hexdigest()
+
+
+def current(con: duckdb.DuckDBPyConnection) -> Stored | None:
+    """The current stored analysis, if any."""
+    row = con.execute(db.sql("analysis_current")).fetchone()
+    if row is None:
+        return None
+    return Stored(int(row[0]), row[1], pd.Timestamp(row[2]).tz_convert("UTC"),
+                  pd.Timestamp(row[3]).tz_convert("UTC"), False)
+
+
+# --------------------------------------------------------------------------------------------
+# the analysis
+
+
+def update(con: duckdb.DuckDBPyConnection, site: Site,
+           progress: Callable[[str], None] | None = None) -> Stored:
+    """Analyse the whole history unless an analysis of the same inputs is stored; return it.
+
+    Raises DataError when nothing has been aligned yet.
+    """
+    spec = inputs(con, site)
+    key = input_hash(spec)
+    now = current(con)
+    if now is not None and now.input_hash == key:
+        return now
+    df = align.load_aligned(con, site)
+    if df.empty or df["measured_ac_w"].notna().sum() == 0:
+        raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
+                        "files with AC power and run 'perfcheck model' first")
+    settings = metrics.load_settings(site)
+    found = detect.analyse(df, site)
+    if progress:
+        progress("detectors")
+    ledger: Ledger = found["ledger"]
+    first = pd.Timestamp(df["ts"].min())
+    end = pd.Timestamp(df["ts"].max()) + pd.Timedelta(seconds=float(df["interval_s"].iloc[-1]))
+    start_day, end_day = _whole_days(site, first, end)
+    events = _restate(found["events"], ledger)
+    t_typ = metrics.typical_cell_temperature(con, site, end_day, settings)
+    new_id = con.execute(db.sql("analysis_next_id")).fetchone()[0]
+    record = {"inputs": spec, "t_cell_typ_avg": list(t_typ)}
+    con.begin()
+    try:
+        con.execute(db.sql("analysis_drop_current_detail"))
+        con.execute(db.sql("analysis_insert"), {
+            "id": new_id, "hash": key, "inputs": json.dumps(record, sort_keys=True),
+            "created_at": dt.datetime.now(dt.UTC), "first_ts": start_day, "end_ts": end_day,
+            "settings": json.dumps(dataclasses.asdict(settings), sort_keys=True, default=str),
+            "model": json.dumps(_jsonable(found["model"]), sort_keys=True),
+            "degradation": json.dumps(_jsonable(found["degradation"]), sort_keys=True)})
+        _store_events(con, new_id, events, site)
+        _store_ledger(con, new_id, ledger, events)
+        windows = metrics.event_windows([{"kind": e.kind, "scope": e.scope, "start": e.start,
+                                          "end": e.end} for e in events], settings)
+        daily = metrics.daily_sums(con, site, start_day, end_day, settings, new_id, windows)
+        _insert_frame(con, "analysis_daily", daily.assign(analysis_id=new_id))
+        if now is not None:
+            _revise(con, now, new_id, spec)
+        con.execute(db.sql("analysis_make_current"), {"id": new_id})
+        con.commit()
+    except BaseException:
+        con.rollback()
+        raise
+    if progress:
+        progress("stored")
+    return Stored(int(new_id), key, start_day, end_day, True)
+
+
+def _whole_days(site: Site, first: pd.Timestamp, end: pd.Timestamp
+                ) -> tuple[pd.Timestamp, pd.Timestamp]:
+    """Site-local midnights around ``[first, end)`` in UTC."""
+    lo = first.tz_convert(site.tz).normalize()
+    hi = (end - pd.Timedelta(microseconds=1)).tz_convert(site.tz).normalize()
+    return lo.tz_convert("UTC"), (hi + pd.DateOffset(days=1)).tz_convert("UTC")
+
+
+def _restate(events: list[Event], ledger: Ledger) -> list[Event]:
+    """Each event's energy as the sum of its ledger entries; its band scaled alike."""
+    total: dict[int, float] = {}
+    for entry in ledger.entries:
+        total[id(entry.event)] = total.get(id(entry.event), 0.0) + ledger.energy_kwh(entry)
+    out = []
+    for ev in events:
+        e = total.get(id(ev), 0.0)
+        own = ev.energy_loss_kwh
+        k = e / own if own and math.isfinite(own) else 0.0
+        low, high = (ev.energy_loss_kwh_low * k, ev.energy_loss_kwh_high * k) if k else (e, e)
+        ev.energy_loss_kwh, ev.energy_loss_kwh_low, ev.energy_loss_kwh_high = \
+            e, min(low, high, e), max(low, high, e)
+        out.append(ev)
+    return out
+
+
+def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame) -> None:
+    cols = [r[0] for r in con.execute(f"DESCRIBE {table}").fetchall()]
+    con.register("_frame", frame[cols])
+    try:
+        con.execute(f"INSERT INTO {table} SELECT * FROM _frame")
+    finally:
+        con.unregister("_frame")
+
+
+def _store_events(con: duckdb.DuckDBPyConnection, analysis_id: int, events: list[Event],
+                  site: Site) -> None:
+    rows = []
+    for i, e in enumerate(events):
+        d = e.to_dict(site.tz)
+        rows.append({"analysis_id": analysis_id, "event_id": i, "kind": e.kind,
+                     "scope": e.scope, "start_ts": e.start, "end_ts": e.end,
+                     "energy_kwh": e.energy_loss_kwh, "energy_kwh_low": e.energy_loss_kwh_low,
+                     "energy_kwh_high": e.energy_loss_kwh_high, "method": e.method,
+                     "evidence_json": json.dumps(d["evidence"], sort_keys=True),
+                     "detail_json": json.dumps({k: v for k, v in d.items() if k not in _FIELDS},
+                                               sort_keys=True)})
+    if rows:
+        _insert_frame(con, "analysis_events", pd.DataFrame(rows))
+
+
+_FIELDS = ("kind", "scope", "start", "end", "energy_loss_kwh", "energy_loss_kwh_low",
+           "energy_loss_kwh_high", "method", "evidence")
+
+
+def _store_ledger(con: duckdb.DuckDBPyConnection, analysis_id: int, led: Ledger,
+                  events: list[Event]) -> None:
+    hours = led.interval_s / 3600.0
+    meas = led.measured_w * hours[:, None]
+    exp = led.expected_w * hours[:, None]
+    une = led.unexplained_w() * hours[:, None]
+    has = np.isfinite(meas) | np.isfinite(exp)
+    rows, cols = np.nonzero(has)
+    inv = np.asarray(led.inverters, dtype=object)
+    _insert_frame(con, "ledger", pd.DataFrame({
+        "analysis_id": analysis_id, "ts": led.index[rows], "inverter_id": inv[cols],
+        "interval_s": led.interval_s[rows], "measured_wh": meas[rows, cols],
+        "expected_wh": exp[rows, cols], "unexplained_wh": une[rows, cols],
+        "poa_wm2": led.poa[rows, cols]}))
+    seq = {id(e): i for i, e in enumerate(events)}
+    parts = [pd.DataFrame({"event_id": seq[id(en.event)], "ts": led.index[en.rows],
+                           "inverter_id": inv[en.cols],
+                           "energy_wh": en.power_w * hours[en.rows]})
+             for en in led.entries if len(en.rows)]
+    if parts:
+        _insert_frame(con, "analysis_entries",
+                      pd.concat(parts, ignore_index=True).assign(analysis_id=analysis_id))
+
+
+# --------------------------------------------------------------------------------------------
+# revisions
+
+
+def _revise(con: duckdb.DuckDBPyConnection, before: Stored, new_id: int,
+            spec: dict[str, Any]) -> None:
+    """Record which findings of the earlier analysis, within the history it covered, the new
+    one changed, and why."""
+    old_inputs = json.loads(con.execute(db.sql("analysis_inputs"),
+                                        {"id": before.id}).fetchone()[0])["inputs"]
+    reason = _why(old_inputs, spec)
+    a = _event_frame(con, before.id, before.end_ts)
+    b = _event_frame(con, new_id, before.end_ts)
+    rows = []
+    now = dt.datetime.now(dt.UTC)
+    used: set[int] = set()
+    for _, x in a.iterrows():
+        match = b[(b["kind"] == x["kind"]) & (b["scope"] == x["scope"])
+                  & (b["start_ts"] < x["end_ts"]) & (b["end_ts"] > x["start_ts"])
+                  & ~b.index.isin(list(used))]
+        if match.empty:
+            rows.append(_revision(new_id, before.id, "withdrawn", x, None, reason, now))
+            continue
+        y = match.iloc[0]
+        used.add(int(match.index[0]))
+        moved = x["start_ts"] != y["start_ts"] or (x["end_ts"] != y["end_ts"]
+                                                   and x["end_ts"] < before.end_ts)
+        delta = abs(y["energy_kwh"] - x["energy_kwh"])
+        if moved or delta > max(REVISION_MIN_KWH, REVISION_SHARE * abs(x["energy_kwh"])):
+            rows.append(_revision(new_id, before.id, "changed", x, y, reason, now))
+    for i, y in b.iterrows():
+        if i not in used:
+            rows.append(_revision(new_id, before.id, "found earlier", None, y, reason, now))
+    if rows:
+        _insert_frame(con, "analysis_revisions", pd.DataFrame(rows))
+
+
+def _event_frame(con: duckdb.DuckDBPyConnection, analysis_id: int, before: pd.Timestamp
+                 ) -> pd.DataFrame:
+    """Events of an analysis that start before ``before`` (energy clipped there)."""
+    df = con.execute(db.sql("analysis_events_before"),
+                     {"id": analysis_id, "before": before}).df()
+    for c in ("start_ts", "end_ts"):
+        df[c] = pd.to_datetime(df[c], utc=True)
+    return df
+
+
+def _revision(new_id: int, old_id: int, change: str, x: Any, y: Any, reason: str,
+              now: dt.datetime) -> dict[str, Any]:
+    def get(r: Any, k: str) -> Any:
+        return None if r is None else r[k]
+
+    ref = x if x is not None else y
+    return {"analysis_id": new_id, "previous_id": old_id, "change": change,
+            "kind": ref["kind"], "scope": ref["scope"], "before_start": get(x, "start_ts"),
+            "before_end": get(x, "end_ts"), "before_kwh": get(x, "energy_kwh"),
+            "after_start": get(y, "start_ts"), "after_end": get(y, "end_ts"),
+            "after_kwh": get(y, "energy_kwh"), "reason": reason, "created_at": now}
+
+
+def _why(old: dict[str, Any], new: dict[str, Any]) -> str:
+    parts = []
+    added = len(set(new["files_sha256"]) - set(old["files_sha256"]))
+    if added:
+        last = new["aligned"]["last_ts"]
+        parts.append(f"{added} new logger file(s), data now up to {str(last)[:10]}")
+    elif new["aligned"] != old["aligned"]:
+        parts.append("the expected series was recomputed")
+    if new.get("site_sha256") != old.get("site_sha256"):
+        parts.append("the site file changed")
+    if new["versions"] != old["versions"]:
+        parts.append("the software versions changed")
+    return "; ".join(parts) or "re-analysed"
+
+
+# --------------------------------------------------------------------------------------------
+# views
+
+
+def require(con: duckdb.DuckDBPyConnection, site: Site) -> Stored:
+    """The current analysis, brought up to date with the stored data first."""
+    return update(con, site)
+
+
+def events(con: duckdb.DuckDBPyConnection, site: Site, stored: Stored, start: pd.Timestamp,
+           end: pd.Timestamp) -> list[dict[str, Any]]:
+    """The stored events that touch ``[start, end)``, clipped to it, in the check JSON form."""
+    df = con.execute(db.sql("analysis_events_window"), {
+        "id": stored.id, "start": start, "end": end}).df()
+    out = []
+    for r in df.to_dict("records"):
+        whole = r["energy_kwh"]
+        e = float(r["window_kwh"])
+        k = e / whole if whole else 1.0
+        low, high = (r["energy_kwh_low"] * k, r["energy_kwh_high"] * k) if whole else (e, e)
+        ev = Event(kind=r["kind"], scope=r["scope"],
+                   start=max(pd.Timestamp(r["start_ts"]), start).tz_convert("UTC"),
+                   end=min(pd.Timestamp(r["end_ts"]), end).tz_convert("UTC"),
+                   energy_loss_kwh=e, energy_loss_kwh_low=min(low, high, e),
+                   energy_loss_kwh_high=max(low, high, e), method=r["method"],
+                   evidence=json.loads(r["evidence_json"]), detail={})
+        d = ev.to_dict(site.tz)
+        d.update(json.loads(r["detail_json"]))
+        d["found_start"] = pd.Timestamp(r["start_ts"]).tz_convert(site.tz).isoformat()
+        d["found_end"] = pd.Timestamp(r["end_ts"]).tz_convert(site.tz).isoformat()
+        out.append(d)
+    return out
+
+
+def losses(con: duckdb.DuckDBPyConnection, stored: Stored, start: pd.Timestamp,
+           end: pd.Timestamp) -> dict[str, Any]:
+    """The losses block of ``[start, end)``: sums over the ledger."""
+    p = {"id": stored.id, "start": start, "end": end}
+    expected, measured, unexplained = con.execute(db.sql("ledger_totals"), p).fetchone()
+    by = dict(con.execute(db.sql("ledger_by_kind"), p).fetchall())
+    cause = {k: float(by[k]) for k in kinds.LOSS_ORDER if k in by and by[k] != 0.0}
+    design = {k: float(v) for k, v in by.items() if not kinds.is_loss(k) and v}
+    return {
+        "expected_kwh": float(expected or 0.0), "measured_kwh": float(measured or 0.0),
+        "by_cause_kwh": cause, "unexplained_kwh": float(unexplained or 0.0),
+        "design_kwh": design,
+        "order": [*kinds.LOSS_ORDER, "unexplained"],
+        "rule": "the expected energy (the design at its ageing allowance, irradiance-sensor "
+                "faults rebuilt from modelled irradiance) less the measured energy (clock "
+                "faults shifted back), over the intervals with both, split by cause: whole "
+                "intervals first (outage, clipping below the rating, curtailment), then shares "
+                "of what is left (degradation beyond the allowance, soiling, shading, lost "
+                "strings) one after another, then the significant rest of each period the "
+                "baseline test flags (underperformance); the remainder is unexplained. "
+                "Clipping at the AC rating is inside the expected series by design and is "
+                "shown apart, not as a loss",
+    }
+
+
+def revisions(con: duckdb.DuckDBPyConnection, site: Site, stored: Stored, start: pd.Timestamp,
+              end: pd.Timestamp) -> list[dict[str, Any]]:
+    """Revisions of findings in ``[start, end)`` recorded up to the current analysis."""
+    df = con.execute(db.sql("analysis_revisions_window"), {
+        "id": stored.id, "start": start, "end": end}).df()
+    out = []
+    for r in df.to_dict("records"):
+        def t(v: Any) -> str | None:
+            return None if v is None or pd.isna(v) else \
+                pd.Timestamp(v).tz_convert(site.tz).isoformat()
+
+        def f(v: Any) -> float | None:
+            return None if v is None or pd.isna(v) else round(float(v), 3)
+
+        out.append({"change": r["change"], "kind": r["kind"], "scope": r["scope"],
+                    "before": {"start": t(r["before_start"]), "end": t(r["before_end"]),
+                               "energy_loss_kwh": f(r["before_kwh"])},
+                    "after": {"start": t(r["after_start"]), "end": t(r["after_end"]),
+                              "energy_loss_kwh": f(r["after_kwh"])},
+                    "reason": r["reason"], "revised_at": t(r["created_at"])})
+    return out
+
+
+def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: pd.Timestamp,
+         stored: Stored | None = None) -> dict[str, Any]:
+    """The check document of ``[start, end)`` clipped from the stored analysis (see
+    ``perfcheck/schemas/check.schema.json``); runs no detector."""
+    stored = stored or current(con)
+    if stored is None:
+        raise DataError(f"{site.path}: no analysis stored yet (run 'perfcheck analyse')")
+    settings = metrics.load_settings(site)
+    record = json.loads(con.execute(db.sql("analysis_inputs"), {"id": stored.id}).fetchone()[0])
+    daily = con.execute(db.sql("analysis_daily_window"), {
+        "id": stored.id, "tz": site.timezone, "start": start, "end": end}).df()
+    daily = metrics.complete_calendar(daily.drop(columns="n_nominal"), site, start, end)
+    result = metrics.compute(daily, site, start, end, settings, tuple(record["t_cell_typ_avg"]))
+    model, degradation = con.execute(db.sql("analysis_blocks"), {"id": stored.id}).fetchone()
+    block = losses(con, stored, start, end)
+    block.update(json.loads(model))
+    doc = {
+        "site": metrics.site_record(site),
+        "period": {"start": metrics.local_iso(start, site), "end": metrics.local_iso(end, site)},
+        "settings": result["settings"],
+        "metrics": result["metrics"],
+        "events": events(con, site, stored, start, end),
+        "losses": metrics.json_ready(block),
+        "degradation": json.loads(degradation),
+        "guarantees": [],
+        "revisions": revisions(con, site, stored, start, end),
+        "analysis": {"id": stored.id, "input_hash": stored.input_hash,
+                     "history_start": metrics.local_iso(stored.first_ts, site),
+                     "history_end": metrics.local_iso(stored.end_ts, site)},
+        "run": metrics.run_record(),
+    }
+    doc["guarantees"] = guarantees.evaluate(site, doc)
+    return doc
+
+
+def series(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: pd.Timestamp,
+           stored: Stored | None = None) -> pd.DataFrame:
+    """The aligned rows of ``[start, end)`` with the ledger's measured and expected power (the
+    corrected series every figure shows); as aligned while no analysis is stored."""
+    df = align.load_aligned(con, site, start, end)
+    stored = stored or current(con)
+    if stored is None:
+        return df
+    led = con.execute(db.sql("ledger_power"), {"id": stored.id, "start": start,
+                                               "end": end}).df()
+    led["ts"] = pd.to_datetime(led["ts"], utc=True)
+    m = df[["ts", "inverter_id"]].merge(led, on=["ts", "inverter_id"], how="left")
+    df["measured_ac_w"] = m["measured_ac_w"].to_numpy(dtype=float)
+    df["expected_ac_w"] = m["expected_ac_w"].to_numpy(dtype=float)
+    return df

@@ -1,0 +1,1 @@
+SELECT inputs_json FROM analyses WHERE analysis_id = $id

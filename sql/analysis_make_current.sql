@@ -1,0 +1,1 @@
+UPDATE analyses SET is_current = (analysis_id = $id)

@@ -1,0 +1,1 @@
+SELECT nextval('analysis_id')
