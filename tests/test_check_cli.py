@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import shutil
 
 import jsonschema
 import pytest
@@ -61,6 +62,19 @@ def test_check_schema_refuses_a_broken_document(checked):
     doc["events"].append({"kind": "gremlins", "scope": "plant"})
     with pytest.raises(jsonschema.ValidationError):
         jsonschema.validate(doc, metrics.load_schema("check"))
+
+
+def test_check_json_to_stdout_is_the_document_alone(checked, tmp_path, monkeypatch):
+    site_path, _, out = checked
+    monkeypatch.chdir(tmp_path)
+    copy = shutil.copyfile(db.default_db_path(site_path), tmp_path / "copy.duckdb")
+    r = CliRunner().invoke(main, ["check", str(site_path), "--db", str(copy), "--from",
+                                  "2025-06-01", "--to", "2025-06-30", "--json", "-"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)  # nothing but the JSON on stdout
+    assert doc["metrics"] == json.loads(out.read_text())["metrics"]
+    assert r.stderr.startswith("Testfeld Hollerbach: ")  # the table went to stderr
+    assert not (tmp_path / "-").exists()
 
 
 def test_check_stores_values_with_their_settings(checked):

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import datetime as dt
-import json
 from pathlib import Path
 from typing import Any
 
@@ -13,27 +12,13 @@ from perfcheck import db, metrics
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
-from .common import day_options, site_argument
+from .common import day_options, emit, json_option, json_target, site_argument
 
 
 def open_db(db_path: Path) -> Any:
     if not db_path.exists():
         raise DataError(f"{db_path}: no database yet (run 'perfcheck ingest' first)")
     return db.connect(db_path)
-
-
-def json_target(path: Path | None) -> None:
-    """Refuse a --json path whose folder does not exist, before any work starts."""
-    if path is not None and not path.parent.is_dir():
-        raise DataError(f"{path}: the folder for the JSON file does not exist")
-
-
-def write_json(path: Path, doc: dict[str, Any]) -> None:
-    """Write a result document as UTF-8 JSON; a path that cannot be written is a user error."""
-    try:
-        path.write_text(json.dumps(doc, indent=1, ensure_ascii=False) + "\n", encoding="utf-8")
-    except OSError as exc:
-        raise DataError(f"{path}: cannot write the JSON file ({exc.strerror})") from None
 
 
 def _day(value: dt.datetime | None) -> dt.date | None:
@@ -101,9 +86,7 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
 @site_argument
 @day_options("First day, site-local (YYYY-MM-DD; default: first data).",
              "Last day, site-local, included (YYYY-MM-DD; default: last data).")
-@click.option("--json", "json_path", type=click.Path(dir_okay=False, path_type=Path),
-              default=None, help="Write the whole check document (metrics, events, losses, "
-                                 "degradation, guarantees) to this JSON file.")
+@json_option("the whole check document (metrics, events, losses, degradation, guarantees)")
 def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
                   date_to: dt.datetime | None, json_path: Path | None) -> None:
     """Yields, performance ratios (plain, temperature- and weather-corrected), EPI,
@@ -124,9 +107,7 @@ def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
         metrics.store(con, doc)
     finally:
         con.close()
-    if json_path is not None:
-        write_json(json_path, doc)
-    click.echo(format_table(doc, site))
+    emit(format_table(doc, site), doc, json_path)
 
 
 COMMANDS = [check_command]

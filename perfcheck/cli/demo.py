@@ -10,8 +10,8 @@ import pandas as pd
 
 from perfcheck import align, capacity, db, evidence, ingest, metrics, pipeline, report
 from perfcheck.cli.capacity import format_report
-from perfcheck.cli.check import format_table, write_json
-from perfcheck.cli.common import handle_errors
+from perfcheck.cli.check import format_table
+from perfcheck.cli.common import handle_errors, write_json
 from perfcheck.cli.ingest import format_result, format_totals
 from perfcheck.cli.model import format_summary
 from perfcheck.scenario import demo_dir
