@@ -9,6 +9,7 @@ import click
 
 from perfcheck import db, evidence
 from perfcheck.cli.common import (
+    UserError,
     handle_errors,
     period_args,
     period_options,
@@ -23,16 +24,20 @@ from perfcheck.site import Site
 @period_options
 @click.option("--out", "out_zip", type=click.Path(dir_okay=False, path_type=Path),
               required=True, help="The bundle to write, e.g. claim.zip.")
+@click.option("--force", is_flag=True, help="Replace the bundle if it exists already.")
 def evidence_command(site: Site, db_path: Path, month: str | None, date_from: Any,
-                     date_to: Any, out_zip: Path) -> None:
+                     date_to: Any, out_zip: Path, force: bool) -> None:
     """Write an evidence bundle for a warranty or insurance claim: raw logger files, site
     file, results (JSON, CSV), guarantee findings, report PDF and figures, coverage, methods,
-    versions, the exact command, and a manifest with the sha256 of every file.
+    versions, the exact command, and a manifest with the sha256 of every file. An existing
+    bundle is kept unless --force is given.
 
     \b
     Example:
       perfcheck evidence site.toml --from 2025-04-01 --to 2025-06-30 --out claim.zip
     """
+    if out_zip.exists() and not force:
+        raise UserError(f"{out_zip}: a bundle exists already; give --force to replace it")
     start, end = resolve_period(site, month, date_from, date_to)
     command = f"perfcheck evidence {site.path} {period_args(month, date_from, date_to)} " \
               f"--out {out_zip}"
