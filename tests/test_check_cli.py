@@ -12,6 +12,7 @@ from metrics_support import connect_with, make_site, synthetic_aligned, write_si
 
 from perfcheck import db, metrics
 from perfcheck.cli import main
+from perfcheck.cli.check import findings_table
 
 
 @pytest.fixture(scope="module")
@@ -35,6 +36,36 @@ def test_check_prints_the_monthly_table(checked):
     assert any(line.startswith("2025-06 ") for line in lines)
     assert any(line.startswith("period ") for line in lines)
     assert "PR T-corr %" in result.output and "coverage" in result.output
+
+
+def test_check_prints_the_findings_in_words_and_local_time():
+    # invented events as metrics.check returns them (ISO 8601 with the site's offset)
+    events = [
+        {"kind": "partial_outage", "scope": "inverter:INV2", "start": "2024-10-03T09:15:00+02:00",
+         "end": "2024-10-21T18:00:00+02:00", "energy_loss_kwh": 1443.21,
+         "energy_loss_kwh_low": 1204.5, "energy_loss_kwh_high": 49999.0},
+        {"kind": "clipping", "scope": "plant", "start": "2024-06-03T11:00:00+02:00",
+         "end": "2024-06-03T14:30:00+02:00", "energy_loss_kwh": 3.21,
+         "energy_loss_kwh_low": 1.44, "energy_loss_kwh_high": 57.6},
+    ]
+    lines = findings_table(events, "Europe/Berlin")
+    assert lines[0] == "Findings: 2 (times in Europe/Berlin, with the UTC offset)"
+    assert lines[1].split() == ["finding", "where", "from", "to", "(excluded)", "energy", "lost",
+                                "[kWh]", "(95", "%", "band)"]
+    assert lines[2].split() == ["clipping", "the", "plant", "2024-06-03", "11:00+02:00",
+                                "2024-06-03", "14:30+02:00", "3.2", "(1.4", "to", "58)"]
+    assert lines[3].split() == ["partial", "outage", "inverter", "INV2", "2024-10-03",
+                                "09:15+02:00", "2024-10-21", "18:00+02:00", "1,440", "(1,200",
+                                "to", "50,000)"]
+    assert findings_table([], "Europe/Berlin") == ["Findings: none."]
+
+
+def test_check_output_holds_no_code_values(checked):
+    _, result, _ = checked
+    table = result.output.split("period ", 1)[1]  # after the monthly table
+    assert "Findings:" in table
+    for code in ("_", "inverter:", "e+", "None", "True"):
+        assert code not in table, code
 
 
 def test_check_json_follows_its_schema(checked):

@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import datetime as dt
+import math
 from pathlib import Path
 from typing import Any
 
 import click
 
-from perfcheck import db, metrics
+from perfcheck import db, metrics, report
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
@@ -71,15 +72,47 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
     ]
     lines += [table_line(m["month"], m) for m in doc["metrics"]["monthly"]]
     lines.append(table_line("period", doc["metrics"]["period"]))
-    kinds: dict[str, int] = {}
-    for ev in doc["events"]:
-        kinds[ev["kind"]] = kinds.get(ev["kind"], 0) + 1
-    found = ", ".join(f"{k} {n}" for k, n in sorted(kinds.items())) or "none"
     losses = doc["losses"]
-    lines += ["", f"events: {len(doc['events'])} ({found}); expected {losses['expected_kwh']:.0f}"
-              f" kWh, measured {losses['measured_kwh']:.0f} kWh, unexplained "
-              f"{losses['unexplained_kwh']:.0f} kWh; guarantees checked: {len(doc['guarantees'])}"]
+    lines += ["", *findings_table(doc["events"], site.timezone), "",
+              f"Expected {kwh(losses['expected_kwh'])} kWh, measured "
+              f"{kwh(losses['measured_kwh'])} kWh, not explained by a finding "
+              f"{kwh(losses['unexplained_kwh'])} kWh; guarantees checked: "
+              f"{len(doc['guarantees'])}"]
     return "\n".join(lines)
+
+
+def kwh(value: float | None, significant: int | None = None) -> str:
+    """An energy for a person: whole kWh with thousands separators, one decimal below 10;
+    from 100 kWh rounded to ``significant`` digits when given (an estimate with a band)."""
+    if value is None:
+        return "-"
+    if abs(value) < 10:
+        return f"{value:,.1f}"
+    if significant and abs(value) >= 100:
+        value = round(value, significant - 1 - math.floor(math.log10(abs(value))))
+    return f"{value:,.0f}"
+
+
+def local_minute(instant: str) -> str:
+    """``2024-10-03 09:15+02:00`` from an ISO 8601 instant with its offset."""
+    return dt.datetime.fromisoformat(instant).isoformat(sep=" ", timespec="minutes")
+
+
+def findings_table(events: list[dict[str, Any]], zone: str) -> list[str]:
+    """One line per event: kind in words, where, start and end (site-local time with its
+    offset, end excluded) and the energy lost with its 95 % band, to three digits."""
+    if not events:
+        return ["Findings: none."]
+    head = ("finding", "where", "from", "to (excluded)", "energy lost [kWh] (95 % band)")
+    rows = [(ev["kind"].replace("_", " "), report.scope_words(ev["scope"]),
+             local_minute(ev["start"]), local_minute(ev["end"]),
+             f"{kwh(ev['energy_loss_kwh'], 3)} ({kwh(ev['energy_loss_kwh_low'], 3)} to "
+             f"{kwh(ev['energy_loss_kwh_high'], 3)})")
+            for ev in sorted(events, key=lambda e: (e["start"], e["kind"], e["scope"]))]
+    widths = [max(len(r[i]) for r in [head, *rows]) for i in range(len(head) - 1)]
+    return [f"Findings: {len(events)} (times in {zone}, with the UTC offset)",
+            *("  ".join(f"{c:<{w}}" for c, w in zip(r, widths, strict=False)) + "  " + r[-1]
+              for r in [head, *rows])]
 
 
 @click.command("check")
