@@ -25,6 +25,8 @@ from typing import Any, TextIO
 
 LOG_FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
 log = logging.getLogger("perfcheck.progress")
+# When a bar last drew: a stage around it (the monthly job) leaves the line to the bar.
+_bar_drawn_at = 0.0
 
 
 class Bar:
@@ -48,7 +50,8 @@ class Bar:
         now = time.monotonic()
         if now - self._last < 0.1 and (self.total is None or self.done < self.total):
             return
-        self._last = now
+        global _bar_drawn_at
+        self._last = _bar_drawn_at = now
         if self.total:
             k = round(self.width * min(self.done, self.total) / self.total)
             bar = f"[{'#' * k}{'.' * (self.width - k)}] {self.done}/{self.total}"
@@ -100,10 +103,11 @@ class Stage:
         if self._stop.wait(self.delay_s):
             return
         while True:
-            elapsed = time.monotonic() - self._started
-            self.stream.write(f"\r{self.label} ... {elapsed:.0f} s ")
-            self.stream.flush()
-            self._drawn = True
+            now = time.monotonic()
+            if now - _bar_drawn_at > 2 * self.every_s:
+                self.stream.write(f"\r{self.label} ... {now - self._started:.0f} s ")
+                self.stream.flush()
+                self._drawn = True
             if self._stop.wait(self.every_s):
                 return
 

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import json
 import shutil
+import subprocess
+import sys
 
 import jsonschema
 import pytest
@@ -106,6 +108,43 @@ def test_check_json_to_stdout_is_the_document_alone(checked, tmp_path, monkeypat
     assert doc["metrics"] == json.loads(out.read_text())["metrics"]
     assert r.stderr.startswith("Testfeld Hollerbach: ")  # the table went to stderr
     assert not (tmp_path / "-").exists()
+
+
+NOISY = """
+import logging, sys, warnings
+import numpy as np
+from perfcheck import metrics
+real = metrics.check
+def noisy(*args, **kwargs):
+    np.array([1.0]) / np.array([0.0])  # numpy's RuntimeWarning: divide by zero
+    warnings.warn("an invented library warning", UserWarning)
+    logging.getLogger("matplotlib.font_manager").warning("an invented font warning")
+    return real(*args, **kwargs)
+metrics.check = noisy
+from perfcheck.cli import main
+main(sys.argv[1:], prog_name="perfcheck")
+"""
+
+
+@pytest.mark.parametrize("log", [False, True])
+def test_warnings_go_to_the_log_never_to_stderr(checked, tmp_path, log):
+    """cron mails whatever reaches stderr: a command that warns prints nothing there."""
+    site_path, _, _ = checked
+    copy = shutil.copyfile(db.default_db_path(site_path), tmp_path / "copy.duckdb")
+    log_file = tmp_path / "perfcheck.log"
+    args = ["--log", str(log_file)] if log else []
+    out = subprocess.run([sys.executable, "-c", NOISY, *args, "check", str(site_path), "--db",
+                          str(copy), "--from", "2025-06-01", "--to", "2025-06-30"],
+                         capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+    assert out.stderr == ""
+    assert out.stdout.startswith("Testfeld Hollerbach: ")
+    if log:
+        text = log_file.read_text()
+        assert "WARNING perfcheck.warnings: RuntimeWarning: divide by zero" in text
+        assert "UserWarning: an invented library warning" in text
+        assert "WARNING matplotlib.font_manager: an invented font warning" in text
+        assert "INFO perfcheck.progress: check: metrics and findings: done in " in text
 
 
 def test_check_stores_values_with_their_settings(checked):

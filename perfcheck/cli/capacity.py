@@ -8,7 +8,7 @@ from typing import Any
 
 import click
 
-from perfcheck import capacity, metrics
+from perfcheck import capacity, metrics, progress
 from perfcheck.site import Site
 
 from .check import open_db
@@ -84,8 +84,9 @@ def capacity_command(site: Site, db_path: Path, date_from: dt.datetime, date_to:
     settings = capacity.CapacitySettings(min_points=min_points)
     con = open_db(db_path)
     try:
-        start, end = metrics.resolve_period(con, site, date_from.date(), date_to.date())
-        doc = capacity.run(con, site, start, end, guaranteed_ratio, rc, settings)
+        with progress.stage("capacity: filters and regressions"):
+            start, end = metrics.resolve_period(con, site, date_from.date(), date_to.date())
+            doc = capacity.run(con, site, start, end, guaranteed_ratio, rc, settings)
     finally:
         con.close()
     emit(format_report(doc), doc, json_path)

@@ -9,7 +9,7 @@ from typing import Any
 
 import click
 
-from perfcheck import db, metrics, report
+from perfcheck import db, metrics, progress, report
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
@@ -135,9 +135,10 @@ def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
     json_target(json_path)
     con = open_db(db_path)
     try:
-        start, end = metrics.resolve_period(con, site, _day(date_from), _day(date_to))
-        doc = metrics.check(con, site, start, end)
-        metrics.store(con, doc)
+        with progress.stage("check: metrics and findings"):
+            start, end = metrics.resolve_period(con, site, _day(date_from), _day(date_to))
+            doc = metrics.check(con, site, start, end)
+            metrics.store(con, doc)
     finally:
         con.close()
     emit(format_table(doc, site), doc, json_path)

@@ -7,7 +7,7 @@ from typing import Any
 
 import click
 
-from perfcheck import db, evidence
+from perfcheck import db, evidence, progress
 from perfcheck.cli.common import (
     UserError,
     handle_errors,
@@ -43,7 +43,8 @@ def evidence_command(site: Site, db_path: Path, month: str | None, date_from: An
               f"--out {out_zip}"
     con = db.connect(db_path)  # the check stores its events
     try:
-        out = evidence.build_bundle(con, site, start, end, out_zip, command)
+        with progress.stage("evidence: analysis, report and bundle"):
+            out = evidence.build_bundle(con, site, start, end, out_zip, command)
     finally:
         con.close()
     click.echo(f"bundle: {out['path']} ({out['files']} files)")
@@ -63,7 +64,8 @@ def verify_command(bundle: Path, no_rerun: bool) -> None:
     Example:
       perfcheck verify claim.zip
     """
-    v = evidence.verify_bundle(bundle, rerun_analysis=not no_rerun)
+    with progress.stage("verify: hashes" + ("" if no_rerun else " and re-run")):
+        v = evidence.verify_bundle(bundle, rerun_analysis=not no_rerun)
     click.echo(f"manifest sha256: {v.manifest_sha256}")
     click.echo(f"files checked: {v.files_checked}")
     for note in v.notes:

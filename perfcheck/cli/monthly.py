@@ -45,7 +45,8 @@ def monthly_command(site: Site, db_path: Path, month: str | None, out_root: Path
     command = " ".join(["perfcheck", "monthly", str(site.path)] + (["--month", month] if month
                                                                    else []))
     try:
-        outcome = monthly.run_monthly(site, db_path, month, root, command, quiet)
+        with progress.stage("monthly", quiet):
+            outcome = monthly.run_monthly(site, db_path, month, root, command, quiet)
     except monthly.LockBusy as exc:
         log.error("%s", exc)
         raise Busy(str(exc)) from None

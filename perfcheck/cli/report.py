@@ -7,7 +7,7 @@ from typing import Any
 
 import click
 
-from perfcheck import db, report
+from perfcheck import db, progress, report
 from perfcheck.cli.common import period_options, resolve_period, site_argument
 from perfcheck.site import Site
 
@@ -30,7 +30,8 @@ def report_command(site: Site, db_path: Path, month: str | None, date_from: Any,
     start, end = resolve_period(site, month, date_from, date_to)
     con = db.connect(db_path)  # the check stores its events
     try:
-        paths = report.write_report(con, site, start, end, out_dir)
+        with progress.stage("report: analysis, figures, HTML and PDF"):
+            paths = report.write_report(con, site, start, end, out_dir)
     finally:
         con.close()
     click.echo(f"report: {paths['html']}")
