@@ -49,9 +49,12 @@ def test_check_prints_the_findings_in_words_and_local_time():
         {"kind": "clipping", "scope": "plant", "start": "2024-06-03T11:00:00+02:00",
          "end": "2024-06-03T14:30:00+02:00", "energy_loss_kwh": 3.21,
          "energy_loss_kwh_low": 1.44, "energy_loss_kwh_high": 57.6},
+        {"kind": "sensor_fault", "scope": "plant", "start": "2024-11-03T00:00:00+01:00",
+         "end": "2024-11-05T00:00:00+01:00", "energy_loss_kwh": 0.0,
+         "energy_loss_kwh_low": 0.0, "energy_loss_kwh_high": 0.0},
     ]
     lines = findings_table(events, "Europe/Berlin")
-    assert lines[0] == "Findings: 2 (times in Europe/Berlin, with the UTC offset)"
+    assert lines[0] == "Findings: 3 (times in Europe/Berlin, with the UTC offset)"
     assert lines[1].split() == ["finding", "where", "from", "to", "(excluded)", "energy", "lost",
                                 "[kWh]", "(95", "%", "band)"]
     assert lines[2].split() == ["clipping", "the", "plant", "2024-06-03", "11:00+02:00",
@@ -59,6 +62,8 @@ def test_check_prints_the_findings_in_words_and_local_time():
     assert lines[3].split() == ["partial", "outage", "inverter", "INV2", "2024-10-03",
                                 "09:15+02:00", "2024-10-21", "18:00+02:00", "1,440", "(1,200",
                                 "to", "50,000)"]
+    assert lines[4].split() == ["sensor", "fault", "the", "plant", "2024-11-03", "00:00+01:00",
+                                "2024-11-05", "00:00+01:00", "none"]  # no energy lost
     assert findings_table([], "Europe/Berlin") == ["Findings: none."]
 
 

@@ -98,6 +98,14 @@ def local_minute(instant: str) -> str:
     return dt.datetime.fromisoformat(instant).isoformat(sep=" ", timespec="minutes")
 
 
+def _loss(ev: dict[str, Any]) -> str:
+    """The energy with its band; 'none' for a finding that costs no energy (a sensor fault)."""
+    values = (ev["energy_loss_kwh"], ev["energy_loss_kwh_low"], ev["energy_loss_kwh_high"])
+    if not any(values):
+        return "none"
+    return f"{kwh(values[0], 3)} ({kwh(values[1], 3)} to {kwh(values[2], 3)})"
+
+
 def findings_table(events: list[dict[str, Any]], zone: str) -> list[str]:
     """One line per event: kind in words, where, start and end (site-local time with its
     offset, end excluded) and the energy lost with its 95 % band, to three digits."""
@@ -105,9 +113,7 @@ def findings_table(events: list[dict[str, Any]], zone: str) -> list[str]:
         return ["Findings: none."]
     head = ("finding", "where", "from", "to (excluded)", "energy lost [kWh] (95 % band)")
     rows = [(ev["kind"].replace("_", " "), report.scope_words(ev["scope"]),
-             local_minute(ev["start"]), local_minute(ev["end"]),
-             f"{kwh(ev['energy_loss_kwh'], 3)} ({kwh(ev['energy_loss_kwh_low'], 3)} to "
-             f"{kwh(ev['energy_loss_kwh_high'], 3)})")
+             local_minute(ev["start"]), local_minute(ev["end"]), _loss(ev))
             for ev in sorted(events, key=lambda e: (e["start"], e["kind"], e["scope"]))]
     widths = [max(len(r[i]) for r in [head, *rows]) for i in range(len(head) - 1)]
     return [f"Findings: {len(events)} (times in {zone}, with the UTC offset)",
