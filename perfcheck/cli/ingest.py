@@ -13,7 +13,7 @@ from perfcheck.site import Site
 
 
 def format_result(res: FileResult) -> str:
-    """One line of accounting for a file, as printed by ``perfcheck ingest`` and the demo."""
+    """One line of accounting for a file, as printed by ``perfcheck ingest``."""
     if res.status == "already ingested":
         return f"{res.path}: already ingested (file {res.file_id}), nothing changed"
     span = ""

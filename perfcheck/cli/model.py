@@ -18,7 +18,7 @@ def _num(v: float, fmt: str) -> str:
 
 
 def format_summary(summary: pd.DataFrame) -> str:
-    """The per-inverter monthly table (as printed by ``perfcheck model`` and the demo)."""
+    """The per-inverter monthly table printed by ``perfcheck model``."""
     lines = [f"{'inverter':<12} {'month':<8} {'expected kWh':>13} {'measured kWh':>13} "
              f"{'measured/expected':>18} {'coverage':>9}"]
     for r in summary.itertuples(index=False):
