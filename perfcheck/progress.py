@@ -102,12 +102,16 @@ class Stage:
     def _draw(self) -> None:
         if self._stop.wait(self.delay_s):
             return
+        shown = ""
         while True:
             now = time.monotonic()
-            if now - _bar_drawn_at > 2 * self.every_s:
-                self.stream.write(f"\r{self.label} ... {now - self._started:.0f} s ")
+            text = f"\r{self.label} ... {now - self._started:.0f} s "
+            if now - _bar_drawn_at <= 2 * self.every_s:
+                shown = ""  # a bar has the line; draw again once it is done
+            elif text != shown:
+                self.stream.write(text)
                 self.stream.flush()
-                self._drawn = True
+                shown, self._drawn = text, True
             if self._stop.wait(self.every_s):
                 return
 
