@@ -8,11 +8,22 @@ from typing import Any
 
 import click
 
-from perfcheck import capacity, metrics, progress
+from perfcheck import progress
 from perfcheck.site import Site
 
 from .check import open_db
-from .common import UserError, day_options, emit, json_option, json_target, site_argument
+from .common import (
+    UserError,
+    day_options,
+    emit,
+    json_option,
+    json_target,
+    lazy_module,
+    site_argument,
+)
+
+capacity = lazy_module("perfcheck.capacity")
+metrics = lazy_module("perfcheck.metrics")
 
 
 def format_report(doc: dict[str, Any]) -> str:

@@ -9,11 +9,15 @@ from typing import Any
 
 import click
 
-from perfcheck import db, metrics, progress, report
+from perfcheck import progress
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
-from .common import day_options, emit, json_option, json_target, site_argument
+from .common import day_options, emit, json_option, json_target, lazy_module, site_argument
+
+db = lazy_module("perfcheck.db")
+metrics = lazy_module("perfcheck.metrics")
+report = lazy_module("perfcheck.report")
 
 
 def open_db(db_path: Path) -> Any:

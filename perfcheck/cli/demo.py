@@ -6,15 +6,23 @@ import shutil
 from pathlib import Path
 
 import click
-import pandas as pd
 
-from perfcheck import capacity, db, evidence, ingest, metrics, pipeline, progress, report
+from perfcheck import progress
 from perfcheck.cli.capacity import format_report
 from perfcheck.cli.check import format_table
-from perfcheck.cli.common import handle_errors, write_json
+from perfcheck.cli.common import handle_errors, lazy_module, write_json
 from perfcheck.cli.ingest import format_totals
-from perfcheck.scenario import demo_dir
 from perfcheck.site import Site, load_site
+
+pd = lazy_module("pandas")
+capacity = lazy_module("perfcheck.capacity")
+db = lazy_module("perfcheck.db")
+evidence = lazy_module("perfcheck.evidence")
+ingest = lazy_module("perfcheck.ingest")
+metrics = lazy_module("perfcheck.metrics")
+pipeline = lazy_module("perfcheck.pipeline")
+report = lazy_module("perfcheck.report")
+scenario = lazy_module("perfcheck.scenario")
 
 # The capacity ratio the demo's (invented) contract guarantees.
 DEMO_GUARANTEED_RATIO = 0.97
@@ -26,7 +34,7 @@ def _heading(text: str) -> None:
 
 def copy_demo(out_dir: Path) -> Path:
     """Copy the demo site file and its logger files into ``out_dir``; return the site file."""
-    src = demo_dir()
+    src = scenario.demo_dir()
     site = load_site(src / "site.toml")
     (out_dir / "logs").mkdir(parents=True, exist_ok=True)
     shutil.copyfile(src / "site.toml", out_dir / "site.toml")

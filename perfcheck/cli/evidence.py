@@ -7,16 +7,20 @@ from typing import Any
 
 import click
 
-from perfcheck import db, evidence, progress
+from perfcheck import progress
 from perfcheck.cli.common import (
     UserError,
     handle_errors,
+    lazy_module,
     period_args,
     period_options,
     resolve_period,
     site_argument,
 )
 from perfcheck.site import Site
+
+db = lazy_module("perfcheck.db")
+evidence = lazy_module("perfcheck.evidence")
 
 
 @click.command("evidence")

@@ -7,14 +7,19 @@ from pathlib import Path
 
 import click
 
-from perfcheck import monthly, progress, report
-from perfcheck.cli.common import UserError, site_argument
+from perfcheck import progress
+from perfcheck.cli.common import UserError, lazy_module, site_argument
 from perfcheck.errors import PerfcheckError
 from perfcheck.site import Site
 
+monthly = lazy_module("perfcheck.monthly")
+report = lazy_module("perfcheck.report")
+
 
 class Busy(UserError):
-    exit_code = monthly.EXIT_BUSY
+    @property
+    def exit_code(self) -> int:  # type: ignore[override]
+        return monthly.EXIT_BUSY
 
 
 @click.command("monthly")

@@ -7,9 +7,12 @@ from typing import Any
 
 import click
 
-from perfcheck import db, progress, report
-from perfcheck.cli.common import period_options, resolve_period, site_argument
+from perfcheck import progress
+from perfcheck.cli.common import lazy_module, period_options, resolve_period, site_argument
 from perfcheck.site import Site
+
+db = lazy_module("perfcheck.db")
+report = lazy_module("perfcheck.report")
 
 
 @click.command("report")
