@@ -1,3 +1,3 @@
 from perfcheck.cli import main
 
-main()
+main(prog_name="perfcheck")

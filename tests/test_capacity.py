@@ -139,6 +139,13 @@ def test_capacity_cli_text_and_json_against_schema(tmp_path):
     jsonschema.validate(doc, metrics.load_schema("capacity"))
     assert doc["result"]["passed"] is True
     assert doc["test"]["start"] == "2025-06-01T00:00:00+02:00"
+    # --json -: the document alone on stdout, the text report on stderr
+    piped = CliRunner().invoke(main, ["capacity", str(site_path), "--from", "2025-06-01",
+                                      "--to", "2025-06-20", "--guaranteed-ratio", "0.95",
+                                      "--json", "-"])
+    assert piped.exit_code == 0, piped.output
+    assert json.loads(piped.stdout)["result"] == doc["result"]
+    assert "PASS" in piped.stderr and not (tmp_path / "-").exists()
 
 
 def test_capacity_cli_errors(tmp_path):

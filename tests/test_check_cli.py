@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import json
+import shutil
+import subprocess
+import sys
 
 import jsonschema
 import pytest
@@ -11,6 +14,7 @@ from metrics_support import connect_with, make_site, synthetic_aligned, write_si
 
 from perfcheck import db, metrics
 from perfcheck.cli import main
+from perfcheck.cli.check import findings_table
 
 
 @pytest.fixture(scope="module")
@@ -34,6 +38,43 @@ def test_check_prints_the_monthly_table(checked):
     assert any(line.startswith("2025-06 ") for line in lines)
     assert any(line.startswith("period ") for line in lines)
     assert "PR T-corr %" in result.output and "coverage" in result.output
+
+
+def test_check_prints_the_findings_in_words_and_local_time():
+    # invented events as analysis.view returns them (ISO 8601 with the site's offset)
+    events = [
+        {"kind": "partial_outage", "scope": "inverter:INV2", "start": "2024-10-03T09:15:00+02:00",
+         "end": "2024-10-21T18:00:00+02:00", "energy_loss_kwh": 1443.21,
+         "energy_loss_kwh_low": 1204.5, "energy_loss_kwh_high": 49999.0},
+        {"kind": "clipping", "scope": "plant", "start": "2024-06-03T11:00:00+02:00",
+         "end": "2024-06-03T14:30:00+02:00", "energy_loss_kwh": 3.21,
+         "energy_loss_kwh_low": 1.44, "energy_loss_kwh_high": 57.6},
+        {"kind": "sensor_fault", "scope": "plant", "start": "2024-11-03T00:00:00+01:00",
+         "end": "2024-11-05T00:00:00+01:00", "energy_loss_kwh": 0.0,
+         "energy_loss_kwh_low": 0.0, "energy_loss_kwh_high": 0.0},
+    ]
+    lines = findings_table(events, "Europe/Berlin")
+    assert lines[0] == "Findings: 3 (times in Europe/Berlin, with the UTC offset)"
+    assert lines[1].split() == ["finding", "where", "from", "to", "(excluded)", "energy",
+                                "[kWh]", "(95", "%", "band)"]
+    assert lines[2].split() == ["clipping", "below", "the", "AC", "rating", "the", "plant",
+                                "2024-06-03", "11:00+02:00",
+                                "2024-06-03", "14:30+02:00", "3.2", "(1.4", "to", "58)"]
+    assert lines[3].split() == ["partial", "outage", "inverter", "INV2", "2024-10-03",
+                                "09:15+02:00", "2024-10-21", "18:00+02:00", "1,440", "(1,200",
+                                "to", "50,000)"]
+    assert lines[4].split() == ["irradiance", "sensor", "fault", "the", "plant", "2024-11-03",
+                                "00:00+01:00",
+                                "2024-11-05", "00:00+01:00", "none"]  # no energy lost
+    assert findings_table([], "Europe/Berlin") == ["Findings: none."]
+
+
+def test_check_output_holds_no_code_values(checked):
+    _, result, _ = checked
+    table = result.output.split("period ", 1)[1]  # after the monthly table
+    assert "Findings:" in table
+    for code in ("_", "inverter:", "e+", "None", "True"):
+        assert code not in table, code
 
 
 def test_check_json_follows_its_schema(checked):
@@ -61,6 +102,56 @@ def test_check_schema_refuses_a_broken_document(checked):
     doc["events"].append({"kind": "gremlins", "scope": "plant"})
     with pytest.raises(jsonschema.ValidationError):
         jsonschema.validate(doc, metrics.load_schema("check"))
+
+
+def test_check_json_to_stdout_is_the_document_alone(checked, tmp_path, monkeypatch):
+    site_path, _, out = checked
+    monkeypatch.chdir(tmp_path)
+    copy = shutil.copyfile(db.default_db_path(site_path), tmp_path / "copy.duckdb")
+    r = CliRunner().invoke(main, ["check", str(site_path), "--db", str(copy), "--from",
+                                  "2025-06-01", "--to", "2025-06-30", "--json", "-"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)  # nothing but the JSON on stdout
+    assert doc["metrics"] == json.loads(out.read_text())["metrics"]
+    assert r.stderr.startswith("Testfeld Hollerbach: ")  # the table went to stderr
+    assert not (tmp_path / "-").exists()
+
+
+NOISY = """
+import logging, sys, warnings
+import numpy as np
+from perfcheck import metrics
+real = metrics.compute
+def noisy(*args, **kwargs):
+    np.array([1.0]) / np.array([0.0])  # numpy's RuntimeWarning: divide by zero
+    warnings.warn("an invented library warning", UserWarning)
+    logging.getLogger("matplotlib.font_manager").warning("an invented font warning")
+    return real(*args, **kwargs)
+metrics.compute = noisy
+from perfcheck.cli import main
+main(sys.argv[1:], prog_name="perfcheck")
+"""
+
+
+@pytest.mark.parametrize("log", [False, True])
+def test_warnings_go_to_the_log_never_to_stderr(checked, tmp_path, log):
+    """cron mails whatever reaches stderr: a command that warns prints nothing there."""
+    site_path, _, _ = checked
+    copy = shutil.copyfile(db.default_db_path(site_path), tmp_path / "copy.duckdb")
+    log_file = tmp_path / "perfcheck.log"
+    args = ["--log", str(log_file)] if log else []
+    out = subprocess.run([sys.executable, "-c", NOISY, *args, "check", str(site_path), "--db",
+                          str(copy), "--from", "2025-06-01", "--to", "2025-06-30"],
+                         capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+    assert out.stderr == ""
+    assert out.stdout.startswith("Testfeld Hollerbach: ")
+    if log:
+        text = log_file.read_text()
+        assert "WARNING perfcheck.warnings: RuntimeWarning: divide by zero" in text
+        assert "UserWarning: an invented library warning" in text
+        assert "WARNING matplotlib.font_manager: an invented font warning" in text
+        assert "INFO perfcheck.progress: check: metrics and findings: done in " in text
 
 
 def test_check_reads_the_stored_analysis(checked):

@@ -258,3 +258,21 @@ def test_bundle_names_files_by_their_place_in_the_bundle(bundle):
         html = z.read("report/report.html").decode()
     assert [f["path"] for f in coverage["files"]] == ["raw/box_2025-06.csv"]
     assert str(bundle[1].parent) not in html  # no path of our disk inside the bundle
+
+
+def test_evidence_keeps_an_existing_bundle_without_force(tmp_path, monkeypatch):
+    site = write_site(tmp_path)
+    out = tmp_path / "claim.zip"
+    out.write_bytes(b"an earlier bundle")
+    args = ["evidence", str(site.path), "--month", "2025-06", "--out", str(out)]
+    r = CliRunner().invoke(main, args)
+    assert r.exit_code == 2
+    assert r.output == (f"perfcheck: error: {out}: a bundle exists already; give --force to "
+                        "replace it\n")
+    assert out.read_bytes() == b"an earlier bundle"
+    assert not (tmp_path / "site.duckdb").exists()  # refused before any work
+    monkeypatch.setattr(evidence, "build_bundle", lambda con, site, s, e, path, command: {
+        "path": path, "files": 1, "manifest_sha256": "0" * 64})
+    r = CliRunner().invoke(main, [*args, "--force"])
+    assert r.exit_code == 0, r.output
+    assert r.output.startswith(f"bundle: {out} (1 files)")

@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import importlib
 import importlib.util
+import os
+import pkgutil
 import re
 import subprocess
 import sys
@@ -11,7 +14,7 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from perfcheck import db
+from perfcheck import cli, db
 from perfcheck.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -34,12 +37,54 @@ def test_readme_has_exactly_two_setup_commands_and_ci_runs_the_test_one():
 def test_every_command_has_help_with_an_example_and_is_in_the_readme():
     readme = (ROOT / "README.md").read_text(encoding="utf-8")
     runner = CliRunner()
-    for name, cmd in main.commands.items():
+    listed = runner.invoke(main, ["--help"]).output
+    for name in cli.COMMANDS:
         result = runner.invoke(main, [name, "--help"])
         assert result.exit_code == 0, name
         assert "Example" in result.output, f"{name} --help has no example"
         assert f"perfcheck {name}" in readme, f"{name} is not documented in the README"
-        assert cmd.help
+        assert main.get_command(None, name).help
+        assert f"  {name} " in listed
+
+
+def test_the_command_table_names_every_command_of_every_module():
+    found = {}
+    for info in pkgutil.iter_modules(cli.__path__):
+        module = importlib.import_module(f"perfcheck.cli.{info.name}")
+        found.update({c.name: info.name for c in getattr(module, "COMMANDS", [])})
+    assert found == {name: module for name, (module, _) in cli.COMMANDS.items()}
+
+
+HEAVY = ("pandas", "numpy", "duckdb", "pvlib", "matplotlib", "statsmodels", "jinja2", "scipy")
+# Prints the heavy libraries really loaded (a module the CLI names lazily is not loaded yet).
+LOADED = ("import sys\nfrom perfcheck.cli import main\ntry:\n"
+          "    main(sys.argv[1:], prog_name='perfcheck')\nexcept SystemExit:\n    pass\n"
+          f"print(sorted(m for m in {HEAVY!r} if m in sys.modules and "
+          "type(sys.modules[m]).__name__ != '_LazyModule'))")
+
+
+def completing(words: str) -> dict[str, str]:
+    return {"_PERFCHECK_COMPLETE": "bash_complete", "COMP_WORDS": words,
+            "COMP_CWORD": str(len(words.split()) - 1)}
+
+
+@pytest.mark.parametrize("args, env", [
+    (["--version"], {}),
+    (["--help"], {}),
+    *(([name, "--help"], {}) for name in cli.COMMANDS),
+    ([], completing("perfcheck c")),
+    ([], completing("perfcheck check --")),
+])
+def test_help_version_and_completion_import_no_heavy_library(args, env):
+    """The start-up promise of the README (well under 0.3 s; measured in tests/bench_cli.py):
+    version, help and completion load none of the heavy libraries."""
+    out = subprocess.run([sys.executable, "-c", LOADED, *args], capture_output=True, text=True,
+                         env={**os.environ, **env}, check=True)
+    assert out.stdout.splitlines()[-1] == "[]", out.stdout
+    if env == completing("perfcheck c"):
+        assert "plain,check" in out.stdout and "plain,capacity" in out.stdout
+    if env == completing("perfcheck check --"):
+        assert "plain,--json" in out.stdout and "plain,--from" in out.stdout
 
 
 def test_sql_files_are_found_and_every_schema_runs(tmp_path):

@@ -6,11 +6,13 @@ from pathlib import Path
 
 import click
 
-from perfcheck import analysis, metrics
 from perfcheck.site import Site
 
 from .check import open_db
-from .common import site_argument
+from .common import lazy_module, site_argument
+
+analysis = lazy_module("perfcheck.analysis")
+metrics = lazy_module("perfcheck.metrics")
 
 
 @click.command("analyse")
@@ -26,7 +28,6 @@ def analyse_command(site: Site, db_path: Path) -> None:
     Example:
       perfcheck analyse site.toml
     """
-    metrics.load_settings(site)
     con = open_db(db_path)
     try:
         stored = analysis.update(con, site)

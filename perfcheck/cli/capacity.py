@@ -8,11 +8,22 @@ from typing import Any
 
 import click
 
-from perfcheck import capacity, metrics
+from perfcheck import progress
 from perfcheck.site import Site
 
-from .check import json_target, open_db, write_json
-from .common import UserError, day_options, site_argument
+from .check import open_db
+from .common import (
+    UserError,
+    day_options,
+    emit,
+    json_option,
+    json_target,
+    lazy_module,
+    site_argument,
+)
+
+capacity = lazy_module("perfcheck.capacity")
+metrics = lazy_module("perfcheck.metrics")
 
 
 def format_report(doc: dict[str, Any]) -> str:
@@ -53,8 +64,7 @@ def format_report(doc: dict[str, Any]) -> str:
              "Last day of the test window, site-local, included.", required=True)
 @click.option("--guaranteed-ratio", type=click.FloatRange(0.5, 1.2), default=0.97,
               show_default=True, help="Pass when measured / expected capacity is at least this.")
-@click.option("--json", "json_path", type=click.Path(dir_okay=False, path_type=Path),
-              default=None, help="Write the test document to this JSON file.")
+@json_option("the test document")
 @click.option("--rc-poa", type=click.FloatRange(100, 1500), default=None,
               help="Reporting irradiance [W/m2] (default: from the window, ASTM E2939).")
 @click.option("--rc-temp", type=click.FloatRange(-40, 60), default=None,
@@ -85,13 +95,12 @@ def capacity_command(site: Site, db_path: Path, date_from: dt.datetime, date_to:
     settings = capacity.CapacitySettings(min_points=min_points)
     con = open_db(db_path)
     try:
-        start, end = metrics.resolve_period(con, site, date_from.date(), date_to.date())
-        doc = capacity.run(con, site, start, end, guaranteed_ratio, rc, settings)
+        with progress.stage("capacity: filters and regressions"):
+            start, end = metrics.resolve_period(con, site, date_from.date(), date_to.date())
+            doc = capacity.run(con, site, start, end, guaranteed_ratio, rc, settings)
     finally:
         con.close()
-    if json_path is not None:
-        write_json(json_path, doc)
-    click.echo(format_report(doc))
+    emit(format_report(doc), doc, json_path)
 
 
 COMMANDS = [capacity_command]

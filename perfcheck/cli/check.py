@@ -3,37 +3,28 @@
 from __future__ import annotations
 
 import datetime as dt
-import json
+import math
 from pathlib import Path
 from typing import Any
 
 import click
 
-from perfcheck import analysis, db, metrics
+from perfcheck import kinds, progress
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
-from .common import day_options, site_argument
+from .common import day_options, emit, json_option, json_target, lazy_module, site_argument
+
+db = lazy_module("perfcheck.db")
+analysis = lazy_module("perfcheck.analysis")
+metrics = lazy_module("perfcheck.metrics")
+report = lazy_module("perfcheck.report")
 
 
 def open_db(db_path: Path) -> Any:
     if not db_path.exists():
         raise DataError(f"{db_path}: no database yet (run 'perfcheck ingest' first)")
     return db.connect(db_path)
-
-
-def json_target(path: Path | None) -> None:
-    """Refuse a --json path whose folder does not exist, before any work starts."""
-    if path is not None and not path.parent.is_dir():
-        raise DataError(f"{path}: the folder for the JSON file does not exist")
-
-
-def write_json(path: Path, doc: dict[str, Any]) -> None:
-    """Write a result document as UTF-8 JSON; a path that cannot be written is a user error."""
-    try:
-        path.write_text(json.dumps(doc, indent=1, ensure_ascii=False) + "\n", encoding="utf-8")
-    except OSError as exc:
-        raise DataError(f"{path}: cannot write the JSON file ({exc.strerror})") from None
 
 
 def _day(value: dt.datetime | None) -> dt.date | None:
@@ -86,24 +77,60 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
     ]
     lines += [table_line(m["month"], m) for m in doc["metrics"]["monthly"]]
     lines.append(table_line("period", doc["metrics"]["period"]))
-    kinds: dict[str, int] = {}
-    for ev in doc["events"]:
-        kinds[ev["kind"]] = kinds.get(ev["kind"], 0) + 1
-    found = ", ".join(f"{k} {n}" for k, n in sorted(kinds.items())) or "none"
     losses = doc["losses"]
-    lines += ["", f"events: {len(doc['events'])} ({found}); expected {losses['expected_kwh']:.0f}"
-              f" kWh, measured {losses['measured_kwh']:.0f} kWh, unexplained "
-              f"{losses['unexplained_kwh']:.0f} kWh; guarantees checked: {len(doc['guarantees'])}"]
+    lines += ["", *findings_table(doc["events"], site.timezone), "",
+              f"Expected {kwh(losses['expected_kwh'])} kWh, measured "
+              f"{kwh(losses['measured_kwh'])} kWh, not explained by a finding "
+              f"{kwh(losses['unexplained_kwh'])} kWh; guarantees checked: "
+              f"{len(doc['guarantees'])}"]
     return "\n".join(lines)
+
+
+def kwh(value: float | None, significant: int | None = None) -> str:
+    """An energy for a person: whole kWh with thousands separators, one decimal below 10;
+    from 100 kWh rounded to ``significant`` digits when given (an estimate with a band)."""
+    if value is None:
+        return "-"
+    if abs(value) < 10:
+        return f"{value:,.1f}"
+    if significant and abs(value) >= 100:
+        value = round(value, significant - 1 - math.floor(math.log10(abs(value))))
+    return f"{value:,.0f}"
+
+
+def local_minute(instant: str) -> str:
+    """``2024-10-03 09:15+02:00`` from an ISO 8601 instant with its offset."""
+    return dt.datetime.fromisoformat(instant).isoformat(sep=" ", timespec="minutes")
+
+
+def _loss(ev: dict[str, Any]) -> str:
+    """The energy with its band; 'none' for a finding that costs no energy (a sensor fault)."""
+    values = (ev["energy_loss_kwh"], ev["energy_loss_kwh_low"], ev["energy_loss_kwh_high"])
+    if not any(values):
+        return "none"
+    return f"{kwh(values[0], 3)} ({kwh(values[1], 3)} to {kwh(values[2], 3)})"
+
+
+def findings_table(events: list[dict[str, Any]], zone: str) -> list[str]:
+    """One line per event: kind in words, where, start and end (site-local time with its
+    offset, end excluded) and the energy lost with its 95 % band, to three digits."""
+    if not events:
+        return ["Findings: none."]
+    head = ("finding", "where", "from", "to (excluded)", "energy [kWh] (95 % band)")
+    rows = [(kinds.words(ev["kind"]), report.scope_words(ev["scope"]),
+             local_minute(ev["start"]), local_minute(ev["end"]), _loss(ev))
+            for ev in sorted(events, key=lambda e: (e["start"], e["kind"], e["scope"]))]
+    widths = [max(len(r[i]) for r in [head, *rows]) for i in range(len(head) - 1)]
+    return [f"Findings: {len(events)} (times in {zone}, with the UTC offset)",
+            *("  ".join(f"{c:<{w}}" for c, w in zip(r, widths, strict=False)) + "  " + r[-1]
+              for r in [head, *rows])]
 
 
 @click.command("check")
 @site_argument
 @day_options("First day, site-local (YYYY-MM-DD; default: first data).",
              "Last day, site-local, included (YYYY-MM-DD; default: last data).")
-@click.option("--json", "json_path", type=click.Path(dir_okay=False, path_type=Path),
-              default=None, help="Write the whole check document (metrics, events, losses, "
-                                 "degradation, guarantees) to this JSON file.")
+@json_option("the whole check document (metrics, events, losses, degradation, guarantees)")
 def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
                   date_to: dt.datetime | None, json_path: Path | None) -> None:
     """Yields, performance ratios (plain, temperature- and weather-corrected), EPI,
@@ -119,13 +146,12 @@ def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
     json_target(json_path)
     con = open_db(db_path)
     try:
-        start, end = metrics.resolve_period(con, site, _day(date_from), _day(date_to))
-        doc = analysis.view(con, site, start, end, analysis.update(con, site))
+        with progress.stage("check: metrics and findings"):
+            start, end = metrics.resolve_period(con, site, _day(date_from), _day(date_to))
+            doc = analysis.view(con, site, start, end, analysis.update(con, site))
     finally:
         con.close()
-    if json_path is not None:
-        write_json(json_path, doc)
-    click.echo(format_table(doc, site))
+    emit(format_table(doc, site), doc, json_path)
 
 
 COMMANDS = [check_command]

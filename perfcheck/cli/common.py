@@ -5,17 +5,45 @@ from __future__ import annotations
 
 import datetime as dt
 import functools
+import importlib.util
+import json
 import sys
 from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from types import ModuleType
+from typing import TYPE_CHECKING, Any
 
 import click
-import pandas as pd
 
-from perfcheck import db, periods, sections
-from perfcheck.errors import PerfcheckError
+from perfcheck.errors import DataError, PerfcheckError
 from perfcheck.site import Site, load_site
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+
+def lazy_module(name: str) -> ModuleType:
+    """The module ``name``, executed on first use of one of its attributes (the standard
+    library's ``importlib.util.LazyLoader``): the command modules name the stages they call at
+    the top, yet a command's ``--help`` and shell completion load none of pandas, DuckDB,
+    pvlib or matplotlib."""
+    if name in sys.modules:
+        return sys.modules[name]
+    spec = importlib.util.find_spec(name)
+    loader = importlib.util.LazyLoader(spec.loader)
+    spec.loader = loader
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module
+    loader.exec_module(module)
+    parent, _, child = name.rpartition(".")
+    if parent:
+        setattr(sys.modules[parent], child, module)
+    return module
+
+
+db = lazy_module("perfcheck.db")
+periods = lazy_module("perfcheck.periods")
+sections = lazy_module("perfcheck.sections")
 
 EXIT_INPUT_ERROR = 2
 
@@ -112,3 +140,46 @@ def period_args(month: str | None, date_from: Any, date_to: Any) -> str:
 def utc_span(first: dt.datetime, last: dt.datetime) -> str:
     """``YYYY-MM-DD HH:MM to YYYY-MM-DD HH:MM UTC`` for two UTC instants."""
     return f"{first:%Y-%m-%d %H:%M} to {last:%Y-%m-%d %H:%M} UTC"
+
+
+def json_option(what: str) -> Callable[[Callable], Callable]:
+    """--json PATH (``json_path``): write ``what`` to PATH, or to stdout alone with '-'."""
+    return click.option(
+        "--json", "json_path", default=None,
+        type=click.Path(dir_okay=False, allow_dash=True, path_type=Path),
+        help=f"Write {what} to this JSON file; '-' writes it to stdout alone (the text "
+             "then goes to stderr).")
+
+
+def _to_stdout(path: Path | None) -> bool:
+    return path is not None and str(path) == "-"
+
+
+def json_target(path: Path | None) -> None:
+    """Refuse a --json path whose folder does not exist, before any work starts."""
+    if path is not None and not _to_stdout(path) and not path.parent.is_dir():
+        raise DataError(f"{path}: the folder for the JSON file does not exist")
+
+
+def json_text(doc: dict[str, Any]) -> str:
+    return json.dumps(doc, indent=1, ensure_ascii=False) + "\n"
+
+
+def write_json(path: Path, doc: dict[str, Any]) -> None:
+    """Write a result document as UTF-8 JSON; a path that cannot be written is a user error."""
+    try:
+        path.write_text(json_text(doc), encoding="utf-8")
+    except OSError as exc:
+        raise DataError(f"{path}: cannot write the JSON file ({exc.strerror})") from None
+
+
+def emit(text: str, doc: dict[str, Any], json_path: Path | None) -> None:
+    """Print a command's text and write its document as --json asked: with '-' the JSON is
+    all that goes to stdout and the text goes to stderr."""
+    if _to_stdout(json_path):
+        click.echo(text, err=True)
+        click.echo(json_text(doc), nl=False)
+        return
+    if json_path is not None:
+        write_json(json_path, doc)
+    click.echo(text)

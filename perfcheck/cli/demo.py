@@ -6,16 +6,23 @@ import shutil
 from pathlib import Path
 
 import click
-import pandas as pd
 
-from perfcheck import align, capacity, db, evidence, ingest, metrics, pipeline, report
+from perfcheck import progress
 from perfcheck.cli.capacity import format_report
-from perfcheck.cli.check import format_table, write_json
-from perfcheck.cli.common import handle_errors
-from perfcheck.cli.ingest import format_result, format_totals
-from perfcheck.cli.model import format_summary
-from perfcheck.scenario import demo_dir
+from perfcheck.cli.check import format_table
+from perfcheck.cli.common import handle_errors, lazy_module, write_json
+from perfcheck.cli.ingest import format_totals
 from perfcheck.site import Site, load_site
+
+pd = lazy_module("pandas")
+capacity = lazy_module("perfcheck.capacity")
+db = lazy_module("perfcheck.db")
+evidence = lazy_module("perfcheck.evidence")
+ingest = lazy_module("perfcheck.ingest")
+metrics = lazy_module("perfcheck.metrics")
+pipeline = lazy_module("perfcheck.pipeline")
+report = lazy_module("perfcheck.report")
+scenario = lazy_module("perfcheck.scenario")
 
 # The capacity ratio the demo's (invented) contract guarantees.
 DEMO_GUARANTEED_RATIO = 0.97
@@ -27,7 +34,7 @@ def _heading(text: str) -> None:
 
 def copy_demo(out_dir: Path) -> Path:
     """Copy the demo site file and its logger files into ``out_dir``; return the site file."""
-    src = demo_dir()
+    src = scenario.demo_dir()
     site = load_site(src / "site.toml")
     (out_dir / "logs").mkdir(parents=True, exist_ok=True)
     shutil.copyfile(src / "site.toml", out_dir / "site.toml")
@@ -61,9 +68,10 @@ def first_clear_weeks(site: Site) -> tuple[pd.Timestamp, pd.Timestamp]:
 @handle_errors
 def demo_command(out_dir: Path, quiet: bool) -> None:
     """Run every stage on the invented demo plant "Solarpark Talbrunn" (two years of
-    5-minute logger files with injected faults): ingest with its accounting, data coverage,
-    the expected series, the monthly performance table, the findings, the capacity test of
-    the first weeks, the report and an evidence bundle, which is then verified.
+    5-minute logger files with injected faults): ingest with its accounting in total, data
+    coverage, the expected series, the monthly performance table, the findings, the capacity
+    test of the first weeks, the report and an evidence bundle, which is then verified. The
+    last lines name the files to open.
 
     \b
     Example:
@@ -76,42 +84,46 @@ def demo_command(out_dir: Path, quiet: bool) -> None:
         _heading(f"ingest: {site.name} (invented plant), logger files in {out_dir / 'logs'}")
         files = ingest.logger_files(site, out_dir / "logs")
         results = pipeline.update(con, site, files, quiet=quiet)
-        for res in results:
-            click.echo(format_result(res))
         click.echo(format_totals(results))
+        click.echo("(the accounting per file: perfcheck ingest; expected against measured "
+                   "energy per inverter and month: perfcheck model)")
 
         _heading("data coverage per channel (site-local months)")
         click.echo(format_coverage(ingest.coverage_summary(con, site)))
 
-        _heading("expected against measured energy per inverter and month")
-        click.echo(format_summary(align.monthly_summary(con, site)))
-
-        _heading("performance per month")
-        start, end = metrics.resolve_period(con, site, None, None)
-        doc = pipeline.view(con, site, start, end)
+        _heading("performance per month, findings")
+        with progress.stage("check: metrics and findings", quiet):
+            start, end = metrics.resolve_period(con, site, None, None)
+            doc = pipeline.view(con, site, start, end)
         write_json(out_dir / "check.json", doc)
         click.echo(format_table(doc, site))
 
         _heading("capacity test (ASTM E2848), first three weeks after commissioning, "
                  f"guaranteed ratio {DEMO_GUARANTEED_RATIO}")
         cap_start, cap_end = first_clear_weeks(site)
-        cap = capacity.run(con, site, cap_start, cap_end, DEMO_GUARANTEED_RATIO)
+        with progress.stage("capacity: filters and regressions", quiet):
+            cap = capacity.run(con, site, cap_start, cap_end, DEMO_GUARANTEED_RATIO)
         write_json(out_dir / "capacity.json", cap)
         click.echo(format_report(cap))
 
         _heading("report and evidence bundle")
-        paths = report.write_report(con, site, start, end, out_dir / "report")
-        bundle = evidence.build_bundle(con, site, start, end, out_dir / "evidence.zip",
-                                       f"perfcheck demo --out {out_dir}")
+        with progress.stage("report: analysis, figures, HTML and PDF", quiet):
+            paths = report.write_report(con, site, start, end, out_dir / "report")
+        with progress.stage("evidence: analysis, report and bundle", quiet):
+            bundle = evidence.build_bundle(con, site, start, end, out_dir / "evidence.zip",
+                                           f"perfcheck demo --out {out_dir}")
     finally:
         con.close()
-    click.echo(f"report: {paths['html']}")
-    click.echo(f"pdf: {paths['pdf']}")
+    with progress.stage("verify: hashes and re-run", quiet):
+        check = evidence.verify_bundle(Path(bundle["path"]))
+    click.echo(f"evidence bundle {'verified' if check.ok else 'NOT verified'}: "
+               f"{check.files_checked} files against the manifest, analysis re-run from the "
+               "bundle alone")
+    _heading("open these")
+    click.echo(f"report:          {paths['html']}")
+    click.echo(f"report as PDF:   {paths['pdf']}")
     click.echo(f"evidence bundle: {bundle['path']} ({bundle['files']} files)")
-    check = evidence.verify_bundle(Path(bundle["path"]))
-    click.echo(f"verify: {'verified' if check.ok else 'NOT verified'}"
-               f" ({check.files_checked} files, analysis re-run from the bundle)")
-    click.echo(f"\ncheck document: {out_dir / 'check.json'}")
+    click.echo(f"check document:  {out_dir / 'check.json'}")
 
 
 COMMANDS = [demo_command]

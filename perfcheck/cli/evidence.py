@@ -7,9 +7,11 @@ from typing import Any
 
 import click
 
-from perfcheck import db, evidence
+from perfcheck import progress
 from perfcheck.cli.common import (
+    UserError,
     handle_errors,
+    lazy_module,
     period_args,
     period_options,
     resolve_period,
@@ -17,28 +19,36 @@ from perfcheck.cli.common import (
 )
 from perfcheck.site import Site
 
+db = lazy_module("perfcheck.db")
+evidence = lazy_module("perfcheck.evidence")
+
 
 @click.command("evidence")
 @site_argument
 @period_options
 @click.option("--out", "out_zip", type=click.Path(dir_okay=False, path_type=Path),
               required=True, help="The bundle to write, e.g. claim.zip.")
+@click.option("--force", is_flag=True, help="Replace the bundle if it exists already.")
 def evidence_command(site: Site, db_path: Path, month: str | None, date_from: Any,
-                     date_to: Any, out_zip: Path) -> None:
+                     date_to: Any, out_zip: Path, force: bool) -> None:
     """Write an evidence bundle for a warranty or insurance claim: raw logger files, site
     file, results (JSON, CSV), guarantee findings, report PDF and figures, coverage, methods,
-    versions, the exact command, and a manifest with the sha256 of every file.
+    versions, the exact command, and a manifest with the sha256 of every file. An existing
+    bundle is kept unless --force is given.
 
     \b
     Example:
       perfcheck evidence site.toml --from 2025-04-01 --to 2025-06-30 --out claim.zip
     """
+    if out_zip.exists() and not force:
+        raise UserError(f"{out_zip}: a bundle exists already; give --force to replace it")
     start, end = resolve_period(site, month, date_from, date_to)
     command = f"perfcheck evidence {site.path} {period_args(month, date_from, date_to)} " \
               f"--out {out_zip}"
     con = db.connect(db_path)  # the check stores its events
     try:
-        out = evidence.build_bundle(con, site, start, end, out_zip, command)
+        with progress.stage("evidence: analysis, report and bundle"):
+            out = evidence.build_bundle(con, site, start, end, out_zip, command)
     finally:
         con.close()
     click.echo(f"bundle: {out['path']} ({out['files']} files)")
@@ -58,7 +68,8 @@ def verify_command(bundle: Path, no_rerun: bool) -> None:
     Example:
       perfcheck verify claim.zip
     """
-    v = evidence.verify_bundle(bundle, rerun_analysis=not no_rerun)
+    with progress.stage("verify: hashes" + ("" if no_rerun else " and re-run")):
+        v = evidence.verify_bundle(bundle, rerun_analysis=not no_rerun)
     click.echo(f"manifest sha256: {v.manifest_sha256}")
     click.echo(f"files checked: {v.files_checked}")
     for note in v.notes:

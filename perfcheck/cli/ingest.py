@@ -3,17 +3,23 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
 
-from perfcheck import db, quality
-from perfcheck.cli.common import site_argument, utc_span
-from perfcheck.ingest import FileResult, expand_paths, ingest_files
+from perfcheck.cli.common import lazy_module, site_argument, utc_span
 from perfcheck.site import Site
+
+if TYPE_CHECKING:
+    from perfcheck.ingest import FileResult
+
+db = lazy_module("perfcheck.db")
+ingest = lazy_module("perfcheck.ingest")
+quality = lazy_module("perfcheck.quality")
 
 
 def format_result(res: FileResult) -> str:
-    """One line of accounting for a file, as printed by ``perfcheck ingest`` and the demo."""
+    """One line of accounting for a file, as printed by ``perfcheck ingest``."""
     if res.status == "already ingested":
         return f"{res.path}: already ingested (file {res.file_id}), nothing changed"
     span = ""
@@ -53,10 +59,11 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
     Example:
       perfcheck ingest site.toml 'logs/*.csv' --db site.duckdb
     """
-    paths = expand_paths(files)
+    paths = ingest.expand_paths(files)
     con = db.connect(db_path)
     try:
-        results = ingest_files(con, site, paths, progress=lambda r: click.echo(format_result(r)))
+        results = ingest.ingest_files(con, site, paths,
+                                      progress=lambda r: click.echo(format_result(r)))
         click.echo(format_totals(results))
         if any(r.status == "loaded" for r in results):
             counts = quality.run(con, site)

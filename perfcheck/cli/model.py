@@ -4,13 +4,20 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
-import pandas as pd
 
-from perfcheck import align, db, model, progress
-from perfcheck.cli.common import site_argument, utc_span
+from perfcheck import progress
+from perfcheck.cli.common import lazy_module, site_argument, utc_span
 from perfcheck.site import Site
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+align = lazy_module("perfcheck.align")
+db = lazy_module("perfcheck.db")
+model = lazy_module("perfcheck.model")
 
 
 def _num(v: float, fmt: str) -> str:
@@ -18,7 +25,7 @@ def _num(v: float, fmt: str) -> str:
 
 
 def format_summary(summary: pd.DataFrame) -> str:
-    """The per-inverter monthly table (as printed by ``perfcheck model`` and the demo)."""
+    """The per-inverter monthly table printed by ``perfcheck model``."""
     lines = [f"{'inverter':<12} {'month':<8} {'expected kWh':>13} {'measured kWh':>13} "
              f"{'measured/expected':>18} {'coverage':>9}"]
     for r in summary.itertuples(index=False):

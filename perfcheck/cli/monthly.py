@@ -7,14 +7,19 @@ from pathlib import Path
 
 import click
 
-from perfcheck import monthly, progress, report
-from perfcheck.cli.common import UserError, site_argument
+from perfcheck import progress
+from perfcheck.cli.common import UserError, lazy_module, site_argument
 from perfcheck.errors import PerfcheckError
 from perfcheck.site import Site
 
+monthly = lazy_module("perfcheck.monthly")
+report = lazy_module("perfcheck.report")
+
 
 class Busy(UserError):
-    exit_code = monthly.EXIT_BUSY
+    @property
+    def exit_code(self) -> int:  # type: ignore[override]
+        return monthly.EXIT_BUSY
 
 
 @click.command("monthly")
@@ -45,7 +50,8 @@ def monthly_command(site: Site, db_path: Path, month: str | None, out_root: Path
     command = " ".join(["perfcheck", "monthly", str(site.path)] + (["--month", month] if month
                                                                    else []))
     try:
-        outcome = monthly.run_monthly(site, db_path, month, root, command, quiet)
+        with progress.stage("monthly", quiet):
+            outcome = monthly.run_monthly(site, db_path, month, root, command, quiet)
     except monthly.LockBusy as exc:
         log.error("%s", exc)
         raise Busy(str(exc)) from None

@@ -7,9 +7,12 @@ from typing import Any
 
 import click
 
-from perfcheck import db, report
-from perfcheck.cli.common import period_options, resolve_period, site_argument
+from perfcheck import progress
+from perfcheck.cli.common import lazy_module, period_options, resolve_period, site_argument
 from perfcheck.site import Site
+
+db = lazy_module("perfcheck.db")
+report = lazy_module("perfcheck.report")
 
 
 @click.command("report")
@@ -30,7 +33,8 @@ def report_command(site: Site, db_path: Path, month: str | None, date_from: Any,
     start, end = resolve_period(site, month, date_from, date_to)
     con = db.connect(db_path)  # the check stores its events
     try:
-        paths = report.write_report(con, site, start, end, out_dir)
+        with progress.stage("report: analysis, figures, HTML and PDF"):
+            paths = report.write_report(con, site, start, end, out_dir)
     finally:
         con.close()
     click.echo(f"report: {paths['html']}")
