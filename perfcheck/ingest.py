@@ -19,7 +19,9 @@ A file whose sha256 is already stored is reported as already ingested and change
 Conventions: instants are UTC and label the **start** of the logger interval (a logger that
 labels the end has its times moved back by one interval). Values are converted once, here, to
 SI units: W, Wh, W/m2, C, m/s, mm. Empty fields and the logger's sentinels are missing values
-and are not stored; ``NaN`` is always missing.
+and are not stored; ``NaN`` is always missing. An infinite value (``inf``, ``Infinity``,
+``1e309``) and an instant outside the years 1678 to 2261 (a two-digit year read with ``%Y``, a
+logger clock reset) quarantine their line with the reason.
 
 Storage: values are kept as the logger writes them, one wide table per logger
 (``logger_rows_<id>``: ts, file_id, line and one column per channel, NULL where a value is
@@ -37,7 +39,8 @@ time in the skipped spring hour is quarantined ("does not exist"), never shifted
 Parsing is done by DuckDB over the file's lines (split, quote handling, typing, time zones,
 comparison with stored values), so there is no Python loop over data rows; Python checks only
 what must hold for the whole file before any of it is read: it exists, is UTF-8, is not empty,
-has the mapped columns in its header and does not end in a truncated line. Each file is stored
+has the mapped columns in a header it can split. A line cut short anywhere, the last line
+included (a file still being written), is quarantined with its reason. Each file is stored
 in one transaction: an error or a kill mid-file leaves the database as it was before that file.
 """
 
@@ -110,6 +113,7 @@ class _Checked:
     time_positions: tuple[int, ...]
     header_end: int  # last line number that is not data (preamble, header, units row)
     crlf: bool  # the file holds CRLF line ends
+    open_line: int  # number of a last line without a line end (0: the file ends in one)
 
 
 def expand_paths(patterns: Iterable[str | Path]) -> list[Path]:
@@ -168,8 +172,18 @@ def _check_utf8(path: Path, data: bytes) -> None:
         ) from None
 
 
-def _split_fields(line: str, delimiter: str) -> list[str]:
-    return next(csv.reader([line], delimiter=delimiter, quotechar='"'), [])
+def _split_fields(path: Path, number: int, line: str, delimiter: str) -> list[str]:
+    """The fields of header line ``number``; a line the csv module cannot split (a carriage
+    return inside it, a field over its 128 kB limit) is a one-line LoggerFileError."""
+    try:
+        return next(csv.reader([line], delimiter=delimiter, quotechar='"'), [])
+    except csv.Error as exc:
+        if "\r" in line:
+            raise LoggerFileError(
+                f"{path}: line {number}: holds a carriage return (CR) not followed by a line "
+                "feed; save the file with LF or CRLF line ends") from None
+        raise LoggerFileError(f"{path}: line {number}: cannot be split into fields ({exc})"
+                              ) from None
 
 
 def _line_at(data: bytes, number: int) -> tuple[str | None, int]:
@@ -213,7 +227,7 @@ def _check_units_row(path: Path, lg: Logger, units: str | None, positions: dict[
                      line: int) -> None:
     """A units row must not hold numbers where values are mapped: that is a data row, and
     reading it as units would lose it."""
-    fields = _split_fields(units or "", lg.delimiter)
+    fields = _split_fields(path, line, units or "", lg.delimiter)
     for col in lg.columns:
         text = fields[positions[col.name] - 1].strip() if len(fields) >= positions[col.name] else ""
         try:
@@ -241,7 +255,7 @@ def check_file(site: Site, path: str | Path) -> _Checked:
             f"{path}: line {header_no}: file ends before the header "
             f"(preamble_lines = {lg.preamble_lines} in [[loggers]] {lg.name!r})"
         )
-    fields = _split_fields(header, lg.delimiter)
+    fields = _split_fields(path, header_no, header, lg.delimiter)
     positions = _column_positions(path, lg, fields, header_no)
     header_end = header_no + (1 if lg.units_row else 0)
     if lg.units_row:
@@ -250,15 +264,6 @@ def check_file(site: Site, path: str | Path) -> _Checked:
     if _NOT_BLANK.search(data, after) is None:
         raise LoggerFileError(f"{path}: empty file (no data lines after the header, "
                               f"line {header_end})")
-    if not data.endswith(b"\n"):
-        last = data[data.rfind(b"\n") + 1:].decode("utf-8")
-        n_last = len(_split_fields(last, lg.delimiter)) if last.strip() else len(fields)
-        if n_last < len(fields):
-            line = data.count(b"\n") + 1
-            raise LoggerFileError(
-                f"{path}: line {line}: truncated last line ({n_last} of "
-                f"{len(fields)} fields, no line end): the file may still be being written"
-            )
     return _Checked(
         path=path,
         given=str(path),
@@ -270,6 +275,7 @@ def check_file(site: Site, path: str | Path) -> _Checked:
         time_positions=tuple(positions[c] for c in lg.time.columns),
         header_end=header_end,
         crlf=b"\r" in data,  # one byte: a fast scan; a lone CR is harmless
+        open_line=0 if data.endswith(b"\n") else data.count(b"\n") + 1,
     )
 
 
@@ -354,7 +360,10 @@ def _check_loggers(con: duckdb.DuckDBPyConnection, site: Site) -> None:
 
 
 def _value_sql(k: int, col: Column, decimal: str, numeric_sentinels: bool) -> tuple[str, ...]:
-    """SQL for mapped column k: its number (and field text), its SI value, its error."""
+    """SQL for mapped column k: its number (and field text), its SI value, its error, and a
+    quick test whether it may have one. A value that is infinite in SI units (``inf``,
+    ``1e309``, or a finite number that overflows on conversion) is an error, not a reading;
+    NaN is a missing value."""
     factor, offset = UNIT_TO_SI[col.unit]
     text = f"s{k}"
     num = f"replace({text}, ',', '.')" if decimal == "," else text
@@ -362,13 +371,19 @@ def _value_sql(k: int, col: Column, decimal: str, numeric_sentinels: bool) -> tu
     if numeric_sentinels:
         missing += f" OR list_contains($num_sentinels, n{k})"
     number = f"TRY_CAST({num} AS DOUBLE) AS n{k}, {text}"
-    value = f"CASE WHEN {missing} THEN NULL ELSE n{k} * {factor!r} + {offset!r} END AS v{k}"
+    si = f"n{k} * {factor!r} + {offset!r}"
+    value = f"CASE WHEN {missing} THEN NULL ELSE {si} END AS v{k}"
     error = (
         f"CASE WHEN n{k} IS NULL AND trim({text}) <> '' "
         f"AND NOT list_contains($sentinels, trim({text})) "
-        f"THEN 'column ' || $names[{k}] || ': ''' || {text} || ''' is not a number' END"
+        f"THEN 'column ' || $names[{k}] || ': ''' || {text} || ''' is not a number' "
+        f"WHEN isinf({si}) AND NOT ({missing}) "
+        f"THEN 'column ' || $names[{k}] || ': ''' || {text} || ''' is infinite or out of "
+        "range' "
+        "END"
     )
-    return number, value, error
+    bad = f"(n{k} IS NULL AND s{k} <> '') OR isinf({si})"
+    return number, value, error, bad
 
 
 def _rows_sql(chk: _Checked) -> str:
@@ -385,7 +400,7 @@ def _rows_sql(chk: _Checked) -> str:
         numbers=", ".join(p[0] for p in parts),
         time_ctes=db.sql(f"ingest_time_{lg.time.kind}"),
         values=", ".join(p[1] for p in parts),
-        any_bad=" OR ".join(f"(n{k} IS NULL AND s{k} <> '')" for k in range(1, len(parts) + 1)),
+        any_bad=" OR ".join(p[3] for p in parts),
         value_errors=", ".join(p[2] for p in parts),
     )
 
@@ -410,6 +425,13 @@ def _numeric(sentinels: tuple[str, ...]) -> list[float]:
     return [v for v in out if v == v]
 
 
+def _literal_glob(path: Path) -> str:
+    """``path`` as a DuckDB file glob that matches that one file: each glob character
+    (``*``, ``?``, ``[``) is put in a character class of its own, so ``x_[a].csv`` reads
+    ``x_[a].csv`` and never ``x_a.csv``."""
+    return re.sub(r"([*?\[])", r"[\1]", str(path))
+
+
 def _quoted_patterns(delimiter: str) -> tuple[str, str]:
     d = re.escape(delimiter)
     field = f'"(?:[^"]|"")*"|[^{d}"]*'
@@ -425,13 +447,14 @@ def _read_params(site: Site, chk: _Checked) -> dict[str, object]:
     lg = chk.logger
     quoted_line, quoted_field = _quoted_patterns(lg.delimiter)
     params: dict[str, object] = {
-        "path": str(chk.path),
+        "path": _literal_glob(chk.path),
         "header_end": chk.header_end,
         "crlf": chk.crlf,
         "delim": lg.delimiter,
         "quoted_line": quoted_line,
         "quoted_field": quoted_field,
         "n_fields": chk.n_fields,
+        "open_line": chk.open_line,
         "sentinels": list(lg.sentinels),
         "names": [c.name for c in lg.columns],
         "label_shift_min": lg.interval_min if lg.time.label == "end" else 0,
@@ -518,8 +541,8 @@ def ingest_files(
 ) -> list[FileResult]:
     """Ingest logger files into the site database, one transaction per file.
 
-    Every file is checked first (exists, UTF-8, not empty, mapped columns present, last line
-    complete), so a bad file stops the run before anything is stored. ``progress`` is called
+    Every file is checked first (exists, UTF-8, not empty, mapped columns present), so a bad
+    file stops the run before anything is stored. ``progress`` is called
     with each file's result as soon as it is committed.
     """
     _check_loggers(con, site)

@@ -394,9 +394,12 @@ def _db_state(path):
         ("header.csv", b"ts,P,G\r\n", "{f}: empty file (no data lines after the header, line 1)"),
         ("latin1.csv", "ts,P,G\n2024-06-01 10:00,1,2\n2024-06-01 10:05,1,\xb0\n".encode("latin-1"),
          "{f}: line 3: byte 0xb0 at column 20 is not UTF-8 (save the file as UTF-8)"),
-        ("cut.csv", b"ts,P,G\n2024-06-01 10:00,1,2\n2024-06-01 10:05,1",
-         "{f}: line 3: truncated last line (2 of 3 fields, no line end): the file may still be "
-         "being written"),
+        # fuzz findings (issue 10): a header ending in a lone CR, a 128 kB header field
+        ("cr.csv", b"ts,P,G\r2024-06-01 10:00,1,2\n",
+         "{f}: line 1: holds a carriage return (CR) not followed by a line feed; save the file "
+         "with LF or CRLF line ends"),
+        ("wide.csv", b"ts,P,G" + b"x" * 131072 + b"\n2024-06-01 10:00,1,2\n",
+         "{f}: line 1: cannot be split into fields (field larger than field limit (131072))"),
         ("semicolon.csv", b"ts;P;G\n2024-06-01 10:00;1;2\n",
          "{f}: line 1: no column 'ts' (mapped in [[loggers]] 'main'); found 1 column(s) with "
          "delimiter ',': 'ts;P;G'; the header holds ';': is delimiter ',' right?"),

@@ -1,0 +1,111 @@
+"""Reproducers of the fuzz findings of issue 10 (ingest, quality, model), one test each.
+
+Every input here is an invented logger file; the truth each test states is the behaviour the
+issue asks for: a bad line is quarantined with its reason and the rest loaded, nothing
+non-finite or out of range is stored, and the later stages run.
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+from logger_files import run_ingest, write_case
+
+from perfcheck import db, quality
+from perfcheck.ingest import ingest_files
+from perfcheck.site import load_site
+
+
+def _ingest(tmp_path, body, **kw):
+    site_path, log = write_case(tmp_path, body, **kw)
+    site = load_site(site_path)
+    con = db.connect(tmp_path / "site.duckdb")
+    (res,) = ingest_files(con, site, [log])
+    return con, site, res
+
+
+def _quarantine(con):
+    return con.execute("SELECT line, reason FROM quarantine ORDER BY line").fetchall()
+
+
+def test_timestamps_outside_1678_to_2261_are_quarantined(tmp_path):
+    # a two-digit year read with %Y (year 24) and a clock far in the future: both outside what
+    # pandas' nanosecond timestamps hold (1677-09-21 to 2262-04-11, pandas documentation)
+    body = ("ts,P,G\n24-06-01 10:00,1,100\n2024-06-01 10:05,1,100\n"
+            "2300-01-01 00:00,1,100\n")
+    con, site, res = _ingest(tmp_path, body)
+    assert (res.rows_read, res.rows_loaded, res.rows_quarantined) == (3, 1, 2)
+    reasons = _quarantine(con)
+    assert reasons[0] == (2, "time '24-06-01 10:00' is outside the years 1678 to 2261 (a "
+                             "two-digit year read as four digits, or a logger clock reset?)")
+    assert reasons[1][0] == 4 and "outside the years 1678 to 2261" in reasons[1][1]
+    # nothing out of range is stored, not even as a quarantine instant, so pandas can read all
+    assert con.execute("SELECT count(*) FROM quarantine "
+                       "WHERE year(ts) NOT BETWEEN 1678 AND 2261").fetchone() == (0,)
+    pd.DatetimeIndex(con.execute("SELECT ts FROM readings").df()["ts"])
+    quality.run(con, site)  # crashed before (OutOfBoundsDatetime)
+
+
+def test_epoch_out_of_range_is_quarantined(tmp_path):
+    # 9e9 s since 1970 is in the year 2255, 1e10 s in 2286 (seconds / 31,556,952 s per year)
+    con, _, res = _ingest(tmp_path, "ts,P,G\n9000000000,1,2\n10000000000,1,2\n",
+                          time_kind="epoch")
+    assert (res.rows_loaded, res.rows_quarantined) == (1, 1)
+    assert "outside the years 1678 to 2261" in _quarantine(con)[0][1]
+
+
+def test_non_finite_values_are_quarantined_nan_is_missing(tmp_path):
+    body = ("ts,P,G\n"
+            "2024-06-01 10:00,inf,100\n"          # 2 quarantined
+            "2024-06-01 10:05,1e309,Infinity\n"   # 3 quarantined: both columns named
+            "2024-06-01 10:10,nan,-inf\n"         # 4 quarantined (-inf); nan alone is missing
+            "2024-06-01 10:15,NaN,100\n"          # 5 loaded: only G stored
+            "2024-06-01 10:20,1e306,100\n")       # 6 quarantined: 1e306 kW overflows in W
+    con, _, res = _ingest(tmp_path, body)
+    assert (res.rows_read, res.rows_loaded, res.rows_quarantined) == (5, 1, 4)
+    assert _quarantine(con) == [
+        (2, "column P: 'inf' is infinite or out of range"),
+        (3, "column P: '1e309' is infinite or out of range; "
+            "column G: 'Infinity' is infinite or out of range"),
+        (4, "column G: '-inf' is infinite or out of range"),
+        (6, "column P: '1e306' is infinite or out of range"),
+    ]
+    assert con.execute("SELECT quantity, value FROM readings").fetchall() == [("poa_wm2", 100.0)]
+
+
+def test_inf_declared_as_a_sentinel_is_missing(tmp_path):
+    con, _, res = _ingest(tmp_path, "ts,P,G\n2024-06-01 10:00,inf,100\n", sentinels=["inf"])
+    assert (res.rows_loaded, res.rows_quarantined) == (1, 0)
+    assert con.execute("SELECT quantity FROM readings").fetchall() == [("poa_wm2",)]
+
+
+def test_truncated_lines_anywhere_are_quarantined_the_rest_loaded(tmp_path):
+    body = ("ts,P,G\n2024-06-01 10:00,1,100\n2024-06-01 10\n2024-06-01 10:10,1,100\n"
+            "2024-06-01 10:15,1")
+    con, _, res = _ingest(tmp_path, body)
+    assert (res.rows_read, res.rows_loaded, res.rows_quarantined) == (4, 2, 2)
+    assert _quarantine(con) == [(3, "1 fields where the header has 3"),
+                                (5, "truncated last line (2 of 3 fields, no line end)")]
+
+
+def test_last_line_cut_inside_a_quote(tmp_path):
+    con, _, res = _ingest(tmp_path, 'ts,P,G\n2024-06-01 10:00,1,100\n2024-06-01 10:05,1,"10')
+    assert (res.rows_loaded, res.rows_quarantined) == (1, 1)
+    assert _quarantine(con) == [
+        (3, "truncated last line (a quoted field is not closed, no line end)")]
+
+
+def test_file_names_with_glob_characters_read_that_file(tmp_path):
+    # DuckDB reads a path as a glob: x_[a].csv would match x_a.csv, a '*' any file
+    for name in ("x_[a].csv", "y_*.csv"):
+        site, log = write_case(tmp_path, "ts,P,G\n2024-06-01 10:00,1,100\n", filename=name)
+        decoy = tmp_path / name.replace("[a]", "a").replace("*", "1")
+        decoy.write_text("ts,P,G\n2024-06-01 10:00,7,700\n")
+        dbp = tmp_path / f"{name[0]}.duckdb"
+        result = run_ingest(site, log, db=dbp)
+        assert result.exit_code == 0, result.output
+        con = db.connect(dbp)
+        try:
+            assert con.execute("SELECT value FROM readings ORDER BY quantity").fetchall() == [
+                (1000.0,), (100.0,)]  # 1 kW and 100 W/m2: the named file, not the decoy
+        finally:
+            con.close()
