@@ -7,6 +7,7 @@ Every error names the key path (``inverters[1].arrays[0].tilt_deg``) and what wa
 from __future__ import annotations
 
 import datetime as dt
+import math
 import tomllib
 import zoneinfo
 from dataclasses import dataclass, field
@@ -235,6 +236,8 @@ class Table:
         if not isinstance(value, kind) or (isinstance(value, bool) and kind is not bool):
             got = type(value).__name__
             raise self._err(key, f"expected {_kind_name(kind)}, got {got} {value!r}")
+        if isinstance(value, float) and not math.isfinite(value):
+            raise self._err(key, f"expected a finite number, got {value!r}")
         if choices is not None and value not in choices:
             raise self._err(key, f"{value!r} is not one of {', '.join(map(repr, choices))}")
         return value
@@ -411,6 +414,9 @@ def load_site(path: str | Path) -> Site:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SiteFileError(f"{path}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise SiteFileError(f"{path}: not a usable site file: arrays or tables nested too deep "
+                            "for the TOML reader") from None
     return parse_site(raw, path)
 
 
