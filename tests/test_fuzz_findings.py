@@ -9,8 +9,9 @@ from __future__ import annotations
 
 import pandas as pd
 from logger_files import run_ingest, write_case
+from model_fixtures import clear_days, make_site, open_db, store
 
-from perfcheck import db, quality
+from perfcheck import db, model, quality
 from perfcheck.ingest import ingest_files
 from perfcheck.site import load_site
 
@@ -109,3 +110,19 @@ def test_file_names_with_glob_characters_read_that_file(tmp_path):
                 (1000.0,), (100.0,)]  # 1 kW and 100 W/m2: the named file, not the decoy
         finally:
             con.close()
+
+
+def test_one_night_row_in_an_empty_month_does_not_crash_the_model(tmp_path):
+    # a POA sensor only (no GHI): INV2's planes differ from the sensor's, so the sensor is
+    # decomposed by GTI-DIRINT, which needs some sun in front of the sensor (AOI < 90)
+    site = make_site(tmp_path, model='irradiance_source = "poa_sensor"')
+    con = open_db(tmp_path)
+    day = clear_days("2024-06-01", 1).rename(columns={"ghi_wm2": "poa_wm2"})
+    store(con, day, "site", file_id=1)
+    model.run(con, site)
+    # midnight UTC on 15 July is 02:00 in Berlin: the sun is below the horizon at 48 N
+    night = pd.DataFrame({"poa_wm2": [0.0], "temp_air_c": [15.0]},
+                         index=pd.DatetimeIndex([pd.Timestamp("2024-07-15 00:00", tz="UTC")]))
+    store(con, night, "site", file_id=2)
+    out = model.run(con, site)  # raised "There are no times with AOI < 90"
+    assert out["rows"] == 2
