@@ -194,8 +194,17 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
     return pd.concat(frames, ignore_index=True)
 
 
+def stale(con: duckdb.DuckDBPyConnection) -> bool:
+    """True when files were ingested after the flags were last computed (a run killed
+    between a file's commit and the flags' commit, or flags never computed)."""
+    newest, state = con.execute("SELECT (SELECT max(file_id) FROM source_files), "
+                                "(SELECT max(last_file_id) FROM quality_state)").fetchall()[0]
+    return newest is not None and newest != state
+
+
 def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
-    """Recompute all flags from the stored readings; returns the count per flag name."""
+    """Recompute all flags from the stored readings, in one transaction that also records the
+    newest file they include (see :func:`stale`); returns the count per flag name."""
     channels = channel_limits(site)
     sun = _sun_for_readings(con, site, channels)
     params = {
@@ -221,6 +230,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
                 query = db.sql(f"quality_{name}")
                 used = {k: v for k, v in params.items() if re.search(rf"\${k}\b", query)}
                 con.execute(query, used)
+            con.execute("DELETE FROM quality_state")
+            con.execute("INSERT INTO quality_state SELECT max(file_id) FROM source_files")
             con.execute("COMMIT")
         except BaseException:
             con.execute("ROLLBACK")
@@ -232,4 +243,4 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
 
 
-__all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "sun_table"]
+__all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "stale", "sun_table"]

@@ -47,7 +47,8 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
     quarantined with its line number, raw text and reason; the accounting is printed per
     file. A value that differs from a stored one is never overwritten: it is kept in the
     table conflicts and its row quarantined. A file already ingested changes nothing.
-    After loading, the quality flags are recomputed (they never delete a reading).
+    After loading, the quality flags are recomputed (they never delete a reading); also
+    when an earlier run was stopped before its flags were stored.
 
     \b
     Example:
@@ -58,7 +59,7 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
     try:
         results = ingest_files(con, site, paths, progress=lambda r: click.echo(format_result(r)))
         click.echo(format_totals(results))
-        if any(r.status == "loaded" for r in results):
+        if any(r.status == "loaded" for r in results) or quality.stale(con):
             counts = quality.run(con, site)
             click.echo("quality flags: " + ", ".join(f"{k} {v}" for k, v in counts.items()))
     finally:

@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 import pandas as pd
 
-from perfcheck import align, db, model, progress
+from perfcheck import align, db, model, progress, quality
 from perfcheck.cli.common import site_argument, utc_span
 from perfcheck.site import Site
 
@@ -47,6 +47,8 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
     """
     con = db.connect(db_path)
     try:
+        if quality.stale(con):  # an ingest stopped before its flags were stored
+            quality.run(con, site)
         with progress.bar("model", None, quiet) as bar:
             res = model.run(con, site, progress=bar.step)
         if res["computed_from"] is None:
