@@ -15,3 +15,7 @@ class LoggerFileError(PerfcheckError):
 
 class DataError(PerfcheckError):
     """The database does not hold what a stage needs (e.g. no readings yet)."""
+
+
+class DatabaseBusy(DataError):
+    """Another process holds the site database (DuckDB's file lock) for longer than we wait."""

@@ -7,7 +7,8 @@ run in ``runs``, and compares the month with the previous ones.
 
 Exit codes (``EXIT_*``): 0 healthy; 1 underperformance (EPI below 1 - threshold, or too little
 data for a verdict); 3 a critical event (default: any outage); 2 input or configuration error;
-4 another run holds the lock for longer than the wait.
+4 another run holds the lock, or another process the database, for longer than the wait
+(``[report] lock_wait_s``).
 """
 
 from __future__ import annotations
@@ -30,7 +31,7 @@ import duckdb
 import pandas as pd
 
 from perfcheck import __version__, db, periods, pipeline, report
-from perfcheck.errors import PerfcheckError, SiteFileError
+from perfcheck.errors import DatabaseBusy, PerfcheckError, SiteFileError
 from perfcheck.site import Site
 
 EXIT_HEALTHY, EXIT_UNDERPERFORMANCE, EXIT_INPUT, EXIT_CRITICAL, EXIT_BUSY = 0, 1, 2, 3, 4
@@ -162,7 +163,10 @@ def run_monthly(site: Site, db_path: Path, month: str | None = None, out_root: P
     month = month or periods.last_complete_month(site, now)
     start, end = periods.month_period(site, month)
     with lock(Path(db_path).with_suffix(".monthly.lock"), settings.lock_wait_s):
-        con = db.connect(db_path)
+        try:  # another command (an ingest, a report) may hold the database itself
+            con = db.connect(db_path, wait_s=settings.lock_wait_s)
+        except DatabaseBusy as exc:
+            raise LockBusy(str(exc)) from None
         try:
             return _run_locked(con, site, month, start, end, out_root, settings, command, quiet)
         finally:
