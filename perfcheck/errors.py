@@ -19,3 +19,7 @@ class DataError(PerfcheckError):
 
 class DatabaseBusy(DataError):
     """Another process holds the site database (DuckDB's file lock) for longer than we wait."""
+
+
+class OutputError(PerfcheckError):
+    """An output (report folder, bundle, JSON file) cannot be written; nothing partial is left."""

@@ -30,7 +30,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, db, report, versions
+from perfcheck import __version__, atomic, db, report, versions
 from perfcheck.errors import DataError, PerfcheckError
 from perfcheck.site import Site, load_site
 
@@ -254,14 +254,12 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
     manifest = manifest_for(members)
     manifest_bytes = report.dump_json(manifest).encode()
     manifest_sha = hashlib.sha256(manifest_bytes).hexdigest()
-    out_zip.parent.mkdir(parents=True, exist_ok=True)
-    tmp_zip = out_zip.with_name(out_zip.name + ".part")
-    with zipfile.ZipFile(tmp_zip, "w", zipfile.ZIP_DEFLATED) as z:
+    with atomic.replacing_file(out_zip) as tmp_zip, \
+            zipfile.ZipFile(tmp_zip, "w", zipfile.ZIP_DEFLATED) as z:
         for name in [MANIFEST, *sorted(members)]:
             info = zipfile.ZipInfo(name, date_time=_FIXED_TIME)
             info.compress_type = zipfile.ZIP_DEFLATED
             z.writestr(info, manifest_bytes if name == MANIFEST else members[name])
-    tmp_zip.replace(out_zip)
     return {"path": out_zip, "manifest_sha256": manifest_sha, "files": len(members) + 1}
 
 

@@ -20,7 +20,6 @@ import glob
 import hashlib
 import logging
 import os
-import shutil
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -30,7 +29,7 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 
-from perfcheck import __version__, db, periods, pipeline, report
+from perfcheck import __version__, atomic, db, periods, pipeline, report
 from perfcheck.errors import DatabaseBusy, PerfcheckError, SiteFileError
 from perfcheck.site import Site
 
@@ -146,12 +145,8 @@ def trend(con: duckdb.DuckDBPyConnection, site: Site, month: str, epi: float | N
 def _write_month(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
                  end: pd.Timestamp, result: dict, target: Path) -> None:
     """Write the month's outputs into a fresh folder, then swap it in for ``target``."""
-    tmp = target.with_name(f".{target.name}.partial")
-    shutil.rmtree(tmp, ignore_errors=True)
-    report.write_report(con, site, start, end, tmp, result=result)
-    if target.exists():
-        shutil.rmtree(target)
-    tmp.rename(target)
+    with atomic.replacing_dir(target, replace=True) as tmp:
+        report.write_report(con, site, start, end, tmp, result=result)
 
 
 def run_monthly(site: Site, db_path: Path, month: str | None = None, out_root: Path | None = None,

@@ -358,3 +358,32 @@ def test_member_larger_than_declared_is_not_read_past_its_size(tmp_path):
     r = _verify_cli(bomb)
     assert r.exit_code == 2
     assert r.stderr.startswith(f"perfcheck: error: {bomb}: not a readable zip file (")
+
+
+def test_bundle_write_failure_leaves_no_partial_zip(tmp_path, monkeypatch):
+    # a full disk while the zip is written: one line (OutputError), no claim.zip, no .part
+    site = write_site(tmp_path)
+    raw = tmp_path / "box_2025-06.csv"
+    raw.write_text(RAW)
+    con = db.connect(tmp_path / "site.duckdb")
+    add_file(con, str(raw), hashlib.sha256(raw.read_bytes()).hexdigest(), raw.stat().st_size)
+    start, end = periods.month_period(site, "2025-06")
+    out = tmp_path / "out"
+    calls = []
+
+    def full_disk(self, info, data, *a, **k):
+        calls.append(info)
+        if len(calls) > 3:
+            raise OSError(28, "No space left on device")
+        return writestr(self, info, data, *a, **k)
+
+    writestr = zipfile.ZipFile.writestr
+    monkeypatch.setattr(align, "load_aligned", lambda *a, **k: example_aligned())
+    monkeypatch.setattr(zipfile.ZipFile, "writestr", full_disk)
+    with pytest.raises(PerfcheckError) as err:
+        evidence.build_bundle(con, site, start, end, out / "claim.zip", "perfcheck evidence",
+                              result=checked(site, example_check()))
+    con.close()
+    assert str(err.value) == (f"{out / 'claim.zip'}: cannot write (No space left on device); "
+                              "nothing was written")
+    assert list(out.iterdir()) == []

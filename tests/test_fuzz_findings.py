@@ -7,11 +7,17 @@ non-finite or out of range is stored, and the later stages run.
 
 from __future__ import annotations
 
+import errno
+
 import pandas as pd
+import pytest
+from click.testing import CliRunner
 from logger_files import run_ingest, write_case
 from model_fixtures import clear_days, make_site, open_db, store
 
-from perfcheck import db, model, quality
+from perfcheck import atomic, db, model, quality, report
+from perfcheck.cli import main
+from perfcheck.errors import OutputError
 from perfcheck.ingest import ingest_files
 from perfcheck.site import load_site
 
@@ -141,3 +147,61 @@ def test_flags_of_an_ingest_stopped_before_quality_are_recomputed(tmp_path):
     con = db.connect(tmp_path / "site.duckdb")
     assert not quality.stale(con)
     assert con.execute("SELECT flag FROM flags").fetchall() == [("power_without_irradiance",)]
+
+
+# --------------------------------------------------------------------------------------------
+# write failures: one line, exit 2, no partial output
+
+
+def _disk_full(*args, **kwargs):
+    raise OSError(errno.ENOSPC, "No space left on device")
+
+
+def test_replacing_file_leaves_nothing_on_failure(tmp_path):
+    target = tmp_path / "out" / "claim.zip"
+    with pytest.raises(OutputError) as err, atomic.replacing_file(target) as tmp:
+        tmp.write_bytes(b"half")
+        _disk_full()
+    assert str(err.value) == (f"{target}: cannot write (No space left on device); "
+                              "nothing was written")
+    assert list((tmp_path / "out").iterdir()) == []
+    target.write_bytes(b"earlier")  # an earlier output stays as it was
+    with pytest.raises(OutputError), atomic.replacing_file(target) as tmp:
+        tmp.write_bytes(b"half")
+        _disk_full()
+    assert [p.name for p in (tmp_path / "out").iterdir()] == ["claim.zip"]
+    assert target.read_bytes() == b"earlier"
+
+
+def test_replacing_dir_keeps_other_files_or_replaces_all(tmp_path):
+    target = tmp_path / "report"
+    target.mkdir()
+    (target / "notes.txt").write_text("mine")
+    with atomic.replacing_dir(target) as tmp:
+        (tmp / "report.html").write_text("new")
+    assert sorted(p.name for p in target.iterdir()) == ["notes.txt", "report.html"]
+    with pytest.raises(OutputError), atomic.replacing_dir(target, replace=True) as tmp:
+        (tmp / "report.html").write_text("newer")
+        _disk_full()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report"]  # no .partial, no .old
+    assert (target / "report.html").read_text() == "new"
+    with atomic.replacing_dir(target, replace=True) as tmp:
+        (tmp / "report.html").write_text("newer")
+    assert [p.name for p in target.iterdir()] == ["report.html"]
+
+
+def test_report_write_failure_is_one_line_and_leaves_no_folder(tmp_path, monkeypatch):
+    site_path, _ = write_case(tmp_path, "ts,P,G\n")
+
+    def half_written(con, site, start, end, out_dir, result=None):
+        (out_dir / "report.html").write_text("<html>")
+        _disk_full()
+
+    monkeypatch.setattr(report, "write_report", half_written)
+    out = tmp_path / "reports" / "2024-06"
+    r = CliRunner().invoke(main, ["report", str(site_path), "--month", "2024-06",
+                                  "--out", str(out)])
+    assert r.exit_code == 2
+    assert r.stderr == (f"perfcheck: error: {out}: cannot write (No space left on device); "
+                        "nothing was written\n")
+    assert list((tmp_path / "reports").iterdir()) == []
