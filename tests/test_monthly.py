@@ -236,3 +236,20 @@ def test_database_held_by_another_process_waits_then_exit_4(job):
     assert r.stderr == (f"perfcheck: error: {tmp / 'site.duckdb'}: another process holds the "
                         "database; gave up after 0.5 s\n")
     assert run(tmp, "--month", "2025-06").exit_code == 0  # free again once released
+
+
+def test_unreadable_inbox_files_are_logged_and_skipped(job):
+    # issue 10: one half-written or foreign file in the inbox blocked every month
+    tmp, state = job
+    write_site(tmp, "")
+    (tmp / "inbox" / "box_2025-05.csv").write_bytes(b"")  # empty: a copy still starting
+    (tmp / "inbox" / "box_other.csv").write_text("x;y\n1;2\n")  # no 'time' column
+    r = run(tmp, "--month", "2025-06", "--verbose")
+    assert r.exit_code == 0, r.output
+    assert state["ingested"] == ["box_2025-06.csv"]
+    log = (tmp / "reports" / "perfcheck-monthly.log").read_text()
+    assert f"{tmp / 'inbox' / 'box_2025-05.csv'}: empty file (0 bytes, no lines); skipped, " \
+           "left in the inbox" in log
+    assert f"{tmp / 'inbox' / 'box_other.csv'}: line 1: no column 'time'" in log
+    assert "notes.csv: no [[loggers]] entry matches this file name; left in the inbox" in log
+    assert "1 new file(s) ingested, 2 skipped (unreadable, see the log)" in r.output
