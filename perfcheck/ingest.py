@@ -309,13 +309,18 @@ def _channel_ids(con: duckdb.DuckDBPyConnection, lg: Logger) -> list[int]:
 
 
 def _logger_table(con: duckdb.DuckDBPyConnection, lg: Logger, channels: list[int]) -> int:
-    """The id of the logger's wide table, created or widened for ``channels``; when that adds
-    a channel, the view channel_values is rebuilt over all logger tables."""
+    """The id of the logger's wide table, created or widened for ``channels``, with its
+    interval stored; when that adds a channel, the view channel_values is rebuilt over all
+    logger tables."""
     row = _one(con, "SELECT logger_id FROM loggers WHERE name = ?", [lg.name])
     if row is None:
-        row = _one(con, "INSERT INTO loggers SELECT coalesce(max(logger_id), 0) + 1, ? "
-                        "FROM loggers RETURNING logger_id", [lg.name])
+        row = _one(con, "INSERT INTO loggers (logger_id, name, interval_min) "
+                        "SELECT coalesce(max(logger_id), 0) + 1, ?, ? FROM loggers "
+                        "RETURNING logger_id", [lg.name, lg.interval_min])
     logger_id = int(row[0])
+    con.execute("UPDATE loggers SET interval_min = ? WHERE logger_id = ? "
+                "AND interval_min IS DISTINCT FROM ?", [lg.interval_min, logger_id,
+                                                         lg.interval_min])
     known = {int(r[0]) for r in con.execute(
         "SELECT channel_id FROM logger_channels WHERE logger_id = ?", [logger_id]).fetchall()}
     new = [ch for ch in channels if ch not in known]
@@ -546,6 +551,9 @@ def ingest_files(
     with each file's result as soon as it is committed.
     """
     _check_loggers(con, site)
+    for lg in site.loggers:  # a database written before intervals were stored
+        con.execute("UPDATE loggers SET interval_min = ? WHERE name = ? AND interval_min IS NULL",
+                    [lg.interval_min, lg.name])
     checked = [check_file(site, p) for p in paths]
     results = []
     for chk in checked:
@@ -560,29 +568,30 @@ def ingest_files(
 # summaries
 
 
+def channel_intervals(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], int]:
+    """The logging interval [s] of each stored (quantity, device), as stored at ingest (the
+    shortest of the loggers that carry it). Later stages read intervals here, never from the
+    site file."""
+    rows = con.execute("SELECT quantity, device, interval_min FROM channel_intervals").fetchall()
+    return {(q, d): int(m) * 60 for q, d, m in rows}
+
+
 def coverage_summary(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
     """Data coverage per channel and site-local month.
 
     Columns: ``month`` (YYYY-MM in the site's zone), ``quantity``, ``device``, ``expected``
     (intervals between the channel's first and last reading within the month, at the shortest
-    interval of the loggers that carry it), ``present`` (intervals with a value), ``share``
-    (present / expected) and ``quarantined`` (quarantined lines of those loggers' files, by the
-    month of the line's instant).
+    stored interval of the loggers that carry it), ``present`` (intervals with a value),
+    ``share`` (present / expected) and ``quarantined`` (quarantined lines of those loggers'
+    files, by the month of the line's instant).
     """
-    frame = pd.DataFrame(
-        [(lg.name, c.stored, c.device, lg.interval_min) for lg in site.loggers for c in lg.columns],
-        columns=["logger", "quantity", "device", "interval_min"],
-    )
-    con.register("_coverage_channels", frame)
-    try:
-        return con.execute(db.sql("ingest_coverage"), {"tz": site.timezone}).df()
-    finally:
-        con.unregister("_coverage_channels")
+    return con.execute(db.sql("ingest_coverage"), {"tz": site.timezone}).df()
 
 
 __all__ = [
     "FileResult",
     "UNIT_TO_SI",
+    "channel_intervals",
     "check_file",
     "coverage_summary",
     "expand_paths",

@@ -14,7 +14,13 @@ from logger_files import logger_toml, run_ingest, write_case
 from numpy.testing import assert_allclose
 
 from perfcheck import db
-from perfcheck.ingest import coverage_summary, expand_paths, ingest_files, logger_files
+from perfcheck.ingest import (
+    channel_intervals,
+    coverage_summary,
+    expand_paths,
+    ingest_files,
+    logger_files,
+)
 from perfcheck.site import load_site
 
 UTC = dt.UTC
@@ -536,3 +542,17 @@ def test_dst_autumn_with_interval_end_labels(tmp_path):
                              freq="15min")
     assert list(series(con, "ac_power_w").index) == list(expected)
     assert expected[7] + pd.Timedelta(minutes=15) == change  # the one ending at 01:00 UTC
+
+
+def test_each_loggers_interval_is_stored_and_read_back(tmp_path):
+    # issue 9: later stages read the interval stored at ingest, not the site file again
+    con, site, _ = ingest(tmp_path, "ts,P,G\n2024-06-01 10:00,1,100\n2024-06-01 10:05,1,100\n")
+    assert con.execute("SELECT name, interval_min FROM loggers").fetchall() == [("main", 5)]
+    assert channel_intervals(con) == {("ac_power_w", "INV1"): 300, ("poa_wm2", "site"): 300}
+    # a second logger carrying the same channel at 1 minute: the shortest interval wins
+    other = tmp_path / "fast.dat"
+    other.write_text("ts,P\n2024-06-01 11:00,1\n")
+    (tmp_path / "site.toml").write_text((tmp_path / "site.toml").read_text() + "\n" + logger_toml(
+        name="fast", match="*.dat", interval_min=1, columns=(("P", "ac_power", "kW", "INV1"),)))
+    ingest_files(con, load_site(tmp_path / "site.toml"), [other])
+    assert channel_intervals(con) == {("ac_power_w", "INV1"): 60, ("poa_wm2", "site"): 300}
