@@ -223,16 +223,32 @@ def _column_positions(path: Path, lg: Logger, header: list[str], line: int) -> d
     return positions
 
 
+def _written_unit(text: str) -> str:
+    """A unit as a units row writes it, in the site file's spelling: brackets and spaces
+    dropped, ``²``/``^2`` as ``2``, ``°C``/``degC`` as ``C``."""
+    unit = text.strip().strip("[](){}").replace(" ", "").replace("°", "")
+    unit = unit.replace("²", "2").replace("^2", "2")
+    return "C" if unit.lower() == "degc" else unit
+
+
 def _check_units_row(path: Path, lg: Logger, units: str | None, positions: dict[str, int],
                      line: int) -> None:
-    """A units row must not hold numbers where values are mapped: that is a data row, and
-    reading it as units would lose it."""
+    """The units row against the site file: it must not hold numbers where values are mapped
+    (that is a data row, and reading it as units would lose it), and a unit it gives for a
+    mapped column must be the one [[loggers]] declares (letter case aside: ``KW`` is kW)."""
     fields = _split_fields(path, line, units or "", lg.delimiter)
     for col in lg.columns:
         text = fields[positions[col.name] - 1].strip() if len(fields) >= positions[col.name] else ""
         try:
             float(text.replace(",", "."))
         except ValueError:
+            written = _written_unit(text)
+            if written and written.lower() != col.unit.lower():
+                raise LoggerFileError(
+                    f"{path}: line {line}: column {col.name!r} is in {text!r} by the units row "
+                    f"but in {col.unit!r} by [[loggers]] {lg.name!r}; correct the unit in the "
+                    "site file (or, for one file, add a [[loggers]] entry whose match names it)"
+                ) from None
             continue
         raise LoggerFileError(
             f"{path}: line {line}: expected the units row (units_row = true in [[loggers]] "

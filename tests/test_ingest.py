@@ -556,3 +556,24 @@ def test_each_loggers_interval_is_stored_and_read_back(tmp_path):
         name="fast", match="*.dat", interval_min=1, columns=(("P", "ac_power", "kW", "INV1"),)))
     ingest_files(con, load_site(tmp_path / "site.toml"), [other])
     assert channel_intervals(con) == {("ac_power_w", "INV1"): 60, ("poa_wm2", "site"): 300}
+
+
+@pytest.mark.parametrize("units", ['"";"[KW]";"W/m²"', '"";"kW";"W/m^2"', ';;'])
+def test_units_row_agrees_with_the_site_file(tmp_path, units):
+    # spellings of the same unit, and a units row that leaves a column blank
+    body = f'"ts";"P";"G"\n{units}\n"2024-06-01 10:00";"1,5";"500"\n'
+    _, _, (res,) = ingest(tmp_path, body, delimiter=";", decimal=",", units_row=True)
+    assert res.rows_loaded == 1
+
+
+def test_units_row_that_disagrees_refuses_the_file(tmp_path):
+    # issue 10: AC power written in kW under a site file saying W became a false outage
+    site, log = write_case(tmp_path, "ts,P,G\n,kW,W/m2\n2024-06-01 10:00,48.857,500\n",
+                           units_row=True,
+                           columns=(("P", "ac_power", "W", "INV1"), ("G", "poa", "W/m2", None)))
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == (
+        f"perfcheck: error: {log}: line 2: column 'P' is in 'kW' by the units row but in 'W' "
+        "by [[loggers]] 'main'; correct the unit in the site file (or, for one file, add a "
+        "[[loggers]] entry whose match names it)\n")

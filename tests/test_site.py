@@ -118,3 +118,32 @@ def test_deeply_nested_array_gives_one_line(tmp_path):
     assert result.exit_code == 2
     assert result.stderr == (f"perfcheck: error: {site}: not a usable site file: arrays or "
                              "tables nested too deep for the TOML reader\n")
+
+
+def test_most_specific_logger_match_wins(tmp_path):
+    # issue 10: a quarterly file that wrote kW where the others write W needs its own entry
+    general = logger_toml(name="all", match="*.csv",
+                          columns=(("P", "ac_power", "W", "INV1"), ("G", "poa", "W/m2", None)))
+    special = logger_toml(name="q3_in_kw", match="log_2024-q3.csv")
+    site, log = write_case(tmp_path, "ts,P,G\n2024-07-01 10:00,1.5,100\n",
+                           filename="log_2024-q3.csv", loggers=general + special)
+    loaded = load_site(site)
+    assert loaded.logger_for(str(log)).name == "q3_in_kw"
+    assert loaded.logger_for("log_2024-q2.csv").name == "all"
+    assert run_ingest(site, log).exit_code == 0
+    con = db.connect(tmp_path / "site.duckdb")
+    # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019)
+    assert con.execute("SELECT value FROM readings WHERE quantity = 'ac_power_w'").fetchall() \
+        == [(1500.0,)]
+    con.close()
+
+
+def test_two_equally_specific_matches_are_an_error(tmp_path):
+    loggers = logger_toml(name="first", match="log*.csv") + logger_toml(name="second",
+                                                                        match="*log.csv")
+    site, log = write_case(tmp_path, GOOD, loggers=loggers)
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == (f"perfcheck: error: {log}: [[loggers]] 'first' (match 'log*.csv') "
+                             "and 'second' (match '*log.csv') match this file name equally "
+                             "well; make one match more specific\n")
