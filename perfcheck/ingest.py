@@ -592,6 +592,13 @@ def channel_intervals(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], i
     return {(q, d): int(m) * 60 for q, d, m in rows}
 
 
+def quarantined(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
+    """Every quarantined line: ``file`` (as given when ingested), ``line``, ``ts`` (its instant,
+    or that of the nearest readable line before it), ``reason``, ``reason_kind`` (the reason
+    with its quoted values left out, for counts) and ``raw`` (the line as written)."""
+    return con.execute(db.sql("ingest_quarantine")).df()
+
+
 def coverage_summary(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
     """Data coverage per channel and site-local month.
 
@@ -613,4 +620,5 @@ __all__ = [
     "expand_paths",
     "ingest_files",
     "logger_files",
+    "quarantined",
 ]

@@ -577,3 +577,33 @@ def test_units_row_that_disagrees_refuses_the_file(tmp_path):
         f"perfcheck: error: {log}: line 2: column 'P' is in 'kW' by the units row but in 'W' "
         "by [[loggers]] 'main'; correct the unit in the site file (or, for one file, add a "
         "[[loggers]] entry whose match names it)\n")
+
+
+def test_quarantine_command_lists_lines_and_counts(tmp_path):
+    # issue 10 item 7: the quarantined lines of MIXED (above), with their reasons, made visible
+    from click.testing import CliRunner
+
+    from perfcheck.cli import main
+
+    site, log = write_case(tmp_path, MIXED + "2024-06-01 10:25,y,600\n")
+    assert run_ingest(site, log).exit_code == 0
+    out_csv = tmp_path / "q.csv"
+    r = CliRunner().invoke(main, ["quarantine", str(site), "--limit", "2", "--csv",
+                                  str(out_csv)])
+    assert r.exit_code == 0, r.output
+    assert r.output.splitlines() == [
+        f"{log}:3: column P: 'x' is not a number",
+        "    2024-06-01 10:05,x,100",
+        f"{log}:7: same time as line 5 with different values (see table conflicts)",
+        "    2024-06-01 10:10,3,200",
+        "... 3 more line(s) not shown (--limit)",
+        "counts by reason:",
+        "        2  column P: '...' is not a number",
+        "        1  same time as line 5 with different values (see table conflicts)",
+        "        1  2 fields where the header has 3",
+        "        1  time '...' does not match the format '...'",
+        "total: 5 quarantined line(s) in 1 file(s)",
+    ]
+    listed = pd.read_csv(out_csv)
+    assert list(listed.columns) == ["file", "line", "ts", "reason", "raw"]
+    assert list(listed["line"]) == [3, 7, 8, 9, 11]

@@ -5,8 +5,9 @@ from __future__ import annotations
 from pathlib import Path
 
 import click
+import pandas as pd
 
-from perfcheck import db, quality
+from perfcheck import atomic, db, ingest, quality
 from perfcheck.cli.common import site_argument, utc_span
 from perfcheck.ingest import FileResult, expand_paths, ingest_files
 from perfcheck.site import Site
@@ -66,4 +67,49 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
         con.close()
 
 
-COMMANDS = [ingest_command]
+def format_quarantine(rows: pd.DataFrame, limit: int | None) -> str:
+    """The quarantined lines (file:line: reason, then the raw text indented), at most
+    ``limit`` of them, then the counts by kind of reason."""
+    out = []
+    for r in rows.head(limit).itertuples():
+        out += [f"{r.file}:{r.line}: {r.reason}", f"    {r.raw}"]
+    if limit is not None and len(rows) > limit:
+        out.append(f"... {len(rows) - limit} more line(s) not shown (--limit)")
+    counts = rows.groupby("reason_kind", sort=False).size().sort_values(ascending=False,
+                                                                        kind="stable")
+    out.append("counts by reason:")
+    out += [f"  {n:>7}  {kind}" for kind, n in counts.items()]
+    out.append(f"total: {len(rows)} quarantined line(s) in {rows['file'].nunique()} file(s)")
+    return "\n".join(out)
+
+
+@click.command("quarantine")
+@site_argument
+@click.option("--limit", type=click.IntRange(min=0), default=None,
+              help="Show at most this many lines (the counts cover all).")
+@click.option("--csv", "csv_path", type=click.Path(dir_okay=False, path_type=Path),
+              default=None, help="Also write every quarantined line to this CSV file.")
+def quarantine_command(site: Site, db_path: Path, limit: int | None,
+                       csv_path: Path | None) -> None:
+    """List the quarantined lines of the ingested logger files: file, line number, reason
+    and the raw text, then the counts by kind of reason.
+
+    \b
+    Example:
+      perfcheck quarantine site.toml --limit 20 --csv quarantine.csv
+    """
+    con = db.connect(db_path, read_only=True)
+    try:
+        rows = ingest.quarantined(con)
+    finally:
+        con.close()
+    if rows.empty:
+        click.echo("no quarantined lines")
+        return
+    if csv_path is not None:
+        with atomic.replacing_file(csv_path) as tmp:
+            rows.drop(columns="reason_kind").to_csv(tmp, index=False)
+    click.echo(format_quarantine(rows, limit))
+
+
+COMMANDS = [ingest_command, quarantine_command]
