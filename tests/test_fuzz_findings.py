@@ -8,10 +8,15 @@ non-finite or out of range is stored, and the later stages run.
 from __future__ import annotations
 
 import errno
+import os
+import tempfile
+from pathlib import Path
 
 import pandas as pd
 import pytest
 from click.testing import CliRunner
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 from logger_files import run_ingest, write_case
 from model_fixtures import clear_days, make_site, open_db, store
 
@@ -205,3 +210,60 @@ def test_report_write_failure_is_one_line_and_leaves_no_folder(tmp_path, monkeyp
     assert r.stderr == (f"perfcheck: error: {out}: cannot write (No space left on device); "
                         "nothing was written\n")
     assert list((tmp_path / "reports").iterdir()) == []
+
+
+# --------------------------------------------------------------------------------------------
+# property: whatever the lines hold, every line lands in one place and nothing stored is bad
+
+GARBAGE = ("inf", "-Infinity", "1e309", "nan", "", "x", '"1', "1,2", "9" * 400)
+EXAMPLES = int(os.environ.get("PERFCHECK_FUZZ_EXAMPLES", "15"))  # raise it for a long run
+
+
+@st.composite
+def logger_lines(draw):
+    """(lines, expected): data lines of a 5-minute file, good ones with their (P kW, G W/m2)
+    and bad ones (a garbage field, a bad or out-of-range time, a line cut short), invented."""
+    n = draw(st.integers(1, 12))
+    lines, good = [], {}
+    for i in range(n):
+        ts = f"2024-06-01 {10 + i // 12:02d}:{5 * (i % 12):02d}"
+        p = draw(st.floats(0, 10, allow_nan=False).map(lambda v: round(v, 3)))
+        g = draw(st.integers(0, 1200))
+        kind = draw(st.sampled_from(["good", "good", "field", "time", "cut"]))
+        if kind == "good":
+            lines.append(f"{ts},{p},{g}")
+            good[i + 2] = (p * 1e3, float(g))  # line number: the header is line 1
+        elif kind == "field":
+            lines.append(f"{ts},{draw(st.sampled_from(GARBAGE))},{g}")
+        elif kind == "time":
+            lines.append(f"{draw(st.sampled_from(['24-06-01 10:00', '2300-01-01 00:00']))},1,1")
+        else:
+            lines.append(f"{ts},{p}")
+    return lines, good, draw(st.booleans())
+
+
+@settings(max_examples=EXAMPLES, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(case=logger_lines())
+def test_any_lines_balance_and_store_only_good_values(tmp_path_factory, case):
+    lines, good, final_newline = case
+    body = "ts,P,G\n" + "\n".join(lines) + ("\n" if final_newline else "")
+    with tempfile.TemporaryDirectory(dir=tmp_path_factory.getbasetemp()) as tmp:
+        site_path, log = write_case(Path(tmp), body)
+        con = db.connect(Path(tmp) / "site.duckdb")
+        try:
+            (res,) = ingest_files(con, load_site(site_path), [log])
+            assert res.rows_read == len(lines)
+            assert res.rows_read == res.rows_loaded + res.rows_duplicate + res.rows_quarantined
+            stored = con.execute("SELECT line, quantity, value, ts FROM readings").fetchall()
+        finally:
+            con.close()
+    by_line: dict[int, dict[str, float]] = {}
+    for line, quantity, value, _ts in stored:
+        by_line.setdefault(line, {})[quantity] = value
+    # each good line stored as written (kW to W), and nothing else stored: a 'nan' field
+    # (missing) is the one bad field that leaves the rest of its line loaded
+    assert {k: v for k, v in by_line.items() if k in good} == {
+        k: {"ac_power_w": p, "poa_wm2": g} for k, (p, g) in good.items()}
+    for line, values in by_line.items():
+        assert line in good or set(values) == {"poa_wm2"}, (line, values)
