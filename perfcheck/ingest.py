@@ -38,9 +38,11 @@ time in the skipped spring hour is quarantined ("does not exist"), never shifted
 
 Parsing is done by DuckDB over the file's lines (split, quote handling, typing, time zones,
 comparison with stored values), so there is no Python loop over data rows; Python checks only
-what must hold for the whole file before any of it is read: it exists, is UTF-8, is not empty,
-has the mapped columns in a header it can split. A line cut short anywhere, the last line
-included (a file still being written), is quarantined with its reason. Each file is stored
+what must hold for the whole file before any of it is read: it exists, is not empty, has a
+UTF-8 header it can split with the mapped columns in it, and a units row that agrees with the
+site file. A line cut short anywhere, the last line included (a file still being written), or
+holding bytes that are not UTF-8 (DuckDB then reads a UTF-8 copy) is quarantined with its
+reason. Each file is stored
 in one transaction: an error or a kill mid-file leaves the database as it was before that file.
 """
 
@@ -52,7 +54,9 @@ import fnmatch
 import glob
 import hashlib
 import re
-from collections.abc import Callable, Iterable
+import tempfile
+from collections.abc import Callable, Iterable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -114,6 +118,7 @@ class _Checked:
     header_end: int  # last line number that is not data (preamble, header, units row)
     crlf: bool  # the file holds CRLF line ends
     open_line: int  # number of a last line without a line end (0: the file ends in one)
+    not_utf8: dict[int, str]  # data lines holding bytes that are not UTF-8, with the reason
 
 
 def expand_paths(patterns: Iterable[str | Path]) -> list[Path]:
@@ -158,18 +163,29 @@ def _read_bytes(path: Path) -> bytes:
         raise LoggerFileError(f"{path}: cannot read file ({exc.strerror})") from None
 
 
-def _check_utf8(path: Path, data: bytes) -> None:
+def _not_utf8(path: Path, data: bytes, header_end: int) -> dict[int, str]:
+    """The lines holding bytes that are not UTF-8, each with the reason naming its first such
+    byte. In the preamble, header or units row (up to line ``header_end``) such a byte refuses
+    the file (LoggerFileError); a data line with one is quarantined."""
+    bad: dict[int, str] = {}
     if data.isascii():
-        return
-    try:
-        data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data.count(b"\n", 0, exc.start) + 1
-        col = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
-        raise LoggerFileError(
-            f"{path}: line {line}: byte 0x{data[exc.start]:02x} at column {col} is not UTF-8 "
-            "(save the file as UTF-8)"
-        ) from None
+        return bad
+    start = 0
+    while True:
+        try:
+            data[start:].decode("utf-8")
+            return bad
+        except UnicodeDecodeError as exc:
+            at = start + exc.start
+        line = data.count(b"\n", 0, at) + 1
+        col = at - (data.rfind(b"\n", 0, at) + 1) + 1
+        reason = f"byte 0x{data[at]:02x} at column {col} is not UTF-8"
+        if line <= header_end:
+            raise LoggerFileError(f"{path}: line {line}: {reason} (save the file as UTF-8)")
+        bad[line] = reason
+        start = data.find(b"\n", at) + 1
+        if start == 0:
+            return bad
 
 
 def _split_fields(path: Path, number: int, line: str, delimiter: str) -> list[str]:
@@ -263,8 +279,8 @@ def check_file(site: Site, path: str | Path) -> _Checked:
     data = _read_bytes(path)
     if _NOT_BLANK.search(data) is None:
         raise LoggerFileError(f"{path}: empty file ({len(data)} bytes, no lines)")
-    _check_utf8(path, data)
     header_no = lg.preamble_lines + 1
+    not_utf8 = _not_utf8(path, data, header_no + (1 if lg.units_row else 0))
     header, after = _line_at(data, header_no)
     if header is None:
         raise LoggerFileError(
@@ -292,6 +308,7 @@ def check_file(site: Site, path: str | Path) -> _Checked:
         header_end=header_end,
         crlf=b"\r" in data,  # one byte: a fast scan; a lone CR is harmless
         open_line=0 if data.endswith(b"\n") else data.count(b"\n") + 1,
+        not_utf8=not_utf8,
     )
 
 
@@ -463,12 +480,35 @@ def _quoted_patterns(delimiter: str) -> tuple[str, str]:
 # one file, one transaction
 
 
-def _read_params(site: Site, chk: _Checked) -> dict[str, object]:
-    """The bound parameters of sql/ingest_rows.sql (and its time fragment) for one file."""
+@contextmanager
+def _readable(chk: _Checked) -> Iterator[Path]:
+    """The path DuckDB reads for a checked file: the file itself, or, when data lines hold
+    bytes that are not UTF-8 (they are quarantined), a temporary copy with those bytes replaced
+    by U+FFFD, so that the other lines can be read. The copy is made from the bytes checked
+    (same sha256) and removed afterwards."""
+    if not chk.not_utf8:
+        yield chk.path
+        return
+    data = _read_bytes(chk.path)
+    if hashlib.sha256(data).hexdigest() != chk.sha256:
+        raise LoggerFileError(f"{chk.given}: changed while being ingested; nothing of this file "
+                              "was stored")
+    with tempfile.TemporaryDirectory() as tmp:
+        copy = Path(tmp) / "utf8.csv"
+        copy.write_bytes(data.decode("utf-8", errors="replace").encode("utf-8"))
+        yield copy
+
+
+def _read_params(site: Site, chk: _Checked, path: Path) -> dict[str, object]:
+    """The bound parameters of sql/ingest_rows.sql (and its time fragment) for one file, read
+    from ``path`` (see :func:`_readable`)."""
     lg = chk.logger
     quoted_line, quoted_field = _quoted_patterns(lg.delimiter)
     params: dict[str, object] = {
-        "path": _literal_glob(chk.path),
+        "path": _literal_glob(path),
+        # line 0 is never a data line: it keeps the lists typed when no line is bad
+        "not_utf8_lines": [0, *chk.not_utf8],
+        "not_utf8_reasons": ["", *chk.not_utf8.values()],
         "header_end": chk.header_end,
         "crlf": chk.crlf,
         "delim": lg.delimiter,
@@ -495,7 +535,8 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
         return FileResult(chk.given, int(known[0]), "already ingested", 0, 0, 0, 0, 0, None, None)
     con.execute("BEGIN TRANSACTION")
     try:
-        row = _store_file(con, site, chk)
+        with _readable(chk) as path:
+            row = _store_file(con, site, chk, _read_params(site, chk, path))
         con.execute("COMMIT")
     except BaseException as exc:
         con.execute("ROLLBACK")
@@ -508,13 +549,14 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
                       row[6], row[7])
 
 
-def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> tuple:
-    """Read, compare and store one file inside the caller's transaction; returns its
-    source_files row (file_id, rows_read, loaded, duplicate, quarantined, conflicts,
-    first_ts, last_ts)."""
+def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
+                params: dict[str, object]) -> tuple:
+    """Read (with the parameters of :func:`_read_params`), compare and store one file inside
+    the caller's transaction; returns its source_files row (file_id, rows_read, loaded,
+    duplicate, quarantined, conflicts, first_ts, last_ts)."""
     channels = _channel_ids(con, chk.logger)
     logger_id = _logger_table(con, chk.logger, channels)
-    con.execute(_rows_sql(chk), _read_params(site, chk))
+    con.execute(_rows_sql(chk), params)
     lo, hi = _one(con, "SELECT min(ts), max(ts) FROM _ingest_rows WHERE reason IS NULL")
     unions = _long_sql(channels)
     con.execute(db.sql("ingest_compare").format(unions=unions),
@@ -527,7 +569,6 @@ def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> tu
     missing_raw = _one(con, "SELECT count(*) FROM _ingest_outcome JOIN _ingest_rows USING (line) "
                             "WHERE outcome = 'quarantined' AND raw IS NULL")[0]
     if missing_raw:
-        params = _read_params(site, chk)
         con.execute(db.sql("ingest_raw").format(lines=db.sql("ingest_lines")),
                     {k: params[k] for k in ("path", "header_end", "crlf")})
     file_id = int(_one(con, "SELECT nextval('source_file_id')")[0])

@@ -1,7 +1,8 @@
 -- Split, type and check every data line of one file: one output row per non-empty input line,
 -- with the instant (UTC, interval start), the values in SI units and, for a line that cannot be
--- read, the reason and the raw text. A line cut short (too few fields, a quote not closed),
--- anywhere in the file, is quarantined with its reason and the other lines are loaded.
+-- read, the reason and the raw text. A line cut short (too few fields, a quote not closed) or
+-- holding bytes that are not UTF-8, anywhere in the file, is quarantined with its reason and
+-- the other lines are loaded.
 -- Placeholders in braces are filled by perfcheck.ingest with sql/ingest_lines.sql and with
 -- expressions built from field positions and fixed unit factors only; everything from the
 -- user's files (delimiter, sentinels, formats, column names, time zone) arrives as a bound
@@ -25,7 +26,9 @@ split AS (
 ),
 fields AS (
     SELECT line, raw,
-           CASE WHEN line = $open_line AND f IS NULL
+           CASE WHEN list_contains($not_utf8_lines, line)
+                THEN $not_utf8_reasons[list_position($not_utf8_lines, line)]
+                WHEN line = $open_line AND f IS NULL
                 THEN 'truncated last line (a quoted field is not closed, no line end)'
                 WHEN line = $open_line AND len(f) < $n_fields
                 THEN 'truncated last line (' || len(f) || ' of ' || $n_fields

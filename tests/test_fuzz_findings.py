@@ -267,3 +267,14 @@ def test_any_lines_balance_and_store_only_good_values(tmp_path_factory, case):
         k: {"ac_power_w": p, "poa_wm2": g} for k, (p, g) in good.items()}
     for line, values in by_line.items():
         assert line in good or set(values) == {"poa_wm2"}, (line, values)
+
+
+def test_data_line_with_bytes_that_are_not_utf8_is_quarantined(tmp_path):
+    # a corrupt line (one byte from another encoding, or noise) in the middle of a file
+    body = "ts,P,G\n2024-06-01 10:00,1,100\n2024-06-01 10:05,1,\xb0\n2024-06-01 10:10,2,200\n"
+    con, _, res = _ingest(tmp_path, body.encode("latin-1"))
+    assert (res.rows_read, res.rows_loaded, res.rows_quarantined) == (3, 2, 1)
+    assert con.execute("SELECT line, reason, raw FROM quarantine").fetchall() == [
+        (3, "byte 0xb0 at column 20 is not UTF-8", "2024-06-01 10:05,1,\ufffd")]
+    assert sorted(r[0] for r in con.execute("SELECT line FROM readings").fetchall()) == [
+        2, 2, 4, 4]
