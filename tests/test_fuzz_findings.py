@@ -1,8 +1,11 @@
-"""Reproducers of the fuzz findings of issue 10 (ingest, quality, model), one test each.
+"""Reproducers of the fuzz findings of issue 10 (ingest, quality, model, output writing), one
+test each; those of the site file, verify and the monthly lock live in test_site.py,
+test_evidence.py and test_monthly.py.
 
 Every input here is an invented logger file; the truth each test states is the behaviour the
 issue asks for: a bad line is quarantined with its reason and the rest loaded, nothing
-non-finite or out of range is stored, and the later stages run.
+non-finite or out of range is stored, the later stages run, and a failed write leaves nothing
+partial.
 """
 
 from __future__ import annotations
@@ -15,7 +18,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 from click.testing import CliRunner
-from hypothesis import HealthCheck, given, settings
+from hypothesis import given, settings
 from hypothesis import strategies as st
 from logger_files import run_ingest, write_case
 from model_fixtures import clear_days, make_site, open_db, store
@@ -242,8 +245,7 @@ def logger_lines(draw):
     return lines, good, draw(st.booleans())
 
 
-@settings(max_examples=EXAMPLES, deadline=None,
-          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=EXAMPLES, deadline=None)
 @given(case=logger_lines())
 def test_any_lines_balance_and_store_only_good_values(tmp_path_factory, case):
     lines, good, final_newline = case
