@@ -68,6 +68,7 @@ from perfcheck.errors import LoggerFileError, SiteFileError
 from perfcheck.site import Column, Logger, Site
 
 _NOT_BLANK = re.compile(rb"[^\s\xef\xbb\xbf]")
+_ESCAPED = re.compile("[\udc80-\udcff]")  # bytes that are not UTF-8, decoded surrogateescape
 
 # Factor and offset to SI for every unit the site file accepts: si = value * factor + offset.
 UNIT_TO_SI: dict[str, tuple[float, float]] = {
@@ -166,26 +167,27 @@ def _read_bytes(path: Path) -> bytes:
 def _not_utf8(path: Path, data: bytes, header_end: int) -> dict[int, str]:
     """The lines holding bytes that are not UTF-8, each with the reason naming its first such
     byte. In the preamble, header or units row (up to line ``header_end``) such a byte refuses
-    the file (LoggerFileError); a data line with one is quarantined."""
+    the file (LoggerFileError); a data line with one is quarantined. One pass: the bad bytes
+    are decoded as lone surrogates (U+DC80-U+DCFF) and looked for."""
     bad: dict[int, str] = {}
     if data.isascii():
         return bad
-    start = 0
-    while True:
-        try:
-            data[start:].decode("utf-8")
-            return bad
-        except UnicodeDecodeError as exc:
-            at = start + exc.start
-        line = data.count(b"\n", 0, at) + 1
-        col = at - (data.rfind(b"\n", 0, at) + 1) + 1
-        reason = f"byte 0x{data[at]:02x} at column {col} is not UTF-8"
+    text = data.decode("utf-8", errors="surrogateescape")
+    line, counted = 1, 0
+    found = _ESCAPED.search(text)
+    while found is not None:
+        at = found.start()
+        line += text.count("\n", counted, at)
+        counted = at
+        begin = text.rfind("\n", 0, at) + 1
+        col = len(text[begin:at].encode("utf-8", errors="surrogateescape")) + 1
+        reason = f"byte 0x{ord(text[at]) - 0xDC00:02x} at column {col} is not UTF-8"
         if line <= header_end:
             raise LoggerFileError(f"{path}: line {line}: {reason} (save the file as UTF-8)")
         bad[line] = reason
-        start = data.find(b"\n", at) + 1
-        if start == 0:
-            return bad
+        end = text.find("\n", at)
+        found = None if end < 0 else _ESCAPED.search(text, end)
+    return bad
 
 
 def _split_fields(path: Path, number: int, line: str, delimiter: str) -> list[str]:
