@@ -45,9 +45,10 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
     """Load logger files (paths or quoted globs) into the site database.
 
     Every data row of a file is loaded, recognised as a duplicate of a stored row, or
-    quarantined with its line number, raw text and reason; the accounting is printed per
-    file. A value that differs from a stored one is never overwritten: it is kept in the
-    table conflicts and its row quarantined. A file already ingested changes nothing.
+    quarantined with its line number, raw text and reason (listed by 'perfcheck
+    quarantine'); the accounting is printed per file. A value that differs from a stored
+    one is never overwritten: it is kept in the table conflicts and its row quarantined. A
+    file already ingested changes nothing.
     After loading, the quality flags are recomputed (they never delete a reading); also
     when an earlier run was stopped before its flags were stored.
 
