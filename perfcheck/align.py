@@ -18,7 +18,7 @@ from __future__ import annotations
 import duckdb
 import pandas as pd
 
-from perfcheck import db
+from perfcheck import db, ingest
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
@@ -72,10 +72,11 @@ def register_power(register_wh: pd.Series, register_ts: pd.Series, interval_s: f
     return power.where(ok)
 
 
-def measured_power(raw: pd.DataFrame, site: Site, interval_s: float) -> pd.DataFrame:
+def measured_power(raw: pd.DataFrame, site: Site, interval_s: float,
+                   energy_s: dict[str, float]) -> pd.DataFrame:
     """Measured AC power per (ts, inverter_id) from the per-interval readings of
-    ``sql/align_measured.sql`` [W]: AC power, else interval energy, else register steps."""
-    energy_s = _column_intervals(site, "energy_interval")
+    ``sql/align_measured.sql`` [W]: AC power, else interval energy (over its logging interval
+    ``energy_s`` [s] per inverter, as stored at ingest), else register steps."""
     rollover = {c.device: c.rollover_wh for lg in site.loggers for c in lg.columns
                 if c.quantity == "energy_register"}
     parts = []
@@ -95,12 +96,6 @@ def measured_power(raw: pd.DataFrame, site: Site, interval_s: float) -> pd.DataF
                              "inverter_id": pd.Series([], dtype=str),
                              "measured_ac_w": pd.Series([], dtype=float)})
     return pd.concat(parts, ignore_index=True)
-
-
-def _column_intervals(site: Site, quantity: str) -> dict[str, float]:
-    """Logging interval [s] of each inverter's column of ``quantity``."""
-    return {c.device: lg.interval_min * 60.0 for lg in site.loggers for c in lg.columns
-            if c.quantity == quantity}
 
 
 def first_row(con: duckdb.DuckDBPyConnection, query: str, params: object = None) -> tuple | None:
@@ -156,7 +151,9 @@ def _rebuild(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, interval_s
     span = {"start": start, "end": end}
     lookback = {"iv": interval_s, "start": start - pd.Timedelta(seconds=interval_s), "end": end}
     raw = con.execute(db.sql("align_measured"), lookback).df()
-    meas = measured_power(raw, site, interval_s)
+    energy_s = {d: float(v) for (q, d), v in ingest.channel_intervals(con).items()
+                if q == "energy_interval_wh"}
+    meas = measured_power(raw, site, interval_s, energy_s)
     meas = meas[meas["ts"] >= start]
     con.execute(db.sql("align_delete_span"), span)
     con.register("_measured", meas)

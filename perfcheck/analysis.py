@@ -399,7 +399,8 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
     record = json.loads(con.execute(db.sql("analysis_inputs"), {"id": stored.id}).fetchone()[0])
     daily = con.execute(db.sql("analysis_daily_window"), {
         "id": stored.id, "tz": site.timezone, "start": start, "end": end}).df()
-    daily = metrics.complete_calendar(daily.drop(columns="n_nominal"), site, start, end)
+    daily = metrics.complete_calendar(daily.drop(columns="n_nominal"), site, start, end,
+                                      metrics.shortest_interval(con))
     result = metrics.compute(daily, site, start, end, settings, tuple(record["t_cell_typ_avg"]))
     model, degradation = con.execute(db.sql("analysis_blocks"), {"id": stored.id}).fetchone()
     block = losses(con, stored, start, end)

@@ -8,11 +8,12 @@ from __future__ import annotations
 
 import functools
 import importlib.resources
+import time
 from pathlib import Path
 
 import duckdb
 
-from perfcheck.errors import DataError
+from perfcheck.errors import DatabaseBusy, DataError
 
 
 def _sql_dir() -> Path:
@@ -34,15 +35,29 @@ def default_db_path(site_path: str | Path) -> Path:
     return Path(site_path).with_suffix(".duckdb")
 
 
-def connect(path: str | Path, read_only: bool = False) -> duckdb.DuckDBPyConnection:
-    """Open (creating if needed) a site database and make sure its schema exists."""
+def connect(path: str | Path, read_only: bool = False, wait_s: float = 0.0,
+            poll_s: float = 0.25) -> duckdb.DuckDBPyConnection:
+    """Open (creating if needed) a site database and make sure its schema exists.
+
+    While another process holds the database (DuckDB's file lock), try again every
+    ``poll_s`` for up to ``wait_s`` seconds, then raise DatabaseBusy."""
     path = Path(path)
     if read_only and not path.exists():
         raise DataError(f"{path}: no database yet (run 'perfcheck ingest' first)")
-    try:
-        con = duckdb.connect(str(path), read_only=read_only)
-    except duckdb.Error as exc:
-        raise DataError(f"{path}: cannot open database ({exc})") from None
+    deadline = time.monotonic() + wait_s
+    while True:
+        try:
+            con = duckdb.connect(str(path), read_only=read_only)
+            break
+        except duckdb.IOException as exc:
+            if "lock" not in str(exc).lower():
+                raise DataError(f"{path}: cannot open database ({exc})") from None
+            if time.monotonic() >= deadline:
+                raise DatabaseBusy(f"{path}: another process holds the database; gave up "
+                                   f"after {wait_s:g} s") from None
+            time.sleep(poll_s)
+        except duckdb.Error as exc:
+            raise DataError(f"{path}: cannot open database ({exc})") from None
     con.execute("SET TimeZone = 'UTC'")
     con.execute("SET enable_progress_bar = false")
     if not read_only:

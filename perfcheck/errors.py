@@ -15,3 +15,11 @@ class LoggerFileError(PerfcheckError):
 
 class DataError(PerfcheckError):
     """The database does not hold what a stage needs (e.g. no readings yet)."""
+
+
+class DatabaseBusy(DataError):
+    """Another process holds the site database (DuckDB's file lock) for longer than we wait."""
+
+
+class OutputError(PerfcheckError):
+    """An output (report folder, bundle, JSON file) cannot be written; nothing partial is left."""

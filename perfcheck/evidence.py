@@ -21,6 +21,7 @@ import hashlib
 import json
 import tempfile
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
 from typing import Any
@@ -29,7 +30,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, analysis, db, pipeline, report, versions
+from perfcheck import __version__, analysis, atomic, db, pipeline, report, versions
 from perfcheck.errors import DataError, PerfcheckError
 from perfcheck.site import Site, load_site
 
@@ -252,14 +253,12 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
     manifest = manifest_for(members)
     manifest_bytes = report.dump_json(manifest).encode()
     manifest_sha = hashlib.sha256(manifest_bytes).hexdigest()
-    out_zip.parent.mkdir(parents=True, exist_ok=True)
-    tmp_zip = out_zip.with_name(out_zip.name + ".part")
-    with zipfile.ZipFile(tmp_zip, "w", zipfile.ZIP_DEFLATED) as z:
+    with atomic.replacing_file(out_zip) as tmp_zip, \
+            zipfile.ZipFile(tmp_zip, "w", zipfile.ZIP_DEFLATED) as z:
         for name in [MANIFEST, *sorted(members)]:
             info = zipfile.ZipInfo(name, date_time=_FIXED_TIME)
             info.compress_type = zipfile.ZIP_DEFLATED
             z.writestr(info, manifest_bytes if name == MANIFEST else members[name])
-    tmp_zip.replace(out_zip)
     return {"path": out_zip, "manifest_sha256": manifest_sha, "files": len(members) + 1}
 
 
@@ -303,64 +302,146 @@ class Verification:
         self.problems.append(text)
 
 
-def _read_zip(path: Path) -> dict[str, bytes]:
+# Caps on what verify extracts, checked against the sizes the zip declares before anything is
+# read (and the reader stops at the declared size), so a zip bomb cannot fill memory or disk.
+# A year of 1-minute logger data is some 50 MB; a bundle of many plant-years fits well inside.
+MAX_MEMBER_BYTES = 2**30
+MAX_BUNDLE_BYTES = 4 * 2**30
+_CHUNK = 2**20
+
+
+def _extract(path: Path, root: Path) -> dict[str, Path]:
+    """Every member of the bundle written under ``root`` in chunks, by member name; refuses
+    unsafe names, duplicate names and declared sizes over the caps before writing anything."""
     try:
         with zipfile.ZipFile(path) as z:
-            names = z.namelist()
+            infos = [i for i in z.infolist() if not i.is_dir()]
+            names = [i.filename for i in infos]
             bad = [n for n in names if not safe_member(n)]
             if bad:
                 raise PerfcheckError(f"{path}: unsafe path in bundle: {bad[0]!r} (absolute or "
                                      "leaving the bundle); not extracted")
-            return {n: z.read(n) for n in names if not n.endswith("/")}
-    except (zipfile.BadZipFile, OSError) as exc:
+            twice = sorted({n for n in names if names.count(n) > 1})
+            if twice:
+                raise PerfcheckError(f"{path}: member {twice[0]!r} appears twice in the bundle; "
+                                     "not extracted")
+            big = [i for i in infos if i.file_size > MAX_MEMBER_BYTES]
+            if big:
+                raise PerfcheckError(f"{path}: member {big[0].filename!r} declares "
+                                     f"{big[0].file_size:,} bytes, over the cap of "
+                                     f"{MAX_MEMBER_BYTES:,}; not extracted")
+            total = sum(i.file_size for i in infos)
+            if total > MAX_BUNDLE_BYTES:
+                raise PerfcheckError(f"{path}: members declare {total:,} bytes in all, over the "
+                                     f"cap of {MAX_BUNDLE_BYTES:,}; not extracted")
+            out = {}
+            for info in infos:
+                target = root / info.filename
+                target.parent.mkdir(parents=True, exist_ok=True)
+                with z.open(info) as src, open(target, "wb") as dst:
+                    while chunk := src.read(_CHUNK):
+                        dst.write(chunk)
+                out[info.filename] = target
+            return out
+    except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, EOFError, NotImplementedError,
+            RuntimeError, zlib.error) as exc:
         raise PerfcheckError(f"{path}: not a readable zip file ({exc})") from None
 
 
-def check_hashes(members: dict[str, bytes], v: Verification) -> dict[str, Any]:
-    if MANIFEST not in members:
-        raise PerfcheckError(f"bundle has no {MANIFEST}")
-    v.manifest_sha256 = hashlib.sha256(members[MANIFEST]).hexdigest()
+def _sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while chunk := fh.read(_CHUNK):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _json_member(files: dict[str, Path], name: str) -> Any:
+    if name not in files:
+        raise PerfcheckError(f"bundle has no {name}")
     try:
-        manifest = json.loads(members[MANIFEST])
-        listed = manifest["files"]
-    except (ValueError, KeyError, TypeError):
-        raise PerfcheckError(f"{MANIFEST}: not a perfcheck manifest") from None
-    for name in sorted(set(members) - set(listed) - {MANIFEST}):
+        return json.loads(files[name].read_bytes())
+    except ValueError as exc:
+        raise PerfcheckError(f"{name}: not valid JSON ({exc})") from None
+
+
+def _manifest_entries(manifest: Any) -> dict[str, dict[str, Any]]:
+    """The manifest's file entries, each checked for the keys verify uses."""
+    listed = manifest.get("files") if isinstance(manifest, dict) else None
+    ok = isinstance(listed, dict) and all(
+        isinstance(e, dict) and isinstance(e.get("sha256"), str)
+        and isinstance(e.get("blocks"), list) and isinstance(e.get("block_bytes"), int)
+        and e["block_bytes"] > 0 for e in listed.values())
+    if not ok:
+        raise PerfcheckError(f"{MANIFEST}: not a perfcheck manifest (expected \"files\": "
+                             "{name: {sha256, block_bytes, blocks}})")
+    return listed
+
+
+def check_hashes(files: dict[str, Path], v: Verification) -> dict[str, Any]:
+    """Every extracted member against its manifest entry; a changed member is named with the
+    byte or blocks that changed."""
+    if MANIFEST not in files:
+        raise PerfcheckError(f"bundle has no {MANIFEST}")
+    v.manifest_sha256 = _sha256(files[MANIFEST])
+    manifest = _json_member(files, MANIFEST)
+    listed = _manifest_entries(manifest)
+    for name in sorted(set(files) - set(listed) - {MANIFEST}):
         v.fail(f"{name}: in the bundle but not in the manifest")
     for name, entry in sorted(listed.items()):
-        if name not in members:
+        if name not in files:
             v.fail(f"{name}: listed in the manifest but missing from the bundle")
             continue
         v.files_checked += 1
-        data = members[name]
-        if hashlib.sha256(data).hexdigest() == entry["sha256"]:
+        if _sha256(files[name]) == entry["sha256"]:
             continue
-        where = locate_change(entry["blocks"], data, entry["block_bytes"])
+        try:
+            where = locate_change(entry["blocks"], files[name].read_bytes(), entry["block_bytes"])
+        except (TypeError, ValueError, IndexError):
+            where = []  # block sums of a malformed entry: the change is named by its file only
         v.fail(f"{name}: sha256 differs from the manifest: " + "; ".join(where or ["changed"]))
     return manifest
 
 
-def rerun(members: dict[str, bytes], v: Verification) -> None:
-    """Re-run the analysis from the bundle's own files in a temporary folder and compare."""
-    info = json.loads(members["bundle.json"])
+def _bundle_info(files: dict[str, Path]) -> dict[str, Any]:
+    """bundle.json, checked: the site file and every raw file are members of the bundle (never
+    a path outside it), the period two ISO 8601 instants."""
+    info = _json_member(files, "bundle.json")
+    if not isinstance(info, dict):
+        raise PerfcheckError("bundle.json: expected a JSON object")
+    site_file, raws, period = info.get("site_file"), info.get("raw_files"), info.get("period")
+    if not isinstance(site_file, str) or site_file not in files:
+        raise PerfcheckError(f"bundle.json: site_file {site_file!r} is not a file of the bundle")
+    if not isinstance(raws, list):
+        raise PerfcheckError("bundle.json: raw_files: expected a list of member names")
+    for r in raws:
+        if not isinstance(r, str) or r not in files:
+            raise PerfcheckError(f"bundle.json: raw_files: {r!r} is not a file of the bundle")
+    try:
+        info["period"] = {k: pd.Timestamp(period[k]) for k in ("start", "end")}
+        if any(t.tzinfo is None for t in info["period"].values()):
+            raise ValueError("no UTC offset")
+    except (TypeError, KeyError, ValueError) as exc:
+        raise PerfcheckError(f"bundle.json: period: expected start and end as ISO 8601 with "
+                             f"an offset ({exc})") from None
+    return info
+
+
+def rerun(files: dict[str, Path], work: Path, v: Verification) -> None:
+    """Re-run the analysis from the bundle's own files (extracted in ``files``) in a fresh
+    database in ``work``, and compare."""
+    info = _bundle_info(files)
+    stored = _json_member(files, "results/check.json")
     if info.get("tool_version") != __version__:
         v.notes.append(f"bundle written by perfcheck {info.get('tool_version')}, verified with "
                        f"{__version__}: small numeric differences may come from the versions")
-    with tempfile.TemporaryDirectory() as tmp:
-        root = Path(tmp)
-        for name, data in members.items():
-            target = root / name
-            target.parent.mkdir(parents=True, exist_ok=True)
-            target.write_bytes(data)
-        site = load_site(root / info["site_file"])
-        con = db.connect(root / "verify.duckdb")
-        try:
-            pipeline.update(con, site, [root / m for m in info["raw_files"]])
-            start, end = (pd.Timestamp(info["period"][k]) for k in ("start", "end"))
-            again = pipeline.view(con, site, start, end)
-        finally:
-            con.close()
-    stored = json.loads(members["results/check.json"])
+    site = load_site(files[info["site_file"]])
+    con = db.connect(work / "verify.duckdb")
+    try:
+        pipeline.update(con, site, [files[m] for m in info["raw_files"]])
+        again = pipeline.view(con, site, info["period"]["start"], info["period"]["end"])
+    finally:
+        con.close()
     diffs = json_differences(strip_volatile(stored), strip_volatile(json.loads(
         report.dump_json(again))))
     if diffs:
@@ -371,12 +452,17 @@ def rerun(members: dict[str, bytes], v: Verification) -> None:
 
 
 def verify_bundle(path: Path, rerun_analysis: bool = True) -> Verification:
-    """Check every hash of the bundle at ``path`` and (by default) re-run its analysis."""
+    """Check every hash of the bundle at ``path`` and (by default) re-run its analysis.
+
+    Raises PerfcheckError (exit 2) for a bundle that cannot be read as one: not a zip, an
+    unsafe or repeated member name, a member over the size caps, a malformed manifest or
+    bundle.json, a site file named outside the bundle."""
     v = Verification()
-    members = _read_zip(Path(path))
-    check_hashes(members, v)
-    if rerun_analysis and v.ok:
-        rerun(members, v)
-    elif rerun_analysis:
-        v.notes.append("re-run skipped: the bundle's files do not match their manifest")
+    with tempfile.TemporaryDirectory() as tmp:
+        files = _extract(Path(path), Path(tmp) / "bundle")
+        check_hashes(files, v)
+        if rerun_analysis and v.ok:
+            rerun(files, Path(tmp), v)
+        elif rerun_analysis:
+            v.notes.append("re-run skipped: the bundle's files do not match their manifest")
     return v

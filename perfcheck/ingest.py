@@ -19,7 +19,9 @@ A file whose sha256 is already stored is reported as already ingested and change
 Conventions: instants are UTC and label the **start** of the logger interval (a logger that
 labels the end has its times moved back by one interval). Values are converted once, here, to
 SI units: W, Wh, W/m2, C, m/s, mm. Empty fields and the logger's sentinels are missing values
-and are not stored; ``NaN`` is always missing.
+and are not stored; ``NaN`` is always missing. An infinite value (``inf``, ``Infinity``,
+``1e309``) and an instant outside the years 1678 to 2261 (a two-digit year read with ``%Y``, a
+logger clock reset) quarantine their line with the reason.
 
 Storage: values are kept as the logger writes them, one wide table per logger
 (``logger_rows_<id>``: ts, file_id, line and one column per channel, NULL where a value is
@@ -36,8 +38,11 @@ time in the skipped spring hour is quarantined ("does not exist"), never shifted
 
 Parsing is done by DuckDB over the file's lines (split, quote handling, typing, time zones,
 comparison with stored values), so there is no Python loop over data rows; Python checks only
-what must hold for the whole file before any of it is read: it exists, is UTF-8, is not empty,
-has the mapped columns in its header and does not end in a truncated line. Each file is stored
+what must hold for the whole file before any of it is read: it exists, is not empty, has a
+UTF-8 header it can split with the mapped columns in it, and a units row that agrees with the
+site file. A line cut short anywhere, the last line included (a file still being written), or
+holding bytes that are not UTF-8 (DuckDB then reads a UTF-8 copy) is quarantined with its
+reason. Each file is stored
 in one transaction: an error or a kill mid-file leaves the database as it was before that file.
 """
 
@@ -49,7 +54,9 @@ import fnmatch
 import glob
 import hashlib
 import re
-from collections.abc import Callable, Iterable
+import tempfile
+from collections.abc import Callable, Iterable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -61,6 +68,7 @@ from perfcheck.errors import LoggerFileError, SiteFileError
 from perfcheck.site import Column, Logger, Site
 
 _NOT_BLANK = re.compile(rb"[^\s\xef\xbb\xbf]")
+_ESCAPED = re.compile("[\udc80-\udcff]")  # bytes that are not UTF-8, decoded surrogateescape
 
 # Factor and offset to SI for every unit the site file accepts: si = value * factor + offset.
 UNIT_TO_SI: dict[str, tuple[float, float]] = {
@@ -110,6 +118,8 @@ class _Checked:
     time_positions: tuple[int, ...]
     header_end: int  # last line number that is not data (preamble, header, units row)
     crlf: bool  # the file holds CRLF line ends
+    open_line: int  # number of a last line without a line end (0: the file ends in one)
+    not_utf8: dict[int, str]  # data lines holding bytes that are not UTF-8, with the reason
 
 
 def expand_paths(patterns: Iterable[str | Path]) -> list[Path]:
@@ -154,22 +164,44 @@ def _read_bytes(path: Path) -> bytes:
         raise LoggerFileError(f"{path}: cannot read file ({exc.strerror})") from None
 
 
-def _check_utf8(path: Path, data: bytes) -> None:
+def _not_utf8(path: Path, data: bytes, header_end: int) -> dict[int, str]:
+    """The lines holding bytes that are not UTF-8, each with the reason naming its first such
+    byte. In the preamble, header or units row (up to line ``header_end``) such a byte refuses
+    the file (LoggerFileError); a data line with one is quarantined. One pass: the bad bytes
+    are decoded as lone surrogates (U+DC80-U+DCFF) and looked for."""
+    bad: dict[int, str] = {}
     if data.isascii():
-        return
+        return bad
+    text = data.decode("utf-8", errors="surrogateescape")
+    line, counted = 1, 0
+    found = _ESCAPED.search(text)
+    while found is not None:
+        at = found.start()
+        line += text.count("\n", counted, at)
+        counted = at
+        begin = text.rfind("\n", 0, at) + 1
+        col = len(text[begin:at].encode("utf-8", errors="surrogateescape")) + 1
+        reason = f"byte 0x{ord(text[at]) - 0xDC00:02x} at column {col} is not UTF-8"
+        if line <= header_end:
+            raise LoggerFileError(f"{path}: line {line}: {reason} (save the file as UTF-8)")
+        bad[line] = reason
+        end = text.find("\n", at)
+        found = None if end < 0 else _ESCAPED.search(text, end)
+    return bad
+
+
+def _split_fields(path: Path, number: int, line: str, delimiter: str) -> list[str]:
+    """The fields of header line ``number``; a line the csv module cannot split (a carriage
+    return inside it, a field over its 128 kB limit) is a one-line LoggerFileError."""
     try:
-        data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data.count(b"\n", 0, exc.start) + 1
-        col = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
-        raise LoggerFileError(
-            f"{path}: line {line}: byte 0x{data[exc.start]:02x} at column {col} is not UTF-8 "
-            "(save the file as UTF-8)"
-        ) from None
-
-
-def _split_fields(line: str, delimiter: str) -> list[str]:
-    return next(csv.reader([line], delimiter=delimiter, quotechar='"'), [])
+        return next(csv.reader([line], delimiter=delimiter, quotechar='"'), [])
+    except csv.Error as exc:
+        if "\r" in line:
+            raise LoggerFileError(
+                f"{path}: line {number}: holds a carriage return (CR) not followed by a line "
+                "feed; save the file with LF or CRLF line ends") from None
+        raise LoggerFileError(f"{path}: line {number}: cannot be split into fields ({exc})"
+                              ) from None
 
 
 def _line_at(data: bytes, number: int) -> tuple[str | None, int]:
@@ -209,16 +241,32 @@ def _column_positions(path: Path, lg: Logger, header: list[str], line: int) -> d
     return positions
 
 
+def _written_unit(text: str) -> str:
+    """A unit as a units row writes it, in the site file's spelling: brackets and spaces
+    dropped, ``²``/``^2`` as ``2``, ``°C``/``degC`` as ``C``."""
+    unit = text.strip().strip("[](){}").replace(" ", "").replace("°", "")
+    unit = unit.replace("²", "2").replace("^2", "2")
+    return "C" if unit.lower() == "degc" else unit
+
+
 def _check_units_row(path: Path, lg: Logger, units: str | None, positions: dict[str, int],
                      line: int) -> None:
-    """A units row must not hold numbers where values are mapped: that is a data row, and
-    reading it as units would lose it."""
-    fields = _split_fields(units or "", lg.delimiter)
+    """The units row against the site file: it must not hold numbers where values are mapped
+    (that is a data row, and reading it as units would lose it), and a unit it gives for a
+    mapped column must be the one [[loggers]] declares (letter case aside: ``KW`` is kW)."""
+    fields = _split_fields(path, line, units or "", lg.delimiter)
     for col in lg.columns:
         text = fields[positions[col.name] - 1].strip() if len(fields) >= positions[col.name] else ""
         try:
             float(text.replace(",", "."))
         except ValueError:
+            written = _written_unit(text)
+            if written and written.lower() != col.unit.lower():
+                raise LoggerFileError(
+                    f"{path}: line {line}: column {col.name!r} is in {text!r} by the units row "
+                    f"but in {col.unit!r} by [[loggers]] {lg.name!r}; correct the unit in the "
+                    "site file (or, for one file, add a [[loggers]] entry whose match names it)"
+                ) from None
             continue
         raise LoggerFileError(
             f"{path}: line {line}: expected the units row (units_row = true in [[loggers]] "
@@ -233,15 +281,15 @@ def check_file(site: Site, path: str | Path) -> _Checked:
     data = _read_bytes(path)
     if _NOT_BLANK.search(data) is None:
         raise LoggerFileError(f"{path}: empty file ({len(data)} bytes, no lines)")
-    _check_utf8(path, data)
     header_no = lg.preamble_lines + 1
+    not_utf8 = _not_utf8(path, data, header_no + (1 if lg.units_row else 0))
     header, after = _line_at(data, header_no)
     if header is None:
         raise LoggerFileError(
             f"{path}: line {header_no}: file ends before the header "
             f"(preamble_lines = {lg.preamble_lines} in [[loggers]] {lg.name!r})"
         )
-    fields = _split_fields(header, lg.delimiter)
+    fields = _split_fields(path, header_no, header, lg.delimiter)
     positions = _column_positions(path, lg, fields, header_no)
     header_end = header_no + (1 if lg.units_row else 0)
     if lg.units_row:
@@ -250,15 +298,6 @@ def check_file(site: Site, path: str | Path) -> _Checked:
     if _NOT_BLANK.search(data, after) is None:
         raise LoggerFileError(f"{path}: empty file (no data lines after the header, "
                               f"line {header_end})")
-    if not data.endswith(b"\n"):
-        last = data[data.rfind(b"\n") + 1:].decode("utf-8")
-        n_last = len(_split_fields(last, lg.delimiter)) if last.strip() else len(fields)
-        if n_last < len(fields):
-            line = data.count(b"\n") + 1
-            raise LoggerFileError(
-                f"{path}: line {line}: truncated last line ({n_last} of "
-                f"{len(fields)} fields, no line end): the file may still be being written"
-            )
     return _Checked(
         path=path,
         given=str(path),
@@ -270,6 +309,8 @@ def check_file(site: Site, path: str | Path) -> _Checked:
         time_positions=tuple(positions[c] for c in lg.time.columns),
         header_end=header_end,
         crlf=b"\r" in data,  # one byte: a fast scan; a lone CR is harmless
+        open_line=0 if data.endswith(b"\n") else data.count(b"\n") + 1,
+        not_utf8=not_utf8,
     )
 
 
@@ -303,13 +344,18 @@ def _channel_ids(con: duckdb.DuckDBPyConnection, lg: Logger) -> list[int]:
 
 
 def _logger_table(con: duckdb.DuckDBPyConnection, lg: Logger, channels: list[int]) -> int:
-    """The id of the logger's wide table, created or widened for ``channels``; when that adds
-    a channel, the view channel_values is rebuilt over all logger tables."""
+    """The id of the logger's wide table, created or widened for ``channels``, with its
+    interval stored; when that adds a channel, the view channel_values is rebuilt over all
+    logger tables."""
     row = _one(con, "SELECT logger_id FROM loggers WHERE name = ?", [lg.name])
     if row is None:
-        row = _one(con, "INSERT INTO loggers SELECT coalesce(max(logger_id), 0) + 1, ? "
-                        "FROM loggers RETURNING logger_id", [lg.name])
+        row = _one(con, "INSERT INTO loggers (logger_id, name, interval_min) "
+                        "SELECT coalesce(max(logger_id), 0) + 1, ?, ? FROM loggers "
+                        "RETURNING logger_id", [lg.name, lg.interval_min])
     logger_id = int(row[0])
+    con.execute("UPDATE loggers SET interval_min = ? WHERE logger_id = ? "
+                "AND interval_min IS DISTINCT FROM ?", [lg.interval_min, logger_id,
+                                                         lg.interval_min])
     known = {int(r[0]) for r in con.execute(
         "SELECT channel_id FROM logger_channels WHERE logger_id = ?", [logger_id]).fetchall()}
     new = [ch for ch in channels if ch not in known]
@@ -354,7 +400,10 @@ def _check_loggers(con: duckdb.DuckDBPyConnection, site: Site) -> None:
 
 
 def _value_sql(k: int, col: Column, decimal: str, numeric_sentinels: bool) -> tuple[str, ...]:
-    """SQL for mapped column k: its number (and field text), its SI value, its error."""
+    """SQL for mapped column k: its number (and field text), its SI value, its error, and a
+    quick test whether it may have one. A value that is infinite in SI units (``inf``,
+    ``1e309``, or a finite number that overflows on conversion) is an error, not a reading;
+    NaN is a missing value."""
     factor, offset = UNIT_TO_SI[col.unit]
     text = f"s{k}"
     num = f"replace({text}, ',', '.')" if decimal == "," else text
@@ -362,13 +411,19 @@ def _value_sql(k: int, col: Column, decimal: str, numeric_sentinels: bool) -> tu
     if numeric_sentinels:
         missing += f" OR list_contains($num_sentinels, n{k})"
     number = f"TRY_CAST({num} AS DOUBLE) AS n{k}, {text}"
-    value = f"CASE WHEN {missing} THEN NULL ELSE n{k} * {factor!r} + {offset!r} END AS v{k}"
+    si = f"n{k} * {factor!r} + {offset!r}"
+    value = f"CASE WHEN {missing} THEN NULL ELSE {si} END AS v{k}"
     error = (
         f"CASE WHEN n{k} IS NULL AND trim({text}) <> '' "
         f"AND NOT list_contains($sentinels, trim({text})) "
-        f"THEN 'column ' || $names[{k}] || ': ''' || {text} || ''' is not a number' END"
+        f"THEN 'column ' || $names[{k}] || ': ''' || {text} || ''' is not a number' "
+        f"WHEN isinf({si}) AND NOT ({missing}) "
+        f"THEN 'column ' || $names[{k}] || ': ''' || {text} || ''' is infinite or out of "
+        "range' "
+        "END"
     )
-    return number, value, error
+    bad = f"(n{k} IS NULL AND s{k} <> '') OR isinf({si})"
+    return number, value, error, bad
 
 
 def _rows_sql(chk: _Checked) -> str:
@@ -385,7 +440,7 @@ def _rows_sql(chk: _Checked) -> str:
         numbers=", ".join(p[0] for p in parts),
         time_ctes=db.sql(f"ingest_time_{lg.time.kind}"),
         values=", ".join(p[1] for p in parts),
-        any_bad=" OR ".join(f"(n{k} IS NULL AND s{k} <> '')" for k in range(1, len(parts) + 1)),
+        any_bad=" OR ".join(p[3] for p in parts),
         value_errors=", ".join(p[2] for p in parts),
     )
 
@@ -410,6 +465,13 @@ def _numeric(sentinels: tuple[str, ...]) -> list[float]:
     return [v for v in out if v == v]
 
 
+def _literal_glob(path: Path) -> str:
+    """``path`` as a DuckDB file glob that matches that one file: each glob character
+    (``*``, ``?``, ``[``) is put in a character class of its own, so ``x_[a].csv`` reads
+    ``x_[a].csv`` and never ``x_a.csv``."""
+    return re.sub(r"([*?\[])", r"[\1]", str(path))
+
+
 def _quoted_patterns(delimiter: str) -> tuple[str, str]:
     d = re.escape(delimiter)
     field = f'"(?:[^"]|"")*"|[^{d}"]*'
@@ -420,18 +482,42 @@ def _quoted_patterns(delimiter: str) -> tuple[str, str]:
 # one file, one transaction
 
 
-def _read_params(site: Site, chk: _Checked) -> dict[str, object]:
-    """The bound parameters of sql/ingest_rows.sql (and its time fragment) for one file."""
+@contextmanager
+def _readable(chk: _Checked) -> Iterator[Path]:
+    """The path DuckDB reads for a checked file: the file itself, or, when data lines hold
+    bytes that are not UTF-8 (they are quarantined), a temporary copy with those bytes replaced
+    by U+FFFD, so that the other lines can be read. The copy is made from the bytes checked
+    (same sha256) and removed afterwards."""
+    if not chk.not_utf8:
+        yield chk.path
+        return
+    data = _read_bytes(chk.path)
+    if hashlib.sha256(data).hexdigest() != chk.sha256:
+        raise LoggerFileError(f"{chk.given}: changed while being ingested; nothing of this file "
+                              "was stored")
+    with tempfile.TemporaryDirectory() as tmp:
+        copy = Path(tmp) / "utf8.csv"
+        copy.write_bytes(data.decode("utf-8", errors="replace").encode("utf-8"))
+        yield copy
+
+
+def _read_params(site: Site, chk: _Checked, path: Path) -> dict[str, object]:
+    """The bound parameters of sql/ingest_rows.sql (and its time fragment) for one file, read
+    from ``path`` (see :func:`_readable`)."""
     lg = chk.logger
     quoted_line, quoted_field = _quoted_patterns(lg.delimiter)
     params: dict[str, object] = {
-        "path": str(chk.path),
+        "path": _literal_glob(path),
+        # line 0 is never a data line: it keeps the lists typed when no line is bad
+        "not_utf8_lines": [0, *chk.not_utf8],
+        "not_utf8_reasons": ["", *chk.not_utf8.values()],
         "header_end": chk.header_end,
         "crlf": chk.crlf,
         "delim": lg.delimiter,
         "quoted_line": quoted_line,
         "quoted_field": quoted_field,
         "n_fields": chk.n_fields,
+        "open_line": chk.open_line,
         "sentinels": list(lg.sentinels),
         "names": [c.name for c in lg.columns],
         "label_shift_min": lg.interval_min if lg.time.label == "end" else 0,
@@ -451,7 +537,8 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
         return FileResult(chk.given, int(known[0]), "already ingested", 0, 0, 0, 0, 0, None, None)
     con.execute("BEGIN TRANSACTION")
     try:
-        row = _store_file(con, site, chk)
+        with _readable(chk) as path:
+            row = _store_file(con, site, chk, _read_params(site, chk, path))
         con.execute("COMMIT")
     except BaseException as exc:
         con.execute("ROLLBACK")
@@ -464,13 +551,14 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
                       row[6], row[7])
 
 
-def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> tuple:
-    """Read, compare and store one file inside the caller's transaction; returns its
-    source_files row (file_id, rows_read, loaded, duplicate, quarantined, conflicts,
-    first_ts, last_ts)."""
+def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
+                params: dict[str, object]) -> tuple:
+    """Read (with the parameters of :func:`_read_params`), compare and store one file inside
+    the caller's transaction; returns its source_files row (file_id, rows_read, loaded,
+    duplicate, quarantined, conflicts, first_ts, last_ts)."""
     channels = _channel_ids(con, chk.logger)
     logger_id = _logger_table(con, chk.logger, channels)
-    con.execute(_rows_sql(chk), _read_params(site, chk))
+    con.execute(_rows_sql(chk), params)
     lo, hi = _one(con, "SELECT min(ts), max(ts) FROM _ingest_rows WHERE reason IS NULL")
     unions = _long_sql(channels)
     con.execute(db.sql("ingest_compare").format(unions=unions),
@@ -483,7 +571,6 @@ def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> tu
     missing_raw = _one(con, "SELECT count(*) FROM _ingest_outcome JOIN _ingest_rows USING (line) "
                             "WHERE outcome = 'quarantined' AND raw IS NULL")[0]
     if missing_raw:
-        params = _read_params(site, chk)
         con.execute(db.sql("ingest_raw").format(lines=db.sql("ingest_lines")),
                     {k: params[k] for k in ("path", "header_end", "crlf")})
     file_id = int(_one(con, "SELECT nextval('source_file_id')")[0])
@@ -518,11 +605,14 @@ def ingest_files(
 ) -> list[FileResult]:
     """Ingest logger files into the site database, one transaction per file.
 
-    Every file is checked first (exists, UTF-8, not empty, mapped columns present, last line
-    complete), so a bad file stops the run before anything is stored. ``progress`` is called
+    Every file is checked first (exists, UTF-8, not empty, mapped columns present), so a bad
+    file stops the run before anything is stored. ``progress`` is called
     with each file's result as soon as it is committed.
     """
     _check_loggers(con, site)
+    for lg in site.loggers:  # a database written before intervals were stored
+        con.execute("UPDATE loggers SET interval_min = ? WHERE name = ? AND interval_min IS NULL",
+                    [lg.interval_min, lg.name])
     checked = [check_file(site, p) for p in paths]
     results = []
     for chk in checked:
@@ -537,32 +627,41 @@ def ingest_files(
 # summaries
 
 
+def channel_intervals(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], int]:
+    """The logging interval [s] of each stored (quantity, device), as stored at ingest (the
+    shortest of the loggers that carry it). Later stages read intervals here, never from the
+    site file."""
+    rows = con.execute("SELECT quantity, device, interval_min FROM channel_intervals").fetchall()
+    return {(q, d): int(m) * 60 for q, d, m in rows}
+
+
+def quarantined(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
+    """Every quarantined line: ``file`` (as given when ingested), ``line``, ``ts`` (its instant,
+    or that of the nearest readable line before it), ``reason``, ``reason_kind`` (the reason
+    with its quoted values left out, for counts) and ``raw`` (the line as written)."""
+    return con.execute(db.sql("ingest_quarantine")).df()
+
+
 def coverage_summary(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
     """Data coverage per channel and site-local month.
 
     Columns: ``month`` (YYYY-MM in the site's zone), ``quantity``, ``device``, ``expected``
     (intervals between the channel's first and last reading within the month, at the shortest
-    interval of the loggers that carry it), ``present`` (intervals with a value), ``share``
-    (present / expected) and ``quarantined`` (quarantined lines of those loggers' files, by the
-    month of the line's instant).
+    stored interval of the loggers that carry it), ``present`` (intervals with a value),
+    ``share`` (present / expected) and ``quarantined`` (quarantined lines of those loggers'
+    files, by the month of the line's instant).
     """
-    frame = pd.DataFrame(
-        [(lg.name, c.stored, c.device, lg.interval_min) for lg in site.loggers for c in lg.columns],
-        columns=["logger", "quantity", "device", "interval_min"],
-    )
-    con.register("_coverage_channels", frame)
-    try:
-        return con.execute(db.sql("ingest_coverage"), {"tz": site.timezone}).df()
-    finally:
-        con.unregister("_coverage_channels")
+    return con.execute(db.sql("ingest_coverage"), {"tz": site.timezone}).df()
 
 
 __all__ = [
     "FileResult",
     "UNIT_TO_SI",
+    "channel_intervals",
     "check_file",
     "coverage_summary",
     "expand_paths",
     "ingest_files",
     "logger_files",
+    "quarantined",
 ]

@@ -51,7 +51,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, db, kinds, periods
+from perfcheck import __version__, db, ingest, kinds, periods
 from perfcheck.errors import DataError
 from perfcheck.site import Site, Table
 
@@ -474,13 +474,19 @@ def daily_sums(
     finally:
         con.unregister("_metrics_inverters")
         con.unregister("_metrics_windows")
-    return complete_calendar(df, site, start, end)
+    return complete_calendar(df, site, start, end, shortest_interval(con))
+
+
+def shortest_interval(con: duckdb.DuckDBPyConnection) -> float:
+    """The shortest logger interval stored at ingest [s] (NaN before any ingest)."""
+    return min(ingest.channel_intervals(con).values(), default=float("nan"))
 
 
 def complete_calendar(
-    df: pd.DataFrame, site: Site, start: pd.Timestamp, end: pd.Timestamp
+    df: pd.DataFrame, site: Site, start: pd.Timestamp, end: pd.Timestamp, fallback: float
 ) -> pd.DataFrame:
-    """Every (local day, inverter) of the period, zeros where no rows; nominal daylight count."""
+    """Every (local day, inverter) of the period, zeros where no rows; nominal daylight count
+    (at the inverter's interval in the period, else ``fallback`` [s]: the shortest stored)."""
     tz = site.tz
     first = start.tz_convert(tz).normalize()
     days = pd.date_range(first, end.tz_convert(tz) - pd.Timedelta(microseconds=1),
@@ -491,7 +497,6 @@ def complete_calendar(
     out = df.reindex(grid)
     counts = [c for c in out.columns if c != "interval_s"]
     out[counts] = out[counts].fillna(0.0)
-    fallback = min(lg.interval_min for lg in site.loggers) * 60.0
     interval = out["interval_s"].groupby(level="inverter_id").transform(
         lambda s: s.mode().iloc[0] if s.notna().any() else fallback)
     daylight = pd.Series(daylight_seconds(site, days, start, end), index=days.date)

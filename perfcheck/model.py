@@ -51,10 +51,10 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from perfcheck import align, db
+from perfcheck import align, db, ingest
 from perfcheck import physics as ph
 from perfcheck.errors import DataError
-from perfcheck.site import DEVICE_QUANTITIES, Array, Inverter, Site
+from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Array, Inverter, Site
 from perfcheck.versions import versions
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
@@ -65,6 +65,8 @@ PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this til
 
 # weather stored beside the sun in model_conditions, as the model used it
 CONDITION_COLUMNS = ("ghi_wm2", "temp_air_c", "wind_speed_ms", "temp_module_c", "rain_mm")
+# Stored names of the quantities that belong to an inverter or the plant (power, energy).
+DEVICE_STORED = tuple(QUANTITIES[q][0] for q in DEVICE_QUANTITIES)
 # readings quantity -> pvlib name in the weather frame
 WEATHER = {
     "ghi_wm2": "ghi",
@@ -82,24 +84,18 @@ WEATHER = {
 # parameters
 
 
-def interval_s(site: Site) -> int:
-    """The model's interval [s]: the shortest interval of the loggers that record inverter or
-    plant power and energy (of all loggers if none does)."""
-    power = [lg.interval_min for lg in site.loggers
-             if any(c.quantity in DEVICE_QUANTITIES for c in lg.columns)]
-    return min(power or [lg.interval_min for lg in site.loggers]) * 60
+def interval_s(intervals: dict[tuple[str, str], int]) -> int:
+    """The model's interval [s]: the shortest interval of the channels of inverter or plant
+    power and energy (of all channels if there is none). ``intervals``: [s] per (quantity,
+    device), as stored at ingest (:func:`perfcheck.ingest.channel_intervals`)."""
+    power = [s for (q, _d), s in intervals.items() if q in DEVICE_STORED]
+    return min(power or intervals.values())
 
 
-def weather_intervals(site: Site) -> dict[str, int]:
-    """Logging interval [s] of each site-weather quantity (pvlib names), shortest if several
-    loggers record it."""
-    out: dict[str, int] = {}
-    for lg in site.loggers:
-        for c in lg.columns:
-            if c.device == "site":
-                name = WEATHER[c.stored]
-                out[name] = min(out.get(name, lg.interval_min * 60), lg.interval_min * 60)
-    return out
+def weather_intervals(intervals: dict[tuple[str, str], int]) -> dict[str, int]:
+    """Logging interval [s] of each site-weather quantity (pvlib names), from the stored
+    intervals (see :func:`interval_s`)."""
+    return {WEATHER[q]: s for (q, d), s in intervals.items() if d == "site" and q in WEATHER}
 
 
 def hold_coarse_weather(weather: pd.DataFrame, step_s: int, intervals: dict[str, int]
@@ -120,8 +116,9 @@ def hold_coarse_weather(weather: pd.DataFrame, step_s: int, intervals: dict[str,
     return full.dropna(how="all")
 
 
-def parameters(site: Site) -> dict[str, Any]:
-    """Everything that determines the expected series, as plain JSON-able values."""
+def parameters(site: Site, step_s: int) -> dict[str, Any]:
+    """Everything that determines the expected series, as plain JSON-able values; ``step_s``
+    is the model's interval (:func:`interval_s`)."""
     return {
         "model_version": MODEL_VERSION,
         "latitude_deg": site.latitude_deg,
@@ -129,7 +126,7 @@ def parameters(site: Site) -> dict[str, Any]:
         "altitude_m": site.altitude_m,
         "commissioned": site.commissioned.isoformat(),
         "export_limit_kw": site.export_limit_kw,
-        "interval_s": interval_s(site),
+        "interval_s": step_s,
         "inverters": [dataclasses.asdict(inv) for inv in site.inverters],
         "losses": dataclasses.asdict(site.losses),
         "model": dataclasses.asdict(site.model),
@@ -472,12 +469,13 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
     Raises DataError when there are no readings or no irradiance readings.
     """
     say = progress or (lambda _msg: None)
-    params = parameters(site)
-    step = params["interval_s"]
     latest = align.first_row(con, "SELECT max(file_id) FROM readings")[0]
-    if latest is None:
+    intervals = ingest.channel_intervals(con)
+    if latest is None or not intervals:
         raise DataError(f"{site.path}: no readings in the database yet (run 'perfcheck ingest' "
                         "first)")
+    params = parameters(site, interval_s(intervals))
+    step = params["interval_s"]
     has_irradiance = align.first_row(con, db.sql("model_has_irradiance"))[0]
     if not has_irradiance:
         raise DataError(f"{site.path}: no irradiance readings (poa_wm2 or ghi_wm2) in the "
@@ -492,7 +490,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
         if span is not None:
             start, end = span
             say(f"model: {start:%Y-%m-%d} to {end:%Y-%m-%d}")
-            parts = [_compute(con, site, run_id, step, a, b) for a, b in align.chunks(start, end)]
+            parts = [_compute(con, site, run_id, step, weather_intervals(intervals), a, b)
+                     for a, b in align.chunks(start, end)]
             daily = [p["daily"] for p in parts if p["daily"] is not None]
             result.update(computed_from=start, computed_to=end,
                           rows=sum(p["rows"] for p in parts),
@@ -513,8 +512,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
 
 
 def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
-             start: pd.Timestamp, end: pd.Timestamp) -> dict[str, Any]:
-    intervals = weather_intervals(site)
+             intervals: dict[str, int], start: pd.Timestamp, end: pd.Timestamp
+             ) -> dict[str, Any]:
     back = pd.Timedelta(seconds=max(intervals.values(), default=step))
     weather = hold_coarse_weather(load_weather(con, step, start - back, end), step, intervals)
     weather = weather[weather.index >= start]

@@ -1,13 +1,15 @@
 """The monthly job for cron: new inbox files in, last complete month out, loud only on trouble.
 
-``run_monthly`` takes the lock, ingests the inbox files not seen before, runs the model,
+``run_monthly`` takes the lock, ingests the inbox files not seen before (a file that cannot
+be read, or that no logger matches, is logged and left in the inbox), runs the model,
 checks the month, writes report, JSON and CSV into ``<out_dir>/<YYYY-MM>/`` (replacing the
 folder on a re-run), records the month in the ``history`` table (one row per month) and the
 run in ``runs``, and compares the month with the previous ones.
 
 Exit codes (``EXIT_*``): 0 healthy; 1 underperformance (EPI below 1 - threshold, or too little
 data for a verdict); 3 a critical event (default: any outage); 2 input or configuration error;
-4 another run holds the lock for longer than the wait.
+4 another run holds the lock, or another process the database, for longer than the wait
+(``[report] lock_wait_s``).
 """
 
 from __future__ import annotations
@@ -19,7 +21,6 @@ import glob
 import hashlib
 import logging
 import os
-import shutil
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -29,8 +30,8 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 
-from perfcheck import __version__, db, periods, pipeline, report
-from perfcheck.errors import PerfcheckError, SiteFileError
+from perfcheck import __version__, atomic, db, ingest, periods, pipeline, report
+from perfcheck.errors import DatabaseBusy, LoggerFileError, PerfcheckError, SiteFileError
 from perfcheck.site import Site
 
 EXIT_HEALTHY, EXIT_UNDERPERFORMANCE, EXIT_INPUT, EXIT_CRITICAL, EXIT_BUSY = 0, 1, 2, 3, 4
@@ -77,6 +78,7 @@ class Outcome:
     summary: str
     out_dir: Path | None = None
     new_files: list[str] = field(default_factory=list)
+    skipped: list[str] = field(default_factory=list)  # one line per unreadable inbox file
 
 
 def inbox_files(site: Site) -> list[Path]:
@@ -95,9 +97,27 @@ def inbox_files(site: Site) -> list[Path]:
     return readable
 
 
-def new_files(con: duckdb.DuckDBPyConnection, candidates: list[Path]) -> list[Path]:
+def new_files(con: duckdb.DuckDBPyConnection, site: Site, candidates: list[Path]
+              ) -> tuple[list[Path], list[str]]:
+    """The candidates not ingested before (by sha256) that pass the ingest's whole-file
+    checks, and one line per file skipped because it cannot be read (logged; the file is left
+    in the inbox and tried again next run, so one half-written file blocks nothing)."""
     known = {r[0] for r in con.execute(db.sql("monthly_known_files")).fetchall()}
-    return [p for p in candidates if hashlib.sha256(p.read_bytes()).hexdigest() not in known]
+    fresh, skipped = [], []
+    for p in candidates:
+        try:
+            if hashlib.sha256(p.read_bytes()).hexdigest() in known:
+                continue
+            ingest.check_file(site, p)
+        except OSError as exc:
+            skipped.append(f"{p}: cannot read file ({exc.strerror})")
+        except LoggerFileError as exc:
+            skipped.append(str(exc))
+        else:
+            fresh.append(p)
+            continue
+        log.warning("%s; skipped, left in the inbox", skipped[-1])
+    return fresh, skipped
 
 
 def classify(result: dict, settings: report.ReportSettings) -> tuple[str, int, str]:
@@ -145,12 +165,8 @@ def trend(con: duckdb.DuckDBPyConnection, site: Site, month: str, epi: float | N
 def _write_month(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
                  end: pd.Timestamp, result: dict, target: Path) -> None:
     """Write the month's outputs into a fresh folder, then swap it in for ``target``."""
-    tmp = target.with_name(f".{target.name}.partial")
-    shutil.rmtree(tmp, ignore_errors=True)
-    report.write_report(con, site, start, end, tmp, result=result)
-    if target.exists():
-        shutil.rmtree(target)
-    tmp.rename(target)
+    with atomic.replacing_dir(target, replace=True) as tmp:
+        report.write_report(con, site, start, end, tmp, result=result)
 
 
 def run_monthly(site: Site, db_path: Path, month: str | None = None, out_root: Path | None = None,
@@ -162,7 +178,10 @@ def run_monthly(site: Site, db_path: Path, month: str | None = None, out_root: P
     month = month or periods.last_complete_month(site, now)
     start, end = periods.month_period(site, month)
     with lock(Path(db_path).with_suffix(".monthly.lock"), settings.lock_wait_s):
-        con = db.connect(db_path)
+        try:  # another command (an ingest, a report) may hold the database itself
+            con = db.connect(db_path, wait_s=settings.lock_wait_s)
+        except DatabaseBusy as exc:
+            raise LockBusy(str(exc)) from None
         try:
             return _run_locked(con, site, month, start, end, out_root, settings, command, quiet)
         finally:
@@ -176,7 +195,7 @@ def _run_locked(con: duckdb.DuckDBPyConnection, site: Site, month: str, start: p
     run_id = con.execute(db.sql("monthly_run_insert"), {
         "command": command, "started_at": started, "tool_version": __version__}).fetchone()[0]
     log.info("run %s started: %s", run_id, command)
-    fresh = new_files(con, inbox_files(site))
+    fresh, skipped = new_files(con, site, inbox_files(site))
     log.info("%d new file(s) in the inbox", len(fresh))
     for p in fresh:
         log.info("ingest %s", p)
@@ -200,8 +219,10 @@ def _run_locked(con: duckdb.DuckDBPyConnection, site: Site, month: str, start: p
         "out_dir": str(target), "run_id": run_id})
     summary = (f"perfcheck monthly: {site.name}, {month}: {status.replace('_', ' ').upper()}. "
                f"{reason}. {report.verdict(result, site.timezone)} "
-               f"{len(fresh)} new file(s) ingested. Top events: {top_events(result) or 'none'}. "
+               f"{len(fresh)} new file(s) ingested"
+               f"{f', {len(skipped)} skipped (unreadable, see the log)' if skipped else ''}. "
+               f"Top events: {top_events(result) or 'none'}. "
                f"Trend: {the_trend}. Report: {target / 'report.html'}")
     log.info("run %s finished with exit code %d", run_id, code)
     log.info("%s", summary)
-    return Outcome(month, code, status, summary, target, [str(f) for f in fresh])
+    return Outcome(month, code, status, summary, target, [str(f) for f in fresh], skipped)

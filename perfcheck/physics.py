@@ -544,7 +544,9 @@ def components_from_poa(poa_global: pd.Series, surface_tilt: float, surface_azim
     """GHI, DNI and DHI that explain a measured plane-of-array irradiance (GTI-DIRINT).
 
     Used when the array's plane differs from the sensor's and no GHI is measured: the sensor's
-    irradiance is decomposed here and transposed again into the array's plane.
+    irradiance is decomposed here and transposed again into the array's plane. GTI-DIRINT
+    needs some times with the sun in front of the sensor (AOI < 90); without any (a stray
+    night-time row) every component is NaN.
 
     Parameters
     ----------
@@ -562,6 +564,9 @@ def components_from_poa(poa_global: pd.Series, surface_tilt: float, surface_azim
     """
     aoi = pvlib.irradiance.aoi(surface_tilt, surface_azimuth, solpos["apparent_zenith"],
                                solpos["azimuth"])
+    if not (aoi < 90).any():  # no sun in front of the sensor (night rows only): no estimate,
+        nan = pd.Series(np.nan, index=poa_global.index)  # as GTI-DIRINT gives such rows
+        return pd.DataFrame({"ghi": nan, "dni": nan, "dhi": nan})
     with warnings.catch_warnings():  # points that do not converge keep pvlib's best estimate
         warnings.simplefilter("ignore", RuntimeWarning)
         out = pvlib.irradiance.gti_dirint(poa_global, aoi, solpos["apparent_zenith"],

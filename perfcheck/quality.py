@@ -50,7 +50,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from perfcheck import db, physics
+from perfcheck import db, ingest, physics
 from perfcheck.site import Site
 
 # Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
@@ -100,23 +100,22 @@ REST_LEVEL = {"ac_power_w": 0.0, "dc_power_w": 0.0, "energy_interval_wh": 0.0, "
               "ghi_wm2": 0.0, "dhi_wm2": 0.0, "dni_wm2": 0.0, "wind_speed_ms": 0.5}
 
 
-def channel_limits(site: Site) -> pd.DataFrame:
+def channel_limits(site: Site, intervals: dict[tuple[str, str], int]) -> pd.DataFrame:
     """One row per logged channel: its interval, rating and fixed range.
+
+    ``intervals`` is the logging interval [s] per (quantity, device), as stored at ingest
+    (:func:`perfcheck.ingest.channel_intervals`).
 
     Columns: quantity, device, interval_min, rating_w (AC rating of the inverter, or of the
     plant: sum of ratings, capped by the export limit; missing for weather), lo, hi (missing:
     no limit), rest_level (at or below it the quantity may hold still; missing: none).
     """
-    rows = {}
-    for lg in site.loggers:
-        for col in lg.columns:
-            key = (col.stored, col.device)
-            if key in rows:
-                rows[key][2] = min(rows[key][2], lg.interval_min)
-                continue
-            rows[key] = [col.stored, col.device, lg.interval_min]
+    known = {"site", "plant"} | {inv.id for inv in site.inverters}
     out = []
-    for quantity, device, interval in rows.values():
+    for (quantity, device), seconds in sorted(intervals.items()):
+        if device not in known:  # an inverter no longer in the site file has no rating
+            continue
+        interval = seconds // 60
         rating = _rating_w(site, device)
         dc = _dc_w(site, device)
         lo, hi = LIMITS.get(quantity, (None, None))
@@ -130,7 +129,8 @@ def channel_limits(site: Site) -> pd.DataFrame:
     frame = pd.DataFrame(out, columns=["quantity", "device", "interval_min", "rating_w",
                                        "lo", "hi", "rest_level"])
     # nullable floats: a missing limit reaches SQL as NULL, not NaN
-    return frame.astype({c: "Float64" for c in ("rating_w", "lo", "hi", "rest_level")})
+    return frame.astype({"interval_min": "int64",
+                         **{c: "Float64" for c in ("rating_w", "lo", "hi", "rest_level")}})
 
 
 def _rating_w(site: Site, device: str) -> float:
@@ -194,9 +194,18 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
     return pd.concat(frames, ignore_index=True)
 
 
+def stale(con: duckdb.DuckDBPyConnection) -> bool:
+    """True when files were ingested after the flags were last computed (a run killed
+    between a file's commit and the flags' commit, or flags never computed)."""
+    newest, state = con.execute("SELECT (SELECT max(file_id) FROM source_files), "
+                                "(SELECT max(last_file_id) FROM quality_state)").fetchall()[0]
+    return newest is not None and newest != state
+
+
 def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
-    """Recompute all flags from the stored readings; returns the count per flag name."""
-    channels = channel_limits(site)
+    """Recompute all flags from the stored readings, in one transaction that also records the
+    newest file they include (see :func:`stale`); returns the count per flag name."""
+    channels = channel_limits(site, ingest.channel_intervals(con))
     sun = _sun_for_readings(con, site, channels)
     params = {
         "stuck_minutes": STUCK_MINUTES,
@@ -221,6 +230,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
                 query = db.sql(f"quality_{name}")
                 used = {k: v for k, v in params.items() if re.search(rf"\${k}\b", query)}
                 con.execute(query, used)
+            con.execute("DELETE FROM quality_state")
+            con.execute("INSERT INTO quality_state SELECT max(file_id) FROM source_files")
             con.execute("COMMIT")
         except BaseException:
             con.execute("ROLLBACK")
@@ -232,4 +243,4 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
 
 
-__all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "sun_table"]
+__all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "stale", "sun_table"]

@@ -7,6 +7,9 @@ Every error names the key path (``inverters[1].arrays[0].tilt_deg``) and what wa
 from __future__ import annotations
 
 import datetime as dt
+import fnmatch
+import math
+import re
 import tomllib
 import zoneinfo
 from dataclasses import dataclass, field
@@ -192,17 +195,31 @@ class Site:
         raise KeyError(inverter_id)
 
     def logger_for(self, filename: str) -> Logger:
-        """The logger whose ``match`` glob fits the file's name (first match wins)."""
-        import fnmatch
-
+        """The logger whose ``match`` glob fits the file's name: of several, the most specific
+        glob (:func:`glob_specificity`); two equally specific matches are an error."""
         name = Path(filename).name
-        for lg in self.loggers:
-            if fnmatch.fnmatch(name, lg.match):
-                return lg
-        globs = ", ".join(repr(lg.match) for lg in self.loggers)
-        raise SiteFileError(
-            f"{filename}: no [[loggers]] entry matches this file name (match globs: {globs})"
-        )
+        matches = [lg for lg in self.loggers if fnmatch.fnmatch(name, lg.match)]
+        if not matches:
+            globs = ", ".join(repr(lg.match) for lg in self.loggers)
+            raise SiteFileError(
+                f"{filename}: no [[loggers]] entry matches this file name (match globs: {globs})"
+            )
+        best = max(glob_specificity(lg.match) for lg in matches)
+        top = [lg for lg in matches if glob_specificity(lg.match) == best]
+        if len(top) > 1:
+            a, b = top[:2]
+            raise SiteFileError(
+                f"{filename}: [[loggers]] {a.name!r} (match {a.match!r}) and {b.name!r} (match "
+                f"{b.match!r}) match this file name equally well; make one match more specific"
+            )
+        return top[0]
+
+
+def glob_specificity(pattern: str) -> tuple[int, int]:
+    """How specific a file-name glob is: (literal characters, one-character wildcards ``?`` and
+    ``[...]``); a pattern with more literal characters is more specific, ``*`` the least."""
+    body = re.sub(r"\[[^\]]*\]", "?", pattern)
+    return sum(c not in "*?" for c in body), body.count("?")
 
 
 # --------------------------------------------------------------------------------------------
@@ -235,6 +252,8 @@ class Table:
         if not isinstance(value, kind) or (isinstance(value, bool) and kind is not bool):
             got = type(value).__name__
             raise self._err(key, f"expected {_kind_name(kind)}, got {got} {value!r}")
+        if isinstance(value, float) and not math.isfinite(value):
+            raise self._err(key, f"expected a finite number, got {value!r}")
         if choices is not None and value not in choices:
             raise self._err(key, f"{value!r} is not one of {', '.join(map(repr, choices))}")
         return value
@@ -411,6 +430,9 @@ def load_site(path: str | Path) -> Site:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SiteFileError(f"{path}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise SiteFileError(f"{path}: not a usable site file: arrays or tables nested too deep "
+                            "for the TOML reader") from None
     return parse_site(raw, path)
 
 

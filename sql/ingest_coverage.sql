@@ -1,10 +1,9 @@
 -- Data coverage per channel and site-local month: intervals expected between the channel's
 -- first and last reading, intervals present, their share, and quarantined lines (by the month
 -- of the line's instant) of the files of the loggers that carry the channel.
--- _coverage_channels(logger, quantity, device, interval_min) is registered by the caller.
+-- Intervals are those stored at ingest (view channel_intervals, table loggers).
 WITH chan AS (
-    SELECT quantity, device, min(interval_min) AS interval_min
-    FROM _coverage_channels GROUP BY ALL
+    SELECT quantity, device, interval_min FROM channel_intervals
 ),
 span AS (
     SELECT v.channel_id, c.quantity, c.device, i.interval_min,
@@ -37,7 +36,9 @@ quar AS (
            count(*) AS n
     FROM quarantine q
     JOIN source_files f USING (file_id)
-    JOIN _coverage_channels i ON i.logger = f.logger
+    JOIN loggers l ON l.name = f.logger
+    JOIN logger_channels lc USING (logger_id)
+    JOIN channels i USING (channel_id)
     GROUP BY ALL
 )
 SELECT strftime(b.month_start, '%Y-%m') AS month, b.quantity, b.device,

@@ -45,6 +45,20 @@ CREATE TABLE IF NOT EXISTS logger_channels (
     PRIMARY KEY (logger_id, channel_id)
 );
 
+-- Each logger's interval [min], as its files were read (the site file's interval_min at the
+-- latest ingest): later stages read it here, not from the site file.
+ALTER TABLE loggers ADD COLUMN IF NOT EXISTS interval_min SMALLINT;
+
+-- The logging interval [min] of each (quantity, device): the shortest of the loggers that
+-- carry it.
+CREATE OR REPLACE VIEW channel_intervals AS
+SELECT c.quantity, c.device, min(l.interval_min) AS interval_min
+FROM logger_channels lc
+JOIN loggers l USING (logger_id)
+JOIN channels c USING (channel_id)
+WHERE l.interval_min IS NOT NULL
+GROUP BY c.quantity, c.device;
+
 -- Long rows written directly (by tests' fixtures or an importer that has no logger file); the
 -- ingest itself writes the logger tables. Part of channel_values.
 CREATE TABLE IF NOT EXISTS reading_values (

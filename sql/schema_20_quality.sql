@@ -8,3 +8,10 @@ CREATE TABLE IF NOT EXISTS flags (
     flag     VARCHAR NOT NULL,
     detail   VARCHAR
 );
+
+-- The newest ingested file whose readings the flags were computed with, written in the same
+-- transaction as the flags: a run killed before its commit leaves it behind source_files, so
+-- the next ingest (or model) run sees the flags are stale and recomputes them.
+CREATE TABLE IF NOT EXISTS quality_state (
+    last_file_id INTEGER
+);

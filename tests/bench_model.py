@@ -86,8 +86,10 @@ def write_readings(site_path: str, db_path: str) -> None:
             "wind_speed_ms": rng.uniform(0, 6, len(times))}
     con.execute("INSERT INTO source_files VALUES (1, 'bench', 'minute', '', 0, 0, 0, 0, 0, 0, "
                 "NULL, NULL, now(), 'bench')")
+    con.execute("INSERT INTO loggers (logger_id, name, interval_min) VALUES (1, 'minute', 1)")
     for cid, (quantity, values) in enumerate(cols.items(), 1):
         con.execute("INSERT INTO channels VALUES (?, ?, 'site')", [cid, quantity])
+        con.execute("INSERT INTO logger_channels VALUES (1, ?)", [cid])
         part = pd.DataFrame({"ts": times, "channel_id": cid, "value": values, "file_id": 1,
                              "line": np.arange(len(times)) + 2})
         con.register("_part", part)

@@ -127,6 +127,10 @@ def connect_with(
     con.execute(f"INSERT INTO aligned_base ({cols}) SELECT {cols} FROM _aligned_frame")
     con.unregister("_aligned_frame")
     con.execute("INSERT INTO align_state VALUES (1, 0)")
+    # the 15-minute logger of site_raw, as the ingest stores it
+    con.execute("INSERT INTO loggers (logger_id, name, interval_min) VALUES (1, 'main', 15)")
+    con.execute("INSERT INTO channels VALUES (1, 'ac_power_w', 'WR1')")
+    con.execute("INSERT INTO logger_channels VALUES (1, 1)")
     if flags is not None:
         con.register("_flags_frame", flags.assign(detail=""))
         con.execute("INSERT INTO flags SELECT ts, quantity, device, flag, detail FROM _flags_frame")

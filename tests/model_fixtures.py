@@ -113,8 +113,16 @@ def open_db(folder: Path) -> duckdb.DuckDBPyConnection:
 
 
 def store(con: duckdb.DuckDBPyConnection, frame: pd.DataFrame, device: str,
-          file_id: int = 1) -> None:
-    """Store the columns of ``frame`` (quantity names, index ts) as readings of ``device``."""
+          file_id: int = 1, interval_min: int = 15) -> None:
+    """Store the columns of ``frame`` (quantity names, index ts) as readings of ``device``,
+    logged by a logger of ``interval_min`` (15, as in SITE_TOML; the ingest stores it)."""
+    name = f"fixture_{interval_min}"
+    found = con.execute("SELECT logger_id FROM loggers WHERE name = ?", [name]).fetchall()
+    if not found:
+        found = con.execute("INSERT INTO loggers (logger_id, name, interval_min) "
+                            "SELECT coalesce(max(logger_id), 0) + 1, ?, ? FROM loggers "
+                            "RETURNING logger_id", [name, interval_min]).fetchall()
+    logger_id = found[0][0]
     for quantity in frame.columns:
         rows = con.execute("SELECT channel_id FROM channels WHERE quantity = ? AND device = ?",
                            [quantity, device]).fetchall()
@@ -124,6 +132,7 @@ def store(con: duckdb.DuckDBPyConnection, frame: pd.DataFrame, device: str,
             con.execute("INSERT INTO channels VALUES (?, ?, ?)", [cid, quantity, device])
         else:
             cid = rows[0][0]
+        con.execute("INSERT OR IGNORE INTO logger_channels VALUES (?, ?)", [logger_id, cid])
         s = frame[quantity].dropna()
         part = pd.DataFrame({"ts": s.index, "channel_id": cid, "value": s.to_numpy(dtype=float),
                              "file_id": file_id, "line": np.arange(len(s)) + 2})

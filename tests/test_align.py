@@ -43,7 +43,7 @@ def test_measured_power_prefers_ac_then_energy_then_register(tmp_path):
         "register_wh": [np.nan, np.nan, np.nan, 0.0, 500.0, 1000.0],
         "register_ts": list(ts) * 2,
     })
-    out = align.measured_power(raw, site, 900).set_index(["inverter_id", "ts"])
+    out = align.measured_power(raw, site, 900, {}).set_index(["inverter_id", "ts"])
     inv1 = out.loc["INV1", "measured_ac_w"]
     assert_allclose(inv1.iloc[:2], [1000.0, 1200.0])  # 300 Wh per 15 min = 1200 W
     assert np.isnan(inv1.iloc[2])

@@ -276,3 +276,130 @@ def test_evidence_keeps_an_existing_bundle_without_force(tmp_path, monkeypatch):
     r = CliRunner().invoke(main, [*args, "--force"])
     assert r.exit_code == 0, r.output
     assert r.output.startswith(f"bundle: {out} (1 files)")
+
+
+# --------------------------------------------------------------------------------------------
+# fuzz findings of issue 10: verify never reads outside the bundle, caps what it extracts, and
+# answers a malformed bundle with one line and exit 2
+
+
+def resign(path: Path, name: str, data: bytes) -> None:
+    """Replace member ``name`` and write a manifest that matches (as a forger would)."""
+    with zipfile.ZipFile(path) as z:
+        members = {n: z.read(n) for n in z.namelist() if n != evidence.MANIFEST}
+    members[name] = data
+    manifest = json.dumps(evidence.manifest_for(members)).encode()
+    with zipfile.ZipFile(path, "w") as z:
+        z.writestr(evidence.MANIFEST, manifest)
+        for n, d in members.items():
+            z.writestr(n, d)
+
+
+def _verify_cli(path: Path):
+    return CliRunner().invoke(main, ["verify", str(path)])
+
+
+def test_site_file_outside_the_bundle_is_refused(bundle, tmp_path):
+    outside = tmp_path / "elsewhere.toml"
+    outside.write_text("[site]\n")
+    with zipfile.ZipFile(bundle[0]) as z:
+        info = json.loads(z.read("bundle.json"))
+    for where in (str(outside), "../elsewhere.toml", "site/other.toml"):
+        resign(bundle[0], "bundle.json", json.dumps({**info, "site_file": where}).encode())
+        r = _verify_cli(bundle[0])
+        assert r.exit_code == 2, r.output
+        assert r.stderr == (f"perfcheck: error: bundle.json: site_file {where!r} is not a file "
+                            "of the bundle\n")
+
+
+@pytest.mark.parametrize("member, data, message", [
+    (evidence.MANIFEST, b"[]", "MANIFEST.json: not a perfcheck manifest (expected \"files\": "
+                               "{name: {sha256, block_bytes, blocks}})"),
+    (evidence.MANIFEST, b"{not json", "MANIFEST.json: not valid JSON (Expecting property name "
+                                      "enclosed in double quotes: line 1 column 2 (char 1))"),
+])
+def test_malformed_manifest_exit_2(bundle, member, data, message):
+    rewrite(bundle[0], member, lambda b: data)
+    r = _verify_cli(bundle[0])
+    assert (r.exit_code, r.stderr) == (2, f"perfcheck: error: {message}\n")
+
+
+@pytest.mark.parametrize("info, message", [
+    (b"[1]", "bundle.json: expected a JSON object"),
+    (b'{"site_file": "site/site.toml", "raw_files": "raw/x.csv"}',
+     "bundle.json: raw_files: expected a list of member names"),
+    (b'{"site_file": "site/site.toml", "raw_files": ["/etc/passwd"]}',
+     "bundle.json: raw_files: '/etc/passwd' is not a file of the bundle"),
+    (b'{"site_file": "site/site.toml", "raw_files": [], "period": {"start": "2025-06-01"}}',
+     "bundle.json: period: expected start and end as ISO 8601 with an offset ('end')"),
+])
+def test_malformed_bundle_json_exit_2(bundle, info, message):
+    resign(bundle[0], "bundle.json", info)
+    r = _verify_cli(bundle[0])
+    assert (r.exit_code, r.stderr) == (2, f"perfcheck: error: {message}\n")
+
+
+def test_zip_bomb_refused_by_declared_size(tmp_path, monkeypatch):
+    # the caps are lowered so that the test needs kilobytes, not gigabytes: the rule is the
+    # same (the declared size is checked before anything is read)
+    monkeypatch.setattr(evidence, "MAX_MEMBER_BYTES", 10_000)
+    monkeypatch.setattr(evidence, "MAX_BUNDLE_BYTES", 15_000)
+    bomb = tmp_path / "bomb.zip"
+    with zipfile.ZipFile(bomb, "w", zipfile.ZIP_DEFLATED) as z:
+        z.writestr("zeros.bin", bytes(50_000))  # 50 kB of zeros deflate to about 100 bytes
+    r = _verify_cli(bomb)
+    assert (r.exit_code, r.stderr) == (
+        2, f"perfcheck: error: {bomb}: member 'zeros.bin' declares 50,000 bytes, over the cap "
+           "of 10,000; not extracted\n")
+    with zipfile.ZipFile(bomb, "w", zipfile.ZIP_DEFLATED) as z:
+        z.writestr("a.bin", bytes(8_000))
+        z.writestr("b.bin", bytes(8_000))
+    r = _verify_cli(bomb)
+    assert (r.exit_code, r.stderr) == (
+        2, f"perfcheck: error: {bomb}: members declare 16,000 bytes in all, over the cap of "
+           "15,000; not extracted\n")
+
+
+def test_member_larger_than_declared_is_not_read_past_its_size(tmp_path):
+    # a forged local header that declares 10 bytes for 50,000: the reader stops at the
+    # declared size and the CRC check fails, so the bundle is refused as unreadable
+    bomb = tmp_path / "liar.zip"
+    with zipfile.ZipFile(bomb, "w", zipfile.ZIP_DEFLATED) as z:
+        z.writestr("zeros.bin", bytes(50_000))
+    data = bytearray(bomb.read_bytes())
+    size = (50_000).to_bytes(4, "little")
+    for at in [i for i in range(len(data) - 3) if data[i:i + 4] == size]:
+        data[at:at + 4] = (10).to_bytes(4, "little")  # local and central uncompressed sizes
+    bomb.write_bytes(bytes(data))
+    r = _verify_cli(bomb)
+    assert r.exit_code == 2
+    assert r.stderr.startswith(f"perfcheck: error: {bomb}: not a readable zip file (")
+
+
+def test_bundle_write_failure_leaves_no_partial_zip(tmp_path, monkeypatch):
+    # a full disk while the zip is written: one line (OutputError), no claim.zip, no .part
+    site = write_site(tmp_path)
+    raw = tmp_path / "box_2025-06.csv"
+    raw.write_text(RAW)
+    con = db.connect(tmp_path / "site.duckdb")
+    add_file(con, str(raw), hashlib.sha256(raw.read_bytes()).hexdigest(), raw.stat().st_size)
+    start, end = periods.month_period(site, "2025-06")
+    out = tmp_path / "out"
+    calls = []
+
+    def full_disk(self, info, data, *a, **k):
+        calls.append(info)
+        if len(calls) > 3:
+            raise OSError(28, "No space left on device")
+        return writestr(self, info, data, *a, **k)
+
+    writestr = zipfile.ZipFile.writestr
+    monkeypatch.setattr(align, "load_aligned", lambda *a, **k: example_aligned())
+    monkeypatch.setattr(zipfile.ZipFile, "writestr", full_disk)
+    with pytest.raises(PerfcheckError) as err:
+        evidence.build_bundle(con, site, start, end, out / "claim.zip", "perfcheck evidence",
+                              result=checked(site, example_check()))
+    con.close()
+    assert str(err.value) == (f"{out / 'claim.zip'}: cannot write (No space left on device); "
+                              "nothing was written")
+    assert list(out.iterdir()) == []

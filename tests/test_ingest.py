@@ -14,7 +14,13 @@ from logger_files import logger_toml, run_ingest, write_case
 from numpy.testing import assert_allclose
 
 from perfcheck import db
-from perfcheck.ingest import coverage_summary, expand_paths, ingest_files, logger_files
+from perfcheck.ingest import (
+    channel_intervals,
+    coverage_summary,
+    expand_paths,
+    ingest_files,
+    logger_files,
+)
 from perfcheck.site import load_site
 
 UTC = dt.UTC
@@ -392,11 +398,16 @@ def _db_state(path):
         ("empty.csv", b"", "{f}: empty file (0 bytes, no lines)"),
         ("blank.csv", b"\xef\xbb\xbf\r\n\r\n", "{f}: empty file (7 bytes, no lines)"),
         ("header.csv", b"ts,P,G\r\n", "{f}: empty file (no data lines after the header, line 1)"),
-        ("latin1.csv", "ts,P,G\n2024-06-01 10:00,1,2\n2024-06-01 10:05,1,\xb0\n".encode("latin-1"),
-         "{f}: line 3: byte 0xb0 at column 20 is not UTF-8 (save the file as UTF-8)"),
-        ("cut.csv", b"ts,P,G\n2024-06-01 10:00,1,2\n2024-06-01 10:05,1",
-         "{f}: line 3: truncated last line (2 of 3 fields, no line end): the file may still be "
-         "being written"),
+        # a header that is not UTF-8 (a data line that is not is quarantined, see
+        # test_fuzz_findings.py)
+        ("latin1.csv", "ts,P,G \xb0C\n2024-06-01 10:00,1,2\n".encode("latin-1"),
+         "{f}: line 1: byte 0xb0 at column 8 is not UTF-8 (save the file as UTF-8)"),
+        # fuzz findings (issue 10): a header ending in a lone CR, a 128 kB header field
+        ("cr.csv", b"ts,P,G\r2024-06-01 10:00,1,2\n",
+         "{f}: line 1: holds a carriage return (CR) not followed by a line feed; save the file "
+         "with LF or CRLF line ends"),
+        ("wide.csv", b"ts,P,G" + b"x" * 131072 + b"\n2024-06-01 10:00,1,2\n",
+         "{f}: line 1: cannot be split into fields (field larger than field limit (131072))"),
         ("semicolon.csv", b"ts;P;G\n2024-06-01 10:00;1;2\n",
          "{f}: line 1: no column 'ts' (mapped in [[loggers]] 'main'); found 1 column(s) with "
          "delimiter ',': 'ts;P;G'; the header holds ';': is delimiter ',' right?"),
@@ -533,3 +544,68 @@ def test_dst_autumn_with_interval_end_labels(tmp_path):
                              freq="15min")
     assert list(series(con, "ac_power_w").index) == list(expected)
     assert expected[7] + pd.Timedelta(minutes=15) == change  # the one ending at 01:00 UTC
+
+
+def test_each_loggers_interval_is_stored_and_read_back(tmp_path):
+    # issue 9: later stages read the interval stored at ingest, not the site file again
+    con, site, _ = ingest(tmp_path, "ts,P,G\n2024-06-01 10:00,1,100\n2024-06-01 10:05,1,100\n")
+    assert con.execute("SELECT name, interval_min FROM loggers").fetchall() == [("main", 5)]
+    assert channel_intervals(con) == {("ac_power_w", "INV1"): 300, ("poa_wm2", "site"): 300}
+    # a second logger carrying the same channel at 1 minute: the shortest interval wins
+    other = tmp_path / "fast.dat"
+    other.write_text("ts,P\n2024-06-01 11:00,1\n")
+    (tmp_path / "site.toml").write_text((tmp_path / "site.toml").read_text() + "\n" + logger_toml(
+        name="fast", match="*.dat", interval_min=1, columns=(("P", "ac_power", "kW", "INV1"),)))
+    ingest_files(con, load_site(tmp_path / "site.toml"), [other])
+    assert channel_intervals(con) == {("ac_power_w", "INV1"): 60, ("poa_wm2", "site"): 300}
+
+
+@pytest.mark.parametrize("units", ['"";"[KW]";"W/m²"', '"";"kW";"W/m^2"', ';;'])
+def test_units_row_agrees_with_the_site_file(tmp_path, units):
+    # spellings of the same unit, and a units row that leaves a column blank
+    body = f'"ts";"P";"G"\n{units}\n"2024-06-01 10:00";"1,5";"500"\n'
+    _, _, (res,) = ingest(tmp_path, body, delimiter=";", decimal=",", units_row=True)
+    assert res.rows_loaded == 1
+
+
+def test_units_row_that_disagrees_refuses_the_file(tmp_path):
+    # issue 10: AC power written in kW under a site file saying W became a false outage
+    site, log = write_case(tmp_path, "ts,P,G\n,kW,W/m2\n2024-06-01 10:00,48.857,500\n",
+                           units_row=True,
+                           columns=(("P", "ac_power", "W", "INV1"), ("G", "poa", "W/m2", None)))
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == (
+        f"perfcheck: error: {log}: line 2: column 'P' is in 'kW' by the units row but in 'W' "
+        "by [[loggers]] 'main'; correct the unit in the site file (or, for one file, add a "
+        "[[loggers]] entry whose match names it)\n")
+
+
+def test_quarantine_command_lists_lines_and_counts(tmp_path):
+    # issue 10 item 7: the quarantined lines of MIXED (above), with their reasons, made visible
+    from click.testing import CliRunner
+
+    from perfcheck.cli import main
+
+    site, log = write_case(tmp_path, MIXED + "2024-06-01 10:25,y,600\n")
+    assert run_ingest(site, log).exit_code == 0
+    out_csv = tmp_path / "q.csv"
+    r = CliRunner().invoke(main, ["quarantine", str(site), "--limit", "2", "--csv",
+                                  str(out_csv)])
+    assert r.exit_code == 0, r.output
+    assert r.output.splitlines() == [
+        f"{log}:3: column P: 'x' is not a number",
+        "    2024-06-01 10:05,x,100",
+        f"{log}:7: same time as line 5 with different values (see table conflicts)",
+        "    2024-06-01 10:10,3,200",
+        "... 3 more line(s) not shown (--limit)",
+        "counts by reason:",
+        "        2  column P: '...' is not a number",
+        "        1  same time as line 5 with different values (see table conflicts)",
+        "        1  2 fields where the header has 3",
+        "        1  time '...' does not match the format '...'",
+        "total: 5 quarantined line(s) in 1 file(s)",
+    ]
+    listed = pd.read_csv(out_csv)
+    assert list(listed.columns) == ["file", "line", "ts", "reason", "raw"]
+    assert list(listed["line"]) == [3, 7, 8, 9, 11]

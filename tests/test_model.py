@@ -136,10 +136,12 @@ def test_modelled_poa_expected_power_beside_the_sensor_one(tmp_path):
 
 
 def test_parameters_hash_changes_with_the_design(tmp_path):
-    a = model.parameters_hash(model.parameters(make_site(tmp_path)))
-    b = model.parameters_hash(model.parameters(make_site(tmp_path, losses="wiring_pct = 3.0")))
+    a = model.parameters_hash(model.parameters(make_site(tmp_path), 900))
+    b = model.parameters_hash(model.parameters(make_site(tmp_path, losses="wiring_pct = 3.0"),
+                                               900))
     assert a != b
-    assert a == model.parameters_hash(model.parameters(make_site(tmp_path)))
+    assert a == model.parameters_hash(model.parameters(make_site(tmp_path), 900))
+    assert a != model.parameters_hash(model.parameters(make_site(tmp_path), 300))
 
 
 def test_run_stores_and_computes_only_what_is_new(tmp_path):
@@ -199,8 +201,11 @@ def test_run_failure_keeps_what_was_stored(tmp_path):
 
 
 def test_model_interval_and_coarse_weather_held(tmp_path):
-    site = make_site(tmp_path)
-    assert model.interval_s(site) == 900
+    # the model runs at the power channels' interval (stored at ingest), weather held over its own
+    stored = {("ac_power_w", "INV1"): 300, ("ghi_wm2", "site"): 600, ("rain_mm", "site"): 600}
+    assert model.interval_s(stored) == 300
+    assert model.interval_s({("ghi_wm2", "site"): 600}) == 600
+    assert model.weather_intervals(stored) == {"ghi": 600, "rain": 600}
     idx = pd.date_range("2024-06-01 10:00", periods=3, freq="10min", tz="UTC")
     w = pd.DataFrame({"ghi": [100.0, 200.0, 300.0], "rain": [1.0, 0.0, 2.0]}, index=idx)
     w = w.reindex(w.index.union(idx[:2] + pd.Timedelta(minutes=5)))

@@ -197,3 +197,59 @@ def test_demo_months_through_the_real_stages(tmp_path):
         shutil.copy(p, inbox / p.name)
     assert run(tmp_path, "--month", "2024-07").exit_code in (0, 1, 3)
     assert [row[0] for row in history(tmp_path)] == ["2024-06", "2024-07"]
+
+
+def _hold_database(path: str, ready: str, release: str) -> None:
+    import pathlib
+    import time
+
+    import duckdb
+
+    con = duckdb.connect(path)  # DuckDB's file lock: no other process may open it
+    pathlib.Path(ready).touch()
+    while not pathlib.Path(release).exists():
+        time.sleep(0.05)
+    con.close()
+
+
+def test_database_held_by_another_process_waits_then_exit_4(job):
+    # fuzz finding of issue 10: this exited 2 at once ("cannot open database")
+    import multiprocessing as mp
+    import time
+
+    tmp, _ = job
+    write_site(tmp, "[report]\nlock_wait_s = 0.5\n")
+    db.connect(tmp / "site.duckdb").close()
+    ready, release = tmp / "ready", tmp / "release"
+    child = mp.get_context("spawn").Process(
+        target=_hold_database, args=(str(tmp / "site.duckdb"), str(ready), str(release)))
+    child.start()
+    try:
+        deadline = time.monotonic() + 60
+        while not ready.exists() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        r = run(tmp, "--month", "2025-06")
+    finally:
+        release.touch()
+        child.join()
+    assert r.exit_code == 4, r.output
+    assert r.stderr == (f"perfcheck: error: {tmp / 'site.duckdb'}: another process holds the "
+                        "database; gave up after 0.5 s\n")
+    assert run(tmp, "--month", "2025-06").exit_code == 0  # free again once released
+
+
+def test_unreadable_inbox_files_are_logged_and_skipped(job):
+    # issue 10: one half-written or foreign file in the inbox blocked every month
+    tmp, state = job
+    write_site(tmp, "")
+    (tmp / "inbox" / "box_2025-05.csv").write_bytes(b"")  # empty: a copy still starting
+    (tmp / "inbox" / "box_other.csv").write_text("x;y\n1;2\n")  # no 'time' column
+    r = run(tmp, "--month", "2025-06", "--verbose")
+    assert r.exit_code == 0, r.output
+    assert state["ingested"] == ["box_2025-06.csv"]
+    log = (tmp / "reports" / "perfcheck-monthly.log").read_text()
+    assert f"{tmp / 'inbox' / 'box_2025-05.csv'}: empty file (0 bytes, no lines); skipped, " \
+           "left in the inbox" in log
+    assert f"{tmp / 'inbox' / 'box_other.csv'}: line 1: no column 'time'" in log
+    assert "notes.csv: no [[loggers]] entry matches this file name; left in the inbox" in log
+    assert "1 new file(s) ingested, 2 skipped (unreadable, see the log)" in r.output

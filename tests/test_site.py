@@ -6,6 +6,8 @@ import pytest
 from logger_files import DEFAULT_COLUMNS, logger_toml, run_ingest, write_case
 
 from perfcheck import db
+from perfcheck.errors import SiteFileError
+from perfcheck.report import report_settings
 from perfcheck.site import load_site
 
 GOOD = "ts,P,G\n2024-06-01 10:00,1,100\n"
@@ -53,6 +55,11 @@ def _edit(site, old, new):
          "format specifier %Y-%m-%d %Q: Unrecognized format for strftime/strptime: %Q)"),
         ("[site]", "[site", "not valid TOML: Expected ']' at the end of a table declaration "
                             "(at line 1, column 6)"),
+        # fuzz findings (issue 10): NaN and inf pass a range check (every comparison is false)
+        ("latitude_deg = 48.0", "latitude_deg = nan",
+         "site.latitude_deg: expected a finite number, got nan"),
+        ("ac_kw = 10", "ac_kw = inf", "inverters[0].ac_kw: expected a finite number, got inf"),
+        ("ac_kw = 10", "ac_kw = -inf", "inverters[0].ac_kw: expected a finite number, got -inf"),
     ],
 )
 def test_site_file_errors(tmp_path, old, new, message):
@@ -91,3 +98,52 @@ def test_units_and_rollover_are_read(tmp_path):
     col = load_site(site).loggers[0].columns[0]
     # 100 MWh = 1e8 Wh (SI prefix M = 1e6, BIPM SI Brochure 9th ed. 2019)
     assert (col.stored, col.device, col.rollover_wh) == ("energy_register_wh", "plant", 1e8)
+
+
+def test_nan_in_a_later_section_is_refused(tmp_path):
+    # underperformance_threshold_pct = nan silently turned the monthly alert off
+    site, _ = write_case(tmp_path, GOOD)
+    site.write_text(site.read_text() + "\n[report]\nunderperformance_threshold_pct = nan\n")
+    with pytest.raises(SiteFileError) as err:
+        report_settings(load_site(site))
+    assert str(err.value) == (f"{site}: report.underperformance_threshold_pct: expected a "
+                              "finite number, got nan")
+
+
+def test_deeply_nested_array_gives_one_line(tmp_path):
+    # 5,000 nested arrays exhaust Python's recursion limit inside tomllib
+    site, log = write_case(tmp_path, GOOD)
+    site.write_text(site.read_text() + "\n[report]\ndeep = " + "[" * 5000 + "]" * 5000 + "\n")
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == (f"perfcheck: error: {site}: not a usable site file: arrays or "
+                             "tables nested too deep for the TOML reader\n")
+
+
+def test_most_specific_logger_match_wins(tmp_path):
+    # issue 10: a quarterly file that wrote kW where the others write W needs its own entry
+    general = logger_toml(name="all", match="*.csv",
+                          columns=(("P", "ac_power", "W", "INV1"), ("G", "poa", "W/m2", None)))
+    special = logger_toml(name="q3_in_kw", match="log_2024-q3.csv")
+    site, log = write_case(tmp_path, "ts,P,G\n2024-07-01 10:00,1.5,100\n",
+                           filename="log_2024-q3.csv", loggers=general + special)
+    loaded = load_site(site)
+    assert loaded.logger_for(str(log)).name == "q3_in_kw"
+    assert loaded.logger_for("log_2024-q2.csv").name == "all"
+    assert run_ingest(site, log).exit_code == 0
+    con = db.connect(tmp_path / "site.duckdb")
+    # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019)
+    assert con.execute("SELECT value FROM readings WHERE quantity = 'ac_power_w'").fetchall() \
+        == [(1500.0,)]
+    con.close()
+
+
+def test_two_equally_specific_matches_are_an_error(tmp_path):
+    loggers = logger_toml(name="first", match="log*.csv") + logger_toml(name="second",
+                                                                        match="*log.csv")
+    site, log = write_case(tmp_path, GOOD, loggers=loggers)
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == (f"perfcheck: error: {log}: [[loggers]] 'first' (match 'log*.csv') "
+                             "and 'second' (match '*log.csv') match this file name equally "
+                             "well; make one match more specific\n")

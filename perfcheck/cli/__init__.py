@@ -22,6 +22,7 @@ from perfcheck import __version__, progress
 COMMANDS: dict[str, tuple[str, str]] = {
     "demo": ("demo", "Run every stage on the invented demo plant, inside one folder."),
     "ingest": ("ingest", "Load logger files into the site database, with the accounting."),
+    "quarantine": ("ingest", "List the quarantined lines of the logger files, with counts."),
     "model": ("model", "Build the expected power series; expected against measured energy."),
     "analyse": ("analysis", "Analyse the whole stored history once and store the findings."),
     "check": ("check", "Yields, performance ratios, availability per month; the findings."),

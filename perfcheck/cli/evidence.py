@@ -62,7 +62,8 @@ def evidence_command(site: Site, db_path: Path, month: str | None, date_from: An
 def verify_command(bundle: Path, no_rerun: bool) -> None:
     """Check an evidence bundle: every file against its sha256 in the manifest (naming any
     changed byte), then re-run the analysis from the bundle alone in a temporary folder and
-    compare the results. Exit code 0 when everything matches, 1 when not.
+    compare the results. Exit code 0 when everything matches, 1 when not, 2 when the bundle
+    cannot be read as one (malformed, oversized, or naming files outside itself).
 
     \b
     Example:

@@ -18,6 +18,7 @@ if TYPE_CHECKING:
 align = lazy_module("perfcheck.align")
 db = lazy_module("perfcheck.db")
 model = lazy_module("perfcheck.model")
+quality = lazy_module("perfcheck.quality")
 
 
 def _num(v: float, fmt: str) -> str:
@@ -54,6 +55,8 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
     """
     con = db.connect(db_path)
     try:
+        if quality.stale(con):  # an ingest stopped before its flags were stored
+            quality.run(con, site)
         with progress.bar("model", None, quiet) as bar:
             res = model.run(con, site, progress=bar.step)
         if res["computed_from"] is None:

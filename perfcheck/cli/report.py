@@ -7,7 +7,7 @@ from typing import Any
 
 import click
 
-from perfcheck import progress
+from perfcheck import atomic, progress
 from perfcheck.cli.common import lazy_module, period_options, resolve_period, site_argument
 from perfcheck.site import Site
 
@@ -33,12 +33,13 @@ def report_command(site: Site, db_path: Path, month: str | None, date_from: Any,
     start, end = resolve_period(site, month, date_from, date_to)
     con = db.connect(db_path)  # the check stores its events
     try:
-        with progress.stage("report: analysis, figures, HTML and PDF"):
-            paths = report.write_report(con, site, start, end, out_dir)
+        with progress.stage("report: analysis, figures, HTML and PDF"), \
+                atomic.replacing_dir(out_dir) as tmp:  # all files or none
+            paths = report.write_report(con, site, start, end, tmp)
     finally:
         con.close()
-    click.echo(f"report: {paths['html']}")
-    click.echo(f"pdf: {paths['pdf']}")
+    click.echo(f"report: {out_dir / paths['html'].relative_to(tmp)}")
+    click.echo(f"pdf: {out_dir / paths['pdf'].relative_to(tmp)}")
 
 
 COMMANDS = [report_command]
