@@ -15,7 +15,15 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from perfcheck.scenario.faults import ClockShift, Curtailment, Outage, Soiling, StringLoss, Tree
+from perfcheck.scenario.faults import (
+    ClockShift,
+    Curtailment,
+    Outage,
+    SensorFault,
+    Soiling,
+    StringLoss,
+    Tree,
+)
 from perfcheck.scenario.suite.climate import CLIMATES
 
 FAULT_KINDS = ("outage", "partial_outage", "clipping", "curtailment", "soiling", "shading",
@@ -59,14 +67,6 @@ class TruthPhysics:
 
 
 @dataclass(frozen=True)
-class SensorFaultSpec:
-    mode: str  # "step" (times factor), "drift" (linear to factor), "stuck" (repeats a value)
-    start: str
-    end: str
-    factor: float = 1.0
-
-
-@dataclass(frozen=True)
 class Derate:
     """An inverter limited below its rating (a clipping fault)."""
 
@@ -98,7 +98,7 @@ class PlantSpec:
     outage: Outage | None = None
     curtailment: tuple[Curtailment, ...] = ()
     derate: Derate | None = None
-    sensor: SensorFaultSpec | None = None
+    sensor: SensorFault | None = None
     clock: ClockShift | None = None
     clock_mode: str = ""  # "offset" | "missed_dst"
     notes: dict = field(default_factory=dict)
@@ -236,8 +236,8 @@ def draw_plant(index: int, seed: int) -> PlantSpec:
                       "stuck": int(rng.integers(1, 4))}[mode]
             d = _day(start, days, rng, length)
             sign = float(rng.choice([-1.0, 1.0]))
-            spec["sensor"] = SensorFaultSpec(
-                mode, _t(d, 0), _t(d + dt.timedelta(days=length), 0),
+            spec["sensor"] = SensorFault(
+                _t(d, 0), _t(d + dt.timedelta(days=length), 0), mode,
                 1.0 if mode == "stuck" else round(1 + sign * float(rng.uniform(0.03, 0.06)), 3))
         elif kind == "clock_fault":
             changes = dst_changes(clim.timezone, start + dt.timedelta(days=LEAD_DAYS),

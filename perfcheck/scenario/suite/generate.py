@@ -6,9 +6,9 @@ attributed by :mod:`perfcheck.scenario.truth`) with the differences of
 :mod:`perfcheck.scenario.suite.physics` folded into each array's effective irradiance and cell
 temperature: the plant's own IAM, the SAPM spectral factor, the ADR low-light efficiency, its
 true mismatch loss against the 1 % the site file states, and a thermal lag of the module.
-The sensors and the meter are the demo's (:func:`perfcheck.scenario.logs.sensor_readings`);
-the clock fault uses the demo's label rule. On top: an inverter derated below its rating
-(a clipping fault) and a plane-of-array sensor fault (step bias, slow drift or stuck).
+The sensors, their faults (step bias, slow drift, stuck) and the meter are the demo's
+(:func:`perfcheck.scenario.logs.sensor_readings`); the clock fault uses the demo's label rule.
+On top: an inverter derated below its rating (a clipping fault), applied last.
 """
 
 from __future__ import annotations
@@ -155,28 +155,6 @@ def apply_derate(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, plant: Pl
          "note": "inverter derated below its rating (applied after the other faults)"}, lost)]
 
 
-def apply_sensor_fault(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, poa: np.ndarray
-                       ) -> tuple[np.ndarray, list[dict]]:
-    """The plane-of-array reading with the sensor fault; its truth entry."""
-    f = spec.sensor
-    if f is None:
-        return poa, []
-    inside = window(times, f.start, f.end, site.tz)
-    params: dict[str, Any] = {"sensor": "G_poa", "logger": MAIN_LOGGER, "mode": f.mode}
-    if f.mode == "stuck":
-        value = float(np.round(poa[np.flatnonzero(inside)[0]], 1))
-        poa = np.where(inside, value, poa)
-        params["value_wm2"] = value
-    else:
-        idx = np.flatnonzero(inside)
-        ramp = np.linspace(0.0, 1.0, len(idx)) if f.mode == "drift" else np.ones(len(idx))
-        poa = poa.copy()
-        poa[idx] *= 1 + (f.factor - 1) * ramp
-        params["factor"] = f.factor
-        params["shape"] = "linear from 1 to factor" if f.mode == "drift" else "constant"
-    return poa, [entry("sensor_fault", "plant", f.start, f.end, site.tz, params)]
-
-
 def shading_start(entries: list[dict], daily: pd.DataFrame, tz: Any) -> None:
     """Move the shading entry's start to the first day its loss exceeds 1 % of the inverter's
     daily energy (the day the scorer's 30-day window is measured from)."""
@@ -247,7 +225,8 @@ def faults_of(spec: PlantSpec) -> Faults:
     """The demo's fault schedule filled with this plant's faults."""
     return replace(NO_FAULTS, degradation_pct_per_year=spec.degradation_pct_per_year,
                    soiling=spec.soiling, tree=spec.tree, string_loss=spec.string_loss,
-                   outage=spec.outage, curtailment=spec.curtailment, clock=spec.clock)
+                   outage=spec.outage, curtailment=spec.curtailment, clock=spec.clock,
+                   poa_sensor=() if spec.sensor is None else (spec.sensor,))
 
 
 def generate_plant(out_dir: str | Path, index: int, seed: int) -> Path:
@@ -276,17 +255,17 @@ def generate_plant(out_dir: str | Path, index: int, seed: int) -> Path:
     plant, derate = apply_derate(spec, site, times, plant, spec.interval_min)
     entries += derate
     shading_start(entries, daily, site.tz)
-    r, _ = sensor_readings(site, times, w, ph, plant, faults, sensor_rng, dhi_rng,
-                           spec.interval_min, 0.002)
-    r.poa, sensor_truth = apply_sensor_fault(spec, site, times, r.poa)
-    entries += sensor_truth
+    r, sensor_truth = sensor_readings(site, times, w, ph, plant, faults, sensor_rng, dhi_rng,
+                                      spec.interval_min, 0.002)
     label, keep, clock_truth = _main_labels(site, times, faults, spec.interval_min)
     # a clock set back writes labels it has used before: the logger overwrites nothing
     keep &= np.asarray(label > np.maximum.accumulate(np.concatenate(
         [[label[0] - pd.Timedelta(days=1)], label[:-1]])))
+    for e in sensor_truth:  # the demo's entries name the demo's logger and column
+        e["parameters"].update(logger=MAIN_LOGGER, sensor="G_poa")
     for e in clock_truth:
         e["parameters"].update(logger=MAIN_LOGGER, mode=spec.clock_mode)
-    entries += clock_truth
+    entries += sensor_truth + clock_truth
     _write_loggers(out, spec, site, times, label, keep, r)
     h = spec.interval_min / 60 / 1000
     truth = {
