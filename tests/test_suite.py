@@ -71,7 +71,8 @@ def test_truth_accounting_balances(suite: tuple[Path, list[dict]]) -> None:
     out, _ = suite
     for i in SAMPLE:
         t = _truth(out, i)
-        lost = sum(f["energy_loss_kwh"] for f in t["faults"] if not f.get("design"))
+        lost = sum(f["energy_loss_kwh"] for f in t["faults"] + t["inactive"]
+                   if not f.get("design"))
         assert t["totals"]["clean_energy_kwh"] - lost == pytest.approx(
             t["totals"]["energy_kwh"], abs=0.01 * (1 + len(t["faults"])))
         if not t["scenario"]["fault_kinds"]:

@@ -236,8 +236,9 @@ def draw_plant(index: int, seed: int) -> PlantSpec:
                       "stuck": int(rng.integers(1, 4))}[mode]
             d = _day(start, days, rng, length)
             sign = float(rng.choice([-1.0, 1.0]))
+            hour = float(rng.uniform(9, 14)) if mode == "stuck" else 0.0  # stuck in daylight
             spec["sensor"] = SensorFault(
-                _t(d, 0), _t(d + dt.timedelta(days=length), 0), mode,
+                _t(d, hour), _t(d + dt.timedelta(days=length), hour), mode,
                 1.0 if mode == "stuck" else round(1 + sign * float(rng.uniform(0.03, 0.06)), 3))
         elif kind == "clock_fault":
             changes = dst_changes(clim.timezone, start + dt.timedelta(days=LEAD_DAYS),

@@ -169,6 +169,16 @@ def shading_start(entries: list[dict], daily: pd.DataFrame, tz: Any) -> None:
             e["start"] = iso(pd.Timestamp(over["date"].iloc[0]).tz_localize(tz), tz)
 
 
+ENERGY_KINDS = ("outage", "partial_outage", "clipping", "curtailment", "soiling", "shading",
+                "degradation")
+
+
+def effective_fault(e: dict) -> bool:
+    """False for an energy fault that cost nothing (an export setpoint or a derate the plant
+    never reached): it did not happen, and the truth lists it apart, under ``inactive``."""
+    return e.get("design", False) or e["kind"] not in ENERGY_KINDS or e["energy_loss_kwh"] > 0.01
+
+
 def monthly_truth(site: Site, times: pd.DatetimeIndex, ph: Physics, plant: Plant,
                   interval_min: int) -> list[dict]:
     """True plant PR per month: AC energy over DC-rating-weighted true POA irradiation."""
@@ -281,7 +291,8 @@ def generate_plant(out_dir: str | Path, index: int, seed: int) -> Path:
                    "energy_kwh": round(float(plant.ac.sum() * h), 3),
                    "by_inverter_kwh": {inv.id: round(float(plant.ac[i].sum() * h), 3)
                                        for i, inv in enumerate(site.inverters)}},
-        "faults": entries,
+        "faults": [e for e in entries if effective_fault(e)],
+        "inactive": [e for e in entries if not effective_fault(e)],
         "monthly": monthly_truth(site, times, ph, plant, spec.interval_min),
     }
     (out / "truth.json").write_text(json.dumps(truth, indent=1) + "\n", encoding="utf-8")
