@@ -148,7 +148,7 @@ def _day(start: dt.date, days: int, rng: np.random.Generator, length: int) -> dt
 
 
 def _t(day: dt.date, hour: float) -> str:
-    h, m = int(hour), int(round((hour % 1) * 60))
+    h, m = divmod(int(round(hour * 60)), 60)
     return f"{day.isoformat()} {h:02d}:{m:02d}"
 
 
