@@ -196,11 +196,13 @@ def draw_plant(index: int, seed: int) -> PlantSpec:
             spec["soiling"] = (Soiling(_t(d, 6), _t(d + dt.timedelta(days=length), 10),
                                        round(float(rng.uniform(0.1, 0.5)), 2)),)
         elif kind == "shading":
-            d = _day(start, days, rng, 60)
-            az = float(rng.choice([100.0, 230.0])) + float(rng.integers(-10, 11))
-            spec["tree"] = Tree(target, az, az + 40.0, d.isoformat(), 2.0,
-                                round(float(rng.uniform(8.0, 20.0)), 1),
-                                round(float(rng.uniform(0.2, 0.4)), 2))
+            # a tree across 70 deg of the morning or afternoon sun, 3 deg high after the lead
+            # time, 15-30 deg high at the end: its loss first exceeds 1 % on a later day
+            az = float(rng.choice([90.0, 200.0])) + float(rng.integers(0, 21))
+            growth = float(rng.uniform(12.0, 27.0)) / ((days - LEAD_DAYS) / 365.25)
+            spec["tree"] = Tree(target, az, az + 70.0,
+                                (start + dt.timedelta(days=LEAD_DAYS)).isoformat(), 3.0,
+                                round(growth, 1), round(float(rng.uniform(0.1, 0.3)), 2))
         elif kind == "partial_outage":
             length = int(rng.integers(3, 31))
             d = _day(start, days, rng, length)
