@@ -22,9 +22,10 @@ from perfcheck.scenario.suite.climate import climate, read_typical_year
 from perfcheck.scenario.suite.design import draw_plant
 from perfcheck.scenario.suite.generate import MAIN_LOGGER, STATION, generate_plant
 
-# fault-free east-west (10 min); missed DST + stuck sensor + strings; shading + derate + step
-# bias; curtailment + soiling + drift; 5-minute east-west with outage; two years of ageing
-SAMPLE = (2, 3, 6, 9, 16, 0)
+# fault-free east-west (10 min); 5-minute east-west with strings lost, a missed daylight-saving
+# change and an outage; shading + derate + sensor drift; shading + clock offset + export
+# limiting (GHI only); strings + soiling + sensor step bias; two years of ageing + derate
+SAMPLE = (2, 16, 6, 11, 13, 0)
 
 
 @pytest.fixture(scope="module")
