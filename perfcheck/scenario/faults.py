@@ -71,7 +71,9 @@ class Curtailment:
 class SensorFault:
     start: str
     end: str
-    mode: str  # "reads_low" (times ``factor``) or "stuck" (repeats its first value)
+    # "reads_low" or "step" (times ``factor``), "drift" (linear from 1 to ``factor`` over the
+    # window) or "stuck" (repeats its first value)
+    mode: str
     factor: float = 1.0
 
 

@@ -106,6 +106,11 @@ def sensor_readings(
             value = float(np.round(poa[np.flatnonzero(inside)[0]], 1))
             poa = np.where(inside, value, poa)
             params["value_wm2"] = value
+        elif f.mode == "drift":
+            ramp = np.zeros(n)
+            ramp[inside] = np.linspace(0.0, 1.0, int(inside.sum()))
+            poa = np.where(inside, poa * (1 + (f.factor - 1) * ramp), poa)
+            params.update(factor=f.factor, shape="linear from 1 to factor")
         else:
             poa = np.where(inside, poa * f.factor, poa)
             params["factor"] = f.factor

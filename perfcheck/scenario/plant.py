@@ -26,6 +26,7 @@ A. P. Dobos, 2014, NREL/TP-6A20-62641 (report number from memory).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -108,13 +109,16 @@ def sky_view_ratio(tilt: float, azimuth: float, horizon: tuple, band_deg: float 
 
 def array_irradiance(
     w: Weather, tilt: float, azimuth: float, albedo: float, beam_factor: np.ndarray,
-    horizon: tuple = (),
+    horizon: tuple = (), iam: tuple[Callable, str, dict] = (pvlib.iam.physical, "physical", {}),
 ) -> tuple[np.ndarray, np.ndarray]:
     """Plane-of-array global and IAM-effective irradiance [W/m^2].
 
     ``beam_factor`` (0..1) is the unobstructed share of the beam and circumsolar light;
     ``horizon`` reduces the isotropic sky by its sky view and the horizon band by its share of
     that band (:func:`sky_view_ratio`). Light reflected by the obstructions is neglected.
+    ``iam``: the beam IAM function of the angle of incidence [deg], and the name and
+    parameters of the same model for Marion's diffuse integration (the physical IAM of De
+    Soto et al. by default).
     """
     zen = w.solpos["apparent_zenith"].to_numpy()
     saz = w.solpos["azimuth"].to_numpy()
@@ -129,8 +133,9 @@ def array_irradiance(
         * sky_view_ratio(tilt, azimuth, horizon, PEREZ_BAND_DEG)
     beam = w.dni * np.clip(np.cos(np.radians(aoi)), 0, None) * beam_factor
     ground = np.asarray(pvlib.irradiance.get_ground_diffuse(tilt, w.ghi, albedo), dtype=float)
-    iam_beam = np.nan_to_num(pvlib.iam.physical(aoi))
-    iam_d = pvlib.iam.marion_diffuse("physical", tilt)
+    beam_iam, name, params = iam
+    iam_beam = np.nan_to_num(beam_iam(aoi))
+    iam_d = pvlib.iam.marion_diffuse(name, tilt, **params)
     poa_global = beam + circ + iso + band + ground
     poa_eff = ((beam + circ) * iam_beam + iso * iam_d["sky"] + band * iam_d["horizon"]
                + ground * iam_d["ground"])
