@@ -10,6 +10,7 @@ data is missing (a note on the axes), so a report never has a blank figure.
 from __future__ import annotations
 
 import io
+import textwrap
 from collections.abc import Callable
 from typing import Any
 
@@ -162,7 +163,7 @@ def fig_loss_attribution(losses: dict) -> Figure:
         return fig
     causes = [(k, v) for k, v in losses.get("by_cause_kwh", {}).items() if v]
     causes.append(("unexplained", losses.get("unexplained_kwh", 0.0)))
-    labels = ["expected"] + [kinds.words(k) for k, _ in causes] + ["measured"]
+    labels = ["expected"] + [textwrap.fill(kinds.words(k), 14) for k, _ in causes] + ["measured"]
     level = losses["expected_kwh"]
     ax.bar(0, level, color=EXPECTED, width=0.6)
     for i, (kind, kwh) in enumerate(causes, start=1):
@@ -171,7 +172,7 @@ def fig_loss_attribution(losses: dict) -> Figure:
                 color=INK)
         level -= kwh
     ax.bar(len(causes) + 1, losses["measured_kwh"], color=MEASURED, width=0.6)
-    ax.set_xticks(range(len(labels)), labels, rotation=25, ha="right", fontsize=8)
+    ax.set_xticks(range(len(labels)), labels, fontsize=7)
     lo = min(losses["measured_kwh"], losses["expected_kwh"])
     hi = max(losses["measured_kwh"], losses["expected_kwh"])
     ax.set_ylim(lo - 0.6 * (hi - lo) - 0.02 * hi, hi + 0.05 * (hi - lo) + 0.01 * hi)
