@@ -29,6 +29,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import pstats
 import shutil
 import statistics
 import subprocess
@@ -173,6 +174,29 @@ poa = pvlib.irradiance.get_total_irradiance(
 print(float(poa["poa_global"].sum()))
 """
 
+# A command under cProfile, started after the CLI's imports (timed apart, without the profiler).
+PROFILED = """\
+import cProfile, marshal, sys, time
+t0 = time.perf_counter()
+from perfcheck.cli import main  # the entry point of [project.scripts]
+startup = time.perf_counter() - t0
+prof = cProfile.Profile()
+code = 0
+prof.enable()
+try:
+    main(sys.argv[2:], prog_name="perfcheck")
+except SystemExit as exc:
+    code = exc.code
+finally:
+    prof.disable()
+    prof.create_stats()
+    prof.stats[("<start-up>", 0, "start-up: imports of the CLI, not profiled")] = (
+        1, 1, startup, startup, {})
+    with open(sys.argv[1], "wb") as f:
+        marshal.dump(prof.stats, f)
+sys.exit(code)
+"""
+
 REFERENCES = {"notebook": NOTEBOOK, "read_csv": READ_CSV, "sun+perez": SUN_PEREZ}
 
 
@@ -307,6 +331,55 @@ def total(runs: list[Run]) -> Run:
                errors[0] if errors else "")
 
 
+def module_name(filename: str) -> str | None:
+    """``perfcheck.x.y`` for a file of the perfcheck package (``__init__`` left out), else
+    None."""
+    parts = [p for p in Path(filename).with_suffix("").parts if p != "__init__"]
+    if "perfcheck" not in parts:
+        return None
+    return ".".join(parts[len(parts) - 1 - parts[::-1].index("perfcheck"):])
+
+
+IMPORTS_WHILE_RUNNING = "imports while running (inside the stages below)"
+
+
+def stage_split(stats: pstats.Stats, min_share: float = 0.02) -> list[tuple[int, str, float]]:
+    """Where a profiled command's time went, as (depth, name, seconds): the perfcheck functions
+    its CLI module calls (depth 0, cumulative) and the perfcheck functions they call (depth 1),
+    those above ``min_share`` of the whole, largest first; before them the start-up (recorded
+    by :data:`PROFILED`) and the imports made while the command ran (part of the stages)."""
+    entries = stats.stats  # (file, line, function) -> (calls, ncalls, tottime, cumtime, callers)
+    callees: dict[tuple, list[tuple[tuple, float]]] = {}
+    for func, (*_, callers) in entries.items():
+        for caller, edge in callers.items():
+            callees.setdefault(caller, []).append((func, edge[3]))
+
+    def name(func: tuple) -> str | None:
+        module = module_name(func[0])
+        return f"{module}.{func[2]}" if module and not func[2].startswith("<") else None
+
+    def is_cli(func: tuple) -> bool:
+        return (name(func) or "").startswith("perfcheck.cli.")
+
+    top: dict[tuple, float] = {}
+    for caller, calls in callees.items():
+        if is_cli(caller):
+            for func, seconds in calls:
+                if name(func) and not is_cli(func):
+                    top[func] = top.get(func, 0.0) + seconds
+    rows = [(0, f[2], v[3]) for f, v in entries.items() if f[0] == "<start-up>"]
+    rows.append((0, IMPORTS_WHILE_RUNNING, sum(
+        v[3] for f, v in entries.items() if f[2] == "_find_and_load")))
+    limit = min_share * stats.total_tt
+    for func, seconds in sorted(top.items(), key=lambda kv: -kv[1]):
+        if seconds >= limit:
+            rows.append((0, name(func), seconds))
+            inner = sorted(((name(f), t) for f, t in callees.get(func, []) if name(f)),
+                           key=lambda kv: -kv[1])
+            rows.extend((1, n, t) for n, t in inner if t >= limit)
+    return rows
+
+
 # --- the table ------------------------------------------------------------------------------
 
 @dataclass
@@ -382,6 +455,7 @@ SECTIONS = {  # name: (references on one site-year, the last pipeline command it
     "verify": (["verify reference"], "verify"),
     "memory": (["notebook"], "check"),
     "years": ([], "check"),
+    "stages": ([], "check"),
     "version": ([], None),
     "demo": ([], None),
 }
@@ -398,7 +472,8 @@ class Bench:
         on_data = any(SECTIONS[s][1] for s in self.sections)
         self.sizes = args.years if "years" in self.sections else [1] if on_data else []
         self.runs: dict[tuple[int, str], list[Run]] = {}
-        for name, script in REFERENCES.items():
+        self.profiles: dict[str, tuple[float, list[tuple[int, str, float]]]] = {}
+        for name, script in [*REFERENCES.items(), ("profiled", PROFILED)]:
             (root / f"{name.replace('+', '_')}.py").write_text(script)
 
     def record(self, size: int, key: str, run: Run) -> None:
@@ -457,11 +532,26 @@ class Bench:
         values = self.values(folder, files)
         for name in self.pipeline_for(size):
             self.record(size, name, self.command(name, values))
+        if "stages" in self.sections and size == 1 and rep == 0:
+            self.profile(files)
         if "verify reference" in refs:
             again = self.root / f"r{rep}" / "verify-reference"
             again.mkdir()
             for name in VERIFY_REFERENCE:
                 self.record(size, f"ref {name}", self.command(name, self.values(again, files)))
+
+    def profile(self, files: list[Path]) -> None:
+        """One more pass of the commands, each under cProfile (not counted in the timings)."""
+        folder = self.root / "profiled"
+        folder.mkdir()
+        values = self.values(folder, files)
+        for name in self.pipeline_for(1):
+            out = folder / f"{name}.prof"
+            run = run_process([sys.executable, str(self.root / "profiled.py"), str(out),
+                               *expand(COMMANDS[name], values)])
+            self.record(1, f"{name} (profiled)", run)
+            if not run.error:
+                self.profiles[name] = (run.wall_s, stage_split(pstats.Stats(str(out))))
 
     def audit_total(self, size: int) -> Run:
         """The whole audit per repeat (sum of walls, max of peaks), median over repeats."""
@@ -523,6 +613,17 @@ class Bench:
                             f"{secs(run)}, {mem(run)}", per_row, "", "", ""))
         return rows
 
+    def stage_rows(self) -> list[Row]:
+        rows = []
+        for command, (wall, split) in self.profiles.items():
+            rows.append(Row(command, f"{wall:.2f} s", "100 %", "", "", ""))
+            rest = wall - sum(t for d, n, t in split if d == 0 and n != IMPORTS_WHILE_RUNNING)
+            split = [*split, (0, "the rest: interpreter start and exit, the CLI", rest)]
+            rows.extend(Row(f"{'  ' * (depth + 1)}{name}", f"{seconds:.2f} s",
+                            f"{100 * seconds / wall:.0f} %", "", "", "")
+                        for depth, name, seconds in split)
+        return rows
+
     def split_rows(self) -> list[Row]:
         rows = []
         for (size, key), runs in self.runs.items():
@@ -532,11 +633,17 @@ class Bench:
         return rows
 
     def report(self) -> str:
-        parts = [format_table(self.target_rows(), f"Targets of issue 13 (median of "
-                              f"{self.args.repeats}; whole commands in fresh processes)")]
+        targets = self.target_rows()
+        parts = [format_table(targets, f"Targets of issue 13 (median of {self.args.repeats}; "
+                              "whole commands in fresh processes)")] if targets else []
         if "years" in self.sections:
             parts.append(format_table(self.years_rows(), "Whole audit by size",
                                       Row("data", "wall, peak", "per row", "", "", "")))
+        if self.profiles:
+            parts.append(format_table(
+                self.stage_rows(), "Where the time goes (one more run of each command, under "
+                "cProfile after its start-up; the profiler slows Python code; not in the medians)",
+                Row("command, stage", "wall", "share", "", "", "")))
         parts.append(format_table(self.split_rows(), "Per command and reference (median)",
                                   Row("process", "wall", "peak", "", "", "")))
         return "\n\n".join(parts)

@@ -6,6 +6,7 @@ No timing is checked here (speed targets live only in ``tests/benchmark.py``).
 from __future__ import annotations
 
 import sys
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
@@ -13,6 +14,7 @@ import pytest
 from benchmark import (
     COLUMNS,
     COMMANDS,
+    IMPORTS_WHILE_RUNNING,
     REFERENCES,
     SITE,
     START,
@@ -21,12 +23,14 @@ from benchmark import (
     expand,
     format_table,
     median_run,
+    module_name,
     month_days,
     parse_args,
     reference_params,
     run_process,
     site_toml,
     site_year,
+    stage_split,
     total,
     write_data,
 )
@@ -121,3 +125,28 @@ def test_reference_scripts_run_on_a_day(tmp_path, name):
     script.write_text(REFERENCES[name])
     params = reference_params(files, tmp_path / "raw.duckdb")
     assert run_process([sys.executable, str(script), params]).error == ""
+
+
+def test_module_name_of_package_files():
+    assert module_name("/v/site-packages/perfcheck/detect/__init__.py") == "perfcheck.detect"
+    assert module_name("/v/site-packages/perfcheck/cli/ingest.py") == "perfcheck.cli.ingest"
+    assert module_name("/usr/lib/python3.11/json/__init__.py") is None
+
+
+def test_stage_split_of_an_invented_profile():
+    # invented truth: the CLI calls ingest_files (4 s), which calls _one (3 s) and a tiny
+    # helper (0.01 s, below the 2 % shown); 2 s start-up, 0.5 s of imports while running
+    cli, files = ("/p/perfcheck/cli/ingest.py", 1, "ingest"), ("/p/perfcheck/ingest.py", 2,
+                                                                "ingest_files")
+    one, tiny = ("/p/perfcheck/ingest.py", 3, "_one"), ("/p/perfcheck/ingest.py", 4, "_tiny")
+    stats = SimpleNamespace(total_tt=7.0, stats={
+        cli: (1, 1, 0.1, 5.0, {}),
+        files: (1, 1, 1.0, 4.0, {cli: (1, 1, 1.0, 4.0)}),
+        one: (1, 1, 3.0, 3.0, {files: (1, 1, 3.0, 3.0)}),
+        tiny: (1, 1, 0.01, 0.01, {files: (1, 1, 0.01, 0.01)}),
+        ("<start-up>", 0, "start-up"): (1, 1, 2.0, 2.0, {}),
+        ("<frozen importlib._bootstrap>", 1, "_find_and_load"): (3, 3, 0.1, 0.5, {one: (3, 3, 0.1, 0.5)}),
+    })
+    assert stage_split(stats) == [(0, "start-up", 2.0), (0, IMPORTS_WHILE_RUNNING, 0.5),
+                                  (0, "perfcheck.ingest.ingest_files", 4.0),
+                                  (1, "perfcheck.ingest._one", 3.0)]
