@@ -17,7 +17,10 @@ alternating with it, a reference runs in its own fresh process on the same data:
 
 The data are an invented 1-minute site-year (525,600 rows: one inverter's AC power, POA, GHI,
 air and module temperature, wind) written by :func:`site_year`, one file per site-year.
-Each figure is the median of ``--repeats`` runs. The targets are those of issue 13.
+Each figure is the median of ``--repeats`` runs. The targets are those of issue 13; the
+figures (``--only NAME``, see :data:`SECTIONS`): audit, ingest, model, report, evidence, verify,
+memory, years (1, 2, 4 site-years per row), stages (where the time goes: one more run of each
+command, its CLI imports timed apart and the rest under cProfile), version, demo.
 
 The command lines are in :data:`COMMANDS` (one table, edit it when the CLI changes); the whole
 audit is :data:`AUDIT`, run on a fresh database in that order; :data:`PIPELINE` is the order

@@ -145,7 +145,8 @@ def test_stage_split_of_an_invented_profile():
         one: (1, 1, 3.0, 3.0, {files: (1, 1, 3.0, 3.0)}),
         tiny: (1, 1, 0.01, 0.01, {files: (1, 1, 0.01, 0.01)}),
         ("<start-up>", 0, "start-up"): (1, 1, 2.0, 2.0, {}),
-        ("<frozen importlib._bootstrap>", 1, "_find_and_load"): (3, 3, 0.1, 0.5, {one: (3, 3, 0.1, 0.5)}),
+        ("<frozen importlib._bootstrap>", 1, "_find_and_load"): (3, 3, 0.1, 0.5,
+                                                                 {one: (3, 3, 0.1, 0.5)}),
     })
     assert stage_split(stats) == [(0, "start-up", 2.0), (0, IMPORTS_WHILE_RUNNING, 0.5),
                                   (0, "perfcheck.ingest.ingest_files", 4.0),
