@@ -580,7 +580,7 @@ class Bench:
             ref = median_run([total(list(r)) for r in zip(
                 *(self.runs.get((1, f"ref {c}"), []) for c in VERIFY_REFERENCE), strict=False)])
             rows.append(ratio_row("verify (bundle of one month)", self.get(1, "verify"), ref,
-                                  "the analysis it re-runs", 1.5))
+                                  f"re-run as commands: {' + '.join(VERIFY_REFERENCE)}", 1.5))
         if "memory" in s:
             rows.append(limit_row(f"peak memory, whole audit, {unit}", self.audit_total(1), 600,
                                   "MB", self.get(1, "notebook"), "notebook"))
