@@ -16,17 +16,22 @@ WITH r AS (
     SELECT r.ts, r.quantity, r.device, r.value, c.interval_min, c.rating_w,
            coalesce(s.elevation_deg > $day_elevation, false) AS day,
            coalesce(abs(r.value) <= c.rest_level, false) AS at_rest,
-           CASE WHEN r.value IS DISTINCT FROM lag(r.value) OVER w THEN 1 ELSE 0 END AS starts
+           CASE WHEN r.value IS DISTINCT FROM lag(r.value) OVER w THEN 1 ELSE 0 END AS starts,
+           r.value IS NOT DISTINCT FROM lead(r.value) OVER w AS repeats_next
     FROM readings r
     JOIN _quality_channels c USING (quantity, device)
     LEFT JOIN _quality_sun s ON s.ts = r.ts AND s.interval_min = c.interval_min
     WHERE NOT list_contains($never_stuck, r.quantity)
     WINDOW w AS (PARTITION BY r.quantity, r.device ORDER BY r.ts)
 ),
+-- Only the readings that can belong to a stuck run get a run id: at rest is a property of the
+-- value (the same over a whole run), and a run of one reading is too short unless
+-- $stuck_min_intervals allows it. Leaving the others out changes no run, only the time taken.
 runs AS (
     SELECT *, sum(starts) OVER (PARTITION BY quantity, device ORDER BY ts
                                 ROWS UNBOUNDED PRECEDING) AS run_id
     FROM r
+    WHERE NOT at_rest AND (starts = 0 OR repeats_next OR $stuck_min_intervals < 2)
 ),
 rates AS (
     SELECT quantity, device,

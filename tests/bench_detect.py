@@ -1,10 +1,11 @@
-"""Benchmark section "detect": every detector over a 1-minute site-year with 4 inverters.
+"""In-process benchmark of detection: every detector over a 1-minute site-year with 4 inverters.
 
 The aligned rows (2.1 million: 525,600 intervals x 4 inverters) come from the synthetic plant
 of ``tests/detect_synth.py`` with a few faults injected; making them is not timed. Timed:
 ``perfcheck.detect.analyse`` (all detectors, corrections and the attribution) on the rows in
 memory, i.e. after the expected series exists. Target: <= 10 s on the project machine; the
-figure per detector is printed. Run: ``python tests/benchmark.py --only detect``.
+figure per detector is printed. Run: ``python tests/bench_detect.py``
+(in-process, one library call; the whole commands are timed by ``tests/benchmark.py``).
 """
 
 from __future__ import annotations
@@ -47,3 +48,7 @@ def bench(print_row: Callable[[str, str], None]) -> None:
     print_row("detect: all detectors, site-year",
               f"{best:.2f} s best of 3 ({len(result['events'])} events)")
     print_row("detect: ratio to target", f"{best / TARGET_S:.2f} (target <= 1.0, {TARGET_S} s)")
+
+
+if __name__ == "__main__":
+    bench(lambda label, value: print(f"{label:<40} {value}", flush=True))
