@@ -310,11 +310,6 @@ def _why(old: dict[str, Any], new: dict[str, Any]) -> str:
 # views
 
 
-def require(con: duckdb.DuckDBPyConnection, site: Site) -> Stored:
-    """The current analysis, brought up to date with the stored data first."""
-    return update(con, site)
-
-
 def events(con: duckdb.DuckDBPyConnection, site: Site, stored: Stored, start: pd.Timestamp,
            end: pd.Timestamp) -> list[dict[str, Any]]:
     """The stored events that touch ``[start, end)``, clipped to it, in the check JSON form."""
