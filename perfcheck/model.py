@@ -22,6 +22,11 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
   stand-in where the sensor is suspect (the metrics use it inside detected sensor-fault
   windows). Where no GHI is logged the modelled POA itself comes from the sensor (GTI-DIRINT),
   so it cannot stand in for a faulty sensor there.
+* A single-axis tracker array's plane moves (:func:`orientation`, pvlib's tracking with
+  backtracking, flat at night); a POA sensor on a tracker (``poa_sensor_on_tracker``) moves
+  with the first tracker array, and feeds the arrays on the same tracker. Bifacial arrays add
+  the rear irradiance of the infinite-sheds model (always modelled) to the effective
+  irradiance at their bifaciality; cell temperature follows the front irradiance.
 * Incidence-angle losses apply to modelled irradiance and to a pyranometer's reading (scaled by
   the modelled ratio of effective to total POA); a reference cell's reading is taken as the
   effective irradiance.
