@@ -25,8 +25,10 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
 * A single-axis tracker array's plane moves (:func:`orientation`, pvlib's tracking with
   backtracking, flat at night); a POA sensor on a tracker (``poa_sensor_on_tracker``) moves
   with the first tracker array, and feeds the arrays on the same tracker. Bifacial arrays add
-  the rear irradiance of the infinite-sheds model (always modelled) to the effective
-  irradiance at their bifaciality; cell temperature follows the front irradiance.
+  the rear irradiance (a rear sensor beside the POA sensor where logged, else the
+  infinite-sheds model) to the effective irradiance at their bifaciality; cell temperature
+  follows the front irradiance. A tracker angle channel is stored, not used by the model
+  (the expected series follows the tracker as designed, not as it turned).
 * Incidence-angle losses apply to modelled irradiance and to a pyranometer's reading (scaled by
   the modelled ratio of effective to total POA); a reference cell's reading is taken as the
   effective irradiance.
@@ -78,6 +80,7 @@ WEATHER = {
     "dhi_wm2": "dhi",
     "dni_wm2": "dni",
     "poa_wm2": "poa_sensor",
+    "poa_rear_wm2": "poa_rear_sensor",
     "temp_air_c": "temp_air",
     "temp_module_c": "temp_module",
     "wind_speed_ms": "wind_speed",
@@ -273,8 +276,9 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
     Returns ``poa_global``, ``poa_effective``, ``poa_modelled``, ``poa_effective_modelled``
     [W/m^2] (the last two from the GHI path, whatever the source) and ``from_sensor`` (bool).
     The plane moves with a tracker. For bifacial modules the effective irradiance adds the
-    rear's (infinite sheds, :func:`perfcheck.physics.poa_rear`, always modelled) at the
-    bifaciality; the totals are the front's.
+    rear's at the bifaciality: a rear sensor's reading for the arrays in the POA sensor's
+    plane where it reads, else the infinite-sheds model's (:func:`perfcheck.physics.poa_rear`;
+    always for the modelled series). The totals are the front's.
     """
     m = site.model
     tilt, azimuth = orientation(array, sun)
@@ -301,7 +305,10 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
                            array.albedo, array.gcr, array.bifacial.row_height_m,
                            array.bifacial.row_pitch_m)
         phi = array.bifacial.bifaciality
-        eff = ph.bifacial_effective(eff, rear, phi)
+        rear_used = rear
+        if "poa_rear_sensor" in weather and in_sensor_plane(array, site):
+            rear_used = weather["poa_rear_sensor"].fillna(rear)
+        eff = ph.bifacial_effective(eff, rear_used, phi)
         eff_modelled = ph.bifacial_effective(eff_modelled, rear, phi)
     return pd.DataFrame({"poa_global": glob, "poa_effective": eff,
                          "poa_modelled": mod["poa_global"],

@@ -27,6 +27,7 @@ QUANTITIES: dict[str, tuple[str, tuple[str, ...]]] = {
     "energy_register": ("energy_register_wh", ("Wh", "kWh", "MWh")),
     "energy_interval": ("energy_interval_wh", ("Wh", "kWh", "MWh")),
     "poa": ("poa_wm2", ("W/m2",)),
+    "poa_rear": ("poa_rear_wm2", ("W/m2",)),  # rear of a bifacial module, POA sensor's plane
     "ghi": ("ghi_wm2", ("W/m2",)),
     "dhi": ("dhi_wm2", ("W/m2",)),
     "dni": ("dni_wm2", ("W/m2",)),
@@ -34,6 +35,7 @@ QUANTITIES: dict[str, tuple[str, tuple[str, ...]]] = {
     "temp_module": ("temp_module_c", ("C", "K")),
     "wind_speed": ("wind_speed_ms", ("m/s", "km/h")),
     "rain": ("rain_mm", ("mm",)),
+    "tracker_angle": ("tracker_angle_deg", ("deg",)),  # rotation from flat, west positive
 }
 # Quantities that belong to an inverter (or to the plant meter); the others are site weather.
 DEVICE_QUANTITIES = ("ac_power", "dc_power", "energy_register", "energy_interval")
