@@ -38,9 +38,9 @@ class _site_stub:  # noqa: N801 - the few attributes sun_table reads
         self.latitude_deg, self.longitude_deg, self.altitude_m = lat, lon, 500.0
 
 
-def flagged(tmp_path, frame, drop=()):
+def flagged(tmp_path, frame, drop=(), columns=COLUMNS):
     frame = frame.drop(index=list(drop))
-    site_path, log = write_case(tmp_path, frame.to_csv(index=False), columns=COLUMNS)
+    site_path, log = write_case(tmp_path, frame.to_csv(index=False), columns=columns)
     site = load_site(site_path)
     con = db.connect(tmp_path / "site.duckdb")
     ingest_files(con, site, [log])
@@ -179,15 +179,10 @@ def test_tracker_angle_and_rear_irradiance_channels(tmp_path):
     frame.loc[noon, "A"] = 95.0
     frame["R"] = np.round(np.clip(frame["G"], 0, None) * 0.1, 1)
     frame.loc[10, "R"] = 150.0
-    site_path, log = write_case(tmp_path, frame.to_csv(index=False), columns=COLUMNS + (
+    _, flags, _, _ = flagged(tmp_path, frame, columns=COLUMNS + (
         ("A", "tracker_angle", "deg", None), ("R", "poa_rear", "W/m2", None)))
-    site = load_site(site_path)
-    con = db.connect(tmp_path / "site.duckdb")
-    ingest_files(con, site, [log])
-    quality.run(con, site)
-    flags = con.execute("SELECT ts, quantity, flag FROM flags WHERE quantity IN "
-                        "('tracker_angle_deg', 'poa_rear_wm2') ORDER BY ts, flag").df()
-    got = [(pd.Timestamp(t).tz_convert("UTC"), q, f) for t, q, f in flags.to_numpy()]
+    mine = flags[flags["quantity"].isin(["tracker_angle_deg", "poa_rear_wm2"])]
+    got = sorted(zip(mine["ts"], mine["quantity"], mine["flag"], strict=True))
     assert got == [(DAY[10], "poa_rear_wm2", "night_offset"),
                    (DAY[10], "poa_rear_wm2", "out_of_range"),
                    (DAY[noon], "tracker_angle_deg", "out_of_range")]
