@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 import pytest
+from model_fixtures import open_db, store
 from numpy.testing import assert_allclose
 
 from perfcheck import model
@@ -370,3 +371,23 @@ def test_rear_sensor_replaces_the_modelled_rear(tmp_path):
     assert_allclose(effective(200.0) - effective(100.0), 68.6)
     assert_allclose(effective(np.nan), model.expected_power(day, sun, site)
                     .set_index("ts")["poa_effective_wm2"])
+
+
+def test_model_stage_stores_the_tracker_plant(tmp_path):
+    # The stage as the command runs it (readings in DuckDB, model.run, align) gives the pure
+    # chain's values for a bifacial tracker plant: the stored expected AC power equals
+    # model.expected_power on the same weather (invented readings: a TMY3 week; rounding of
+    # stored doubles only, 1e-9 relative).
+    weather, _ = _typical_year()
+    week = weather.loc["2005-06-01":"2005-06-07"]
+    site = _site(tmp_path)
+    con = open_db(tmp_path)
+    stored = {"ghi": "ghi_wm2", "dhi": "dhi_wm2", "dni": "dni_wm2", "temp_air": "temp_air_c",
+              "wind_speed": "wind_speed_ms"}
+    store(con, week.rename(columns=stored), "site", interval_min=60)
+    store(con, pd.DataFrame({"ac_power_w": 0.0}, index=week.index), "INV1", interval_min=60)
+    model.run(con, site)
+    got = con.execute("SELECT ts, ac_w FROM expected ORDER BY ts").df()
+    pure = model.expected_power(week, model.site_sun(week.index, site, 3600), site)
+    assert_allclose(got["ac_w"].to_numpy(), pure["ac_w"].to_numpy(), rtol=1e-9, atol=1e-6)
+    assert pure["ac_w"].max() > 700_000  # the week has full sun on the trackers
