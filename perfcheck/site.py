@@ -142,6 +142,7 @@ class Model:
     poa_sensor_tilt_deg: float | None = None  # default: plane of the first array
     poa_sensor_azimuth_deg: float | None = None
     poa_sensor_on_tracker: bool = False  # the sensor rides the first tracker array's tracker
+    # (default in the site file: true when the first array is a tracker, see _sensor_on_tracker)
     decomposition: str = "erbs"
     transposition: str = "perez"
     temperature_model: str = "sapm"
@@ -480,16 +481,20 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
     return lg
 
 
-def _check_sensor_on_tracker(mt: Table, model: Model, inverters: list[Inverter]) -> None:
-    """A sensor on a tracker needs a tracker array and has no fixed plane."""
-    if not model.poa_sensor_on_tracker:
-        return
+def _sensor_on_tracker(mt: Table, inverters: list[Inverter]) -> bool:
+    """``poa_sensor_on_tracker``: as given, else true when the first array (whose plane is the
+    sensor's by default) is a tracker and no fixed sensor plane is given. A sensor on a
+    tracker needs a tracker array and has no fixed plane."""
+    plane_keys = [k for k in ("poa_sensor_tilt_deg", "poa_sensor_azimuth_deg") if k in mt.data]
+    default = inverters[0].arrays[0].tracker is not None and not plane_keys
+    if not mt.get("poa_sensor_on_tracker", bool, default):
+        return False
     if not any(a.tracker for inv in inverters for a in inv.arrays):
         raise mt._err("poa_sensor_on_tracker", "no array has tracking = \"single_axis\"")
-    for key in ("poa_sensor_tilt_deg", "poa_sensor_azimuth_deg"):
-        if key in mt.data:
-            raise mt._err(key, "a sensor on a tracker has no fixed plane (remove the key or "
-                          "set poa_sensor_on_tracker = false)")
+    if plane_keys:
+        raise mt._err(plane_keys[0], "a sensor on a tracker has no fixed plane (remove the key "
+                      "or set poa_sensor_on_tracker = false)")
+    return True
 
 
 def load_site(path: str | Path) -> Site:
@@ -566,7 +571,7 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         poa_sensor_kind=mt.get("poa_sensor_kind", str, "pyranometer", POA_SENSOR_KINDS),
         poa_sensor_tilt_deg=mt.number("poa_sensor_tilt_deg", None, lo=0, hi=90),
         poa_sensor_azimuth_deg=mt.number("poa_sensor_azimuth_deg", None, lo=0, hi=360),
-        poa_sensor_on_tracker=mt.get("poa_sensor_on_tracker", bool, False),
+        poa_sensor_on_tracker=_sensor_on_tracker(mt, inverters),
         decomposition=mt.get("decomposition", str, "erbs", DECOMPOSITIONS),
         transposition=mt.get("transposition", str, "perez", TRANSPOSITIONS),
         temperature_model=mt.get("temperature_model", str, "sapm", TEMPERATURE_MODELS),
@@ -574,7 +579,6 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         poa_uncertainty_pct=mt.number("poa_uncertainty_pct", None, lo=0, hi=50),
         sensor_class=mt.get("sensor_class", str, "A", ("A", "B", "C")),
     )
-    _check_sensor_on_tracker(mt, model, inverters)
     mt.done()
 
     loggers = tuple(_logger(t, set(ids)) for t in top.tables("loggers"))

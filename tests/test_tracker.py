@@ -297,9 +297,9 @@ def test_moving_plane_matches_the_fixed_plane_functions():
      "(bifaciality) uses it"),
     (FIXED, "poa_sensor_on_tracker = true",
      'model.poa_sensor_on_tracker: no array has tracking = "single_axis"'),
-    (TRACKED, "poa_sensor_on_tracker = true\npoa_sensor_tilt_deg = 30",
-     "model.poa_sensor_tilt_deg: a sensor on a tracker has no fixed plane (remove the key or "
-     "set poa_sensor_on_tracker = false)"),
+    (TRACKED, "poa_sensor_on_tracker = true\npoa_sensor_azimuth_deg = 30",
+     "model.poa_sensor_azimuth_deg: a sensor on a tracker has no fixed plane (remove the key "
+     "or set poa_sensor_on_tracker = false)"),
 ])
 def test_tracker_and_bifacial_key_errors(tmp_path, array, model_keys, message):
     with pytest.raises(SiteFileError) as err:
@@ -314,6 +314,11 @@ def test_tracker_keys_are_read(tmp_path):
     assert (a.bifacial.bifaciality, a.bifacial.row_height_m, a.bifacial.row_pitch_m) == (
         0.7, 1.5, 5.7)
     assert (a.tilt_deg, a.azimuth_deg) == (0.0, 180.0)  # its plane when flat
+    # The sensor's plane defaults to the first array's: on a tracker, the moving one.
+    assert _site(tmp_path).model.poa_sensor_on_tracker
+    fixed_sensor = 'poa_sensor_tilt_deg = 20\npoa_sensor_azimuth_deg = 180'
+    assert not _site(tmp_path, model_keys=fixed_sensor).model.poa_sensor_on_tracker
+    assert not _site(tmp_path, FIXED).model.poa_sensor_on_tracker
 
 
 # --------------------------------------------------------------------------------------------
