@@ -84,6 +84,7 @@ UNIT_TO_SI: dict[str, tuple[float, float]] = {
     "m/s": (1.0, 0.0),
     "km/h": (1.0 / 3.6, 0.0),
     "mm": (1.0, 0.0),
+    "deg": (1.0, 0.0),
 }
 
 

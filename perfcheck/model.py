@@ -22,6 +22,13 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
   stand-in where the sensor is suspect (the metrics use it inside detected sensor-fault
   windows). Where no GHI is logged the modelled POA itself comes from the sensor (GTI-DIRINT),
   so it cannot stand in for a faulty sensor there.
+* A single-axis tracker array's plane moves (:func:`orientation`, pvlib's tracking with
+  backtracking, flat at night); a POA sensor on a tracker (``poa_sensor_on_tracker``) moves
+  with the first tracker array, and feeds the arrays on the same tracker. Bifacial arrays add
+  the rear irradiance (a rear sensor beside the POA sensor where logged, else the
+  infinite-sheds model) to the effective irradiance at their bifaciality; cell temperature
+  follows the front irradiance. A tracker angle channel is stored, not used by the model
+  (the expected series follows the tracker as designed, not as it turned).
 * Incidence-angle losses apply to modelled irradiance and to a pyranometer's reading (scaled by
   the modelled ratio of effective to total POA); a reference cell's reading is taken as the
   effective irradiance.
@@ -73,6 +80,7 @@ WEATHER = {
     "dhi_wm2": "dhi",
     "dni_wm2": "dni",
     "poa_wm2": "poa_sensor",
+    "poa_rear_wm2": "poa_rear_sensor",
     "temp_air_c": "temp_air",
     "temp_module_c": "temp_module",
     "wind_speed_ms": "wind_speed",
@@ -143,8 +151,13 @@ def parameters_hash(params: dict[str, Any]) -> str:
 
 
 def sensor_plane(site: Site) -> tuple[float, float]:
-    """(tilt, azimuth) of the plane-of-array sensor [deg]: as configured, else the first array's."""
-    first = site.inverters[0].arrays[0]
+    """(tilt, azimuth) of the plane-of-array sensor [deg]: as configured, else the first array's.
+
+    A sensor on a tracker (``poa_sensor_on_tracker``) moves: this is then its tracker's plane
+    when flat; :func:`sensor_orientation` gives the plane it has at each instant.
+    """
+    first = sensor_array(site) if site.model.poa_sensor_on_tracker \
+        else site.inverters[0].arrays[0]
     m = site.model
     tilt = first.tilt_deg if m.poa_sensor_tilt_deg is None else m.poa_sensor_tilt_deg
     az = first.azimuth_deg if m.poa_sensor_azimuth_deg is None else m.poa_sensor_azimuth_deg
@@ -152,10 +165,16 @@ def sensor_plane(site: Site) -> tuple[float, float]:
 
 
 def sensor_array(site: Site) -> Array:
-    """The first array in the sensor's plane (its albedo and horizon are the sensor's), else
-    the first array."""
+    """The array the sensor is taken to sit on (its albedo and horizon are the sensor's).
+
+    A sensor on a tracker: the first tracker array. Else the first fixed array in the sensor's
+    plane, else the first array.
+    """
     arrays = [a for inv in site.inverters for a in inv.arrays]
-    return next((a for a in arrays if in_plane(a, sensor_plane(site))), arrays[0])
+    if site.model.poa_sensor_on_tracker:
+        return next(a for a in arrays if a.tracker is not None)
+    return next((a for a in arrays if a.tracker is None and in_plane(a, sensor_plane(site))),
+                arrays[0])
 
 
 def in_plane(array: Array, plane: tuple[float, float]) -> bool:
@@ -164,6 +183,37 @@ def in_plane(array: Array, plane: tuple[float, float]) -> bool:
     flat = array.tilt_deg < PLANE_TOLERANCE_DEG and plane[0] < PLANE_TOLERANCE_DEG
     return abs(array.tilt_deg - plane[0]) <= PLANE_TOLERANCE_DEG and (d_az <= PLANE_TOLERANCE_DEG
                                                                       or flat)
+
+
+def in_sensor_plane(array: Array, site: Site) -> bool:
+    """True when the sensor sees the array's plane: a fixed array in a fixed sensor's plane,
+    or a tracker array that turns as the sensor's tracker does (same axis, limits, backtracking
+    and ground coverage ratio)."""
+    if site.model.poa_sensor_on_tracker:
+        twin = sensor_array(site)
+        return array.tracker is not None and (array.tracker, array.gcr) == (twin.tracker,
+                                                                            twin.gcr)
+    return array.tracker is None and in_plane(array, sensor_plane(site))
+
+
+def orientation(array: Array, sun: pd.DataFrame
+                ) -> tuple[float | pd.Series, float | pd.Series]:
+    """(surface_tilt, surface_azimuth) of an array [deg]: constants for a fixed array, Series
+    for a tracker (:func:`perfcheck.physics.singleaxis`)."""
+    t = array.tracker
+    if t is None:
+        return array.tilt_deg, array.azimuth_deg
+    plane = ph.singleaxis(sun, t.axis_tilt_deg, t.axis_azimuth_deg, t.max_angle_deg,
+                          t.backtrack, array.gcr)
+    return plane["surface_tilt"], plane["surface_azimuth"]
+
+
+def sensor_orientation(site: Site, sun: pd.DataFrame
+                       ) -> tuple[float | pd.Series, float | pd.Series]:
+    """(surface_tilt, surface_azimuth) of the POA sensor [deg], moving when it is on a tracker."""
+    if site.model.poa_sensor_on_tracker:
+        return orientation(sensor_array(site), sun)
+    return sensor_plane(site)
 
 
 # --------------------------------------------------------------------------------------------
@@ -214,7 +264,7 @@ def horizontal_components(weather: pd.DataFrame, sun: pd.DataFrame, site: Site
     if "ghi" in weather and weather["ghi"].notna().any():
         return ph.complete_components(weather["ghi"], sun["zenith"], weather.get("dhi"),
                                       weather.get("dni"), site.model.decomposition, pressure)
-    tilt, az = sensor_plane(site)
+    tilt, az = sensor_orientation(site, sun)
     return ph.components_from_poa(weather["poa_sensor"], tilt, az, sun, pressure,
                                   sensor_array(site).albedo)
 
@@ -225,14 +275,19 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
 
     Returns ``poa_global``, ``poa_effective``, ``poa_modelled``, ``poa_effective_modelled``
     [W/m^2] (the last two from the GHI path, whatever the source) and ``from_sensor`` (bool).
+    The plane moves with a tracker. For bifacial modules the effective irradiance adds the
+    rear's at the bifaciality: a rear sensor's reading for the arrays in the POA sensor's
+    plane where it reads, else the infinite-sheds model's (:func:`perfcheck.physics.poa_rear`;
+    always for the modelled series). The totals are the front's.
     """
     m = site.model
-    mod = ph.poa_components(array.tilt_deg, array.azimuth_deg, sun, comps["ghi"], comps["dni"],
-                            comps["dhi"], sun["dni_extra"], sun["airmass_relative"],
-                            array.albedo, array.horizon, m.transposition, m.iam)
+    tilt, azimuth = orientation(array, sun)
+    mod = ph.poa_components(tilt, azimuth, sun, comps["ghi"], comps["dni"], comps["dhi"],
+                            sun["dni_extra"], sun["airmass_relative"], array.albedo,
+                            array.horizon, m.transposition, m.iam)
     from_sensor = pd.Series(False, index=sun.index)
     glob, eff = mod["poa_global"], mod["poa_effective"]
-    if source == "sensor" and in_plane(array, sensor_plane(site)):
+    if source == "sensor" and in_sensor_plane(array, site):
         sensor = weather["poa_sensor"]
         from_sensor = sensor.notna()
         if m.poa_sensor_kind == "reference_cell":
@@ -244,9 +299,20 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
             glob, eff = sensor.fillna(glob), sensor_eff.fillna(eff)
         else:
             glob, eff = sensor, sensor_eff
+    eff_modelled = mod["poa_effective"]
+    if array.bifacial is not None:
+        rear = ph.poa_rear(tilt, azimuth, sun, comps["ghi"], comps["dhi"], comps["dni"],
+                           array.albedo, array.gcr, array.bifacial.row_height_m,
+                           array.bifacial.row_pitch_m)
+        phi = array.bifacial.bifaciality
+        rear_used = rear
+        if "poa_rear_sensor" in weather and in_sensor_plane(array, site):
+            rear_used = weather["poa_rear_sensor"].fillna(rear)
+        eff = ph.bifacial_effective(eff, rear_used, phi)
+        eff_modelled = ph.bifacial_effective(eff_modelled, rear, phi)
     return pd.DataFrame({"poa_global": glob, "poa_effective": eff,
                          "poa_modelled": mod["poa_global"],
-                         "poa_effective_modelled": mod["poa_effective"],
+                         "poa_effective_modelled": eff_modelled,
                          "from_sensor": from_sensor})
 
 
@@ -271,7 +337,7 @@ def array_temperature(array: Array, poa_global: pd.Series, weather: pd.DataFrame
     temp_air = weather.get("temp_air", pd.Series(np.nan, index=weather.index))
     twin = sensor_array(site)
     measured = (weather.get("temp_module")
-                if in_plane(array, sensor_plane(site))
+                if in_sensor_plane(array, site)
                 and (array.mounting, array.construction) == (twin.mounting, twin.construction)
                 else None)
     return ph.cell_temperature(poa_global, temp_air, wind, array.mounting,
@@ -294,7 +360,7 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
     sensor_all = pd.Series(True, index=sun.index)
     for array in inv.arrays:
         key = (array.tilt_deg, array.azimuth_deg, array.albedo, array.horizon, array.mounting,
-               array.construction)
+               array.construction, array.gcr, array.tracker, array.bifacial)
         if key not in planes:
             irr = array_irradiance(array, sun, comps, weather, site, source)
             temp_cell = array_temperature(array, irr["poa_global"], weather, site)
@@ -543,7 +609,7 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
         con.unregister("_conditions_new")
     daily = None
     if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
-        tilt, az = sensor_plane(site)
+        tilt, az = sensor_orientation(site, sun)
         ref = sensor_array(site)
         comps = horizontal_components(weather, sun, site)
         modelled = ph.poa_components(tilt, az, sun, comps["ghi"], comps["dni"], comps["dhi"],

@@ -440,11 +440,15 @@ def iam_beam(aoi: pd.Series, model: str = "physical") -> pd.Series:
     return pd.Series(np.asarray(fn(aoi.to_numpy()), dtype=float), index=aoi.index).fillna(0.0)
 
 
-def iam_diffuse(surface_tilt: float, model: str = "physical") -> dict[str, float]:
+def iam_diffuse(surface_tilt: float | pd.Series, model: str = "physical"
+                ) -> dict[str, float | pd.Series]:
     """Incidence-angle modifiers for isotropic sky, horizon band and ground diffuse [-].
 
     Integrated over the sky dome, the horizon and the ground as seen by the plane (Marion 2017)
-    for the beam model of :func:`iam_beam`.
+    for the beam model of :func:`iam_beam`. For a moving plane (``surface_tilt`` a Series, a
+    tracker) the modifiers are integrated on a one-degree grid of tilts and interpolated
+    linearly (an error below 0.1 %; 32 400 directions per tilt make a per-interval integral
+    too large to hold).
 
     References
     ----------
@@ -453,11 +457,38 @@ def iam_diffuse(surface_tilt: float, model: str = "physical") -> dict[str, float
     """
     if model == "none":
         return {"sky": 1.0, "horizon": 1.0, "ground": 1.0}
-    out = pvlib.iam.marion_diffuse(model, surface_tilt)
-    return {k: float(np.nan_to_num(out[k], nan=1.0)) for k in ("sky", "horizon", "ground")}
+    if np.ndim(surface_tilt) == 0:
+        out = pvlib.iam.marion_diffuse(model, surface_tilt)
+        return {k: float(np.nan_to_num(out[k], nan=1.0)) for k in ("sky", "horizon", "ground")}
+    grid = np.arange(0.0, 181.0)
+    out = pvlib.iam.marion_diffuse(model, grid)
+    tilt = np.asarray(surface_tilt, dtype=float)
+    return {k: pd.Series(np.interp(tilt, grid, np.nan_to_num(out[k], nan=1.0)),
+                         index=surface_tilt.index).where(surface_tilt.notna())
+            for k in ("sky", "horizon", "ground")}
 
 
-def poa_components(surface_tilt: float, surface_azimuth: float, solpos: pd.DataFrame,
+def sky_view(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+             horizon: Sequence[tuple[float, float]], band_deg: float = 90.0
+             ) -> float | pd.Series:
+    """:func:`sky_view_ratio` of a fixed plane, or of a moving plane (Series, a tracker).
+
+    A moving plane's orientations are rounded to whole degrees and each distinct one is
+    integrated once (the ratio changes smoothly with the orientation).
+    """
+    if np.ndim(surface_tilt) == 0:
+        return sky_view_ratio(surface_tilt, surface_azimuth, horizon, band_deg)
+    if not has_horizon(horizon):
+        return 1.0
+    keys = pd.DataFrame({"tilt": surface_tilt.round(), "az": surface_azimuth.round() % 360.0})
+    ratio = {(t, a): sky_view_ratio(t, a, horizon, band_deg)
+             for t, a in keys.dropna().drop_duplicates().itertuples(index=False)}
+    return pd.Series([ratio.get((t, a), np.nan) for t, a in keys.itertuples(index=False)],
+                     index=surface_tilt.index)
+
+
+def poa_components(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+                   solpos: pd.DataFrame,
                    ghi: pd.Series, dni: pd.Series, dhi: pd.Series, dni_extra: pd.Series,
                    airmass: pd.Series, albedo: float = 0.2,
                    horizon: Sequence[tuple[float, float]] = (), transposition: str = "perez",
@@ -475,8 +506,9 @@ def poa_components(surface_tilt: float, surface_azimuth: float, solpos: pd.DataF
 
     Parameters
     ----------
-    surface_tilt, surface_azimuth : float
-        Plane [deg], azimuth clockwise from north.
+    surface_tilt, surface_azimuth : float or pandas.Series
+        Plane [deg], azimuth clockwise from north; Series for a moving plane (a tracker,
+        :func:`singleaxis`).
     solpos : pandas.DataFrame
         From :func:`solar_position`.
     ghi, dni, dhi, dni_extra : pandas.Series
@@ -502,8 +534,8 @@ def poa_components(surface_tilt: float, surface_azimuth: float, solpos: pd.DataF
     parts = sky_diffuse_parts(surface_tilt, surface_azimuth, dhi, dni, dni_extra, zen, azi,
                               airmass, transposition)
     circum = parts["circumsolar"] * vis
-    iso = parts["isotropic"] * sky_view_ratio(surface_tilt, surface_azimuth, horizon)
-    band = parts["horizon"] * sky_view_ratio(surface_tilt, surface_azimuth, horizon, 6.5)
+    iso = parts["isotropic"] * sky_view(surface_tilt, surface_azimuth, horizon)
+    band = parts["horizon"] * sky_view(surface_tilt, surface_azimuth, horizon, 6.5)
     ground = pvlib.irradiance.get_ground_diffuse(surface_tilt, ghi, albedo)
     k_b = iam_beam(aoi, iam)
     k_d = iam_diffuse(surface_tilt, iam)
@@ -517,6 +549,117 @@ def poa_components(surface_tilt: float, surface_azimuth: float, solpos: pd.DataF
         "poa_effective": ((direct + circum) * k_b + iso * k_d["sky"] + band * k_d["horizon"]
         + ground * k_d["ground"]).clip(lower=0.0),
     })
+
+
+# --------------------------------------------------------------------------------------------
+# trackers and bifacial modules
+
+
+def singleaxis(solpos: pd.DataFrame, axis_tilt: float, axis_azimuth: float, max_angle: float,
+               backtrack: bool, gcr: float) -> pd.DataFrame:
+    """Orientation of a single-axis tracker: rotation and the plane it gives the modules.
+
+    The rotation follows the sun within ``max_angle`` (true tracking), or, with
+    ``backtrack``, turns back so that the rows do not shade one another at low sun (Lorenzo et
+    al. 2011, through pvlib). With the sun below the horizon the tracker is taken flat
+    (rotation 0), its night position; pvlib gives no angle there.
+
+    Parameters
+    ----------
+    solpos : pandas.DataFrame
+        From :func:`solar_position` (``apparent_zenith``, ``azimuth``).
+    axis_tilt : float
+        Tilt of the rotation axis from horizontal [deg] (0: a horizontal tracker).
+    axis_azimuth : float
+        Compass direction the axis points along, clockwise from north [deg] (180: a
+        north-south axis).
+    max_angle : float
+        Largest rotation either way from flat [deg].
+    backtrack : bool
+        Turn back at low sun to avoid row-to-row shading.
+    gcr : float
+        Ground coverage ratio, module length across the axis over the row pitch [-].
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``tracker_theta`` (rotation, positive turns the modules toward the west for a
+        north-south axis), ``surface_tilt``, ``surface_azimuth`` [deg].
+
+    References
+    ----------
+    Marion, W. F., Dobos, A. P. (2013). Rotation angle for the optimum tracking of one-axis
+    trackers. NREL/TP-6A20-58891. Lorenzo, E., Narvarte, L., Munoz, J. (2011). Tracking and
+    back-tracking. Prog. Photovolt. 19(6), 747-753. Anderson, K., Mikofski, M. (2020).
+    Slope-aware backtracking for single-axis trackers. NREL/TP-5K00-76626.
+    """
+    out = pvlib.tracking.singleaxis(solpos["apparent_zenith"], solpos["azimuth"], axis_tilt,
+                                    axis_azimuth, max_angle, backtrack, gcr)
+    theta = out["tracker_theta"].where(solpos["apparent_zenith"].isna(),
+                                       out["tracker_theta"].fillna(0.0))
+    plane = pvlib.tracking.calc_surface_orientation(theta, axis_tilt, axis_azimuth)
+    return pd.DataFrame({"tracker_theta": theta, "surface_tilt": plane["surface_tilt"],
+                         "surface_azimuth": plane["surface_azimuth"]}, index=solpos.index)
+
+
+# Share of the rear irradiance blocked by the mounting structure: pvlib's default for the
+# infinite-sheds model (common practice; no published source at hand).
+REAR_SHADE_FACTOR = -0.02
+
+
+def poa_rear(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+             solpos: pd.DataFrame, ghi: pd.Series, dhi: pd.Series, dni: pd.Series,
+             albedo: float, gcr: float, height: float, pitch: float) -> pd.Series:
+    """Irradiance on the rear of a row of modules by the infinite-sheds model [W/m^2].
+
+    The rear is the front plane turned over: tilt 180 - β, azimuth γ + 180. The model sums the
+    sky diffuse (isotropic) the rear sees between the rows, the light the ground reflects
+    (shaded and sunlit ground, with the view of each restricted by the rows) and any beam
+    reaching the rear, for rows on level ground far from the row ends.
+
+    Parameters
+    ----------
+    surface_tilt, surface_azimuth : float or pandas.Series
+        Front plane [deg]; Series for a tracker (:func:`singleaxis`).
+    solpos : pandas.DataFrame
+        From :func:`solar_position`.
+    ghi, dhi, dni : pandas.Series
+        [W/m^2].
+    albedo : float
+        Ground reflectance [-].
+    gcr : float
+        Ground coverage ratio [-].
+    height, pitch : float
+        Height of the row's centre above the ground and distance between rows [m].
+
+    References
+    ----------
+    Mikofski, M., Darawali, R., Hamer, M., Neubert, A., Newmiller, J. (2019). Bifacial
+    performance modeling in large arrays. 2019 IEEE 46th PVSC, 1282-1287 (through pvlib's
+    ``bifacial.infinite_sheds``).
+    """
+    back_tilt = 180.0 - surface_tilt
+    back_azimuth = (surface_azimuth + 180.0) % 360.0
+    out = pvlib.bifacial.infinite_sheds.get_irradiance_poa(
+        back_tilt, back_azimuth, solpos["apparent_zenith"], solpos["azimuth"], gcr, height,
+        pitch, ghi, dhi, dni, albedo, model="isotropic")
+    return out["poa_global"].fillna(0.0).where(ghi.notna())
+
+
+def bifacial_effective(poa_front_effective: pd.Series, poa_rear: pd.Series,
+                       bifaciality: float, shade_factor: float = REAR_SHADE_FACTOR
+                       ) -> pd.Series:
+    """Irradiance that reaches the cells of a bifacial module, front and rear [W/m^2].
+
+    E = E_front + φ (1 + f_shade) E_rear: the rear counts at the bifaciality φ (rear over front
+    efficiency at standard conditions), less the share the mounting structure shades.
+
+    References
+    ----------
+    Mikofski, M. et al. (2019), 2019 IEEE 46th PVSC, 1282-1287; pvlib
+    ``bifacial.infinite_sheds.get_irradiance`` (the same sum).
+    """
+    return poa_front_effective + bifaciality * (1.0 + shade_factor) * poa_rear
 
 
 def atmosphere(solpos: pd.DataFrame, pressure: float) -> pd.DataFrame:

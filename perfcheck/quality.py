@@ -60,6 +60,7 @@ LIMITS: dict[str, tuple[float | None, float | None]] = {
     # BSRN physically possible minimum for GHI, DHI, DNI (Long & Dutton 2002, from memory);
     # applied to POA too.
     "poa_wm2": (-4.0, None),
+    "poa_rear_wm2": (-4.0, None),
     "ghi_wm2": (-4.0, None),
     "dhi_wm2": (-4.0, None),
     "dni_wm2": (-4.0, None),
@@ -73,6 +74,8 @@ LIMITS: dict[str, tuple[float | None, float | None]] = {
     # WMO greatest 60-minute rainfall (from memory); per interval of up to 60 min
     "rain_mm": (0.0, 305.0),
     "energy_register_wh": (0.0, None),
+    # a tracker turns at most a right angle either way from flat (geometry)
+    "tracker_angle_deg": (-90.0, 90.0),
 }
 # Power may exceed the AC rating by this factor at most (inverter overload headroom, cold
 # weather): common practice. Negative down to this share of the rating (night consumption).
@@ -84,7 +87,9 @@ DC_OVER = 1.5
 STUCK_MINUTES = 60  # at least this long, and at least STUCK_MIN_INTERVALS intervals
 STUCK_MIN_INTERVALS = 3
 STUCK_CHANCE = 0.01  # a run this long anywhere in the channel's record, by chance
-NEVER_STUCK = ("energy_register_wh", "rain_mm")  # accumulate in steps of their resolution
+# Accumulate in steps of their resolution; a tracker holds still at its limit, flat at night
+# and in stow by design (a stalled tracker is a detector's question, not a flag of the data).
+NEVER_STUCK = ("energy_register_wh", "rain_mm", "tracker_angle_deg")
 DAY_ELEVATION_DEG = 5.0  # sun above this: quantities should vary
 CLIPPING_SHARE = 0.95  # power runs at or above this share of the rating are not stuck
 NIGHT_ELEVATION_DEG = -6.0  # end of civil twilight: no sunlight reaches a sensor
@@ -93,10 +98,11 @@ POWER_SHARE = 0.05  # of the AC rating (common practice)
 IRRADIANCE_FLOOR_WM2 = 10.0  # below this, DC output is about 1 % of nameplate
 
 FLAG_NAMES = ("out_of_range", "stuck", "gap", "night_offset", "power_without_irradiance")
-IRRADIANCE = ("poa_wm2", "ghi_wm2", "dhi_wm2", "dni_wm2")
+IRRADIANCE = ("poa_wm2", "poa_rear_wm2", "ghi_wm2", "dhi_wm2", "dni_wm2")
 # Levels at or below which a quantity is at rest and may hold still: zero for power, energy and
 # irradiance; 0.5 m/s for wind, about the starting threshold of a cup anemometer (from memory).
 REST_LEVEL = {"ac_power_w": 0.0, "dc_power_w": 0.0, "energy_interval_wh": 0.0, "poa_wm2": 0.0,
+              "poa_rear_wm2": 0.0,
               "ghi_wm2": 0.0, "dhi_wm2": 0.0, "dni_wm2": 0.0, "wind_speed_ms": 0.5}
 
 

@@ -27,6 +27,7 @@ QUANTITIES: dict[str, tuple[str, tuple[str, ...]]] = {
     "energy_register": ("energy_register_wh", ("Wh", "kWh", "MWh")),
     "energy_interval": ("energy_interval_wh", ("Wh", "kWh", "MWh")),
     "poa": ("poa_wm2", ("W/m2",)),
+    "poa_rear": ("poa_rear_wm2", ("W/m2",)),  # rear of a bifacial module, POA sensor's plane
     "ghi": ("ghi_wm2", ("W/m2",)),
     "dhi": ("dhi_wm2", ("W/m2",)),
     "dni": ("dni_wm2", ("W/m2",)),
@@ -34,6 +35,7 @@ QUANTITIES: dict[str, tuple[str, tuple[str, ...]]] = {
     "temp_module": ("temp_module_c", ("C", "K")),
     "wind_speed": ("wind_speed_ms", ("m/s", "km/h")),
     "rain": ("rain_mm", ("mm",)),
+    "tracker_angle": ("tracker_angle_deg", ("deg",)),  # rotation from flat, west positive
 }
 # Quantities that belong to an inverter (or to the plant meter); the others are site weather.
 DEVICE_QUANTITIES = ("ac_power", "dc_power", "energy_register", "energy_interval")
@@ -46,13 +48,37 @@ TEMPERATURE_MODELS = ("sapm", "faiman")
 IAM_MODELS = ("physical", "ashrae", "martin_ruiz", "none")
 POA_SENSOR_KINDS = ("pyranometer", "reference_cell")
 IRRADIANCE_SOURCES = ("auto", "poa_sensor", "ghi")
+TRACKINGS = ("fixed", "single_axis")
 TIME_KINDS = ("iso", "utc", "local", "epoch")
 LABELS = ("start", "end")
 
 
 @dataclass(frozen=True)
+class Tracker:
+    """A single-axis tracker: the rows turn about one axis to follow the sun."""
+
+    axis_tilt_deg: float  # tilt of the axis from horizontal (0: horizontal single-axis)
+    axis_azimuth_deg: float  # compass direction of the axis, clockwise from north
+    max_angle_deg: float  # largest rotation either way from flat
+    backtrack: bool  # turn back at low sun so the rows do not shade one another
+
+
+@dataclass(frozen=True)
+class Bifacial:
+    """Modules that also take light on their rear, rows described for the infinite-sheds model."""
+
+    bifaciality: float  # rear over front efficiency [-], e.g. 0.7
+    row_height_m: float  # height of the row's centre above the ground
+    row_pitch_m: float  # distance between rows
+
+
+@dataclass(frozen=True)
 class Array:
-    """One orientation of modules feeding an inverter."""
+    """One orientation of modules feeding an inverter.
+
+    A tracker array's ``tilt_deg`` and ``azimuth_deg`` are its plane with the tracker flat
+    (the axis's tilt and azimuth); the modelled plane moves (``tracker``).
+    """
 
     dc_kwp: float
     tilt_deg: float
@@ -63,6 +89,9 @@ class Array:
     strings: int
     albedo: float
     horizon: tuple[tuple[float, float], ...]  # (azimuth_deg, elevation_deg), sorted by azimuth
+    gcr: float | None = None  # ground coverage ratio (trackers and bifacial rows)
+    tracker: Tracker | None = None  # None: fixed
+    bifacial: Bifacial | None = None  # None: monofacial
 
 
 @dataclass(frozen=True)
@@ -112,6 +141,8 @@ class Model:
     poa_sensor_kind: str = "pyranometer"
     poa_sensor_tilt_deg: float | None = None  # default: plane of the first array
     poa_sensor_azimuth_deg: float | None = None
+    poa_sensor_on_tracker: bool = False  # the sensor rides the first tracker array's tracker
+    # (default in the site file: true when the first array is a tracker, see _sensor_on_tracker)
     decomposition: str = "erbs"
     transposition: str = "perez"
     temperature_model: str = "sapm"
@@ -323,21 +354,57 @@ def _horizon(t: Table, key: str, default: Any) -> tuple[tuple[float, float], ...
 
 
 def _array(t: Table, albedo: float, horizon: tuple) -> Array:
+    tracking = t.get("tracking", str, "fixed", TRACKINGS)
+    tracker = _tracker(t) if tracking == "single_axis" else None
+    bifaciality = t.number("bifaciality", None, lo=0, hi=1)
+    needs_rows = tracker is not None or bifaciality is not None
+    gcr = t.number("gcr", ... if needs_rows else None, lo=0.01, hi=0.99)
+    if gcr is not None and not needs_rows:
+        raise t._err("gcr", "only a tracker (tracking = \"single_axis\") or bifacial array "
+                     "(bifaciality) uses it")
+    if tracker is None:
+        tilt, azimuth = t.number("tilt_deg", lo=0, hi=90), t.number("azimuth_deg", lo=0, hi=360)
+    else:
+        tilt, azimuth = tracker.axis_tilt_deg, tracker.axis_azimuth_deg
     a = Array(
         dc_kwp=t.number("dc_kwp", lo=0.001, hi=1e7),
-        tilt_deg=t.number("tilt_deg", lo=0, hi=90),
-        azimuth_deg=t.number("azimuth_deg", lo=0, hi=360),
+        tilt_deg=tilt,
+        azimuth_deg=azimuth,
         gamma_pct_per_c=t.number("gamma_pct_per_c", lo=-1.0, hi=0.0),
         mounting=t.get("mounting", str, "open_rack", MOUNTINGS),
         construction=t.get("construction", str, "glass_polymer", CONSTRUCTIONS),
         strings=t.get("strings", int),
         albedo=t.number("albedo", albedo, lo=0, hi=1),
         horizon=_horizon(t, "horizon", horizon),
+        gcr=gcr,
+        tracker=tracker,
+        bifacial=None if bifaciality is None else _bifacial(t, bifaciality),
     )
     if a.strings < 1:
         raise t._err("strings", "expected at least 1")
     t.done()
     return a
+
+
+def _tracker(t: Table) -> Tracker:
+    """The keys of a single-axis tracker array; its plane comes from the axis, so the keys of
+    a fixed plane are refused."""
+    for key in ("tilt_deg", "azimuth_deg"):
+        if key in t.data:
+            raise t._err(key, "a single-axis tracker has no fixed plane; give axis_tilt_deg, "
+                         "axis_azimuth_deg and max_angle_deg instead")
+    return Tracker(
+        axis_tilt_deg=t.number("axis_tilt_deg", 0.0, lo=0, hi=45),
+        axis_azimuth_deg=t.number("axis_azimuth_deg", 180.0, lo=0, hi=360),
+        max_angle_deg=t.number("max_angle_deg", 60.0, lo=1, hi=90),
+        backtrack=t.get("backtrack", bool, True),
+    )
+
+
+def _bifacial(t: Table, bifaciality: float) -> Bifacial:
+    return Bifacial(bifaciality=bifaciality,
+                    row_height_m=t.number("row_height_m", lo=0.1, hi=20),
+                    row_pitch_m=t.number("row_pitch_m", lo=0.5, hi=100))
 
 
 def _column(t: Table, inverter_ids: set[str]) -> Column:
@@ -414,6 +481,22 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
     return lg
 
 
+def _sensor_on_tracker(mt: Table, inverters: list[Inverter]) -> bool:
+    """``poa_sensor_on_tracker``: as given, else true when the first array (whose plane is the
+    sensor's by default) is a tracker and no fixed sensor plane is given. A sensor on a
+    tracker needs a tracker array and has no fixed plane."""
+    plane_keys = [k for k in ("poa_sensor_tilt_deg", "poa_sensor_azimuth_deg") if k in mt.data]
+    default = inverters[0].arrays[0].tracker is not None and not plane_keys
+    if not mt.get("poa_sensor_on_tracker", bool, default):
+        return False
+    if not any(a.tracker for inv in inverters for a in inv.arrays):
+        raise mt._err("poa_sensor_on_tracker", "no array has tracking = \"single_axis\"")
+    if plane_keys:
+        raise mt._err(plane_keys[0], "a sensor on a tracker has no fixed plane (remove the key "
+                      "or set poa_sensor_on_tracker = false)")
+    return True
+
+
 def load_site(path: str | Path) -> Site:
     """Read and validate a site file.
 
@@ -488,6 +571,7 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         poa_sensor_kind=mt.get("poa_sensor_kind", str, "pyranometer", POA_SENSOR_KINDS),
         poa_sensor_tilt_deg=mt.number("poa_sensor_tilt_deg", None, lo=0, hi=90),
         poa_sensor_azimuth_deg=mt.number("poa_sensor_azimuth_deg", None, lo=0, hi=360),
+        poa_sensor_on_tracker=_sensor_on_tracker(mt, inverters),
         decomposition=mt.get("decomposition", str, "erbs", DECOMPOSITIONS),
         transposition=mt.get("transposition", str, "perez", TRANSPOSITIONS),
         temperature_model=mt.get("temperature_model", str, "sapm", TEMPERATURE_MODELS),

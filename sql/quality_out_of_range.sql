@@ -2,7 +2,8 @@
 -- rating-scaled ranges come from _quality_channels (lo, hi; NULL: no limit). Irradiance upper
 -- limits follow the sun, BSRN physically possible limits (Long & Dutton 2002, from memory):
 -- GHI < Sa*1.5*mu0^1.2 + 100, DHI < Sa*0.95*mu0^1.2 + 50, DNI < Sa; for POA the GHI form
--- with the cosine at its maximum while the sun is up (a tilted plane can face the sun).
+-- with the cosine at its maximum while the sun is up (a tilted plane can face the sun), for
+-- the rear of a bifacial module too (it faces the sun at low sun).
 INSERT INTO flags
 WITH lim AS (
     SELECT r.ts, r.quantity, r.device, r.value, c.lo,
@@ -11,6 +12,7 @@ WITH lim AS (
                WHEN 'dhi_wm2' THEN s.sa_wm2 * 0.95 * pow(s.mu0, 1.2) + 50
                WHEN 'dni_wm2' THEN s.sa_wm2
                WHEN 'poa_wm2' THEN s.sa_wm2 * 1.5 * (s.mu0 > 0)::INTEGER + 100
+               WHEN 'poa_rear_wm2' THEN s.sa_wm2 * 1.5 * (s.mu0 > 0)::INTEGER + 100
                ELSE c.hi END AS hi
     FROM readings r
     JOIN _quality_channels c USING (quantity, device)

@@ -38,9 +38,9 @@ class _site_stub:  # noqa: N801 - the few attributes sun_table reads
         self.latitude_deg, self.longitude_deg, self.altitude_m = lat, lon, 500.0
 
 
-def flagged(tmp_path, frame, drop=()):
+def flagged(tmp_path, frame, drop=(), columns=COLUMNS):
     frame = frame.drop(index=list(drop))
-    site_path, log = write_case(tmp_path, frame.to_csv(index=False), columns=COLUMNS)
+    site_path, log = write_case(tmp_path, frame.to_csv(index=False), columns=columns)
     site = load_site(site_path)
     con = db.connect(tmp_path / "site.duckdb")
     ingest_files(con, site, [log])
@@ -166,3 +166,23 @@ def test_empty_database_has_no_flags(tmp_path):
     site_path, _ = write_case(tmp_path, "ts,P,G\n", columns=COLUMNS)
     con = db.connect(tmp_path / "site.duckdb")
     assert quality.run(con, load_site(site_path)) == dict.fromkeys(quality.FLAG_NAMES, 0)
+
+
+def test_tracker_angle_and_rear_irradiance_channels(tmp_path):
+    # A tracker angle outside +-90 deg is impossible (a tracker turns at most a right angle
+    # from flat: geometry); an angle held for hours (at the limit, flat at night, in stow) is
+    # designed behaviour, never "stuck". The rear irradiance takes the POA limits (BSRN form,
+    # Long & Dutton 2002, from memory) and night offset: 150 W/m2 at night is both.
+    frame, sun = clear_day()
+    noon = int(sun["elevation_deg"].idxmax())
+    frame["A"] = np.where(sun["elevation_deg"] > 0, -60.0, 0.0)  # at the limit all day
+    frame.loc[noon, "A"] = 95.0
+    frame["R"] = np.round(np.clip(frame["G"], 0, None) * 0.1, 1)
+    frame.loc[10, "R"] = 150.0
+    _, flags, _, _ = flagged(tmp_path, frame, columns=COLUMNS + (
+        ("A", "tracker_angle", "deg", None), ("R", "poa_rear", "W/m2", None)))
+    mine = flags[flags["quantity"].isin(["tracker_angle_deg", "poa_rear_wm2"])]
+    got = sorted(zip(mine["ts"], mine["quantity"], mine["flag"], strict=True))
+    assert got == [(DAY[10], "poa_rear_wm2", "night_offset"),
+                   (DAY[10], "poa_rear_wm2", "out_of_range"),
+                   (DAY[noon], "tracker_angle_deg", "out_of_range")]

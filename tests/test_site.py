@@ -41,8 +41,8 @@ def _edit(site, old, new):
          "MW)"),
         ('quantity = "poa"', 'quantity = "irradiance"',
          "loggers[0].columns[1].quantity: 'irradiance' is not one of 'ac_power', 'dc_power', "
-         "'energy_register', 'energy_interval', 'poa', 'ghi', 'dhi', 'dni', 'temp_air', "
-         "'temp_module', 'wind_speed', 'rain'"),
+         "'energy_register', 'energy_interval', 'poa', 'poa_rear', 'ghi', 'dhi', 'dni', "
+         "'temp_air', 'temp_module', 'wind_speed', 'rain', 'tracker_angle'"),
         ('inverter = "INV1"', 'inverter = "INV9"',
          "loggers[0].columns[0].inverter: 'INV9' is not an inverter id of this site "
          "(ids: INV1, INV2, or 'plant')"),
