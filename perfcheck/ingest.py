@@ -635,6 +635,15 @@ def channel_intervals(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], i
     return {(q, d): int(m) * 60 for q, d, m in rows}
 
 
+def aged(con: duckdb.DuckDBPyConnection, site: Site) -> Site:
+    """The site with its age reference (:meth:`Site.aged`) from the site-local day of the
+    first stored reading; the site itself when it states ``commissioned``."""
+    if site.commissioned is not None:
+        return site
+    first = _one(con, "SELECT min(ts) FROM readings")[0]
+    return site.aged(None if first is None else pd.Timestamp(first).tz_convert(site.tz).date())
+
+
 def quarantined(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """Every quarantined line: ``file`` (as given when ingested), ``line``, ``ts`` (its instant,
     or that of the nearest readable line before it), ``reason``, ``reason_kind`` (the reason
@@ -657,6 +666,7 @@ def coverage_summary(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame
 __all__ = [
     "FileResult",
     "UNIT_TO_SI",
+    "aged",
     "channel_intervals",
     "check_file",
     "coverage_summary",

@@ -330,7 +330,8 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "site_file": site.path.name,
         "versions": versions.versions(),
         "settings": {k: v for k, v in result.get("settings", {}).items()
-                     if k not in ("rules", "interval_method")},
+                     if k not in ("rules", "interval_method", "notes")},
+        "notes": result.get("settings", {}).get("notes", []),
         "rules": result.get("settings", {}).get("rules", []),
         "interval_method": result.get("settings", {}).get("interval_method", ""),
         "cautions": CAUTIONS,
@@ -511,6 +512,8 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
         b.append(("para", f"Rule: {rule}."))
     if ctx["interval_method"]:
         b.append(("para", f"Intervals: {ctx['interval_method']}."))
+    for note in ctx["notes"]:
+        b.append(("para", f"Note: {note}."))
     if ctx["settings"]:
         b.append(("table", (["Setting", "Value"],
                             [[k, str(v)] for k, v in ctx["settings"].items()])))

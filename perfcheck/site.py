@@ -6,6 +6,7 @@ Every error names the key path (``inverters[1].arrays[0].tilt_deg``) and what wa
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import fnmatch
 import math
@@ -166,7 +167,7 @@ class Site:
     longitude_deg: float
     altitude_m: float
     timezone: str
-    commissioned: dt.date
+    commissioned: dt.date | None  # None: the age allowance starts from the data (age_reference)
     export_limit_kw: float | None
     inverters: tuple[Inverter, ...]
     losses: Losses
@@ -175,6 +176,8 @@ class Site:
     inbox: str | None
     path: Path
     raw: dict[str, Any] = field(repr=False, compare=False)
+    module_age_years: float | None = None  # module age at the first data, without commissioned
+    age_note: str | None = None  # how the age reference was chosen, when not commissioned
 
     @property
     def tz(self) -> zoneinfo.ZoneInfo:
@@ -193,6 +196,32 @@ class Site:
             if inv.id == inverter_id:
                 return inv
         raise KeyError(inverter_id)
+
+    def aged(self, first_data: dt.date | None) -> Site:
+        """This site with ``commissioned`` set to the reference of the age allowance and
+        ``age_note`` saying how it was chosen, for a site file that gives no commissioning
+        date: the first data's site-local day (``first_data``), moved back by
+        ``module_age_years_at_first_data`` when stated. A site with ``commissioned``, or
+        without data yet (``first_data`` None), is returned as it is."""
+        if self.commissioned is not None or first_data is None:
+            return self
+        years = self.module_age_years or 0.0
+        start = years_before(first_data, years)
+        if years:
+            note = (f"no commissioning date in the site file: the age allowance counts the "
+                    f"modules as {years:g} years old at the first data ({first_data}), i.e. "
+                    f"ageing from {start} (site.module_age_years_at_first_data)")
+        else:
+            note = (f"no commissioning date in the site file: the age allowance starts at the "
+                    f"first data ({first_data}); if the modules are older, give "
+                    "site.commissioned or site.module_age_years_at_first_data")
+        return dataclasses.replace(self, commissioned=start, age_note=note)
+
+    def age_record(self) -> dict[str, Any]:
+        """The age reference and its note, as the check document's settings show them."""
+        return {"age_reference_date": None if self.commissioned is None
+                else self.commissioned.isoformat(),
+                "notes": [self.age_note] if self.age_note else []}
 
     def logger_for(self, filename: str) -> Logger:
         """The logger whose ``match`` glob fits the file's name: of several, the most specific
@@ -213,6 +242,11 @@ class Site:
                 f"{b.match!r}) match this file name equally well; make one match more specific"
             )
         return top[0]
+
+
+def years_before(day: dt.date, years: float) -> dt.date:
+    """The day ``years`` (of 365.25 days, as the age allowance counts them) before ``day``."""
+    return day - dt.timedelta(days=round(years * 365.25))
 
 
 def glob_specificity(pattern: str) -> tuple[int, int]:
@@ -453,11 +487,15 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         longitude_deg=s.number("longitude_deg", lo=-180, hi=180),
         altitude_m=s.number("altitude_m", 0.0, lo=-500, hi=9000),
         timezone=tzname,
-        commissioned=s.get("commissioned", dt.date),
+        commissioned=s.get("commissioned", dt.date, None),
+        module_age_years=s.number("module_age_years_at_first_data", None, lo=0, hi=60),
         export_limit_kw=s.number("export_limit_kw", None, lo=0),
         inbox=s.get("inbox", str, None),
     )
     s.done()
+    if site_fields["commissioned"] is not None and site_fields["module_age_years"] is not None:
+        raise s._err("module_age_years_at_first_data", "give either commissioned or "
+                     "module_age_years_at_first_data, not both")
 
     inverters = []
     for t in top.tables("inverters"):
