@@ -55,6 +55,7 @@ import glob
 import hashlib
 import re
 import tempfile
+import zlib
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -483,22 +484,27 @@ def _quoted_patterns(delimiter: str) -> tuple[str, str]:
 
 
 @contextmanager
-def _readable(chk: _Checked) -> Iterator[Path]:
+def _readable(chk: _Checked, data: bytes) -> Iterator[Path]:
     """The path DuckDB reads for a checked file: the file itself, or, when data lines hold
-    bytes that are not UTF-8 (they are quarantined), a temporary copy with those bytes replaced
-    by U+FFFD, so that the other lines can be read. The copy is made from the bytes checked
-    (same sha256) and removed afterwards."""
+    bytes that are not UTF-8 (they are quarantined), a temporary copy of ``data`` (the file's
+    bytes as checked) with those bytes replaced by U+FFFD, so that the other lines can be read.
+    The copy is removed afterwards."""
     if not chk.not_utf8:
         yield chk.path
         return
-    data = _read_bytes(chk.path)
-    if hashlib.sha256(data).hexdigest() != chk.sha256:
-        raise LoggerFileError(f"{chk.given}: changed while being ingested; nothing of this file "
-                              "was stored")
     with tempfile.TemporaryDirectory() as tmp:
         copy = Path(tmp) / "utf8.csv"
         copy.write_bytes(data.decode("utf-8", errors="replace").encode("utf-8"))
         yield copy
+
+
+def _checked_bytes(chk: _Checked) -> bytes:
+    """The file's bytes, read again for storing: they must be those checked (same sha256)."""
+    data = _read_bytes(chk.path)
+    if hashlib.sha256(data).hexdigest() != chk.sha256:
+        raise LoggerFileError(f"{chk.given}: changed while being ingested; nothing of this file "
+                              "was stored")
+    return data
 
 
 def _read_params(site: Site, chk: _Checked, path: Path) -> dict[str, object]:
@@ -535,10 +541,16 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
     known = _one(con, "SELECT file_id FROM source_files WHERE sha256 = ?", [chk.sha256])
     if known is not None:
         return FileResult(chk.given, int(known[0]), "already ingested", 0, 0, 0, 0, 0, None, None)
+    data = _checked_bytes(chk)
     con.execute("BEGIN TRANSACTION")
     try:
-        with _readable(chk) as path:
+        with _readable(chk, data) as path:
             row = _store_file(con, site, chk, _read_params(site, chk, path))
+        _checked_bytes(chk)  # DuckDB read the file itself: it must still be the copy's bytes
+        # the ingested version's bytes, so that it stays verifiable when the file on disk
+        # later grows or changes under the same name (level 1: fast, about 4x on CSV)
+        con.execute(db.sql("ingest_copy"), {"sha256": chk.sha256,
+                                            "zlib_bytes": zlib.compress(data, 1)})
         con.execute("COMMIT")
     except BaseException as exc:
         con.execute("ROLLBACK")

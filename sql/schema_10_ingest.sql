@@ -21,6 +21,15 @@ CREATE TABLE IF NOT EXISTS source_files (
     tool_version   VARCHAR NOT NULL
 );
 
+-- The bytes of every ingested file version, zlib-compressed, keyed by their sha256 and stored in
+-- the same transaction as the file: a logger file that later grows or changes under the same
+-- name (a month exported on the 15th and again on the 1st) keeps its earlier version here, so
+-- evidence bundles still carry the exact bytes that were ingested.
+CREATE TABLE IF NOT EXISTS source_copies (
+    sha256     VARCHAR PRIMARY KEY,
+    zlib_bytes BLOB NOT NULL
+);
+
 -- A channel is one (quantity, device) pair: quantity is the stored name with its unit
 -- (ac_power_w, poa_wm2 ...); device is an inverter id, 'plant' or 'site'.
 CREATE TABLE IF NOT EXISTS channels (
