@@ -28,7 +28,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import align, db, detect, guarantees, ingest, kinds, metrics, versions
+from perfcheck import align, db, detect, guarantees, ingest, kinds, metrics, status, versions
 from perfcheck.detect.attribution import Ledger
 from perfcheck.detect.common import Event, _jsonable
 from perfcheck.errors import DataError
@@ -116,7 +116,7 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
         raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
                         "files with AC power and run 'perfcheck model' first")
     settings = metrics.load_settings(site)
-    found = detect.analyse(df, site)
+    found = detect.analyse(df, site, reported=status.reported(con, site))
     if progress:
         progress("detectors")
     ledger: Ledger = found["ledger"]

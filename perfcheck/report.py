@@ -199,7 +199,11 @@ def event_paragraph(ev: dict, tz: str) -> str:
               "(not a loss)."
     else:
         saw = f"{when} lost about {_kwh_interval(ev)}."
-    extra = {k: v for k, v in ev.items() if k not in EVENT_FIELDS}  # the detector's details
+    if ev.get("reported_state"):
+        who = "the inverters" if ev["scope"] == "plant" else "the inverter"
+        saw += f" Meanwhile {who} reported: {ev['reported_state']}."
+    extra = {k: v for k, v in ev.items()  # the detector's details
+             if k not in EVENT_FIELDS and k != "reported_state"}
     stats = ", ".join(f"{k.replace('_', ' ')} {_short(v)}"
                       for k, v in {**ev.get("evidence", {}), **extra}.items()
                       if v is not None and not isinstance(v, (list, dict)))

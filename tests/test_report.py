@@ -85,6 +85,17 @@ def test_event_paragraph_plain_words():
     assert "On site, check string currents" in text
 
 
+def test_event_paragraph_says_what_the_inverter_reported():
+    # issue 10, item 3: a trip the inverter itself explains is said in its words
+    ev = {**example_check()["events"][0], "kind": "outage",
+          "reported_state": "stopped by the grid"}
+    text = report.event_paragraph(ev, "Europe/Zurich")
+    assert text.startswith("From 2025-06-13 00:00 to 2025-06-19 00:00 inverter INV2 lost about "
+                           "412 kWh, 360–470. Meanwhile the inverter reported: stopped by the "
+                           "grid. We think it is outage because")
+    assert "reported state" not in text
+
+
 def test_events_csv_stable_columns(written):
     rows = list(csv.DictReader(io.StringIO(written[1]["events_csv"].read_text())))
     assert list(rows[0]) == report.EVENT_FIELDS

@@ -51,7 +51,7 @@ def _edit(site, old, new):
         ('quantity = "poa"', 'quantity = "irradiance"',
          "loggers[0].columns[1].quantity: 'irradiance' is not one of 'ac_power', 'dc_power', "
          "'energy_register', 'energy_interval', 'poa', 'ghi', 'dhi', 'dni', 'temp_air', "
-         "'temp_module', 'wind_speed', 'rain'"),
+         "'temp_module', 'wind_speed', 'rain', 'status'"),
         ('inverter = "INV1"', 'inverter = "INV9"',
          "loggers[0].columns[0].inverter: 'INV9' is not an inverter id of this site "
          "(ids: INV1, INV2, or 'plant')"),
@@ -191,3 +191,15 @@ def test_module_age_at_first_data_moves_the_age_reference(tmp_path):
     plain, _ = write_case(tmp_path / "b", GOOD)
     kept = load_site(plain)
     assert kept.aged(dt.date(2024, 6, 1)) is kept and kept.age_record()["notes"] == []
+
+
+def test_register_restarting_daily_is_read(tmp_path):
+    columns = (("E", "energy_register", "kWh", "INV1"),)
+    site, _ = write_case(tmp_path, GOOD, loggers=logger_toml(columns=columns))
+    _edit(site, 'inverter = "INV1"', 'inverter = "INV1"\nresets = "daily"')
+    assert load_site(site).loggers[0].columns[0].resets_daily
+    _edit(site, 'resets = "daily"', 'resets = "weekly"')
+    with pytest.raises(SiteFileError) as err:
+        load_site(site)
+    assert str(err.value) == (f"{site}: loggers[0].columns[0].resets: 'weekly' is not one of "
+                              "'daily'")
