@@ -120,6 +120,7 @@ class _Checked:
     positions: tuple[int, ...]  # 1-based field position of each mapped column
     time_positions: tuple[int, ...]
     device_position: int | None  # a tall file's device column
+    point_position: int | None  # a historian file's point column
     header_end: int  # last line number that is not data (preamble, header, units row)
     crlf: bool  # the file holds CRLF line ends
     open_line: int  # number of a last line without a line end (0: the file ends in one)
@@ -246,8 +247,11 @@ def _line_at(data: bytes, number: int) -> tuple[str | None, int]:
 
 def _column_positions(path: Path, lg: Logger, header: list[str], line: int) -> dict[str, int]:
     names = [h.strip() for h in header]
-    wanted = list(lg.time.columns) + [c.name for c in lg.columns] + (
-        [lg.device_column] if lg.device_column else [])
+    if lg.point_column is not None:  # historian: the mapped names are points, not columns
+        wanted = [*lg.time.columns, lg.device_column, lg.point_column, lg.value_column]
+    else:
+        wanted = list(lg.time.columns) + [c.name for c in lg.columns] + (
+            [lg.device_column] if lg.device_column else [])
     positions: dict[str, int] = {}
     for name in wanted:
         if names.count(name) > 1:
@@ -332,9 +336,10 @@ def check_file(site: Site, path: str | Path) -> _Checked:
         sha256=hashlib.sha256(raw).hexdigest(),  # of the file as it is (compressed or not)
         size_bytes=len(raw),
         n_fields=len(fields),
-        positions=tuple(positions[c.name] for c in lg.columns),
+        positions=tuple(positions[lg.value_column or c.name] for c in lg.columns),
         time_positions=tuple(positions[c] for c in lg.time.columns),
         device_position=positions[lg.device_column] if lg.device_column else None,
+        point_position=positions[lg.point_column] if lg.point_column else None,
         header_end=header_end,
         crlf=b"\r" in data,  # one byte: a fast scan; a lone CR is harmless
         open_line=0 if data.endswith(b"\n") else data.count(b"\n") + 1,
@@ -471,10 +476,15 @@ def _rows_sql(chk: _Checked) -> str:
     any_bad = " OR ".join(p[3] for p in parts)
     errors = ", ".join(p[2] for p in parts)
     if chk.device_position is not None:  # a tall file: column k is read from its devices' rows
-        dp = chk.device_position
-        texts = [f"CASE WHEN list_contains($when[{k}], trim(f[{dp}])) THEN f[{p}] END AS s{k}"
-                 for k, p in enumerate(chk.positions, start=1)] + [f"trim(f[{dp}]) AS dev"]
-        tall = ", dev"  # kept: the outcome tells lines apart by time and device
+        dp, pp = chk.device_position, chk.point_position
+        point = "" if pp is None else f" AND trim(f[{pp}]) = $names[{{k}}]"
+        texts = [f"CASE WHEN list_contains($when[{k}], trim(f[{dp}])){point.format(k=k)} "
+                 f"THEN f[{p}] END AS s{k}" for k, p in enumerate(chk.positions, start=1)]
+        texts.append(f"trim(f[{dp}]) AS dev")
+        tall = ", dev"  # kept: the outcome tells lines apart by time and device (and point)
+        if pp is not None:
+            texts.append(f"trim(f[{pp}]) AS point")
+            tall += ", point"
         any_bad += " OR NOT list_contains($device_names, dev)"
         errors = ("CASE WHEN NOT list_contains($device_names, dev) THEN 'device ''' || dev || "
                   "''' is not in the devices of [[loggers]] ' || $logger_name END, " + errors)
@@ -482,7 +492,8 @@ def _rows_sql(chk: _Checked) -> str:
         lines=db.sql("ingest_lines"),
         time_text=time_text,
         field_texts=", ".join(texts),
-        numbers=", ".join(p[0] for p in parts) + ", dev",
+        numbers=", ".join(p[0] for p in parts) + ", dev" + (
+            ", point" if chk.point_position is not None else ""),
         time_ctes=db.sql(f"ingest_time_{lg.time.kind}"),
         values=", ".join(p[1] for p in parts) + tall,
         any_bad=any_bad,
@@ -633,7 +644,8 @@ def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
                 {"lo": lo, "hi": hi, "channels": channels})
     ks = range(1, len(channels) + 1)
     con.execute(db.sql("ingest_outcome").format(
-        key="ts, dev" if chk.device_position is not None else "ts",
+        key="ts" + (", dev" if chk.device_position is not None else "")
+            + (", point" if chk.point_position is not None else ""),
         same=" AND ".join(f"c.v{k} IS NOT DISTINCT FROM f.v{k}" for k in ks),
         n_values=" + ".join(f"(c.v{k} IS NOT NULL)::INTEGER" for k in ks),
     ))

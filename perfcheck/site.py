@@ -173,6 +173,9 @@ class Logger:
     columns: tuple[Column, ...]  # a tall logger's: one per mapped column and device it feeds
     device_column: str | None = None  # tall: one row per time and device, named here
     devices: tuple[tuple[str, str], ...] = ()  # tall: (device as written, id/plant/site)
+    # historian-style tall: one row per time, device and point; columns[].name is the point
+    point_column: str | None = None
+    value_column: str | None = None
 
 
 @dataclass(frozen=True)
@@ -473,6 +476,17 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
     if not all(isinstance(s, str) for s in sentinels):
         raise t._err("sentinels", "expected strings, e.g. [\"-9999\", \"#N/A\"]")
     device_column = t.get("device_column", str, None)
+    point_column = t.get("point_column", str, None)
+    value_column = t.get("value_column", str, None)
+    if (point_column is None) != (value_column is None):
+        raise t._err("value_column" if value_column is None else "point_column",
+                     "give point_column and value_column together (a historian export: one "
+                     "row per time, device and point)")
+    if point_column is not None and device_column is None:
+        raise t._err("point_column", "needs device_column (the column naming each row's "
+                     "device)")
+    if point_column is not None and t.data.get("units_row"):
+        raise t._err("units_row", "a historian export (point_column) has no units row")
     tables = t.tables("columns")
     columns = tuple(_column(c, inverter_ids, device_column is not None) for c in tables)
     names = [c.name for c in columns] + list(time.columns) + [device_column] * bool(
@@ -499,6 +513,8 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
         columns=columns,
         device_column=device_column,
         devices=devices,
+        point_column=point_column,
+        value_column=value_column,
     )
     if lg.preamble_lines < 0:
         raise t._err("preamble_lines", "expected 0 or more")

@@ -768,3 +768,38 @@ def test_broken_compressed_file_is_one_line(tmp_path):
     result = run_ingest(site_path, log)
     assert result.exit_code == 2
     assert result.stderr.startswith(f"perfcheck: error: {log}: cannot be decompressed (")
+
+
+HISTORIAN = TALL.replace('device_column = "Device"\n', 'device_column = "device"\n'
+                         'point_column = "point"\nvalue_column = "value"\n').replace(
+    'name = "P"', 'name = "Pac"').replace('name = "G"', 'name = "Irr"').replace(
+    'columns = ["ts"]', 'columns = ["time"]')
+
+
+def test_historian_export_one_row_per_time_device_and_point(tmp_path):
+    # Invented historian export: one value per row; a point the site file does not map is
+    # read and stores nothing; a repeated row is a duplicate.
+    body = ("time,device,point,value\n"
+            "2024-06-01 10:00,WR 1,Pac,1.5\n2024-06-01 10:00,WR 2,Pac,2.5\n"
+            "2024-06-01 10:00,Meteo,Irr,500\n2024-06-01 10:00,WR 1,Temp,45\n"
+            "2024-06-01 10:05,WR 1,Pac,1.6\n2024-06-01 10:05,WR 1,Pac,1.6\n")
+    site_path, log = write_case(tmp_path, body, filename="park_06.csv", loggers=HISTORIAN)
+    site = load_site(site_path)
+    con = db.connect(tmp_path / "site.duckdb")
+    (res,) = ingest_files(con, site, [log])
+    assert (res.rows_read, res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (
+        6, 5, 1, 0)
+    # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019)
+    assert_allclose(series(con, "ac_power_w", "INV1").to_numpy(), [1500.0, 1600.0])
+    assert_allclose(series(con, "ac_power_w", "INV2").to_numpy(), [2500.0])
+    assert_allclose(series(con, "poa_wm2", "site").to_numpy(), [500.0])
+
+
+def test_historian_needs_point_and_value_columns_together(tmp_path):
+    site_path, _ = write_case(tmp_path, "x\n", filename="park_06.csv",
+                              loggers=HISTORIAN.replace('value_column = "value"\n', ""))
+    with pytest.raises(SiteFileError) as err:
+        load_site(site_path)
+    assert str(err.value) == (f"{site_path}: loggers[0].value_column: give point_column and "
+                              "value_column together (a historian export: one row per time, "
+                              "device and point)")
