@@ -709,12 +709,9 @@ def test_tall_export_one_row_per_time_and_device(tmp_path):
             "2024-06-01 10:00,WR 1,1.5,\n2024-06-01 10:00,WR 2,2.5,\n2024-06-01 10:00,Meteo,,500\n"
             "2024-06-01 10:05,WR 1,1.6,\n2024-06-01 10:05,WR 2,2.6,\n2024-06-01 10:05,Meteo,,510\n"
             "2024-06-01 10:05,WR 1,1.6,\n2024-06-01 10:05,WR 9,3.0,\n")
-    site_path, log = write_case(tmp_path, body, filename="park_06.csv", loggers=TALL)
-    site = load_site(site_path)
+    con, site, (res,) = ingest(tmp_path, body, filename="park_06.csv", loggers=TALL)
     assert [(c.device, c.when_device) for c in site.loggers[0].columns] == [
         ("INV1", ("WR 1",)), ("INV2", ("WR 2",)), ("site", ("Meteo",))]
-    con = db.connect(tmp_path / "site.duckdb")
-    (res,) = ingest_files(con, site, [log])
     assert (res.rows_read, res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (
         8, 6, 1, 1)
     # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019)
@@ -783,10 +780,7 @@ def test_historian_export_one_row_per_time_device_and_point(tmp_path):
             "2024-06-01 10:00,WR 1,Pac,1.5\n2024-06-01 10:00,WR 2,Pac,2.5\n"
             "2024-06-01 10:00,Meteo,Irr,500\n2024-06-01 10:00,WR 1,Temp,45\n"
             "2024-06-01 10:05,WR 1,Pac,1.6\n2024-06-01 10:05,WR 1,Pac,1.6\n")
-    site_path, log = write_case(tmp_path, body, filename="park_06.csv", loggers=HISTORIAN)
-    site = load_site(site_path)
-    con = db.connect(tmp_path / "site.duckdb")
-    (res,) = ingest_files(con, site, [log])
+    con, _, (res,) = ingest(tmp_path, body, filename="park_06.csv", loggers=HISTORIAN)
     assert (res.rows_read, res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (
         6, 5, 1, 0)
     # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019)
