@@ -36,7 +36,8 @@ CHUNK_DAYS = 31  # intervals are processed a month at a time, which bounds the m
 
 
 def register_power(register_wh: pd.Series, register_ts: pd.Series, interval_s: float,
-                   rollover_wh: float | None, pac0: float) -> pd.Series:
+                   rollover_wh: float | None, pac0: float, daily_reset_tz: str | None = None
+                   ) -> pd.Series:
     """Mean power between successive readings of a cumulative energy register [W].
 
     Each value is the register's last reading within an interval (``register_ts`` its stored
@@ -44,7 +45,10 @@ def register_power(register_wh: pd.Series, register_ts: pd.Series, interval_s: f
     interval closed (a logger writes its record, and reads the register, as the interval ends);
     so the power of an interval is the step from the previous interval's last reading divided
     by the time between the two readings. A negative step is a rollover when ``rollover_wh`` is
-    set (the register wraps at that value: step + rollover), else a reset (NaN). Steps spanning
+    set (the register wraps at that value: step + rollover), or, for a register that restarts
+    from zero at local midnight (``daily_reset_tz``: the site's zone), on the first reading of
+    a new local day (the step is then the reading itself, the energy since midnight), else a
+    reset (NaN). Steps spanning
     more than 1.5 intervals (a gap) and steps above 1.5 times the rating (``pac0`` [W]) over
     the elapsed time are NaN: their energy cannot be placed in one interval.
 
@@ -60,11 +64,16 @@ def register_power(register_wh: pd.Series, register_ts: pd.Series, interval_s: f
         Value at which the register wraps to zero [Wh].
     pac0 : float
         AC rating of the inverter [W].
+    daily_reset_tz : str or None
+        IANA zone whose midnight restarts the register; None: it does not restart.
     """
     step = register_wh.diff()
     elapsed = register_ts.diff().dt.total_seconds()
     if rollover_wh is not None:
         step = step.where(step >= 0, step + rollover_wh)
+    if daily_reset_tz is not None:
+        day = register_ts.dt.tz_convert(daily_reset_tz).dt.date
+        step = step.where((step >= 0) | (day == day.shift()), register_wh)
     step = step.where(step >= 0)
     power = step / elapsed * 3600.0
     ok = (elapsed > 0) & (elapsed <= 1.5 * interval_s) \
@@ -79,6 +88,8 @@ def measured_power(raw: pd.DataFrame, site: Site, interval_s: float,
     ``energy_s`` [s] per inverter, as stored at ingest), else register steps."""
     rollover = {c.device: c.rollover_wh for lg in site.loggers for c in lg.columns
                 if c.quantity == "energy_register"}
+    daily = {c.device for lg in site.loggers for c in lg.columns
+             if c.quantity == "energy_register" and c.resets_daily}
     parts = []
     for inv_id, g in raw.groupby("inverter_id", sort=False):
         if inv_id not in {i.id for i in site.inverters}:
@@ -86,7 +97,8 @@ def measured_power(raw: pd.DataFrame, site: Site, interval_s: float,
         pac0 = site.inverter(str(inv_id)).ac_kw * 1000.0
         from_energy = g["energy_interval_wh"] / (energy_s.get(inv_id, interval_s) / 3600.0)
         reg = register_power(g["register_wh"], g["register_ts"], interval_s,
-                             rollover.get(inv_id), pac0)
+                             rollover.get(inv_id), pac0,
+                             site.timezone if inv_id in daily else None)
         parts.append(pd.DataFrame({
             "ts": g["ts"], "inverter_id": inv_id,
             "measured_ac_w": g["ac_power_w"].fillna(from_energy).fillna(reg),

@@ -28,7 +28,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import align, db, detect, guarantees, kinds, metrics, versions
+from perfcheck import align, db, detect, guarantees, ingest, kinds, metrics, status, versions
 from perfcheck.detect.attribution import Ledger
 from perfcheck.detect.common import Event, _jsonable
 from perfcheck.errors import DataError
@@ -105,6 +105,7 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
 
     Raises DataError when nothing has been aligned yet.
     """
+    site = ingest.aged(con, site)
     spec = inputs(con, site)
     key = input_hash(spec)
     now = current(con)
@@ -115,7 +116,7 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
         raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
                         "files with AC power and run 'perfcheck model' first")
     settings = metrics.load_settings(site)
-    found = detect.analyse(df, site)
+    found = detect.analyse(df, site, reported=status.reported(con, site))
     if progress:
         progress("detectors")
     ledger: Ledger = found["ledger"]
@@ -390,6 +391,7 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
     stored = stored or current(con)
     if stored is None:
         raise DataError(f"{site.path}: no analysis stored yet (run 'perfcheck analyse')")
+    site = ingest.aged(con, site)
     settings = metrics.load_settings(site)
     record = json.loads(con.execute(db.sql("analysis_inputs"), {"id": stored.id}).fetchone()[0])
     daily = con.execute(db.sql("analysis_daily_window"), {
@@ -403,7 +405,7 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
     doc = {
         "site": metrics.site_record(site),
         "period": {"start": metrics.local_iso(start, site), "end": metrics.local_iso(end, site)},
-        "settings": result["settings"],
+        "settings": {**result["settings"], **site.age_record()},
         "metrics": result["metrics"],
         "events": events(con, site, stored, start, end),
         "losses": metrics.json_ready(block),

@@ -175,31 +175,48 @@ def _brief(v: Any) -> str:
 # building
 
 
-def _resolve(site: Site, given: str, sha256: str) -> Path:
-    """The ingested file on disk: as given, else relative to the site file; same sha256."""
+def _ingested_bytes(con: duckdb.DuckDBPyConnection, site: Site, given: str, sha256: str
+                    ) -> tuple[str, bytes]:
+    """The bytes of an ingested file version, and the name it had: the file on disk (as
+    given, else relative to the site file) while it is unchanged, else the copy the ingest
+    kept (a file that grew or changed under the same name since); sha256 checked either
+    way."""
+    changed = None
     for p in (Path(given), site.path.parent / given):
         if p.is_file():
-            if hashlib.sha256(p.read_bytes()).hexdigest() != sha256:
-                raise DataError(f"{p}: logger file changed since it was ingested (sha256 differs)"
-                                "; re-ingest it or restore the original")
-            return p
+            data = p.read_bytes()
+            if hashlib.sha256(data).hexdigest() == sha256:
+                return p.name, data
+            changed = p
+            break
+    row = con.execute(db.sql("evidence_copy"), {"sha256": sha256}).fetchone()
+    if row is not None:
+        data = zlib.decompress(row[0])
+        if hashlib.sha256(data).hexdigest() == sha256:
+            return Path(given).name, data
+    if changed is not None:
+        raise DataError(f"{changed}: logger file changed since it was ingested (sha256 differs) "
+                        "and the database keeps no copy of the version ingested; re-ingest it "
+                        "or restore the original")
     raise DataError(f"{given}: ingested logger file not found (looked as given and beside "
                     f"{site.path.name})")
 
 
 def raw_files(con: duckdb.DuckDBPyConnection, site: Site) -> list[dict]:
-    """Every ingested logger file (the analysis behind any window reads the whole history)."""
+    """Every ingested logger file version (the analysis behind any window reads the whole
+    history), with its bytes; two versions or files of the same name get a folder each after
+    the first (``raw/<file id>/<name>``)."""
     rows = con.execute(db.sql("evidence_files")).df()
     if rows.empty:
         raise DataError(f"{site.path}: no ingested logger files")
     out, names = [], set()
     for r in rows.to_dict("records"):
-        src = _resolve(site, r["path"], r["sha256"])
-        name = f"raw/{src.name}"
-        if name in names:  # two files of the same name from different folders
-            name = f"raw/{r['file_id']}/{src.name}"
+        base, data = _ingested_bytes(con, site, r["path"], r["sha256"])
+        name = f"raw/{base}"
+        if name in names:  # two files of the same name: from different folders, or versions
+            name = f"raw/{r['file_id']}/{base}"
         names.add(name)
-        out.append({"member": name, "source": src, "source_path": r["path"],
+        out.append({"member": name, "data": data, "source_path": r["path"],
                     "sha256": r["sha256"]})
     return out
 
@@ -236,7 +253,7 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
     members["results/coverage.json"] = report.dump_json(coverage).encode()
     members[f"site/{site.path.name}"] = site.path.read_bytes()
     for f in files:
-        members[f["member"]] = f["source"].read_bytes()
+        members[f["member"]] = f["data"]
     members["bundle.json"] = report.dump_json({
         "format": BUNDLE_FORMAT, "tool_version": __version__,
         "period": {"start": start.isoformat(), "end": end.isoformat()},

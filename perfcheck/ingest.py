@@ -50,11 +50,14 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
-import fnmatch
 import glob
+import gzip
 import hashlib
+import io
 import re
 import tempfile
+import zipfile
+import zlib
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -65,7 +68,7 @@ import pandas as pd
 
 from perfcheck import __version__, db
 from perfcheck.errors import LoggerFileError, SiteFileError
-from perfcheck.site import Column, Logger, Site
+from perfcheck.site import Column, Logger, Site, name_matches
 
 _NOT_BLANK = re.compile(rb"[^\s\xef\xbb\xbf]")
 _ESCAPED = re.compile("[\udc80-\udcff]")  # bytes that are not UTF-8, decoded surrogateescape
@@ -117,10 +120,13 @@ class _Checked:
     n_fields: int
     positions: tuple[int, ...]  # 1-based field position of each mapped column
     time_positions: tuple[int, ...]
+    device_position: int | None  # a tall file's device column
+    point_position: int | None  # a historian file's point column
     header_end: int  # last line number that is not data (preamble, header, units row)
     crlf: bool  # the file holds CRLF line ends
     open_line: int  # number of a last line without a line end (0: the file ends in one)
     not_utf8: dict[int, str]  # data lines holding bytes that are not UTF-8, with the reason
+    compressed: bool  # a .gz or .zip file: DuckDB reads its decompressed copy
 
 
 def expand_paths(patterns: Iterable[str | Path]) -> list[Path]:
@@ -145,7 +151,7 @@ def logger_files(site: Site, folder: str | Path) -> list[Path]:
     (its ``match`` glob), sorted by name."""
     out = []
     for path in sorted(Path(folder).iterdir()):
-        if path.is_file() and any(fnmatch.fnmatch(path.name, lg.match) for lg in site.loggers):
+        if path.is_file() and any(name_matches(path.name, lg.match) for lg in site.loggers):
             out.append(path)
     return out
 
@@ -163,6 +169,26 @@ def _read_bytes(path: Path) -> bytes:
         raise LoggerFileError(f"{path}: is a directory, not a logger file") from None
     except OSError as exc:
         raise LoggerFileError(f"{path}: cannot read file ({exc.strerror})") from None
+
+
+def _content(path: Path, data: bytes) -> bytes:
+    """The text bytes of a logger file as it is: a ``.gz`` file decompressed, a ``.zip`` file's
+    one member; any other file unchanged. A compressed file that cannot be opened, or a zip
+    archive without exactly one file, is a one-line LoggerFileError."""
+    suffix = path.suffix.lower()
+    try:
+        if suffix == ".gz":
+            return gzip.decompress(data)
+        if suffix == ".zip":
+            with zipfile.ZipFile(io.BytesIO(data)) as z:
+                names = [i.filename for i in z.infolist() if not i.is_dir()]
+                if len(names) != 1:
+                    raise LoggerFileError(f"{path}: a zip archive of a logger file must hold "
+                                          f"one file; this one holds {len(names)}")
+                return z.read(names[0])
+    except (OSError, EOFError, zipfile.BadZipFile, zlib.error) as exc:
+        raise LoggerFileError(f"{path}: cannot be decompressed ({exc})") from None
+    return data
 
 
 def _not_utf8(path: Path, data: bytes, header_end: int) -> dict[int, str]:
@@ -222,7 +248,11 @@ def _line_at(data: bytes, number: int) -> tuple[str | None, int]:
 
 def _column_positions(path: Path, lg: Logger, header: list[str], line: int) -> dict[str, int]:
     names = [h.strip() for h in header]
-    wanted = list(lg.time.columns) + [c.name for c in lg.columns]
+    if lg.point_column is not None:  # historian: the mapped names are points, not columns
+        wanted = [*lg.time.columns, lg.device_column, lg.point_column, lg.value_column]
+    else:
+        wanted = list(lg.time.columns) + [c.name for c in lg.columns] + (
+            [lg.device_column] if lg.device_column else [])
     positions: dict[str, int] = {}
     for name in wanted:
         if names.count(name) > 1:
@@ -279,7 +309,8 @@ def check_file(site: Site, path: str | Path) -> _Checked:
     """Whole-file checks; raises LoggerFileError (one line, naming file and line) on failure."""
     path = Path(path)
     lg = site.logger_for(str(path))
-    data = _read_bytes(path)
+    raw = _read_bytes(path)
+    data = _content(path, raw)
     if _NOT_BLANK.search(data) is None:
         raise LoggerFileError(f"{path}: empty file ({len(data)} bytes, no lines)")
     header_no = lg.preamble_lines + 1
@@ -303,15 +334,18 @@ def check_file(site: Site, path: str | Path) -> _Checked:
         path=path,
         given=str(path),
         logger=lg,
-        sha256=hashlib.sha256(data).hexdigest(),
-        size_bytes=len(data),
+        sha256=hashlib.sha256(raw).hexdigest(),  # of the file as it is (compressed or not)
+        size_bytes=len(raw),
         n_fields=len(fields),
-        positions=tuple(positions[c.name] for c in lg.columns),
+        positions=tuple(positions[lg.value_column or c.name] for c in lg.columns),
         time_positions=tuple(positions[c] for c in lg.time.columns),
+        device_position=positions[lg.device_column] if lg.device_column else None,
+        point_position=positions[lg.point_column] if lg.point_column else None,
         header_end=header_end,
         crlf=b"\r" in data,  # one byte: a fast scan; a lone CR is harmless
         open_line=0 if data.endswith(b"\n") else data.count(b"\n") + 1,
         not_utf8=not_utf8,
+        compressed=data is not raw,
     )
 
 
@@ -404,9 +438,14 @@ def _value_sql(k: int, col: Column, decimal: str, numeric_sentinels: bool) -> tu
     """SQL for mapped column k: its number (and field text), its SI value, its error, and a
     quick test whether it may have one. A value that is infinite in SI units (``inf``,
     ``1e309``, or a finite number that overflows on conversion) is an error, not a reading;
-    NaN is a missing value."""
-    factor, offset = UNIT_TO_SI[col.unit]
+    NaN is a missing value. A status column keeps its code as text (t<k>, trimmed; a sentinel
+    is missing) and never fails; its value is the code's id (sql/ingest_status_codes.sql)."""
     text = f"s{k}"
+    if col.quantity == "status":
+        code = (f"CASE WHEN list_contains($sentinels, trim({text})) THEN NULL "
+                f"ELSE nullif(trim({text}), '') END AS t{k}")
+        return f"NULL::DOUBLE AS n{k}, {text}", f"NULL::DOUBLE AS v{k}, {code}", "NULL", "false"
+    factor, offset = UNIT_TO_SI[col.unit]
     num = f"replace({text}, ',', '.')" if decimal == "," else text
     missing = f"isnan(n{k})"
     if numeric_sentinels:
@@ -432,17 +471,34 @@ def _rows_sql(chk: _Checked) -> str:
     numeric = bool(_numeric(lg.sentinels))
     parts = [_value_sql(k, c, lg.decimal, numeric) for k, c in enumerate(lg.columns, start=1)]
     time_text = " || ' ' || ".join(f"f[{p}]" for p in chk.time_positions)
+    texts = [f"f[{p}] AS s{k}" for k, p in enumerate(chk.positions, start=1)]
+    texts.append("NULL::VARCHAR AS dev")  # the row's device: only a tall file has one
+    tall = ""
+    any_bad = " OR ".join(p[3] for p in parts)
+    errors = ", ".join(p[2] for p in parts)
+    if chk.device_position is not None:  # a tall file: column k is read from its devices' rows
+        dp, pp = chk.device_position, chk.point_position
+        point = "" if pp is None else f" AND trim(f[{pp}]) = $names[{{k}}]"
+        texts = [f"CASE WHEN list_contains($when[{k}], trim(f[{dp}])){point.format(k=k)} "
+                 f"THEN f[{p}] END AS s{k}" for k, p in enumerate(chk.positions, start=1)]
+        texts.append(f"trim(f[{dp}]) AS dev")
+        tall = ", dev"  # kept: the outcome tells lines apart by time and device (and point)
+        if pp is not None:
+            texts.append(f"trim(f[{pp}]) AS point")
+            tall += ", point"
+        any_bad += " OR NOT list_contains($device_names, dev)"
+        errors = ("CASE WHEN NOT list_contains($device_names, dev) THEN 'device ''' || dev || "
+                  "''' is not in the devices of [[loggers]] ' || $logger_name END, " + errors)
     return db.sql("ingest_rows").format(
         lines=db.sql("ingest_lines"),
         time_text=time_text,
-        field_texts=", ".join(
-            f"f[{p}] AS s{k}" for k, p in enumerate(chk.positions, start=1)
-        ),
-        numbers=", ".join(p[0] for p in parts),
+        field_texts=", ".join(texts),
+        numbers=", ".join(p[0] for p in parts) + ", dev" + (
+            ", point" if chk.point_position is not None else ""),
         time_ctes=db.sql(f"ingest_time_{lg.time.kind}"),
-        values=", ".join(p[1] for p in parts),
-        any_bad=" OR ".join(p[3] for p in parts),
-        value_errors=", ".join(p[2] for p in parts),
+        values=", ".join(p[1] for p in parts) + tall,
+        any_bad=any_bad,
+        value_errors=errors,
     )
 
 
@@ -484,22 +540,31 @@ def _quoted_patterns(delimiter: str) -> tuple[str, str]:
 
 
 @contextmanager
-def _readable(chk: _Checked) -> Iterator[Path]:
-    """The path DuckDB reads for a checked file: the file itself, or, when data lines hold
-    bytes that are not UTF-8 (they are quarantined), a temporary copy with those bytes replaced
-    by U+FFFD, so that the other lines can be read. The copy is made from the bytes checked
-    (same sha256) and removed afterwards."""
-    if not chk.not_utf8:
+def _readable(chk: _Checked, data: bytes) -> Iterator[Path]:
+    """The path DuckDB reads for a checked file: the file itself, or a temporary copy of its
+    text, made from ``data`` (the file's bytes as checked) and removed afterwards, when the
+    file is compressed (``.gz``, ``.zip``: the copy is decompressed) or when data lines hold
+    bytes that are not UTF-8 (they are quarantined; the copy has them replaced by U+FFFD, so
+    that the other lines can be read)."""
+    if not chk.not_utf8 and not chk.compressed:
         yield chk.path
         return
+    text = _content(chk.path, data)
+    if chk.not_utf8:
+        text = text.decode("utf-8", errors="replace").encode("utf-8")
+    with tempfile.TemporaryDirectory() as tmp:
+        copy = Path(tmp) / "text.csv"
+        copy.write_bytes(text)
+        yield copy
+
+
+def _checked_bytes(chk: _Checked) -> bytes:
+    """The file's bytes, read again for storing: they must be those checked (same sha256)."""
     data = _read_bytes(chk.path)
     if hashlib.sha256(data).hexdigest() != chk.sha256:
         raise LoggerFileError(f"{chk.given}: changed while being ingested; nothing of this file "
                               "was stored")
-    with tempfile.TemporaryDirectory() as tmp:
-        copy = Path(tmp) / "utf8.csv"
-        copy.write_bytes(data.decode("utf-8", errors="replace").encode("utf-8"))
-        yield copy
+    return data
 
 
 def _read_params(site: Site, chk: _Checked, path: Path) -> dict[str, object]:
@@ -525,6 +590,10 @@ def _read_params(site: Site, chk: _Checked, path: Path) -> dict[str, object]:
     }
     if _numeric(lg.sentinels):
         params["num_sentinels"] = _numeric(lg.sentinels)
+    if lg.device_column is not None:
+        params["when"] = [list(c.when_device) for c in lg.columns]
+        params["device_names"] = [name for name, _ in lg.devices]
+        params["logger_name"] = repr(lg.name)
     if lg.time.kind in ("utc", "local"):
         params["time_format"] = lg.time.format
     if lg.time.kind == "local":
@@ -536,10 +605,16 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
     known = _one(con, "SELECT file_id FROM source_files WHERE sha256 = ?", [chk.sha256])
     if known is not None:
         return FileResult(chk.given, int(known[0]), "already ingested", 0, 0, 0, 0, 0, None, None)
+    data = _checked_bytes(chk)
     con.execute("BEGIN TRANSACTION")
     try:
-        with _readable(chk) as path:
+        with _readable(chk, data) as path:
             row = _store_file(con, site, chk, _read_params(site, chk, path))
+        _checked_bytes(chk)  # DuckDB read the file itself: it must still be the copy's bytes
+        # the ingested version's bytes, so that it stays verifiable when the file on disk
+        # later grows or changes under the same name (level 1: fast, about 4x on CSV)
+        con.execute(db.sql("ingest_copy"), {"sha256": chk.sha256,
+                                            "zlib_bytes": zlib.compress(data, 1)})
         con.execute("COMMIT")
     except BaseException as exc:
         con.execute("ROLLBACK")
@@ -560,12 +635,18 @@ def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
     channels = _channel_ids(con, chk.logger)
     logger_id = _logger_table(con, chk.logger, channels)
     con.execute(_rows_sql(chk), params)
+    for k, col in enumerate(chk.logger.columns, start=1):
+        if col.quantity == "status":
+            for stmt in db.sql("ingest_status_codes").format(k=k).split("\n;\n"):
+                con.execute(stmt)
     lo, hi = _one(con, "SELECT min(ts), max(ts) FROM _ingest_rows WHERE reason IS NULL")
     unions = _long_sql(channels)
     con.execute(db.sql("ingest_compare").format(unions=unions),
                 {"lo": lo, "hi": hi, "channels": channels})
     ks = range(1, len(channels) + 1)
     con.execute(db.sql("ingest_outcome").format(
+        key="ts" + (", dev" if chk.device_position is not None else "")
+            + (", point" if chk.point_position is not None else ""),
         same=" AND ".join(f"c.v{k} IS NOT DISTINCT FROM f.v{k}" for k in ks),
         n_values=" + ".join(f"(c.v{k} IS NOT NULL)::INTEGER" for k in ks),
     ))
@@ -636,6 +717,15 @@ def channel_intervals(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], i
     return {(q, d): int(m) * 60 for q, d, m in rows}
 
 
+def aged(con: duckdb.DuckDBPyConnection, site: Site) -> Site:
+    """The site with its age reference (:meth:`Site.aged`) from the site-local day of the
+    first stored reading; the site itself when it states ``commissioned``."""
+    if site.commissioned is not None:
+        return site
+    first = _one(con, "SELECT min(ts) FROM readings")[0]
+    return site.aged(None if first is None else pd.Timestamp(first).tz_convert(site.tz).date())
+
+
 def quarantined(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """Every quarantined line: ``file`` (as given when ingested), ``line``, ``ts`` (its instant,
     or that of the nearest readable line before it), ``reason``, ``reason_kind`` (the reason
@@ -658,6 +748,7 @@ def coverage_summary(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame
 __all__ = [
     "FileResult",
     "UNIT_TO_SI",
+    "aged",
     "channel_intervals",
     "check_file",
     "coverage_summary",

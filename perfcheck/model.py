@@ -535,6 +535,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
     Raises DataError when there are no readings or no irradiance readings.
     """
     say = progress or (lambda _msg: None)
+    site = ingest.aged(con, site)
     latest = align.first_row(con, "SELECT max(file_id) FROM readings")[0]
     intervals = ingest.channel_intervals(con)
     if latest is None or not intervals:

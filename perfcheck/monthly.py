@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import datetime as dt
 import fcntl
-import fnmatch
 import glob
 import hashlib
 import logging
@@ -32,7 +31,7 @@ import pandas as pd
 
 from perfcheck import __version__, atomic, db, ingest, periods, pipeline, report
 from perfcheck.errors import DatabaseBusy, LoggerFileError, PerfcheckError, SiteFileError
-from perfcheck.site import Site
+from perfcheck.site import Site, name_matches
 
 EXIT_HEALTHY, EXIT_UNDERPERFORMANCE, EXIT_INPUT, EXIT_CRITICAL, EXIT_BUSY = 0, 1, 2, 3, 4
 TREND_MONTHS = 12
@@ -91,7 +90,7 @@ def inbox_files(site: Site) -> list[Path]:
     if Path(pattern).is_dir():
         pattern = str(Path(pattern) / "*")
     found = sorted(Path(p) for p in glob.glob(pattern, recursive=True) if Path(p).is_file())
-    readable = [p for p in found if any(fnmatch.fnmatch(p.name, lg.match) for lg in site.loggers)]
+    readable = [p for p in found if any(name_matches(p.name, lg.match) for lg in site.loggers)]
     for p in sorted(set(found) - set(readable)):
         log.warning("%s: no [[loggers]] entry matches this file name; left in the inbox", p)
     return readable

@@ -121,6 +121,8 @@ def channel_limits(site: Site, intervals: dict[tuple[str, str], int]) -> pd.Data
     for (quantity, device), seconds in sorted(intervals.items()):
         if device not in known:  # an inverter no longer in the site file has no rating
             continue
+        if quantity == "status_code":  # a logger's own codes, not a measurement
+            continue
         interval = seconds // 60
         rating = _rating_w(site, device)
         dc = _dc_w(site, device)

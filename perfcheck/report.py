@@ -199,7 +199,11 @@ def event_paragraph(ev: dict, tz: str) -> str:
               "(not a loss)."
     else:
         saw = f"{when} lost about {_kwh_interval(ev)}."
-    extra = {k: v for k, v in ev.items() if k not in EVENT_FIELDS}  # the detector's details
+    if ev.get("reported_state"):
+        who = "the inverters" if ev["scope"] == "plant" else "the inverter"
+        saw += f" Meanwhile {who} reported: {ev['reported_state']}."
+    extra = {k: v for k, v in ev.items()  # the detector's details
+             if k not in EVENT_FIELDS and k != "reported_state"}
     stats = ", ".join(f"{k.replace('_', ' ')} {_short(v)}"
                       for k, v in {**ev.get("evidence", {}), **extra}.items()
                       if v is not None and not isinstance(v, (list, dict)))
@@ -330,7 +334,8 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "site_file": site.path.name,
         "versions": versions.versions(),
         "settings": {k: v for k, v in result.get("settings", {}).items()
-                     if k not in ("rules", "interval_method")},
+                     if k not in ("rules", "interval_method", "notes")},
+        "notes": result.get("settings", {}).get("notes", []),
         "rules": result.get("settings", {}).get("rules", []),
         "interval_method": result.get("settings", {}).get("interval_method", ""),
         "cautions": CAUTIONS,
@@ -511,6 +516,8 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
         b.append(("para", f"Rule: {rule}."))
     if ctx["interval_method"]:
         b.append(("para", f"Intervals: {ctx['interval_method']}."))
+    for note in ctx["notes"]:
+        b.append(("para", f"Note: {note}."))
     if ctx["settings"]:
         b.append(("table", (["Setting", "Value"],
                             [[k, str(v)] for k, v in ctx["settings"].items()])))

@@ -6,9 +6,11 @@ Every error names the key path (``inverters[1].arrays[0].tilt_deg``) and what wa
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import fnmatch
 import math
+import os
 import re
 import tomllib
 import zoneinfo
@@ -36,9 +38,16 @@ QUANTITIES: dict[str, tuple[str, tuple[str, ...]]] = {
     "wind_speed": ("wind_speed_ms", ("m/s", "km/h")),
     "rain": ("rain_mm", ("mm",)),
     "tracker_angle": ("tracker_angle_deg", ("deg",)),  # rotation from flat, west positive
+    # the logger's own status codes (text or integers), stored as they are written; the
+    # column's ``states`` table says what each means, in STATES' words
+    "status": ("status_code", ("code",)),
 }
 # Quantities that belong to an inverter (or to the plant meter); the others are site weather.
 DEVICE_QUANTITIES = ("ac_power", "dc_power", "energy_register", "energy_interval")
+# The states an inverter (or the plant) may report, in our words; a status column's ``states``
+# table maps each of the logger's codes to one of them.
+STATES = ("running", "stopped by the grid", "stopped by a fault", "derated", "maintenance",
+          "standby", "starting up", "communication lost")
 
 MOUNTINGS = ("open_rack", "close_roof", "insulated_back")
 CONSTRUCTIONS = ("glass_glass", "glass_polymer")
@@ -160,6 +169,11 @@ class Column:
     unit: str
     device: str  # inverter id, "plant", or "site" for weather
     rollover_wh: float | None = None  # for energy registers that wrap
+    resets_daily: bool = False  # an energy register that restarts from 0 at local midnight
+    states: tuple[tuple[str, str], ...] = ()  # status codes: (code as written, state in STATES)
+    # a tall logger's column read for one device: the device names (as the file writes them)
+    # whose rows feed it; empty: every row (a wide logger)
+    when_device: tuple[str, ...] = ()
 
     @property
     def stored(self) -> str:
@@ -187,7 +201,12 @@ class Logger:
     interval_min: int
     time: TimeSpec
     sentinels: tuple[str, ...]
-    columns: tuple[Column, ...]
+    columns: tuple[Column, ...]  # a tall logger's: one per mapped column and device it feeds
+    device_column: str | None = None  # tall: one row per time and device, named here
+    devices: tuple[tuple[str, str], ...] = ()  # tall: (device as written, id/plant/site)
+    # historian-style tall: one row per time, device and point; columns[].name is the point
+    point_column: str | None = None
+    value_column: str | None = None
 
 
 @dataclass(frozen=True)
@@ -197,7 +216,7 @@ class Site:
     longitude_deg: float
     altitude_m: float
     timezone: str
-    commissioned: dt.date
+    commissioned: dt.date | None  # None: the age allowance starts from the data (age_reference)
     export_limit_kw: float | None
     inverters: tuple[Inverter, ...]
     losses: Losses
@@ -206,6 +225,8 @@ class Site:
     inbox: str | None
     path: Path
     raw: dict[str, Any] = field(repr=False, compare=False)
+    module_age_years: float | None = None  # module age at the first data, without commissioned
+    age_note: str | None = None  # how the age reference was chosen, when not commissioned
 
     @property
     def tz(self) -> zoneinfo.ZoneInfo:
@@ -225,11 +246,37 @@ class Site:
                 return inv
         raise KeyError(inverter_id)
 
+    def aged(self, first_data: dt.date | None) -> Site:
+        """This site with ``commissioned`` set to the reference of the age allowance and
+        ``age_note`` saying how it was chosen, for a site file that gives no commissioning
+        date: the first data's site-local day (``first_data``), moved back by
+        ``module_age_years_at_first_data`` when stated. A site with ``commissioned``, or
+        without data yet (``first_data`` None), is returned as it is."""
+        if self.commissioned is not None or first_data is None:
+            return self
+        years = self.module_age_years or 0.0
+        start = years_before(first_data, years)
+        if years:
+            note = (f"no commissioning date in the site file: the age allowance counts the "
+                    f"modules as {years:g} years old at the first data ({first_data}), i.e. "
+                    f"ageing from {start} (site.module_age_years_at_first_data)")
+        else:
+            note = (f"no commissioning date in the site file: the age allowance starts at the "
+                    f"first data ({first_data}); if the modules are older, give "
+                    "site.commissioned or site.module_age_years_at_first_data")
+        return dataclasses.replace(self, commissioned=start, age_note=note)
+
+    def age_record(self) -> dict[str, Any]:
+        """The age reference and its note, as the check document's settings show them."""
+        return {"age_reference_date": None if self.commissioned is None
+                else self.commissioned.isoformat(),
+                "notes": [self.age_note] if self.age_note else []}
+
     def logger_for(self, filename: str) -> Logger:
         """The logger whose ``match`` glob fits the file's name: of several, the most specific
         glob (:func:`glob_specificity`); two equally specific matches are an error."""
         name = Path(filename).name
-        matches = [lg for lg in self.loggers if fnmatch.fnmatch(name, lg.match)]
+        matches = [lg for lg in self.loggers if name_matches(name, lg.match)]
         if not matches:
             globs = ", ".join(repr(lg.match) for lg in self.loggers)
             raise SiteFileError(
@@ -244,6 +291,22 @@ class Site:
                 f"{b.match!r}) match this file name equally well; make one match more specific"
             )
         return top[0]
+
+
+COMPRESSED = (".gz", ".zip")  # logger files read as they are, decompressed at ingest
+
+
+def name_matches(name: str, pattern: str) -> bool:
+    """A file name matches a ``[[loggers]]`` glob as it is, or, for a compressed file
+    (``x.csv.gz``, ``x.csv.zip``), as the name without that suffix (``x.csv``)."""
+    stem, suffix = os.path.splitext(name)
+    return fnmatch.fnmatch(name, pattern) or (
+        suffix.lower() in COMPRESSED and fnmatch.fnmatch(stem, pattern))
+
+
+def years_before(day: dt.date, years: float) -> dt.date:
+    """The day ``years`` (of 365.25 days, as the age allowance counts them) before ``day``."""
+    return day - dt.timedelta(days=round(years * 365.25))
 
 
 def glob_specificity(pattern: str) -> tuple[int, int]:
@@ -407,14 +470,16 @@ def _bifacial(t: Table, bifaciality: float) -> Bifacial:
                     row_pitch_m=t.number("row_pitch_m", lo=0.5, hi=100))
 
 
-def _column(t: Table, inverter_ids: set[str]) -> Column:
+def _column(t: Table, inverter_ids: set[str], tall: bool = False) -> Column:
     quantity = t.get("quantity", str, choices=tuple(QUANTITIES))
     units = QUANTITIES[quantity][1]
-    unit = t.get("unit", str)
+    unit = t.get("unit", str, "code" if quantity == "status" else ...)
     if unit not in units:
         raise t._err("unit", f"unit {unit!r} not recognised for {quantity} (use one of "
                      f"{', '.join(units)})")
-    if quantity in DEVICE_QUANTITIES:
+    if tall:  # the row's device column names the device (see _tall_columns)
+        device = "site" if quantity not in DEVICE_QUANTITIES and quantity != "status" else ""
+    elif quantity in DEVICE_QUANTITIES or quantity == "status":
         device = t.get("inverter", str, "plant")
         if device != "plant" and device not in inverter_ids:
             raise t._err("inverter", f"{device!r} is not an inverter id of this site "
@@ -422,15 +487,34 @@ def _column(t: Table, inverter_ids: set[str]) -> Column:
     else:
         device = "site"
     rollover = t.number("rollover", None, lo=0) if quantity == "energy_register" else None
+    resets = t.get("resets", str, None, ("daily",)) if quantity == "energy_register" else None
     col = Column(
         name=t.get("name", str),
         quantity=quantity,
         unit=unit,
         device=device,
         rollover_wh=None if rollover is None else rollover * _ENERGY_SCALE[unit],
+        resets_daily=resets == "daily",
+        states=_states(t) if quantity == "status" else (),
     )
     t.done()
     return col
+
+
+def _states(t: Table) -> tuple[tuple[str, str], ...]:
+    """A status column's ``states`` table: each logger code (a key; integer codes written as
+    quoted keys, ``"7" = ...``) to one of STATES."""
+    table = t.table("states", required=True)
+    out = []
+    for code in table.data:
+        state = table.get(code, str, choices=STATES)
+        if not code.strip():
+            raise table._err(code, "a status code must not be blank")
+        out.append((code.strip(), state))
+    if not out:
+        raise t._err("states", "expected at least one code, e.g. { \"OK\" = \"running\" }")
+    table.done()
+    return tuple(out)
 
 
 _ENERGY_SCALE = {"Wh": 1.0, "kWh": 1e3, "MWh": 1e6}
@@ -458,11 +542,31 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
     sentinels = t.get("sentinels", list, [])
     if not all(isinstance(s, str) for s in sentinels):
         raise t._err("sentinels", "expected strings, e.g. [\"-9999\", \"#N/A\"]")
-    columns = tuple(_column(c, inverter_ids) for c in t.tables("columns"))
-    names = [c.name for c in columns] + list(time.columns)
+    device_column = t.get("device_column", str, None)
+    point_column = t.get("point_column", str, None)
+    value_column = t.get("value_column", str, None)
+    if (point_column is None) != (value_column is None):
+        raise t._err("value_column" if value_column is None else "point_column",
+                     "give point_column and value_column together (a historian export: one "
+                     "row per time, device and point)")
+    if point_column is not None and device_column is None:
+        raise t._err("point_column", "needs device_column (the column naming each row's "
+                     "device)")
+    if point_column is not None and t.data.get("units_row"):
+        raise t._err("units_row", "a historian export (point_column) has no units row")
+    tables = t.tables("columns")
+    columns = tuple(_column(c, inverter_ids, device_column is not None) for c in tables)
+    names = [c.name for c in columns] + list(time.columns) + [device_column] * bool(
+        device_column)
     dup = {n for n in names if names.count(n) > 1}
     if dup:
         raise t._err("columns", f"column {sorted(dup)[0]!r} is mapped twice")
+    devices: tuple[tuple[str, str], ...] = ()
+    if device_column is not None:
+        devices = _devices(t, inverter_ids)
+        columns = _tall_columns(t, columns, devices)
+    elif "devices" in t.data:
+        raise t._err("devices", "needs device_column (the column naming each row's device)")
     lg = Logger(
         name=t.get("name", str),
         match=t.get("match", str, "*"),
@@ -474,6 +578,10 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
         time=time,
         sentinels=tuple(sentinels),
         columns=columns,
+        device_column=device_column,
+        devices=devices,
+        point_column=point_column,
+        value_column=value_column,
     )
     if lg.preamble_lines < 0:
         raise t._err("preamble_lines", "expected 0 or more")
@@ -495,6 +603,34 @@ def _sensor_on_tracker(mt: Table, inverters: list[Inverter]) -> bool:
         raise mt._err(plane_keys[0], "a sensor on a tracker has no fixed plane (remove the key "
                       "or set poa_sensor_on_tracker = false)")
     return True
+def _devices(t: Table, inverter_ids: set[str]) -> tuple[tuple[str, str], ...]:
+    """A tall logger's ``devices`` table: each device name the file writes to an inverter id,
+    ``plant`` or ``site``."""
+    table = t.table("devices", required=True)
+    targets = (*sorted(inverter_ids), "plant", "site")
+    out = tuple((name.strip(), table.get(name, str, choices=targets)) for name in table.data)
+    if not out:
+        raise t._err("devices", 'expected at least one device, e.g. { "WR 1" = "INV1" }')
+    table.done()
+    return out
+
+
+def _tall_columns(t: Table, columns: tuple[Column, ...], devices: tuple[tuple[str, str], ...]
+                  ) -> tuple[Column, ...]:
+    """A tall logger's mapped columns, one per device each feeds: a device quantity (power,
+    energy, status) for every inverter and the plant among ``devices``, a weather quantity for
+    the devices mapped to ``site``."""
+    out = []
+    for i, col in enumerate(columns):
+        targets = [d for d in dict.fromkeys(dev for _, dev in devices)
+                   if (d == "site") == (col.device == "site")]
+        if not targets:
+            raise t._err(f"columns[{i}]", f"{col.quantity} needs a device mapped to "
+                         f"{'site' if col.device == 'site' else 'an inverter or plant'} in "
+                         "devices")
+        out += [dataclasses.replace(col, device=d, when_device=tuple(
+            name for name, dev in devices if dev == d)) for d in targets]
+    return tuple(out)
 
 
 def load_site(path: str | Path) -> Site:
@@ -536,11 +672,15 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         longitude_deg=s.number("longitude_deg", lo=-180, hi=180),
         altitude_m=s.number("altitude_m", 0.0, lo=-500, hi=9000),
         timezone=tzname,
-        commissioned=s.get("commissioned", dt.date),
+        commissioned=s.get("commissioned", dt.date, None),
+        module_age_years=s.number("module_age_years_at_first_data", None, lo=0, hi=60),
         export_limit_kw=s.number("export_limit_kw", None, lo=0),
         inbox=s.get("inbox", str, None),
     )
     s.done()
+    if site_fields["commissioned"] is not None and site_fields["module_age_years"] is not None:
+        raise s._err("module_age_years_at_first_data", "give either commissioned or "
+                     "module_age_years_at_first_data, not both")
 
     inverters = []
     for t in top.tables("inverters"):

@@ -2,8 +2,9 @@
 -- line of _ingest_rows is loaded):
 --  * a line that cannot be read: quarantined with its reason;
 --  * a line with a value that differs from a stored one: quarantined, the values go to conflicts;
---  * a line repeating the time of an earlier line of the same file: duplicate when every value
---    is the same (missing counts as a value here), else quarantined as a conflict;
+--  * a line repeating the time of an earlier line of the same file (in a tall file: the time
+--    and device, <key> "ts, dev"; else "ts"): duplicate when every value is the same (missing
+--    counts as a value here), else quarantined as a conflict;
 --  * any other line: duplicate when it has values and all of them are stored already, else it
 --    is loaded (a line whose every field is empty or a sentinel is loaded and stores nothing).
 CREATE OR REPLACE TEMP TABLE _ingest_outcome AS
@@ -12,16 +13,16 @@ WITH stored_conflict AS (
     FROM _ingest_match WHERE status = 'conflict' GROUP BY line
 ),
 cand AS (
-    SELECT r.line, r.ts FROM _ingest_rows r ANTI JOIN stored_conflict c USING (line)
+    SELECT r.line, {key} FROM _ingest_rows r ANTI JOIN stored_conflict c USING (line)
     WHERE r.reason IS NULL
 ),
 firsts AS (
-    SELECT ts, min(line) AS first_line FROM cand GROUP BY ts HAVING count(*) > 1
+    SELECT {key}, min(line) AS first_line FROM cand GROUP BY {key} HAVING count(*) > 1
 ),
 repeats AS (
     SELECT x.line, t.first_line, {same} AS same_as_first
     FROM cand x
-    JOIN firsts t USING (ts)
+    JOIN firsts t USING ({key})
     JOIN _ingest_rows c ON c.line = x.line
     JOIN _ingest_rows f ON f.line = t.first_line
     WHERE x.line <> t.first_line

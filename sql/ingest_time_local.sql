@@ -3,7 +3,8 @@
 -- Two valid candidates: the repeated hour when clocks go back. Its lines are read with the
 -- summer offset until the wall clock steps back within that hour (order of lines), then with
 -- the winter offset. No valid candidate: the wall time was skipped when clocks went forward;
--- the line is quarantined, never shifted. Times are microseconds since 1970 (wall times as if
+-- the line is quarantined, never shifted. In a tall file each device's lines are ordered apart
+-- (dev: the row's device; NULL in a wide file). Times are microseconds since 1970 (wall times as if
 -- they were UTC); only timezone() consults the zone rules.
 local_wall AS (
     SELECT *, epoch_us(naive) AS wall
@@ -30,14 +31,14 @@ local_step AS (
            coalesce(naive < lag(naive) OVER w, false) AS stepped_back
     FROM (SELECT *, ok_before AND ok_after AND cand_before <> cand_after AS ambiguous
           FROM local_ok)
-    WINDOW w AS (PARTITION BY CASE WHEN ambiguous THEN naive::DATE END ORDER BY line)
+    WINDOW w AS (PARTITION BY CASE WHEN ambiguous THEN naive::DATE END, dev ORDER BY line)
 ),
 timed AS (
     SELECT *,
            make_timestamptz(
                CASE WHEN ambiguous THEN
                         CASE WHEN sum(stepped_back::INTEGER) OVER (
-                                      PARTITION BY CASE WHEN ambiguous THEN naive::DATE END
+                                      PARTITION BY CASE WHEN ambiguous THEN naive::DATE END, dev
                                       ORDER BY line) > 0
                              THEN greatest(cand_before, cand_after)
                              ELSE least(cand_before, cand_after) END

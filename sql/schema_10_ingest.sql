@@ -21,6 +21,23 @@ CREATE TABLE IF NOT EXISTS source_files (
     tool_version   VARCHAR NOT NULL
 );
 
+-- The bytes of every ingested file version, zlib-compressed, keyed by their sha256 and stored in
+-- the same transaction as the file: a logger file that later grows or changes under the same
+-- name (a month exported on the 15th and again on the 1st) keeps its earlier version here, so
+-- evidence bundles still carry the exact bytes that were ingested.
+CREATE TABLE IF NOT EXISTS source_copies (
+    sha256     VARCHAR PRIMARY KEY,
+    zlib_bytes BLOB NOT NULL
+);
+
+-- The status codes loggers wrote (quantity status: text or integers, as written, trimmed); a
+-- status reading's value is the code_id of its code here. The site file's states tables say
+-- what each code means, so a mapping can be changed without ingesting again.
+CREATE TABLE IF NOT EXISTS status_texts (
+    code_id INTEGER PRIMARY KEY,
+    code    VARCHAR NOT NULL UNIQUE
+);
+
 -- A channel is one (quantity, device) pair: quantity is the stored name with its unit
 -- (ac_power_w, poa_wm2 ...); device is an inverter id, 'plant' or 'site'.
 CREATE TABLE IF NOT EXISTS channels (

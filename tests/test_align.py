@@ -33,6 +33,21 @@ def test_register_power_rollover_reset_and_gaps():
     assert np.isnan(reset.iloc[1]) and reset.iloc[2] == 1000.0
 
 
+def test_register_that_restarts_at_local_midnight():
+    # Invented truth (issue 10, item 4): a day counter in Europe/Berlin (UTC+2 in June) ends
+    # 2024-06-01 at 40,000 Wh (the reading of the interval starting 23:45 local, 21:45 UTC)
+    # and restarts from 0 at midnight. The interval starting at local midnight (22:00 UTC)
+    # reads the 25 Wh since midnight: 25 Wh in 15 min = 100 W. A drop within a day (a
+    # glitch, row 4) stays unusable.
+    ts = _ts("21:30", "21:45", "22:00", "22:15", "22:30")
+    reg = pd.Series([39_975.0, 40_000.0, 25.0, 50.0, 10.0])
+    p = align.register_power(reg, ts, 900, None, 5000.0, "Europe/Berlin")
+    assert_allclose(p.iloc[[1, 2, 3]], [100.0, 100.0, 100.0])
+    assert np.isnan(p.iloc[4])
+    # without the key the restart is a reset: that interval is unknown
+    assert np.isnan(align.register_power(reg, ts, 900, None, 5000.0).iloc[2])
+
+
 def test_measured_power_prefers_ac_then_energy_then_register(tmp_path):
     site = make_site(tmp_path)
     ts = _ts("10:00", "10:15", "10:30")

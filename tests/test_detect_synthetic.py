@@ -14,7 +14,7 @@ import pytest
 from detect_synth import TZ, make_aligned, make_site
 
 from perfcheck import detect
-from perfcheck.detect import common, degradation
+from perfcheck.detect import common, degradation, outage
 from perfcheck.errors import SiteFileError
 
 FAULT_KINDS = {"outage", "partial_outage", "curtailment", "soiling", "shading", "sensor_fault",
@@ -258,3 +258,39 @@ def test_wide_keeps_every_row():
     w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
     assert w.measured.shape == (72, 2)
     np.testing.assert_allclose(w.measured.to_numpy().sum(), df["measured_ac_w"].sum())
+
+
+def test_outage_carries_the_state_the_inverter_reported():
+    # Invented truth (issue 10, item 3): INV2 forced to 0 for a day; its status channel says
+    # "stopped by the grid" during the stop and "running" otherwise, INV1's says "running".
+    site = make_site(n_inverters=2)
+    df = make_aligned(site, start="2024-04-15", days=10, seed=5, faults=[
+        {"kind": "outage", "inverter": "INV2", "start": "2024-04-20 08:00",
+         "end": "2024-04-21 08:00"}])
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    ts = w.index
+    stopped = (ts >= local("2024-04-20 08:00")) & (ts < local("2024-04-21 08:00"))
+    reported = pd.concat([
+        pd.DataFrame({"ts": ts, "device": "INV1", "state": "running"}),
+        pd.DataFrame({"ts": ts, "device": "INV2",
+                      "state": np.where(stopped, "stopped by the grid", "running")})])
+    events, _ = outage.detect(w, 0.03, reported=reported)
+    ev = one(events, "outage")
+    assert ev.scope == "inverter:INV2" and ev.detail == {"reported_state": "stopped by the grid"}
+    # without status channels the event carries no reported state
+    assert one(outage.detect(w, 0.03)[0], "outage").detail == {}
+
+
+def test_reported_state_names_the_most_frequent_state_other_than_running():
+    # Invented truth: three readings in the window, two "derated" and one "running"; one
+    # "stopped by a fault" after the window (end exclusive) and one of another device.
+    t = pd.date_range("2024-05-01 10:00", periods=5, freq="15min", tz="UTC")
+    rep = pd.DataFrame({"ts": t, "device": ["A", "A", "A", "A", "B"],
+                        "state": ["derated", "running", "derated", "stopped by a fault",
+                                  "maintenance"]})
+    assert outage.reported_state(rep, ["A"], t[0], t[3]) == "derated"
+    assert outage.reported_state(rep, ["A"], t[1], t[2]) == "running"
+    assert outage.reported_state(rep, ["A", "B"], t[3], t[4] + pd.Timedelta("1min")) in (
+        "stopped by a fault", "maintenance")
+    assert outage.reported_state(rep, ["C"], t[0], t[4]) is None
+    assert outage.reported_state(None, ["A"], t[0], t[4]) is None

@@ -18,7 +18,7 @@ import pytest
 from click.testing import CliRunner
 from report_fixtures import checked, example_aligned, example_check, write_site
 
-from perfcheck import align, db, evidence, periods, pipeline
+from perfcheck import align, db, evidence, ingest, periods, pipeline
 from perfcheck.cli import main
 from perfcheck.errors import DataError, PerfcheckError
 
@@ -403,3 +403,33 @@ def test_bundle_write_failure_leaves_no_partial_zip(tmp_path, monkeypatch):
     assert str(err.value) == (f"{out / 'claim.zip'}: cannot write (No space left on device); "
                               "nothing was written")
     assert list(out.iterdir()) == []
+
+
+def test_file_grown_under_the_same_name_stays_verifiable(tmp_path):
+    # Fuzz finding of issue 10: a month exported on the 15th and again on the 1st under the
+    # same name made every later bundle fail ("logger file changed since it was ingested").
+    # Invented truth: the second export repeats days 1-15 (one value corrected on day 3) and
+    # adds days 16-30, so it loads 15 rows, finds 14 duplicates and quarantines one conflict.
+    site = write_site(tmp_path)
+    raw = tmp_path / "box_2025-06.csv"
+    days = ["time,p1\n"] + [f"2025-06-{d:02d}T12:00:00+02:00,{1000 + d}\n" for d in range(1, 31)]
+    first = "".join(days[:16])
+    raw.write_text(first)
+    con = db.connect(tmp_path / "site.duckdb")
+    (a,) = ingest.ingest_files(con, site, [raw])
+    raw.write_text("".join(days).replace(",1003\n", ",1033\n"))
+    (b,) = ingest.ingest_files(con, site, [raw])
+    assert (a.rows_loaded, b.rows_read, b.rows_loaded, b.rows_duplicate, b.rows_quarantined,
+            b.conflicts) == (15, 30, 15, 14, 1, 1)
+    files = evidence.raw_files(con, site)
+    assert [f["member"] for f in files] == ["raw/box_2025-06.csv", f"raw/{b.file_id}/"
+                                            "box_2025-06.csv"]
+    assert files[0]["data"] == first.encode() and files[1]["data"] == raw.read_bytes()
+    # the ingest of the bundle's files, in its order, gives the same accounting
+    again = db.connect(tmp_path / "again.duckdb")
+    for f in files:
+        (tmp_path / f["member"]).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / f["member"]).write_bytes(f["data"])
+    redo = ingest.ingest_files(again, site, [tmp_path / f["member"] for f in files])
+    assert [(r.rows_loaded, r.rows_duplicate, r.rows_quarantined) for r in redo] == [
+        (15, 0, 0), (15, 14, 1)]

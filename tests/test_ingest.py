@@ -13,7 +13,8 @@ import pytest
 from logger_files import logger_toml, run_ingest, write_case
 from numpy.testing import assert_allclose
 
-from perfcheck import db
+from perfcheck import db, quality, status
+from perfcheck.errors import SiteFileError
 from perfcheck.ingest import (
     channel_intervals,
     coverage_summary,
@@ -224,7 +225,9 @@ def test_every_unit_the_site_file_accepts_has_a_conversion():
     from perfcheck.ingest import UNIT_TO_SI
     from perfcheck.site import QUANTITIES
 
-    assert {u for _, units in QUANTITIES.values() for u in units} == set(UNIT_TO_SI)
+    # status codes are stored as written, not converted
+    assert {u for q, (_, units) in QUANTITIES.items() if q != "status"
+            for u in units} == set(UNIT_TO_SI)
 
 
 # --------------------------------------------------------------------------------------------
@@ -609,3 +612,188 @@ def test_quarantine_command_lists_lines_and_counts(tmp_path):
     listed = pd.read_csv(out_csv)
     assert list(listed.columns) == ["file", "line", "ts", "reason", "raw"]
     assert list(listed["line"]) == [3, 7, 8, 9, 11]
+
+
+# --------------------------------------------------------------------------------------------
+# status channels (issue 10, item 3)
+
+STATUS_STATES = ('[loggers.columns.states]\nOK = "running"\n"GRID FAULT" = "stopped by the grid"\n'
+                 '"7" = "stopped by a fault"\n')
+
+
+def status_case(tmp_path, body, filename="log.csv"):
+    columns = (("P", "ac_power", "kW", "INV1"), ("G", "poa", "W/m2", None),
+               ("S", "status", "code", "INV1"))
+    return write_case(tmp_path, body, filename=filename,
+                      loggers=logger_toml(columns=columns) + STATUS_STATES)
+
+
+def test_status_codes_stored_as_written_and_named_by_the_site_file(tmp_path):
+    # Invented export: text codes, an integer code with spaces, an empty field, and a code
+    # the site file does not map. Every line loads; the codes are kept as written.
+    body = ("ts,P,G,S\n2024-06-01 10:00,1.5,500,OK\n2024-06-01 10:05,0,600,GRID FAULT\n"
+            "2024-06-01 10:10,0,600, 7 \n2024-06-01 10:15,1.2,600,\n"
+            "2024-06-01 10:20,1.1,600,E42\n")
+    site_path, log = status_case(tmp_path, body)
+    site = load_site(site_path)
+    assert site.loggers[0].columns[2].states == (
+        ("OK", "running"), ("GRID FAULT", "stopped by the grid"), ("7", "stopped by a fault"))
+    con = db.connect(tmp_path / "site.duckdb")
+    (res,) = ingest_files(con, site, [log])
+    assert (res.rows_read, res.rows_loaded, res.rows_quarantined) == (5, 5, 0)
+    rep = status.reported(con, site)
+    assert rep["state"].tolist() == ["running", "stopped by the grid", "stopped by a fault",
+                                     "code 'E42' (not in the site file's states)"]
+    assert rep["device"].unique().tolist() == ["INV1"]
+    assert list(rep["ts"]) == [utc(2024, 6, 1, 10, m) for m in (0, 5, 10, 20)]
+    # a status code is not a measurement: the quality stage leaves it alone
+    quality.run(con, site)
+    assert con.execute("SELECT count(*) FROM flags WHERE quantity = 'status_code'"
+                       ).fetchall() == [(0,)]
+    # an overlapping export repeats the codes: duplicates, and a changed code is a conflict
+    again = tmp_path / "log2.csv"
+    again.write_text("ts,P,G,S\n2024-06-01 10:00,1.5,500,OK\n2024-06-01 10:05,0,600,OK\n"
+                     "2024-06-01 10:25,1.0,600,OK\n")
+    (res2,) = ingest_files(con, site, [again])
+    assert (res2.rows_loaded, res2.rows_duplicate, res2.rows_quarantined, res2.conflicts) == (
+        1, 1, 1, 1)
+
+
+def test_status_mapping_errors_name_the_key(tmp_path):
+    site_path, _ = status_case(tmp_path, "ts,P,G,S\n2024-06-01 10:00,1.5,500,OK\n")
+    text = site_path.read_text()
+    site_path.write_text(text.replace('OK = "running"', 'OK = "fine"'))
+    with pytest.raises(SiteFileError) as err:
+        load_site(site_path)
+    assert str(err.value).startswith(
+        f"{site_path}: loggers[0].columns[2].states.OK: 'fine' is not one of 'running', "
+        "'stopped by the grid', 'stopped by a fault'")
+    site_path.write_text(text.replace(STATUS_STATES, ""))
+    with pytest.raises(SiteFileError) as err:
+        load_site(site_path)
+    assert str(err.value) == f"{site_path}: loggers[0].columns[2].states: missing table"
+
+
+# --------------------------------------------------------------------------------------------
+# tall exports and compressed files (issue 10, item 4)
+
+TALL = """\
+[[loggers]]
+name = "park"
+match = "park_*.csv"
+interval_min = 5
+device_column = "Device"
+[loggers.devices]
+"WR 1" = "INV1"
+"WR 2" = "INV2"
+"Meteo" = "site"
+[loggers.time]
+columns = ["ts"]
+kind = "utc"
+format = "%Y-%m-%d %H:%M"
+[[loggers.columns]]
+name = "P"
+quantity = "ac_power"
+unit = "kW"
+[[loggers.columns]]
+name = "G"
+quantity = "poa"
+unit = "W/m2"
+"""
+
+
+def test_tall_export_one_row_per_time_and_device(tmp_path):
+    # Invented export: each time has a row per inverter and one for the weather station; one
+    # row repeats (a duplicate) and one names a device the site file does not know.
+    body = ("ts,Device,P,G\n"
+            "2024-06-01 10:00,WR 1,1.5,\n2024-06-01 10:00,WR 2,2.5,\n2024-06-01 10:00,Meteo,,500\n"
+            "2024-06-01 10:05,WR 1,1.6,\n2024-06-01 10:05,WR 2,2.6,\n2024-06-01 10:05,Meteo,,510\n"
+            "2024-06-01 10:05,WR 1,1.6,\n2024-06-01 10:05,WR 9,3.0,\n")
+    con, site, (res,) = ingest(tmp_path, body, filename="park_06.csv", loggers=TALL)
+    assert [(c.device, c.when_device) for c in site.loggers[0].columns] == [
+        ("INV1", ("WR 1",)), ("INV2", ("WR 2",)), ("site", ("Meteo",))]
+    assert (res.rows_read, res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (
+        8, 6, 1, 1)
+    # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019)
+    assert_allclose(series(con, "ac_power_w", "INV1").to_numpy(), [1500.0, 1600.0])
+    assert_allclose(series(con, "ac_power_w", "INV2").to_numpy(), [2500.0, 2600.0])
+    assert_allclose(series(con, "poa_wm2", "site").to_numpy(), [500.0, 510.0])
+    assert con.execute("SELECT line, reason FROM quarantine").fetchall() == [
+        (9, "device 'WR 9' is not in the devices of [[loggers]] 'park'")]
+    # rows repeated across overlapping exports are recognised by content
+    later = tmp_path / "park_06b.csv"
+    later.write_text("ts,Device,P,G\n2024-06-01 10:05,WR 1,1.6,\n2024-06-01 10:05,WR 2,2.6,\n"
+                     "2024-06-01 10:10,WR 1,1.7,\n2024-06-01 10:10,WR 2,2.7,\n")
+    (res2,) = ingest_files(con, site, [later])
+    assert (res2.rows_loaded, res2.rows_duplicate, res2.rows_quarantined) == (2, 2, 0)
+
+
+def test_tall_logger_needs_its_devices(tmp_path):
+    site_path, _ = write_case(tmp_path, "x\n", filename="park_06.csv",
+                              loggers=TALL.replace('"Meteo" = "site"\n', ""))
+    with pytest.raises(SiteFileError) as err:
+        load_site(site_path)
+    assert str(err.value) == (f"{site_path}: loggers[0].columns[1]: poa needs a device mapped to "
+                              "site in devices")
+
+
+@pytest.mark.parametrize("suffix", [".gz", ".zip"])
+def test_compressed_files_read_as_they_are(tmp_path, suffix):
+    import gzip
+    import hashlib
+    import io
+    import zipfile
+
+    text = b"ts,P,G\n2024-06-01 10:00,1.5,500\n2024-06-01 10:05,2,600\n"
+    if suffix == ".gz":
+        data = gzip.compress(text)
+    else:
+        buf = io.BytesIO()
+        with zipfile.ZipFile(buf, "w") as z:
+            z.writestr("log.csv", text)
+        data = buf.getvalue()
+    con, _, (res,) = ingest(tmp_path, data, filename="log.csv" + suffix)
+    assert (res.rows_read, res.rows_loaded) == (2, 2)
+    assert_allclose(series(con, "ac_power_w").to_numpy(), [1500.0, 2000.0])
+    # provenance is the file as it is on disk
+    assert con.execute("SELECT sha256, size_bytes FROM source_files").fetchall() == [
+        (hashlib.sha256(data).hexdigest(), len(data))]
+
+
+def test_broken_compressed_file_is_one_line(tmp_path):
+    site_path, log = write_case(tmp_path, b"\x1f\x8b not really gzip", filename="log.csv.gz")
+    result = run_ingest(site_path, log)
+    assert result.exit_code == 2
+    assert result.stderr.startswith(f"perfcheck: error: {log}: cannot be decompressed (")
+
+
+HISTORIAN = TALL.replace('device_column = "Device"\n', 'device_column = "device"\n'
+                         'point_column = "point"\nvalue_column = "value"\n').replace(
+    'name = "P"', 'name = "Pac"').replace('name = "G"', 'name = "Irr"').replace(
+    'columns = ["ts"]', 'columns = ["time"]')
+
+
+def test_historian_export_one_row_per_time_device_and_point(tmp_path):
+    # Invented historian export: one value per row; a point the site file does not map is
+    # read and stores nothing; a repeated row is a duplicate.
+    body = ("time,device,point,value\n"
+            "2024-06-01 10:00,WR 1,Pac,1.5\n2024-06-01 10:00,WR 2,Pac,2.5\n"
+            "2024-06-01 10:00,Meteo,Irr,500\n2024-06-01 10:00,WR 1,Temp,45\n"
+            "2024-06-01 10:05,WR 1,Pac,1.6\n2024-06-01 10:05,WR 1,Pac,1.6\n")
+    con, _, (res,) = ingest(tmp_path, body, filename="park_06.csv", loggers=HISTORIAN)
+    assert (res.rows_read, res.rows_loaded, res.rows_duplicate, res.rows_quarantined) == (
+        6, 5, 1, 0)
+    # 1.5 kW = 1500 W (SI prefix k = 10^3, BIPM SI Brochure, 9th ed. 2019)
+    assert_allclose(series(con, "ac_power_w", "INV1").to_numpy(), [1500.0, 1600.0])
+    assert_allclose(series(con, "ac_power_w", "INV2").to_numpy(), [2500.0])
+    assert_allclose(series(con, "poa_wm2", "site").to_numpy(), [500.0])
+
+
+def test_historian_needs_point_and_value_columns_together(tmp_path):
+    site_path, _ = write_case(tmp_path, "x\n", filename="park_06.csv",
+                              loggers=HISTORIAN.replace('value_column = "value"\n', ""))
+    with pytest.raises(SiteFileError) as err:
+        load_site(site_path)
+    assert str(err.value) == (f"{site_path}: loggers[0].value_column: give point_column and "
+                              "value_column together (a historian export: one row per time, "
+                              "device and point)")

@@ -13,6 +13,7 @@ from numpy.testing import assert_allclose
 from perfcheck import model
 from perfcheck import physics as ph
 from perfcheck.errors import DataError
+from perfcheck.site import load_site
 
 
 def _weather(idx: pd.DatetimeIndex, **cols: float) -> pd.DataFrame:
@@ -175,6 +176,37 @@ def test_run_stores_and_computes_only_what_is_new(tmp_path):
     # The aligned table follows the current run.
     runs = con.execute("SELECT DISTINCT model_run_id FROM aligned_base").fetchall()
     assert runs == [(first["model_run_id"],)]
+
+
+def _expected_dc(folder, commissioned_line: str) -> pd.DataFrame:
+    """The expected DC power of the model fixture's site with its ``commissioned`` line
+    replaced by ``commissioned_line``, over two invented clear days of 2024-06."""
+    folder.mkdir()
+    site = make_site(folder)
+    site.path.write_text(site.path.read_text().replace("commissioned = 2024-06-01\n",
+                                                       commissioned_line))
+    site = load_site(site.path)
+    con = open_db(folder)
+    store(con, clear_days("2024-06-01", 2), "site", file_id=1)
+    model.run(con, site)
+    return con.execute("SELECT ts, inverter_id, dc_w FROM expected ORDER BY ALL").df()
+
+
+def test_age_allowance_without_commissioned_starts_at_the_first_data(tmp_path):
+    # Invented truth (issue 10, item 6): without a commissioning date the age allowance
+    # starts at the first data's site-local day, so the expected series is that of a site
+    # commissioned that day; with module_age_years_at_first_data = 4 it is that of a site
+    # commissioned 4 x 365.25 = 1461 days earlier. The first reading is 2024-06-01 00:00 UTC,
+    # 02:00 in Berlin, so the first data's day is 2024-06-01.
+    given = _expected_dc(tmp_path / "given", "commissioned = 2024-06-01\n")
+    first = _expected_dc(tmp_path / "first", "")
+    pd.testing.assert_frame_equal(first, given)
+    older = _expected_dc(tmp_path / "older", "commissioned = 2020-06-01\n")
+    stated = _expected_dc(tmp_path / "stated", "module_age_years_at_first_data = 4\n")
+    pd.testing.assert_frame_equal(stated, older)
+    # 0.5 %/year over 4 years: the allowance is visible (Losses default, common practice)
+    ratio = (older["dc_w"] / given["dc_w"]).dropna()
+    assert ratio[given["dc_w"] > 100].round(6).unique().tolist() == [round(0.995 ** 4, 6)]
 
 
 def test_run_without_irradiance_says_so(tmp_path):

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import csv
+import datetime as dt
 import io
 import json
 import re
@@ -10,11 +11,12 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
-from report_fixtures import example_check, rendered_example, write_site
+from report_fixtures import checked, example_aligned, example_check, rendered_example, write_site
 
 from perfcheck import figures, periods, report
 from perfcheck.cli import main
 from perfcheck.errors import SiteFileError
+from perfcheck.site import load_site
 
 
 @pytest.fixture(scope="module")
@@ -83,6 +85,17 @@ def test_event_paragraph_plain_words():
     assert "On site, check string currents" in text
 
 
+def test_event_paragraph_says_what_the_inverter_reported():
+    # issue 10, item 3: a trip the inverter itself explains is said in its words
+    ev = {**example_check()["events"][0], "kind": "outage",
+          "reported_state": "stopped by the grid"}
+    text = report.event_paragraph(ev, "Europe/Zurich")
+    assert text.startswith("From 2025-06-13 00:00 to 2025-06-19 00:00 inverter INV2 lost about "
+                           "412 kWh, 360–470. Meanwhile the inverter reported: stopped by the "
+                           "grid. We think it is outage because")
+    assert "reported state" not in text
+
+
 def test_events_csv_stable_columns(written):
     rows = list(csv.DictReader(io.StringIO(written[1]["events_csv"].read_text())))
     assert list(rows[0]) == report.EVENT_FIELDS
@@ -136,3 +149,20 @@ def test_demo_month_report(demo_db, tmp_path):
     rows = list(csv.DictReader(io.StringIO(paths["events_csv"].read_text())))
     assert [(r["kind"], r["scope"]) for r in rows] == [(e["kind"], e["scope"])
                                                        for e in doc["events"]]
+
+
+def test_age_note_in_methods_and_header(tmp_path):
+    # issue 10, item 6: without a commissioning date the report says where ageing starts
+    site = write_site(tmp_path)
+    site.path.write_text(site.path.read_text().replace("commissioned = 2024-04-01\n", ""))
+    site = load_site(site.path)
+    result = checked(site.aged(dt.date(2025, 6, 1)), example_check())
+    result["settings"].update(site.aged(dt.date(2025, 6, 1)).age_record())
+    ctx = report.context(site, result, example_aligned(), {"files": [], "flags": []})
+    note = ("Note: no commissioning date in the site file: the age allowance starts at the "
+            "first data (2025-06-01); if the modules are older, give site.commissioned or "
+            "site.module_age_years_at_first_data.")
+    assert ("para", note) in report.pdf_text_blocks(ctx)
+    assert "notes" not in ctx["settings"]
+    html = report.render_html(ctx, {stem: b"" for stem, _, _ in figures.FIGURES})
+    assert note in html and "commissioning date not given" in html

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import datetime as dt
+
 import pytest
 from logger_files import DEFAULT_COLUMNS, logger_toml, run_ingest, write_case
 
@@ -27,13 +29,20 @@ def _edit(site, old, new):
          "site.latitude_deg: expected a number, got str '48.0'"),
         ("latitude_deg = 48.0", "latitude_deg = 48.0\nlatitude = 48.0",
          "site.latitude: unknown key (known keys here: albedo, altitude_m, commissioned, "
-         "export_limit_kw, horizon, inbox, latitude_deg, longitude_deg, name, timezone)"),
+         "export_limit_kw, horizon, inbox, latitude_deg, longitude_deg, "
+         "module_age_years_at_first_data, name, timezone)"),
         ("latitude_deg = 48.0", "latitude_deg = 98.0",
          "site.latitude_deg: 98.0 is outside the range -90 to 90"),
         ("Europe/Berlin", "Europe/Berlyn",
          "site.timezone: unknown IANA time zone 'Europe/Berlyn' (e.g. 'Europe/Berlin')"),
         ("commissioned = 2023-05-01", 'commissioned = "May 2023"',
          "site.commissioned: expected a date like 2024-03-01, got str 'May 2023'"),
+        ("commissioned = 2023-05-01", "commissioned = 2023-05-01\n"
+         "module_age_years_at_first_data = 3",
+         "site.module_age_years_at_first_data: give either commissioned or "
+         "module_age_years_at_first_data, not both"),
+        ("commissioned = 2023-05-01", "module_age_years_at_first_data = -1",
+         "site.module_age_years_at_first_data: -1.0 is outside the range 0 to 60"),
         ("strings = 2", "strings = 2.5",
          "inverters[0].arrays[0].strings: expected an integer, got float 2.5"),
         ('unit = "kW"', 'unit = "kV"',
@@ -42,7 +51,7 @@ def _edit(site, old, new):
         ('quantity = "poa"', 'quantity = "irradiance"',
          "loggers[0].columns[1].quantity: 'irradiance' is not one of 'ac_power', 'dc_power', "
          "'energy_register', 'energy_interval', 'poa', 'poa_rear', 'ghi', 'dhi', 'dni', "
-         "'temp_air', 'temp_module', 'wind_speed', 'rain', 'tracker_angle'"),
+         "'temp_air', 'temp_module', 'wind_speed', 'rain', 'tracker_angle', 'status'"),
         ('inverter = "INV1"', 'inverter = "INV9"',
          "loggers[0].columns[0].inverter: 'INV9' is not an inverter id of this site "
          "(ids: INV1, INV2, or 'plant')"),
@@ -147,3 +156,50 @@ def test_two_equally_specific_matches_are_an_error(tmp_path):
     assert result.stderr == (f"perfcheck: error: {log}: [[loggers]] 'first' (match 'log*.csv') "
                              "and 'second' (match '*log.csv') match this file name equally "
                              "well; make one match more specific\n")
+
+
+def test_commissioned_is_optional(tmp_path):
+    # issue 10, item 6: two of two owners' site descriptions gave no commissioning date
+    site, _ = write_case(tmp_path, GOOD)
+    _edit(site, "commissioned = 2023-05-01\n", "")
+    loaded = load_site(site)
+    assert loaded.commissioned is None and loaded.age_record() == {
+        "age_reference_date": None, "notes": []}
+    first = dt.date(2024, 6, 1)
+    aged = loaded.aged(first)
+    assert aged.commissioned == first
+    assert aged.age_record() == {"age_reference_date": "2024-06-01", "notes": [
+        "no commissioning date in the site file: the age allowance starts at the first data "
+        "(2024-06-01); if the modules are older, give site.commissioned or "
+        "site.module_age_years_at_first_data"]}
+    assert loaded.aged(None) is loaded
+
+
+def test_module_age_at_first_data_moves_the_age_reference(tmp_path):
+    # Invented truth: 2.5 years of 365.25 days = 913.125 days, rounded to 913 days before
+    # 2024-06-01 is 2021-12-01 (2021-12-01 + 913 days: 30 + 366 + 365 + 152 days to June 1)
+    site, _ = write_case(tmp_path, GOOD)
+    _edit(site, "commissioned = 2023-05-01", "module_age_years_at_first_data = 2.5")
+    aged = load_site(site).aged(dt.date(2024, 6, 1))
+    assert aged.commissioned == dt.date(2021, 12, 1)
+    assert aged.age_note == (
+        "no commissioning date in the site file: the age allowance counts the modules as 2.5 "
+        "years old at the first data (2024-06-01), i.e. ageing from 2021-12-01 "
+        "(site.module_age_years_at_first_data)")
+    # a stated commissioning date is kept as it is, with no note
+    (tmp_path / "b").mkdir()
+    plain, _ = write_case(tmp_path / "b", GOOD)
+    kept = load_site(plain)
+    assert kept.aged(dt.date(2024, 6, 1)) is kept and kept.age_record()["notes"] == []
+
+
+def test_register_restarting_daily_is_read(tmp_path):
+    columns = (("E", "energy_register", "kWh", "INV1"),)
+    site, _ = write_case(tmp_path, GOOD, loggers=logger_toml(columns=columns))
+    _edit(site, 'inverter = "INV1"', 'inverter = "INV1"\nresets = "daily"')
+    assert load_site(site).loggers[0].columns[0].resets_daily
+    _edit(site, 'resets = "daily"', 'resets = "weekly"')
+    with pytest.raises(SiteFileError) as err:
+        load_site(site)
+    assert str(err.value) == (f"{site}: loggers[0].columns[0].resets: 'weekly' is not one of "
+                              "'daily'")

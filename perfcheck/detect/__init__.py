@@ -111,8 +111,10 @@ def _model_sigma(w: Wide, valid: pd.DataFrame) -> float:
 
 
 def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
-            timings: dict[str, float] | None = None) -> dict[str, Any]:
-    """Run every detector over aligned rows; pure (no database).
+            timings: dict[str, float] | None = None,
+            reported: pd.DataFrame | None = None) -> dict[str, Any]:
+    """Run every detector over aligned rows; pure (no database). ``reported``: the states the
+    status channels reported (:func:`perfcheck.status.reported`), if any.
 
     Returns ``{"events": [Event], "ledger": Ledger, "degradation": {...}, "model": {...},
     "suspect_windows": [...], "clock_shifts": [...], "footprints": [...], "wide": Wide}``
@@ -153,7 +155,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     valid = daylight(w) & ~w.flagged & w.expected.notna()
     rel_sigma = _model_sigma(w, valid)
     step_noise, spread = ratio_noise(w, valid)
-    ev, out_mask = outage.detect(w, rel_sigma)
+    ev, out_mask = outage.detect(w, rel_sigma, reported=reported)
     events += ev
     t = lap("outage", t)
     ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask)

@@ -72,7 +72,29 @@ def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
     return events, mask
 
 
-def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0, **kw: float
+def reported_state(reported: pd.DataFrame | None, devices: list[str], start: pd.Timestamp,
+                   end: pd.Timestamp) -> str | None:
+    """What the devices' status channels said during [start, end): the state reported most
+    often other than "running" (of equals, the first one read), "running" when that is all
+    they said, None without a status reading in the window.
+
+    ``reported``: ts (UTC), device, state (:func:`perfcheck.status.reported`).
+    """
+    if reported is None or reported.empty:
+        return None
+    inside = reported[reported["device"].isin(devices) & (reported["ts"] >= start)
+                      & (reported["ts"] < end)]
+    if inside.empty:
+        return None
+    other = inside.loc[inside["state"] != "running", "state"]
+    if other.empty:
+        return "running"
+    counts = other.value_counts(sort=False)
+    return str(counts.index[counts.to_numpy().argmax()])
+
+
+def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
+           reported: pd.DataFrame | None = None, **kw: float
            ) -> tuple[list[Event], pd.DataFrame]:
     """Outage events and the (interval x inverter) mask of the intervals they cover.
 
@@ -81,6 +103,8 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0, **kw: float
     w : the aligned series
     rel_sigma : relative standard error of the expected energy [-], for the energy band
     min_minutes : shortest outage reported [min]
+    reported : the status channels' states (ts, device, state), if the loggers write them:
+        an outage during which they reported a state carries it as ``detail["reported_state"]``
     """
     state, nothing = states(w, **kw)
     st, no = state.to_numpy(), nothing.to_numpy()
@@ -104,4 +128,9 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0, **kw: float
             ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma)
             events += ev
             mask.loc[im, inv] = True
+    for e in events:
+        devices = e.evidence["inverters"] + (["plant"] if e.scope == "plant" else [])
+        state = reported_state(reported, devices, e.start, e.end)
+        if state is not None:
+            e.detail["reported_state"] = state
     return events, mask
