@@ -138,6 +138,16 @@ class Settings:
     modelled_poa_uncertainty_pct: float = 5.0  # common practice, no source
 
 
+def sensor_uncertainty(site: Site) -> tuple[float, str]:
+    """Expanded (95 %) calibration uncertainty of the irradiance sensor [%] and its source:
+    ``[model] poa_uncertainty_pct``, else that of ``[model] sensor_class``."""
+    model = site.model
+    if model.poa_uncertainty_pct is not None:
+        return model.poa_uncertainty_pct, "site file model.poa_uncertainty_pct"
+    return (SENSOR_CLASS_UNCERTAINTY_PCT[model.sensor_class],
+            f"IEC 61724-1 class {model.sensor_class} (from memory)")
+
+
 def load_settings(site: Site) -> Settings:
     """Validate the optional ``[metrics]`` table of the site file into :class:`Settings`."""
     t = Table(site.raw.get("metrics", {}), "metrics", site.path)
@@ -157,12 +167,7 @@ def load_settings(site: Site) -> Settings:
     samples = t.get("bootstrap_samples", int, d.bootstrap_samples)
     if not 100 <= samples <= 100_000:
         raise t._err("bootstrap_samples", f"{samples} is outside the range 100 to 100000")
-    model = site.model
-    if model.poa_uncertainty_pct is not None:
-        u_pct, u_source = model.poa_uncertainty_pct, "site file model.poa_uncertainty_pct"
-    else:
-        u_pct = SENSOR_CLASS_UNCERTAINTY_PCT[model.sensor_class]
-        u_source = f"IEC 61724-1 class {model.sensor_class} (from memory)"
+    u_pct, u_source = sensor_uncertainty(site)
     s = Settings(
         min_poa_wm2=t.number("min_poa_wm2", d.min_poa_wm2, lo=0, hi=1500),
         availability_min_poa_wm2=t.number(
