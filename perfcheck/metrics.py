@@ -729,16 +729,10 @@ def compute(
 
     ``t_typ`` is T_cell_typ_avg [C] and where it came from (:func:`typical_cell_temperature`).
     """
-    sums = scope_sums(daily, site)
+    days, cube, p0, scopes = _cube(daily, site)
     t_typ_c, t_typ_source = t_typ
-    temp_ref = t_typ_c if settings.pr_temp_ref_c == "annual" else float(settings.pr_temp_ref_c)
-    temp_refs = (temp_ref, t_typ_c)
-    scopes = ["plant", *(f"inverter:{i.id}" for i in site.inverters)]
-    sums = sums.assign(_order=sums["scope"].map({sc: k for k, sc in enumerate(scopes)}))
-    sums = sums.sort_values(["day", "_order"])
-    days = list(dict.fromkeys(sums["day"]))
-    cube = sums[list(ADDITIVE)].to_numpy(dtype=float).reshape(len(days), len(scopes), -1)
-    p0 = sums["p0_w"].to_numpy(dtype=float)[: len(scopes)]
+    temp_refs = _temp_refs(settings, t_typ_c)
+    temp_ref = temp_refs[0]
     tz = site.tz
 
     def bounds(first: dt.date, after: dt.date) -> dict[str, Any]:
@@ -767,15 +761,46 @@ def compute(
                    lambda d: d.replace(year=d.year + 1), True)
     daily_rows = group(lambda d: d, "date", lambda d: d.isoformat(),
                        lambda d: d + dt.timedelta(days=1), False)
-    p_start, p_end = start.tz_convert(tz), end.tz_convert(tz)
-    label = {"start": p_start.isoformat(), "end": p_end.isoformat(),
-             "_key": (1, p_start.toordinal(), p_end.toordinal()),
-             "days": round((p_end - p_start) / pd.Timedelta(days=1))}
-    period = summarise(cube, p0, scopes, label, settings, temp_refs, True)
+    period = _period(cube, p0, scopes, start, end, site, settings, temp_refs)
     return {
         "settings": settings_record(settings, temp_ref, t_typ_c, t_typ_source),
         "metrics": {"monthly": monthly, "yearly": yearly, "period": period, "daily": daily_rows},
     }
+
+
+def _cube(daily: pd.DataFrame, site: Site
+          ) -> tuple[list[Any], np.ndarray, np.ndarray, list[str]]:
+    """Days, the (day, scope, ADDITIVE) cube of daily sums, P0 per scope [W] and the scopes."""
+    sums = scope_sums(daily, site)
+    scopes = ["plant", *(f"inverter:{i.id}" for i in site.inverters)]
+    sums = sums.assign(_order=sums["scope"].map({sc: k for k, sc in enumerate(scopes)}))
+    sums = sums.sort_values(["day", "_order"])
+    days = list(dict.fromkeys(sums["day"]))
+    cube = sums[list(ADDITIVE)].to_numpy(dtype=float).reshape(len(days), len(scopes), -1)
+    return days, cube, sums["p0_w"].to_numpy(dtype=float)[: len(scopes)], scopes
+
+
+def _temp_refs(settings: Settings, t_typ_c: float) -> tuple[float, float]:
+    """(T_ref of the temperature-corrected PR, T_cell_typ_avg) [C]."""
+    annual = settings.pr_temp_ref_c == "annual"
+    return (t_typ_c if annual else float(settings.pr_temp_ref_c), t_typ_c)
+
+
+def _period(cube: np.ndarray, p0: np.ndarray, scopes: list[str], start: pd.Timestamp,
+            end: pd.Timestamp, site: Site, settings: Settings, temp_refs: tuple[float, float]
+            ) -> dict[str, Any]:
+    p_start, p_end = start.tz_convert(site.tz), end.tz_convert(site.tz)
+    label = {"start": p_start.isoformat(), "end": p_end.isoformat(),
+             "_key": (1, p_start.toordinal(), p_end.toordinal()),
+             "days": round((p_end - p_start) / pd.Timedelta(days=1))}
+    return summarise(cube, p0, scopes, label, settings, temp_refs, True)
+
+
+def period_summary(daily: pd.DataFrame, site: Site, start: pd.Timestamp, end: pd.Timestamp,
+                   settings: Settings, t_typ: tuple[float, str]) -> dict[str, Any]:
+    """The ``period`` row of :func:`compute` alone (e.g. a contract year for the guarantees)."""
+    _, cube, p0, scopes = _cube(daily, site)
+    return _period(cube, p0, scopes, start, end, site, settings, _temp_refs(settings, t_typ[0]))
 
 
 def period(

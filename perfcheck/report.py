@@ -40,14 +40,18 @@ METHODS: list[tuple[str, str]] = [
     ("Intervals on PR and EPI", "day-block bootstrap (whole days resampled, seeded) plus the "
      "irradiance sensor's stated uncertainty (IEC 61724-1 sensor class)"),
     ("Underperformance periods", "robust regression of measured on expected power (statsmodels) "
-     "on a reference window; sequential test on standardised residuals"),
+     "on a reference window; CUSUM (Page 1954) on the AR(1) innovations of the daily "
+     "residuals, scaled by their long-run variance"),
     ("Soiling", "Deceglie, Micheli & Muller 2018, IEEE J. Photovolt. 8(2):547 (stochastic rate "
      "and recovery, in its spirit)"),
-    ("Degradation", "year-on-year method, Jordan et al. 2018, IEEE J. Photovolt. 8(2):525"),
+    ("Degradation", "year-on-year method, Jordan et al. 2018, IEEE J. Photovolt. 8(2):525; "
+     "interval: bootstrap of calendar-month blocks of pairs (Carlstein 1986) plus the irradiance "
+     "sensor's stability, in quadrature (GUM)"),
     ("Clipping and curtailment", "Perry, Muller & Anderson 2021, NREL/CP-5K00-78954; operation "
      "limited by inverter or interconnection kept apart as in IEC TS 61724-2"),
     ("Guarantee tests", "one-sided test at the stated confidence level, standard error taken from "
-     "the metric's interval under a normal approximation"),
+     "the metric's interval under a normal approximation; per contract year, on complete "
+     "contract years only"),
 ]
 
 CAUTIONS = [
