@@ -30,7 +30,8 @@ METHODS: list[tuple[str, str]] = [
     ("Reference, array and final yields; performance ratio PR = Yf / Yr",
      "IEC 61724-1 (yields and PR), vocabulary of IEC TS 61836"),
     ("Temperature-corrected PR (T_ref 25 C and the annual-average-temperature variant)",
-     "IEC 61724-1, temperature-corrected PR"),
+     "IEC 61724-1, temperature-corrected PR, on the module temperature by default or the cell "
+     "temperature (setting pr_temp_basis)"),
     ("Weather-corrected PR with an irradiance-weighted typical cell temperature",
      "Dierauf et al. 2013, NREL/TP-5200-57991"),
     ("Energy performance index EPI = measured / expected energy",
