@@ -394,11 +394,9 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
     site = ingest.aged(con, site)
     settings = metrics.load_settings(site)
     record = json.loads(con.execute(db.sql("analysis_inputs"), {"id": stored.id}).fetchone()[0])
-    daily = con.execute(db.sql("analysis_daily_window"), {
-        "id": stored.id, "tz": site.timezone, "start": start, "end": end}).df()
-    daily = metrics.complete_calendar(daily.drop(columns="n_nominal"), site, start, end,
-                                      metrics.shortest_interval(con))
-    result = metrics.compute(daily, site, start, end, settings, tuple(record["t_cell_typ_avg"]))
+    t_typ = tuple(record["t_cell_typ_avg"])
+    result = metrics.compute(_daily(con, site, stored, start, end), site, start, end, settings,
+                             t_typ)
     model, degradation = con.execute(db.sql("analysis_blocks"), {"id": stored.id}).fetchone()
     block = losses(con, stored, start, end)
     block.update(json.loads(model))
@@ -417,8 +415,23 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
                      "history_end": metrics.local_iso(stored.end_ts, site)},
         "run": metrics.run_record(),
     }
-    doc["guarantees"] = guarantees.evaluate(site, doc)
+
+    def contract_year(a: pd.Timestamp, b: pd.Timestamp) -> dict[str, Any]:
+        """The period metrics of a whole contract year [a, b) (the guarantees test those)."""
+        return metrics.period_summary(_daily(con, site, stored, a, b), site, a, b, settings,
+                                      t_typ)
+
+    doc["guarantees"] = guarantees.evaluate(site, doc, contract_year)
     return doc
+
+
+def _daily(con: duckdb.DuckDBPyConnection, site: Site, stored: Stored, start: pd.Timestamp,
+           end: pd.Timestamp) -> pd.DataFrame:
+    """The stored daily sums of ``[start, end)``, every calendar day present."""
+    daily = con.execute(db.sql("analysis_daily_window"), {
+        "id": stored.id, "tz": site.timezone, "start": start, "end": end}).df()
+    return metrics.complete_calendar(daily.drop(columns="n_nominal"), site, start, end,
+                                     metrics.shortest_interval(con))
 
 
 def series(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: pd.Timestamp,

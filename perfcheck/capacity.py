@@ -5,10 +5,15 @@ P = E (a1 + a2 E + a3 T_a + a4 v), over filtered intervals of a test window; the
 evaluated at the reporting conditions (RC) with the 95 % interval of the mean prediction. The
 expected series (the model of the site's design) is regressed the same way on the same points,
 so the ratio measured / expected at RC compares like with like. The plant's irradiance is the
-P0-weighted mean of its inverters' plane-of-array irradiance (as for the metrics). The
-irradiance sensor's uncertainty is not added to the ratio's interval: both regressions use the
-same measured irradiance, so a sensor bias enters measured and expected alike and largely
-cancels in the ratio (it does not cancel in the capacities in kW).
+P0-weighted mean of its inverters' plane-of-array irradiance (as for the metrics).
+
+A bias of the irradiance sensor does not cancel in the ratio: the expected power is computed
+from the measured irradiance, so a sensor reading 3 % high makes the expected power about 3 %
+high and the ratio about 3 % low, while the measured power does not change. The ratio's
+interval therefore adds the sensor's expanded calibration uncertainty (``[model]
+poa_uncertainty_pct``, by default that of ``[model] sensor_class``), relative, in quadrature
+with the relative half-widths of the two regressions at RC (JCGM 100:2008, GUM, 5.1.2 and 5.1.6:
+for a ratio the relative uncertainties add in quadrature; the three are independent).
 
 Filters (each reported with the points left after it):
 
@@ -29,6 +34,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass
+from statistics import NormalDist
 from typing import Any
 
 import duckdb
@@ -36,6 +42,7 @@ import numpy as np
 import pandas as pd
 
 from perfcheck import analysis, metrics
+from perfcheck.detect.common import Z95
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
@@ -280,7 +287,10 @@ def run_test(
     ratio = m["value"] / e["value"]
     rel = np.hypot((m["value"] - m["low"]) / m["value"], (e["value"] - e["low"]) / e["value"])
     reh = np.hypot((m["high"] - m["value"]) / m["value"], (e["high"] - e["value"]) / e["value"])
-    lo, hi = ratio * (1 - rel), ratio * (1 + reh)
+    u_pct, u_source = metrics.sensor_uncertainty(site)
+    # the sensor's 95 % expanded uncertainty brought to the test's confidence (normal)
+    u = u_pct / 100 * NormalDist().inv_cdf((1 + settings.confidence) / 2) / Z95
+    lo, hi = ratio * (1 - np.hypot(rel, u)), ratio * (1 + np.hypot(reh, u))
     passed = ratio >= guaranteed_ratio
     return {
         "reporting_conditions": {**rc_used, "source": rc_source},
@@ -299,6 +309,10 @@ def run_test(
             "ratio": ratio,
             "ratio_ci_low": lo,
             "ratio_ci_high": hi,
+            "ratio_regression_ci_low": ratio * (1 - rel),
+            "ratio_regression_ci_high": ratio * (1 + reh),
+            "irradiance_uncertainty_pct": u_pct,
+            "irradiance_uncertainty_source": u_source,
             "guaranteed_ratio": guaranteed_ratio,
             "passed": bool(passed),
             "significant": bool(hi < guaranteed_ratio if not passed else lo >= guaranteed_ratio),
@@ -354,7 +368,10 @@ def run(
         "test": {"start": metrics.local_iso(start, site), "end": metrics.local_iso(end, site),
                  "first_point": metrics.local_iso(res.pop("first_point"), site),
                  "last_point": metrics.local_iso(res.pop("last_point"), site),
-                 "method": "ASTM E2848-13 regression at ASTM E2939-13 reporting conditions"},
+                 "method": "ASTM E2848-13 regression at ASTM E2939-13 reporting conditions",
+                 "interval_method": "ratio interval: the 95 % intervals of the two mean "
+                                    "predictions at RC and the irradiance sensor's calibration "
+                                    "uncertainty, relative, in quadrature (GUM)"},
         **res,
         "verdict": verdict,
         "cautions": CAUTIONS,

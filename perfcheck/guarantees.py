@@ -19,24 +19,42 @@ The site file may declare (all optional)::
     yearly_loss_pct = 0.55       # at most this lost per year thereafter
     start = 2024-04-01           # default: site.commissioned
 
-``evaluate(site, check_result)`` returns one finding per promise (the ``guarantees`` list of the
-``perfcheck check`` JSON). Each finding puts the measured value and its interval beside the
-promise and tests the shortfall one-sidedly; ``finding`` is one of
+``evaluate(site, check_result, contract_year)`` returns the findings (the ``guarantees`` list of
+the ``perfcheck check`` JSON). Each finding puts the measured value and its interval beside the
+promise and tests the shortfall one-sidedly.
+
+A performance or availability guarantee is a promise per contract year, so it is tested per
+contract year, on the whole contract year, and only on a complete one: every contract year
+that overlaps the period gets its own finding with its own promised value (never a blend of
+two years' values), measured over the whole contract year (``contract_year(start, end)``
+gives its period metrics; a month's PR is never set against an annual promise). A contract
+year that the data do not cover from its first to its last day is "not yet testable", with
+the share of the year the data cover (``covered_share``).
+
+The module warranty is tested on the degradation rate measured over the whole history
+(year-on-year pairs of days one year apart): its promise is the warranted loss between the
+same ages, the mean of curve(t) - curve(t + 1) [% of nameplate per year] over the ages t of
+the pairs' earlier days, so it does not depend on the period viewed.
+
+``finding`` is one of
 
 - ``met``: the measured value meets or beats the promise;
 - ``not_shown``: it is below the promise but within its uncertainty (not a breach);
 - ``shortfall_shown``: the shortfall is significant at the stated confidence;
 - ``shortfall_untested``: below the promise, but the metric carries no interval to test it;
-- ``not_enough_data``: the metric has no value for the period.
+- ``not_enough_data``: the metric has no value for the period;
+- ``not_yet_testable``: the contract year is not complete in the data.
 """
 
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Callable
 from dataclasses import dataclass
 from statistics import NormalDist
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from perfcheck.site import Site, Table
@@ -149,20 +167,41 @@ def ratio_energy_short(measured_kwh: float, promised: float, value: float | None
     return max(0.0, measured_kwh * (promised / value - 1))
 
 
-def contract_year_weights(start: dt.date, period_start: pd.Timestamp, period_end: pd.Timestamp,
-                          tz: str) -> dict[int, float]:
-    """Days of the period in each contract year (1-based) as a share of the period's days."""
+def contract_years(start: dt.date, period_start: pd.Timestamp, period_end: pd.Timestamp,
+                   tz: str) -> list[tuple[int, pd.Timestamp, pd.Timestamp]]:
+    """Contract years (1-based number, start, end) that overlap ``[period_start, period_end)``."""
     s = pd.Timestamp(start, tz=tz)
-    days: dict[int, float] = {}
+    out = []
     k = 1
     while s + pd.DateOffset(years=k - 1) < period_end:
-        a = max(s + pd.DateOffset(years=k - 1), period_start)
-        b = min(s + pd.DateOffset(years=k), period_end)
-        if b > a:
-            days[k] = (b - a).total_seconds() / 86400
+        a, b = s + pd.DateOffset(years=k - 1), s + pd.DateOffset(years=k)
+        if b > period_start:
+            out.append((k, a, b))
         k += 1
-    total = sum(days.values())
-    return {k: v / total for k, v in days.items()} if total else {}
+    return out
+
+
+def covered_share(start: pd.Timestamp, end: pd.Timestamp, first: pd.Timestamp,
+                  last: pd.Timestamp) -> float:
+    """Share of ``[start, end)`` that the data history ``[first, last)`` covers [-]."""
+    inside = (min(end, last) - max(start, first)).total_seconds()
+    return max(0.0, inside) / (end - start).total_seconds()
+
+
+def warranted_yoy_loss(age_first: float, age_last: float, first_year_loss_pct: float,
+                       yearly_loss_pct: float, n: int = 401) -> float:
+    """Mean warranted loss between ages t and t + 1 [% of nameplate per year] for t from
+    ``age_first`` to ``age_last`` (the ages of the earlier days of year-on-year pairs).
+
+    curve(t) - curve(t + 1) with the curve of :func:`warranted_power_pct`, averaged over an even
+    grid of ``n`` ages (trapezoid rule, exact where the function is linear; one age gives its
+    value). Past year 1 it is the yearly loss; inside year 1 it runs from the first-year
+    loss down to the yearly loss.
+    """
+    t = np.linspace(age_first, max(age_first, age_last), n)
+    d = np.array([warranted_power_pct(a, first_year_loss_pct, yearly_loss_pct)
+                  - warranted_power_pct(a + 1, first_year_loss_pct, yearly_loss_pct) for a in t])
+    return float((d.sum() - (d[0] + d[-1]) / 2) / (n - 1))
 
 
 def warranted_power_pct(age_years: float, first_year_loss_pct: float,
@@ -204,45 +243,78 @@ def _money(f: dict, g: Guarantees) -> dict:
     return f
 
 
-def _performance(p: Performance, g: Guarantees, result: dict, site: Site) -> list[dict]:
-    period = result["metrics"]["period"]
+def _history(result: dict) -> tuple[pd.Timestamp, pd.Timestamp]:
+    """The span of the data history: the stored analysis's, else the period's."""
+    h = result.get("analysis") or {}
+    if h.get("history_start") and h.get("history_end"):
+        return pd.Timestamp(h["history_start"]), pd.Timestamp(h["history_end"])
+    return tuple(pd.Timestamp(result["period"][k]) for k in ("start", "end"))  # type: ignore
+
+
+ContractYear = Callable[[pd.Timestamp, pd.Timestamp], dict[str, Any]]
+
+
+def _performance(p: Performance, g: Guarantees, result: dict, site: Site,
+                 contract_year: ContractYear | None) -> list[dict]:
     ps, pe = (pd.Timestamp(result["period"][k]) for k in ("start", "end"))
-    weights = contract_year_weights(p.start, ps, pe, site.timezone)
-    promised = sum(w * p.yearly[min(k, len(p.yearly)) - 1] for k, w in weights.items())
+    first, last = _history(result)
     level = result.get("settings", {}).get("confidence", 0.95)
     out = []
-    f = _finding(f"performance guarantee ({p.metric})", "performance", promised,
-                 period.get(p.metric), period.get(f"{p.metric}_ci_low"),
-                 period.get(f"{p.metric}_ci_high"), level, g)
-    f["contract_years"] = sorted(weights)
-    f["metric"] = p.metric
-    e = period.get("measured_kwh") or 0.0
-    f["energy_short_kwh"] = ratio_energy_short(e, promised, f["measured"])
-    f["energy_short_kwh_low"] = ratio_energy_short(e, promised, f["measured_ci_high"])
-    f["energy_short_kwh_high"] = ratio_energy_short(e, promised, f["measured_ci_low"])
-    out.append(_money(f, g))
-    if p.availability is not None:
-        a = _finding("guaranteed availability", "availability", p.availability,
-                     period.get(p.availability_metric),
-                     period.get(f"{p.availability_metric}_ci_low"),
-                     period.get(f"{p.availability_metric}_ci_high"), level, g)
-        a["metric"] = p.availability_metric
-        a["contract_years"] = sorted(weights)
+    for k, a, b in contract_years(p.start, ps, pe, site.timezone):
+        share = covered_share(a, b, first, last)
+        period: dict[str, Any] = {}
+        if share >= 1.0:
+            same = a == ps and b == pe
+            if same or contract_year is not None:
+                period = result["metrics"]["period"] if same else contract_year(a, b)
+        year = {"contract_year": k, "contract_years": [k], "covered_share": share,
+                "contract_year_start": a.isoformat(), "contract_year_end": b.isoformat()}
+        promised = p.yearly[min(k, len(p.yearly)) - 1]
+        f = _finding(f"performance guarantee ({p.metric}), contract year {k}", "performance",
+                     promised, period.get(p.metric), period.get(f"{p.metric}_ci_low"),
+                     period.get(f"{p.metric}_ci_high"), level, g)
+        f.update(year, metric=p.metric)
+        e = period.get("measured_kwh") or 0.0
+        f["energy_short_kwh"] = ratio_energy_short(e, promised, f["measured"])
+        f["energy_short_kwh_low"] = ratio_energy_short(e, promised, f["measured_ci_high"])
+        f["energy_short_kwh_high"] = ratio_energy_short(e, promised, f["measured_ci_low"])
+        out.append(_money(_untestable(f, period), g))
+        if p.availability is None:
+            continue
+        m = p.availability_metric
+        a_f = _finding(f"guaranteed availability, contract year {k}", "availability",
+                       p.availability, period.get(m), period.get(f"{m}_ci_low"),
+                       period.get(f"{m}_ci_high"), level, g)
+        a_f.update(year, metric=m)
         exp = period.get("expected_kwh") or 0.0
-        for key, v in (("energy_short_kwh", a["measured"]), ("energy_short_kwh_low",
-                       a["measured_ci_high"]), ("energy_short_kwh_high", a["measured_ci_low"])):
-            a[key] = None if v is None else max(0.0, exp * (p.availability - v))
-        out.append(_money(a, g))
+        for key, v in (("energy_short_kwh", a_f["measured"]), ("energy_short_kwh_low",
+                       a_f["measured_ci_high"]), ("energy_short_kwh_high", a_f["measured_ci_low"])):
+            a_f[key] = None if v is None else max(0.0, exp * (p.availability - v))
+        out.append(_money(_untestable(a_f, period), g))
     return out
+
+
+def _untestable(f: dict, period: dict) -> dict:
+    """Mark a finding of an incomplete contract year (no period metrics were looked up)."""
+    if not period:
+        f["finding"] = "not_yet_testable"
+    return f
 
 
 def _warranty(w: ModuleWarranty, g: Guarantees, result: dict, site: Site) -> dict:
     deg = result.get("degradation") or {}
     ps, pe = (pd.Timestamp(result["period"][k]) for k in ("start", "end"))
     s = pd.Timestamp(w.start, tz=site.timezone)
-    a0, a1 = ((t - s).total_seconds() / 86400 / DAYS_PER_YEAR for t in (ps, pe))
+
+    def age(t: pd.Timestamp) -> float:
+        return (t - s).total_seconds() / 86400 / DAYS_PER_YEAR
+
+    a0, a1 = age(ps), age(pe)
+    first, last = _history(result)
+    # the pairs' earlier days lie in the history's first (span - 1 year)
+    warranted_rate = warranted_yoy_loss(age(first), age(last) - 1, w.first_year_loss_pct,
+                                        w.yearly_loss_pct)  # [%/yr], loss positive
     curve = [warranted_power_pct(a, w.first_year_loss_pct, w.yearly_loss_pct) for a in (a0, a1)]
-    warranted_rate = (curve[0] - curve[1]) / (a1 - a0)  # [%/yr], loss positive
     rate, lo, hi = deg.get("rate_pct_per_year"), deg.get("ci_low"), deg.get("ci_high")
     level = deg.get("ci_level", result.get("settings", {}).get("confidence", 0.95))
     # Tested on the rate with gains positive: measured rate against minus the warranted loss.
@@ -250,6 +322,7 @@ def _warranty(w: ModuleWarranty, g: Guarantees, result: dict, site: Site) -> dic
                  rate, lo, hi, level, g)
     f["metric"] = "degradation_rate_pct_per_year"
     f["warranted_power_pct_end"] = curve[1]
+    f["history_start"], f["history_end"] = first.isoformat(), last.isoformat()
     age_mid = (a0 + a1) / 2
     for key, r in (("energy_short_kwh", rate), ("energy_short_kwh_low", hi),
                    ("energy_short_kwh_high", lo)):
@@ -265,12 +338,18 @@ def _warranty(w: ModuleWarranty, g: Guarantees, result: dict, site: Site) -> dic
     return _money(f, g)
 
 
-def evaluate(site: Site, check_result: dict) -> list[dict]:
-    """One finding per promise declared in ``[guarantees]``; [] when none is declared."""
+def evaluate(site: Site, check_result: dict, contract_year: ContractYear | None = None
+             ) -> list[dict]:
+    """The findings of the promises declared in ``[guarantees]``; [] when none is declared.
+
+    ``contract_year(start, end)`` gives the period metrics of a whole contract year (as in
+    ``check_result["metrics"]["period"]``); without it only a contract year that is the
+    period itself can be tested.
+    """
     g = settings(site)
     out = []
     if g.performance is not None:
-        out += _performance(g.performance, g, check_result, site)
+        out += _performance(g.performance, g, check_result, site, contract_year)
     if g.module_warranty is not None:
         out.append(_warranty(g.module_warranty, g, check_result, site))
     return out
@@ -284,6 +363,8 @@ WORDS = {
     "shortfall_untested": "the measured value is below the promise; it carries no interval, so "
                           "the shortfall is not tested",
     "not_enough_data": "there is not enough data to measure it",
+    "not_yet_testable": "the contract year is not complete in the data, so the promise cannot "
+                        "be tested yet",
 }
 
 
@@ -295,8 +376,9 @@ def statement(f: dict) -> str:
         return "n/a" if v is None else f"{sign * v:.4g}"
 
     if f["kind"] == "module_warranty":
-        text = (f"Module power warranty: warranted loss at most {num(f['promised'])} %/yr over "
-                f"the period, measured loss rate {num(f['measured'])} %/yr")
+        text = (f"Module power warranty: warranted loss at most {num(f['promised'])} %/yr "
+                "between the ages the year-on-year pairs compare, measured loss rate "
+                f"{num(f['measured'])} %/yr")
         lo, hi = f.get("measured_ci_high"), f.get("measured_ci_low")
     else:
         text = (f"{f['name'].capitalize()}: promised {num(f['promised'])}, measured "
@@ -305,6 +387,8 @@ def statement(f: dict) -> str:
     if lo is not None and hi is not None:
         text += f" ({f['interval_level']:.0%} interval {num(lo)} to {num(hi)})"
     text += f"; {WORDS[f['finding']]}"
+    if f["finding"] == "not_yet_testable":
+        text += f" ({f['covered_share']:.0%} of the contract year covered)"
     if f.get("p_value") is not None and f["finding"] != "met":
         text += f" (one-sided p = {f['p_value']:.3g}, level {1 - f['confidence']:.3g})"
     if f["finding"] in ("shortfall_shown", "not_shown", "shortfall_untested") and \

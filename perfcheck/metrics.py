@@ -52,6 +52,7 @@ import numpy as np
 import pandas as pd
 
 from perfcheck import __version__, db, ingest, kinds, periods
+from perfcheck import physics as ph
 from perfcheck.errors import DataError
 from perfcheck.site import Site, Table
 
@@ -60,6 +61,8 @@ FLAG_NAMES = ("out_of_range", "stuck", "gap", "night_offset", "power_without_irr
 # Expanded (95 %) uncertainty of plane-of-array irradiation per IEC 61724-1 monitoring class.
 # From memory, not verified against the standard's text: class A 3 %, class B 8 %, class C 10 %.
 SENSOR_CLASS_UNCERTAINTY_PCT = {"A": 3.0, "B": 8.0, "C": 10.0}
+# Temperature of the temperature-corrected PR (Settings.pr_temp_basis).
+TEMP_BASES = ("module", "cell")
 # Metrics with an interval: the ratios get a day-block bootstrap interval (those of
 # IRRADIANCE_METRICS widened by the irradiance uncertainty, each being inversely proportional
 # to the plane-of-array irradiation); the specific yield, a measured total, gets the band of
@@ -78,8 +81,9 @@ IRRADIANCE_METRICS = ("pr", "pr_temp_corrected", "pr_weather_corrected", "epi")
 SUM_COLUMNS = (
     "p0_w", "n_daylight", "n_nominal", "n_valid", "n_excluded", "n_used", "n_fallback", "n_dc",
     "e_meas_wh", "e_exp_wh", "e_exp_fallback_wh", "e_dc_wh", "ref_wh", "ref_sensor_wh",
-    "refg_wh", "refgt_wh", "w_base", "w_up", "e_base_exp_wh", "e_down_exp_wh", "e_meas_all_wh",
-    "e_exp_all_wh", "e_exp_gap_wh", "e_ledger_meas_wh", "e_ledger_exp_wh",
+    "refg_wh", "refgt_wh", "refgb_wh", "refgtb_wh", "w_base", "w_up", "e_base_exp_wh",
+    "e_down_exp_wh", "e_meas_all_wh", "e_exp_all_wh", "e_exp_gap_wh", "e_ledger_meas_wh",
+    "e_ledger_exp_wh",
 )
 
 
@@ -109,9 +113,17 @@ class Settings:
     sensor_fault_fallback : inside sensor-fault events use the modelled plane-of-array
         irradiance for the reference yield and the expected power from it (true); counted
         as model_poa_intervals and model_poa_expected_kwh
+    pr_temp_basis : the temperature of the temperature-corrected PR: "module" (default), the
+        measured back-of-module temperature of IEC 61724-1's form C_k = 1 + gamma (T_mod,k -
+        T_ref) (where none is measured: the model's cell temperature less the SAPM
+        back-to-cell difference, King et al. 2004 eq. 12), or "cell", the model's cell
+        temperature (from the measured module temperature plus that difference where there is
+        one)
     pr_temp_ref_c : T_ref of the temperature-corrected PR [C] (25), or "annual" for the
-        irradiance-weighted mean cell temperature (then equal to the weather-corrected PR)
-    t_cell_typ_avg_c : T_cell_typ_avg of the weather-corrected PR [C] (default: from the data)
+        irradiance-weighted mean cell temperature (with ``pr_temp_basis = "cell"`` then equal
+        to the weather-corrected PR)
+    t_cell_typ_avg_c : T_cell_typ_avg of the weather-corrected PR [C] (default: from the
+        site's data, with a note that it is not a typical year's)
     bootstrap_samples, confidence, seed : the day-block bootstrap (1000, 0.95, 61724)
     modelled_poa_uncertainty_pct : expanded uncertainty of modelled (transposed) irradiance
         [%] (5, common practice)
@@ -128,6 +140,7 @@ class Settings:
     exclude_curtailment: bool = True
     exclude_grid_outages: bool = False
     sensor_fault_fallback: bool = True
+    pr_temp_basis: str = "module"  # IEC 61724-1 module-temperature form, or "cell"
     pr_temp_ref_c: float | str = 25.0  # or "annual": T_ref = t_cell_typ_avg_c
     t_cell_typ_avg_c: float | None = None  # None: from the data
     bootstrap_samples: int = 1000
@@ -136,6 +149,16 @@ class Settings:
     poa_uncertainty_pct: float = 3.0
     poa_uncertainty_source: str = "IEC 61724-1 class A (from memory)"
     modelled_poa_uncertainty_pct: float = 5.0  # common practice, no source
+
+
+def sensor_uncertainty(site: Site) -> tuple[float, str]:
+    """Expanded (95 %) calibration uncertainty of the irradiance sensor [%] and its source:
+    ``[model] poa_uncertainty_pct``, else that of ``[model] sensor_class``."""
+    model = site.model
+    if model.poa_uncertainty_pct is not None:
+        return model.poa_uncertainty_pct, "site file model.poa_uncertainty_pct"
+    return (SENSOR_CLASS_UNCERTAINTY_PCT[model.sensor_class],
+            f"IEC 61724-1 class {model.sensor_class} (from memory)")
 
 
 def load_settings(site: Site) -> Settings:
@@ -157,12 +180,7 @@ def load_settings(site: Site) -> Settings:
     samples = t.get("bootstrap_samples", int, d.bootstrap_samples)
     if not 100 <= samples <= 100_000:
         raise t._err("bootstrap_samples", f"{samples} is outside the range 100 to 100000")
-    model = site.model
-    if model.poa_uncertainty_pct is not None:
-        u_pct, u_source = model.poa_uncertainty_pct, "site file model.poa_uncertainty_pct"
-    else:
-        u_pct = SENSOR_CLASS_UNCERTAINTY_PCT[model.sensor_class]
-        u_source = f"IEC 61724-1 class {model.sensor_class} (from memory)"
+    u_pct, u_source = sensor_uncertainty(site)
     s = Settings(
         min_poa_wm2=t.number("min_poa_wm2", d.min_poa_wm2, lo=0, hi=1500),
         availability_min_poa_wm2=t.number(
@@ -176,6 +194,7 @@ def load_settings(site: Site) -> Settings:
         exclude_curtailment=t.get("exclude_curtailment", bool, d.exclude_curtailment),
         exclude_grid_outages=t.get("exclude_grid_outages", bool, d.exclude_grid_outages),
         sensor_fault_fallback=t.get("sensor_fault_fallback", bool, d.sensor_fault_fallback),
+        pr_temp_basis=t.get("pr_temp_basis", str, d.pr_temp_basis, TEMP_BASES),
         pr_temp_ref_c=temp_ref,
         t_cell_typ_avg_c=t.number("t_cell_typ_avg_c", None, lo=-40, hi=90),
         bootstrap_samples=samples,
@@ -275,7 +294,7 @@ def ratios(s: Mapping[str, Any], temp_ref_c: float, t_cell_typ_avg_c: float) -> 
             "ls_h": ya - yf,
             "pr": _div(s["e_meas_wh"], s["ref_wh"]),
             "pr_temp_corrected": _div(s["e_meas_wh"], corrected_reference(
-                s["ref_wh"], s["refg_wh"], s["refgt_wh"], temp_ref_c)),
+                s["ref_wh"], s["refgb_wh"], s["refgtb_wh"], temp_ref_c)),
             "pr_weather_corrected": _div(s["e_meas_wh"], corrected_reference(
                 s["ref_wh"], s["refg_wh"], s["refgt_wh"], t_cell_typ_avg_c)),
             "epi": _div(s["e_meas_wh"], s["e_exp_wh"]),
@@ -425,6 +444,9 @@ def _inverter_table(site: Site, settings: Settings) -> pd.DataFrame:
         "inverter_id": [i.id for i in site.inverters],
         "down_w": [i.ac_kw * 1000.0 * settings.availability_down_below_pct / 100.0
                    for i in site.inverters],
+        # P0-weighted SAPM back-to-cell difference at 1000 W/m2 [C] (King et al. 2004, table 1)
+        "delta_t_c": [sum(a.dc_kwp * ph.sapm_parameters(a.mounting, a.construction)[2]
+                          for a in i.arrays) / i.dc_kwp for i in site.inverters],
     })
 
 
@@ -467,6 +489,7 @@ def daily_sums(
             "min_poa": settings.min_poa_wm2, "avail_min_poa": settings.availability_min_poa_wm2,
             "exclude_flags": list(settings.exclude_flags), "analysis": analysis_id,
             "downtime_kinds": [k.name for k in kinds.TABLE if k.downtime],
+            "temp_basis": settings.pr_temp_basis,
         }).df()
     except duckdb.CatalogException as exc:
         raise DataError(f"no aligned series in the database ({exc}); run the model first")\
@@ -521,6 +544,8 @@ def scope_sums(daily: pd.DataFrame, site: Site) -> pd.DataFrame:
     d["ref_sensor_wh"] = d["p0_w"] * d["h_sensor_whm2"] / G_STC
     d["refg_wh"] = g * d["p0_w"] * d["h_t_whm2"] / G_STC
     d["refgt_wh"] = g * d["p0_w"] * d["ht_whm2c"] / G_STC
+    d["refgb_wh"] = g * d["p0_w"] * d["h_tb_whm2"] / G_STC
+    d["refgtb_wh"] = g * d["p0_w"] * d["htb_whm2c"] / G_STC
     d["w_base"] = d["p0_w"] * d["n_base"]
     d["w_up"] = d["p0_w"] * d["n_up"]
     d["scope"] = "inverter:" + d["inverter_id"].astype(str)
@@ -697,8 +722,9 @@ def typical_cell_temperature(
     Given in the site file, or the irradiance-weighted mean cell temperature of the 365 days
     before ``end`` (or of all data there if less); the analysis takes ``end`` at the end of the
     whole history, so every view uses the same value. Dierauf et al. 2013,
-    NREL/TP-5200-57991, ask for a year of typical weather; a year of the site's own data is the
-    nearest we have.
+    NREL/TP-5200-57991, ask for a year of typical weather, modelled for the site; perfcheck
+    has no typical-year weather of the site, so without the setting it falls back on the
+    site's own data, which the weather-corrected PR then judges, and the source says so.
     """
     if settings.t_cell_typ_avg_c is not None:
         return settings.t_cell_typ_avg_c, "given (metrics.t_cell_typ_avg_c)"
@@ -708,7 +734,10 @@ def typical_cell_temperature(
     if t is None:
         return 25.0, "no cell temperatures in the data; 25 C used"
     days = (pd.Timestamp(last) - pd.Timestamp(first)) / pd.Timedelta(days=1)
-    return float(t), f"irradiance-weighted mean of {days:.0f} days of data before the end"
+    return float(t), (f"irradiance-weighted mean of {days:.0f} days of the site's own data "
+                      "before the end, the data this PR judges, not a typical year: for a "
+                      "contract test state metrics.t_cell_typ_avg_c from a typical-year "
+                      "simulation of the site")
 
 
 def compute(
@@ -724,16 +753,10 @@ def compute(
 
     ``t_typ`` is T_cell_typ_avg [C] and where it came from (:func:`typical_cell_temperature`).
     """
-    sums = scope_sums(daily, site)
+    days, cube, p0, scopes = _cube(daily, site)
     t_typ_c, t_typ_source = t_typ
-    temp_ref = t_typ_c if settings.pr_temp_ref_c == "annual" else float(settings.pr_temp_ref_c)
-    temp_refs = (temp_ref, t_typ_c)
-    scopes = ["plant", *(f"inverter:{i.id}" for i in site.inverters)]
-    sums = sums.assign(_order=sums["scope"].map({sc: k for k, sc in enumerate(scopes)}))
-    sums = sums.sort_values(["day", "_order"])
-    days = list(dict.fromkeys(sums["day"]))
-    cube = sums[list(ADDITIVE)].to_numpy(dtype=float).reshape(len(days), len(scopes), -1)
-    p0 = sums["p0_w"].to_numpy(dtype=float)[: len(scopes)]
+    temp_refs = _temp_refs(settings, t_typ_c)
+    temp_ref = temp_refs[0]
     tz = site.tz
 
     def bounds(first: dt.date, after: dt.date) -> dict[str, Any]:
@@ -762,15 +785,46 @@ def compute(
                    lambda d: d.replace(year=d.year + 1), True)
     daily_rows = group(lambda d: d, "date", lambda d: d.isoformat(),
                        lambda d: d + dt.timedelta(days=1), False)
-    p_start, p_end = start.tz_convert(tz), end.tz_convert(tz)
-    label = {"start": p_start.isoformat(), "end": p_end.isoformat(),
-             "_key": (1, p_start.toordinal(), p_end.toordinal()),
-             "days": round((p_end - p_start) / pd.Timedelta(days=1))}
-    period = summarise(cube, p0, scopes, label, settings, temp_refs, True)
+    period = _period(cube, p0, scopes, start, end, site, settings, temp_refs)
     return {
         "settings": settings_record(settings, temp_ref, t_typ_c, t_typ_source),
         "metrics": {"monthly": monthly, "yearly": yearly, "period": period, "daily": daily_rows},
     }
+
+
+def _cube(daily: pd.DataFrame, site: Site
+          ) -> tuple[list[Any], np.ndarray, np.ndarray, list[str]]:
+    """Days, the (day, scope, ADDITIVE) cube of daily sums, P0 per scope [W] and the scopes."""
+    sums = scope_sums(daily, site)
+    scopes = ["plant", *(f"inverter:{i.id}" for i in site.inverters)]
+    sums = sums.assign(_order=sums["scope"].map({sc: k for k, sc in enumerate(scopes)}))
+    sums = sums.sort_values(["day", "_order"])
+    days = list(dict.fromkeys(sums["day"]))
+    cube = sums[list(ADDITIVE)].to_numpy(dtype=float).reshape(len(days), len(scopes), -1)
+    return days, cube, sums["p0_w"].to_numpy(dtype=float)[: len(scopes)], scopes
+
+
+def _temp_refs(settings: Settings, t_typ_c: float) -> tuple[float, float]:
+    """(T_ref of the temperature-corrected PR, T_cell_typ_avg) [C]."""
+    annual = settings.pr_temp_ref_c == "annual"
+    return (t_typ_c if annual else float(settings.pr_temp_ref_c), t_typ_c)
+
+
+def _period(cube: np.ndarray, p0: np.ndarray, scopes: list[str], start: pd.Timestamp,
+            end: pd.Timestamp, site: Site, settings: Settings, temp_refs: tuple[float, float]
+            ) -> dict[str, Any]:
+    p_start, p_end = start.tz_convert(site.tz), end.tz_convert(site.tz)
+    label = {"start": p_start.isoformat(), "end": p_end.isoformat(),
+             "_key": (1, p_start.toordinal(), p_end.toordinal()),
+             "days": round((p_end - p_start) / pd.Timedelta(days=1))}
+    return summarise(cube, p0, scopes, label, settings, temp_refs, True)
+
+
+def period_summary(daily: pd.DataFrame, site: Site, start: pd.Timestamp, end: pd.Timestamp,
+                   settings: Settings, t_typ: tuple[float, str]) -> dict[str, Any]:
+    """The ``period`` row of :func:`compute` alone (e.g. a contract year for the guarantees)."""
+    _, cube, p0, scopes = _cube(daily, site)
+    return _period(cube, p0, scopes, start, end, site, settings, _temp_refs(settings, t_typ[0]))
 
 
 def period(

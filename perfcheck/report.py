@@ -30,7 +30,8 @@ METHODS: list[tuple[str, str]] = [
     ("Reference, array and final yields; performance ratio PR = Yf / Yr",
      "IEC 61724-1 (yields and PR), vocabulary of IEC TS 61836"),
     ("Temperature-corrected PR (T_ref 25 C and the annual-average-temperature variant)",
-     "IEC 61724-1, temperature-corrected PR"),
+     "IEC 61724-1, temperature-corrected PR, on the module temperature by default or the cell "
+     "temperature (setting pr_temp_basis)"),
     ("Weather-corrected PR with an irradiance-weighted typical cell temperature",
      "Dierauf et al. 2013, NREL/TP-5200-57991"),
     ("Energy performance index EPI = measured / expected energy",
@@ -40,14 +41,18 @@ METHODS: list[tuple[str, str]] = [
     ("Intervals on PR and EPI", "day-block bootstrap (whole days resampled, seeded) plus the "
      "irradiance sensor's stated uncertainty (IEC 61724-1 sensor class)"),
     ("Underperformance periods", "robust regression of measured on expected power (statsmodels) "
-     "on a reference window; sequential test on standardised residuals"),
+     "on a reference window; CUSUM (Page 1954) on the AR(1) innovations of the daily "
+     "residuals, scaled by their long-run variance"),
     ("Soiling", "Deceglie, Micheli & Muller 2018, IEEE J. Photovolt. 8(2):547 (stochastic rate "
      "and recovery, in its spirit)"),
-    ("Degradation", "year-on-year method, Jordan et al. 2018, IEEE J. Photovolt. 8(2):525"),
+    ("Degradation", "year-on-year method, Jordan et al. 2018, IEEE J. Photovolt. 8(2):525; "
+     "interval: bootstrap of calendar-month blocks of pairs (Carlstein 1986) plus the irradiance "
+     "sensor's stability, in quadrature (GUM)"),
     ("Clipping and curtailment", "Perry, Muller & Anderson 2021, NREL/CP-5K00-78954; operation "
      "limited by inverter or interconnection kept apart as in IEC TS 61724-2"),
     ("Guarantee tests", "one-sided test at the stated confidence level, standard error taken from "
-     "the metric's interval under a normal approximation"),
+     "the metric's interval under a normal approximation; per contract year, on complete "
+     "contract years only"),
 ]
 
 CAUTIONS = [

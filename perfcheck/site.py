@@ -158,6 +158,7 @@ class Model:
     iam: str = "physical"
     poa_uncertainty_pct: float | None = None  # default from the sensor class
     sensor_class: str = "A"
+    sensor_stability_pct_per_year: float | None = None  # default from the sensor class
 
 
 @dataclass(frozen=True)
@@ -718,6 +719,8 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         iam=mt.get("iam", str, "physical", IAM_MODELS),
         poa_uncertainty_pct=mt.number("poa_uncertainty_pct", None, lo=0, hi=50),
         sensor_class=mt.get("sensor_class", str, "A", ("A", "B", "C")),
+        sensor_stability_pct_per_year=mt.number("sensor_stability_pct_per_year", None, lo=0,
+                                                hi=20),
     )
     mt.done()
 

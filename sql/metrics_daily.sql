@@ -16,7 +16,9 @@
 -- flags; used (for yields, PR, EPI) when daylight, valid, outside the exclusion windows and its
 -- irradiance is at least $min_poa; in the availability base when daylight, valid, outside the
 -- windows and its irradiance is at least $avail_min_poa. Energy sums are in Wh, irradiation in
--- Wh/m2, irradiation times cell temperature in Wh/m2*C. Sums are compensated (fsum), so they do
+-- Wh/m2, irradiation times cell temperature in Wh/m2*C (h_t, ht: cell temperature, for the
+-- weather-corrected PR; h_tb, htb: the temperature of $temp_basis, for the
+-- temperature-corrected PR). Sums are compensated (fsum), so they do
 -- not depend on the order in which DuckDB's threads add the rows: a re-run from an evidence
 -- bundle must reproduce every digit.
 WITH dc AS (
@@ -69,6 +71,8 @@ r AS (
         CASE WHEN w.fallback THEN w.poa_modelled_wm2 ELSE m.poa END AS g,
         CASE WHEN w.fallback THEN coalesce(w.temp_cell_modelled_c, w.temp_cell_c)
              ELSE w.temp_cell_c END AS t,
+        w.temp_module_c AS t_mod,
+        i.delta_t_c,
         coalesce(w.poa_source = 'sensor', false) AND NOT w.fallback AS sensor,
         w.fallback,
         w.excluded,
@@ -98,7 +102,12 @@ r AS (
 u AS (
     SELECT *,
         daylight AND valid AND NOT excluded AND g >= $min_poa AS used,
-        daylight AND valid AND NOT excluded AND g >= $avail_min_poa AS base
+        daylight AND valid AND NOT excluded AND g >= $avail_min_poa AS base,
+        -- the temperature of the temperature-corrected PR ($temp_basis): the measured module
+        -- temperature (IEC 61724-1), else the cell temperature less the SAPM back-to-cell
+        -- difference delta_t_c G/1000 (King et al. 2004, eq. 12); or the cell temperature
+        CASE WHEN $temp_basis = 'module' THEN coalesce(t_mod, t - delta_t_c * g / 1000.0)
+             ELSE t END AS tb
     FROM r
 )
 SELECT
@@ -119,6 +128,8 @@ SELECT
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND sensor), 0) AS h_sensor_whm2,
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS h_t_whm2,
     coalesce(fsum(g * t * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS ht_whm2c,
+    coalesce(fsum(g * dt_h) FILTER (WHERE used AND tb IS NOT NULL), 0) AS h_tb_whm2,
+    coalesce(fsum(g * tb * dt_h) FILTER (WHERE used AND tb IS NOT NULL), 0) AS htb_whm2c,
     count(*) FILTER (WHERE base) AS n_base,
     count(*) FILTER (WHERE base AND NOT is_down) AS n_up,
     coalesce(fsum(p_exp * dt_h) FILTER (WHERE base), 0) AS e_base_exp_wh,

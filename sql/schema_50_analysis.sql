@@ -82,6 +82,8 @@ CREATE TABLE IF NOT EXISTS analysis_daily (
     h_sensor_whm2     DOUBLE NOT NULL,
     h_t_whm2          DOUBLE NOT NULL,
     ht_whm2c          DOUBLE NOT NULL,
+    h_tb_whm2         DOUBLE,
+    htb_whm2c         DOUBLE,
     n_base            DOUBLE NOT NULL,
     n_up              DOUBLE NOT NULL,
     e_base_exp_wh     DOUBLE NOT NULL,
@@ -93,6 +95,11 @@ CREATE TABLE IF NOT EXISTS analysis_daily (
     e_ledger_exp_wh   DOUBLE NOT NULL,
     n_nominal         DOUBLE NOT NULL
 );
+
+-- Databases made before the temperature basis of the corrected PR get its sums (NULL in the
+-- analyses stored before; the next analysis fills them).
+ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS h_tb_whm2 DOUBLE;
+ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS htb_whm2c DOUBLE;
 
 -- Which earlier findings a new analysis changed, and why.
 CREATE TABLE IF NOT EXISTS analysis_revisions (

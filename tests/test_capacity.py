@@ -75,16 +75,18 @@ def test_reporting_conditions_match_a_hand_computation():
                     rtol=1e-12)
 
 
-def _window(performance: float):
-    site = make_site(n_inverters=2)
+def _window(performance: float, **site_kwargs):
+    site = make_site(n_inverters=2, **site_kwargs)
     frame = synthetic_aligned(site, "2025-06-01", "2025-06-22", performance=performance,
                               noise=0.01, cloudiness=0.5)
     return site, frame
 
 
 def test_capacity_ratio_of_a_known_shortfall():
-    # invented truth: measured = 0.96 x expected (performance 0.85 x 0.96 against 0.85)
-    site, frame = _window(0.85 * 0.96)
+    # invented truth: measured = 0.96 x expected (performance 0.85 x 0.96 against 0.85),
+    # measured with an irradiance sensor of stated 0.5 % calibration uncertainty (invented; a
+    # class A sensor's 3 % would leave both guarantees inside the interval, see the next test)
+    site, frame = _window(0.85 * 0.96, model={"poa_uncertainty_pct": 0.5})
     res = capacity.run_test(frame, site, guaranteed_ratio=0.95)
     r = res["result"]
     assert r["ratio_ci_low"] <= 0.96 <= r["ratio_ci_high"]
@@ -97,6 +99,29 @@ def test_capacity_ratio_of_a_known_shortfall():
                          "daytime (irradiance above 0)", "all inverters running", "no clipping",
                          "no curtailment", "stable sky"]
     assert res["points"] >= 50
+
+
+def test_a_biased_sensor_is_not_a_significant_fail():
+    # Invented truth: a healthy plant (measured = expected with the true irradiance) logged by a
+    # plane-of-array sensor reading 3 % high; the expected power is computed from the sensor's
+    # irradiance, so it is 3 % high too (linear in irradiance, temperature effect of the bias
+    # left out) and the ratio is 1/1.03 = 0.9709, not 1: the bias does not cancel. The sensor's
+    # calibration uncertainty, 3 % for IEC 61724-1 class A (from memory), must carry the
+    # interval up to the true ratio 1 (a 3 % bias is the edge of that sensor's 95 % band:
+    # 0.9709 x 1.03 = 1.000), so a guarantee of 0.98 is failed but not significantly.
+    site, frame = _window(0.85)
+    frame["poa_wm2"] *= 1.03
+    frame["expected_ac_w"] *= 1.03
+    frame["potential_ac_w"] *= 1.03
+    r = capacity.run_test(frame, site, guaranteed_ratio=0.98)["result"]
+    assert_allclose(r["ratio"], 1 / 1.03, atol=0.003)
+    assert r["irradiance_uncertainty_pct"] == 3.0
+    assert r["ratio_ci_high"] >= 0.999
+    assert not r["passed"] and not r["significant"]
+    # the regressions alone would call it significant: that is the interval the sensor widens
+    assert r["ratio_regression_ci_high"] < 0.98
+    # relative half-width: sqrt(regression^2 + 0.03^2), at least the sensor's 3 % (GUM 5.1.6)
+    assert r["ratio_ci_high"] / r["ratio"] - 1 >= 0.03
 
 
 def test_filters_remove_clipping_curtailment_and_outages():

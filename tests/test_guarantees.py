@@ -73,15 +73,47 @@ def test_small_shortfall_inside_interval_is_not_shown(tmp_path):
     assert guarantees.evaluate(site, contract_result(0.81, 0.795, 0.825))[0]["finding"] == "met"
 
 
-def test_contract_years_weighted_by_days(tmp_path):
+def test_incomplete_contract_years_are_not_yet_testable(tmp_path):
     site = write_site(tmp_path)
-    # 2025-01-01 .. 2025-07-01 local: 90 days in contract year 1 (to 2025-04-01), 91 in year 2
+    # Data from 2025-01-01 to 2025-07-01 local only: contract year 1 (2024-04-01 .. 2025-04-01,
+    # 365 days) is covered for 90 days less the DST hour (89.958 days, share 0.246461), year 2
+    # (2025-04-01 .. 2026-04-01, 365 days) for 91 days (share 0.249315): neither is complete,
+    # so neither promise is tested, and no blend of 0.80 and 0.795 is made.
     r = contract_result()
     r["period"] = {"start": "2025-01-01T00:00:00+01:00", "end": "2025-07-01T00:00:00+02:00"}
-    perf = guarantees.evaluate(site, r)[0]
-    # promised = (90 * 0.80 + 91 * 0.795) / 181 = 0.797486 (DST hour makes it 89.96 / 91.0 days)
-    assert perf["contract_years"] == [1, 2]
-    assert_allclose(perf["promised"], 0.797486, atol=2e-6)
+    perf = [f for f in guarantees.evaluate(site, r) if f["kind"] == "performance"]
+    assert [f["contract_years"] for f in perf] == [[1], [2]]
+    assert [f["promised"] for f in perf] == [0.80, 0.795]
+    assert [f["finding"] for f in perf] == ["not_yet_testable"] * 2
+    assert_allclose([f["covered_share"] for f in perf], [89.958333 / 365, 91 / 365], atol=1e-6)
+    assert perf[0]["measured"] is None and perf[0]["energy_short_kwh"] is None
+    assert "25% of the contract year covered" in perf[0]["statement"]
+
+
+def test_each_complete_contract_year_tested_on_the_whole_year(tmp_path):
+    site = write_site(tmp_path)
+    # A month's view (June 2024) of a history covering contract years 1 and 2 whole: the
+    # annual promise is tested on contract year 1's metrics, never on the month's.
+    r = contract_result()
+    r["period"] = {"start": "2024-06-01T00:00:00+02:00", "end": "2024-07-01T00:00:00+02:00"}
+    r["analysis"] = {"history_start": "2024-04-01T00:00:00+02:00",
+                     "history_end": "2026-04-01T00:00:00+02:00"}
+    r["metrics"]["period"]["pr_temp_corrected"] = 0.60  # the month: not what is tested
+    asked = []
+
+    def year(a, b):
+        asked.append((a.isoformat(), b.isoformat()))
+        return contract_result(0.81, 0.80, 0.82)["metrics"]["period"]
+
+    found = guarantees.evaluate(site, r, year)
+    perf = [f for f in found if f["kind"] == "performance"]
+    assert asked[0] == YEAR1 and len(perf) == 1
+    assert perf[0]["measured"] == 0.81 and perf[0]["finding"] == "met"
+    assert perf[0]["covered_share"] == 1.0
+    # the whole history: each year with its own promise (0.80, then 0.795)
+    r["period"] = {"start": YEAR1[0], "end": "2026-04-01T00:00:00+02:00"}
+    perf = [f for f in guarantees.evaluate(site, r, year) if f["kind"] == "performance"]
+    assert [(f["contract_year"], f["promised"]) for f in perf] == [(1, 0.80), (2, 0.795)]
 
 
 WARRANTY = """
@@ -131,6 +163,14 @@ def test_no_rate_means_not_enough_data(tmp_path):
         "rate_pct_per_year": None, "status": "not enough data"}})
     assert w["finding"] == "not_enough_data"
     assert w["energy_short_kwh"] is None
+
+
+def test_warranted_loss_between_the_ages_of_the_pairs():
+    # derived from the warranted curve (2 % in year 1, then 0.55 %/yr): pairs whose earlier
+    # day is at age t in [0, 1] compare curve(t) = 100 - 2t with curve(t + 1) = 98 - 0.55t,
+    # a loss of 2 - 1.45t, mean 2 - 1.45/2 = 1.275 %/yr; past year 1 it is 0.55 %/yr.
+    assert_allclose(guarantees.warranted_yoy_loss(0.0, 1.0, 2.0, 0.55), 1.275, atol=1e-12)
+    assert_allclose(guarantees.warranted_yoy_loss(3.0, 4.0, 2.0, 0.55), 0.55, atol=1e-12)
 
 
 def test_warranted_curve_values():

@@ -22,6 +22,7 @@ def _hand_rows(site) -> pd.DataFrame:
         expected_ac_w=[60_000.0, 50_000.0],
         poa_wm2=[800.0, 600.0],
         temp_cell_c=[50.0, 40.0],
+        temp_module_c=[50.0, 40.0],  # the same, so both temperature bases give the example
         sun_zenith_deg=[35.0, 33.0],
     )
 
@@ -62,6 +63,31 @@ def test_temperature_corrected_pr_identity_at_weighted_mean_temperature():
     p = _hand_metrics({"pr_temp_ref_c": 35.0, "t_cell_typ_avg_c": t_ref})
     assert_allclose(p["pr_weather_corrected"], p["pr"], rtol=1e-6)
     assert_allclose(p["pr_temp_corrected"], 0.85075, atol=5e-6)  # T_ref 35 C, as above
+
+
+def _basis_metrics(basis: str, temp_module: list[float]) -> dict:
+    site = make_site(metrics={"min_coverage": 0.0, "pr_temp_basis": basis})
+    rows = _hand_rows(site).assign(temp_cell_c=[52.4, 41.8], temp_module_c=temp_module)
+    start, end = periods.day_period(site, dt.date(2025, 6, 15), dt.date(2025, 6, 15))
+    return metrics.period(connect_with(rows), site, start, end)["metrics"]["period"]
+
+
+def test_temperature_basis_module_or_cell():
+    # The REFERENCES.md example (D, IEC 61724-1 formula) with T = [50, 40] C as the measured
+    # back-of-module temperature; the cell temperature is T_mod + 3 G/1000 = [52.4, 41.8] C
+    # (SAPM open rack, King et al. 2004 eq. 12). Module basis (IEC 61724-1's form, default):
+    # PR' = 0.887850 as in the example. Cell basis: C = 1 - 0.004 (52.4 - 25) = 0.8904 and
+    # 1 - 0.004 (41.8 - 25) = 0.9328; PR' = 114 / (100 (0.8 0.8904 + 0.6 0.9328)) = 114 /
+    # 127.2 = 0.896226 (hand arithmetic), about 0.9 % higher.
+    assert_allclose(_basis_metrics("module", [50.0, 40.0])["pr_temp_corrected"], 0.88785,
+                    atol=5e-6)
+    assert_allclose(_basis_metrics("cell", [50.0, 40.0])["pr_temp_corrected"], 0.896226,
+                    atol=5e-6)
+    # No module temperature measured: the module basis takes the cell temperature less the
+    # SAPM difference of the site's open-rack glass/polymer array, 3 C at 1000 W/m2 (King et
+    # al. 2004, table 1): [52.4 - 2.4, 41.8 - 1.8] = [50, 40] C, the example again.
+    assert_allclose(_basis_metrics("module", [np.nan, np.nan])["pr_temp_corrected"], 0.88785,
+                    atol=5e-6)
 
 
 def test_array_yield_and_losses_where_dc_is_measured():
@@ -250,6 +276,8 @@ def test_plant_reference_yield_is_p0_weighted_over_orientations():
         ({"exclude_flags": ["stuck", "odd"]}, "hollerbach.toml: metrics.exclude_flags[1]: "
                                               "'odd' is not one of"),
         ({"bootstrap_samples": 5}, "hollerbach.toml: metrics.bootstrap_samples: 5 is outside"),
+        ({"pr_temp_basis": "back"}, "hollerbach.toml: metrics.pr_temp_basis: 'back' is not one "
+                                    "of"),
     ],
 )
 def test_metrics_section_errors_name_the_key(metrics_table, message):
@@ -260,7 +288,9 @@ def test_metrics_section_errors_name_the_key(metrics_table, message):
 
 
 def test_annual_reference_temperature_option():
-    site = make_site(metrics={"pr_temp_ref_c": "annual"})
+    # with the cell-temperature basis, T_ref = T_cell_typ_avg makes the corrected PR the
+    # weather-corrected one (Dierauf et al. 2013 with delta = 100 gamma)
+    site = make_site(metrics={"pr_temp_ref_c": "annual", "pr_temp_basis": "cell"})
     con = connect_with(synthetic_aligned(site, "2025-06-01", "2025-06-11"))
     start, end = metrics.resolve_period(con, site, None, None)
     out = metrics.period(con, site, start, end)

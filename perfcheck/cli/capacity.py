@@ -49,7 +49,9 @@ def format_report(doc: dict[str, Any]) -> str:
         f"({r['measured_capacity_kw_ci_low']:.2f} to {r['measured_capacity_kw_ci_high']:.2f})",
         f"Expected capacity at RC: {r['expected_capacity_kw']:.2f} kW "
         f"({r['expected_capacity_kw_ci_low']:.2f} to {r['expected_capacity_kw_ci_high']:.2f})",
-        f"Ratio: {r['ratio']:.4f} ({r['ratio_ci_low']:.4f} to {r['ratio_ci_high']:.4f}); "
+        f"Ratio: {r['ratio']:.4f} ({r['ratio_ci_low']:.4f} to {r['ratio_ci_high']:.4f}, with "
+        f"the irradiance sensor's {r['irradiance_uncertainty_pct']:g} % calibration "
+        "uncertainty); "
         f"guaranteed {r['guaranteed_ratio']:.4f}: {'PASS' if r['passed'] else 'FAIL'}"
         + ("" if r["significant"] else " (not significant: the interval straddles it)"),
         "",

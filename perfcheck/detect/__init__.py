@@ -196,7 +196,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
                   len(w.inverters), axis=1), index=w.index, columns=w.inverters)
     pi_plant = _plant_pi(w, keep_clear, m_clean)
     block, ev, fp = degradation.detect(w, pi_plant, site.losses.degradation_pct_per_year,
-                                       pd.Timestamp(site.commissioned), rel_sigma)
+                                       pd.Timestamp(site.commissioned), rel_sigma, site.model)
     events += ev
     prints += fp
     t = lap("degradation", t)
