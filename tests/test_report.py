@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 from click.testing import CliRunner
 from report_fixtures import checked as report_fixtures_checked_with
-from report_fixtures import example_check, rendered_example, write_site
+from report_fixtures import example_aligned, example_check, rendered_example, write_site
 
 from perfcheck import evidence, figures, periods, report
 from perfcheck.cli import main
@@ -262,3 +262,45 @@ def test_bundle_outputs_carry_no_code_values(written, tmp_path, monkeypatch):
 
 def report_fixtures_checked(site) -> dict:
     return report_fixtures_checked_with(site, example_check())
+
+
+def test_daily_energy_as_weeks_beyond_120_days():
+    # an invented 200-day frame: a bar per week (Monday to Sunday), axis from zero
+    long = example_aligned("2025-01-06", days=200, step_min=60)
+    fig = figures.fig_daily_energy(long, "Europe/Zurich")
+    ax = fig.axes[0]
+    assert "Weekly energy" in ax.get_title(loc="left") and ax.get_ylim()[0] == 0
+    assert len(ax.patches) == pytest.approx(200 / 7, abs=1.5)
+    weeks = figures.weekly_energy(figures.daily_energy(long, "Europe/Zurich"))
+    assert (weeks.index.day_of_week == 0).all()  # labelled by their Monday
+
+
+def test_loss_chart_marks_its_broken_axis():
+    losses = example_check()["losses"]
+    ax = figures.fig_loss_attribution(losses).axes[0]
+    assert ax.get_ylim()[0] > 0
+    assert any("axis broken" in t.get_text() for t in ax.texts)
+
+
+def test_sky_map_slices_only_where_the_period_holds_them():
+    # common practice: a slice needs about 30 days; a month gets one map, 200 days four
+    assert figures.sky_slices(example_aligned(days=30)) == 1
+    assert figures.sky_slices(example_aligned("2025-01-06", days=200, step_min=60)) == 4
+    assert len(figures.fig_shading_map(example_aligned(days=30)).axes) == 2  # map, colour bar
+
+
+def test_scatter_has_a_marker_per_inverter_and_the_line_on_top():
+    ax = figures.fig_power_scatter(example_aligned()).axes[0]
+    line = next(ln for ln in ax.lines if ln.get_linestyle() == "--")
+    assert line.get_zorder() > max(c.get_zorder() for c in ax.collections)
+    texts = [t.get_text() for leg in [ax.get_legend(), *ax.artists] for t in leg.get_texts()]
+    assert "inverter INV1" in texts and "inverter INV2" in texts
+
+
+def test_shading_evidence_bins_in_degrees():
+    from perfcheck.detect import shading
+
+    # bin 27 of 10-degree azimuth bins is 270-280 degrees; bin 3 of 5-degree elevation 15-20
+    b = shading.labelled_bin({"az": 27, "el": 3, "p_value": 0.001}, 10.0, 5.0)
+    assert b == {"azimuth_from_deg": 270.0, "azimuth_to_deg": 280.0, "elevation_from_deg": 15.0,
+                 "elevation_to_deg": 20.0, "p_value": 0.001}
