@@ -175,7 +175,7 @@ def fig_loss_attribution(losses: dict) -> Figure:
     """From expected to measured energy: one bar per cause, unexplained last."""
     fig, (ax,) = _figure()
     _title(ax, "Where the expected energy went")
-    if not losses or losses.get("expected_kwh") is None:
+    if not losses or not losses.get("expected_kwh"):
         _note(ax, "no loss attribution in this period")
         return fig
     causes = [(k, v) for k, v in losses.get("by_cause_kwh", {}).items() if v]

@@ -468,6 +468,9 @@ def monthly_rows(monthly: list[dict]) -> list[list[str]]:
     rows = []
     for m in monthly:
         row = [m["month"]]
+        if m.get("valid_intervals") == 0:  # no data: no 0 kWh that reads like a measurement
+            rows.append(row + ["no data"] * (len(MONTHLY_COLUMNS) - 1) + ["0%"])
+            continue
         for key, _, spec in MONTHLY_COLUMNS:
             row.append(fmt_interval(m, key, spec) if f"{key}_ci_low" in m else
                        _v(m.get(key), spec))

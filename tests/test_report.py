@@ -304,3 +304,20 @@ def test_shading_evidence_bins_in_degrees():
     b = shading.labelled_bin({"az": 27, "el": 3, "p_value": 0.001}, 10.0, 5.0)
     assert b == {"azimuth_from_deg": 270.0, "azimuth_to_deg": 280.0, "elevation_from_deg": 15.0,
                  "elevation_to_deg": 20.0, "p_value": 0.001}
+
+
+@pytest.mark.slow
+def test_month_without_data_says_so_and_exits_1(demo_db, tmp_path):
+    """The invented demo plant's data end in April 2026: January 2030 has none."""
+    site = str(demo_db.site.path)
+    r = CliRunner().invoke(main, ["report", site, "--db", str(demo_db.db_path), "--month",
+                                  "2030-01", "--out", str(tmp_path / "o")])
+    assert r.exit_code == 1, r.output
+    assert "No data for January 2030: no feed reported: AC power of inverter inv1" in r.stderr
+    html = (tmp_path / "o" / "report.html").read_text(encoding="utf-8")
+    assert "No data for January 2030" in html and "Shortfall" in html
+    assert html.count('<div class="v">n/a</div>') == 4  # never a green zero shortfall
+    assert '<div class="v">0 kWh</div>' not in html
+    c = CliRunner().invoke(main, ["check", site, "--db", str(demo_db.db_path), "--from",
+                                  "2030-01-01", "--to", "2030-01-31"])
+    assert c.exit_code == 1 and "No data for January 2030" in c.stderr
