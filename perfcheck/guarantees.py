@@ -60,6 +60,8 @@ import pandas as pd
 from perfcheck.site import Site, Table
 
 METRICS = ("pr_temp_corrected", "epi", "pr", "pr_weather_corrected")
+METRIC_WORDS = {"pr_temp_corrected": "temperature-corrected PR", "epi": "EPI", "pr": "PR",
+                "pr_weather_corrected": "weather-corrected PR"}
 DAYS_PER_YEAR = 365.25
 _N = NormalDist()
 
@@ -270,9 +272,10 @@ def _performance(p: Performance, g: Guarantees, result: dict, site: Site,
         year = {"contract_year": k, "contract_years": [k], "covered_share": share,
                 "contract_year_start": a.isoformat(), "contract_year_end": b.isoformat()}
         promised = p.yearly[min(k, len(p.yearly)) - 1]
-        f = _finding(f"performance guarantee ({p.metric}), contract year {k}", "performance",
-                     promised, period.get(p.metric), period.get(f"{p.metric}_ci_low"),
-                     period.get(f"{p.metric}_ci_high"), level, g)
+        name = f"performance guarantee ({METRIC_WORDS[p.metric]}), contract year {k}"
+        f = _finding(name, "performance", promised, period.get(p.metric),
+                     period.get(f"{p.metric}_ci_low"), period.get(f"{p.metric}_ci_high"),
+                     level, g)
         f.update(year, metric=p.metric)
         e = period.get("measured_kwh") or 0.0
         f["energy_short_kwh"] = ratio_energy_short(e, promised, f["measured"])
@@ -381,7 +384,8 @@ def statement(f: dict) -> str:
                 f"{num(f['measured'])} %/yr")
         lo, hi = f.get("measured_ci_high"), f.get("measured_ci_low")
     else:
-        text = (f"{f['name'].capitalize()}: promised {num(f['promised'])}, measured "
+        name = f["name"]
+        text = (f"{name[:1].upper()}{name[1:]}: promised {num(f['promised'])}, measured "
                 f"{num(f['measured'])}")
         lo, hi = f.get("measured_ci_low"), f.get("measured_ci_high")
     if lo is not None and hi is not None:

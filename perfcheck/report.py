@@ -11,8 +11,10 @@ from __future__ import annotations
 
 import base64
 import csv
+import datetime as dt
 import io
 import json
+import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -37,7 +39,7 @@ METHODS: list[tuple[str, str]] = [
     ("Energy performance index EPI = measured / expected energy",
      "expected energy from the site model: Perez et al. 1990 transposition, SAPM cell temperature "
      "(King et al. 2004, SAND2004-3535), Dobos 2014 DC and inverter models"),
-    ("Availability, time- and energy-based", "IEC TS 63019:2019 (from memory)"),
+    ("Availability, time- and energy-based", "IEC TS 63019:2019"),  # clause from memory
     ("Intervals on PR and EPI", "day-block bootstrap (whole days resampled, seeded) plus the "
      "irradiance sensor's stated uncertainty (IEC 61724-1 sensor class)"),
     ("Underperformance periods", "robust regression of measured on expected power (statsmodels) "
@@ -79,6 +81,14 @@ MONTHLY_COLUMNS = [
     ("specific_yield_kwh_per_kwp", "Specific yield [kWh/kWp]", "{:.1f}"),
     ("coverage", "Coverage", "{:.0%}"),
 ]
+
+YIELDS_NOTE = ("Yr and Yf follow IEC 61724-1 over the intervals used for PR (daylight, valid data, "
+               "outside the exclusion windows such as curtailment); Yf = E_AC / P0 in hours, "
+               "the same unit as kWh per kWp. The specific yield is the whole period's AC "
+               "energy per kWp: every valid daylight interval, excluded ones included, and the "
+               "intervals without data filled with their expected energy times the EPI. It is "
+               "therefore at least Yf; the difference is the energy of the excluded intervals "
+               "and of the gaps.")
 
 LOSSES_LEAD = ("Where the expected energy went: every energy in this report is a sum over one "
                "ledger of the intervals that have both a measured and an expected value, so "
@@ -123,34 +133,130 @@ def report_settings(site: Site) -> ReportSettings:
 # --------------------------------------------------------------------------------------------
 # content
 
+# What a person reads for each stored quantity (see perfcheck.site.QUANTITIES).
+QUANTITY_WORDS = {
+    "ac_power_w": "AC power", "dc_power_w": "DC power", "energy_register_wh": "energy register",
+    "energy_interval_wh": "interval energy", "poa_wm2": "plane-of-array irradiance",
+    "ghi_wm2": "global horizontal irradiance", "dhi_wm2": "diffuse irradiance",
+    "dni_wm2": "direct normal irradiance", "temp_air_c": "air temperature",
+    "temp_module_c": "module temperature", "wind_speed_ms": "wind speed", "rain_mm": "rain",
+}
+
+# Unit suffixes of the names our JSON uses: (suffix, unit a person reads, factor).
+UNIT_SUFFIXES = (
+    ("_pct_of_expected", "% of expected", 1.0), ("_pct_per_year", "%/yr", 1.0),
+    ("_pct_per_day", "%/day", 1.0), ("_pct", "%", 1.0),
+    ("_kwh", "kWh", 1.0), ("_wh", "kWh", 1e-3), ("_kw", "kW", 1.0), ("_w", "kW", 1e-3),
+    ("_wm2", "W/m²", 1.0), ("_deg", "°", 1.0), ("_c", "°C", 1.0), ("_h", "h", 1.0),
+    ("_hours", "h", 1.0), ("_min", "min", 1.0), ("_s", "s", 1.0), ("_mm", "mm", 1.0),
+    ("_kwp", "kWp", 1.0), ("_ms", "m/s", 1.0),
+)
+LABEL_WORDS = {"p": "p-", "ci95": "95 % interval", "poa": "plane-of-array irradiance",
+               "ac": "AC", "dc": "DC", "epi": "EPI", "pr": "PR", "t": "T", "stc": "STC",
+               "min": "minimum", "typ": "typical", "avg": "average", "temp": "temperature",
+               "ref": "reference", "g": "irradiance"}
+
+
+def label_unit(key: str) -> tuple[str, str, float]:
+    """A JSON key as a label a person reads, its unit and the factor to that unit
+    (``limit_w`` -> ("Limit", "kW", 0.001))."""
+    unit, factor = "", 1.0
+    for suffix, u, f in UNIT_SUFFIXES:
+        if key.endswith(suffix) and len(key) > len(suffix):
+            key, unit, factor = key[: -len(suffix)], u, f
+            break
+    words = [LABEL_WORDS.get(w, w) for w in key.split("_")]
+    text = " ".join(words).replace("p- value", "p-value")
+    return text[:1].upper() + text[1:], unit, factor
+
+
+def number(v: float) -> str:
+    """A number for a person: three significant digits, thousands separators, never
+    scientific notation; below 0.0001 as "< 0.0001"."""
+    if v == 0 or not math.isfinite(v):
+        return "0" if v == 0 else "n/a"
+    if abs(v) < 1e-4:
+        return "< 0.0001" if v > 0 else "> -0.0001"
+    digits = max(0, 2 - math.floor(math.log10(abs(v))))
+    return f"{round(v, digits):,.{digits}f}"
+
+
+def plain_value(key: str, v: Any, tz: str) -> str | None:
+    """A value of the check document as a person reads it, with its unit; None for nested
+    values (lists, tables) that have no one-cell form."""
+    _, unit, factor = label_unit(key)
+    if v is None:
+        return "from the data"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, (int, float)):
+        text = str(v) if isinstance(v, int) and factor == 1 else number(v * factor)
+        return f"{text} {unit}".strip() if unit not in ("°",) else f"{text}{unit}"
+    if isinstance(v, str):
+        if len(v) >= 16 and v[4:5] == "-" and v[10:11] == "T":  # an ISO 8601 instant
+            return local_text(v, tz)
+        return v.replace("_", " ")
+    if isinstance(v, (list, tuple)) and all(isinstance(x, str) for x in v):
+        return ", ".join(x.replace("_", " ") for x in v) or "none"
+    return None
+
 
 def fmt_interval(rec: dict, key: str, spec: str = "{:.3f}") -> str:
-    """``value (low-high)`` or ``n/a``."""
+    """``value (low–high)``, the interval shown only when it is wider than the rounding;
+    ``n/a`` for no value."""
     v = rec.get(key)
     if v is None or (isinstance(v, float) and np.isnan(v)):
         return "n/a"
     lo, hi = rec.get(f"{key}_ci_low"), rec.get(f"{key}_ci_high")
     text = spec.format(v)
-    if lo is not None and hi is not None:
+    if lo is not None and hi is not None and {spec.format(lo), spec.format(hi)} != {text}:
         text += f" ({spec.format(lo)}–{spec.format(hi)})"
     return text
 
 
 def local_text(ts: str | pd.Timestamp, tz: str, with_time: bool = True) -> str:
+    """Site-local time with its UTC offset (``2025-06-07 08:50+02:00``), or the local date."""
     t = pd.Timestamp(ts).tz_convert(tz)
-    return f"{t:%Y-%m-%d %H:%M}" if with_time else f"{t:%Y-%m-%d}"
+    return t.isoformat(sep=" ", timespec="minutes") if with_time else f"{t:%Y-%m-%d}"
+
+
+def day_text(t: pd.Timestamp) -> str:
+    return f"{t.day} {t:%B %Y}"
+
+
+def _bounds(result: dict, tz: str) -> tuple[pd.Timestamp, pd.Timestamp]:
+    return (pd.Timestamp(result["period"]["start"]).tz_convert(tz),
+            pd.Timestamp(result["period"]["end"]).tz_convert(tz))
+
+
+def _is_month(start: pd.Timestamp, end: pd.Timestamp) -> bool:
+    return start.day == 1 and start.hour == 0 and end == start + pd.DateOffset(months=1)
 
 
 def period_text(result: dict, tz: str) -> str:
-    start = pd.Timestamp(result["period"]["start"]).tz_convert(tz)
-    end = pd.Timestamp(result["period"]["end"]).tz_convert(tz)
-    if start.day == 1 and end == start + pd.DateOffset(months=1) and start.hour == 0:
+    """``June 2025`` or ``1 January 2023 to 31 December 2024`` (the last day included)."""
+    start, end = _bounds(result, tz)
+    if _is_month(start, end):
         return f"{start:%B %Y}"
-    return f"{start:%d %B %Y} to {end - pd.Timedelta(seconds=1):%d %B %Y}"
+    return f"{day_text(start)} to {day_text(end - pd.Timedelta(seconds=1))}"
+
+
+def period_phrase(result: dict, tz: str) -> str:
+    """The period opening a sentence: ``In June 2025`` or ``From 1 January 2023 to …``."""
+    start, end = _bounds(result, tz)
+    return f"In {period_text(result, tz)}" if _is_month(start, end) else \
+        f"From {period_text(result, tz)}"
 
 
 def scope_words(scope: str) -> str:
     return f"inverter {scope.split(':', 1)[1]}" if scope.startswith("inverter:") else "the plant"
+
+
+def device_words(quantity: str, device: str) -> str:
+    what = QUANTITY_WORDS.get(quantity, quantity.replace("_", " "))
+    where = {"site": "at the site", "plant": "of the plant meter"}.get(device,
+                                                                    f"of inverter {device}")
+    return f"{what} {where}"
 
 
 def top_cause(result: dict) -> dict | None:
@@ -160,10 +266,38 @@ def top_cause(result: dict) -> dict | None:
     return max(events, key=lambda e: e["energy_loss_kwh"], default=None)
 
 
-def verdict(result: dict, tz: str) -> str:
-    """One sentence with the key numbers: energy, shortfall, EPI, PR, PR', top cause."""
+def no_data(result: dict) -> bool:
+    """Whether no interval of the period has a measured and an expected value."""
+    return result["metrics"]["period"].get("valid_intervals") == 0
+
+
+def stopped_text(feeds: list[dict], tz: str) -> str:
+    """Which feeds sent nothing in the period, grouped by when each last reported."""
+    stopped = [f for f in feeds if not f["readings"]]
+    if not feeds:
+        return "no feed has reported yet"
+    if not stopped:
+        return ("readings arrived, but no interval has both a measured power and an "
+                "irradiance to compare it with")
+    groups: dict[str, list[str]] = {}
+    for f in stopped:
+        last = "never" if pd.isna(f["last_ts"]) else local_text(f["last_ts"], tz)
+        groups.setdefault(last, []).append(device_words(f["quantity"], f["device"]))
+    lead = "no feed reported" if len(stopped) == len(feeds) else "these feeds sent nothing"
+    parts = [f"{', '.join(names)} (last reading: {last})"
+             for last, names in sorted(groups.items(), reverse=True,
+                                       key=lambda g: "" if g[0] == "never" else g[0])]
+    return f"{lead}: " + "; ".join(parts)
+
+
+def verdict(result: dict, tz: str, feeds: list[dict] | None = None) -> str:
+    """One sentence with the key numbers: energy, shortfall, EPI, PR, PR', top cause; or
+    what is missing when the period has too little data."""
     p = result["metrics"]["period"]
     when = period_text(result, tz)
+    if no_data(result):
+        why = stopped_text(feeds, tz) if feeds is not None else "no measured data"
+        return f"No data for {when}: {why}. No verdict is possible for this period."
     if p.get("epi") is None:
         cov = p.get("coverage")
         cov_text = f" (data coverage {cov:.0%})" if cov is not None else ""
@@ -174,47 +308,106 @@ def verdict(result: dict, tz: str) -> str:
     short = p["expected_kwh"] - p["measured_kwh"]
     rel = short / p["expected_kwh"] if p["expected_kwh"] else 0.0
     words = "less" if short >= 0 else "more"
-    text = (f"In {when} the plant delivered {p['measured_kwh']:,.0f} kWh, {abs(rel):.1%} "
-            f"({abs(short):,.0f} kWh) {words} than expected: EPI {fmt_interval(p, 'epi')}, "
-            f"PR {fmt_interval(p, 'pr')}, temperature-corrected PR "
+    text = (f"{period_phrase(result, tz)} the plant delivered {p['measured_kwh']:,.0f} kWh, "
+            f"{abs(rel):.1%} ({abs(short):,.0f} kWh) {words} than expected: EPI "
+            f"{fmt_interval(p, 'epi')}, PR {fmt_interval(p, 'pr')}, temperature-corrected PR "
             f"{fmt_interval(p, 'pr_temp_corrected')}")
     top = top_cause(result)
     if top is not None and short > 0:
         text += (f"; the largest cause found is {kinds.words(top['kind'])} on "
                  f"{scope_words(top['scope'])} ({_kwh_interval(top)})")
+    cov = p.get("coverage")
+    if cov is not None and cov < COVERED:
+        text += (f". Data cover {cov:.0%} of the period's daylight intervals; the numbers hold "
+                 "for that share")
     return text + "."
 
 
+# A period counts as fully covered from this share of its daylight intervals (common
+# practice: the rounding of a percentage shown without decimals).
+COVERED = 0.995
+
+
+def kwh(value: float | None, significant: int | None = None) -> str:
+    """An energy for a person: whole kWh with thousands separators, one decimal below 10;
+    from 100 kWh rounded to ``significant`` digits when given (an estimate with a band)."""
+    if value is None:
+        return "-"
+    if abs(value) < 10:
+        return f"{value:,.1f}"
+    if significant and abs(value) >= 100:
+        value = round(value, significant - 1 - math.floor(math.log10(abs(value))))
+    return f"{value:,.0f}"
+
+
 def _kwh_interval(ev: dict) -> str:
-    lo, hi = ev.get("energy_loss_kwh_low"), ev.get("energy_loss_kwh_high")
-    text = f"{ev['energy_loss_kwh']:,.0f} kWh"
-    return text + (f", {lo:,.0f}–{hi:,.0f}" if lo is not None and hi is not None else "")
+    """``412 kWh, 95 % band 360–470 kWh`` to three digits; ``under 1 kWh`` for a trace."""
+    lo, hi, v = ev.get("energy_loss_kwh_low"), ev.get("energy_loss_kwh_high"), \
+        ev["energy_loss_kwh"]
+    if abs(v) < 0.5 and (hi is None or abs(hi) < 0.5):
+        return "under 1 kWh"
+    text = f"{kwh(v, 3)} kWh"
+    if lo is not None and hi is not None and kwh(lo, 3) != kwh(hi, 3):
+        text += f", 95 % band {kwh(lo, 3)}–{kwh(hi, 3)} kWh"
+    return text
+
+
+def _about(ev: dict) -> str:
+    amount = _kwh_interval(ev)
+    return amount if amount.startswith("under") else f"about {amount}"
 
 
 def event_paragraph(ev: dict, tz: str) -> str:
-    """What we saw, why we think it is this kind, what to check on site."""
+    """What, where, when, how much (with its band), why we think so, what to check on site."""
     k = kinds.get(ev["kind"])
-    when = (f"From {local_text(ev['start'], tz)} to {local_text(ev['end'], tz)} "
-            f"{scope_words(ev['scope'])}")
+    where = scope_words(ev["scope"])
+    when = f"from {local_text(ev['start'], tz)} to {local_text(ev['end'], tz)} (end excluded)"
+    found = ""
+    if ev.get("found_start") and (ev["found_start"], ev.get("found_end")) != (ev["start"],
+                                                                             ev["end"]):
+        found = (f"; the finding as a whole runs from {local_text(ev['found_start'], tz)} to "
+                 f"{local_text(ev['found_end'], tz)}")
+    what = f"{k.words[:1].upper()}{k.words[1:]} on {where}, {when}{found}."
     if k.ledger == "correction":
-        saw = f"{when}: the data were at fault, not the plant; they were corrected and cost no " \
-              "energy."
+        much = " The data were at fault, not the plant; they were corrected and cost no energy."
     elif k.ledger == "design":
-        saw = f"{when} kept about {_kwh_interval(ev)} out of the expected series by design " \
-              "(not a loss)."
+        much = (f" Not a loss: {_about(ev)} stayed out of the expected series by design.")
     else:
-        saw = f"{when} lost about {_kwh_interval(ev)}."
+        much = f" Energy lost in this period: {_about(ev)}."
     if ev.get("reported_state"):
         who = "the inverters" if ev["scope"] == "plant" else "the inverter"
-        saw += f" Meanwhile {who} reported: {ev['reported_state']}."
-    extra = {k: v for k, v in ev.items()  # the detector's details
-             if k not in EVENT_FIELDS and k != "reported_state"}
-    stats = ", ".join(f"{k.replace('_', ' ')} {_short(v)}"
-                      for k, v in {**ev.get("evidence", {}), **extra}.items()
-                      if v is not None and not isinstance(v, (list, dict)))
-    because = f" We think it is {k.words} because {k.why}"
-    because += f" ({ev.get('method', 'method not stated')}{'; ' + stats if stats else ''})."
-    return saw + because + f" On site, check {k.check}."
+        much += f" Meanwhile {who} reported: {ev['reported_state']}."
+    return (what + much + f" We think so because {k.why}. On site, check {k.check}.")
+
+
+def stat_rows(ev: dict, tz: str) -> list[tuple[str, str]]:
+    """The detector's statistics of one event as (label, value with unit) rows."""
+    skip = set(EVENT_FIELDS) | {"evidence", "found_start", "found_end"}
+    fields = {**ev.get("evidence", {}), **{k: v for k, v in ev.items() if k not in skip}}
+    rows = []
+    for key, v in fields.items():
+        text = plain_value(key, v, tz)
+        if text is not None and key != "note":
+            rows.append((label_unit(key)[0], text))
+    return rows
+
+
+def stats_table(events: list[dict], tz: str) -> list[list[str]]:
+    """The appendix: every event's statistics, numbered as in the events table."""
+    return [[str(i), kinds.words(e["kind"]), label, value]
+            for i, e in enumerate(events, 1) for label, value in stat_rows(e, tz)]
+
+
+def setting_rows(settings: dict, tz: str) -> list[list[str]]:
+    """The settings of the check as (label, value with unit) rows."""
+    rows = []
+    for key, v in settings.items():
+        if key in ("rules", "interval_method", "notes"):
+            continue
+        text = plain_value(key, v, tz)
+        if text is not None:
+            rows.append([label_unit(key)[0], text])
+    return rows
 
 
 def revision_text(r: dict, tz: str) -> str:
@@ -232,12 +425,6 @@ def revision_text(r: dict, tz: str) -> str:
                 f"reason: {r['reason']}.")
     return (f"Revised on {when}: {what}, earlier {span(r['before'])}, now {span(r['after'])}; "
             f"reason: {r['reason']}.")
-
-
-def _short(v: Any) -> str:
-    if isinstance(v, float):
-        return f"{v:.3g}"
-    return str(v)
 
 
 def quality_summary(aligned: pd.DataFrame, tz: str) -> list[dict]:
@@ -262,10 +449,12 @@ def quality_summary(aligned: pd.DataFrame, tz: str) -> list[dict]:
 
 
 def db_quality(con: duckdb.DuckDBPyConnection, start: pd.Timestamp, end: pd.Timestamp) -> dict:
-    """Files behind the period (with quarantined rows) and quality flags, from the database."""
+    """Files behind the period (with quarantined rows), quality flags and each feed's readings
+    in the period (with its last reading), from the database."""
     params = {"start": start.to_pydatetime(), "end": end.to_pydatetime()}
     out: dict[str, list[dict]] = {}
-    for key, name in (("files", "report_files"), ("flags", "report_flags")):
+    for key, name in (("files", "report_files"), ("flags", "report_flags"),
+                      ("feeds", "report_feeds")):
         try:
             out[key] = con.execute(db.sql(name), params).df().to_dict("records")
         except duckdb.CatalogException:  # the stage that writes this table has not run
@@ -273,10 +462,23 @@ def db_quality(con: duckdb.DuckDBPyConnection, start: pd.Timestamp, end: pd.Time
     return out
 
 
+def iso_instants(quality: dict, tz: str) -> dict:
+    """The quality block with every instant as ISO 8601 with the site's offset (``T``)."""
+    def iso(v: Any) -> Any:
+        if isinstance(v, (pd.Timestamp, dt.datetime)):
+            return None if pd.isna(v) else pd.Timestamp(v).tz_convert(tz).isoformat()
+        return v
+
+    return {k: [{f: iso(v) for f, v in r.items()} for r in rows] for k, rows in quality.items()}
+
+
 def monthly_rows(monthly: list[dict]) -> list[list[str]]:
     rows = []
     for m in monthly:
         row = [m["month"]]
+        if m.get("valid_intervals") == 0:  # no data: no 0 kWh that reads like a measurement
+            rows.append(row + ["no data"] * (len(MONTHLY_COLUMNS) - 1) + ["0%"])
+            continue
         for key, _, spec in MONTHLY_COLUMNS:
             row.append(fmt_interval(m, key, spec) if f"{key}_ci_low" in m else
                        _v(m.get(key), spec))
@@ -315,20 +517,25 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
     """Everything the HTML template and the PDF pages show, in report order."""
     tz = site.timezone
     events = sorted(result.get("events", []), key=lambda e: (e["start"], e["kind"]))
+    created = result.get("run", {}).get("created_at", "")
     return {
         "title": f"{site.name}: performance check, {period_text(result, tz)}",
         "site": site,
-        "verdict": verdict(result, tz),
-        "tiles": _tiles(result["metrics"]["period"], result.get("losses", {})),
+        "verdict": verdict(result, tz, quality.get("feeds")),
+        "no_data": no_data(result),
+        "tiles": _tiles(result),
         "per_inverter": quality_summary(aligned, tz),
         "files": quality.get("files", []),
-        "flags": quality.get("flags", []),
+        "flags": [{**f, "quantity_words": device_words(f["quantity"], f["device"]),
+                   "flag_words": f["flag"].replace("_", " ")} for f in quality.get("flags", [])],
         "monthly_head": ["Month"] + [h for _, h, _ in MONTHLY_COLUMNS],
         "monthly_rows": monthly_rows(result["metrics"]["monthly"]),
-        "events": [{**e, "start_local": local_text(e["start"], tz),
+        "yields_note": YIELDS_NOTE,
+        "events": [{**e, "no": i, "start_local": local_text(e["start"], tz),
                     "end_local": local_text(e["end"], tz), "kwh": _kwh_interval(e),
                     "kind_words": kinds.words(e["kind"]), "scope_words": scope_words(e["scope"]),
-                    "paragraph": event_paragraph(e, tz)} for e in events],
+                    "paragraph": event_paragraph(e, tz)} for i, e in enumerate(events, 1)],
+        "stats_rows": stats_table(events, tz),
         "guarantees": [guarantee_row(g) for g in result.get("guarantees", [])],
         "degradation_text": degradation_text(result.get("degradation") or {}),
         "revisions": [revision_text(r, tz) for r in result.get("revisions", [])],
@@ -338,13 +545,14 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "site_text": site.path.read_text(encoding="utf-8"),
         "site_file": site.path.name,
         "versions": versions.versions(),
-        "settings": {k: v for k, v in result.get("settings", {}).items()
-                     if k not in ("rules", "interval_method", "notes")},
+        "settings_rows": setting_rows(result.get("settings", {}), tz),
+        "confidence": result.get("settings", {}).get("confidence") or 0.95,
         "notes": result.get("settings", {}).get("notes", []),
         "rules": result.get("settings", {}).get("rules", []),
         "interval_method": result.get("settings", {}).get("interval_method", ""),
         "cautions": CAUTIONS,
-        "created_at": result.get("run", {}).get("created_at", ""),
+        "created_at": local_text(created, tz) if created else "",
+        "zone": tz,
     }
 
 
@@ -371,29 +579,60 @@ def degradation_text(d: dict) -> str:
             f"{d['ci_high']:+.2f}), {method}.")
 
 
+def _as_shown(g: dict) -> dict:
+    """A guarantee finding with the report's sign convention: a module warranty's promised
+    and measured values as loss rates [%/yr], positive."""
+    if g["kind"] != "module_warranty":
+        return g
+
+    def neg(v: float | None) -> float | None:
+        return None if v is None else -v
+
+    return {**g, "metric": "degradation_loss_pct_per_year", "promised": neg(g["promised"]),
+            "measured": neg(g["measured"]), "measured_ci_low": neg(g.get("measured_ci_high")),
+            "measured_ci_high": neg(g.get("measured_ci_low"))}
+
+
 def guarantee_row(g: dict) -> dict:
     """A guarantee finding with the texts the report's table shows."""
-    spec = "{:.4g}"
-    if g["kind"] == "module_warranty":  # shown as loss rates [%/yr], positive
-        g = {**g, "promised": -g["promised"], "measured": None if g["measured"] is None else
-             -g["measured"], "measured_ci_low": None if g.get("measured_ci_high") is None else
-             -g["measured_ci_high"], "measured_ci_high": None if g.get("measured_ci_low") is None
-             else -g["measured_ci_low"]}
-    measured = _v(g.get("measured"), spec)
+    g = _as_shown(g)
+    measured = _v(g.get("measured"), "{:.3f}")
     if g.get("measured_ci_low") is not None:
-        measured += f" ({_v(g['measured_ci_low'], spec)} to {_v(g['measured_ci_high'], spec)})"
-    kwh = g.get("energy_short_kwh")
+        measured += f" ({g['measured_ci_low']:.3f} to {g['measured_ci_high']:.3f})"
+    kwh_short = g.get("energy_short_kwh")
     money = g.get("money_short")
-    promised = _v(g.get("promised"), spec)
+    promised = _v(g.get("promised"), "{:.3f}")
     if g["kind"] == "module_warranty":
         promised, measured = f"loss ≤ {promised} %/yr", f"loss {measured} %/yr"
     return {**g, "promised_text": promised, "measured_text": measured,
-            "energy_short_text": _v(kwh, "{:,.0f} kWh"),
+            "energy_short_text": _v(kwh_short, "{:,.0f} kWh"),
+            "finding_text": g["finding"].replace("_", " "),
             "money_short_text": "n/a" if money is None else
             f"{money:,.2f} {g.get('currency', '')}".rstrip()}
 
 
-def _tiles(p: dict, losses: dict) -> list[tuple[str, str, str]]:
+def guarantees_csv(guarantees: list[dict]) -> str:
+    """The guarantee findings as CSV, with the report's sign convention, energies to 0.1 kWh,
+    money to the cent, shares to 0.1 % and other numbers to four significant digits."""
+    def rounded(key: str, v: Any) -> Any:
+        if not isinstance(v, float) or isinstance(v, bool):
+            return v
+        if "_kwh" in key:
+            return round(v, 1)
+        if key.endswith("_share"):
+            return round(v, 3)
+        if key.startswith("money") or key.startswith("price"):
+            return round(v, 2 if key.startswith("money") else 4)
+        return float(f"{v:.4g}")
+
+    return records_csv([{k: rounded(k, v) for k, v in _as_shown(g).items()}
+                        for g in guarantees])
+
+
+def _tiles(result: dict) -> list[tuple[str, str, str]]:
+    p, losses = result["metrics"]["period"], result.get("losses", {})
+    if no_data(result):
+        return [(k, "n/a", "no data") for k in ("EPI", "PR", "PR temp.-corrected", "Shortfall")]
     short = None
     if p.get("expected_kwh") is not None and p.get("measured_kwh") is not None:
         short = p["expected_kwh"] - p["measured_kwh"]
@@ -474,62 +713,94 @@ def write_report(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
 
 
 def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
-    """The report's text as (kind, content) blocks for the PDF, in report order."""
-    b: list[tuple[str, Any]] = [("title", ctx["title"]), ("lead", ctx["verdict"])]
-    b.append(("h", "Data coverage and quality"))
-    b.append(("table", (["Inverter", "Days with data", "Daylight coverage", "Flagged rows",
-                         "POA from sensor"],
+    """The report's content as (kind, content) blocks for the PDF, in the HTML's order and
+    with the HTML's numbers (a test compares the two)."""
+    meta = (f"{ctx['site'].dc_kwp:.1f} kWp DC · {ctx['site'].ac_kw:.1f} kW AC · "
+            f"{len(ctx['site'].inverters)} inverters · {ctx['zone']} · commissioned "
+            f"{ctx['site'].commissioned}"
+            + (f" · checked {ctx['created_at']}" if ctx["created_at"] else "")
+            + " · times site-local with their UTC offset")
+    b: list[tuple[str, Any]] = [("title", ctx["title"]), ("para", meta),
+                                ("lead", ctx["verdict"])]
+    b.append(("table", (["", *(k for k, _, _ in ctx["tiles"])],
+                        [["value", *(v for _, v, _ in ctx["tiles"])],
+                         ["interval", *(r for _, _, r in ctx["tiles"])]])))
+    b.append(("h", "1  Data coverage and quality"))
+    b.append(("table", (["Inverter", "Days with data", "Daylight intervals with a value",
+                         "Flagged rows", "POA from sensor"],
                         [[r["inverter_id"], f"{r['days_with_data']} of {r['days_in_period']}",
-                          f"{r['daylight_coverage']:.1%}", str(r["rows_flagged"]),
-                          f"{r['poa_from_sensor']:.0%}"] for r in ctx["per_inverter"]])))
+                          f"{100 * r['daylight_coverage']:.1f} %", str(r["rows_flagged"]),
+                          f"{100 * r['poa_from_sensor']:.0f} %"] for r in ctx["per_inverter"]])))
     if ctx["files"]:
-        b.append(("table", (["Logger file", "Rows loaded", "Quarantined", "Duplicates"],
-                            [[Path(f["path"]).name, str(f["rows_loaded"]),
-                              str(f["rows_quarantined"]), str(f["rows_duplicate"])]
+        b.append(("para", "Logger files behind this period:"))
+        b.append(("table", (["File", "Logger", "Rows read", "Loaded", "Duplicates",
+                             "Quarantined"],
+                            [[f["path"], f["logger"], str(f["rows_read"]), str(f["rows_loaded"]),
+                              str(f["rows_duplicate"]), str(f["rows_quarantined"])]
                              for f in ctx["files"]])))
-    b.append(("h", "Monthly values with intervals"))
-    b.append(("monthly", (ctx["monthly_head"], ctx["monthly_rows"])))
+    if ctx["flags"]:
+        b.append(("para", "Quality flags (readings are never deleted; flagged readings are left "
+                          "out of the metrics):"))
+        b.append(("table", (["Flag", "Reading", "Rows"],
+                            [[f["flag_words"], f["quantity_words"], str(f["rows_flagged"])]
+                             for f in ctx["flags"]])))
+    b.append(("h", "2  Monthly values with intervals"))
+    b.append(("table", (ctx["monthly_head"], ctx["monthly_rows"])))
+    b.append(("para", f"Intervals at {100 * ctx['confidence']:.0f} % confidence in brackets, "
+                      "shown where wider than the rounding. A month with too little valid data "
+                      "shows n/a instead of a number."))
+    b.append(("para", ctx["yields_note"]))
+    b.append(("h", "3  Figures"))
     b.append(("figures", None))
-    b.append(("h", "Events"))
+    b.append(("h", "4  Events"))
     if ctx["losses_rows"]:
-        b.append(("para", LOSSES_LEAD))
+        b.append(("para", ctx["losses_lead"]))
         b.append(("table", (["Where the expected energy went", "Energy [kWh]"],
                             ctx["losses_rows"])))
-    if not ctx["events"]:
+    if ctx["events"]:
+        b.append(("table", (["No.", "Finding", "Where", "From", "To (end excluded)", "Energy"],
+                            [[str(e["no"]), e["kind_words"], e["scope_words"], e["start_local"],
+                              e["end_local"], e["kwh"]] for e in ctx["events"]])))
+        for e in ctx["events"]:
+            b.append(("para", f"{e['no']}. {e['kind_words'].upper()}, {e['scope_words']}: "
+                      + e["paragraph"] + f" Method: {e['method']}."))
+    else:
         b.append(("para", "No events were found in this period."))
-    for e in ctx["events"]:
-        b.append(("para", f"{kinds.words(e['kind']).upper()}, {scope_words(e['scope'])}: "
-                  + e["paragraph"]))
     b.append(("para", ctx["degradation_text"]))
     if ctx["revisions"]:
-        b.append(("h", "Revised findings"))
-        for r in ctx["revisions"]:
-            b.append(("para", r))
+        b.append(("para", "Revised findings:"))
+        b += [("para", r) for r in ctx["revisions"]]
+    n = 5
     if ctx["guarantees"]:
-        b.append(("h", "Guarantees and warranties"))
+        b.append(("h", f"{n}  Guarantees and warranties"))
         b.append(("table", (["Promise", "Promised", "Measured (interval)", "Finding",
-                             "Energy short", "Money short"],
+                             "Energy short [kWh]", "Money short"],
                             [[g["name"], g["promised_text"], g["measured_text"],
-                              g["finding"].replace("_", " "), g["energy_short_text"],
+                              g["finding_text"], g["energy_short_text"],
                               g["money_short_text"]] for g in ctx["guarantees"]])))
-        for g in ctx["guarantees"]:
-            b.append(("para", g["statement"]))
-    b.append(("h", "Methods and references"))
-    for name, source in ctx["methods"]:
-        b.append(("para", f"{name}: {source}."))
-    for rule in ctx["rules"]:
-        b.append(("para", f"Rule: {rule}."))
+        b += [("para", g["statement"]) for g in ctx["guarantees"]]
+        n += 1
+    b.append(("h", f"{n}  Methods and references"))
+    b.append(("table", (["Quantity or finding", "Method and source"],
+                        [list(m) for m in ctx["methods"]])))
+    if ctx["rules"]:
+        b.append(("para", "Rules of this check:"))
+        b += [("para", f"- {r}") for r in ctx["rules"]]
     if ctx["interval_method"]:
         b.append(("para", f"Intervals: {ctx['interval_method']}."))
     for note in ctx["notes"]:
         b.append(("para", f"Note: {note}."))
-    if ctx["settings"]:
-        b.append(("table", (["Setting", "Value"],
-                            [[k, str(v)] for k, v in ctx["settings"].items()])))
-    b.append(("para", "Versions: " + ", ".join(f"{k} {v}" for k, v in ctx["versions"].items())))
-    b.append(("h", f"Site file used ({ctx['site_file']})"))
+    b.append(("para", "Settings of this check:"))
+    b.append(("table", (["Setting", "Value"], ctx["settings_rows"])))
+    if ctx["stats_rows"]:
+        b.append(("para", "Appendix: the detectors' statistics"))
+        b.append(("table", (["No.", "Finding", "Statistic", "Value"], ctx["stats_rows"])))
+    b.append(("para", "Versions: " + ", ".join(f"{k} {v}" for k, v in ctx["versions"].items())
+              + "."))
+    b.append(("para", f"Site file used ({ctx['site_file']}):"))
     b.append(("pre", ctx["site_text"]))
-    b.append(("h", "Cautions"))
-    for c in ctx["cautions"]:
-        b.append(("para", c))
+    b.append(("h", f"{n + 1}  Cautions"))
+    b += [("para", c) for c in ctx["cautions"]]
+    b.append(("para", f"Written by perfcheck {ctx['versions']['perfcheck']}. All times are "
+                      f"site-local ({ctx['zone']}) with their UTC offset."))
     return b

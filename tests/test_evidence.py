@@ -433,3 +433,32 @@ def test_file_grown_under_the_same_name_stays_verifiable(tmp_path):
     redo = ingest.ingest_files(again, site, [tmp_path / f["member"] for f in files])
     assert [(r.rows_loaded, r.rows_duplicate, r.rows_quarantined) for r in redo] == [
         (15, 0, 0), (15, 14, 1)]
+
+
+def test_bundle_outputs_a_person_reads_carry_no_code_values(bundle):
+    """Issue 12: no "from memory" anywhere in the bundle; the texts a person reads (README,
+    methods, report) without Python literals, scientific notation or scope codes; local dates
+    in the README as in the report; machine instants ISO 8601 with "T" and an offset."""
+    import re
+
+    from test_report import CODE_VALUES, _visible_text
+
+    path, _ = bundle
+    with zipfile.ZipFile(path) as z:
+        members = {n: z.read(n) for n in z.namelist() if not n.endswith((".png", ".pdf"))}
+    for name, data in members.items():
+        if not name.startswith("raw/"):
+            assert b"from memory" not in data, name
+    readable = {n: members[n].decode() for n in ("README.txt", "methods.txt",
+                                                  "results/guarantees.csv")}
+    readable["report/report.html"] = _visible_text(members["report/report.html"].decode())
+    for name, text in readable.items():
+        for bad in CODE_VALUES:
+            if name.endswith(".csv") and bad in ("True", "False", "inverter:"):
+                continue  # CSV keeps the machine values of its columns
+            assert bad not in text, (name, bad)
+    assert "June 2025 (site-local time, Europe/Zurich)" in readable["README.txt"]
+    assert "2025-07-01 00:00+02:00, the end excluded" in readable["README.txt"]
+    coverage = members["results/coverage.json"].decode()
+    stamps = re.findall(r'"\d{4}-\d\d-\d\d[ T][^"]*"', coverage)
+    assert stamps and all("T" in s and re.search(r"[+-]\d\d:\d\d\"$", s) for s in stamps)

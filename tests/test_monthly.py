@@ -47,6 +47,8 @@ def job(tmp_path, monkeypatch):
         month = start.tz_convert(site.timezone).strftime("%Y-%m")
         r["metrics"]["monthly"][0]["month"] = month
         r["metrics"]["period"]["epi"] = state["epi"]
+        if state.get("no_data"):
+            r["metrics"]["period"].update(valid_intervals=0, epi=None, measured_kwh=0.0)
         r["events"] += state["events"]
         return checked(site, r)
 
@@ -107,8 +109,21 @@ def test_underperformance_exit_1_with_summary(job):
     assert r.stderr.startswith("perfcheck monthly: Hollowmere test array, 2025-06: "
                                "UNDERPERFORMANCE. EPI 0.944 (0.934–0.954) is below 0.950 "
                                "(report.underperformance_threshold_pct = 5).")
-    assert "Top events: partial_outage inverter:INV2 412 kWh" in r.stderr
+    assert "Top events: partial outage on inverter INV2 412 kWh" in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1  # one paragraph
+
+
+def test_month_without_data_exit_1_and_no_history_row(job):
+    tmp, state = job
+    write_site(tmp, "")
+    state["no_data"] = True
+    r = run(tmp, "--month", "2025-06")
+    assert r.exit_code == 1
+    assert r.stderr.startswith("perfcheck monthly: Hollowmere test array, 2025-06: NO DATA. "
+                               "no data for the month. No data for June 2025: no feed has "
+                               "reported yet.")
+    assert history(tmp) == []
+    assert (tmp / "reports" / "2025-06" / "report.html").is_file()  # the report says so
 
 
 def test_critical_event_exit_3(job):
@@ -196,6 +211,12 @@ def test_demo_months_through_the_real_stages(tmp_path):
     for p in sorted(src.glob("*_2024-07.csv")):
         shutil.copy(p, inbox / p.name)
     assert run(tmp_path, "--month", "2024-07").exit_code in (0, 1, 3)
+    assert [row[0] for row in history(tmp_path)] == ["2024-06", "2024-07"]
+    # August has no files: exit 1, the feeds that stopped named, no history row
+    gone = run(tmp_path, "--month", "2024-08")
+    assert gone.exit_code == 1
+    assert "NO DATA" in gone.stderr and "No data for August 2024: no feed reported: AC power " \
+        "of inverter inv1" in gone.stderr and "(last reading: 2024-07-31 23:5" in gone.stderr
     assert [row[0] for row in history(tmp_path)] == ["2024-06", "2024-07"]
 
 

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import datetime as dt
-import math
 from pathlib import Path
 from typing import Any
 
@@ -79,23 +78,11 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
     lines.append(table_line("period", doc["metrics"]["period"]))
     losses = doc["losses"]
     lines += ["", *findings_table(doc["events"], site.timezone), "",
-              f"Expected {kwh(losses['expected_kwh'])} kWh, measured "
-              f"{kwh(losses['measured_kwh'])} kWh, not explained by a finding "
-              f"{kwh(losses['unexplained_kwh'])} kWh; guarantees checked: "
+              f"Expected {report.kwh(losses['expected_kwh'])} kWh, measured "
+              f"{report.kwh(losses['measured_kwh'])} kWh, not explained by a finding "
+              f"{report.kwh(losses['unexplained_kwh'])} kWh; guarantees checked: "
               f"{len(doc['guarantees'])}"]
     return "\n".join(lines)
-
-
-def kwh(value: float | None, significant: int | None = None) -> str:
-    """An energy for a person: whole kWh with thousands separators, one decimal below 10;
-    from 100 kWh rounded to ``significant`` digits when given (an estimate with a band)."""
-    if value is None:
-        return "-"
-    if abs(value) < 10:
-        return f"{value:,.1f}"
-    if significant and abs(value) >= 100:
-        value = round(value, significant - 1 - math.floor(math.log10(abs(value))))
-    return f"{value:,.0f}"
 
 
 def local_minute(instant: str) -> str:
@@ -108,7 +95,7 @@ def _loss(ev: dict[str, Any]) -> str:
     values = (ev["energy_loss_kwh"], ev["energy_loss_kwh_low"], ev["energy_loss_kwh_high"])
     if not any(values):
         return "none"
-    return f"{kwh(values[0], 3)} ({kwh(values[1], 3)} to {kwh(values[2], 3)})"
+    return f"{report.kwh(values[0], 3)} ({report.kwh(values[1], 3)} to {report.kwh(values[2], 3)})"
 
 
 def findings_table(events: list[dict[str, Any]], zone: str) -> list[str]:
@@ -137,7 +124,8 @@ def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
     availability, specific yield and data coverage per month, each with its interval, then
     the events and the loss balance, clipped from the analysis of the whole history (made
     first if the data, the model or the site file changed since the last one). The filtering
-    rules come from the optional [metrics] table of the site file.
+    rules come from the optional [metrics] table of the site file. A period without data
+    ends with the exit code 1.
 
     \b
     Example:
@@ -149,9 +137,14 @@ def check_command(site: Site, db_path: Path, date_from: dt.datetime | None,
         with progress.stage("check: metrics and findings"):
             start, end = metrics.resolve_period(con, site, _day(date_from), _day(date_to))
             doc = analysis.view(con, site, start, end, analysis.update(con, site))
+            missing = report.no_data(doc) and report.verdict(
+                doc, site.timezone, report.db_quality(con, start, end)["feeds"])
     finally:
         con.close()
     emit(format_table(doc, site), doc, json_path)
+    if missing:  # said on stderr, so that stdout keeps the table or the JSON alone
+        click.echo(f"perfcheck: {missing}", err=True)
+        raise click.exceptions.Exit(1)
 
 
 COMMANDS = [check_command]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 from typing import Any
 
@@ -24,6 +25,7 @@ def report_command(site: Site, db_path: Path, month: str | None, date_from: Any,
                    out_dir: Path) -> None:
     """Write the report for a period: a self-contained HTML file (opens without network)
     and the same content as PDF, with check.json, events.csv, monthly.csv and the figures.
+    A period without data gets a report that says so, and the exit code 1.
 
     \b
     Example:
@@ -36,10 +38,16 @@ def report_command(site: Site, db_path: Path, month: str | None, date_from: Any,
         with progress.stage("report: analysis, figures, HTML and PDF"), \
                 atomic.replacing_dir(out_dir) as tmp:  # all files or none
             paths = report.write_report(con, site, start, end, tmp)
+            doc = json.loads(paths["json"].read_text(encoding="utf-8"))
+            missing = report.no_data(doc) and report.verdict(
+                doc, site.timezone, report.db_quality(con, start, end)["feeds"])
     finally:
         con.close()
     click.echo(f"report: {out_dir / paths['html'].relative_to(tmp)}")
     click.echo(f"pdf: {out_dir / paths['pdf'].relative_to(tmp)}")
+    if missing:
+        click.echo(f"perfcheck: {missing}", err=True)
+        raise click.exceptions.Exit(1)
 
 
 COMMANDS = [report_command]

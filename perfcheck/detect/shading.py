@@ -203,7 +203,8 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                 end=w.index[-1] + pd.Timedelta(seconds=float(step[-1])),
                 energy_loss_kwh=energy, energy_loss_kwh_low=max(0.0, low),
                 energy_loss_kwh_high=high, method=METHOD,
-                evidence={"bins": region, "bins_tested": n_tests,
+                evidence={"bins": [labelled_bin(h, az_step, el_step) for h in region],
+                          "bins_tested": n_tests,
                           "alpha_per_bin": alpha / n_tests},
                 detail={"azimuth_from_deg": min(azs) * az_step,
                         "azimuth_to_deg": (max(azs) + 1) * az_step,
@@ -218,6 +219,15 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                 f = np.where(sel[lo:hi] & (e_int[lo:hi] > 0), loss[lo:hi] / e_int[lo:hi], 0.0)
             prints.append(Footprint(ev, lo, hi, [inv], factor=np.nan_to_num(f)[:, None]))
     return events, prints, shaded_mask
+
+
+def labelled_bin(h: dict, az_step: float, el_step: float) -> dict:
+    """A sky bin for the evidence: its azimuth and elevation ranges in degrees instead of the
+    bin indices (``az``, ``el``)."""
+    return {"azimuth_from_deg": h["az"] * az_step, "azimuth_to_deg": (h["az"] + 1) * az_step,
+            "elevation_from_deg": h["el"] * el_step,
+            "elevation_to_deg": (h["el"] + 1) * el_step,
+            **{k: v for k, v in h.items() if k not in ("az", "el")}}
 
 
 def _below(hits: list[dict], groups: dict, key_all: np.ndarray, elev: np.ndarray,
