@@ -851,7 +851,7 @@ def _next_month(d: dt.date) -> dt.date:
 def settings_record(
     settings: Settings, temp_ref_c: float, t_typ: float, t_typ_source: str
 ) -> dict[str, Any]:
-    """The settings as stored with each result (JSON ``settings``, table ``metrics_runs``)."""
+    """The settings as stored with each result (JSON ``settings``, table ``analyses``)."""
     rec = asdict(settings)
     rec["exclude_flags"] = list(settings.exclude_flags)
     rec.update({
