@@ -30,7 +30,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import __version__, analysis, atomic, db, pipeline, report, versions
+from perfcheck import __version__, analysis, atomic, db, ingest, pipeline, report, versions
 from perfcheck.errors import DataError, PerfcheckError
 from perfcheck.site import Site, load_site
 
@@ -57,7 +57,8 @@ Contents
   raw/               the raw logger files: those covering the period, and the earlier ones the
                      reference windows (detector baselines, typical cell temperature) draw on
   results/           check.json (metrics, events, losses, degradation, guarantees), events.csv,
-                     monthly.csv, guarantees.csv, coverage.json (data coverage and quality)
+                     monthly.csv, guarantees.csv, coverage.json (data coverage and quality),
+                     quarantine.csv (every line not loaded, with its reason and raw text)
   report/            report.pdf, report.html and the figures as PNG
 
 Check it:  perfcheck verify {name}
@@ -222,6 +223,19 @@ def raw_files(con: duckdb.DuckDBPyConnection, site: Site) -> list[dict]:
     return out
 
 
+def quarantine_csv(con: duckdb.DuckDBPyConnection, where: dict[str, str]) -> bytes:
+    """Every quarantined line of the bundle's raw files: file (as named in the bundle), line,
+    instant (ISO 8601 with offset; that of the nearest readable line before it), reason and the
+    line as written."""
+    rows = ingest.quarantined(con)
+    out = pd.DataFrame({
+        "file": [where.get(f, Path(f).name) for f in rows["file"]],
+        "line": rows["line"],
+        "ts": [None if pd.isna(t) else pd.Timestamp(t).isoformat() for t in rows["ts"]],
+        "reason": rows["reason"], "raw": rows["raw"]})
+    return out.to_csv(index=False, lineterminator="\n").encode()
+
+
 def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
                  end: pd.Timestamp, out_zip: Path, command: str,
                  result: dict | None = None) -> dict[str, Any]:
@@ -253,6 +267,7 @@ def build_bundle(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
     coverage = {"per_inverter": report.quality_summary(aligned, site.timezone),
                 **report.iso_instants(quality, site.timezone)}
     members["results/coverage.json"] = report.dump_json(coverage).encode()
+    members["results/quarantine.csv"] = quarantine_csv(con, where)
     members[f"site/{site.path.name}"] = site.path.read_bytes()
     for f in files:
         members[f["member"]] = f["data"]

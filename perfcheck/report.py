@@ -448,13 +448,37 @@ def quality_summary(aligned: pd.DataFrame, tz: str) -> list[dict]:
     return rows
 
 
+# The report lists this many quarantined lines; 'perfcheck quarantine' lists them all.
+QUARANTINE_SHOWN = 50
+QUARANTINE_HEAD = ["File", "Line", "Time (site-local)", "Reason", "The line as written"]
+QUARANTINE_LEAD = ("Quarantined lines: lines of the logger files that could not be read as "
+                   "readings. They are kept with their reason and never loaded; the raw files "
+                   "are unchanged.")
+
+
+def quarantine_more_text(n: int) -> str:
+    return f"… and {n} more; 'perfcheck quarantine' lists them all."
+
+
+def quarantine_rows(lines: list[dict], tz: str) -> list[list[str]]:
+    """Quarantined lines as rows a person reads: file name, line, local time, reason and the
+    line as written (cut at 80 characters)."""
+    out = []
+    for q in lines[:QUARANTINE_SHOWN]:
+        raw = str(q["raw"])
+        out.append([Path(str(q["file"])).name, str(q["line"]),
+                    "" if pd.isna(q["ts"]) else local_text(q["ts"], tz), str(q["reason"]),
+                    raw if len(raw) <= 80 else raw[:77] + "..."])
+    return out
+
+
 def db_quality(con: duckdb.DuckDBPyConnection, start: pd.Timestamp, end: pd.Timestamp) -> dict:
-    """Files behind the period (with quarantined rows), quality flags and each feed's readings
-    in the period (with its last reading), from the database."""
+    """Files behind the period (with quarantined rows), quality flags, each feed's readings
+    in the period (with its last reading) and the quarantined lines, from the database."""
     params = {"start": start.to_pydatetime(), "end": end.to_pydatetime()}
     out: dict[str, list[dict]] = {}
     for key, name in (("files", "report_files"), ("flags", "report_flags"),
-                      ("feeds", "report_feeds")):
+                      ("feeds", "report_feeds"), ("quarantine", "report_quarantine")):
         try:
             out[key] = con.execute(db.sql(name), params).df().to_dict("records")
         except duckdb.CatalogException:  # the stage that writes this table has not run
@@ -526,6 +550,11 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "tiles": _tiles(result),
         "per_inverter": quality_summary(aligned, tz),
         "files": quality.get("files", []),
+        "quarantine": quarantine_rows(quality.get("quarantine", []), tz),
+        "quarantine_more": max(0, len(quality.get("quarantine", [])) - QUARANTINE_SHOWN),
+        "quarantine_head": QUARANTINE_HEAD, "quarantine_lead": QUARANTINE_LEAD,
+        "quarantine_more_text": quarantine_more_text(
+            max(0, len(quality.get("quarantine", [])) - QUARANTINE_SHOWN)),
         "flags": [{**f, "quantity_words": device_words(f["quantity"], f["device"]),
                    "flag_words": f["flag"].replace("_", " ")} for f in quality.get("flags", [])],
         "monthly_head": ["Month"] + [h for _, h, _ in MONTHLY_COLUMNS],
@@ -738,6 +767,11 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
                             [[f["path"], f["logger"], str(f["rows_read"]), str(f["rows_loaded"]),
                               str(f["rows_duplicate"]), str(f["rows_quarantined"])]
                              for f in ctx["files"]])))
+    if ctx["quarantine"]:
+        b.append(("para", QUARANTINE_LEAD))
+        b.append(("table", (QUARANTINE_HEAD, ctx["quarantine"])))
+        if ctx["quarantine_more"]:
+            b.append(("para", quarantine_more_text(ctx["quarantine_more"])))
     if ctx["flags"]:
         b.append(("para", "Quality flags (readings are never deleted; flagged readings are left "
                           "out of the metrics):"))
