@@ -217,3 +217,13 @@ def test_schema_event_kinds_are_the_kinds_table():
 
     walk(metrics.load_schema("check"))
     assert len(found) >= 2 and all(e == list(kinds.NAMES) for e in found)
+
+
+def test_an_interval_shows_only_where_wider_than_the_rounding():
+    # issue 12, item 5: no "100.0 100.0-100.0" clutter in the monthly table
+    from perfcheck.cli.check import _band
+
+    assert _band({"availability": 1.0, "availability_ci_low": 0.99996,
+                  "availability_ci_high": 1.0}, "availability").split() == ["100.0"]
+    assert _band({"pr": 0.855, "pr_ci_low": 0.82, "pr_ci_high": 0.89}, "pr").split() == [
+        "85.5", "82.0-89.0"]

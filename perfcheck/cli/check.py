@@ -35,8 +35,11 @@ def _pct(value: float | None) -> str:
 
 
 def _band(row: dict[str, Any], key: str) -> str:
+    """The value [%] and its interval, the interval only where it is wider than the rounding."""
     lo, hi = row.get(f"{key}_ci_low"), row.get(f"{key}_ci_high")
     band = "" if lo is None or hi is None else f"{100 * lo:.1f}-{100 * hi:.1f}"
+    if band and f"{100 * lo:.1f}" == f"{100 * hi:.1f}":
+        band = ""
     return f"{_pct(row[key])} {band:<12}"
 
 
