@@ -866,27 +866,36 @@ def settings_record(
             "irradiance uncertainty (sensor share at poa_uncertainty_pct, modelled share at "
             "modelled_poa_uncertainty_pct)"
         ),
-        "rules": list(_RULES),
+        "rules": rules(settings),
     })
     return json_ready(rec)
 
 
-_RULES = [
-    "daylight: sun above the horizon at the interval's centre",
-    "valid: measured power, expected power and plane-of-array irradiance present, none of "
-    "exclude_flags",
-    "used (yields, PR, EPI): daylight, valid, outside exclusion windows, POA >= min_poa_wm2",
-    "availability base: daylight, valid, outside exclusion windows, POA >= "
-    "availability_min_poa_wm2; up when AC power >= availability_down_below_pct of AC rating",
-    "exclusion windows: curtailment events (exclude_curtailment) and plant-wide outage events "
-    "taken as grid outages (exclude_grid_outages)",
-    "sensor-fault events (sensor_fault_fallback): modelled plane-of-array irradiance for the "
-    "reference yield, at modelled_poa_uncertainty_pct, and the expected power computed from it "
-    "for EPI and availability, counted as model_poa_intervals and model_poa_expected_kwh",
-    "coverage: valid daylight intervals / calendar daylight intervals; below min_coverage a "
-    "value is null with a reason",
-    "plant reference yield: P0-weighted mean of the inverters' plane-of-array irradiation",
-]
+def rules(settings: Settings) -> list[str]:
+    """The filtering rules in words a person reads, with the values of ``settings``."""
+    flags = ", ".join(f.replace("_", " ") for f in settings.exclude_flags) or "none"
+    curtail = "left out" if settings.exclude_curtailment else "kept in"
+    grid = ("left out as grid outages" if settings.exclude_grid_outages else
+            "kept in (a grid outage cannot be told from a plant stop by power data alone)")
+    return [
+        "daylight: the sun above the horizon at the interval's centre",
+        "valid: measured power, expected power and plane-of-array irradiance present, and no "
+        f"quality flag of these kinds: {flags}",
+        "used for the yields, PR and EPI: daylight, valid, outside the windows left out, "
+        f"irradiance at least {settings.min_poa_wm2:g} W/m2",
+        "availability: over daylight, valid intervals outside the windows left out with "
+        f"irradiance at least {settings.availability_min_poa_wm2:g} W/m2; an inverter is down "
+        "in the intervals of the outage events found",
+        f"curtailment events: {curtail} the yields, PR, EPI and availability; plant-wide "
+        f"outages: {grid}",
+        "irradiance-sensor faults: the modelled plane-of-array irradiance replaces the "
+        f"sensor's (uncertainty {settings.modelled_poa_uncertainty_pct:g} %) for the reference "
+        "yield and the expected power; the intervals and energy concerned are reported",
+        "coverage: valid daylight intervals over the calendar's daylight intervals; below "
+        f"{settings.min_coverage:.0%} a value is left out, with the reason",
+        "plant reference yield: the mean of the inverters' plane-of-array irradiation, "
+        "weighted by their DC power",
+    ]
 
 
 # --------------------------------------------------------------------------------------------

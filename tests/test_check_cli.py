@@ -227,3 +227,13 @@ def test_an_interval_shows_only_where_wider_than_the_rounding():
                   "availability_ci_high": 1.0}, "availability").split() == ["100.0"]
     assert _band({"pr": 0.855, "pr_ci_low": 0.82, "pr_ci_high": 0.89}, "pr").split() == [
         "85.5", "82.0-89.0"]
+
+
+def test_rules_and_coefficients_read_as_words_and_numbers():
+    # issue 12, items 2 and 3: no setting names or scientific notation where a person reads
+    from perfcheck.cli.capacity import coef
+
+    for rule in metrics.rules(metrics.Settings()):
+        assert "_" not in rule and ">=" not in rule, rule
+    assert "irradiance at least 0 W/m2" in " ".join(metrics.rules(metrics.Settings()))
+    assert coef(1.1423e-06) == "1.1423×10⁻⁶" and coef(0.14143) == "0.14143"

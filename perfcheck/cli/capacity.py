@@ -26,6 +26,17 @@ capacity = lazy_module("perfcheck.capacity")
 metrics = lazy_module("perfcheck.metrics")
 
 
+SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def coef(v: float) -> str:
+    """A coefficient to five digits, very small or large ones as m×10ⁿ (never 1e-06)."""
+    if v == 0 or 1e-3 <= abs(v) < 1e5:
+        return f"{v:.5g}"
+    mantissa, exponent = f"{v:.4e}".split("e")
+    return f"{mantissa}×10{str(int(exponent)).translate(SUPERSCRIPT)}"
+
+
 def format_report(doc: dict[str, Any]) -> str:
     """The short text report of a capacity document."""
     rc, r = doc["reporting_conditions"], doc["result"]
@@ -41,8 +52,9 @@ def format_report(doc: dict[str, Any]) -> str:
         "Filters (points left after each):",
         *(f"  {f['points']:>7}  {f['rule']}" for f in doc["filters"]),
         "Regression P = E (a1 + a2 E + a3 T_a + a4 v), P in kW:",
-        *(f"  {name:<9} a1 {fit['coefficients']['a1']:.5g}  a2 {fit['coefficients']['a2']:.5g}"
-          f"  a3 {fit['coefficients']['a3']:.5g}  a4 {fit['coefficients']['a4']:.5g}  "
+        *(f"  {name:<9} a1 {coef(fit['coefficients']['a1'])}  a2 "
+          f"{coef(fit['coefficients']['a2'])}  a3 {coef(fit['coefficients']['a3'])}  a4 "
+          f"{coef(fit['coefficients']['a4'])}  "
           f"R2 {fit['r_squared']:.4f}  residual sd {fit['residual_std_kw']:.3g} kW"
           for name, fit in (("measured", m), ("expected", e))),
         f"Measured capacity at RC: {r['measured_capacity_kw']:.2f} kW "
