@@ -89,7 +89,7 @@ def test_bundle_contents(bundle):
         command = z.read("command.txt").decode()
     for name in ("raw/box_2025-06.csv", "site/site.toml", "results/check.json",
                  "results/events.csv", "results/monthly.csv", "results/guarantees.csv",
-                 "results/coverage.json", "report/report.pdf", "report/report.html",
+                 "results/coverage.json", "results/quarantine.csv", "report/report.pdf", "report/report.html",
                  "report/figures/daily_energy.png", "methods.txt", "versions.json",
                  "README.txt"):
         assert name in names, name
@@ -102,9 +102,9 @@ def test_bundle_contents(bundle):
 def test_verify_passes_and_reruns(bundle):
     v = evidence.verify_bundle(bundle[0])
     assert v.ok, v.problems
-    # 8 figures, PDF, HTML, 5 results, site file, 1 raw file, bundle.json, command, versions,
-    # methods, README
-    assert v.files_checked == 22
+    # 8 figures, PDF, HTML, 6 results (quarantine.csv among them), site file, 1 raw file,
+    # bundle.json, command, versions, methods, README
+    assert v.files_checked == 23
     assert any("reproduced results/check.json" in n for n in v.notes)
 
 
