@@ -89,7 +89,8 @@ def test_bundle_contents(bundle):
         command = z.read("command.txt").decode()
     for name in ("raw/box_2025-06.csv", "site/site.toml", "results/check.json",
                  "results/events.csv", "results/monthly.csv", "results/guarantees.csv",
-                 "results/coverage.json", "results/quarantine.csv", "report/report.pdf", "report/report.html",
+                 "results/coverage.json", "results/quarantine.csv", "report/report.pdf",
+                 "report/report.html",
                  "report/figures/daily_energy.png", "methods.txt", "versions.json",
                  "README.txt"):
         assert name in names, name
