@@ -258,16 +258,6 @@ def _below(hits: list[dict], groups: dict, key_all: np.ndarray, elev: np.ndarray
     return out
 
 
-def _onset(t: np.ndarray, d: np.ndarray, min_deficit: float) -> float:
-    """First time from which the bin's deficit stays at least ``min_deficit`` in the median."""
-    order = np.argsort(t)
-    t, d = t[order], d[order]
-    for i in range(len(d)):
-        if d[i] >= min_deficit and np.median(d[i:]) >= min_deficit:
-            return float(t[i])
-    return float(t[-1])
-
-
 def _regions(hits: list[dict]) -> list[list[dict]]:
     """Group bins that touch (8-neighbourhood in azimuth/elevation bins)."""
     left = {(h["az"], h["el"]): h for h in hits}
