@@ -38,7 +38,11 @@ the pairs' earlier days, so it does not depend on the period viewed.
 
 ``finding`` is one of
 
-- ``met``: the measured value meets or beats the promise;
+- ``met``: compliance is shown: the measured value meets the promise and a one-sided test of
+  "true value < promised" rejects it at the stated confidence (the interval sits above the promise);
+- ``met_not_shown``: the measured value meets the promise, but the promise lies within its
+  uncertainty, so compliance is not shown either (a verdict either way could be wrong);
+- ``met_untested``: the measured value meets the promise; it carries no interval to test it;
 - ``not_shown``: it is below the promise but within its uncertainty (not a breach);
 - ``shortfall_shown``: the shortfall is significant at the stated confidence;
 - ``shortfall_untested``: below the promise, but the metric carries no interval to test it;
@@ -149,10 +153,19 @@ def one_sided(value: float, promised: float, se: float | None) -> tuple[float | 
 
 
 def classify(value: float | None, promised: float, p: float | None, confidence: float) -> str:
+    """The finding of a one-sided test, honest both ways.
+
+    ``p`` is Phi(z) of :func:`one_sided`, the p-value of a shortfall; ``1 - p`` is the p-value
+    of "the promise is kept", so compliance is shown only when ``1 - p < 1 - confidence``. A
+    point value on the right side of the promise with an interval across it is not a "met"
+    (a warranty verdict the data do not support is the worst output a claim can carry).
+    """
     if value is None:
         return "not_enough_data"
     if value >= promised:
-        return "met"
+        if p is None:
+            return "met_untested"
+        return "met" if 1 - p < 1 - confidence else "met_not_shown"
     if p is None:
         return "shortfall_untested"
     return "shortfall_shown" if p < 1 - confidence else "not_shown"
@@ -358,8 +371,23 @@ def evaluate(site: Site, check_result: dict, contract_year: ContractYear | None 
     return out
 
 
+LABELS = {  # the finding in a few words, for tables
+    "met": "met",
+    "met_not_shown": "met, within uncertainty",
+    "met_untested": "met, untested",
+    "not_shown": "short, within uncertainty",
+    "shortfall_shown": "shortfall shown",
+    "shortfall_untested": "short, untested",
+    "not_enough_data": "not enough data",
+    "not_yet_testable": "not yet testable",
+}
+
 WORDS = {
-    "met": "the promise is met",
+    "met": "the promise is met, beyond its uncertainty",
+    "met_not_shown": "the measured value meets the promise, but the promise lies within its "
+                     "uncertainty, so compliance is not shown",
+    "met_untested": "the measured value meets the promise; it carries no interval, so "
+                    "compliance is not tested",
     "not_shown": "the measured value is below the promise but within its uncertainty, so a "
                  "shortfall is not shown",
     "shortfall_shown": "the shortfall is statistically significant",
@@ -393,7 +421,7 @@ def statement(f: dict) -> str:
     text += f"; {WORDS[f['finding']]}"
     if f["finding"] == "not_yet_testable":
         text += f" ({f['covered_share']:.0%} of the contract year covered)"
-    if f.get("p_value") is not None and f["finding"] != "met":
+    if f.get("p_value") is not None and f["finding"] not in ("met", "met_not_shown"):
         text += f" (one-sided p = {f['p_value']:.3g}, level {1 - f['confidence']:.3g})"
     if f["finding"] in ("shortfall_shown", "not_shown", "shortfall_untested") and \
             f.get("energy_short_kwh") is not None:

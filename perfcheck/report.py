@@ -24,7 +24,7 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from perfcheck import analysis, db, figures, kinds, pdf, versions
+from perfcheck import analysis, db, figures, guarantees, kinds, pdf, versions
 from perfcheck.site import Site, Table
 
 # Each metric and detector with its published source (shown in the report and the bundle).
@@ -635,7 +635,7 @@ def guarantee_row(g: dict) -> dict:
         promised, measured = f"loss ≤ {promised} %/yr", f"loss {measured} %/yr"
     return {**g, "promised_text": promised, "measured_text": measured,
             "energy_short_text": _v(kwh_short, "{:,.0f} kWh"),
-            "finding_text": g["finding"].replace("_", " "),
+            "finding_text": guarantees.LABELS[g["finding"]],
             "money_short_text": "n/a" if money is None else
             f"{money:,.2f} {g.get('currency', '')}".rstrip()}
 

@@ -70,7 +70,13 @@ def test_small_shortfall_inside_interval_is_not_shown(tmp_path):
     perf = guarantees.evaluate(site, contract_result(0.795, 0.780, 0.810))[0]
     assert perf["finding"] == "not_shown"
     assert_allclose(perf["p_value"], 0.2568, atol=5e-4)
-    assert guarantees.evaluate(site, contract_result(0.81, 0.795, 0.825))[0]["finding"] == "met"
+    # 0.81 against 0.80 with +-0.015: z = +1.307, the p-value of "kept" is 1 - Phi(1.307) =
+    # 0.096 > 0.05: the point meets the promise but compliance is not shown.
+    kept = guarantees.evaluate(site, contract_result(0.81, 0.795, 0.825))[0]
+    assert kept["finding"] == "met_not_shown"
+    assert "compliance is not shown" in kept["statement"]
+    # 0.83 with +-0.015: z = 3.92, compliance shown.
+    assert guarantees.evaluate(site, contract_result(0.83, 0.815, 0.845))[0]["finding"] == "met"
 
 
 def test_incomplete_contract_years_are_not_yet_testable(tmp_path):
@@ -141,6 +147,17 @@ def test_degradation_inside_interval_of_warranted_curve_is_not_shown(tmp_path):
     assert_allclose(w["promised"], -0.55, atol=1e-9)
     assert_allclose(w["z"], -1.176, atol=1e-3)
     assert w["finding"] == "not_shown"
+
+
+def test_warranty_not_called_met_when_the_interval_crosses_the_promise(tmp_path):
+    site = write_site(tmp_path, WARRANTY)
+    # a measured loss of 0.40 %/yr against 0.55 %/yr warranted, interval -0.90 .. +0.10 %/yr:
+    # the point meets the warranty, the truth may not (z = 0.15 / 0.2551 = 0.588, p of "kept"
+    # 0.278): never "met" (one-sided z test, normal table).
+    (w,) = guarantees.evaluate(site, warranty_result((-0.40, -0.90, 0.10)))
+    assert w["finding"] == "met_not_shown"
+    (w,) = guarantees.evaluate(site, warranty_result((-0.20, -0.30, -0.10)))
+    assert w["finding"] == "met"
 
 
 def test_degradation_breach_hand_worked(tmp_path):
