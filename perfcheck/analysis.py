@@ -437,7 +437,9 @@ def _daily(con: duckdb.DuckDBPyConnection, site: Site, stored: Stored, start: pd
 def series(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: pd.Timestamp,
            stored: Stored | None = None) -> pd.DataFrame:
     """The aligned rows of ``[start, end)`` with the ledger's measured and expected power (the
-    corrected series every figure shows); as aligned while no analysis is stored."""
+    corrected series every figure shows) and the energy clipping at the AC rating and
+    curtailment take from each interval (``clipping_wh``, ``curtailment_wh``); as aligned while
+    no analysis is stored."""
     df = align.load_aligned(con, site, start, end)
     stored = stored or current(con)
     if stored is None:
@@ -448,4 +450,6 @@ def series(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end:
     m = df[["ts", "inverter_id"]].merge(led, on=["ts", "inverter_id"], how="left")
     df["measured_ac_w"] = m["measured_ac_w"].to_numpy(dtype=float)
     df["expected_ac_w"] = m["expected_ac_w"].to_numpy(dtype=float)
+    for col in ("clipping_wh", "curtailment_wh"):
+        df[col] = m[col].fillna(0.0).to_numpy(dtype=float)
     return df

@@ -346,43 +346,29 @@ def fig_shading_map(aligned: pd.DataFrame) -> Figure:
     return fig
 
 
-def fig_limits_by_hour(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
-    """Energy above the AC limit (clipping) and held back by curtailment, by local hour."""
+def fig_limits_by_hour(aligned: pd.DataFrame, tz: str) -> Figure:
+    """Energy the ledger holds for clipping at the AC rating and for curtailment events, by
+    local hour (the ledger's ``clipping_wh`` and ``curtailment_wh``, so its bars sum to the
+    losses table's figures)."""
     fig, (ax,) = _figure()
     _title(ax, "Clipping and curtailment by hour of day")
-    if not len(aligned):
-        _note(ax, "no aligned data in this period")
+    if not len(aligned) or "clipping_wh" not in aligned:
+        _note(ax, "no analysed data in this period")
         return fig
     hour = aligned["ts"].dt.tz_convert(tz).dt.hour
-    clip = energy_kwh((aligned["potential_ac_w"] - aligned["expected_ac_w"]).clip(lower=0),
-                      aligned["interval_s"])
-    in_curt = pd.Series(False, index=aligned.index)
-    for ev in events:
-        if ev.get("kind") == "curtailment":
-            w = (aligned["ts"] >= pd.Timestamp(ev["start"])) & (
-                aligned["ts"] < pd.Timestamp(ev["end"]))
-            in_curt |= w & _in_scope(aligned, ev.get("scope", "plant"))
-    curt = energy_kwh((aligned["expected_ac_w"] - aligned["measured_ac_w"]).clip(lower=0)
-                      .where(in_curt, 0.0), aligned["interval_s"])
-    by = pd.DataFrame({"clip": clip, "curt": curt, "hour": hour}).groupby("hour").sum()
-    by = by.reindex(range(24), fill_value=0.0)
-    ax.bar(by.index, by["clip"], color=kinds.colour("design_clipping"),
+    by = (aligned[["clipping_wh", "curtailment_wh"]].div(1000.0).assign(hour=hour)
+          .groupby("hour").sum().reindex(range(24), fill_value=0.0))
+    ax.bar(by.index, by["clipping_wh"], color=kinds.colour("design_clipping"),
            label=kinds.words("design_clipping"))
-    ax.bar(by.index, by["curt"], bottom=by["clip"], color=kinds.colour("curtailment"),
-           label="curtailment (found events)")
+    ax.bar(by.index, by["curtailment_wh"], bottom=by["clipping_wh"],
+           color=kinds.colour("curtailment"), label="curtailment (found events)")
     ax.set_xticks(range(0, 24, 2))
     ax.set_xlabel("local hour [h]", fontsize=8)
     ax.set_ylabel("energy [kWh]", fontsize=8)
     ax.legend(fontsize=8, frameon=False, loc="upper left")
-    if not (by["clip"].sum() + by["curt"].sum()) > 0:
+    if not by.to_numpy().sum() > 0:
         _note(ax, "no clipping or curtailment in this period")
     return fig
-
-
-def _in_scope(aligned: pd.DataFrame, scope: str) -> pd.Series:
-    if scope.startswith("inverter:"):
-        return aligned["inverter_id"] == scope.split(":", 1)[1]
-    return pd.Series(True, index=aligned.index)
 
 
 def sibling_ratio(aligned: pd.DataFrame, tz: str) -> pd.DataFrame:
@@ -480,9 +466,10 @@ FIGURES: list[tuple[str, str, Callable]] = [
      "in up to four time slices of at least 30 days (one map for a shorter period): a patch "
      "that darkens from slice to slice is an obstruction growing.",
      lambda a, r, tz: fig_shading_map(a)),
-    ("limits_by_hour", "Energy above the inverters' AC limit (clipping, from the unlimited model) "
-     "and held back during curtailment events, by local hour.",
-     lambda a, r, tz: fig_limits_by_hour(a, tz, r.get("events", []))),
+    ("limits_by_hour", "Energy kept at the inverters' AC rating (clipping, by design, not a "
+     "loss) and held back by the curtailment events found, by local hour: the same energies as "
+     "the losses table.",
+     lambda a, r, tz: fig_limits_by_hour(a, tz)),
     ("sibling_ratio", "Each inverter's daily measured/expected divided by the median of the "
      "others: a lasting drop on one line points at that inverter.",
      lambda a, r, tz: fig_sibling_ratio(a, tz)),

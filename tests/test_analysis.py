@@ -126,10 +126,16 @@ def test_one_report_reconciles(plant, tmp_path):
     try:
         start, end = metrics.resolve_period(con, site, None, None)
         paths = report_mod.write_report(con, site, start, end, tmp_path / "r")
+        series = analysis.series(con, site, start, end)
     finally:
         con.close()
     doc = json.loads(paths["json"].read_text())
     losses = doc["losses"]
+    # the clipping-and-curtailment-by-hour figure sums these ledger columns
+    assert series["clipping_wh"].sum() / 1000 == \
+        pytest.approx(losses["design_kwh"].get("design_clipping", 0.0), abs=KWH)
+    assert series["curtailment_wh"].sum() / 1000 == \
+        pytest.approx(losses["by_cause_kwh"].get("curtailment", 0.0), abs=KWH)
     short = losses["expected_kwh"] - losses["measured_kwh"]
     assert math.fsum(losses["by_cause_kwh"].values()) + losses["unexplained_kwh"] == \
         pytest.approx(short, abs=KWH)
