@@ -50,7 +50,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from perfcheck import db, ingest, physics
+from perfcheck import db, ingest, physics, units
 from perfcheck.site import Site
 
 # Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
@@ -190,9 +190,9 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
         chans = channels[channels["interval_min"] == interval]
         con.register("_quality_sel", chans[["quantity", "device"]])
         try:
-            ts = con.execute(
-                "SELECT DISTINCT r.ts FROM readings r "
-                "JOIN _quality_sel s USING (quantity, device) ORDER BY r.ts").df()["ts"]
+            ts = con.execute(  # every stored value, also those the unit check leaves out
+                "SELECT DISTINCT v.ts FROM channel_values v JOIN channels USING (channel_id) "
+                "JOIN _quality_sel s USING (quantity, device) ORDER BY v.ts").df()["ts"]
         finally:
             con.unregister("_quality_sel")
         if len(ts):
@@ -211,8 +211,10 @@ def stale(con: duckdb.DuckDBPyConnection) -> bool:
 
 
 def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
-    """Recompute all flags from the stored readings, in one transaction that also records the
-    newest file they include (see :func:`stale`); returns the count per flag name."""
+    """Recompute the unit check (:func:`perfcheck.units.run`) and all flags from the stored
+    readings, in one transaction that also records the newest file they include (see
+    :func:`stale`); returns the count per flag name, of suspected unit errors and of
+    corrected (file, channel) pairs."""
     channels = channel_limits(site, ingest.channel_intervals(con))
     sun = _sun_for_readings(con, site, channels)
     params = {
@@ -233,6 +235,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     try:
         con.execute("BEGIN TRANSACTION")
         try:
+            checked = units.run(con, site)  # before the flags: they read corrected values
             con.execute("DELETE FROM flags")
             for name in FLAG_NAMES:
                 query = db.sql(f"quality_{name}")
@@ -248,7 +251,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     finally:
         con.unregister("_quality_channels")
         con.unregister("_quality_sun")
-    return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
+    return {**{name: int(counts.get(name, 0)) for name in FLAG_NAMES}, **checked}
 
 
 __all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "stale", "sun_table"]

@@ -91,10 +91,21 @@ CREATE TABLE IF NOT EXISTS reading_values (
 CREATE VIEW IF NOT EXISTS channel_values AS
 SELECT ts, channel_id, value, file_id, line FROM reading_values;
 
--- What later stages read: one row per (instant, quantity, device).
+-- Per (file, channel), what the quality stage's unit check decided (perfcheck/units.py): the
+-- values are multiplied by factor (a [[corrections]] entry of the site file), or left out while
+-- factor is NULL (a suspected unit error the site file has not settled). Rebuilt by units.run.
+CREATE TABLE IF NOT EXISTS unit_adjust (
+    file_id    INTEGER NOT NULL,
+    channel_id SMALLINT NOT NULL,
+    factor     DOUBLE
+);
+
+-- What later stages read: one row per (instant, quantity, device), unit corrections applied.
 CREATE OR REPLACE VIEW readings AS
-SELECT v.ts, c.quantity, c.device, v.value, v.file_id, v.line
-FROM channel_values v JOIN channels c USING (channel_id);
+SELECT v.ts, c.quantity, c.device, v.value * coalesce(a.factor, 1.0) AS value, v.file_id, v.line
+FROM channel_values v JOIN channels c USING (channel_id)
+LEFT JOIN unit_adjust a ON a.file_id = v.file_id AND a.channel_id = v.channel_id
+WHERE a.file_id IS NULL OR a.factor IS NOT NULL;
 
 -- Input rows that were not loaded, with their raw text and why. ts is the line's own instant
 -- where it could be read, else that of the nearest readable line before it in the file (for
