@@ -202,12 +202,14 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
     return pd.concat(frames, ignore_index=True)
 
 
-def stale(con: duckdb.DuckDBPyConnection) -> bool:
+def stale(con: duckdb.DuckDBPyConnection, site: Site | None = None) -> bool:
     """True when files were ingested after the flags were last computed (a run killed
-    between a file's commit and the flags' commit, or flags never computed)."""
+    between a file's commit and the flags' commit, or flags never computed), or, given the
+    site, when its ``[[corrections]]`` changed since the unit check last ran."""
     newest, state = con.execute("SELECT (SELECT max(file_id) FROM source_files), "
                                 "(SELECT max(last_file_id) FROM quality_state)").fetchall()[0]
-    return newest is not None and newest != state
+    return newest is not None and (newest != state or (
+        site is not None and not units.current(con, site)))
 
 
 def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:

@@ -90,6 +90,8 @@ RATING_BAND = (1 / 1.2, 50.0)  # rating / level over a prefix factor
 SUN_CORR_MIN = 0.3
 SUN_MIN_ROWS = 50
 POWER = ("ac_power_w", "dc_power_w")
+REFERENCE_WORDS = {"energy": "the same inverter's energy", "other files": "the other files of "
+                   "the column", "rating": "the rating"}
 
 
 @dataclass(frozen=True)
@@ -363,7 +365,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
 
 
 def report(con: duckdb.DuckDBPyConnection) -> dict[str, list[dict]]:
-    """The stored findings and corrections, with each file's path, for the check document."""
+    """The stored findings and corrections, with each file's name, for the check document."""
     found = con.execute(
         "SELECT s.path AS file, u.column_name AS column, u.quantity, u.device, u.factor, "
         "u.reference, u.detail FROM unit_findings u JOIN source_files s USING (file_id) "
@@ -372,9 +374,28 @@ def report(con: duckdb.DuckDBPyConnection) -> dict[str, list[dict]]:
         "SELECT s.path AS file, u.column_name AS column, u.quantity, u.device, u.factor, "
         "u.rule, u.reason FROM unit_corrections u JOIN source_files s USING (file_id) "
         "ORDER BY s.path, u.column_name").df()
+    for frame in (found, fixed):  # the name, as globs match it (paths differ on re-runs)
+        frame["file"] = [Path(p).name for p in frame["file"]]
     return {"suspected_unit_errors": found.to_dict("records"),
             "unit_corrections": fixed.to_dict("records")}
 
 
+def words(data_quality: dict) -> list[str]:
+    """One sentence per suspected unit error and per applied correction of a check
+    document's ``data_quality``, as ``check`` and the report show them."""
+    out = []
+    for f in data_quality.get("suspected_unit_errors", []):
+        way = "low" if f["factor"] > 1 else "high"
+        size = f["factor"] if f["factor"] > 1 else 1 / f["factor"]
+        out.append(f"Suspected unit error: {f['file']}, column {f['column']}: the values look "
+                   f"{size:g} times too {way} (against {REFERENCE_WORDS[f['reference']]}: "
+                   f"{f['detail']}); they are left out of the metrics and the findings until "
+                   "a [[corrections]] entry of the site file settles it.")
+    for c in data_quality.get("unit_corrections", []):
+        out.append(f"Unit correction: {c['file']}, column {c['column']} multiplied by "
+                   f"{c['factor']:g} ({c['rule']}): {c['reason']}")
+    return out
+
+
 __all__ = ["CLEAN_FACTORS", "Correction", "clean_factor", "current", "decide",
-           "load_corrections", "rating_factor", "report", "run"]
+           "load_corrections", "rating_factor", "report", "run", "words"]

@@ -9,15 +9,19 @@ inverter ran normally all along.
 
 from __future__ import annotations
 
+import json
 import math
+import zipfile
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pvlib
 import pytest
+from click.testing import CliRunner
 
 from perfcheck import analysis, db, pipeline, units
+from perfcheck.cli import main
 from perfcheck.errors import SiteFileError
 from perfcheck.site import load_site
 
@@ -113,7 +117,7 @@ def test_power_in_kw_under_w_is_a_finding_not_an_outage(tmp_path):
     assert [e for e in doc["events"] if "outage" in e["kind"]] == []
     (finding,) = doc["data_quality"]["suspected_unit_errors"]
     assert (finding["file"], finding["column"], finding["factor"]) == (
-        str(files[1]), "P_AC", 1000.0)
+        files[1].name, "P_AC", 1000.0)
     assert doc["metrics"]["period"]["availability"] == 1.0
 
 
@@ -217,3 +221,32 @@ def test_energy_pair_decides_and_a_steady_ratio_is_needed():
     # a scattered ratio (noise) decides nothing
     noisy = {"n": 400, "q25": 0.05, "q50": 0.25, "q75": 2.0}
     assert units.decide({**level, "p99": 1.2e4}, noisy, [], True, 50_000.0, 15) is None
+
+
+def test_check_text_report_and_bundle_show_the_finding_and_verify_reruns_it(tmp_path):
+    fix = ('\n[[corrections]]\nfiles = "inv1_2024-06a.csv"\ncolumn = "E_AC"\nfactor = 1\n'
+           'reason = "energy column checked against the meter (invented)"\n')
+    site, con, files = _plant(tmp_path, fix)
+    con.close()
+    runner = CliRunner()
+    db_path = str(tmp_path / "site.duckdb")
+    site_path = str(tmp_path / "site.toml")
+    for args in (["ingest", site_path, *map(str, files), "--db", db_path],
+                 ["model", site_path, "--db", db_path]):
+        assert runner.invoke(main, args).exit_code == 0
+    out = runner.invoke(main, ["check", site_path, "--db", db_path])
+    assert out.exit_code == 0, out.output
+    assert (f"Suspected unit error: {files[1].name}, column P_AC: the values look 1000 times too "
+            "low (against the same inverter's energy: median ratio to the same inverter's "
+            "energy 0.001") in out.stdout
+    assert (f"Unit correction: {files[0].name}, column E_AC multiplied by 1 (corrections[0] (files "
+            "'inv1_2024-06a.csv')): energy column checked") in out.stdout
+    zipped = tmp_path / "claim.zip"
+    out = runner.invoke(main, ["evidence", site_path, "--db", db_path, "--from", "2024-06-01",
+                               "--to", "2024-06-20", "--out", str(zipped)])
+    assert out.exit_code == 0, out.output
+    with zipfile.ZipFile(zipped) as z:
+        doc = json.loads(z.read("results/check.json"))
+    assert [f["column"] for f in doc["data_quality"]["suspected_unit_errors"]] == ["P_AC"]
+    ok = runner.invoke(main, ["verify", str(zipped)])
+    assert ok.exit_code == 0, ok.output

@@ -70,7 +70,7 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
         results = ingest.ingest_files(con, site, paths,
                                       progress=lambda r: click.echo(format_result(r)))
         click.echo(format_totals(results))
-        if any(r.status == "loaded" for r in results) or quality.stale(con):
+        if any(r.status == "loaded" for r in results) or quality.stale(con, site):
             counts = quality.run(con, site)
             click.echo("quality flags: " + ", ".join(f"{k} {v}" for k, v in counts.items()))
     finally:
