@@ -134,15 +134,27 @@ def load_corrections(site: Site) -> tuple[Correction, ...]:
     return tuple(out)
 
 
-def corrections_digest(site: Site) -> str:
-    return hashlib.sha256(json.dumps(site.raw.get("corrections", []), sort_keys=True,
-                                     default=str).encode()).hexdigest()
+def read_digest(site: Site) -> str:
+    """Digest of the site-file settings that change how stored values are read: the
+    ``[[corrections]]`` and each historian logger's ``carry_forward_min``."""
+    settings = {"corrections": site.raw.get("corrections", []),
+                "carry": {lg.name: lg.carry_forward_min for lg in site.loggers}}
+    return hashlib.sha256(json.dumps(settings, sort_keys=True, default=str).encode()
+                          ).hexdigest()
 
 
 def current(con: duckdb.DuckDBPyConnection, site: Site) -> bool:
-    """True when the unit check last ran with the site file's present ``[[corrections]]``."""
+    """True when the quality stage last ran with the site file's present read settings
+    (:func:`read_digest`)."""
     row = con.execute("SELECT corrections_sha256 FROM unit_state").fetchall()
-    return bool(row) and row[0][0] == corrections_digest(site)
+    return bool(row) and row[0][0] == read_digest(site)
+
+
+def recompute_from(con: duckdb.DuckDBPyConnection, file_id: int) -> None:
+    """Make the model recompute the intervals of the readings of files from ``file_id`` on,
+    and the alignment everything (the values of a file read differently changed)."""
+    con.execute("UPDATE model_runs SET last_file_id = least(last_file_id, ?)", [file_id - 1])
+    con.execute("DELETE FROM align_state")
 
 
 # --------------------------------------------------------------------------------------------
@@ -355,12 +367,10 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
         con.executemany("INSERT INTO unit_corrections VALUES (?, ?, ?, ?, ?, ?, ?)",
                         [(f, *rest) for f, _, *rest in fixed])
     con.execute("DELETE FROM unit_state")
-    con.execute("INSERT INTO unit_state VALUES (?)", [corrections_digest(site)])
+    con.execute("INSERT INTO unit_state VALUES (?)", [read_digest(site)])
     changed = {r[0] for r in set(before) ^ {tuple(a) for a in after}}
-    if changed:  # readings of these files changed: model them again, realign everything
-        con.execute("UPDATE model_runs SET last_file_id = least(last_file_id, ?)",
-                    [min(changed) - 1])
-        con.execute("DELETE FROM align_state")
+    if changed:
+        recompute_from(con, min(changed))
     return {"suspected_unit_errors": len(found), "unit_corrections": len(fixed)}
 
 
@@ -398,4 +408,5 @@ def words(data_quality: dict) -> list[str]:
 
 
 __all__ = ["CLEAN_FACTORS", "Correction", "clean_factor", "current", "decide",
-           "load_corrections", "rating_factor", "report", "run", "words"]
+           "load_corrections", "rating_factor", "read_digest", "recompute_from", "report", "run",
+           "words"]

@@ -100,10 +100,26 @@ CREATE TABLE IF NOT EXISTS unit_adjust (
     factor     DOUBLE
 );
 
--- What later stages read: one row per (instant, quantity, device), unit corrections applied.
+-- Values of a report-by-exception historian carried forward on its interval grid (a value
+-- holds until the next one of its point, up to the logger's carry_forward_min), each with the
+-- file and line it was read from. Derived, never compared at ingest; rebuilt by the quality
+-- stage (sql/quality_carry.sql).
+CREATE TABLE IF NOT EXISTS carried_values (
+    ts         TIMESTAMPTZ NOT NULL,
+    channel_id SMALLINT NOT NULL,
+    value      DOUBLE NOT NULL,
+    file_id    INTEGER NOT NULL,
+    line       INTEGER NOT NULL
+);
+
+-- What later stages read: one row per (instant, quantity, device), carried values included and
+-- unit corrections applied.
 CREATE OR REPLACE VIEW readings AS
 SELECT v.ts, c.quantity, c.device, v.value * coalesce(a.factor, 1.0) AS value, v.file_id, v.line
-FROM channel_values v JOIN channels c USING (channel_id)
+FROM (SELECT ts, channel_id, value, file_id, line FROM channel_values
+      UNION ALL
+      SELECT ts, channel_id, value, file_id, line FROM carried_values) v
+JOIN channels c USING (channel_id)
 LEFT JOIN unit_adjust a ON a.file_id = v.file_id AND a.channel_id = v.channel_id
 WHERE a.file_id IS NULL OR a.factor IS NOT NULL;
 
