@@ -237,10 +237,8 @@ def stale(con: duckdb.DuckDBPyConnection, site: Site | None = None) -> bool:
 
 def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     """Recompute the carried values, the unit check (:func:`perfcheck.units.run`) and all
-    flags from the stored
-    readings, in one transaction that also records the newest file they include (see
-    :func:`stale`); returns the count per flag name, of suspected unit errors and of
-    corrected (file, channel) pairs."""
+    flags from the stored readings, in one transaction that also records the newest file they
+    include (see :func:`stale`); returns the count per flag name."""
     channels = channel_limits(site, ingest.channel_intervals(con))
     sun = _sun_for_readings(con, site, channels)
     params = {
@@ -262,7 +260,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
         con.execute("BEGIN TRANSACTION")
         try:
             carry_forward(con, site)
-            checked = units.run(con, site)  # before the flags: they read corrected values
+            units.run(con, site)  # before the flags: they read corrected values
             con.execute("DELETE FROM flags")
             for name in FLAG_NAMES:
                 query = db.sql(f"quality_{name}")
@@ -278,7 +276,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     finally:
         con.unregister("_quality_channels")
         con.unregister("_quality_sun")
-    return {**{name: int(counts.get(name, 0)) for name in FLAG_NAMES}, **checked}
+    return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
 
 
 __all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "stale", "sun_table"]

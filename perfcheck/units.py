@@ -44,12 +44,14 @@ The rule, per file and column (``decide``), using the values as stored:
 
 False alarms of steps 2 and 3: a month's peak differs from another month's by the season and
 the weather, at most about 4 times (the darkest month of a working plant still peaks above
-1/50 of its rating: common practice), far from 1000. An inverter that is stopped or nearly
-so writes zeros or noise: its positive values do not follow the sun (correlation with the
-cosine of the zenith over daylight below :data:`SUN_CORR_MIN`; noise has a correlation
-near 0 with a standard error of 1/sqrt(n), n at least :data:`SUN_MIN_ROWS`), so it is never
-taken for a unit error, and the outage detector still sees it. Only a column whose level is
-implausible for its rating can be a finding in steps 2 and 3.
+1/50 of its rating: common practice), far from 1000. An inverter that is stopped or nearly so
+writes zeros or noise, whose daylight values do not follow the sun (:func:`follows_the_sun`:
+noise has a correlation with the cosine of the zenith near 0, standard error 1/sqrt(n)), so it
+is never taken for a unit error, and the outage detector still sees it. Only a column whose
+level is implausible for its rating can be a finding in steps 2 and 3. A limit: modules under
+snow for a whole file's period, still yielding a trace that follows the sun at 1/250 to 1/4000
+of the other files' level, would be taken for a factor 1000; the finding then says so, the
+readings are left out (a gap, not an outage), and ``factor = 1`` in a correction lifts it.
 
 The comparison with the expected series is not made here (the quality stage runs before the
 model); the rating and the sun stand in for it.
@@ -87,7 +89,8 @@ MIN_SHARE = 0.02  # of the rating (x interval): the reference shows production
 LEVEL_TOLERANCE = 4.0  # season and weather: one file's peak against another's
 PLAUSIBLE_SHARE = (1 / 50, 1.2)  # a working column's 99th percentile over its rating
 RATING_BAND = (1 / 1.2, 50.0)  # rating / level over a prefix factor
-SUN_CORR_MIN = 0.3
+SUN_CORR_MIN = 0.15  # and at least SUN_CORR_SIGMAS / sqrt(n) (noise: standard error 1/sqrt(n))
+SUN_CORR_SIGMAS = 4.0
 SUN_MIN_ROWS = 50
 POWER = ("ac_power_w", "dc_power_w")
 REFERENCE_WORDS = {"energy": "the same inverter's energy", "other files": "the other files of "
@@ -171,6 +174,15 @@ def clean_factor(ratio: float, factors: tuple[float, ...], tolerance: float) -> 
     return best if abs(math.log(ratio / best)) <= math.log(tolerance) else None
 
 
+def follows_the_sun(corr: float | None, n: int) -> bool:
+    """Whether values correlate with the cosine of the sun's zenith over ``n`` daylight rows
+    beyond what noise gives: at least :data:`SUN_MIN_ROWS` rows and a correlation of at least
+    :data:`SUN_CORR_MIN` and :data:`SUN_CORR_SIGMAS` standard errors (1/sqrt(n) for values
+    unrelated to the sun; one-sided chance about 3e-5)."""
+    return corr is not None and n >= SUN_MIN_ROWS and corr >= max(
+        SUN_CORR_MIN, SUN_CORR_SIGMAS / math.sqrt(n))
+
+
 def near_one(ratio: float, tolerance: float) -> bool:
     return ratio > 0 and abs(math.log(ratio)) <= math.log(tolerance)
 
@@ -198,8 +210,7 @@ def decide(level: dict, pair: dict | None, others: list[float], partner_plausibl
     """
     p99 = level.get("p99")
     plausible = p99 is not None and PLAUSIBLE_SHARE[0] <= p99 / rating <= PLAUSIBLE_SHARE[1]
-    follows_sun = (level.get("n_day") or 0) >= SUN_MIN_ROWS and (
-        level.get("sun_corr") or 0) >= SUN_CORR_MIN
+    follows_sun = follows_the_sun(level.get("sun_corr"), level.get("n_day") or 0)
     if pair is not None and pair["n"] >= PAIR_MIN and pair["q25"] > 0 \
             and pair["q75"] / pair["q25"] <= PAIR_SPREAD:
         x = 1 / pair["q50"]
@@ -312,9 +323,9 @@ def findings(site: Site, levels: pd.DataFrame, pairs: pd.DataFrame,
         key = (int(r.file_id), int(r.channel_id))
         if key in settled:
             continue
-        others = levels[(levels["channel_id"] == r.channel_id) & (levels["file_id"] != r.file_id)
-                        & (levels["n_day"] >= SUN_MIN_ROWS)
-                        & (levels["sun_corr"] >= SUN_CORR_MIN)]["p99"].dropna().tolist()
+        same = levels[(levels["channel_id"] == r.channel_id) & (levels["file_id"] != r.file_id)]
+        others = [o.p99 for o in same.itertuples() if pd.notna(o.p99) and follows_the_sun(
+            o.sun_corr if pd.notna(o.sun_corr) else None, int(o.n_day))]
         partner = [share.get((q, r.device)) for q in
                    (("energy_interval_wh",) if r.quantity in POWER else ("ac_power_w",))]
         partner_ok = all(s is None or PLAUSIBLE_SHARE[0] <= s <= PLAUSIBLE_SHARE[1]
