@@ -342,6 +342,16 @@ def findings(site: Site, levels: pd.DataFrame, pairs: pd.DataFrame,
     return out
 
 
+def factor_macro(adjust: list[tuple[int, int, float | None]]) -> str:
+    """The ``unit_factor(file_id, channel_id)`` macro that ``readings`` multiplies by: for
+    each (file id, channel id, factor) of ``adjust`` that factor (NULL: left out), else 1.
+    Only integers and floats reach the SQL text."""
+    cases = " ".join(f"WHEN file_id = {int(f)} AND channel_id = {int(c)} THEN "
+                     f"{'NULL' if k is None else repr(float(k))}::DOUBLE" for f, c, k in adjust)
+    body = f"CASE {cases} ELSE 1.0::DOUBLE END" if adjust else "1.0::DOUBLE"
+    return f"CREATE OR REPLACE MACRO unit_factor(file_id, channel_id) AS {body}"
+
+
 def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     """Recompute ``unit_findings``, ``unit_corrections`` and ``unit_adjust`` inside the
     caller's transaction, with the sun table ``_quality_sun`` registered (quality.run). When
@@ -371,6 +381,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     con.execute("DELETE FROM unit_corrections")
     if after:
         con.executemany("INSERT INTO unit_adjust VALUES (?, ?, ?)", after)
+    if after or before:
+        con.execute(factor_macro(after))
     if found:
         con.executemany("INSERT INTO unit_findings VALUES (?, ?, ?, ?, ?, ?, ?)",
                         [(f, *rest) for f, _, *rest in found])

@@ -250,3 +250,23 @@ def test_check_text_report_and_bundle_show_the_finding_and_verify_reruns_it(tmp_
     assert [f["column"] for f in doc["data_quality"]["suspected_unit_errors"]] == ["P_AC"]
     ok = runner.invoke(main, ["verify", str(zipped)])
     assert ok.exit_code == 0, ok.output
+
+
+def test_other_files_of_the_column_are_a_reference():
+    low = {"p99": 47.0, "n_day": 900, "sun_corr": 0.7}
+    # two healthy months peaking at 45 and 48 kW: this one at 47 "W" is 1000 too low
+    assert units.decide(low, None, [45_000.0, 48_000.0], True, 50_000.0, 15)[:2] == (
+        1000.0, "other files")
+    # a dark month at 1/30 of the rating, a sixth of the others: no finding (season)
+    assert units.decide({**low, "p99": 1_600.0}, None, [9_000.0, 10_000.0], True, 50_000.0,
+                        15) is None
+
+
+def test_follows_the_sun_needs_more_than_noise():
+    # values unrelated to the sun: correlation ~ N(0, 1/n) (Fisher 1915, large n); 4 standard
+    # errors at n = 100 is 0.4, at n = 10 000 the floor of 0.15 applies
+    assert not units.follows_the_sun(0.3, 100)
+    assert units.follows_the_sun(0.45, 100)
+    assert units.follows_the_sun(0.16, 10_000)
+    assert not units.follows_the_sun(0.9, 20)  # too few daylight rows
+    assert not units.follows_the_sun(None, 1000)
