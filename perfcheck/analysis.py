@@ -28,18 +28,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import (
-    align,
-    db,
-    detect,
-    guarantees,
-    ingest,
-    kinds,
-    metrics,
-    status,
-    units,
-    versions,
-)
+from perfcheck import align, db, detect, guarantees, ingest, kinds, metrics, status, units, versions
 from perfcheck.detect.attribution import Ledger
 from perfcheck.detect.common import Event, _jsonable
 from perfcheck.errors import DataError
