@@ -73,10 +73,11 @@ unit = "C"
 """
 
 
-def _export(start: str, days: int, power_scale: float) -> str:
+def _export(start: str, days: int, power_scale: float, stopped: bool = False) -> str:
     """An invented export: clear-sky plane-of-array irradiance (Ineichen through pvlib's
     Location), power 0.8 x irradiance x 60 kWp / 1000 capped at the 50 kW rating, the
-    interval energy power x 0.25 h, air at 20 C; power written times ``power_scale``."""
+    interval energy power x 0.25 h, air at 20 C; power written times ``power_scale``. A
+    ``stopped`` inverter writes noise of 0 to 5 W and no energy."""
     times = pd.date_range(start, periods=days * 96, freq="15min", tz="UTC")
     loc = pvlib.location.Location(48.0, 11.0, altitude=500)
     mid = times + pd.Timedelta("7.5min")
@@ -86,17 +87,20 @@ def _export(start: str, days: int, power_scale: float) -> str:
                                                 sun["azimuth"], cs["dni"], cs["ghi"],
                                                 cs["dhi"])["poa_global"].fillna(0).to_numpy()
     power = np.minimum(0.8 * poa * 60.0, 50_000.0)
+    if stopped:
+        power = np.random.default_rng(1).uniform(0.0, 5.0, len(times))
     lines = ["ts,P_AC,E_AC,G_POA,T_AMB", ",W,Wh,W/m2,°C"]
     for t, p, g in zip(times, power, poa, strict=True):
         lines.append(f"{t.isoformat()},{p * power_scale:.3f},{p * 0.25:.0f},{g:.1f},20")
     return "\n".join(lines) + "\n"
 
 
-def _plant(tmp_path: Path, corrections: str = "") -> tuple:
+def _plant(tmp_path: Path, corrections: str = "", stopped: bool = False) -> tuple:
     (tmp_path / "site.toml").write_text(SITE + corrections)
     good, bad = tmp_path / "inv1_2024-06a.csv", tmp_path / "inv1_2024-06b.csv"
     good.write_text(_export("2024-06-01", 10, 1.0))
-    bad.write_text(_export("2024-06-11", 10, 1e-3))  # kW under a units row saying W
+    # kW under a units row saying W, or (stopped) an inverter that really stopped
+    bad.write_text(_export("2024-06-11", 10, 1e-3 if not stopped else 1.0, stopped))
     site = load_site(tmp_path / "site.toml")
     return site, db.connect(tmp_path / "site.duckdb"), [good, bad]
 
@@ -119,6 +123,16 @@ def test_power_in_kw_under_w_is_a_finding_not_an_outage(tmp_path):
     assert (finding["file"], finding["column"], finding["factor"]) == (
         files[1].name, "P_AC", 1000.0)
     assert doc["metrics"]["period"]["availability"] == 1.0
+
+
+def test_a_stopped_inverter_is_an_outage_not_a_unit_error(tmp_path):
+    # the truth here: the inverter stopped on 2024-06-11 (noise of a few W, no energy)
+    site, con, files = _plant(tmp_path, stopped=True)
+    pipeline.update(con, site, files)
+    assert con.execute("SELECT count(*) FROM unit_findings").fetchone() == (0,)
+    doc = pipeline.view(con, site, pd.Timestamp("2024-06-01", tz="UTC"),
+                        pd.Timestamp("2024-06-21", tz="UTC"))
+    assert [e["kind"] for e in doc["events"] if "outage" in e["kind"]] == ["outage"]
 
 
 def test_a_correction_settles_the_finding_and_is_recorded(tmp_path):
