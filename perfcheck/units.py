@@ -118,12 +118,13 @@ def load_corrections(site: Site) -> tuple[Correction, ...]:
     the key)."""
     top = Table({"corrections": site.raw.get("corrections")} if "corrections" in site.raw
                 else {}, "", site.path)
-    mapped = {c.name for lg in site.loggers for c in lg.columns}
+    mapped = {c.name for lg in site.loggers for c in lg.columns if c.quantity != "status"}
     out = []
     for t in top.tables("corrections", required=False):
         column = t.get("column", str)
         if column not in mapped:
-            raise t._err("column", f"{column!r} is not a column of any [[loggers]] entry")
+            raise t._err("column", f"{column!r} is not a measured column of any [[loggers]] "
+                         "entry (status codes have no unit)")
         factor = t.number("factor", None, lo=1e-9, hi=1e9)
         unit = t.get("unit", str, None)
         if (factor is None) == (unit is None):

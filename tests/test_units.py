@@ -185,8 +185,8 @@ def test_two_equally_specific_corrections_are_an_error(tmp_path):
 
 
 @pytest.mark.parametrize("body, message", [
-    ('column = "P"\nfactor = 2\nreason = "x"', "corrections[0].column: 'P' is not a column of "
-     "any [[loggers]] entry"),
+    ('column = "P"\nfactor = 2\nreason = "x"', "corrections[0].column: 'P' is not a measured "
+     "column of any [[loggers]] entry (status codes have no unit)"),
     ('column = "P_AC"\nreason = "x"', "corrections[0].factor: give either factor"),
     ('column = "P_AC"\nunit = "K"\nreason = "x"', "corrections[0].unit: 'K' is not one of"),
     ('column = "P_AC"\nfactor = 1000\nreason = " "', "corrections[0].reason: say why"),
