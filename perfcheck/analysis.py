@@ -28,7 +28,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import align, db, detect, guarantees, ingest, kinds, metrics, status, versions
+from perfcheck import align, db, detect, guarantees, ingest, kinds, metrics, status, units, versions
 from perfcheck.detect.attribution import Ledger
 from perfcheck.detect.common import Event, _jsonable
 from perfcheck.errors import DataError
@@ -410,6 +410,7 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
         "degradation": json.loads(degradation),
         "guarantees": [],
         "revisions": revisions(con, site, stored, start, end),
+        "data_quality": units.report(con),
         "analysis": {"id": stored.id, "input_hash": stored.input_hash,
                      "history_start": metrics.local_iso(stored.first_ts, site),
                      "history_end": metrics.local_iso(stored.end_ts, site)},

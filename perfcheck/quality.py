@@ -24,6 +24,10 @@ stored readings, in DuckDB SQL (window functions over each channel in time order
     AC power above :data:`POWER_SHARE` of the rating while the plane-of-array (else global)
     irradiance of the same interval is below :data:`IRRADIANCE_FLOOR_WM2`, or the sun is down.
 
+Before the flags, the stage rebuilds what changes how stored values are read: the carried
+values of report-by-exception historians (:func:`carry_forward`) and the unit check with the
+site file's corrections (:func:`perfcheck.units.run`).
+
 The sun position is computed once per distinct interval mid-point by the SPA of
 :func:`perfcheck.physics.solar_position` (the one the model uses).
 
@@ -50,7 +54,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from perfcheck import db, ingest, physics
+from perfcheck import db, ingest, physics, units
 from perfcheck.site import Site
 
 # Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
@@ -190,9 +194,9 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
         chans = channels[channels["interval_min"] == interval]
         con.register("_quality_sel", chans[["quantity", "device"]])
         try:
-            ts = con.execute(
-                "SELECT DISTINCT r.ts FROM readings r "
-                "JOIN _quality_sel s USING (quantity, device) ORDER BY r.ts").df()["ts"]
+            ts = con.execute(  # every stored value, also those the unit check leaves out
+                "SELECT DISTINCT v.ts FROM channel_values v JOIN channels USING (channel_id) "
+                "JOIN _quality_sel s USING (quantity, device) ORDER BY v.ts").df()["ts"]
         finally:
             con.unregister("_quality_sel")
         if len(ts):
@@ -202,17 +206,39 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
     return pd.concat(frames, ignore_index=True)
 
 
-def stale(con: duckdb.DuckDBPyConnection) -> bool:
+def carry_forward(con: duckdb.DuckDBPyConnection, site: Site) -> None:
+    """Rebuild ``carried_values`` (sql/quality_carry.sql) for the historian loggers with
+    ``carry_forward_min`` (report-by-exception data), inside the caller's transaction; when
+    they change, the model and the alignment recompute the files concerned."""
+    con.execute("CREATE OR REPLACE TEMP TABLE _carried_before AS FROM carried_values")
+    con.execute("DELETE FROM carried_values")
+    for lg in site.loggers:
+        if lg.carry_forward_min is not None:
+            con.execute(db.sql("quality_carry"), {"logger": lg.name, "iv": 60 * lg.interval_min,
+                                                  "limit": 60 * lg.carry_forward_min})
+    first = con.execute("SELECT min(file_id) FROM ((FROM _carried_before EXCEPT ALL FROM "
+                        "carried_values) UNION ALL (FROM carried_values EXCEPT ALL FROM "
+                        "_carried_before))").fetchone()[0]
+    con.execute("DROP TABLE _carried_before")
+    if first is not None:
+        units.recompute_from(con, int(first))
+
+
+def stale(con: duckdb.DuckDBPyConnection, site: Site | None = None) -> bool:
     """True when files were ingested after the flags were last computed (a run killed
-    between a file's commit and the flags' commit, or flags never computed)."""
+    between a file's commit and the flags' commit, or flags never computed), or, given the
+    site, when the settings that change how stored values are read (``[[corrections]]``,
+    ``carry_forward_min``) changed since the stage last ran."""
     newest, state = con.execute("SELECT (SELECT max(file_id) FROM source_files), "
                                 "(SELECT max(last_file_id) FROM quality_state)").fetchall()[0]
-    return newest is not None and newest != state
+    return newest is not None and (newest != state or (
+        site is not None and not units.current(con, site)))
 
 
 def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
-    """Recompute all flags from the stored readings, in one transaction that also records the
-    newest file they include (see :func:`stale`); returns the count per flag name."""
+    """Recompute the carried values, the unit check (:func:`perfcheck.units.run`) and all
+    flags from the stored readings, in one transaction that also records the newest file they
+    include (see :func:`stale`); returns the count per flag name."""
     channels = channel_limits(site, ingest.channel_intervals(con))
     sun = _sun_for_readings(con, site, channels)
     params = {
@@ -233,6 +259,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     try:
         con.execute("BEGIN TRANSACTION")
         try:
+            carry_forward(con, site)
+            units.run(con, site)  # before the flags: they read corrected values
             con.execute("DELETE FROM flags")
             for name in FLAG_NAMES:
                 query = db.sql(f"quality_{name}")

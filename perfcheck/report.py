@@ -24,7 +24,7 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from perfcheck import analysis, db, figures, guarantees, kinds, pdf, versions
+from perfcheck import analysis, db, figures, guarantees, kinds, pdf, units, versions
 from perfcheck.site import Site, Table
 
 # Each metric and detector with its published source (shown in the report and the bundle).
@@ -555,6 +555,7 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "quarantine_head": QUARANTINE_HEAD, "quarantine_lead": QUARANTINE_LEAD,
         "quarantine_more_text": quarantine_more_text(
             max(0, len(quality.get("quarantine", [])) - QUARANTINE_SHOWN)),
+        "unit_notes": units.words(result.get("data_quality", {})),
         "flags": [{**f, "quantity_words": device_words(f["quantity"], f["device"]),
                    "flag_words": f["flag"].replace("_", " ")} for f in quality.get("flags", [])],
         "monthly_head": ["Month"] + [h for _, h, _ in MONTHLY_COLUMNS],
@@ -772,6 +773,7 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
         b.append(("table", (QUARANTINE_HEAD, ctx["quarantine"])))
         if ctx["quarantine_more"]:
             b.append(("para", quarantine_more_text(ctx["quarantine_more"])))
+    b += [("para", note) for note in ctx["unit_notes"]]
     if ctx["flags"]:
         b.append(("para", "Quality flags (readings are never deleted; flagged readings are left "
                           "out of the metrics):"))

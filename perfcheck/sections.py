@@ -2,12 +2,12 @@
 typo in ``[detect]`` fails the first command rather than the fourth.
 
 Each stage owns the rules of its section (``[metrics]``, ``[detect]``, ``[report]``,
-``[guarantees]``); this module only calls them all.
+``[guarantees]``, ``[[corrections]]``); this module only calls them all.
 """
 
 from __future__ import annotations
 
-from perfcheck import detect, guarantees, metrics, report
+from perfcheck import detect, guarantees, metrics, report, units
 from perfcheck.site import Site
 
 
@@ -17,4 +17,5 @@ def validate(site: Site) -> Site:
     detect.load_settings(site)
     report.report_settings(site)
     guarantees.settings(site)
+    units.load_corrections(site)
     return site

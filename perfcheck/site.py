@@ -208,6 +208,9 @@ class Logger:
     # historian-style tall: one row per time, device and point; columns[].name is the point
     point_column: str | None = None
     value_column: str | None = None
+    # report-by-exception historian: a point's value holds, on the interval grid, until the
+    # next value of that point, for at most this many minutes (None: values are not carried)
+    carry_forward_min: int | None = None
 
 
 @dataclass(frozen=True)
@@ -555,6 +558,12 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
                      "device)")
     if point_column is not None and t.data.get("units_row"):
         raise t._err("units_row", "a historian export (point_column) has no units row")
+    carry = t.get("carry_forward_min", int, None)
+    if carry is not None and point_column is None:
+        raise t._err("carry_forward_min", "only a historian export (point_column) writes a "
+                     "value only when it changed")
+    if carry is not None and not 1 <= carry <= 1440:
+        raise t._err("carry_forward_min", f"{carry} is outside the range 1 to 1440")
     tables = t.tables("columns")
     columns = tuple(_column(c, inverter_ids, device_column is not None) for c in tables)
     names = [c.name for c in columns] + list(time.columns) + [device_column] * bool(
@@ -583,6 +592,7 @@ def _logger(t: Table, inverter_ids: set[str]) -> Logger:
         devices=devices,
         point_column=point_column,
         value_column=value_column,
+        carry_forward_min=carry,
     )
     if lg.preamble_lines < 0:
         raise t._err("preamble_lines", "expected 0 or more")
@@ -729,7 +739,7 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
     if len(set(names)) != len(names):
         raise SiteFileError(f"{path}: loggers: names must be unique")
     # Sections that later stages read are validated by those stages; accept them here.
-    for later in ("metrics", "detect", "guarantees", "report"):
+    for later in ("metrics", "detect", "guarantees", "report", "corrections"):
         top.used.add(later)
     top.done()
     return Site(

@@ -91,10 +91,40 @@ CREATE TABLE IF NOT EXISTS reading_values (
 CREATE VIEW IF NOT EXISTS channel_values AS
 SELECT ts, channel_id, value, file_id, line FROM reading_values;
 
--- What later stages read: one row per (instant, quantity, device).
+-- Per (file, channel), what the quality stage's unit check decided (perfcheck/units.py): the
+-- values are multiplied by factor (a [[corrections]] entry of the site file), or left out while
+-- factor is NULL (a suspected unit error the site file has not settled). Rebuilt by units.run,
+-- which also redefines the macro unit_factor(file_id, channel_id) from it (a CASE over its
+-- rows: 1 for every other pair), so that readings costs no join.
+CREATE TABLE IF NOT EXISTS unit_adjust (
+    file_id    INTEGER NOT NULL,
+    channel_id SMALLINT NOT NULL,
+    factor     DOUBLE
+);
+CREATE MACRO IF NOT EXISTS unit_factor(file_id, channel_id) AS 1.0::DOUBLE;
+
+-- Values of a report-by-exception historian carried forward on its interval grid (a value
+-- holds until the next one of its point, up to the logger's carry_forward_min), each with the
+-- file and line it was read from. Derived, never compared at ingest; rebuilt by the quality
+-- stage (sql/quality_carry.sql).
+CREATE TABLE IF NOT EXISTS carried_values (
+    ts         TIMESTAMPTZ NOT NULL,
+    channel_id SMALLINT NOT NULL,
+    value      DOUBLE NOT NULL,
+    file_id    INTEGER NOT NULL,
+    line       INTEGER NOT NULL
+);
+
+-- What later stages read: one row per (instant, quantity, device), carried values included and
+-- unit corrections applied.
 CREATE OR REPLACE VIEW readings AS
-SELECT v.ts, c.quantity, c.device, v.value, v.file_id, v.line
-FROM channel_values v JOIN channels c USING (channel_id);
+SELECT v.ts, c.quantity, c.device, v.value * unit_factor(v.file_id, v.channel_id) AS value,
+       v.file_id, v.line
+FROM (SELECT ts, channel_id, value, file_id, line FROM channel_values
+      UNION ALL
+      SELECT ts, channel_id, value, file_id, line FROM carried_values) v
+JOIN channels c USING (channel_id)
+WHERE unit_factor(v.file_id, v.channel_id) IS NOT NULL;
 
 -- Input rows that were not loaded, with their raw text and why. ts is the line's own instant
 -- where it could be read, else that of the nearest readable line before it in the file (for

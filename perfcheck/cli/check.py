@@ -18,6 +18,7 @@ db = lazy_module("perfcheck.db")
 analysis = lazy_module("perfcheck.analysis")
 metrics = lazy_module("perfcheck.metrics")
 report = lazy_module("perfcheck.report")
+units = lazy_module("perfcheck.units")
 
 
 def open_db(db_path: Path) -> Any:
@@ -85,7 +86,8 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
               f"{report.kwh(losses['measured_kwh'])} kWh, not explained by a finding "
               f"{report.kwh(losses['unexplained_kwh'])} kWh; guarantees checked: "
               f"{len(doc['guarantees'])}"]
-    return "\n".join(lines)
+    notes = units.words(doc.get("data_quality", {}))
+    return "\n".join(lines + ([""] + notes if notes else []))
 
 
 def local_minute(instant: str) -> str:

@@ -55,7 +55,7 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
     """
     con = db.connect(db_path)
     try:
-        if quality.stale(con):  # an ingest stopped before its flags were stored
+        if quality.stale(con, site):  # an ingest stopped before its flags, or new corrections
             quality.run(con, site)
         with progress.bar("model", None, quiet) as bar:
             res = model.run(con, site, progress=bar.step)
