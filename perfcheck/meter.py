@@ -171,10 +171,10 @@ def place(sp: pd.DataFrame, index: pd.DatetimeIndex, interval_s: np.ndarray,
     out = np.full(n, np.nan)
     if sp.empty or n == 0:
         return out, float(sp["energy_wh"].sum()) if not sp.empty else 0.0
-    starts = index.asi8
+    starts = index.as_unit("ns").asi8
     ends = starts + (interval_s * 1e9).astype(np.int64)
-    lo = pd.DatetimeIndex(sp["lo"]).as_unit(index.unit).asi8
-    hi = pd.DatetimeIndex(sp["hi"]).as_unit(index.unit).asi8
+    lo = pd.DatetimeIndex(sp["lo"]).as_unit("ns").asi8
+    hi = pd.DatetimeIndex(sp["hi"]).as_unit("ns").asi8
     e = sp["energy_wh"].to_numpy(dtype=float)
     row = np.searchsorted(starts, lo, side="right") - 1
     inside = row >= 0

@@ -92,7 +92,11 @@ YIELDS_NOTE = ("Yr and Yf follow IEC 61724-1 over the intervals used for PR (day
 
 LOSSES_LEAD = ("Where the expected energy went: every energy in this report is a sum over one "
                "ledger of the intervals that have both a measured and an expected value, so "
-               "expected less the causes and the unexplained rest is the measured energy.")
+               "expected less the causes and the unexplained rest is the measured energy. "
+               "With an export meter it goes on to the energy delivered there: the measured "
+               "energy less the AC losses to the meter, less the inverters' energy the meter "
+               "has no reading for, plus what the meter counted while the inverters logged "
+               "nothing.")
 
 METER_HEAD = ["Month", "Inverters [kWh]", "Meter [kWh]", "Difference [%]",
               "Design AC loss [%]"]
