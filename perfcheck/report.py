@@ -322,9 +322,9 @@ def verdict(result: dict, tz: str, feeds: list[dict] | None = None) -> str:
     rel = short / p["expected_kwh"] if p["expected_kwh"] else 0.0
     words = "less" if short >= 0 else "more"
     at_meter = result.get("losses", {}).get("meter", {}).get("basis") == "meter"
-    text = (f"{period_phrase(result, tz)} the plant's inverters delivered "
-            f"{p['measured_kwh']:,.0f} kWh, {abs(rel):.1%} ({abs(short):,.0f} kWh) {words} "
-            "than expected")
+    who = "the plant" if p.get("delivered_kwh") is None else "the plant's inverters"
+    text = (f"{period_phrase(result, tz)} {who} delivered {p['measured_kwh']:,.0f} kWh, "
+            f"{abs(rel):.1%} ({abs(short):,.0f} kWh) {words} than expected")
     if p.get("delivered_kwh") is not None:
         text += f", and {p['delivered_kwh']:,.0f} kWh reached the export meter"
     where = " at the meter" if at_meter else ""
