@@ -126,11 +126,12 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
     events = _restate(found["events"], ledger)
     t_typ = metrics.typical_cell_temperature(con, site, end_day, settings)
     at = meter.load_settings(site)
-    delivered, unplaced_wh = meter.delivered(con, site, ledger.index, ledger.interval_s,
-                                             ledger.measured_w, ledger.expected_w)
+    delivered = meter.delivered(con, site, ledger.index, ledger.interval_s, ledger.measured_w,
+                                ledger.expected_w)
     new_id = con.execute(db.sql("analysis_next_id")).fetchone()[0]
     record = {"inputs": spec, "t_cell_typ_avg": list(t_typ),
-              "meter_unplaced_kwh": unplaced_wh / 1000.0}
+              "meter_unplaced_kwh": None if delivered is None
+              else delivered.unplaced_wh / 1000.0}
     con.begin()
     try:
         con.execute(db.sql("analysis_drop_current_detail"))
@@ -215,14 +216,15 @@ _FIELDS = ("kind", "scope", "start", "end", "energy_loss_kwh", "energy_loss_kwh_
 
 
 def _store_ledger(con: duckdb.DuckDBPyConnection, analysis_id: int, led: Ledger,
-                  events: list[Event], delivered: np.ndarray | None) -> None:
-    """The ledger's rows and entries; ``delivered`` the meter's energy on its grid [Wh]
+                  events: list[Event], delivered: meter.Placed | None) -> None:
+    """The ledger's rows and entries; ``delivered`` the meter's energy on its grid
     (:func:`perfcheck.meter.delivered`; None without a meter)."""
     hours = led.interval_s / 3600.0
     meas = led.measured_w * hours[:, None]
     exp = led.expected_w * hours[:, None]
     une = led.unexplained_w() * hours[:, None]
-    deliv = np.full(meas.shape, np.nan) if delivered is None else delivered
+    deliv = np.full(meas.shape, np.nan) if delivered is None else delivered.energy_wh
+    shaped = np.zeros(len(led.index), dtype=bool) if delivered is None else delivered.shaped
     has = np.isfinite(meas) | np.isfinite(exp) | np.isfinite(deliv)
     rows, cols = np.nonzero(has)
     inv = np.asarray(led.inverters, dtype=object)
@@ -230,7 +232,8 @@ def _store_ledger(con: duckdb.DuckDBPyConnection, analysis_id: int, led: Ledger,
         "analysis_id": analysis_id, "ts": led.index[rows], "inverter_id": inv[cols],
         "interval_s": led.interval_s[rows], "measured_wh": meas[rows, cols],
         "expected_wh": exp[rows, cols], "unexplained_wh": une[rows, cols],
-        "poa_wm2": led.poa[rows, cols], "delivered_wh": deliv[rows, cols]}))
+        "poa_wm2": led.poa[rows, cols], "delivered_wh": deliv[rows, cols],
+        "delivered_shaped": shaped[rows]}))
     seq = {id(e): i for i, e in enumerate(events)}
     parts = [pd.DataFrame({"event_id": seq[id(en.event)], "ts": led.index[en.rows],
                            "inverter_id": inv[en.cols],
@@ -353,20 +356,21 @@ def meter_block(con: duckdb.DuckDBPyConnection, stored: Stored, start: pd.Timest
     block: dict[str, Any] = {"basis": at.basis, "basis_words": at.words()}
     if not at.has_meter:
         return block
-    inv, ac, unmetered, outside, deliv, base = con.execute(db.sql("ledger_meter"), {
+    inv, ac, unmetered, outside, deliv, base, shaped = con.execute(db.sql("ledger_meter"), {
         "id": stored.id, "start": start, "end": end}).fetchone()
     block.update({
         "inverter_kwh": inv, "ac_losses_kwh": ac,
         "expected_ac_losses_kwh": base * at.ac_loss_pct / 100.0,
         "ac_loss_pct": at.ac_loss_pct,
         "not_metered_kwh": unmetered, "without_inverter_data_kwh": outside,
-        "delivered_kwh": deliv,
+        "delivered_kwh": deliv, "shaped_kwh": shaped,
         "rule": "delivered at the meter = the inverters' measured energy, less the AC losses "
                 "(inverters less meter over the intervals with both), less the inverters' "
                 "energy in intervals the meter has no energy for, plus the meter's energy in "
                 "intervals where the inverters logged nothing (a register step across a "
                 "logger gap, spread in the shape of the expected power: measured energy, not "
-                "an outage loss)",
+                "an outage loss); shaped_kwh: the meter's energy of steps over several "
+                "intervals, spread in the shape of the expected power",
     })
     return block
 

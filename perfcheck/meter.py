@@ -157,10 +157,19 @@ def spans(raw: pd.DataFrame, interval_s: float, rollover_wh: float | None,
     return out
 
 
+@dataclass(frozen=True)
+class Placed:
+    """The meter's energy on the ledger's intervals."""
+
+    energy_wh: np.ndarray  # per interval (rows), or per interval and inverter; NaN: none
+    shaped: np.ndarray  # per interval: from a span over several intervals, in the expected shape
+    unplaced_wh: float  # energy of spans that cover no ledger interval
+
+
 def place(sp: pd.DataFrame, index: pd.DatetimeIndex, interval_s: np.ndarray,
-          shape_w: np.ndarray) -> tuple[np.ndarray, float]:
-    """The meter's energy per ledger interval [Wh] (NaN where none) and the energy of spans
-    that cover no ledger interval [Wh].
+          shape_w: np.ndarray) -> Placed:
+    """The meter's energy per ledger interval [Wh], which intervals took it in the expected
+    shape, and the energy of spans that cover no ledger interval.
 
     A span no longer than the interval it starts in goes to that interval whole; a longer
     span (a gap, a meter read less often than the inverters) is shared over the intervals
@@ -169,8 +178,10 @@ def place(sp: pd.DataFrame, index: pd.DatetimeIndex, interval_s: np.ndarray,
     """
     n = len(index)
     out = np.full(n, np.nan)
+    hit = np.zeros(n, dtype=bool)
+    shaped = np.zeros(n, dtype=bool)
     if sp.empty or n == 0:
-        return out, float(sp["energy_wh"].sum()) if not sp.empty else 0.0
+        return Placed(out, shaped, float(sp["energy_wh"].sum()) if not sp.empty else 0.0)
     starts = index.as_unit("ns").asi8
     ends = starts + (interval_s * 1e9).astype(np.int64)
     lo = pd.DatetimeIndex(sp["lo"]).as_unit("ns").asi8
@@ -181,7 +192,6 @@ def place(sp: pd.DataFrame, index: pd.DatetimeIndex, interval_s: np.ndarray,
     inside[inside] = lo[inside] < ends[row[inside]]
     short = inside & (hi <= ends[np.clip(row, 0, n - 1)])
     total = np.zeros(n)
-    hit = np.zeros(n, dtype=bool)
     np.add.at(total, row[short], e[short])
     hit[row[short]] = True
     long_ = np.flatnonzero(~short)
@@ -198,10 +208,10 @@ def place(sp: pd.DataFrame, index: pd.DatetimeIndex, interval_s: np.ndarray,
         rows = np.flatnonzero(mine)
         share = w[rows] / wsum[k[rows]]
         np.add.at(total, rows, e[long_][k[rows]] * share)
-        hit[rows] = True
+        hit[rows] = shaped[rows] = True
         unplaced = float(e[long_][wsum <= 0].sum())
     out[hit] = total[hit]
-    return out, unplaced
+    return Placed(out, shaped, unplaced)
 
 
 def share(meter_wh: np.ndarray, measured_wh: np.ndarray, expected_wh: np.ndarray
@@ -219,15 +229,15 @@ def share(meter_wh: np.ndarray, measured_wh: np.ndarray, expected_wh: np.ndarray
 
 def delivered(con: duckdb.DuckDBPyConnection, site: Site, index: pd.DatetimeIndex,
               interval_s: np.ndarray, measured_w: np.ndarray, expected_w: np.ndarray
-              ) -> tuple[np.ndarray | None, float]:
-    """The meter's energy on the ledger's (interval x inverter) grid [Wh], None without a
-    meter, and the meter energy that covers no ledger interval [Wh]."""
+              ) -> Placed | None:
+    """The meter's energy on the ledger's (interval x inverter) grid [Wh] (:func:`place`,
+    then :func:`share`); None without a meter."""
     cols = meter_columns(site)
     if not cols:
-        return None, 0.0
+        return None
     raw = con.execute(db.sql("meter_readings")).df()
     if raw.empty:
-        return np.full(measured_w.shape, np.nan), 0.0
+        return Placed(np.full(measured_w.shape, np.nan), np.zeros(len(index), dtype=bool), 0.0)
     intervals = ingest.channel_intervals(con)
     quantity = "energy_interval" if raw["energy_interval_wh"].notna().any() \
         else "energy_register"
@@ -236,5 +246,6 @@ def delivered(con: duckdb.DuckDBPyConnection, site: Site, index: pd.DatetimeInde
     sp = spans(raw, iv, col.rollover_wh, site.timezone if col.resets_daily else None,
                site.ac_kw * 1000.0)
     hours = interval_s / 3600.0
-    meter_wh, unplaced = place(sp, index, interval_s, np.nansum(expected_w, axis=1))
-    return share(meter_wh, measured_w * hours[:, None], expected_w * hours[:, None]), unplaced
+    at = place(sp, index, interval_s, np.nansum(expected_w, axis=1))
+    return Placed(share(at.energy_wh, measured_w * hours[:, None], expected_w * hours[:, None]),
+                  at.shaped, at.unplaced_wh)
