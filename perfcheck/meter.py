@@ -61,7 +61,7 @@ class MeterSettings:
 
     ac_loss_pct: float
     basis: str  # resolved: "meter" or "inverters"
-    channels: tuple[str, ...]  # the meter's columns, "logger/column (quantity)"
+    channels: tuple[str, ...]  # the meter's columns in words ("column E of logger main")
 
     @property
     def at_meter(self) -> bool:
@@ -77,18 +77,17 @@ class MeterSettings:
         return 1.0 - self.ac_loss_pct / 100.0
 
     def words(self) -> str:
-        """Which basis the plant's figures use, in words."""
+        """Which basis the plant's figures use, in words a person reads (no code values)."""
         if self.at_meter:
             return (f"plant yields and PR at the export meter ({', '.join(self.channels)}), "
                     "where the energy is delivered (IEC 61724-1); per-inverter figures at the "
-                    f"inverters; design AC loss between them {self.ac_loss_pct:g} % "
-                    "(meter.ac_loss_pct)")
+                    f"inverters; design AC loss between them {self.ac_loss_pct:g} %")
         if self.has_meter:
-            return ("plant yields and PR at the inverters (sum of their outputs), as "
-                    "meter.basis = \"inverters\" asks; the meter is reconciled against them")
+            return ("plant yields and PR at the inverters (sum of their outputs), as the site "
+                    "file's meter basis asks; the meter is reconciled against them")
         return ("plant yields and PR at the inverters (sum of their outputs): the site file "
-                "maps no export meter (a column with inverter = \"plant\" and quantity "
-                "energy_register or energy_interval)")
+                "maps no export meter (an energy register or interval-energy column of the "
+                "plant)")
 
 
 def meter_columns(site: Site) -> list[tuple[str, Any]]:
@@ -104,7 +103,7 @@ def load_settings(site: Site) -> MeterSettings:
     basis = t.get("basis", str, "auto", BASES)
     t.done()
     cols = meter_columns(site)
-    channels = tuple(f"{lg}/{c.name} ({c.quantity})" for lg, c in cols)
+    channels = tuple(f"column {c.name} of logger {lg}" for lg, c in cols)
     if not cols:
         if basis == "meter":
             raise t._err("basis", "\"meter\" needs a meter column: a [[loggers.columns]] with "

@@ -18,7 +18,8 @@ import pandas as pd
 import pytest
 from logger_files import DEFAULT_COLUMNS, logger_toml, run_ingest, write_case
 
-from perfcheck import analysis, meter, metrics, pipeline
+from perfcheck import analysis, meter, metrics, pipeline, report
+from perfcheck.cli.check import format_table
 from perfcheck.scenario.sitefile import METER_AC_LOSS_PCT
 from perfcheck.site import load_site
 
@@ -60,7 +61,7 @@ def test_basis_follows_the_meter_column(tmp_path):
     site, _ = write_case(tmp_path, GOOD, loggers=logger_toml(columns=METER_COLUMNS))
     at = meter.load_settings(load_site(site))
     assert (at.basis, at.ac_loss_pct, at.channels) == ("meter", 0.0,
-                                                       ("main/E (energy_register)",))
+                                                       ("column E of logger main",))
     assert "at the export meter" in at.words()
     site.write_text(site.read_text() + '\n[meter]\nbasis = "inverters"\nac_loss_pct = 1.5\n')
     at = meter.load_settings(load_site(site))
@@ -264,3 +265,18 @@ def test_without_a_meter_the_plant_is_its_inverters(demo_db, tmp_path):
     assert p["measured_kwh"] == pytest.approx(inv, abs=0.5)
     assert p["pr"] > at_meter["metrics"]["period"]["pr"]
     assert "meter" in p  # the reconciliation is still shown
+
+
+def test_check_text_says_the_basis_and_the_way_to_the_meter(whole, demo_db):
+    """`perfcheck check` without --json: the basis in words and delivered = inverters - AC
+    losses - not metered + metered without inverter data, in kWh as the JSON has them."""
+    doc, _, _ = whole
+    lines = format_table(doc, demo_db.site).splitlines()
+    basis = [x for x in lines if x.startswith("Plant basis: ")]
+    assert basis == [f"Plant basis: {doc['settings']['plant_basis']}"]
+    way = [x for x in lines if x.startswith("At the export meter: ")]
+    m = doc["losses"]["meter"]
+    assert len(way) == 1 and f"delivered {report.kwh(m['delivered_kwh'])} kWh" in way[0]
+    assert f"AC losses {report.kwh(m['ac_losses_kwh'])}" in way[0]
+    for code in ("None", "e+", "True", "energy_register"):
+        assert code not in "\n".join(basis + way), code
