@@ -67,18 +67,33 @@ def register_power(register_wh: pd.Series, register_ts: pd.Series, interval_s: f
     daily_reset_tz : str or None
         IANA zone whose midnight restarts the register; None: it does not restart.
     """
-    step = register_wh.diff()
+    step = register_steps(register_wh, register_ts, rollover_wh, daily_reset_tz)
     elapsed = register_ts.diff().dt.total_seconds()
+    power = step / elapsed * 3600.0
+    ok = (elapsed > 0) & (elapsed <= 1.5 * interval_s) \
+        & (power <= REGISTER_MAX_RATING_MULTIPLE * pac0)
+    return power.where(ok)
+
+
+def register_steps(register_wh: pd.Series, register_ts: pd.Series, rollover_wh: float | None,
+                   daily_reset_tz: str | None = None) -> pd.Series:
+    """Energy counted between successive readings of a cumulative register [Wh] (NaN for the
+    first reading and for a reset).
+
+    A negative step is a rollover when ``rollover_wh`` is set (step + rollover), or, for a
+    register that restarts from zero at local midnight (``daily_reset_tz``), on the first
+    reading of a new local day the reading itself; any other negative step is a reset or a
+    replaced meter (NaN). Differencing a cumulative register is how an energy meter's
+    readings become energy per period (common practice; IEC 62053-21 defines the register
+    as the cumulative count, from memory).
+    """
+    step = register_wh.diff()
     if rollover_wh is not None:
         step = step.where(step >= 0, step + rollover_wh)
     if daily_reset_tz is not None:
         day = register_ts.dt.tz_convert(daily_reset_tz).dt.date
         step = step.where((step >= 0) | (day == day.shift()), register_wh)
-    step = step.where(step >= 0)
-    power = step / elapsed * 3600.0
-    ok = (elapsed > 0) & (elapsed <= 1.5 * interval_s) \
-        & (power <= REGISTER_MAX_RATING_MULTIPLE * pac0)
-    return power.where(ok)
+    return step.where(step >= 0)
 
 
 def measured_power(raw: pd.DataFrame, site: Site, interval_s: float,

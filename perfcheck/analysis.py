@@ -28,7 +28,19 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import align, db, detect, guarantees, ingest, kinds, metrics, status, units, versions
+from perfcheck import (
+    align,
+    db,
+    detect,
+    guarantees,
+    ingest,
+    kinds,
+    meter,
+    metrics,
+    status,
+    units,
+    versions,
+)
 from perfcheck.detect.attribution import Ledger
 from perfcheck.detect.common import Event, _jsonable
 from perfcheck.errors import DataError
@@ -125,8 +137,13 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
     start_day, end_day = _whole_days(site, first, end)
     events = _restate(found["events"], ledger)
     t_typ = metrics.typical_cell_temperature(con, site, end_day, settings)
+    at = meter.load_settings(site)
+    delivered = meter.delivered(con, site, ledger.index, ledger.interval_s, ledger.measured_w,
+                                ledger.expected_w)
     new_id = con.execute(db.sql("analysis_next_id")).fetchone()[0]
-    record = {"inputs": spec, "t_cell_typ_avg": list(t_typ)}
+    record = {"inputs": spec, "t_cell_typ_avg": list(t_typ),
+              "meter_unplaced_kwh": None if delivered is None
+              else delivered.unplaced_wh / 1000.0}
     con.begin()
     try:
         con.execute(db.sql("analysis_drop_current_detail"))
@@ -137,11 +154,13 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
             "model": json.dumps(_jsonable(found["model"]), sort_keys=True),
             "degradation": json.dumps(_jsonable(found["degradation"]), sort_keys=True)})
         _store_events(con, new_id, events, site)
-        _store_ledger(con, new_id, ledger, events)
+        _store_ledger(con, new_id, ledger, events, delivered)
         windows = metrics.event_windows([{"kind": e.kind, "scope": e.scope, "start": e.start,
                                           "end": e.end} for e in events], settings)
-        daily = metrics.daily_sums(con, site, start_day, end_day, settings, new_id, windows)
-        _insert_frame(con, "analysis_daily", daily.assign(analysis_id=new_id))
+        for basis in ("inverter", "meter") if at.at_meter else ("inverter",):
+            daily = metrics.daily_sums(con, site, start_day, end_day, settings, new_id,
+                                       windows, basis, at.factor)
+            _insert_frame(con, "analysis_daily", daily.assign(analysis_id=new_id, basis=basis))
         if now is not None:
             _revise(con, now, new_id, spec)
         con.execute(db.sql("analysis_make_current"), {"id": new_id})
@@ -209,19 +228,24 @@ _FIELDS = ("kind", "scope", "start", "end", "energy_loss_kwh", "energy_loss_kwh_
 
 
 def _store_ledger(con: duckdb.DuckDBPyConnection, analysis_id: int, led: Ledger,
-                  events: list[Event]) -> None:
+                  events: list[Event], delivered: meter.Placed | None) -> None:
+    """The ledger's rows and entries; ``delivered`` the meter's energy on its grid
+    (:func:`perfcheck.meter.delivered`; None without a meter)."""
     hours = led.interval_s / 3600.0
     meas = led.measured_w * hours[:, None]
     exp = led.expected_w * hours[:, None]
     une = led.unexplained_w() * hours[:, None]
-    has = np.isfinite(meas) | np.isfinite(exp)
+    deliv = np.full(meas.shape, np.nan) if delivered is None else delivered.energy_wh
+    shaped = np.zeros(len(led.index), dtype=bool) if delivered is None else delivered.shaped
+    has = np.isfinite(meas) | np.isfinite(exp) | np.isfinite(deliv)
     rows, cols = np.nonzero(has)
     inv = np.asarray(led.inverters, dtype=object)
     _insert_frame(con, "ledger", pd.DataFrame({
         "analysis_id": analysis_id, "ts": led.index[rows], "inverter_id": inv[cols],
         "interval_s": led.interval_s[rows], "measured_wh": meas[rows, cols],
         "expected_wh": exp[rows, cols], "unexplained_wh": une[rows, cols],
-        "poa_wm2": led.poa[rows, cols]}))
+        "poa_wm2": led.poa[rows, cols], "delivered_wh": deliv[rows, cols],
+        "delivered_shaped": shaped[rows]}))
     seq = {id(e): i for i, e in enumerate(events)}
     parts = [pd.DataFrame({"event_id": seq[id(en.event)], "ts": led.index[en.rows],
                            "inverter_id": inv[en.cols],
@@ -336,6 +360,33 @@ def events(con: duckdb.DuckDBPyConnection, site: Site, stored: Stored, start: pd
     return out
 
 
+def meter_block(con: duckdb.DuckDBPyConnection, stored: Stored, start: pd.Timestamp,
+                end: pd.Timestamp, at: meter.MeterSettings) -> dict[str, Any]:
+    """The export meter's part of the losses block of ``[start, end)``: from the inverters'
+    output to the energy delivered at the meter, sums over the ledger (``sql/ledger_meter``);
+    the basis of the plant's figures in words."""
+    block: dict[str, Any] = {"basis": at.basis, "basis_words": at.words()}
+    if not at.has_meter:
+        return block
+    inv, ac, unmetered, outside, deliv, base, shaped = con.execute(db.sql("ledger_meter"), {
+        "id": stored.id, "start": start, "end": end}).fetchone()
+    block.update({
+        "inverter_kwh": inv, "ac_losses_kwh": ac,
+        "expected_ac_losses_kwh": base * at.ac_loss_pct / 100.0,
+        "ac_loss_pct": at.ac_loss_pct,
+        "not_metered_kwh": unmetered, "without_inverter_data_kwh": outside,
+        "delivered_kwh": deliv, "shaped_kwh": shaped,
+        "rule": "delivered at the meter = the inverters' measured energy, less the AC losses "
+                "(inverters less meter over the intervals with both), less the inverters' "
+                "energy in intervals the meter has no energy for, plus the meter's energy in "
+                "intervals where the inverters logged nothing (a register step across a "
+                "logger gap, spread in the shape of the expected power: measured energy, not "
+                "an outage loss); shaped_kwh: the meter's energy of steps over several "
+                "intervals, spread in the shape of the expected power",
+    })
+    return block
+
+
 def losses(con: duckdb.DuckDBPyConnection, stored: Stored, start: pd.Timestamp,
            end: pd.Timestamp) -> dict[str, Any]:
     """The losses block of ``[start, end)``: sums over the ledger."""
@@ -395,15 +446,25 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
     settings = metrics.load_settings(site)
     record = json.loads(con.execute(db.sql("analysis_inputs"), {"id": stored.id}).fetchone()[0])
     t_typ = tuple(record["t_cell_typ_avg"])
-    result = metrics.compute(_daily(con, site, stored, start, end), site, start, end, settings,
-                             t_typ)
+    at = meter.load_settings(site)
+    loss_pct = at.ac_loss_pct if at.has_meter else None
+
+    def daily(a: pd.Timestamp, b: pd.Timestamp) -> tuple[pd.DataFrame, pd.DataFrame | None]:
+        """The inverters' daily sums of [a, b) and, at the meter, the meter's."""
+        return (_daily(con, site, stored, a, b),
+                _daily(con, site, stored, a, b, "meter") if at.at_meter else None)
+
+    inv_daily, meter_daily = daily(start, end)
+    result = metrics.compute(inv_daily, site, start, end, settings, t_typ, meter_daily,
+                             loss_pct)
     model, degradation = con.execute(db.sql("analysis_blocks"), {"id": stored.id}).fetchone()
     block = losses(con, stored, start, end)
+    block["meter"] = meter_block(con, stored, start, end, at)
     block.update(json.loads(model))
     doc = {
         "site": metrics.site_record(site),
         "period": {"start": metrics.local_iso(start, site), "end": metrics.local_iso(end, site)},
-        "settings": {**result["settings"], **site.age_record()},
+        "settings": {**result["settings"], **site.age_record(), "plant_basis": at.words()},
         "metrics": result["metrics"],
         "events": events(con, site, stored, start, end),
         "losses": metrics.json_ready(block),
@@ -419,18 +480,20 @@ def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp, end: p
 
     def contract_year(a: pd.Timestamp, b: pd.Timestamp) -> dict[str, Any]:
         """The period metrics of a whole contract year [a, b) (the guarantees test those)."""
-        return metrics.period_summary(_daily(con, site, stored, a, b), site, a, b, settings,
-                                      t_typ)
+        inv, at_meter = daily(a, b)
+        return metrics.period_summary(inv, site, a, b, settings, t_typ, at_meter, loss_pct)
 
     doc["guarantees"] = guarantees.evaluate(site, doc, contract_year)
     return doc
 
 
 def _daily(con: duckdb.DuckDBPyConnection, site: Site, stored: Stored, start: pd.Timestamp,
-           end: pd.Timestamp) -> pd.DataFrame:
-    """The stored daily sums of ``[start, end)``, every calendar day present."""
+           end: pd.Timestamp, basis: str = "inverter") -> pd.DataFrame:
+    """The stored daily sums of ``[start, end)`` on ``basis`` ('inverter' or 'meter'), every
+    calendar day present."""
     daily = con.execute(db.sql("analysis_daily_window"), {
-        "id": stored.id, "tz": site.timezone, "start": start, "end": end}).df()
+        "id": stored.id, "tz": site.timezone, "start": start, "end": end,
+        "basis": basis}).df()
     return metrics.complete_calendar(daily.drop(columns="n_nominal"), site, start, end,
                                      metrics.shortest_interval(con))
 

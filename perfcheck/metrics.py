@@ -83,8 +83,12 @@ SUM_COLUMNS = (
     "e_meas_wh", "e_exp_wh", "e_exp_fallback_wh", "e_dc_wh", "ref_wh", "ref_sensor_wh",
     "refg_wh", "refgt_wh", "refgb_wh", "refgtb_wh", "w_base", "w_up", "e_base_exp_wh",
     "e_down_exp_wh", "e_meas_all_wh", "e_exp_all_wh", "e_exp_gap_wh", "e_ledger_meas_wh",
-    "e_ledger_exp_wh",
+    "e_ledger_exp_wh", "e_delivered_wh", "e_rec_inv_wh", "e_rec_meter_wh",
 )
+# Sums that keep the inverters' basis in the plant's row when the plant is judged at the meter:
+# the ledger's energies and the meter's reconciliation (see perfcheck.meter).
+LEDGER_COLUMNS = ("e_ledger_meas_wh", "e_ledger_exp_wh", "e_delivered_wh", "e_rec_inv_wh",
+                  "e_rec_meter_wh")
 
 
 # --------------------------------------------------------------------------------------------
@@ -466,11 +470,16 @@ def daily_sums(
     settings: Settings,
     analysis_id: int | None = None,
     windows: pd.DataFrame | None = None,
+    basis: str = "inverter",
+    meter_factor: float = 1.0,
 ) -> pd.DataFrame:
     """Daily sums per inverter over ``aligned`` in ``[start, end)``, every calendar day present.
 
     The measured power and the one measured and expected energy come from the ledger of
-    ``analysis_id`` (without one, from the aligned readings as they are).
+    ``analysis_id`` (without one, from the aligned readings as they are). ``basis`` "meter"
+    (with an analysis) takes the export meter's energy instead (``ledger.delivered_wh``) and
+    the expected power times ``meter_factor``, the share that reaches the meter by design
+    (:mod:`perfcheck.meter`).
     ``windows`` (see :func:`event_windows`) has columns action ('exclude' or 'model_poa'),
     scope ('plant' or 'inverter:<id>'), start_ts, end_ts (UTC).
     """
@@ -489,7 +498,8 @@ def daily_sums(
             "min_poa": settings.min_poa_wm2, "avail_min_poa": settings.availability_min_poa_wm2,
             "exclude_flags": list(settings.exclude_flags), "analysis": analysis_id,
             "downtime_kinds": [k.name for k in kinds.TABLE if k.downtime],
-            "temp_basis": settings.pr_temp_basis,
+            "temp_basis": settings.pr_temp_basis, "basis": basis,
+            "meter_factor": meter_factor,
         }).df()
     except duckdb.CatalogException as exc:
         raise DataError(f"no aligned series in the database ({exc}); run the model first")\
@@ -530,11 +540,26 @@ def complete_calendar(
     return out.reset_index()
 
 
-def scope_sums(daily: pd.DataFrame, site: Site) -> pd.DataFrame:
+def scope_sums(daily: pd.DataFrame, site: Site, meter_daily: pd.DataFrame | None = None
+               ) -> pd.DataFrame:
     """Scale the per-inverter daily sums by P0 and add the plant; columns :data:`SUM_COLUMNS`.
 
-    Returns one row per (day, scope), scope 'plant' or 'inverter:<id>'.
+    Returns one row per (day, scope), scope 'plant' or 'inverter:<id>'. With ``meter_daily``
+    (the same sums on the meter's basis) the plant's row is the sum of those, its ledger
+    energies (:data:`LEDGER_COLUMNS`) the inverters'.
     """
+    inv = _scaled(daily, site)
+    plant = inv.groupby("day", as_index=False)[list(SUM_COLUMNS)].sum()
+    if meter_daily is not None:
+        at = _scaled(meter_daily, site).groupby("day", as_index=False)[list(SUM_COLUMNS)].sum()
+        at[list(LEDGER_COLUMNS)] = plant[list(LEDGER_COLUMNS)].to_numpy()
+        plant = at
+    plant.insert(1, "scope", "plant")
+    return pd.concat([plant, inv], ignore_index=True)
+
+
+def _scaled(daily: pd.DataFrame, site: Site) -> pd.DataFrame:
+    """The per-inverter daily sums scaled by P0, one row per (day, 'inverter:<id>')."""
     p0 = {i.id: i.dc_kwp * 1000.0 for i in site.inverters}
     gamma = inverter_gamma(site)
     d = daily.copy()
@@ -549,10 +574,7 @@ def scope_sums(daily: pd.DataFrame, site: Site) -> pd.DataFrame:
     d["w_base"] = d["p0_w"] * d["n_base"]
     d["w_up"] = d["p0_w"] * d["n_up"]
     d["scope"] = "inverter:" + d["inverter_id"].astype(str)
-    inv = d[["day", "scope", *SUM_COLUMNS]]
-    plant = inv.groupby("day", as_index=False)[list(SUM_COLUMNS)].sum()
-    plant.insert(1, "scope", "plant")
-    return pd.concat([plant, inv], ignore_index=True)
+    return d[["day", "scope", *SUM_COLUMNS]]
 
 
 # --------------------------------------------------------------------------------------------
@@ -584,12 +606,15 @@ def summarise(
     settings: Settings,
     temp_refs: tuple[float, float],
     with_ci: bool,
+    ac_loss_pct: float | None = None,
 ) -> dict[str, Any]:
     """One summary row (plant, with an ``inverters`` list) over the days of ``cube``.
 
     ``cube`` is (n_days, n_scopes, len(ADDITIVE)) daily sums, scope 0 the plant; ``p0`` the
     scopes' P0 [W]; ``temp_refs`` (T_ref, T_cell_typ_avg) [C]; ``label`` the period fields,
     its ``_key`` seeding the bootstrap so a month's interval does not depend on the period.
+    ``ac_loss_pct`` (a meter's design AC loss [%]; None: no meter) adds the plant's delivered
+    energy and the meter's reconciliation (:func:`reconciliation`).
     """
     s = _sums(cube.sum(axis=0), p0)
     vals = ratios(s, *temp_refs)
@@ -622,12 +647,25 @@ def summarise(
             row[f"{k}_ci_high"] = hi[i] if ok[i] else None
         row["reason"] = reasons[i]
         rows.append(row)
+    if ac_loss_pct is not None:
+        rows[0]["delivered_kwh"] = s["e_delivered_wh"][0] / 1000.0
+        rows[0]["meter"] = reconciliation(s["e_rec_inv_wh"][0], s["e_rec_meter_wh"][0],
+                                          ac_loss_pct)
     out = {k: v for k, v in label.items() if not k.startswith("_")}
     out.update(rows[0])
     out["inverters"] = rows[1:]
     for r in out["inverters"]:
         r["days"] = out["days"]
     return json_ready(out)
+
+
+def reconciliation(inverter_wh: float, meter_wh: float, ac_loss_pct: float) -> dict[str, Any]:
+    """The inverters' output against the meter over the intervals that have both: energies
+    [kWh], the meter's shortfall in percent of the inverters' output and the design AC loss
+    it is to be read against [%] (None where the inverters measured nothing)."""
+    diff = 100.0 * (inverter_wh - meter_wh) / inverter_wh if inverter_wh > 0 else None
+    return {"inverter_kwh": inverter_wh / 1000.0, "meter_kwh": meter_wh / 1000.0,
+            "difference_pct": diff, "expected_ac_loss_pct": ac_loss_pct}
 
 
 def _amounts(s: Mapping[str, np.ndarray], i: int) -> dict[str, Any]:
@@ -747,13 +785,18 @@ def compute(
     end: pd.Timestamp,
     settings: Settings,
     t_typ: tuple[float, str],
+    meter_daily: pd.DataFrame | None = None,
+    ac_loss_pct: float | None = None,
 ) -> dict[str, Any]:
     """The ``metrics`` block (monthly, yearly, period, daily) and the ``settings`` used, from
     the per-inverter daily sums of the days of ``[start, end)`` (:func:`daily_sums`).
 
     ``t_typ`` is T_cell_typ_avg [C] and where it came from (:func:`typical_cell_temperature`).
+    ``meter_daily``: the same sums on the meter's basis, behind the plant's figures (None: the
+    plant is the sum of its inverters); ``ac_loss_pct``: the meter's design AC loss [%] (None:
+    no meter; see :func:`summarise`).
     """
-    days, cube, p0, scopes = _cube(daily, site)
+    days, cube, p0, scopes = _cube(daily, site, meter_daily)
     t_typ_c, t_typ_source = t_typ
     temp_refs = _temp_refs(settings, t_typ_c)
     temp_ref = temp_refs[0]
@@ -775,7 +818,8 @@ def compute(
             while j < len(days) and keys[j] == keys[i]:
                 j += 1
             label = {name: fmt(keys[i]), **bounds(keys[i], nxt(keys[i]))}
-            out.append(summarise(cube[i:j], p0, scopes, label, settings, temp_refs, with_ci))
+            out.append(summarise(cube[i:j], p0, scopes, label, settings, temp_refs, with_ci,
+                                 ac_loss_pct))
             i = j
         return out
 
@@ -785,17 +829,17 @@ def compute(
                    lambda d: d.replace(year=d.year + 1), True)
     daily_rows = group(lambda d: d, "date", lambda d: d.isoformat(),
                        lambda d: d + dt.timedelta(days=1), False)
-    period = _period(cube, p0, scopes, start, end, site, settings, temp_refs)
+    period = _period(cube, p0, scopes, start, end, site, settings, temp_refs, ac_loss_pct)
     return {
         "settings": settings_record(settings, temp_ref, t_typ_c, t_typ_source),
         "metrics": {"monthly": monthly, "yearly": yearly, "period": period, "daily": daily_rows},
     }
 
 
-def _cube(daily: pd.DataFrame, site: Site
+def _cube(daily: pd.DataFrame, site: Site, meter_daily: pd.DataFrame | None = None
           ) -> tuple[list[Any], np.ndarray, np.ndarray, list[str]]:
     """Days, the (day, scope, ADDITIVE) cube of daily sums, P0 per scope [W] and the scopes."""
-    sums = scope_sums(daily, site)
+    sums = scope_sums(daily, site, meter_daily)
     scopes = ["plant", *(f"inverter:{i.id}" for i in site.inverters)]
     sums = sums.assign(_order=sums["scope"].map({sc: k for k, sc in enumerate(scopes)}))
     sums = sums.sort_values(["day", "_order"])
@@ -811,20 +855,23 @@ def _temp_refs(settings: Settings, t_typ_c: float) -> tuple[float, float]:
 
 
 def _period(cube: np.ndarray, p0: np.ndarray, scopes: list[str], start: pd.Timestamp,
-            end: pd.Timestamp, site: Site, settings: Settings, temp_refs: tuple[float, float]
-            ) -> dict[str, Any]:
+            end: pd.Timestamp, site: Site, settings: Settings, temp_refs: tuple[float, float],
+            ac_loss_pct: float | None = None) -> dict[str, Any]:
     p_start, p_end = start.tz_convert(site.tz), end.tz_convert(site.tz)
     label = {"start": p_start.isoformat(), "end": p_end.isoformat(),
              "_key": (1, p_start.toordinal(), p_end.toordinal()),
              "days": round((p_end - p_start) / pd.Timedelta(days=1))}
-    return summarise(cube, p0, scopes, label, settings, temp_refs, True)
+    return summarise(cube, p0, scopes, label, settings, temp_refs, True, ac_loss_pct)
 
 
 def period_summary(daily: pd.DataFrame, site: Site, start: pd.Timestamp, end: pd.Timestamp,
-                   settings: Settings, t_typ: tuple[float, str]) -> dict[str, Any]:
+                   settings: Settings, t_typ: tuple[float, str],
+                   meter_daily: pd.DataFrame | None = None,
+                   ac_loss_pct: float | None = None) -> dict[str, Any]:
     """The ``period`` row of :func:`compute` alone (e.g. a contract year for the guarantees)."""
-    _, cube, p0, scopes = _cube(daily, site)
-    return _period(cube, p0, scopes, start, end, site, settings, _temp_refs(settings, t_typ[0]))
+    _, cube, p0, scopes = _cube(daily, site, meter_daily)
+    return _period(cube, p0, scopes, start, end, site, settings, _temp_refs(settings, t_typ[0]),
+                   ac_loss_pct)
 
 
 def period(

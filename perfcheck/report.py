@@ -92,7 +92,20 @@ YIELDS_NOTE = ("Yr and Yf follow IEC 61724-1 over the intervals used for PR (day
 
 LOSSES_LEAD = ("Where the expected energy went: every energy in this report is a sum over one "
                "ledger of the intervals that have both a measured and an expected value, so "
-               "expected less the causes and the unexplained rest is the measured energy.")
+               "expected less the causes and the unexplained rest is the measured energy. "
+               "With an export meter it goes on to the energy delivered there: the measured "
+               "energy less the AC losses to the meter, less the inverters' energy the meter "
+               "has no reading for, plus what the meter counted while the inverters logged "
+               "nothing.")
+
+METER_HEAD = ["Month", "Inverters [kWh]", "Meter [kWh]", "Difference [%]",
+              "Design AC loss [%]"]
+METER_LEAD = ("The inverters' sum against the export meter, month by month, over the intervals "
+              "where both have energy (every figure a sum over the ledger). The difference is "
+              "the AC losses between them (cabling, transformer) plus the two instruments' "
+              "errors; read it against the design AC loss of the site file (meter.ac_loss_pct). "
+              "A difference well beyond it, or one that changes from month to month, points "
+              "at a fault on the AC side, a meter or a logger channel to check.")
 
 EVENT_FIELDS = ["kind", "scope", "start", "end", "duration_h", "energy_loss_kwh",
                 "energy_loss_kwh_low", "energy_loss_kwh_high", "method", "evidence_json"]
@@ -308,10 +321,15 @@ def verdict(result: dict, tz: str, feeds: list[dict] | None = None) -> str:
     short = p["expected_kwh"] - p["measured_kwh"]
     rel = short / p["expected_kwh"] if p["expected_kwh"] else 0.0
     words = "less" if short >= 0 else "more"
-    text = (f"{period_phrase(result, tz)} the plant delivered {p['measured_kwh']:,.0f} kWh, "
-            f"{abs(rel):.1%} ({abs(short):,.0f} kWh) {words} than expected: EPI "
-            f"{fmt_interval(p, 'epi')}, PR {fmt_interval(p, 'pr')}, temperature-corrected PR "
-            f"{fmt_interval(p, 'pr_temp_corrected')}")
+    at_meter = result.get("losses", {}).get("meter", {}).get("basis") == "meter"
+    who = "the plant" if p.get("delivered_kwh") is None else "the plant's inverters"
+    text = (f"{period_phrase(result, tz)} {who} delivered {p['measured_kwh']:,.0f} kWh, "
+            f"{abs(rel):.1%} ({abs(short):,.0f} kWh) {words} than expected")
+    if p.get("delivered_kwh") is not None:
+        text += f", and {p['delivered_kwh']:,.0f} kWh reached the export meter"
+    where = " at the meter" if at_meter else ""
+    text += (f": EPI{where} {fmt_interval(p, 'epi')}, PR{where} {fmt_interval(p, 'pr')}, "
+             f"temperature-corrected PR {fmt_interval(p, 'pr_temp_corrected')}")
     top = top_cause(result)
     if top is not None and short > 0:
         text += (f"; the largest cause found is {kinds.words(top['kind'])} on "
@@ -571,6 +589,9 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "revisions": [revision_text(r, tz) for r in result.get("revisions", [])],
         "losses_rows": losses_rows(result.get("losses", {})),
         "losses_lead": LOSSES_LEAD,
+        "plant_basis": result.get("settings", {}).get("plant_basis", ""),
+        "meter_head": METER_HEAD, "meter_lead": METER_LEAD,
+        "meter_rows": meter_rows(result["metrics"]),
         "methods": METHODS,
         "site_text": site.path.read_text(encoding="utf-8"),
         "site_file": site.path.name,
@@ -598,6 +619,38 @@ def losses_rows(losses: dict) -> list[list[str]]:
     rows.append(["Measured", f"{losses['measured_kwh']:,.1f}"])
     rows += [[f"Not a loss: {kinds.words(k)}", f"{v:,.1f}"]
              for k, v in losses.get("design_kwh", {}).items()]
+    return rows + meter_loss_rows(losses.get("meter", {}))
+
+
+def meter_loss_rows(m: dict) -> list[list[str]]:
+    """From the inverters' measured energy down to the energy delivered at the export meter
+    (the losses block's ``meter``), when the site has a meter."""
+    if m.get("delivered_kwh") is None:
+        return []
+    rows = [[f"AC losses, inverters to meter (design {m['ac_loss_pct']:g} %: "
+             f"{m['expected_ac_losses_kwh']:,.1f} kWh)", f"{m['ac_losses_kwh']:,.1f}"]]
+    if m["not_metered_kwh"]:
+        rows.append(["Inverter energy without a meter reading",
+                     f"{m['not_metered_kwh']:,.1f}"])
+    if m["without_inverter_data_kwh"]:
+        rows.append(["Metered where the inverters logged nothing (logger gaps; shaped by "
+                     "the expected power)", f"{m['without_inverter_data_kwh']:,.1f}"])
+    rows.append(["Delivered at the export meter", f"{m['delivered_kwh']:,.1f}"])
+    return rows
+
+
+def meter_rows(metrics_block: dict) -> list[list[str]]:
+    """The monthly reconciliation of the inverters' sum against the meter, and the period's
+    total (empty without a meter)."""
+    rows = []
+    period = metrics_block.get("period", {})
+    for label, m in [*((x["month"], x) for x in metrics_block.get("monthly", [])),
+                     ("Period", period)]:
+        r = m.get("meter")
+        if not r:
+            continue
+        rows.append([label, f"{r['inverter_kwh']:,.0f}", f"{r['meter_kwh']:,.0f}",
+                     _v(r["difference_pct"], "{:.2f}"), f"{r['expected_ac_loss_pct']:.2f}"])
     return rows
 
 
@@ -786,6 +839,11 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
                       "shown where wider than the rounding. A month with too little valid data "
                       "shows n/a instead of a number."))
     b.append(("para", ctx["yields_note"]))
+    if ctx["plant_basis"]:
+        b.append(("para", f"Basis of the plant's figures: {ctx['plant_basis']}."))
+    if ctx["meter_rows"]:
+        b.append(("para", ctx["meter_lead"]))
+        b.append(("table", (ctx["meter_head"], ctx["meter_rows"])))
     b.append(("h", "3  Figures"))
     b.append(("figures", None))
     b.append(("h", "4  Events"))

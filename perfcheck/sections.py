@@ -2,18 +2,19 @@
 typo in ``[detect]`` fails the first command rather than the fourth.
 
 Each stage owns the rules of its section (``[metrics]``, ``[detect]``, ``[report]``,
-``[guarantees]``, ``[[corrections]]``); this module only calls them all.
+``[guarantees]``, ``[meter]``, ``[[corrections]]``); this module only calls them all.
 """
 
 from __future__ import annotations
 
-from perfcheck import detect, guarantees, metrics, report, units
+from perfcheck import detect, guarantees, meter, metrics, report, units
 from perfcheck.site import Site
 
 
 def validate(site: Site) -> Site:
     """Raise SiteFileError (naming the key) for the first bad key of any section."""
     metrics.load_settings(site)
+    meter.load_settings(site)
     detect.load_settings(site)
     report.report_settings(site)
     guarantees.settings(site)

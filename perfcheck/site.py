@@ -739,7 +739,7 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
     if len(set(names)) != len(names):
         raise SiteFileError(f"{path}: loggers: names must be unique")
     # Sections that later stages read are validated by those stages; accept them here.
-    for later in ("metrics", "detect", "guarantees", "report", "corrections"):
+    for later in ("metrics", "detect", "guarantees", "report", "meter", "corrections"):
         top.used.add(later)
     top.done()
     return Site(

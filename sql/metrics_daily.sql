@@ -5,6 +5,11 @@
 -- analysis whose ledger gives the measured power (NULL: the aligned readings): readings with clock faults shifted back, so
 -- a fault of the data never counts as downtime; and the ledger's measured and expected energy
 -- over the intervals that have both, the one "measured" and "expected" of every view).
+-- $basis: 'inverter' (the inverters' energy) or 'meter' (the export meter's energy shared over
+-- the rows, ledger.delivered_wh, and the expected power times $meter_factor, the share that
+-- reaches the meter by design: perfcheck.meter). e_delivered_wh and the reconciliation sums
+-- e_rec_inv_wh / e_rec_meter_wh (the inverters' and the meter's energy over the rows that
+-- have both) come from the ledger in either basis.
 -- Registered relations: _metrics_inverters(inverter_id, down_w) and
 -- _metrics_windows(action, scope, start_ts, end_ts) from detected events: action 'exclude'
 -- (curtailment / grid outage) or 'model_poa' (suspect irradiance sensor: there the
@@ -43,7 +48,7 @@ w AS (
     WHERE a.ts >= $start AND a.ts < $end
 ),
 l AS (
-    SELECT ts, inverter_id, measured_wh, expected_wh, poa_wm2 FROM ledger
+    SELECT ts, inverter_id, measured_wh, expected_wh, poa_wm2, delivered_wh FROM ledger
     WHERE analysis_id = $analysis AND ts >= $start AND ts < $end
 ),
 -- with an analysis, an inverter is down in the intervals the ledger gives to a kind of
@@ -66,8 +71,14 @@ r AS (
         m.wh * 3600.0 / w.interval_s AS p,
         CASE WHEN m.wh IS NOT NULL AND m.exp_wh IS NOT NULL THEN m.wh END AS lm_wh,
         CASE WHEN m.wh IS NOT NULL AND m.exp_wh IS NOT NULL THEN m.exp_wh END AS le_wh,
-        CASE WHEN w.fallback THEN w.expected_ac_modelled_w
+        CASE WHEN w.fallback THEN w.expected_ac_modelled_w * m.f
              ELSE m.exp_wh * 3600.0 / w.interval_s END AS p_exp,
+        l.delivered_wh AS d_wh,
+        CASE WHEN l.measured_wh IS NOT NULL AND l.delivered_wh IS NOT NULL
+                  AND l.expected_wh IS NOT NULL THEN l.measured_wh END AS rec_inv_wh,
+        CASE WHEN l.measured_wh IS NOT NULL AND l.delivered_wh IS NOT NULL
+                  AND l.expected_wh IS NOT NULL THEN l.delivered_wh END AS rec_meter_wh,
+        l.expected_wh IS NOT NULL AS has_exp,
         CASE WHEN w.fallback THEN w.poa_modelled_wm2 ELSE m.poa END AS g,
         CASE WHEN w.fallback THEN coalesce(w.temp_cell_modelled_c, w.temp_cell_c)
              ELSE w.temp_cell_c END AS t,
@@ -92,9 +103,12 @@ r AS (
     -- back, sensor faults rebuilt); without a ledger (no analysis yet) the aligned values
     CROSS JOIN LATERAL (SELECT
         CASE WHEN l.ts IS NULL THEN w.poa_wm2 ELSE l.poa_wm2 END AS poa,
-        CASE WHEN l.ts IS NULL THEN w.measured_ac_w * w.interval_s / 3600.0
+        CASE WHEN $basis = 'meter' THEN l.delivered_wh
+             WHEN l.ts IS NULL THEN w.measured_ac_w * w.interval_s / 3600.0
              ELSE l.measured_wh END AS wh,
-        CASE WHEN l.ts IS NOT NULL THEN l.expected_wh
+        CASE WHEN $basis = 'meter' THEN $meter_factor ELSE 1.0 END AS f) mf
+    CROSS JOIN LATERAL (SELECT mf.poa, mf.wh, mf.f,
+        mf.f * CASE WHEN l.ts IS NOT NULL THEN l.expected_wh
              WHEN w.fallback THEN w.expected_ac_modelled_w * w.interval_s / 3600.0
              ELSE w.expected_ac_w * w.interval_s / 3600.0 END AS exp_wh) m
     LEFT JOIN dc ON dc.ts = w.ts AND dc.device = w.inverter_id
@@ -138,7 +152,10 @@ SELECT
     coalesce(fsum(p_exp * dt_h) FILTER (WHERE daylight AND valid), 0) AS e_exp_all_wh,
     coalesce(fsum(p_exp * dt_h) FILTER (WHERE daylight AND NOT valid), 0) AS e_exp_gap_wh,
     coalesce(fsum(lm_wh), 0) AS e_ledger_meas_wh,
-    coalesce(fsum(le_wh), 0) AS e_ledger_exp_wh
+    coalesce(fsum(le_wh), 0) AS e_ledger_exp_wh,
+    coalesce(fsum(d_wh) FILTER (WHERE has_exp), 0) AS e_delivered_wh,
+    coalesce(fsum(rec_inv_wh), 0) AS e_rec_inv_wh,
+    coalesce(fsum(rec_meter_wh), 0) AS e_rec_meter_wh
 FROM u
 GROUP BY day, inverter_id
 ORDER BY day, inverter_id

@@ -101,6 +101,22 @@ CREATE TABLE IF NOT EXISTS analysis_daily (
 ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS h_tb_whm2 DOUBLE;
 ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS htb_whm2c DOUBLE;
 
+-- The export meter (perfcheck.meter): its energy shared over the ledger's rows (by measured
+-- energy; by expected energy for an inverter without data, a register step across a gap spread
+-- in the shape of the expected power); NULL without a meter or where it has no energy.
+ALTER TABLE ledger ADD COLUMN IF NOT EXISTS delivered_wh DOUBLE;
+-- true where that energy comes from a meter step over several intervals, spread in the shape of
+-- the expected power (a logger gap, a meter read less often than the inverters)
+ALTER TABLE ledger ADD COLUMN IF NOT EXISTS delivered_shaped BOOLEAN DEFAULT false;
+-- The daily sums twice when the plant is judged at the meter: basis 'inverter' (the inverters'
+-- energy) and 'meter' (the meter's energy, expected power less the design AC loss, behind the
+-- plant's yields and PR); e_delivered_wh and the reconciliation sums (e_rec_*: the inverters'
+-- and the meter's energy over the rows with both) in the 'inverter' rows.
+ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS basis VARCHAR DEFAULT 'inverter';
+ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS e_delivered_wh DOUBLE DEFAULT 0;
+ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS e_rec_inv_wh DOUBLE DEFAULT 0;
+ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS e_rec_meter_wh DOUBLE DEFAULT 0;
+
 -- Which earlier findings a new analysis changed, and why.
 CREATE TABLE IF NOT EXISTS analysis_revisions (
     analysis_id   INTEGER NOT NULL,

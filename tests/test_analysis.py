@@ -163,6 +163,14 @@ def test_one_report_reconciles(plant, tmp_path):
     causes = [v for k, v in table.items() if k.startswith("less ")]
     assert expected - math.fsum(causes) == pytest.approx(measured, abs=0.05 * (len(causes) + 2))
     assert expected == pytest.approx(losses["expected_kwh"], abs=0.05)
+    # the demo has an export meter: from the measured energy on to the delivered energy
+    at_meter = [v for k, v in table.items() if k.startswith(("AC losses", "Inverter energy"))]
+    gaps = [v for k, v in table.items() if k.startswith("Metered where")]
+    assert measured - math.fsum(at_meter) + math.fsum(gaps) == pytest.approx(
+        table["Delivered at the export meter"], abs=0.05 * (len(at_meter) + len(gaps) + 2))
+    assert table["Delivered at the export meter"] == pytest.approx(
+        losses["meter"]["delivered_kwh"], abs=0.05)
+    assert 'id="meter"' in html and "Basis of the plant's figures" in html
     assert f"{losses['measured_kwh']:,.0f} kWh" in html  # the headline's measured energy
     text = _pdf_text(paths["pdf"])
     if text is None:

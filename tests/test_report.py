@@ -75,6 +75,18 @@ def test_verdict_sentence_numbers():
                     "share.")
 
 
+def test_verdict_with_an_export_meter_says_where_pr_is_taken():
+    # the invented check result with a meter (IEC 61724-1: PR where the energy is delivered):
+    # 13 405 kWh at the inverters, 13 204 kWh at the meter (1.5 % AC losses)
+    r = example_check()
+    r["metrics"]["period"]["delivered_kwh"] = 13204.0
+    r["losses"]["meter"] = {"basis": "meter"}
+    text = report.verdict(r, "Europe/Zurich")
+    assert text.startswith("In June 2025 the plant's inverters delivered 13,405 kWh, 5.6% "
+                           "(795 kWh) less than expected, and 13,204 kWh reached the export "
+                           "meter: EPI at the meter 0.944 (0.934–0.954), PR at the meter 0.781")
+
+
 def test_verdict_of_a_span_reads_as_a_sentence():
     r = example_check("2023-01-01T00:00:00+01:00", "2025-01-01T00:00:00+01:00")
     r["metrics"]["period"]["coverage"] = 1.0
@@ -206,8 +218,10 @@ def test_demo_month_report(demo_db, tmp_path):
     assert html.count('src="data:image/png;base64,') == len(figures.FIGURES)
     doc = json.loads(paths["json"].read_text())
     p = doc["metrics"]["period"]
-    # the verdict quotes the period's numbers as the JSON holds them
-    assert f"EPI {p['epi']:.3f}" in html and f"{p['measured_kwh']:,.0f} kWh" in html
+    # the verdict quotes the period's numbers as the JSON holds them (the demo's plant figures
+    # are at its export meter, and the verdict says so)
+    assert f"EPI at the meter {p['epi']:.3f}" in html
+    assert f"{p['measured_kwh']:,.0f} kWh" in html and f"{p['delivered_kwh']:,.0f} kWh" in html
     rows = list(csv.DictReader(io.StringIO(paths["events_csv"].read_text())))
     assert [(r["kind"], r["scope"]) for r in rows] == [(e["kind"], e["scope"])
                                                        for e in doc["events"]]

@@ -86,8 +86,23 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
               f"{report.kwh(losses['measured_kwh'])} kWh, not explained by a finding "
               f"{report.kwh(losses['unexplained_kwh'])} kWh; guarantees checked: "
               f"{len(doc['guarantees'])}"]
+    lines += meter_lines(losses.get("meter", {}), s.get("plant_basis"))
     notes = units.words(doc.get("data_quality", {}))
     return "\n".join(lines + ([""] + notes if notes else []))
+
+
+def meter_lines(m: dict[str, Any], basis: str | None) -> list[str]:
+    """The basis of the plant's figures in words, and with a meter the way from the
+    inverters' energy to the energy delivered there."""
+    out = [f"Plant basis: {basis}"] if basis else []
+    if m.get("delivered_kwh") is not None:
+        out.append(f"At the export meter: delivered {report.kwh(m['delivered_kwh'])} kWh = "
+                   f"inverters {report.kwh(m['inverter_kwh'])} - AC losses "
+                   f"{report.kwh(m['ac_losses_kwh'])} (design {m['ac_loss_pct']:g} %: "
+                   f"{report.kwh(m['expected_ac_losses_kwh'])}) - without a meter reading "
+                   f"{report.kwh(m['not_metered_kwh'])} + metered without inverter data "
+                   f"{report.kwh(m['without_inverter_data_kwh'])} kWh")
+    return out
 
 
 def local_minute(instant: str) -> str:

@@ -20,7 +20,12 @@ import pandas as pd
 
 from perfcheck.scenario.faults import Faults, entry, iso, local_ts, window
 from perfcheck.scenario.plant import Physics, Plant
-from perfcheck.scenario.sitefile import MAIN_LOGGER, WEATHER_LOGGER, weather_factor
+from perfcheck.scenario.sitefile import (
+    MAIN_LOGGER,
+    METER_AC_LOSS_PCT,
+    WEATHER_LOGGER,
+    weather_factor,
+)
 from perfcheck.scenario.weather import Weather
 from perfcheck.site import Site
 
@@ -53,7 +58,7 @@ class Readings:
     temp_air: np.ndarray
     wind_speed: np.ndarray
     wind_nan: np.ndarray  # the station wrote NaN
-    register_kwh: np.ndarray  # plant meter at the interval's end
+    register_kwh: np.ndarray  # plant meter at the interval's end (less the AC losses)
 
 
 def fmt(values: np.ndarray, decimals: int, comma: bool) -> np.ndarray:
@@ -119,7 +124,9 @@ def sensor_readings(
     wind_nan = rng.random(n) < 3e-4
     temp_module = ph.temp_module + 0.3 * rng.standard_normal(n)
     temp_air = w.temp_air + 0.15 * rng.standard_normal(n)
-    register = np.cumsum(plant.ac.sum(axis=0)) * interval_min / 60 / 1000
+    # the export meter counts the inverters' output less the AC losses between them
+    delivered = plant.ac.sum(axis=0) * (1 - METER_AC_LOSS_PCT / 100)
+    register = np.cumsum(delivered) * interval_min / 60 / 1000
     if faults.meter_reset:
         after = np.asarray(times >= local_ts(faults.meter_reset, tz))
         if after.any() and not after.all():
@@ -166,8 +173,10 @@ def _gaps(site: Site, times: pd.DatetimeIndex, plant: Plant, faults: Faults, log
         keep &= ~inside
         params: dict[str, Any] = {"logger": logger, "rows_missing": int(inside.sum())}
         if logger == MAIN_LOGGER:
-            params["unrecorded_kwh"] = round(
-                float(plant.ac[:, inside].sum() * interval_min / 60 / 1000), 3)
+            unrecorded = float(plant.ac[:, inside].sum() * interval_min / 60 / 1000)
+            params["unrecorded_kwh"] = round(unrecorded, 3)
+            # what the meter register counts across the gap (it keeps counting)
+            params["metered_kwh"] = round(unrecorded * (1 - METER_AC_LOSS_PCT / 100), 3)
         truth.append(entry("data_gap", "plant", g.start, g.end, site.tz, params))
     return keep, truth
 
