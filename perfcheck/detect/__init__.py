@@ -133,10 +133,10 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
-    clear = clear_days(w0)
     planes = _planes(site)
     planes["_sensor"] = [(*sensor_plane(site), 1.0)]
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
+    clear = clear_days(w0, cs[w0.inverters])
     t = lap("prepare", t)
     groups = [sorted({c.device for c in lg.columns if c.quantity in DEVICE_QUANTITIES
                       and c.device in ac}) for lg in site.loggers]
@@ -147,7 +147,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w1 = clock.corrected(w0, shifts, too)
     events: list[Event] = clock.events(w0, w1, shifts, too, len(site.inverters))
     t = lap("clock", t)
-    suspects = sensor.find(w1, clear, cs["_sensor"], alpha=st.alpha)
+    suspects = sensor.find(w1, clear, cs, alpha=st.alpha)
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
     t = lap("sensor", t)
