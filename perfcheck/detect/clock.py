@@ -1,10 +1,15 @@
 """Clock faults: the logger's time labels off by a constant offset for a while.
 
-On clear days the centre (power-weighted mean time) of an inverter's measured power is
-compared with the centre of its clear-sky plane-of-array irradiance computed from the sun
-position (:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by
-DC rating). For a south-facing array this is the solar noon; for other
-orientations it is the same astronomy seen from their plane. The difference [min] per clear day
+Every day with readings in at least 90 % of its daylight intervals, the centre
+(power-weighted mean time) of an inverter's measured power is compared with the centre of its
+clear-sky plane-of-array irradiance computed from the sun position
+(:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by DC
+rating). For a south-facing array this is the solar noon; for other orientations it is the
+same astronomy seen from their plane. Clouds move a day's centre by a few to some tens of
+minutes either way, a clock error moves every day of its window alike; clear days alone are
+too few (and a shifted logger's own irradiance makes its days look cloudy against the
+clear-sky curve, so a missed daylight-saving change hides from a clear-day test). The
+difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.common.despike`),
 is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
 segment whose level differs from the reference level (the longest segment) by at least
 ``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
@@ -34,8 +39,8 @@ from scipy import stats
 from perfcheck.detect.common import Event, Wide, change_points, despike
 from perfcheck.detect.sensor import refine_edge
 
-METHOD = ("daily power centre on clear days against the clear-sky plane irradiance centre "
-          "from the sun position; segmentation and Welch t test")
+METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
+          "position; segmentation and Welch t test")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -58,7 +63,7 @@ def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
     return num / den
 
 
-def find(w: Wide, reference: pd.DataFrame, clear: pd.Series, groups: list[list[str]],
+def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
          alpha: float = 1e-3, min_offset_min: float = 20.0, min_days: int = 3) -> list[Shift]:
     """Clock shifts of the measured power (see module docstring).
 
@@ -72,10 +77,9 @@ def find(w: Wide, reference: pd.DataFrame, clear: pd.Series, groups: list[list[s
     ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
     d_all = centres(w, w.measured.where(ok)) - centres(w, reference.where(ok))
     d_all = d_all.where(ok_day > 0.9)
-    is_clear = clear.reindex(d_all.index).fillna(False).astype(bool)
     found: list[Shift] = []
     for inv in w.inverters:
-        q = d_all[inv][is_clear].dropna()
+        q = d_all[inv].dropna()
         if len(q) < 4 * min_days:
             continue
         x = despike(q.to_numpy())
@@ -96,7 +100,7 @@ def find(w: Wide, reference: pd.DataFrame, clear: pd.Series, groups: list[list[s
             found.append(Shift(
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
-                {"test": "Welch t", "p_value": float(t.pvalue), "clear_days": g.stop - g.start,
+                {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
                  "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)}))
     return [s for s in _merge(found) if any(set(g) <= set(s.inverters) for g in groups if g)]
 

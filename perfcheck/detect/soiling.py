@@ -4,16 +4,18 @@ The plant's daily performance index is the median over the inverters of each inv
 insolation-weighted daily measured/expected, divided by its own median (so inverters of other
 orientation or size count alike and one inverter's own fault does not move it). Recoveries are
 (a) days on which some 24-hour rain total reaches ``rain_mm`` in the readings and (b)
-significant local steps up of the index (:func:`local_steps_up`); a step up with at least
-1 mm of rain on that day or the day before is a rain recovery, else a cleaning. Between two
+significant local steps up of the index (:func:`local_steps_up`); a step up with at least 1 mm
+of rain on that day or the day before is a rain recovery, else a cleaning. Between two
 recoveries the index is fitted by a Theil-Sen line; an interval whose slope is negative with
-Kendall's test p-value below ``alpha`` is a soiling interval. Soiling may start some days
-after the recovery (a grace period, as in Kimber et al. 2006): the onset is the hinge of the
-weighted least-squares fit of a level followed by a linear decline. Its soiling ratio is that
-fit over the clean level: the plateau before the onset where there is one, else the rolling
-median of the index outside the soiling intervals where that is above the line's start (a
-partial recovery), else the line's start (a full recovery). Consecutive
-soiling intervals form one soiling episode (one event) with its recoveries.
+Kendall's test p-value below ``alpha``, ended by a recovery that gives back at least half of
+its decline (:func:`_restored`), is a soiling interval; the interval still open at the end of
+the data counts when it declines like the confirmed ones (:func:`_like`). Soiling may start
+some days after the recovery (a grace period, as in Kimber et al. 2006): the onset is the hinge
+of the weighted least-squares fit of a level followed by a linear decline. Its soiling ratio is
+that fit over the clean level: the plateau before the onset where there is one, else the
+rolling median of the index outside the soiling intervals where that is above the line's start
+(a partial recovery), else the line's start (a full recovery). Consecutive soiling intervals
+form one soiling episode (one event) with its recoveries.
 
 The false-alarm probability per interval tested is ``alpha`` (Kendall's test, one-sided
 decline; the run passes 1e-3), and per series ``alpha`` for the steps up (Bonferroni over
@@ -131,7 +133,10 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         if np.isfinite(y).sum() < min_days:
             continue
         f = mann_kendall_slope(y, x_all[sel])
-        if f["slope"] < 0 and f["p_value"] / 2 < alpha:
+        if not (f["slope"] < 0 and f["p_value"] / 2 < alpha):
+            continue
+        if _restored(idx, a, b, min_days, alpha) or (
+                b > days[-1] and _like(f, [g[3] for g in fits])):
             soiling[sel] = True
             fits.append((a, b, sel, f))
     insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days).to_numpy()
@@ -156,6 +161,34 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         ratio[sel] = np.minimum(1.0, line / ref)
     events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma)
     return events, prints, ratio
+
+
+def _restored(index: pd.Series, a: pd.Timestamp, b: pd.Timestamp, k: int, alpha: float
+              ) -> bool:
+    """Whether the decline from ``a`` to ``b`` and the recovery at ``b`` are both significant
+    and the recovery gives back at least half of the decline (medians of ``k`` days: the
+    first of the interval, the last before ``b``, the first from ``b`` on; each difference
+    tested one-sided at ``alpha`` as in :func:`local_steps_up`). Soiling is undone by a wash
+    (Kimber et al. 2006; Deceglie et al. 2018 count an interval up to its recovery); a decline
+    that nothing undoes (ageing, the model's seasonal error, a loss that persists) is not
+    soiling."""
+    s = np.log(index.dropna())
+    inside = s[(s.index >= a) & (s.index < b)]
+    after = s[s.index >= b].iloc[:k]
+    if len(after) == 0 or len(inside) < 2 * k:
+        return False
+    first, last = float(inside.iloc[:k].median()), float(inside.iloc[-k:].median())
+    step = float(after.median()) - last
+    noise = 1.2533 * robust_sigma(s.to_numpy()) * np.sqrt(2.0 / k)
+    z = stats.norm.isf(alpha) * noise
+    return bool(first - last > z and step > z and step >= 0.5 * (first - last))
+
+
+def _like(f: dict, confirmed: list[dict]) -> bool:
+    """Whether an interval still open at the end of the data declines like the plant's
+    confirmed soiling intervals (its Theil-Sen 95 % interval overlaps one of theirs): the
+    same soiling building again, where a decline of its own could be anything."""
+    return any(f["low"] <= g["high"] and g["low"] <= f["high"] for g in confirmed)
 
 
 def _hinge(x: np.ndarray, y: np.ndarray, weight: np.ndarray, min_tail: int = 3
