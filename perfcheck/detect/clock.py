@@ -93,10 +93,14 @@ def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
             if not t.pvalue < alpha:
                 continue
             allq = d_all[inv]
-            prev = q.index[g.start - 1] if g.start > 0 else allq.index[0] - pd.Timedelta(days=1)
-            nxt = q.index[g.stop] if g.stop < len(q) else allq.index[-1]
-            d0 = refine_edge(allq, prev, q.index[g.start])
-            d1 = refine_edge(allq, q.index[g.stop - 1], nxt)
+            # each edge may move by a day where a least-absolute-deviation split says so: a
+            # cloudy day next to an edge can pull the segmentation's edge by a day, the
+            # medians of the split are not moved by one day
+            prev = (q.index[max(g.start - 2, 0)] if g.start > 0
+                    else allq.index[0] - pd.Timedelta(days=1))
+            nxt = q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q) else allq.index[-1]
+            d0 = refine_edge(allq, prev, q.index[min(g.start + 1, g.stop - 1)])
+            d1 = refine_edge(allq, q.index[max(g.stop - 2, g.start)], nxt)
             found.append(Shift(
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
@@ -106,21 +110,29 @@ def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
 
 
 def _merge(found: list[Shift]) -> list[Shift]:
-    """Windows of several inverters that overlap, with offsets within 15 min, become one."""
-    out: list[Shift] = []
+    """Windows of several inverters that overlap, with offsets within 15 min, become one; its
+    edges are the medians of the inverters' edges (one logger's clock moves all its inverters
+    at once: the median is the edge that a cloudy day on one inverter does not pull)."""
+    groups: list[list[Shift]] = []
     for s in sorted(found, key=lambda s: s.start):
-        for i, o in enumerate(out):
-            if s.start < o.end and o.start < s.end and abs(s.offset_min - o.offset_min) < 15:
-                inv = o.inverters + s.inverters
-                out[i] = Shift(min(o.start, s.start), max(o.end, s.end),
-                               float(np.mean([o.offset_min, s.offset_min])), inv,
-                               {**o.evidence, "per_inverter_offset_min": {
-                                   **o.evidence.get("per_inverter_offset_min",
-                                                    {o.inverters[0]: o.offset_min}),
-                                   s.inverters[0]: s.offset_min}})
+        for g in groups:
+            if (s.start < max(x.end for x in g) and min(x.start for x in g) < s.end
+                    and abs(s.offset_min - np.mean([x.offset_min for x in g])) < 15):
+                g.append(s)
                 break
         else:
-            out.append(s)
+            groups.append([s])
+    out = []
+    for g in groups:
+        if len(g) == 1:
+            out.append(g[0])
+            continue
+        starts, ends = sorted(x.start for x in g), sorted(x.end for x in g)
+        out.append(Shift(starts[(len(g) - 1) // 2], ends[len(g) // 2],
+                         float(np.mean([x.offset_min for x in g])),
+                         tuple(i for x in g for i in x.inverters),
+                         {**g[0].evidence, "per_inverter_offset_min": {
+                             x.inverters[0]: x.offset_min for x in g}}))
     return out
 
 

@@ -1,28 +1,39 @@
 """Irradiance sensor faults: the plane-of-array sensor drifting, reading off, or stuck.
 
-* Level: the daily ratio of the sensor's irradiation to the clear-sky irradiance in its plane
-  (:func:`perfcheck.detect.common.clearsky_poa`) on clear days, log-transformed, segmented by
-  circular binary segmentation (:func:`perfcheck.detect.common.change_points`). A segment
-  whose level differs from the reference level (the longest segment) by a Welch t-test
-  p-value below ``alpha`` and by at least ``min_shift``, with a step at each of its inner
-  edges (half the change or more, medians of three clear days either side), is suspect; its
-  edges are then placed on the day using every day's ratio of the sensor-fed inverters'
-  performance index to the other inverters' (else the sensor against the POA modelled from
-  GHI). It must be confirmed
-  by the inverters fed by the sensor: when the sensor moved, all of them move together the
-  other way against their expected power, by half to twice the sensor's change, compared
-  with as many days on either side (the clear-sky reference has seasonal errors of a few %
-  that the power does not mirror).
+The inverters the sensor drives (:func:`driven_columns`: those it feeds and, where no GHI is
+logged, every inverter, their plane irradiance being the sensor's decomposed and transposed)
+see a sensor that reads a factor f off all together: their expected power moves by f, their
+daily performance index by 1/f. A plant fault moves one inverter, or builds up (soiling), or
+is left to its own detector; the sensor is blamed only where an independent reference agrees.
+
+* Level, from the power (:func:`power_faults`): the driven inverters' daily log index (less
+  the other inverters' where some do not depend on the sensor) is segmented every day by
+  circular binary segmentation (:func:`perfcheck.detect.common.change_points`, false-alarm
+  probability ``alpha`` per split); a segment that differs from as many days on either side
+  by a Welch t-test p-value below ``alpha`` and by at least ``min_shift``, with a step at each
+  edge, is a candidate, confirmed when the sensor against its clear-sky plane irradiance on
+  clear days moved the other way by half to twice as much (one-sided Welch at
+  ``CONFIRM_ALPHA``, steps at the edges too).
+* Level, from the sensor (:func:`level_faults`): the same ratio to the clear-sky irradiance on
+  clear days, segmented likewise, confirmed when the driven inverters' index mirrors it
+  (:func:`_mirrored`): the clear-sky reference has seasonal errors of a few % that the power
+  does not mirror. Its edges are placed on the day by every day's index (or the sensor
+  against the POA transposed from GHI).
 * Stuck: the same non-zero value (or zero while the reference shows daylight) for at least
   ``min_stuck_minutes`` in a row. Measured irradiance changes from one interval to the next
   (noise, sun motion), so an identical run of that length does not occur by chance.
 
-When the sensor is suspect, :func:`corrected` rebuilds the expected power of the inverters that
-used the sensor in those windows from the reference (the window's mean ratio for a level
-fault, the interval ratio for a stuck sensor), so the metrics of that window fall back to
-modelled POA; ``suspect_windows`` gives the windows to other stages.
+When the sensor is suspect, :func:`corrected` rebuilds the expected power of the driven
+inverters in those windows (from GHI where it is logged, else divided by the sensor's error
+per day as the power shows it), so the fault costs no energy in the ledger.
 ``min_shift`` 2 %: about the daily uncertainty of a class A pyranometer (IEC 61724-1), from
 memory; ``alpha`` 1e-3.
+
+References
+----------
+Olshen, Venkatraman, Lucito & Wigler 2004 (circular binary segmentation); Welch 1947
+(Biometrika 34:28, unequal-variance t test); Ineichen & Perez 2002 (clear sky); Sen 1968
+(Theil-Sen line of a drift); all from memory.
 """
 
 from __future__ import annotations
@@ -44,8 +55,9 @@ from perfcheck.detect.common import (
     runs,
 )
 
-METHOD = ("POA sensor against modelled POA on clear days: circular binary segmentation and "
-          "Welch t test (Olshen et al. 2004); identical-value runs for stuck readings")
+METHOD = ("the sensor-driven inverters' daily index and the POA sensor against clear-sky POA "
+          "on clear days: circular binary segmentation and Welch t tests (Olshen et al. 2004), "
+          "each confirmed by the other; identical-value runs for stuck readings")
 
 
 # confirmation of a candidate found in the power by an independent reference: the span
@@ -209,11 +221,16 @@ def driven_columns(w: Wide) -> list[str]:
 
 
 def _window_change(x: pd.Series, d0: pd.Timestamp, d1: pd.Timestamp, min_n: int = 3,
-                   min_span_days: int = 0) -> tuple[float, np.ndarray, np.ndarray] | None:
+                   min_span_days: int = 0, skip: list[tuple[pd.Timestamp, pd.Timestamp]] = ()
+                   ) -> tuple[float, np.ndarray, np.ndarray] | None:
     """Median of ``x`` (daily) in [d0, d1) less its median over as many days on either side
-    (at least ``min_span_days``); None when either side has fewer than ``min_n`` values."""
+    (at least ``min_span_days``), leaving out the windows ``skip`` (other segments off the
+    usual level); None when either side has fewer than ``min_n`` values."""
     span = max(d1 - d0, pd.Timedelta(days=min_span_days))
     x = x.dropna()
+    for a, b in skip:
+        if (a, b) != (d0, d1):
+            x = x[(x.index < a) | (x.index >= b)]
     inside = x[(x.index >= d0) & (x.index < d1)].to_numpy()
     around = x[((x.index >= d0 - span) & (x.index < d0))
                | ((x.index >= d1) & (x.index < d1 + span))].to_numpy()
@@ -231,24 +248,25 @@ def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 
     less the others' median where some inverters do not depend on the sensor), every day:
     a sensor reading a factor f off moves it by -log f on all of them together. It is
     segmented by circular binary segmentation (:func:`change_points`, false-alarm probability
-    ``alpha`` per split); a segment is a candidate when its median differs from the median of
-    as many days on either side by at least ``min_shift`` with a Welch t-test p-value below
-    ``alpha``, and each of its inner edges is a step carrying half the change or more
-    (a sensor fault starts and ends when the sensor is swapped, cleaned or recalibrated;
-    model error drifts with the season). ``evidence`` is the daily log ratio of the sensor to an
-    independent reference (the POA transposed from logged GHI, else the clear-sky plane
-    irradiance on clear days). A candidate is kept when that ratio moved the other way by half
-    to twice the index's change (at least ``CONFIRM_MIN_DAYS`` days in the window and around it,
-    around meaning as many days on either side, at least ``CONFIRM_SPAN_DAYS``), confirmed
-    by a one-sided Welch t test at ``CONFIRM_ALPHA``: the power alone cannot tell a sensor
-    from a plant-wide loss or the model's seasonal error, and the confirmation is a second,
-    independent test on a candidate already significant at ``alpha`` (the false-alarm
-    probability of the pair is at most their product); each edge of the window must be a step
-    of the reference too (a seasonal error of the transposition or of the clear-sky model
-    has none). ``sign`` is how ``index`` follows
-    the log of the sensor's error: -1 for the power's index; +1 when the roles are swapped
-    (where GHI is logged, the sensor against the transposed GHI is segmented every day and
-    the power confirms).
+    ``alpha`` per split). A segment is a candidate when its median differs from the median of
+    as many days on either side (leaving out the other segments whose level is ``min_shift``
+    or more off the series' median: a neighbouring fault is no reference) by at least
+    ``min_shift`` with a Welch t-test p-value below ``alpha``, and each of its inner edges is
+    a step carrying half the change or more (a sensor fault starts and ends when the sensor
+    is swapped, cleaned or recalibrated; model error drifts with the season).
+
+    ``evidence`` is the daily log ratio of the sensor to an independent reference on the days
+    it holds (the clear-sky plane irradiance on clear days; the POA transposed from a logged
+    GHI would do too, but a GHI station on another logger brings that logger's clock errors
+    with it). A candidate is kept when that ratio moved the other way by half to twice the
+    index's change (at least ``CONFIRM_MIN_DAYS`` days in the window and around it, around
+    meaning as many days on either side, at least ``CONFIRM_SPAN_DAYS``), confirmed by a one-
+    sided Welch t test at ``CONFIRM_ALPHA``, the reference stepping the same way at each edge
+    too (the nearest clear days either side; a seasonal error has no steps): the power alone
+    cannot tell a sensor from a plant-wide loss or the model's seasonal error, and the
+    confirmation is a second, independent test on a candidate already significant at ``alpha``
+    (the false-alarm probability of the pair is at most their product). ``sign`` is how
+    ``index`` follows the log of the sensor's error (-1 for the power's index).
     """
     b = index.dropna()
     if len(b) < 4 * min_days:
@@ -256,10 +274,13 @@ def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 
     x = despike(b.to_numpy())
     xs = pd.Series(x, index=b.index)
     out = []
-    for g in change_points(x, alpha=alpha, min_size=min_days):
-        d0 = b.index[g.start]
-        d1 = b.index[g.stop - 1] + pd.Timedelta(days=1)
-        ch = _window_change(xs, d0, d1, min_days)
+    segs = change_points(x, alpha=alpha, min_size=min_days)
+    usual = float(np.median(x))
+    windows = [(b.index[g.start], b.index[g.stop - 1] + pd.Timedelta(days=1)) for g in segs]
+    off = [wd for g, wd in zip(segs, windows, strict=True)
+           if abs(g.mean - usual) >= np.log1p(min_shift)]
+    for g, (d0, d1) in zip(segs, windows, strict=True):
+        ch = _window_change(xs, d0, d1, min_days, skip=off)
         if ch is None:
             continue
         move, inside, around = ch
@@ -270,15 +291,14 @@ def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 
                    for st in _edges(x, g.start, g.stop, min_days)):
             continue
         ind = _window_change(evidence, d0, d1, CONFIRM_MIN_DAYS,
-                             min_span_days=CONFIRM_SPAN_DAYS)
+                             min_span_days=CONFIRM_SPAN_DAYS, skip=off)
         if ind is None or not (np.sign(ind[0]) == -np.sign(move)
                                and 0.5 * abs(move) <= abs(ind[0]) <= 2 * abs(move)):
             continue
         conf = stats.ttest_ind(ind[1], ind[2], equal_var=False,
                                alternative="less" if move > 0 else "greater")
         if not conf.pvalue < CONFIRM_ALPHA or not all(
-                np.sign(st) == -np.sign(move) and abs(st) >= 0.5 * abs(move)
-                for st in _date_edges(evidence, d0, d1, min_days)):
+                np.sign(st) == -np.sign(move) for st in _date_edges(evidence, d0, d1, min_days)):
             continue
         # the sensor's error per day: a straight line through the index inside the window
         # (a step is flat, a drift slopes), against the level around it

@@ -127,6 +127,8 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     x_all = ((days - days[0]) / pd.Timedelta(days=1)).to_numpy(dtype=float)
     soiling = np.zeros(len(days), dtype=bool)
     fits = []
+    insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days).to_numpy()
+    sigma = robust_sigma(np.log(idx.dropna().to_numpy()))
     for a, b in zip(bounds[:-1], bounds[1:], strict=True):
         sel = (days >= a) & (days < b)
         y = idx.to_numpy()[sel]
@@ -135,11 +137,13 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         f = mann_kendall_slope(y, x_all[sel])
         if not (f["slope"] < 0 and f["p_value"] / 2 < alpha):
             continue
-        if _restored(idx, a, b, min_days, alpha) or (
+        line = _hinge(x_all[sel] + 0.5, y, insolation[sel])[0]
+        before = idx[sel].dropna().iloc[-min_days:].to_numpy()
+        after = idx[(days >= b)].dropna().iloc[:min_days].to_numpy()
+        if _restored(line[0], before, after, sigma, alpha) or (
                 b > days[-1] and _like(f, [g[3] for g in fits])):
             soiling[sel] = True
             fits.append((a, b, sel, f))
-    insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days).to_numpy()
     clean = pd.Series(np.where(soiling, np.nan, idx.to_numpy()), index=days)
     clean_level = clean.rolling(61, center=True, min_periods=10).median()
     ratio = pd.Series(1.0, index=days)
@@ -163,25 +167,23 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     return events, prints, ratio
 
 
-def _restored(index: pd.Series, a: pd.Timestamp, b: pd.Timestamp, k: int, alpha: float
-              ) -> bool:
-    """Whether the decline from ``a`` to ``b`` and the recovery at ``b`` are both significant
-    and the recovery gives back at least half of the decline (medians of ``k`` days: the
-    first of the interval, the last before ``b``, the first from ``b`` on; each difference
-    tested one-sided at ``alpha`` as in :func:`local_steps_up`). Soiling is undone by a wash
-    (Kimber et al. 2006; Deceglie et al. 2018 count an interval up to its recovery); a decline
-    that nothing undoes (ageing, the model's seasonal error, a loss that persists) is not
-    soiling."""
-    s = np.log(index.dropna())
-    inside = s[(s.index >= a) & (s.index < b)]
-    after = s[s.index >= b].iloc[:k]
-    if len(after) == 0 or len(inside) < 2 * k:
+def _restored(clean: float, before: np.ndarray, after: np.ndarray, sigma: float,
+              alpha: float) -> bool:
+    """Whether an interval's recovery is a significant step up that gives back at least half
+    of its loss: the median of the days ``after`` it (the first k from the recovery on) less
+    the median of the last k days ``before`` it, in log, tested one-sided at ``alpha``
+    against the standard error of that difference (1.2533 sigma sqrt(2 / k), ``sigma`` the
+    index's daily scale, as in :func:`local_steps_up`), and at least half of the drop from the
+    interval's ``clean`` start (its fitted plateau, :func:`_hinge`) to the days before. Soiling
+    is undone by a wash (Kimber et al. 2006; Deceglie et al. 2018 count an interval up to its
+    recovery); a decline that nothing undoes (ageing, the model's seasonal error, a loss that
+    persists) is not soiling."""
+    if len(after) == 0 or len(before) == 0 or not sigma > 0 or not clean > 0:
         return False
-    first, last = float(inside.iloc[:k].median()), float(inside.iloc[-k:].median())
-    step = float(after.median()) - last
-    noise = 1.2533 * robust_sigma(s.to_numpy()) * np.sqrt(2.0 / k)
-    z = stats.norm.isf(alpha) * noise
-    return bool(first - last > z and step > z and step >= 0.5 * (first - last))
+    step = float(np.log(np.median(after) / np.median(before)))
+    lost = float(np.log(clean / np.median(before)))
+    z = stats.norm.isf(alpha) * 1.2533 * sigma * np.sqrt(2.0 / len(after))
+    return bool(step > z and step >= 0.5 * lost)
 
 
 def _like(f: dict, confirmed: list[dict]) -> bool:
