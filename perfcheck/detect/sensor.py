@@ -240,8 +240,7 @@ def _window_change(x: pd.Series, d0: pd.Timestamp, d1: pd.Timestamp, min_n: int 
 
 
 def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 1e-3,
-                 min_shift: float = 0.02, min_days: int = 3, sign: float = -1.0
-                 ) -> list[Suspect]:
+                 min_shift: float = 0.02, min_days: int = 3) -> list[Suspect]:
     """Level faults of the sensor seen in the power of the inverters it drives.
 
     ``index`` is the daily log performance index of the sensor-driven inverters (their median;
@@ -265,8 +264,7 @@ def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 
     too (the nearest clear days either side; a seasonal error has no steps): the power alone
     cannot tell a sensor from a plant-wide loss or the model's seasonal error, and the
     confirmation is a second, independent test on a candidate already significant at ``alpha``
-    (the false-alarm probability of the pair is at most their product). ``sign`` is how
-    ``index`` follows the log of the sensor's error (-1 for the power's index).
+    (the false-alarm probability of the pair is at most their product).
     """
     b = index.dropna()
     if len(b) < 4 * min_days:
@@ -307,11 +305,11 @@ def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 
         level = float(np.median(inside) - move)
         every = pd.date_range(d0, d1 - pd.Timedelta(days=1), freq="D")
         fit = icpt + slope * ((every - d0) / pd.Timedelta(days=1)).to_numpy(dtype=float)
-        daily = pd.Series(np.exp(sign * (fit - level)), index=every)
+        daily = pd.Series(np.exp(level - fit), index=every)
         out.append(Suspect(
             start=pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
             end=pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"),
-            mode="level", factor=float(np.exp(sign * move)), daily_factor=daily,
+            mode="level", factor=float(np.exp(-move)), daily_factor=daily,
             evidence={"test": "Welch t on the driven inverters' daily index",
                       "p_value": float(t.pvalue), "t": float(t.statistic),
                       "days": int(len(inside)), "reference_days": int(len(around)),
