@@ -133,21 +133,21 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
-    clear = clear_days(w0)
     planes = _planes(site)
     planes["_sensor"] = [(*sensor_plane(site), 1.0)]
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
+    clear = clear_days(w0, cs[w0.inverters])
     t = lap("prepare", t)
     groups = [sorted({c.device for c in lg.columns if c.quantity in DEVICE_QUANTITIES
                       and c.device in ac}) for lg in site.loggers]
-    shifts = clock.find(w0, cs[w0.inverters], clear, groups, alpha=st.alpha,
+    shifts = clock.find(w0, cs[w0.inverters], groups, alpha=st.alpha,
                         min_offset_min=st.clock_min_offset_min)
     sens = sensor.sensor_series(w0)
     too = [sens is not None and clock.sensor_moved(w0, s, sens, cs["_sensor"]) for s in shifts]
     w1 = clock.corrected(w0, shifts, too)
     events: list[Event] = clock.events(w0, w1, shifts, too, len(site.inverters))
     t = lap("clock", t)
-    suspects = sensor.find(w1, clear, cs["_sensor"], alpha=st.alpha)
+    suspects = sensor.find(w1, clear, cs, alpha=st.alpha)
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
     t = lap("sensor", t)
@@ -183,7 +183,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     repaired = _in_windows(w.index, [(x.start, x.end) for x in suspects]
                            + [(x.start, x.end) for x in shifts])
     keep = valid & ~excluded & ~shaded & ~repaired[:, None]
-    pi = daily_pi(w_fixed, keep)
+    pi = degradation.ageing_removed(daily_pi(w_fixed, keep),
+                                    _plant_pi(w, keep, w_fixed.measured))
     ev, fp, soil_ratio = soiling.detect(w_fixed, pi, rel_sigma, rain_mm=st.soiling_rain_mm,
                                         alpha=st.alpha)
     events += ev
@@ -191,10 +192,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     t = lap("soiling", t)
     ratio_iv = soil_ratio.reindex(w.day.to_numpy()).fillna(1.0).to_numpy()
     m_clean = w_fixed.measured.div(ratio_iv, axis=0)
-    keep_clear = keep & pd.DataFrame(
-        np.repeat(clear.reindex(w.day.to_numpy()).fillna(False).to_numpy(dtype=bool)[:, None],
-                  len(w.inverters), axis=1), index=w.index, columns=w.inverters)
-    pi_plant = _plant_pi(w, keep_clear, m_clean)
+    pi_plant = _plant_pi(w, keep, m_clean)
     block, ev, fp = degradation.detect(w, pi_plant, site.losses.degradation_pct_per_year,
                                        pd.Timestamp(site.commissioned), rel_sigma, site.model)
     events += ev

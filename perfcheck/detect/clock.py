@@ -1,10 +1,15 @@
 """Clock faults: the logger's time labels off by a constant offset for a while.
 
-On clear days the centre (power-weighted mean time) of an inverter's measured power is
-compared with the centre of its clear-sky plane-of-array irradiance computed from the sun
-position (:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by
-DC rating). For a south-facing array this is the solar noon; for other
-orientations it is the same astronomy seen from their plane. The difference [min] per clear day
+Every day with readings in at least 90 % of its daylight intervals, the centre
+(power-weighted mean time) of an inverter's measured power is compared with the centre of its
+clear-sky plane-of-array irradiance computed from the sun position
+(:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by DC
+rating). For a south-facing array this is the solar noon; for other orientations it is the
+same astronomy seen from their plane. Clouds move a day's centre by a few to some tens of
+minutes either way, a clock error moves every day of its window alike; clear days alone are
+too few (and a shifted logger's own irradiance makes its days look cloudy against the
+clear-sky curve, so a missed daylight-saving change hides from a clear-day test). The
+difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.common.despike`),
 is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
 segment whose level differs from the reference level (the longest segment) by at least
 ``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
@@ -34,8 +39,8 @@ from scipy import stats
 from perfcheck.detect.common import Event, Wide, change_points, despike
 from perfcheck.detect.sensor import refine_edge
 
-METHOD = ("daily power centre on clear days against the clear-sky plane irradiance centre "
-          "from the sun position; segmentation and Welch t test")
+METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
+          "position; segmentation and Welch t test")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -58,7 +63,7 @@ def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
     return num / den
 
 
-def find(w: Wide, reference: pd.DataFrame, clear: pd.Series, groups: list[list[str]],
+def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
          alpha: float = 1e-3, min_offset_min: float = 20.0, min_days: int = 3) -> list[Shift]:
     """Clock shifts of the measured power (see module docstring).
 
@@ -72,10 +77,9 @@ def find(w: Wide, reference: pd.DataFrame, clear: pd.Series, groups: list[list[s
     ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
     d_all = centres(w, w.measured.where(ok)) - centres(w, reference.where(ok))
     d_all = d_all.where(ok_day > 0.9)
-    is_clear = clear.reindex(d_all.index).fillna(False).astype(bool)
     found: list[Shift] = []
     for inv in w.inverters:
-        q = d_all[inv][is_clear].dropna()
+        q = d_all[inv].dropna()
         if len(q) < 4 * min_days:
             continue
         x = despike(q.to_numpy())
@@ -89,34 +93,46 @@ def find(w: Wide, reference: pd.DataFrame, clear: pd.Series, groups: list[list[s
             if not t.pvalue < alpha:
                 continue
             allq = d_all[inv]
-            prev = q.index[g.start - 1] if g.start > 0 else allq.index[0] - pd.Timedelta(days=1)
-            nxt = q.index[g.stop] if g.stop < len(q) else allq.index[-1]
-            d0 = refine_edge(allq, prev, q.index[g.start])
-            d1 = refine_edge(allq, q.index[g.stop - 1], nxt)
+            # each edge may move by a day where a least-absolute-deviation split says so: a
+            # cloudy day next to an edge can pull the segmentation's edge by a day, the
+            # medians of the split are not moved by one day
+            prev = (q.index[max(g.start - 2, 0)] if g.start > 0
+                    else allq.index[0] - pd.Timedelta(days=1))
+            nxt = q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q) else allq.index[-1]
+            d0 = refine_edge(allq, prev, q.index[min(g.start + 1, g.stop - 1)])
+            d1 = refine_edge(allq, q.index[max(g.stop - 2, g.start)], nxt)
             found.append(Shift(
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
-                {"test": "Welch t", "p_value": float(t.pvalue), "clear_days": g.stop - g.start,
+                {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
                  "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)}))
     return [s for s in _merge(found) if any(set(g) <= set(s.inverters) for g in groups if g)]
 
 
 def _merge(found: list[Shift]) -> list[Shift]:
-    """Windows of several inverters that overlap, with offsets within 15 min, become one."""
-    out: list[Shift] = []
+    """Windows of several inverters that overlap, with offsets within 15 min, become one; its
+    edges are the medians of the inverters' edges (one logger's clock moves all its inverters
+    at once: the median is the edge that a cloudy day on one inverter does not pull)."""
+    groups: list[list[Shift]] = []
     for s in sorted(found, key=lambda s: s.start):
-        for i, o in enumerate(out):
-            if s.start < o.end and o.start < s.end and abs(s.offset_min - o.offset_min) < 15:
-                inv = o.inverters + s.inverters
-                out[i] = Shift(min(o.start, s.start), max(o.end, s.end),
-                               float(np.mean([o.offset_min, s.offset_min])), inv,
-                               {**o.evidence, "per_inverter_offset_min": {
-                                   **o.evidence.get("per_inverter_offset_min",
-                                                    {o.inverters[0]: o.offset_min}),
-                                   s.inverters[0]: s.offset_min}})
+        for g in groups:
+            if (s.start < max(x.end for x in g) and min(x.start for x in g) < s.end
+                    and abs(s.offset_min - np.mean([x.offset_min for x in g])) < 15):
+                g.append(s)
                 break
         else:
-            out.append(s)
+            groups.append([s])
+    out = []
+    for g in groups:
+        if len(g) == 1:
+            out.append(g[0])
+            continue
+        starts, ends = sorted(x.start for x in g), sorted(x.end for x in g)
+        out.append(Shift(starts[(len(g) - 1) // 2], ends[len(g) // 2],
+                         float(np.mean([x.offset_min for x in g])),
+                         tuple(i for x in g for i in x.inverters),
+                         {**g[0].evidence, "per_inverter_offset_min": {
+                             x.inverters[0]: x.offset_min for x in g}}))
     return out
 
 

@@ -235,8 +235,8 @@ def daily_pi(w: Wide, valid: pd.DataFrame, measured: pd.DataFrame | None = None,
     return (mm / em).where(big)
 
 
-def clear_days(w: Wide, scale_lo: float = 0.85, scale_hi: float = 1.15,
-               max_nrmse: float = 0.08) -> pd.Series:
+def clear_days(w: Wide, clearsky_plane: pd.DataFrame | None = None, scale_lo: float = 0.85,
+               scale_hi: float = 1.15, max_nrmse: float = 0.08) -> pd.Series:
     """Site-local days with a clear sky, judged on GHI against the clear-sky GHI.
 
     A day is clear when its GHI is a scaled copy of the clear-sky curve: the daily ratio of
@@ -244,14 +244,17 @@ def clear_days(w: Wide, scale_lo: float = 0.85, scale_hi: float = 1.15,
     absolute error) and the RMS difference to the scaled curve is at most ``max_nrmse`` of the
     day's mean clear-sky irradiance. In the spirit of Reno & Hansen 2016 (Renewable Energy
     90:520), applied to whole days; the limits are common practice, no source. Without GHI,
-    the mean plane-of-array irradiance of the inverters against its own smooth fit is used.
+    the mean plane-of-array irradiance of the inverters is judged the same way against the
+    mean of ``clearsky_plane`` (their clear-sky plane irradiance,
+    :func:`clearsky_poa`), else against the modelled POA (a shape check only: where the
+    modelled POA comes from the same sensor every day passes).
     """
     sun = w.zenith < 80
     ghi = w.ghi
     cs = w.clearsky_ghi
     if ghi.notna().sum() < 0.5 * sun.sum():
         ghi = w.poa.mean(axis=1)
-        cs = w.poa_modelled.mean(axis=1)  # modelled from the same weather: shape check only
+        cs = (w.poa_modelled if clearsky_plane is None else clearsky_plane).mean(axis=1)
     g, c = ghi.where(sun), cs.where(sun & ghi.notna())
     days = w.day.to_numpy()
     sg = g.groupby(days).sum(min_count=1)

@@ -1,28 +1,39 @@
 """Irradiance sensor faults: the plane-of-array sensor drifting, reading off, or stuck.
 
-* Level: the daily ratio of the sensor's irradiation to the clear-sky irradiance in its plane
-  (:func:`perfcheck.detect.common.clearsky_poa`) on clear days, log-transformed, segmented by
-  circular binary segmentation (:func:`perfcheck.detect.common.change_points`). A segment
-  whose level differs from the reference level (the longest segment) by a Welch t-test
-  p-value below ``alpha`` and by at least ``min_shift``, with a step at each of its inner
-  edges (half the change or more, medians of three clear days either side), is suspect; its
-  edges are then placed on the day using every day's ratio of the sensor-fed inverters'
-  performance index to the other inverters' (else the sensor against the POA modelled from
-  GHI). It must be confirmed
-  by the inverters fed by the sensor: when the sensor moved, all of them move together the
-  other way against their expected power, by half to twice the sensor's change, compared
-  with as many days on either side (the clear-sky reference has seasonal errors of a few %
-  that the power does not mirror).
+The inverters the sensor drives (:func:`driven_columns`: those it feeds and, where no GHI is
+logged, every inverter, their plane irradiance being the sensor's decomposed and transposed)
+see a sensor that reads a factor f off all together: their expected power moves by f, their
+daily performance index by 1/f. A plant fault moves one inverter, or builds up (soiling), or
+is left to its own detector; the sensor is blamed only where an independent reference agrees.
+
+* Level, from the power (:func:`power_faults`): the driven inverters' daily log index (less
+  the other inverters' where some do not depend on the sensor) is segmented every day by
+  circular binary segmentation (:func:`perfcheck.detect.common.change_points`, false-alarm
+  probability ``alpha`` per split); a segment that differs from as many days on either side
+  by a Welch t-test p-value below ``alpha`` and by at least ``min_shift``, with a step at each
+  edge, is a candidate, confirmed when the sensor against its clear-sky plane irradiance on
+  clear days moved the other way by half to twice as much (one-sided Welch at
+  ``CONFIRM_ALPHA``, steps at the edges too).
+* Level, from the sensor (:func:`level_faults`): the same ratio to the clear-sky irradiance on
+  clear days, segmented likewise, confirmed when the driven inverters' index mirrors it
+  (:func:`_mirrored`): the clear-sky reference has seasonal errors of a few % that the power
+  does not mirror. Its edges are placed on the day by every day's index (or the sensor
+  against the POA transposed from GHI).
 * Stuck: the same non-zero value (or zero while the reference shows daylight) for at least
   ``min_stuck_minutes`` in a row. Measured irradiance changes from one interval to the next
   (noise, sun motion), so an identical run of that length does not occur by chance.
 
-When the sensor is suspect, :func:`corrected` rebuilds the expected power of the inverters that
-used the sensor in those windows from the reference (the window's mean ratio for a level
-fault, the interval ratio for a stuck sensor), so the metrics of that window fall back to
-modelled POA; ``suspect_windows`` gives the windows to other stages.
+When the sensor is suspect, :func:`corrected` rebuilds the expected power of the driven
+inverters in those windows (from GHI where it is logged, else divided by the sensor's error
+per day as the power shows it), so the fault costs no energy in the ledger.
 ``min_shift`` 2 %: about the daily uncertainty of a class A pyranometer (IEC 61724-1), from
 memory; ``alpha`` 1e-3.
+
+References
+----------
+Olshen, Venkatraman, Lucito & Wigler 2004 (circular binary segmentation); Welch 1947
+(Biometrika 34:28, unequal-variance t test); Ineichen & Perez 2002 (clear sky); Sen 1968
+(Theil-Sen line of a drift); all from memory.
 """
 
 from __future__ import annotations
@@ -34,10 +45,30 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from perfcheck.detect.common import Event, Wide, change_points, daily_pi, daylight, despike, runs
+from perfcheck.detect.common import (
+    Event,
+    Wide,
+    change_points,
+    daily_pi,
+    daylight,
+    despike,
+    runs,
+)
 
-METHOD = ("POA sensor against modelled POA on clear days: circular binary segmentation and "
-          "Welch t test (Olshen et al. 2004); identical-value runs for stuck readings")
+METHOD = ("the sensor-driven inverters' daily index and the POA sensor against clear-sky POA "
+          "on clear days: circular binary segmentation and Welch t tests (Olshen et al. 2004), "
+          "each confirmed by the other; identical-value runs for stuck readings")
+
+
+# confirmation of a candidate found in the power by an independent reference: the span
+# around the window it is compared with (a month: the clear-sky reference's seasonal error
+# is small over it, common practice) and the one-sided level of that second test (the
+# usual 5 %, common practice)
+CONFIRM_SPAN_DAYS = 30
+CONFIRM_ALPHA = 0.05
+# and the fewest days on each side of that test (below five a t test rests on a normality
+# it cannot check and a single odd clear day decides it: common practice)
+CONFIRM_MIN_DAYS = 5
 
 
 @dataclasses.dataclass(frozen=True)
@@ -47,6 +78,7 @@ class Suspect:
     mode: str  # 'level' or 'stuck'
     factor: float  # sensor / reference over the window (level), nan for stuck
     evidence: dict[str, Any]
+    daily_factor: pd.Series | None = None  # sensor / truth per site-local day (from the power)
 
 
 def sensor_columns(w: Wide) -> list[str]:
@@ -131,6 +163,14 @@ def level_faults(w: Wide, sensor: pd.Series, reference: pd.Series, clear: pd.Ser
     return out
 
 
+def _date_edges(x: pd.Series, d0: pd.Timestamp, d1: pd.Timestamp, k: int) -> list[float]:
+    """Change of a daily series across the edges of [d0, d1) (medians of the k nearest
+    values each side), for the edges with values on both sides."""
+    x = x.dropna()
+    pos0, pos1 = x.index.searchsorted(d0), x.index.searchsorted(d1)
+    return _edges(x.to_numpy(), pos0, pos1, k) if pos1 > pos0 else []
+
+
 def _edges(x: np.ndarray, start: int, stop: int, k: int) -> list[float]:
     """Log change across each inner edge of x[start:stop] (medians of k values each side)."""
     out = []
@@ -167,6 +207,119 @@ def stuck_faults(w: Wide, sensor: pd.Series, reference: pd.Series,
     return out
 
 
+def has_ghi(w: Wide) -> bool:
+    """Whether a GHI sensor is logged (its transposition is evidence apart from the POA
+    sensor)."""
+    return bool(w.ghi.notna().sum() > 0.5 * (w.zenith < 80).sum())
+
+
+def driven_columns(w: Wide) -> list[str]:
+    """Inverters whose expected power follows the POA sensor: those it feeds and, where no GHI
+    is logged, every inverter (their plane irradiance is the sensor's, decomposed and
+    transposed: GTI-DIRINT, see :mod:`perfcheck.model`)."""
+    return list(w.inverters) if not has_ghi(w) else sensor_columns(w)
+
+
+def _window_change(x: pd.Series, d0: pd.Timestamp, d1: pd.Timestamp, min_n: int = 3,
+                   min_span_days: int = 0, skip: list[tuple[pd.Timestamp, pd.Timestamp]] = ()
+                   ) -> tuple[float, np.ndarray, np.ndarray] | None:
+    """Median of ``x`` (daily) in [d0, d1) less its median over as many days on either side
+    (at least ``min_span_days``), leaving out the windows ``skip`` (other segments off the
+    usual level); None when either side has fewer than ``min_n`` values."""
+    span = max(d1 - d0, pd.Timedelta(days=min_span_days))
+    x = x.dropna()
+    for a, b in skip:
+        if (a, b) != (d0, d1):
+            x = x[(x.index < a) | (x.index >= b)]
+    inside = x[(x.index >= d0) & (x.index < d1)].to_numpy()
+    around = x[((x.index >= d0 - span) & (x.index < d0))
+               | ((x.index >= d1) & (x.index < d1 + span))].to_numpy()
+    if len(inside) < min_n or len(around) < min_n:
+        return None
+    return float(np.median(inside) - np.median(around)), inside, around
+
+
+def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 1e-3,
+                 min_shift: float = 0.02, min_days: int = 3) -> list[Suspect]:
+    """Level faults of the sensor seen in the power of the inverters it drives.
+
+    ``index`` is the daily log performance index of the sensor-driven inverters (their median;
+    less the others' median where some inverters do not depend on the sensor), every day:
+    a sensor reading a factor f off moves it by -log f on all of them together. It is
+    segmented by circular binary segmentation (:func:`change_points`, false-alarm probability
+    ``alpha`` per split). A segment is a candidate when its median differs from the median of
+    as many days on either side (leaving out the other segments whose level is ``min_shift``
+    or more off the series' median: a neighbouring fault is no reference) by at least
+    ``min_shift`` with a Welch t-test p-value below ``alpha``, and each of its inner edges is
+    a step carrying half the change or more (a sensor fault starts and ends when the sensor
+    is swapped, cleaned or recalibrated; model error drifts with the season).
+
+    ``evidence`` is the daily log ratio of the sensor to an independent reference on the days
+    it holds (the clear-sky plane irradiance on clear days; the POA transposed from a logged
+    GHI would do too, but a GHI station on another logger brings that logger's clock errors
+    with it). A candidate is kept when that ratio moved the other way by half to twice the
+    index's change (at least ``CONFIRM_MIN_DAYS`` days in the window and around it, around
+    meaning as many days on either side, at least ``CONFIRM_SPAN_DAYS``), confirmed by a one-
+    sided Welch t test at ``CONFIRM_ALPHA``, the reference stepping the same way at each edge
+    too (the nearest clear days either side; a seasonal error has no steps): the power alone
+    cannot tell a sensor from a plant-wide loss or the model's seasonal error, and the
+    confirmation is a second, independent test on a candidate already significant at ``alpha``
+    (the false-alarm probability of the pair is at most their product).
+    """
+    b = index.dropna()
+    if len(b) < 4 * min_days:
+        return []
+    x = despike(b.to_numpy())
+    xs = pd.Series(x, index=b.index)
+    out = []
+    segs = change_points(x, alpha=alpha, min_size=min_days)
+    usual = float(np.median(x))
+    windows = [(b.index[g.start], b.index[g.stop - 1] + pd.Timedelta(days=1)) for g in segs]
+    off = [wd for g, wd in zip(segs, windows, strict=True)
+           if abs(g.mean - usual) >= np.log1p(min_shift)]
+    for g, (d0, d1) in zip(segs, windows, strict=True):
+        ch = _window_change(xs, d0, d1, min_days, skip=off)
+        if ch is None:
+            continue
+        move, inside, around = ch
+        t = stats.ttest_ind(inside, around, equal_var=False)
+        if not (abs(move) >= np.log1p(min_shift) and t.pvalue < alpha):
+            continue
+        if not all(np.sign(st) == np.sign(move) and abs(st) >= 0.5 * abs(move)
+                   for st in _edges(x, g.start, g.stop, min_days)):
+            continue
+        ind = _window_change(evidence, d0, d1, CONFIRM_MIN_DAYS,
+                             min_span_days=CONFIRM_SPAN_DAYS, skip=off)
+        if ind is None or not (np.sign(ind[0]) == -np.sign(move)
+                               and 0.5 * abs(move) <= abs(ind[0]) <= 2 * abs(move)):
+            continue
+        conf = stats.ttest_ind(ind[1], ind[2], equal_var=False,
+                               alternative="less" if move > 0 else "greater")
+        if not conf.pvalue < CONFIRM_ALPHA or not all(
+                np.sign(st) == -np.sign(move) for st in _date_edges(evidence, d0, d1, min_days)):
+            continue
+        # the sensor's error per day: a straight line through the index inside the window
+        # (a step is flat, a drift slopes), against the level around it
+        days = ((xs.index[g.start:g.stop] - d0) / pd.Timedelta(days=1)).to_numpy(dtype=float)
+        slope, icpt = stats.theilslopes(x[g.start:g.stop], days)[:2]
+        level = float(np.median(inside) - move)
+        every = pd.date_range(d0, d1 - pd.Timedelta(days=1), freq="D")
+        fit = icpt + slope * ((every - d0) / pd.Timedelta(days=1)).to_numpy(dtype=float)
+        daily = pd.Series(np.exp(level - fit), index=every)
+        out.append(Suspect(
+            start=pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
+            end=pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"),
+            mode="level", factor=float(np.exp(-move)), daily_factor=daily,
+            evidence={"test": "Welch t on the driven inverters' daily index",
+                      "p_value": float(t.pvalue), "t": float(t.statistic),
+                      "days": int(len(inside)), "reference_days": int(len(around)),
+                      "index_change_pct": 100 * float(np.expm1(move)),
+                      "independent_reference_change_pct": 100 * float(np.expm1(ind[0])),
+                      "independent_days": int(len(ind[1])),
+                      "independent_p_value": float(conf.pvalue)}))
+    return out
+
+
 def sensor_series(w: Wide) -> pd.Series | None:
     """The POA sensor's reading as seen in the aligned rows (None without a sensor)."""
     cols = sensor_columns(w)
@@ -175,37 +328,53 @@ def sensor_series(w: Wide) -> pd.Series | None:
     return w.poa[cols[0]].where(w.from_sensor[cols[0]])
 
 
-def find(w: Wide, clear: pd.Series, sensor_clear: pd.Series, alpha: float = 1e-3
+def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1e-3
          ) -> list[Suspect]:
-    """All suspect windows of the POA sensor (empty when no inverter uses a sensor).
+    """All suspect windows of the POA sensor (empty when no inverter depends on a sensor).
 
-    ``sensor_clear`` is the clear-sky irradiance in the sensor's plane [W/m^2].
+    ``planes_clear`` is the clear-sky irradiance [W/m^2] in each inverter's planes and, as
+    ``_sensor``, in the sensor's plane (:func:`perfcheck.detect.common.clearsky_poa`). Where
+    the sensor feeds no inverter directly (no GHI logged, arrays in other planes), the
+    sensor-driven inverters' plane irradiance stands for the sensor.
     """
-    cols = sensor_columns(w)
-    sensor = sensor_series(w)
-    if sensor is None:
+    driven = driven_columns(w)
+    if not driven:
         return []
-    stuck = stuck_faults(w, sensor, sensor_clear)
+    cols = sensor_columns(w)
+    if cols:
+        sensor, sensor_clear = sensor_series(w), planes_clear["_sensor"]
+    else:
+        sensor, sensor_clear = w.poa[driven].mean(axis=1), planes_clear[driven].mean(axis=1)
+    assert sensor is not None
+    stuck = stuck_faults(w, sensor, sensor_clear) if cols else []
     free = sensor.copy()
-    for s in stuck:  # the level test ignores the days touched by a stuck run
+    for s in stuck:  # the level tests ignore the days touched by a stuck run
         days = w.day[(w.index >= s.start) & (w.index < s.end)].unique()
         free[w.day.isin(days).to_numpy()] = np.nan
-    others = [c for c in w.inverters if c not in cols]
+    others = [c for c in w.inverters if c not in driven]
+    pi = np.log(daily_pi(w, daylight(w)))
+    index = pi[driven].median(axis=1)
     if others:
-        # the sensor-fed inverters against the others, every day: a sensor fault moves the
-        # first ones' expected power only (their ratio to it jumps, the others' stays)
-        pi = np.log(daily_pi(w, daylight(w)))
-        every_day = pi[cols].median(axis=1) - pi[others].median(axis=1)
-    elif w.ghi.notna().sum() > 0.5 * (w.zenith < 80).sum():
+        # the driven inverters against the others: a sensor fault moves the first ones'
+        # expected power only, a fault of the weather or the whole plant moves both
+        index = index - pi[others].median(axis=1)
+    q = _daily_log_ratio(w, free, sensor_clear)
+    found = power_faults(w, index, q[clear.reindex(q.index).fillna(False).astype(bool)],
+                         alpha=alpha)
+    if others:
+        every_day = index
+    elif has_ghi(w) and cols:
         every_day = _daily_log_ratio(w, free, w.poa_modelled[cols[0]])
     else:
-        every_day = _daily_log_ratio(w, free, sensor_clear)
+        every_day = q
     levels = level_faults(w, free, sensor_clear, clear, every_day, alpha=alpha)
-    # cross-check: the inverters fed by the sensor move together against their expected power
-    # (by about the sensor's change, the other way); a level change that the power does not
-    # mirror is the reference's seasonal error, not the sensor
-    pi_fed = np.log(daily_pi(w, daylight(w))[cols]).median(axis=1)
-    found = [s for s in levels if _mirrored(pi_fed, s, w.tz)] + stuck
+    # cross-check: the inverters driven by the sensor move together against their expected
+    # power (by about the sensor's change, the other way); a level change that the power does
+    # not mirror is the reference's seasonal error, not the sensor
+    pi_fed = pi[driven].median(axis=1)
+    found += [s for s in levels if _mirrored(pi_fed, s, w.tz)
+              and not any(s.start < f.end and f.start < s.end for f in found)]
+    found = sorted(found, key=lambda s: s.start) + stuck
     ratio = (w.measured / w.expected).where(w.expected.gt(w.ac_w * 0.1, axis=1))
     out = []
     for s in found:
@@ -214,7 +383,7 @@ def find(w: Wide, clear: pd.Series, sensor_clear: pd.Series, alpha: float = 1e-3
         for c in w.inverters:
             a, b = np.nanmedian(ratio[c][inside]), np.nanmedian(ratio[c][~inside])
             moves[c] = float(100 * (a / b - 1)) if np.isfinite(a) and b else None
-        ev = {**s.evidence, "inverters_on_sensor": cols,
+        ev = {**s.evidence, "inverters_on_sensor": driven,
               "ratio_to_expected_change_pct": moves}
         out.append(dataclasses.replace(s, evidence=ev))
     return out
@@ -239,15 +408,31 @@ def _mirrored(pi_fed: pd.Series, s: Suspect, tz: Any) -> bool:
 
 
 def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
-    """The series with the expected power of the sensor-fed inverters taken, inside the
-    suspect windows, from the model stage's series built on modelled POA alone (its own cell
-    temperature, part-load efficiency and limits), and their irradiance from the modelled
-    POA."""
+    """The series with the expected power of the sensor-driven inverters rebuilt inside the
+    suspect windows.
+
+    Where GHI is logged, from the model stage's series built on the POA transposed from it
+    (its own cell temperature, part-load efficiency and limits), and their irradiance from
+    that modelled POA. Without GHI the modelled POA comes from the same sensor, so the
+    expected power, the potential and the irradiance are divided by the sensor's error
+    instead (per day where it was estimated from the power, else the window's factor; the
+    power is close to proportional to the irradiance, so this is first order)."""
     if not suspects:
         return w
     exp, pot, poa = w.expected.copy(), w.potential.copy(), w.poa.copy()
+    scale = not has_ghi(w)
+    driven = driven_columns(w)
     for s in suspects:
         inside = (w.index >= s.start) & (w.index < s.end)
+        if scale:
+            if s.daily_factor is not None:
+                f = s.daily_factor.reindex(w.day.to_numpy()).to_numpy()
+            else:
+                f = np.full(len(w.index), s.factor)
+            use = inside & np.isfinite(f)
+            for frame in (exp, pot, poa):
+                frame.loc[use, driven] = frame.loc[use, driven].to_numpy() / f[use, None]
+            continue
         for c in w.inverters:
             use = inside & w.from_sensor[c].to_numpy()
             if not use.any():
@@ -276,18 +461,3 @@ def events(w_before: Wide, w_after: Wide, suspects: list[Suspect]) -> list[Event
                                              "rebuilt from modelled POA in this window",
                                  "expected_correction_kwh": -corr}))
     return out
-
-
-def suspect_windows(aligned: pd.DataFrame, site: Any) -> list[dict[str, Any]]:
-    """Windows where the POA sensor is suspect, for other stages (metrics fall back to
-    modelled POA there): ``[{"start", "end" (UTC, end exclusive), "mode", "factor"}]``."""
-    from perfcheck.detect.common import clear_days, clearsky_poa, wide
-    from perfcheck.model import sensor_plane
-
-    w = wide(aligned, {i.id: i.ac_kw * 1000 for i in site.inverters},
-             None if site.export_limit_kw is None else site.export_limit_kw * 1000, site.tz)
-    tilt, az = sensor_plane(site)
-    cs = clearsky_poa(w, site.latitude_deg, site.longitude_deg, site.altitude_m,
-                      {"sensor": [(tilt, az, 1.0)]})["sensor"]
-    return [{"start": s.start, "end": s.end, "mode": s.mode, "factor": s.factor}
-            for s in find(w, clear_days(w), cs)]

@@ -4,16 +4,18 @@ The plant's daily performance index is the median over the inverters of each inv
 insolation-weighted daily measured/expected, divided by its own median (so inverters of other
 orientation or size count alike and one inverter's own fault does not move it). Recoveries are
 (a) days on which some 24-hour rain total reaches ``rain_mm`` in the readings and (b)
-significant local steps up of the index (:func:`local_steps_up`); a step up with at least
-1 mm of rain on that day or the day before is a rain recovery, else a cleaning. Between two
+significant local steps up of the index (:func:`local_steps_up`); a step up with at least 1 mm
+of rain on that day or the day before is a rain recovery, else a cleaning. Between two
 recoveries the index is fitted by a Theil-Sen line; an interval whose slope is negative with
-Kendall's test p-value below ``alpha`` is a soiling interval. Soiling may start some days
-after the recovery (a grace period, as in Kimber et al. 2006): the onset is the hinge of the
-weighted least-squares fit of a level followed by a linear decline. Its soiling ratio is that
-fit over the clean level: the plateau before the onset where there is one, else the rolling
-median of the index outside the soiling intervals where that is above the line's start (a
-partial recovery), else the line's start (a full recovery). Consecutive
-soiling intervals form one soiling episode (one event) with its recoveries.
+Kendall's test p-value below ``alpha``, ended by a recovery that gives back at least half of
+its decline (:func:`_restored`), is a soiling interval; the interval still open at the end of
+the data counts when it declines like the confirmed ones (:func:`_like`). Soiling may start
+some days after the recovery (a grace period, as in Kimber et al. 2006): the onset is the hinge
+of the weighted least-squares fit of a level followed by a linear decline. Its soiling ratio is
+that fit over the clean level: the plateau before the onset where there is one, else the
+rolling median of the index outside the soiling intervals where that is above the line's start
+(a partial recovery), else the line's start (a full recovery). Consecutive soiling intervals
+form one soiling episode (one event) with its recoveries.
 
 The false-alarm probability per interval tested is ``alpha`` (Kendall's test, one-sided
 decline; the run passes 1e-3), and per series ``alpha`` for the steps up (Bonferroni over
@@ -125,16 +127,23 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     x_all = ((days - days[0]) / pd.Timedelta(days=1)).to_numpy(dtype=float)
     soiling = np.zeros(len(days), dtype=bool)
     fits = []
+    insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days).to_numpy()
+    sigma = robust_sigma(np.log(idx.dropna().to_numpy()))
     for a, b in zip(bounds[:-1], bounds[1:], strict=True):
         sel = (days >= a) & (days < b)
         y = idx.to_numpy()[sel]
         if np.isfinite(y).sum() < min_days:
             continue
         f = mann_kendall_slope(y, x_all[sel])
-        if f["slope"] < 0 and f["p_value"] / 2 < alpha:
+        if not (f["slope"] < 0 and f["p_value"] / 2 < alpha):
+            continue
+        line = _hinge(x_all[sel] + 0.5, y, insolation[sel])[0]
+        before = idx[sel].dropna().iloc[-min_days:].to_numpy()
+        after = idx[(days >= b)].dropna().iloc[:min_days].to_numpy()
+        if _restored(line[0], before, after, sigma, alpha) or (
+                b > days[-1] and _like(f, [g[3] for g in fits])):
             soiling[sel] = True
             fits.append((a, b, sel, f))
-    insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days).to_numpy()
     clean = pd.Series(np.where(soiling, np.nan, idx.to_numpy()), index=days)
     clean_level = clean.rolling(61, center=True, min_periods=10).median()
     ratio = pd.Series(1.0, index=days)
@@ -156,6 +165,32 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         ratio[sel] = np.minimum(1.0, line / ref)
     events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma)
     return events, prints, ratio
+
+
+def _restored(clean: float, before: np.ndarray, after: np.ndarray, sigma: float,
+              alpha: float) -> bool:
+    """Whether an interval's recovery is a significant step up that gives back at least half
+    of its loss: the median of the days ``after`` it (the first k from the recovery on) less
+    the median of the last k days ``before`` it, in log, tested one-sided at ``alpha``
+    against the standard error of that difference (1.2533 sigma sqrt(2 / k), ``sigma`` the
+    index's daily scale, as in :func:`local_steps_up`), and at least half of the drop from the
+    interval's ``clean`` start (its fitted plateau, :func:`_hinge`) to the days before. Soiling
+    is undone by a wash (Kimber et al. 2006; Deceglie et al. 2018 count an interval up to its
+    recovery); a decline that nothing undoes (ageing, the model's seasonal error, a loss that
+    persists) is not soiling."""
+    if len(after) == 0 or len(before) == 0 or not sigma > 0 or not clean > 0:
+        return False
+    step = float(np.log(np.median(after) / np.median(before)))
+    lost = float(np.log(clean / np.median(before)))
+    z = stats.norm.isf(alpha) * 1.2533 * sigma * np.sqrt(2.0 / len(after))
+    return bool(step > z and step >= 0.5 * lost)
+
+
+def _like(f: dict, confirmed: list[dict]) -> bool:
+    """Whether an interval still open at the end of the data declines like the plant's
+    confirmed soiling intervals (its Theil-Sen 95 % interval overlaps one of theirs): the
+    same soiling building again, where a decline of its own could be anything."""
+    return any(f["low"] <= g["high"] and g["low"] <= f["high"] for g in confirmed)
 
 
 def _hinge(x: np.ndarray, y: np.ndarray, weight: np.ndarray, min_tail: int = 3
