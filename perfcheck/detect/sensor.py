@@ -32,9 +32,11 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from perfcheck.detect.common import Event, Wide, change_points, daily_pi, daylight, despike, runs
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD = ("POA sensor against modelled POA on clear days: circular binary segmentation and "
           "Welch t test (Olshen et al. 2004); identical-value runs for stuck readings")

@@ -32,7 +32,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from perfcheck.detect.common import (
     Event,
@@ -42,6 +41,9 @@ from perfcheck.detect.common import (
     mann_kendall_slope,
     robust_sigma,
 )
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD = ("Theil-Sen decline of the daily performance index between recoveries (rain, "
           "detected steps up), in the spirit of Deceglie, Micheli & Muller 2018")
