@@ -389,7 +389,8 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
     return out
 
 
-def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.DataFrame:
+def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site,
+                   comps: pd.DataFrame | None = None) -> pd.DataFrame:
     """The expected series of every inverter, long format.
 
     Parameters
@@ -401,6 +402,8 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.D
     sun : pandas.DataFrame
         From :func:`site_sun` on the same index.
     site : Site
+    comps : pandas.DataFrame, optional
+        :func:`horizontal_components` of ``weather`` and ``sun``, when the caller has them.
 
     Returns
     -------
@@ -413,7 +416,8 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.D
         equal to the normal values for the others).
     """
     source = irradiance_source(site, weather)
-    comps = horizontal_components(weather, sun, site)
+    if comps is None:
+        comps = horizontal_components(weather, sun, site)
     loss = site.losses.dc_factor * ph.age_factor(
         sun.index, site.commissioned, site.losses.degradation_pct_per_year)
     per_inv: dict[str, pd.DataFrame] = {}
@@ -587,7 +591,9 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     if weather.empty:
         return {"rows": 0, "daily": None}
     sun = site_sun(weather.index, site, step)
-    exp = expected_power(weather, sun, site)
+    irradiance_source(site, weather)  # no irradiance in this span: its error, before any work
+    comps = horizontal_components(weather, sun, site)  # decomposed once, used twice below
+    exp = expected_power(weather, sun, site, comps)
     exp["model_run_id"] = run_id
     cond = pd.DataFrame({
         "ts": sun.index, "model_run_id": run_id,
@@ -612,7 +618,6 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
         tilt, az = sensor_orientation(site, sun)
         ref = sensor_array(site)
-        comps = horizontal_components(weather, sun, site)
         modelled = ph.poa_components(tilt, az, sun, comps["ghi"], comps["dni"], comps["dhi"],
                                      sun["dni_extra"], sun["airmass_relative"], ref.albedo,
                                      ref.horizon, site.model.transposition, "none")["poa_global"]
