@@ -30,6 +30,13 @@ def sql(name: str) -> str:
     return path.read_text(encoding="utf-8")
 
 
+# DuckDB's buffer pool (its default is 80 % of the machine's memory): larger sorts, joins and
+# aggregates spill to a temporary folder beside the database instead. A site-year of 1-minute
+# rows ingests within it; the numbers do not depend on it (common practice for an embedded
+# database on a shared machine).
+MEMORY_LIMIT = "512MB"
+
+
 def default_db_path(site_path: str | Path) -> Path:
     """The database beside the site file: ``site.toml`` -> ``site.duckdb``."""
     return Path(site_path).with_suffix(".duckdb")
@@ -60,6 +67,7 @@ def connect(path: str | Path, read_only: bool = False, wait_s: float = 0.0,
             raise DataError(f"{path}: cannot open database ({exc})") from None
     con.execute("SET TimeZone = 'UTC'")
     con.execute("SET enable_progress_bar = false")
+    con.execute(f"SET memory_limit = '{MEMORY_LIMIT}'")
     if not read_only:
         for name in schema_names():
             con.execute(sql(name))

@@ -359,8 +359,7 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
     out: pd.DataFrame | None = None
     sensor_all = pd.Series(True, index=sun.index)
     for array in inv.arrays:
-        key = (array.tilt_deg, array.azimuth_deg, array.albedo, array.horizon, array.mounting,
-               array.construction, array.gcr, array.tracker, array.bifacial)
+        key = plane_key(array)
         if key not in planes:
             irr = array_irradiance(array, sun, comps, weather, site, source)
             temp_cell = array_temperature(array, irr["poa_global"], weather, site)
@@ -389,7 +388,17 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
     return out
 
 
-def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.DataFrame:
+def plane_key(array: Array) -> tuple:
+    """What an array's irradiance and cell temperature depend on: arrays with the same key
+    share them (:func:`inverter_dc`)."""
+    return (array.tilt_deg, array.azimuth_deg, array.albedo, array.horizon, array.mounting,
+            array.construction, array.gcr, array.tracker, array.bifacial)
+
+
+def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site,
+                   comps: pd.DataFrame | None = None,
+                   planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]]
+                   | None = None) -> pd.DataFrame:
     """The expected series of every inverter, long format.
 
     Parameters
@@ -401,6 +410,11 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.D
     sun : pandas.DataFrame
         From :func:`site_sun` on the same index.
     site : Site
+    comps : pandas.DataFrame, optional
+        :func:`horizontal_components` of ``weather`` and ``sun``, when the caller has them.
+    planes : dict, optional
+        Filled with each distinct plane's irradiance and cell temperature, keyed by
+        :func:`plane_key` (see :func:`inverter_dc`), for a caller that needs them again.
 
     Returns
     -------
@@ -413,13 +427,14 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site) -> pd.D
         equal to the normal values for the others).
     """
     source = irradiance_source(site, weather)
-    comps = horizontal_components(weather, sun, site)
+    if comps is None:
+        comps = horizontal_components(weather, sun, site)
     loss = site.losses.dc_factor * ph.age_factor(
         sun.index, site.commissioned, site.losses.degradation_pct_per_year)
     per_inv: dict[str, pd.DataFrame] = {}
     # AC power from the modelled POA alone, where it differs (an array fed by the sensor)
     per_mod: dict[str, pd.DataFrame] = {}
-    planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]] = {}
+    planes = {} if planes is None else planes
     for inv in site.inverters:
         d = inverter_dc(inv, sun, comps, weather, site, source, loss, planes)
         ac = ph.ac_power(d["dc"], inv.ac_kw * 1000.0, inv.efficiency_pct / 100.0,
@@ -587,7 +602,10 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     if weather.empty:
         return {"rows": 0, "daily": None}
     sun = site_sun(weather.index, site, step)
-    exp = expected_power(weather, sun, site)
+    irradiance_source(site, weather)  # no irradiance in this span: its error, before any work
+    comps = horizontal_components(weather, sun, site)  # decomposed once, used twice below
+    planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]] = {}
+    exp = expected_power(weather, sun, site, comps, planes)
     exp["model_run_id"] = run_id
     cond = pd.DataFrame({
         "ts": sun.index, "model_run_id": run_id,
@@ -610,12 +628,18 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
         con.unregister("_conditions_new")
     daily = None
     if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
-        tilt, az = sensor_orientation(site, sun)
         ref = sensor_array(site)
-        comps = horizontal_components(weather, sun, site)
-        modelled = ph.poa_components(tilt, az, sun, comps["ghi"], comps["dni"], comps["dhi"],
-                                     sun["dni_extra"], sun["airmass_relative"], ref.albedo,
-                                     ref.horizon, site.model.transposition, "none")["poa_global"]
+        if site.model.poa_sensor_on_tracker or sensor_plane(site) == (ref.tilt_deg,
+                                                                      ref.azimuth_deg):
+            # the sensor's plane is its array's: transposed already (the total POA does not
+            # depend on the incidence-angle model)
+            modelled = planes[plane_key(ref)][0]["poa_modelled"]
+        else:
+            tilt, az = sensor_orientation(site, sun)
+            modelled = ph.poa_components(
+                tilt, az, sun, comps["ghi"], comps["dni"], comps["dhi"], sun["dni_extra"],
+                sun["airmass_relative"], ref.albedo, ref.horizon, site.model.transposition,
+                "none")["poa_global"]
         csi = weather["ghi"] / sun["clearsky_ghi"].where(sun["clearsky_ghi"] > 0)
         daily = daily_irradiation(weather["poa_sensor"], modelled, sun["zenith"], csi,
                                   site.timezone)

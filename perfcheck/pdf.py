@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any
 
 import matplotlib.image as mpimg
+import numpy as np
 from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
@@ -132,7 +133,9 @@ def _table(pages: Pages, head: list[str], rows: list[list[str]]) -> None:
 
 def _figures(pages: Pages, pngs: dict[str, bytes]) -> None:
     for n, (stem, caption, _) in enumerate(figures.FIGURES, 1):
-        img = mpimg.imread(io.BytesIO(pngs[stem]))
+        # back to the PNG's 8-bit channels (imread gives them divided by 255): matplotlib
+        # then embeds them as they are, without normalising a float image first
+        img = (mpimg.imread(io.BytesIO(pngs[stem])) * 255 + 0.5).astype(np.uint8)
         width = (A4[0] - 2 * MARGIN) * FIGURE_WIDTH
         height = width * img.shape[0] / img.shape[1]
         left = (A4[0] - width) / 2

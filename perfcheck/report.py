@@ -24,8 +24,13 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from perfcheck import analysis, db, figures, guarantees, kinds, pdf, units, versions
+from perfcheck import analysis, db, guarantees, kinds, units, versions
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Site, Table
+
+# matplotlib only when a report is drawn: validating [report] stays light
+figures = lazy_module("perfcheck.figures")
+pdf = lazy_module("perfcheck.pdf")
 
 # Each metric and detector with its published source (shown in the report and the bundle).
 METHODS: list[tuple[str, str]] = [

@@ -278,20 +278,39 @@ class Run:
     error: str = ""
 
 
+# Starts a command and reports its wall time and peak memory. Linux carries a process's peak
+# resident memory (ru_maxrss) over into the children it starts, so a command started by this
+# script directly would show at least this script's own peak (the generated data frames); this
+# small process starts it instead.
+LAUNCH = """\
+import json, os, shutil, sys, time
+argv = sys.argv[2:]
+t0 = time.perf_counter()
+pid = os.posix_spawn(shutil.which(argv[0]) or argv[0], argv, os.environ)
+_, status, usage = os.wait4(pid, 0)
+wall = time.perf_counter() - t0
+with open(sys.argv[1], "w") as f:
+    json.dump({"wall_s": wall, "peak_kb": usage.ru_maxrss}, f)
+sys.exit(os.waitstatus_to_exitcode(status))
+"""
+
+
 def run_process(argv: list[str]) -> Run:
-    """Run ``argv`` in a fresh process; its wall time and its own peak memory."""
-    with tempfile.TemporaryFile() as err:
-        t0 = time.perf_counter()
-        proc = subprocess.Popen(argv, stdout=subprocess.DEVNULL, stderr=err)
-        _, status, usage = os.wait4(proc.pid, 0)
-        wall = time.perf_counter() - t0
-        proc.returncode = os.waitstatus_to_exitcode(status)
+    """Run ``argv`` in a fresh process (started by :data:`LAUNCH`); its wall time and its own
+    peak memory."""
+    with tempfile.TemporaryDirectory() as tmp:
+        launch, result, err_path = (Path(tmp) / n for n in ("launch.py", "run.json", "err"))
+        launch.write_text(LAUNCH)
+        with open(err_path, "wb") as err:
+            code = subprocess.call([sys.executable, "-I", str(launch), str(result), *argv],
+                                   stdout=subprocess.DEVNULL, stderr=err)
         error = ""
-        if proc.returncode != 0:
-            err.seek(0)
-            lines = err.read().decode(errors="replace").strip().splitlines() or ["(no output)"]
-            error = f"exit {proc.returncode}: {lines[-1]}"
-    return Run(wall, usage.ru_maxrss, error)
+        if code != 0 or not result.exists():
+            lines = (err_path.read_text(errors="replace").strip().splitlines()
+                     or ["(no output)"])
+            error = f"exit {code}: {lines[-1]}"
+        measured = json.loads(result.read_text()) if result.exists() else {}
+    return Run(measured.get("wall_s", float("nan")), measured.get("peak_kb", 0), error)
 
 
 def reference_params(files: list[Path], db_file: Path) -> str:

@@ -119,6 +119,16 @@ def test_run_process_reports_the_error_line():
     assert bad.error == "exit 1: no such file"
 
 
+def test_run_process_peak_is_the_command_s_own():
+    # Linux carries a process's ru_maxrss over into the children it starts (getrusage(2)):
+    # the command must not show this process's 300 MB (invented truth: a Python that
+    # allocates nothing stays far below it).
+    held = bytearray(300 * 1024 * 1024)
+    held[::4096] = b"x" * len(held[::4096])  # touched, so resident
+    run = run_process([sys.executable, "-c", "pass"])
+    assert run.error == "" and run.peak_kb < 100 * 1024
+
+
 @pytest.mark.parametrize("name", sorted(REFERENCES))
 def test_reference_scripts_run_on_a_day(tmp_path, name):
     files = write_data(tmp_path, units=1, rows=1440)

@@ -5,40 +5,20 @@ from __future__ import annotations
 
 import datetime as dt
 import functools
-import importlib.util
 import json
 import sys
 from collections.abc import Callable
 from pathlib import Path
-from types import ModuleType
 from typing import TYPE_CHECKING, Any
 
 import click
 
 from perfcheck.errors import DataError, PerfcheckError
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Site, load_site
 
 if TYPE_CHECKING:
     import pandas as pd
-
-
-def lazy_module(name: str) -> ModuleType:
-    """The module ``name``, executed on first use of one of its attributes (the standard
-    library's ``importlib.util.LazyLoader``): the command modules name the stages they call at
-    the top, yet a command's ``--help`` and shell completion load none of pandas, DuckDB,
-    pvlib or matplotlib."""
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.find_spec(name)
-    loader = importlib.util.LazyLoader(spec.loader)
-    spec.loader = loader
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module
-    loader.exec_module(module)
-    parent, _, child = name.rpartition(".")
-    if parent:
-        setattr(sys.modules[parent], child, module)
-    return module
 
 
 db = lazy_module("perfcheck.db")

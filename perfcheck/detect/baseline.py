@@ -41,9 +41,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
 
 from perfcheck.detect.common import Wide, long_run_sigma
+from perfcheck.lazy import lazy_module
+
+sm = lazy_module("statsmodels.api")
 
 
 @dataclass(frozen=True)

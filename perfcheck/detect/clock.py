@@ -34,10 +34,12 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from perfcheck.detect.common import Event, Wide, change_points, despike
 from perfcheck.detect.sensor import refine_edge
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
           "position; segmentation and Welch t test")

@@ -15,7 +15,10 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 KINDS = (
     "outage",

@@ -31,7 +31,6 @@ import math
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from perfcheck.detect.common import (
     Event,
@@ -43,6 +42,9 @@ from perfcheck.detect.common import (
     energy_band,
     scope_of,
 )
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD = ("binary segmentation of the daily median ratio to expected and to sibling inverters, "
           "Bonferroni-bounded t test per split and Welch t test against the reference level "

@@ -43,7 +43,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from perfcheck.detect.common import (
     Event,
@@ -54,6 +53,9 @@ from perfcheck.detect.common import (
     despike,
     runs,
 )
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD = ("the sensor-driven inverters' daily index and the POA sensor against clear-sky POA "
           "on clear days: circular binary segmentation and Welch t tests (Olshen et al. 2004), "

@@ -33,8 +33,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
-from scipy import stats
 
 from perfcheck.detect.common import (
     Event,
@@ -45,6 +43,10 @@ from perfcheck.detect.common import (
     energy_band,
     scope_of,
 )
+from perfcheck.lazy import lazy_module
+
+sm = lazy_module("statsmodels.api")
+stats = lazy_module("scipy.stats")
 
 METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, OLS "
           "trend over time per bin (HC3), Bonferroni over bins")

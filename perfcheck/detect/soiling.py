@@ -34,7 +34,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from perfcheck.detect.common import (
     Event,
@@ -44,6 +43,9 @@ from perfcheck.detect.common import (
     mann_kendall_slope,
     robust_sigma,
 )
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD = ("Theil-Sen decline of the daily performance index between recoveries (rain, "
           "detected steps up), in the spirit of Deceglie, Micheli & Muller 2018")
