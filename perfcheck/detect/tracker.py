@@ -1,0 +1,512 @@
+"""Single-axis trackers: rows stalled at one angle, rows out of step, and wind stow.
+
+A tracker's rows turn through the day, so the plane-of-array irradiance of a row that has
+stopped turning (a drive, controller or supply fault) or that turns by a constant offset (a
+mis-set inclinometer or set-point) has a day shape of its own against the tracked plane: a
+stalled row gets its most light when the designed rotation passes its angle and little in
+the morning or evening on the far side. The detector compares the shape of each day's power
+with the tracked expectation and with the expectation of the rows held at each candidate
+angle (or turned by each candidate offset), the shapes from the weather of the day (measured
+GHI split by Erbs et al., transposed by Hay & Davies; :func:`perfcheck.physics.poa_at_rotation`).
+
+The statistic (:func:`day_fits`, pure): y = ln(measured / expected) per usable interval of a
+day; the tracked model is y = c, a candidate's y = c + ln(r), r the candidate plane's
+irradiance over the tracked plane's. The candidate that fits best is tested against the
+tracked model by the extra-sum-of-squares F test (one parameter more), on the effective
+number of intervals n (1 - phi)/(1 + phi) of AR(1) residuals (phi from the inverter's own
+residuals, robust; :func:`perfcheck.detect.common.long_run_sigma`), its p-value multiplied by
+the candidates searched (Bonferroni). A day is a stall or out-of-step day when that p-value is
+below ``[detect] alpha`` and the day's loss the candidate explains exceeds the one-sided
+1 - alpha quantile of the daily model error (a shape alone, inside the model's error, is not
+reported). Consecutive such days with one angle (or offset) within the angle step make one
+event; the days on either side, and overcast days inside, join it while the event's angle
+fits them better than tracking. Where a ``tracker_angle`` channel is logged (the rows of the
+first tracker array), a day on which it stayed within the pointing tolerance while the
+designed rotation swept more than ``MIN_SWEEP_DEG`` is a stall day of those rows at the
+channel's angle, and a day on which it followed the design by a constant offset beyond the
+tolerance is an out-of-step day.
+
+The energy is a share of the expected power (ledger class ``share``): 1 - r of the event's
+angle, interval by interval; its band adds to the model error the difference between that
+share and the shortfall measured against the inverter's usual performance index.
+
+Wind stow: rows laid at their stow angle (``stow_angle_deg``, flat by default) while the wind
+is at or above ``stow_wind_speed_ms`` of the tracker array (the plant's stated design) are
+designed behaviour. The expected series of those intervals is replaced by the stow plane's
+(the stowed potential, at most the expected), before any fault detector runs, and the energy
+stow keeps out is a ``wind_stow`` event of ledger class ``design``: shown, never a loss, so a
+fault detector cannot call it a fault. Without a stated limit no stow is modelled; stow
+intervals then read as a short stall at the stow angle and are not reported when shorter
+than a day's test can see.
+
+References
+----------
+Marion & Dobos 2013 (NREL/TP-6A20-58891), the rotation and plane of a single-axis tracker;
+Erbs, Klein & Duffie 1982 (Solar Energy 28(4):293); Hay & Davies 1980; the extra-sum-of-squares
+F test: Draper & Smith 1998, Applied Regression Analysis, 3rd ed., sec. 6.1 (from memory);
+AR(1) effective sample size: Bayley & Hammersley 1946 (JRSS Suppl. 8:184; from memory).
+Pointing accuracy of about +-2 deg and stow of horizontal single-axis trackers at a stated
+wind speed: manufacturers' data sheets (common practice, no single published source).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import pvlib
+from scipy import stats
+
+from perfcheck import physics as ph
+from perfcheck.detect.common import (
+    Event,
+    Footprint,
+    Wide,
+    energy_band,
+    long_run_sigma,
+    scope_of,
+)
+from perfcheck.site import Array, Site
+
+STEP_DEG = 2.0  # grid of the candidate angles and offsets: about the pointing accuracy
+# days whose best angles differ by up to this much are one stall: a day that is partly
+# tracked, partly stalled fits an angle between the two (common practice, no source)
+JOIN_DEG = 10.0
+ANGLE_TOLERANCE_DEG = 2.0  # a tracker points within about +-2 deg (common practice)
+MAX_OFFSET_DEG = 30.0  # largest offset searched for rows out of step
+MIN_SWEEP_DEG = 20.0  # a day on which the design turns less says nothing about a stall
+MIN_TRACKED_WM2 = 50.0  # the shape is judged where the tracked plane gets at least this much
+METHOD_STALL = ("day shape of the power against the tracked plane and the plane held at each "
+                "angle (F test, Bonferroni over the angles)")
+METHOD_STEP = ("day shape of the power against the tracked plane and the plane turned by each "
+               "offset (F test, Bonferroni over the offsets)")
+METHOD_STOW = "rows at their stow angle while the wind was at or above the stated stow limit"
+
+
+# --------------------------------------------------------------------------------------------
+# the plant's trackers and the sky
+
+
+def tracker_arrays(site: Site) -> dict[str, Array]:
+    """Per inverter whose arrays all sit on single-axis trackers: its first array."""
+    return {inv.id: inv.arrays[0] for inv in site.inverters
+            if inv.arrays and all(a.tracker is not None for a in inv.arrays)}
+
+
+@dataclass(frozen=True)
+class Sky:
+    """Sun and irradiance components per interval of the wide index [deg, W/m^2]."""
+
+    zenith: np.ndarray
+    azimuth: np.ndarray
+    ghi: np.ndarray
+    dni: np.ndarray
+    dhi: np.ndarray
+    dni_extra: np.ndarray
+
+
+def sky(w: Wide) -> Sky:
+    """The day's sky from the logged GHI (Erbs split), else from the clear-sky GHI."""
+    ghi = w.ghi if w.ghi.notna().sum() >= 0.5 * (w.zenith < 85).sum() else w.clearsky_ghi
+    ghi = ghi.clip(lower=0.0).fillna(0.0)
+    parts = ph.decompose(ghi, w.zenith)
+    extra = pvlib.irradiance.get_extra_radiation(w.index).to_numpy(dtype=float)
+    return Sky(w.zenith.to_numpy(dtype=float), w.azimuth.to_numpy(dtype=float),
+               ghi.to_numpy(dtype=float), parts["dni"].fillna(0.0).to_numpy(dtype=float),
+               parts["dhi"].fillna(0.0).to_numpy(dtype=float), extra)
+
+
+def designed_rotation(w: Wide, array: Array) -> np.ndarray:
+    """The rotation the design turns the rows to [deg] (flat at night)."""
+    t = array.tracker
+    solpos = pd.DataFrame({"apparent_zenith": w.zenith, "azimuth": w.azimuth}, index=w.index)
+    return ph.singleaxis(solpos, t.axis_tilt_deg, t.axis_azimuth_deg, t.max_angle_deg,
+                         t.backtrack, array.gcr)["tracker_theta"].to_numpy(dtype=float)
+
+
+def plane_poa(rotation: float | np.ndarray, array: Array, s: Sky) -> np.ndarray:
+    """Global irradiance of the array's rows at ``rotation`` [W/m^2]."""
+    t = array.tracker
+    return ph.poa_at_rotation(rotation, t.axis_tilt_deg, t.axis_azimuth_deg, s.zenith,
+                              s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra, array.albedo)
+
+
+def log_ratio(poa: np.ndarray, tracked: np.ndarray) -> np.ndarray:
+    """ln(poa / tracked) where the tracked plane gets at least MIN_TRACKED_WM2, else NaN."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(tracked >= MIN_TRACKED_WM2, np.log(np.maximum(poa, 1e-3) / tracked),
+                        np.nan)
+
+
+# --------------------------------------------------------------------------------------------
+# the statistic
+
+
+@dataclass(frozen=True)
+class DayFits:
+    """Per day: intervals used, residual sum of squares of the tracked model and of the best
+    candidate, the best candidate's index, its F-test p-value (Bonferroni) and every
+    candidate's residual sum of squares (days x candidates)."""
+
+    n: np.ndarray
+    sse0: np.ndarray
+    sse: np.ndarray
+    best: np.ndarray
+    p_value: np.ndarray
+    sse_all: np.ndarray
+
+
+def day_fits(y: np.ndarray, logr: np.ndarray, codes: np.ndarray, n_days: int, phi: float
+             ) -> DayFits:
+    """Tracked model (a constant per day) against each candidate shape, day by day.
+
+    Parameters
+    ----------
+    y : ln(measured / expected) per interval, NaN where not usable.
+    logr : (candidates x intervals) ln of the candidate plane's irradiance over the tracked.
+    codes : day number of each interval (0 .. n_days - 1).
+    phi : lag-1 autocorrelation of the residuals (AR(1)), for the effective sample size.
+    """
+    ok = np.isfinite(y) & np.isfinite(logr).all(axis=0)
+    c, yy = codes[ok], y[ok]
+    n = np.bincount(c, minlength=n_days).astype(float)
+
+    def sse(z: np.ndarray) -> np.ndarray:
+        s1 = np.bincount(c, z, minlength=n_days)
+        s2 = np.bincount(c, z * z, minlength=n_days)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.maximum(s2 - np.where(n > 0, s1 * s1 / n, 0.0), 0.0)
+
+    sse0 = sse(yy)
+    sse_all = np.stack([sse(yy - lr[ok]) for lr in logr], axis=1)
+    best = np.argmin(sse_all, axis=1)
+    sse1 = sse_all[np.arange(n_days), best]
+    n_eff = n * (1 - phi) / (1 + phi)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        f = (sse0 - sse1) / (sse1 / np.maximum(n_eff - 2, 1.0))
+    p = np.where((n_eff > 6) & (sse1 < sse0),
+                 np.minimum(1.0, stats.f.sf(f, 1, np.maximum(n_eff - 2, 1.0)) * len(logr)),
+                 1.0)
+    return DayFits(n, sse0, sse1, best, p, sse_all)
+
+
+def residual_phi(y: np.ndarray, codes: np.ndarray) -> float:
+    """Lag-1 autocorrelation of y about its daily means (robust, AR(1))."""
+    ok = np.isfinite(y)
+    if ok.sum() < 10:
+        return 0.0
+    mean = pd.Series(y[ok]).groupby(codes[ok]).transform("mean").to_numpy()
+    _, phi = long_run_sigma(y[ok] - mean)
+    return float(phi) if math.isfinite(phi) else 0.0
+
+
+# --------------------------------------------------------------------------------------------
+# wind stow
+
+
+def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None
+         ) -> tuple[Wide, list[Event], dict[int, pd.DataFrame]]:
+    """The expected series with the stated wind stow in it, the ``wind_stow`` events (one per
+    run of stow days, gaps up to a day) and the power each keeps out of the expected series."""
+    arrays = {i: a for i, a in tracker_arrays(site).items()
+              if a.tracker.stow_wind_speed_ms is not None}
+    if not arrays or wind is None or wind.isna().all():
+        return w, [], {}
+    s = s or sky(w)
+    wv = wind.reindex(w.index).to_numpy(dtype=float)
+    expected, potential = w.expected.copy(), w.potential.copy()
+    kept = pd.DataFrame(0.0, index=w.index, columns=list(arrays))
+    any_stow = np.zeros(len(w.index), dtype=bool)
+    for inv, a in arrays.items():
+        on = (wv >= a.tracker.stow_wind_speed_ms) & (s.zenith < 90)
+        if not on.any():
+            continue
+        tracked = plane_poa(designed_rotation(w, a), a, s)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r = np.where(tracked > 1.0, plane_poa(a.tracker.stow_angle_deg, a, s) / tracked, 1.0)
+        pot = potential[inv].to_numpy() * np.where(on, r, 1.0)
+        exp_old = expected[inv].to_numpy()
+        exp_new = np.where(on, np.fmin(exp_old, pot), exp_old)
+        expected[inv], potential[inv] = exp_new, pot
+        kept[inv] = np.nan_to_num(exp_old - exp_new)
+        any_stow |= on & (kept[inv].to_numpy() != 0)
+    w2 = dataclasses.replace(w, expected=expected, potential=potential)
+    days = w.day.to_numpy()
+    stow_days = np.unique(days[any_stow])
+    events: list[Event] = []
+    design: dict[int, pd.DataFrame] = {}
+    step = w.interval_s.to_numpy()
+    for first, last in _day_runs(stow_days, gap_days=1):
+        sel = (days >= first) & (days <= last)
+        rows = np.flatnonzero(sel & any_stow)
+        frame = kept.where(pd.Series(sel, index=w.index), 0.0, axis=0)
+        e_kwh = float((frame.to_numpy() * step[:, None]).sum() / 3.6e6)
+        ev = Event(kind="wind_stow", scope="plant", start=w.index[rows[0]],
+                   end=w.end_of(w.index[rows[-1]]), energy_loss_kwh=e_kwh,
+                   energy_loss_kwh_low=e_kwh, energy_loss_kwh_high=e_kwh, method=METHOD_STOW,
+                   evidence={"stow_intervals": int(len(rows)),
+                             "stow_hours": float(step[rows].sum() / 3600),
+                             "max_wind_speed_ms": float(np.nanmax(wv[rows])),
+                             "stow_wind_speed_ms": {i: a.tracker.stow_wind_speed_ms
+                                                    for i, a in arrays.items()}},
+                   detail={"design": True})
+        events.append(ev)
+        design[id(ev)] = frame
+    return w2, events, design
+
+
+def _day_runs(days: np.ndarray, gap_days: int) -> list[tuple[np.datetime64, np.datetime64]]:
+    """(first, last) of the runs of sorted days, joining runs at most ``gap_days`` apart."""
+    out: list[list[np.datetime64]] = []
+    for d in days:
+        if out and (d - out[-1][1]) <= np.timedelta64(gap_days + 1, "D"):
+            out[-1][1] = d
+        else:
+            out.append([d, d])
+    return [(a, b) for a, b in out]
+
+
+# --------------------------------------------------------------------------------------------
+# stalls and rows out of step
+
+
+@dataclass(frozen=True)
+class Candidates:
+    """The stall angles and the offsets searched, their rotations and ln irradiance ratios."""
+
+    labels: list[tuple[str, float]]  # ("stall", angle) or ("step", offset)
+    logr: np.ndarray  # candidates x intervals
+
+
+def candidates(w: Wide, array: Array, s: Sky, theta: np.ndarray) -> Candidates:
+    """Every stall angle within the rotation limits and every offset up to MAX_OFFSET_DEG."""
+    lim = array.tracker.max_angle_deg
+    tracked = plane_poa(theta, array, s)
+    labels: list[tuple[str, float]] = []
+    rows = []
+    for ang in np.arange(-lim, lim + 1e-9, STEP_DEG):
+        labels.append(("stall", float(ang)))
+        rows.append(log_ratio(plane_poa(float(ang), array, s), tracked))
+    offsets = np.arange(2 * STEP_DEG, MAX_OFFSET_DEG + 1e-9, STEP_DEG)
+    for off in np.concatenate([-offsets[::-1], offsets]):
+        labels.append(("step", float(off)))
+        rows.append(log_ratio(plane_poa(_turned(theta, off, array), array, s), tracked))
+    return Candidates(labels, np.vstack(rows))
+
+
+def angle_days(w: Wide, angle: pd.Series | None, theta: np.ndarray
+               ) -> dict[np.datetime64, tuple[str, float]]:
+    """Days the ``tracker_angle`` channel shows a stall (its angle) or an offset."""
+    if angle is None or angle.dropna().empty:
+        return {}
+    a = angle.reindex(w.index).to_numpy(dtype=float)
+    up = (w.zenith.to_numpy() < 80) & np.isfinite(a)
+    frame = pd.DataFrame({"day": w.day.to_numpy()[up], "a": a[up], "d": a[up] - theta[up],
+                          "t": theta[up]})
+    out = {}
+    for day, g in frame.groupby("day"):
+        if len(g) < 6 or np.ptp(g["t"]) < MIN_SWEEP_DEG:
+            continue
+        lo, hi = np.percentile(g["a"], [5, 95])
+        off = float(np.median(g["d"]))
+        spread = float(np.percentile(g["d"], 90) - np.percentile(g["d"], 10))
+        if hi - lo <= 2 * ANGLE_TOLERANCE_DEG:
+            out[np.datetime64(day)] = ("stall", float(np.median(g["a"])))
+        elif abs(off) > 2 * ANGLE_TOLERANCE_DEG and spread <= 2 * ANGLE_TOLERANCE_DEG:
+            out[np.datetime64(day)] = ("step", off)
+    return out
+
+
+def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: float,
+           angle: pd.Series | None = None, s: Sky | None = None
+           ) -> tuple[list[Event], list[Footprint]]:
+    """Stalled rows and rows out of step of every tracker inverter.
+
+    Parameters
+    ----------
+    usable : intervals fit for a shape test (daylight, no flag, no outage, clipping or
+        curtailment, not at the AC rating)
+    rel_sigma : daily relative model error [-]
+    alpha : false-alarm probability per inverter-day test
+    angle : the ``tracker_angle`` channel [deg] on the wide index, rows of the first tracker
+        array
+    """
+    arrays = tracker_arrays(site)
+    if not arrays:
+        return [], []
+    s = s or sky(w)
+    days, codes = np.unique(w.day.to_numpy(), return_inverse=True)
+    z = stats.norm.isf(alpha)
+    first = next(iter(arrays))
+    events: list[Event] = []
+    prints: list[Footprint] = []
+    for inv, a in arrays.items():
+        theta = designed_rotation(w, a)
+        cand = candidates(w, a, s, theta)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            y = np.log(w.measured[inv].to_numpy() / w.expected[inv].to_numpy())
+        y = np.where(usable[inv].to_numpy() & np.isfinite(y), y, np.nan)
+        fits = day_fits(y, cand.logr, codes, len(days), residual_phi(y, codes))
+        e = np.where(usable[inv].to_numpy(), w.expected[inv].to_numpy(), 0.0)
+        e_day = np.bincount(codes, np.nan_to_num(e), minlength=len(days))
+        ratio = np.nan_to_num(np.exp(cand.logr), nan=1.0)
+        loss_day = np.array([np.bincount(codes, np.nan_to_num(e * (1 - ratio[k])),
+                                         minlength=len(days))
+                             for k in range(len(cand.labels))]).T
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = loss_day[np.arange(len(days)), fits.best] / e_day
+        seed = {d: cand.labels[fits.best[i]] for i, d in enumerate(days)
+                if fits.p_value[i] < alpha and share[i] > z * rel_sigma}
+        if inv == first:
+            seed.update(angle_days(w, angle, theta))
+        for lab, first_day, last_day in _group(seed, days, cand, fits):
+            ev, fp = _event(w, inv, a, s, theta, lab, (first_day, last_day), usable,
+                            rel_sigma, fits, days, alpha)
+            if ev is not None:
+                events.append(ev)
+                prints.append(fp)
+    return events, prints
+
+
+def _group(seed: dict, days: np.ndarray, cand: Candidates, fits: DayFits
+           ) -> list[tuple[tuple[str, float], np.datetime64, np.datetime64]]:
+    """Runs of seed days of one family and angle (within a step), joined over and extended by
+    the days the run's candidate fits better than tracking (or that have no test)."""
+    out = []
+    pos = {d: i for i, d in enumerate(days)}
+    order = sorted(seed)
+    used: set = set()
+    for d in order:
+        if d in used:
+            continue
+        fam, val = seed[d]
+        k = _nearest(cand, fam, val)
+
+        def fits_day(i: int, k: int = k) -> bool:
+            return fits.n[i] == 0 or fits.sse_all[i, k] < fits.sse0[i]
+
+        def same(x: np.datetime64, fam: str = fam, val: float = val) -> bool:
+            return x in seed and seed[x][0] == fam and abs(seed[x][1] - val) <= JOIN_DEG
+
+        i0 = i1 = pos[d]
+        while i1 + 1 < len(days):
+            nxt = days[i1 + 1]
+            bridged = i1 + 2 < len(days) and same(days[i1 + 2])  # one odd day between two
+            if same(nxt) or ((nxt not in seed or bridged) and (fits_day(i1 + 1) or bridged)):
+                i1 += 1
+            else:
+                break
+        while i0 > 0 and days[i0 - 1] not in seed and fits_day(i0 - 1):
+            i0 -= 1
+        # trim the untested days at both ends
+        while i0 < i1 and fits.n[i0] == 0:
+            i0 += 1
+        while i1 > i0 and fits.n[i1] == 0:
+            i1 -= 1
+        run = [days[i] for i in range(i0, i1 + 1)]
+        vals = [seed[x][1] for x in run if x in seed and seed[x][0] == fam]
+        used.update(run)
+        out.append(((fam, float(np.median(vals))), days[i0], days[i1]))
+    return out
+
+
+def _nearest(cand: Candidates, fam: str, val: float) -> int:
+    return min((abs(v - val), k) for k, (f, v) in enumerate(cand.labels) if f == fam)[1]
+
+
+def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[str, float],
+           span: tuple[np.datetime64, np.datetime64], usable: pd.DataFrame, rel_sigma: float,
+           fits: DayFits, days: np.ndarray, alpha: float
+           ) -> tuple[Event | None, Footprint | None]:
+    """The event of one run of days, its energy from the run's angle (or offset)."""
+    fam, val = lab
+    first, last = span
+    day = w.day.to_numpy()
+    one = np.timedelta64(1, "D")
+    near = (day >= first - one) & (day <= last + one)
+    lo, hi = int(np.flatnonzero(near)[0]), int(np.flatnonzero(near)[-1]) + 1
+    u = usable[inv].to_numpy()
+    m, e_all = w.measured[inv].to_numpy(), w.expected[inv].to_numpy()
+    far = u & ~near & np.isfinite(m)  # the inverter's usual performance index, away from it
+    pi0 = float(np.sum(m[far]) / np.sum(e_all[far])) if far.any() else 1.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        y = np.where(u[lo:hi], np.log(m[lo:hi] / e_all[lo:hi]), np.nan)
+    sk = _slice(s, lo, hi)
+    tracked = plane_poa(theta[lo:hi], a, sk)
+    if fam == "step":  # the offset again, at the usual level: a constant share is an offset's
+        val = _offset_at_level(y - math.log(pi0), theta[lo:hi], a, sk, tracked)
+    held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk)
+    lr = log_ratio(held, tracked)
+    d = day[lo:hi]
+    start = _split(y, lr, d == first, d == first - one, onset=True)
+    stop = _split(y, lr, d == last, d == last + one, onset=False)
+    lo, hi, tracked, held = lo + start, lo + stop, tracked[start:stop], held[start:stop]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        factor = np.where(tracked > 1.0, np.clip(1 - held / tracked, 0.0, 1.0), 0.0)
+    step = w.interval_s.to_numpy()[lo:hi]
+    exp = np.nan_to_num(e_all[lo:hi])
+    e_kwh = float(np.sum(exp * factor * step) / 3.6e6)
+    if e_kwh <= 0:
+        return None, None
+    # the shortfall measured against the inverter's usual performance index
+    inside = u[lo:hi] & np.isfinite(m[lo:hi])
+    seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
+    pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
+    low, high = energy_band(e_kwh, rel_sigma, abs(seen - pred))
+    kind = "tracker_stall" if fam == "stall" else "tracker_out_of_step"
+    in_run = (days >= first) & (days <= last)
+    ev = Event(
+        kind=kind, scope=scope_of(inv), start=w.index[lo], end=w.end_of(w.index[hi - 1]),
+        energy_loss_kwh=e_kwh, energy_loss_kwh_low=max(low, 0.0), energy_loss_kwh_high=high,
+        method=METHOD_STALL if fam == "stall" else METHOD_STEP,
+        evidence={"days": int(in_run.sum()),
+                  "significant_days": int(np.sum(in_run & (fits.p_value < alpha))),
+                  "min_p_value": float(np.min(fits.p_value[in_run])),
+                  "measured_shortfall_kwh": seen, "predicted_shortfall_kwh": pred},
+        detail={"angle_deg": val} if fam == "stall" else {"offset_deg": val})
+    return ev, Footprint(ev, lo, hi, [inv], factor=factor[:, None])
+
+
+def _turned(theta: np.ndarray, offset: float, array: Array) -> np.ndarray:
+    lim = array.tracker.max_angle_deg
+    return np.clip(theta + offset, -lim, lim)
+
+
+def _offset_at_level(y: np.ndarray, theta: np.ndarray, array: Array, s: Sky,
+                     tracked: np.ndarray) -> float:
+    """The offset whose shape fits ``y`` (ln of measured over expected, less the usual level)
+    best with no free constant."""
+    offsets = np.arange(-MAX_OFFSET_DEG, MAX_OFFSET_DEG + 1e-9, STEP_DEG / 2)
+    sse = []
+    for off in offsets:
+        z = y - log_ratio(plane_poa(_turned(theta, off, array), array, s), tracked)
+        sse.append(float(np.nanmean(z * z)) if np.isfinite(z).any() else np.inf)
+    return float(offsets[int(np.argmin(sse))])
+
+
+def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray, onset: bool
+           ) -> int:
+    """Where the fault began (``onset``) or ended, within the run's edge day and the day
+    beyond it: the split of their usable rows, tracked on one side and the candidate's shape
+    on the other, with the least squares about one constant. A position in ``y``."""
+    rows = np.flatnonzero(edge | outside)
+    ok = rows[np.isfinite(y[rows]) & np.isfinite(lr[rows])]
+    edge_rows = np.flatnonzero(edge)
+    if len(ok) < 4:
+        return int(edge_rows[0]) if onset else int(edge_rows[-1]) + 1
+    pos = np.arange(len(ok))
+    sse = []
+    for k in range(len(ok) + 1):
+        z = y[ok] - np.where(pos >= k if onset else pos < k, lr[ok], 0.0)
+        sse.append(float(np.sum((z - z.mean()) ** 2)))
+    k = int(np.argmin(sse))
+    if onset:
+        return int(ok[k]) if k < len(ok) else int(edge_rows[0])
+    return int(ok[k - 1]) + 1 if k > 0 else int(edge_rows[-1]) + 1
+
+
+def _slice(s: Sky, lo: int, hi: int) -> Sky:
+    return Sky(*(x[lo:hi] for x in (s.zenith, s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra)))
