@@ -166,7 +166,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     events += sensor.events(w1, w, suspects)
     t = lap("sensor", t)
     sky = tracker.sky(w) if tracker.tracker_arrays(site) else None
-    w, stowed, design_stow = tracker.stow(w, site, _site_series(df, "wind_speed_ms", w), sky)
+    w, stowed, design_stow = tracker.stow(w, site, _site_series(df, "wind_speed_ms", w), sky,
+                                          st.alpha)
     events += stowed
 
     valid = daylight(w) & ~w.flagged & w.expected.notna()

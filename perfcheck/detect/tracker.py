@@ -207,27 +207,37 @@ def residual_phi(y: np.ndarray, codes: np.ndarray) -> float:
 # wind stow
 
 
-def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None
-         ) -> tuple[Wide, list[Event], dict[int, pd.DataFrame]]:
-    """The expected series with the stated wind stow in it, the ``wind_stow`` events (one per
-    run of stow days, gaps up to a day) and the power each keeps out of the expected series."""
-    arrays = {i: a for i, a in tracker_arrays(site).items()
-              if a.tracker.stow_wind_speed_ms is not None}
+def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None,
+         alpha: float = 1e-3) -> tuple[Wide, list[Event], dict[int, pd.DataFrame]]:
+    """The expected series with the wind stow in it, the ``wind_stow`` events (one per run of
+    stow days, gaps up to a day) and the power each keeps out of the expected series.
+
+    The stow limit is the array's ``stow_wind_speed_ms``; where none is stated it is inferred
+    (:func:`inferred_limit`) and the events say so."""
+    arrays = tracker_arrays(site)
     if not arrays or wind is None or wind.isna().all():
         return w, [], {}
     s = s or sky(w)
     wv = wind.reindex(w.index).to_numpy(dtype=float)
-    expected, potential = w.expected.copy(), w.potential.copy()
-    kept = pd.DataFrame(0.0, index=w.index, columns=list(arrays))
-    any_stow = np.zeros(len(w.index), dtype=bool)
+    theta = {inv: designed_rotation(w, a) for inv, a in arrays.items()}
+    ratio = {}
     for inv, a in arrays.items():
-        on = (wv >= a.tracker.stow_wind_speed_ms) & (s.zenith < 90)
-        if not on.any():
-            continue
-        tracked = plane_poa(designed_rotation(w, a), a, s)
+        tracked = plane_poa(theta[inv], a, s)
         with np.errstate(invalid="ignore", divide="ignore"):
-            r = np.where(tracked > 1.0, plane_poa(a.tracker.stow_angle_deg, a, s) / tracked, 1.0)
-        pot = potential[inv].to_numpy() * np.where(on, r, 1.0)
+            ratio[inv] = np.where(tracked > 1.0,
+                                  plane_poa(a.tracker.stow_angle_deg, a, s) / tracked, 1.0)
+    unstated = [inv for inv, a in arrays.items() if a.tracker.stow_wind_speed_ms is None]
+    guess = inferred_limit(w, unstated, wv, ratio, alpha) if unstated else None
+    limits = {inv: a.tracker.stow_wind_speed_ms or guess for inv, a in arrays.items()}
+    limits = {inv: v for inv, v in limits.items() if v is not None}
+    if not limits:
+        return w, [], {}
+    expected, potential = w.expected.copy(), w.potential.copy()
+    kept = pd.DataFrame(0.0, index=w.index, columns=list(limits))
+    any_stow = np.zeros(len(w.index), dtype=bool)
+    for inv, limit in limits.items():
+        on = (wv >= limit) & (s.zenith < 90)
+        pot = potential[inv].to_numpy() * np.where(on, ratio[inv], 1.0)
         exp_old = expected[inv].to_numpy()
         exp_new = np.where(on, np.fmin(exp_old, pot), exp_old)
         expected[inv], potential[inv] = exp_new, pot
@@ -250,12 +260,53 @@ def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None
                    evidence={"stow_intervals": int(len(rows)),
                              "stow_hours": float(step[rows].sum() / 3600),
                              "max_wind_speed_ms": float(np.nanmax(wv[rows])),
-                             "stow_wind_speed_ms": {i: a.tracker.stow_wind_speed_ms
-                                                    for i, a in arrays.items()}},
+                             "stow_wind_speed_ms": limits,
+                             "limit": "inferred" if guess is not None else "stated"},
                    detail={"design": True})
         events.append(ev)
         design[id(ev)] = frame
     return w2, events, design
+
+
+WIND_QUANTILES = (0.9, 0.95, 0.98, 0.99, 0.995, 0.999)  # wind bins searched for the limit
+MIN_SHAPE = 0.05  # rows where stow and tracking differ by less than 5 % tell nothing
+
+
+def inferred_limit(w: Wide, inverters: list[str], wind: np.ndarray,
+                   ratio: dict[str, np.ndarray], alpha: float) -> float | None:
+    """The wind speed above which the rows lie at their stow angle, read from the data.
+
+    The daylight wind speeds are cut at their 90 to 99.9 % quantiles. From the windiest bin
+    down, a bin (and every bin above it) is stow when, on its rows where the stow plane and
+    the tracked plane differ by at least ``MIN_SHAPE``, the power is nearer the stow plane's
+    than the tracked plane's (each at the inverter's usual level) significantly more often
+    than not: one-sided sign test at ``alpha`` (Conover 1999, Practical Nonparametric
+    Statistics, sec. 3.4; from memory). The limit is the lowest such bin's lower edge; None
+    when the windiest bin is not stow.
+    """
+    sun = w.expected[inverters].ge(w.ac_w[inverters] * 0.2, axis=1).any(axis=1).to_numpy()
+    day_wind = wind[sun & np.isfinite(wind)]
+    if len(day_wind) < 100:
+        return None
+    edges = np.unique(np.quantile(day_wind, WIND_QUANTILES))
+    nearer = np.zeros(len(wind))
+    tested = np.zeros(len(wind))
+    for inv in inverters:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            y = np.log(w.measured[inv].to_numpy() / w.expected[inv].to_numpy())
+            lr = np.log(np.maximum(ratio[inv], 1e-3))
+        ok = sun & np.isfinite(y) & (np.abs(lr) >= MIN_SHAPE) & ~w.flagged[inv].to_numpy()
+        c = float(np.nanmedian(y[ok])) if ok.any() else 0.0
+        nearer += ok & (np.abs(y - c - lr) < np.abs(y - c))
+        tested += ok
+    limit = None
+    for lo, hi in zip(edges[::-1], [np.inf, *edges[::-1][:-1]], strict=True):
+        rows = (wind >= lo) & (wind < hi)
+        n, k = int(tested[rows].sum()), int(nearer[rows].sum())
+        if n < 6 or stats.binom.sf(k - 1, n, 0.5) >= alpha:
+            break
+        limit = float(lo)
+    return limit
 
 
 def _day_runs(days: np.ndarray, gap_days: int) -> list[tuple[np.datetime64, np.datetime64]]:
