@@ -78,6 +78,7 @@ JOIN_DEG = 10.0
 ANGLE_TOLERANCE_DEG = 2.0  # a tracker points within about +-2 deg (common practice)
 MAX_OFFSET_DEG = 30.0  # largest offset searched for rows out of step
 MIN_SWEEP_DEG = 20.0  # a day on which the design turns less says nothing about a stall
+SHAPE_WINDOW_DAYS = 61  # the usual day shape: running median over two months
 MIN_TRACKED_WM2 = 50.0  # the shape is judged where the tracked plane gets at least this much
 METHOD_STALL = ("day shape of the power against the tracked plane and the plane held at each "
                 "angle (F test, Bonferroni over the angles)")
@@ -184,13 +185,34 @@ def day_fits(y: np.ndarray, logr: np.ndarray, codes: np.ndarray, n_days: int, ph
     sse_all = np.stack([sse(yy - lr[ok]) for lr in logr], axis=1)
     best = np.argmin(sse_all, axis=1)
     sse1 = sse_all[np.arange(n_days), best]
-    n_eff = n * (1 - phi) / (1 + phi)
+    inflation = (1 + phi) / (1 - phi)
+    n_eff = n / inflation
     with np.errstate(invalid="ignore", divide="ignore"):
-        f = (sse0 - sse1) / (sse1 / np.maximum(n_eff - 2, 1.0))
-    p = np.where((n_eff > 6) & (sse1 < sse0),
+        f = (sse0 - sse1) / (sse1 / np.maximum(n - 2, 1.0) * inflation)
+    p = np.where((n_eff > 4) & (sse1 < sse0),
                  np.minimum(1.0, stats.f.sf(f, 1, np.maximum(n_eff - 2, 1.0)) * len(logr)),
                  1.0)
     return DayFits(n, sse0, sse1, best, p, sse_all)
+
+
+def typical_shape(y: np.ndarray, index: pd.DatetimeIndex, interval_s: float,
+                  window_days: int = SHAPE_WINDOW_DAYS) -> np.ndarray:
+    """The inverter's usual ln(measured / expected) at each time of day: the running median,
+    over ``window_days`` days centred on each day, of the values at the same UTC time of day.
+
+    The model's own error has a day shape (incidence-angle, spectral and thermal effects
+    that it leaves out); it persists from day to day while a fault's shape comes and goes, so
+    it is taken out before the shapes are compared. A median over twice the longest fault
+    that should stand out, at least half of the window healthy (common practice, no source).
+    """
+    ns = index.as_unit("ns").asi8
+    day = ns // 86_400_000_000_000
+    slot = (ns - day * 86_400_000_000_000) // int(interval_s * 1e9)
+    d0 = day - day.min()
+    grid = np.full((int(d0.max()) + 1, int(slot.max()) + 1), np.nan)
+    grid[d0, slot] = y
+    ref = pd.DataFrame(grid).rolling(window_days, center=True, min_periods=7).median()
+    return ref.to_numpy()[d0, slot]
 
 
 def residual_phi(y: np.ndarray, codes: np.ndarray) -> float:
@@ -400,6 +422,7 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         with np.errstate(invalid="ignore", divide="ignore"):
             y = np.log(w.measured[inv].to_numpy() / w.expected[inv].to_numpy())
         y = np.where(usable[inv].to_numpy() & np.isfinite(y), y, np.nan)
+        y = y - typical_shape(y, w.index, float(np.median(w.interval_s)))
         fits = day_fits(y, cand.logr, codes, len(days), residual_phi(y, codes))
         e = np.where(usable[inv].to_numpy(), w.expected[inv].to_numpy(), 0.0)
         e_day = np.bincount(codes, np.nan_to_num(e), minlength=len(days))
@@ -414,7 +437,7 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         if inv == first:
             seed.update(angle_days(w, angle, theta))
         for lab, first_day, last_day in _group(seed, days, cand, fits):
-            ev, fp = _event(w, inv, a, s, theta, lab, (first_day, last_day), usable,
+            ev, fp = _event(w, inv, a, s, theta, lab, (first_day, last_day), usable, y,
                             rel_sigma, fits, days, alpha)
             if ev is not None:
                 events.append(ev)
@@ -469,8 +492,8 @@ def _nearest(cand: Candidates, fam: str, val: float) -> int:
 
 
 def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[str, float],
-           span: tuple[np.datetime64, np.datetime64], usable: pd.DataFrame, rel_sigma: float,
-           fits: DayFits, days: np.ndarray, alpha: float
+           span: tuple[np.datetime64, np.datetime64], usable: pd.DataFrame, y_all: np.ndarray,
+           rel_sigma: float, fits: DayFits, days: np.ndarray, alpha: float
            ) -> tuple[Event | None, Footprint | None]:
     """The event of one run of days, its energy from the run's angle (or offset)."""
     fam, val = lab
@@ -483,12 +506,11 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     m, e_all = w.measured[inv].to_numpy(), w.expected[inv].to_numpy()
     far = u & ~near & np.isfinite(m)  # the inverter's usual performance index, away from it
     pi0 = float(np.sum(m[far]) / np.sum(e_all[far])) if far.any() else 1.0
-    with np.errstate(invalid="ignore", divide="ignore"):
-        y = np.where(u[lo:hi], np.log(m[lo:hi] / e_all[lo:hi]), np.nan)
+    y = y_all[lo:hi]  # about the usual day shape, whose level is the usual one
     sk = _slice(s, lo, hi)
     tracked = plane_poa(theta[lo:hi], a, sk)
     if fam == "step":  # the offset again, at the usual level: a constant share is an offset's
-        val = _offset_at_level(y - math.log(pi0), theta[lo:hi], a, sk, tracked)
+        val = _offset_at_level(y, theta[lo:hi], a, sk, tracked)
     held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk)
     lr = log_ratio(held, tracked)
     d = day[lo:hi]
