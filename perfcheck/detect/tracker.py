@@ -10,41 +10,41 @@ angle (or turned by each candidate offset), the shapes from the weather of the d
 GHI split by Erbs et al., transposed by Hay & Davies; :func:`perfcheck.physics.poa_at_rotation`).
 
 The statistic (:func:`day_fits`, pure): y = ln(measured / expected) per usable interval of a
-day; the tracked model is y = c, a candidate's y = c + ln(r), r the candidate plane's
-irradiance over the tracked plane's. The candidate that fits best is tested against the
-tracked model by the extra-sum-of-squares F test (one parameter more), on the effective
-number of intervals n (1 - phi)/(1 + phi) of AR(1) residuals (phi from the inverter's own
-residuals, robust; :func:`perfcheck.detect.common.long_run_sigma`), its p-value multiplied by
-the candidates searched (Bonferroni). A day is a stall or out-of-step day when that p-value is
-below ``[detect] alpha`` and the day's loss the candidate explains exceeds the one-sided
-1 - alpha quantile of the daily model error (a shape alone, inside the model's error, is not
-reported). Consecutive such days with one angle (or offset) within the angle step make one
-event; the days on either side, and overcast days inside, join it while the event's angle
-fits them better than tracking. Where a ``tracker_angle`` channel is logged (the rows of the
-first tracker array), a day on which it stayed within the pointing tolerance while the
-designed rotation swept more than ``MIN_SWEEP_DEG`` is a stall day of those rows at the
-channel's angle, and a day on which it followed the design by a constant offset beyond the
-tolerance is an out-of-step day.
+day, less the inverter's usual day shape (:func:`typical_shape`: the model's own errors have a
+shape that persists from day to day); the tracked model is y = c, a candidate's y = c + ln(r),
+r the candidate plane's irradiance over the tracked plane's. The best candidate's gain
+ln(SSE_tracked / SSE_candidate) is judged against the same inverter's other days by its
+robust z-score (median, MAD): intervals within a day are too correlated (clouds, model error)
+for a test on their number, while days are many and mostly healthy. A day is a stall or
+out-of-step day when the one-sided p-value is below ``[detect] alpha`` and the day's loss the
+candidate explains exceeds the one-sided 1 - alpha quantile of the daily model error (a shape
+alone, inside the model's error, is not reported). Consecutive such days with one angle (or
+offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
+inside, join it while the event's angle fits them better than tracking; its onset and end are
+placed within their days by the split that fits best (:func:`_split`). Where a
+``tracker_angle`` channel is logged (the rows of the first tracker array), a day on which it
+stayed within the pointing tolerance while the designed rotation swept more than
+``MIN_SWEEP_DEG`` is a stall day of those rows at the channel's angle, and a day on which it
+followed the design by a constant offset beyond the tolerance is an out-of-step day.
 
 The energy is a share of the expected power (ledger class ``share``): 1 - r of the event's
 angle, interval by interval; its band adds to the model error the difference between that
 share and the shortfall measured against the inverter's usual performance index.
 
 Wind stow: rows laid at their stow angle (``stow_angle_deg``, flat by default) while the wind
-is at or above ``stow_wind_speed_ms`` of the tracker array (the plant's stated design) are
-designed behaviour. The expected series of those intervals is replaced by the stow plane's
-(the stowed potential, at most the expected), before any fault detector runs, and the energy
-stow keeps out is a ``wind_stow`` event of ledger class ``design``: shown, never a loss, so a
-fault detector cannot call it a fault. Without a stated limit no stow is modelled; stow
-intervals then read as a short stall at the stow angle and are not reported when shorter
-than a day's test can see.
+is at or above the tracker array's ``stow_wind_speed_ms`` are designed behaviour. The limit is
+the site file's; where it states none, it is inferred from the data (:func:`inferred_limit`).
+The expected series of those intervals is replaced by the stow plane's (the stowed potential,
+at most the expected) before any fault detector runs, and the energy stow keeps out is a
+``wind_stow`` event of ledger class ``design``: shown, never a loss, so no fault detector can
+call it a fault.
 
 References
 ----------
 Marion & Dobos 2013 (NREL/TP-6A20-58891), the rotation and plane of a single-axis tracker;
-Erbs, Klein & Duffie 1982 (Solar Energy 28(4):293); Hay & Davies 1980; the extra-sum-of-squares
-F test: Draper & Smith 1998, Applied Regression Analysis, 3rd ed., sec. 6.1 (from memory);
-AR(1) effective sample size: Bayley & Hammersley 1946 (JRSS Suppl. 8:184; from memory).
+Erbs, Klein & Duffie 1982 (Solar Energy 28(4):293); Hay & Davies 1980; robust z-scores from
+the median and MAD: Hampel 1974 (JASA 69:383) and Iglewicz & Hoaglin 1993, How to Detect and
+Handle Outliers, ASQC (from memory).
 Pointing accuracy of about +-2 deg and stow of horizontal single-axis trackers at a stated
 wind speed: manufacturers' data sheets (common practice, no single published source).
 """
@@ -66,7 +66,6 @@ from perfcheck.detect.common import (
     Footprint,
     Wide,
     energy_band,
-    long_run_sigma,
     scope_of,
 )
 from perfcheck.site import Array, Site
@@ -80,6 +79,10 @@ MAX_OFFSET_DEG = 30.0  # largest offset searched for rows out of step
 MIN_SWEEP_DEG = 20.0  # a day on which the design turns less says nothing about a stall
 SHAPE_WINDOW_DAYS = 61  # the usual day shape: running median over two months
 MIN_TRACKED_WM2 = 50.0  # the shape is judged where the tracked plane gets at least this much
+MIN_DAY_INTERVALS = 10  # a day with fewer usable intervals is not tested
+# the gains' scale is taken as at least this: a fit better by a few per cent is within the
+# resolution of the shapes, even where the model is exact (common practice, no source)
+MIN_GAIN_SCALE = 0.05
 METHOD_STALL = ("day shape of the power against the tracked plane and the plane held at each "
                 "angle (F test, Bonferroni over the angles)")
 METHOD_STEP = ("day shape of the power against the tracked plane and the plane turned by each "
@@ -149,27 +152,33 @@ def log_ratio(poa: np.ndarray, tracked: np.ndarray) -> np.ndarray:
 @dataclass(frozen=True)
 class DayFits:
     """Per day: intervals used, residual sum of squares of the tracked model and of the best
-    candidate, the best candidate's index, its F-test p-value (Bonferroni) and every
-    candidate's residual sum of squares (days x candidates)."""
+    candidate, the best candidate's index, the improvement ln(SSE0/SSE1), its one-sided
+    p-value against the inverter's other days, and every candidate's residual sum of squares
+    (days x candidates)."""
 
     n: np.ndarray
     sse0: np.ndarray
     sse: np.ndarray
     best: np.ndarray
+    gain: np.ndarray
     p_value: np.ndarray
     sse_all: np.ndarray
 
 
-def day_fits(y: np.ndarray, logr: np.ndarray, codes: np.ndarray, n_days: int, phi: float
-             ) -> DayFits:
+def day_fits(y: np.ndarray, logr: np.ndarray, codes: np.ndarray, n_days: int) -> DayFits:
     """Tracked model (a constant per day) against each candidate shape, day by day.
+
+    The gain of a day is ln(SSE0 / SSE1), SSE1 that of its best candidate (the tracked model
+    counts as a candidate, so the gain is at least 0); its p-value is
+    the one-sided normal tail of its robust z-score among the days with at least
+    ``MIN_DAY_INTERVALS`` usable intervals (median and 1.4826 MAD: most days are healthy,
+    and the model's errors and the clouds make the healthy days' gains what they are).
 
     Parameters
     ----------
-    y : ln(measured / expected) per interval, NaN where not usable.
+    y : ln(measured / expected) per interval about the usual day shape, NaN where not usable.
     logr : (candidates x intervals) ln of the candidate plane's irradiance over the tracked.
     codes : day number of each interval (0 .. n_days - 1).
-    phi : lag-1 autocorrelation of the residuals (AR(1)), for the effective sample size.
     """
     ok = np.isfinite(y) & np.isfinite(logr).all(axis=0)
     c, yy = codes[ok], y[ok]
@@ -185,14 +194,16 @@ def day_fits(y: np.ndarray, logr: np.ndarray, codes: np.ndarray, n_days: int, ph
     sse_all = np.stack([sse(yy - lr[ok]) for lr in logr], axis=1)
     best = np.argmin(sse_all, axis=1)
     sse1 = sse_all[np.arange(n_days), best]
-    inflation = (1 + phi) / (1 - phi)
-    n_eff = n / inflation
     with np.errstate(invalid="ignore", divide="ignore"):
-        f = (sse0 - sse1) / (sse1 / np.maximum(n - 2, 1.0) * inflation)
-    p = np.where((n_eff > 4) & (sse1 < sse0),
-                 np.minimum(1.0, stats.f.sf(f, 1, np.maximum(n_eff - 2, 1.0)) * len(logr)),
-                 1.0)
-    return DayFits(n, sse0, sse1, best, p, sse_all)
+        gain = np.where(n >= MIN_DAY_INTERVALS,
+                        np.log(sse0 / np.clip(sse1, 1e-12, np.maximum(sse0, 1e-12))), np.nan)
+    g = gain[np.isfinite(gain)]
+    if len(g) < 5:
+        return DayFits(n, sse0, sse1, best, gain, np.ones(n_days), sse_all)
+    med = float(np.median(g))
+    scale = max(1.4826 * float(np.median(np.abs(g - med))), MIN_GAIN_SCALE)
+    p = np.where(np.isfinite(gain), stats.norm.sf((gain - med) / scale), 1.0)
+    return DayFits(n, sse0, sse1, best, gain, p, sse_all)
 
 
 def typical_shape(y: np.ndarray, index: pd.DatetimeIndex, interval_s: float,
@@ -213,16 +224,6 @@ def typical_shape(y: np.ndarray, index: pd.DatetimeIndex, interval_s: float,
     grid[d0, slot] = y
     ref = pd.DataFrame(grid).rolling(window_days, center=True, min_periods=7).median()
     return ref.to_numpy()[d0, slot]
-
-
-def residual_phi(y: np.ndarray, codes: np.ndarray) -> float:
-    """Lag-1 autocorrelation of y about its daily means (robust, AR(1))."""
-    ok = np.isfinite(y)
-    if ok.sum() < 10:
-        return 0.0
-    mean = pd.Series(y[ok]).groupby(codes[ok]).transform("mean").to_numpy()
-    _, phi = long_run_sigma(y[ok] - mean)
-    return float(phi) if math.isfinite(phi) else 0.0
 
 
 # --------------------------------------------------------------------------------------------
@@ -423,7 +424,7 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
             y = np.log(w.measured[inv].to_numpy() / w.expected[inv].to_numpy())
         y = np.where(usable[inv].to_numpy() & np.isfinite(y), y, np.nan)
         y = y - typical_shape(y, w.index, float(np.median(w.interval_s)))
-        fits = day_fits(y, cand.logr, codes, len(days), residual_phi(y, codes))
+        fits = day_fits(y, cand.logr, codes, len(days))
         e = np.where(usable[inv].to_numpy(), w.expected[inv].to_numpy(), 0.0)
         e_day = np.bincount(codes, np.nan_to_num(e), minlength=len(days))
         ratio = np.nan_to_num(np.exp(cand.logr), nan=1.0)
@@ -516,19 +517,26 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     d = day[lo:hi]
     start = _split(y, lr, d == first, d == first - one, onset=True)
     stop = _split(y, lr, d == last, d == last + one, onset=False)
-    lo, hi, tracked, held = lo + start, lo + stop, tracked[start:stop], held[start:stop]
     with np.errstate(invalid="ignore", divide="ignore"):
-        factor = np.where(tracked > 1.0, np.clip(1 - held / tracked, 0.0, 1.0), 0.0)
-    step = w.interval_s.to_numpy()[lo:hi]
+        share = np.where(tracked > 1.0, np.clip(1 - held / tracked, 0.0, 1.0), 0.0)
+    step_all = w.interval_s.to_numpy()[lo:hi]
+    loss_all = np.nan_to_num(e_all[lo:hi]) * share * step_all / 3.6e6
+    # the onset and the end are known to within their days: the share of the edge days
+    # outside the event is a term of the band
+    edge = ((d == first) | (d == last)) & ~((np.arange(hi - lo) >= start)
+                                             & (np.arange(hi - lo) < stop))
+    edge_kwh = float(loss_all[edge].sum())
+    lo, hi, factor = lo + start, lo + stop, share[start:stop]
+    step = step_all[start:stop]
     exp = np.nan_to_num(e_all[lo:hi])
-    e_kwh = float(np.sum(exp * factor * step) / 3.6e6)
+    e_kwh = float(loss_all[start:stop].sum())
     if e_kwh <= 0:
         return None, None
     # the shortfall measured against the inverter's usual performance index
     inside = u[lo:hi] & np.isfinite(m[lo:hi])
     seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
     pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
-    low, high = energy_band(e_kwh, rel_sigma, abs(seen - pred))
+    low, high = energy_band(e_kwh, rel_sigma, math.hypot(seen - pred, edge_kwh))
     kind = "tracker_stall" if fam == "stall" else "tracker_out_of_step"
     in_run = (days >= first) & (days <= last)
     ev = Event(
