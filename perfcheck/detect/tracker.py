@@ -28,8 +28,10 @@ stayed within the pointing tolerance while the designed rotation swept more than
 followed the design by a constant offset beyond the tolerance is an out-of-step day.
 
 The energy is a share of the expected power (ledger class ``share``): 1 - r of the event's
-angle, interval by interval; its band adds to the model error the difference between that
-share and the shortfall measured against the inverter's usual performance index.
+angle, interval by interval (for rows out of step, whose loss is mostly a level, scaled to the
+shortfall measured against the inverter's usual performance index); its band adds to the
+model error the difference between the shape's share and that measured shortfall, and the
+share of the onset and end days left outside the event.
 
 Wind stow: rows laid at their stow angle (``stow_angle_deg``, flat by default) while the wind
 is at or above the tracker array's ``stow_wind_speed_ms`` are designed behaviour. The limit is
@@ -415,8 +417,7 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
     days, codes = np.unique(w.day.to_numpy(), return_inverse=True)
     z = stats.norm.isf(alpha)
     first = next(iter(arrays))
-    events: list[Event] = []
-    prints: list[Footprint] = []
+    found = {}
     for inv, a in arrays.items():
         theta = designed_rotation(w, a)
         cand = candidates(w, a, s, theta)
@@ -425,65 +426,93 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         y = np.where(usable[inv].to_numpy() & np.isfinite(y), y, np.nan)
         y = y - typical_shape(y, w.index, float(np.median(w.interval_s)))
         fits = day_fits(y, cand.logr, codes, len(days))
-        e = np.where(usable[inv].to_numpy(), w.expected[inv].to_numpy(), 0.0)
-        e_day = np.bincount(codes, np.nan_to_num(e), minlength=len(days))
-        ratio = np.nan_to_num(np.exp(cand.logr), nan=1.0)
-        loss_day = np.array([np.bincount(codes, np.nan_to_num(e * (1 - ratio[k])),
-                                         minlength=len(days))
-                             for k in range(len(cand.labels))]).T
-        with np.errstate(invalid="ignore", divide="ignore"):
-            share = loss_day[np.arange(len(days)), fits.best] / e_day
-        seed = {d: cand.labels[fits.best[i]] for i, d in enumerate(days)
-                if fits.p_value[i] < alpha and share[i] > z * rel_sigma}
+        e = np.where(usable[inv].to_numpy(), np.nan_to_num(w.expected[inv].to_numpy()), 0.0)
+        seed = _seed_days(e, cand, fits, codes, days, alpha, z * rel_sigma)
         if inv == first:
             seed.update(angle_days(w, angle, theta))
+        found[inv] = (theta, cand, y, fits, seed)
+    _drop_shared_offsets({inv: f[4] for inv, f in found.items()})
+    events: list[Event] = []
+    prints: list[Footprint] = []
+    for inv, (theta, cand, y, fits, seed) in found.items():
         for lab, first_day, last_day in _group(seed, days, cand, fits):
-            ev, fp = _event(w, inv, a, s, theta, lab, (first_day, last_day), usable, y,
-                            rel_sigma, fits, days, alpha)
+            ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
+                            y, rel_sigma, z, fits, days, alpha)
             if ev is not None:
                 events.append(ev)
                 prints.append(fp)
     return events, prints
 
 
+def _seed_days(e: np.ndarray, cand: Candidates, fits: DayFits, codes: np.ndarray,
+               days: np.ndarray, alpha: float, material: float
+               ) -> dict[np.datetime64, tuple[str, float]]:
+    """The days whose best candidate is significant and explains a share of the day's usable
+    expected energy ``e`` above ``material`` (the one-sided 1 - alpha quantile of the daily
+    model error)."""
+    out = {}
+    for i in np.flatnonzero(fits.p_value < alpha):
+        rows = codes == i
+        ratio = np.nan_to_num(np.exp(cand.logr[fits.best[i], rows]), nan=1.0)
+        total = float(np.sum(e[rows]))
+        if total > 0 and float(np.sum(e[rows] * (1 - ratio))) > material * total:
+            out[days[i]] = cand.labels[fits.best[i]]
+    return out
+
+
+def _drop_shared_offsets(seeds: dict[str, dict]) -> None:
+    """Rows out of step are one inverter's rows unlike their neighbours': an offset day that
+    more than half of the tracker inverters share is the sky's or the model's, not theirs."""
+    if len(seeds) < 2:
+        return
+    count: dict = {}
+    for seed in seeds.values():
+        for d, (fam, _) in seed.items():
+            if fam == "step":
+                count[d] = count.get(d, 0) + 1
+    for seed in seeds.values():
+        for d in [d for d, (fam, _) in seed.items() if fam == "step"
+                  and count[d] > len(seeds) / 2]:
+            del seed[d]
+
+
 def _group(seed: dict, days: np.ndarray, cand: Candidates, fits: DayFits
            ) -> list[tuple[tuple[str, float], np.datetime64, np.datetime64]]:
-    """Runs of seed days of one family and angle (within a step), joined over and extended by
-    the days the run's candidate fits better than tracking (or that have no test)."""
-    out = []
+    """Runs of seed days of one family, joined over the days between them that the run's
+    candidate fits better than tracking (or that have no test), or single odd days, and
+    extended by such days on either side; no day in two runs. The run's angle (or offset) is
+    the median of its seed days' (a day only partly stalled fits an angle between)."""
+    out: list = []
+    used = np.zeros(len(days), dtype=bool)
     pos = {d: i for i, d in enumerate(days)}
-    order = sorted(seed)
-    used: set = set()
-    for d in order:
-        if d in used:
+    for d in sorted(seed):
+        if used[pos[d]]:
             continue
         fam, val = seed[d]
         k = _nearest(cand, fam, val)
 
         def fits_day(i: int, k: int = k) -> bool:
-            return fits.n[i] == 0 or fits.sse_all[i, k] < fits.sse0[i]
+            return not used[i] and (fits.n[i] == 0 or fits.sse_all[i, k] < fits.sse0[i])
 
-        def same(x: np.datetime64, fam: str = fam, val: float = val) -> bool:
-            return x in seed and seed[x][0] == fam and abs(seed[x][1] - val) <= JOIN_DEG
+        def mine(i: int, fam: str = fam) -> bool:
+            return not used[i] and days[i] in seed and seed[days[i]][0] == fam
 
         i0 = i1 = pos[d]
-        while i1 + 1 < len(days):
-            nxt = days[i1 + 1]
-            bridged = i1 + 2 < len(days) and same(days[i1 + 2])  # one odd day between two
-            if same(nxt) or ((nxt not in seed or bridged) and (fits_day(i1 + 1) or bridged)):
+        while i1 + 1 < len(days) and not used[i1 + 1]:
+            bridged = i1 + 2 < len(days) and mine(i1 + 2)  # one odd day between two
+            if mine(i1 + 1) or (days[i1 + 1] not in seed and fits_day(i1 + 1)) or bridged:
                 i1 += 1
             else:
                 break
         while i0 > 0 and days[i0 - 1] not in seed and fits_day(i0 - 1):
             i0 -= 1
-        # trim the untested days at both ends
-        while i0 < i1 and fits.n[i0] == 0:
+        while i0 < i1 and fits.n[i0] == 0:  # the untested days at the ends are left out
             i0 += 1
         while i1 > i0 and fits.n[i1] == 0:
             i1 -= 1
-        run = [days[i] for i in range(i0, i1 + 1)]
-        vals = [seed[x][1] for x in run if x in seed and seed[x][0] == fam]
-        used.update(run)
+        used[i0:i1 + 1] = True
+        vals = [seed[days[i]][1] for i in range(i0, i1 + 1)
+                if days[i] in seed and seed[days[i]][0] == fam]
         out.append(((fam, float(np.median(vals))), days[i0], days[i1]))
     return out
 
@@ -494,7 +523,7 @@ def _nearest(cand: Candidates, fam: str, val: float) -> int:
 
 def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[str, float],
            span: tuple[np.datetime64, np.datetime64], usable: pd.DataFrame, y_all: np.ndarray,
-           rel_sigma: float, fits: DayFits, days: np.ndarray, alpha: float
+           rel_sigma: float, z: float, fits: DayFits, days: np.ndarray, alpha: float
            ) -> tuple[Event | None, Footprint | None]:
     """The event of one run of days, its energy from the run's angle (or offset)."""
     fam, val = lab
@@ -530,12 +559,17 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     step = step_all[start:stop]
     exp = np.nan_to_num(e_all[lo:hi])
     e_kwh = float(loss_all[start:stop].sum())
-    if e_kwh <= 0:
-        return None, None
+    if not e_kwh > z * rel_sigma * float(np.sum(exp * step) / 3.6e6):
+        return None, None  # within the model's error once the angle is refined
     # the shortfall measured against the inverter's usual performance index
     inside = u[lo:hi] & np.isfinite(m[lo:hi])
     seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
     pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
+    if fam == "step" and seen > 0 and pred > 0:
+        # an offset's loss is mostly a level, which the shape alone places poorly: its share
+        # is scaled to the shortfall measured against the usual performance index
+        factor = np.clip(factor * seen / pred, 0.0, 1.0)
+        e_kwh = float(np.sum(exp * factor * step) / 3.6e6)
     low, high = energy_band(e_kwh, rel_sigma, math.hypot(seen - pred, edge_kwh))
     kind = "tracker_stall" if fam == "stall" else "tracker_out_of_step"
     in_run = (days >= first) & (days <= last)
