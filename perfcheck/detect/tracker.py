@@ -25,7 +25,10 @@ placed within their days by the split that fits best (:func:`_split`). Where a
 ``tracker_angle`` channel is logged (the rows of the first tracker array), a day on which it
 stayed within the pointing tolerance while the designed rotation swept more than
 ``MIN_SWEEP_DEG`` is a stall day of those rows at the channel's angle, and a day on which it
-followed the design by a constant offset beyond the tolerance is an out-of-step day.
+followed the design by a constant offset beyond the tolerance is an out-of-step day. A day
+whose shape more than half of the tracker inverters share is taken as the sky's or the
+model's, not the rows' (rows out of step differ from their neighbours); a plant-wide stall is
+therefore found from the angle channel only.
 
 The energy is a share of the expected power (ledger class ``share``): 1 - r of the event's
 angle, interval by interval (for rows out of step, whose loss is mostly a level, scaled to the
@@ -428,10 +431,9 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         fits = day_fits(y, cand.logr, codes, len(days))
         e = np.where(usable[inv].to_numpy(), np.nan_to_num(w.expected[inv].to_numpy()), 0.0)
         seed = _seed_days(e, cand, fits, codes, days, alpha, z * rel_sigma)
-        if inv == first:
-            seed.update(angle_days(w, angle, theta))
         found[inv] = (theta, cand, y, fits, seed)
-    _drop_shared_offsets({inv: f[4] for inv, f in found.items()})
+    _drop_shared({inv: f[4] for inv, f in found.items()})
+    found[first][4].update(angle_days(w, angle, found[first][0]))
     events: list[Event] = []
     prints: list[Footprint] = []
     for inv, (theta, cand, y, fits, seed) in found.items():
@@ -460,19 +462,18 @@ def _seed_days(e: np.ndarray, cand: Candidates, fits: DayFits, codes: np.ndarray
     return out
 
 
-def _drop_shared_offsets(seeds: dict[str, dict]) -> None:
-    """Rows out of step are one inverter's rows unlike their neighbours': an offset day that
-    more than half of the tracker inverters share is the sky's or the model's, not theirs."""
+def _drop_shared(seeds: dict[str, dict]) -> None:
+    """A stall or an offset is one inverter's rows unlike their neighbours': a day whose shape
+    more than half of the tracker inverters share is the sky's or the model's (a plant-wide
+    stall is found from the ``tracker_angle`` channel)."""
     if len(seeds) < 2:
         return
     count: dict = {}
     for seed in seeds.values():
-        for d, (fam, _) in seed.items():
-            if fam == "step":
-                count[d] = count.get(d, 0) + 1
+        for d in seed:
+            count[d] = count.get(d, 0) + 1
     for seed in seeds.values():
-        for d in [d for d, (fam, _) in seed.items() if fam == "step"
-                  and count[d] > len(seeds) / 2]:
+        for d in [d for d in seed if count[d] > len(seeds) / 2]:
             del seed[d]
 
 
