@@ -16,7 +16,8 @@ months (months that no fault other than degradation touches).
 
 The targets are those of item 2 of the project's issue 11, and of issue 14 for trackers:
 stalls and rows out of step are scored as the other faults, and wind stow (design) reported
-as a fault (a false event of a fault kind overlapping a stow of the truth) is counted apart.
+as a fault (a false event of a fault kind lying mostly in a stow of the truth) is counted
+apart.
 """
 
 from __future__ import annotations
@@ -135,10 +136,17 @@ def score_plant(truth: dict, doc: dict) -> dict[str, Any]:
 
 
 def stow_called_fault(truth: dict, false: list[dict]) -> list[dict]:
-    """The false events (a fault kind, matching no truth fault) that overlap a wind stow of
-    the truth: designed behaviour reported as a fault."""
+    """The false events (a fault kind, matching no truth fault) that lie for at least half
+    their length in the truth's wind stow: designed behaviour reported as a fault."""
     stows = [f for f in truth["faults"] if f["kind"] == "wind_stow"]
-    return [e for e in false if not _kind(e)[1] and any(overlaps(e, f) for f in stows)]
+
+    def inside_s(e: dict) -> float:
+        return sum(max(0.0, (min(ts(e["end"]), ts(f["end"]))
+                             - max(ts(e["start"]), ts(f["start"]))).total_seconds())
+                   for f in stows)
+
+    return [e for e in false if not _kind(e)[1]
+            and inside_s(e) >= 0.5 * (ts(e["end"]) - ts(e["start"])).total_seconds()]
 
 
 # --------------------------------------------------------------------------------------------
