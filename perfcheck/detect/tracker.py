@@ -265,6 +265,8 @@ def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None,
     any_stow = np.zeros(len(w.index), dtype=bool)
     for inv, limit in limits.items():
         on = (wv >= limit) & (s.zenith < 90)
+        if site.model.poa_sensor_on_tracker:  # a sensor on a tracker stows with it
+            on &= ~w.from_sensor[inv].to_numpy()
         pot = potential[inv].to_numpy() * np.where(on, ratio[inv], 1.0)
         exp_old = expected[inv].to_numpy()
         exp_new = np.where(on, np.fmin(exp_old, pot), exp_old)
