@@ -89,10 +89,10 @@ MIN_DAY_INTERVALS = 10  # a day with fewer usable intervals is not tested
 # resolution of the shapes, even where the model is exact (common practice, no source)
 MIN_GAIN_SCALE = 0.05
 METHOD_STALL = ("day shape of the power against the tracked plane and the plane held at each "
-                "angle (F test, Bonferroni over the angles)")
+                "angle (fit gain against the inverter's other days, robust z)")
 METHOD_STEP = ("day shape of the power against the tracked plane and the plane turned by each "
-               "offset (F test, Bonferroni over the offsets)")
-METHOD_STOW = "rows at their stow angle while the wind was at or above the stated stow limit"
+               "offset (fit gain against the inverter's other days, robust z)")
+METHOD_STOW = "rows at their stow angle while the wind was at or above the stow limit"
 
 
 # --------------------------------------------------------------------------------------------
