@@ -363,11 +363,12 @@ def losses(con: duckdb.DuckDBPyConnection, stored: Stored, start: pd.Timestamp,
                 "faults rebuilt from modelled irradiance) less the measured energy (clock "
                 "faults shifted back), over the intervals with both, split by cause: whole "
                 "intervals first (outage, clipping below the rating, curtailment), then shares "
-                "of what is left (degradation beyond the allowance, soiling, shading, lost "
-                "strings) one after another, then the significant rest of each period the "
-                "baseline test flags (underperformance); the remainder is unexplained. "
-                "Clipping at the AC rating is inside the expected series by design and is "
-                "shown apart, not as a loss",
+                "of what is left (degradation beyond the allowance, soiling, shading, "
+                "stalled trackers and rows out of step, lost strings) one after another, then "
+                "the significant rest of each period the baseline test flags "
+                "(underperformance); the remainder is unexplained. Clipping at the AC rating "
+                "and a tracker's wind stow are inside the expected series by design and are "
+                "shown apart, not as losses",
     }
 
 
