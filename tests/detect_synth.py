@@ -195,7 +195,9 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
             "expected_ac_modelled_w": np.minimum(potential_modelled, inv.ac_kw * 1000),
             "potential_ac_modelled_w": potential_modelled,
             "expected_dc_w": potential / 0.96, "poa_wm2": poa_sensor,
-            "poa_modelled_wm2": poa, "poa_source": "sensor", "ghi_wm2": ghi,
+            "poa_modelled_wm2": poa, "ghi_wm2": ghi,
+            # a tracker plant's expected power comes from its GHI (no sensor on a tracker)
+            "poa_source": "sensor" if theta_design is None else "model",
             "clearsky_ghi_wm2": cs["ghi"].to_numpy(), "temp_air_c": temp_air,
             "wind_speed_ms": wind, "temp_module_c": tcell - 3, "temp_cell_c": tcell,
             "rain_mm": rain, "sun_zenith_deg": sp["apparent_zenith"].to_numpy(),

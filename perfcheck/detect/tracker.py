@@ -21,7 +21,10 @@ candidate explains exceeds the one-sided 1 - alpha quantile of the daily model e
 alone, inside the model's error, is not reported). Consecutive such days with one angle (or
 offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
 inside, join it while the event's angle fits them better than tracking; its onset and end are
-placed within their days by the split that fits best (:func:`_split`). Where a
+placed within their days by the split that fits best (:func:`_split`). An event is reported
+when its most significant day is significant over all the inverter's days tested (its p-value
+times their number below alpha, Bonferroni: at most about alpha false events per inverter and
+period), or when the angle channel shows it. Where a
 ``tracker_angle`` channel is logged (the rows of the first tracker array), a day on which it
 stayed within the pointing tolerance while the designed rotation swept more than
 ``MIN_SWEEP_DEG`` is a stall day of those rows at the channel's angle, and a day on which it
@@ -306,13 +309,14 @@ def inferred_limit(w: Wide, inverters: list[str], wind: np.ndarray,
                    ratio: dict[str, np.ndarray], alpha: float) -> float | None:
     """The wind speed above which the rows lie at their stow angle, read from the data.
 
-    The daylight wind speeds are cut at their 90 to 99.9 % quantiles. From the windiest bin
-    down, a bin (and every bin above it) is stow when, on its rows where the stow plane and
+    The daylight wind speeds are cut at their 90 to 99.9 % quantiles. From the windiest
+    quantile down, the rows at or above it are stow once, on those where the stow plane and
     the tracked plane differ by at least ``MIN_SHAPE``, the power is nearer the stow plane's
     than the tracked plane's (each at the inverter's usual level) significantly more often
     than not: one-sided sign test at ``alpha`` (Conover 1999, Practical Nonparametric
-    Statistics, sec. 3.4; from memory). The limit is the lowest such bin's lower edge; None
-    when the windiest bin is not stow.
+    Statistics, sec. 3.4; from memory). Below that, each lower bin joins while most of its
+    rows are nearer the stow plane (the median rule). The limit is the lowest edge reached;
+    None when no quantile's rows are significantly stow.
     """
     sun = w.expected[inverters].ge(w.ac_w[inverters] * 0.2, axis=1).any(axis=1).to_numpy()
     day_wind = wind[sun & np.isfinite(wind)]
@@ -331,9 +335,14 @@ def inferred_limit(w: Wide, inverters: list[str], wind: np.ndarray,
         tested += ok
     limit = None
     for lo, hi in zip(edges[::-1], [np.inf, *edges[::-1][:-1]], strict=True):
-        rows = (wind >= lo) & (wind < hi)
-        n, k = int(tested[rows].sum()), int(nearer[rows].sum())
-        if n < 6 or stats.binom.sf(k - 1, n, 0.5) >= alpha:
+        if limit is None:  # all the rows at or above lo, until they are significantly stow
+            rows = wind >= lo
+            n, k = int(tested[rows].sum()), int(nearer[rows].sum())
+            if n >= 6 and stats.binom.sf(k - 1, n, 0.5) < alpha:
+                limit = float(lo)
+            continue
+        rows = (wind >= lo) & (wind < hi)  # then down, bin by bin, while most rows are stow
+        if not nearer[rows].sum() > 0.5 * tested[rows].sum():
             break
         limit = float(lo)
     return limit
@@ -435,11 +444,17 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         seed = _seed_days(e, cand, fits, codes, days, alpha, z * rel_sigma)
         found[inv] = (theta, cand, y, fits, seed)
     _drop_shared({inv: f[4] for inv, f in found.items()})
-    found[first][4].update(angle_days(w, angle, found[first][0]))
+    channel = angle_days(w, angle, found[first][0])
+    found[first][4].update(channel)
     events: list[Event] = []
     prints: list[Footprint] = []
     for inv, (theta, cand, y, fits, seed) in found.items():
+        tested = max(int(np.isfinite(fits.gain).sum()), 1)
         for lab, first_day, last_day in _group(seed, days, cand, fits):
+            run = (days >= first_day) & (days <= last_day)
+            seen = inv == first and any(first_day <= d <= last_day for d in channel)
+            if not (seen or float(np.min(fits.p_value[run])) * tested < alpha):
+                continue  # an event is significant over the inverter's days (Bonferroni)
             ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
                             y, rel_sigma, z, fits, days, alpha)
             if ev is not None:
