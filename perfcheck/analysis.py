@@ -111,6 +111,15 @@ def current(con: duckdb.DuckDBPyConnection) -> Stored | None:
 # the analysis
 
 
+def tracker_angle(con: duckdb.DuckDBPyConnection) -> pd.Series | None:
+    """The stored ``tracker_angle`` channel [deg] on UTC instants, None when there is none."""
+    df = con.execute(db.sql("tracker_angle")).df()
+    if df.empty:
+        return None
+    index = pd.DatetimeIndex(pd.to_datetime(df["ts"], utc=True))
+    return pd.Series(df["value"].to_numpy(dtype=float), index=index).groupby(level=0).mean()
+
+
 def update(con: duckdb.DuckDBPyConnection, site: Site,
            progress: Callable[[str], None] | None = None) -> Stored:
     """Analyse the whole history unless an analysis of the same inputs is stored; return it.
@@ -128,7 +137,8 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
         raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
                         "files with AC power and run 'perfcheck model' first")
     settings = metrics.load_settings(site)
-    found = detect.analyse(df, site, reported=status.reported(con, site))
+    found = detect.analyse(df, site, reported=status.reported(con, site),
+                           angle=tracker_angle(con))
     if progress:
         progress("detectors")
     ledger: Ledger = found["ledger"]
@@ -404,11 +414,12 @@ def losses(con: duckdb.DuckDBPyConnection, stored: Stored, start: pd.Timestamp,
                 "faults rebuilt from modelled irradiance) less the measured energy (clock "
                 "faults shifted back), over the intervals with both, split by cause: whole "
                 "intervals first (outage, clipping below the rating, curtailment), then shares "
-                "of what is left (degradation beyond the allowance, soiling, shading, lost "
-                "strings) one after another, then the significant rest of each period the "
-                "baseline test flags (underperformance); the remainder is unexplained. "
-                "Clipping at the AC rating is inside the expected series by design and is "
-                "shown apart, not as a loss",
+                "of what is left (degradation beyond the allowance, soiling, shading, "
+                "stalled trackers and rows out of step, lost strings) one after another, then "
+                "the significant rest of each period the baseline test flags "
+                "(underperformance); the remainder is unexplained. Clipping at the AC rating "
+                "and a tracker's wind stow are inside the expected series by design and are "
+                "shown apart, not as losses",
     }
 
 

@@ -12,8 +12,8 @@ Ledger classes (see :mod:`perfcheck.detect.attribution` for the order):
   another to what the causes before it left (degradation beyond the ageing allowance, soiling,
   shading, lost strings).
 - ``residual``: what the detectors leave in a period the baseline test flags.
-- ``design``: inside the expected series by design (clipping at the AC rating); shown with its
-  energy, never counted as a loss.
+- ``design``: inside the expected series by design (clipping at the AC rating, a tracker's
+  wind stow); shown with its energy, never counted as a loss.
 
 Metrics treatment: ``exclude`` (left out of yields, PR, EPI and availability when the
 ``[metrics]`` setting named in ``metrics_setting`` is on), ``model_poa`` (reference yield and
@@ -71,6 +71,14 @@ TABLE: tuple[Kind, ...] = (
          "the loss concentrates at particular sun positions and grew over the months",
          "vegetation or new structures in the direction given, and the horizon profile in the "
          "site file"),
+    Kind("tracker_stall", "tracker stalled", "#a0522d", "share", "none", None,
+         "the day's power followed the shape of a plane held at one angle, not that of the "
+         "tracked plane", "the tracker drive, its controller, inclinometer and power supply, "
+         "and any mechanical block of the rows"),
+    Kind("tracker_out_of_step", "tracker rows out of step", "#cd853f", "share", "none", None,
+         "the rows turned, but by a constant offset from the designed angle, unlike their "
+         "neighbours", "the row controller's angle set-point, its inclinometer calibration and "
+         "its clock"),
     Kind("partial_outage", "partial outage", "#b5553c", "share", "none", None,
          "the output stepped down against both its expected output and its sibling inverters "
          "and stayed down, the pattern of strings or an MPP input dropping out",
@@ -83,6 +91,10 @@ TABLE: tuple[Kind, ...] = (
          None, "the power sat on a plateau at the inverter's AC rating while the unlimited model "
          "was above it; with the site's DC/AC ratio this is expected by design",
          "nothing: the expected series already stops at the rating"),
+    Kind("wind_stow", "wind stow (by design)", "#9bb7d4", "design", "none", None,
+         "the rows lay at their stow angle while the wind was above the stow limit, as the "
+         "tracker is designed to do", "nothing, unless stow lasted longer than the wind: then "
+         "the controller's stow limit and its anemometer"),
 )
 
 BY_NAME: dict[str, Kind] = {k.name: k for k in TABLE}

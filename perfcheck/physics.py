@@ -602,6 +602,44 @@ def singleaxis(solpos: pd.DataFrame, axis_tilt: float, axis_azimuth: float, max_
                          "surface_azimuth": plane["surface_azimuth"]}, index=solpos.index)
 
 
+def poa_at_rotation(tracker_theta: float | np.ndarray, axis_tilt: float, axis_azimuth: float,
+                    solar_zenith: np.ndarray, solar_azimuth: np.ndarray, ghi: np.ndarray,
+                    dni: np.ndarray, dhi: np.ndarray, dni_extra: np.ndarray,
+                    albedo: float = 0.2) -> np.ndarray:
+    """Plane-of-array global irradiance of a single-axis tracker's rows held at a rotation
+    [W/m^2] (a stalled or stowed row, or one turned by an offset).
+
+    The plane of the rotation (Marion & Dobos 2013, pvlib ``calc_surface_orientation``),
+    transposed by Hay & Davies: beam, the anisotropic sky diffuse and ground reflection.
+    0 where the sun is down; NaN passes through.
+
+    Parameters
+    ----------
+    tracker_theta : float or numpy.ndarray
+        Rotation from flat [deg], positive toward the west for a north-south axis.
+    axis_tilt, axis_azimuth : float
+        The tracker axis [deg].
+    solar_zenith, solar_azimuth : numpy.ndarray
+        [deg].
+    ghi, dni, dhi, dni_extra : numpy.ndarray
+        [W/m^2].
+    albedo : float
+        Ground reflectance [-].
+
+    References
+    ----------
+    Marion, W. F., Dobos, A. P. (2013), NREL/TP-6A20-58891, eqs. 1-7 (the plane of a
+    rotation). Hay, J. E., Davies, J. A. (1980), Calculation of the solar radiation incident on
+    an inclined surface, Proc. First Canadian Solar Radiation Data Workshop, 59-72.
+    """
+    plane = pvlib.tracking.calc_surface_orientation(tracker_theta, axis_tilt, axis_azimuth)
+    up = np.asarray(solar_zenith) < 90.0
+    irr = pvlib.irradiance.get_total_irradiance(
+        plane["surface_tilt"], plane["surface_azimuth"], np.where(up, solar_zenith, 90.0),
+        solar_azimuth, dni, ghi, dhi, dni_extra=dni_extra, albedo=albedo, model="haydavies")
+    return np.where(up, np.asarray(irr["poa_global"], dtype=float), 0.0)
+
+
 # Share of the rear irradiance blocked by the mounting structure: pvlib's default for the
 # infinite-sheds model (common practice; no published source at hand).
 REAR_SHADE_FACTOR = -0.02

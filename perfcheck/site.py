@@ -70,6 +70,9 @@ class Tracker:
     axis_azimuth_deg: float  # compass direction of the axis, clockwise from north
     max_angle_deg: float  # largest rotation either way from flat
     backtrack: bool  # turn back at low sun so the rows do not shade one another
+    stow_wind_speed_ms: float | None = None  # the rows go to stow at this wind speed (None:
+    # not stated; the detector infers it)
+    stow_angle_deg: float = 0.0  # rotation of the rows in stow (0: flat)
 
 
 @dataclass(frozen=True)
@@ -465,6 +468,8 @@ def _tracker(t: Table) -> Tracker:
         axis_azimuth_deg=t.number("axis_azimuth_deg", 180.0, lo=0, hi=360),
         max_angle_deg=t.number("max_angle_deg", 60.0, lo=1, hi=90),
         backtrack=t.get("backtrack", bool, True),
+        stow_wind_speed_ms=t.number("stow_wind_speed_ms", None, lo=1, hi=60),
+        stow_angle_deg=t.number("stow_angle_deg", 0.0, lo=-90, hi=90),
     )
 
 

@@ -19,17 +19,23 @@ from perfcheck.site import Site, parse_site
 LAT, LON, TZ = 46.2, 7.3, "Europe/Zurich"
 
 
+TRACKER = {"tracking": "single_axis", "axis_tilt_deg": 0.0, "axis_azimuth_deg": 180.0,
+           "max_angle_deg": 55.0, "backtrack": True, "gcr": 0.35}
+
+
 def make_site(n_inverters: int = 3, ac_kw: float = 10.0, dc_kwp: float = 12.0,
               strings: int = 4, export_limit_kw: float | None = None,
-              detect: dict | None = None) -> Site:
+              detect: dict | None = None, tracker: dict | None = None) -> Site:
+    """``tracker``: the keys of a single-axis tracker array (e.g. :data:`TRACKER`) for every
+    array instead of the fixed 30 deg south plane."""
+    plane = tracker or {"tilt_deg": 30.0, "azimuth_deg": 180.0}
     raw = {
         "site": {"name": "Synthetic Test Field", "latitude_deg": LAT, "longitude_deg": LON,
                  "altitude_m": 500.0, "timezone": TZ, "commissioned": pd.Timestamp(
                      "2024-01-01").date()},
         "inverters": [
             {"id": f"INV{i + 1}", "ac_kw": ac_kw, "arrays": [
-                {"dc_kwp": dc_kwp, "tilt_deg": 30.0, "azimuth_deg": 180.0,
-                 "gamma_pct_per_c": -0.37, "strings": strings}]}
+                {"dc_kwp": dc_kwp, **plane, "gamma_pct_per_c": -0.37, "strings": strings}]}
             for i in range(n_inverters)
         ],
         "losses": {"degradation_pct_per_year": 0.0},
@@ -60,6 +66,10 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
     - ``{"kind": "clock", "start": ts, "end": ts, "minutes": 40}`` (measured labelled late)
     - ``{"kind": "shading", "inverter": id, "azimuth": (a0, a1), "elevation_start": e0,
       "elevation_end": e1}`` (an obstruction whose top grows linearly over the period)
+    - tracker sites: ``{"kind": "stall", "inverter": id, "start": ts, "end": ts, "angle": a}``
+      (rows held at ``a`` deg), ``{"kind": "step", ..., "offset": d}`` (rows turned ``d`` deg
+      off the design), ``{"kind": "wind", "start": ts, "end": ts, "speed": v}`` (wind logged
+      at ``v`` m/s; the rows stow flat where it reaches the array's ``stow_wind_speed_ms``)
     """
     rng = np.random.default_rng(seed)
     faults = faults or []
@@ -82,13 +92,32 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
     dni = cs["dni"].to_numpy() * np.clip((kt - 0.3) / 0.7, 0, 1)
     erbs = {"dni": dni, "dhi": np.maximum(ghi - dni * cosz, 0)}
     arr = site.inverters[0].arrays[0]
-    poa = pvlib.irradiance.get_total_irradiance(
-        arr.tilt_deg, arr.azimuth_deg, sp["apparent_zenith"], sp["azimuth"], erbs["dni"],
-        ghi, erbs["dhi"], albedo=0.2)["poa_global"].fillna(0).to_numpy()
+
+    def poa_of(theta: np.ndarray | None) -> np.ndarray:
+        if theta is None:
+            tilt, az = arr.tilt_deg, arr.azimuth_deg
+        else:
+            plane = pvlib.tracking.calc_surface_orientation(theta, 0.0, arr.azimuth_deg)
+            tilt, az = plane["surface_tilt"], plane["surface_azimuth"]
+        return pvlib.irradiance.get_total_irradiance(
+            tilt, az, sp["apparent_zenith"], sp["azimuth"], erbs["dni"], ghi, erbs["dhi"],
+            albedo=0.2)["poa_global"].fillna(0).to_numpy()
+
+    theta_design = None
+    if arr.tracker is not None:
+        t = arr.tracker
+        theta_design = pvlib.tracking.singleaxis(
+            sp["apparent_zenith"], sp["azimuth"], t.axis_tilt_deg, t.axis_azimuth_deg,
+            t.max_angle_deg, t.backtrack, arr.gcr)["tracker_theta"].fillna(0.0).to_numpy()
+    poa = poa_of(theta_design)
     doy = idx.day_of_year.to_numpy()
     temp_air = 12 + 8 * np.sin(2 * np.pi * (doy - 110) / 365) + 5 * np.sin(
         2 * np.pi * (idx.hour.to_numpy() - 9) / 24)
     wind = np.full(len(idx), 2.0)
+    for f in faults:
+        if f["kind"] == "wind":
+            s0, e0 = (pd.Timestamp(f[k], tz=TZ) for k in ("start", "end"))
+            wind[(idx >= s0) & (idx < e0)] = f["speed"]
     tcell = pvlib.temperature.sapm_cell(poa, temp_air, wind, -3.56, -0.075, 3)
     years = ((idx - pd.Timestamp(site.commissioned, tz="UTC")).total_seconds() / 3.15576e7
              ).to_numpy()
@@ -144,7 +173,8 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
                 shaded = (az >= a0) & (az <= a1) & (elev < top)
                 beam_share = np.clip(1 - erbs["dhi"] / np.maximum(ghi, 1), 0, 1)
                 beam_factor[shaded] = 1 - 0.9 * beam_share[shaded]
-        g_true = poa * true_factor * beam_factor
+        g_true = _tracker_poa(faults, inv.id, arr, theta_design, wind, window, poa_of, poa) \
+            * true_factor * beam_factor
         measured = np.minimum(ac_of(g_true), inv.ac_kw * 1000)
         measured = measured * (1 + noise * rng.standard_normal(len(idx)))
         for f in faults:
@@ -165,10 +195,31 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
             "expected_ac_modelled_w": np.minimum(potential_modelled, inv.ac_kw * 1000),
             "potential_ac_modelled_w": potential_modelled,
             "expected_dc_w": potential / 0.96, "poa_wm2": poa_sensor,
-            "poa_modelled_wm2": poa, "poa_source": "sensor", "ghi_wm2": ghi,
+            "poa_modelled_wm2": poa, "ghi_wm2": ghi,
+            # a tracker plant's expected power comes from its GHI (no sensor on a tracker)
+            "poa_source": "sensor" if theta_design is None else "model",
             "clearsky_ghi_wm2": cs["ghi"].to_numpy(), "temp_air_c": temp_air,
             "wind_speed_ms": wind, "temp_module_c": tcell - 3, "temp_cell_c": tcell,
             "rain_mm": rain, "sun_zenith_deg": sp["apparent_zenith"].to_numpy(),
             "sun_azimuth_deg": sp["azimuth"].to_numpy(), "flags": "",
         }))
     return pd.concat(rows, ignore_index=True)
+
+
+def _tracker_poa(faults: list[dict], inv_id: str, arr, theta: np.ndarray | None,
+                 wind: np.ndarray, window, poa_of, poa: np.ndarray) -> np.ndarray:
+    """The plane irradiance the rows of one inverter really got: stalled, out of step, or
+    stowed flat in high wind (a fixed array: ``poa``)."""
+    if theta is None:
+        return poa
+    true = theta.copy()
+    lim = arr.tracker.max_angle_deg
+    for f in faults:
+        if f["kind"] == "stall" and f["inverter"] == inv_id:
+            true[window(f)] = f["angle"]
+        elif f["kind"] == "step" and f["inverter"] == inv_id:
+            m = window(f)
+            true[m] = np.clip(true[m] + f["offset"], -lim, lim)
+    if arr.tracker.stow_wind_speed_ms is not None:
+        true[wind >= arr.tracker.stow_wind_speed_ms] = arr.tracker.stow_angle_deg
+    return poa if np.array_equal(true, theta) else poa_of(true)

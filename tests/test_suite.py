@@ -115,7 +115,7 @@ def test_scorer_judges_the_sample(suite: tuple[Path, list[dict]], capsys) -> Non
     injected = sum(len(p["faults"]) for p in plants)
     assert injected >= 3 * (len(SAMPLE) - 1)
     names = [t.name for t in score.targets(plants)]
-    assert len(names) == 15
+    assert len(names) == 17
     report = score.format_report(plants)
     assert all(n in report for n in names)
     assert np.isfinite([m["pr_error_pct"] for p in plants for m in p["pr"]]).all()

@@ -135,3 +135,32 @@ def test_targets_and_table(scored: dict) -> None:
     assert table["outage"]["false_fault_free"] == 2
     text = score.format_report(plants)
     assert "FAIL  faults found with the right kind and scope (>= 90 %): 3/4" in text
+
+
+def test_tracker_stall_scored_and_stow_called_fault_counted() -> None:
+    # invented truth: a stall of wr1 for two days and a wind stow (design) on 1 June; the
+    # check finds the stall 6 h late with 10 % more energy, shows the stow as wind_stow and
+    # also calls the stow hours an outage of wr2
+    truth = {"scenario": {"suite_plant": 23}, "monthly": [], "faults": [
+        _fault("tracker_stall", "inverter:wr1", "2023-05-10T08:00:00-04:00",
+               "2023-05-12T08:00:00-04:00", 40.0, mode="stall", angle_deg=20.0),
+        {**_fault("wind_stow", "plant", "2023-06-01T10:00:00-04:00",
+                  "2023-06-01T14:00:00-04:00", 8.0), "design": True}]}
+    doc = {"events": [
+        _event("tracker_stall", "inverter:wr1", "2023-05-10T14:00:00-04:00",
+               "2023-05-12T08:00:00-04:00", 44.0, 38.0, 50.0, angle_deg=21.0),
+        _event("wind_stow", "plant", "2023-06-01T10:00:00-04:00", "2023-06-01T14:00:00-04:00",
+               7.5, 7.5, 7.5, design=True),
+        _event("outage", "inverter:wr2", "2023-06-01T11:00:00-04:00",
+               "2023-06-01T13:00:00-04:00", 3.0, 2.0, 4.0)],
+        "metrics": {"monthly": []}}
+    r = score.score_plant(truth, doc)
+    row = r["faults"][0]
+    assert (row["kind"], row["found"], row["covered"]) == ("tracker_stall", True, True)
+    assert row["window_error_days"] == pytest.approx(0.25)
+    assert row["energy_error_pct"] == pytest.approx(10.0)
+    assert [e["kind"] for e in r["false_events"]] == ["outage"]
+    assert [e["kind"] for e in r["stow_called_fault"]] == ["outage"]
+    verdicts = {t.name: t for t in score.targets([r])}
+    assert verdicts["wind stow never reported as a fault"].passed is False
+    assert verdicts["tracker stalls and rows out of step found (>= 90 %)"].passed is True

@@ -6,9 +6,11 @@ and the degradation block; :mod:`perfcheck.analysis` stores them and every view 
 
 Order of the work (each step sees the corrections of the steps before):
 clock faults (readings shifted back) -> sensor faults (the expected power of the sensor-fed
-inverters rebuilt from modelled POA where the sensor is suspect) -> outages -> clipping ->
-curtailment -> partial outages -> shading -> soiling -> degradation -> baseline regression and
-CUSUM -> ledger (:mod:`perfcheck.detect.attribution` documents the order of the losses).
+inverters rebuilt from modelled POA where the sensor is suspect) -> wind stow of trackers (in
+the expected series by design) -> outages -> clipping -> curtailment -> tracker stalls and
+rows out of step -> partial outages -> shading -> soiling -> degradation -> baseline
+regression and CUSUM -> ledger (:mod:`perfcheck.detect.attribution` documents the order of
+the losses).
 
 Settings (optional ``[detect]`` table of the site file):
 
@@ -44,6 +46,7 @@ from perfcheck.detect import (
     sensor,
     shading,
     soiling,
+    tracker,
 )
 from perfcheck.detect.common import (
     MODEL_FLOOR,
@@ -58,7 +61,7 @@ from perfcheck.detect.common import (
     robust_sigma,
     wide,
 )
-from perfcheck.model import sensor_plane
+from perfcheck.model import orientation, sensor_orientation
 from perfcheck.site import DEVICE_QUANTITIES, Site, Table
 
 
@@ -96,9 +99,19 @@ def load_settings(site: Site) -> Settings:
     return s
 
 
-def _planes(site: Site) -> dict[str, list[tuple[float, float, float]]]:
-    return {inv.id: [(a.tilt_deg, a.azimuth_deg, a.dc_kwp / inv.dc_kwp) for a in inv.arrays]
-            for inv in site.inverters}
+def _planes(site: Site, w: Wide) -> dict[str, list[tuple[Any, Any, float]]]:
+    """Each inverter's planes (tilt, azimuth: constants, or arrays for a tracker) and the
+    sensor's, with their weights, on the rows of ``w``."""
+    sun = pd.DataFrame({"apparent_zenith": w.zenith, "azimuth": w.azimuth}, index=w.index)
+
+    def plane(tilt: Any, azimuth: Any) -> tuple[Any, Any]:
+        return tuple(np.asarray(v, dtype=float) if isinstance(v, pd.Series) else v
+                     for v in (tilt, azimuth))
+
+    out = {inv.id: [(*plane(*orientation(a, sun)), a.dc_kwp / inv.dc_kwp) for a in inv.arrays]
+           for inv in site.inverters}
+    out["_sensor"] = [(*plane(*sensor_orientation(site, sun)), 1.0)]
+    return out
 
 
 def _model_sigma(w: Wide, valid: pd.DataFrame) -> float:
@@ -112,9 +125,11 @@ def _model_sigma(w: Wide, valid: pd.DataFrame) -> float:
 
 def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
             timings: dict[str, float] | None = None,
-            reported: pd.DataFrame | None = None) -> dict[str, Any]:
+            reported: pd.DataFrame | None = None,
+            angle: pd.Series | None = None) -> dict[str, Any]:
     """Run every detector over aligned rows; pure (no database). ``reported``: the states the
-    status channels reported (:func:`perfcheck.status.reported`), if any.
+    status channels reported (:func:`perfcheck.status.reported`), if any; ``angle``: the
+    ``tracker_angle`` channel [deg] on UTC interval starts, if any.
 
     Returns ``{"events": [Event], "ledger": Ledger, "degradation": {...}, "model": {...},
     "suspect_windows": [...], "clock_shifts": [...], "footprints": [...], "wide": Wide}``
@@ -133,8 +148,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
-    planes = _planes(site)
-    planes["_sensor"] = [(*sensor_plane(site), 1.0)]
+    planes = _planes(site, w0)
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
     clear = clear_days(w0, cs[w0.inverters])
     t = lap("prepare", t)
@@ -151,6 +165,10 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
     t = lap("sensor", t)
+    sky = tracker.sky(w) if tracker.tracker_arrays(site) else None
+    w, stowed, design_stow = tracker.stow(w, site, _site_series(df, "wind_speed_ms", w), sky,
+                                          st.alpha)
+    events += stowed
 
     valid = daylight(w) & ~w.flagged & w.expected.notna()
     rel_sigma = _model_sigma(w, valid)
@@ -159,6 +177,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     events += ev
     t = lap("outage", t)
     ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask)
+    design.update(design_stow)
     events += ev
     t = lap("clipping", t)
     ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask)
@@ -167,9 +186,15 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     excluded = out_mask | clip_mask | curt_mask
     unclipped = w.potential.lt(w.ac_w * 0.98, axis=1)
     usable = valid & ~excluded & unclipped & w.expected.ge(w.ac_w * 0.2, axis=1)
-    strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
-    ev, prints = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha)
+    ev, prints = tracker.detect(w, site, usable, rel_sigma, st.alpha, angle, sky)
     events += ev
+    for fp in prints:  # the rows of a stall are no partial outage's
+        usable.iloc[fp.lo:fp.hi, usable.columns.get_indexer(fp.cols)] = False
+    t = lap("tracker", t)
+    strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
+    ev, fp = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha)
+    events += ev
+    prints += fp
     t = lap("partial", t)
     meas_fixed = _undo(w, prints)
     w_fixed = dataclasses.replace(w, measured=meas_fixed)
@@ -221,6 +246,16 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     return {"events": events, "ledger": ledger, "degradation": block, "model": model,
             "suspect_windows": suspects, "clock_shifts": shifts, "footprints": prints,
             "wide": w}
+
+
+def _site_series(df: pd.DataFrame, column: str, w: Wide) -> pd.Series | None:
+    """A site-wide column of the aligned rows on the wide index (None when absent)."""
+    if column not in df:
+        return None
+    first = df.drop_duplicates("ts")
+    values = pd.to_numeric(first[column], errors="coerce").to_numpy(dtype=float)
+    return pd.Series(values, index=pd.DatetimeIndex(first["ts"]).tz_convert("UTC")
+                     ).reindex(w.index)
 
 
 def _in_windows(index: pd.DatetimeIndex, windows: list[tuple[pd.Timestamp, pd.Timestamp]]

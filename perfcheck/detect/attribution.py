@@ -11,7 +11,8 @@ both, the shortfall is split in this order (each step works on what the steps be
    rating), ``curtailment``: the whole shortfall of each interval an event of that kind covers.
 2. Shares of the remaining intervals' expected power (class ``share``), one after another:
    ``degradation`` (beyond the site file's ageing allowance), ``soiling``, ``shading``,
-   ``partial_outage``: loss = share x (expected less the losses of the shares before it).
+   ``tracker_stall``, ``tracker_out_of_step``, ``partial_outage``: loss = share x (expected
+   less the losses of the shares before it).
 3. ``underperformance`` (class ``residual``): in each period flagged by the baseline CUSUM, what
    steps 1-2 leave, when it is significant: above 3 times the daily relative model error (at
    least 1 %) times the period's expected energy (model errors taken as fully correlated over

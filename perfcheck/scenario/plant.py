@@ -26,6 +26,7 @@ A. P. Dobos, 2014, NREL/TP-6A20-62641 (report number from memory).
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -90,6 +91,8 @@ def sky_view_ratio(tilt: float, azimuth: float, horizon: tuple, band_deg: float 
     B. Y. H. Liu, R. C. Jordan, 1963, Solar Energy 7(2):53-74.
     R. Perez et al., 1987, Solar Energy 39(3):221-231 (horizon band; from memory).
     """
+    if not horizon:  # a flat horizon hides nothing (and the plane may move: a tracker)
+        return 1.0
     phi = np.arange(step_deg / 2, 360.0, step_deg)
     h = np.radians(np.clip(horizon_elevation(phi, horizon), 0.0, 90.0))
     a = np.sin(np.radians(tilt)) * np.cos(np.radians(phi - azimuth))
@@ -135,11 +138,29 @@ def array_irradiance(
     ground = np.asarray(pvlib.irradiance.get_ground_diffuse(tilt, w.ghi, albedo), dtype=float)
     beam_iam, name, params = iam
     iam_beam = np.nan_to_num(beam_iam(aoi))
-    iam_d = pvlib.iam.marion_diffuse(name, tilt, **params)
+    iam_d = marion_diffuse(name, tilt, params)
     poa_global = beam + circ + iso + band + ground
     poa_eff = ((beam + circ) * iam_beam + iso * iam_d["sky"] + band * iam_d["horizon"]
                + ground * iam_d["ground"])
     return poa_global, np.maximum(poa_eff, 0.0)
+
+
+def marion_diffuse(name: str, tilt: float | np.ndarray, params: dict) -> dict:
+    """pvlib's Marion diffuse IAMs (sky, horizon, ground) for a plane, or for a moving plane (a
+    tracker) interpolated in a table over 0-90 deg every 0.5 deg, integrated once per model
+    (the integral of every tilt of a year at once would take gigabytes)."""
+    if np.ndim(tilt) == 0:
+        return pvlib.iam.marion_diffuse(name, tilt, **params)
+    grid, table = _marion_table(name, tuple(sorted(params.items())))
+    t = np.asarray(tilt, dtype=float)
+    return {k: np.interp(t, grid, v) for k, v in table.items()}
+
+
+@functools.lru_cache(maxsize=8)
+def _marion_table(name: str, params: tuple) -> tuple[np.ndarray, dict]:
+    grid = np.arange(0.0, 90.25, 0.5)
+    d = pvlib.iam.marion_diffuse(name, grid, **dict(params))
+    return grid, {k: np.asarray(v, dtype=float) for k, v in d.items()}
 
 
 def dobos_ac(pdc: np.ndarray, pdc0: float, eta_nom: float) -> np.ndarray:

@@ -62,7 +62,8 @@ def main(argv: list[str] | None = None) -> int:
     """``python -m perfcheck.scenario.suite --plants 20 --out DIR [--seed N] [--only 0,5]``."""
     parser = argparse.ArgumentParser(prog="python -m perfcheck.scenario.suite",
                                      description="Generate, analyse and score the suite.")
-    parser.add_argument("--plants", type=int, default=22, help="number of plants (22)")
+    parser.add_argument("--plants", type=int, default=28,
+                        help="number of plants (28: 22 with fixed planes, 6 on trackers)")
     parser.add_argument("--out", type=Path, required=True, help="folder for the plants")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED, help="suite seed")
     parser.add_argument("--only", default=None, help="comma-separated plant indices")

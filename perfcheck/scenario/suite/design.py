@@ -5,6 +5,11 @@ suite is the same plants as the full suite. Every fifth plant (i = 2, 7, 12, ...
 fault-free; the others take three fault kinds from a shuffled deck of :data:`FAULT_KINDS`, so
 every kind appears about equally often; time and size of each fault are drawn at random.
 Plants with degradation run two calendar years, the others one.
+
+Plants from index :data:`TRACKER_FROM` on sit on horizontal single-axis trackers (half of them
+bifacial), added after the fixed plants so that those keep their draw. They stow in high wind
+(a design limit that their site file states or leaves to be inferred) and take a stalled
+tracker and two more kinds from :data:`TRACKER_FAULTS`; every fifth is fault-free as above.
 """
 
 from __future__ import annotations
@@ -28,6 +33,9 @@ from perfcheck.scenario.suite.climate import CLIMATES
 
 FAULT_KINDS = ("outage", "partial_outage", "clipping", "curtailment", "soiling", "shading",
                "degradation", "sensor_fault", "clock_fault")
+TRACKER_FROM = 22  # plants from this index on are tracker plants (issue 14)
+TRACKER_FAULTS = ("tracker_out_of_step", "outage", "partial_outage", "curtailment", "soiling",
+                  "clipping")
 FAULTS_PER_PLANT = 3
 FAULT_FREE_EVERY = 5  # plant i is fault-free when i % 5 == 2
 LEAD_DAYS = 45  # no fault in the first days: the detectors' reference window (common practice)
@@ -77,6 +85,33 @@ class Derate:
 
 
 @dataclass(frozen=True)
+class TrackerSpec:
+    """Horizontal single-axis trackers (north-south axis) of a tracker plant, and their truth."""
+
+    max_angle_deg: float
+    gcr: float
+    backtrack: bool
+    bifaciality: float | None  # None: monofacial
+    row_height_m: float
+    row_pitch_m: float
+    stow_quantile: float  # the stow limit is this quantile of the daylight wind speed
+    stow_stated: bool  # the site file states the limit (else the detector infers it)
+    rear_shade: float  # truth: share of the rear irradiance the structure blocks
+    angle_channel: bool  # the logger records the first inverter's tracker angle
+
+
+@dataclass(frozen=True)
+class TrackerFault:
+    """Rows of one inverter stalled at an angle, or turning by a constant offset."""
+
+    inverter: str
+    start: str
+    end: str
+    mode: str  # "stall" | "step"
+    angle_deg: float  # the stall angle, or the offset
+
+
+@dataclass(frozen=True)
 class PlantSpec:
     index: int
     name: str
@@ -101,13 +136,19 @@ class PlantSpec:
     sensor: SensorFault | None = None
     clock: ClockShift | None = None
     clock_mode: str = ""  # "offset" | "missed_dst"
+    tracker: TrackerSpec | None = None
+    tracker_faults: tuple[TrackerFault, ...] = ()
     notes: dict = field(default_factory=dict)
 
 
 def fault_kinds(index: int, seed: int) -> tuple[str, ...]:
-    """The fault kinds of plant ``index``: a shuffled deck dealt three at a time."""
+    """The fault kinds of plant ``index``: a shuffled deck dealt three at a time (a tracker
+    plant: a stall and two kinds of :data:`TRACKER_FAULTS`)."""
     if index % FAULT_FREE_EVERY == 2:
         return ()
+    if index >= TRACKER_FROM:
+        pick = np.random.default_rng([seed, 998, index]).choice(TRACKER_FAULTS, 2, replace=False)
+        return ("tracker_stall", *(str(k) for k in pick))
     faulty_before = index - (index + FAULT_FREE_EVERY - 2) // FAULT_FREE_EVERY
     deck_no, pos = divmod(faulty_before * FAULTS_PER_PLANT, len(FAULT_KINDS))
     decks = [np.random.default_rng([seed, 999, k]).permutation(FAULT_KINDS)
@@ -130,7 +171,9 @@ def _inverters(rng: np.random.Generator, design: str) -> tuple[InverterSpec, ...
         ac_kw = float(rng.choice([20.0, 25.0, 30.0, 40.0]))
         ratio = float(rng.uniform(1.05, 1.35))
         strings = int(rng.integers(3, 8))
-        if design == "fixed":
+        if design == "tracker":  # the plane of a north-south axis, flat
+            arrays = (ArraySpec(round(ac_kw * ratio, 1), 0.0, 180.0, strings, gamma),)
+        elif design == "fixed":
             arrays = (ArraySpec(round(ac_kw * ratio, 1), float(rng.integers(15, 36)),
                                 float(rng.integers(160, 201)), strings, gamma),)
         else:  # east-west: each inverter half east, half west
@@ -140,6 +183,17 @@ def _inverters(rng: np.random.Generator, design: str) -> tuple[InverterSpec, ...
                       ArraySpec(half, tilt, az + 180.0, strings, gamma))
         out.append(InverterSpec(f"wr{k + 1}", ac_kw, arrays))
     return tuple(out)
+
+
+def _truth_physics(rng: np.random.Generator, ids: list[str]) -> TruthPhysics:
+    physics = TruthPhysics(
+        iam=str(rng.choice(["ashrae", "martin_ruiz"])),
+        iam_parameter=0.0, spectral_module=str(rng.choice(SPECTRAL_MODULES)),
+        adr_k_d=float(rng.uniform(-6.5, -5.2)), adr_k_rs=float(rng.uniform(0.02, 0.08)),
+        adr_k_rsh=float(rng.uniform(0.05, 0.2)), thermal_tau_s=float(rng.uniform(300, 600)),
+        mismatch_pct={i: round(float(rng.uniform(0.5, 3.0)), 2) for i in ids})
+    return TruthPhysics(**{**physics.__dict__, "iam_parameter": round(float(
+        rng.uniform(0.04, 0.07) if physics.iam == "ashrae" else rng.uniform(0.14, 0.20)), 3)})
 
 
 def _day(start: dt.date, days: int, rng: np.random.Generator, length: int) -> dt.date:
@@ -161,6 +215,8 @@ def dst_changes(tz: str, start: dt.date, days: int) -> list[dt.date]:
 
 def draw_plant(index: int, seed: int) -> PlantSpec:
     """Plant ``index`` of the suite with this seed."""
+    if index >= TRACKER_FROM:
+        return _draw_tracker_plant(index, seed)
     rng = np.random.default_rng([seed, index])
     kinds = fault_kinds(index, seed)
     clim = CLIMATES[index % len(CLIMATES)]
@@ -171,20 +227,21 @@ def draw_plant(index: int, seed: int) -> PlantSpec:
     days = (start.replace(year=start.year + (2 if degraded else 1)) - start).days
     invs = _inverters(rng, design)
     ids = [inv.id for inv in invs]
-    physics = TruthPhysics(
-        iam=str(rng.choice(["ashrae", "martin_ruiz"])),
-        iam_parameter=0.0, spectral_module=str(rng.choice(SPECTRAL_MODULES)),
-        adr_k_d=float(rng.uniform(-6.5, -5.2)), adr_k_rs=float(rng.uniform(0.02, 0.08)),
-        adr_k_rsh=float(rng.uniform(0.05, 0.2)), thermal_tau_s=float(rng.uniform(300, 600)),
-        mismatch_pct={i: round(float(rng.uniform(0.5, 3.0)), 2) for i in ids})
-    physics = TruthPhysics(**{**physics.__dict__, "iam_parameter": round(float(
-        rng.uniform(0.04, 0.07) if physics.iam == "ashrae" else rng.uniform(0.14, 0.20)), 3)})
+    physics = _truth_physics(rng, ids)
     has_poa = "sensor_fault" in kinds or rng.random() < 0.7
     spec = dict(
         index=index, name=f"Suite plant {index:02d} ({clim.key})", climate=clim.key,
         design=design, start=start, days=days, interval_min=interval, inverters=invs,
         has_poa=has_poa, has_ghi=not has_poa or rng.random() < 0.5,
         csv_style=str(rng.choice(["comma", "semicolon"])), physics=physics, kinds=kinds)
+    _draw_faults(spec, rng, kinds, invs, start, days, clim.timezone)
+    return PlantSpec(**spec)
+
+
+def _draw_faults(spec: dict, rng: np.random.Generator, kinds: tuple[str, ...],
+                 invs: tuple[InverterSpec, ...], start: dt.date, days: int, tz: str) -> None:
+    """Each fault kind's time and size, drawn in the order of ``kinds`` into ``spec``."""
+    ids = [inv.id for inv in invs]
     target = str(rng.choice(ids))
     ac_total = sum(inv.ac_kw for inv in invs)
     for kind in kinds:
@@ -243,7 +300,7 @@ def draw_plant(index: int, seed: int) -> PlantSpec:
                 _t(d, hour), _t(d + dt.timedelta(days=length), hour), mode,
                 1.0 if mode == "stuck" else round(1 + sign * float(rng.uniform(0.03, 0.06)), 3))
         elif kind == "clock_fault":
-            changes = dst_changes(clim.timezone, start + dt.timedelta(days=LEAD_DAYS),
+            changes = dst_changes(tz, start + dt.timedelta(days=LEAD_DAYS),
                                   days - LEAD_DAYS - 25)
             if changes and rng.random() < 0.5:
                 d = changes[int(rng.integers(0, len(changes)))]
@@ -259,4 +316,46 @@ def draw_plant(index: int, seed: int) -> PlantSpec:
                 spec["clock"] = ClockShift(_t(d, 3), _t(d + dt.timedelta(days=length), 3),
                                            int(rng.choice([-1, 1]) * rng.integers(30, 121)))
                 spec["clock_mode"] = "offset"
+        elif kind in ("tracker_stall", "tracker_out_of_step"):
+            stall = kind == "tracker_stall"
+            length = int(rng.integers(2, 21) if stall else rng.integers(5, 31))
+            d = _day(start, days, rng, length)
+            lim = spec["tracker"].max_angle_deg
+            angle = (float(rng.integers(-lim, lim + 1)) if stall
+                     else float(rng.choice([-1, 1]) * rng.integers(15, 36)))
+            who = target if stall else str(rng.choice([i for i in ids if i != target] or ids))
+            spec["tracker_faults"] = (*spec.get("tracker_faults", ()), TrackerFault(
+                who, _t(d, float(rng.uniform(7, 17))),
+                _t(d + dt.timedelta(days=length), float(rng.uniform(7, 17))),
+                "stall" if stall else "step", angle))
+
+
+def _draw_tracker_plant(index: int, seed: int) -> PlantSpec:
+    """A tracker plant: 1-3 inverters on horizontal single-axis trackers, GHI station with
+    wind, 10- or 15-minute loggers, one calendar year."""
+    rng = np.random.default_rng([seed, index])
+    kinds = fault_kinds(index, seed)
+    clim = CLIMATES[index % len(CLIMATES)]
+    start = dt.date(2023, int(rng.integers(1, 13)), 1)
+    days = (start.replace(year=start.year + 1) - start).days
+    invs = _inverters(rng, "tracker")
+    ids = [inv.id for inv in invs]
+    bifacial = rng.random() < 0.5
+    gcr = round(float(rng.uniform(0.3, 0.45)), 2)
+    tracker = TrackerSpec(
+        max_angle_deg=float(rng.choice([50.0, 55.0, 60.0])), gcr=gcr,
+        backtrack=bool(rng.random() < 0.8),
+        bifaciality=round(float(rng.uniform(0.65, 0.8)), 2) if bifacial else None,
+        row_height_m=round(float(rng.uniform(1.3, 2.2)), 2),
+        row_pitch_m=round(2.0 / gcr, 2), stow_quantile=float(rng.uniform(0.99, 0.998)),
+        stow_stated=bool(rng.random() < 0.6), rear_shade=float(rng.uniform(0.02, 0.08)),
+        angle_channel=bool(rng.random() < 0.5))
+    physics = _truth_physics(rng, ids)
+    spec = dict(
+        index=index, name=f"Suite plant {index:02d} ({clim.key}, trackers)",
+        climate=clim.key, design="tracker_bifacial" if bifacial else "tracker", start=start,
+        days=days, interval_min=int(rng.choice([10, 15])), inverters=invs,
+        has_poa=False, has_ghi=True, csv_style=str(rng.choice(["comma", "semicolon"])),
+        physics=physics, kinds=kinds, tracker=tracker)
+    _draw_faults(spec, rng, kinds, invs, start, days, clim.timezone)
     return PlantSpec(**spec)

@@ -22,9 +22,9 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from perfcheck.scenario.faults import NO_FAULTS, Faults, entry, iso, window
+from perfcheck.scenario.faults import ATTRIBUTION_ORDER, NO_FAULTS, Faults, entry, iso, window
 from perfcheck.scenario.logs import _main_labels, fmt, sensor_readings
-from perfcheck.scenario.plant import Physics, Plant, array_irradiance, tree_factor
+from perfcheck.scenario.plant import Physics, Plant, array_irradiance, run_plant, tree_factor
 from perfcheck.scenario.suite import physics as truth_physics
 from perfcheck.scenario.suite.climate import climate, make_weather, read_typical_year
 from perfcheck.scenario.suite.design import PlantSpec, draw_plant
@@ -39,8 +39,10 @@ SITE_MISMATCH_PCT = 1.0  # what every suite site file states
 SAPM_OPEN_RACK = pvlib.temperature.TEMPERATURE_MODEL_PARAMETERS["sapm"]["open_rack_glass_polymer"]
 
 
-def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str) -> str:
-    """The plant's site file: design, losses as stated, the two loggers."""
+def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str,
+              stow_ms: float | None = None) -> str:
+    """The plant's site file: design, losses as stated, the two loggers; ``stow_ms``: the
+    trackers' stow limit, where the site file states it."""
     semi = spec.csv_style == "semicolon"
     lines = [
         f"# Invented plant of the perfcheck scenario suite (plant {spec.index}); the weather",
@@ -54,15 +56,17 @@ def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str) -> s
                   "efficiency_pct = 97.5", ""]
         for a in inv.arrays:
             lines += ["  [[inverters.arrays]]", f"  dc_kwp = {a.dc_kwp}",
-                      f"  tilt_deg = {a.tilt_deg}", f"  azimuth_deg = {a.azimuth_deg}",
+                      *_plane_keys(spec, a, stow_ms),
                       f"  gamma_pct_per_c = {a.gamma_pct_per_c}", '  mounting = "open_rack"',
                       '  construction = "glass_polymer"', f"  strings = {a.strings}", ""]
     first = spec.inverters[0].arrays[0]
     lines += ["[losses]", "wiring_pct = 1.5", f"mismatch_pct = {SITE_MISMATCH_PCT}",
               "nameplate_pct = 0.5", "lid_pct = 1.5", "other_pct = 0.5",
-              "degradation_pct_per_year = 0.5", "",
-              "[model]", f"poa_sensor_tilt_deg = {first.tilt_deg}",
-              f"poa_sensor_azimuth_deg = {first.azimuth_deg}", "",
+              "degradation_pct_per_year = 0.5", ""]
+    if spec.tracker is None:
+        lines += ["[model]", f"poa_sensor_tilt_deg = {first.tilt_deg}",
+                  f"poa_sensor_azimuth_deg = {first.azimuth_deg}", ""]
+    lines += [
               "[[loggers]]", f'name = "{MAIN_LOGGER}"', f'match = "{MAIN_LOGGER}_*.csv"',
               f'delimiter = "{";" if semi else ","}"', f'decimal = "{"," if semi else "."}"',
               f"interval_min = {spec.interval_min}", "",
@@ -79,11 +83,30 @@ def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str) -> s
     lines += ["[[loggers]]", f'name = "{STATION}"', f'match = "{STATION}_*.csv"',
               f"interval_min = {spec.interval_min}", "", "  [loggers.time]",
               '  columns = ["time"]', '  kind = "iso"', '  label = "start"', ""]
+    angle = [("angle", "tracker_angle", "deg")] if spec.tracker and spec.tracker.angle_channel \
+        else []
     for name, q, unit in ([("ghi", "ghi", "W/m2")] if spec.has_ghi else []) + [
-            ("tamb", "temp_air", "C"), ("wind", "wind_speed", "m/s")]:
+            ("tamb", "temp_air", "C"), ("wind", "wind_speed", "m/s")] + angle:
         lines += ["  [[loggers.columns]]", f'  name = "{name}"', f'  quantity = "{q}"',
                   f'  unit = "{unit}"', ""]
     return "\n".join(lines)
+
+
+def _plane_keys(spec: PlantSpec, a: Any, stow_ms: float | None) -> list[str]:
+    """The site-file keys of an array's plane: fixed, or a horizontal single-axis tracker
+    (north-south axis), bifacial or not, with its stow limit when the site file states it."""
+    t = spec.tracker
+    if t is None:
+        return [f"  tilt_deg = {a.tilt_deg}", f"  azimuth_deg = {a.azimuth_deg}"]
+    keys = ['  tracking = "single_axis"', "  axis_tilt_deg = 0.0", "  axis_azimuth_deg = 180.0",
+            f"  max_angle_deg = {t.max_angle_deg}", f"  backtrack = {str(t.backtrack).lower()}",
+            f"  gcr = {t.gcr}"]
+    if stow_ms is not None:
+        keys.append(f"  stow_wind_speed_ms = {stow_ms}")
+    if t.bifaciality is not None:
+        keys += [f"  bifaciality = {t.bifaciality}", f"  row_height_m = {t.row_height_m}",
+                 f"  row_pitch_m = {t.row_pitch_m}"]
+    return keys
 
 
 def _iam(spec: PlantSpec) -> tuple:
@@ -101,8 +124,13 @@ def spectral_coefficients(module: str) -> tuple:
     return tuple(float(mod[f"A{k}"]) for k in range(5))
 
 
-def make_physics(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weather) -> Physics:
-    """Irradiance reaching the cells and cell temperature of every array, by the truth physics."""
+def make_physics(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weather,
+                 rotation: dict[str, np.ndarray] | None = None) -> Physics:
+    """Irradiance reaching the cells and cell temperature of every array, by the truth physics.
+
+    ``rotation``: per inverter, the rotation its tracker rows really had [deg] (a tracker
+    plant); bifacial rows add their rear irradiance (infinite sheds, pvlib) at the
+    bifaciality, less the plant's true share blocked by the structure."""
     p = spec.physics
     ph = Physics(site, times, w)
     am_abs = pvlib.atmosphere.get_absolute_airmass(w.airmass,
@@ -122,7 +150,14 @@ def make_physics(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weathe
     for inv in site.inverters:
         ph.poa[inv.id], ph.temp_cell[inv.id] = [], []
         for arr in inv.arrays:
-            g, e = array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, ones, (), iam)
+            tilt, azimuth = arr.tilt_deg, arr.azimuth_deg
+            if rotation is not None:
+                plane = pvlib.tracking.calc_surface_orientation(rotation[inv.id], 0.0, 180.0)
+                tilt, azimuth = (np.asarray(plane[k], dtype=float)
+                                 for k in ("surface_tilt", "surface_azimuth"))
+            g, e = array_irradiance(w, tilt, azimuth, arr.albedo, ones, (), iam)
+            if spec.tracker is not None and spec.tracker.bifaciality is not None:
+                e = e + _rear(spec, w, tilt, azimuth, arr.albedo)
             ph.poa[inv.id].append((g, effective(e, inv.id)))
             if spec.tree is not None and inv.id == spec.tree.inverter:
                 gt, et = array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo,
@@ -136,6 +171,98 @@ def make_physics(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weathe
             if ph.poa_sensor is None:
                 ph.poa_sensor, ph.temp_module = g, module
     return ph
+
+
+def _rear(spec: PlantSpec, w: Weather, tilt: np.ndarray, azimuth: np.ndarray, albedo: float
+          ) -> np.ndarray:
+    """Rear irradiance that reaches the cells of bifacial rows [W/m^2]: pvlib's infinite-sheds
+    model (Mikofski et al. 2019) times the bifaciality, less the true structure shading."""
+    t = spec.tracker
+    back = pvlib.bifacial.infinite_sheds.get_irradiance_poa(
+        180.0 - tilt, (azimuth + 180.0) % 360.0, w.solpos["apparent_zenith"].to_numpy(),
+        w.solpos["azimuth"].to_numpy(), t.gcr, t.row_height_m, t.row_pitch_m, w.ghi, w.dhi,
+        w.dni, albedo, model="isotropic")
+    return np.nan_to_num(np.asarray(back["poa_global"], dtype=float)) * t.bifaciality * (
+        1.0 - t.rear_shade)
+
+
+def stow_limit(spec: PlantSpec, w: Weather) -> float:
+    """The plant's stow wind speed [m/s]: its drawn quantile of the daylight wind speed, to
+    0.1 m/s (the logger's resolution)."""
+    day = w.solpos["apparent_zenith"].to_numpy() < 90
+    return round(float(np.quantile(w.wind_speed[day], spec.tracker.stow_quantile)), 1)
+
+
+def rotations(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weather, limit: float,
+              faults: tuple = (), stow: bool = True) -> dict[str, np.ndarray]:
+    """Per inverter, the rotation of its rows [deg]: the design (pvlib's single-axis tracking,
+    Marion & Dobos 2013; backtracking Lorenzo et al. 2011; flat at night), turned by an offset
+    where ``faults`` put one, flat (stow) where the logged wind reaches ``limit`` and held at
+    a stalled angle (a stalled drive cannot stow)."""
+    t = spec.tracker
+    theta = pvlib.tracking.singleaxis(w.solpos["apparent_zenith"], w.solpos["azimuth"], 0.0,
+                                      180.0, t.max_angle_deg, t.backtrack, t.gcr)
+    theta = theta["tracker_theta"].fillna(0.0).to_numpy()
+    windy = np.round(w.wind_speed, 1) >= limit
+    out = {}
+    for inv in spec.inverters:
+        th = theta.copy()
+        mine = [f for f in faults if f.inverter == inv.id]
+        for f in (f for f in mine if f.mode == "step"):
+            m = window(times, f.start, f.end, site.tz)
+            th[m] = np.clip(th[m] + f.angle_deg, -t.max_angle_deg, t.max_angle_deg)
+        if stow:
+            th[windy] = 0.0
+        for f in (f for f in mine if f.mode == "stall"):
+            th[window(times, f.start, f.end, site.tz)] = f.angle_deg
+        out[inv.id] = th
+    return out
+
+
+def tracker_truth(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weather,
+                  limit: float, ph: Physics, faults: Faults, interval_min: int) -> list[dict]:
+    """Truth entries of the tracker faults (each: the plant with all faults against the plant
+    without that one) and of the wind stow (design, per run of stow days)."""
+    full = len(ATTRIBUTION_ORDER)
+    ac = run_plant(ph, faults, full).ac
+    h = interval_min / 60 / 1000
+    out = []
+    for f in spec.tracker_faults:
+        rest = tuple(x for x in spec.tracker_faults if x is not f)
+        ref = run_plant(make_physics(spec, site, times, w, rotations(
+            spec, site, times, w, limit, rest)), faults, full).ac
+        i = [inv.id for inv in site.inverters].index(f.inverter)
+        kind = "tracker_stall" if f.mode == "stall" else "tracker_out_of_step"
+        out.append(entry(kind, f"inverter:{f.inverter}", f.start, f.end, site.tz, {
+            "mode": f.mode, "angle_deg" if f.mode == "stall" else "offset_deg": f.angle_deg},
+            float((ref[i] - ac[i]).sum() * h)))
+    still = run_plant(make_physics(spec, site, times, w, rotations(
+        spec, site, times, w, limit, spec.tracker_faults, stow=False)), faults, full).ac
+    kept = (still - ac).sum(axis=0)
+    windy = (np.round(w.wind_speed, 1) >= limit) & (w.solpos["apparent_zenith"].to_numpy() < 90)
+    local = times.tz_convert(site.tz)
+    days = np.asarray(local.normalize().tz_localize(None))
+    for first, last in _day_runs(np.unique(days[windy])):
+        rows = np.flatnonzero(windy & (days >= first) & (days <= last))
+        span = (days >= first) & (days <= last)
+        e = entry("wind_stow", "plant", str(local[rows[0]])[:16],
+                  str(local[rows[-1]] + pd.Timedelta(minutes=interval_min))[:16], site.tz,
+                  {"stow_wind_speed_ms": limit, "stated": spec.tracker.stow_stated,
+                   "note": "rows flat in high wind: the tracker's design, not a fault"},
+                  float(kept[span].sum() * h))
+        out.append({**e, "design": True})
+    return out
+
+
+def _day_runs(days: np.ndarray) -> list[tuple[np.datetime64, np.datetime64]]:
+    """(first, last) of runs of sorted days, joining runs one day apart."""
+    out: list[list[np.datetime64]] = []
+    for d in days:
+        if out and d - out[-1][1] <= np.timedelta64(2, "D"):
+            out[-1][1] = d
+        else:
+            out.append([d, d])
+    return [(a, b) for a, b in out]
 
 
 def apply_derate(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, plant: Plant,
@@ -170,7 +297,7 @@ def shading_start(entries: list[dict], daily: pd.DataFrame, tz: Any) -> None:
 
 
 ENERGY_KINDS = ("outage", "partial_outage", "clipping", "curtailment", "soiling", "shading",
-                "degradation")
+                "degradation", "tracker_stall", "tracker_out_of_step")
 
 
 def effective_fault(e: dict) -> bool:
@@ -196,7 +323,8 @@ def monthly_truth(site: Site, times: pd.DatetimeIndex, ph: Physics, plant: Plant
 
 
 def _write_loggers(out: Path, spec: PlantSpec, site: Site, times: pd.DatetimeIndex,
-                   label: pd.DatetimeIndex, keep: np.ndarray, r: Any) -> None:
+                   label: pd.DatetimeIndex, keep: np.ndarray, r: Any,
+                   angle: np.ndarray | None = None) -> None:
     semi = spec.csv_style == "semicolon"
     sep = ";" if semi else ","
     local = label.tz_convert(site.tz)
@@ -223,6 +351,9 @@ def _write_loggers(out: Path, spec: PlantSpec, site: Site, times: pd.DatetimeInd
         wheader.append("ghi")
     wcols += [fmt(r.temp_air, 1, False), fmt(r.wind_speed, 1, False)]
     wheader += ["tamb", "wind"]
+    if angle is not None:  # the first inverter's rows, as their inclinometer reads
+        wcols.append(fmt(angle, 1, False))
+        wheader.append("angle")
     wlines = np.array([",".join(row) for row in zip(*wcols, strict=True)], dtype=object)
     wmonth = np.asarray(start.strftime("%Y-%m"), dtype=object)
     for m in sorted(set(wmonth)):
@@ -258,9 +389,17 @@ def generate_plant(out_dir: str | Path, index: int, seed: int) -> Path:
     times = pd.date_range(t0, t0 + pd.Timedelta(days=spec.days), freq=f"{spec.interval_min}min",
                           inclusive="left").tz_convert("UTC").as_unit("ns")
     w = make_weather(site, clim, times, spec.interval_min, weather_rng)
-    ph = make_physics(spec, site, times, w)
+    limit = stow_limit(spec, w) if spec.tracker else None
+    if spec.tracker and spec.tracker.stow_stated:  # the site file states the limit
+        (out / "site.toml").write_text(site_text(spec, lat, lon, alt, clim.timezone, limit),
+                                       encoding="utf-8")
+        site = load_site(out / "site.toml")
+    rot = rotations(spec, site, times, w, limit, spec.tracker_faults) if spec.tracker else None
+    ph = make_physics(spec, site, times, w, rot)
     faults = faults_of(spec)
     plant, daily, entries = energy_truth(site, ph, faults, spec.interval_min)
+    if spec.tracker:
+        entries += tracker_truth(spec, site, times, w, limit, ph, faults, spec.interval_min)
     clean_kwh = float(daily["clean_energy_kwh"].sum())
     plant, derate = apply_derate(spec, site, times, plant, spec.interval_min)
     entries += derate
@@ -276,7 +415,9 @@ def generate_plant(out_dir: str | Path, index: int, seed: int) -> Path:
     for e in clock_truth:
         e["parameters"].update(logger=MAIN_LOGGER, mode=spec.clock_mode)
     entries += sensor_truth + clock_truth
-    _write_loggers(out, spec, site, times, label, keep, r)
+    angle = rot[spec.inverters[0].id] + sensor_rng.normal(0.0, 0.2, len(times)) \
+        if spec.tracker and spec.tracker.angle_channel else None
+    _write_loggers(out, spec, site, times, label, keep, r, angle)
     h = spec.interval_min / 60 / 1000
     truth = {
         "scenario": {"suite_plant": index, "seed": seed, "generator_version": GENERATOR_VERSION,
@@ -285,7 +426,9 @@ def generate_plant(out_dir: str | Path, index: int, seed: int) -> Path:
                      "start": iso(times[0], site.tz),
                      "end": iso(times[-1] + (times[1] - times[0]), site.tz),
                      "fault_kinds": list(spec.kinds), "faults": bool(spec.kinds),
-                     "has_poa_sensor": spec.has_poa, "has_ghi": spec.has_ghi},
+                     "has_poa_sensor": spec.has_poa, "has_ghi": spec.has_ghi,
+                     "tracker": asdict(spec.tracker) if spec.tracker else None,
+                     "stow_wind_speed_ms": limit},
         "truth_physics": asdict(spec.physics),
         "totals": {"clean_energy_kwh": round(clean_kwh, 3),
                    "energy_kwh": round(float(plant.ac.sum() * h), 3),

@@ -1,0 +1,645 @@
+"""Single-axis trackers: rows stalled at one angle, rows out of step, and wind stow.
+
+A tracker's rows turn through the day, so the plane-of-array irradiance of a row that has
+stopped turning (a drive, controller or supply fault) or that turns by a constant offset (a
+mis-set inclinometer or set-point) has a day shape of its own against the tracked plane: a
+stalled row gets its most light when the designed rotation passes its angle and little in
+the morning or evening on the far side. The detector compares the shape of each day's power
+with the tracked expectation and with the expectation of the rows held at each candidate
+angle (or turned by each candidate offset), the shapes from the weather of the day (measured
+GHI split by Erbs et al., transposed by Hay & Davies; :func:`perfcheck.physics.poa_at_rotation`).
+
+The statistic (:func:`day_fits`, pure): y = ln(measured / expected) per usable interval of a
+day, less the inverter's usual day shape (:func:`typical_shape`: the model's own errors have a
+shape that persists from day to day); the tracked model is y = c, a candidate's y = c + ln(r),
+r the candidate plane's irradiance over the tracked plane's. The best candidate's gain
+ln(SSE_tracked / SSE_candidate) is judged against the same inverter's other days by its
+robust z-score (median, MAD): intervals within a day are too correlated (clouds, model error)
+for a test on their number, while days are many and mostly healthy. A day is a stall or
+out-of-step day when the one-sided p-value is below ``[detect] alpha`` and the day's loss the
+candidate explains exceeds the one-sided 1 - alpha quantile of the daily model error (a shape
+alone, inside the model's error, is not reported). Consecutive such days with one angle (or
+offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
+inside, join it while the event's angle fits them better than tracking; its onset and end are
+placed within their days by the split that fits best (:func:`_split`). An event is reported
+when its most significant day is significant over all the inverter's days tested (its p-value
+times their number below alpha, Bonferroni: at most about alpha false events per inverter and
+period), or when the angle channel shows it. Where a
+``tracker_angle`` channel is logged (the rows of the first tracker array), a day on which it
+stayed within the pointing tolerance while the designed rotation swept more than
+``MIN_SWEEP_DEG`` is a stall day of those rows at the channel's angle, and a day on which it
+followed the design by a constant offset beyond the tolerance is an out-of-step day. A day
+whose shape more than half of the tracker inverters share is taken as the sky's or the
+model's, not the rows' (rows out of step differ from their neighbours); a plant-wide stall is
+therefore found from the angle channel only.
+
+The energy is a share of the expected power (ledger class ``share``): 1 - r of the event's
+angle, interval by interval (for rows out of step, whose loss is mostly a level, scaled to the
+shortfall measured against the inverter's usual performance index); its band adds to the
+model error the difference between the shape's share and that measured shortfall, and the
+share of the onset and end days left outside the event.
+
+Wind stow: rows laid at their stow angle (``stow_angle_deg``, flat by default) while the wind
+is at or above the tracker array's ``stow_wind_speed_ms`` are designed behaviour. The limit is
+the site file's; where it states none, it is inferred from the data (:func:`inferred_limit`).
+The expected series of those intervals is replaced by the stow plane's (the stowed potential,
+at most the expected) before any fault detector runs, and the energy stow keeps out is a
+``wind_stow`` event of ledger class ``design``: shown, never a loss, so no fault detector can
+call it a fault.
+
+References
+----------
+Marion & Dobos 2013 (NREL/TP-6A20-58891), the rotation and plane of a single-axis tracker;
+Erbs, Klein & Duffie 1982 (Solar Energy 28(4):293); Hay & Davies 1980; robust z-scores from
+the median and MAD: Hampel 1974 (JASA 69:383) and Iglewicz & Hoaglin 1993, How to Detect and
+Handle Outliers, ASQC (from memory).
+Pointing accuracy of about +-2 deg and stow of horizontal single-axis trackers at a stated
+wind speed: manufacturers' data sheets (common practice, no single published source).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import pvlib
+from scipy import stats
+
+from perfcheck import physics as ph
+from perfcheck.detect.common import (
+    Event,
+    Footprint,
+    Wide,
+    energy_band,
+    scope_of,
+)
+from perfcheck.site import Array, Site
+
+STEP_DEG = 2.0  # grid of the candidate angles and offsets: about the pointing accuracy
+# days whose best angles differ by up to this much are one stall: a day that is partly
+# tracked, partly stalled fits an angle between the two (common practice, no source)
+JOIN_DEG = 10.0
+ANGLE_TOLERANCE_DEG = 2.0  # a tracker points within about +-2 deg (common practice)
+MAX_OFFSET_DEG = 30.0  # largest offset searched for rows out of step
+MIN_SWEEP_DEG = 20.0  # a day on which the design turns less says nothing about a stall
+SHAPE_WINDOW_DAYS = 61  # the usual day shape: running median over two months
+MIN_TRACKED_WM2 = 50.0  # the shape is judged where the tracked plane gets at least this much
+MIN_DAY_INTERVALS = 10  # a day with fewer usable intervals is not tested
+# the gains' scale is taken as at least this: a fit better by a few per cent is within the
+# resolution of the shapes, even where the model is exact (common practice, no source)
+MIN_GAIN_SCALE = 0.05
+METHOD_STALL = ("day shape of the power against the tracked plane and the plane held at each "
+                "angle (fit gain against the inverter's other days, robust z)")
+METHOD_STEP = ("day shape of the power against the tracked plane and the plane turned by each "
+               "offset (fit gain against the inverter's other days, robust z)")
+METHOD_STOW = "rows at their stow angle while the wind was at or above the stow limit"
+
+
+# --------------------------------------------------------------------------------------------
+# the plant's trackers and the sky
+
+
+def tracker_arrays(site: Site) -> dict[str, Array]:
+    """Per inverter whose arrays all sit on single-axis trackers: its first array."""
+    return {inv.id: inv.arrays[0] for inv in site.inverters
+            if inv.arrays and all(a.tracker is not None for a in inv.arrays)}
+
+
+@dataclass(frozen=True)
+class Sky:
+    """Sun and irradiance components per interval of the wide index [deg, W/m^2]."""
+
+    zenith: np.ndarray
+    azimuth: np.ndarray
+    ghi: np.ndarray
+    dni: np.ndarray
+    dhi: np.ndarray
+    dni_extra: np.ndarray
+
+
+def sky(w: Wide) -> Sky:
+    """The day's sky from the logged GHI (Erbs split), else from the clear-sky GHI."""
+    ghi = w.ghi if w.ghi.notna().sum() >= 0.5 * (w.zenith < 85).sum() else w.clearsky_ghi
+    ghi = ghi.clip(lower=0.0).fillna(0.0)
+    parts = ph.decompose(ghi, w.zenith)
+    extra = pvlib.irradiance.get_extra_radiation(w.index).to_numpy(dtype=float)
+    return Sky(w.zenith.to_numpy(dtype=float), w.azimuth.to_numpy(dtype=float),
+               ghi.to_numpy(dtype=float), parts["dni"].fillna(0.0).to_numpy(dtype=float),
+               parts["dhi"].fillna(0.0).to_numpy(dtype=float), extra)
+
+
+def designed_rotation(w: Wide, array: Array) -> np.ndarray:
+    """The rotation the design turns the rows to [deg] (flat at night)."""
+    t = array.tracker
+    solpos = pd.DataFrame({"apparent_zenith": w.zenith, "azimuth": w.azimuth}, index=w.index)
+    return ph.singleaxis(solpos, t.axis_tilt_deg, t.axis_azimuth_deg, t.max_angle_deg,
+                         t.backtrack, array.gcr)["tracker_theta"].to_numpy(dtype=float)
+
+
+def plane_poa(rotation: float | np.ndarray, array: Array, s: Sky) -> np.ndarray:
+    """Global irradiance of the array's rows at ``rotation`` [W/m^2]."""
+    t = array.tracker
+    return ph.poa_at_rotation(rotation, t.axis_tilt_deg, t.axis_azimuth_deg, s.zenith,
+                              s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra, array.albedo)
+
+
+def log_ratio(poa: np.ndarray, tracked: np.ndarray) -> np.ndarray:
+    """ln(poa / tracked) where the tracked plane gets at least MIN_TRACKED_WM2, else NaN."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(tracked >= MIN_TRACKED_WM2, np.log(np.maximum(poa, 1e-3) / tracked),
+                        np.nan)
+
+
+# --------------------------------------------------------------------------------------------
+# the statistic
+
+
+@dataclass(frozen=True)
+class DayFits:
+    """Per day: intervals used, residual sum of squares of the tracked model and of the best
+    candidate, the best candidate's index, the improvement ln(SSE0/SSE1), its one-sided
+    p-value against the inverter's other days, and every candidate's residual sum of squares
+    (days x candidates)."""
+
+    n: np.ndarray
+    sse0: np.ndarray
+    sse: np.ndarray
+    best: np.ndarray
+    gain: np.ndarray
+    p_value: np.ndarray
+    sse_all: np.ndarray
+
+
+def day_fits(y: np.ndarray, logr: np.ndarray, codes: np.ndarray, n_days: int) -> DayFits:
+    """Tracked model (a constant per day) against each candidate shape, day by day.
+
+    The gain of a day is ln(SSE0 / SSE1), SSE1 that of its best candidate (the tracked model
+    counts as a candidate, so the gain is at least 0); its p-value is
+    the one-sided normal tail of its robust z-score among the days with at least
+    ``MIN_DAY_INTERVALS`` usable intervals (median and 1.4826 MAD: most days are healthy,
+    and the model's errors and the clouds make the healthy days' gains what they are).
+
+    Parameters
+    ----------
+    y : ln(measured / expected) per interval about the usual day shape, NaN where not usable.
+    logr : (candidates x intervals) ln of the candidate plane's irradiance over the tracked.
+    codes : day number of each interval (0 .. n_days - 1).
+    """
+    ok = np.isfinite(y) & np.isfinite(logr).all(axis=0)
+    c, yy = codes[ok], y[ok]
+    n = np.bincount(c, minlength=n_days).astype(float)
+
+    def sse(z: np.ndarray) -> np.ndarray:
+        s1 = np.bincount(c, z, minlength=n_days)
+        s2 = np.bincount(c, z * z, minlength=n_days)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.maximum(s2 - np.where(n > 0, s1 * s1 / n, 0.0), 0.0)
+
+    sse0 = sse(yy)
+    sse_all = np.stack([sse(yy - lr[ok]) for lr in logr], axis=1)
+    best = np.argmin(sse_all, axis=1)
+    sse1 = sse_all[np.arange(n_days), best]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        gain = np.where(n >= MIN_DAY_INTERVALS,
+                        np.log(sse0 / np.clip(sse1, 1e-12, np.maximum(sse0, 1e-12))), np.nan)
+    g = gain[np.isfinite(gain)]
+    if len(g) < 5:
+        return DayFits(n, sse0, sse1, best, gain, np.ones(n_days), sse_all)
+    med = float(np.median(g))
+    scale = max(1.4826 * float(np.median(np.abs(g - med))), MIN_GAIN_SCALE)
+    p = np.where(np.isfinite(gain), stats.norm.sf((gain - med) / scale), 1.0)
+    return DayFits(n, sse0, sse1, best, gain, p, sse_all)
+
+
+def typical_shape(y: np.ndarray, index: pd.DatetimeIndex, interval_s: float,
+                  window_days: int = SHAPE_WINDOW_DAYS) -> np.ndarray:
+    """The inverter's usual ln(measured / expected) at each time of day: the running median,
+    over ``window_days`` days centred on each day, of the values at the same UTC time of day.
+
+    The model's own error has a day shape (incidence-angle, spectral and thermal effects
+    that it leaves out); it persists from day to day while a fault's shape comes and goes, so
+    it is taken out before the shapes are compared. A median over twice the longest fault
+    that should stand out, at least half of the window healthy (common practice, no source).
+    """
+    ns = index.as_unit("ns").asi8
+    day = ns // 86_400_000_000_000
+    slot = (ns - day * 86_400_000_000_000) // int(interval_s * 1e9)
+    d0 = day - day.min()
+    grid = np.full((int(d0.max()) + 1, int(slot.max()) + 1), np.nan)
+    grid[d0, slot] = y
+    ref = pd.DataFrame(grid).rolling(window_days, center=True, min_periods=7).median()
+    return ref.to_numpy()[d0, slot]
+
+
+# --------------------------------------------------------------------------------------------
+# wind stow
+
+
+def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None,
+         alpha: float = 1e-3) -> tuple[Wide, list[Event], dict[int, pd.DataFrame]]:
+    """The expected series with the wind stow in it, the ``wind_stow`` events (one per run of
+    stow days, gaps up to a day) and the power each keeps out of the expected series.
+
+    The stow limit is the array's ``stow_wind_speed_ms``; where none is stated it is inferred
+    (:func:`inferred_limit`) and the events say so."""
+    arrays = tracker_arrays(site)
+    if not arrays or wind is None or wind.isna().all():
+        return w, [], {}
+    s = s or sky(w)
+    wv = wind.reindex(w.index).to_numpy(dtype=float)
+    theta = {inv: designed_rotation(w, a) for inv, a in arrays.items()}
+    ratio = {}
+    for inv, a in arrays.items():
+        tracked = plane_poa(theta[inv], a, s)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ratio[inv] = np.where(tracked > 1.0,
+                                  plane_poa(a.tracker.stow_angle_deg, a, s) / tracked, 1.0)
+    unstated = [inv for inv, a in arrays.items() if a.tracker.stow_wind_speed_ms is None]
+    guess = inferred_limit(w, unstated, wv, ratio, alpha) if unstated else None
+    limits = {inv: a.tracker.stow_wind_speed_ms or guess for inv, a in arrays.items()}
+    limits = {inv: v for inv, v in limits.items() if v is not None}
+    if not limits:
+        return w, [], {}
+    expected, potential = w.expected.copy(), w.potential.copy()
+    kept = pd.DataFrame(0.0, index=w.index, columns=list(limits))
+    any_stow = np.zeros(len(w.index), dtype=bool)
+    for inv, limit in limits.items():
+        on = (wv >= limit) & (s.zenith < 90)
+        if site.model.poa_sensor_on_tracker:  # a sensor on a tracker stows with it
+            on &= ~w.from_sensor[inv].to_numpy()
+        pot = potential[inv].to_numpy() * np.where(on, ratio[inv], 1.0)
+        exp_old = expected[inv].to_numpy()
+        exp_new = np.where(on, np.fmin(exp_old, pot), exp_old)
+        expected[inv], potential[inv] = exp_new, pot
+        kept[inv] = np.nan_to_num(exp_old - exp_new)
+        any_stow |= on & (kept[inv].to_numpy() != 0)
+    w2 = dataclasses.replace(w, expected=expected, potential=potential)
+    days = w.day.to_numpy()
+    stow_days = np.unique(days[any_stow])
+    events: list[Event] = []
+    design: dict[int, pd.DataFrame] = {}
+    step = w.interval_s.to_numpy()
+    for first, last in _day_runs(stow_days, gap_days=1):
+        sel = (days >= first) & (days <= last)
+        rows = np.flatnonzero(sel & any_stow)
+        frame = kept.where(pd.Series(sel, index=w.index), 0.0, axis=0)
+        e_kwh = float((frame.to_numpy() * step[:, None]).sum() / 3.6e6)
+        ev = Event(kind="wind_stow", scope="plant", start=w.index[rows[0]],
+                   end=w.end_of(w.index[rows[-1]]), energy_loss_kwh=e_kwh,
+                   energy_loss_kwh_low=e_kwh, energy_loss_kwh_high=e_kwh, method=METHOD_STOW,
+                   evidence={"stow_intervals": int(len(rows)),
+                             "stow_hours": float(step[rows].sum() / 3600),
+                             "max_wind_speed_ms": float(np.nanmax(wv[rows])),
+                             "stow_wind_speed_ms": limits,
+                             "limit": "inferred" if guess is not None else "stated"},
+                   detail={"design": True})
+        events.append(ev)
+        design[id(ev)] = frame
+    return w2, events, design
+
+
+WIND_QUANTILES = (0.9, 0.95, 0.98, 0.99, 0.995, 0.999)  # wind bins searched for the limit
+MIN_SHAPE = 0.05  # rows where stow and tracking differ by less than 5 % tell nothing
+
+
+def inferred_limit(w: Wide, inverters: list[str], wind: np.ndarray,
+                   ratio: dict[str, np.ndarray], alpha: float) -> float | None:
+    """The wind speed above which the rows lie at their stow angle, read from the data.
+
+    The daylight wind speeds are cut at their 90 to 99.9 % quantiles. From the windiest
+    quantile down, the rows at or above it are stow once, on those where the stow plane and
+    the tracked plane differ by at least ``MIN_SHAPE``, the power is nearer the stow plane's
+    than the tracked plane's (each at the inverter's usual level) significantly more often
+    than not: one-sided sign test at ``alpha`` (Conover 1999, Practical Nonparametric
+    Statistics, sec. 3.4; from memory). Below that, each lower bin joins while most of its
+    rows are nearer the stow plane (the median rule). The limit is the lowest edge reached;
+    None when no quantile's rows are significantly stow.
+    """
+    sun = w.expected[inverters].ge(w.ac_w[inverters] * 0.2, axis=1).any(axis=1).to_numpy()
+    day_wind = wind[sun & np.isfinite(wind)]
+    if len(day_wind) < 100:
+        return None
+    edges = np.unique(np.quantile(day_wind, WIND_QUANTILES))
+    nearer = np.zeros(len(wind))
+    tested = np.zeros(len(wind))
+    for inv in inverters:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            y = np.log(w.measured[inv].to_numpy() / w.expected[inv].to_numpy())
+            lr = np.log(np.maximum(ratio[inv], 1e-3))
+        ok = sun & np.isfinite(y) & (np.abs(lr) >= MIN_SHAPE) & ~w.flagged[inv].to_numpy()
+        c = float(np.nanmedian(y[ok])) if ok.any() else 0.0
+        nearer += ok & (np.abs(y - c - lr) < np.abs(y - c))
+        tested += ok
+    limit = None
+    for lo, hi in zip(edges[::-1], [np.inf, *edges[::-1][:-1]], strict=True):
+        if limit is None:  # all the rows at or above lo, until they are significantly stow
+            rows = wind >= lo
+            n, k = int(tested[rows].sum()), int(nearer[rows].sum())
+            if n >= 6 and stats.binom.sf(k - 1, n, 0.5) < alpha:
+                limit = float(lo)
+            continue
+        rows = (wind >= lo) & (wind < hi)  # then down, bin by bin, while most rows are stow
+        if not nearer[rows].sum() > 0.5 * tested[rows].sum():
+            break
+        limit = float(lo)
+    return limit
+
+
+def _day_runs(days: np.ndarray, gap_days: int) -> list[tuple[np.datetime64, np.datetime64]]:
+    """(first, last) of the runs of sorted days, joining runs at most ``gap_days`` apart."""
+    out: list[list[np.datetime64]] = []
+    for d in days:
+        if out and (d - out[-1][1]) <= np.timedelta64(gap_days + 1, "D"):
+            out[-1][1] = d
+        else:
+            out.append([d, d])
+    return [(a, b) for a, b in out]
+
+
+# --------------------------------------------------------------------------------------------
+# stalls and rows out of step
+
+
+@dataclass(frozen=True)
+class Candidates:
+    """The stall angles and the offsets searched, their rotations and ln irradiance ratios."""
+
+    labels: list[tuple[str, float]]  # ("stall", angle) or ("step", offset)
+    logr: np.ndarray  # candidates x intervals
+
+
+def candidates(w: Wide, array: Array, s: Sky, theta: np.ndarray) -> Candidates:
+    """Every stall angle within the rotation limits and every offset up to MAX_OFFSET_DEG."""
+    lim = array.tracker.max_angle_deg
+    tracked = plane_poa(theta, array, s)
+    labels: list[tuple[str, float]] = []
+    rows = []
+    for ang in np.arange(-lim, lim + 1e-9, STEP_DEG):
+        labels.append(("stall", float(ang)))
+        rows.append(log_ratio(plane_poa(float(ang), array, s), tracked))
+    offsets = np.arange(2 * STEP_DEG, MAX_OFFSET_DEG + 1e-9, STEP_DEG)
+    for off in np.concatenate([-offsets[::-1], offsets]):
+        labels.append(("step", float(off)))
+        rows.append(log_ratio(plane_poa(_turned(theta, off, array), array, s), tracked))
+    return Candidates(labels, np.vstack(rows))
+
+
+def angle_days(w: Wide, angle: pd.Series | None, theta: np.ndarray
+               ) -> dict[np.datetime64, tuple[str, float]]:
+    """Days the ``tracker_angle`` channel shows a stall (its angle) or an offset."""
+    if angle is None or angle.dropna().empty:
+        return {}
+    a = angle.reindex(w.index).to_numpy(dtype=float)
+    up = (w.zenith.to_numpy() < 80) & np.isfinite(a)
+    frame = pd.DataFrame({"day": w.day.to_numpy()[up], "a": a[up], "d": a[up] - theta[up],
+                          "t": theta[up]})
+    out = {}
+    for day, g in frame.groupby("day"):
+        if len(g) < 6 or np.ptp(g["t"]) < MIN_SWEEP_DEG:
+            continue
+        lo, hi = np.percentile(g["a"], [5, 95])
+        off = float(np.median(g["d"]))
+        spread = float(np.percentile(g["d"], 90) - np.percentile(g["d"], 10))
+        if hi - lo <= 2 * ANGLE_TOLERANCE_DEG:
+            out[np.datetime64(day)] = ("stall", float(np.median(g["a"])))
+        elif abs(off) > 2 * ANGLE_TOLERANCE_DEG and spread <= 2 * ANGLE_TOLERANCE_DEG:
+            out[np.datetime64(day)] = ("step", off)
+    return out
+
+
+def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: float,
+           angle: pd.Series | None = None, s: Sky | None = None
+           ) -> tuple[list[Event], list[Footprint]]:
+    """Stalled rows and rows out of step of every tracker inverter.
+
+    Parameters
+    ----------
+    usable : intervals fit for a shape test (daylight, no flag, no outage, clipping or
+        curtailment, not at the AC rating)
+    rel_sigma : daily relative model error [-]
+    alpha : false-alarm probability per inverter-day test
+    angle : the ``tracker_angle`` channel [deg] on the wide index, rows of the first tracker
+        array
+    """
+    arrays = tracker_arrays(site)
+    if not arrays:
+        return [], []
+    s = s or sky(w)
+    days, codes = np.unique(w.day.to_numpy(), return_inverse=True)
+    z = stats.norm.isf(alpha)
+    first = next(iter(arrays))
+    found = {}
+    for inv, a in arrays.items():
+        theta = designed_rotation(w, a)
+        cand = candidates(w, a, s, theta)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            y = np.log(w.measured[inv].to_numpy() / w.expected[inv].to_numpy())
+        y = np.where(usable[inv].to_numpy() & np.isfinite(y), y, np.nan)
+        y = y - typical_shape(y, w.index, float(np.median(w.interval_s)))
+        fits = day_fits(y, cand.logr, codes, len(days))
+        e = np.where(usable[inv].to_numpy(), np.nan_to_num(w.expected[inv].to_numpy()), 0.0)
+        seed = _seed_days(e, cand, fits, codes, days, alpha, z * rel_sigma)
+        found[inv] = (theta, cand, y, fits, seed)
+    _drop_shared({inv: f[4] for inv, f in found.items()})
+    channel = angle_days(w, angle, found[first][0])
+    found[first][4].update(channel)
+    events: list[Event] = []
+    prints: list[Footprint] = []
+    for inv, (theta, cand, y, fits, seed) in found.items():
+        tested = max(int(np.isfinite(fits.gain).sum()), 1)
+        for lab, first_day, last_day in _group(seed, days, cand, fits):
+            run = (days >= first_day) & (days <= last_day)
+            seen = inv == first and any(first_day <= d <= last_day for d in channel)
+            if not (seen or float(np.min(fits.p_value[run])) * tested < alpha):
+                continue  # an event is significant over the inverter's days (Bonferroni)
+            ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
+                            y, rel_sigma, z, fits, days, alpha)
+            if ev is not None:
+                events.append(ev)
+                prints.append(fp)
+    return events, prints
+
+
+def _seed_days(e: np.ndarray, cand: Candidates, fits: DayFits, codes: np.ndarray,
+               days: np.ndarray, alpha: float, material: float
+               ) -> dict[np.datetime64, tuple[str, float]]:
+    """The days whose best candidate is significant and explains a share of the day's usable
+    expected energy ``e`` above ``material`` (the one-sided 1 - alpha quantile of the daily
+    model error)."""
+    out = {}
+    for i in np.flatnonzero(fits.p_value < alpha):
+        rows = codes == i
+        ratio = np.nan_to_num(np.exp(cand.logr[fits.best[i], rows]), nan=1.0)
+        total = float(np.sum(e[rows]))
+        if total > 0 and float(np.sum(e[rows] * (1 - ratio))) > material * total:
+            out[days[i]] = cand.labels[fits.best[i]]
+    return out
+
+
+def _drop_shared(seeds: dict[str, dict]) -> None:
+    """A stall or an offset is one inverter's rows unlike their neighbours': a day whose shape
+    more than half of the tracker inverters share is the sky's or the model's (a plant-wide
+    stall is found from the ``tracker_angle`` channel)."""
+    if len(seeds) < 2:
+        return
+    count: dict = {}
+    for seed in seeds.values():
+        for d in seed:
+            count[d] = count.get(d, 0) + 1
+    for seed in seeds.values():
+        for d in [d for d in seed if count[d] > len(seeds) / 2]:
+            del seed[d]
+
+
+def _group(seed: dict, days: np.ndarray, cand: Candidates, fits: DayFits
+           ) -> list[tuple[tuple[str, float], np.datetime64, np.datetime64]]:
+    """Runs of seed days of one family, joined over the days between them that the run's
+    candidate fits better than tracking (or that have no test), or single odd days, and
+    extended by such days on either side; no day in two runs. The run's angle (or offset) is
+    the median of its seed days' (a day only partly stalled fits an angle between)."""
+    out: list = []
+    used = np.zeros(len(days), dtype=bool)
+    pos = {d: i for i, d in enumerate(days)}
+    for d in sorted(seed):
+        if used[pos[d]]:
+            continue
+        fam, val = seed[d]
+        k = _nearest(cand, fam, val)
+
+        def fits_day(i: int, k: int = k) -> bool:
+            return not used[i] and (fits.n[i] == 0 or fits.sse_all[i, k] < fits.sse0[i])
+
+        def mine(i: int, fam: str = fam) -> bool:
+            return not used[i] and days[i] in seed and seed[days[i]][0] == fam
+
+        i0 = i1 = pos[d]
+        while i1 + 1 < len(days) and not used[i1 + 1]:
+            bridged = i1 + 2 < len(days) and mine(i1 + 2)  # one odd day between two
+            if mine(i1 + 1) or (days[i1 + 1] not in seed and fits_day(i1 + 1)) or bridged:
+                i1 += 1
+            else:
+                break
+        while i0 > 0 and days[i0 - 1] not in seed and fits_day(i0 - 1):
+            i0 -= 1
+        while i0 < i1 and fits.n[i0] == 0:  # the untested days at the ends are left out
+            i0 += 1
+        while i1 > i0 and fits.n[i1] == 0:
+            i1 -= 1
+        used[i0:i1 + 1] = True
+        vals = [seed[days[i]][1] for i in range(i0, i1 + 1)
+                if days[i] in seed and seed[days[i]][0] == fam]
+        out.append(((fam, float(np.median(vals))), days[i0], days[i1]))
+    return out
+
+
+def _nearest(cand: Candidates, fam: str, val: float) -> int:
+    return min((abs(v - val), k) for k, (f, v) in enumerate(cand.labels) if f == fam)[1]
+
+
+def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[str, float],
+           span: tuple[np.datetime64, np.datetime64], usable: pd.DataFrame, y_all: np.ndarray,
+           rel_sigma: float, z: float, fits: DayFits, days: np.ndarray, alpha: float
+           ) -> tuple[Event | None, Footprint | None]:
+    """The event of one run of days, its energy from the run's angle (or offset)."""
+    fam, val = lab
+    first, last = span
+    day = w.day.to_numpy()
+    one = np.timedelta64(1, "D")
+    near = (day >= first - one) & (day <= last + one)
+    lo, hi = int(np.flatnonzero(near)[0]), int(np.flatnonzero(near)[-1]) + 1
+    u = usable[inv].to_numpy()
+    m, e_all = w.measured[inv].to_numpy(), w.expected[inv].to_numpy()
+    far = u & ~near & np.isfinite(m)  # the inverter's usual performance index, away from it
+    pi0 = float(np.sum(m[far]) / np.sum(e_all[far])) if far.any() else 1.0
+    y = y_all[lo:hi]  # about the usual day shape, whose level is the usual one
+    sk = _slice(s, lo, hi)
+    tracked = plane_poa(theta[lo:hi], a, sk)
+    if fam == "step":  # the offset again, at the usual level: a constant share is an offset's
+        val = _offset_at_level(y, theta[lo:hi], a, sk, tracked)
+    held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk)
+    lr = log_ratio(held, tracked)
+    d = day[lo:hi]
+    start = _split(y, lr, d == first, d == first - one, onset=True)
+    stop = _split(y, lr, d == last, d == last + one, onset=False)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(tracked > 1.0, np.clip(1 - held / tracked, 0.0, 1.0), 0.0)
+    step_all = w.interval_s.to_numpy()[lo:hi]
+    loss_all = np.nan_to_num(e_all[lo:hi]) * share * step_all / 3.6e6
+    # the onset and the end are known to within their days: the share of the edge days
+    # outside the event is a term of the band
+    edge = ((d == first) | (d == last)) & ~((np.arange(hi - lo) >= start)
+                                             & (np.arange(hi - lo) < stop))
+    edge_kwh = float(loss_all[edge].sum())
+    lo, hi, factor = lo + start, lo + stop, share[start:stop]
+    step = step_all[start:stop]
+    exp = np.nan_to_num(e_all[lo:hi])
+    e_kwh = float(loss_all[start:stop].sum())
+    if not e_kwh > z * rel_sigma * float(np.sum(exp * step) / 3.6e6):
+        return None, None  # within the model's error once the angle is refined
+    # the shortfall measured against the inverter's usual performance index
+    inside = u[lo:hi] & np.isfinite(m[lo:hi])
+    seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
+    pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
+    if fam == "step" and seen > 0 and pred > 0:
+        # an offset's loss is mostly a level, which the shape alone places poorly: its share
+        # is scaled to the shortfall measured against the usual performance index
+        factor = np.clip(factor * seen / pred, 0.0, 1.0)
+        e_kwh = float(np.sum(exp * factor * step) / 3.6e6)
+    low, high = energy_band(e_kwh, rel_sigma, math.hypot(seen - pred, edge_kwh))
+    kind = "tracker_stall" if fam == "stall" else "tracker_out_of_step"
+    in_run = (days >= first) & (days <= last)
+    ev = Event(
+        kind=kind, scope=scope_of(inv), start=w.index[lo], end=w.end_of(w.index[hi - 1]),
+        energy_loss_kwh=e_kwh, energy_loss_kwh_low=max(low, 0.0), energy_loss_kwh_high=high,
+        method=METHOD_STALL if fam == "stall" else METHOD_STEP,
+        evidence={"days": int(in_run.sum()),
+                  "significant_days": int(np.sum(in_run & (fits.p_value < alpha))),
+                  "min_p_value": float(np.min(fits.p_value[in_run])),
+                  "measured_shortfall_kwh": seen, "predicted_shortfall_kwh": pred},
+        detail={"angle_deg": val} if fam == "stall" else {"offset_deg": val})
+    return ev, Footprint(ev, lo, hi, [inv], factor=factor[:, None])
+
+
+def _turned(theta: np.ndarray, offset: float, array: Array) -> np.ndarray:
+    lim = array.tracker.max_angle_deg
+    return np.clip(theta + offset, -lim, lim)
+
+
+def _offset_at_level(y: np.ndarray, theta: np.ndarray, array: Array, s: Sky,
+                     tracked: np.ndarray) -> float:
+    """The offset whose shape fits ``y`` (ln of measured over expected, less the usual level)
+    best with no free constant."""
+    offsets = np.arange(-MAX_OFFSET_DEG, MAX_OFFSET_DEG + 1e-9, STEP_DEG / 2)
+    sse = []
+    for off in offsets:
+        z = y - log_ratio(plane_poa(_turned(theta, off, array), array, s), tracked)
+        sse.append(float(np.nanmean(z * z)) if np.isfinite(z).any() else np.inf)
+    return float(offsets[int(np.argmin(sse))])
+
+
+def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray, onset: bool
+           ) -> int:
+    """Where the fault began (``onset``) or ended, within the run's edge day and the day
+    beyond it: the split of their usable rows, tracked on one side and the candidate's shape
+    on the other, with the least squares about one constant. A position in ``y``."""
+    rows = np.flatnonzero(edge | outside)
+    ok = rows[np.isfinite(y[rows]) & np.isfinite(lr[rows])]
+    edge_rows = np.flatnonzero(edge)
+    if len(ok) < 4:
+        return int(edge_rows[0]) if onset else int(edge_rows[-1]) + 1
+    pos = np.arange(len(ok))
+    sse = []
+    for k in range(len(ok) + 1):
+        z = y[ok] - np.where(pos >= k if onset else pos < k, lr[ok], 0.0)
+        sse.append(float(np.sum((z - z.mean()) ** 2)))
+    k = int(np.argmin(sse))
+    if onset:
+        return int(ok[k]) if k < len(ok) else int(edge_rows[0])
+    return int(ok[k - 1]) + 1 if k > 0 else int(edge_rows[-1]) + 1
+
+
+def _slice(s: Sky, lo: int, hi: int) -> Sky:
+    return Sky(*(x[lo:hi] for x in (s.zenith, s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra)))
