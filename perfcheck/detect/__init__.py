@@ -161,14 +161,15 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask, spread, levels)
     events += ev
     t = lap("clipping", t)
-    ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask)
+    ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask,
+                                       levels=levels)
     events += ev
     t = lap("curtailment", t)
     excluded = out_mask | clip_mask | curt_mask
     unclipped = w.potential.lt(w.ac_w * 0.98, axis=1)
     usable = valid & ~excluded & unclipped & w.expected.ge(w.ac_w * 0.2, axis=1)
     strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
-    ev, prints = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha)
+    ev, prints = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha, levels=levels)
     events += ev
     t = lap("partial", t)
     meas_fixed = _undo(w, prints)

@@ -25,6 +25,16 @@ the in-control average run length is about 1 550 days (Siegmund's approximation 
 period runs from the day after the CUSUM last stood at zero before the alarm to the day it
 returns to zero.
 
+Model error shared by the inverters (a season the model handles worse: low light, spectrum,
+incidence angle, all in the daily residual for weeks) is not a fault of one of them. With
+siblings, the CUSUM therefore runs on each inverter's residual less the median of its
+siblings' residuals that day (a difference of paired series: what they share cancels; common
+practice in fleet comparisons, e.g. the sibling ratio of :mod:`perfcheck.detect.partial`).
+A plant of one inverter has only its own residual, and a season's model error cannot be told
+from a fault there: each flagged period carries the slow scale of the series it was found on
+(1.4826 MAD of its 30-day means, :func:`slow_sigma`), and the attribution reports the period
+only when its shortfall exceeds that scale too.
+
 References
 ----------
 Huber 1964 (Ann. Math. Statist. 35:73), robust regression; Page 1954 (Biometrika 41:100),
@@ -53,6 +63,7 @@ class Flagged:
     last_day: pd.Timestamp
     cusum_min: float
     shortfall_kwh: float  # predicted - measured over the period
+    slow_sigma: float = 0.0  # relative scale of the series' 30-day means [-]
 
 
 def arl0(k: float, h: float) -> float:
@@ -154,13 +165,32 @@ def innovations(x: np.ndarray, sigma_lr: float, phi: float) -> np.ndarray:
     return np.where(np.isfinite(prev), (x - phi * prev) / (sigma_lr * (1 - phi)), x / sd_x)
 
 
-def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5
-         ) -> tuple[list[Flagged], dict[str, dict]]:
-    """Flagged underperformance periods per inverter, and the statistics behind them."""
+def slow_sigma(x: pd.Series, block_days: int = 30, min_days: int = 10) -> float:
+    """Scale of the slow part of a daily series: 1.4826 MAD of its means over consecutive
+    ``block_days`` blocks with at least ``min_days`` values (0 with fewer than three blocks).
+
+    References
+    ----------
+    Hampel 1974 (JASA 69:383), the MAD scale (from memory); the block length, a month, is
+    common practice for a performance model's seasonal error.
+    """
+    v = x.dropna()
+    if v.empty:
+        return 0.0
+    block = ((v.index - v.index[0]).days // block_days).to_numpy()
+    g = v.groupby(block)
+    means = g.mean()[g.count() >= min_days].to_numpy()
+    if len(means) < 3:
+        return 0.0
+    return float(1.4826 * np.median(np.abs(means - np.median(means))))
+
+
+def _daily(w: Wide, valid: pd.DataFrame, fits: dict[str, dict]) -> dict[str, pd.DataFrame]:
+    """Per inverter, the daily measured and predicted energy [kWh] (columns m, p) and the
+    relative residual r (NaN on days with under a quarter of the median prediction)."""
     days = w.day.to_numpy()
     step = w.interval_s.to_numpy()
-    flagged: list[Flagged] = []
-    info: dict[str, dict] = {}
+    out = {}
     for inv, f in fits.items():
         pred = predict(w, f["params"], inv)
         ok = valid[inv].to_numpy()
@@ -169,16 +199,33 @@ def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h:
         frame = pd.DataFrame({"m": m * step / 3.6e6, "p": p * step / 3.6e6})
         daily = frame.groupby(days).sum(min_count=1)
         big = daily["p"] >= 0.25 * daily["p"].median()
-        r = ((daily["m"] - daily["p"]) / daily["p"]).where(big)
+        daily["r"] = ((daily["m"] - daily["p"]) / daily["p"]).where(big)
+        out[inv] = daily
+    return out
+
+
+def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5
+         ) -> tuple[list[Flagged], dict[str, dict]]:
+    """Flagged underperformance periods per inverter, and the statistics behind them."""
+    flagged: list[Flagged] = []
+    info: dict[str, dict] = {}
+    per = _daily(w, valid, fits)
+    resid = pd.DataFrame({inv: d["r"] for inv, d in per.items()})
+    for inv, daily in per.items():
+        r = daily["r"]
+        if resid.shape[1] > 1:
+            r = r - resid.drop(columns=inv).median(axis=1)
         sigma, phi = long_run_sigma(r.to_numpy())
         center = float(np.nanmedian(r.to_numpy()))
         z = innovations(r.to_numpy() - center, sigma, phi)
+        slow = slow_sigma(r - center)
         _, periods = cusum_lower(z, k, h)
         for a, b in periods:
             seg = daily.iloc[a:b]
             flagged.append(Flagged(inv, daily.index[a], daily.index[b - 1],
                                    float(np.nanmin(np.cumsum(np.nan_to_num(z[a:b] + k)))),
-                                   float((seg["p"] - seg["m"]).sum())))
+                                   float((seg["p"] - seg["m"]).sum()), slow))
         info[inv] = {"sigma_long_run": sigma, "lag1_autocorrelation": phi, "center": center,
-                     "periods": len(periods)}
+                     "periods": len(periods), "slow_sigma": slow,
+                     "against_siblings": resid.shape[1] > 1}
     return flagged, info

@@ -41,6 +41,7 @@ from perfcheck.detect.common import (
     coarsen,
     despike,
     energy_band,
+    local_band,
     scope_of,
 )
 
@@ -71,11 +72,15 @@ def daily_relative(w: Wide, usable: pd.DataFrame, siblings: bool = True,
 
 
 def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: float,
-           alpha: float = 1e-3, min_days: int = 3) -> tuple[list[Event], list[Footprint]]:
+           alpha: float = 1e-3, min_days: int = 3, levels: pd.DataFrame | None = None
+           ) -> tuple[list[Event], list[Footprint]]:
     """Partial-outage events with their footprints (share of expected power lost).
 
     The daily statistics are taken on 15-minute blocks (:func:`coarsen`), the energy on
-    the series as given.
+    the series as given. The energy band holds both the share's interval and, with
+    ``levels`` (daily performance index per inverter), the inverter's local level around
+    the event (:func:`perfcheck.detect.common.local_band`: the expected power the share is
+    taken of carries the model's bias).
     """
     wc, uc = coarsen(w, usable)
     daily = daily_relative(wc, uc)
@@ -130,7 +135,8 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: fl
             exp = w.expected[inv].to_numpy()[lo:hi]
             step = w.interval_s.to_numpy()[lo:hi]
             energy = float(np.nansum(exp * share * step) / 3.6e6)
-            lo_e, hi_e = energy_band(energy, rel_sigma)
+            lo_e, hi_e = (energy_band(energy, rel_sigma) if levels is None else
+                          local_band(levels, [inv], d0, d1, energy, energy))
             k = round(share * n_str)
             ev = Event(
                 kind="partial_outage", scope=scope_of(inv),
