@@ -30,10 +30,12 @@ incidence angle, all in the daily residual for weeks) is not a fault of one of t
 siblings, the CUSUM therefore runs on each inverter's residual less the median of its
 siblings' residuals that day (a difference of paired series: what they share cancels; common
 practice in fleet comparisons, e.g. the sibling ratio of :mod:`perfcheck.detect.partial`).
-A plant of one inverter has only its own residual, and a season's model error cannot be told
-from a fault there: each flagged period carries the slow scale of the series it was found on
-(1.4826 MAD of its 30-day means, :func:`slow_sigma`), and the attribution reports the period
-only when its shortfall exceeds that scale too.
+A plant of one inverter has only its own residual, where a season's model error looks like a
+fault. Each flagged period is therefore also judged as a level shift (:func:`shift_z`): its
+mean shortfall on the series the CUSUM ran on, against the standard error of a mean of n
+autocorrelated days (sigma_LR^2 / n) plus the variance of the series' 30-day means outside
+the period (how much the level wanders from month to month without the period: the model's
+seasonal error); the attribution reports it only when z >= 3 (one-sided 0.13 %).
 
 References
 ----------
@@ -63,7 +65,7 @@ class Flagged:
     last_day: pd.Timestamp
     cusum_min: float
     shortfall_kwh: float  # predicted - measured over the period
-    slow_sigma: float = 0.0  # relative scale of the series' 30-day means [-]
+    shift_z: float = math.inf  # the period's level shift in standard errors (shift_z)
 
 
 def arl0(k: float, h: float) -> float:
@@ -165,24 +167,33 @@ def innovations(x: np.ndarray, sigma_lr: float, phi: float) -> np.ndarray:
     return np.where(np.isfinite(prev), (x - phi * prev) / (sigma_lr * (1 - phi)), x / sd_x)
 
 
-def slow_sigma(x: pd.Series, block_days: int = 30, min_days: int = 10) -> float:
-    """Scale of the slow part of a daily series: 1.4826 MAD of its means over consecutive
-    ``block_days`` blocks with at least ``min_days`` values (0 with fewer than three blocks).
+def shift_z(x: pd.Series, a: int, b: int, sigma_lr: float, block_days: int = 30,
+            min_days: int = 10) -> float:
+    """Mean shortfall of the centred daily series ``x`` over positions ``a:b``, in standard
+    errors: -mean / sqrt(sigma_LR^2 / n + s_m^2), with n the period's days with a value and
+    s_m the standard deviation of the means of consecutive ``block_days`` blocks of the
+    days outside the period (blocks with at least ``min_days`` of them; s_m = 0 with fewer
+    than three blocks). NaN without a value in the period.
 
     References
     ----------
-    Hampel 1974 (JASA 69:383), the MAD scale (from memory); the block length, a month, is
-    common practice for a performance model's seasonal error.
+    Hamilton 1994, Time Series Analysis, sec. 7.2 (variance of a mean of autocorrelated
+    values); the month-to-month variance of the level as the model's slow error, and the
+    month as its block, are common practice.
     """
-    v = x.dropna()
-    if v.empty:
-        return 0.0
-    block = ((v.index - v.index[0]).days // block_days).to_numpy()
-    g = v.groupby(block)
-    means = g.mean()[g.count() >= min_days].to_numpy()
-    if len(means) < 3:
-        return 0.0
-    return float(1.4826 * np.median(np.abs(means - np.median(means))))
+    inside = x.iloc[a:b].dropna()
+    if inside.empty:
+        return float("nan")
+    out = x.drop(x.index[a:b]).dropna()
+    s_m = 0.0
+    if len(out):
+        block = ((out.index - x.index[0]).days // block_days).to_numpy()
+        g = out.groupby(block)
+        means = g.mean()[g.count() >= min_days].to_numpy()
+        if len(means) >= 3:
+            s_m = float(np.std(means, ddof=1))
+    se = math.sqrt((sigma_lr if math.isfinite(sigma_lr) else 0.0) ** 2 / len(inside) + s_m**2)
+    return -float(inside.mean()) / se if se > 0 else math.inf
 
 
 def _daily(w: Wide, valid: pd.DataFrame, fits: dict[str, dict]) -> dict[str, pd.DataFrame]:
@@ -218,14 +229,14 @@ def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h:
         sigma, phi = long_run_sigma(r.to_numpy())
         center = float(np.nanmedian(r.to_numpy()))
         z = innovations(r.to_numpy() - center, sigma, phi)
-        slow = slow_sigma(r - center)
         _, periods = cusum_lower(z, k, h)
         for a, b in periods:
             seg = daily.iloc[a:b]
             flagged.append(Flagged(inv, daily.index[a], daily.index[b - 1],
                                    float(np.nanmin(np.cumsum(np.nan_to_num(z[a:b] + k)))),
-                                   float((seg["p"] - seg["m"]).sum()), slow))
+                                   float((seg["p"] - seg["m"]).sum()),
+                                   shift_z(r - center, a, b, sigma)))
         info[inv] = {"sigma_long_run": sigma, "lag1_autocorrelation": phi, "center": center,
-                     "periods": len(periods), "slow_sigma": slow,
+                     "periods": len(periods),
                      "against_siblings": resid.shape[1] > 1}
     return flagged, info

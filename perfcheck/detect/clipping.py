@@ -13,12 +13,16 @@ A limit clearly below the rating (beyond the tolerance) is a derated inverter (k
 
 Derates are found first, day by day (:func:`derated_days`): on a *held* day the inverter's
 highest power of the day is a plateau (at least ``min_minutes`` of intervals within the
-tolerance of it) below the rating while its expected power stands above it by the margin; the
+tolerance of it) below the rating while its expected power stands above it by the margin and
+moves (over those intervals the measured power's relative range at most half the expected
+power's: at a broad noon peak the power follows the expected curve, under a limit it does
+not); the
 same limit held on at least two days, with no day between on which the inverter rose above
 it, is one derate, from the first held day to the end of the last (a setting that persists,
-where a grid operator's order limits the plant on a day: common practice). Days on which
-every inverter of a plant of several is held are left to the curtailment detector (a shared
-set-point). The design clipping is then estimated outside the derates.
+where a grid operator's order limits the plant on a day: common practice). A day on which
+every sibling stood below its expected power by the margin while this inverter was held is
+left to the curtailment detector (a shared set-point). The design clipping is then estimated
+outside the derates.
 
 References
 ----------
@@ -66,7 +70,13 @@ def derated_days(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
     ok = (minutes >= min_minutes) & moves & ceiling.lt(w.ac_w * (1 - tol), axis=1) & ceiling.gt(
         w.ac_w * 0.1, axis=1)
     if len(w.inverters) > 1:
-        ok = ok.mul(~ok.all(axis=1), axis=0)
+        # a shared set-point: while this inverter is held, every sibling is below its
+        # expected power by the margin too (the curtailment detector's case)
+        ratio = w.measured / w.expected.where(w.expected > 0)
+        for inv in w.inverters:
+            sib = ratio.drop(columns=inv).where(held[inv], axis=0)
+            below = sib.groupby(days).median().le(1 - margin)
+            ok[inv] &= ~below.all(axis=1)
     return ceiling.where(ok)
 
 
