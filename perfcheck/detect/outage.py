@@ -27,8 +27,9 @@ import pandas as pd
 
 from perfcheck.detect.common import Event, Wide, energy_band, local_band, runs, scope_of
 
-METHOD = ("interval state: measured/expected below 5 % with at least 10 % of rating expected; "
-          "siblings producing (inverter) or all stopped (plant); common practice")
+METHOD = ("interval state: measured/expected below 5 % with at least 10 % of rating expected "
+          "and the sun above 10 deg; siblings producing (inverter) or all stopped (plant); "
+          "common practice")
 
 
 def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
