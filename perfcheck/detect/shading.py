@@ -7,7 +7,8 @@ azimuth (``az_step`` degrees) and elevation (``el_step`` degrees). The deficit o
 shares (soiling, degradation, a lost string, model bias of the day) cancels. Per bin, growth is
 tested on the daily mean deficits: with more than a year of data, year-on-year pairs (the same
 sun position a year later; the model's own shape errors at that sun position repeat and cancel)
-with a one-sided t test; with less, the trend over time (statsmodels OLS, HC3 standard errors).
+with a one-sided t test; with less, the trend over time (statsmodels OLS; standard errors
+clustered by month where the bin's days span four months or more, HC3 otherwise).
 A bin whose one-sided p-value is below ``alpha`` divided by the number of bins tested
 (Bonferroni) and whose growth is at least ``min_deficit`` per year is shaded by a growing
 obstruction; its neighbouring bins join the region at the plain level ``alpha`` (an
@@ -31,7 +32,9 @@ evidence (the shade is there, small, from the first of them).
 References
 ----------
 Regression over time: ordinary least squares with heteroscedasticity-consistent errors
-(MacKinnon & White 1985, J. Econometrics 29:305, HC3) (from memory). The binning by sun
+(MacKinnon & White 1985, J. Econometrics 29:305, HC3); clustered standard errors with t on
+clusters - 1 degrees of freedom (Cameron & Miller 2015, J. Human Resources 50(2):317) (both
+from memory). The binning by sun
 position follows the usual shading-loss diagrams (common practice).
 """
 
@@ -53,7 +56,7 @@ from perfcheck.detect.common import (
 )
 
 METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, OLS "
-          "trend over time per bin (HC3), Bonferroni over bins")
+          "trend over time per bin (errors clustered by month, or HC3), Bonferroni over bins")
 
 
 def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
@@ -63,9 +66,21 @@ def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
     return 1 - r / med
 
 
-def _bin_trend(t_years: np.ndarray, y: np.ndarray) -> tuple[float, float, float, float]:
+MIN_MONTHS = 4  # least blocks for clustered errors (common practice: a few clusters at least)
+
+
+def _bin_trend(t_years: np.ndarray, y: np.ndarray, month: np.ndarray | None = None
+               ) -> tuple[float, float, float, float]:
+    """OLS trend of a bin's daily deficits; standard errors robust to heteroscedasticity
+    (HC3), or, with ``month`` (a block number per value) spanning at least four blocks,
+    clustered by block with Student's t on blocks - 1 degrees of freedom: deficits of days
+    in the same weeks share their weather and sun path (autocorrelated), which HC3 takes as
+    independent and so overstates the evidence of a trend."""
     x = sm.add_constant(t_years)
-    res = sm.OLS(y, x).fit(cov_type="HC3")
+    if month is not None and len(np.unique(month)) >= MIN_MONTHS:
+        res = sm.OLS(y, x).fit(cov_type="cluster", cov_kwds={"groups": month}, use_t=True)
+    else:
+        res = sm.OLS(y, x).fit(cov_type="HC3")
     slope, se = float(res.params[1]), float(res.bse[1])
     p_one = float(res.pvalues[1] / 2) if slope > 0 else 1.0
     return slope, se, float(res.params[0]), p_one
@@ -73,7 +88,8 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray) -> tuple[float, float, float,
 
 def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
     """Growth test of one bin's daily deficits: year-on-year pairs where the data allow,
-    else the OLS trend over time. One-sided p-value of growth and its size."""
+    else the OLS trend over time (:func:`_bin_trend`). One-sided p-value of growth and its
+    size."""
     t = g["t"].to_numpy()
     d = g["d"].to_numpy()
     if np.ptp(t) >= 1.0 + 10 / 365.25:
@@ -92,8 +108,9 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
             np.mean(delta)), "p_value": float(res.pvalue), "pairs": int(len(delta))}
     if np.ptp(t) < 0.25:
         return None
-    slope, se, icpt, p = _bin_trend(t, d)
-    return {"test": "OLS trend, HC3, one-sided", "growth_per_year": slope, "p_value": p,
+    slope, se, icpt, p = _bin_trend(t, d, g["dayno"].to_numpy() // 30)
+    return {"test": "OLS trend, clustered by month, one-sided", "growth_per_year": slope,
+            "p_value": p,
             "pairs": int(len(d))}
 
 
