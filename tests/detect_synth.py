@@ -61,6 +61,8 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
     - ``{"kind": "soiling", "rate_per_day": 0.003, "cleanings": [dates], "start": date,
       "rain_mm": 10}`` (plant; from ``start``, reset at each cleaning, rain logged there)
     - ``{"kind": "curtail", "start": ts, "end": ts, "fraction": 0.6}`` (plant, all inverters)
+    - ``{"kind": "derate", "inverter": id, "start": ts, "end": ts, "fraction": 0.7}`` (one
+      inverter limited to that share of its rating)
     - ``{"kind": "degradation", "rate_pct_per_year": -1.0}``
     - ``{"kind": "sensor", "start": ts, "end": ts, "scale": 0.9}`` (POA sensor reads low)
     - ``{"kind": "clock", "start": ts, "end": ts, "minutes": 40}`` (measured labelled late)
@@ -181,7 +183,7 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
             k = f["kind"]
             if k == "outage" and f["inverter"] == inv.id:
                 measured[window(f)] = 0.0
-            elif k == "curtail":
+            elif k == "curtail" or (k == "derate" and f["inverter"] == inv.id):
                 m = window(f)
                 measured[m] = np.minimum(measured[m], f["fraction"] * inv.ac_kw * 1000)
             elif k == "clock":

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from perfcheck.detect import baseline, common
@@ -170,3 +171,28 @@ def test_innovations_of_a_known_series():
     z = baseline.innovations(np.array([1.0, 3.0, np.nan, 2.0]), 2.0, 0.5)
     np.testing.assert_allclose(z[[0, 1, 3]], [1 / 1.1547005, 2.5, 2 / 1.1547005], rtol=1e-6)
     assert np.isnan(z[2])
+
+
+def test_local_band_known_answer():
+    # derived from the definition: the inverter's daily index steady at 1.05 around the
+    # event (no spread, so the standard error is the 1 % floor): a loss of 100 kWh measured
+    # on 1 000 kWh of expected energy is 100 + 0.05 x 1000 = 150 kWh with a standard error
+    # 0.01 x 1.05 x 1000 = 10.5 kWh; the band 150 +- 1.96 x 10.5, widened to hold 100.
+    days = pd.date_range("2024-05-01", periods=60, freq="D")
+    levels = pd.DataFrame({"A": 1.05, "B": 0.5}, index=days)
+    levels.loc[days[30]:days[32], "A"] = 0.0  # the event's own days are left out
+    low, high = common.local_band(levels, ["A"], days[30], days[32], 100.0, 1000.0)
+    assert low == pytest.approx(100.0)
+    assert high == pytest.approx(150.0 + 1.959964 * 10.5)
+
+
+def test_shift_z_known_answer():
+    # derived from the definition: a centred series at 0 with a period of 10 days at -0.05,
+    # sigma_LR 0.02 and the months outside all at 0 (s_m = 0): z = 0.05 / (0.02 / sqrt(10))
+    x = pd.Series(0.0, index=pd.date_range("2024-01-01", periods=200, freq="D"))
+    x.iloc[100:110] = -0.05
+    assert baseline.shift_z(x, 100, 110, 0.02) == pytest.approx(0.05 / (0.02 / np.sqrt(10)))
+    # months outside that wander (+-0.02 in turn) widen the standard error
+    months = (x.index.month % 2 * 2 - 1) * 0.02
+    y = x + pd.Series(months, index=x.index).where(np.arange(200) < 100, 0.0)
+    assert baseline.shift_z(y, 100, 110, 0.02) < baseline.shift_z(x, 100, 110, 0.02)

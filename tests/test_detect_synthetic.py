@@ -294,3 +294,53 @@ def test_reported_state_names_the_most_frequent_state_other_than_running():
         "stopped by a fault", "maintenance")
     assert outage.reported_state(rep, ["C"], t[0], t[4]) is None
     assert outage.reported_state(None, ["A"], t[0], t[4]) is None
+
+
+# --------------------------------------------------------------------------------------------
+# a derated inverter, a one-inverter plant, the sun near the horizon
+
+
+def test_derate_is_clipping_not_curtailment_nor_underperformance():
+    # Invented truth: INV3 limited to 70 % of its rating from 2024-05-10 to 2024-05-25
+    # (whole days, 15 days); issue 11: a derate is a clipping finding, window within a day,
+    # energy within 20 % of the true loss (clean run minus faulty run, same seed).
+    site = make_site(n_inverters=3)
+    kw = dict(start="2024-04-15", days=60, freq_min=15, seed=7)
+    faults = [{"kind": "derate", "inverter": "INV3", "start": "2024-05-10 00:00",
+               "end": "2024-05-25 00:00", "fraction": 0.7}]
+    df = make_aligned(site, faults=faults, **kw)
+    res = detect.analyse(df, site)
+    ev = one(res["events"], "clipping")
+    assert ev.scope == "inverter:INV3"
+    assert ev.evidence["limit_w"] == pytest.approx(7000.0, rel=0.02)
+    # the first and last held days may be cloudy: within two days
+    assert abs((ev.start - local("2024-05-10 00:00")).total_seconds()) <= 2 * 86400
+    assert abs((ev.end - local("2024-05-25 00:00")).total_seconds()) <= 2 * 86400
+    lost = true_loss_kwh(site, df, **kw)["lost_kwh"].sum()
+    assert ev.energy_loss_kwh == pytest.approx(lost, rel=0.2)
+    assert ev.energy_loss_kwh_low <= lost <= ev.energy_loss_kwh_high
+    assert not [e for e in res["events"] if e.kind in ("curtailment", "underperformance")]
+
+
+def test_one_inverter_plant_reports_its_outage_on_the_inverter():
+    # Invented truth: the only inverter off for a day; the device that stopped is INV1.
+    site = make_site(n_inverters=1)
+    df = make_aligned(site, start="2024-04-15", days=20, seed=5, faults=[
+        {"kind": "outage", "inverter": "INV1", "start": "2024-04-20 08:00",
+         "end": "2024-04-21 08:00"}])
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    ev = one(outage.detect(w, 0.03)[0], "outage")
+    assert ev.scope == "inverter:INV1"
+
+
+def test_outage_not_judged_with_the_sun_below_ten_degrees():
+    # Invented truth: a healthy plant whose output is zero whenever the sun stands below
+    # 10 deg (as a module whose spectral factor falls to zero at high air mass) while the
+    # model expects power there: no outage (common practice: sun-elevation filter).
+    site = make_site(n_inverters=2)
+    df = make_aligned(site, start="2024-04-15", days=10, seed=5)
+    low = (90 - df["sun_zenith_deg"]) < 10
+    df.loc[low, "measured_ac_w"] = 0.0
+    df.loc[low, "expected_ac_w"] = df.loc[low, "expected_ac_w"].clip(lower=2000.0)
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    assert outage.detect(w, 0.03)[0] == []

@@ -114,10 +114,9 @@ def _planes(site: Site, w: Wide) -> dict[str, list[tuple[Any, Any, float]]]:
     return out
 
 
-def _model_sigma(w: Wide, valid: pd.DataFrame) -> float:
-    """Relative standard error of a day's expected energy: robust scale of daily log PI, at
-    least ``MODEL_FLOOR``."""
-    pi = daily_pi(w, valid)
+def _model_sigma(pi: pd.DataFrame) -> float:
+    """Relative standard error of a day's expected energy: robust scale of daily log PI
+    (``pi``: :func:`daily_pi`), at least ``MODEL_FLOOR``."""
     s = [robust_sigma(np.log(pi[c].where(pi[c] > 0)).dropna().to_numpy()) for c in pi]
     s = [v for v in s if np.isfinite(v)]
     return max(float(np.median(s)) if s else 0.05, MODEL_FLOOR)
@@ -171,16 +170,18 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     events += stowed
 
     valid = daylight(w) & ~w.flagged & w.expected.notna()
-    rel_sigma = _model_sigma(w, valid)
+    levels = daily_pi(w, valid)
+    rel_sigma = _model_sigma(levels)
     step_noise, spread = ratio_noise(w, valid)
-    ev, out_mask = outage.detect(w, rel_sigma, reported=reported)
+    ev, out_mask = outage.detect(w, rel_sigma, reported=reported, levels=levels)
     events += ev
     t = lap("outage", t)
-    ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask)
+    ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask, spread, levels)
     design.update(design_stow)
     events += ev
     t = lap("clipping", t)
-    ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask)
+    ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask,
+                                       levels=levels)
     events += ev
     t = lap("curtailment", t)
     excluded = out_mask | clip_mask | curt_mask
@@ -192,7 +193,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
         usable.iloc[fp.lo:fp.hi, usable.columns.get_indexer(fp.cols)] = False
     t = lap("tracker", t)
     strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
-    ev, fp = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha)
+    ev, fp = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha, levels=levels)
     events += ev
     prints += fp
     t = lap("partial", t)

@@ -16,7 +16,9 @@ both, the shortfall is split in this order (each step works on what the steps be
 3. ``underperformance`` (class ``residual``): in each period flagged by the baseline CUSUM, what
    steps 1-2 leave, when it is significant: above 3 times the daily relative model error (at
    least 1 %) times the period's expected energy (model errors taken as fully correlated over
-   the period, conservative; one-sided false-alarm probability 0.13 % per flagged period).
+   the period, conservative; one-sided false-alarm probability 0.13 % per flagged period), and
+   with the period's level shift at least 3 standard errors against the month-to-month
+   wandering of the level (:func:`perfcheck.detect.baseline.shift_z`).
 4. Unexplained: the rest (noise and model error, either sign).
 
 Clipping at the AC rating (class ``design``) lies inside the expected series; its energy, the
@@ -180,7 +182,7 @@ def _underperformance(w: Wide, led: Ledger, residual: np.ndarray, expected: np.n
         # model errors persist over days (season, weather regime): the period's relative error
         # is taken as large as a single day's (fully correlated), a conservative bound
         sigma = max(rel_sigma, MODEL_FLOOR) * float(np.sum(expected[sel, j] * step[sel]) / 3.6e6)
-        if not (u > Z_UNDER * sigma and u > 0):
+        if not (u > Z_UNDER * sigma and u > 0 and f.shift_z >= Z_UNDER):
             continue
         low, high = energy_band(u, 0.0, sigma)
         ev = Event(
@@ -193,7 +195,7 @@ def _underperformance(w: Wide, led: Ledger, residual: np.ndarray, expected: np.n
                    "do not explain",
             evidence={"test": "lower CUSUM of standardised daily residuals",
                       "cusum_min": f.cusum_min, "baseline_shortfall_kwh": f.shortfall_kwh,
-                      "z": u / sigma if sigma > 0 else None},
+                      "z": u / sigma if sigma > 0 else None, "shift_z": f.shift_z},
             detail={"cause": "unknown"})
         rows = np.flatnonzero(sel & free[:, j])
         led.entries.append(Entry(ev, rows, np.full(len(rows), j), residual[rows, j]))

@@ -25,6 +25,18 @@ the in-control average run length is about 1 550 days (Siegmund's approximation 
 period runs from the day after the CUSUM last stood at zero before the alarm to the day it
 returns to zero.
 
+Model error shared by the inverters (a season the model handles worse: low light, spectrum,
+incidence angle, all in the daily residual for weeks) is not a fault of one of them. With
+siblings, the CUSUM therefore runs on each inverter's residual less the median of its
+siblings' residuals that day (a difference of paired series: what they share cancels; common
+practice in fleet comparisons, e.g. the sibling ratio of :mod:`perfcheck.detect.partial`).
+A plant of one inverter has only its own residual, where a season's model error looks like a
+fault. Each flagged period is therefore also judged as a level shift (:func:`shift_z`): its
+mean shortfall on the series the CUSUM ran on, against the standard error of a mean of n
+autocorrelated days (sigma_LR^2 / n) plus the variance of the series' 30-day means outside
+the period (how much the level wanders from month to month without the period: the model's
+seasonal error); the attribution reports it only when z >= 3 (one-sided 0.13 %).
+
 References
 ----------
 Huber 1964 (Ann. Math. Statist. 35:73), robust regression; Page 1954 (Biometrika 41:100),
@@ -55,6 +67,7 @@ class Flagged:
     last_day: pd.Timestamp
     cusum_min: float
     shortfall_kwh: float  # predicted - measured over the period
+    shift_z: float = math.inf  # the period's level shift in standard errors (shift_z)
 
 
 def arl0(k: float, h: float) -> float:
@@ -156,13 +169,41 @@ def innovations(x: np.ndarray, sigma_lr: float, phi: float) -> np.ndarray:
     return np.where(np.isfinite(prev), (x - phi * prev) / (sigma_lr * (1 - phi)), x / sd_x)
 
 
-def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5
-         ) -> tuple[list[Flagged], dict[str, dict]]:
-    """Flagged underperformance periods per inverter, and the statistics behind them."""
+def shift_z(x: pd.Series, a: int, b: int, sigma_lr: float, block_days: int = 30,
+            min_days: int = 10) -> float:
+    """Mean shortfall of the centred daily series ``x`` over positions ``a:b``, in standard
+    errors: -mean / sqrt(sigma_LR^2 / n + s_m^2), with n the period's days with a value and
+    s_m the standard deviation of the means of consecutive ``block_days`` blocks of the
+    days outside the period (blocks with at least ``min_days`` of them; s_m = 0 with fewer
+    than three blocks). NaN without a value in the period.
+
+    References
+    ----------
+    Hamilton 1994, Time Series Analysis, sec. 7.2 (variance of a mean of autocorrelated
+    values); the month-to-month variance of the level as the model's slow error, and the
+    month as its block, are common practice.
+    """
+    inside = x.iloc[a:b].dropna()
+    if inside.empty:
+        return float("nan")
+    out = x.drop(x.index[a:b]).dropna()
+    s_m = 0.0
+    if len(out):
+        block = ((out.index - x.index[0]).days // block_days).to_numpy()
+        g = out.groupby(block)
+        means = g.mean()[g.count() >= min_days].to_numpy()
+        if len(means) >= 3:
+            s_m = float(np.std(means, ddof=1))
+    se = math.sqrt((sigma_lr if math.isfinite(sigma_lr) else 0.0) ** 2 / len(inside) + s_m**2)
+    return -float(inside.mean()) / se if se > 0 else math.inf
+
+
+def _daily(w: Wide, valid: pd.DataFrame, fits: dict[str, dict]) -> dict[str, pd.DataFrame]:
+    """Per inverter, the daily measured and predicted energy [kWh] (columns m, p) and the
+    relative residual r (NaN on days with under a quarter of the median prediction)."""
     days = w.day.to_numpy()
     step = w.interval_s.to_numpy()
-    flagged: list[Flagged] = []
-    info: dict[str, dict] = {}
+    out = {}
     for inv, f in fits.items():
         pred = predict(w, f["params"], inv)
         ok = valid[inv].to_numpy()
@@ -171,7 +212,22 @@ def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h:
         frame = pd.DataFrame({"m": m * step / 3.6e6, "p": p * step / 3.6e6})
         daily = frame.groupby(days).sum(min_count=1)
         big = daily["p"] >= 0.25 * daily["p"].median()
-        r = ((daily["m"] - daily["p"]) / daily["p"]).where(big)
+        daily["r"] = ((daily["m"] - daily["p"]) / daily["p"]).where(big)
+        out[inv] = daily
+    return out
+
+
+def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5
+         ) -> tuple[list[Flagged], dict[str, dict]]:
+    """Flagged underperformance periods per inverter, and the statistics behind them."""
+    flagged: list[Flagged] = []
+    info: dict[str, dict] = {}
+    per = _daily(w, valid, fits)
+    resid = pd.DataFrame({inv: d["r"] for inv, d in per.items()})
+    for inv, daily in per.items():
+        r = daily["r"]
+        if resid.shape[1] > 1:
+            r = r - resid.drop(columns=inv).median(axis=1)
         sigma, phi = long_run_sigma(r.to_numpy())
         center = float(np.nanmedian(r.to_numpy()))
         z = innovations(r.to_numpy() - center, sigma, phi)
@@ -180,7 +236,9 @@ def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h:
             seg = daily.iloc[a:b]
             flagged.append(Flagged(inv, daily.index[a], daily.index[b - 1],
                                    float(np.nanmin(np.cumsum(np.nan_to_num(z[a:b] + k)))),
-                                   float((seg["p"] - seg["m"]).sum())))
+                                   float((seg["p"] - seg["m"]).sum()),
+                                   shift_z(r - center, a, b, sigma)))
         info[inv] = {"sigma_long_run": sigma, "lag1_autocorrelation": phi, "center": center,
-                     "periods": len(periods)}
+                     "periods": len(periods),
+                     "against_siblings": resid.shape[1] > 1}
     return flagged, info

@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, energy_band, plateaus, runs
+from perfcheck.detect.common import Event, Wide, energy_band, local_band, plateaus, runs
 
 METHOD_SHARED = ("shared plateau: every inverter flat below its expected power at the same "
                  "time (interval noise test, common practice)")
@@ -30,8 +30,13 @@ METHOD_EXPORT = "plant total held at the export limit while the plant could deli
 
 
 def _events(mask: np.ndarray, w: Wide, energy: np.ndarray, gap: np.ndarray, rel_sigma: float,
-            method: str, evidence: dict, detail: dict) -> list[Event]:
-    """One event per site-local day with masked intervals (a set-point is a day's order)."""
+            method: str, evidence: dict, detail: dict,
+            levels: pd.DataFrame | None = None, expected: np.ndarray | None = None
+            ) -> list[Event]:
+    """One event per site-local day with masked intervals (a set-point is a day's order).
+
+    With ``levels`` (daily performance index) and ``expected`` (the plant's expected power
+    behind the loss [W]), the band is :func:`perfcheck.detect.common.local_band`'s."""
     step = w.interval_s.to_numpy()
     days = w.day.to_numpy()
     out = []
@@ -40,11 +45,15 @@ def _events(mask: np.ndarray, w: Wide, energy: np.ndarray, gap: np.ndarray, rel_
         pos = np.flatnonzero(sel)
         e = float(np.nansum(energy[sel] * step[sel]) / 3.6e6)
         g = float(np.nansum(gap[sel] * step[sel]) / 3.6e6)
-        low, high = energy_band(e, rel_sigma)
-        levels = evidence.get("_level")
+        if levels is None or expected is None:
+            low, high = energy_band(e, rel_sigma)
+        else:
+            low, high = local_band(levels, w.inverters, day, day, e,
+                                   float(np.nansum(expected[sel] * step[sel]) / 3.6e6))
+        held = evidence.get("_level")
         ev = {k: v for k, v in evidence.items() if k != "_level"}
-        if levels is not None:
-            ev["plateau_level_share_of_rating"] = float(np.nanmedian(levels[sel]))
+        if held is not None:
+            ev["plateau_level_share_of_rating"] = float(np.nanmedian(held[sel]))
         ev["intervals"] = int(sel.sum())
         out.append(Event(
             kind="curtailment", scope="plant", start=w.index[pos[0]],
@@ -108,8 +117,10 @@ def _whole_day(keep: np.ndarray, level: np.ndarray, exp_level: np.ndarray, days:
 
 
 def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude: pd.DataFrame,
-           min_minutes: float = 30.0) -> tuple[list[Event], pd.DataFrame]:
-    """Curtailment events and the (interval x inverter) mask of curtailed intervals."""
+           min_minutes: float = 30.0, levels: pd.DataFrame | None = None
+           ) -> tuple[list[Event], pd.DataFrame]:
+    """Curtailment events and the (interval x inverter) mask of curtailed intervals
+    (``levels``: daily performance index per inverter, for the energy band)."""
     tol = max(3 * step_noise, 0.005)
     margin = max(3 * spread, 0.05)
     step_s = float(np.median(w.interval_s))
@@ -149,7 +160,8 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude:
     level = (m.where(mask).sum(axis=1) / w.ac_w.sum()).to_numpy()
     events = _events(keep, w, gap, gap, rel_sigma, METHOD_SHARED,
                      {"tolerance": tol, "margin": margin, "_level": level},
-                     {"design": False, "cause": "set-point below nameplate on all inverters"})
+                     {"design": False, "cause": "set-point below nameplate on all inverters"},
+                     levels, e.where(mask).sum(axis=1).to_numpy())
     if w.export_limit_w:
         lim = float(w.export_limit_w)
         total = m.sum(axis=1, min_count=1).to_numpy()

@@ -2,14 +2,22 @@
 plant-wide stops with irradiance present.
 
 An interval is *judged* when the model expects at least ``min_expected_share`` of the
-inverter's AC rating (there is enough light that a working inverter would clearly produce).
+inverter's AC rating (there is enough light that a working inverter would clearly produce) and
+the sun stands at least ``min_elevation_deg`` (10 deg) high: lower, at air mass above about 5.6
+(Kasten & Young 1989), the model's spectral, incidence-angle and low-light terms are
+extrapolated (the SAPM spectral polynomial of King et al. 2004, SAND2004-3535, was fitted on
+air masses up to about 5 and some modules' fall to zero near sunrise; from memory), and a
+healthy plant may produce nothing while the model expects a tenth of its rating (common
+practice, as in the sun-elevation filters of performance-ratio analyses).
 A judged interval is *out* when the measured power is below ``near_zero`` of the expected
 power; with normal operation at a ratio near 1 (spread a few %), a ratio under 0.05 is many
 standard deviations away, so a false alarm from noise is practically impossible. A run of out
 intervals may bridge the night and unjudged low-light intervals, never a producing one, and
 is widened to the neighbouring low-light intervals where the inverter produced nothing, so
 start and end sit on the interval. Runs shorter than ``min_minutes`` are ignored.
-These limits are common practice (no published source).
+These limits are common practice (no published source). A plant of one inverter reports its
+stops on that inverter (the device that stopped). The energy band is
+:func:`perfcheck.detect.common.local_band` (the inverter's local level around the event).
 """
 
 from __future__ import annotations
@@ -17,21 +25,23 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, energy_band, runs, scope_of
+from perfcheck.detect.common import Event, Wide, energy_band, local_band, runs, scope_of
 
-METHOD = ("interval state: measured/expected below 5 % with at least 10 % of rating expected; "
-          "siblings producing (inverter) or all stopped (plant); common practice")
+METHOD = ("interval state: measured/expected below 5 % with at least 10 % of rating expected "
+          "and the sun above 10 deg; siblings producing (inverter) or all stopped (plant); "
+          "common practice")
 
 
-def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05
-           ) -> tuple[pd.DataFrame, pd.DataFrame]:
+def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
+           min_elevation_deg: float = 10.0) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Per interval and inverter: 1 out, 0 producing, -1 not judged; and 'produced nothing'.
 
     Returns ``(state, nothing)``; ``nothing`` marks intervals with expected > 0 where the
     inverter's measured power is below 1 % of its rating (used to widen a run).
     """
     e, m = w.expected, w.measured
-    judged = e.ge(w.ac_w * min_expected_share, axis=1) & m.notna()
+    high = (w.zenith <= 90.0 - min_elevation_deg).to_numpy()[:, None]
+    judged = e.ge(w.ac_w * min_expected_share, axis=1) & m.notna() & high
     ratio = m / e
     state = pd.DataFrame(-1, index=e.index, columns=e.columns, dtype=np.int8)
     state = state.mask(judged & (ratio >= near_zero), 0).mask(judged & (ratio < near_zero), 1)
@@ -40,8 +50,8 @@ def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05
 
 
 def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
-                scope: str, min_minutes: float, rel_sigma: float
-                ) -> tuple[list[Event], np.ndarray]:
+                scope: str, min_minutes: float, rel_sigma: float,
+                levels: pd.DataFrame | None) -> tuple[list[Event], np.ndarray]:
     """Runs of state 1 (bridging -1) to events; the mask of the intervals they cover."""
     pos = np.flatnonzero(state >= 0)
     mask = np.zeros(len(state), dtype=bool)
@@ -60,7 +70,13 @@ def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
         sl = slice(lo, hi)
         gap = (w.expected.iloc[sl][col].to_numpy() - w.measured.iloc[sl][col].to_numpy())
         energy = float(np.nansum(gap * step[sl, None]) / 3.6e6)
-        low, high = energy_band(energy, rel_sigma)
+        if levels is None:
+            low, high = energy_band(energy, rel_sigma)
+        else:
+            exp_kwh = float(np.nansum(w.expected.iloc[sl][col].to_numpy() * step[sl, None])
+                            / 3.6e6)
+            low, high = local_band(levels, col, w.day.iloc[lo], w.day.iloc[hi - 1], energy,
+                                   exp_kwh)
         events.append(Event(
             kind="outage", scope=scope, start=w.index[lo],
             end=w.index[hi - 1] + pd.Timedelta(seconds=float(step[hi - 1])),
@@ -94,8 +110,8 @@ def reported_state(reported: pd.DataFrame | None, devices: list[str], start: pd.
 
 
 def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
-           reported: pd.DataFrame | None = None, **kw: float
-           ) -> tuple[list[Event], pd.DataFrame]:
+           reported: pd.DataFrame | None = None, levels: pd.DataFrame | None = None,
+           **kw: float) -> tuple[list[Event], pd.DataFrame]:
     """Outage events and the (interval x inverter) mask of the intervals they cover.
 
     Parameters
@@ -105,6 +121,8 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
     min_minutes : shortest outage reported [min]
     reported : the status channels' states (ts, device, state), if the loggers write them:
         an outage during which they reported a state carries it as ``detail["reported_state"]``
+    levels : daily performance index per inverter (:func:`perfcheck.detect.common.daily_pi`),
+        for the energy band; without it the band is ``rel_sigma``'s
     """
     state, nothing = states(w, **kw)
     st, no = state.to_numpy(), nothing.to_numpy()
@@ -118,18 +136,22 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
     all_out = (judged.sum(axis=1) >= need) & ((st == 1) | ~judged).all(axis=1)
     any_prod = (st == 0).any(axis=1)
     plant_state = np.where(all_out, 1, np.where(any_prod, 0, -1)).astype(np.int8)
-    ev, pm = _events_for(plant_state, no.all(axis=1), w, ids, "plant", min_minutes, rel_sigma)
+    ev, pm = _events_for(plant_state, no.all(axis=1), w, ids,
+                         "plant" if len(ids) > 1 else scope_of(ids[0]), min_minutes, rel_sigma,
+                         levels)
     events += ev
     mask.loc[pm, :] = True
     if len(ids) > 1:
         for j, inv in enumerate(ids):
             s = st[:, j].copy()
             s[pm & (s == 1)] = -1  # already part of a plant stop
-            ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma)
+            ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma,
+                                 levels)
             events += ev
             mask.loc[im, inv] = True
     for e in events:
-        devices = e.evidence["inverters"] + (["plant"] if e.scope == "plant" else [])
+        whole = e.scope == "plant" or len(ids) == 1
+        devices = e.evidence["inverters"] + (["plant"] if whole else [])
         state = reported_state(reported, devices, e.start, e.end)
         if state is not None:
             e.detail["reported_state"] = state

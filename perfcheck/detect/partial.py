@@ -40,6 +40,7 @@ from perfcheck.detect.common import (
     coarsen,
     despike,
     energy_band,
+    local_band,
     scope_of,
 )
 from perfcheck.lazy import lazy_module
@@ -73,11 +74,15 @@ def daily_relative(w: Wide, usable: pd.DataFrame, siblings: bool = True,
 
 
 def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: float,
-           alpha: float = 1e-3, min_days: int = 3) -> tuple[list[Event], list[Footprint]]:
+           alpha: float = 1e-3, min_days: int = 3, levels: pd.DataFrame | None = None
+           ) -> tuple[list[Event], list[Footprint]]:
     """Partial-outage events with their footprints (share of expected power lost).
 
     The daily statistics are taken on 15-minute blocks (:func:`coarsen`), the energy on
-    the series as given.
+    the series as given. The energy band holds both the share's interval and, with
+    ``levels`` (daily performance index per inverter), the inverter's local level around
+    the event (:func:`perfcheck.detect.common.local_band`: the expected power the share is
+    taken of carries the model's bias).
     """
     wc, uc = coarsen(w, usable)
     daily = daily_relative(wc, uc)
@@ -87,7 +92,6 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: fl
               np.log(daily_relative(wc, uc & ~morning, min_intervals=2))]
     events: list[Event] = []
     prints: list[Footprint] = []
-    days_of = w.day.to_numpy()
     for inv in w.inverters:
         s = np.log(daily[inv].where(daily[inv] > 0)).dropna()
         if len(s) < 4 * min_days:
@@ -127,18 +131,17 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: fl
             share_lo = 1 - math.exp(g.mean - ref.mean + 1.96 * se)
             share_hi = 1 - math.exp(g.mean - ref.mean - 1.96 * se)
             d0, d1 = s.index[g.start], s.index[g.stop - 1]
-            rows = np.flatnonzero((days_of >= d0) & (days_of <= d1))
-            lo, hi = int(rows[0]), int(rows[-1]) + 1
+            lo, hi = _edges(w, usable, inv, d0, d1, math.exp(ref.mean), math.exp(g.mean))
             exp = w.expected[inv].to_numpy()[lo:hi]
             step = w.interval_s.to_numpy()[lo:hi]
             energy = float(np.nansum(exp * share * step) / 3.6e6)
-            lo_e, hi_e = energy_band(energy, rel_sigma)
+            lo_e, hi_e = (energy_band(energy, rel_sigma) if levels is None else
+                          local_band(levels, [inv], d0, d1, energy, energy))
             k = round(share * n_str)
             ev = Event(
                 kind="partial_outage", scope=scope_of(inv),
-                start=pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
-                end=(pd.Timestamp(d1) + pd.Timedelta(days=1)).tz_localize(w.tz)
-                .tz_convert("UTC"),
+                start=w.index[lo],
+                end=w.index[hi - 1] + pd.Timedelta(seconds=float(w.interval_s.iloc[hi - 1])),
                 energy_loss_kwh=energy,
                 energy_loss_kwh_low=max(0.0, min(lo_e, energy * share_lo / share)),
                 energy_loss_kwh_high=max(hi_e, energy * share_hi / share),
@@ -155,6 +158,42 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: fl
             events.append(ev)
             prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share)))
     return events, prints
+
+
+def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Timestamp,
+           level_ok: float, level_low: float) -> tuple[int, int]:
+    """Rows [lo, hi) of the lost strings, to the interval: the step from ``level_ok`` to
+    ``level_low`` of the interval ratio (to siblings, as the daily value) searched from the
+    day before ``d0`` through ``d0``, and back between ``d1`` and the day after, each at the
+    split with the least squared distance to the two known levels (a lost string is a step;
+    least-squares change-point with known levels, Hinkley 1970, Biometrika 57:1, from
+    memory). Without usable intervals there, the days' edges."""
+    days = w.day.to_numpy()
+    r = (w.measured[inv] / w.expected[inv]).where(usable[inv])
+    if len(w.inverters) > 1:
+        r = r / (w.measured / w.expected).where(usable).drop(columns=inv).median(axis=1)
+    r = r.to_numpy()
+    one = pd.Timedelta(days=1)
+
+    def split(a: pd.Timestamp, b: pd.Timestamp, first: float, then: float) -> int | None:
+        rows = np.flatnonzero((days >= a) & (days <= b))
+        ok = rows[np.isfinite(r[rows])]
+        if len(ok) < 2:
+            return None
+        cost = (r[ok] - first) ** 2 - (r[ok] - then) ** 2  # > 0 where 'then' fits better
+        total = np.r_[0.0, np.cumsum(cost)]  # split k: the first k are 'first'
+        k = int(np.argmax(total[-1] - total))  # maximises the fit of the 'then' tail
+        return int(ok[k]) if k < len(ok) else None
+
+    rows = np.flatnonzero((days >= d0) & (days <= d1))
+    lo, hi = int(rows[0]), int(rows[-1]) + 1
+    start = split(d0 - one, d0, level_ok, level_low)
+    stop = split(d1, d1 + one, level_low, level_ok)
+    if start is not None and start < hi:
+        lo = start
+    if stop is not None and stop > lo:
+        hi = stop
+    return lo, hi
 
 
 def _edge_steps(x: np.ndarray, start: int, stop: int, k: int) -> list[float]:

@@ -7,25 +7,34 @@ azimuth (``az_step`` degrees) and elevation (``el_step`` degrees). The deficit o
 shares (soiling, degradation, a lost string, model bias of the day) cancels. Per bin, growth is
 tested on the daily mean deficits: with more than a year of data, year-on-year pairs (the same
 sun position a year later; the model's own shape errors at that sun position repeat and cancel)
-with a one-sided t test; with less, the trend over time (statsmodels OLS, HC3 standard errors).
+with a one-sided t test; with less, the trend over time (statsmodels OLS; standard errors
+clustered by month where the bin's days span four months or more, HC3 otherwise).
 A bin whose one-sided p-value is below ``alpha`` divided by the number of bins tested
 (Bonferroni) and whose growth is at least ``min_deficit`` per year is shaded by a growing
 obstruction; its neighbouring bins join the region at the plain level ``alpha`` (an
 obstruction is one connected piece), and so do the bins below it down to the horizon (an
 obstruction stands on the ground). In each such bin a change-point search on its deficits
 gives the unshaded level (the first segment) and the day the shade arrived (the first segment
-above it by ``min_deficit``). Connected shaded bins of one inverter make one event: the
+above it by ``min_deficit``). The shaded bins of one inverter make one event (bins of one
+obstruction need not touch: between two shaded bins a bin with few clear days is not
+significant, and a region apart would start the finding at its own small loss): the
 azimuth range, the top elevation, the first arrival (the event lasts to the end of the data:
 the obstruction is still there), the energy (each interval's deficit above its bin's unshaded
 level, since the arrival, against the day's ratio outside the shaded bins) and a proposed
-horizon profile.
+horizon profile. The event starts on the first day its loss is material: the day from which
+the loss estimated for the region, as a share of the inverter's expected energy of the day
+(median over ``smooth_days`` days centred on it, as one day's estimate carries the day's noise),
+exceeds ``material_share`` (1 %, common practice); the bins' arrival times are kept in the
+evidence (the shade is there, small, from the first of them).
 
 ``min_deficit`` 5 % of the interval's power, common practice; ``alpha`` 0.01.
 
 References
 ----------
 Regression over time: ordinary least squares with heteroscedasticity-consistent errors
-(MacKinnon & White 1985, J. Econometrics 29:305, HC3) (from memory). The binning by sun
+(MacKinnon & White 1985, J. Econometrics 29:305, HC3); clustered standard errors with t on
+clusters - 1 degrees of freedom (Cameron & Miller 2015, J. Human Resources 50(2):317) (both
+from memory). The binning by sun
 position follows the usual shading-loss diagrams (common practice).
 """
 
@@ -49,7 +58,7 @@ sm = lazy_module("statsmodels.api")
 stats = lazy_module("scipy.stats")
 
 METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, OLS "
-          "trend over time per bin (HC3), Bonferroni over bins")
+          "trend over time per bin (errors clustered by month, or HC3), Bonferroni over bins")
 
 
 def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
@@ -59,9 +68,21 @@ def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
     return 1 - r / med
 
 
-def _bin_trend(t_years: np.ndarray, y: np.ndarray) -> tuple[float, float, float, float]:
+MIN_MONTHS = 4  # least blocks for clustered errors (common practice: a few clusters at least)
+
+
+def _bin_trend(t_years: np.ndarray, y: np.ndarray, month: np.ndarray | None = None
+               ) -> tuple[float, float, float, float]:
+    """OLS trend of a bin's daily deficits; standard errors robust to heteroscedasticity
+    (HC3), or, with ``month`` (a block number per value) spanning at least four blocks,
+    clustered by block with Student's t on blocks - 1 degrees of freedom: deficits of days
+    in the same weeks share their weather and sun path (autocorrelated), which HC3 takes as
+    independent and so overstates the evidence of a trend."""
     x = sm.add_constant(t_years)
-    res = sm.OLS(y, x).fit(cov_type="HC3")
+    if month is not None and len(np.unique(month)) >= MIN_MONTHS:
+        res = sm.OLS(y, x).fit(cov_type="cluster", cov_kwds={"groups": month}, use_t=True)
+    else:
+        res = sm.OLS(y, x).fit(cov_type="HC3")
     slope, se = float(res.params[1]), float(res.bse[1])
     p_one = float(res.pvalues[1] / 2) if slope > 0 else 1.0
     return slope, se, float(res.params[0]), p_one
@@ -69,7 +90,8 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray) -> tuple[float, float, float,
 
 def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
     """Growth test of one bin's daily deficits: year-on-year pairs where the data allow,
-    else the OLS trend over time. One-sided p-value of growth and its size."""
+    else the OLS trend over time (:func:`_bin_trend`). One-sided p-value of growth and its
+    size."""
     t = g["t"].to_numpy()
     d = g["d"].to_numpy()
     if np.ptp(t) >= 1.0 + 10 / 365.25:
@@ -88,8 +110,9 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
             np.mean(delta)), "p_value": float(res.pvalue), "pairs": int(len(delta))}
     if np.ptp(t) < 0.25:
         return None
-    slope, se, icpt, p = _bin_trend(t, d)
-    return {"test": "OLS trend, HC3, one-sided", "growth_per_year": slope, "p_value": p,
+    slope, se, icpt, p = _bin_trend(t, d, g["dayno"].to_numpy() // 30)
+    return {"test": "OLS trend, clustered by month, one-sided", "growth_per_year": slope,
+            "p_value": p,
             "pairs": int(len(d))}
 
 
@@ -108,8 +131,8 @@ def _baseline_onset(g: pd.DataFrame, min_deficit: float, alpha: float) -> tuple[
 
 def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, tuple],
            az_step: float = 10.0, el_step: float = 5.0, alpha: float = 0.01,
-           min_deficit: float = 0.05, min_days: int = 8
-           ) -> tuple[list[Event], list[Footprint], pd.DataFrame]:
+           min_deficit: float = 0.05, min_days: int = 8, material_share: float = 0.01,
+           smooth_days: int = 15) -> tuple[list[Event], list[Footprint], pd.DataFrame]:
     """Shading events, footprints, and the mask of the intervals in shaded bins.
 
     The bins are tested on 10-minute blocks (:func:`coarsen`); the energy is taken on the
@@ -175,7 +198,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         med = daily_med.reindex(days).to_numpy()
         e_int = w.expected[inv].to_numpy()
         d_all = 1 - w.measured[inv].to_numpy() / np.where(e_int > 0, e_int * med, np.nan)
-        for region in _regions(hits):
+        for region in [hits] if hits else []:
             loss = np.zeros(len(w.index))
             sel = np.zeros(len(w.index), dtype=bool)
             for h in region:
@@ -186,8 +209,10 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                 sel |= m
             if not sel.any():
                 continue
-            shaded_mask[inv] = shaded_mask[inv].to_numpy() | sel
             energy = float(np.sum(loss * step) / 3.6e6)
+            if not energy > 0:  # growth in the bins' deficits, but no loss: no finding
+                continue
+            shaded_mask[inv] = shaded_mask[inv].to_numpy() | sel
             low, high = energy_band(energy, rel_sigma, float(np.sqrt(np.nansum(
                 (np.where(sel, e_int, 0.0) * rel_sigma * step / 3.6e6) ** 2))) * 3)
             tested_bins = [h for h in region if h["p_value"] is not None] or region
@@ -200,8 +225,9 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                 prof[a0] = max(prof.get(a0, 0.0), (h["el"] + 1) * el_step)
             proposal = _horizon_proposal(prof, az_step, horizon.get(inv, ()))
             pos = np.flatnonzero(sel)
+            first = _material_start(w, loss, e_int, material_share, smooth_days)
             ev = Event(
-                kind="shading", scope=scope_of(inv), start=w.index[pos[0]],
+                kind="shading", scope=scope_of(inv), start=max(first, w.index[pos[0]]),
                 end=w.index[-1] + pd.Timedelta(seconds=float(step[-1])),
                 energy_loss_kwh=energy, energy_loss_kwh_low=max(0.0, low),
                 energy_loss_kwh_high=high, method=METHOD,
@@ -212,6 +238,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                         "azimuth_to_deg": (max(azs) + 1) * az_step,
                         "top_elevation_deg": (max(els) + 1) * el_step,
                         "since": onset.tz_convert(w.tz).date(),
+                        "first_arrival": w.index[pos[0]].tz_convert(w.tz).isoformat(),
                         "proposed_horizon": proposal,
                         "note": "an obstruction growing in this part of the sky (vegetation, "
                                 "a new building); the proposed horizon adds it to the site file"})
@@ -221,6 +248,22 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                 f = np.where(sel[lo:hi] & (e_int[lo:hi] > 0), loss[lo:hi] / e_int[lo:hi], 0.0)
             prints.append(Footprint(ev, lo, hi, [inv], factor=np.nan_to_num(f)[:, None]))
     return events, prints, shaded_mask
+
+
+def _material_start(w: Wide, loss: np.ndarray, expected: np.ndarray, share: float,
+                    smooth_days: int) -> pd.Timestamp:
+    """Start (UTC) of the first site-local day whose smoothed loss share of the day's
+    expected energy exceeds ``share`` (the first interval of the data when none does)."""
+    days = w.day.to_numpy()
+    step = w.interval_s.to_numpy()
+    lost = pd.Series(loss * step).groupby(days).sum()
+    exp = pd.Series(np.where(np.isfinite(expected) & (expected > 0), expected, 0.0) * step
+                    ).groupby(days).sum()
+    ratio = (lost / exp.where(exp > 0)).rolling(smooth_days, center=True, min_periods=3).median()
+    over = ratio.index[ratio.to_numpy() > share]
+    if not len(over):
+        return w.index[0]
+    return pd.Timestamp(over[0]).tz_localize(w.tz).tz_convert("UTC")
 
 
 def labelled_bin(h: dict, az_step: float, el_step: float) -> dict:
@@ -257,24 +300,6 @@ def _below(hits: list[dict], groups: dict, key_all: np.ndarray, elev: np.ndarray
                         "growth_per_year": None, "p_value": None, "pairs": 0,
                         "bonferroni": False, "unshaded_deficit": base, "onset_years": onset,
                         "days": int(len(groups.get((a, e), [])))})
-    return out
-
-
-def _regions(hits: list[dict]) -> list[list[dict]]:
-    """Group bins that touch (8-neighbourhood in azimuth/elevation bins)."""
-    left = {(h["az"], h["el"]): h for h in hits}
-    out = []
-    while left:
-        seed = next(iter(left))
-        stack, region = [seed], []
-        while stack:
-            k = stack.pop()
-            if k not in left:
-                continue
-            region.append(left.pop(k))
-            a, e = k
-            stack += [(a + da, e + de) for da in (-1, 0, 1) for de in (-1, 0, 1)]
-        out.append(region)
     return out
 
 
