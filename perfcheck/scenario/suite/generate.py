@@ -25,6 +25,7 @@ import pvlib
 from perfcheck.scenario.faults import NO_FAULTS, Faults, entry, iso, window
 from perfcheck.scenario.logs import _main_labels, fmt, sensor_readings
 from perfcheck.scenario.plant import Physics, Plant, array_irradiance, tree_factor
+from perfcheck.scenario.sitefile import METER_AC_LOSS_PCT
 from perfcheck.scenario.suite import physics as truth_physics
 from perfcheck.scenario.suite.climate import climate, make_weather, read_typical_year
 from perfcheck.scenario.suite.design import PlantSpec, draw_plant
@@ -61,6 +62,8 @@ def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str) -> s
     lines += ["[losses]", "wiring_pct = 1.5", f"mismatch_pct = {SITE_MISMATCH_PCT}",
               "nameplate_pct = 0.5", "lid_pct = 1.5", "other_pct = 0.5",
               "degradation_pct_per_year = 0.5", "",
+              # the register comes from the demo's meter (sensor_readings): its AC loss
+              "[meter]", f"ac_loss_pct = {METER_AC_LOSS_PCT}", "",
               "[model]", f"poa_sensor_tilt_deg = {first.tilt_deg}",
               f"poa_sensor_azimuth_deg = {first.azimuth_deg}", "",
               "[[loggers]]", f'name = "{MAIN_LOGGER}"', f'match = "{MAIN_LOGGER}_*.csv"',
