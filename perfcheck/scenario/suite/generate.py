@@ -25,6 +25,7 @@ import pvlib
 from perfcheck.scenario.faults import ATTRIBUTION_ORDER, NO_FAULTS, Faults, entry, iso, window
 from perfcheck.scenario.logs import _main_labels, fmt, sensor_readings
 from perfcheck.scenario.plant import Physics, Plant, array_irradiance, run_plant, tree_factor
+from perfcheck.scenario.sitefile import METER_AC_LOSS_PCT
 from perfcheck.scenario.suite import physics as truth_physics
 from perfcheck.scenario.suite.climate import climate, make_weather, read_typical_year
 from perfcheck.scenario.suite.design import PlantSpec, draw_plant
@@ -62,7 +63,9 @@ def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str,
     first = spec.inverters[0].arrays[0]
     lines += ["[losses]", "wiring_pct = 1.5", f"mismatch_pct = {SITE_MISMATCH_PCT}",
               "nameplate_pct = 0.5", "lid_pct = 1.5", "other_pct = 0.5",
-              "degradation_pct_per_year = 0.5", ""]
+              "degradation_pct_per_year = 0.5", "",
+              # the register comes from the demo's meter (sensor_readings): its AC loss
+              "[meter]", f"ac_loss_pct = {METER_AC_LOSS_PCT}", ""]
     if spec.tracker is None:
         lines += ["[model]", f"poa_sensor_tilt_deg = {first.tilt_deg}",
                   f"poa_sensor_azimuth_deg = {first.azimuth_deg}", ""]
@@ -308,7 +311,9 @@ def effective_fault(e: dict) -> bool:
 
 def monthly_truth(site: Site, times: pd.DatetimeIndex, ph: Physics, plant: Plant,
                   interval_min: int) -> list[dict]:
-    """True plant PR per month: AC energy over DC-rating-weighted true POA irradiation."""
+    """True plant PR per month at the export meter (IEC 61724-1: the plant's final yield is
+    the energy delivered there): AC energy less the meter's AC loss over DC-rating-weighted
+    true POA irradiation; ``pr_inverters`` is the same at the inverters."""
     h = interval_min / 60 / 1000
     ref = sum(arr.dc_kwp * ph.poa[inv.id][k][0] for inv in site.inverters
               for k, arr in enumerate(inv.arrays))
@@ -316,9 +321,11 @@ def monthly_truth(site: Site, times: pd.DatetimeIndex, ph: Physics, plant: Plant
     frame = pd.DataFrame({"month": month, "energy": plant.ac.sum(axis=0) * h, "ref": ref * h})
     out = []
     for m, g in frame.groupby("month", sort=True):
+        pr = float(g["energy"].sum() / g["ref"].sum())
         out.append({"month": m, "energy_kwh": round(float(g["energy"].sum()), 3),
                     "reference_kwh": round(float(g["ref"].sum()), 3),
-                    "pr": round(float(g["energy"].sum() / g["ref"].sum()), 5)})
+                    "pr": round(pr * (1 - METER_AC_LOSS_PCT / 100), 5),
+                    "pr_inverters": round(pr, 5)})
     return out
 
 
