@@ -67,6 +67,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 from scipy import stats
+from scipy.special import xlogy
 
 from perfcheck import physics as ph
 from perfcheck.detect.common import (
@@ -301,28 +302,25 @@ def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None,
     return w2, events, design
 
 
-WIND_QUANTILES = (0.9, 0.95, 0.98, 0.99, 0.995, 0.999)  # wind bins searched for the limit
+WIND_FLOOR_QUANTILE = 0.9  # the stow limit is searched among the windiest tenth of daylight
 MIN_SHAPE = 0.05  # rows where stow and tracking differ by less than 5 % tell nothing
 
 
 def inferred_limit(w: Wide, inverters: list[str], wind: np.ndarray,
                    ratio: dict[str, np.ndarray], alpha: float) -> float | None:
-    """The wind speed above which the rows lie at their stow angle, read from the data.
+    """The wind speed at and above which the rows lie at their stow angle, read from the data.
 
-    The daylight wind speeds are cut at their 90 to 99.9 % quantiles. From the windiest
-    quantile down, the rows at or above it are stow once, on those where the stow plane and
-    the tracked plane differ by at least ``MIN_SHAPE``, the power is nearer the stow plane's
-    than the tracked plane's (each at the inverter's usual level) significantly more often
-    than not: one-sided sign test at ``alpha`` (Conover 1999, Practical Nonparametric
-    Statistics, sec. 3.4; from memory). Below that, each lower bin joins while most of its
-    rows are nearer the stow plane (the median rule). The limit is the lowest edge reached;
-    None when no quantile's rows are significantly stow.
+    On the daylight rows where the stow plane and the tracked plane differ by at least
+    ``MIN_SHAPE``, each inverter's power is nearer the stow plane's or the tracked plane's
+    (each at the inverter's usual level): a Bernoulli trial whose rate steps up at the limit.
+    The limit is that step (:func:`stow_change_point`), searched at every logged wind speed
+    (the logger's own resolution) at or above the daylight wind's ``WIND_FLOOR_QUANTILE``
+    quantile; None when no step is significant.
     """
     sun = w.expected[inverters].ge(w.ac_w[inverters] * 0.2, axis=1).any(axis=1).to_numpy()
     day_wind = wind[sun & np.isfinite(wind)]
     if len(day_wind) < 100:
         return None
-    edges = np.unique(np.quantile(day_wind, WIND_QUANTILES))
     nearer = np.zeros(len(wind))
     tested = np.zeros(len(wind))
     for inv in inverters:
@@ -333,19 +331,46 @@ def inferred_limit(w: Wide, inverters: list[str], wind: np.ndarray,
         c = float(np.nanmedian(y[ok])) if ok.any() else 0.0
         nearer += ok & (np.abs(y - c - lr) < np.abs(y - c))
         tested += ok
-    limit = None
-    for lo, hi in zip(edges[::-1], [np.inf, *edges[::-1][:-1]], strict=True):
-        if limit is None:  # all the rows at or above lo, until they are significantly stow
-            rows = wind >= lo
-            n, k = int(tested[rows].sum()), int(nearer[rows].sum())
-            if n >= 6 and stats.binom.sf(k - 1, n, 0.5) < alpha:
-                limit = float(lo)
-            continue
-        rows = (wind >= lo) & (wind < hi)  # then down, bin by bin, while most rows are stow
-        if not nearer[rows].sum() > 0.5 * tested[rows].sum():
-            break
-        limit = float(lo)
-    return limit
+    rows = (wind >= np.quantile(day_wind, WIND_FLOOR_QUANTILE)) & (tested > 0)
+    return stow_change_point(wind[rows], tested[rows], nearer[rows], alpha)
+
+
+def stow_change_point(wind: np.ndarray, tested: np.ndarray, nearer: np.ndarray,
+                      alpha: float) -> float | None:
+    """The logged wind speed at and above which the rows' outcomes step up to mostly stow.
+
+    Parameters
+    ----------
+    wind : wind speed of each row [m/s]
+    tested, nearer : per row, the trials and those nearer the stow plane [-]
+    alpha : false-alarm probability of the whole search
+
+    The maximum-likelihood change point of a binomial sequence ordered by ``wind`` (Hinkley &
+    Hinkley 1970), among the splits above which most trials are nearer the stow plane; kept
+    when a one-sided sign test of the trials at or above it passes at ``alpha`` over the
+    number of splits searched (Bonferroni), else None.
+    """
+    if len(wind) == 0:
+        return None
+    speeds, at = np.unique(wind, return_inverse=True)
+    n_at = np.bincount(at, tested, minlength=len(speeds))
+    k_at = np.bincount(at, nearer, minlength=len(speeds))
+    n_hi, k_hi = np.cumsum(n_at[::-1])[::-1], np.cumsum(k_at[::-1])[::-1]  # at or above
+    n_lo, k_lo = n_hi[0] - n_hi, k_hi[0] - k_hi  # below
+    loglik = _bernoulli_loglik(k_hi, n_hi) + _bernoulli_loglik(k_lo, n_lo)
+    loglik = np.where(k_hi > 0.5 * n_hi, loglik, -np.inf)
+    if not np.isfinite(loglik).any():
+        return None
+    i = int(np.argmax(loglik))
+    p = stats.binom.sf(k_hi[i] - 1, n_hi[i], 0.5)
+    return float(speeds[i]) if p < alpha / len(speeds) else None
+
+
+def _bernoulli_loglik(k: np.ndarray, n: np.ndarray) -> np.ndarray:
+    """Log-likelihood of k successes in n Bernoulli trials at their own rate k / n."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p = np.where(n > 0, k / np.maximum(n, 1), 0.5)
+    return xlogy(k, p) + xlogy(n - k, 1 - p)
 
 
 def _day_runs(days: np.ndarray, gap_days: int) -> list[tuple[np.datetime64, np.datetime64]]:
