@@ -21,17 +21,21 @@ candidate explains exceeds the one-sided 1 - alpha quantile of the daily model e
 alone, inside the model's error, is not reported). Consecutive such days with one angle (or
 offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
 inside, join it while the event's angle fits them better than tracking; its onset and end are
-placed within their days by the split that fits best (:func:`_split`). An event is reported
-when its most significant day is significant over all the inverter's days tested (its p-value
-times their number below alpha, Bonferroni: at most about alpha false events per inverter and
-period), or when the angle channel shows it. Where a
-``tracker_angle`` channel is logged (the rows of the first tracker array), a day on which it
-stayed within the pointing tolerance while the designed rotation swept more than
-``MIN_SWEEP_DEG`` is a stall day of those rows at the channel's angle, and a day on which it
-followed the design by a constant offset beyond the tolerance is an out-of-step day. A day
-whose shape more than half of the tracker inverters share is taken as the sky's or the
-model's, not the rows' (rows out of step differ from their neighbours); a plant-wide stall is
-therefore found from the angle channel only.
+placed within their days by the split that fits best (:func:`_split`). Where the plant has
+other tracker inverters, a day whose shape more than half of them share is taken as the sky's
+or the model's, not the rows' (rows out of step differ from their neighbours; a plant-wide
+stall is therefore found from the angle channel only), and an event is reported when its most
+significant day is significant over all the inverter's days tested (its p-value times their
+number below alpha, Bonferroni). An inverter with no sibling has no such reference, and its
+day gains have a tail far heavier than the normal one: its event is reported when the run's
+days rank so high among its days, so persistently, that chance would place them there with
+probability below alpha (:func:`run_p_value`). Either way an event is also reported when the
+angle channel shows it. Where a ``tracker_angle`` channel is logged (the rows of the first
+tracker array), a day on which it stayed within the pointing tolerance while the designed
+rotation swept more than ``MIN_SWEEP_DEG`` is a stall day of those rows at the channel's
+angle, a day on which it followed the design by a constant offset beyond the tolerance is an
+out-of-step day, and a day on which it followed the design within the tolerance is no stall
+or out-of-step day of that inverter, whatever the power's shape.
 
 The energy is a share of the expected power (ledger class ``share``): 1 - r of the event's
 angle, interval by interval (for rows out of step, whose loss is mostly a level, scaled to the
@@ -213,6 +217,43 @@ def day_fits(y: np.ndarray, logr: np.ndarray, codes: np.ndarray, n_days: int) ->
     scale = max(1.4826 * float(np.median(np.abs(g - med))), MIN_GAIN_SCALE)
     p = np.where(np.isfinite(gain), stats.norm.sf((gain - med) / scale), 1.0)
     return DayFits(n, sse0, sse1, best, gain, p, sse_all)
+
+
+def run_p_value(gain: np.ndarray, seeds: np.ndarray, span_days: int) -> float:
+    """False-alarm probability of a run of days of one inverter judged on its own.
+
+    With no sibling inverter the day gains have no reference for the sky's and the model's
+    shapes, and their tail is far heavier than a normal one: a z-score's p-value is not what
+    it says. A stall holds its angle day after day, while the sky's shapes come and go: the
+    test is the persistence of high-ranked days. Under the null the days' gains are
+    exchangeable, so the chance that a window of ``span_days`` days holds at least m of the
+    top k days of n is the hypergeometric tail; m is the number of ``seeds`` (the run's
+    significant days), k the worst rank among them (1 = highest gain). Bonferroni over the
+    windows that could have been picked (n start days times ``span_days`` lengths) bounds the
+    false alarms at ``alpha`` per inverter and period. One day alone is never an event this
+    way (the bound is at least k), so a stall is found from about three days of one angle.
+
+    Parameters
+    ----------
+    gain : ln(SSE0 / SSE1) per day, NaN where the day was not tested
+    seeds : mask of the run's significant days
+    span_days : calendar days from the run's first to its last
+
+    References
+    ----------
+    Hypergeometric law of draws without replacement (Feller 1968, An Introduction to
+    Probability Theory and Its Applications I, sec. II.6); a window's count of marked days as a
+    scan statistic with a Bonferroni bound over windows: Glaz, Naus & Wallenstein 2001, Scan
+    Statistics, ch. 1 (from memory).
+    """
+    ok = np.isfinite(gain)
+    n, m = int(ok.sum()), int((seeds & ok).sum())
+    if m == 0:
+        return 1.0
+    rank = stats.rankdata(-gain[ok], method="max")  # ties count against the run
+    k = int(rank[seeds[ok]].max())
+    span = min(span_days, n)
+    return min(1.0, n * span * float(stats.hypergeom.sf(m - 1, n, k, span)))
 
 
 def typical_shape(y: np.ndarray, index: pd.DatetimeIndex, interval_s: float,
@@ -414,7 +455,8 @@ def candidates(w: Wide, array: Array, s: Sky, theta: np.ndarray) -> Candidates:
 
 def angle_days(w: Wide, angle: pd.Series | None, theta: np.ndarray
                ) -> dict[np.datetime64, tuple[str, float]]:
-    """Days the ``tracker_angle`` channel shows a stall (its angle) or an offset."""
+    """Days the ``tracker_angle`` channel shows a stall (its angle), an offset, or the rows
+    following the design (``("track", 0.0)``: within the pointing tolerance all day)."""
     if angle is None or angle.dropna().empty:
         return {}
     a = angle.reindex(w.index).to_numpy(dtype=float)
@@ -428,7 +470,9 @@ def angle_days(w: Wide, angle: pd.Series | None, theta: np.ndarray
         lo, hi = np.percentile(g["a"], [5, 95])
         off = float(np.median(g["d"]))
         spread = float(np.percentile(g["d"], 90) - np.percentile(g["d"], 10))
-        if hi - lo <= 2 * ANGLE_TOLERANCE_DEG:
+        if float(np.percentile(np.abs(g["d"]), 90)) <= ANGLE_TOLERANCE_DEG:
+            out[np.datetime64(day)] = ("track", 0.0)
+        elif hi - lo <= 2 * ANGLE_TOLERANCE_DEG:
             out[np.datetime64(day)] = ("stall", float(np.median(g["a"])))
         elif abs(off) > 2 * ANGLE_TOLERANCE_DEG and spread <= 2 * ANGLE_TOLERANCE_DEG:
             out[np.datetime64(day)] = ("step", off)
@@ -470,16 +514,27 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         found[inv] = (theta, cand, y, fits, seed)
     _drop_shared({inv: f[4] for inv, f in found.items()})
     channel = angle_days(w, angle, found[first][0])
-    found[first][4].update(channel)
+    tracking = [d for d, lab in channel.items() if lab[0] == "track"]
+    shown = {d: lab for d, lab in channel.items() if lab[0] != "track"}
+    for d in tracking:  # the logged rows turned as designed: no shape makes them stalled
+        found[first][4].pop(d, None)
+    found[first][4].update(shown)
+    alone = len(found) == 1  # no sibling: the days' ranks, not their z-scores, are the test
     events: list[Event] = []
     prints: list[Footprint] = []
     for inv, (theta, cand, y, fits, seed) in found.items():
         tested = max(int(np.isfinite(fits.gain).sum()), 1)
-        for lab, first_day, last_day in _group(seed, days, cand, fits):
+        blocked = tracking if inv == first else []
+        for lab, first_day, last_day in _group(seed, days, cand, fits, blocked):
             run = (days >= first_day) & (days <= last_day)
-            seen = inv == first and any(first_day <= d <= last_day for d in channel)
-            if not (seen or float(np.min(fits.p_value[run])) * tested < alpha):
-                continue  # an event is significant over the inverter's days (Bonferroni)
+            seen = inv == first and any(first_day <= d <= last_day for d in shown)
+            if alone:
+                span = int((last_day - first_day) / np.timedelta64(1, "D")) + 1
+                p_run = run_p_value(fits.gain, run & np.isin(days, list(seed)), span)
+            else:  # the most significant day over the inverter's days (Bonferroni)
+                p_run = float(np.min(fits.p_value[run])) * tested
+            if not (seen or p_run < alpha):
+                continue
             ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
                             y, rel_sigma, z, fits, days, alpha)
             if ev is not None:
@@ -519,15 +574,17 @@ def _drop_shared(seeds: dict[str, dict]) -> None:
             del seed[d]
 
 
-def _group(seed: dict, days: np.ndarray, cand: Candidates, fits: DayFits
+def _group(seed: dict, days: np.ndarray, cand: Candidates, fits: DayFits,
+           blocked: list[np.datetime64]
            ) -> list[tuple[tuple[str, float], np.datetime64, np.datetime64]]:
     """Runs of seed days of one family, joined over the days between them that the run's
     candidate fits better than tracking (or that have no test), or single odd days, and
-    extended by such days on either side; no day in two runs. The run's angle (or offset) is
-    the median of its seed days' (a day only partly stalled fits an angle between)."""
+    extended by such days on either side; no day in two runs nor in ``blocked`` (days the
+    angle channel shows the rows turning as designed). The run's angle (or offset) is the
+    median of its seed days' (a day only partly stalled fits an angle between)."""
     out: list = []
-    used = np.zeros(len(days), dtype=bool)
     pos = {d: i for i, d in enumerate(days)}
+    used = np.isin(np.arange(len(days)), [pos[d] for d in blocked if d in pos])
     for d in sorted(seed):
         if used[pos[d]]:
             continue
