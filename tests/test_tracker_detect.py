@@ -175,3 +175,16 @@ def test_single_inverter_stall_found_by_its_persistence() -> None:
     assert [e.kind for e in stalls] == ["tracker_stall"]
     for found, true in ((stalls[0].start, fault["start"]), (stalls[0].end, fault["end"])):
         assert abs(found - pd.Timestamp(true, tz="Europe/Zurich")) <= pd.Timedelta(days=1)
+
+
+def test_channel_showing_the_rows_tracking_overrides_the_power_shape() -> None:
+    # invented truth: INV1's power has a stall's shape for five days, but its tracker_angle
+    # channel shows the rows following the design all along; a measured angle outweighs an
+    # inferred one (common practice), so no stall of INV1 is reported (its loss is left to
+    # the other detectors)
+    site = make_site(2, tracker=TRACKER)
+    df = make_aligned(site, start="2024-05-01", days=40, faults=[{**STALL, "inverter": "INV1"}])
+    w = wide(df, {"INV1": 1e4, "INV2": 1e4}, None, site.tz)
+    theta = tracker.designed_rotation(w, site.inverters[0].arrays[0])
+    found = detect.analyse(df, site, angle=pd.Series(theta, index=w.index))["events"]
+    assert not [e for e in found if e.kind.startswith("tracker_") and e.scope == "inverter:INV1"]
