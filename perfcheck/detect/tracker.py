@@ -231,7 +231,10 @@ def run_p_value(gain: np.ndarray, seeds: np.ndarray, span_days: int) -> float:
     significant days), k the worst rank among them (1 = highest gain). Bonferroni over the
     windows that could have been picked (n start days times ``span_days`` lengths) bounds the
     false alarms at ``alpha`` per inverter and period. One day alone is never an event this
-    way (the bound is at least k), so a stall is found from about three days of one angle.
+    way (the bound is at least k); over a year at alpha = 1e-3, the three highest-ranked days
+    in a row are enough (365 x 3 / C(365, 3) = 1.4e-4), over sixty days four (60 x 4 /
+    C(60, 4) = 4.9e-4). Weather that lasts for days (snow lying on the modules) breaks the
+    exchangeability: the bound holds for the days the usual day shape describes.
 
     Parameters
     ----------
