@@ -25,9 +25,11 @@ TRACKER = {"tracking": "single_axis", "axis_tilt_deg": 0.0, "axis_azimuth_deg": 
 
 def make_site(n_inverters: int = 3, ac_kw: float = 10.0, dc_kwp: float = 12.0,
               strings: int = 4, export_limit_kw: float | None = None,
-              detect: dict | None = None, tracker: dict | None = None) -> Site:
+              detect: dict | None = None, tracker: dict | None = None,
+              poa_logger: str | None = None) -> Site:
     """``tracker``: the keys of a single-axis tracker array (e.g. :data:`TRACKER`) for every
-    array instead of the fixed 30 deg south plane."""
+    array instead of the fixed 30 deg south plane; ``poa_logger``: the logger that records the
+    POA sensor (``"synthetic"``, the inverters' logger, or another name; None: not stated)."""
     plane = tracker or {"tilt_deg": 30.0, "azimuth_deg": 180.0}
     raw = {
         "site": {"name": "Synthetic Test Field", "latitude_deg": LAT, "longitude_deg": LON,
@@ -44,6 +46,12 @@ def make_site(n_inverters: int = 3, ac_kw: float = 10.0, dc_kwp: float = 12.0,
             {"name": f"p{i + 1}", "quantity": "ac_power", "unit": "W", "inverter": f"INV{i + 1}"}
             for i in range(n_inverters)]}],
     }
+    poa = {"name": "g", "quantity": "poa", "unit": "W/m2"}
+    if poa_logger == "synthetic":
+        raw["loggers"][0]["columns"].append(poa)
+    elif poa_logger is not None:
+        raw["loggers"].append({"name": poa_logger, "interval_min": 15, "time": {
+            "columns": ["t"], "kind": "iso"}, "columns": [poa]})
     if export_limit_kw is not None:
         raw["site"]["export_limit_kw"] = export_limit_kw
     if detect:
@@ -65,7 +73,8 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
       inverter limited to that share of its rating)
     - ``{"kind": "degradation", "rate_pct_per_year": -1.0}``
     - ``{"kind": "sensor", "start": ts, "end": ts, "scale": 0.9}`` (POA sensor reads low)
-    - ``{"kind": "clock", "start": ts, "end": ts, "minutes": 40}`` (measured labelled late)
+    - ``{"kind": "clock", "start": ts, "end": ts, "minutes": 40}`` (measured labelled late;
+      with ``"sensor": True`` the POA sensor too, as when it sits on the inverters' logger)
     - ``{"kind": "shading", "inverter": id, "azimuth": (a0, a1), "elevation_start": e0,
       "elevation_end": e1}`` (an obstruction whose top grows linearly over the period)
     - tracker sites: ``{"kind": "stall", "inverter": id, "start": ts, "end": ts, "angle": a}``
@@ -135,6 +144,10 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
         if f["kind"] == "sensor":
             sensor_scale[window(f)] = f["scale"]
     poa_sensor = poa * sensor_scale
+    for f in faults:
+        if f["kind"] == "clock" and f.get("sensor"):
+            m = window(f)
+            poa_sensor[m] = np.roll(poa_sensor, int(round(f["minutes"] / freq_min)))[m]
     rows = []
     for inv in site.inverters:
         pdc0 = inv.dc_kwp * 1000 * 0.92

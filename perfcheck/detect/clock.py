@@ -18,8 +18,10 @@ agree form one event, reported only when it covers every inverter of a logger (a
 belongs to a logger); plant scope when it covers all inverters.
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
-interval), for the measured power and, where the POA sensor sits on the same clock (its centre
-moved too), for the expected power built from it.
+interval). A logger's clock labels every channel it records, so the correction follows the
+site file's loggers (:class:`Loggers`): the measured power of the logger's inverters and, where
+the POA sensor or the GHI sensor is recorded on the same logger, the expected power built from
+that sensor (:func:`follows`).
 
 References
 ----------
@@ -36,8 +38,9 @@ import numpy as np
 import pandas as pd
 
 from perfcheck.detect.common import Event, Wide, change_points, despike
-from perfcheck.detect.sensor import refine_edge
+from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge, sensor_columns
 from perfcheck.lazy import lazy_module
+from perfcheck.site import DEVICE_QUANTITIES, Site
 
 stats = lazy_module("scipy.stats")
 
@@ -52,6 +55,44 @@ class Shift:
     offset_min: float  # positive: labels late
     inverters: tuple[str, ...]
     evidence: dict[str, Any]
+    logger: str = ""  # the logger whose clock was off ("": not known)
+
+
+@dataclasses.dataclass(frozen=True)
+class Loggers:
+    """What each logger records, from the site file: a clock belongs to a logger and labels
+    every channel on it. ``inverters``: logger name -> the inverters whose power it records;
+    ``poa``, ``ghi``: the logger of the POA sensor and of the GHI sensor (None: not logged)."""
+
+    inverters: dict[str, tuple[str, ...]]
+    poa: str | None = None
+    ghi: str | None = None
+
+
+def loggers(site: Site) -> Loggers:
+    """The site file's loggers as :class:`Loggers`."""
+    def of(quantity: str) -> str | None:
+        return next((lg.name for lg in site.loggers for c in lg.columns
+                     if c.quantity == quantity), None)
+
+    ids = {i.id for i in site.inverters}
+    return Loggers({lg.name: tuple(sorted({c.device for c in lg.columns if c.device in ids
+                                           and c.quantity in DEVICE_QUANTITIES}))
+                    for lg in site.loggers}, of("poa"), of("ghi"))
+
+
+def follows(w: Wide, lg: Loggers, logger: str) -> tuple[list[str], bool]:
+    """Which expected series are built from readings that ``logger`` records: the inverters
+    whose expected power follows a sensor on it (the POA sensor drives
+    :func:`perfcheck.detect.sensor.driven_columns`; a logged GHI the others), and whether the
+    expected power from the modelled POA alone does (it comes from the GHI where one is logged,
+    else from the POA sensor: :mod:`perfcheck.model`)."""
+    ghi = has_ghi(w)
+    out = set(driven_columns(w)) if lg.poa == logger else set()
+    if ghi and lg.ghi == logger:
+        out |= set(w.inverters) - set(sensor_columns(w))
+    modelled = (lg.ghi if ghi else lg.poa) == logger
+    return [c for c in w.inverters if c in out], modelled
 
 
 def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
@@ -65,14 +106,13 @@ def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
     return num / den
 
 
-def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
+def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
          alpha: float = 1e-3, min_offset_min: float = 20.0, min_days: int = 3) -> list[Shift]:
     """Clock shifts of the measured power (see module docstring).
 
-    ``groups`` lists the inverters whose power comes from one logger: a clock belongs to a
-    logger, so a shift is reported only when every inverter of some logger shows it (this
-    keeps a shade on one side of the day, which also moves the centre, from passing as a
-    clock fault).
+    A clock belongs to a logger (``lg``), so a shift is reported only when every inverter
+    whose power that logger records shows it (this keeps a shade on one side of the day, which
+    also moves the centre, from passing as a clock fault).
     """
     ok = w.measured.notna() & reference.gt(0)
     days = w.day.to_numpy()
@@ -108,7 +148,13 @@ def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
                  "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)}))
-    return [s for s in _merge(found) if any(set(g) <= set(s.inverters) for g in groups if g)]
+    out = []
+    for s in _merge(found):
+        name = next((n for n, g in lg.inverters.items() if g and set(g) <= set(s.inverters)),
+                    None)
+        if name is not None:
+            out.append(dataclasses.replace(s, logger=name))
+    return out
 
 
 def _merge(found: list[Shift]) -> list[Shift]:
@@ -138,49 +184,39 @@ def _merge(found: list[Shift]) -> list[Shift]:
     return out
 
 
-def sensor_moved(w: Wide, shift: Shift, sensor: pd.Series, sensor_clear: pd.Series) -> bool:
-    """Whether the POA sensor's readings moved with the power in the shift's window (the
-    sensor sits on the same clock): its daily centre moved by more than half the offset."""
-    inside = (w.index >= shift.start) & (w.index < shift.end)
-    ok = inside & sensor.notna().to_numpy() & (sensor_clear.to_numpy() > 0)
-    if not ok.any():
-        return False
-    d = centres(w, pd.DataFrame({"s": sensor.where(ok)})) - centres(
-        w, pd.DataFrame({"s": sensor_clear.where(ok)}))
-    moved = float(np.nanmedian(d["s"].to_numpy()))
-    return bool(np.isfinite(moved) and abs(moved - shift.offset_min) < abs(moved))
-
-
-def corrected(w: Wide, shifts: list[Shift], sensor_too: list[bool]) -> Wide:
-    """The series with the measured power shifted back by each offset inside its window, and,
-    where the POA sensor sits on the same clock, the sensor's plane irradiance and the expected
-    power built from it too (for the inverters fed by the sensor)."""
+def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
+    """The series with every channel of the shifted logger moved back by the offset inside its
+    window: the measured power of its inverters and the expected series built from a sensor it
+    records (:func:`follows`; shifting the expected series stands for re-running the model on
+    the corrected readings)."""
     if not shifts:
         return w
-    meas, exp, pot, poa = (w.measured.copy(), w.expected.copy(), w.potential.copy(),
-                           w.poa.copy())
+    names = ("measured", "expected", "potential", "poa", "temp_cell", "expected_modelled",
+             "potential_modelled", "poa_modelled")
+    new = {k: getattr(w, k).copy() for k in names}
     step = float(np.median(w.interval_s))
-    for s, too in zip(shifts, sensor_too, strict=True):
+    for s in shifts:
         n = int(round(s.offset_min * 60 / step))
         if n == 0:
             continue
         inside = (w.index >= s.start) & (w.index < s.end)
-        for c in s.inverters:
-            meas.loc[inside, c] = w.measured[c].shift(-n).to_numpy()[inside]
-        if not too:
-            continue
-        for c in w.inverters:
-            if w.from_sensor[c].to_numpy()[inside].mean() > 0.5:
-                for frame, src in ((exp, w.expected), (pot, w.potential), (poa, w.poa)):
-                    frame.loc[inside, c] = src[c].shift(-n).to_numpy()[inside]
-    return dataclasses.replace(w, measured=meas, expected=exp, potential=pot, poa=poa)
+        cols, modelled = follows(w, lg, s.logger)
+        moved = [("measured", list(s.inverters))]
+        moved += [(k, cols) for k in ("expected", "potential", "poa", "temp_cell")]
+        if modelled:
+            moved += [(k, list(w.inverters)) for k in names[5:]]
+        for k, cs in moved:
+            for c in cs:
+                new[k].loc[inside, c] = getattr(w, k)[c].shift(-n).to_numpy()[inside]
+    return dataclasses.replace(w, **new)
 
 
-def events(w_before: Wide, w_after: Wide, shifts: list[Shift], sensor_too: list[bool],
+def events(w_before: Wide, w_after: Wide, shifts: list[Shift], lg: Loggers,
            n_inverters: int) -> list[Event]:
     out = []
     step = w_before.interval_s.to_numpy()
-    for s, too in zip(shifts, sensor_too, strict=True):
+    for s in shifts:
+        cols, modelled = follows(w_before, lg, s.logger)
         inside = (w_before.index >= s.start) & (w_before.index < s.end)
         gap_b = (w_before.expected - w_before.measured).to_numpy()[inside]
         gap_a = (w_after.expected - w_after.measured).to_numpy()[inside]
@@ -193,8 +229,9 @@ def events(w_before: Wide, w_after: Wide, shifts: list[Shift], sensor_too: list[
                          detail={"offset_min": round(s.offset_min, 1),
                                  "direction": "labels late" if s.offset_min > 0
                                  else "labels early",
-                                 "inverters": list(s.inverters),
-                                 "poa_sensor_on_same_clock": too,
+                                 "inverters": list(s.inverters), "logger": s.logger,
+                                 "poa_sensor_on_same_clock": lg.poa == s.logger,
+                                 "expected_shifted_for": cols,
                                  "correction": f"shift readings by {-s.offset_min:+.0f} min",
                                  "shortfall_change_kwh": change}))
     return out

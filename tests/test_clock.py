@@ -1,0 +1,59 @@
+"""Clock faults of a logger: which channels a correction moves, and when a shift is real.
+
+Invented plants from ``tests/detect_synth.py`` (pvlib clear sky and a day-type clearness
+index). The rule behind the correction is common practice: a logger stamps every channel it
+records with its one clock, so a clock error moves them all alike.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from detect_synth import make_aligned, make_site
+
+from perfcheck import detect
+from perfcheck.detect import clock
+
+CLOCK = {"kind": "clock", "start": "2024-04-10 00:00", "end": "2024-04-28 00:00",
+         "minutes": 45}
+
+
+def _clock_event(res):
+    (ev,) = [e for e in res["events"] if e.kind == "clock_fault"]
+    return ev
+
+
+def test_loggers_of_the_site_file():
+    # common practice: the site file says which logger records which channel
+    site = make_site(n_inverters=2, poa_logger="met")
+    lg = clock.loggers(site)
+    assert lg.inverters == {"synthetic": ("INV1", "INV2"), "met": ()}
+    assert (lg.poa, lg.ghi) == ("met", None)
+
+
+@pytest.mark.parametrize("poa_logger", ["synthetic", "met"])
+def test_correction_moves_the_sensor_only_when_it_shares_the_clock(poa_logger):
+    # common practice: one clock per logger. With the POA sensor on the inverters' logger it
+    # was labelled late with the power: the expected power built from it moves back too,
+    # and inside the window measured and expected agree again as before the fault.
+    site = make_site(n_inverters=2, poa_logger=poa_logger)
+    same = poa_logger == "synthetic"
+    df = make_aligned(site, faults=[{**CLOCK, "sensor": same}], days=60, seed=3)
+    res = detect.analyse(df, site)
+    ev = _clock_event(res)
+    assert ev.detail["logger"] == "synthetic"
+    assert ev.detail["poa_sensor_on_same_clock"] is same
+    assert ev.detail["expected_shifted_for"] == (["INV1", "INV2"] if same else [])
+    w = res["wide"]
+    clean = make_aligned(site, faults=[], days=60, seed=3)
+    exp_clean = clean.pivot(index="ts", columns="inverter_id", values="expected_ac_w")
+    inside = (w.index >= ev.start + pd.Timedelta(days=1)) & (w.index < ev.end
+                                                             - pd.Timedelta(days=1))
+    # the expected series after the correction is the fault-free one (45 min is three
+    # 15-min intervals exactly); 1 %: the synthetic cell temperature of the shifted rows
+    # mixes the sensor's earlier reading with the air temperature of the row
+    np.testing.assert_allclose(w.expected.to_numpy()[inside],
+                               exp_clean.reindex(w.index).to_numpy()[inside], rtol=0.01,
+                               atol=1.0)
+    assert not [e for e in res["events"] if e.kind in ("outage", "curtailment")]
