@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from detect_synth import make_aligned, make_site
+from detect_synth import TZ, make_aligned, make_site
 
 from perfcheck import detect
 from perfcheck.detect import clock
@@ -26,7 +26,7 @@ def _clock_event(res):
 
 def test_loggers_of_the_site_file():
     # common practice: the site file says which logger records which channel
-    site = make_site(n_inverters=2, poa_logger="met")
+    site = make_site(n_inverters=2, sensors={"poa": "met"})
     lg = clock.loggers(site)
     assert lg.inverters == {"synthetic": ("INV1", "INV2"), "met": ()}
     assert (lg.poa, lg.ghi) == ("met", None)
@@ -37,7 +37,7 @@ def test_correction_moves_the_sensor_only_when_it_shares_the_clock(poa_logger):
     # common practice: one clock per logger. With the POA sensor on the inverters' logger it
     # was labelled late with the power: the expected power built from it moves back too,
     # and inside the window measured and expected agree again as before the fault.
-    site = make_site(n_inverters=2, poa_logger=poa_logger)
+    site = make_site(n_inverters=2, sensors={"poa": poa_logger})
     same = poa_logger == "synthetic"
     df = make_aligned(site, faults=[{**CLOCK, "sensor": same}], days=60, seed=3)
     res = detect.analyse(df, site)
@@ -57,3 +57,33 @@ def test_correction_moves_the_sensor_only_when_it_shares_the_clock(poa_logger):
                                exp_clean.reindex(w.index).to_numpy()[inside], rtol=0.01,
                                atol=1.0)
     assert not [e for e in res["events"] if e.kind in ("outage", "curtailment")]
+
+
+FOG = {"kind": "fog", "start": "2024-04-10 00:00", "end": "2024-05-10 00:00", "until_hour": 12,
+       "kt": 0.25}
+
+
+@pytest.mark.parametrize("sensors, clock_found", [({"poa": "synthetic"}, True),
+                                                  ({"poa": "synthetic", "ghi": "met"}, False)])
+def test_morning_fog_is_no_clock_fault_where_another_logger_sees_it(sensors, clock_found):
+    # Invented weather: a month of foggy mornings moves the centre of the day's power by
+    # tens of minutes against the clear sky, as a clock would. Against the clear sky alone it
+    # passes for one (first case: documents the limit of that reference); a GHI sensor on
+    # another logger saw the same fog, and against it the power's centre did not move.
+    site = make_site(n_inverters=2, sensors=sensors)
+    df = make_aligned(site, faults=[FOG], days=90, seed=5)
+    res = detect.analyse(df, site)
+    assert bool([e for e in res["events"] if e.kind == "clock_fault"]) is clock_found
+
+
+def test_offset_and_edges_measured_against_another_loggers_sensor():
+    # Invented truth: labels 45 min late from 10 to 28 April. Against the GHI of another
+    # logger clouds cancel: the offset within 5 min (a third of the 15-min interval, so the
+    # correction rounds to the right number of intervals) and both edges on the day.
+    site = make_site(n_inverters=2, sensors={"poa": "synthetic", "ghi": "met"})
+    df = make_aligned(site, faults=[{**CLOCK, "sensor": True}], days=60, seed=3)
+    ev = _clock_event(detect.analyse(df, site))
+    assert ev.detail["offset_min"] == pytest.approx(45, abs=5)
+    assert ev.evidence["confirmed_against"]
+    assert ev.start == pd.Timestamp(CLOCK["start"], tz=TZ)
+    assert ev.end == pd.Timestamp(CLOCK["end"], tz=TZ)

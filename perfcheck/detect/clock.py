@@ -13,8 +13,13 @@ difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.com
 is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
 segment whose level differs from the reference level (the longest segment) by at least
 ``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
-size; its edges are then placed on the day using every day's centre. Inverters whose windows
-agree form one event, reported only when it covers every inverter of a logger (a clock
+size; its edges are then placed on the day using every day's centre. Where an irradiance sensor
+on another logger feeds an expected power of the inverter (:func:`independent`), each such
+window is tested again on the centre of the power against that expected power, where clouds
+cancel (:func:`_confirm`): it is kept only when it holds there too, and its offset and edges
+are taken from that test (a season's weather, such as foggy mornings, moves the centre
+against the clear sky for weeks, but moves the irradiance with the power). Inverters whose
+windows agree form one event, reported only when it covers every inverter of a logger (a clock
 belongs to a logger); plant scope when it covers all inverters.
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
@@ -37,15 +42,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, change_points, despike
+from perfcheck.detect.common import Event, Wide, change_points, despike, window_change
 from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge, sensor_columns
 from perfcheck.lazy import lazy_module
 from perfcheck.site import DEVICE_QUANTITIES, Site
 
 stats = lazy_module("scipy.stats")
 
+# the edges of a window found against the clear sky are searched again within this many days
+# when confirmed on another logger's sensor (a cloudy day next to an edge moves it by a day or
+# two: common practice)
+EDGE_DAYS = 2
 METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
-          "position; segmentation and Welch t test")
+          "position; segmentation and Welch t test; confirmed against the expected power from "
+          "another logger's irradiance sensor where there is one")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -106,19 +116,78 @@ def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
     return num / den
 
 
+def independent(w: Wide, lg: Loggers) -> pd.DataFrame:
+    """Per inverter, an expected power built from an irradiance sensor that another logger than
+    the inverter's records (its clock is another): from the GHI where one is logged there, else
+    from the POA sensor where it drives the inverter. Clouds move it as they move the power, so
+    the daily centres of the two differ by the model's small bias alone. Inverters without one
+    are left out."""
+    own = {c: n for n, cs in lg.inverters.items() for c in cs}
+    ghi, driven = has_ghi(w), set(driven_columns(w))
+    cols = {}
+    for c in w.inverters:
+        if ghi and lg.ghi is not None and lg.ghi != own.get(c):
+            cols[c] = w.expected_modelled[c]
+        elif c in driven and lg.poa is not None and lg.poa != own.get(c):
+            cols[c] = w.expected[c]
+    return pd.DataFrame(cols, index=w.index)
+
+
+def _daily_offsets(w: Wide, reference: pd.DataFrame) -> pd.DataFrame:
+    """Daily centre of the measured power less that of ``reference`` [min], on days with
+    readings in at least 90 % of the reference's daylight intervals (common practice)."""
+    ok = w.measured[reference.columns].notna() & reference.gt(0)
+    days = w.day.to_numpy()
+    ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
+    d = centres(w, w.measured[reference.columns].where(ok)) - centres(w, reference.where(ok))
+    return d.where(ok_day > 0.9)
+
+
+def _confirm(x: pd.Series, s: Shift, tz: Any, alpha: float, min_offset_min: float,
+             min_days: int) -> Shift | None:
+    """A window found against the clear sky, tested again on ``x``: the daily centre
+    difference of the power against an expected power from another logger's sensor
+    (:func:`independent`), where clouds cancel. Its edges are placed again on ``x`` within
+    ``EDGE_DAYS`` of the first ones (:func:`perfcheck.detect.sensor.refine_edge`); the window's
+    median less the median of as many days either side
+    (:func:`perfcheck.detect.common.window_change`) is the offset, kept when at least
+    ``min_offset_min`` with a Welch t-test p-value below ``alpha``. None when not confirmed:
+    a season's weather (morning fog, afternoon storms) moves the centre of power and
+    irradiance alike, a clock moves the power's alone."""
+    def day(ts: pd.Timestamp) -> pd.Timestamp:
+        return ts.tz_convert(tz).tz_localize(None).normalize()
+
+    one, e = pd.Timedelta(days=1), pd.Timedelta(days=EDGE_DAYS)
+    a, b = day(s.start), day(s.end)
+    d0 = refine_edge(x, a - e - one, max(min(a + e, b - one), a))
+    d1 = refine_edge(x, max(b - e - one, d0), b + e)
+    ch = window_change(x, d0, d1, min_n=min_days)
+    if ch is None:
+        return None
+    off, inside, around = ch
+    t = stats.ttest_ind(inside, around, equal_var=False)
+    if abs(off) < min_offset_min or not t.pvalue < alpha:
+        return None
+    return dataclasses.replace(
+        s, start=d0.tz_localize(tz).tz_convert("UTC"), end=d1.tz_localize(tz).tz_convert("UTC"),
+        offset_min=off, evidence={**s.evidence, "offset_min": off, "days": len(inside),
+                                  "confirmed_against": "expected power from another logger's "
+                                  "irradiance sensor", "confirm_p_value": float(t.pvalue)})
+
+
 def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
          alpha: float = 1e-3, min_offset_min: float = 20.0, min_days: int = 3) -> list[Shift]:
     """Clock shifts of the measured power (see module docstring).
 
     A clock belongs to a logger (``lg``), so a shift is reported only when every inverter
     whose power that logger records shows it (this keeps a shade on one side of the day, which
-    also moves the centre, from passing as a clock fault).
+    also moves the centre, from passing as a clock fault). Where an inverter has an expected
+    power from another logger's sensor (:func:`independent`), each window is confirmed and
+    measured again on it (:func:`_confirm`).
     """
-    ok = w.measured.notna() & reference.gt(0)
-    days = w.day.to_numpy()
-    ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
-    d_all = centres(w, w.measured.where(ok)) - centres(w, reference.where(ok))
-    d_all = d_all.where(ok_day > 0.9)
+    d_all = _daily_offsets(w, reference)
+    ind = independent(w, lg)
+    d_ind = _daily_offsets(w, ind)
     found: list[Shift] = []
     for inv in w.inverters:
         q = d_all[inv].dropna()
@@ -143,11 +212,15 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
             nxt = q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q) else allq.index[-1]
             d0 = refine_edge(allq, prev, q.index[min(g.start + 1, g.stop - 1)])
             d1 = refine_edge(allq, q.index[max(g.stop - 2, g.start)], nxt)
-            found.append(Shift(
+            one: Shift | None = Shift(
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
-                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)}))
+                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)})
+            if inv in d_ind:
+                one = _confirm(d_ind[inv], one, w.tz, alpha, min_offset_min, min_days)
+            if one is not None:
+                found.append(one)
     out = []
     for s in _merge(found):
         name = next((n for n, g in lg.inverters.items() if g and set(g) <= set(s.inverters)),
