@@ -87,3 +87,29 @@ def test_offset_and_edges_measured_against_another_loggers_sensor():
     assert ev.evidence["confirmed_against"]
     assert ev.start == pd.Timestamp(CLOCK["start"], tz=TZ)
     assert ev.end == pd.Timestamp(CLOCK["end"], tz=TZ)
+
+
+def test_daylight_saving_changes_of_a_zone():
+    # EU Directive 2000/84/EC, art. 2-3: summer time from 01:00 UTC on the last Sunday of
+    # March to 01:00 UTC on the last Sunday of October (2024: 31 March, 27 October)
+    got = clock.changes(TZ, pd.Timestamp("2024-01-01", tz="UTC"),
+                        pd.Timestamp("2025-01-01", tz="UTC"))
+    assert got == [(pd.Timestamp("2024-03-31 01:00", tz="UTC"), -60.0),
+                   (pd.Timestamp("2024-10-27 01:00", tz="UTC"), 60.0)]
+
+
+def test_missed_change_set_to_the_change_exactly():
+    # A window found a day after the spring change with -52 +- 6 min (a clear-sky estimate)
+    # is the missed change: start at its instant, offset -60 (EU Directive 2000/84/EC). The
+    # same estimate a week away from any change, or -30 +- 6 min, stays as estimated
+    # (3.29 standard errors: the two-sided interval at alpha 1e-3).
+    def shift(start, off):
+        return clock.Shift(pd.Timestamp(start, tz=TZ).tz_convert("UTC"),
+                           pd.Timestamp("2024-04-20", tz=TZ).tz_convert("UTC"), off, ("INV1",),
+                           {"offset_se_min": 6.0})
+    s = clock.daylight_saving(shift("2024-04-01", -52.0), TZ, 1e-3)
+    assert (s.start, s.offset_min) == (pd.Timestamp("2024-03-31 01:00", tz="UTC"), -60.0)
+    assert s.evidence["missed_daylight_saving_change"]
+    for start, off in (("2024-04-08", -52.0), ("2024-04-01", -30.0)):
+        s = shift(start, off)
+        assert clock.daylight_saving(s, TZ, 1e-3) == s

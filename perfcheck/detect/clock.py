@@ -171,6 +171,7 @@ def _confirm(x: pd.Series, s: Shift, tz: Any, alpha: float, min_offset_min: floa
     return dataclasses.replace(
         s, start=d0.tz_localize(tz).tz_convert("UTC"), end=d1.tz_localize(tz).tz_convert("UTC"),
         offset_min=off, evidence={**s.evidence, "offset_min": off, "days": len(inside),
+                                  "offset_se_min": _se(inside, around),
                                   "confirmed_against": "expected power from another logger's "
                                   "irradiance sensor", "confirm_p_value": float(t.pvalue)})
 
@@ -216,7 +217,8 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
-                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)})
+                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean),
+                 "offset_se_min": _se(x[g.start:g.stop], x[ref.start:ref.stop])})
             if inv in d_ind:
                 one = _confirm(d_ind[inv], one, w.tz, alpha, min_offset_min, min_days)
             if one is not None:
@@ -226,7 +228,7 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
         name = next((n for n, g in lg.inverters.items() if g and set(g) <= set(s.inverters)),
                     None)
         if name is not None:
-            out.append(dataclasses.replace(s, logger=name))
+            out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha))
     return out
 
 
@@ -253,8 +255,48 @@ def _merge(found: list[Shift]) -> list[Shift]:
                          float(np.mean([x.offset_min for x in g])),
                          tuple(i for x in g for i in x.inverters),
                          {**g[0].evidence, "per_inverter_offset_min": {
-                             x.inverters[0]: x.offset_min for x in g}}))
+                             x.inverters[0]: x.offset_min for x in g},
+                          # the same sky errs alike on every inverter: no smaller than one's
+                          "offset_se_min": float(np.mean([x.evidence["offset_se_min"]
+                                                          for x in g]))}))
     return out
+
+
+def _se(a: np.ndarray, b: np.ndarray) -> float:
+    """Standard error of the difference of two means (Welch)."""
+    return float(np.sqrt(np.var(a, ddof=1) / len(a) + np.var(b, ddof=1) / len(b)))
+
+
+def changes(tz: Any, start: pd.Timestamp, end: pd.Timestamp) -> list[tuple[pd.Timestamp, float]]:
+    """The daylight-saving changes of ``tz`` from ``start`` to ``end``: their instant (UTC) and
+    the offset a logger that missed it writes [min] (spring: its labels an hour early, -60;
+    autumn: late, +60)."""
+    hours = pd.date_range(start.floor("h"), end.ceil("h"), freq="h", tz="UTC")
+    off = np.array([h.tz_convert(tz).utcoffset().total_seconds() / 60.0 for h in hours])
+    return [(hours[i], float(off[i - 1] - off[i])) for i in np.flatnonzero(np.diff(off)) + 1]
+
+
+def daylight_saving(s: Shift, tz: Any, alpha: float) -> Shift:
+    """A shift that begins within ``EDGE_DAYS`` of a daylight-saving change of the site's zone
+    and whose offset is that change's (a logger left on the old time: -60 min in spring, +60
+    in autumn) within the two-sided ``1 - alpha`` normal interval of the estimate, set to that
+    change exactly: its start at the change's instant, its offset the change's step, and its
+    end at the next change where it lies within ``EDGE_DAYS`` (a logger that keeps one time
+    all year is right again then). Common practice: a missed change is the most frequent
+    clock fault of a logger kept on local time, and it is exactly one step."""
+    e = pd.Timedelta(days=EDGE_DAYS + 1)
+    z = float(stats.norm.ppf(1 - alpha / 2))
+    se = float(s.evidence.get("offset_se_min", np.inf))
+    near = [(t, step) for t, step in changes(tz, s.start - e, s.start + e)
+            if abs(s.offset_min - step) <= z * se]
+    if not near:
+        return s
+    t0, step = near[0]
+    back = [t for t, st in changes(tz, s.end - e, s.end + e) if st == -step and t > t0]
+    return dataclasses.replace(
+        s, start=t0, end=back[0] if back else s.end, offset_min=step,
+        evidence={**s.evidence, "missed_daylight_saving_change": True,
+                  "estimated_offset_min": s.offset_min})
 
 
 def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
