@@ -13,7 +13,7 @@ import pytest
 from detect_synth import TZ, make_aligned, make_site
 
 from perfcheck import detect
-from perfcheck.detect import clock
+from perfcheck.detect import clock, common
 
 CLOCK = {"kind": "clock", "start": "2024-04-10 00:00", "end": "2024-04-28 00:00",
          "minutes": 45}
@@ -113,3 +113,21 @@ def test_missed_change_set_to_the_change_exactly():
     for start, off in (("2024-04-08", -52.0), ("2024-04-01", -30.0)):
         s = shift(start, off)
         assert clock.daylight_saving(s, TZ, 1e-3) == s
+
+
+def test_midspan_of_a_day_known_answer():
+    # Worked by hand: on a 60-min grid from midnight, power above the floor from 06:00 to
+    # 18:00 (intervals 6..18) has its span's midpoint at interval mid-points 6:30 and 18:30,
+    # i.e. 12:30 = 750 min; shifting the labels 2 h later moves it by 120 min.
+    site = make_site(n_inverters=1)
+    df = make_aligned(site, days=2, freq_min=60)
+    w = common.wide(df, {"INV1": 10_000.0}, None, TZ)
+    day = w.day.to_numpy() == w.day.iloc[0]
+    hour = w.index.tz_convert(TZ).hour.to_numpy()
+    x = pd.DataFrame({"INV1": np.where(day & (hour >= 6) & (hour <= 18), 500.0, 0.0)},
+                     index=w.index)
+    got = clock.midspans(w, x, pd.Series({"INV1": 100.0}))["INV1"].iloc[0]
+    assert w.index[0].tz_convert(TZ).hour == 0  # the origin: the first day's midnight
+    assert got == pytest.approx(750.0)
+    later = clock.midspans(w, x.shift(2).fillna(0.0), pd.Series({"INV1": 100.0}))["INV1"]
+    assert later.iloc[0] - got == pytest.approx(120.0)

@@ -116,6 +116,17 @@ def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
     return num / den
 
 
+def midspans(w: Wide, x: pd.DataFrame, floor: pd.Series) -> pd.DataFrame:
+    """Midpoint of each day's span above ``floor`` (per column): halfway between the first and
+    the last interval whose value exceeds it [min, the origin of :func:`centres`]."""
+    t = ((w.index - w.index[0]) / pd.Timedelta(minutes=1)).to_numpy(dtype=float)
+    t = t + w.interval_s.to_numpy() / 120.0
+    on = x.gt(floor.reindex(x.columns).to_numpy(), axis=1).to_numpy()
+    g = pd.DataFrame(np.where(on, t[:, None], np.nan), index=x.index,
+                     columns=x.columns).groupby(w.day.to_numpy())
+    return (g.min() + g.max()) / 2
+
+
 def independent(w: Wide, lg: Loggers) -> pd.DataFrame:
     """Per inverter, an expected power built from an irradiance sensor that another logger than
     the inverter's records (its clock is another): from the GHI where one is logged there, else
@@ -133,13 +144,19 @@ def independent(w: Wide, lg: Loggers) -> pd.DataFrame:
     return pd.DataFrame(cols, index=w.index)
 
 
-def _daily_offsets(w: Wide, reference: pd.DataFrame) -> pd.DataFrame:
-    """Daily centre of the measured power less that of ``reference`` [min], on days with
-    readings in at least 90 % of the reference's daylight intervals (common practice)."""
+def _daily_offsets(w: Wide, reference: pd.DataFrame, spans: bool = False) -> pd.DataFrame:
+    """Daily centre of the measured power less that of ``reference`` [min] (``spans``: the
+    midpoint of the day's span of production, power above 1 % of the AC rating, less that of
+    the reference above zero: :func:`midspans`), on days with readings in at least 90 % of the
+    reference's daylight intervals (common practice)."""
     ok = w.measured[reference.columns].notna() & reference.gt(0)
     days = w.day.to_numpy()
     ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
-    d = centres(w, w.measured[reference.columns].where(ok)) - centres(w, reference.where(ok))
+    p = w.measured[reference.columns].where(ok)
+    if spans:
+        d = midspans(w, p, w.ac_w * 0.01) - midspans(w, reference, w.ac_w * 0.0)
+    else:
+        d = centres(w, p) - centres(w, reference.where(ok))
     return d.where(ok_day > 0.9)
 
 
@@ -187,6 +204,7 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
     measured again on it (:func:`_confirm`).
     """
     d_all = _daily_offsets(w, reference)
+    d_span = _daily_offsets(w, reference, spans=True)
     ind = independent(w, lg)
     d_ind = _daily_offsets(w, ind)
     found: list[Shift] = []
@@ -204,10 +222,11 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
             t = stats.ttest_ind(x[g.start:g.stop], x[ref.start:ref.stop], equal_var=False)
             if not t.pvalue < alpha:
                 continue
-            allq = d_all[inv]
-            # each edge may move by a day where a least-absolute-deviation split says so: a
-            # cloudy day next to an edge can pull the segmentation's edge by a day, the
-            # medians of the split are not moved by one day
+            allq = d_span[inv]
+            # each edge may move by a day where a least-absolute-deviation split of the span
+            # midpoints says so: a cloudy day next to an edge can pull the segmentation's edge
+            # by a day; clouds shorten the day's span of production at both ends alike, a clock
+            # moves both ends, and the medians of the split are not moved by one odd day
             prev = (q.index[max(g.start - 2, 0)] if g.start > 0
                     else allq.index[0] - pd.Timedelta(days=1))
             nxt = q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q) else allq.index[-1]
