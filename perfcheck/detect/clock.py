@@ -13,14 +13,19 @@ difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.com
 is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
 segment whose level differs from the reference level (the longest segment) by at least
 ``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
-size; its edges are then placed on the day using every day's centre. Where an irradiance sensor
-on another logger feeds an expected power of the inverter (:func:`independent`), each such
-window is tested again on the centre of the power against that expected power, where clouds
-cancel (:func:`_confirm`): it is kept only when it holds there too, and its offset and edges
-are taken from that test (a season's weather, such as foggy mornings, moves the centre
-against the clear sky for weeks, but moves the irradiance with the power). Inverters whose
-windows agree form one event, reported only when it covers every inverter of a logger (a clock
-belongs to a logger); plant scope when it covers all inverters.
+size; its edges are then placed on the day by the midpoint of each day's span of production
+(:func:`midspans`: clouds shorten the span at both ends alike, so it moves by a few minutes
+where the centre moves by tens, while a clock moves it by the whole offset). Where an
+irradiance sensor on another logger feeds an expected power of the inverter
+(:func:`independent`), each such window is tested again on the centre of the power against
+that expected power, where clouds cancel (:func:`_confirm`): it is kept only when it holds
+there too, and its offset and edges are taken from that test (a season's weather, such as
+foggy mornings, moves the centre against the clear sky for weeks, but moves the irradiance
+with the power). Inverters whose windows agree form one event, reported only when it covers
+every inverter of a logger (a clock belongs to a logger); plant scope when it covers all
+inverters. A window that begins at a daylight-saving change of the site's zone with that
+change's step inside the estimate's interval is set to the change exactly
+(:func:`daylight_saving`).
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
 interval). A logger's clock labels every channel it records, so the correction follows the
@@ -31,7 +36,9 @@ that sensor (:func:`follows`).
 References
 ----------
 Ineichen & Perez 2002 clear sky, Hay & Davies 1980 transposition; Olshen et al. 2004
-(segmentation). The power-centre test is our own formulation.
+(segmentation); Welch 1947 (t test); the daylight-saving changes are the IANA time zone
+database's for the site's zone. The power-centre and span-midpoint tests are our own
+formulation.
 """
 
 from __future__ import annotations
@@ -50,8 +57,8 @@ from perfcheck.site import DEVICE_QUANTITIES, Site
 stats = lazy_module("scipy.stats")
 
 # the edges of a window found against the clear sky are searched again within this many days
-# when confirmed on another logger's sensor (a cloudy day next to an edge moves it by a day or
-# two: common practice)
+# when confirmed on another logger's sensor, and a daylight-saving change this near its start
+# is its start (a cloudy day next to an edge moves it by a day or two: common practice)
 EDGE_DAYS = 2
 METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
           "position; segmentation and Welch t test; confirmed against the expected power from "
