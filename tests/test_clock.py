@@ -106,7 +106,7 @@ def test_missed_change_set_to_the_change_exactly():
     def shift(start, off):
         return clock.Shift(pd.Timestamp(start, tz=TZ).tz_convert("UTC"),
                            pd.Timestamp("2024-04-20", tz=TZ).tz_convert("UTC"), off, ("INV1",),
-                           {"offset_se_min": 6.0})
+                           {"offset_standard_error_min": 6.0})
     s = clock.daylight_saving(shift("2024-04-01", -52.0), TZ, 1e-3)
     assert (s.start, s.offset_min) == (pd.Timestamp("2024-03-31 01:00", tz="UTC"), -60.0)
     assert s.evidence["missed_daylight_saving_change"]

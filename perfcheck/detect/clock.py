@@ -195,9 +195,9 @@ def _confirm(x: pd.Series, s: Shift, tz: Any, alpha: float, min_offset_min: floa
     return dataclasses.replace(
         s, start=d0.tz_localize(tz).tz_convert("UTC"), end=d1.tz_localize(tz).tz_convert("UTC"),
         offset_min=off, evidence={**s.evidence, "offset_min": off, "days": len(inside),
-                                  "offset_se_min": _se(inside, around),
+                                  "offset_standard_error_min": _se(inside, around),
                                   "confirmed_against": "expected power from another logger's "
-                                  "irradiance sensor", "confirm_p_value": float(t.pvalue)})
+                                  "irradiance sensor", "confirmation_p_value": float(t.pvalue)})
 
 
 def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
@@ -244,7 +244,7 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
                  "offset_min": float(off), "reference_centre_bias_min": float(ref.mean),
-                 "offset_se_min": _se(x[g.start:g.stop], x[ref.start:ref.stop])})
+                 "offset_standard_error_min": _se(x[g.start:g.stop], x[ref.start:ref.stop])})
             if inv in d_ind:
                 one = _confirm(d_ind[inv], one, w.tz, alpha, min_offset_min, min_days)
             if one is not None:
@@ -283,8 +283,8 @@ def _merge(found: list[Shift]) -> list[Shift]:
                          {**g[0].evidence, "per_inverter_offset_min": {
                              x.inverters[0]: x.offset_min for x in g},
                           # the same sky errs alike on every inverter: no smaller than one's
-                          "offset_se_min": float(np.mean([x.evidence["offset_se_min"]
-                                                          for x in g]))}))
+                          "offset_standard_error_min": float(np.mean(
+                              [x.evidence["offset_standard_error_min"] for x in g]))}))
     return out
 
 
@@ -312,7 +312,7 @@ def daylight_saving(s: Shift, tz: Any, alpha: float) -> Shift:
     clock fault of a logger kept on local time, and it is exactly one step."""
     e = pd.Timedelta(days=EDGE_DAYS + 1)
     z = float(stats.norm.ppf(1 - alpha / 2))
-    se = float(s.evidence.get("offset_se_min", np.inf))
+    se = float(s.evidence.get("offset_standard_error_min", np.inf))
     near = [(t, step) for t, step in changes(tz, s.start - e, s.start + e)
             if abs(s.offset_min - step) <= z * se]
     if not near:
