@@ -161,7 +161,7 @@ def _daily_offsets(w: Wide, reference: pd.DataFrame, spans: bool = False) -> pd.
     ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
     p = w.measured[reference.columns].where(ok)
     if spans:
-        d = midspans(w, p, w.ac_w * 0.01) - midspans(w, reference, w.ac_w * 0.0)
+        d = midspans(w, p, w.ac_w * 0.01) - midspans(w, reference, w.ac_w * 0)
     else:
         d = centres(w, p) - centres(w, reference.where(ok))
     return d.where(ok_day > 0.9)
@@ -308,8 +308,8 @@ def daylight_saving(s: Shift, tz: Any, alpha: float) -> Shift:
     in autumn) within the two-sided ``1 - alpha`` normal interval of the estimate, set to that
     change exactly: its start at the change's instant, its offset the change's step, and its
     end at the next change where it lies within ``EDGE_DAYS`` (a logger that keeps one time
-    all year is right again then). Common practice: a missed change is the most frequent
-    clock fault of a logger kept on local time, and it is exactly one step."""
+    all year is right again then). Common practice: a logger kept on local time that misses a
+    change is off by exactly that change's step from its instant on."""
     e = pd.Timedelta(days=EDGE_DAYS + 1)
     z = float(stats.norm.ppf(1 - alpha / 2))
     se = float(s.evidence.get("offset_standard_error_min", np.inf))
@@ -357,7 +357,7 @@ def events(w_before: Wide, w_after: Wide, shifts: list[Shift], lg: Loggers,
     out = []
     step = w_before.interval_s.to_numpy()
     for s in shifts:
-        cols, modelled = follows(w_before, lg, s.logger)
+        cols, _ = follows(w_before, lg, s.logger)
         inside = (w_before.index >= s.start) & (w_before.index < s.end)
         gap_b = (w_before.expected - w_before.measured).to_numpy()[inside]
         gap_a = (w_after.expected - w_after.measured).to_numpy()[inside]
