@@ -25,9 +25,12 @@ TRACKER = {"tracking": "single_axis", "axis_tilt_deg": 0.0, "axis_azimuth_deg": 
 
 def make_site(n_inverters: int = 3, ac_kw: float = 10.0, dc_kwp: float = 12.0,
               strings: int = 4, export_limit_kw: float | None = None,
-              detect: dict | None = None, tracker: dict | None = None) -> Site:
+              detect: dict | None = None, tracker: dict | None = None,
+              sensors: dict[str, str] | None = None) -> Site:
     """``tracker``: the keys of a single-axis tracker array (e.g. :data:`TRACKER`) for every
-    array instead of the fixed 30 deg south plane."""
+    array instead of the fixed 30 deg south plane; ``sensors``: the logger that records each
+    irradiance sensor (``{"poa": "synthetic", "ghi": "met"}``: ``synthetic`` is the inverters'
+    logger; a sensor left out is not stated in the site file)."""
     plane = tracker or {"tilt_deg": 30.0, "azimuth_deg": 180.0}
     raw = {
         "site": {"name": "Synthetic Test Field", "latitude_deg": LAT, "longitude_deg": LON,
@@ -44,6 +47,14 @@ def make_site(n_inverters: int = 3, ac_kw: float = 10.0, dc_kwp: float = 12.0,
             {"name": f"p{i + 1}", "quantity": "ac_power", "unit": "W", "inverter": f"INV{i + 1}"}
             for i in range(n_inverters)]}],
     }
+    for quantity, name in (sensors or {}).items():
+        column = {"name": quantity, "quantity": quantity, "unit": "W/m2"}
+        lg = next((x for x in raw["loggers"] if x["name"] == name), None)
+        if lg is None:
+            lg = {"name": name, "interval_min": 15, "time": {"columns": ["t"], "kind": "iso"},
+                  "columns": []}
+            raw["loggers"].append(lg)
+        lg["columns"].append(column)
     if export_limit_kw is not None:
         raw["site"]["export_limit_kw"] = export_limit_kw
     if detect:
@@ -65,7 +76,11 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
       inverter limited to that share of its rating)
     - ``{"kind": "degradation", "rate_pct_per_year": -1.0}``
     - ``{"kind": "sensor", "start": ts, "end": ts, "scale": 0.9}`` (POA sensor reads low)
-    - ``{"kind": "clock", "start": ts, "end": ts, "minutes": 40}`` (measured labelled late)
+    - ``{"kind": "clock", "start": ts, "end": ts, "minutes": 40}`` (measured labelled late;
+      with ``"sensor": True`` the POA sensor too, as when it sits on the inverters' logger)
+    - ``{"kind": "fog", "start": ts, "end": ts, "until_hour": 11, "kt": 0.3}`` (weather, not
+      a fault: every morning of the window the clearness index is ``kt`` until that local
+      hour, in the irradiance and the power alike)
     - ``{"kind": "shading", "inverter": id, "azimuth": (a0, a1), "elevation_start": e0,
       "elevation_end": e1}`` (an obstruction whose top grows linearly over the period)
     - tracker sites: ``{"kind": "stall", "inverter": id, "start": ts, "end": ts, "angle": a}``
@@ -88,6 +103,11 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
     base = np.array([1.0, 0.65, 0.3])[kind][day_codes]
     wiggle = np.where(kind[day_codes] == 0, 0.005, 0.12)
     kt = np.clip(base * (1 + wiggle * rng.standard_normal(len(idx))), 0.05, 1.2)
+    hour = idx.tz_convert(TZ).hour.to_numpy()
+    for f in faults:
+        if f["kind"] == "fog":
+            m = (idx >= pd.Timestamp(f["start"], tz=TZ)) & (idx < pd.Timestamp(f["end"], tz=TZ))
+            kt[m & (hour < f["until_hour"])] = f["kt"]
     ghi = cs["ghi"].to_numpy() * kt
     zen = sp["apparent_zenith"].to_numpy()
     cosz = np.clip(np.cos(np.radians(zen)), 0, 1)
@@ -135,6 +155,10 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
         if f["kind"] == "sensor":
             sensor_scale[window(f)] = f["scale"]
     poa_sensor = poa * sensor_scale
+    for f in faults:
+        if f["kind"] == "clock" and f.get("sensor"):
+            m = window(f)
+            poa_sensor[m] = np.roll(poa_sensor, int(round(f["minutes"] / freq_min)))[m]
     rows = []
     for inv in site.inverters:
         pdc0 = inv.dc_kwp * 1000 * 0.92

@@ -62,7 +62,7 @@ from perfcheck.detect.common import (
     wide,
 )
 from perfcheck.model import orientation, sensor_orientation
-from perfcheck.site import DEVICE_QUANTITIES, Site, Table
+from perfcheck.site import Site, Table
 
 
 @dataclasses.dataclass(frozen=True)
@@ -151,14 +151,11 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
     clear = clear_days(w0, cs[w0.inverters])
     t = lap("prepare", t)
-    groups = [sorted({c.device for c in lg.columns if c.quantity in DEVICE_QUANTITIES
-                      and c.device in ac}) for lg in site.loggers]
-    shifts = clock.find(w0, cs[w0.inverters], groups, alpha=st.alpha,
+    lg = clock.loggers(site)
+    shifts = clock.find(w0, cs[w0.inverters], lg, alpha=st.alpha,
                         min_offset_min=st.clock_min_offset_min)
-    sens = sensor.sensor_series(w0)
-    too = [sens is not None and clock.sensor_moved(w0, s, sens, cs["_sensor"]) for s in shifts]
-    w1 = clock.corrected(w0, shifts, too)
-    events: list[Event] = clock.events(w0, w1, shifts, too, len(site.inverters))
+    w1 = clock.corrected(w0, shifts, lg)
+    events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
     t = lap("clock", t)
     suspects = sensor.find(w1, clear, cs, alpha=st.alpha)
     w = sensor.corrected(w1, suspects)

@@ -13,18 +13,32 @@ difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.com
 is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
 segment whose level differs from the reference level (the longest segment) by at least
 ``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
-size; its edges are then placed on the day using every day's centre. Inverters whose windows
-agree form one event, reported only when it covers every inverter of a logger (a clock
-belongs to a logger); plant scope when it covers all inverters.
+size; its edges are then placed on the day by the midpoint of each day's span of production
+(:func:`midspans`: clouds shorten the span at both ends alike, so it moves by a few minutes
+where the centre moves by tens, while a clock moves it by the whole offset). Where an
+irradiance sensor on another logger feeds an expected power of the inverter
+(:func:`independent`), each such window is tested again on the centre of the power against
+that expected power, where clouds cancel (:func:`_confirm`): it is kept only when it holds
+there too, and its offset and edges are taken from that test (a season's weather, such as
+foggy mornings, moves the centre against the clear sky for weeks, but moves the irradiance
+with the power). Inverters whose windows agree form one event, reported only when it covers
+every inverter of a logger (a clock belongs to a logger); plant scope when it covers all
+inverters. A window that begins at a daylight-saving change of the site's zone with that
+change's step inside the estimate's interval is set to the change exactly
+(:func:`daylight_saving`).
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
-interval), for the measured power and, where the POA sensor sits on the same clock (its centre
-moved too), for the expected power built from it.
+interval). A logger's clock labels every channel it records, so the correction follows the
+site file's loggers (:class:`Loggers`): the measured power of the logger's inverters and, where
+the POA sensor or the GHI sensor is recorded on the same logger, the expected power built from
+that sensor (:func:`follows`).
 
 References
 ----------
 Ineichen & Perez 2002 clear sky, Hay & Davies 1980 transposition; Olshen et al. 2004
-(segmentation). The power-centre test is our own formulation.
+(segmentation); Welch 1947 (t test); the daylight-saving changes are the IANA time zone
+database's for the site's zone. The power-centre and span-midpoint tests are our own
+formulation.
 """
 
 from __future__ import annotations
@@ -35,14 +49,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, change_points, despike
-from perfcheck.detect.sensor import refine_edge
+from perfcheck.detect.common import Event, Wide, change_points, despike, window_change
+from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge, sensor_columns
 from perfcheck.lazy import lazy_module
+from perfcheck.site import DEVICE_QUANTITIES, Site
 
 stats = lazy_module("scipy.stats")
 
+# the edges of a window found against the clear sky are searched again within this many days
+# when confirmed on another logger's sensor, and a daylight-saving change this near its start
+# is its start (a cloudy day next to an edge moves it by a day or two: common practice)
+EDGE_DAYS = 2
 METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
-          "position; segmentation and Welch t test")
+          "position; segmentation and Welch t test; confirmed against the expected power from "
+          "another logger's irradiance sensor where there is one")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -52,6 +72,44 @@ class Shift:
     offset_min: float  # positive: labels late
     inverters: tuple[str, ...]
     evidence: dict[str, Any]
+    logger: str = ""  # the logger whose clock was off ("": not known)
+
+
+@dataclasses.dataclass(frozen=True)
+class Loggers:
+    """What each logger records, from the site file: a clock belongs to a logger and labels
+    every channel on it. ``inverters``: logger name -> the inverters whose power it records;
+    ``poa``, ``ghi``: the logger of the POA sensor and of the GHI sensor (None: not logged)."""
+
+    inverters: dict[str, tuple[str, ...]]
+    poa: str | None = None
+    ghi: str | None = None
+
+
+def loggers(site: Site) -> Loggers:
+    """The site file's loggers as :class:`Loggers`."""
+    def of(quantity: str) -> str | None:
+        return next((lg.name for lg in site.loggers for c in lg.columns
+                     if c.quantity == quantity), None)
+
+    ids = {i.id for i in site.inverters}
+    return Loggers({lg.name: tuple(sorted({c.device for c in lg.columns if c.device in ids
+                                           and c.quantity in DEVICE_QUANTITIES}))
+                    for lg in site.loggers}, of("poa"), of("ghi"))
+
+
+def follows(w: Wide, lg: Loggers, logger: str) -> tuple[list[str], bool]:
+    """Which expected series are built from readings that ``logger`` records: the inverters
+    whose expected power follows a sensor on it (the POA sensor drives
+    :func:`perfcheck.detect.sensor.driven_columns`; a logged GHI the others), and whether the
+    expected power from the modelled POA alone does (it comes from the GHI where one is logged,
+    else from the POA sensor: :mod:`perfcheck.model`)."""
+    ghi = has_ghi(w)
+    out = set(driven_columns(w)) if lg.poa == logger else set()
+    if ghi and lg.ghi == logger:
+        out |= set(w.inverters) - set(sensor_columns(w))
+    modelled = (lg.ghi if ghi else lg.poa) == logger
+    return [c for c in w.inverters if c in out], modelled
 
 
 def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
@@ -65,20 +123,98 @@ def centres(w: Wide, power: pd.DataFrame) -> pd.DataFrame:
     return num / den
 
 
-def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
+def midspans(w: Wide, x: pd.DataFrame, floor: pd.Series) -> pd.DataFrame:
+    """Midpoint of each day's span above ``floor`` (per column): halfway between the first and
+    the last interval whose value exceeds it [min, the origin of :func:`centres`]."""
+    t = ((w.index - w.index[0]) / pd.Timedelta(minutes=1)).to_numpy(dtype=float)
+    t = t + w.interval_s.to_numpy() / 120.0
+    on = x.gt(floor.reindex(x.columns).to_numpy(), axis=1).to_numpy()
+    g = pd.DataFrame(np.where(on, t[:, None], np.nan), index=x.index,
+                     columns=x.columns).groupby(w.day.to_numpy())
+    return (g.min() + g.max()) / 2
+
+
+def independent(w: Wide, lg: Loggers) -> pd.DataFrame:
+    """Per inverter, an expected power built from an irradiance sensor that another logger than
+    the inverter's records (its clock is another): from the GHI where one is logged there, else
+    from the POA sensor where it drives the inverter. Clouds move it as they move the power, so
+    the daily centres of the two differ by the model's small bias alone. Inverters without one
+    are left out."""
+    own = {c: n for n, cs in lg.inverters.items() for c in cs}
+    ghi, driven = has_ghi(w), set(driven_columns(w))
+    cols = {}
+    for c in w.inverters:
+        if ghi and lg.ghi is not None and lg.ghi != own.get(c):
+            cols[c] = w.expected_modelled[c]
+        elif c in driven and lg.poa is not None and lg.poa != own.get(c):
+            cols[c] = w.expected[c]
+    return pd.DataFrame(cols, index=w.index)
+
+
+def _daily_offsets(w: Wide, reference: pd.DataFrame, spans: bool = False) -> pd.DataFrame:
+    """Daily centre of the measured power less that of ``reference`` [min] (``spans``: the
+    midpoint of the day's span of production, power above 1 % of the AC rating, less that of
+    the reference above zero: :func:`midspans`), on days with readings in at least 90 % of the
+    reference's daylight intervals. Both levels are common practice: 1 % of the rating lies
+    above a logger's night-time noise and is reached within minutes of the inverter starting."""
+    ok = w.measured[reference.columns].notna() & reference.gt(0)
+    days = w.day.to_numpy()
+    ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
+    p = w.measured[reference.columns].where(ok)
+    if spans:
+        d = midspans(w, p, w.ac_w * 0.01) - midspans(w, reference, w.ac_w * 0)
+    else:
+        d = centres(w, p) - centres(w, reference.where(ok))
+    return d.where(ok_day > 0.9)
+
+
+def _confirm(x: pd.Series, s: Shift, tz: Any, alpha: float, min_offset_min: float,
+             min_days: int) -> Shift | None:
+    """A window found against the clear sky, tested again on ``x``: the daily centre
+    difference of the power against an expected power from another logger's sensor
+    (:func:`independent`), where clouds cancel. Its edges are placed again on ``x`` within
+    ``EDGE_DAYS`` of the first ones (:func:`perfcheck.detect.sensor.refine_edge`); the window's
+    median less the median of as many days either side
+    (:func:`perfcheck.detect.common.window_change`) is the offset, kept when at least
+    ``min_offset_min`` with a Welch t-test p-value below ``alpha``. None when not confirmed:
+    a season's weather (morning fog, afternoon storms) moves the centre of power and
+    irradiance alike, a clock moves the power's alone."""
+    def day(ts: pd.Timestamp) -> pd.Timestamp:
+        return ts.tz_convert(tz).tz_localize(None).normalize()
+
+    one, e = pd.Timedelta(days=1), pd.Timedelta(days=EDGE_DAYS)
+    a, b = day(s.start), day(s.end)
+    d0 = refine_edge(x, a - e - one, max(min(a + e, b - one), a))
+    d1 = refine_edge(x, max(b - e - one, d0), b + e)
+    ch = window_change(x, d0, d1, min_n=min_days)
+    if ch is None:
+        return None
+    off, inside, around = ch
+    t = stats.ttest_ind(inside, around, equal_var=False)
+    if abs(off) < min_offset_min or not t.pvalue < alpha:
+        return None
+    return dataclasses.replace(
+        s, start=d0.tz_localize(tz).tz_convert("UTC"), end=d1.tz_localize(tz).tz_convert("UTC"),
+        offset_min=off, evidence={**s.evidence, "offset_min": off, "days": len(inside),
+                                  "offset_standard_error_min": _se(inside, around),
+                                  "confirmed_against": "expected power from another logger's "
+                                  "irradiance sensor", "confirmation_p_value": float(t.pvalue)})
+
+
+def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
          alpha: float = 1e-3, min_offset_min: float = 20.0, min_days: int = 3) -> list[Shift]:
     """Clock shifts of the measured power (see module docstring).
 
-    ``groups`` lists the inverters whose power comes from one logger: a clock belongs to a
-    logger, so a shift is reported only when every inverter of some logger shows it (this
-    keeps a shade on one side of the day, which also moves the centre, from passing as a
-    clock fault).
+    A clock belongs to a logger (``lg``), so a shift is reported only when every inverter
+    whose power that logger records shows it (this keeps a shade on one side of the day, which
+    also moves the centre, from passing as a clock fault). Where an inverter has an expected
+    power from another logger's sensor (:func:`independent`), each window is confirmed and
+    measured again on it (:func:`_confirm`).
     """
-    ok = w.measured.notna() & reference.gt(0)
-    days = w.day.to_numpy()
-    ok_day = ok.groupby(days).sum() / reference.gt(0).groupby(days).sum()
-    d_all = centres(w, w.measured.where(ok)) - centres(w, reference.where(ok))
-    d_all = d_all.where(ok_day > 0.9)
+    d_all = _daily_offsets(w, reference)
+    d_span = _daily_offsets(w, reference, spans=True)
+    ind = independent(w, lg)
+    d_ind = _daily_offsets(w, ind)
     found: list[Shift] = []
     for inv in w.inverters:
         q = d_all[inv].dropna()
@@ -94,21 +230,33 @@ def find(w: Wide, reference: pd.DataFrame, groups: list[list[str]],
             t = stats.ttest_ind(x[g.start:g.stop], x[ref.start:ref.stop], equal_var=False)
             if not t.pvalue < alpha:
                 continue
-            allq = d_all[inv]
-            # each edge may move by a day where a least-absolute-deviation split says so: a
-            # cloudy day next to an edge can pull the segmentation's edge by a day, the
-            # medians of the split are not moved by one day
+            allq = d_span[inv]
+            # each edge may move by a day where a least-absolute-deviation split of the span
+            # midpoints says so: a cloudy day next to an edge can pull the segmentation's edge
+            # by a day; clouds shorten the day's span of production at both ends alike, a clock
+            # moves both ends, and the medians of the split are not moved by one odd day
             prev = (q.index[max(g.start - 2, 0)] if g.start > 0
                     else allq.index[0] - pd.Timedelta(days=1))
             nxt = q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q) else allq.index[-1]
             d0 = refine_edge(allq, prev, q.index[min(g.start + 1, g.stop - 1)])
             d1 = refine_edge(allq, q.index[max(g.stop - 2, g.start)], nxt)
-            found.append(Shift(
+            one: Shift | None = Shift(
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
-                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean)}))
-    return [s for s in _merge(found) if any(set(g) <= set(s.inverters) for g in groups if g)]
+                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean),
+                 "offset_standard_error_min": _se(x[g.start:g.stop], x[ref.start:ref.stop])})
+            if inv in d_ind:
+                one = _confirm(d_ind[inv], one, w.tz, alpha, min_offset_min, min_days)
+            if one is not None:
+                found.append(one)
+    out = []
+    for s in _merge(found):
+        name = next((n for n, g in lg.inverters.items() if g and set(g) <= set(s.inverters)),
+                    None)
+        if name is not None:
+            out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha))
+    return out
 
 
 def _merge(found: list[Shift]) -> list[Shift]:
@@ -134,53 +282,83 @@ def _merge(found: list[Shift]) -> list[Shift]:
                          float(np.mean([x.offset_min for x in g])),
                          tuple(i for x in g for i in x.inverters),
                          {**g[0].evidence, "per_inverter_offset_min": {
-                             x.inverters[0]: x.offset_min for x in g}}))
+                             x.inverters[0]: x.offset_min for x in g},
+                          # the same sky errs alike on every inverter: no smaller than one's
+                          "offset_standard_error_min": float(np.mean(
+                              [x.evidence["offset_standard_error_min"] for x in g]))}))
     return out
 
 
-def sensor_moved(w: Wide, shift: Shift, sensor: pd.Series, sensor_clear: pd.Series) -> bool:
-    """Whether the POA sensor's readings moved with the power in the shift's window (the
-    sensor sits on the same clock): its daily centre moved by more than half the offset."""
-    inside = (w.index >= shift.start) & (w.index < shift.end)
-    ok = inside & sensor.notna().to_numpy() & (sensor_clear.to_numpy() > 0)
-    if not ok.any():
-        return False
-    d = centres(w, pd.DataFrame({"s": sensor.where(ok)})) - centres(
-        w, pd.DataFrame({"s": sensor_clear.where(ok)}))
-    moved = float(np.nanmedian(d["s"].to_numpy()))
-    return bool(np.isfinite(moved) and abs(moved - shift.offset_min) < abs(moved))
+def _se(a: np.ndarray, b: np.ndarray) -> float:
+    """Standard error of the difference of two means (Welch)."""
+    return float(np.sqrt(np.var(a, ddof=1) / len(a) + np.var(b, ddof=1) / len(b)))
 
 
-def corrected(w: Wide, shifts: list[Shift], sensor_too: list[bool]) -> Wide:
-    """The series with the measured power shifted back by each offset inside its window, and,
-    where the POA sensor sits on the same clock, the sensor's plane irradiance and the expected
-    power built from it too (for the inverters fed by the sensor)."""
+def changes(tz: Any, start: pd.Timestamp, end: pd.Timestamp) -> list[tuple[pd.Timestamp, float]]:
+    """The daylight-saving changes of ``tz`` from ``start`` to ``end``: their instant (UTC) and
+    the offset a logger that missed it writes [min] (spring: its labels an hour early, -60;
+    autumn: late, +60)."""
+    hours = pd.date_range(start.floor("h"), end.ceil("h"), freq="h", tz="UTC")
+    off = np.array([h.tz_convert(tz).utcoffset().total_seconds() / 60.0 for h in hours])
+    return [(hours[i], float(off[i - 1] - off[i])) for i in np.flatnonzero(np.diff(off)) + 1]
+
+
+def daylight_saving(s: Shift, tz: Any, alpha: float) -> Shift:
+    """A shift that begins within ``EDGE_DAYS`` of a daylight-saving change of the site's zone
+    and whose offset is that change's (a logger left on the old time: -60 min in spring, +60
+    in autumn) within the two-sided ``1 - alpha`` normal interval of the estimate, set to that
+    change exactly: its start at the change's instant, its offset the change's step, and its
+    end at the next change where it lies within ``EDGE_DAYS`` (a logger that keeps one time
+    all year is right again then). Common practice: a logger kept on local time that misses a
+    change is off by exactly that change's step from its instant on."""
+    e = pd.Timedelta(days=EDGE_DAYS + 1)
+    z = float(stats.norm.ppf(1 - alpha / 2))
+    se = float(s.evidence.get("offset_standard_error_min", np.inf))
+    near = [(t, step) for t, step in changes(tz, s.start - e, s.start + e)
+            if abs(s.offset_min - step) <= z * se]
+    if not near:
+        return s
+    t0, step = near[0]
+    back = [t for t, st in changes(tz, s.end - e, s.end + e) if st == -step and t > t0]
+    return dataclasses.replace(
+        s, start=t0, end=back[0] if back else s.end, offset_min=step,
+        evidence={**s.evidence, "missed_daylight_saving_change": True,
+                  "estimated_offset_min": s.offset_min})
+
+
+def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
+    """The series with every channel of the shifted logger moved back by the offset inside its
+    window: the measured power of its inverters and the expected series built from a sensor it
+    records (:func:`follows`; shifting the expected series stands for re-running the model on
+    the corrected readings)."""
     if not shifts:
         return w
-    meas, exp, pot, poa = (w.measured.copy(), w.expected.copy(), w.potential.copy(),
-                           w.poa.copy())
+    names = ("measured", "expected", "potential", "poa", "temp_cell", "expected_modelled",
+             "potential_modelled", "poa_modelled")
+    new = {k: getattr(w, k).copy() for k in names}
     step = float(np.median(w.interval_s))
-    for s, too in zip(shifts, sensor_too, strict=True):
+    for s in shifts:
         n = int(round(s.offset_min * 60 / step))
         if n == 0:
             continue
         inside = (w.index >= s.start) & (w.index < s.end)
-        for c in s.inverters:
-            meas.loc[inside, c] = w.measured[c].shift(-n).to_numpy()[inside]
-        if not too:
-            continue
-        for c in w.inverters:
-            if w.from_sensor[c].to_numpy()[inside].mean() > 0.5:
-                for frame, src in ((exp, w.expected), (pot, w.potential), (poa, w.poa)):
-                    frame.loc[inside, c] = src[c].shift(-n).to_numpy()[inside]
-    return dataclasses.replace(w, measured=meas, expected=exp, potential=pot, poa=poa)
+        cols, modelled = follows(w, lg, s.logger)
+        moved = [("measured", list(s.inverters))]
+        moved += [(k, cols) for k in ("expected", "potential", "poa", "temp_cell")]
+        if modelled:
+            moved += [(k, list(w.inverters)) for k in names[5:]]
+        for k, cs in moved:
+            for c in cs:
+                new[k].loc[inside, c] = getattr(w, k)[c].shift(-n).to_numpy()[inside]
+    return dataclasses.replace(w, **new)
 
 
-def events(w_before: Wide, w_after: Wide, shifts: list[Shift], sensor_too: list[bool],
+def events(w_before: Wide, w_after: Wide, shifts: list[Shift], lg: Loggers,
            n_inverters: int) -> list[Event]:
     out = []
     step = w_before.interval_s.to_numpy()
-    for s, too in zip(shifts, sensor_too, strict=True):
+    for s in shifts:
+        cols, _ = follows(w_before, lg, s.logger)
         inside = (w_before.index >= s.start) & (w_before.index < s.end)
         gap_b = (w_before.expected - w_before.measured).to_numpy()[inside]
         gap_a = (w_after.expected - w_after.measured).to_numpy()[inside]
@@ -193,8 +371,9 @@ def events(w_before: Wide, w_after: Wide, shifts: list[Shift], sensor_too: list[
                          detail={"offset_min": round(s.offset_min, 1),
                                  "direction": "labels late" if s.offset_min > 0
                                  else "labels early",
-                                 "inverters": list(s.inverters),
-                                 "poa_sensor_on_same_clock": too,
+                                 "inverters": list(s.inverters), "logger": s.logger,
+                                 "poa_sensor_on_same_clock": lg.poa == s.logger,
+                                 "expected_shifted_for": cols,
                                  "correction": f"shift readings by {-s.offset_min:+.0f} min",
                                  "shortfall_change_kwh": change}))
     return out

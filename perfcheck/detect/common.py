@@ -444,6 +444,25 @@ def change_points(x: np.ndarray, alpha: float = 1e-3, min_size: int = 5,
     return out
 
 
+def window_change(x: pd.Series, d0: pd.Timestamp, d1: pd.Timestamp, min_n: int = 3,
+                  min_span_days: int = 0, skip: list[tuple[pd.Timestamp, pd.Timestamp]] = ()
+                  ) -> tuple[float, np.ndarray, np.ndarray] | None:
+    """Median of ``x`` (daily) in [d0, d1) less its median over as many days on either side
+    (at least ``min_span_days``), leaving out the windows ``skip`` (other segments off the
+    usual level); None when either side has fewer than ``min_n`` values."""
+    span = max(d1 - d0, pd.Timedelta(days=min_span_days))
+    x = x.dropna()
+    for a, b in skip:
+        if (a, b) != (d0, d1):
+            x = x[(x.index < a) | (x.index >= b)]
+    inside = x[(x.index >= d0) & (x.index < d1)].to_numpy()
+    around = x[((x.index >= d0 - span) & (x.index < d0))
+               | ((x.index >= d1) & (x.index < d1 + span))].to_numpy()
+    if len(inside) < min_n or len(around) < min_n:
+        return None
+    return float(np.median(inside) - np.median(around)), inside, around
+
+
 def runs(mask: np.ndarray) -> list[tuple[int, int]]:
     """(start, stop) positions of the runs of True in a boolean array (stop exclusive)."""
     m = np.asarray(mask, dtype=bool)

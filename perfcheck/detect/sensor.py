@@ -52,6 +52,7 @@ from perfcheck.detect.common import (
     daylight,
     despike,
     runs,
+    window_change,
 )
 from perfcheck.lazy import lazy_module
 
@@ -222,25 +223,6 @@ def driven_columns(w: Wide) -> list[str]:
     return list(w.inverters) if not has_ghi(w) else sensor_columns(w)
 
 
-def _window_change(x: pd.Series, d0: pd.Timestamp, d1: pd.Timestamp, min_n: int = 3,
-                   min_span_days: int = 0, skip: list[tuple[pd.Timestamp, pd.Timestamp]] = ()
-                   ) -> tuple[float, np.ndarray, np.ndarray] | None:
-    """Median of ``x`` (daily) in [d0, d1) less its median over as many days on either side
-    (at least ``min_span_days``), leaving out the windows ``skip`` (other segments off the
-    usual level); None when either side has fewer than ``min_n`` values."""
-    span = max(d1 - d0, pd.Timedelta(days=min_span_days))
-    x = x.dropna()
-    for a, b in skip:
-        if (a, b) != (d0, d1):
-            x = x[(x.index < a) | (x.index >= b)]
-    inside = x[(x.index >= d0) & (x.index < d1)].to_numpy()
-    around = x[((x.index >= d0 - span) & (x.index < d0))
-               | ((x.index >= d1) & (x.index < d1 + span))].to_numpy()
-    if len(inside) < min_n or len(around) < min_n:
-        return None
-    return float(np.median(inside) - np.median(around)), inside, around
-
-
 def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 1e-3,
                  min_shift: float = 0.02, min_days: int = 3) -> list[Suspect]:
     """Level faults of the sensor seen in the power of the inverters it drives.
@@ -280,7 +262,7 @@ def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 
     off = [wd for g, wd in zip(segs, windows, strict=True)
            if abs(g.mean - usual) >= np.log1p(min_shift)]
     for g, (d0, d1) in zip(segs, windows, strict=True):
-        ch = _window_change(xs, d0, d1, min_days, skip=off)
+        ch = window_change(xs, d0, d1, min_days, skip=off)
         if ch is None:
             continue
         move, inside, around = ch
@@ -290,7 +272,7 @@ def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 
         if not all(np.sign(st) == np.sign(move) and abs(st) >= 0.5 * abs(move)
                    for st in _edges(x, g.start, g.stop, min_days)):
             continue
-        ind = _window_change(evidence, d0, d1, CONFIRM_MIN_DAYS,
+        ind = window_change(evidence, d0, d1, CONFIRM_MIN_DAYS,
                              min_span_days=CONFIRM_SPAN_DAYS, skip=off)
         if ind is None or not (np.sign(ind[0]) == -np.sign(move)
                                and 0.5 * abs(move) <= abs(ind[0]) <= 2 * abs(move)):
