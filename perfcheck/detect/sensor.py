@@ -563,24 +563,34 @@ def _mirrored(pi_fed: pd.Series, s: Suspect, tz: Any) -> bool:
     return bool(np.sign(move) == np.sign(want) and 0.5 * abs(want) <= abs(move) <= 2 * abs(want))
 
 
+def _scaled(w: Wide, s: Suspect) -> bool:
+    """Whether a suspect window is corrected by dividing by the sensor's error (see
+    :func:`corrected`) rather than rebuilt from the POA transposed from GHI."""
+    return s.daily_factor is not None or not has_ghi(w)
+
+
 def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
     """The series with the expected power of the sensor-driven inverters rebuilt inside the
     suspect windows.
 
-    Where GHI is logged, from the model stage's series built on the POA transposed from it
-    (its own cell temperature, part-load efficiency and limits), and their irradiance from
-    that modelled POA. Without GHI the modelled POA comes from the same sensor, so the
-    expected power, the potential and the irradiance are divided by the sensor's error
-    instead (per day where it was estimated from the power, else the window's factor; the
-    power is close to proportional to the irradiance, so this is first order)."""
+    Where the sensor's error per day was estimated (from the power, or fitted at a reset),
+    or no GHI is logged (the modelled POA then comes from the same sensor), the expected
+    power, the potential and the irradiance are divided by that error (per day where
+    estimated, else the window's factor; the power is close to proportional to the
+    irradiance, so this is first order): the sensor's calibration around the window stays
+    the reference, where the POA decomposed and transposed from GHI would bring its own
+    error, which varies with the season and the sky by several % (common knowledge of those
+    models, no source checked). Otherwise (a stuck sensor, a level found on clear days only)
+    from the model stage's series built on the POA transposed from GHI (its own cell
+    temperature, part-load efficiency and limits), and their irradiance from that modelled
+    POA."""
     if not suspects:
         return w
     exp, pot, poa = w.expected.copy(), w.potential.copy(), w.poa.copy()
-    scale = not has_ghi(w)
     driven = driven_columns(w)
     for s in suspects:
         inside = (w.index >= s.start) & (w.index < s.end)
-        if scale:
+        if _scaled(w, s):
             if s.daily_factor is not None:
                 f = s.daily_factor.reindex(w.day.to_numpy()).to_numpy()
             else:
@@ -617,7 +627,10 @@ def events(w_before: Wide, w_after: Wide, suspects: list[Suspect]) -> list[Event
                          energy_loss_kwh=0.0, energy_loss_kwh_low=0.0, energy_loss_kwh_high=0.0,
                          method=METHOD, evidence=s.evidence,
                          detail={"mode": s.mode, "note": note,
-                                 "fallback": "expected power of the sensor-fed inverters "
-                                             "rebuilt from modelled POA in this window",
+                                 "fallback": ("expected power of the sensor-fed inverters "
+                                              "divided by the sensor's error in this window"
+                                              if _scaled(w_before, s) else
+                                              "expected power of the sensor-fed inverters "
+                                              "rebuilt from modelled POA in this window"),
                                  "expected_correction_kwh": -corr}))
     return out
