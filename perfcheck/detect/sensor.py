@@ -267,8 +267,9 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     day, and the sensor-fed inverters' daily index ``pi_fed`` steps the other way at the
     reset by half to twice d (medians of ``min_days`` days either side; the band as in
     :func:`power_faults`, common practice): a reference that errs with the season has no
-    such step in the power. The false-alarm probability is that of the segmentation's split
-    (at most ``alpha``) times that of the mirrored step on a fault-free plant.
+    such step in the power. The false-alarm probability is at most that of the
+    segmentation's split, ``alpha`` (independent noise; day-to-day persistence raises it),
+    and the mirrored step can only lower it.
 
     The window runs from the fitted onset (for a drift, where the fitted line leaves the
     usual level) to the reset; the evidence gives the first day the fitted error reaches
