@@ -838,6 +838,32 @@ def cell_temperature(poa_global: pd.Series, temp_air: pd.Series, wind_speed: pd.
     return from_module.fillna(est)
 
 
+def poa_from_module_temperature(temp_module: pd.Series, temp_air: pd.Series,
+                                wind_speed: pd.Series, a: float, b: float) -> pd.Series:
+    """Plane-of-array irradiance [W/m^2] that a back-of-module temperature implies.
+
+    King et al. 2004, eq. 11, T_m = E exp(a + b WS) + T_a, solved for E:
+    E = (T_m - T_a) / exp(a + b WS). Steady state: the module lags the irradiance by some
+    minutes, so the estimate is meant for sums over a day, not single intervals.
+
+    Parameters
+    ----------
+    temp_module : pandas.Series
+        Back-of-module temperature [C].
+    temp_air : pandas.Series
+        Ambient temperature [C].
+    wind_speed : pandas.Series
+        Wind speed [m/s] (at 10 m).
+    a, b : float
+        SAPM coefficients [-] and [s/m] (:func:`sapm_parameters`).
+
+    References
+    ----------
+    King, D. L., Boyson, W. E., Kratochvil, J. A. (2004). SAND2004-3535, eq. 11, table 1.
+    """
+    return (temp_module - temp_air) / np.exp(a + b * wind_speed)
+
+
 # --------------------------------------------------------------------------------------------
 # DC and AC
 

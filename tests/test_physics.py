@@ -237,6 +237,16 @@ def test_sapm_worked_values():
     assert_allclose(tc2, [43.509, 23.0607], atol=1e-3)  # second: model where T_m is missing
 
 
+def test_poa_from_module_temperature_inverts_sapm_eq_11():
+    # King et al. 2004 eq. 11 solved for E, on the worked value above (REFERENCES.md, C):
+    # glass/glass open rack, (900 W/m2, 20 C, 5 m/s) -> T_m 40.809 C; the quoted 3 decimals
+    # of T_m (+-0.0005 C over T_m - T_a = 20.8 C) bound the recovered E to +-0.03 W/m2.
+    a, b, _ = ph.sapm_parameters("open_rack", "glass_glass")
+    e = ph.poa_from_module_temperature(pd.Series([40.809, 20.0]), pd.Series([20.0, 20.0]),
+                                       pd.Series([5.0, 5.0]), a, b)
+    assert_allclose(e, [900.0, 0.0], atol=0.03)
+
+
 def test_faiman_defaults():
     # Faiman 2008, Prog. Photovolt. 16(4):307, U0 25.0, U1 6.84 (pvlib's defaults):
     # (900, 20, 5) -> 35.203; (500, 10, 5) -> 18.446 (REFERENCES.md, C). Tolerance 1e-3 C.

@@ -34,6 +34,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from perfcheck import physics as ph
 from perfcheck.detect import (
     attribution,
     baseline,
@@ -61,7 +62,7 @@ from perfcheck.detect.common import (
     robust_sigma,
     wide,
 )
-from perfcheck.model import orientation, sensor_orientation
+from perfcheck.model import orientation, sensor_array, sensor_orientation
 from perfcheck.site import Site, Table
 
 
@@ -157,7 +158,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w1 = clock.corrected(w0, shifts, lg)
     events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
     t = lap("clock", t)
-    suspects = sensor.find(w1, clear, cs, alpha=st.alpha)
+    suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=_module_heat(df, site, w1))
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
     t = lap("sensor", t)
@@ -254,6 +255,17 @@ def _site_series(df: pd.DataFrame, column: str, w: Wide) -> pd.Series | None:
     values = pd.to_numeric(first[column], errors="coerce").to_numpy(dtype=float)
     return pd.Series(values, index=pd.DatetimeIndex(first["ts"]).tz_convert("UTC")
                      ).reindex(w.index)
+
+
+def _module_heat(df: pd.DataFrame, site: Site, w: Wide) -> pd.Series | None:
+    """The irradiance [W/m^2] the logged module temperature implies (SAPM eq. 11 with the
+    coefficients of the array carrying the sensor), None without a module temperature."""
+    series = [_site_series(df, c, w) for c in ("temp_module_c", "temp_air_c", "wind_speed_ms")]
+    if any(x is None or x.notna().sum() == 0 for x in series):
+        return None
+    array = sensor_array(site)
+    a, b, _ = ph.sapm_parameters(array.mounting, array.construction)
+    return ph.poa_from_module_temperature(*series, a, b)
 
 
 def _in_windows(index: pd.DatetimeIndex, windows: list[tuple[pd.Timestamp, pd.Timestamp]]

@@ -6,6 +6,13 @@ see a sensor that reads a factor f off all together: their expected power moves 
 daily performance index by 1/f. A plant fault moves one inverter, or builds up (soiling), or
 is left to its own detector; the sensor is blamed only where an independent reference agrees.
 
+* Step or drift ending in a reset, against the module temperature (:func:`reset_faults`):
+  the sensor against the irradiance its module temperature implies (King et al. 2004 eq. 11
+  solved for the irradiance, :func:`perfcheck.physics.poa_from_module_temperature`), a
+  reference on every day whatever the sky, is segmented likewise; behind each step back
+  towards the usual level a step or a straight drift is fitted with the driven inverters'
+  index (:func:`reset_fit`), kept when significant and mirrored by the index at the reset.
+  A sensor reading a few % low for a month is found so even without a clear day.
 * Level, from the power (:func:`power_faults`): the driven inverters' daily log index (less
   the other inverters' where some do not depend on the sensor) is segmented every day by
   circular binary segmentation (:func:`perfcheck.detect.common.change_points`, false-alarm
@@ -33,7 +40,8 @@ References
 ----------
 Olshen, Venkatraman, Lucito & Wigler 2004 (circular binary segmentation); Welch 1947
 (Biometrika 34:28, unequal-variance t test); Ineichen & Perez 2002 (clear sky); Sen 1968
-(Theil-Sen line of a drift); all from memory.
+(Theil-Sen line of a drift); Hinkley 1969 (Biometrika 56:495, two-phase regression); all
+from memory. King, Boyson & Kratochvil 2004, SAND2004-3535, eq. 11 (module temperature).
 """
 
 from __future__ import annotations
@@ -51,6 +59,8 @@ from perfcheck.detect.common import (
     daily_pi,
     daylight,
     despike,
+    long_run_sigma,
+    robust_sigma,
     runs,
     window_change,
 )
@@ -58,9 +68,10 @@ from perfcheck.lazy import lazy_module
 
 stats = lazy_module("scipy.stats")
 
-METHOD = ("the sensor-driven inverters' daily index and the POA sensor against clear-sky POA "
-          "on clear days: circular binary segmentation and Welch t tests (Olshen et al. 2004), "
-          "each confirmed by the other; identical-value runs for stuck readings")
+METHOD = ("the sensor-driven inverters' daily index, the POA sensor against clear-sky POA "
+          "on clear days and against the irradiance its module temperature implies: circular "
+          "binary segmentation (Olshen et al. 2004), Welch t tests and two-phase regression "
+          "(Hinkley 1969), each confirmed by another; identical-value runs for stuck readings")
 
 
 # confirmation of a candidate found in the power by an independent reference: the span
@@ -181,6 +192,144 @@ def _edges(x: np.ndarray, start: int, stop: int, k: int) -> list[float]:
         out.append(float(np.median(x[start:start + k]) - np.median(x[max(0, start - k):start])))
     if stop < len(x):
         out.append(float(np.median(x[max(start, stop - k):stop]) - np.median(x[stop:stop + k])))
+    return out
+
+
+def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int = 3,
+              mirror: pd.Series | None = None) -> dict[str, Any] | None:
+    """Least-squares fit of a sensor error that ends in a reset: ``x`` (one value per day)
+    over the days [lo, reset) as c + d h(t) with an onset t0, h 0 before t0 and from it either
+    1 (a step) or (t - t0) / (reset - t0) (a drift: a straight line from the usual level c to
+    c + d on the day before the reset).
+
+    ``mirror``, if given, is a second daily series that the same error moves by -d (the
+    sensor-fed inverters' log index): it is fitted jointly as c' - d h(t), each series weighted
+    by its inverse robust variance (:func:`perfcheck.detect.common.robust_sigma`), so that
+    two pieces of evidence with errors of their own place the onset together. Every onset at
+    least ``min_days`` days inside the span is tried for both shapes (two-phase regression with
+    an unknown join, Hinkley 1969; both shapes have the same parameters, so the smaller
+    weighted residual sum of squares is the likelier). Returns the shape, onset, c, d and the
+    standard error of d from the standardised residuals' long-run variance
+    (:func:`perfcheck.detect.common.long_run_sigma`, autocorrelation-aware); None when the
+    span is too short.
+
+    References
+    ----------
+    Hinkley 1969, Biometrika 56(3):495 (two-phase regression with an unknown join point);
+    Hamilton 1994, Time Series Analysis, sec. 7.2 (long-run variance); both from memory.
+    """
+    parts = [(x, 1.0)] + ([] if mirror is None else [(mirror, -1.0)])
+    cut = [p[(p.index >= lo) & (p.index < reset)].dropna() for p, _ in parts]
+    if len(cut[0]) < 3 * min_days:
+        return None
+    cut = [c if len(c) >= 3 * min_days else c.iloc[:0] for c in cut]
+    t = [((c.index - reset) / pd.Timedelta(days=1)).to_numpy(dtype=float) for c in cut]
+    wt = [1 / max(robust_sigma(c.to_numpy()), 1e-6) if len(c) else 0.0 for c in cut]
+    v = np.concatenate([c.to_numpy() * k for c, k in zip(cut, wt, strict=True)])
+    ones = [np.zeros((len(c), len(cut))) for c in cut]
+    for i, o in enumerate(ones):
+        o[:, i] = wt[i]
+    base = np.vstack(ones)
+    sign = np.concatenate([np.full(len(c), g * k) for c, (_, g), k in zip(cut, parts, wt,
+                                                                         strict=True)])
+    tt = np.concatenate(t)
+    best: dict[str, Any] = {"sse": np.inf}
+    for k in range(min_days, len(cut[0]) - min_days + 1):
+        t0 = t[0][k]
+        for shape, h in (("drift", np.clip((tt - t0) / -t0, 0.0, None)),
+                         ("step", (tt >= t0).astype(float))):
+            a = np.column_stack([base, sign * h])
+            coef, *_ = np.linalg.lstsq(a, v, rcond=None)
+            resid = v - a @ coef
+            sse = float(resid @ resid)
+            if sse < best["sse"]:
+                best = {"sse": sse, "shape": shape, "onset": cut[0].index[k],
+                        "c": float(coef[0] / wt[0]), "d": float(coef[-1]), "a": a,
+                        "resid": resid}
+    a, resid = best.pop("a"), best.pop("resid")
+    sig, _ = long_run_sigma(resid)
+    best["se_d"] = float(sig * np.sqrt(np.linalg.pinv(a.T @ a)[-1, -1]))
+    return best
+
+
+def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
+                 min_shift: float = 0.02, min_days: int = 3) -> list[Suspect]:
+    """Steps and drifts of the sensor against an every-day reference, each ending in a reset.
+
+    ``x`` is the daily log ratio of the sensor to an independent reference. A faulty sensor
+    comes back to its usual level at once when it is cleaned, recalibrated or swapped, while
+    it may have left it slowly (a drift), so the faults are looked for behind each reset: a
+    step between two segments of circular binary segmentation (:func:`change_points`,
+    false-alarm probability ``alpha`` per split) of at least ``min_shift``, towards the usual
+    level (the series' median) from a level further off. Over the days since the last fault
+    found (or the first day), :func:`reset_fit` places the onset and chooses the shape. The
+    fault is kept when its size d is significant (two-sided normal p-value of d over its
+    long-run standard error below ``alpha``), its fitted error reaches ``min_shift`` on some
+    day, and the sensor-fed inverters' daily index ``pi_fed`` steps the other way at the
+    reset by half to twice d (medians of ``min_days`` days either side; the band as in
+    :func:`power_faults`, common practice): a reference that errs with the season has no
+    such step in the power. The false-alarm probability is at most that of the
+    segmentation's split, ``alpha`` (independent noise; day-to-day persistence raises it),
+    and the mirrored step can only lower it.
+
+    The window runs from the fitted onset (for a drift, where the fitted line leaves the
+    usual level) to the reset; the evidence gives the first day the fitted error reaches
+    ``min_shift`` (from there a drift is detectable on its own), and ``daily_factor`` the
+    fitted error per day.
+    """
+    b = x.dropna()
+    if len(b) < 4 * min_days:
+        return []
+    v = despike(b.to_numpy())
+    xs = pd.Series(v, index=b.index)
+    # a segment shorter than min_days is an outlier the segmentation cut out, not a level
+    segs = [g for g in change_points(v, alpha=alpha, min_size=min_days)
+            if g.stop - g.start >= min_days]
+    usual, big = float(np.median(v)), np.log1p(min_shift)
+    y = pi_fed.dropna()
+    y_clean = pd.Series(despike(y.to_numpy()), index=y.index)
+    out = []
+    since = b.index[0]
+    for k in range(len(segs) - 1):
+        before, after = segs[k].mean - usual, segs[k + 1].mean - usual
+        if not (abs(before - after) >= big and abs(after) < abs(before)
+                and np.sign(before - after) == np.sign(before)):
+            continue
+        reset = b.index[segs[k + 1].start]
+        fit = reset_fit(xs, since, reset, min_days, mirror=y_clean)
+        if fit is None:
+            continue
+        d = fit["d"]
+        p = float(2 * stats.norm.sf(abs(d) / fit["se_d"])) if fit["se_d"] > 0 else 0.0
+        if not (np.sign(d) == np.sign(before) and p < alpha):
+            continue
+        # the index's change across the reset (before less after), against the sensor's d
+        pre = y[y.index < reset].to_numpy()[-min_days:]
+        post = y[y.index >= reset].to_numpy()[:min_days]
+        if len(pre) < min_days or len(post) < min_days:
+            continue
+        fed = float(np.median(pre) - np.median(post))
+        if not (np.sign(fed) == -np.sign(d) and 0.5 * abs(d) <= abs(fed) <= 2 * abs(d)):
+            continue
+        every = pd.date_range(fit["onset"], reset - pd.Timedelta(days=1), freq="D")
+        h = np.ones(len(every))
+        if fit["shape"] == "drift":
+            h = ((every - fit["onset"]) / (reset - fit["onset"])).to_numpy(dtype=float)
+        detectable = every[np.abs(d * h) >= big]
+        if not len(detectable):  # the fitted error never reaches the size that counts
+            continue
+        since = reset
+        out.append(Suspect(
+            start=pd.Timestamp(fit["onset"]).tz_localize(w.tz).tz_convert("UTC"),
+            end=pd.Timestamp(reset).tz_localize(w.tz).tz_convert("UTC"),
+            mode="level", factor=float(np.exp(d)), daily_factor=pd.Series(np.exp(d * h),
+                                                                          index=every),
+            evidence={"test": "two-phase regression ending in a reset", "shape": fit["shape"],
+                      "p_value": p, "days": int(len(every)),
+                      "sensor_vs_reference_change_pct": 100 * float(np.expm1(d)),
+                      "detectable_from": str(detectable[0].date()),
+                      "detectable_pct": 100 * min_shift,
+                      "fed_inverters_index_step_pct": 100 * float(np.expm1(fed))}))
     return out
 
 
@@ -312,14 +461,18 @@ def sensor_series(w: Wide) -> pd.Series | None:
     return w.poa[cols[0]].where(w.from_sensor[cols[0]])
 
 
-def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1e-3
-         ) -> list[Suspect]:
+def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1e-3,
+         heat: pd.Series | None = None) -> list[Suspect]:
     """All suspect windows of the POA sensor (empty when no inverter depends on a sensor).
 
     ``planes_clear`` is the clear-sky irradiance [W/m^2] in each inverter's planes and, as
     ``_sensor``, in the sensor's plane (:func:`perfcheck.detect.common.clearsky_poa`). Where
     the sensor feeds no inverter directly (no GHI logged, arrays in other planes), the
-    sensor-driven inverters' plane irradiance stands for the sensor.
+    sensor-driven inverters' plane irradiance stands for the sensor. ``heat`` is the
+    irradiance [W/m^2] that the logged module temperature implies
+    (:func:`perfcheck.physics.poa_from_module_temperature`) on the rows of ``w``, if any: an
+    every-day reference for :func:`reset_faults`. Overlapping windows: the first found in the
+    order reset faults, power faults, clear-sky level faults is kept.
     """
     driven = driven_columns(w)
     if not driven:
@@ -343,8 +496,10 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         # expected power only, a fault of the weather or the whole plant moves both
         index = index - pi[others].median(axis=1)
     q = _daily_log_ratio(w, free, sensor_clear)
-    found = power_faults(w, index, q[clear.reindex(q.index).fillna(False).astype(bool)],
-                         alpha=alpha)
+    found = [] if heat is None else reset_faults(
+        w, _daily_log_ratio(w, free, heat.where(heat > 0)), index, alpha=alpha)
+    found += power_faults(w, index, q[clear.reindex(q.index).fillna(False).astype(bool)],
+                          alpha=alpha)
     if others:
         every_day = index
     elif has_ghi(w) and cols:
@@ -356,9 +511,11 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # power (by about the sensor's change, the other way); a level change that the power does
     # not mirror is the reference's seasonal error, not the sensor
     pi_fed = pi[driven].median(axis=1)
-    found += [s for s in levels if _mirrored(pi_fed, s, w.tz)
-              and not any(s.start < f.end and f.start < s.end for f in found)]
-    found = sorted(found, key=lambda s: s.start) + stuck
+    kept: list[Suspect] = []
+    for s in found + [s for s in levels if _mirrored(pi_fed, s, w.tz)]:
+        if not any(s.start < f.end and f.start < s.end for f in kept):
+            kept.append(s)
+    found = sorted(kept, key=lambda s: s.start) + stuck
     ratio = (w.measured / w.expected).where(w.expected.gt(w.ac_w * 0.1, axis=1))
     out = []
     for s in found:
@@ -391,24 +548,34 @@ def _mirrored(pi_fed: pd.Series, s: Suspect, tz: Any) -> bool:
     return bool(np.sign(move) == np.sign(want) and 0.5 * abs(want) <= abs(move) <= 2 * abs(want))
 
 
+def _scaled(w: Wide, s: Suspect) -> bool:
+    """Whether a suspect window is corrected by dividing by the sensor's error (see
+    :func:`corrected`) rather than rebuilt from the POA transposed from GHI."""
+    return s.daily_factor is not None or not has_ghi(w)
+
+
 def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
     """The series with the expected power of the sensor-driven inverters rebuilt inside the
     suspect windows.
 
-    Where GHI is logged, from the model stage's series built on the POA transposed from it
-    (its own cell temperature, part-load efficiency and limits), and their irradiance from
-    that modelled POA. Without GHI the modelled POA comes from the same sensor, so the
-    expected power, the potential and the irradiance are divided by the sensor's error
-    instead (per day where it was estimated from the power, else the window's factor; the
-    power is close to proportional to the irradiance, so this is first order)."""
+    Where the sensor's error per day was estimated (from the power, or fitted at a reset),
+    or no GHI is logged (the modelled POA then comes from the same sensor), the expected
+    power, the potential and the irradiance are divided by that error (per day where
+    estimated, else the window's factor; the power is close to proportional to the
+    irradiance, so this is first order): the sensor's calibration around the window stays
+    the reference, where the POA decomposed and transposed from GHI would bring its own
+    error, which varies with the season and the sky by several % (common knowledge of those
+    models, no source checked). Otherwise (a stuck sensor, a level found on clear days only)
+    from the model stage's series built on the POA transposed from GHI (its own cell
+    temperature, part-load efficiency and limits), and their irradiance from that modelled
+    POA."""
     if not suspects:
         return w
     exp, pot, poa = w.expected.copy(), w.potential.copy(), w.poa.copy()
-    scale = not has_ghi(w)
     driven = driven_columns(w)
     for s in suspects:
         inside = (w.index >= s.start) & (w.index < s.end)
-        if scale:
+        if _scaled(w, s):
             if s.daily_factor is not None:
                 f = s.daily_factor.reindex(w.day.to_numpy()).to_numpy()
             else:
@@ -437,11 +604,18 @@ def events(w_before: Wide, w_after: Wide, suspects: list[Suspect]) -> list[Event
         corr = float(np.nansum(d * step[inside, None]) / 3.6e6)
         note = (f"sensor read {100 * (s.factor - 1):.1f} % off the reference"
                 if s.mode == "level" else "sensor stuck at one value")
+        if s.evidence.get("shape") == "drift":
+            note = (f"sensor drifted to {100 * (s.factor - 1):.1f} % off the reference by its "
+                    f"reset, past {s.evidence['detectable_pct']:.0f} % from "
+                    f"{s.evidence['detectable_from']}")
         out.append(Event(kind="sensor_fault", scope="plant", start=s.start, end=s.end,
                          energy_loss_kwh=0.0, energy_loss_kwh_low=0.0, energy_loss_kwh_high=0.0,
                          method=METHOD, evidence=s.evidence,
                          detail={"mode": s.mode, "note": note,
-                                 "fallback": "expected power of the sensor-fed inverters "
-                                             "rebuilt from modelled POA in this window",
+                                 "fallback": ("expected power of the sensor-fed inverters "
+                                              "divided by the sensor's error in this window"
+                                              if _scaled(w_before, s) else
+                                              "expected power of the sensor-fed inverters "
+                                              "rebuilt from modelled POA in this window"),
                                  "expected_correction_kwh": -corr}))
     return out
