@@ -109,7 +109,7 @@ def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, tol:
        against :data:`TOP_SHARE` at ``alpha``: the false-alarm rate per day);
     2. the expected power moves where the measured one holds: the measured relative range
        (10-90 %) over the held intervals at most half the expected one's, and the expected
-       one at least twice the flatness tolerance ``tol`` (common practice);
+       one beyond the flatness tolerance ``tol`` (common practice);
     3. the plant delivers less of its expected power there: the median measured/expected of
        the held intervals below that of the rest of the day's producing intervals.
 
@@ -145,7 +145,7 @@ def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, tol:
         if not rest.any():
             continue
         dense = stats.binomtest(len(held), around, TOP_SHARE, alternative="greater").pvalue
-        if (dense <= alpha and _flatter(level[held], exp_level[held], 2 * tol)
+        if (dense <= alpha and _flatter(level[held], exp_level[held], tol)
                 and np.median(ratio[held]) < np.median(ratio[rest])):
             out[held] = True
     return out
