@@ -14,7 +14,7 @@ import pytest
 from detect_synth import TZ, make_aligned, make_site
 
 from perfcheck import detect
-from perfcheck.detect import common, degradation, outage
+from perfcheck.detect import common, curtailment, degradation, outage
 from perfcheck.errors import SiteFileError
 
 FAULT_KINDS = {"outage", "partial_outage", "curtailment", "soiling", "shading", "sensor_fault",
@@ -344,3 +344,74 @@ def test_outage_not_judged_with_the_sun_below_ten_degrees():
     df.loc[low, "expected_ac_w"] = df.loc[low, "expected_ac_w"].clip(lower=2000.0)
     w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
     assert outage.detect(w, 0.03)[0] == []
+
+
+# --------------------------------------------------------------------------------------------
+# a limit at the grid point that bites only now and then (held level)
+
+
+def _cloudy_days(n_days: int, seed: int, limit: float | None, step_min: int = 10):
+    """Invented plant-total series (share of the AC rating) of ``n_days`` days with broken
+    clouds: the expected power is a clear-sky bell times a cloud factor that jumps between
+    runs of sun and shade; the plant delivers 97 % of it (model bias), capped at ``limit``,
+    with 0.2 % logger noise."""
+    rng = np.random.default_rng(seed)
+    t = np.arange(6 * 60, 18 * 60, step_min) / 60.0
+    bell = 0.95 * np.sin(np.pi * (t - 6) / 12) ** 1.3
+    exp_all, meas_all, day_all = [], [], []
+    for d in range(n_days):
+        runs = np.repeat(rng.uniform(0.35, 1.0, len(t) // 3 + 1), 3)[:len(t)]
+        expected = bell * runs
+        measured = 0.97 * expected
+        if limit is not None:
+            measured = np.minimum(measured, limit)
+        measured = measured * (1 + 0.002 * rng.standard_normal(len(t)))
+        exp_all.append(expected)
+        meas_all.append(measured)
+        day_all.append(np.full(len(t), d))
+    return np.concatenate(meas_all), np.concatenate(exp_all), np.concatenate(day_all)
+
+
+def test_held_level_finds_a_limit_under_broken_clouds():
+    # Invented truth: the plant total limited to 60 % of its rating on broken-cloud days;
+    # P = min(P_available, P_set) (common practice: a set-point caps the power at the grid
+    # point, IEC TS 61724-2 keeps it apart from the inverter's own limit, from memory).
+    # On every day with at least 1.5 h at the limit (9 intervals: enough for the binomial test
+    # at alpha = 1e-3 whatever passes by), every interval at it (available above it by more
+    # than the logger noise) is held, and none clearly below it.
+    m, e, days = _cloudy_days(5, seed=1, limit=0.6)
+    held = curtailment._held_level(m, e, days, tol=0.01, min_count=3, alpha=1e-3)
+    capped = 0.97 * e > 0.6 * 1.01
+    long = np.isin(days, [d for d in range(5) if capped[days == d].sum() >= 9])
+    assert long.any() and held[capped & long].all()
+    assert not held[0.97 * e < 0.6 * 0.99].any()
+
+
+def test_held_level_silent_at_a_clear_noon():
+    # Invented truth: clear days whose smooth maximum stays below the rating (a low DC/AC
+    # ratio): the top of a parabola puts sqrt(0.1) of a band's time into its top tenth
+    # (calculus), so the binomial test against TOP_SHARE does not call it held.
+    t = np.arange(6 * 60, 18 * 60, 5) / 60.0
+    e = np.tile(0.85 * np.sin(np.pi * (t - 6) / 12) ** 1.3, 3)
+    rng = np.random.default_rng(2)
+    m = 0.97 * e * (1 + 0.002 * rng.standard_normal(len(e)))
+    days = np.repeat(np.arange(3), len(t))
+    assert not curtailment._held_level(m, e, days, tol=0.01, min_count=3, alpha=1e-3).any()
+
+
+def test_held_level_false_alarm_rate():
+    # Invented truth: 300 broken-cloud days with no limit. The binomial test holds its level:
+    # at alpha = 1e-3 per day about 0.3 false days are expected; 3 or more would have
+    # probability under 0.4 % (Poisson tail, common practice).
+    m, e, days = _cloudy_days(300, seed=3, limit=None)
+    held = curtailment._held_level(m, e, days, tol=0.01, min_count=3, alpha=1e-3)
+    assert len(np.unique(days[held])) < 3
+
+
+def test_top_share_of_a_smooth_maximum():
+    # derived from the parabola p = 1 - t^2: the time within depth d of the top is
+    # 2 sqrt(d), so the top tenth of a band holds sqrt(0.1) of its time (calculus)
+    t = np.linspace(-1, 1, 2_000_001)
+    p = 1 - t ** 2
+    share = (p >= 1 - 0.01).sum() / (p >= 1 - 0.1).sum()
+    assert share == pytest.approx(curtailment.TOP_SHARE, rel=1e-3)

@@ -179,7 +179,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     events += ev
     t = lap("clipping", t)
     ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask,
-                                       levels=levels)
+                                       levels=levels, alpha=st.alpha)
     events += ev
     t = lap("curtailment", t)
     excluded = out_mask | clip_mask | curt_mask

@@ -5,7 +5,13 @@ plant total at its export limit. Kept apart from clipping (one inverter at its o
 Shared plateau: in the same intervals every producing inverter holds a flat level (relative
 change to a neighbouring interval within the plateau tolerance, three times the interval noise)
 while its expected power is above that level by more than ``margin`` (three times the
-interval-level spread of measured/expected), for at least ``min_minutes``. Export limit: the
+interval-level spread of measured/expected), for at least ``min_minutes``, with the plant
+total within the hold of a set-point (+-0.5 %). Held level: a limit at the grid point holds
+the plant total, not each inverter, and on a cloudy day or with a limit near the plant's
+output it bites only now and then; a day on which the plant total comes back to one level
+more often than power that follows the sun can (a binomial test with its false-alarm rate,
+:func:`_held_level`) while the expected power moves and the plant delivers less of it there
+is held too. Either way every interval of that day at the level counts. Export limit: the
 plant total within the tolerance of ``export_limit_kw`` while the sum of the unlimited
 expected powers (each capped at its inverter rating) is above it; since the expected series
 already stops at the export limit, that energy is a design fact and is reported as such.
@@ -21,8 +27,16 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
-from perfcheck.detect.common import Event, Wide, energy_band, local_band, plateaus, runs
+from perfcheck.detect.common import (
+    Event,
+    Wide,
+    energy_band,
+    local_band,
+    plateaus,
+    runs,
+)
 
 METHOD_SHARED = ("shared plateau: every inverter flat below its expected power at the same "
                  "time (interval noise test, common practice)")
@@ -63,28 +77,58 @@ def _events(mask: np.ndarray, w: Wide, energy: np.ndarray, gap: np.ndarray, rel_
     return out
 
 
+def _spread(x: np.ndarray) -> float:
+    """Relative spread of a power series: its 10-90 % range over its mean [-]."""
+    return float(np.subtract(*np.nanpercentile(x, [90, 10])) / max(np.nanmean(x), 1e-9))
+
+
 def _flatter(m: np.ndarray, e: np.ndarray, margin: float) -> bool:
-    """The run's measured spread (10-90 % range) under half the expected one's, and the
+    """The run's measured spread (:func:`_spread`) under half the expected one's, and the
     expected one at least ``margin`` (while the expected power is flat too, as at a clear
     noon, a held power cannot be told from a lower but healthy one)."""
-    rm = np.subtract(*np.nanpercentile(m, [90, 10])) / max(np.nanmean(m), 1e-9)
-    re = np.subtract(*np.nanpercentile(e, [90, 10])) / max(np.nanmean(e), 1e-9)
+    rm, re = _spread(m), _spread(e)
     return bool(rm <= 0.5 * re and re >= margin)
 
 
 HOLD = 0.005  # a set-point holds the power within +-0.5 % (common practice, no source)
+# Share of a band's time that its top tenth takes when the power passes a smooth maximum: the
+# time within a depth d below a parabolic top grows as sqrt(d), so the top tenth of the depth
+# holds sqrt(0.1) of it. Power that follows the sun puts at most this share of the intervals
+# within +-10 HOLD of a level into +-HOLD of it (the densest case: a clear-sky noon).
+TOP_SHARE = float(np.sqrt(0.1))
 
 
-def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, margin: float,
-                min_count: int) -> np.ndarray:
-    """Days on which the plant power returns to one level again and again while the expected
-    power is above it: at least ``min_count`` intervals within +-``HOLD`` of one value (power
-    that follows the sun and clouds does not repeat a value that often; a set-point under
-    broken clouds does). Levels at the rating (clipping) are left out."""
+def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, tol: float,
+                min_count: int, alpha: float) -> np.ndarray:
+    """Days on which the plant power returns to one level again and again while it could
+    deliver more: the intervals within +-``HOLD`` of the day's most visited level (at least
+    ``min_count`` of them), when
+
+    1. the level stands out of its surroundings: of the intervals within +-10 ``HOLD`` of it,
+       more lie within +-``HOLD`` than a smooth maximum puts there (one-sided binomial test
+       against :data:`TOP_SHARE` at ``alpha``: the false-alarm rate per day);
+    2. the expected power moves where the measured one holds: the measured relative range
+       (10-90 %) over the held intervals at most half the expected one's, and the expected
+       one beyond the flatness tolerance ``tol`` (common practice);
+    3. the plant delivers less of its expected power there: the median measured/expected of
+       the held intervals below that of the rest of the day's producing intervals.
+
+    A set-point under broken clouds passes all three; a clear noon fails 2, power that only
+    scatters fails 1. Levels at the rating (clipping) are left out.
+
+    References
+    ----------
+    Conover 1999, Practical Nonparametric Statistics, 3rd ed., sec. 3.1 (the binomial test;
+    from memory).
+    """
     out = np.zeros(len(level), dtype=bool)
-    cand = (exp_level >= level * (1 + margin)) & (level > 0.05) & (level < 0.98)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = level / exp_level
+    up = np.isfinite(ratio) & (level > 0.05) & (exp_level > 0.05)
+    cand = up & (level < 0.98)
     for day in np.unique(days[cand]):
-        sel = np.flatnonzero(cand & (days == day))
+        today = days == day
+        sel = np.flatnonzero(cand & today)
         if len(sel) < min_count:
             continue
         v = np.sort(level[sel])
@@ -94,11 +138,15 @@ def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, marg
         if counts[best] < min_count:
             continue
         centre = float(np.median(v[best:hi[best]]))
-        held = sel[np.abs(level[sel] - centre) <= HOLD * centre]
-        # a held value stands out of its surroundings (values that only scatter put as many
-        # next to it as on it), and the expected power moves more than the held one
-        around = np.abs(level[sel] - centre) <= 10 * HOLD * centre
-        if len(held) >= 0.5 * around.sum() and _flatter(level[held], exp_level[held], margin):
+        near = np.abs(level - centre)
+        held = sel[near[sel] <= HOLD * centre]
+        around = int((near[sel] <= 10 * HOLD * centre).sum())
+        rest = up & today & (near > HOLD * centre)
+        if not rest.any():
+            continue
+        dense = stats.binomtest(len(held), around, TOP_SHARE, alternative="greater").pvalue
+        if (dense <= alpha and _flatter(level[held], exp_level[held], tol)
+                and np.median(ratio[held]) < np.median(ratio[rest])):
             out[held] = True
     return out
 
@@ -117,10 +165,11 @@ def _whole_day(keep: np.ndarray, level: np.ndarray, exp_level: np.ndarray, days:
 
 
 def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude: pd.DataFrame,
-           min_minutes: float = 30.0, levels: pd.DataFrame | None = None
+           min_minutes: float = 30.0, levels: pd.DataFrame | None = None, alpha: float = 1e-3
            ) -> tuple[list[Event], pd.DataFrame]:
     """Curtailment events and the (interval x inverter) mask of curtailed intervals
-    (``levels``: daily performance index per inverter, for the energy band)."""
+    (``levels``: daily performance index per inverter, for the energy band; ``alpha``: the
+    false-alarm rate per day of the held-level test, :func:`_held_level`)."""
     tol = max(3 * step_noise, 0.005)
     margin = max(3 * spread, 0.05)
     step_s = float(np.median(w.interval_s))
@@ -140,17 +189,22 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude:
     tot_e = e.where(producing).sum(axis=1).to_numpy()
     n_flat = (flat & producing).sum(axis=1).to_numpy()
     need = min(2, len(w.inverters))
+    # and the plant total within the hold of a set-point (+-HOLD) over the run
     for a, b in runs(shared_np & (n_flat >= need)):
-        if b - a >= min_len and _flatter(tot_m[a:b], tot_e[a:b], margin):
+        if (b - a >= min_len and _flatter(tot_m[a:b], tot_e[a:b], margin)
+                and _spread(tot_m[a:b]) <= 2 * HOLD):
             keep[a:b] = True
     level, exp_level = tot_m / w.ac_w.sum(), tot_e / w.ac_w.sum()
-    held = _held_level(level, exp_level, w.day.to_numpy(), margin,
-                       max(3, int(np.ceil(3600 / step_s))))
-    # shared: on a held day every producing inverter is below its expected power too
-    ratio = (m / e).where(producing).to_numpy()
+    held = _held_level(level, exp_level, w.day.to_numpy(), tol, min_len, alpha)
+    # shared: on a held day every producing inverter delivers less of its expected power on
+    # the held intervals than on the rest of the day (one inverter at its own limit is the
+    # clipping detector's)
+    ratio = (m / e).where(producing & e.gt(0)).to_numpy()
     for day in np.unique(w.day.to_numpy()[held]):
-        sel = held & (w.day.to_numpy() == day)
-        if not (np.nanmedian(ratio[sel], axis=0) <= 1 - margin).all():
+        today = w.day.to_numpy() == day
+        sel = held & today
+        on, off = np.nanmedian(ratio[sel], axis=0), np.nanmedian(ratio[today & ~sel], axis=0)
+        if not (on < off).all():
             held[sel] = False
     keep |= held
     keep = _whole_day(keep, level, exp_level, w.day.to_numpy(), tol, margin)
