@@ -186,7 +186,7 @@ def solar_position(times: pd.DatetimeIndex, latitude: float, longitude: float,
 # irradiance: decomposition
 
 
-def decompose(ghi: pd.Series, solar_zenith: pd.Series, model: str = "erbs",
+def decompose(ghi: pd.Series, solar_zenith: pd.Series, model: str = "disc",
               pressure: float = 101325.0) -> pd.DataFrame:
     """Split GHI into DNI and DHI by a published decomposition model.
 
@@ -197,8 +197,11 @@ def decompose(ghi: pd.Series, solar_zenith: pd.Series, model: str = "erbs",
     solar_zenith : pandas.Series
         True (not refracted) solar zenith [deg].
     model : str
-        ``erbs`` (Erbs, Klein & Duffie 1982), ``boland`` (Boland, Huang & Ridley 2013) or
-        ``disc`` (Maxwell 1987).
+        ``disc`` (Maxwell 1987), ``erbs`` (Erbs, Klein & Duffie 1982) or ``boland`` (Boland,
+        Huang & Ridley 2013). DISC is the default: it uses the air mass as well as the
+        clearness index, and on the typical-year files pvlib ships its monthly plane-of-array
+        sums stay within about 2 % of those from the files' own DNI and DHI on fixed and tracked
+        planes, where Erbs's beam runs low by up to 5-15 % in winter (tests/test_physics.py).
     pressure : float
         Site air pressure, used by ``disc`` [Pa].
 
@@ -232,7 +235,7 @@ def decompose(ghi: pd.Series, solar_zenith: pd.Series, model: str = "erbs",
 
 
 def complete_components(ghi: pd.Series, solar_zenith: pd.Series, dhi: pd.Series | None = None,
-                        dni: pd.Series | None = None, model: str = "erbs",
+                        dni: pd.Series | None = None, model: str = "disc",
                         pressure: float = 101325.0) -> pd.DataFrame:
     """GHI, DNI and DHI from what was measured, filling the rest.
 

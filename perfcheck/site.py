@@ -51,7 +51,7 @@ STATES = ("running", "stopped by the grid", "stopped by a fault", "derated", "ma
 
 MOUNTINGS = ("open_rack", "close_roof", "insulated_back")
 CONSTRUCTIONS = ("glass_glass", "glass_polymer")
-DECOMPOSITIONS = ("erbs", "boland", "disc")
+DECOMPOSITIONS = ("disc", "erbs", "boland")
 TRANSPOSITIONS = ("perez", "haydavies", "isotropic")
 TEMPERATURE_MODELS = ("sapm", "faiman")
 IAM_MODELS = ("physical", "ashrae", "martin_ruiz", "none")
@@ -155,7 +155,7 @@ class Model:
     poa_sensor_azimuth_deg: float | None = None
     poa_sensor_on_tracker: bool = False  # the sensor rides the first tracker array's tracker
     # (default in the site file: true when the first array is a tracker, see _sensor_on_tracker)
-    decomposition: str = "erbs"
+    decomposition: str = "disc"
     transposition: str = "perez"
     temperature_model: str = "sapm"
     iam: str = "physical"
@@ -728,7 +728,7 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         poa_sensor_tilt_deg=mt.number("poa_sensor_tilt_deg", None, lo=0, hi=90),
         poa_sensor_azimuth_deg=mt.number("poa_sensor_azimuth_deg", None, lo=0, hi=360),
         poa_sensor_on_tracker=_sensor_on_tracker(mt, inverters),
-        decomposition=mt.get("decomposition", str, "erbs", DECOMPOSITIONS),
+        decomposition=mt.get("decomposition", str, "disc", DECOMPOSITIONS),
         transposition=mt.get("transposition", str, "perez", TRANSPOSITIONS),
         temperature_model=mt.get("temperature_model", str, "sapm", TEMPERATURE_MODELS),
         iam=mt.get("iam", str, "physical", IAM_MODELS),

@@ -63,6 +63,41 @@ def _sun(zenith: float, azimuth: float, n: int = 1) -> pd.DataFrame:
                          "azimuth": azimuth}, index=idx)
 
 
+@pytest.mark.parametrize("key", ["greensboro", "sand_point", "miami"])
+def test_default_decomposition_against_typical_year_components(key):
+    # The typical-year files pvlib ships (TMY3 723170 Greensboro NC and 703165 Sand Point AK,
+    # Wilcox & Marion 2008, NREL/TP-581-43156; TMY2 12839 Miami FL, Marion & Urban 1995,
+    # NREL/TP-463-7668) carry GHI, DNI and DHI. From GHI alone, the default decomposition
+    # transposed by Perez must give monthly plane-of-array sums close to those of the files' own
+    # DNI and DHI, on a fixed 25 deg south plane and on a horizontal single-axis tracker.
+    # Tolerances (common practice for a monthly modelled POA): annual within 1 %, mean monthly
+    # |error| within 1.5 %. Caveat (from memory): much of those files' DNI is itself modelled
+    # (METSTAT), so this checks agreement with the files, not with a pyrheliometer.
+    from perfcheck.scenario.suite.climate import climate, read_typical_year
+    data, meta = read_typical_year(climate(key))
+    times = pd.date_range("2021-01-01 00:30", periods=len(data), freq="h",
+                          tz=f"Etc/GMT{-int(meta['TZ']):+d}")
+    data.index = times
+    sp = pvlib.solarposition.get_solarposition(times, meta["latitude"], meta["longitude"])
+    day = sp["zenith"] < 87
+    ghi = data["ghi"].where(day, 0.0)
+    est = ph.decompose(ghi, sp["zenith"])
+    dni_extra = pvlib.irradiance.get_extra_radiation(times)
+    airmass = pvlib.atmosphere.get_relative_airmass(sp["apparent_zenith"])
+    trk = pvlib.tracking.singleaxis(sp["apparent_zenith"], sp["azimuth"], 0, 180, 60, True, 0.35)
+    for tilt, azimuth in [(25.0, 180.0), (trk["surface_tilt"].fillna(0.0),
+                                          trk["surface_azimuth"].fillna(90.0))]:
+        def monthly(dni, dhi):
+            poa = pvlib.irradiance.get_total_irradiance(
+                tilt, azimuth, sp["apparent_zenith"], sp["azimuth"], dni, ghi, dhi,
+                dni_extra=dni_extra, airmass=airmass, model="perez", albedo=0.2)
+            return poa["poa_global"].fillna(0.0).resample("MS").sum()
+        ours = monthly(est["dni"], est["dhi"])
+        files = monthly(data["dni"].where(day, 0.0), data["dhi"].where(day, 0.0))
+        assert abs(ours.sum() / files.sum() - 1) < 0.01
+        assert (ours / files - 1).abs().mean() < 0.015
+
+
 @pytest.mark.parametrize("kt", [0.1, 0.3, 0.5, 0.7, 0.9])
 def test_erbs_diffuse_fraction(kt):
     # Erbs, Klein & Duffie 1982, Solar Energy 28(4):293, the published polynomial:
