@@ -6,6 +6,7 @@ import json
 
 import numpy as np
 import pandas as pd
+import pvlib
 import pytest
 from model_fixtures import clear_days, make_site, open_db, store
 from numpy.testing import assert_allclose
@@ -67,15 +68,18 @@ def test_ghi_chain_two_orientations_and_limits(tmp_path):
     assert (out["poa_source"] == "model").all()
     inv2 = out[out["inverter_id"] == "INV2"].set_index("ts")
     # INV2: east and west halves, DC-weighted plane quantities, DC summed over both arrays.
-    east = ph.poa_components(15, 90, sun, w["ghi"], *_erbs(w, sun), sun["dni_extra"],
+    east = ph.poa_components(15, 90, sun, w["ghi"], *_components(w, sun, site), sun["dni_extra"],
                              sun["airmass_relative"], 0.2, (), "perez", "physical")
-    west = ph.poa_components(15, 270, sun, w["ghi"], *_erbs(w, sun), sun["dni_extra"],
+    west = ph.poa_components(15, 270, sun, w["ghi"], *_components(w, sun, site), sun["dni_extra"],
                              sun["airmass_relative"], 0.2, (), "perez", "physical")
     assert_allclose(inv2["poa_global_wm2"], (east["poa_global"] + west["poa_global"]) / 2)
 
 
-def _erbs(w: pd.DataFrame, sun: pd.DataFrame) -> tuple[pd.Series, pd.Series]:
-    c = ph.complete_components(w["ghi"], sun["zenith"])
+def _components(w: pd.DataFrame, sun: pd.DataFrame, site) -> tuple[pd.Series, pd.Series]:
+    # the default decomposition (DISC) at the site's air pressure (ISO 2533 standard atmosphere,
+    # as pvlib's alt2pres)
+    pressure = pvlib.atmosphere.alt2pres(site.altitude_m)
+    c = ph.complete_components(w["ghi"], sun["zenith"], pressure=pressure)
     return c["dni"], c["dhi"]
 
 
