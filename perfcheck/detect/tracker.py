@@ -65,8 +65,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import pvlib
-from scipy import stats
 
 from perfcheck import physics as ph
 from perfcheck.detect.common import (
@@ -76,7 +74,11 @@ from perfcheck.detect.common import (
     energy_band,
     scope_of,
 )
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Array, Site
+
+pvlib = lazy_module("pvlib")
+stats = lazy_module("scipy.stats")
 
 STEP_DEG = 2.0  # grid of the candidate angles and offsets: about the pointing accuracy
 # days whose best angles differ by up to this much are one stall: a day that is partly
