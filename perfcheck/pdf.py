@@ -13,14 +13,22 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from matplotlib.artist import Artist
-from matplotlib.backends.backend_pdf import PdfPages
-from matplotlib.colors import to_rgba
-from matplotlib.figure import Figure
-from matplotlib.font_manager import FontProperties
-from PIL import Image
 
-from perfcheck import figures
+from perfcheck.lazy import lazy_module
+
+# matplotlib's PDF backend imports fontTools' subsetter at its top but calls it only to embed
+# TrueType (Type 42) fonts; these pages embed Type 3 fonts (matplotlib's default), so the
+# subsetter is bound lazily first and never loads
+lazy_module("fontTools.subset")
+
+from matplotlib.artist import Artist  # noqa: E402
+from matplotlib.backends.backend_pdf import PdfPages  # noqa: E402
+from matplotlib.colors import to_rgba  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+from matplotlib.font_manager import FontProperties  # noqa: E402
+from PIL import Image  # noqa: E402
+
+from perfcheck import figures  # noqa: E402
 
 A4 = (8.27, 11.69)
 MARGIN = 0.7
