@@ -69,9 +69,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import pvlib
-from scipy import stats
-from scipy.special import xlogy
 
 from perfcheck import physics as ph
 from perfcheck.detect.common import (
@@ -81,7 +78,12 @@ from perfcheck.detect.common import (
     energy_band,
     scope_of,
 )
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Array, Site
+
+pvlib = lazy_module("pvlib")
+special = lazy_module("scipy.special")
+stats = lazy_module("scipy.stats")
 
 STEP_DEG = 2.0  # grid of the candidate angles and offsets: about the pointing accuracy
 # days whose best angles differ by up to this much are one stall: a day that is partly
@@ -414,7 +416,7 @@ def _bernoulli_loglik(k: np.ndarray, n: np.ndarray) -> np.ndarray:
     """Log-likelihood of k successes in n Bernoulli trials at their own rate k / n."""
     with np.errstate(invalid="ignore", divide="ignore"):
         p = np.where(n > 0, k / np.maximum(n, 1), 0.5)
-    return xlogy(k, p) + xlogy(n - k, 1 - p)
+    return special.xlogy(k, p) + special.xlogy(n - k, 1 - p)
 
 
 def _day_runs(days: np.ndarray, gap_days: int) -> list[tuple[np.datetime64, np.datetime64]]:
