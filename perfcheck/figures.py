@@ -181,7 +181,10 @@ def fig_loss_attribution(losses: dict) -> Figure:
         return fig
     causes = [(k, v) for k, v in losses.get("by_cause_kwh", {}).items() if v]
     causes.append(("unexplained", losses.get("unexplained_kwh", 0.0)))
-    labels = ["expected"] + [textwrap.fill(kinds.words(k), 14) for k, _ in causes] + ["measured"]
+    # the axis holds about 110 characters of its 7-point labels: narrower lines for more bars
+    width = max(8, min(14, 110 // (len(causes) + 2)))
+    labels = ["expected"] + [textwrap.fill(kinds.words(k), width, break_long_words=False)
+                             for k, _ in causes] + ["measured"]
     level = losses["expected_kwh"]
     ax.bar(0, level, color=EXPECTED, width=0.6)
     for i, (kind, kwh) in enumerate(causes, start=1):

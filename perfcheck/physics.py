@@ -10,6 +10,8 @@ Series or DataFrame on a UTC DatetimeIndex (or a scalar), NaN passes through, no
 from __future__ import annotations
 
 import datetime as dt
+import functools
+import math
 import warnings
 from collections.abc import Sequence
 
@@ -513,12 +515,22 @@ def iam_diffuse(surface_tilt: float | pd.Series, model: str = "physical"
     if np.ndim(surface_tilt) == 0:
         out = pvlib.iam.marion_diffuse(model, surface_tilt)
         return {k: float(np.nan_to_num(out[k], nan=1.0)) for k in ("sky", "horizon", "ground")}
-    grid = np.arange(0.0, 181.0)
-    out = pvlib.iam.marion_diffuse(model, grid)
     tilt = np.asarray(surface_tilt, dtype=float)
-    return {k: pd.Series(np.interp(tilt, grid, np.nan_to_num(out[k], nan=1.0)),
+    top = min(180, 10 * math.ceil(float(np.nanmax(tilt, initial=0.0)) / 10))  # tens of degrees
+    grid, table = _marion_grid(model, top)
+    return {k: pd.Series(np.interp(tilt, grid, table[k]),
                          index=surface_tilt.index).where(surface_tilt.notna())
             for k in ("sky", "horizon", "ground")}
+
+
+@functools.lru_cache(maxsize=8)
+def _marion_grid(model: str, top_deg: int) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    """Marion's diffuse modifiers of ``model`` on the one-degree grid of tilts 0 to
+    ``top_deg``, integrated once per process (the model runs month by month)."""
+    grid = np.arange(0.0, top_deg + 1.0)
+    out = pvlib.iam.marion_diffuse(model, grid)
+    return grid, {k: np.nan_to_num(np.asarray(out[k], dtype=float), nan=1.0)
+                  for k in ("sky", "horizon", "ground")}
 
 
 def sky_view(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
@@ -534,10 +546,19 @@ def sky_view(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series
     if not has_horizon(horizon):
         return 1.0
     keys = pd.DataFrame({"tilt": surface_tilt.round(), "az": surface_azimuth.round() % 360.0})
-    ratio = {(t, a): sky_view_ratio(t, a, horizon, band_deg)
+    profile = tuple((float(a), float(e)) for a, e in horizon)
+    ratio = {(t, a): _sky_view_of(float(t), float(a), profile, band_deg)
              for t, a in keys.dropna().drop_duplicates().itertuples(index=False)}
     return pd.Series([ratio.get((t, a), np.nan) for t, a in keys.itertuples(index=False)],
                      index=surface_tilt.index)
+
+
+@functools.lru_cache(maxsize=4096)
+def _sky_view_of(surface_tilt: float, surface_azimuth: float,
+                 horizon: tuple[tuple[float, float], ...], band_deg: float) -> float:
+    """:func:`sky_view_ratio`, kept for the orientations a moving plane passes again (the
+    model runs month by month)."""
+    return sky_view_ratio(surface_tilt, surface_azimuth, horizon, band_deg)
 
 
 def poa_components(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
