@@ -93,6 +93,9 @@ def stow_entries(site: Site, ph: Physics, faults: Faults, clean: Plant, interval
     day = np.asarray(ph.times.tz_convert(tz).normalize().tz_localize(None), dtype="datetime64[D]")
     limits = {a.tracker.stow_wind_speed_ms for inv in site.inverters for a in inv.arrays
               if a.tracker is not None}
+    trackers = [inv.id for inv in site.inverters if any(a.tracker for a in inv.arrays)]
+    # the plant when every inverter stows, else the one tracker inverter (as the detector)
+    scope = "plant" if len(trackers) == len(site.inverters) else f"inverter:{trackers[0]}"
     runs: list[list] = []
     for d in np.unique(day[on]):
         if runs and d - runs[-1][1] <= np.timedelta64(2, "D"):
@@ -103,7 +106,7 @@ def stow_entries(site: Site, ph: Physics, faults: Faults, clean: Plant, interval
     for first, last in runs:
         span = (day >= first) & (day <= last)
         start, end = _span(ph.times, on & span, tz)
-        entries.append({"kind": "wind_stow", "scope": "plant", "design": True, "start": start,
+        entries.append({"kind": "wind_stow", "scope": scope, "design": True, "start": start,
                         "end": end, "energy_loss_kwh": round(float(kept[span].sum() * kwh), 3),
                         "parameters": {"stow_wind_speed_ms": min(limits),
                                        "intervals": int((on & span).sum()),
