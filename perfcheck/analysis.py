@@ -144,6 +144,7 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
     ledger: Ledger = found["ledger"]
     first = pd.Timestamp(df["ts"].min())
     end = pd.Timestamp(df["ts"].max()) + pd.Timedelta(seconds=float(df["interval_s"].iloc[-1]))
+    del df  # the whole history's rows: released before the storing queries need memory
     start_day, end_day = _whole_days(site, first, end)
     events = _restate(found["events"], ledger)
     t_typ = metrics.typical_cell_temperature(con, site, end_day, settings)

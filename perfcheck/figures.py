@@ -40,10 +40,11 @@ FLAG_COLOURS = ("#16706b", "#c98b2b", "#a4432f", "#3d5a80", "#8f7ab8", "#6b8f71"
 MARKERS = ("o", "s", "^", "D", "v", "P", "X")  # one per inverter in the scatter
 
 WIDTH_IN, HEIGHT_IN = 7.6, 3.6
+DPI = 160  # one rendering serves the HTML (scaled to the page width) and the PDF
 
 
 def _figure(height: float = HEIGHT_IN, ncols: int = 1) -> tuple[Figure, list]:
-    fig = Figure(figsize=(WIDTH_IN, height), dpi=110, facecolor=PAPER, layout="constrained")
+    fig = Figure(figsize=(WIDTH_IN, height), dpi=DPI, facecolor=PAPER, layout="constrained")
     FigureCanvasAgg(fig)
     axes = fig.subplots(1, ncols, squeeze=False)[0].tolist()
     for ax in axes:
@@ -180,7 +181,10 @@ def fig_loss_attribution(losses: dict) -> Figure:
         return fig
     causes = [(k, v) for k, v in losses.get("by_cause_kwh", {}).items() if v]
     causes.append(("unexplained", losses.get("unexplained_kwh", 0.0)))
-    labels = ["expected"] + [textwrap.fill(kinds.words(k), 14) for k, _ in causes] + ["measured"]
+    # the axis holds about 110 characters of its 7-point labels: narrower lines for more bars
+    width = max(8, min(14, 110 // (len(causes) + 2)))
+    labels = ["expected"] + [textwrap.fill(kinds.words(k), width, break_long_words=False)
+                             for k, _ in causes] + ["measured"]
     level = losses["expected_kwh"]
     ax.bar(0, level, color=EXPECTED, width=0.6)
     for i, (kind, kwh) in enumerate(causes, start=1):
@@ -480,11 +484,18 @@ FIGURES: list[tuple[str, str, Callable]] = [
 ]
 
 
-DPI = 160  # one rendering serves the HTML (scaled to the page width) and the PDF
-
 
 def png_bytes(fig: Figure) -> bytes:
-    """The figure as PNG bytes at ``DPI``."""
+    """The figure as PNG bytes at ``DPI``.
+
+    The figure's layout (constrained) is run here, at the figure's own ``DPI``, and then left
+    as it is: given a layout engine, ``savefig`` would draw the whole figure once with the
+    drawing switched off only to run it, then draw it again for the pixels.
+    """
+    engine = fig.get_layout_engine()
+    if engine is not None:
+        engine.execute(fig)
+        fig.set_layout_engine(None)  # the positions stay; savefig draws once
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=DPI, facecolor=fig.get_facecolor())
     return buf.getvalue()

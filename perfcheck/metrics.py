@@ -417,18 +417,13 @@ def daylight_seconds(
 
     References
     ----------
-    Spencer 1971, Search 2(5):172 (declination, equation of time), via pvlib's
-    ``sun_rise_set_transit_geometric`` (accuracy a few minutes, enough for counting intervals).
+    Spencer 1971, Search 2(5):172 (declination, equation of time), by
+    :func:`perfcheck.physics.sunrise_sunset_geometric` (accuracy a few minutes, enough for
+    counting intervals).
     """
-    from pvlib import solarposition as sp
-
-    doy = days.day_of_year.to_numpy()
-    rise, sset, _ = sp.sun_rise_set_transit_geometric(
-        days, site.latitude_deg, site.longitude_deg,
-        sp.declination_spencer71(doy), sp.equation_of_time_spencer71(doy),
-    )
+    rise, sset = ph.sunrise_sunset_geometric(days, site.latitude_deg, site.longitude_deg)
     day_end = days + pd.Timedelta(days=1)
-    dec = np.asarray(sp.declination_spencer71(doy))
+    dec = ph.declination_spencer71(days.day_of_year.to_numpy())
     polar_day = np.sign(dec) == np.sign(site.latitude_deg)
     rise = pd.Series(rise, index=days).fillna(pd.Series(np.where(polar_day, days, day_end),
                                                         index=days))
@@ -986,16 +981,17 @@ def site_record(site: Site) -> dict[str, Any]:
 
 
 def run_record() -> dict[str, Any]:
+    import importlib.metadata
     import platform
 
-    import pvlib
     import statsmodels
 
     return {
         "tool_version": __version__,
         "created_at": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         "python": platform.python_version(),
+        # pvlib's version as pvlib reads it, from its metadata: a view need not import pvlib
         "dependencies": {"pandas": pd.__version__, "numpy": np.__version__,
-                         "pvlib": pvlib.__version__, "duckdb": duckdb.__version__,
-                         "statsmodels": statsmodels.__version__},
+                         "pvlib": importlib.metadata.version("pvlib"),
+                         "duckdb": duckdb.__version__, "statsmodels": statsmodels.__version__},
     }

@@ -56,13 +56,15 @@ from typing import Any
 import duckdb
 import numpy as np
 import pandas as pd
-import pvlib
 
 from perfcheck import align, db, ingest
 from perfcheck import physics as ph
 from perfcheck.errors import DataError
+from perfcheck.lazy import lazy_module
 from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Array, Inverter, Site
 from perfcheck.versions import versions
+
+pvlib = lazy_module("pvlib")  # loaded when a model is built, not when a detector names it
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
 MODEL_VERSION = "3"

@@ -12,12 +12,23 @@ import textwrap
 from pathlib import Path
 from typing import Any
 
-import matplotlib.image as mpimg
 import numpy as np
-from matplotlib.backends.backend_pdf import PdfPages
-from matplotlib.figure import Figure
 
-from perfcheck import figures
+from perfcheck.lazy import lazy_module
+
+# matplotlib's PDF backend imports fontTools' subsetter at its top but calls it only to embed
+# TrueType (Type 42) fonts; these pages embed Type 3 fonts (matplotlib's default), so the
+# subsetter is bound lazily first and never loads
+lazy_module("fontTools.subset")
+
+from matplotlib.artist import Artist  # noqa: E402
+from matplotlib.backends.backend_pdf import PdfPages  # noqa: E402
+from matplotlib.colors import to_rgba  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+from matplotlib.font_manager import FontProperties  # noqa: E402
+from PIL import Image  # noqa: E402
+
+from perfcheck import figures  # noqa: E402
 
 A4 = (8.27, 11.69)
 MARGIN = 0.7
@@ -25,6 +36,31 @@ LINE = {"title": 0.32, "h": 0.26, "lead": 0.19, "para": 0.155, "pre": 0.12, "tab
 SIZE = {"title": 14, "h": 11, "lead": 10.5, "para": 8.5, "pre": 6.5, "table": 7}
 WRAP = {"title": 64, "h": 84, "lead": 92, "para": 104, "pre": 125}
 FIGURE_WIDTH = 0.84  # share of the text width, so that three figures fit on a page
+
+
+class _Line(Artist):
+    """One line of text, its baseline starting at (x, y) in fractions of the page.
+
+    The pages place every line themselves, so the measuring pass of matplotlib's ``Text``
+    (a layout of every glyph before the one that draws it) buys nothing here: the line goes
+    to the renderer as ``Text`` sends a left-aligned line at its baseline, as plain text.
+    """
+
+    zorder = 3  # that of Text: the page draws in the same order
+
+    def __init__(self, x: float, y: float, text: str, colour: str, **font: Any):
+        super().__init__()
+        self.xy, self.line, self.colour = (x, y), text, colour
+        self.font = FontProperties(**font)
+
+    def draw(self, renderer: Any) -> None:
+        if not self.line:
+            return
+        gc = renderer.new_gc()
+        gc.set_foreground(to_rgba(self.colour), isRGBA=True)
+        x, y = self.get_transform().transform(self.xy)
+        renderer.draw_text(gc, x, y, self.line, self.font, 0.0)
+        gc.restore()
 
 
 class Pages:
@@ -37,8 +73,8 @@ class Pages:
         self.close()
         self.n += 1
         self.fig = Figure(figsize=A4, facecolor="white")
-        self.fig.text(MARGIN / A4[0], 0.35 / A4[1], f"{self.footer}  ·  page {self.n}",
-                      fontsize=6.5, color=figures.MUTED)
+        self.line(MARGIN, 0.35, f"{self.footer}  ·  page {self.n}", size=6.5,
+                  colour=figures.MUTED)
         self.fig.add_artist(_rule(A4[1] - 0.45))
         self.y = A4[1] - MARGIN
 
@@ -51,19 +87,25 @@ class Pages:
         if self.fig is None or self.y - h < MARGIN:
             self.new()
 
+    def line(self, x: float, y: float, text: str, colour: str = figures.INK,
+             **font: Any) -> None:
+        """A line of text on the page, its baseline starting at (x, y) [in]; ``font``:
+        FontProperties (size, weight, family, style)."""
+        self.fig.add_artist(_Line(x / A4[0], y / A4[1], text, colour, **font))
+
     def text(self, kind: str, line: str, x: float = MARGIN, **kw: Any) -> None:
         self.need(LINE[kind])
         self.y -= LINE[kind]
-        style = dict(fontsize=SIZE[kind], color=figures.INK, va="baseline")
+        style: dict[str, Any] = dict(size=SIZE[kind], colour=figures.INK)
         if kind in ("title", "h"):
-            style.update(fontweight="bold", color=figures.MEASURED if kind == "h" else
+            style.update(weight="bold", colour=figures.MEASURED if kind == "h" else
                          figures.INK)
         if kind == "lead":
-            style.update(color=figures.MEASURED)
+            style.update(colour=figures.MEASURED)
         if kind == "pre":
             style.update(family="monospace")
         style.update(kw)
-        self.fig.text(x / A4[0], self.y / A4[1], line, **style)
+        self.line(x, self.y, line, **style)
 
 
 def _rule(y_in: float):
@@ -119,9 +161,8 @@ def _table(pages: Pages, head: list[str], rows: list[list[str]]) -> None:
                 draw(head, True)
         for x, lines in zip(xs, cells, strict=True):
             for k, line in enumerate(lines):
-                pages.fig.text(x / A4[0], (pages.y - step * (k + 1)) / A4[1], line,
-                               fontsize=size, color=figures.INK,
-                               fontweight="bold" if bold else "normal")
+                pages.line(x, pages.y - step * (k + 1), line, size=size,
+                           weight="bold" if bold else "normal")
         pages.y -= height
 
     pages.need(step * 3)
@@ -133,9 +174,9 @@ def _table(pages: Pages, head: list[str], rows: list[list[str]]) -> None:
 
 def _figures(pages: Pages, pngs: dict[str, bytes]) -> None:
     for n, (stem, caption, _) in enumerate(figures.FIGURES, 1):
-        # back to the PNG's 8-bit channels (imread gives them divided by 255): matplotlib
-        # then embeds them as they are, without normalising a float image first
-        img = (mpimg.imread(io.BytesIO(pngs[stem])) * 255 + 0.5).astype(np.uint8)
+        # the PNG's 8-bit channels as they are: matplotlib embeds them without normalising
+        # a float image first
+        img = np.asarray(Image.open(io.BytesIO(pngs[stem])))
         width = (A4[0] - 2 * MARGIN) * FIGURE_WIDTH
         height = width * img.shape[0] / img.shape[1]
         left = (A4[0] - width) / 2
@@ -146,7 +187,7 @@ def _figures(pages: Pages, pngs: dict[str, bytes]) -> None:
         ax.set_axis_off()
         pages.y -= height + 0.05
         for line in _wrap(f"Figure {n}. {caption}", WRAP["para"] + 8):
-            pages.text("para", line, x=left, fontsize=7.5, color=figures.MUTED, style="italic")
+            pages.text("para", line, x=left, size=7.5, colour=figures.MUTED, style="italic")
         pages.y -= 0.15
 
 

@@ -10,13 +10,18 @@ Series or DataFrame on a UTC DatetimeIndex (or a scalar), NaN passes through, no
 from __future__ import annotations
 
 import datetime as dt
+import functools
+import math
 import warnings
 from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
-import pvlib
-from pvlib import spa
+
+from perfcheck.lazy import lazy_module
+
+# pvlib only when a physics function runs: a command reading stored results does not load it
+pvlib = lazy_module("pvlib")
 
 # --------------------------------------------------------------------------------------------
 # sun position
@@ -46,6 +51,7 @@ def _time_terms(unixtime: np.ndarray, delta_t: np.ndarray) -> dict[str, np.ndarr
     ``nu`` = v - v0 [deg] (eq. 15); the mean sidereal time v0 (eq. 12) is linear in time and is
     computed exactly where it is needed.
     """
+    spa = pvlib.spa
     jd = spa.julian_day(unixtime)
     jde = spa.julian_ephemeris_day(jd, delta_t)
     jce = spa.julian_ephemeris_century(jde)
@@ -69,11 +75,13 @@ def _time_terms(unixtime: np.ndarray, delta_t: np.ndarray) -> dict[str, np.ndarr
 
 
 def _mean_sidereal_time(unixtime: np.ndarray) -> np.ndarray:
+    spa = pvlib.spa
     jd = spa.julian_day(unixtime)
     return spa.mean_sidereal_time(jd, spa.julian_century(jd))
 
 
 def _delta_t(unixtime: np.ndarray) -> np.ndarray:
+    spa = pvlib.spa
     t = pd.DatetimeIndex(pd.to_datetime(unixtime, unit="s", utc=True))
     return np.asarray(spa.calculate_deltat(t.year, t.month), dtype=float)
 
@@ -154,6 +162,7 @@ def solar_position(times: pd.DatetimeIndex, latitude: float, longitude: float,
     Reda, I., Andreas, A. (2004). Solar position algorithm for solar radiation applications.
     Solar Energy 76(5), 577-589; NREL/TP-560-34302 (rev. 2008), eqs. 33-47.
     """
+    spa = pvlib.spa
     if pressure is None:
         pressure = float(pvlib.atmosphere.alt2pres(altitude))
     t = sun_time_terms(unix_seconds(times), delta_t)
@@ -180,6 +189,52 @@ def solar_position(times: pd.DatetimeIndex, latitude: float, longitude: float,
         },
         index=times,
     )
+
+
+def declination_spencer71(dayofyear: np.ndarray) -> np.ndarray:
+    """Solar declination [rad] by Spencer's Fourier series of the day of year (Spencer 1971,
+    Search 2(5):172; Duffie & Beckman 2006, pp. 13-14), as pvlib's function of that name."""
+    day_angle = (2.0 * np.pi / 365.0) * (dayofyear - 1)
+    return (
+        0.006918 -
+        0.399912 * np.cos(day_angle) + 0.070257 * np.sin(day_angle) -
+        0.006758 * np.cos(2.0 * day_angle) + 0.000907 * np.sin(2.0 * day_angle) -
+        0.002697 * np.cos(3.0 * day_angle) + 0.00148 * np.sin(3.0 * day_angle)
+    )
+
+
+def equation_of_time_spencer71(dayofyear: np.ndarray) -> np.ndarray:
+    """Equation of time [min] by Spencer's Fourier series (Spencer 1971, with his corrected
+    constant 0.0000075; Duffie & Beckman 2006, pp. 9-11), as pvlib's function of that name."""
+    day_angle = (2.0 * np.pi / 365.0) * (dayofyear - 1)
+    return (1440.0 / 2 / np.pi) * (
+        0.0000075 +
+        0.001868 * np.cos(day_angle) - 0.032077 * np.sin(day_angle) -
+        0.014615 * np.cos(2.0 * day_angle) - 0.040849 * np.sin(2.0 * day_angle)
+    )
+
+
+def sunrise_sunset_geometric(days: pd.DatetimeIndex, latitude: float, longitude: float
+                             ) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
+    """Geometric sunrise and sunset of each local day (``days``: local midnights, tz-aware).
+
+    Sunset hour angle arccos(-tan(delta) tan(phi)) (Duffie & Beckman 2006, eq. 1.6.10) with the
+    declination and equation of time of Spencer (1971): a circular orbit, the sun a point, no
+    refraction, so off by minutes. The same arithmetic as pvlib's
+    ``sun_rise_set_transit_geometric``, without loading pvlib; NaT on a polar day or night.
+    """
+    doy = days.day_of_year.to_numpy()
+    sunset_angle = np.degrees(np.arccos(-np.tan(declination_spencer71(doy))
+                                        * np.tan(np.radians(latitude))))
+    utc_offset_h = (days.tz_localize(None) - days.tz_convert("UTC").tz_localize(None)
+                    ).total_seconds().to_numpy() / 3600
+    eot = equation_of_time_spencer71(doy)
+
+    def local_time(hour_angle: np.ndarray) -> pd.DatetimeIndex:
+        hours = (hour_angle - longitude - eot / 4.0) / 15.0 + 12.0 + utc_offset_h
+        return days.normalize() + pd.to_timedelta(np.asarray(hours), unit="h")
+
+    return local_time(-sunset_angle), local_time(sunset_angle)
 
 
 # --------------------------------------------------------------------------------------------
@@ -463,12 +518,22 @@ def iam_diffuse(surface_tilt: float | pd.Series, model: str = "physical"
     if np.ndim(surface_tilt) == 0:
         out = pvlib.iam.marion_diffuse(model, surface_tilt)
         return {k: float(np.nan_to_num(out[k], nan=1.0)) for k in ("sky", "horizon", "ground")}
-    grid = np.arange(0.0, 181.0)
-    out = pvlib.iam.marion_diffuse(model, grid)
     tilt = np.asarray(surface_tilt, dtype=float)
-    return {k: pd.Series(np.interp(tilt, grid, np.nan_to_num(out[k], nan=1.0)),
+    top = min(180, 10 * math.ceil(float(np.nanmax(tilt, initial=0.0)) / 10))  # tens of degrees
+    grid, table = _marion_grid(model, top)
+    return {k: pd.Series(np.interp(tilt, grid, table[k]),
                          index=surface_tilt.index).where(surface_tilt.notna())
             for k in ("sky", "horizon", "ground")}
+
+
+@functools.lru_cache(maxsize=8)
+def _marion_grid(model: str, top_deg: int) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    """Marion's diffuse modifiers of ``model`` on the one-degree grid of tilts 0 to
+    ``top_deg``, integrated once per process (the model runs month by month)."""
+    grid = np.arange(0.0, top_deg + 1.0)
+    out = pvlib.iam.marion_diffuse(model, grid)
+    return grid, {k: np.nan_to_num(np.asarray(out[k], dtype=float), nan=1.0)
+                  for k in ("sky", "horizon", "ground")}
 
 
 def sky_view(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
@@ -484,10 +549,19 @@ def sky_view(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series
     if not has_horizon(horizon):
         return 1.0
     keys = pd.DataFrame({"tilt": surface_tilt.round(), "az": surface_azimuth.round() % 360.0})
-    ratio = {(t, a): sky_view_ratio(t, a, horizon, band_deg)
+    profile = tuple((float(a), float(e)) for a, e in horizon)
+    ratio = {(t, a): _sky_view_of(float(t), float(a), profile, band_deg)
              for t, a in keys.dropna().drop_duplicates().itertuples(index=False)}
     return pd.Series([ratio.get((t, a), np.nan) for t, a in keys.itertuples(index=False)],
                      index=surface_tilt.index)
+
+
+@functools.lru_cache(maxsize=4096)
+def _sky_view_of(surface_tilt: float, surface_azimuth: float,
+                 horizon: tuple[tuple[float, float], ...], band_deg: float) -> float:
+    """:func:`sky_view_ratio`, kept for the orientations a moving plane passes again (the
+    model runs month by month)."""
+    return sky_view_ratio(surface_tilt, surface_azimuth, horizon, band_deg)
 
 
 def poa_components(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,

@@ -52,10 +52,12 @@ import re
 import duckdb
 import numpy as np
 import pandas as pd
-import pvlib
 
 from perfcheck import db, ingest, physics, units
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Site
+
+pvlib = lazy_module("pvlib")
 
 # Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
 # fixed limit on that side. Power and energy limits scale with the device's rating

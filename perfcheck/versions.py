@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import importlib.metadata
 import platform
 
@@ -13,6 +14,12 @@ DEPENDENCIES = ("pandas", "numpy", "pvlib", "duckdb", "statsmodels", "scipy", "m
 
 def versions() -> dict[str, str]:
     """Tool, Python and dependency versions."""
+    return dict(_versions())
+
+
+@functools.cache
+def _versions() -> dict[str, str]:
+    """Looked up once per process: each lookup reads the installed packages' metadata."""
     out = {"perfcheck": __version__, "python": platform.python_version()}
     for name in DEPENDENCIES:
         try:

@@ -268,12 +268,12 @@ def test_new_month_updates_the_analysis_and_records_revisions(tmp_path):
 def test_quarantined_lines_shown_in_the_report_and_the_bundle(plant, tmp_path):
     """Issue 10, item 7: the lines that could not be read are visible. Demo truth: the
     generator wrote 14 corrupt lines (``corrupt_rows`` in truth.json), two of them in the
-    inverter file of July 2024."""
+    inverter file of January 2025."""
     root, site, path, _ = plant
     truth = json.loads((demo_dir() / "truth.json").read_text(encoding="utf-8"))
     (corrupt,) = [f for f in truth["faults"] if f["kind"] == "corrupt_rows"]
     corrupt = corrupt["parameters"]["rows"]
-    start, end = periods.month_period(site, "2024-07")
+    start, end = periods.month_period(site, "2025-01")
     con = db.connect(path)
     try:
         paths = report_mod.write_report(con, site, start, end, tmp_path / "r")
@@ -283,8 +283,8 @@ def test_quarantined_lines_shown_in_the_report_and_the_bundle(plant, tmp_path):
     html = paths["html"].read_text(encoding="utf-8")
     table = html[html.index('id="quarantine"'):html.index("</table>", html.index(
         'id="quarantine"'))]
-    july = [r for r in corrupt if r["file"] == "talbrunn_fl3_2024-07.csv"]
-    assert table.count("talbrunn_fl3_2024-07.csv") == len(july) == 2
+    month = [r for r in corrupt if r["file"] == "talbrunn_fl3_2025-01.csv"]
+    assert table.count("talbrunn_fl3_2025-01.csv") == len(month) == 2
     with zipfile.ZipFile(tmp_path / "claim.zip") as z:
         rows = pd.read_csv(z.open("results/quarantine.csv"))
     assert len(rows) == len(corrupt) == 14

@@ -335,14 +335,17 @@ def demo_metrics(demo_db):
 
 
 def test_healthy_demo_months_have_ordinary_pr_and_epi(demo_db, demo_metrics):
-    # PR 0.75-0.90: common practice for a well-run crystalline-silicon system (no source).
+    # PR 0.75-0.90: common practice for a well-run crystalline-silicon system (no source),
+    # raised by 0.02 for the demo's bifacial block: its rear light (some 5-10 % of the front
+    # at a bifaciality of 0.7, common practice) is outside the front-irradiance reference
+    # yield, and the block holds a quarter of the DC rating (48 of 202 kWp).
     # EPI 0.97-1.03: the model should explain a healthy month to within a few percent.
     healthy = _healthy_demo_months(demo_db.logs)
     assert len(healthy) >= 6
     rows = {r["month"]: r for r in demo_metrics["monthly"]}
     for month in healthy:
         r = rows[month]
-        assert 0.75 <= r["pr"] <= 0.90, (month, r["pr"])
+        assert 0.75 <= r["pr"] <= 0.92, (month, r["pr"])
         assert 0.97 <= r["epi"] <= 1.03, (month, r["epi"])
         assert r["coverage"] >= 0.9
 

@@ -46,6 +46,25 @@ def test_interpolated_time_terms_match_full_spa_over_a_year():
     assert np.abs(d_az).max() < 1e-5
 
 
+@pytest.mark.parametrize("lat, lon, tz", [(47.5, 8.7, "Europe/Zurich"),
+                                           (-33.9, 151.2, "Australia/Sydney"),
+                                           (69.6, 18.9, "Europe/Oslo"),  # polar day and night
+                                           (35.1, -106.6, "America/Denver")])
+def test_geometric_sunrise_sunset_as_pvlib(lat, lon, tz):
+    # pvlib's sun_rise_set_transit_geometric with Spencer's declination and equation of time
+    # (the reference library), over two years of local days with their DST changes.
+    days = pd.date_range("2024-01-01", "2025-12-31", freq="D", tz=tz)
+    doy = days.day_of_year.to_numpy()
+    with np.errstate(invalid="ignore"):
+        rise, sset, _ = pvlib.solarposition.sun_rise_set_transit_geometric(
+            days, lat, lon, pvlib.solarposition.declination_spencer71(doy),
+            pvlib.solarposition.equation_of_time_spencer71(doy))
+        ours = ph.sunrise_sunset_geometric(days, lat, lon)
+    pd.testing.assert_index_equal(ours[0], rise)
+    pd.testing.assert_index_equal(ours[1], sset)
+    assert_allclose(ph.declination_spencer71(doy), pvlib.solarposition.declination_spencer71(doy))
+
+
 def test_interval_midpoints():
     t = pd.date_range("2024-01-01", periods=3, freq="15min", tz="UTC")
     mid = ph.interval_midpoints(t, 900)

@@ -9,6 +9,7 @@ import json
 import re
 import shutil
 import subprocess
+import sys
 from pathlib import Path
 
 import pandas as pd
@@ -225,6 +226,26 @@ def test_demo_month_report(demo_db, tmp_path):
     rows = list(csv.DictReader(io.StringIO(paths["events_csv"].read_text())))
     assert [(r["kind"], r["scope"]) for r in rows] == [(e["kind"], e["scope"])
                                                        for e in doc["events"]]
+
+
+# Prints the modelling libraries a command really loaded (lazily bound ones do not count).
+LOADED_MODELLING = (
+    "import sys\nfrom perfcheck.cli import main\ntry:\n"
+    "    main(sys.argv[1:], prog_name='perfcheck')\nexcept SystemExit as exc:\n"
+    "    assert not exc.code, exc.code\n"
+    "print(sorted(m for m in ('pvlib', 'statsmodels.api', 'scipy.stats') if m in sys.modules "
+    "and type(sys.modules[m]).__name__ != '_LazyModule'))")
+
+
+def test_report_of_a_stored_analysis_loads_no_modelling_library(demo_db, tmp_path):
+    """A report of an analysed period only reads stored results: pvlib, statsmodels and
+    scipy's statistics stay unloaded (about half a second of a report's start-up; the figures
+    of tests/benchmark.py)."""
+    out = subprocess.run(
+        [sys.executable, "-c", LOADED_MODELLING, "report", str(demo_db.site.path), "--db",
+         str(demo_db.db_path), "--month", "2025-06", "--out", str(tmp_path / "report")],
+        capture_output=True, text=True, check=True)
+    assert out.stdout.splitlines()[-1] == "[]", out.stdout
 
 
 def test_age_note_in_methods_and_header(tmp_path):

@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from perfcheck.detect.common import (
     Event,
@@ -37,6 +36,9 @@ from perfcheck.detect.common import (
     plateaus,
     runs,
 )
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD_SHARED = ("shared plateau: every inverter flat below its expected power at the same "
                  "time (interval noise test, common practice)")

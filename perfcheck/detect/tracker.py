@@ -69,9 +69,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import pvlib
-from scipy import stats
-from scipy.special import xlogy
 
 from perfcheck import physics as ph
 from perfcheck.detect.common import (
@@ -81,7 +78,12 @@ from perfcheck.detect.common import (
     energy_band,
     scope_of,
 )
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Array, Site
+
+pvlib = lazy_module("pvlib")
+special = lazy_module("scipy.special")
+stats = lazy_module("scipy.stats")
 
 STEP_DEG = 2.0  # grid of the candidate angles and offsets: about the pointing accuracy
 # days whose best angles differ by up to this much are one stall: a day that is partly
@@ -310,7 +312,7 @@ def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None,
         return w, [], {}
     expected, potential = w.expected.copy(), w.potential.copy()
     kept = pd.DataFrame(0.0, index=w.index, columns=list(limits))
-    any_stow = np.zeros(len(w.index), dtype=bool)
+    stowed = {}
     for inv, limit in limits.items():
         on = (wv >= limit) & (s.zenith < 90)
         if site.model.poa_sensor_on_tracker:  # a sensor on a tracker stows with it
@@ -320,29 +322,33 @@ def stow(w: Wide, site: Site, wind: pd.Series | None, s: Sky | None = None,
         exp_new = np.where(on, np.fmin(exp_old, pot), exp_old)
         expected[inv], potential[inv] = exp_new, pot
         kept[inv] = np.nan_to_num(exp_old - exp_new)
-        any_stow |= on & (kept[inv].to_numpy() != 0)
+        stowed[inv] = on & (kept[inv].to_numpy() != 0)
     w2 = dataclasses.replace(w, expected=expected, potential=potential)
     days = w.day.to_numpy()
-    stow_days = np.unique(days[any_stow])
     events: list[Event] = []
     design: dict[int, pd.DataFrame] = {}
     step = w.interval_s.to_numpy()
-    for first, last in _day_runs(stow_days, gap_days=1):
-        sel = (days >= first) & (days <= last)
-        rows = np.flatnonzero(sel & any_stow)
-        frame = kept.where(pd.Series(sel, index=w.index), 0.0, axis=0)
-        e_kwh = float((frame.to_numpy() * step[:, None]).sum() / 3.6e6)
-        ev = Event(kind="wind_stow", scope="plant", start=w.index[rows[0]],
-                   end=w.end_of(w.index[rows[-1]]), energy_loss_kwh=e_kwh,
-                   energy_loss_kwh_low=e_kwh, energy_loss_kwh_high=e_kwh, method=METHOD_STOW,
-                   evidence={"stow_intervals": int(len(rows)),
-                             "stow_hours": float(step[rows].sum() / 3600),
-                             "max_wind_speed_ms": float(np.nanmax(wv[rows])),
-                             "stow_wind_speed_ms": limits,
-                             "limit": "inferred" if guess is not None else "stated"},
-                   detail={"design": True})
-        events.append(ev)
-        design[id(ev)] = frame
+    # the plant when every inverter stows, else each tracker inverter on its own
+    groups = ([("plant", list(limits))] if set(limits) == set(w.inverters)
+              else [(scope_of(inv), [inv]) for inv in limits])
+    for scope, invs in groups:
+        any_stow = np.logical_or.reduce([stowed[inv] for inv in invs])
+        for first, last in _day_runs(np.unique(days[any_stow]), gap_days=1):
+            sel = (days >= first) & (days <= last)
+            rows = np.flatnonzero(sel & any_stow)
+            frame = kept[invs].where(pd.Series(sel, index=w.index), 0.0, axis=0)
+            e_kwh = float((frame.to_numpy() * step[:, None]).sum() / 3.6e6)
+            ev = Event(kind="wind_stow", scope=scope, start=w.index[rows[0]],
+                       end=w.end_of(w.index[rows[-1]]), energy_loss_kwh=e_kwh,
+                       energy_loss_kwh_low=e_kwh, energy_loss_kwh_high=e_kwh, method=METHOD_STOW,
+                       evidence={"stow_intervals": int(len(rows)),
+                                 "stow_hours": float(step[rows].sum() / 3600),
+                                 "max_wind_speed_ms": float(np.nanmax(wv[rows])),
+                                 "stow_wind_speed_ms": limits,
+                                 "limit": "inferred" if guess is not None else "stated"},
+                       detail={"design": True})
+            events.append(ev)
+            design[id(ev)] = frame
     return w2, events, design
 
 
@@ -414,7 +420,7 @@ def _bernoulli_loglik(k: np.ndarray, n: np.ndarray) -> np.ndarray:
     """Log-likelihood of k successes in n Bernoulli trials at their own rate k / n."""
     with np.errstate(invalid="ignore", divide="ignore"):
         p = np.where(n > 0, k / np.maximum(n, 1), 0.5)
-    return xlogy(k, p) + xlogy(n - k, 1 - p)
+    return special.xlogy(k, p) + special.xlogy(n - k, 1 - p)
 
 
 def _day_runs(days: np.ndarray, gap_days: int) -> list[tuple[np.datetime64, np.datetime64]]:

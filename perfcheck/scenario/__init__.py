@@ -1,8 +1,9 @@
 """The invented demo scenario: a deterministic generator of logger files with known faults.
 
-The site ("Solarpark Talbrunn", three inverters in an invented village in Lower Austria) does
-not exist; every number in ``demo_logs/`` is written by :func:`generate` from seeded
-``numpy.random.Generator`` streams (one for the weather, one for the sensors and logger files),
+The site ("Solarpark Talbrunn", four inverters in an invented village in Lower Austria, three on
+fixed racks and one on single-axis trackers with bifacial modules) does not exist; every number
+in ``demo_logs/`` is written by :func:`generate` from seeded ``numpy.random.Generator`` streams
+(one for the weather, one for the sensors and logger files, one each for two later sensors),
 so the same arguments give the same bytes. The analysis stages must find the faults from the
 logger files alone: nothing here is imported by them, and ``truth.json`` / ``truth_daily.csv``
 are only for scoring.
@@ -27,9 +28,14 @@ import numpy as np
 import pandas as pd
 
 from perfcheck.scenario.faults import ATTRIBUTION_ORDER, NO_FAULTS, Faults, iso
-from perfcheck.scenario.logs import sensor_readings, write_main_logger, write_weather_station
+from perfcheck.scenario.logs import (
+    ANGLE_NOISE_DEG,
+    sensor_readings,
+    write_main_logger,
+    write_weather_station,
+)
 from perfcheck.scenario.plant import dobos_ac, make_physics
-from perfcheck.scenario.sitefile import site_text
+from perfcheck.scenario.sitefile import TRACKER_INVERTER, site_text
 from perfcheck.scenario.truth import energy_truth
 from perfcheck.scenario.weather import DAY_TYPES, Weather, make_weather
 from perfcheck.site import load_site
@@ -42,7 +48,7 @@ __all__ = [
 DEFAULT_SEED = 61724
 DEFAULT_START = dt.date(2024, 5, 1)
 DEFAULT_DAYS = 730
-GENERATOR_VERSION = "2"
+GENERATOR_VERSION = "3"
 # Truth entries that describe how the loggers write, not faults of the plant or its sensors.
 LOGGER_HABITS = ("meter_reset", "duplicate_export", "sentinels")
 ATTRIBUTION_RULE = (
@@ -92,9 +98,10 @@ def generate(
         old.unlink(missing_ok=True)
     (out / "site.toml").write_bytes(site_text(start, interval_min).encode("utf-8"))
     site = load_site(out / "site.toml")
-    # the DHI pyranometer's stream was added last: the first two streams are as before
-    weather_rng, sensor_rng, dhi_rng = (np.random.default_rng(s)
-                                        for s in np.random.SeedSequence(seed).spawn(3))
+    # the DHI pyranometer's and the tracker inclinometer's streams were added later: the
+    # streams before them are as before
+    weather_rng, sensor_rng, dhi_rng, angle_rng = (
+        np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(4))
     t0 = pd.Timestamp(start).tz_localize(site.tz)
     t1 = (pd.Timestamp(start) + pd.Timedelta(days=days)).tz_localize(site.tz)
     times = pd.date_range(t0, t1, freq=f"{interval_min}min", inclusive="left").tz_convert("UTC")
@@ -106,8 +113,10 @@ def generate(
                                              sensor_rng, dhi_rng, interval_min,
                                              0.03 if pure_noise else 0.002)
     entries += sensor_truth
+    angle = ph.rotation[TRACKER_INVERTER] + ANGLE_NOISE_DEG * angle_rng.standard_normal(
+        len(times))
     entries += write_main_logger(out, site, times, weather, plant, readings, schedule,
-                                 sensor_rng, interval_min)
+                                 sensor_rng, interval_min, angle)
     entries += write_weather_station(out, site, times, weather, plant, readings, schedule,
                                      interval_min)
     daily.round(4).to_csv(out / "truth_daily.csv", index=False, lineterminator="\n")

@@ -17,6 +17,7 @@ ATTRIBUTION_ORDER = (
     "degradation",
     "soiling",
     "shading",
+    "tracker_stall",
     "partial_outage",
     "outage",
     "curtailment",
@@ -43,6 +44,16 @@ class Tree:
     top_deg: float
     growth_deg_per_year: float
     transmittance: float  # share of the beam that passes the crown
+
+
+@dataclass(frozen=True)
+class TrackerStall:
+    """A tracker drive that stops: the rows stay at the rotation they had when it stopped
+    (they cannot stow either) until the drive is repaired and they track again."""
+
+    inverter: str
+    start: str
+    end: str
 
 
 @dataclass(frozen=True)
@@ -99,6 +110,8 @@ class Faults:
     soiling: tuple[Soiling, ...] = (Soiling("2025-07-01 06:00", "2025-08-19 10:00", 0.30),)
     soiling_rain_mm: float = 5.0  # rain within 24 h that washes the modules
     tree: Tree | None = Tree("inv3", 205.0, 245.0, "2024-05-01", 3.0, 8.0, 0.25)
+    tracker_stall: TrackerStall | None = TrackerStall("inv4", "2025-06-16 09:40",
+                                                      "2025-06-24 14:15")
     string_loss: StringLoss | None = StringLoss("inv1", "2025-09-02 11:10", "2025-09-23 14:30", 2)
     outage: Outage | None = Outage("inv2", "2025-04-18 10:35", "2025-04-19 16:20")
     curtailment: tuple[Curtailment, ...] = (
@@ -127,9 +140,9 @@ class Faults:
 
 # The fault-free plant (same weather, same sensor noise, clean logger files).
 NO_FAULTS = replace(
-    Faults(), degradation_pct_per_year=0.0, soiling=(), tree=None, string_loss=None,
-    outage=None, curtailment=(), poa_sensor=(), clock=None, gaps=(), corrupt_rows_per_year=0.0,
-    meter_reset=None, reexport=None,
+    Faults(), degradation_pct_per_year=0.0, soiling=(), tree=None, tracker_stall=None,
+    string_loss=None, outage=None, curtailment=(), poa_sensor=(), clock=None, gaps=(),
+    corrupt_rows_per_year=0.0, meter_reset=None, reexport=None,
 )
 
 

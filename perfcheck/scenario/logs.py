@@ -3,10 +3,12 @@
 Main logger "fl3" (invented): one file per month of interval starts, UTF-8 with BOM, CRLF, three
 preamble lines, a header and a units row, ``;`` and decimal comma, naive local time with summer
 time written ``DD.MM.YYYY HH:MM`` at the END of each interval (the October hour appears twice in
-order, the March hour is missing), sentinels ``-9999`` and ``#N/A``. Weather station "ws2"
-(invented): ``,`` and decimal point, ISO 8601 with offset at the START of each interval, LF,
-10-minute means (rain: sums), sentinel ``NaN``. Besides GHI the station logs the diffuse
-horizontal irradiance (DHI) of a second pyranometer under a shading ball on a sun tracker.
+order, the March hour is missing), sentinels ``-9999`` and ``#N/A``; besides the four
+inverters, the meter and the module sensors it logs the rotation of the tracker rows of inv4
+(their inclinometer). Weather station "ws2" (invented): ``,`` and decimal point, ISO 8601 with
+offset at the START of each interval, LF, 10-minute means (rain: sums), sentinel ``NaN``.
+Besides GHI the station logs the diffuse horizontal irradiance (DHI) of a second pyranometer
+under a shading ball on a sun tracker.
 """
 
 from __future__ import annotations
@@ -34,13 +36,17 @@ PREAMBLE = (
     "Anlage;Solarpark Talbrunn\r\n"
     "Export;{month};Intervall {interval} min;Zeitstempel = Intervallende\r\n"
 )
-MAIN_HEADER = "Zeit;P_WR1;P_WR2;P_WR3;E_Netz;G_Modul;T_Modul\r\n;kW;kW;kW;kWh;W/m²;°C\r\n"
+MAIN_HEADER = ("Zeit;P_WR1;P_WR2;P_WR3;P_WR4;E_Netz;G_Modul;T_Modul;Winkel_NF4\r\n"
+               ";kW;kW;kW;kW;kWh;W/m²;°C;°\r\n")
 MAIN_FIRST_DATA_LINE = 6  # 3 preamble lines, header, units row
 WEATHER_HEADER = "time,ghi,tamb,wind,rain,dhi\n"
 # Calibration of the two pyranometers against the truth (within a class A sensor's tolerance).
 POA_CALIBRATION = 1.005
 GHI_CALIBRATION = 0.996
 DHI_CALIBRATION = 1.004  # the shaded pyranometer (class A tolerance; common practice)
+# scatter of the tracker inclinometer [deg] (invented; well inside the +-2 deg pointing
+# tolerance of trackers, common practice)
+ANGLE_NOISE_DEG = 0.2
 
 
 @dataclass
@@ -203,9 +209,10 @@ def _write_main(path: Path, month: str, interval_min: int, body: list[str]) -> N
 
 def write_main_logger(
     out: Path, site: Site, times: pd.DatetimeIndex, w: Weather, plant: Plant, r: Readings,
-    faults: Faults, rng: np.random.Generator, interval_min: int,
+    faults: Faults, rng: np.random.Generator, interval_min: int, angle: np.ndarray,
 ) -> list[dict]:
-    """The main logger's monthly files (and one re-export); truth entries of its faults."""
+    """The main logger's monthly files (and one re-export); truth entries of its faults.
+    ``angle``: the tracker inclinometer's reading [deg]."""
     tz = site.tz
     label, keep, truth = _main_labels(site, times, faults, interval_min)
     gap_keep, gap_truth = _gaps(site, times, plant, faults, MAIN_LOGGER, interval_min)
@@ -218,7 +225,8 @@ def write_main_logger(
     poa[r.poa_sentinel] = "-9999"
     local = label.tz_convert(tz)
     lines = _join([np.asarray(local.strftime("%d.%m.%Y %H:%M"), dtype=object), *power,
-                   fmt(r.register_kwh, 1, True), poa, fmt(r.temp_module, 1, True)], ";")
+                   fmt(r.register_kwh, 1, True), poa, fmt(r.temp_module, 1, True),
+                   fmt(angle, 1, True)], ";")
     month = np.asarray((local - pd.Timedelta(minutes=interval_min)).strftime("%Y-%m"),
                        dtype=object)
     again = (window(times, *faults.reexport, tz) if faults.reexport

@@ -8,6 +8,11 @@ IAM (De Soto et al. 2006) for beam and Marion's (2017) integrated IAM for the sk
 and ground diffuse; SAPM cell and back-of-module temperature (King et al. 2004); a linear
 DC model with the site file's losses and the Dobos (2014) part-load inverter efficiency, the AC
 rating as the clipping limit and the plant export limit shared pro rata over the inverters.
+Rows on single-axis trackers turn as pvlib's tracking with backtracking turns them (Marion &
+Dobos 2013; Lorenzo et al. 2011), lie in stow while the wind the weather station logs reaches
+the stow limit, and see the horizon through the sky view of each plane they pass; bifacial rows
+add the rear irradiance of pvlib's infinite-sheds model (Mikofski et al. 2019) at their
+bifaciality, less what the structure blocks.
 
 References
 ----------
@@ -22,6 +27,12 @@ B. Marion, 2017, "Numerical method for angle-of-incidence correction factors for
 radiation incident photovoltaic modules", Solar Energy 147:344-348.
 D. King, W. Boyson, J. Kratochvil, 2004, SAND2004-3535.
 A. P. Dobos, 2014, NREL/TP-6A20-62641 (report number from memory).
+W. F. Marion, A. P. Dobos, 2013, "Rotation angle for the optimum tracking of one-axis
+trackers", NREL/TP-6A20-58891.
+E. Lorenzo, L. Narvarte, J. Munoz, 2011, "Tracking and back-tracking", Progress in
+Photovoltaics 19(6):747-753.
+M. Mikofski, R. Darawali, M. Hamer, A. Neubert, J. Newmiller, 2019, "Bifacial performance
+modeling in large arrays", IEEE 46th PVSC, 1282-1287.
 """
 
 from __future__ import annotations
@@ -36,7 +47,7 @@ import pandas as pd
 import pvlib
 
 from perfcheck.scenario.faults import ATTRIBUTION_ORDER, Faults, iso, local_ts, window
-from perfcheck.scenario.sitefile import POA_INVERTER
+from perfcheck.scenario.sitefile import POA_INVERTER, weather_factor
 from perfcheck.scenario.weather import Weather
 from perfcheck.site import Site
 
@@ -50,6 +61,10 @@ _SAPM_KEYS = {
 }
 _YEAR_S = 365.25 * 86400
 PEREZ_BAND_DEG = 6.5  # width of Perez's horizon-brightening band above the horizon [deg]
+# Share of the rear irradiance that the trackers' torque tube and frames block (invented for
+# the demo; a few per cent is common practice, from memory). The model assumes 2 %, so the
+# tracker block's truth and model differ a little, as a real plant's do.
+REAR_STRUCTURE_SHADE = 0.05
 
 
 def horizon_elevation(azimuth: np.ndarray, horizon: tuple) -> np.ndarray:
@@ -110,15 +125,32 @@ def sky_view_ratio(tilt: float, azimuth: float, horizon: tuple, band_deg: float 
     return float(1.0 - hidden / seen)
 
 
+def sky_view(tilt: float | np.ndarray, azimuth: float | np.ndarray, horizon: tuple,
+             band_deg: float = 90.0) -> float | np.ndarray:
+    """:func:`sky_view_ratio` of a plane, or of a moving plane (a tracker): each of its
+    orientations, rounded to 0.5 deg, integrated once (the ratio changes smoothly with them)."""
+    if np.ndim(tilt) == 0:
+        return sky_view_ratio(float(tilt), float(azimuth), horizon, band_deg)
+    if not horizon:
+        return 1.0
+    keys = np.stack([np.round(np.asarray(tilt) * 2) / 2,
+                     np.round(np.asarray(azimuth) * 2) / 2 % 360.0], axis=1)
+    planes, which = np.unique(keys, axis=0, return_inverse=True)
+    table = np.array([sky_view_ratio(t, a, horizon, band_deg) for t, a in planes])
+    return table[which.ravel()]
+
+
 def array_irradiance(
-    w: Weather, tilt: float, azimuth: float, albedo: float, beam_factor: np.ndarray,
+    w: Weather, tilt: float | np.ndarray, azimuth: float | np.ndarray, albedo: float,
+    beam_factor: np.ndarray,
     horizon: tuple = (), iam: tuple[Callable, str, dict] = (pvlib.iam.physical, "physical", {}),
 ) -> tuple[np.ndarray, np.ndarray]:
     """Plane-of-array global and IAM-effective irradiance [W/m^2].
 
-    ``beam_factor`` (0..1) is the unobstructed share of the beam and circumsolar light;
-    ``horizon`` reduces the isotropic sky by its sky view and the horizon band by its share of
-    that band (:func:`sky_view_ratio`). Light reflected by the obstructions is neglected.
+    ``tilt`` and ``azimuth`` are arrays for a moving plane (a tracker). ``beam_factor`` (0..1)
+    is the unobstructed share of the beam and circumsolar light; ``horizon`` reduces the
+    isotropic sky by its sky view and the horizon band by its share of that band
+    (:func:`sky_view`). Light reflected by the obstructions is neglected.
     ``iam``: the beam IAM function of the angle of incidence [deg], and the name and
     parameters of the same model for Marion's diffuse integration (the physical IAM of De
     Soto et al. by default).
@@ -131,9 +163,9 @@ def array_irradiance(
     )
     circ = np.nan_to_num(np.asarray(comp["poa_circumsolar"], dtype=float)) * beam_factor
     iso = np.nan_to_num(np.asarray(comp["poa_isotropic"], dtype=float)) \
-        * sky_view_ratio(tilt, azimuth, horizon)
+        * sky_view(tilt, azimuth, horizon)
     band = np.nan_to_num(np.asarray(comp["poa_horizon"], dtype=float)) \
-        * sky_view_ratio(tilt, azimuth, horizon, PEREZ_BAND_DEG)
+        * sky_view(tilt, azimuth, horizon, PEREZ_BAND_DEG)
     beam = w.dni * np.clip(np.cos(np.radians(aoi)), 0, None) * beam_factor
     ground = np.asarray(pvlib.irradiance.get_ground_diffuse(tilt, w.ghi, albedo), dtype=float)
     beam_iam, name, params = iam
@@ -161,6 +193,35 @@ def _marion_table(name: str, params: tuple) -> tuple[np.ndarray, dict]:
     grid = np.arange(0.0, 90.25, 0.5)
     d = pvlib.iam.marion_diffuse(name, grid, **dict(params))
     return grid, {k: np.asarray(v, dtype=float) for k, v in d.items()}
+
+
+def designed_rotation(w: Weather, max_angle: float, backtrack: bool, gcr: float,
+                      axis_tilt: float = 0.0, axis_azimuth: float = 180.0) -> np.ndarray:
+    """Rotation of single-axis tracker rows as designed [deg], positive toward the west of a
+    north-south axis: pvlib's tracking (Marion & Dobos 2013), backtracking (Lorenzo et al.
+    2011) where ``backtrack``; flat at night."""
+    theta = pvlib.tracking.singleaxis(w.solpos["apparent_zenith"], w.solpos["azimuth"],
+                                      axis_tilt, axis_azimuth, max_angle, backtrack, gcr)
+    return theta["tracker_theta"].fillna(0.0).to_numpy()
+
+
+def stow_mask(wind_speed: np.ndarray, limit: float, block: int = 1) -> np.ndarray:
+    """Intervals in which the rows lie in stow: the mean wind speed of each block of ``block``
+    intervals (the weather station's averaging), to 0.1 m/s as it is logged, at or above
+    ``limit`` [m/s]."""
+    mean = np.repeat(wind_speed.reshape(-1, block).mean(axis=1), block)
+    return np.round(mean, 1) >= limit
+
+
+def rear_irradiance(w: Weather, tilt: np.ndarray, azimuth: np.ndarray, albedo: float,
+                    gcr: float, height: float, pitch: float) -> np.ndarray:
+    """Irradiance on the rear of a row [W/m^2]: pvlib's infinite-sheds model (Mikofski et al.
+    2019) for the front plane turned over (tilt 180 - tilt, azimuth + 180); isotropic sky."""
+    back = pvlib.bifacial.infinite_sheds.get_irradiance_poa(
+        180.0 - tilt, (azimuth + 180.0) % 360.0, w.solpos["apparent_zenith"].to_numpy(),
+        w.solpos["azimuth"].to_numpy(), gcr, height, pitch, w.ghi, w.dhi, w.dni, albedo,
+        model="isotropic")
+    return np.nan_to_num(np.asarray(back["poa_global"], dtype=float))
 
 
 def dobos_ac(pdc: np.ndarray, pdc0: float, eta_nom: float) -> np.ndarray:
@@ -205,6 +266,11 @@ class Physics:
     weather: Weather
     poa: dict = field(default_factory=dict)  # inverter id -> [(global, effective)] per array
     poa_tree: dict = field(default_factory=dict)  # the same behind the growing tree
+    poa_stall: dict = field(default_factory=dict)  # the same with a tracker's rows stalled
+    poa_unstowed: dict = field(default_factory=dict)  # trackers that keep tracking in wind
+    rotation: dict = field(default_factory=dict)  # inverter id -> its trackers' rotation [deg]
+    stowed: np.ndarray | None = None  # intervals in which the trackers lie in stow
+    stall_angle_deg: float | None = None  # the rotation a stalled tracker is held at
     temp_cell: dict = field(default_factory=dict)  # inverter id -> [temp_cell] per array
     poa_sensor: np.ndarray | None = None  # pyranometer in the first array of POA_INVERTER
     temp_module: np.ndarray | None = None  # back-of-module sensor on that array
@@ -220,8 +286,55 @@ def tree_factor(times: pd.DatetimeIndex, w: Weather, tree: Any, tz: Any) -> np.n
     return np.where(crown, tree.transmittance, 1.0)
 
 
+def tracker_irradiance(w: Weather, arr: Any, rotation: np.ndarray, visible: np.ndarray
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Front global and effective irradiance [W/m^2] of tracker rows at ``rotation`` [deg];
+    bifacial rows add their rear irradiance at the bifaciality, less what the structure
+    blocks (``REAR_STRUCTURE_SHADE``)."""
+    t = arr.tracker
+    plane = pvlib.tracking.calc_surface_orientation(rotation, t.axis_tilt_deg,
+                                                    t.axis_azimuth_deg)
+    tilt, azimuth = (np.asarray(plane[k], dtype=float)
+                     for k in ("surface_tilt", "surface_azimuth"))
+    g, e = array_irradiance(w, tilt, azimuth, arr.albedo, visible, arr.horizon)
+    b = arr.bifacial
+    if b is not None:
+        e = e + b.bifaciality * (1 - REAR_STRUCTURE_SHADE) * rear_irradiance(
+            w, tilt, azimuth, arr.albedo, arr.gcr, b.row_height_m, b.row_pitch_m)
+    return g, e
+
+
+def _tracker(ph: Physics, inv_id: str, arr: Any, visible: np.ndarray, faults: Faults
+             ) -> tuple[np.ndarray, np.ndarray]:
+    """The tracker rows of one array: as designed, in stow while the logged wind reaches the
+    stow limit, and held where a stall of ``faults`` holds them (a stalled drive cannot stow).
+    Records the variants of :class:`Physics`; returns the fault-free rows' irradiance."""
+    w, t = ph.weather, arr.tracker
+    tracked = designed_rotation(w, t.max_angle_deg, t.backtrack, arr.gcr, t.axis_tilt_deg,
+                                t.axis_azimuth_deg)
+    interval_min = int((ph.times[1] - ph.times[0]) / pd.Timedelta(minutes=1))
+    stowed = np.zeros(len(ph.times), dtype=bool) if t.stow_wind_speed_ms is None else \
+        stow_mask(w.wind_speed, t.stow_wind_speed_ms, weather_factor(interval_min))
+    ph.stowed = stowed if ph.stowed is None else ph.stowed | stowed
+    clean = np.where(stowed, t.stow_angle_deg, tracked)
+    ph.poa_unstowed.setdefault(inv_id, []).append(tracker_irradiance(w, arr, tracked, visible))
+    rotation = clean
+    stall = faults.tracker_stall
+    if stall is not None and stall.inverter == inv_id:
+        held = window(ph.times, stall.start, stall.end, ph.site.tz)
+        if held.any():  # the rows stay where they were when the drive stopped
+            ph.stall_angle_deg = round(float(clean[np.flatnonzero(held)[0]]), 1)
+            rotation = np.where(held, ph.stall_angle_deg, clean)
+            ph.poa_stall.setdefault(inv_id, []).append(
+                tracker_irradiance(w, arr, rotation, visible))
+    ph.rotation[inv_id] = rotation
+    return tracker_irradiance(w, arr, clean, visible)
+
+
 def make_physics(site: Site, times: pd.DatetimeIndex, w: Weather, faults: Faults) -> Physics:
-    """Irradiance and temperatures of every array, with and without the tree."""
+    """Irradiance and temperatures of every array, with and without the tree, and tracker rows
+    with and without their stall and their stow. A variant keeps the cell temperature of the
+    fault-free rows."""
     ph = Physics(site, times, w)
     app_el = 90.0 - w.solpos["apparent_zenith"].to_numpy()
     saz = w.solpos["azimuth"].to_numpy()
@@ -230,8 +343,11 @@ def make_physics(site: Site, times: pd.DatetimeIndex, w: Weather, faults: Faults
         ph.poa[inv.id], ph.temp_cell[inv.id] = [], []
         for arr in inv.arrays:
             visible = (app_el > horizon_elevation(saz, arr.horizon)).astype(float)
-            g, e = array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, visible,
-                                    arr.horizon)
+            if arr.tracker is not None:
+                g, e = _tracker(ph, inv.id, arr, visible, faults)
+            else:
+                g, e = array_irradiance(w, arr.tilt_deg, arr.azimuth_deg, arr.albedo, visible,
+                                        arr.horizon)
             ph.poa[inv.id].append((g, e))
             if tree is not None and inv.id == tree.inverter:
                 behind = visible * tree_factor(times, w, tree, site.tz)
@@ -253,11 +369,11 @@ def make_physics(site: Site, times: pd.DatetimeIndex, w: Weather, faults: Faults
     return ph
 
 
-def _dc(ph: Physics, inv: Any, shaded: bool) -> np.ndarray:
+def _dc(ph: Physics, inv: Any, poa: list) -> np.ndarray:
     """Linear DC model: P = P_stc G_eff/1000 (1 + gamma (T_cell - 25)) x design losses [W]."""
     pdc = np.zeros(len(ph.times))
     for k, arr in enumerate(inv.arrays):
-        eff = (ph.poa_tree if shaded else ph.poa)[inv.id][k][1]
+        eff = poa[k][1]
         gamma = arr.gamma_pct_per_c / 100
         pdc += arr.dc_kwp * eff * (1 + gamma * (ph.temp_cell[inv.id][k] - 25))
     return pdc * ph.site.losses.dc_factor
@@ -275,7 +391,12 @@ def run_plant(ph: Physics, faults: Faults, stage: int) -> Plant:
         common *= soiling_ratio(times, ph.weather.rain, faults, tz)
     acs, unlimited = [], []
     for inv in site.inverters:
-        pdc = _dc(ph, inv, "shading" in on and inv.id in ph.poa_tree) * common
+        poa = ph.poa[inv.id]
+        if "shading" in on and inv.id in ph.poa_tree:
+            poa = ph.poa_tree[inv.id]
+        if "tracker_stall" in on and inv.id in ph.poa_stall:
+            poa = ph.poa_stall[inv.id]
+        pdc = _dc(ph, inv, poa) * common
         cut = faults.string_loss
         if "partial_outage" in on and cut is not None and cut.inverter == inv.id:
             strings = sum(a.strings for a in inv.arrays)

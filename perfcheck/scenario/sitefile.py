@@ -7,6 +7,12 @@ import datetime as dt
 MAIN_LOGGER = "fl3"
 WEATHER_LOGGER = "ws2"
 POA_INVERTER = "inv1"  # the POA pyranometer and the module sensor sit on this inverter's array
+TRACKER_INVERTER = "inv4"  # its rows sit on single-axis trackers; the main logger logs their angle
+# The trackers' stow limit (invented design value; trackers commonly stow at mean wind speeds
+# in the upper teens of m/s, common practice, from memory): the controller lays the rows flat
+# for every block of intervals whose mean wind speed, as the weather station logs it
+# (10-minute means), reaches it.
+STOW_WIND_SPEED_MS = 17.0
 # AC cabling and transformer between the inverters and the export meter [%] (invented, within
 # the 1-2.5 % common practice puts them at): the meter register counts the inverters' output
 # less this share, and the site file states the same design value.
@@ -24,7 +30,7 @@ longitude_deg = 15.874               # degrees east, -180..180 (required)
 altitude_m = 238.0                   # above sea level [m] (default 0)
 timezone = "Europe/Vienna"           # IANA zone: day and month boundaries, local logger clocks
 commissioned = {commissioned:<22}# date of commissioning, reference for ageing (required)
-export_limit_kw = 125.0              # plant export limit at the grid point [kW] (default: none)
+export_limit_kw = 175.0              # plant export limit at the grid point [kW] (default: none)
 albedo = 0.20                        # ground reflectance 0..1, default for every array (0.2)
 # inbox = "incoming/*.csv"           # glob of newly arrived logger files, relative to this
 #                                    # file's folder, for the monthly job (default: none)
@@ -91,6 +97,33 @@ night_tare_w = 0.0
   mounting = "open_rack"
   construction = "glass_polymer"
   strings = 1
+
+# A block on horizontal single-axis trackers (north-south axis) with bifacial modules. Its
+# plane turns, so it has no tilt_deg or azimuth_deg; the rows are flat at night.
+[[inverters]]
+id = "inv4"
+ac_kw = 50.0
+efficiency_pct = 98.0
+night_tare_w = 0.0
+
+  [[inverters.arrays]]
+  dc_kwp = 48.0
+  gamma_pct_per_c = -0.30
+  mounting = "open_rack"
+  construction = "glass_glass"       # bifacial modules: glass on both faces
+  strings = 4
+  tracking = "single_axis"           # fixed | single_axis (fixed)
+  axis_tilt_deg = 0.0                # tilt of the axis, 0..45 [deg] (0)
+  axis_azimuth_deg = 180.0           # the axis points north-south [deg] (180)
+  max_angle_deg = 55.0               # largest rotation either way from flat [deg] (60)
+  backtrack = true                   # turn back at low sun against row shading (true)
+  stow_wind_speed_ms = {stow_ms:<15}# the rows lie at their stow angle at or above this
+  #                                  # wind speed, as the wind column logs it [m/s] (inferred)
+  stow_angle_deg = 0.0               # rotation in stow [deg] (0: flat)
+  gcr = 0.4                          # module length across the row over the row pitch
+  bifaciality = 0.70                 # rear over front efficiency (default: monofacial)
+  row_height_m = 1.6                 # height of the row's centre above the ground [m]
+  row_pitch_m = 5.5                  # distance between rows [m]
 
 # Design losses in percent, combined multiplicatively (defaults in brackets).
 [losses]
@@ -222,6 +255,12 @@ sentinels = ["-9999", "#N/A"]        # values meaning "no reading" ([])
   inverter = "inv3"
 
   [[loggers.columns]]
+  name = "P_WR4"
+  quantity = "ac_power"
+  unit = "kW"
+  inverter = "inv4"
+
+  [[loggers.columns]]
   name = "E_Netz"
   quantity = "energy_register"       # cumulative meter reading
   unit = "kWh"
@@ -237,6 +276,13 @@ sentinels = ["-9999", "#N/A"]        # values meaning "no reading" ([])
   name = "T_Modul"
   quantity = "temp_module"
   unit = "C"
+
+  # The inclinometer of inv4's tracker rows: their rotation from flat, positive toward the
+  # west (the analysis reads it as the rows of the first tracker array)
+  [[loggers.columns]]
+  name = "Winkel_NF4"
+  quantity = "tracker_angle"
+  unit = "deg"
 
 # Weather station (invented "Nubila WS-2"): ',' with decimal point, ISO 8601 with offset,
 # {ws_interval}-minute means (rain: sum) labelled at the START of the interval, LF line ends;
@@ -295,5 +341,5 @@ def weather_factor(interval_min: int) -> int:
 def site_text(start: dt.date, interval_min: int = 5) -> str:
     """The demo site file for a plant commissioned on ``start``."""
     return SITE_TEMPLATE.format(commissioned=start.isoformat(), interval=interval_min,
-                                ac_loss_pct=METER_AC_LOSS_PCT,
+                                ac_loss_pct=METER_AC_LOSS_PCT, stow_ms=STOW_WIND_SPEED_MS,
                                 ws_interval=interval_min * weather_factor(interval_min))

@@ -5,11 +5,13 @@ faults on). The energy of fault k is the AC energy of stage k-1 minus that of st
 losses add up exactly to fault-free minus faulted energy and none is counted twice. Clipping at
 the AC rating and the design export limit belong to the fault-free plant; they are listed with
 ``design: true`` and their energy (unlimited minus limited AC of the fault-free plant) is not
-part of the sum.
+part of the sum; so is the trackers' wind stow (the energy of the plant whose trackers keep
+tracking in high wind less that of the fault-free plant, per run of stow days).
 """
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -77,6 +79,44 @@ def design_entries(site: Site, times: pd.DatetimeIndex, clean: Plant, interval_m
     return out
 
 
+def stow_entries(site: Site, ph: Physics, faults: Faults, clean: Plant, interval_min: int
+                 ) -> list[dict]:
+    """The trackers' wind stow by daylight (design, not a fault): one entry per run of stow
+    days (days one apart joined), with the energy the stow kept out of the fault-free plant."""
+    if ph.stowed is None:
+        return []
+    tz, kwh = site.tz, interval_min / 60 / 1000
+    tracking = run_plant(replace(ph, poa={**ph.poa, **ph.poa_unstowed}), faults, 0)
+    # where the stow plane gets more light than the tracked one (overcast), nothing is kept
+    kept = np.maximum(tracking.ac - clean.ac, 0.0).sum(axis=0)
+    on = ph.stowed & (ph.weather.solpos["apparent_zenith"].to_numpy() < 90)
+    day = np.asarray(ph.times.tz_convert(tz).normalize().tz_localize(None), dtype="datetime64[D]")
+    limits = {a.tracker.stow_wind_speed_ms for inv in site.inverters for a in inv.arrays
+              if a.tracker is not None}
+    trackers = [inv.id for inv in site.inverters if any(a.tracker for a in inv.arrays)]
+    # the plant when every inverter stows, else the one tracker inverter (as the detector)
+    scope = "plant" if len(trackers) == len(site.inverters) else f"inverter:{trackers[0]}"
+    runs: list[list] = []
+    for d in np.unique(day[on]):
+        if runs and d - runs[-1][1] <= np.timedelta64(2, "D"):
+            runs[-1][1] = d
+        else:
+            runs.append([d, d])
+    entries = []
+    for first, last in runs:
+        span = (day >= first) & (day <= last)
+        start, end = _span(ph.times, on & span, tz)
+        entries.append({"kind": "wind_stow", "scope": scope, "design": True, "start": start,
+                        "end": end, "energy_loss_kwh": round(float(kept[span].sum() * kwh), 3),
+                        "parameters": {"stow_wind_speed_ms": min(limits),
+                                       "intervals": int((on & span).sum()),
+                                       "note": "tracker rows laid flat in high wind: the "
+                                               "tracker's design, not a fault; energy of the "
+                                               "rows tracking on less the stowed rows', "
+                                               "where positive"}})
+    return entries
+
+
 def fault_entries(site: Site, ph: Physics, faults: Faults, runs: list[Plant],
                   interval_min: int) -> list[dict]:
     """Truth entries of the energy faults, each with its attributed energy."""
@@ -125,6 +165,14 @@ def fault_entries(site: Site, ph: Physics, faults: Faults, runs: list[Plant],
                         "top_deg_at_end": round(tree.top_deg + tree.growth_deg_per_year * years, 2),
                         "transmittance": tree.transmittance,
                         "affects": "beam and circumsolar light"}})
+    stall = faults.tracker_stall
+    if stall is not None and window(times, stall.start, stall.end, tz).any():
+        held = window(times, stall.start, stall.end, tz)
+        out.append(entry("tracker_stall", f"inverter:{stall.inverter}", stall.start, stall.end,
+                         tz, {"angle_deg": ph.stall_angle_deg,
+                              "note": "the tracker drive stopped; the rows stayed at the "
+                                      "rotation they had then and did not stow"},
+                         energy("tracker_stall", held)))
     cut = faults.string_loss
     if cut is not None and window(times, cut.start, cut.end, tz).any():
         strings = sum(a.strings for a in site.inverter(cut.inverter).arrays)
@@ -151,5 +199,6 @@ def energy_truth(site: Site, ph: Physics, faults: Faults, interval_min: int
     """The faulted plant, the daily table and the truth entries of the energy faults."""
     runs = [run_plant(ph, faults, k) for k in range(len(ATTRIBUTION_ORDER) + 1)]
     entries = design_entries(site, ph.times, runs[0], interval_min)
+    entries += stow_entries(site, ph, faults, runs[0], interval_min)
     entries += fault_entries(site, ph, faults, runs, interval_min)
     return runs[-1], daily_table(site, ph.times, runs, interval_min), entries

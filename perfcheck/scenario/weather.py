@@ -12,7 +12,8 @@ decomposition model, so a model stage using Erbs or DISC does not merely invert 
 
 Ambient temperature: seasonal mean (about -0.5 C in January, 20 C in July: a climate like the
 east of Austria) + a daily AR(1) anomaly + a diurnal wave whose amplitude depends on the day type.
-Wind: a gamma-distributed daily mean with an afternoon maximum and gusty AR(1) noise. Rain:
+Wind: a gamma-distributed daily mean with an afternoon maximum and gusty AR(1) noise, scaled up
+on two gale days. Rain:
 showers on a share of the days that grows with cloudiness, read by a 0.2 mm tipping bucket.
 
 References
@@ -38,6 +39,9 @@ from perfcheck.site import Site
 DAY_TYPES = ("clear", "broken", "overcast")
 DRY_SPELL = ("2025-07-01", "2025-08-20")  # a summer drought of the demo (local dates)
 SHOWERS = (("2025-07-24 15:00", 12.0),)  # one shower inside it that washes the modules
+# Two sunny gales (local date, strongest hourly mean wind [m/s]): the day's wind is scaled to
+# reach it in the afternoon. The east of Austria knows such dry windstorms.
+GALES = (("2024-10-05", 20.0), ("2026-03-18", 20.0))
 
 
 @dataclass
@@ -91,6 +95,7 @@ def _ar1(rng: np.random.Generator, n: int, tau: float) -> np.ndarray:
 def make_weather(
     site: Site, times: pd.DatetimeIndex, interval_min: int, rng: np.random.Generator,
     dry_spell: tuple[str, str] | None = DRY_SPELL, showers: tuple = SHOWERS,
+    gales: tuple = GALES,
 ) -> Weather:
     """Interval-mean weather at the interval starts ``times`` (UTC).
 
@@ -102,6 +107,7 @@ def make_weather(
     rng : random generator; all draws happen in a fixed order.
     dry_spell : local dates [start, end) without rain (a drought), or None.
     showers : (local time, total [mm]) of two-hour showers added on top.
+    gales : (local date, strongest hourly mean wind speed [m/s]) of windy days.
     """
     times = times.as_unit("ns")
     solpos, ghi_cs, dni_cs, dni_extra, airmass = _clear_sky(site, times, interval_min)
@@ -118,7 +124,7 @@ def make_weather(
     hour = ((times.hour + times.minute / 60).to_numpy() + interval_min / 120
             + site.longitude_deg / 15) % 24
     temp_air = _temperature(rng, dtype, doy, noon, t_ns, hour)
-    wind = _wind(rng, dtype, noon, t_ns, hour)
+    wind = _gales(_wind(rng, dtype, noon, t_ns, hour), local, interval_min, gales)
     rain = _rain(rng, dtype, day_idx, local, dry_spell, showers)
     return Weather(
         solpos=solpos, ghi=ghi, dni=dni, dhi=dhi, ghi_clear=ghi_cs, dni_clear=dni_cs,
@@ -190,6 +196,20 @@ def _wind(rng: np.random.Generator, dtype: np.ndarray, noon: np.ndarray, t_ns: n
     wind = (np.interp(t_ns, noon, daily) * (1 + 0.3 * np.cos(2 * np.pi * (hour - 14) / 24))
             * np.exp(0.25 * _ar1(rng, len(t_ns), tau=3.0) - 0.03))
     return np.maximum(wind, 0.0)
+
+
+def _gales(wind: np.ndarray, local: pd.DatetimeIndex, interval_min: int, gales: tuple
+           ) -> np.ndarray:
+    """The wind of each gale day scaled so that its strongest hourly mean is the gale's."""
+    out = wind.copy()
+    day = np.asarray(local.strftime("%Y-%m-%d"), dtype=object)
+    window = max(60 // interval_min, 1)
+    for date, peak in gales:
+        on = day == date
+        if on.any():
+            means = pd.Series(wind[on]).rolling(window).mean()
+            out[on] *= peak / float(means.max())
+    return out
 
 
 def _rain(

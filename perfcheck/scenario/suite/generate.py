@@ -24,7 +24,16 @@ import pvlib
 
 from perfcheck.scenario.faults import ATTRIBUTION_ORDER, NO_FAULTS, Faults, entry, iso, window
 from perfcheck.scenario.logs import _main_labels, fmt, sensor_readings
-from perfcheck.scenario.plant import Physics, Plant, array_irradiance, run_plant, tree_factor
+from perfcheck.scenario.plant import (
+    Physics,
+    Plant,
+    array_irradiance,
+    designed_rotation,
+    rear_irradiance,
+    run_plant,
+    stow_mask,
+    tree_factor,
+)
 from perfcheck.scenario.sitefile import METER_AC_LOSS_PCT
 from perfcheck.scenario.suite import physics as truth_physics
 from perfcheck.scenario.suite.climate import climate, make_weather, read_typical_year
@@ -181,12 +190,8 @@ def _rear(spec: PlantSpec, w: Weather, tilt: np.ndarray, azimuth: np.ndarray, al
     """Rear irradiance that reaches the cells of bifacial rows [W/m^2]: pvlib's infinite-sheds
     model (Mikofski et al. 2019) times the bifaciality, less the true structure shading."""
     t = spec.tracker
-    back = pvlib.bifacial.infinite_sheds.get_irradiance_poa(
-        180.0 - tilt, (azimuth + 180.0) % 360.0, w.solpos["apparent_zenith"].to_numpy(),
-        w.solpos["azimuth"].to_numpy(), t.gcr, t.row_height_m, t.row_pitch_m, w.ghi, w.dhi,
-        w.dni, albedo, model="isotropic")
-    return np.nan_to_num(np.asarray(back["poa_global"], dtype=float)) * t.bifaciality * (
-        1.0 - t.rear_shade)
+    return rear_irradiance(w, tilt, azimuth, albedo, t.gcr, t.row_height_m,
+                           t.row_pitch_m) * t.bifaciality * (1.0 - t.rear_shade)
 
 
 def stow_limit(spec: PlantSpec, w: Weather) -> float:
@@ -203,10 +208,8 @@ def rotations(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weather, 
     where ``faults`` put one, flat (stow) where the logged wind reaches ``limit`` and held at
     a stalled angle (a stalled drive cannot stow)."""
     t = spec.tracker
-    theta = pvlib.tracking.singleaxis(w.solpos["apparent_zenith"], w.solpos["azimuth"], 0.0,
-                                      180.0, t.max_angle_deg, t.backtrack, t.gcr)
-    theta = theta["tracker_theta"].fillna(0.0).to_numpy()
-    windy = np.round(w.wind_speed, 1) >= limit
+    theta = designed_rotation(w, t.max_angle_deg, t.backtrack, t.gcr)
+    windy = stow_mask(w.wind_speed, limit)
     out = {}
     for inv in spec.inverters:
         th = theta.copy()
@@ -242,7 +245,7 @@ def tracker_truth(spec: PlantSpec, site: Site, times: pd.DatetimeIndex, w: Weath
     still = run_plant(make_physics(spec, site, times, w, rotations(
         spec, site, times, w, limit, spec.tracker_faults, stow=False)), faults, full).ac
     kept = (still - ac).sum(axis=0)
-    windy = (np.round(w.wind_speed, 1) >= limit) & (w.solpos["apparent_zenith"].to_numpy() < 90)
+    windy = stow_mask(w.wind_speed, limit) & (w.solpos["apparent_zenith"].to_numpy() < 90)
     local = times.tz_convert(site.tz)
     days = np.asarray(local.normalize().tz_localize(None))
     for first, last in _day_runs(np.unique(days[windy])):
