@@ -6,8 +6,9 @@ Ledger classes (see :mod:`perfcheck.detect.attribution` for the order):
 
 - ``correction``: a fault of the data, not of the plant. The readings (clock) or the reference
   (irradiance sensor) are corrected before anything is summed; the event costs no energy.
-- ``interval``: the whole shortfall of each interval it covers (outage, clipping below the
-  rating, curtailment), one cause per interval.
+- ``interval``: each interval it covers (outage, clipping below the rating, curtailment),
+  one cause per interval, counted against the inverter's local level (what it delivered of
+  its expected power in the weeks around).
 - ``share``: a share of the expected power of the intervals it covers, applied one after
   another to what the causes before it left (degradation beyond the ageing allowance, soiling,
   shading, lost strings).

@@ -173,17 +173,21 @@ def test_innovations_of_a_known_series():
     assert np.isnan(z[2])
 
 
-def test_local_band_known_answer():
-    # derived from the definition: the inverter's daily index steady at 1.05 around the
-    # event (no spread, so the standard error is the 1 % floor): a loss of 100 kWh measured
-    # on 1 000 kWh of expected energy is 100 + 0.05 x 1000 = 150 kWh with a standard error
-    # 0.01 x 1.05 x 1000 = 10.5 kWh; the band 150 +- 1.96 x 10.5, widened to hold 100.
-    days = pd.date_range("2024-05-01", periods=60, freq="D")
-    levels = pd.DataFrame({"A": 1.05, "B": 0.5}, index=days)
-    levels.loc[days[30]:days[32], "A"] = 0.0  # the event's own days are left out
-    low, high = common.local_band(levels, ["A"], days[30], days[32], 100.0, 1000.0)
-    assert low == pytest.approx(100.0)
-    assert high == pytest.approx(150.0 + 1.959964 * 10.5)
+def test_local_level_known_answer():
+    # derived from the definition: the daily level steady at 1.05 around the event (no
+    # spread, so the standard error is the 1 % floor), the event's own days left out; with
+    # the level alternating 1.0 / 1.1 the long-run scale of the log level is at least its
+    # plain scale, so the error over 1 event day and 28 reference days exceeds the floor
+    days = pd.Series(pd.date_range("2024-05-01", periods=60, freq="D"))
+    x = pd.Series(1.05, index=days)
+    x.iloc[30:33] = 0.2
+    level, rel = common.local_level(x, days[30], days[32])
+    assert level == pytest.approx(1.05)
+    assert rel == pytest.approx(0.01)
+    y = pd.Series(np.where(np.arange(60) % 2 == 0, 1.0, 1.1), index=days)
+    level, rel = common.local_level(y, days[30], days[30])
+    assert level == pytest.approx(1.05)
+    assert rel > 0.01
 
 
 def test_shift_z_known_answer():

@@ -14,7 +14,7 @@ import pytest
 from detect_synth import TZ, make_aligned, make_site
 
 from perfcheck import detect
-from perfcheck.detect import common, curtailment, degradation, outage
+from perfcheck.detect import attribution, common, curtailment, degradation, outage
 from perfcheck.errors import SiteFileError
 
 FAULT_KINDS = {"outage", "partial_outage", "curtailment", "soiling", "shading", "sensor_fault",
@@ -415,3 +415,28 @@ def test_top_share_of_a_smooth_maximum():
     p = 1 - t ** 2
     share = (p >= 1 - 0.01).sum() / (p >= 1 - 0.1).sum()
     assert share == pytest.approx(curtailment.TOP_SHARE, rel=1e-3)
+
+
+def test_interval_losses_counted_against_the_local_level(plant_a):
+    # derived from the ledger's definition: the same plant delivering 0.9 of its expected
+    # power everywhere (a model biased 11 % high) loses 0.9 of the outage's expected energy,
+    # not the whole of it; the event's energy is the sum of its ledger entries and its band
+    # holds the truth of the biased plant
+    site, df, res = plant_a
+    biased = df.assign(measured_ac_w=df["measured_ac_w"] * 0.9)
+    res_b = detect.analyse(biased, site)
+    ev, ev_b = one(res["events"], "outage"), one(res_b["events"], "outage")
+    np.testing.assert_allclose(ev_b.energy_loss_kwh, 0.9 * ev.energy_loss_kwh, rtol=0.03)
+    led = res_b["ledger"]
+    assert sum(led.energy_kwh(e) for e in led.entries if e.event is ev_b) == pytest.approx(
+        ev_b.energy_loss_kwh)
+    assert ev_b.energy_loss_kwh_low <= 0.9 * ev.energy_loss_kwh <= ev_b.energy_loss_kwh_high
+
+
+def test_would_deliver_holds_the_cap():
+    # derived from the definition: level x unlimited power, held at the cap the expected
+    # series stops at (rating 100 W): 0.9 x 100 uncapped; 0.9 x 130 = 117 held at 100;
+    # 0.9 x 105 = 94.5 under the cap; no unlimited power: 0.9 x expected
+    got = attribution.would_deliver(np.full(4, 0.9), np.array([100.0, 100.0, 100.0, 80.0]),
+                                    np.array([100.0, 130.0, 105.0, np.nan]))
+    np.testing.assert_allclose(got, [90.0, 100.0, 94.5, 72.0])

@@ -171,15 +171,15 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     levels = daily_pi(w, valid)
     rel_sigma = _model_sigma(levels)
     step_noise, spread = ratio_noise(w, valid)
-    ev, out_mask = outage.detect(w, rel_sigma, reported=reported, levels=levels)
+    ev, out_mask = outage.detect(w, rel_sigma, reported=reported)
     events += ev
     t = lap("outage", t)
-    ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask, spread, levels)
+    ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask, spread)
     design.update(design_stow)
     events += ev
     t = lap("clipping", t)
     ev, curt_mask = curtailment.detect(w, rel_sigma, step_noise, spread, out_mask | clip_mask,
-                                       levels=levels, alpha=st.alpha)
+                                       alpha=st.alpha)
     events += ev
     t = lap("curtailment", t)
     excluded = out_mask | clip_mask | curt_mask
@@ -191,7 +191,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
         usable.iloc[fp.lo:fp.hi, usable.columns.get_indexer(fp.cols)] = False
     t = lap("tracker", t)
     strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
-    ev, fp = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha, levels=levels)
+    ev, fp = partial.detect(w, usable, strings, alpha=st.alpha)
     events += ev
     prints += fp
     t = lap("partial", t)

@@ -8,11 +8,25 @@ therefore cost nothing: they change the reference, not the plant. On the interva
 both, the shortfall is split in this order (each step works on what the steps before left):
 
 1. Whole intervals (class ``interval``), in the order ``outage``, ``clipping`` (a limit below the
-   rating), ``curtailment``: the whole shortfall of each interval an event of that kind covers.
+   rating), ``curtailment``: each interval an event of that kind covers, counted against the
+   inverter's local level L: loss = L x expected - measured. The expected series of an
+   inverter is off by a factor that persists for weeks (true mismatch, spectrum, incidence
+   angle: model error, not noise); L, the measured over the expected energy of the days
+   around the event on the intervals no interval-class event takes
+   (:func:`perfcheck.detect.common.local_level`, on intervals like the event's), is what the
+   plant delivered then, so the model's local bias stays unexplained instead of landing in
+   the event; where the expected series stops at a cap (rating, export limit), the level
+   scales the unlimited power and the cap holds (:func:`would_deliver`).
 2. Shares of the remaining intervals' expected power (class ``share``), one after another:
    ``degradation`` (beyond the site file's ageing allowance), ``soiling``, ``shading``,
    ``tracker_stall``, ``tracker_out_of_step``, ``partial_outage``: loss = share x (expected
-   less the losses of the shares before it).
+   less the losses of the shares before it); a share measured against the inverter's own level
+   (:data:`AT_LEVEL`) is scaled by that level too (measured over what the shares before it
+   left, on the days around the event).
+
+An event found by a loss of class ``interval`` or in :data:`AT_LEVEL` takes its energy and its
+95 % band from here: the level's standard error (autocorrelation-aware) times the expected
+energy behind the loss, with the share's own error where there is one.
 3. ``underperformance`` (class ``residual``): in each period flagged by the baseline CUSUM, what
    steps 1-2 leave, when it is significant: above 3 times the daily relative model error (at
    least 1 %) times the period's expected energy (model errors taken as fully correlated over
@@ -32,6 +46,7 @@ there, and expected - measured = sum of the losses + unexplained holds on any wi
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -39,9 +54,22 @@ import pandas as pd
 
 from perfcheck import kinds
 from perfcheck.detect.baseline import Flagged
-from perfcheck.detect.common import MODEL_FLOOR, Event, Footprint, Wide, energy_band, scope_of
+from perfcheck.detect.common import (
+    MODEL_FLOOR,
+    Z95,
+    Event,
+    Footprint,
+    Wide,
+    daylight,
+    energy_band,
+    local_level,
+    scope_of,
+)
 
 Z_UNDER = 3.0  # one-sided 0.13 % per flagged period
+# share-class kinds whose share is measured against the inverter itself (its own level before
+# and after), so their loss is counted against its local level like the interval losses
+AT_LEVEL = ("partial_outage",)
 
 
 @dataclass
@@ -121,8 +149,11 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
                  measured_w=w.measured.to_numpy(dtype=float),
                  expected_w=w.expected.to_numpy(dtype=float), poa=w.poa.to_numpy(dtype=float))
     both = led.both
+    valid = both & daylight(w).to_numpy() & ~w.flagged.to_numpy()
+    days = w.day.to_numpy()
     gap = np.where(both, led.expected_w - led.measured_w, 0.0)
     taken = np.zeros_like(both)
+    picked: list[tuple[Event, np.ndarray]] = []
     for kind in (k.name for k in kinds.TABLE if k.ledger == "interval"):
         if kind not in masks:
             continue
@@ -132,7 +163,7 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
             sub = np.zeros_like(mk)
             ci = _scope_cols(ev, col_pos)
             sub[sl, ci] = mk[sl][:, ci] & ~taken[sl][:, ci]
-            _add(led, ev, sub, gap)
+            picked.append((ev, sub))
             taken |= sub
     # intervals held at the AC rating by design: the output stays at the rating whatever
     # happens on the DC side, so no share-type cause can take from them
@@ -143,17 +174,40 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
             sl, ci = _window_rows(w.index, ev), _scope_cols(ev, col_pos)
             held[sl, ci] = clip[sl][:, ci]
     free = both & ~taken & ~held
+    local = w.index.tz_convert(w.tz)
+    slot = np.asarray((local - local.normalize()).total_seconds(), dtype=np.int64)
+    levels = _Levels(led.measured_w, led.expected_w, valid & free, days, slot)
+    potential = w.potential.reindex(columns=cols).to_numpy(dtype=float)
+    for ev, sub in picked:
+        rows, cc = np.nonzero(sub)
+        lv, rel = levels.at(rows, cc)
+        would = would_deliver(lv, led.expected_w[rows, cc], potential[rows, cc])
+        _enter(led, Entry(ev, rows, cc, would - led.measured_w[rows, cc]), would * rel)
     left = np.where(free, led.expected_w, 0.0)
     explained = np.zeros_like(left)
     for kind in (k.name for k in kinds.TABLE if k.ledger == "share"):
-        for fp in (p for p in prints if p.event.kind == kind):
+        kind_prints = [p for p in prints if p.event.kind == kind]
+        if kind in AT_LEVEL and kind_prints:
+            own = np.zeros_like(both)
+            for fp in kind_prints:
+                own[fp.lo:fp.hi, [col_pos[c] for c in fp.cols]] = True
+            levels = _Levels(led.measured_w, left, valid & free & ~own, days, slot)
+        for fp in kind_prints:
             ci = [col_pos[c] for c in fp.cols]
             sub = left[fp.lo:fp.hi][:, ci]
             loss = np.where(free[fp.lo:fp.hi][:, ci], sub * fp.factor, 0.0)
+            rows, cc = np.nonzero(loss)
+            r, c = rows + fp.lo, np.asarray(ci)[cc]
+            if kind in AT_LEVEL:
+                basis = loss[rows, cc]
+                lv, rel = levels.at(r, c)
+                loss[rows, cc] = lv * basis
+                _enter(led, Entry(fp.event, r, c, loss[rows, cc]),
+                       lv * basis * np.hypot(rel, fp.factor_rel_sigma))
+            else:
+                led.entries.append(Entry(fp.event, r, c, loss[rows, cc]))
             left[fp.lo:fp.hi, ci] = sub - loss
             explained[fp.lo:fp.hi, ci] += loss
-            rows, cc = np.nonzero(loss)
-            led.entries.append(Entry(fp.event, rows + fp.lo, np.asarray(ci)[cc], loss[rows, cc]))
     for ev in events:
         if id(ev) in design:
             d = design[id(ev)].reindex(columns=cols).fillna(0.0).to_numpy(dtype=float)
@@ -162,6 +216,71 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
     under = _underperformance(w, led, residual, np.where(free, led.expected_w, 0.0), flagged,
                               rel_sigma, col_pos, free)
     return led, under
+
+
+def would_deliver(level: np.ndarray, expected: np.ndarray, potential: np.ndarray
+                  ) -> np.ndarray:
+    """What an inverter at the performance level ``level`` would deliver [W]: ``level`` times
+    its unlimited expected power (``potential``), held at the cap the expected series stops at
+    where it stops at one (the AC rating or the plant's export limit: ``expected`` below the
+    unlimited power; a level under 1 does not lower an output held at its cap unless it takes
+    the power below it). Without an unlimited power, ``level`` times ``expected``."""
+    unlimited = np.where(np.isfinite(potential), np.maximum(potential, expected), expected)
+    return np.where(unlimited > expected, np.minimum(level * unlimited, expected),
+                    level * expected)
+
+
+@dataclass
+class _Levels:
+    """What an inverter delivered of a reference power (``measured`` over ``reference`` on the
+    intervals ``sel``), to judge an event's intervals by."""
+
+    measured: np.ndarray
+    reference: np.ndarray
+    sel: np.ndarray
+    days: np.ndarray  # site-local day of each row
+    slot: np.ndarray  # site-local time of day of each row [s]
+
+    def daily(self, j: int, rows: np.ndarray) -> pd.Series:
+        """Per day, inverter ``j``'s measured over reference energy on intervals like the
+        event's ``rows``: at their times of day and with a reference power within theirs
+        (the model's bias depends on the sun's path and on the light: an event at a clear noon
+        is judged by the clear noons around it, not by cloudy ones); NaN on a day whose
+        reference energy there is under a quarter of the median day's (the
+        insolation-weighted index of :func:`perfcheck.detect.common.daily_pi`)."""
+        ref = self.reference[:, j]
+        lo, hi = np.nanmin(ref[rows]), np.nanmax(ref[rows])
+        with np.errstate(invalid="ignore"):
+            on = (self.sel[:, j] & np.isin(self.slot, np.unique(self.slot[rows]))
+                  & (ref >= lo) & (ref <= hi))
+        m = pd.Series(np.where(on, self.measured[:, j], 0.0)).groupby(self.days).sum()
+        r = pd.Series(np.where(on, ref, 0.0)).groupby(self.days).sum()
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return (m / r).where(r > 0.25 * r[r > 0].median())
+
+    def at(self, rows: np.ndarray, cc: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per entry ``(rows, cc)``: its inverter's local level around the entry's days on
+        intervals like the entry's (:meth:`daily`, :func:`perfcheck.detect.common.local_level`;
+        1 with too few days around) and the level's relative standard error."""
+        level, rel = np.ones(len(rows)), np.zeros(len(rows))
+        for j in np.unique(cc):
+            on = cc == j
+            r = rows[on]
+            lv, s = local_level(self.daily(j, r), self.days[r].min(), self.days[r].max())
+            level[on], rel[on] = (lv if math.isfinite(lv) else 1.0), s
+        return level, rel
+
+
+def _enter(led: Ledger, entry: Entry, sigma_w: np.ndarray) -> None:
+    """Add ``entry`` and state its event's energy as the entry's, with the 95 % band of the
+    standard error ``sigma_w`` per row [W], added linearly over the rows (the level's error
+    is shared by the intervals of an inverter, and by the inverters through the weather)."""
+    led.entries.append(entry)
+    e = led.energy_kwh(entry)
+    s = float(np.sum(sigma_w * led.interval_s[entry.rows]) / 3.6e6)
+    entry.event.energy_loss_kwh = e
+    entry.event.energy_loss_kwh_low = max(0.0, min(e, e - Z95 * s))
+    entry.event.energy_loss_kwh_high = e + Z95 * s
 
 
 def _add(led: Ledger, ev: Event, sel: np.ndarray, power: np.ndarray) -> None:

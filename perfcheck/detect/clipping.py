@@ -36,7 +36,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, energy_band, local_band, scope_of
+from perfcheck.detect.common import Event, Wide, energy_band, scope_of
 
 METHOD = ("plateau at the inverter's AC limit while unlimited expected power exceeds it "
           "(in the spirit of Perry, Muller & Anderson 2021)")
@@ -108,9 +108,11 @@ def _derate_runs(limit: pd.Series, ceiling: pd.Series, tol: float
     return out
 
 
-def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
-            levels: pd.DataFrame | None) -> tuple[list[Event], pd.DataFrame]:
-    """Derate events (kind ``clipping``) and the mask of their limited intervals."""
+def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float
+            ) -> tuple[list[Event], pd.DataFrame]:
+    """Derate events (kind ``clipping``) and the mask of their limited intervals (the energy
+    here is the whole shortfall's; the ledger counts it against the inverter's local
+    level, :mod:`perfcheck.detect.attribution`)."""
     mask = pd.DataFrame(False, index=w.index, columns=w.inverters)
     events: list[Event] = []
     limits = derated_days(w, exclude, tol, margin)
@@ -124,9 +126,7 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
             sel = inside & ~exclude[inv].to_numpy() & (np.abs(m - lv) <= tol * lv) & (e > lv)
             mask[inv] = mask[inv].to_numpy() | sel
             gap = float(np.nansum((e - m)[sel] * step[sel]) / 3.6e6)
-            exp_kwh = float(np.nansum(e[sel] * step[sel]) / 3.6e6)
-            low, high = (energy_band(gap, 0.05) if levels is None else
-                         local_band(levels, [inv], first, last, gap, exp_kwh))
+            low, high = energy_band(gap, 0.05)
             n_held = int(limits[inv].loc[first:last].notna().sum())
             events.append(Event(
                 kind="clipping", scope=scope_of(inv),
@@ -144,8 +144,7 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
 
 
 def detect(w: Wide, rel_sigma: float, step_noise: float, exclude: pd.DataFrame,
-           spread: float = 0.0, levels: pd.DataFrame | None = None
-           ) -> tuple[list[Event], pd.DataFrame, dict[int, pd.DataFrame]]:
+           spread: float = 0.0) -> tuple[list[Event], pd.DataFrame, dict[int, pd.DataFrame]]:
     """Clipping events (one per inverter with clipping), the mask of clipped intervals, and
     per design event (by ``id``) the unlimited expected power above the rating [W].
 
@@ -156,10 +155,9 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, exclude: pd.DataFrame,
     exclude : intervals already explained (outages), left out
     spread : interval-level spread of measured/expected [-]; the derates' margin is three
         times it, at least 5 % (as the curtailment detector's)
-    levels : daily performance index per inverter, for the derates' energy band
     """
     tol = max(3 * step_noise, 0.005)
-    events, mask = derates(w, exclude, tol, max(3 * spread, 0.05), levels)
+    events, mask = derates(w, exclude, tol, max(3 * spread, 0.05))
     for ev in events:
         inv = ev.scope.split(":", 1)[1]
         inside = (w.index >= ev.start) & (w.index < ev.end)

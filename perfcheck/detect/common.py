@@ -332,27 +332,23 @@ def energy_band(energy_kwh: float, rel_sigma: float, abs_sigma_kwh: float = 0.0
     return energy_kwh - Z95 * s, energy_kwh + Z95 * s
 
 
-def local_band(levels: pd.DataFrame, cols: list[str], first_day: pd.Timestamp,
-               last_day: pd.Timestamp, loss_kwh: float, expected_kwh: float,
-               half_days: int = 14) -> tuple[float, float]:
-    """95 % band of a loss measured as expected - measured, honest about the model's bias.
+def local_level(x: pd.Series, first_day: pd.Timestamp, last_day: pd.Timestamp,
+                half_days: int = 14) -> tuple[float, float]:
+    """An inverter's local performance level around an event and its relative standard error.
 
-    The expected series of an inverter is off by a factor that persists for weeks (its true
-    mismatch, spectrum, incidence angle, low light: model error, not noise), so the loss
-    ``loss_kwh`` over intervals with expected energy ``expected_kwh`` is, with the inverters'
-    local level L (median daily performance index, :func:`daily_pi` in ``levels``, of the
-    ``half_days`` days on either side of the event, the event's days left out),
-    loss + (L - 1) expected. Its standard error: the long-run scale of the daily index
-    (:func:`long_run_sigma`, autocorrelation-aware) over the event's days and over the
-    reference days, sigma_LR sqrt(1/n_event + 1/n_ref), at least ``MODEL_FLOOR``. The band is
-    that estimate +-1.96 standard errors, widened to hold ``loss_kwh`` itself.
+    ``x``: a daily level (measured over expected, as :func:`daily_pi`) on site-local days. The
+    level is the median of the ``half_days`` days on either side of the event's days
+    ``[first_day, last_day]`` (those left out); its relative standard error, as the event's
+    days' level is judged by it, is the long-run scale of the log daily level
+    (:func:`long_run_sigma`, autocorrelation-aware, the event's days left out) over the
+    event's days and the reference days, sigma_LR sqrt(1/n_event + 1/n_ref), at least
+    ``MODEL_FLOOR``. With fewer than 5 reference days: NaN and that scale (or the floor).
 
     References
     ----------
     Hamilton 1994, Time Series Analysis, sec. 7.2 (variance of a mean of autocorrelated
     values); the local reference level is common practice (from memory).
     """
-    x = levels[cols].mean(axis=1) if len(cols) > 1 else levels[cols[0]]
     x = x.where(x > 0)
     a, b = pd.Timestamp(first_day), pd.Timestamp(last_day)
     near = ((x.index >= a - pd.Timedelta(days=half_days)) & (x.index < a)) | (
@@ -360,12 +356,9 @@ def local_band(levels: pd.DataFrame, cols: list[str], first_day: pd.Timestamp,
     ref = x[near].dropna()
     sig, _ = long_run_sigma(np.log(x[(x.index < a) | (x.index > b)]).to_numpy())
     if len(ref) < 5 or not math.isfinite(sig):
-        return energy_band(loss_kwh, max(MODEL_FLOOR, sig if math.isfinite(sig) else 0.0))
+        return float("nan"), max(MODEL_FLOOR, sig if math.isfinite(sig) else 0.0)
     n_ev = max(1, int(((x.index >= a) & (x.index <= b)).sum()))
-    level = float(np.median(ref))
-    s = max(MODEL_FLOOR, sig * math.sqrt(1 / n_ev + 1 / len(ref))) * level * abs(expected_kwh)
-    centre = loss_kwh + (level - 1) * expected_kwh
-    return min(loss_kwh, centre - Z95 * s), max(loss_kwh, centre + Z95 * s)
+    return float(np.median(ref)), max(MODEL_FLOOR, sig * math.sqrt(1 / n_ev + 1 / len(ref)))
 
 
 # --------------------------------------------------------------------------------------------
@@ -542,6 +535,7 @@ class Footprint:
     cols: list[str]
     mask: np.ndarray | None = None
     factor: np.ndarray | None = None
+    factor_rel_sigma: float = 0.0  # relative standard error of ``factor`` [-]
 
 
 def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,

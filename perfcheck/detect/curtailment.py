@@ -32,7 +32,6 @@ from perfcheck.detect.common import (
     Event,
     Wide,
     energy_band,
-    local_band,
     plateaus,
     runs,
 )
@@ -46,13 +45,10 @@ METHOD_EXPORT = "plant total held at the export limit while the plant could deli
 
 
 def _events(mask: np.ndarray, w: Wide, energy: np.ndarray, gap: np.ndarray, rel_sigma: float,
-            method: str, evidence: dict, detail: dict,
-            levels: pd.DataFrame | None = None, expected: np.ndarray | None = None
-            ) -> list[Event]:
-    """One event per site-local day with masked intervals (a set-point is a day's order).
-
-    With ``levels`` (daily performance index) and ``expected`` (the plant's expected power
-    behind the loss [W]), the band is :func:`perfcheck.detect.common.local_band`'s."""
+            method: str, evidence: dict, detail: dict) -> list[Event]:
+    """One event per site-local day with masked intervals (a set-point is a day's order; the
+    energy here is the whole shortfall's, which the ledger counts against the inverters'
+    local level, :mod:`perfcheck.detect.attribution`)."""
     step = w.interval_s.to_numpy()
     days = w.day.to_numpy()
     out = []
@@ -61,11 +57,7 @@ def _events(mask: np.ndarray, w: Wide, energy: np.ndarray, gap: np.ndarray, rel_
         pos = np.flatnonzero(sel)
         e = float(np.nansum(energy[sel] * step[sel]) / 3.6e6)
         g = float(np.nansum(gap[sel] * step[sel]) / 3.6e6)
-        if levels is None or expected is None:
-            low, high = energy_band(e, rel_sigma)
-        else:
-            low, high = local_band(levels, w.inverters, day, day, e,
-                                   float(np.nansum(expected[sel] * step[sel]) / 3.6e6))
+        low, high = energy_band(e, rel_sigma)
         held = evidence.get("_level")
         ev = {k: v for k, v in evidence.items() if k != "_level"}
         if held is not None:
@@ -167,8 +159,7 @@ def _whole_day(keep: np.ndarray, level: np.ndarray, exp_level: np.ndarray, days:
 
 
 def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude: pd.DataFrame,
-           min_minutes: float = 30.0, levels: pd.DataFrame | None = None, alpha: float = 1e-3
-           ) -> tuple[list[Event], pd.DataFrame]:
+           min_minutes: float = 30.0, alpha: float = 1e-3) -> tuple[list[Event], pd.DataFrame]:
     """Curtailment events and the (interval x inverter) mask of curtailed intervals
     (``levels``: daily performance index per inverter, for the energy band; ``alpha``: the
     false-alarm rate per day of the held-level test, :func:`_held_level`)."""
@@ -216,8 +207,7 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude:
     level = (m.where(mask).sum(axis=1) / w.ac_w.sum()).to_numpy()
     events = _events(keep, w, gap, gap, rel_sigma, METHOD_SHARED,
                      {"tolerance": tol, "margin": margin, "_level": level},
-                     {"design": False, "cause": "set-point below nameplate on all inverters"},
-                     levels, e.where(mask).sum(axis=1).to_numpy())
+                     {"design": False, "cause": "set-point below nameplate on all inverters"})
     if w.export_limit_w:
         lim = float(w.export_limit_w)
         total = m.sum(axis=1, min_count=1).to_numpy()

@@ -16,8 +16,9 @@ intervals may bridge the night and unjudged low-light intervals, never a produci
 is widened to the neighbouring low-light intervals where the inverter produced nothing, so
 start and end sit on the interval. Runs shorter than ``min_minutes`` are ignored.
 These limits are common practice (no published source). A plant of one inverter reports its
-stops on that inverter (the device that stopped). The energy band is
-:func:`perfcheck.detect.common.local_band` (the inverter's local level around the event).
+stops on that inverter (the device that stopped). The energy and its band here are the
+whole shortfall's; the ledger counts it against the inverter's local level
+(:mod:`perfcheck.detect.attribution`).
 """
 
 from __future__ import annotations
@@ -25,7 +26,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, energy_band, local_band, runs, scope_of
+from perfcheck.detect.common import Event, Wide, energy_band, runs, scope_of
 
 METHOD = ("interval state: measured/expected below 5 % with at least 10 % of rating expected "
           "and the sun above 10 deg; siblings producing (inverter) or all stopped (plant); "
@@ -50,8 +51,8 @@ def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
 
 
 def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
-                scope: str, min_minutes: float, rel_sigma: float,
-                levels: pd.DataFrame | None) -> tuple[list[Event], np.ndarray]:
+                scope: str, min_minutes: float, rel_sigma: float
+                ) -> tuple[list[Event], np.ndarray]:
     """Runs of state 1 (bridging -1) to events; the mask of the intervals they cover."""
     pos = np.flatnonzero(state >= 0)
     mask = np.zeros(len(state), dtype=bool)
@@ -70,13 +71,7 @@ def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
         sl = slice(lo, hi)
         gap = (w.expected.iloc[sl][col].to_numpy() - w.measured.iloc[sl][col].to_numpy())
         energy = float(np.nansum(gap * step[sl, None]) / 3.6e6)
-        if levels is None:
-            low, high = energy_band(energy, rel_sigma)
-        else:
-            exp_kwh = float(np.nansum(w.expected.iloc[sl][col].to_numpy() * step[sl, None])
-                            / 3.6e6)
-            low, high = local_band(levels, col, w.day.iloc[lo], w.day.iloc[hi - 1], energy,
-                                   exp_kwh)
+        low, high = energy_band(energy, rel_sigma)
         events.append(Event(
             kind="outage", scope=scope, start=w.index[lo],
             end=w.index[hi - 1] + pd.Timedelta(seconds=float(step[hi - 1])),
@@ -110,8 +105,7 @@ def reported_state(reported: pd.DataFrame | None, devices: list[str], start: pd.
 
 
 def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
-           reported: pd.DataFrame | None = None, levels: pd.DataFrame | None = None,
-           **kw: float) -> tuple[list[Event], pd.DataFrame]:
+           reported: pd.DataFrame | None = None, **kw: float) -> tuple[list[Event], pd.DataFrame]:
     """Outage events and the (interval x inverter) mask of the intervals they cover.
 
     Parameters
@@ -121,8 +115,6 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
     min_minutes : shortest outage reported [min]
     reported : the status channels' states (ts, device, state), if the loggers write them:
         an outage during which they reported a state carries it as ``detail["reported_state"]``
-    levels : daily performance index per inverter (:func:`perfcheck.detect.common.daily_pi`),
-        for the energy band; without it the band is ``rel_sigma``'s
     """
     state, nothing = states(w, **kw)
     st, no = state.to_numpy(), nothing.to_numpy()
@@ -137,16 +129,14 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
     any_prod = (st == 0).any(axis=1)
     plant_state = np.where(all_out, 1, np.where(any_prod, 0, -1)).astype(np.int8)
     ev, pm = _events_for(plant_state, no.all(axis=1), w, ids,
-                         "plant" if len(ids) > 1 else scope_of(ids[0]), min_minutes, rel_sigma,
-                         levels)
+                         "plant" if len(ids) > 1 else scope_of(ids[0]), min_minutes, rel_sigma)
     events += ev
     mask.loc[pm, :] = True
     if len(ids) > 1:
         for j, inv in enumerate(ids):
             s = st[:, j].copy()
             s[pm & (s == 1)] = -1  # already part of a plant stop
-            ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma,
-                                 levels)
+            ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma)
             events += ev
             mask.loc[im, inv] = True
     for e in events:

@@ -39,8 +39,7 @@ from perfcheck.detect.common import (
     change_points,
     coarsen,
     despike,
-    energy_band,
-    local_band,
+    long_run_sigma,
     scope_of,
 )
 from perfcheck.lazy import lazy_module
@@ -73,16 +72,16 @@ def daily_relative(w: Wide, usable: pd.DataFrame, siblings: bool = True,
     return med.where(n >= min_intervals)
 
 
-def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: float,
-           alpha: float = 1e-3, min_days: int = 3, levels: pd.DataFrame | None = None
-           ) -> tuple[list[Event], list[Footprint]]:
-    """Partial-outage events with their footprints (share of expected power lost).
+def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float = 1e-3,
+           min_days: int = 3) -> tuple[list[Event], list[Footprint]]:
+    """Partial-outage events with their footprints (share of expected power lost, with its
+    relative standard error).
 
     The daily statistics are taken on 15-minute blocks (:func:`coarsen`), the energy on
-    the series as given. The energy band holds both the share's interval and, with
-    ``levels`` (daily performance index per inverter), the inverter's local level around
-    the event (:func:`perfcheck.detect.common.local_band`: the expected power the share is
-    taken of carries the model's bias).
+    the series as given. The share's standard error takes the days' autocorrelation
+    (:func:`_mean_var`); the band here is the share's alone: the ledger counts the share
+    against the inverter's local level and widens the band by that level's error
+    (:mod:`perfcheck.detect.attribution`).
     """
     wc, uc = coarsen(w, usable)
     daily = daily_relative(wc, uc)
@@ -127,7 +126,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: fl
                     for h in halves]
             if not (min(half) >= 0.5 * max(half) and min(half) > 0):
                 continue
-            se = math.sqrt(np.var(xs, ddof=1) / len(xs) + np.var(xr, ddof=1) / len(xr))
+            se = math.sqrt(_mean_var(xs) + _mean_var(xr))
             share_lo = 1 - math.exp(g.mean - ref.mean + 1.96 * se)
             share_hi = 1 - math.exp(g.mean - ref.mean - 1.96 * se)
             d0, d1 = s.index[g.start], s.index[g.stop - 1]
@@ -135,16 +134,14 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: fl
             exp = w.expected[inv].to_numpy()[lo:hi]
             step = w.interval_s.to_numpy()[lo:hi]
             energy = float(np.nansum(exp * share * step) / 3.6e6)
-            lo_e, hi_e = (energy_band(energy, rel_sigma) if levels is None else
-                          local_band(levels, [inv], d0, d1, energy, energy))
             k = round(share * n_str)
             ev = Event(
                 kind="partial_outage", scope=scope_of(inv),
                 start=w.index[lo],
                 end=w.index[hi - 1] + pd.Timedelta(seconds=float(w.interval_s.iloc[hi - 1])),
                 energy_loss_kwh=energy,
-                energy_loss_kwh_low=max(0.0, min(lo_e, energy * share_lo / share)),
-                energy_loss_kwh_high=max(hi_e, energy * share_hi / share),
+                energy_loss_kwh_low=max(0.0, energy * share_lo / share),
+                energy_loss_kwh_high=energy * share_hi / share,
                 method=METHOD,
                 evidence={"test": "Welch t", "p_value": float(t.pvalue), "t": float(t.statistic),
                           "days": int(len(xs)), "reference_days": int(len(xr)),
@@ -156,8 +153,18 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], rel_sigma: fl
                         "share_of_dc_lost": share},
             )
             events.append(ev)
-            prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share)))
+            prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share),
+                                    factor_rel_sigma=(1 - share) * se / share))
     return events, prints
+
+
+def _mean_var(x: np.ndarray) -> float:
+    """Variance of the mean of the daily values ``x``: the long-run variance over their
+    number (:func:`perfcheck.detect.common.long_run_sigma`, autocorrelation-aware), never
+    under the independent-sample one."""
+    lr, _ = long_run_sigma(x)
+    v = float(np.var(x, ddof=1))
+    return max(v, lr * lr if math.isfinite(lr) else v) / len(x)
 
 
 def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Timestamp,
