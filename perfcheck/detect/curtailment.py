@@ -145,6 +145,48 @@ def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, tol:
     return out
 
 
+def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep: np.ndarray,
+               margin: float, alpha: float) -> np.ndarray:
+    """Days on which the plant holds a set-point already found on another day, even for a few
+    intervals: a plant controller's limit comes back at the same level.
+
+    For each level held on a found day (the median of its held intervals), an interval *sits*
+    at it when the plant power is within +-``HOLD`` of it while the expected power is above it
+    by the ``margin``. How often that happens by chance is counted on the other days that
+    have such expected power (a rate with one sitting interval added, so never zero: Laplace's
+    rule of succession); a day on which more intervals sit at the level than that rate gives
+    by chance (one-sided binomial test at ``alpha``, the false-alarm rate per day and level)
+    is held too. Days with no found level are never tested.
+
+    References
+    ----------
+    Conover 1999, Practical Nonparametric Statistics, 3rd ed., sec. 3.1 (the binomial test;
+    from memory); Laplace's rule of succession (common practice).
+    """
+    out = np.zeros(len(level), dtype=bool)
+    found = np.unique(days[keep])
+    centres: list[float] = []
+    for day in found:
+        c = float(np.median(level[keep & (days == day)]))
+        if all(abs(c - x) > HOLD * x for x in centres):
+            centres.append(c)
+    if not centres:
+        return out
+    done = np.isin(days, found)
+    with np.errstate(invalid="ignore"):
+        for c in centres:
+            above = (exp_level >= c * (1 + margin)) & ~done
+            sits = above & (np.abs(level - c) <= HOLD * c)
+            n_all, k_all = int(above.sum()), int(sits.sum())
+            for day in np.unique(days[sits]):
+                today = days == day
+                n, k = int((above & today).sum()), int((sits & today).sum())
+                rate = (k_all - k + 1) / (n_all - n + 1)
+                if stats.binom.sf(k - 1, n, rate) <= alpha:
+                    out |= sits & today
+    return out
+
+
 def _whole_day(keep: np.ndarray, level: np.ndarray, exp_level: np.ndarray, days: np.ndarray,
                tol: float, margin: float) -> np.ndarray:
     """Extend each day's curtailed runs to every interval of that day held at the same level
@@ -200,6 +242,7 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude:
         if not (on < off).all():
             held[sel] = False
     keep |= held
+    keep |= _recurring(level, exp_level, w.day.to_numpy(), keep, margin, alpha)
     keep = _whole_day(keep, level, exp_level, w.day.to_numpy(), tol, margin)
     mask = producing & pd.DataFrame(
         np.repeat(keep[:, None], len(w.inverters), axis=1), index=w.index, columns=w.inverters)
