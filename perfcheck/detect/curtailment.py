@@ -11,7 +11,10 @@ the plant total, not each inverter, and on a cloudy day or with a limit near the
 output it bites only now and then; a day on which the plant total comes back to one level
 more often than power that follows the sun can (a binomial test with its false-alarm rate,
 :func:`_held_level`) while the expected power moves and the plant delivers less of it there
-is held too. Either way every interval of that day at the level counts. Export limit: the
+is held too. A level held on one day is looked for on the others: a day that sits at it
+more often than the other days do by chance (a binomial test at the same rate,
+:func:`_recurring`) is held there too, however few its intervals. Either way every interval
+of that day at the level counts. Export limit: the
 plant total within the tolerance of ``export_limit_kw`` while the sum of the unlimited
 expected powers (each capped at its inverter rating) is above it; since the expected series
 already stops at the export limit, that energy is a design fact and is reported as such.
