@@ -73,3 +73,45 @@ def test_ageing_removed_flattens_a_year_on_year_trend():
     assert np.median(pairs) == pytest.approx(-1.0, abs=0.01)  # 365 vs 365.25 days
     flat = degradation.ageing_removed(plant.to_frame("inv1"), plant)
     np.testing.assert_allclose(flat["inv1"].to_numpy(), 1.0, atol=2e-4)
+
+
+def test_sawtooth_extent_places_the_washes_beside_an_episode():
+    # invented truth (the rain-reset model of Kimber et al. 2006): after a found episode, the
+    # soiling goes on at 0.4 %/day, washed at days 20 and 45, cleaned at day 60, clean after;
+    # noise 1 %, penalty the Schwarz criterion (variance times ln n). The washes are placed
+    # within a day (common practice: the daily index cannot place them closer)
+    rng = np.random.default_rng(1)
+    n = 90
+    t = np.arange(n) + 0.5
+    age = np.zeros(n)
+    for a, b in ((0, 20), (20, 45), (45, 60)):
+        age[a:b] = t[a:b] - a
+    y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
+    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n), forward=True)
+    assert len(cut) == 4
+    np.testing.assert_allclose(cut, [0, 20, 45, 60], atol=1)
+    # before an episode: clean until day 15, washed at 40, the episode's own wash at the end
+    age = np.zeros(n)
+    for a, b in ((15, 40), (40, 90)):
+        age[a:b] = t[a:b] - a
+    y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
+    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n), forward=False)
+    np.testing.assert_allclose(cut, [15, 40, 90], atol=1)
+    # no soiling beside it: no ramp, either way
+    for forward in (True, False):
+        y = rng.normal(1, 0.01, n)
+        assert soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n),
+                                       forward) == []
+
+
+def test_recovery_cause_unknown_without_rain_readings():
+    # a step up of 10 % on a quiet index: with no rain readings its cause is unknown, with
+    # readings and no rain it is a cleaning (invented truth; alpha 1e-3)
+    days = pd.date_range("2024-01-01", periods=40, freq="D")
+    rng = np.random.default_rng(2)
+    index = pd.Series(np.r_[np.full(20, 0.9), np.full(20, 1.0)]
+                      * np.exp(rng.normal(0, 0.003, 40)), index=days)
+    for rain, cause in ((np.nan, "unknown"), (0.0, "cleaning")):
+        rec = soiling.recoveries(index, pd.Series(rain, index=days), 5.0, 1e-3)
+        assert [r["cause"] for r in rec] == [cause]
+        assert rec[0]["day"] == days[20]
