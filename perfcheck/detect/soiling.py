@@ -28,8 +28,9 @@ the index better than its clean level by more than the criterion's penalty per r
 
 The false-alarm probability per interval tested is ``alpha`` (Kendall's test, one-sided
 decline; the run passes 1e-3), and per series ``alpha`` for the steps up (Bonferroni over
-the days). The extension adds no episode: it only widens a found one. ``rain_mm`` default 5 mm in 24 hours: common practice (Kimber et al. 2006 use a
-rain threshold of this order; no single source).
+the days). The extension adds no episode: it only widens a found one. ``rain_mm`` default
+5 mm in 24 hours: common practice (Kimber et al. 2006 use a rain threshold of this order; no
+single source).
 
 References
 ----------
@@ -348,7 +349,8 @@ def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex
     out: list = []
     done = 0  # the first day no episode has taken
     for k, g in enumerate(groups):
-        nxt = groups[k + 1][0][3]["onset_at"] if k + 1 < len(groups) else len(days)
+        nxt = int(np.searchsorted(days, groups[k + 1][0][0])) if k + 1 < len(groups) \
+            else len(days)
         end = int(np.searchsorted(days, g[-1][1]))
         for lo, hi, f, forward in ((done, g[0][3]["onset_at"], g[0][3], False),
                                    (end, nxt, g[-1][3], True)):
