@@ -270,7 +270,11 @@ def long_run_variance(index: pd.Series, half_days: int = 7) -> float:
     """Variance of the daily index about its centred rolling median (2 ``half_days`` + 1 days;
     1.4826 MAD, robust to outliers), times (1 + phi) / (1 - phi) for the lag-one
     autocorrelation phi of those deviations (the long-run variance of an AR(1) series: a
-    fit to days in a row gains that much more by chance than on independent days)."""
+    fit to days in a row gains that much more by chance than on independent days; Hamilton
+    1994, sec. 7.2, from memory; phi clipped to [0, 0.9] as in
+    :func:`perfcheck.detect.common.long_run_sigma`). Unlike that scale of the raw index,
+    whose persistence includes the soiling ramps themselves, this is the noise about the
+    local level that a ramp competes with."""
     dev = (index - index.rolling(2 * half_days + 1, center=True, min_periods=half_days)
            .median()).to_numpy()
     ok = np.isfinite(dev)
