@@ -25,10 +25,11 @@ alone, inside the model's error, is not reported). Consecutive such days with on
 offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
 inside, join it while the event's angle fits them better than tracking; its onset and end are
 placed within their days by the split that fits best (:func:`_split`). Where the plant has
-other tracker inverters, a day whose shape more than half of them share is taken as the sky's
-or the model's, not the rows' (rows out of step differ from their neighbours; a plant-wide
-stall is therefore found from the angle channel only), and an event is reported when its most
-significant day is significant over all the inverter's days tested (its p-value times their
+other tracker inverters, a day on which more than half of them show a significant shape (any
+candidate) is taken as the sky's or the model's, not the rows' (rows out of step differ from
+their neighbours; a plant-wide stall is therefore found from the angle channel only), and an
+event is reported when its most significant day of its own (not such a shared day) is
+significant over all the inverter's days tested (its p-value times their
 number below alpha, Bonferroni). An inverter with no sibling has no such reference, and its
 day gains have a tail far heavier than the normal one: its event is reported when the run's
 days rank so high among its days, so persistently, that chance would place them there with
@@ -555,7 +556,8 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         e = np.where(usable[inv].to_numpy(), np.nan_to_num(w.expected[inv].to_numpy()), 0.0)
         seed = _seed_days(e, cand, fits, codes, days, alpha, z * rel_sigma)
         found[inv] = (theta, cand, y, fits, seed)
-    _drop_shared({inv: f[4] for inv, f in found.items()})
+    _drop_shared({inv: f[4] for inv, f in found.items()},
+                 {inv: days[f[3].p_value < alpha] for inv, f in found.items()})
     channel = angle_days(w, angle, found[first][0])
     tracking = [d for d, lab in channel.items() if lab[0] == "track"]
     shown = {d: lab for d, lab in channel.items() if lab[0] != "track"}
@@ -570,12 +572,13 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         blocked = tracking if inv == first else []
         for lab, first_day, last_day in _group(seed, days, cand, fits, blocked):
             run = (days >= first_day) & (days <= last_day)
+            own = run & np.isin(days, list(seed))  # not the days its neighbours share
             seen = inv == first and any(first_day <= d <= last_day for d in shown)
             if alone:
                 span = int((last_day - first_day) / np.timedelta64(1, "D")) + 1
-                p_run = run_p_value(fits.gain, run & np.isin(days, list(seed)), span)
-            else:  # the most significant day over the inverter's days (Bonferroni)
-                p_run = float(np.min(fits.p_value[run])) * tested
+                p_run = run_p_value(fits.gain, own, span)
+            else:  # its most significant own day over the inverter's days (Bonferroni)
+                p_run = float(np.min(fits.p_value[own], initial=1.0)) * tested
             if not (seen or p_run < alpha):
                 continue
             ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
@@ -602,18 +605,19 @@ def _seed_days(e: np.ndarray, cand: Candidates, fits: DayFits, codes: np.ndarray
     return out
 
 
-def _drop_shared(seeds: dict[str, dict]) -> None:
-    """A stall or an offset is one inverter's rows unlike their neighbours': a day whose shape
-    more than half of the tracker inverters share is the sky's or the model's (a plant-wide
-    stall is found from the ``tracker_angle`` channel)."""
+def _drop_shared(seeds: dict[str, dict], shaped: dict[str, np.ndarray]) -> None:
+    """A stall or an offset is one inverter's rows unlike their neighbours': a day on which
+    more than half of the tracker inverters show a significant shape (``shaped``: their days
+    with a p-value below alpha, whatever the candidate and however small the loss) is the
+    sky's or the model's (a plant-wide stall is found from the ``tracker_angle`` channel)."""
     if len(seeds) < 2:
         return
     count: dict = {}
-    for seed in seeds.values():
-        for d in seed:
+    for marked in shaped.values():
+        for d in marked:
             count[d] = count.get(d, 0) + 1
     for seed in seeds.values():
-        for d in [d for d in seed if count[d] > len(seeds) / 2]:
+        for d in [d for d in seed if count.get(d, 0) > len(seeds) / 2]:
             del seed[d]
 
 
