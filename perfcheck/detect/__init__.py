@@ -187,11 +187,12 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     usable = valid & ~excluded & unclipped & w.expected.ge(w.ac_w * 0.2, axis=1)
     ev, prints = tracker.detect(w, site, usable, rel_sigma, st.alpha, angle, sky)
     events += ev
-    for fp in prints:  # the rows of a stall are no partial outage's
-        usable.iloc[fp.lo:fp.hi, usable.columns.get_indexer(fp.cols)] = False
     t = lap("tracker", t)
     strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
-    ev, fp = partial.detect(w, usable, strings, rel_sigma, alpha=st.alpha, levels=levels)
+    # lost strings are judged on the power with the rows' share put back: during a stall they
+    # are a level on top of its shape (the ledger takes the shares in this order)
+    w_rows = dataclasses.replace(w, measured=_undo(w, prints))
+    ev, fp = partial.detect(w_rows, usable, strings, rel_sigma, alpha=st.alpha, levels=levels)
     events += ev
     prints += fp
     t = lap("partial", t)
