@@ -686,8 +686,6 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     y = y_all[lo:hi]  # about the usual day shape, whose level is the usual one
     sk = _take(s, slice(lo, hi))
     tracked = plane_poa(theta[lo:hi], a, sk)
-    if fam == "step":  # the offset again, at the usual level: a constant share is an offset's
-        val = _offset_at_level(y, theta[lo:hi], a, sk, tracked)
     held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk)
     lr = log_ratio(held, tracked)
     d = day[lo:hi]
@@ -735,18 +733,6 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
 def _turned(theta: np.ndarray, offset: float, array: Array) -> np.ndarray:
     lim = array.tracker.max_angle_deg
     return np.clip(theta + offset, -lim, lim)
-
-
-def _offset_at_level(y: np.ndarray, theta: np.ndarray, array: Array, s: Sky,
-                     tracked: np.ndarray) -> float:
-    """The offset whose shape fits ``y`` (ln of measured over expected, less the usual level)
-    best with no free constant."""
-    offsets = np.arange(-MAX_OFFSET_DEG, MAX_OFFSET_DEG + 1e-9, STEP_DEG / 2)
-    sse = []
-    for off in offsets:
-        z = y - log_ratio(plane_poa(_turned(theta, off, array), array, s), tracked)
-        sse.append(float(np.nanmean(z * z)) if np.isfinite(z).any() else np.inf)
-    return float(offsets[int(np.argmin(sse))])
 
 
 def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray, onset: bool
