@@ -8,7 +8,11 @@ shares (soiling, degradation, a lost string, model bias of the day) cancels. Per
 tested on the daily mean deficits: with more than a year of data, year-on-year pairs (the same
 sun position a year later; the model's own shape errors at that sun position repeat and cancel)
 with a one-sided t test; with less, the trend over time (statsmodels OLS; standard errors
-clustered by month where the bin's days span four months or more, HC3 otherwise).
+clustered by month where the bin's days span four months or more, HC3 otherwise) of the
+deficits less the median deficit at the same elevation on the other side of the sky in the
+same weeks (:func:`same_elevation_control`: seen in two seasons only, a bin's trend would
+otherwise take the model's seasonal error at that elevation for growth; an obstruction
+standing alike on both sides at the same elevation is not told from that error).
 A bin whose one-sided p-value is below ``alpha`` divided by the number of bins tested
 (Bonferroni) and whose growth is at least ``min_deficit`` per year is shaded by a growing
 obstruction; its neighbouring bins join the region at the plain level ``alpha`` (an
@@ -88,10 +92,45 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray, month: np.ndarray | None = No
     return slope, se, float(res.params[0]), p_one
 
 
-def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
+def same_elevation_control(daily: pd.DataFrame, n_az: int, half_window_days: int = 15
+                           ) -> np.ndarray:
+    """Per row of ``daily`` (a bin's mean deficit of a day: ``az``, ``el``, ``dayno``, ``d``),
+    the median deficit of the same elevation band on the other side of the sky (azimuth bins
+    more than one bin away, circularly) within ``half_window_days`` of the day; NaN where
+    there is none.
+
+    The sun passes every elevation twice a day, once each side of the meridian, at the same
+    air mass, so the model's errors that depend on elevation and season (the split of GHI
+    into beam and diffuse, the spectrum, the transposition at low sun) are the same on both
+    sides in the same weeks, while an obstruction stands on one side. The window is the half
+    month of the clustering block of :func:`_bin_trend` (common practice)."""
+    out = np.full(len(daily), np.nan)
+    az = daily["az"].to_numpy()
+    el = daily["el"].to_numpy()
+    dn = daily["dayno"].to_numpy()
+    d = daily["d"].to_numpy()
+    for e in np.unique(el):
+        band = el == e
+        for a in np.unique(az[band]):
+            rows = np.flatnonzero(band & (az == a))
+            sep = np.abs(az - a) % n_az
+            others = np.flatnonzero(band & (np.minimum(sep, n_az - sep) > 1))
+            near = np.abs(dn[rows][:, None] - dn[others][None, :]) <= half_window_days
+            has = near.any(axis=1)
+            if has.any():
+                vals = np.where(near[has], d[others][None, :], np.nan)
+                out[rows[has]] = np.nanmedian(vals, axis=1)
+    return out
+
+
+def _bin_test(g: pd.DataFrame, min_pairs: int = 5, min_days: int = 8) -> dict | None:
     """Growth test of one bin's daily deficits: year-on-year pairs where the data allow,
-    else the OLS trend over time (:func:`_bin_trend`). One-sided p-value of growth and its
-    size."""
+    else the OLS trend over time (:func:`_bin_trend`) of the deficits less the same
+    elevation's on the other side of the sky in the same weeks (column ``c``,
+    :func:`same_elevation_control`: over less than a year a bin is seen in two seasons, and
+    the model's seasonal error at that elevation would pass for growth; where the band has
+    no such values at all, the sun's highest bins, the deficits themselves; fewer than
+    ``min_days`` controlled days: not tested). One-sided p-value of growth and its size."""
     t = g["t"].to_numpy()
     d = g["d"].to_numpy()
     if np.ptp(t) >= 1.0 + 10 / 365.25:
@@ -108,12 +147,19 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
         res = stats.ttest_1samp(delta, 0.0, alternative="greater")
         return {"test": "year-on-year pairs, one-sided t", "growth_per_year": float(
             np.mean(delta)), "p_value": float(res.pvalue), "pairs": int(len(delta))}
+    test = "OLS trend, clustered by month, one-sided"
+    dayno = g["dayno"].to_numpy()
+    c = g["c"].to_numpy() if "c" in g else np.full(len(d), np.nan)
+    keep = np.isfinite(c)
+    if keep.any():
+        if keep.sum() < min_days:
+            return None
+        t, d, dayno = t[keep], d[keep] - c[keep], dayno[keep]
+        test += ", less the other side of the sky at the same elevation"
     if np.ptp(t) < 0.25:
         return None
-    slope, se, icpt, p = _bin_trend(t, d, g["dayno"].to_numpy() // 30)
-    return {"test": "OLS trend, clustered by month, one-sided", "growth_per_year": slope,
-            "p_value": p,
-            "pairs": int(len(d))}
+    slope, se, icpt, p = _bin_trend(t, d, dayno // 30)
+    return {"test": test, "growth_per_year": slope, "p_value": p, "pairs": int(len(d))}
 
 
 def _baseline_onset(g: pd.DataFrame, min_deficit: float, alpha: float) -> tuple[float, float]:
@@ -165,8 +211,9 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                               "dayno": dayno_c[ok], "t": t_c[ok], "d": d[ok]})
         daily = frame.groupby(["az", "el", "dayno"], sort=False).agg(
             t=("t", "mean"), d=("d", "mean")).reset_index()
+        daily["c"] = same_elevation_control(daily, int(round(360 / az_step)))
         groups = {k: g for k, g in daily.groupby(["az", "el"]) if len(g) >= min_days}
-        tested = {k: _bin_test(g) for k, g in groups.items()}
+        tested = {k: _bin_test(g, min_days=min_days) for k, g in groups.items()}
         tested = {k: v for k, v in tested.items() if v is not None}
         n_tests = max(1, len(tested))
         keys = {k for k, res in tested.items()
