@@ -63,7 +63,9 @@ sm = lazy_module("statsmodels.api")
 stats = lazy_module("scipy.stats")
 
 METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, OLS "
-          "trend over time per bin (errors clustered by month, or HC3), Bonferroni over bins")
+          "trend over time per bin (errors clustered by month, or HC3), also less the same "
+          "elevation on the other side of the sky where the plane irradiance is decomposed "
+          "from GHI, Bonferroni over bins")
 
 
 def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
