@@ -1,4 +1,5 @@
-"""Pure pieces of the sensor, soiling and degradation detectors against invented truths."""
+"""Pure pieces of the sensor, soiling, degradation, partial-outage and shading detectors
+against invented truths."""
 
 from __future__ import annotations
 
@@ -8,7 +9,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from perfcheck.detect import degradation, sensor, soiling
+from perfcheck.detect import degradation, partial, sensor, shading, soiling
+from perfcheck.detect.common import Segment, change_points
 
 DAYS = pd.date_range("2024-01-01", periods=240, freq="D")
 
@@ -115,3 +117,58 @@ def test_recovery_cause_unknown_without_rain_readings():
         rec = soiling.recoveries(index, pd.Series(rain, index=days), 5.0, 1e-3)
         assert [r["cause"] for r in rec] == [cause]
         assert rec[0]["day"] == days[20]
+
+
+def test_partial_pieces_of_one_lost_string_are_joined():
+    # invented truth: a 5-string inverter at its usual level (log 0) for 60 days, then one
+    # string lost (share 0.2) for 30 days while a shade waxes 0 -> 3 % over them, then back;
+    # days' noise 0.2 %. The segmentation cuts the drifting stretch (its t test takes days
+    # as independent); joined below half a string's share (0.1) it is one segment of the 30
+    # days, and its edges are steps of about 0.2 (partial._edge_steps)
+    rng = np.random.default_rng(7)
+    drift = np.log(0.8) + np.log(1 - np.linspace(0.0, 0.03, 30))
+    x = np.r_[np.zeros(60), drift, np.zeros(60)] + rng.normal(0, 0.002, 150)
+    segs = change_points(x, alpha=1e-3, min_size=3)
+    ref = max(segs, key=lambda g: g.stop - g.start)
+    low = [g for g in partial.merge_within(x, segs, ref, 0.5 / 5) if g.mean < -0.1]
+    assert len([g for g in segs if g.mean < -0.1]) > 1  # the cut this guards against
+    assert [(g.start, g.stop) for g in low] == [(60, 90)]
+    assert min(partial._edge_steps(x, 60, 90, 3)) > 0.5 * 0.2
+
+
+def test_partial_string_changes_stay_apart():
+    # invented truth: two strings lost of 5 (log 0.6), then one found again (log 0.8): the
+    # levels differ by a string's share, so the two segments stay apart; the reference is
+    # never joined
+    x = np.r_[np.zeros(10), np.full(10, np.log(0.6)), np.full(10, np.log(0.8))]
+    segs = [Segment(0, 10, 0.0), Segment(10, 20, float(np.log(0.6))),
+            Segment(20, 30, float(np.log(0.8)))]
+    assert partial.merge_within(x, segs, segs[0], 0.1) == segs
+    near = [Segment(0, 10, 0.0), Segment(10, 20, -0.01)]
+    assert partial.merge_within(x, near, near[0], 0.1) == near
+
+
+def test_shading_control_is_the_other_side_at_the_same_elevation():
+    # invented truth: 36 azimuth bins of 10 deg; elevation band 1 seen in the morning (bin 9)
+    # and afternoon (bin 26) every day, plus a neighbour of bin 9 (bin 10, excluded as the
+    # same side); a seasonal model error e(day) common to the band: the control of bin 9 on
+    # a day is the median of bin 26 within 15 days, none for a lone band
+    days = np.arange(0, 200, 5)
+    err = 0.002 * days  # the model's error at this elevation, growing with the season
+    rows = [(9, 1, d, e + 0.3) for d, e in zip(days, err, strict=True)]  # shaded side grows
+    rows += [(10, 1, d, 5.0) for d in days]
+    rows += [(26, 1, d, e) for d, e in zip(days, err, strict=True)]
+    rows += [(18, 9, 0, 0.1)]
+    daily = pd.DataFrame(rows, columns=["az", "el", "dayno", "d"])
+    c = shading.same_elevation_control(daily, 36)
+    nine = (daily["az"] == 9).to_numpy()
+    want = [np.median(err[np.abs(days - d) <= 15]) for d in days]
+    np.testing.assert_allclose(c[nine], want)
+    assert np.isnan(c[-1])
+    # a bin at a steady 0.3 above the band's seasonal error: without the control the error
+    # passes for growth (0.002/day, 0.73/yr), less the control it is flat
+    g = daily[nine].assign(t=daily["dayno"][nine] / 365.25, c=c[nine])
+    g = g.assign(d=g["c"] + 0.3)
+    assert shading._bin_test(g.drop(columns="c"))["growth_per_year"] == pytest.approx(
+        0.73, abs=0.05)
+    assert shading._bin_test(g)["growth_per_year"] == pytest.approx(0.0, abs=1e-9)
