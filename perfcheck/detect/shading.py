@@ -1,31 +1,48 @@
 """Shading growth: beam losses in a region of the sky that grow over the months (a tree, a new
 building).
 
-Per inverter, clear-sky intervals (GHI within ±20 % of the clear-sky GHI) are binned by sun
-azimuth (``az_step`` degrees) and elevation (``el_step`` degrees). The deficit of an interval is
+Per inverter, clear-sky intervals (GHI within ±20 % of the clear-sky GHI; without a GHI
+channel the plane irradiance within ±20 % of its clear-sky value) are binned by sun azimuth
+(``az_step`` degrees) and elevation (``el_step`` degrees). The deficit of an interval is
 1 - (measured/expected) / (the day's median of measured/expected), so what the whole day
-shares (soiling, degradation, a lost string, model bias of the day) cancels. Per bin, growth is
-tested on the daily mean deficits: with more than a year of data, year-on-year pairs (the same
-sun position a year later; the model's own shape errors at that sun position repeat and cancel)
-with a one-sided t test; with less, the trend over time (statsmodels OLS; standard errors
-clustered by month where the bin's days span four months or more, HC3 otherwise).
-A bin whose one-sided p-value is below ``alpha`` divided by the number of bins tested
-(Bonferroni) and whose growth is at least ``min_deficit`` per year is shaded by a growing
-obstruction; its neighbouring bins join the region at the plain level ``alpha`` (an
-obstruction is one connected piece), and so do the bins below it down to the horizon (an
-obstruction stands on the ground). In each such bin a change-point search on its deficits
-gives the unshaded level (the first segment) and the day the shade arrived (the first segment
-above it by ``min_deficit``). The shaded bins of one inverter make one event (bins of one
-obstruction need not touch: between two shaded bins a bin with few clear days is not
-significant, and a region apart would start the finding at its own small loss): the
-azimuth range, the top elevation, the first arrival (the event lasts to the end of the data:
-the obstruction is still there), the energy (each interval's deficit above its bin's unshaded
-level, since the arrival, against the day's ratio outside the shaded bins) and a proposed
-horizon profile. The event starts on the first day its loss is material: the day from which
-the loss estimated for the region, as a share of the inverter's expected energy of the day
+shares (soiling, degradation, a lost string, model bias of the day) cancels.
+
+Detection. Per bin, growth is tested on the daily mean deficits: with more than a year of
+data, year-on-year pairs (the same sun path a year later; the model's own shape errors there
+repeat and cancel) with a one-sided t test; with less, the trend over time given the day's
+mean sun position in the bin (statsmodels OLS; standard errors clustered by month where the
+bin's days span four months or more, HC3 otherwise): the sun crosses a bin elsewhere in
+other seasons, and the model's error at low sun or at a grazing angle changes across a bin,
+which a trend alone takes as growth. A bin whose one-sided p-value is below ``alpha``
+divided by the number of bins tested (Bonferroni) and whose growth is at least
+``min_deficit`` per year is shaded by a growing obstruction; its neighbouring bins join at
+the plain level ``alpha`` (an obstruction is one connected piece).
+
+Region. A bin is too coarse for the energy: the obstruction's top crosses it over months.
+Each clear interval is labelled shaded when its deficit exceeds the clear-sky noise at its
+sun elevation (median and scaled MAD per elevation band, from the sky outside the candidate
+columns) by the one-sided normal quantile of ``alpha``. Per azimuth column, the top of the
+obstruction on each day is the never-falling step that disagrees with the fewest labels
+(dynamic programming); a column counts when, cross-fitted (the top fitted on even days
+judged on odd days' intervals under it, and back), its shaded labels beat the column's own
+label rate (binomial, ``alpha``). The columns of the shaded bins start the region, which
+grows to the next column while each counts. The region is every interval (clear or not)
+under its column's top that day.
+
+Energy. Each interval of the region loses its expected power at the day's level (median
+ratio of the intervals outside the region) times its deficit less its bin's unshaded
+deficit (the model's shape error there, from the bin's clear intervals outside the region).
+The 95 % band: the model's relative daily error, the long-run (autocorrelation-aware) noise
+of the same estimate on the unshaded intervals of the region's columns, and upwards the loss
+under the highest top that fits the labels as well as the lowest (the data cannot place the
+boundary closer).
+
+The event (one per inverter) gives the azimuth range, the top elevation at the end, the first
+day of the region (the event lasts to the end of the data: the obstruction is still there),
+the energy and a proposed horizon profile. It starts on the first day its loss is material:
+the day from which the region's loss, as a share of the inverter's expected energy of the day
 (median over ``smooth_days`` days centred on it, as one day's estimate carries the day's noise),
-exceeds ``material_share`` (1 %, common practice); the bins' arrival times are kept in the
-evidence (the shade is there, small, from the first of them).
+exceeds ``material_share`` (1 %, common practice).
 
 ``min_deficit`` 5 % of the interval's power, common practice; ``alpha`` 0.01.
 
@@ -34,8 +51,8 @@ References
 Regression over time: ordinary least squares with heteroscedasticity-consistent errors
 (MacKinnon & White 1985, J. Econometrics 29:305, HC3); clustered standard errors with t on
 clusters - 1 degrees of freedom (Cameron & Miller 2015, J. Human Resources 50(2):317) (both
-from memory). The binning by sun
-position follows the usual shading-loss diagrams (common practice).
+from memory). The binning by sun position follows the usual shading-loss diagrams (common
+practice).
 """
 
 from __future__ import annotations
@@ -58,8 +75,10 @@ from perfcheck.lazy import lazy_module
 sm = lazy_module("statsmodels.api")
 stats = lazy_module("scipy.stats")
 
-METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, OLS "
-          "trend over time per bin (errors clustered by month, or HC3), Bonferroni over bins")
+METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, growth "
+          "per bin (year-on-year pairs, or OLS trend given the sun's place in the bin), "
+          "Bonferroni over bins; per azimuth column a monotone top fitted to the shaded clear "
+          "intervals (cross-fitted binomial test); the loss summed under it")
 
 
 def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
@@ -122,17 +141,24 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
 
 
 def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, tuple],
+           clearsky_plane: pd.DataFrame,
            az_step: float = 10.0, el_step: float = 5.0, alpha: float = 0.01,
            min_deficit: float = 0.05, min_days: int = 8, material_share: float = 0.01,
            smooth_days: int = 15) -> tuple[list[Event], list[Footprint], pd.DataFrame]:
     """Shading events, footprints, and the mask of the intervals in the shaded region.
 
     The bins are tested on 10-minute blocks (:func:`coarsen`); the region's boundary and the
-    energy are taken on the series as given.
+    energy are taken on the series as given. An interval is clear when the logged GHI is
+    within 20 % of the clear-sky GHI, or without a GHI channel the inverter's plane
+    irradiance within 20 % of its clear-sky value (``clearsky_plane``, per inverter).
     """
+    if w.ghi.notna().any():
+        kt = pd.DataFrame({c: w.ghi / w.clearsky_ghi for c in w.inverters})
+    else:
+        kt = w.poa / clearsky_plane[w.inverters].where(clearsky_plane[w.inverters] > 0)
+    clear = (kt > 0.8) & (kt < 1.2) & w.zenith.lt(88).to_numpy()[:, None]
     wc, uc = coarsen(w, usable, 600.0)
-    kt = wc.ghi / wc.clearsky_ghi
-    clear_iv = (kt > 0.8) & (kt < 1.2) & (wc.zenith < 88)
+    clear_c = coarsen(w, clear, 600.0)[1]
 
     def grid(x: Wide) -> tuple[np.ndarray, np.ndarray]:
         el = 90 - x.zenith.to_numpy()
@@ -147,8 +173,6 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
     t_c = ((wc.index - w.index[0]) / pd.Timedelta(days=365.25)).to_numpy(dtype=float)
     days = w.day.to_numpy()
     day_pos = np.unique(days, return_inverse=True)[1]
-    kt_all = (w.ghi / w.clearsky_ghi).to_numpy()
-    clear_all = (kt_all > 0.8) & (kt_all < 1.2) & (elev > 2)
     dfc = deficits(wc, uc)
     events: list[Event] = []
     prints: list[Footprint] = []
@@ -156,7 +180,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
     step = w.interval_s.to_numpy()
     for inv in w.inverters:
         d = dfc[inv].to_numpy()
-        ok = np.isfinite(d) & clear_iv.to_numpy() & (elev_c > 0)
+        ok = np.isfinite(d) & clear_c[inv].to_numpy() & (elev_c > 0)
         frame = pd.DataFrame({"az": key_c[ok] // 1000, "el": key_c[ok] % 1000,
                               "dayno": dayno_c[ok], "t": t_c[ok], "d": d[ok],
                               "elv": elev_c[ok], "azv": wc.azimuth.to_numpy()[ok]})
@@ -185,6 +209,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         # intervals lost their beam; the columns of the shaded bins, and their neighbours
         # one by one while each shows shaded intervals beyond the false-label rate
         use = usable[inv].to_numpy()
+        clear_all = clear[inv].to_numpy() & (elev > 2)
         e_int = w.expected[inv].to_numpy()
         near = np.isin(column, sorted({a + k for a, _ in keys for k in (-1, 0, 1)}))
         d_out, _ = _interval_deficits(w, inv, use & ~near, days)
@@ -208,16 +233,16 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         d_all, level_e = _interval_deficits(w, inv, use & ~region, days)
         sel = region & np.isfinite(d_all)
         base = _unshaded_level(d_all, use & clear_all & ~region, key_all, elev, el_step)
-        loss = np.where(sel, level_e * (d_all - base), 0.0)
+        est = level_e * (d_all - base)
+        loss = np.where(sel, est, 0.0)
         energy = float(np.sum(loss * step) / 3.6e6)
         if not energy > 0:  # a region, but no loss: no finding
             continue
         shaded_mask[inv] = sel
-        sigma = _loss_sigma_kwh(level_e * (d_all - base), level_e, sel,
-                                use & ~region & np.isin(column, list(tops)) & np.isfinite(d_all),
-                                days, step)
-        est = np.where(use & np.isfinite(d_all), level_e * (d_all - base), 0.0)
-        low, high = _boundary_band(energy, rel_sigma, sigma, est, step, upper & ~region)
+        sigma = _loss_sigma_kwh(est, level_e, sel, use & ~region & np.isin(column, list(tops))
+                                & np.isfinite(d_all), days, step)
+        low, high = _boundary_band(energy, rel_sigma, sigma, np.where(
+            use & np.isfinite(d_all), est, 0.0), step, upper & ~region)
         hits = [{"az": int(a), "el": int(e), **tested[(a, e)],
                  "bonferroni": bool(tested[(a, e)]["p_value"] < alpha / n_tests),
                  "days": int(len(groups[(a, e)]))} for a, e in sorted(keys)]
