@@ -221,12 +221,12 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         while todo:
             a = todo.pop()
             seen.add(a)
-            top, high_top, p_col = _column_top(column == a, labels, use & clear_all, elev,
-                                               day_pos, noise["false_label_rate"])
+            top, high_top, p_col, end = _column_top(column == a, labels, use & clear_all,
+                                                    elev, day_pos, noise["false_label_rate"])
             if p_col < alpha and top[-1] > 0:
                 region |= (column == a) & (elev > 0) & (elev < top[day_pos])
                 upper |= (column == a) & (elev > 0) & (elev < high_top[day_pos])
-                tops[a] = {"top_deg": float(top[-1]), "p_value": p_col}
+                tops[a] = {"top_deg": end, "p_value": p_col}
                 todo += [b for b in (a - 1, a + 1) if b not in seen and b not in todo]
         if not region.any():
             continue
@@ -322,14 +322,17 @@ def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray, elev: 
 
 
 def _column_top(in_col: np.ndarray, labels: np.ndarray, clear: np.ndarray, elev: np.ndarray,
-                day_pos: np.ndarray, rate: float) -> tuple[np.ndarray, np.ndarray, float]:
+                day_pos: np.ndarray, rate: float
+                ) -> tuple[np.ndarray, np.ndarray, float, float]:
     """The obstruction's top in one azimuth column on each day [deg] (:func:`_fit_top` on
-    every labelled clear interval of the column: the lowest and the highest top that fit
-    them equally well) and the one-sided binomial p-value of its
-    evidence, cross-fitted so the fit cannot select its own noise: the top fitted on the
-    even days is judged on the odd days' intervals under it and vice versa; under no
+    the column's labelled clear intervals), the highest top that fits them as well, the
+    one-sided binomial p-value of the evidence and the top at the end [deg].
+
+    The evidence is cross-fitted so a fit cannot select its own noise: the top fitted on
+    the even days is judged on the odd days' intervals under it and back; under no
     obstruction those are labelled at the column's own rate of labels (at least ``rate``,
-    the false-label rate of the sky outside).
+    the false-label rate of the sky outside). The top at the end is the lower of the two
+    halves' (a label of a single day cannot raise it).
 
     References
     ----------
@@ -337,19 +340,21 @@ def _column_top(in_col: np.ndarray, labels: np.ndarray, clear: np.ndarray, elev:
     memory); the binomial test of a count against a known rate (common practice).
     """
     obs = in_col & clear & (elev > 0)
+    n_days = int(day_pos.max()) + 1
     if not obs.any():
-        return np.zeros(int(day_pos.max()) + 1), np.zeros(int(day_pos.max()) + 1), 1.0
-    top = _fit_top(obs, labels, elev, day_pos)
+        return np.zeros(n_days), np.zeros(n_days), 1.0, 0.0
+    end = np.inf
     k = n = 0
     for half in (0, 1):
-        fit = obs & (day_pos % 2 == half)
-        under = obs & (day_pos % 2 != half) & (elev < _fit_top(fit, labels, elev, day_pos)[
-            day_pos])
+        fit = _fit_top(obs & (day_pos % 2 == half), labels, elev, day_pos)
+        end = min(end, float(fit[-1]))
+        under = obs & (day_pos % 2 != half) & (elev < fit[day_pos])
         k += int(np.sum(labels & under))
         n += int(np.sum(under))
     own = max(rate, float(np.mean(labels[obs])))
     p = float(stats.binom.sf(k - 1, n, own)) if k else 1.0
-    return top, _fit_top(obs, labels, elev, day_pos, highest=True), p
+    return (_fit_top(obs, labels, elev, day_pos),
+            _fit_top(obs, labels, elev, day_pos, highest=True), p, end)
 
 
 def _fit_top(obs: np.ndarray, labels: np.ndarray, elev: np.ndarray, day_pos: np.ndarray,
