@@ -40,9 +40,10 @@ boundary closer).
 The event (one per inverter) gives the azimuth range, the top elevation at the end, the first
 day of the region (the event lasts to the end of the data: the obstruction is still there),
 the energy and a proposed horizon profile. It starts on the first day its loss is material:
-the day from which the region's loss, as a share of the inverter's expected energy of the day
-(median over ``smooth_days`` days centred on it, as one day's estimate carries the day's noise),
-exceeds ``material_share`` (1 %, common practice).
+the first day whose estimated loss exceeds ``material_share`` (1 %, common practice) of the
+inverter's expected energy of the day and is significant against the day's noise (one-sided,
+``alpha``: the estimate's daily relative error on the unshaded intervals of the region's
+columns, scaled MAD, times the region's expected energy that day).
 
 ``min_deficit`` 5 % of the interval's power, common practice; ``alpha`` 0.01.
 
@@ -143,8 +144,8 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
 def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, tuple],
            clearsky_plane: pd.DataFrame,
            az_step: float = 10.0, el_step: float = 5.0, alpha: float = 0.01,
-           min_deficit: float = 0.05, min_days: int = 8, material_share: float = 0.01,
-           smooth_days: int = 15) -> tuple[list[Event], list[Footprint], pd.DataFrame]:
+           min_deficit: float = 0.05, min_days: int = 8, material_share: float = 0.01
+           ) -> tuple[list[Event], list[Footprint], pd.DataFrame]:
     """Shading events, footprints, and the mask of the intervals in the shaded region.
 
     The bins are tested on 10-minute blocks (:func:`coarsen`); the region's boundary and the
@@ -159,6 +160,10 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
     clear = (kt > 0.8) & (kt < 1.2) & w.zenith.lt(88).to_numpy()[:, None]
     wc, uc = coarsen(w, usable, 600.0)
     clear_c = coarsen(w, clear, 600.0)[1]
+    # the top reported at the end takes the labels under a steady clear sky alone (the
+    # neighbours clear too): in the last weeks nothing later can outvote a label from a cloud
+    # edge over the array that missed the irradiance sensor
+    steady = clear & clear.shift(1, fill_value=False) & clear.shift(-1, fill_value=False)
 
     def grid(x: Wide) -> tuple[np.ndarray, np.ndarray]:
         el = 90 - x.zenith.to_numpy()
@@ -210,10 +215,12 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         # one by one while each shows shaded intervals beyond the false-label rate
         use = usable[inv].to_numpy()
         clear_all = clear[inv].to_numpy() & (elev > 2)
+        steady_all = steady[inv].to_numpy()
         e_int = w.expected[inv].to_numpy()
         near = np.isin(column, sorted({a + k for a, _ in keys for k in (-1, 0, 1)}))
         d_out, _ = _interval_deficits(w, inv, use & ~near, days)
-        labels, noise = _shaded_labels(d_out, use & clear_all, ~near, elev, el_step, alpha)
+        labels, noise = _shaded_labels(d_out, use & clear_all, ~near, elev, el_step, alpha,
+                                       min_deficit)
         region = np.zeros(len(w.index), dtype=bool)
         upper = np.zeros(len(w.index), dtype=bool)  # under the highest top as good
         tops: dict[int, dict] = {}
@@ -222,7 +229,8 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
             a = todo.pop()
             seen.add(a)
             top, high_top, p_col, end = _column_top(column == a, labels, use & clear_all,
-                                                    elev, day_pos, noise["false_label_rate"])
+                                                    elev, day_pos, noise["false_label_rate"],
+                                                    steady_all)
             if p_col < alpha and top[-1] > 0:
                 region |= (column == a) & (elev > 0) & (elev < top[day_pos])
                 upper |= (column == a) & (elev > 0) & (elev < high_top[day_pos])
@@ -239,8 +247,10 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         if not energy > 0:  # a region, but no loss: no finding
             continue
         shaded_mask[inv] = sel
-        sigma = _loss_sigma_kwh(est, level_e, sel, use & ~region & np.isin(column, list(tops))
-                                & np.isfinite(d_all), days, step)
+        x = _daily_error(est, level_e, use & ~region & np.isin(column, list(tops))
+                         & np.isfinite(d_all), days, step)
+        e_day = pd.Series(np.where(sel, level_e, 0.0) * step / 3.6e6).groupby(days).sum()
+        sigma = _loss_sigma_kwh(x, e_day.to_numpy())
         low, high = _boundary_band(energy, rel_sigma, sigma, np.where(
             use & np.isfinite(d_all), est, 0.0), step, upper & ~region)
         hits = [{"az": int(a), "el": int(e), **tested[(a, e)],
@@ -250,7 +260,10 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         prof = {a * az_step: t["top_deg"] for a, t in tops.items() if t["top_deg"] > 0}
         proposal = _horizon_proposal(prof, az_step, horizon.get(inv, ()))
         pos = np.flatnonzero(sel)
-        first = _material_start(w, loss, e_int, material_share, smooth_days)
+        # a day's noise: the daily relative error's scale (scaled MAD) on its region
+        scale = 1.4826 * float(np.median(np.abs(x - np.median(x)))) if len(x) else 0.0
+        first = _material_start(w, loss, e_int, material_share,
+                                max(MODEL_FLOOR, scale) * e_day, noise["z"])
         ev = Event(
             kind="shading", scope=scope_of(inv), start=max(first, w.index[pos[0]]),
             end=w.index[-1] + pd.Timedelta(seconds=float(step[-1])),
@@ -295,10 +308,12 @@ def _interval_deficits(w: Wide, inv: str, ref: np.ndarray, days: np.ndarray
 
 
 def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray, elev: np.ndarray,
-                   el_step: float, alpha: float) -> tuple[np.ndarray, dict]:
+                   el_step: float, alpha: float, min_deficit: float
+                   ) -> tuple[np.ndarray, dict]:
     """Clear intervals whose deficit is beyond the clear-sky noise at their sun elevation
-    (one-sided, level ``alpha``): the sun's beam was lost. The noise (median and scaled MAD
-    per ``el_step`` band of elevation) is taken from the clear intervals outside the
+    (one-sided, level ``alpha``) and at least ``min_deficit``: the sun's beam was lost. The
+    noise (median and scaled MAD per ``el_step`` band of elevation) is taken from the clear
+    intervals outside the
     candidate columns (``outside``); a band with few of them takes the nearest band's. The
     share of those intervals labelled (at least ``alpha``) is the false-label rate."""
     z = float(stats.norm.isf(alpha))
@@ -314,7 +329,7 @@ def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray, elev: 
     mid = np.interp(band, centre.index, centre.to_numpy())
     sig = np.interp(band, scale.index, scale.to_numpy())
     with np.errstate(invalid="ignore"):
-        labels = clear & np.isfinite(d) & (d - mid > z * np.maximum(sig, MODEL_FLOOR))
+        labels = clear & np.isfinite(d) & (d - mid > np.maximum(z * sig, min_deficit))
     rate = max(alpha, float(np.mean(labels[ref])))
     return labels, {"z": z, "false_label_rate": rate, "bands": [
         {"elevation_from_deg": float(b * el_step), "median_deficit": float(centre[b]),
@@ -322,7 +337,7 @@ def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray, elev: 
 
 
 def _column_top(in_col: np.ndarray, labels: np.ndarray, clear: np.ndarray, elev: np.ndarray,
-                day_pos: np.ndarray, rate: float
+                day_pos: np.ndarray, rate: float, steady: np.ndarray | None = None
                 ) -> tuple[np.ndarray, np.ndarray, float, float]:
     """The obstruction's top in one azimuth column on each day [deg] (:func:`_fit_top` on
     the column's labelled clear intervals), the highest top that fits them as well, the
@@ -332,7 +347,8 @@ def _column_top(in_col: np.ndarray, labels: np.ndarray, clear: np.ndarray, elev:
     the even days is judged on the odd days' intervals under it and back; under no
     obstruction those are labelled at the column's own rate of labels (at least ``rate``,
     the false-label rate of the sky outside). The top at the end is the lower of the two
-    halves' (a label of a single day cannot raise it).
+    halves' (a label of a single day cannot raise it), fitted to the labels of the
+    ``steady`` intervals alone where given.
 
     References
     ----------
@@ -346,8 +362,10 @@ def _column_top(in_col: np.ndarray, labels: np.ndarray, clear: np.ndarray, elev:
     end = np.inf
     k = n = 0
     for half in (0, 1):
-        fit = _fit_top(obs & (day_pos % 2 == half), labels, elev, day_pos)
-        end = min(end, float(fit[-1]))
+        part = obs & (day_pos % 2 == half)
+        fit = _fit_top(part, labels, elev, day_pos)
+        end = min(end, float(fit[-1] if steady is None else _fit_top(
+            part, labels & steady, elev, day_pos)[-1]))
         under = obs & (day_pos % 2 != half) & (elev < fit[day_pos])
         k += int(np.sum(labels & under))
         n += int(np.sum(under))
@@ -410,22 +428,25 @@ def _unshaded_level(d: np.ndarray, ref: np.ndarray, key: np.ndarray, elev: np.nd
     return np.where(np.isfinite(out), out, fallback)
 
 
-def _loss_sigma_kwh(loss_w: np.ndarray, level_e: np.ndarray, sel: np.ndarray,
-                    ref: np.ndarray, days: np.ndarray, step: np.ndarray) -> float:
-    """Standard error [kWh] of the region's summed loss: the same estimate taken on the
-    unshaded intervals ``ref`` of the region's columns (true value zero) gives the daily
-    relative error; its long-run scale (autocorrelation-aware, :func:`long_run_sigma`, at
-    least ``MODEL_FLOOR``) times the root sum of squares of the region's daily expected
-    energy."""
+def _daily_error(est_w: np.ndarray, level_e: np.ndarray, ref: np.ndarray, days: np.ndarray,
+                 step: np.ndarray) -> np.ndarray:
+    """The loss estimate's daily relative error: the estimate ``est_w`` summed over the
+    unshaded intervals ``ref`` of the region's columns (true value zero) over their
+    expected energy at the day's level, one value per day with such intervals."""
     kwh = step / 3.6e6
-    err = pd.Series(np.where(ref, loss_w * kwh, 0.0)).groupby(days).sum()
+    err = pd.Series(np.where(ref, est_w * kwh, 0.0)).groupby(days).sum()
     base = pd.Series(np.where(ref, level_e * kwh, 0.0)).groupby(days).sum()
-    x = (err / base.where(base > 0)).dropna()
-    sig, _ = long_run_sigma(x.to_numpy())
-    sig = max(MODEL_FLOOR, sig if np.isfinite(sig) else 0.0)
-    e_day = pd.Series(np.where(sel, level_e * kwh, 0.0)).groupby(days).sum().to_numpy()
-    return float(sig * np.sqrt(np.sum(e_day ** 2)))
+    return (err / base.where(base > 0)).dropna().to_numpy()
 
+
+def _loss_sigma_kwh(x: np.ndarray, e_day_kwh: np.ndarray) -> float:
+    """Standard error [kWh] of the region's summed loss: the long-run scale of the daily
+    relative error ``x`` (:func:`_daily_error`; autocorrelation-aware,
+    :func:`long_run_sigma`, at least ``MODEL_FLOOR``) times the root sum of squares of the
+    region's daily expected energy ``e_day_kwh``."""
+    sig, _ = long_run_sigma(x)
+    sig = max(MODEL_FLOOR, sig if np.isfinite(sig) else 0.0)
+    return float(sig * np.sqrt(np.sum(e_day_kwh ** 2)))
 
 
 def _boundary_band(energy: float, rel_sigma: float, sigma_kwh: float, est_w: np.ndarray,
@@ -441,16 +462,17 @@ def _boundary_band(energy: float, rel_sigma: float, sigma_kwh: float, est_w: np.
 
 
 def _material_start(w: Wide, loss: np.ndarray, expected: np.ndarray, share: float,
-                    smooth_days: int) -> pd.Timestamp:
-    """Start (UTC) of the first site-local day whose smoothed loss share of the day's
-    expected energy exceeds ``share`` (the first interval of the data when none does)."""
+                    noise_kwh: pd.Series, z: float) -> pd.Timestamp:
+    """Start (UTC) of the first site-local day whose loss exceeds ``share`` of the day's
+    expected energy and ``z`` times the day's noise (``noise_kwh``, per day: one-sided
+    test of the day's loss); the first interval of the data when none does."""
     days = w.day.to_numpy()
     step = w.interval_s.to_numpy()
-    lost = pd.Series(loss * step).groupby(days).sum()
+    lost = pd.Series(loss * step / 3.6e6).groupby(days).sum()
     exp = pd.Series(np.where(np.isfinite(expected) & (expected > 0), expected, 0.0) * step
-                    ).groupby(days).sum()
-    ratio = (lost / exp.where(exp > 0)).rolling(smooth_days, center=True, min_periods=3).median()
-    over = ratio.index[ratio.to_numpy() > share]
+                    / 3.6e6).groupby(days).sum()
+    over = lost.index[((lost > share * exp) & (lost > z * noise_kwh.reindex(lost.index)))
+                      .to_numpy()]
     if not len(over):
         return w.index[0]
     return pd.Timestamp(over[0]).tz_localize(w.tz).tz_convert("UTC")
