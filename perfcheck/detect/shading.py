@@ -222,7 +222,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         labels, noise = _shaded_labels(d_out, use & clear_all, ~near, elev, el_step, alpha,
                                        min_deficit)
         region = np.zeros(len(w.index), dtype=bool)
-        upper = np.zeros(len(w.index), dtype=bool)  # under the highest top as good
+        highs: dict[int, np.ndarray] = {}  # per column the highest top that fits as well
         tops: dict[int, dict] = {}
         todo, seen = sorted({a for a, _ in keys}), set()
         while todo:
@@ -233,11 +233,18 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                                                     steady_all)
             if p_col < alpha and top[-1] > 0:
                 region |= (column == a) & (elev > 0) & (elev < top[day_pos])
-                upper |= (column == a) & (elev > 0) & (elev < high_top[day_pos])
+                highs[a] = high_top
                 tops[a] = {"top_deg": end, "p_value": p_col}
                 todo += [b for b in (a - 1, a + 1) if b not in seen and b not in todo]
         if not region.any():
             continue
+        # the boundary the data cannot place: under the highest top that fits as well, and
+        # in the columns beside the region (not shown shaded, nor shown free of a part of
+        # the obstruction) under their neighbour's
+        upper = np.zeros(len(w.index), dtype=bool)
+        for a, high_top in highs.items():
+            upper |= np.isin(column, [a - 1, a, a + 1]) & (elev > 0) & (
+                elev < high_top[day_pos])
         d_all, level_e = _interval_deficits(w, inv, use & ~region, days)
         sel = region & np.isfinite(d_all)
         base = _unshaded_level(d_all, use & clear_all & ~region, key_all, elev, el_step)
@@ -252,7 +259,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         e_day = pd.Series(np.where(sel, level_e, 0.0) * step / 3.6e6).groupby(days).sum()
         sigma = _loss_sigma_kwh(x, e_day.to_numpy())
         low, high = _boundary_band(energy, rel_sigma, sigma, np.where(
-            use & np.isfinite(d_all), est, 0.0), step, upper & ~region)
+            use & np.isfinite(d_all), est, 0.0), step, upper & ~region, column)
         hits = [{"az": int(a), "el": int(e), **tested[(a, e)],
                  "bonferroni": bool(tested[(a, e)]["p_value"] < alpha / n_tests),
                  "days": int(len(groups[(a, e)]))} for a, e in sorted(keys)]
@@ -450,14 +457,16 @@ def _loss_sigma_kwh(x: np.ndarray, e_day_kwh: np.ndarray) -> float:
 
 
 def _boundary_band(energy: float, rel_sigma: float, sigma_kwh: float, est_w: np.ndarray,
-                   step: np.ndarray, above: np.ndarray) -> tuple[float, float]:
+                   step: np.ndarray, above: np.ndarray, column: np.ndarray
+                   ) -> tuple[float, float]:
     """95 % band of the region's loss [kWh]: the model's relative error (``rel_sigma``: the
     expected power of a shaded module is the model's too) and the noise (``sigma_kwh``),
     normal, and upwards the loss estimated (``est_w``) on the intervals ``above`` the
-    lowest boundary that the highest boundary fitting the data as well takes too (the data
-    cannot tell them apart), added in quadrature."""
+    region that the data cannot tell from it (summed per azimuth ``column``, where
+    positive), added in quadrature."""
     low, high = energy_band(energy, rel_sigma, sigma_kwh)
-    up = max(0.0, float(np.sum(np.where(above, est_w, 0.0) * step / 3.6e6)))
+    per_column = pd.Series(np.where(above, est_w, 0.0) * step / 3.6e6).groupby(column).sum()
+    up = float(per_column.clip(lower=0.0).sum())
     return low, energy + float(np.hypot(high - energy, up))
 
 
