@@ -1,4 +1,4 @@
-"""Pure pieces of the sensor, soiling, degradation, partial-outage and shading detectors
+"""Pure pieces of the sensor, soiling, degradation and partial-outage detectors
 against invented truths."""
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from perfcheck.detect import degradation, partial, sensor, shading, soiling
+from perfcheck.detect import degradation, partial, sensor, soiling
 from perfcheck.detect.common import Segment, change_points
 
 DAYS = pd.date_range("2024-01-01", periods=240, freq="D")
@@ -146,29 +146,3 @@ def test_partial_string_changes_stay_apart():
     assert partial.merge_within(x, segs, segs[0], 0.1) == segs
     near = [Segment(0, 10, 0.0), Segment(10, 20, -0.01)]
     assert partial.merge_within(x, near, near[0], 0.1) == near
-
-
-def test_shading_control_is_the_other_side_at_the_same_elevation():
-    # invented truth: 36 azimuth bins of 10 deg; elevation band 1 seen in the morning (bin 9)
-    # and afternoon (bin 26) every day, plus a neighbour of bin 9 (bin 10, excluded as the
-    # same side); a seasonal model error e(day) common to the band: the control of bin 9 on
-    # a day is the median of bin 26 within 15 days, none for a lone band
-    days = np.arange(0, 200, 5)
-    err = 0.002 * days  # the model's error at this elevation, growing with the season
-    rows = [(9, 1, d, e + 0.3) for d, e in zip(days, err, strict=True)]  # shaded side grows
-    rows += [(10, 1, d, 5.0) for d in days]
-    rows += [(26, 1, d, e) for d, e in zip(days, err, strict=True)]
-    rows += [(18, 9, 0, 0.1)]
-    daily = pd.DataFrame(rows, columns=["az", "el", "dayno", "d"])
-    c = shading.same_elevation_control(daily, 36)
-    nine = (daily["az"] == 9).to_numpy()
-    want = [np.median(err[np.abs(days - d) <= 15]) for d in days]
-    np.testing.assert_allclose(c[nine], want)
-    assert np.isnan(c[-1])
-    # a bin at a steady 0.3 above the band's seasonal error: without the control the error
-    # passes for growth (0.002/day, 0.73/yr), less the control it is flat
-    g = daily[nine].assign(t=daily["dayno"][nine] / 365.25, c=c[nine])
-    g = g.assign(d=g["c"] + 0.3)
-    assert shading._bin_test(g.drop(columns="c"))["growth_per_year"] == pytest.approx(
-        0.73, abs=0.05)
-    assert shading._bin_test(g)["growth_per_year"] == pytest.approx(0.0, abs=1e-9)

@@ -200,7 +200,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w_fixed = dataclasses.replace(w, measured=meas_fixed)
     horizon = {i.id: i.arrays[0].horizon for i in site.inverters}
     ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded, rel_sigma, horizon,
-                                    alpha=st.alpha, min_deficit=st.shading_min_deficit)
+                                    cs[w.inverters], alpha=st.alpha,
+                                    min_deficit=st.shading_min_deficit)
     events += ev
     prints += fp
     t = lap("shading", t)
