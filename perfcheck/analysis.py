@@ -141,6 +141,13 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
     now = current(con)
     if now is not None and now.input_hash == key:
         return now
+    with db.memory_limit(con, db.ANALYSIS_MEMORY_LIMIT):
+        return _make(con, site, spec, key, now, progress)
+
+
+def _make(con: duckdb.DuckDBPyConnection, site: Site, spec: dict[str, Any], key: str,
+          now: Stored | None, progress: Callable[[str], None] | None) -> Stored:
+    """A new analysis of the inputs ``spec`` (hash ``key``), stored and made current."""
     settings = metrics.load_settings(site)
     # the whole history's rows go to the detectors without a name here, so that they are
     # released once the detectors have their own series (the peak of memory is theirs)
@@ -264,7 +271,7 @@ def _store_ledger(con: duckdb.DuckDBPyConnection, analysis_id: int, led: Ledger,
         "interval_s": led.interval_s[rows], "measured_wh": meas[rows, cols],
         "expected_wh": exp[rows, cols], "unexplained_wh": une[rows, cols],
         "poa_wm2": led.poa[rows, cols], "delivered_wh": deliv[rows, cols],
-        "delivered_shaped": shaped[rows]}))
+        "delivered_shaped": shaped[rows]}, copy=False))  # columns not joined into a copy
     seq = {id(e): i for i, e in enumerate(events)}
     parts = [pd.DataFrame({"event_id": seq[id(en.event)], "ts": led.index[en.rows],
                            "inverter_id": inv[en.cols],

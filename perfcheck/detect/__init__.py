@@ -163,6 +163,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=heat)
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
+    del w0, w1  # the series before the repairs
     t = lap("sensor", t)
     sky = tracker.sky(w) if tracker.tracker_arrays(site) else None
     w, stowed, design_stow = tracker.stow(w, site, wind, sky, st.alpha)
