@@ -148,6 +148,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
+    heat, wind = _module_heat(df, site, w0), _site_series(df, "wind_speed_ms", w0)
+    del df  # the caller's rows are the one copy left (analysis.update keeps none)
     planes = _planes(site, w0)
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
     clear = clear_days(w0, cs[w0.inverters])
@@ -158,13 +160,13 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w1 = clock.corrected(w0, shifts, lg)
     events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
     t = lap("clock", t)
-    suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=_module_heat(df, site, w1))
+    suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=heat)
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
+    del w0, w1  # the series before the repairs
     t = lap("sensor", t)
     sky = tracker.sky(w) if tracker.tracker_arrays(site) else None
-    w, stowed, design_stow = tracker.stow(w, site, _site_series(df, "wind_speed_ms", w), sky,
-                                          st.alpha)
+    w, stowed, design_stow = tracker.stow(w, site, wind, sky, st.alpha)
     events += stowed
 
     valid = daylight(w) & ~w.flagged & w.expected.notna()
