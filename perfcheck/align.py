@@ -16,6 +16,7 @@ the readings behind each row come from the ``flags`` table through the ``aligned
 from __future__ import annotations
 
 import duckdb
+import numpy as np
 import pandas as pd
 
 from perfcheck import db, ingest
@@ -33,6 +34,11 @@ ALIGNED_COLUMNS = (
 # reset or a replaced meter, not energy (physical bound with margin; common practice).
 REGISTER_MAX_RATING_MULTIPLE = 1.5
 CHUNK_DAYS = 31  # intervals are processed a month at a time, which bounds the memory used
+# load_aligned fetches the rows in pieces of this many DuckDB vectors (2,048 rows each) and keeps
+# one string object per distinct value of its text columns: a site-year of 1-minute rows holds
+# three text columns of about 30 MB each as separate strings, 4 MB each as shared ones.
+LOAD_VECTORS = 16
+TEXT_COLUMNS = ("inverter_id", "poa_source", "flags")
 
 
 def register_power(register_wh: pd.Series, register_ts: pd.Series, interval_s: float,
@@ -208,12 +214,42 @@ def load_aligned(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
         raise DataError(f"{site.path}: no expected series yet (run 'perfcheck model' first)")
     lo = pd.Timestamp("1900-01-01", tz="UTC") if start is None else _utc(start, "start")
     hi = pd.Timestamp("2200-01-01", tz="UTC") if end is None else _utc(end, "end")
-    df = con.execute(db.sql("align_load"), {"start": lo, "end": hi}).df()
+    df = fetch_shared(con.execute(db.sql("align_load"), {"start": lo, "end": hi}))
     df["ts"] = pd.to_datetime(df["ts"], utc=True)
     for c in ("measured_ac_w", "expected_ac_w", "potential_ac_w", "expected_dc_w",
               "expected_ac_modelled_w", "potential_ac_modelled_w"):
         df[c] = df[c].astype(float)
+    if not _in_order(df["ts"].to_numpy(), df["inverter_id"].to_numpy()):
+        df = df.sort_values(["ts", "inverter_id"], ignore_index=True)
     return df[list(ALIGNED_COLUMNS)]
+
+
+def fetch_shared(result: duckdb.DuckDBPyConnection,
+                 text_columns: tuple[str, ...] = TEXT_COLUMNS) -> pd.DataFrame:
+    """The rows of a DuckDB result as ``.df()`` gives them, fetched in pieces, with one string
+    object per distinct value of ``text_columns`` (``.df()`` makes one per row)."""
+    pieces, text, text_dtypes, pool = [], {c: [] for c in text_columns}, {}, {}
+    while len(piece := result.fetch_df_chunk(LOAD_VECTORS)):
+        for c in text_columns:
+            if piece[c].dtype != object or c not in text_dtypes:  # NULLs alone come as objects
+                text_dtypes[c] = piece[c].dtype
+            codes, values = pd.factorize(piece[c].to_numpy(dtype=object))
+            shared = np.array([pool.setdefault(v, v) for v in values] + [None], dtype=object)
+            text[c].append(shared[codes])  # code -1 (NULL) takes the last: None
+        pieces.append(piece.drop(columns=list(text_columns)))
+    if pieces:
+        df = pd.concat(pieces, ignore_index=True)
+        for c in text_columns:
+            df[c] = pd.Series(np.concatenate(text[c]), dtype=text_dtypes[c])
+    return df[list(piece.columns)] if pieces else piece
+
+
+def _in_order(ts: np.ndarray, inverter_id: np.ndarray) -> bool:
+    """True when the rows are ordered by time, then inverter (as DuckDB reads them back when
+    they were stored in that order: the sort is then skipped)."""
+    same = ts[1:] == ts[:-1]
+    return bool((ts[1:] >= ts[:-1]).all()
+                and (inverter_id[1:][same] > inverter_id[:-1][same]).all())
 
 
 def _utc(t: pd.Timestamp, name: str) -> pd.Timestamp:

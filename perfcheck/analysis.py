@@ -120,6 +120,15 @@ def tracker_angle(con: duckdb.DuckDBPyConnection) -> pd.Series | None:
     return pd.Series(df["value"].to_numpy(dtype=float), index=index).groupby(level=0).mean()
 
 
+def _measured_rows(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
+    """The aligned rows of the whole history; DataError when none has a measured power."""
+    df = align.load_aligned(con, site)
+    if df.empty or df["measured_ac_w"].notna().sum() == 0:
+        raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
+                        "files with AC power and run 'perfcheck model' first")
+    return df
+
+
 def update(con: duckdb.DuckDBPyConnection, site: Site,
            progress: Callable[[str], None] | None = None) -> Stored:
     """Analyse the whole history unless an analysis of the same inputs is stored; return it.
@@ -132,21 +141,28 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
     now = current(con)
     if now is not None and now.input_hash == key:
         return now
-    df = align.load_aligned(con, site)
-    if df.empty or df["measured_ac_w"].notna().sum() == 0:
-        raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
-                        "files with AC power and run 'perfcheck model' first")
+    with db.memory_limit(con, db.ANALYSIS_MEMORY_LIMIT):
+        return _make(con, site, spec, key, now, progress)
+
+
+def _make(con: duckdb.DuckDBPyConnection, site: Site, spec: dict[str, Any], key: str,
+          now: Stored | None, progress: Callable[[str], None] | None) -> Stored:
+    """A new analysis of the inputs ``spec`` (hash ``key``), stored and made current."""
     settings = metrics.load_settings(site)
-    found = detect.analyse(df, site, reported=status.reported(con, site),
+    # the whole history's rows go to the detectors without a name here, so that they are
+    # released once the detectors have their own series (the peak of memory is theirs)
+    found = detect.analyse(_measured_rows(con, site), site, reported=status.reported(con, site),
                            angle=tracker_angle(con))
     if progress:
         progress("detectors")
     ledger: Ledger = found["ledger"]
-    first = pd.Timestamp(df["ts"].min())
-    end = pd.Timestamp(df["ts"].max()) + pd.Timedelta(seconds=float(df["interval_s"].iloc[-1]))
-    del df  # the whole history's rows: released before the storing queries need memory
-    start_day, end_day = _whole_days(site, first, end)
     events = _restate(found["events"], ledger)
+    model_json = json.dumps(_jsonable(found["model"]), sort_keys=True)
+    degradation_json = json.dumps(_jsonable(found["degradation"]), sort_keys=True)
+    del found  # the detectors' series: released before the storing queries need memory
+    first = pd.Timestamp(ledger.index[0])  # one interval length per site (align.refresh)
+    end = pd.Timestamp(ledger.index[-1]) + pd.Timedelta(seconds=float(ledger.interval_s[-1]))
+    start_day, end_day = _whole_days(site, first, end)
     t_typ = metrics.typical_cell_temperature(con, site, end_day, settings)
     at = meter.load_settings(site)
     delivered = meter.delivered(con, site, ledger.index, ledger.interval_s, ledger.measured_w,
@@ -162,8 +178,7 @@ def update(con: duckdb.DuckDBPyConnection, site: Site,
             "id": new_id, "hash": key, "inputs": json.dumps(record, sort_keys=True),
             "created_at": dt.datetime.now(dt.UTC), "first_ts": start_day, "end_ts": end_day,
             "settings": json.dumps(dataclasses.asdict(settings), sort_keys=True, default=str),
-            "model": json.dumps(_jsonable(found["model"]), sort_keys=True),
-            "degradation": json.dumps(_jsonable(found["degradation"]), sort_keys=True)})
+            "model": model_json, "degradation": degradation_json})
         _store_events(con, new_id, events, site)
         _store_ledger(con, new_id, ledger, events, delivered)
         windows = metrics.event_windows([{"kind": e.kind, "scope": e.scope, "start": e.start,
@@ -256,7 +271,7 @@ def _store_ledger(con: duckdb.DuckDBPyConnection, analysis_id: int, led: Ledger,
         "interval_s": led.interval_s[rows], "measured_wh": meas[rows, cols],
         "expected_wh": exp[rows, cols], "unexplained_wh": une[rows, cols],
         "poa_wm2": led.poa[rows, cols], "delivered_wh": deliv[rows, cols],
-        "delivered_shaped": shaped[rows]}))
+        "delivered_shaped": shaped[rows]}, copy=False))  # columns not joined into a copy
     seq = {id(e): i for i, e in enumerate(events)}
     parts = [pd.DataFrame({"event_id": seq[id(en.event)], "ts": led.index[en.rows],
                            "inverter_id": inv[en.cols],

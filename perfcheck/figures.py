@@ -222,6 +222,11 @@ def _axis_break(ax, n_bars: int) -> None:
     ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
 
 
+# a soiling recovery's cause: line colour and legend words (no rain readings: unknown)
+RECOVERY = {"rain": ("#3d5a80", "after rain"), "cleaning": (LOSS, "after cleaning"),
+            "unknown": (INK, "of unknown cause (no rain readings)")}
+
+
 def fig_soiling(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
     """Daily performance index (measured/expected) with rain and the recoveries found."""
     fig, (ax,) = _figure()
@@ -247,13 +252,14 @@ def fig_soiling(aligned: pd.DataFrame, tz: str, events: list[dict]) -> Figure:
         ax.axvspan(s, e, color=kinds.colour("soiling"), alpha=0.12,
                    label=None if "band" in shown else "soiling found")
         shown.add("band")
-        for rec in ev.get("recoveries", []):  # {"at": local date, "cause": rain|cleaning}
+        for rec in ev.get("recoveries", []):  # {"at": local date, "cause": RECOVERY key}
             t = pd.Timestamp(rec["at"])
             if not first <= t <= last:  # a recovery outside the period is not drawn
                 continue
-            cause = "cleaning" if rec.get("cause") == "cleaning" else "rain"
-            ax.axvline(t, color=LOSS if cause == "cleaning" else "#3d5a80", lw=1.2, ls="--",
-                       label=None if cause in shown else f"recovery after {cause}")
+            cause = rec.get("cause") if rec.get("cause") in RECOVERY else "rain"
+            colour, words = RECOVERY[cause]
+            ax.axvline(t, color=colour, lw=1.2, ls="--",
+                       label=None if cause in shown else f"recovery {words}")
             shown.add(cause)
     ax.set_ylabel("measured / expected [-]", fontsize=8)
     rain = d["rain_mm"]
@@ -464,7 +470,8 @@ FIGURES: list[tuple[str, str, Callable]] = [
      "that small losses show.",
      lambda a, r, tz: fig_loss_attribution(r.get("losses", {}))),
     ("soiling", "Daily measured/expected index with rain (bars), the soiling the detector found "
-     "(shaded band) and its recoveries (dashed: blue after rain, red after a cleaning).",
+     "(shaded band) and its recoveries (dashed: blue after rain, red after a cleaning, dark "
+     "where no rain readings tell the cause).",
      lambda a, r, tz: fig_soiling(a, tz, r.get("events", []))),
     ("shading_map", "Median relative loss on clear-sky intervals by sun azimuth and elevation, "
      "in up to four time slices of at least 30 days (one map for a shorter period): a patch "

@@ -51,7 +51,8 @@ METHODS: list[tuple[str, str]] = [
      "on a reference window; CUSUM (Page 1954) on the AR(1) innovations of the daily "
      "residuals, scaled by their long-run variance"),
     ("Soiling", "Deceglie, Micheli & Muller 2018, IEEE J. Photovolt. 8(2):547 (stochastic rate "
-     "and recovery, in its spirit)"),
+     "and recovery, in its spirit); washes too small to find one by one placed as ramps at the "
+     "episode's rate (Kimber et al. 2006) by the Schwarz criterion (Schwarz 1978)"),
     ("Degradation", "year-on-year method, Jordan et al. 2018, IEEE J. Photovolt. 8(2):525; "
      "interval: bootstrap of calendar-month blocks of pairs (Carlstein 1986) plus the irradiance "
      "sensor's stability, in quadrature (GUM)"),

@@ -1,4 +1,5 @@
-"""Pure pieces of the sensor, soiling and degradation detectors against invented truths."""
+"""Pure pieces of the sensor, soiling, degradation and partial-outage detectors
+against invented truths."""
 
 from __future__ import annotations
 
@@ -8,7 +9,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from perfcheck.detect import degradation, sensor, soiling
+from perfcheck.detect import degradation, partial, sensor, soiling
+from perfcheck.detect.common import Segment, change_points
 
 DAYS = pd.date_range("2024-01-01", periods=240, freq="D")
 
@@ -73,3 +75,74 @@ def test_ageing_removed_flattens_a_year_on_year_trend():
     assert np.median(pairs) == pytest.approx(-1.0, abs=0.01)  # 365 vs 365.25 days
     flat = degradation.ageing_removed(plant.to_frame("inv1"), plant)
     np.testing.assert_allclose(flat["inv1"].to_numpy(), 1.0, atol=2e-4)
+
+
+def test_sawtooth_extent_places_the_washes_beside_an_episode():
+    # invented truth (the rain-reset model of Kimber et al. 2006): after a found episode, the
+    # soiling goes on at 0.4 %/day, washed at days 20 and 45, cleaned at day 60, clean after;
+    # noise 1 %, penalty the Schwarz criterion (variance times ln n). The washes are placed
+    # within a day (common practice: the daily index cannot place them closer)
+    rng = np.random.default_rng(1)
+    n = 90
+    t = np.arange(n) + 0.5
+    age = np.zeros(n)
+    for a, b in ((0, 20), (20, 45), (45, 60)):
+        age[a:b] = t[a:b] - a
+    y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
+    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n), forward=True)
+    assert len(cut) == 4
+    np.testing.assert_allclose(cut, [0, 20, 45, 60], atol=1)
+    # before an episode: clean until day 15, washed at 40, the episode's own wash at the end
+    age = np.zeros(n)
+    for a, b in ((15, 40), (40, 90)):
+        age[a:b] = t[a:b] - a
+    y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
+    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n), forward=False)
+    np.testing.assert_allclose(cut, [15, 40, 90], atol=1)
+    # no soiling beside it: no ramp, either way
+    for forward in (True, False):
+        y = rng.normal(1, 0.01, n)
+        assert soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n),
+                                       forward) == []
+
+
+def test_recovery_cause_unknown_without_rain_readings():
+    # a step up of 10 % on a quiet index: with no rain readings its cause is unknown, with
+    # readings and no rain it is a cleaning (invented truth; alpha 1e-3)
+    days = pd.date_range("2024-01-01", periods=40, freq="D")
+    rng = np.random.default_rng(2)
+    index = pd.Series(np.r_[np.full(20, 0.9), np.full(20, 1.0)]
+                      * np.exp(rng.normal(0, 0.003, 40)), index=days)
+    for rain, cause in ((np.nan, "unknown"), (0.0, "cleaning")):
+        rec = soiling.recoveries(index, pd.Series(rain, index=days), 5.0, 1e-3)
+        assert [r["cause"] for r in rec] == [cause]
+        assert rec[0]["day"] == days[20]
+
+
+def test_partial_pieces_of_one_lost_string_are_joined():
+    # invented truth: a 5-string inverter at its usual level (log 0) for 60 days, then one
+    # string lost (share 0.2) for 30 days while a shade waxes 0 -> 3 % over them, then back;
+    # days' noise 0.2 %. The segmentation cuts the drifting stretch (its t test takes days
+    # as independent); joined below half a string's share (0.1) it is one segment of the 30
+    # days, and its edges are steps of about 0.2 (partial._edge_steps)
+    rng = np.random.default_rng(7)
+    drift = np.log(0.8) + np.log(1 - np.linspace(0.0, 0.03, 30))
+    x = np.r_[np.zeros(60), drift, np.zeros(60)] + rng.normal(0, 0.002, 150)
+    segs = change_points(x, alpha=1e-3, min_size=3)
+    ref = max(segs, key=lambda g: g.stop - g.start)
+    low = [g for g in partial.merge_within(x, segs, ref, 0.5 / 5) if g.mean < -0.1]
+    assert len([g for g in segs if g.mean < -0.1]) > 1  # the cut this guards against
+    assert [(g.start, g.stop) for g in low] == [(60, 90)]
+    assert min(partial._edge_steps(x, 60, 90, 3)) > 0.5 * 0.2
+
+
+def test_partial_string_changes_stay_apart():
+    # invented truth: two strings lost of 5 (log 0.6), then one found again (log 0.8): the
+    # levels differ by a string's share, so the two segments stay apart; the reference is
+    # never joined
+    x = np.r_[np.zeros(10), np.full(10, np.log(0.6)), np.full(10, np.log(0.8))]
+    segs = [Segment(0, 10, 0.0), Segment(10, 20, float(np.log(0.6))),
+            Segment(20, 30, float(np.log(0.8)))]
+    assert partial.merge_within(x, segs, segs[0], 0.1) == segs
+    near = [Segment(0, 10, 0.0), Segment(10, 20, -0.01)]
+    assert partial.merge_within(x, near, near[0], 0.1) == near

@@ -106,7 +106,7 @@ def test_default_decomposition_against_typical_year_components(key):
     trk = pvlib.tracking.singleaxis(sp["apparent_zenith"], sp["azimuth"], 0, 180, 60, True, 0.35)
     for tilt, azimuth in [(25.0, 180.0), (trk["surface_tilt"].fillna(0.0),
                                           trk["surface_azimuth"].fillna(90.0))]:
-        def monthly(dni, dhi):
+        def monthly(dni, dhi, tilt=tilt, azimuth=azimuth):
             poa = pvlib.irradiance.get_total_irradiance(
                 tilt, azimuth, sp["apparent_zenith"], sp["azimuth"], dni, ghi, dhi,
                 dni_extra=dni_extra, airmass=airmass, model="perez", albedo=0.2)

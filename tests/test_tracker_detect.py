@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pvlib
 import pytest
 from detect_synth import TRACKER, make_aligned, make_site
 
@@ -188,3 +189,34 @@ def test_channel_showing_the_rows_tracking_overrides_the_power_shape() -> None:
     theta = tracker.designed_rotation(w, site.inverters[0].arrays[0])
     found = detect.analyse(df, site, angle=pd.Series(theta, index=w.index))["events"]
     assert not [e for e in found if e.kind.startswith("tracker_") and e.scope == "inverter:INV1"]
+
+
+def test_bifacial_rows_add_the_rear_at_the_bifaciality() -> None:
+    # reference library: pvlib's infinite-sheds rear irradiance (Mikofski et al. 2019, IEEE
+    # 46th PVSC) of the held rows turned over, counted at the bifaciality less the structure's
+    # 2 % (pvlib's default shade factor, common practice); rows held 45 deg to the east at 4 pm
+    # with the sun in the south-west take far more light than their front alone
+    bifacial = {**TRACKER, "bifaciality": 0.7, "row_height_m": 1.5, "row_pitch_m": 5.7}
+    mono = make_site(1, tracker=TRACKER).inverters[0].arrays[0]
+    array = make_site(1, tracker=bifacial).inverters[0].arrays[0]
+    zen, az = np.array([70.0, 40.0]), np.array([245.0, 180.0])
+    dni, dhi = np.array([600.0, 850.0]), np.array([120.0, 110.0])
+    ghi = dni * np.cos(np.radians(zen)) + dhi
+    s = tracker.Sky(zen, az, ghi, dni, dhi, np.full(2, 1361.0))
+    rear = pvlib.bifacial.infinite_sheds.get_irradiance_poa(
+        180.0 - 45.0, 270.0, zen, az, array.gcr, 1.5, 5.7, ghi, dhi, dni, array.albedo,
+        model="isotropic")["poa_global"]
+    added = tracker.plane_poa(-45.0, array, s) - tracker.plane_poa(-45.0, mono, s)
+    np.testing.assert_allclose(added, 0.7 * 0.98 * np.asarray(rear), rtol=1e-9)
+    assert added[0] > 0.3 * tracker.plane_poa(-45.0, mono, s)[0]
+
+
+def test_a_day_most_inverters_show_a_shape_on_is_shared() -> None:
+    # common practice: rows out of step or stalled are one inverter's, unlike its neighbours';
+    # a day on which two of three inverters show a significant shape (any candidate, even one
+    # too small to report) is the sky's or the model's
+    d1, d2 = np.datetime64("2024-05-03"), np.datetime64("2024-05-04")
+    seeds = {"A": {d1: ("stall", 0.0), d2: ("stall", 10.0)}, "B": {}, "C": {}}
+    shaped = {"A": np.array([d1, d2]), "B": np.array([d1]), "C": np.array([], dtype=d1.dtype)}
+    tracker._drop_shared(seeds, shaped)
+    assert seeds["A"] == {d2: ("stall", 10.0)}

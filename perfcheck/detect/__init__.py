@@ -148,6 +148,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
+    heat, wind = _module_heat(df, site, w0), _site_series(df, "wind_speed_ms", w0)
+    del df  # the caller's rows are the one copy left (analysis.update keeps none)
     planes = _planes(site, w0)
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
     clear = clear_days(w0, cs[w0.inverters])
@@ -158,13 +160,13 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w1 = clock.corrected(w0, shifts, lg)
     events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
     t = lap("clock", t)
-    suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=_module_heat(df, site, w1))
+    suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=heat)
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
+    del w0, w1  # the series before the repairs
     t = lap("sensor", t)
     sky = tracker.sky(w) if tracker.tracker_arrays(site) else None
-    w, stowed, design_stow = tracker.stow(w, site, _site_series(df, "wind_speed_ms", w), sky,
-                                          st.alpha)
+    w, stowed, design_stow = tracker.stow(w, site, wind, sky, st.alpha)
     events += stowed
 
     valid = daylight(w) & ~w.flagged & w.expected.notna()
@@ -187,11 +189,12 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     usable = valid & ~excluded & unclipped & w.expected.ge(w.ac_w * 0.2, axis=1)
     ev, prints = tracker.detect(w, site, usable, rel_sigma, st.alpha, angle, sky)
     events += ev
-    for fp in prints:  # the rows of a stall are no partial outage's
-        usable.iloc[fp.lo:fp.hi, usable.columns.get_indexer(fp.cols)] = False
     t = lap("tracker", t)
     strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
-    ev, fp = partial.detect(w, usable, strings, alpha=st.alpha)
+    # lost strings are judged on the power with the rows' share put back: during a stall they
+    # are a level on top of its shape (the ledger takes the shares in this order)
+    w_rows = dataclasses.replace(w, measured=_undo(w, prints))
+    ev, fp = partial.detect(w_rows, usable, strings, alpha=st.alpha)
     events += ev
     prints += fp
     t = lap("partial", t)
@@ -199,7 +202,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w_fixed = dataclasses.replace(w, measured=meas_fixed)
     horizon = {i.id: i.arrays[0].horizon for i in site.inverters}
     ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded, rel_sigma, horizon,
-                                    alpha=st.alpha, min_deficit=st.shading_min_deficit)
+                                    cs[w.inverters], alpha=st.alpha,
+                                    min_deficit=st.shading_min_deficit)
     events += ev
     prints += fp
     t = lap("shading", t)

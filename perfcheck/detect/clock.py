@@ -335,7 +335,7 @@ def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
         return w
     names = ("measured", "expected", "potential", "poa", "temp_cell", "expected_modelled",
              "potential_modelled", "poa_modelled")
-    new = {k: getattr(w, k).copy() for k in names}
+    new = {k: getattr(w, k).copy(deep=False) for k in names}  # copied when written
     step = float(np.median(w.interval_s))
     for s in shifts:
         n = int(round(s.offset_min * 60 / step))

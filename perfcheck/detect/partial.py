@@ -7,7 +7,9 @@ inverter, its own measured/expected. The median over the day keeps the value rob
 that touches only part of the day; dividing by the siblings removes what all arrays share
 (weather-model error, soiling, degradation). Changes of the mean of the log daily value are
 located by binary segmentation with a significance test at each split
-(:func:`perfcheck.detect.common.change_points`); a segment whose level is below the reference
+(:func:`perfcheck.detect.common.change_points`), and neighbouring segments below the reference
+level that differ by less than half a string's share are joined (:func:`merge_within`: no
+string changed between them); a segment whose level is below the reference
 level (the longest segment) by a Welch t-test p-value below ``alpha`` and by at least half a
 string's share of the DC power is a partial outage, when two physical checks hold: every edge
 of the segment inside the data is a step (the median of the ``min_days`` days on either side
@@ -35,6 +37,7 @@ import pandas as pd
 from perfcheck.detect.common import (
     Event,
     Footprint,
+    Segment,
     Wide,
     change_points,
     coarsen,
@@ -105,7 +108,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
         xr = x[ref.start:ref.stop]
         own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
         n_str = max(1, strings.get(inv, 1))
-        for g in segs:
+        for g in merge_within(x, segs, ref, 0.5 / n_str):
             if g is ref or g.mean >= ref.mean:
                 continue
             xs = x[g.start:g.stop]
@@ -165,6 +168,28 @@ def _mean_var(x: np.ndarray) -> float:
     lr, _ = long_run_sigma(x)
     v = float(np.var(x, ddof=1))
     return max(v, lr * lr if math.isfinite(lr) else v) / len(x)
+
+
+def merge_within(x: np.ndarray, segs: list[Segment], ref: Segment, step: float
+                 ) -> list[Segment]:
+    """Neighbouring segments below ``ref`` whose levels differ by less than ``step`` (a share
+    of the power; half a string's) joined into one, its mean over the joined values.
+
+    The segmentation's t test takes days as independent, so a slow drift of the ratio inside
+    one fault (a shade that grows or wanes over the weeks of a lost string) splits it at
+    shifts far smaller than a string; the pieces' inner edges are then no steps and each
+    would fail the edge check. A change smaller than half a string's share is no change of
+    the number of strings lost, so the pieces are one fault (``ref`` itself is never joined).
+    """
+    out: list[Segment] = []
+    for g in segs:
+        prev = out[-1] if out else None
+        if (prev is not None and prev is not ref and g is not ref and prev.mean < ref.mean
+                and g.mean < ref.mean and abs(1 - math.exp(g.mean - prev.mean)) < step):
+            out[-1] = Segment(prev.start, g.stop, float(np.mean(x[prev.start:g.stop])))
+        else:
+            out.append(g)
+    return out
 
 
 def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Timestamp,

@@ -1,31 +1,49 @@
 """Shading growth: beam losses in a region of the sky that grow over the months (a tree, a new
 building).
 
-Per inverter, clear-sky intervals (GHI within ±20 % of the clear-sky GHI) are binned by sun
-azimuth (``az_step`` degrees) and elevation (``el_step`` degrees). The deficit of an interval is
+Per inverter, clear-sky intervals (GHI within ±20 % of the clear-sky GHI; without a GHI
+channel the plane irradiance within ±20 % of its clear-sky value) are binned by sun azimuth
+(``az_step`` degrees) and elevation (``el_step`` degrees). The deficit of an interval is
 1 - (measured/expected) / (the day's median of measured/expected), so what the whole day
-shares (soiling, degradation, a lost string, model bias of the day) cancels. Per bin, growth is
-tested on the daily mean deficits: with more than a year of data, year-on-year pairs (the same
-sun position a year later; the model's own shape errors at that sun position repeat and cancel)
-with a one-sided t test; with less, the trend over time (statsmodels OLS; standard errors
-clustered by month where the bin's days span four months or more, HC3 otherwise).
-A bin whose one-sided p-value is below ``alpha`` divided by the number of bins tested
-(Bonferroni) and whose growth is at least ``min_deficit`` per year is shaded by a growing
-obstruction; its neighbouring bins join the region at the plain level ``alpha`` (an
-obstruction is one connected piece), and so do the bins below it down to the horizon (an
-obstruction stands on the ground). In each such bin a change-point search on its deficits
-gives the unshaded level (the first segment) and the day the shade arrived (the first segment
-above it by ``min_deficit``). The shaded bins of one inverter make one event (bins of one
-obstruction need not touch: between two shaded bins a bin with few clear days is not
-significant, and a region apart would start the finding at its own small loss): the
-azimuth range, the top elevation, the first arrival (the event lasts to the end of the data:
-the obstruction is still there), the energy (each interval's deficit above its bin's unshaded
-level, since the arrival, against the day's ratio outside the shaded bins) and a proposed
-horizon profile. The event starts on the first day its loss is material: the day from which
-the loss estimated for the region, as a share of the inverter's expected energy of the day
-(median over ``smooth_days`` days centred on it, as one day's estimate carries the day's noise),
-exceeds ``material_share`` (1 %, common practice); the bins' arrival times are kept in the
-evidence (the shade is there, small, from the first of them).
+shares (soiling, degradation, a lost string, model bias of the day) cancels.
+
+Detection. Per bin, growth is tested on the daily mean deficits: with more than a year of
+data, year-on-year pairs (the same sun path a year later; the model's own shape errors there
+repeat and cancel) with a one-sided t test; with less, the trend over time given the day's
+mean sun position in the bin (statsmodels OLS; standard errors clustered by month where the
+bin's days span four months or more, HC3 otherwise): the sun crosses a bin elsewhere in
+other seasons, and the model's error at low sun or at a grazing angle changes across a bin,
+which a trend alone takes as growth. A bin whose one-sided p-value is below ``alpha``
+divided by the number of bins tested (Bonferroni) and whose growth is at least
+``min_deficit`` per year is shaded by a growing obstruction; its neighbouring bins join at
+the plain level ``alpha`` (an obstruction is one connected piece).
+
+Region. A bin is too coarse for the energy: the obstruction's top crosses it over months.
+Each clear interval is labelled shaded when its deficit exceeds the clear-sky noise at its
+sun elevation (median and scaled MAD per elevation band, from the sky outside the candidate
+columns) by the one-sided normal quantile of ``alpha``. Per azimuth column, the top of the
+obstruction on each day is the never-falling step that disagrees with the fewest labels
+(dynamic programming); a column counts when, cross-fitted (the top fitted on even days
+judged on odd days' intervals under it, and back), its shaded labels beat the column's own
+label rate (binomial, ``alpha``). The columns of the shaded bins start the region, which
+grows to the next column while each counts. The region is every interval (clear or not)
+under its column's top that day.
+
+Energy. Each interval of the region loses its expected power at the day's level (median
+ratio of the intervals outside the region) times its deficit less its bin's unshaded
+deficit (the model's shape error there, from the bin's clear intervals outside the region).
+The 95 % band: the model's relative daily error, the long-run (autocorrelation-aware) noise
+of the same estimate on the unshaded intervals of the region's columns, and upwards the loss
+under the highest top that fits the labels as well as the lowest (the data cannot place the
+boundary closer).
+
+The event (one per inverter) gives the azimuth range, the top elevation at the end, the first
+day of the region (the event lasts to the end of the data: the obstruction is still there),
+the energy and a proposed horizon profile. It starts on the first day its loss is material:
+the first day whose estimated loss exceeds ``material_share`` (1 %, common practice) of the
+inverter's expected energy of the day and is significant against the day's noise (one-sided,
+``alpha``: the estimate's daily relative error on the unshaded intervals of the region's
+columns, scaled MAD, times the region's expected energy that day).
 
 ``min_deficit`` 5 % of the interval's power, common practice; ``alpha`` 0.01.
 
@@ -34,8 +52,8 @@ References
 Regression over time: ordinary least squares with heteroscedasticity-consistent errors
 (MacKinnon & White 1985, J. Econometrics 29:305, HC3); clustered standard errors with t on
 clusters - 1 degrees of freedom (Cameron & Miller 2015, J. Human Resources 50(2):317) (both
-from memory). The binning by sun
-position follows the usual shading-loss diagrams (common practice).
+from memory). The binning by sun position follows the usual shading-loss diagrams (common
+practice).
 """
 
 from __future__ import annotations
@@ -44,12 +62,13 @@ import numpy as np
 import pandas as pd
 
 from perfcheck.detect.common import (
+    MODEL_FLOOR,
     Event,
     Footprint,
     Wide,
-    change_points,
     coarsen,
     energy_band,
+    long_run_sigma,
     scope_of,
 )
 from perfcheck.lazy import lazy_module
@@ -57,8 +76,10 @@ from perfcheck.lazy import lazy_module
 sm = lazy_module("statsmodels.api")
 stats = lazy_module("scipy.stats")
 
-METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, OLS "
-          "trend over time per bin (errors clustered by month, or HC3), Bonferroni over bins")
+METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, growth "
+          "per bin (year-on-year pairs, or OLS trend given the sun's place in the bin), "
+          "Bonferroni over bins; per azimuth column a monotone top fitted to the shaded clear "
+          "intervals (cross-fitted binomial test); the loss summed under it")
 
 
 def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
@@ -71,27 +92,32 @@ def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
 MIN_MONTHS = 4  # least blocks for clustered errors (common practice: a few clusters at least)
 
 
-def _bin_trend(t_years: np.ndarray, y: np.ndarray, month: np.ndarray | None = None
-               ) -> tuple[float, float, float, float]:
-    """OLS trend of a bin's daily deficits; standard errors robust to heteroscedasticity
-    (HC3), or, with ``month`` (a block number per value) spanning at least four blocks,
-    clustered by block with Student's t on blocks - 1 degrees of freedom: deficits of days
-    in the same weeks share their weather and sun path (autocorrelated), which HC3 takes as
-    independent and so overstates the evidence of a trend."""
-    x = sm.add_constant(t_years)
+def _bin_trend(t_years: np.ndarray, y: np.ndarray, where: np.ndarray,
+               month: np.ndarray | None = None) -> tuple[float, float, float]:
+    """OLS trend of a bin's daily deficits, with the day's mean sun position in the bin
+    (``where``: columns of elevation and azimuth) as covariates: the sun crosses a bin at
+    other places in other seasons, where the model's shape error differs, which a trend
+    alone would take as growth. Standard errors robust to heteroscedasticity (HC3), or,
+    with ``month`` (a block number per value) spanning at least four blocks, clustered by
+    block with Student's t on blocks - 1 degrees of freedom: deficits of days in the same
+    weeks share their weather and sun path (autocorrelated), which HC3 takes as
+    independent and so overstates the evidence of a trend. Returns the slope, its
+    standard error and the one-sided p-value of growth."""
+    x = sm.add_constant(np.column_stack([t_years, where - where.mean(axis=0)]))
     if month is not None and len(np.unique(month)) >= MIN_MONTHS:
         res = sm.OLS(y, x).fit(cov_type="cluster", cov_kwds={"groups": month}, use_t=True)
     else:
         res = sm.OLS(y, x).fit(cov_type="HC3")
     slope, se = float(res.params[1]), float(res.bse[1])
     p_one = float(res.pvalues[1] / 2) if slope > 0 else 1.0
-    return slope, se, float(res.params[0]), p_one
+    return slope, se, p_one
 
 
 def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
-    """Growth test of one bin's daily deficits: year-on-year pairs where the data allow,
-    else the OLS trend over time (:func:`_bin_trend`). One-sided p-value of growth and its
-    size."""
+    """Growth test of one bin's daily deficits: year-on-year pairs (the same sun path a
+    year later, so the model's shape errors there cancel) where the data span more than a
+    year, else the OLS trend over time given the sun's position in the bin
+    (:func:`_bin_trend`). One-sided p-value of growth and its size."""
     t = g["t"].to_numpy()
     d = g["d"].to_numpy()
     if np.ptp(t) >= 1.0 + 10 / 365.25:
@@ -110,49 +136,48 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
             np.mean(delta)), "p_value": float(res.pvalue), "pairs": int(len(delta))}
     if np.ptp(t) < 0.25:
         return None
-    slope, se, icpt, p = _bin_trend(t, d, g["dayno"].to_numpy() // 30)
-    return {"test": "OLS trend, clustered by month, one-sided", "growth_per_year": slope,
-            "p_value": p,
-            "pairs": int(len(d))}
-
-
-def _baseline_onset(g: pd.DataFrame, min_deficit: float, alpha: float) -> tuple[float, float]:
-    """The bin's unshaded deficit level (model shape error) and the time the shade arrived
-    [years], from the first segment of a change-point search and the first segment above it."""
-    g = g.sort_values("t")
-    x = g["d"].to_numpy()
-    segs = change_points(x, alpha=alpha, min_size=3)
-    base = segs[0].mean
-    for sg in segs[1:]:
-        if sg.mean >= base + min_deficit:
-            return base, float(g["t"].to_numpy()[sg.start])
-    return base, float(g["t"].to_numpy()[0])
+    slope, _, p = _bin_trend(t, d, g[["elv", "azv"]].to_numpy(), g["dayno"].to_numpy() // 30)
+    return {"test": "OLS trend given the sun's place in the bin, clustered by month, "
+                    "one-sided", "growth_per_year": slope, "p_value": p, "pairs": int(len(d))}
 
 
 def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, tuple],
+           clearsky_plane: pd.DataFrame,
            az_step: float = 10.0, el_step: float = 5.0, alpha: float = 0.01,
-           min_deficit: float = 0.05, min_days: int = 8, material_share: float = 0.01,
-           smooth_days: int = 15) -> tuple[list[Event], list[Footprint], pd.DataFrame]:
-    """Shading events, footprints, and the mask of the intervals in shaded bins.
+           min_deficit: float = 0.05, min_days: int = 8, material_share: float = 0.01
+           ) -> tuple[list[Event], list[Footprint], pd.DataFrame]:
+    """Shading events, footprints, and the mask of the intervals in the shaded region.
 
-    The bins are tested on 10-minute blocks (:func:`coarsen`); the energy is taken on the
-    series as given.
+    The bins are tested on 10-minute blocks (:func:`coarsen`); the region's boundary and the
+    energy are taken on the series as given. An interval is clear when the logged GHI is
+    within 20 % of the clear-sky GHI, or without a GHI channel the inverter's plane
+    irradiance within 20 % of its clear-sky value (``clearsky_plane``, per inverter).
     """
+    if w.ghi.notna().any():
+        kt = pd.DataFrame({c: w.ghi / w.clearsky_ghi for c in w.inverters})
+    else:
+        kt = w.poa / clearsky_plane[w.inverters].where(clearsky_plane[w.inverters] > 0)
+    clear = (kt > 0.8) & (kt < 1.2) & w.zenith.lt(88).to_numpy()[:, None]
     wc, uc = coarsen(w, usable, 600.0)
-    kt = wc.ghi / wc.clearsky_ghi
-    clear_iv = (kt > 0.8) & (kt < 1.2) & (wc.zenith < 88)
-    t0 = w.index[0]
+    clear_c = coarsen(w, clear, 600.0)[1]
+    # the top reported at the end takes the labels under a steady clear sky alone (the
+    # neighbours clear too): in the last weeks nothing later can outvote a label from a cloud
+    # edge over the array that missed the irradiance sensor
+    steady = clear & clear.shift(1, fill_value=False) & clear.shift(-1, fill_value=False)
 
-    def grid(x: Wide) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def grid(x: Wide) -> tuple[np.ndarray, np.ndarray]:
         el = 90 - x.zenith.to_numpy()
         key = (np.floor(x.azimuth.to_numpy() / az_step).astype(int) * 1000
                + np.floor(np.clip(el, 0, None) / el_step).astype(int))
-        return el, key, ((x.index - t0) / pd.Timedelta(days=365.25)).to_numpy(dtype=float)
+        return el, key
 
-    elev_c, key_c, t_c = grid(wc)
-    elev, key_all, t_years = grid(w)
+    elev_c, key_c = grid(wc)
+    elev, key_all = grid(w)
+    column = key_all // 1000
     dayno_c = ((wc.day - wc.day.iloc[0]) / pd.Timedelta(days=1)).to_numpy().astype(int)
+    t_c = ((wc.index - w.index[0]) / pd.Timedelta(days=365.25)).to_numpy(dtype=float)
     days = w.day.to_numpy()
+    day_pos = np.unique(days, return_inverse=True)[1]
     dfc = deficits(wc, uc)
     events: list[Event] = []
     prints: list[Footprint] = []
@@ -160,11 +185,13 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
     step = w.interval_s.to_numpy()
     for inv in w.inverters:
         d = dfc[inv].to_numpy()
-        ok = np.isfinite(d) & clear_iv.to_numpy() & (elev_c > 0)
+        ok = np.isfinite(d) & clear_c[inv].to_numpy() & (elev_c > 0)
         frame = pd.DataFrame({"az": key_c[ok] // 1000, "el": key_c[ok] % 1000,
-                              "dayno": dayno_c[ok], "t": t_c[ok], "d": d[ok]})
+                              "dayno": dayno_c[ok], "t": t_c[ok], "d": d[ok],
+                              "elv": elev_c[ok], "azv": wc.azimuth.to_numpy()[ok]})
         daily = frame.groupby(["az", "el", "dayno"], sort=False).agg(
-            t=("t", "mean"), d=("d", "mean")).reset_index()
+            t=("t", "mean"), d=("d", "mean"), elv=("elv", "mean"), azv=("azv", "mean")
+        ).reset_index()
         groups = {k: g for k, g in daily.groupby(["az", "el"]) if len(g) >= min_days}
         tested = {k: _bin_test(g) for k, g in groups.items()}
         tested = {k: v for k, v in tested.items() if v is not None}
@@ -181,86 +208,280 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                         res["growth_per_year"] >= min_deficit / 2:
                     keys.add(k)
                     grown = True
-        hits = []
-        for a, e in keys:
-            base, onset = _baseline_onset(groups[(a, e)], min_deficit, alpha)
-            hits.append({"az": int(a), "el": int(e), **tested[(a, e)],
-                         "bonferroni": bool(tested[(a, e)]["p_value"] < alpha / n_tests),
-                         "unshaded_deficit": base, "onset_years": onset,
-                         "days": int(len(groups[(a, e)]))})
-        hits += _below(hits, groups, key_c, elev_c, d, t_c)
-        region_keys = np.isin(key_all, [h["az"] * 1000 + h["el"] for h in hits])
-        # the day's reference ratio from the intervals outside the shaded bins
-        r = (w.measured[inv] / w.expected[inv]).where(usable[inv] & ~region_keys)
-        daily_med = r.groupby(days).median()
-        # a day without usable intervals (flagged readings) takes its neighbours' ratio
-        daily_med = daily_med.fillna(daily_med.rolling(7, center=True, min_periods=1).median())
-        med = daily_med.reindex(days).to_numpy()
+        if not keys:
+            continue
+        # the region: per azimuth column the obstruction's top over time, from which clear
+        # intervals lost their beam; the columns of the shaded bins, and their neighbours
+        # one by one while each shows shaded intervals beyond the false-label rate
+        use = usable[inv].to_numpy()
+        clear_all = clear[inv].to_numpy() & (elev > 2)
+        steady_all = steady[inv].to_numpy()
         e_int = w.expected[inv].to_numpy()
-        d_all = 1 - w.measured[inv].to_numpy() / np.where(e_int > 0, e_int * med, np.nan)
-        for region in [hits] if hits else []:
-            loss = np.zeros(len(w.index))
-            sel = np.zeros(len(w.index), dtype=bool)
-            for h in region:
-                m = (key_all == h["az"] * 1000 + h["el"]) & (elev > 0) & (
-                    t_years >= h["onset_years"])
-                m &= np.isfinite(d_all)
-                loss[m] = e_int[m] * med[m] * (d_all[m] - h["unshaded_deficit"])
-                sel |= m
-            if not sel.any():
-                continue
-            energy = float(np.sum(loss * step) / 3.6e6)
-            if not energy > 0:  # growth in the bins' deficits, but no loss: no finding
-                continue
-            shaded_mask[inv] = shaded_mask[inv].to_numpy() | sel
-            low, high = energy_band(energy, rel_sigma, float(np.sqrt(np.nansum(
-                (np.where(sel, e_int, 0.0) * rel_sigma * step / 3.6e6) ** 2))) * 3)
-            tested_bins = [h for h in region if h["p_value"] is not None] or region
-            azs = [h["az"] for h in tested_bins]
-            els = [h["el"] for h in tested_bins]
-            onset = t0 + pd.Timedelta(days=365.25 * min(h["onset_years"] for h in region))
-            prof: dict[float, float] = {}
-            for h in tested_bins:
-                a0 = h["az"] * az_step
-                prof[a0] = max(prof.get(a0, 0.0), (h["el"] + 1) * el_step)
-            proposal = _horizon_proposal(prof, az_step, horizon.get(inv, ()))
-            pos = np.flatnonzero(sel)
-            first = _material_start(w, loss, e_int, material_share, smooth_days)
-            ev = Event(
-                kind="shading", scope=scope_of(inv), start=max(first, w.index[pos[0]]),
-                end=w.index[-1] + pd.Timedelta(seconds=float(step[-1])),
-                energy_loss_kwh=energy, energy_loss_kwh_low=max(0.0, low),
-                energy_loss_kwh_high=high, method=METHOD,
-                evidence={"bins": [labelled_bin(h, az_step, el_step) for h in region],
-                          "bins_tested": n_tests,
-                          "alpha_per_bin": alpha / n_tests},
-                detail={"azimuth_from_deg": min(azs) * az_step,
-                        "azimuth_to_deg": (max(azs) + 1) * az_step,
-                        "top_elevation_deg": (max(els) + 1) * el_step,
-                        "since": onset.tz_convert(w.tz).date(),
-                        "first_arrival": w.index[pos[0]].tz_convert(w.tz).isoformat(),
-                        "proposed_horizon": proposal,
-                        "note": "an obstruction growing in this part of the sky (vegetation, "
-                                "a new building); the proposed horizon adds it to the site file"})
-            events.append(ev)
-            lo, hi = int(pos[0]), int(pos[-1]) + 1
-            with np.errstate(invalid="ignore", divide="ignore"):
-                f = np.where(sel[lo:hi] & (e_int[lo:hi] > 0), loss[lo:hi] / e_int[lo:hi], 0.0)
-            prints.append(Footprint(ev, lo, hi, [inv], factor=np.nan_to_num(f)[:, None]))
+        near = np.isin(column, sorted({a + k for a, _ in keys for k in (-1, 0, 1)}))
+        d_out, _ = _interval_deficits(w, inv, use & ~near, days)
+        labels, noise = _shaded_labels(d_out, use & clear_all, ~near, elev, el_step, alpha,
+                                       min_deficit)
+        region = np.zeros(len(w.index), dtype=bool)
+        highs: dict[int, np.ndarray] = {}  # per column the highest top that fits as well
+        tops: dict[int, dict] = {}
+        todo, seen = sorted({a for a, _ in keys}), set()
+        while todo:
+            a = todo.pop()
+            seen.add(a)
+            top, high_top, p_col, end = _column_top(column == a, labels, use & clear_all,
+                                                    elev, day_pos, noise["false_label_rate"],
+                                                    steady_all)
+            if p_col < alpha and top[-1] > 0:
+                region |= (column == a) & (elev > 0) & (elev < top[day_pos])
+                highs[a] = high_top
+                tops[a] = {"top_deg": end, "p_value": p_col}
+                todo += [b for b in (a - 1, a + 1) if b not in seen and b not in todo]
+        if not region.any():
+            continue
+        # the boundary the data cannot place: under the highest top that fits as well, and
+        # in the columns beside the region (not shown shaded, nor shown free of a part of
+        # the obstruction) under their neighbour's
+        upper = np.zeros(len(w.index), dtype=bool)
+        for a, high_top in highs.items():
+            upper |= np.isin(column, [a - 1, a, a + 1]) & (elev > 0) & (
+                elev < high_top[day_pos])
+        d_all, level_e = _interval_deficits(w, inv, use & ~region, days)
+        sel = region & np.isfinite(d_all)
+        base = _unshaded_level(d_all, use & clear_all & ~region, key_all, elev, el_step)
+        est = level_e * (d_all - base)
+        loss = np.where(sel, est, 0.0)
+        energy = float(np.sum(loss * step) / 3.6e6)
+        if not energy > 0:  # a region, but no loss: no finding
+            continue
+        shaded_mask[inv] = sel
+        x = _daily_error(est, level_e, use & ~region & np.isin(column, list(tops))
+                         & np.isfinite(d_all), days, step)
+        e_day = pd.Series(np.where(sel, level_e, 0.0) * step / 3.6e6).groupby(days).sum()
+        sigma = _loss_sigma_kwh(x, e_day.to_numpy())
+        low, high = _boundary_band(energy, rel_sigma, sigma, np.where(
+            use & np.isfinite(d_all), est, 0.0), step, upper & ~region, column)
+        hits = [{"az": int(a), "el": int(e), **tested[(a, e)],
+                 "bonferroni": bool(tested[(a, e)]["p_value"] < alpha / n_tests),
+                 "days": int(len(groups[(a, e)]))} for a, e in sorted(keys)]
+        azs = sorted(tops)
+        prof = {a * az_step: t["top_deg"] for a, t in tops.items() if t["top_deg"] > 0}
+        proposal = _horizon_proposal(prof, az_step, horizon.get(inv, ()))
+        pos = np.flatnonzero(sel)
+        # a day's noise: the daily relative error's scale (scaled MAD) on its region
+        scale = 1.4826 * float(np.median(np.abs(x - np.median(x)))) if len(x) else 0.0
+        first = _material_start(w, loss, e_int, material_share,
+                                max(MODEL_FLOOR, scale) * e_day, noise["z"])
+        ev = Event(
+            kind="shading", scope=scope_of(inv), start=max(first, w.index[pos[0]]),
+            end=w.index[-1] + pd.Timedelta(seconds=float(step[-1])),
+            energy_loss_kwh=energy, energy_loss_kwh_low=max(0.0, low),
+            energy_loss_kwh_high=high, method=METHOD,
+            evidence={"bins": [labelled_bin(h, az_step, el_step) for h in hits],
+                      "bins_tested": n_tests, "alpha_per_bin": alpha / n_tests,
+                      "columns": [{"azimuth_from_deg": a * az_step,
+                                   "azimuth_to_deg": (a + 1) * az_step, **tops[a]}
+                                  for a in azs],
+                      "interval_noise": noise},
+            detail={"azimuth_from_deg": min(azs) * az_step,
+                    "azimuth_to_deg": (max(azs) + 1) * az_step,
+                    "top_elevation_deg": round(max(t["top_deg"] for t in tops.values()), 1),
+                    "since": w.index[pos[0]].tz_convert(w.tz).date(),
+                    "first_arrival": w.index[pos[0]].tz_convert(w.tz).isoformat(),
+                    "proposed_horizon": proposal,
+                    "note": "an obstruction growing in this part of the sky (vegetation, "
+                            "a new building); the proposed horizon adds it to the site file"})
+        events.append(ev)
+        lo, hi = int(pos[0]), int(pos[-1]) + 1
+        with np.errstate(invalid="ignore", divide="ignore"):
+            f = np.where(sel[lo:hi] & (e_int[lo:hi] > 0), loss[lo:hi] / e_int[lo:hi], 0.0)
+        prints.append(Footprint(ev, lo, hi, [inv], factor=np.nan_to_num(f)[:, None]))
     return events, prints, shaded_mask
 
 
+def _interval_deficits(w: Wide, inv: str, ref: np.ndarray, days: np.ndarray
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Per interval of inverter ``inv``: the deficit 1 - measured / (expected x the day's
+    level) and the expected power at the day's level [W]; the level is the day's median of
+    measured/expected over the intervals ``ref`` (a day without any takes its neighbours')."""
+    e = w.expected[inv].to_numpy()
+    m = w.measured[inv].to_numpy()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = pd.Series(np.where(ref & (e > 0), m / e, np.nan))
+    level = r.groupby(days).median()
+    level = level.fillna(level.rolling(7, center=True, min_periods=1).median())
+    level_e = np.where(e > 0, e, np.nan) * level.reindex(days).to_numpy()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return 1 - m / level_e, level_e
+
+
+def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray, elev: np.ndarray,
+                   el_step: float, alpha: float, min_deficit: float
+                   ) -> tuple[np.ndarray, dict]:
+    """Clear intervals whose deficit is beyond the clear-sky noise at their sun elevation
+    (one-sided, level ``alpha``) and at least ``min_deficit``: the sun's beam was lost. The
+    noise (median and scaled MAD per ``el_step`` band of elevation) is taken from the clear
+    intervals outside the
+    candidate columns (``outside``); a band with few of them takes the nearest band's. The
+    share of those intervals labelled (at least ``alpha``) is the false-label rate."""
+    z = float(stats.norm.isf(alpha))
+    band = np.floor(np.clip(elev, 0, None) / el_step).astype(int)
+    ref = clear & outside & np.isfinite(d)
+    frame = pd.DataFrame({"band": band[ref], "d": d[ref]})
+    g = frame.groupby("band")["d"]
+    n = g.size()
+    centre = g.median()[n >= 30]
+    scale = (1.4826 * g.apply(lambda x: np.median(np.abs(x - np.median(x)))))[n >= 30]
+    if centre.empty:
+        return np.zeros(len(d), dtype=bool), {"z": z, "false_label_rate": alpha, "bands": []}
+    mid = np.interp(band, centre.index, centre.to_numpy())
+    sig = np.interp(band, scale.index, scale.to_numpy())
+    with np.errstate(invalid="ignore"):
+        labels = clear & np.isfinite(d) & (d - mid > np.maximum(z * sig, min_deficit))
+    rate = max(alpha, float(np.mean(labels[ref])))
+    return labels, {"z": z, "false_label_rate": rate, "bands": [
+        {"elevation_from_deg": float(b * el_step), "median_deficit": float(centre[b]),
+         "sigma": float(scale[b])} for b in centre.index]}
+
+
+def _column_top(in_col: np.ndarray, labels: np.ndarray, clear: np.ndarray, elev: np.ndarray,
+                day_pos: np.ndarray, rate: float, steady: np.ndarray | None = None
+                ) -> tuple[np.ndarray, np.ndarray, float, float]:
+    """The obstruction's top in one azimuth column on each day [deg] (:func:`_fit_top` on
+    the column's labelled clear intervals), the highest top that fits them as well, the
+    one-sided binomial p-value of the evidence and the top at the end [deg].
+
+    The evidence is cross-fitted so a fit cannot select its own noise: the top fitted on
+    the even days is judged on the odd days' intervals under it and back; under no
+    obstruction those are labelled at the column's own rate of labels (at least ``rate``,
+    the false-label rate of the sky outside). The top at the end is the lower of the two
+    halves' (a label of a single day cannot raise it), fitted to the labels of the
+    ``steady`` intervals alone where given.
+
+    References
+    ----------
+    Sample splitting for inference after selection (Cox 1975, Biometrika 62:441, from
+    memory); the binomial test of a count against a known rate (common practice).
+    """
+    obs = in_col & clear & (elev > 0)
+    n_days = int(day_pos.max()) + 1
+    if not obs.any():
+        return np.zeros(n_days), np.zeros(n_days), 1.0, 0.0
+    end = np.inf
+    k = n = 0
+    for half in (0, 1):
+        part = obs & (day_pos % 2 == half)
+        fit = _fit_top(part, labels, elev, day_pos)
+        end = min(end, float(fit[-1] if steady is None else _fit_top(
+            part, labels & steady, elev, day_pos)[-1]))
+        under = obs & (day_pos % 2 != half) & (elev < fit[day_pos])
+        k += int(np.sum(labels & under))
+        n += int(np.sum(under))
+    own = max(rate, float(np.mean(labels[obs])))
+    p = float(stats.binom.sf(k - 1, n, own)) if k else 1.0
+    return (_fit_top(obs, labels, elev, day_pos),
+            _fit_top(obs, labels, elev, day_pos, highest=True), p, end)
+
+
+def _fit_top(obs: np.ndarray, labels: np.ndarray, elev: np.ndarray, day_pos: np.ndarray,
+             res_deg: float = 0.5, highest: bool = False) -> np.ndarray:
+    """A top per day [deg], never falling, that disagrees with the fewest intervals ``obs``
+    (a labelled one at or above the top, an unlabelled one below it): dynamic programming
+    over days on a ``res_deg`` grid, the lowest top among equals (the highest with
+    ``highest``).
+
+    References
+    ----------
+    Monotone step fit by dynamic programming (Bellman 1957, Dynamic Programming, from
+    memory).
+    """
+    n_days = int(day_pos.max()) + 1
+    grid_n = int(round(90 / res_deg)) + 1
+    k = np.clip(np.floor(elev[obs] / res_deg).astype(int), 0, grid_n - 1)
+    dp, lab = day_pos[obs], labels[obs]
+    shaded = np.zeros((n_days, grid_n + 1))
+    np.add.at(shaded, (dp[lab], k[lab]), 1.0)
+    # a shaded interval at elevation e disagrees with every top at or below e
+    cost = shaded[:, ::-1].cumsum(axis=1)[:, ::-1][:, :grid_n]
+    unshaded = np.zeros((n_days, grid_n + 1))
+    np.add.at(unshaded, (dp[~lab], k[~lab] + 1), 1.0)
+    # an unshaded interval at elevation e disagrees with every top above e
+    cost += unshaded.cumsum(axis=1)[:, :grid_n]
+    acc = np.empty_like(cost)
+    acc[0] = cost[0]
+    for i in range(1, n_days):
+        acc[i] = cost[i] + np.minimum.accumulate(acc[i - 1])
+    def pick(row: np.ndarray) -> int:
+        return len(row) - 1 - int(np.argmin(row[::-1])) if highest else int(np.argmin(row))
+
+    idx = np.empty(n_days, dtype=int)
+    idx[-1] = pick(acc[-1])
+    for i in range(n_days - 2, -1, -1):
+        idx[i] = pick(acc[i, :idx[i + 1] + 1])
+    return idx * res_deg
+
+
+def _unshaded_level(d: np.ndarray, ref: np.ndarray, key: np.ndarray, elev: np.ndarray,
+                    el_step: float, min_n: int = 10) -> np.ndarray:
+    """Per interval, the deficit its sky bin shows unshaded (the model's shape error there):
+    the median over the bin's ``ref`` intervals, or over the elevation band's in every
+    azimuth where the bin has fewer than ``min_n``."""
+    band = np.floor(np.clip(elev, 0, None) / el_step).astype(int)
+    ok = ref & np.isfinite(d)
+    by_bin = pd.Series(d[ok]).groupby(key[ok])
+    by_band = pd.Series(d[ok]).groupby(band[ok]).median()
+    level = by_bin.median()[by_bin.size() >= min_n]
+    out = pd.Series(key).map(level).to_numpy(dtype=float)
+    fallback = pd.Series(band).map(by_band).fillna(0.0).to_numpy(dtype=float)
+    return np.where(np.isfinite(out), out, fallback)
+
+
+def _daily_error(est_w: np.ndarray, level_e: np.ndarray, ref: np.ndarray, days: np.ndarray,
+                 step: np.ndarray) -> np.ndarray:
+    """The loss estimate's daily relative error: the estimate ``est_w`` summed over the
+    unshaded intervals ``ref`` of the region's columns (true value zero) over their
+    expected energy at the day's level, one value per day with such intervals."""
+    kwh = step / 3.6e6
+    err = pd.Series(np.where(ref, est_w * kwh, 0.0)).groupby(days).sum()
+    base = pd.Series(np.where(ref, level_e * kwh, 0.0)).groupby(days).sum()
+    return (err / base.where(base > 0)).dropna().to_numpy()
+
+
+def _loss_sigma_kwh(x: np.ndarray, e_day_kwh: np.ndarray) -> float:
+    """Standard error [kWh] of the region's summed loss: the long-run scale of the daily
+    relative error ``x`` (:func:`_daily_error`; autocorrelation-aware,
+    :func:`long_run_sigma`, at least ``MODEL_FLOOR``) times the root sum of squares of the
+    region's daily expected energy ``e_day_kwh``."""
+    sig, _ = long_run_sigma(x)
+    sig = max(MODEL_FLOOR, sig if np.isfinite(sig) else 0.0)
+    return float(sig * np.sqrt(np.sum(e_day_kwh ** 2)))
+
+
+def _boundary_band(energy: float, rel_sigma: float, sigma_kwh: float, est_w: np.ndarray,
+                   step: np.ndarray, above: np.ndarray, column: np.ndarray
+                   ) -> tuple[float, float]:
+    """95 % band of the region's loss [kWh]: the model's relative error (``rel_sigma``: the
+    expected power of a shaded module is the model's too) and the noise (``sigma_kwh``),
+    normal, and upwards the loss estimated (``est_w``) on the intervals ``above`` the
+    region that the data cannot tell from it (summed per azimuth ``column``, where
+    positive), added in quadrature."""
+    low, high = energy_band(energy, rel_sigma, sigma_kwh)
+    per_column = pd.Series(np.where(above, est_w, 0.0) * step / 3.6e6).groupby(column).sum()
+    up = float(per_column.clip(lower=0.0).sum())
+    return low, energy + float(np.hypot(high - energy, up))
+
+
 def _material_start(w: Wide, loss: np.ndarray, expected: np.ndarray, share: float,
-                    smooth_days: int) -> pd.Timestamp:
-    """Start (UTC) of the first site-local day whose smoothed loss share of the day's
-    expected energy exceeds ``share`` (the first interval of the data when none does)."""
+                    noise_kwh: pd.Series, z: float) -> pd.Timestamp:
+    """Start (UTC) of the first site-local day whose loss exceeds ``share`` of the day's
+    expected energy and ``z`` times the day's noise (``noise_kwh``, per day: one-sided
+    test of the day's loss); the first interval of the data when none does."""
     days = w.day.to_numpy()
     step = w.interval_s.to_numpy()
-    lost = pd.Series(loss * step).groupby(days).sum()
+    lost = pd.Series(loss * step / 3.6e6).groupby(days).sum()
     exp = pd.Series(np.where(np.isfinite(expected) & (expected > 0), expected, 0.0) * step
-                    ).groupby(days).sum()
-    ratio = (lost / exp.where(exp > 0)).rolling(smooth_days, center=True, min_periods=3).median()
-    over = ratio.index[ratio.to_numpy() > share]
+                    / 3.6e6).groupby(days).sum()
+    over = lost.index[((lost > share * exp) & (lost > z * noise_kwh.reindex(lost.index)))
+                      .to_numpy()]
     if not len(over):
         return w.index[0]
     return pd.Timestamp(over[0]).tz_localize(w.tz).tz_convert("UTC")
@@ -273,34 +494,6 @@ def labelled_bin(h: dict, az_step: float, el_step: float) -> dict:
             "elevation_from_deg": h["el"] * el_step,
             "elevation_to_deg": (h["el"] + 1) * el_step,
             **{k: v for k, v in h.items() if k not in ("az", "el")}}
-
-
-def _below(hits: list[dict], groups: dict, key_all: np.ndarray, elev: np.ndarray,
-           d: np.ndarray, t_years: np.ndarray) -> list[dict]:
-    """Bins under the lowest shaded bin of each azimuth column, down to the horizon (an
-    obstruction stands on the ground, so the sun below its top is behind it too; these bins
-    seldom have enough clear intervals to be tested) and the bin above the top. Each takes
-    its column's arrival time and its own unshaded level from the intervals before it (else
-    the column's)."""
-    out = []
-    have = {(h["az"], h["el"]) for h in hits}
-    for a in sorted({h["az"] for h in hits}):
-        col = sorted((h for h in hits if h["az"] == a), key=lambda h: h["el"])
-        low = col[0]
-        onset = min(h["onset_years"] for h in col)
-        top = col[-1]["el"]
-        # and the bin just above the top: the obstruction grows into it during the last
-        # months, before that bin's own test can show it (unshaded there, it adds only noise)
-        for e in [*range(0, low["el"]), top + 1]:
-            if (a, e) in have:
-                continue
-            m = (key_all == a * 1000 + e) & (elev > 0) & np.isfinite(d) & (t_years < onset)
-            base = float(np.median(d[m])) if m.sum() >= 3 else low["unshaded_deficit"]
-            out.append({"az": a, "el": e, "test": "next to a shaded bin (not tested)",
-                        "growth_per_year": None, "p_value": None, "pairs": 0,
-                        "bonferroni": False, "unshaded_deficit": base, "onset_years": onset,
-                        "days": int(len(groups.get((a, e), [])))})
-    return out
 
 
 def _horizon_proposal(prof: dict[float, float], az_step: float, existing: tuple

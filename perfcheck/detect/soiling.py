@@ -5,7 +5,9 @@ insolation-weighted daily measured/expected, divided by its own median (so inver
 orientation or size count alike and one inverter's own fault does not move it). Recoveries are
 (a) days on which some 24-hour rain total reaches ``rain_mm`` in the readings and (b)
 significant local steps up of the index (:func:`local_steps_up`); a step up with at least 1 mm
-of rain on that day or the day before is a rain recovery, else a cleaning. Between two
+of rain on that day or the day before is a rain recovery, one on days with rain readings and
+less rain a cleaning, and one on days without rain readings (no rain gauge, a gap) of unknown
+cause: rain and a cleaning look alike in the index. Between two
 recoveries the index is fitted by a Theil-Sen line; an interval whose slope is negative with
 Kendall's test p-value below ``alpha``, ended by a recovery that gives back at least half of
 its decline (:func:`_restored`), is a soiling interval; the interval still open at the end of
@@ -17,17 +19,28 @@ rolling median of the index outside the soiling intervals where that is above th
 (a partial recovery), else the line's start (a full recovery). Consecutive soiling intervals
 form one soiling episode (one event) with its recoveries.
 
+Where rain washes the modules every week or two, most washes give back less than the day-to-
+day noise of the index and no test finds them one by one: a found episode is then only the
+longest dry spell of a longer one. So each episode is carried into the days beside it as a
+series of ramps at its own rate, each from a wash, placed by optimal partitioning under the
+Schwarz criterion (:func:`sawtooth_extent`): it reaches as far as ramps at that rate explain
+the index better than its clean level by more than the criterion's penalty per ramp.
+
 The false-alarm probability per interval tested is ``alpha`` (Kendall's test, one-sided
 decline; the run passes 1e-3), and per series ``alpha`` for the steps up (Bonferroni over
-the days). ``rain_mm`` default 5 mm in 24 hours: common practice (Kimber et al. 2006 use a
-rain threshold of this order; no single source).
+the days). The extension adds no episode: it only widens a found one. ``rain_mm`` default
+5 mm in 24 hours: common practice (Kimber et al. 2006 use a rain threshold of this order; no
+single source).
 
 References
 ----------
 Deceglie, Micheli & Muller 2018, "Quantifying soiling loss directly from PV yield", IEEE J.
 Photovolt. 8(2):547: the stochastic rate and recovery method (insolation-weighted daily index,
 recoveries from rain and from jumps, Theil-Sen rates per interval) (from memory); Kimber,
-Mitchell, Nogradi & Wenger 2006, IEEE 4th WCPEC, the rain-reset soiling model.
+Mitchell, Nogradi & Wenger 2006, IEEE 4th WCPEC, the rain-reset soiling model; Schwarz 1978,
+"Estimating the dimension of a model", Ann. Statist. 6(2):461; Jackson et al. 2005, "An
+algorithm for optimal partitioning of data on an interval", IEEE Signal Process. Lett.
+12(2):105 (both from memory).
 """
 
 from __future__ import annotations
@@ -48,7 +61,8 @@ from perfcheck.lazy import lazy_module
 stats = lazy_module("scipy.stats")
 
 METHOD = ("Theil-Sen decline of the daily performance index between recoveries (rain, "
-          "detected steps up), in the spirit of Deceglie, Micheli & Muller 2018")
+          "detected steps up), in the spirit of Deceglie, Micheli & Muller 2018; carried into "
+          "the days beside it as ramps at its rate placed by the Schwarz criterion")
 
 
 def plant_index(pi: pd.DataFrame) -> pd.Series:
@@ -86,22 +100,22 @@ def local_steps_up(index: pd.Series, alpha: float, k: int = 3) -> list[tuple[pd.
 
 def recoveries(index: pd.Series, rain_daily: pd.Series, rain_mm: float, alpha: float,
                min_days: int = 3) -> list[dict]:
-    """Recovery days (the first day of the recovered level), with cause and step size."""
+    """Recovery days (the first day of the recovered level), with cause ("rain", "cleaning",
+    or "unknown" where ``rain_daily`` is NaN on the day and the day before: no rain readings)
+    and step size."""
     s = index.dropna()
     out: dict[pd.Timestamp, dict] = {}
-    rain = rain_daily.reindex(index.index).fillna(0.0)
+    rain = rain_daily.reindex(index.index)
     for day in rain.index[rain >= rain_mm]:
         nxt = day + pd.Timedelta(days=1)
         out[nxt] = {"day": nxt, "cause": "rain", "rain_mm": float(rain.loc[day]),
                     "detected_step": None}
     for day, step in local_steps_up(s, alpha, min_days):
-        wet = float(rain.reindex([day - pd.Timedelta(days=1), day]).fillna(0).max())
         near = [d for d in out if abs((d - day).days) <= 1]
         if near:
             out[near[0]]["detected_step"] = step
             continue
-        cause = "rain" if wet >= 1.0 else "cleaning"
-        out[day] = {"day": day, "cause": cause, "rain_mm": wet, "detected_step": step}
+        out[day] = {"day": day, **_cause(rain, day), "detected_step": step}
     merged: list[dict] = []
     for d in sorted(out):  # one recovery per wet spell: days in a row count once
         if merged and (d - merged[-1]["day"]).days <= 1:
@@ -110,6 +124,16 @@ def recoveries(index: pd.Series, rain_daily: pd.Series, rain_mm: float, alpha: f
             continue
         merged.append(out[d])
     return merged
+
+
+def _cause(rain_daily: pd.Series, day: pd.Timestamp) -> dict:
+    """Cause of a recovery on ``day`` that no rain total explains: "rain" with at least 1 mm
+    on that day or the day before, "cleaning" with less, "unknown" without rain readings."""
+    wet = rain_daily.reindex([day - pd.Timedelta(days=1), day])
+    if wet.isna().all():
+        return {"cause": "unknown", "rain_mm": None}
+    mm = float(wet.max())
+    return {"cause": "rain" if mm >= 1.0 else "cleaning", "rain_mm": mm}
 
 
 def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
@@ -121,7 +145,8 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     # rain: the largest 24-hour total ending within the day
     step_s = float(np.median(w.interval_s))
     roll = w.rain.fillna(0.0).rolling(max(1, int(round(86400 / step_s))), min_periods=1).sum()
-    rain_daily = roll.groupby(w.day.to_numpy()).max().reindex(days)
+    read = w.rain.notna().groupby(w.day.to_numpy()).any().reindex(days, fill_value=False)
+    rain_daily = roll.groupby(w.day.to_numpy()).max().reindex(days).where(read)
     recs = recoveries(idx, rain_daily, rain_mm, alpha)
     bounds = [days[0]] + [r["day"] for r in recs if days[0] < r["day"] <= days[-1]] + \
         [days[-1] + pd.Timedelta(days=1)]
@@ -164,7 +189,9 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         if onset < 2:
             ref = np.fmax(ref, clean_level[sel].to_numpy())
         f["clean_level"] = float(np.mean(ref))
+        f["onset_at"] = int(np.flatnonzero(sel)[0]) + onset
         ratio[sel] = np.minimum(1.0, line / ref)
+    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling)
     events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma)
     return events, prints, ratio
 
@@ -239,14 +266,132 @@ def cleaning_saving_kwh(ratio: pd.Series, expected_daily_kwh: pd.Series, clean_d
     return float(np.sum(e * (after - ratio[sel].to_numpy())))
 
 
-def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float
-              ) -> tuple[list[Event], list[Footprint]]:
+def long_run_variance(index: pd.Series, half_days: int = 7) -> float:
+    """Variance of the daily index about its centred rolling median (2 ``half_days`` + 1 days;
+    1.4826 MAD, robust to outliers), times (1 + phi) / (1 - phi) for the lag-one
+    autocorrelation phi of those deviations (the long-run variance of an AR(1) series: a
+    fit to days in a row gains that much more by chance than on independent days; Hamilton
+    1994, sec. 7.2, from memory; phi clipped to [0, 0.9] as in
+    :func:`perfcheck.detect.common.long_run_sigma`). Unlike that scale of the raw index,
+    whose persistence includes the soiling ramps themselves, this is the noise about the
+    local level that a ramp competes with."""
+    dev = (index - index.rolling(2 * half_days + 1, center=True, min_periods=half_days)
+           .median()).to_numpy()
+    ok = np.isfinite(dev)
+    if ok.sum() < 10:
+        return float("nan")
+    d = dev[ok]
+    var = float((1.4826 * np.median(np.abs(d - np.median(d)))) ** 2)
+    pair = ok[1:] & ok[:-1]
+    phi = float(np.corrcoef(dev[1:][pair], dev[:-1][pair])[0, 1]) if pair.sum() > 3 else 0.0
+    phi = min(max(phi if np.isfinite(phi) else 0.0, 0.0), 0.9)
+    return var * (1 + phi) / (1 - phi)
+
+
+def _groups(fits: list) -> list[list]:
+    """Consecutive soiling intervals (one ends where the next begins) as one episode each."""
     groups: list[list] = []
     for f in fits:
         if groups and groups[-1][-1][1] == f[0]:
             groups[-1].append(f)
         else:
             groups.append([f])
+    return groups
+
+
+def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
+            rain_daily: pd.Series, soiled: np.ndarray, passes: int = 5) -> list:
+    """Each found episode reaches as far as its rate explains the days beside it
+    (:func:`sawtooth_extent`, backward from its onset to the previous episode and forward
+    from its last recovery to the next one): the washes in between are too small to find
+    one by one (a step as large as the noise), but the ramps they end fit together. The
+    ramps join the episode as intervals of its rate, their washes as recoveries (the
+    cause from the rain readings, :func:`_cause`); ``ratio`` takes their soiling.
+
+    The clean level beside an episode is the 61-day rolling mean of the index with the
+    soiling taken out (the found intervals, ``soiled``, left out; the ramps divided by their
+    ratio), fitted in turns with the ramps until they stay (at most ``passes``): soiling
+    beside an episode would pull a level of the raw index down and hide itself."""
+    if not fits:
+        return fits
+    days = pd.DatetimeIndex(idx.index)
+    y = idx.to_numpy()
+    var = long_run_variance(idx)
+    groups = _groups(fits)
+    base = np.where(soiled, np.nan, y)
+    ramp_ratio = np.ones(len(days))
+    cuts: list = []
+    for _ in range(passes):
+        level = pd.Series(base / ramp_ratio, index=days).rolling(
+            61, center=True, min_periods=10).mean().to_numpy()
+        new = _cuts(y, level, groups, days, var)
+        if new == cuts:
+            break
+        cuts = new
+        ramp_ratio = np.ones(len(days))
+        for lo, cut, rel in cuts:
+            for a, b in zip(cut[:-1], cut[1:], strict=True):
+                ramp_ratio[lo + a:lo + b] = np.clip(1 - rel * (np.arange(b - a) + 0.5), 0, 1)
+    out: list = []
+    for g, (back, fwd) in zip(groups, zip(cuts[0::2], cuts[1::2], strict=True), strict=True):
+        first = g[0][3]
+        segs = [_ramps(lo, cut, rel, f, days, y, level, rec_at, rain_daily)
+                for (lo, cut, rel), f in ((back, first), (fwd, g[-1][3]))]
+        if segs[0]:  # the found interval now begins at its onset, a wash of the ramps before
+            start = days[first["onset_at"]]
+            a0, b0, sel0, f0 = g[0]
+            f0["onset"] = start
+            g[0] = (start, b0, sel0 & (days >= start), f0)
+        out += segs[0] + g + segs[1]
+    ratio.iloc[:] = np.where(ramp_ratio < 1, ramp_ratio, ratio.to_numpy())
+    return out
+
+
+def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex,
+          var: float) -> list[tuple[int, list[int], float]]:
+    """The ramps beside each episode (:func:`sawtooth_extent`): per episode, backward then
+    forward, (first day's position, boundaries, rate as a share of the clean level)."""
+    out: list = []
+    done = 0  # the first day no episode has taken
+    for k, g in enumerate(groups):
+        nxt = int(np.searchsorted(days, groups[k + 1][0][0])) if k + 1 < len(groups) \
+            else len(days)
+        end = int(np.searchsorted(days, g[-1][1]))
+        for lo, hi, f, forward in ((done, g[0][3]["onset_at"], g[0][3], False),
+                                   (end, nxt, g[-1][3], True)):
+            rel = -f["rate"] / f["clean_level"]
+            cut: list[int] = []
+            if hi > lo and np.isfinite(var):
+                lev = np.where(np.isfinite(level[lo:hi]), level[lo:hi], f["clean_level"])
+                cut = sawtooth_extent(y[lo:hi], lev, rel, var * np.log(hi - lo), forward)
+            out.append((lo, cut, rel))
+            done = max(done, lo + (cut[-1] if cut else 0), end)
+    return out
+
+
+def _ramps(lo: int, cut: list[int], rel: float, f: dict, days: pd.DatetimeIndex,
+           y: np.ndarray, level: np.ndarray, rec_at: dict, rain_daily: pd.Series) -> list:
+    """The ramps [lo + cut[k], lo + cut[k + 1]) as soiling intervals of the rate of ``f``;
+    their washes join ``rec_at``."""
+    segs = []
+    for a, b in zip(cut[:-1], cut[1:], strict=True):
+        sel = np.zeros(len(days), dtype=bool)
+        sel[lo + a:lo + b] = True
+        end = days[lo + b] if lo + b < len(days) else days[-1] + pd.Timedelta(days=1)
+        e = {"onset": days[lo + a], "rate": f["rate"], "rate_low": f["rate_low"],
+             "rate_high": f["rate_high"], "slope": float("nan"), "p_value": float("nan"),
+             "n": int(np.isfinite(y[lo + a:lo + b]).sum()),
+             "clean_level": float(np.nanmean(level[lo + a:lo + b])) if
+             np.isfinite(level[lo + a:lo + b]).any() else f["clean_level"], "placed": True}
+        segs.append((days[lo + a], end, sel, e))
+        if end not in rec_at and lo + b < len(days):
+            rec_at[end] = {"day": end, **_cause(rain_daily, end), "detected_step": None}
+    return segs
+
+
+def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float
+              ) -> tuple[list[Event], list[Footprint]]:
+    groups = _groups(fits)
     exp_daily = w.energy_kwh(w.expected).sum(axis=1).groupby(w.day.to_numpy()).sum()
     events, prints = [], []
     days_of = w.day.to_numpy()
@@ -261,12 +406,16 @@ def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: fl
         for a_i, b_i, sel_i, f in g:
             r = rec_at.get(b_i)
             lo_r = float(1 - ratio[sel_i].iloc[-1])
+            placed = bool(f.get("placed"))
             intervals.append({"from": a_i.date(), "onset": f["onset"], "to": b_i.date(),
                               "rate_pct_per_day": 100 * f["rate"],
                               "rate_ci95_pct_per_day": [100 * f["rate_low"],
                                                         100 * f["rate_high"]],
-                              "whole_interval_theil_sen_pct_per_day": 100 * f["slope"],
-                              "kendall_p_value": f["p_value"] / 2, "days": f["n"]})
+                              "whole_interval_theil_sen_pct_per_day":
+                                  None if placed else 100 * f["slope"],
+                              "kendall_p_value": None if placed else f["p_value"] / 2,
+                              "placed_by": "the episode's rate, Schwarz criterion" if placed
+                              else "Kendall test", "days": f["n"]})
             if r is not None:
                 recs.append({"at": b_i.date(), "cause": r["cause"], "rain_mm": r["rain_mm"],
                              "soiling_loss_pct_before": 100 * lo_r,
@@ -298,3 +447,83 @@ def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: fl
         prints.append(Footprint(ev, lo, hi, w.inverters,
                                 factor=np.repeat(f_int[:, None], len(w.inverters), axis=1)))
     return events, prints
+
+
+def sawtooth_sums(y: np.ndarray, level: np.ndarray, rate: float):
+    """Sums of squares of a daily index ``y`` (NaN: no day) about its clean ``level`` (per
+    day) and about a ramp that loses ``rate`` of the level per day from a wash (Kimber et al.
+    2006: the loss grows linearly from each wash). Returns ``clean(i, j)`` and ``ramp(i,
+    j)``, the sums over the days [i, j) (arrays broadcast), a ramp washed at the start of day
+    i, a day standing for its middle (age t - i + 0.5 days)."""
+    ok = np.isfinite(y) & np.isfinite(level)
+    u = np.where(ok, y - level, 0.0)
+    v = np.where(ok, level * rate, 0.0)
+    t = np.arange(len(y)) + 0.5
+
+    def cum(x: np.ndarray) -> np.ndarray:
+        return np.concatenate([[0.0], np.cumsum(x)])
+
+    uu, uv, uvt = cum(u * u), cum(u * v), cum(u * v * t)
+    vv, vvt, vvtt = cum(v * v), cum(v * v * t), cum(v * v * t * t)
+
+    def clean(i, j):
+        return uu[j] - uu[i]
+
+    def ramp(i, j):
+        i = np.asarray(i, dtype=float)
+        ii, jj = i.astype(int), np.asarray(j, dtype=int)
+        d = lambda c: c[jj] - c[ii]  # noqa: E731
+        return (d(uu) + 2 * (d(uvt) - i * d(uv))
+                + d(vvtt) - 2 * i * d(vvt) + i * i * d(vv))
+
+    return clean, ramp
+
+
+def sawtooth_extent(y: np.ndarray, level: np.ndarray, rate: float, penalty: float,
+                    forward: bool) -> list[int]:
+    """Where the soiling of a found episode reaches into the days ``y`` beside it, as washes
+    of a ramp at the episode's ``rate`` (the episode's rate holds for the site's dust, Kimber
+    et al. 2006) chosen by the Schwarz criterion (optimal partitioning, Jackson et al. 2005):
+    each ramp costs ``penalty`` (the noise variance times ln n, Schwarz 1978) and must lower
+    the sum of squares (:func:`sawtooth_sums`) about the clean ``level`` (per day: the
+    model's error drifts with the season) by more than that.
+
+    ``forward``: the days follow the episode (a wash at day 0 started the first ramp; the
+    soiling ends at a cleaning, clean after it); else they precede it (the soiling starts at
+    some day, clean before it, and a wash at the end of ``y`` started the episode). Returns
+    the ramps' boundaries [s, ..., e] (positions in ``y``), an empty list for none.
+    """
+    n = len(y)
+    if n == 0 or not rate > 0:
+        return []
+    clean, ramp = sawtooth_sums(y, level, rate)
+    cost = np.full(n + 1, np.inf)
+    link = np.zeros(n + 1, dtype=int)
+    pos = np.arange(n + 1)
+    if forward:  # cost[j]: ramps over [0, j)
+        cost[0] = 0.0
+        for j in range(1, n + 1):
+            c = cost[:j] + ramp(pos[:j], j) + penalty
+            link[j] = int(np.argmin(c))
+            cost[j] = c[link[j]]
+        total = cost + clean(pos, n)
+        e = int(np.argmin(total))
+        if e == 0:
+            return []
+        out = [e]
+        while out[-1] > 0:
+            out.append(int(link[out[-1]]))
+        return out[::-1]
+    cost[n] = 0.0  # cost[i]: ramps over [i, n)
+    for i in range(n - 1, -1, -1):
+        c = cost[i + 1:] + ramp(i, pos[i + 1:]) + penalty
+        link[i] = i + 1 + int(np.argmin(c))
+        cost[i] = float(np.min(c))
+    total = clean(0, pos) + cost
+    st = int(np.argmin(total))
+    if st == n:
+        return []
+    out = [st]
+    while out[-1] < n:
+        out.append(int(link[out[-1]]))
+    return out

@@ -7,7 +7,10 @@ stalled row gets its most light when the designed rotation passes its angle and 
 the morning or evening on the far side. The detector compares the shape of each day's power
 with the tracked expectation and with the expectation of the rows held at each candidate
 angle (or turned by each candidate offset), the shapes from the weather of the day (measured
-GHI split by Erbs et al., transposed by Hay & Davies; :func:`perfcheck.physics.poa_at_rotation`).
+GHI split as in the model, :func:`perfcheck.physics.decompose`, transposed by Hay & Davies;
+:func:`perfcheck.physics.poa_at_rotation`; for bifacial modules the rear by the infinite-sheds
+model at the bifaciality, as in the model: a row held away from the sun takes much of its
+light on the rear).
 
 The statistic (:func:`day_fits`, pure): y = ln(measured / expected) per usable interval of a
 day, less the inverter's usual day shape (:func:`typical_shape`: the model's own errors have a
@@ -22,10 +25,11 @@ alone, inside the model's error, is not reported). Consecutive such days with on
 offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
 inside, join it while the event's angle fits them better than tracking; its onset and end are
 placed within their days by the split that fits best (:func:`_split`). Where the plant has
-other tracker inverters, a day whose shape more than half of them share is taken as the sky's
-or the model's, not the rows' (rows out of step differ from their neighbours; a plant-wide
-stall is therefore found from the angle channel only), and an event is reported when its most
-significant day is significant over all the inverter's days tested (its p-value times their
+other tracker inverters, a day on which more than half of them show a significant shape (any
+candidate) is taken as the sky's or the model's, not the rows' (rows out of step differ from
+their neighbours; a plant-wide stall is therefore found from the angle channel only), and an
+event is reported when its most significant day of its own (not such a shared day) is
+significant over all the inverter's days tested (its p-value times their
 number below alpha, Bonferroni). An inverter with no sibling has no such reference, and its
 day gains have a tail far heavier than the normal one: its event is reported when the run's
 days rank so high among its days, so persistently, that chance would place them there with
@@ -54,7 +58,8 @@ call it a fault.
 References
 ----------
 Marion & Dobos 2013 (NREL/TP-6A20-58891), the rotation and plane of a single-axis tracker;
-Erbs, Klein & Duffie 1982 (Solar Energy 28(4):293); Hay & Davies 1980; robust z-scores from
+Maxwell 1987 (DISC, SERI/TR-215-3087); Hay & Davies 1980; Mikofski et al. 2019 (IEEE 46th
+PVSC, 1282-1287), the rear of a row by infinite sheds; robust z-scores from
 the median and MAD: Hampel 1974 (JASA 69:383) and Iglewicz & Hoaglin 1993, How to Detect and
 Handle Outliers, ASQC (from memory).
 Pointing accuracy of about +-2 deg and stow of horizontal single-axis trackers at a stated
@@ -128,7 +133,8 @@ class Sky:
 
 
 def sky(w: Wide) -> Sky:
-    """The day's sky from the logged GHI (Erbs split), else from the clear-sky GHI."""
+    """The day's sky from the logged GHI (split by :func:`perfcheck.physics.decompose`), else
+    from the clear-sky GHI."""
     ghi = w.ghi if w.ghi.notna().sum() >= 0.5 * (w.zenith < 85).sum() else w.clearsky_ghi
     ghi = ghi.clip(lower=0.0).fillna(0.0)
     parts = ph.decompose(ghi, w.zenith)
@@ -147,10 +153,27 @@ def designed_rotation(w: Wide, array: Array) -> np.ndarray:
 
 
 def plane_poa(rotation: float | np.ndarray, array: Array, s: Sky) -> np.ndarray:
-    """Global irradiance of the array's rows at ``rotation`` [W/m^2]."""
+    """Irradiance of the array's rows at ``rotation`` [W/m^2]: the front's global irradiance,
+    and for bifacial modules the rear's at the bifaciality, as in the model's effective
+    irradiance (:func:`perfcheck.physics.bifacial_effective`). A row held facing away from the
+    sun takes much of its light on the rear: without it the shape of a stall is too deep."""
     t = array.tracker
-    return ph.poa_at_rotation(rotation, t.axis_tilt_deg, t.axis_azimuth_deg, s.zenith,
-                              s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra, array.albedo)
+    front = ph.poa_at_rotation(rotation, t.axis_tilt_deg, t.axis_azimuth_deg, s.zenith,
+                               s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra, array.albedo)
+    if array.bifacial is None:
+        return front
+    plane = pvlib.tracking.calc_surface_orientation(rotation, t.axis_tilt_deg,
+                                                    t.axis_azimuth_deg)
+    up = s.zenith < 90.0
+    solpos = pd.DataFrame({"apparent_zenith": np.where(up, s.zenith, 90.0),
+                           "azimuth": s.azimuth})
+    rear = ph.poa_rear(np.asarray(plane["surface_tilt"], dtype=float),
+                       np.asarray(plane["surface_azimuth"], dtype=float), solpos,
+                       pd.Series(s.ghi), pd.Series(s.dhi), pd.Series(s.dni), array.albedo,
+                       array.gcr, array.bifacial.row_height_m, array.bifacial.row_pitch_m)
+    both = ph.bifacial_effective(front, rear.to_numpy(dtype=float),
+                                 array.bifacial.bifaciality)
+    return np.where(up, both, 0.0)
 
 
 def log_ratio(poa: np.ndarray, tracked: np.ndarray) -> np.ndarray:
@@ -446,20 +469,25 @@ class Candidates:
     logr: np.ndarray  # candidates x intervals
 
 
-def candidates(w: Wide, array: Array, s: Sky, theta: np.ndarray) -> Candidates:
-    """Every stall angle within the rotation limits and every offset up to MAX_OFFSET_DEG."""
+def candidates(array: Array, s: Sky, theta: np.ndarray, rows: np.ndarray) -> Candidates:
+    """Every stall angle within the rotation limits and every offset up to MAX_OFFSET_DEG, at
+    the intervals ``rows`` (a mask; NaN elsewhere: only the usable intervals are compared)."""
     lim = array.tracker.max_angle_deg
-    tracked = plane_poa(theta, array, s)
+    at = np.flatnonzero(rows)
+    sk, th = _take(s, at), theta[at]
+    tracked = plane_poa(th, array, sk)
     labels: list[tuple[str, float]] = []
-    rows = []
+    parts = []
     for ang in np.arange(-lim, lim + 1e-9, STEP_DEG):
         labels.append(("stall", float(ang)))
-        rows.append(log_ratio(plane_poa(float(ang), array, s), tracked))
+        parts.append(log_ratio(plane_poa(float(ang), array, sk), tracked))
     offsets = np.arange(2 * STEP_DEG, MAX_OFFSET_DEG + 1e-9, STEP_DEG)
     for off in np.concatenate([-offsets[::-1], offsets]):
         labels.append(("step", float(off)))
-        rows.append(log_ratio(plane_poa(_turned(theta, off, array), array, s), tracked))
-    return Candidates(labels, np.vstack(rows))
+        parts.append(log_ratio(plane_poa(_turned(th, off, array), array, sk), tracked))
+    logr = np.full((len(parts), len(theta)), np.nan)
+    logr[:, at] = np.vstack(parts)
+    return Candidates(labels, logr)
 
 
 def angle_days(w: Wide, angle: pd.Series | None, theta: np.ndarray
@@ -510,9 +538,16 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
     z = stats.norm.isf(alpha)
     first = next(iter(arrays))
     found = {}
+    # the candidates' shapes depend on the rows' geometry alone: computed once for the
+    # inverters that share it, at the intervals any of them can use
+    rows = usable[list(arrays)].to_numpy().any(axis=1)
+    shapes: dict = {}
     for inv, a in arrays.items():
-        theta = designed_rotation(w, a)
-        cand = candidates(w, a, s, theta)
+        key = (a.tracker, a.gcr, a.albedo, a.bifacial)
+        if key not in shapes:
+            theta = designed_rotation(w, a)
+            shapes[key] = (theta, candidates(a, s, theta, rows))
+        theta, cand = shapes[key]
         with np.errstate(invalid="ignore", divide="ignore"):
             y = np.log(w.measured[inv].to_numpy() / w.expected[inv].to_numpy())
         y = np.where(usable[inv].to_numpy() & np.isfinite(y), y, np.nan)
@@ -521,7 +556,8 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         e = np.where(usable[inv].to_numpy(), np.nan_to_num(w.expected[inv].to_numpy()), 0.0)
         seed = _seed_days(e, cand, fits, codes, days, alpha, z * rel_sigma)
         found[inv] = (theta, cand, y, fits, seed)
-    _drop_shared({inv: f[4] for inv, f in found.items()})
+    _drop_shared({inv: f[4] for inv, f in found.items()},
+                 {inv: days[f[3].p_value < alpha] for inv, f in found.items()})
     channel = angle_days(w, angle, found[first][0])
     tracking = [d for d, lab in channel.items() if lab[0] == "track"]
     shown = {d: lab for d, lab in channel.items() if lab[0] != "track"}
@@ -536,12 +572,13 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         blocked = tracking if inv == first else []
         for lab, first_day, last_day in _group(seed, days, cand, fits, blocked):
             run = (days >= first_day) & (days <= last_day)
+            own = run & np.isin(days, list(seed))  # not the days its neighbours share
             seen = inv == first and any(first_day <= d <= last_day for d in shown)
             if alone:
                 span = int((last_day - first_day) / np.timedelta64(1, "D")) + 1
-                p_run = run_p_value(fits.gain, run & np.isin(days, list(seed)), span)
-            else:  # the most significant day over the inverter's days (Bonferroni)
-                p_run = float(np.min(fits.p_value[run])) * tested
+                p_run = run_p_value(fits.gain, own, span)
+            else:  # its most significant own day over the inverter's days (Bonferroni)
+                p_run = float(np.min(fits.p_value[own], initial=1.0)) * tested
             if not (seen or p_run < alpha):
                 continue
             ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
@@ -568,18 +605,19 @@ def _seed_days(e: np.ndarray, cand: Candidates, fits: DayFits, codes: np.ndarray
     return out
 
 
-def _drop_shared(seeds: dict[str, dict]) -> None:
-    """A stall or an offset is one inverter's rows unlike their neighbours': a day whose shape
-    more than half of the tracker inverters share is the sky's or the model's (a plant-wide
-    stall is found from the ``tracker_angle`` channel)."""
+def _drop_shared(seeds: dict[str, dict], shaped: dict[str, np.ndarray]) -> None:
+    """A stall or an offset is one inverter's rows unlike their neighbours': a day on which
+    more than half of the tracker inverters show a significant shape (``shaped``: their days
+    with a p-value below alpha, whatever the candidate and however small the loss) is the
+    sky's or the model's (a plant-wide stall is found from the ``tracker_angle`` channel)."""
     if len(seeds) < 2:
         return
     count: dict = {}
-    for seed in seeds.values():
-        for d in seed:
+    for marked in shaped.values():
+        for d in marked:
             count[d] = count.get(d, 0) + 1
     for seed in seeds.values():
-        for d in [d for d in seed if count[d] > len(seeds) / 2]:
+        for d in [d for d in seed if count.get(d, 0) > len(seeds) / 2]:
             del seed[d]
 
 
@@ -646,10 +684,8 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     far = u & ~near & np.isfinite(m)  # the inverter's usual performance index, away from it
     pi0 = float(np.sum(m[far]) / np.sum(e_all[far])) if far.any() else 1.0
     y = y_all[lo:hi]  # about the usual day shape, whose level is the usual one
-    sk = _slice(s, lo, hi)
+    sk = _take(s, slice(lo, hi))
     tracked = plane_poa(theta[lo:hi], a, sk)
-    if fam == "step":  # the offset again, at the usual level: a constant share is an offset's
-        val = _offset_at_level(y, theta[lo:hi], a, sk, tracked)
     held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk)
     lr = log_ratio(held, tracked)
     d = day[lo:hi]
@@ -699,18 +735,6 @@ def _turned(theta: np.ndarray, offset: float, array: Array) -> np.ndarray:
     return np.clip(theta + offset, -lim, lim)
 
 
-def _offset_at_level(y: np.ndarray, theta: np.ndarray, array: Array, s: Sky,
-                     tracked: np.ndarray) -> float:
-    """The offset whose shape fits ``y`` (ln of measured over expected, less the usual level)
-    best with no free constant."""
-    offsets = np.arange(-MAX_OFFSET_DEG, MAX_OFFSET_DEG + 1e-9, STEP_DEG / 2)
-    sse = []
-    for off in offsets:
-        z = y - log_ratio(plane_poa(_turned(theta, off, array), array, s), tracked)
-        sse.append(float(np.nanmean(z * z)) if np.isfinite(z).any() else np.inf)
-    return float(offsets[int(np.argmin(sse))])
-
-
 def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray, onset: bool
            ) -> int:
     """Where the fault began (``onset``) or ended, within the run's edge day and the day
@@ -732,5 +756,6 @@ def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray,
     return int(ok[k - 1]) + 1 if k > 0 else int(edge_rows[-1]) + 1
 
 
-def _slice(s: Sky, lo: int, hi: int) -> Sky:
-    return Sky(*(x[lo:hi] for x in (s.zenith, s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra)))
+def _take(s: Sky, at: slice | np.ndarray) -> Sky:
+    """The sky at the intervals ``at`` (a slice or positions)."""
+    return Sky(*(x[at] for x in (s.zenith, s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra)))

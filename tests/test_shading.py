@@ -1,0 +1,84 @@
+"""The statistics of the shading detector against known answers (invented columns of sky).
+
+Each check builds a column of clear intervals whose truth is set by construction, so the
+answer follows from the definitions in :mod:`perfcheck.detect.shading` (common practice:
+no published reference values exist for these small pieces).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from perfcheck.detect import shading
+
+
+def _column(rng: np.random.Generator, days: int = 120, per_day: int = 12,
+            growth_deg_per_day: float = 0.15, noise_rate: float = 0.0):
+    """Clear intervals of one column: random elevations 0-40 deg, labelled shaded under a
+    top that rises linearly from 0 (and at ``noise_rate`` anywhere, as false labels)."""
+    day_pos = np.repeat(np.arange(days), per_day)
+    elev = rng.uniform(0.5, 40.0, len(day_pos))
+    top = growth_deg_per_day * np.arange(days)
+    labels = (elev < top[day_pos]) | (rng.random(len(day_pos)) < noise_rate)
+    return day_pos, elev, labels, top
+
+
+def test_fit_top_follows_a_rising_top():
+    # derived from the definition: with noise-free labels the fitted top lies between the
+    # highest shaded and the lowest unshaded elevation seen each day, so within the spacing
+    # of the observed elevations (12 a day over 40 deg: a few degrees) of the truth
+    rng = np.random.default_rng(3)
+    day_pos, elev, labels, top = _column(rng)
+    obs = np.ones(len(day_pos), dtype=bool)
+    fit = shading._fit_top(obs, labels, elev, day_pos)
+    assert np.all(np.diff(fit) >= 0)  # never falls
+    assert np.median(np.abs(fit - top)) < 2.0
+    high = shading._fit_top(obs, labels, elev, day_pos, highest=True)
+    assert np.all(high >= fit)
+    # every label agrees with both fits (no disagreement is possible without noise)
+    for f in (fit, high):
+        assert np.array_equal(elev < f[day_pos], labels)
+
+
+def test_fit_top_without_labels_is_zero():
+    rng = np.random.default_rng(4)
+    day_pos, elev, _, _ = _column(rng)
+    fit = shading._fit_top(np.ones(len(elev), dtype=bool), np.zeros(len(elev), dtype=bool),
+                           elev, day_pos)
+    assert np.all(fit == 0)
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_column_test_silent_on_scattered_labels(seed):
+    # labels at 5 % anywhere and no obstruction: the cross-fitted count is binomial at the
+    # column's own rate, so p < 0.001 should not occur in five seeds (false-alarm rate 0.1 %)
+    rng = np.random.default_rng(seed)
+    day_pos, elev, _, _ = _column(rng, growth_deg_per_day=0.0, noise_rate=0.05)
+    labels = rng.random(len(elev)) < 0.05
+    _, _, p, _ = shading._column_top(np.ones(len(elev), dtype=bool), labels,
+                                     np.ones(len(elev), dtype=bool), elev, day_pos, 0.05)
+    assert p > 1e-3
+
+
+def test_column_test_finds_a_growing_top_among_false_labels():
+    rng = np.random.default_rng(7)
+    day_pos, elev, labels, top = _column(rng, noise_rate=0.05)
+    fit, high, p, end = shading._column_top(np.ones(len(elev), dtype=bool), labels,
+                                            np.ones(len(elev), dtype=bool), elev, day_pos,
+                                            0.05)
+    assert p < 1e-6
+    assert end == pytest.approx(top[-1], abs=3.0)
+    assert np.all(high >= fit)
+
+
+def test_bin_trend_takes_the_place_in_the_bin_apart_from_time():
+    # derived from OLS: a deficit that depends on the sun's elevation within the bin alone,
+    # sampled at elevations that drift with the season, has no trend once the elevation is
+    # a covariate (exact without noise); a trend alone would take the drift as growth
+    t = np.linspace(0.0, 0.8, 60)
+    el = 10.0 + 4.0 * t + np.sin(9 * t)  # the season moves the path across the bin
+    az = 120.0 + np.cos(7 * t)
+    y = 0.02 * (el - 10.0)
+    slope, _, p = shading._bin_trend(t, y, np.column_stack([el, az]))
+    assert slope == pytest.approx(0.0, abs=1e-9)
