@@ -356,7 +356,9 @@ def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex
     for k, g in enumerate(groups):
         nxt = int(np.searchsorted(days, groups[k + 1][0][0])) if k + 1 < len(groups) \
             else len(days)
-        end = int(np.searchsorted(days, g[-1][1]))
+        # the day of the last recovery is soiled until the wash and clean after it: the ramps
+        # after it begin the next day
+        end = int(np.searchsorted(days, g[-1][1])) + 1
         for lo, hi, f, forward in ((done, g[0][3]["onset_at"], g[0][3], False),
                                    (end, nxt, g[-1][3], True)):
             rel = -f["rate"] / f["clean_level"]
