@@ -23,10 +23,6 @@ both, the shortfall is split in this order (each step works on what the steps be
    less the losses of the shares before it); a share measured against the inverter's own level
    (:data:`AT_LEVEL`) is scaled by that level too (measured over what the shares before it
    left, on the days around the event).
-
-An event found by a loss of class ``interval`` or in :data:`AT_LEVEL` takes its energy and its
-95 % band from here: the level's standard error (autocorrelation-aware) times the expected
-energy behind the loss, with the share's own error where there is one.
 3. ``underperformance`` (class ``residual``): in each period flagged by the baseline CUSUM, what
    steps 1-2 leave, when it is significant: above 3 times the daily relative model error (at
    least 1 %) times the period's expected energy (model errors taken as fully correlated over
@@ -34,6 +30,10 @@ energy behind the loss, with the share's own error where there is one.
    with the period's level shift at least 3 standard errors against the month-to-month
    wandering of the level (:func:`perfcheck.detect.baseline.shift_z`).
 4. Unexplained: the rest (noise and model error, either sign).
+
+An event found by a loss of class ``interval`` or in :data:`AT_LEVEL` takes its energy and its
+95 % band from here: the level's standard error (autocorrelation-aware) times the expected
+energy behind the loss, with the share's own error where there is one.
 
 Clipping at the AC rating (class ``design``) lies inside the expected series; its energy, the
 unlimited expected power above the rating, is recorded beside the losses, never among them.
