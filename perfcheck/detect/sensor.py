@@ -196,27 +196,44 @@ def _edges(x: np.ndarray, start: int, stop: int, k: int) -> list[float]:
 
 
 def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int = 3,
-              mirror: pd.Series | None = None) -> dict[str, Any] | None:
+              mirror: pd.Series | None = None, level: float = 0.95) -> dict[str, Any] | None:
     """Least-squares fit of a sensor error that ends in a reset: ``x`` (one value per day)
-    over the days [lo, reset) as c + d h(t) with an onset t0, h 0 before t0 and from it either
-    1 (a step) or (t - t0) / (reset - t0) (a drift: a straight line from the usual level c to
-    c + d on the day before the reset).
+    over the days [lo, reset) as the reference's own course b(t) plus d h(t) with an onset t0,
+    h 0 before t0 and from it either 1 (a step) or (t - t0) / (reset - t0) (a drift: a
+    straight line from the usual course to d above it on the day before the reset).
+
+    b(t) is a level c, or a level and a slope: an independent reference errs with the season
+    (a thermal model with the wind and the sky, the power model with the sun's path) by
+    about as much as a slow drift moves it over weeks, and a level alone then bends the fit
+    towards the seasonal course. The drift shape with a sloping b is the continuous two-phase
+    (hinge) regression, where the onset is the day the slope changes. Of the two courses the
+    one with the smaller Schwarz criterion (BIC, n log(SSE / n) + k log n) is kept; the
+    shapes have the same parameters, so of those the smaller residual sum of squares.
 
     ``mirror``, if given, is a second daily series that the same error moves by -d (the
-    sensor-fed inverters' log index): it is fitted jointly as c' - d h(t), each series weighted
-    by its inverse robust variance (:func:`perfcheck.detect.common.robust_sigma`), so that
-    two pieces of evidence with errors of their own place the onset together. Every onset at
-    least ``min_days`` days inside the span is tried for both shapes (two-phase regression with
-    an unknown join, Hinkley 1969; both shapes have the same parameters, so the smaller
-    weighted residual sum of squares is the likelier). Returns the shape, onset, c, d and the
-    standard error of d from the standardised residuals' long-run variance
-    (:func:`perfcheck.detect.common.long_run_sigma`, autocorrelation-aware); None when the
+    sensor-fed inverters' log index): it is fitted jointly with a course of its own and
+    -d h(t), each series weighted by its inverse robust variance
+    (:func:`perfcheck.detect.common.robust_sigma`), so that two pieces of evidence with
+    errors of their own place the onset together. Every onset at least ``min_days`` days
+    inside the span is tried (the profile of the residual sum of squares over t0).
+
+    Returns the shape, the course (``"level"`` or ``"slope"``), the onset, c (the level of
+    ``x``'s course at the reset), d, the standard error of d from the standardised
+    residuals' long-run variance (:func:`perfcheck.detect.common.long_run_sigma`,
+    autocorrelation-aware), and the onset's ``level`` confidence interval (``onset_low``,
+    ``onset_high``: the onsets whose residual sum of squares exceeds the least by at most the
+    chi-square quantile with one degree of freedom times the long-run variance, the profile
+    likelihood interval; asymptotically valid for the continuous join, Feder 1975, and
+    approximate for a step, whose onset is placed to within a day or two). None when the
     span is too short.
 
     References
     ----------
     Hinkley 1969, Biometrika 56(3):495 (two-phase regression with an unknown join point);
-    Hamilton 1994, Time Series Analysis, sec. 7.2 (long-run variance); both from memory.
+    Hinkley 1971, JASA 66(336):736 (inference in two-phase regression, continuous join);
+    Feder 1975, Ann. Statist. 3(1):49 (asymptotics of segmented regression: the join's
+    likelihood ratio); Schwarz 1978, Ann. Statist. 6(2):461 (BIC); Hamilton 1994, Time Series
+    Analysis, sec. 7.2 (long-run variance); all from memory.
     """
     parts = [(x, 1.0)] + ([] if mirror is None else [(mirror, -1.0)])
     cut = [p[(p.index >= lo) & (p.index < reset)].dropna() for p, _ in parts]
@@ -226,29 +243,50 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
     t = [((c.index - reset) / pd.Timedelta(days=1)).to_numpy(dtype=float) for c in cut]
     wt = [1 / max(robust_sigma(c.to_numpy()), 1e-6) if len(c) else 0.0 for c in cut]
     v = np.concatenate([c.to_numpy() * k for c, k in zip(cut, wt, strict=True)])
-    ones = [np.zeros((len(c), len(cut))) for c in cut]
-    for i, o in enumerate(ones):
-        o[:, i] = wt[i]
-    base = np.vstack(ones)
+    n = len(v)
+    # per series a level and a slope in days before the reset, each on its own rows
+    level_cols = np.zeros((n, len(cut)))
+    slope_cols = np.zeros((n, len(cut)))
+    row = 0
+    for i, (c, k) in enumerate(zip(cut, wt, strict=True)):
+        level_cols[row:row + len(c), i] = k
+        slope_cols[row:row + len(c), i] = k * t[i]
+        row += len(c)
+    used = [i for i, c in enumerate(cut) if len(c)]
+    courses = {"level": level_cols[:, used],
+               "slope": np.column_stack([level_cols[:, used], slope_cols[:, used]])}
     sign = np.concatenate([np.full(len(c), g * k) for c, (_, g), k in zip(cut, parts, wt,
                                                                          strict=True)])
     tt = np.concatenate(t)
-    best: dict[str, Any] = {"sse": np.inf}
-    for k in range(min_days, len(cut[0]) - min_days + 1):
-        t0 = t[0][k]
-        for shape, h in (("drift", np.clip((tt - t0) / -t0, 0.0, None)),
-                         ("step", (tt >= t0).astype(float))):
-            a = np.column_stack([base, sign * h])
-            coef, *_ = np.linalg.lstsq(a, v, rcond=None)
-            resid = v - a @ coef
-            sse = float(resid @ resid)
-            if sse < best["sse"]:
-                best = {"sse": sse, "shape": shape, "onset": cut[0].index[k],
-                        "c": float(coef[0] / wt[0]), "d": float(coef[-1]), "a": a,
-                        "resid": resid}
-    a, resid = best.pop("a"), best.pop("resid")
+    onsets = list(range(min_days, len(cut[0]) - min_days + 1))
+    fits = {}
+    for course, base in courses.items():
+        best: dict[str, Any] = {"sse": np.inf}
+        profile = {"drift": np.full(len(onsets), np.inf), "step": np.full(len(onsets), np.inf)}
+        for j, k in enumerate(onsets):
+            t0 = t[0][k]
+            for shape, h in (("drift", np.clip((tt - t0) / -t0, 0.0, None)),
+                             ("step", (tt >= t0).astype(float))):
+                a = np.column_stack([base, sign * h])
+                coef, *_ = np.linalg.lstsq(a, v, rcond=None)
+                resid = v - a @ coef
+                sse = float(resid @ resid)
+                profile[shape][j] = sse
+                if sse < best["sse"]:
+                    best = {"sse": sse, "shape": shape, "onset": cut[0].index[k],
+                            "c": float(coef[0] / wt[0]), "d": float(coef[-1]), "a": a,
+                            "resid": resid}
+        best["course"], best["profile"] = course, profile[best["shape"]]
+        best["bic"] = n * np.log(max(best["sse"], 1e-300) / n) + (base.shape[1] + 2) * np.log(n)
+        fits[course] = best
+    best = min(fits.values(), key=lambda f: f["bic"])
+    a, resid, profile = best.pop("a"), best.pop("resid"), best.pop("profile")
     sig, _ = long_run_sigma(resid)
     best["se_d"] = float(sig * np.sqrt(np.linalg.pinv(a.T @ a)[-1, -1]))
+    near = np.flatnonzero(profile - best["sse"] <= stats.chi2.ppf(level, 1) * sig ** 2)
+    best["onset_low"] = cut[0].index[onsets[near.min()]]
+    best["onset_high"] = cut[0].index[onsets[near.max()]]
+    del best["bic"]
     return best
 
 
@@ -325,6 +363,9 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
             mode="level", factor=float(np.exp(d)), daily_factor=pd.Series(np.exp(d * h),
                                                                           index=every),
             evidence={"test": "two-phase regression ending in a reset", "shape": fit["shape"],
+                      "reference_course": fit["course"],
+                      "onset_95_from": str(fit["onset_low"].date()),
+                      "onset_95_to": str(fit["onset_high"].date()),
                       "p_value": p, "days": int(len(every)),
                       "sensor_vs_reference_change_pct": 100 * float(np.expm1(d)),
                       "detectable_from": str(detectable[0].date()),
