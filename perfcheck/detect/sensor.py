@@ -11,8 +11,10 @@ is left to its own detector; the sensor is blamed only where an independent refe
   solved for the irradiance, :func:`perfcheck.physics.poa_from_module_temperature`), a
   reference on every day whatever the sky, is segmented likewise; behind each step back
   towards the usual level a step or a straight drift is fitted with the driven inverters'
-  index (:func:`reset_fit`), kept when significant and mirrored by the index at the reset.
-  A sensor reading a few % low for a month is found so even without a clear day.
+  index (:func:`reset_fit`: two-phase regression over each reference's own level, or level
+  and slope, the Schwarz criterion choosing; the onset with its profile-likelihood
+  interval), kept when significant and mirrored by the index at the reset. A sensor reading
+  a few % low for a month is found so even without a clear day.
 * Level, from the power (:func:`power_faults`): the driven inverters' daily log index (less
   the other inverters' where some do not depend on the sensor) is segmented every day by
   circular binary segmentation (:func:`perfcheck.detect.common.change_points`, false-alarm
@@ -40,8 +42,9 @@ References
 ----------
 Olshen, Venkatraman, Lucito & Wigler 2004 (circular binary segmentation); Welch 1947
 (Biometrika 34:28, unequal-variance t test); Ineichen & Perez 2002 (clear sky); Sen 1968
-(Theil-Sen line of a drift); Hinkley 1969 (Biometrika 56:495, two-phase regression); all
-from memory. King, Boyson & Kratochvil 2004, SAND2004-3535, eq. 11 (module temperature).
+(Theil-Sen line of a drift); Hinkley 1969 (Biometrika 56:495) and 1971 (JASA 66:736),
+two-phase regression; Feder 1975 (Ann. Statist. 3:49, segmented regression asymptotics);
+Schwarz 1978 (Ann. Statist. 6:461, BIC); all from memory. King, Boyson & Kratochvil 2004, SAND2004-3535, eq. 11 (module temperature).
 """
 
 from __future__ import annotations
@@ -71,7 +74,7 @@ stats = lazy_module("scipy.stats")
 METHOD = ("the sensor-driven inverters' daily index, the POA sensor against clear-sky POA "
           "on clear days and against the irradiance its module temperature implies: circular "
           "binary segmentation (Olshen et al. 2004), Welch t tests and two-phase regression "
-          "(Hinkley 1969), each confirmed by another; identical-value runs for stuck readings")
+          "(Hinkley 1969, 1971; Schwarz criterion), each confirmed by another; identical-value runs for stuck readings")
 
 
 # confirmation of a candidate found in the power by an independent reference: the span
