@@ -44,7 +44,8 @@ Olshen, Venkatraman, Lucito & Wigler 2004 (circular binary segmentation); Welch 
 (Biometrika 34:28, unequal-variance t test); Ineichen & Perez 2002 (clear sky); Sen 1968
 (Theil-Sen line of a drift); Hinkley 1969 (Biometrika 56:495) and 1971 (JASA 66:736),
 two-phase regression; Feder 1975 (Ann. Statist. 3:49, segmented regression asymptotics);
-Schwarz 1978 (Ann. Statist. 6:461, BIC); all from memory. King, Boyson & Kratochvil 2004, SAND2004-3535, eq. 11 (module temperature).
+Schwarz 1978 (Ann. Statist. 6:461, BIC); all from memory. King, Boyson & Kratochvil 2004,
+SAND2004-3535, eq. 11 (module temperature).
 """
 
 from __future__ import annotations
@@ -74,7 +75,8 @@ stats = lazy_module("scipy.stats")
 METHOD = ("the sensor-driven inverters' daily index, the POA sensor against clear-sky POA "
           "on clear days and against the irradiance its module temperature implies: circular "
           "binary segmentation (Olshen et al. 2004), Welch t tests and two-phase regression "
-          "(Hinkley 1969, 1971; Schwarz criterion), each confirmed by another; identical-value runs for stuck readings")
+          "(Hinkley 1969, 1971; Schwarz criterion), each confirmed by another; identical-value "
+          "runs for stuck readings")
 
 
 # confirmation of a candidate found in the power by an independent reference: the span
