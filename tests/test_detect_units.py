@@ -1,4 +1,4 @@
-"""Pure pieces of the sensor, soiling, degradation and partial-outage detectors
+"""Pure pieces of the sensor, soiling, degradation, partial-outage and derate detectors
 against invented truths."""
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from perfcheck.detect import degradation, partial, sensor, soiling
+from perfcheck.detect import clipping, degradation, partial, sensor, soiling
 from perfcheck.detect.common import Segment, change_points
 
 DAYS = pd.date_range("2024-01-01", periods=240, freq="D")
@@ -146,3 +146,58 @@ def test_partial_string_changes_stay_apart():
     assert partial.merge_within(x, segs, segs[0], 0.1) == segs
     near = [Segment(0, 10, 0.0), Segment(10, 20, -0.01)]
     assert partial.merge_within(x, near, near[0], 0.1) == near
+
+
+def _held_day(rng: np.random.Generator, level: float, peak: float, sd: float
+              ) -> tuple[pd.Series, pd.Series]:
+    """Invented truth: one day of 5-minute intervals, expected power a sine arch peaking at
+    ``peak`` [W], measured power the expected held at ``level`` with noise sd ``sd``."""
+    t = pd.date_range("2024-03-01 06:00", "2024-03-01 18:00", freq="5min", inclusive="left")
+    e = pd.Series(peak * np.sin(np.pi * np.arange(len(t)) / len(t)), index=t)
+    return np.minimum(e, level) * (1 + rng.normal(0.0, sd, len(t))), e
+
+
+def test_plateau_tolerance_is_the_normal_quantile_of_the_plateau_noise():
+    # invented truth: a limit of 10 kW held on one day, reading noise sd 0.3 %; the two-sided
+    # normal quantile at alpha 1e-3 is 3.2905 (standard normal tables), so the half-width is
+    # about 1 %; 15 % tolerance for the robust scale of about 50 plateau readings
+    m, _ = _held_day(np.random.default_rng(1), 10000.0, 14000.0, 0.003)
+    days = m.index.normalize().to_numpy()
+    limit = pd.Series([10000.0], index=pd.DatetimeIndex(["2024-03-01"]))
+    tol_p = clipping.plateau_tolerance(m, limit, days, 0.05, 1e-3)
+    assert tol_p == pytest.approx(3.2905 * 0.003, rel=0.15)
+    # a quiet meter: never below the 0.5 % floor; a noisy one: never above ``tol``
+    m0, _ = _held_day(np.random.default_rng(1), 10000.0, 14000.0, 0.0)
+    assert clipping.plateau_tolerance(m0, limit, days, 0.05, 1e-3) == 0.005
+    assert clipping.plateau_tolerance(m, limit, days, 0.004, 1e-3) == 0.004
+
+
+def test_a_day_shows_a_limit_only_when_the_power_stays_flat_below_a_moving_expectation():
+    # invented truth (common practice: a plateau while the expected power moves): a day held
+    # at 10 kW under an arch to 14 kW shows the limit; an unlimited day whose power peaks at
+    # 10 kW under an expected power 6 % higher (it follows the expected curve over its flat
+    # top) does not, nor a day whose arch never reaches the limit; the day held at 10 kW rose
+    # above a limit of 9.5 kW
+    rng = np.random.default_rng(2)
+    held = _held_day(rng, 10000.0, 14000.0, 0.001)
+    free_m, free_e = _held_day(rng, 1e9, 10000.0, 0.001)
+    low = _held_day(rng, 10000.0, 8000.0, 0.001)
+    for (m, e), shows in ((held, True), ((free_m, free_e * 1.06), False), (low, False)):
+        days = m.index.normalize().to_numpy()
+        assert bool(clipping.days_at(m, e, days, 10000.0, 0.03, 0.005).iloc[0]) is shows
+        assert not clipping.days_above(m, days, 10000.0, 0.005).iloc[0]
+    m = held[0]
+    assert clipping.days_above(m, m.index.normalize().to_numpy(), 9500.0, 0.005).iloc[0]
+
+
+def test_a_derate_window_ends_on_the_last_day_that_shows_the_limit():
+    # invented truth: held on days 5-8; days 3 and 10 show the limit, days 2, 4 and 9 are
+    # cloudy (nothing either way), days 1 and 11 rose above it and day 12 shows it again
+    # (beyond a day above the limit: not the same derate)
+    d = pd.date_range("2024-03-01", periods=13, freq="D")
+    at = pd.Series(False, index=d)
+    at.iloc[[3, 5, 6, 7, 8, 10, 12]] = True
+    up = pd.Series(False, index=d)
+    up.iloc[[1, 11]] = True
+    first, last, before, after = clipping._widen(d[5], d[8], at, up)
+    assert (first, last, before, after) == (d[3], d[10], d[1], d[11])

@@ -176,7 +176,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ev, out_mask = outage.detect(w, rel_sigma, reported=reported)
     events += ev
     t = lap("outage", t)
-    ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask, spread)
+    ev, clip_mask, design = clipping.detect(w, rel_sigma, step_noise, out_mask, spread,
+                                             st.alpha)
     design.update(design_stow)
     events += ev
     t = lap("clipping", t)

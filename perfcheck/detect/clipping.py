@@ -16,13 +16,20 @@ highest power of the day is a plateau (at least ``min_minutes`` of intervals wit
 tolerance of it) below the rating while its expected power stands above it by the margin and
 moves (over those intervals the measured power's relative range at most half the expected
 power's: at a broad noon peak the power follows the expected curve, under a limit it does
-not); the
-same limit held on at least two days, with no day between on which the inverter rose above
-it, is one derate, from the first held day to the end of the last (a setting that persists,
-where a grid operator's order limits the plant on a day: common practice). A day on which
-every sibling stood below its expected power by the margin while this inverter was held is
-left to the curtailment detector (a shared set-point). The design clipping is then estimated
-outside the derates.
+not). The same limit held on at least two days, with no day between on which the inverter
+rose above it, is one derate (a setting that persists, where a grid operator's order limits
+the plant on a day: common practice). A day *rose above* the limit when two of its readings
+exceed it by more than the plateau's tolerance (:func:`plateau_tolerance`: the normal
+quantile at the detectors' ``alpha`` times the noise of the readings on the held plateaus).
+
+Held days need clear skies; the derate's window is then widened on either side to the
+farthest day that still *shows* the limit (:func:`days_at`: two readings on the plateau while
+the expected power stands above it and moves), up to a day that rose above it. A day whose
+expected power never reaches the limit (cloud, low sun) shows nothing either way: the window
+ends on the last day with evidence, and the true boundary lies between it and the day above
+the limit, which the event's evidence names. A day on which every sibling stood below its
+expected power by the margin while this inverter was held is left to the curtailment
+detector (a shared set-point). The design clipping is then estimated outside the derates.
 
 References
 ----------
@@ -33,17 +40,34 @@ threshold form used here is common practice.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from functools import partial
+from statistics import NormalDist
+
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, energy_band, scope_of
+from perfcheck.detect.common import Event, Wide, energy_band, robust_sigma, scope_of
 
 METHOD = ("plateau at the inverter's AC limit while unlimited expected power exceeds it "
           "(in the spirit of Perry, Muller & Anderson 2021)")
 
 
 METHOD_DERATE = ("daily ceiling held flat below the AC rating while the expected power exceeds it, "
-                 "the same limit on consecutive days (plateau test, common practice)")
+                 "the same limit on consecutive days, widened to the days that still show it "
+                 "(plateau test, common practice)")
+
+
+def held_flat(measured: pd.DataFrame | pd.Series, expected: pd.DataFrame | pd.Series,
+              held: pd.DataFrame | pd.Series, days: np.ndarray) -> pd.DataFrame | pd.Series:
+    """Per day: True where, over the ``held`` intervals, the measured power's relative range
+    is at most half the expected power's (a limit holds the power while the expected power
+    moves; at a broad noon peak the power follows the expected curve)."""
+    def rel_range(f: pd.DataFrame | pd.Series) -> pd.DataFrame | pd.Series:
+        g = f.where(held).groupby(days)
+        return (g.max() - g.min()) / g.mean()
+
+    return rel_range(measured) <= 0.5 * rel_range(expected)
 
 
 def derated_days(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
@@ -59,14 +83,7 @@ def derated_days(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
     held = ((m - top).abs() <= tol * top) & w.expected.ge(top * (1 + margin))
     minutes = held.mul(w.interval_s.to_numpy() / 60, axis=0).groupby(days).sum()
     ceiling = m.groupby(days).max()
-    # a limit holds the power while the expected power moves (at a broad noon peak the
-    # power follows the expected curve): over the held intervals the measured power's range
-    # at most half the expected power's, relative to their means
-    def rel_range(f: pd.DataFrame) -> pd.DataFrame:
-        g = f.where(held).groupby(days)
-        return (g.max() - g.min()) / g.mean()
-
-    moves = rel_range(w.measured) <= 0.5 * rel_range(w.expected)
+    moves = held_flat(w.measured, w.expected, held, days)
     ok = (minutes >= min_minutes) & moves & ceiling.lt(w.ac_w * (1 - tol), axis=1) & ceiling.gt(
         w.ac_w * 0.1, axis=1)
     if len(w.inverters) > 1:
@@ -80,12 +97,45 @@ def derated_days(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
     return ceiling.where(ok)
 
 
-def _derate_runs(limit: pd.Series, ceiling: pd.Series, tol: float
+def plateau_tolerance(measured: pd.Series, limit: pd.Series, days: np.ndarray, tol: float,
+                      alpha: float) -> float:
+    """Relative half-width of a held limit's plateau [-]: z(1 - alpha/2) times the noise of
+    the measured power on the held days' intervals within ``tol`` of their limit
+    (:func:`perfcheck.detect.common.robust_sigma`), at least 0.005 (``tol``'s floor) and at
+    most ``tol`` (``limit``: the held limit per day, NaN on the other days)."""
+    lv = limit.reindex(days).to_numpy()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        x = measured.to_numpy() / lv - 1
+    x = x[np.isfinite(x) & (x >= -tol) & (x <= tol)]
+    if len(x) < 3:
+        return tol
+    z = NormalDist().inv_cdf(1 - alpha / 2)
+    return float(min(tol, max(z * robust_sigma(x), 0.005)))
+
+
+def days_above(measured: pd.Series, days: np.ndarray, level: float, tol_p: float) -> pd.Series:
+    """Per day: the inverter delivered more than a limit at ``level`` allows, at least two
+    intervals above it by more than the plateau tolerance ``tol_p`` (under the limit each
+    reading passes that bound with probability alpha/2, two in a day of n readings with
+    about (n alpha / 2)^2 / 2: a day that rose above the limit was not limited)."""
+    return (measured > level * (1 + tol_p)).groupby(days).sum() >= 2
+
+
+def days_at(measured: pd.Series, expected: pd.Series, days: np.ndarray, level: float,
+            tol: float, tol_p: float) -> pd.Series:
+    """Per day: evidence of a limit at ``level`` [W]: at least two intervals within ``tol_p``
+    of it while the expected power stands above it by ``tol``, the measured power flat over
+    them while the expected power moves (:func:`held_flat`)."""
+    at = ((measured / level - 1).abs() <= tol_p) & (expected >= level * (1 + tol))
+    return (at.groupby(days).sum() >= 2) & held_flat(measured, expected, at, days)
+
+
+def _derate_runs(limit: pd.Series, above: Callable[[float], pd.Series], tol: float
                  ) -> list[tuple[pd.Timestamp, pd.Timestamp, float]]:
     """(first day, last day, limit [W]) of each run of held days at one limit (within
-    2 ``tol``) with no day between whose highest power rose above it (a day held lower is
-    consistent with the limit and neither joins nor breaks the run); runs of one held day
-    are left out."""
+    2 ``tol``) with no day between on which the inverter rose above it (``above(level)``:
+    :func:`days_above`; a day held lower is consistent with the limit and neither joins nor
+    breaks the run); runs of one held day are left out."""
     out = []
     held = limit.dropna()
     done = np.zeros(len(held), dtype=bool)
@@ -93,10 +143,10 @@ def _derate_runs(limit: pd.Series, ceiling: pd.Series, tol: float
         if done[k]:
             continue
         lv, last, members = float(held.iloc[k]), held.index[k], [k]
+        up = above(lv)
         for j in range(k + 1, len(held)):
             nxt = held.index[j]
-            between = ceiling[(ceiling.index > last) & (ceiling.index < nxt)]
-            if (between > lv * (1 + 2 * tol)).any() or held.iloc[j] > lv * (1 + 2 * tol):
+            if up[(up.index > last) & (up.index < nxt)].any() or held.iloc[j] > lv * (1 + 2 * tol):
                 break
             if held.iloc[j] >= lv * (1 - 2 * tol):
                 members.append(j)
@@ -108,7 +158,31 @@ def _derate_runs(limit: pd.Series, ceiling: pd.Series, tol: float
     return out
 
 
-def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float
+def _widen(first: pd.Timestamp, last: pd.Timestamp, at: pd.Series, up: pd.Series
+           ) -> tuple[pd.Timestamp, pd.Timestamp, pd.Timestamp | None, pd.Timestamp | None]:
+    """A run's window widened to the farthest days on either side that show the limit
+    (``at``: :func:`days_at`) before a day that rose above it (``up``: :func:`days_above`).
+
+    Returns (first day, last day, the day above the limit before, the one after; None where
+    there is none). A day on which the expected power never reached the limit shows
+    nothing either way: the window ends on the last day with evidence, and the true
+    boundary lies between it and the day above the limit."""
+    order = at.index
+    bounds: list[pd.Timestamp | None] = []
+    for step, edge in ((-1, first), (1, last)):
+        i, found = order.get_loc(edge) + step, None
+        while 0 <= i < len(order):
+            if up.get(order[i], False):
+                found = order[i]
+                break
+            if at.iloc[i]:
+                edge = order[i]
+            i += step
+        bounds += [edge, found]
+    return bounds[0], bounds[2], bounds[1], bounds[3]
+
+
+def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: float
             ) -> tuple[list[Event], pd.DataFrame]:
     """Derate events (kind ``clipping``) and the mask of their limited intervals (the energy
     here is the whole shortfall's; the ledger counts it against the inverter's local
@@ -116,11 +190,15 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float
     mask = pd.DataFrame(False, index=w.index, columns=w.inverters)
     events: list[Event] = []
     limits = derated_days(w, exclude, tol, margin)
-    ceilings = w.measured.where(~exclude).groupby(w.day.to_numpy()).max()
     step = w.interval_s.to_numpy()
     days = w.day.to_numpy()
     for inv in w.inverters:
-        for first, last, lv in _derate_runs(limits[inv], ceilings[inv], tol):
+        ms = w.measured[inv].where(~exclude[inv])
+        tol_p = plateau_tolerance(ms, limits[inv], days, tol, alpha)
+        above = partial(days_above, ms, days, tol_p=tol_p)
+        for first, last, lv in _derate_runs(limits[inv], above, tol):
+            first, last, before, after = _widen(
+                first, last, days_at(ms, w.expected[inv], days, lv, tol, tol_p), above(lv))
             inside = (days >= first) & (days <= last)
             m, e = w.measured[inv].to_numpy(), w.expected[inv].to_numpy()
             sel = inside & ~exclude[inv].to_numpy() & (np.abs(m - lv) <= tol * lv) & (e > lv)
@@ -136,15 +214,19 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float
                 energy_loss_kwh=gap, energy_loss_kwh_low=max(0.0, low),
                 energy_loss_kwh_high=high, method=METHOD_DERATE,
                 evidence={"limit_w": lv, "rating_w": float(w.ac_w[inv]), "tolerance": tol,
-                          "margin": margin, "held_days": n_held,
-                          "limited_intervals": int(sel.sum())},
+                          "margin": margin, "plateau_tolerance": tol_p,
+                          "held_days": n_held, "limited_intervals": int(sel.sum()),
+                          **{f"day_above_limit_{k}": pd.Timestamp(d).date().isoformat()
+                             for k, d in (("before", before), ("after", after))
+                             if d is not None}},
                 detail={"cause": "inverter limited below its rating (derate)",
                         "limit_share_of_rating": lv / float(w.ac_w[inv])}))
     return events, mask
 
 
 def detect(w: Wide, rel_sigma: float, step_noise: float, exclude: pd.DataFrame,
-           spread: float = 0.0) -> tuple[list[Event], pd.DataFrame, dict[int, pd.DataFrame]]:
+           spread: float = 0.0, alpha: float = 1e-3
+           ) -> tuple[list[Event], pd.DataFrame, dict[int, pd.DataFrame]]:
     """Clipping events (one per inverter with clipping), the mask of clipped intervals, and
     per design event (by ``id``) the unlimited expected power above the rating [W].
 
@@ -155,9 +237,11 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, exclude: pd.DataFrame,
     exclude : intervals already explained (outages), left out
     spread : interval-level spread of measured/expected [-]; the derates' margin is three
         times it, at least 5 % (as the curtailment detector's)
+    alpha : two-sided false-alarm probability of one reading against a held limit's plateau
+        (:func:`plateau_tolerance`)
     """
     tol = max(3 * step_noise, 0.005)
-    events, mask = derates(w, exclude, tol, max(3 * spread, 0.05))
+    events, mask = derates(w, exclude, tol, max(3 * spread, 0.05), alpha)
     for ev in events:
         inv = ev.scope.split(":", 1)[1]
         inside = (w.index >= ev.start) & (w.index < ev.end)
