@@ -416,17 +416,30 @@ def _with_found_day(m: np.ndarray, e: np.ndarray, days: np.ndarray, limit: float
     return np.r_[m, m1], np.r_[e, e1], np.r_[days, d1 + days.max() + 1], keep
 
 
+def _recurring(m: np.ndarray, e: np.ndarray, days: np.ndarray, keep: np.ndarray,
+               step_min: int = 10) -> np.ndarray:
+    """:func:`curtailment._recurring` on a one-inverter plant whose days follow each other."""
+    index = pd.Timestamp("2024-01-01", tz="UTC") + pd.to_timedelta(
+        days * 1440 + np.tile(np.arange(6 * 60, 18 * 60, step_min), days.max() + 1)[:len(days)],
+        unit="min")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = (m / e)[:, None]
+    return curtailment._recurring(m, e, days, keep, ratio, tol=0.01, alpha=1e-3,
+                                  index=pd.DatetimeIndex(index))
+
+
 def test_recurring_level_finds_a_short_hold():
     # Invented truth: a set-point of 60 % found on one day comes back on another day for
-    # two intervals only (P = min(P_available, P_set), common practice). Power that follows
-    # the expected one lands within +-HOLD of 60 % while 5 % below its expected power
-    # rarely, so two such intervals on one day pass the binomial test at alpha = 1e-3.
+    # 40 minutes (P = min(P_available, P_set), common practice): the four intervals in it at
+    # which the plant would deliver 5 % more sit at 60 %. Power that follows the expected one
+    # lands there so far below its hours around it rarely, so they pass the test at
+    # alpha = 1e-3.
     m, e, days = _cloudy_days(60, seed=4, limit=None)
     day = days == 30
-    at = np.flatnonzero(day & (e >= 0.6 * 1.05 / 0.97))[:2]
+    at = np.flatnonzero(day & (e >= 0.6 * 1.05 / 0.97))[:4]
     m[at] = 0.6
     m, e, days, keep = _with_found_day(m, e, days, 0.6)
-    out = curtailment._recurring(m, e, days, keep, margin=0.05, alpha=1e-3)
+    out = _recurring(m, e, days, keep)
     assert out[at].all() and not out[~np.isin(np.arange(len(m)), at)].any()
 
 
@@ -435,7 +448,7 @@ def test_recurring_level_false_alarm_rate():
     # alpha = 1e-3 per day about 0.3 false days are expected; 3 or more would have
     # probability under 0.4 % (Poisson tail, common practice).
     m, e, days, keep = _with_found_day(*_cloudy_days(300, seed=3, limit=None), 0.6)
-    out = curtailment._recurring(m, e, days, keep, margin=0.05, alpha=1e-3)
+    out = _recurring(m, e, days, keep)
     assert len(np.unique(days[out])) < 3
 
 

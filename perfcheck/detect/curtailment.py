@@ -172,16 +172,16 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
     level), so that the model's bias of the day and hour drops out and only interval noise is
     left. Under no limit, an interval that would deliver W lands on the level when its
     measured/expected falls that far below the hours around it; the chance of that is read
-    off the same day's own intervals off the level (their share in the band, with one added so
-    it is never zero: Laplace's rule of succession), so a day of broken cloud, on which the
-    power scatters widely, sets its own, higher chance. The number of sitting intervals is
-    tested against the sum of those chances (one-sided, Poisson, which bounds the tail of a
-    sum of unequal independent trials from above; ``alpha`` is the false-alarm rate per day
-    and level). A day passes when it also holds the limit in common: on its sitting intervals
-    every producing inverter's measured/expected (``ratio``, interval x inverter) lies below
-    that of the hours around it by ``tol`` too (median; a set-point scales every inverter
-    alike, one inverter at its own limit beside others that follow the sun is not one). Days
-    with no found level are never tested.
+    off the same day's own intervals off the level (their share in the band, with one added
+    so that it is never zero: Laplace's rule of succession), so a day of broken cloud, on
+    which the power scatters widely, sets its own, higher chance. The number of sitting
+    intervals is tested against the sum of those chances (one-sided, Poisson, which bounds the
+    tail of a sum of unequal independent trials from above; ``alpha`` is the false-alarm rate
+    per day and level). A day passes when it also holds the limit in common: on its sitting
+    intervals every producing inverter's measured/expected (``ratio``, interval x inverter)
+    lies below that of the hours around it by ``tol`` too (median; a set-point scales every
+    inverter alike, one inverter at its own limit beside others that follow the sun is not
+    one). Days with no found level are never tested.
 
     References
     ----------
