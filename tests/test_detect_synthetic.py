@@ -484,3 +484,20 @@ def test_would_deliver_holds_the_cap():
     got = attribution.would_deliver(np.full(4, 0.9), np.array([100.0, 100.0, 100.0, 80.0]),
                                     np.array([100.0, 130.0, 105.0, np.nan]))
     np.testing.assert_allclose(got, [90.0, 100.0, 94.5, 72.0])
+
+
+def test_kept_takes_the_shares_one_after_another():
+    # derived from the definition (step 2 of the ledger): shares of 20 % and then 50 % of
+    # what is left leave 0.8 x 0.5 = 0.4 of the expected power where both apply; the
+    # relative error of what is left from a share f with relative error s is f s / (1 - f)
+    # (first-order error propagation), 0.5 x 0.1 / 0.5 = 0.1 for the second one
+    ev = common.Event(kind="soiling", scope="plant", start=pd.Timestamp("2024-01-01", tz="UTC"),
+                      end=pd.Timestamp("2024-01-02", tz="UTC"), energy_loss_kwh=0.0,
+                      energy_loss_kwh_low=0.0, energy_loss_kwh_high=0.0, method="", evidence={},
+                      detail={})
+    prints = [common.Footprint(ev, 0, 4, ["a", "b"], factor=np.full((4, 2), 0.2)),
+              common.Footprint(ev, 2, 4, ["b"], factor=np.full((2, 1), 0.5),
+                               factor_rel_sigma=0.1)]
+    kept, rel = attribution._kept((4, 2), prints, {"a": 0, "b": 1})
+    np.testing.assert_allclose(kept, [[0.8, 0.8], [0.8, 0.8], [0.8, 0.4], [0.8, 0.4]])
+    np.testing.assert_allclose(rel, [[0, 0], [0, 0], [0, 0.1], [0, 0.1]])
