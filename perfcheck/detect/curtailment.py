@@ -172,22 +172,25 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
     level), so that the model's bias of the day and hour drops out and only interval noise is
     left. Under no limit, an interval that would deliver W lands on the level when its
     measured/expected falls that far below the hours around it; the chance of that is read
-    off the same day's own intervals off the level (their share in the band, with one added
-    so that it is never zero: Laplace's rule of succession), so a day of broken cloud, on
+    off the same day's own intervals off the level (their share in the band, with half a
+    landing added so that it is never zero: the Jeffreys prior), so a day of broken cloud, on
     which the power scatters widely, sets its own, higher chance. The number of sitting
     intervals is tested against the sum of those chances (one-sided, Poisson, which bounds the
     tail of a sum of unequal independent trials from above; ``alpha`` is the false-alarm rate
-    per day and level). A day passes when it also holds the limit in common: on its sitting
-    intervals every producing inverter's measured/expected (``ratio``, interval x inverter)
-    lies below that of the hours around it by ``tol`` too (median; a set-point scales every
-    inverter alike, one inverter at its own limit beside others that follow the sun is not
-    one). Days with no found level are never tested.
+    per day and level; on invented levels over ten suite plants it flagged 4 days of about
+    1 300 tested, so its true rate may be up to a few times ``alpha``). A day passes when it
+    also holds the limit in common: on its sitting intervals every producing inverter's
+    measured/expected (``ratio``, interval x inverter) lies below that of the hours around it
+    by ``tol`` too (median; a set-point scales every inverter alike, one inverter at its own
+    limit beside others that follow the sun is not one). Days with no found level are never
+    tested.
 
     References
     ----------
     Hoeffding 1956, Ann. Math. Statist. 27(3):713 (a sum of unequal Bernoulli trials is less
     spread than the binomial, and so than the Poisson, of the same mean; from memory);
-    Laplace's rule of succession (common practice).
+    Jeffreys 1946, Proc. R. Soc. Lond. A 186:453 (the prior that adds half an event; from
+    memory).
     """
     out = np.zeros(len(level), dtype=bool)
     found = np.unique(days[keep])
@@ -217,7 +220,7 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
                 rows = above & today
                 hits = (np.searchsorted(ref, c * (1 + HOLD) / would[rows], side="right")
                         - np.searchsorted(ref, c * (1 - HOLD) / would[rows], side="left"))
-                chance = float(np.sum((hits + 1) / (len(ref) + 1)))
+                chance = float(np.sum((hits + 0.5) / (len(ref) + 1)))
                 k = int((sits & today).sum())
                 if (_every_below(drop[sits & today], tol)
                         and stats.poisson.sf(k - 1, chance) <= alpha):
