@@ -416,17 +416,30 @@ def _with_found_day(m: np.ndarray, e: np.ndarray, days: np.ndarray, limit: float
     return np.r_[m, m1], np.r_[e, e1], np.r_[days, d1 + days.max() + 1], keep
 
 
+def _recurring(m: np.ndarray, e: np.ndarray, days: np.ndarray, keep: np.ndarray,
+               step_min: int = 10) -> np.ndarray:
+    """:func:`curtailment._recurring` on a one-inverter plant whose days follow each other."""
+    index = pd.Timestamp("2024-01-01", tz="UTC") + pd.to_timedelta(
+        days * 1440 + np.tile(np.arange(6 * 60, 18 * 60, step_min), days.max() + 1)[:len(days)],
+        unit="min")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = (m / e)[:, None]
+    return curtailment._recurring(m, e, days, keep, ratio, tol=0.01, alpha=1e-3,
+                                  index=pd.DatetimeIndex(index))
+
+
 def test_recurring_level_finds_a_short_hold():
     # Invented truth: a set-point of 60 % found on one day comes back on another day for
-    # two intervals only (P = min(P_available, P_set), common practice). Power that follows
-    # the expected one lands within +-HOLD of 60 % while 5 % below its expected power
-    # rarely, so two such intervals on one day pass the binomial test at alpha = 1e-3.
+    # 40 minutes (P = min(P_available, P_set), common practice): the four intervals in it at
+    # which the plant would deliver 5 % more sit at 60 %. Power that follows the expected one
+    # lands there so far below its hours around it rarely, so they pass the test at
+    # alpha = 1e-3.
     m, e, days = _cloudy_days(60, seed=4, limit=None)
     day = days == 30
-    at = np.flatnonzero(day & (e >= 0.6 * 1.05 / 0.97))[:2]
+    at = np.flatnonzero(day & (e >= 0.6 * 1.05 / 0.97))[:4]
     m[at] = 0.6
     m, e, days, keep = _with_found_day(m, e, days, 0.6)
-    out = curtailment._recurring(m, e, days, keep, margin=0.05, alpha=1e-3)
+    out = _recurring(m, e, days, keep)
     assert out[at].all() and not out[~np.isin(np.arange(len(m)), at)].any()
 
 
@@ -435,7 +448,7 @@ def test_recurring_level_false_alarm_rate():
     # alpha = 1e-3 per day about 0.3 false days are expected; 3 or more would have
     # probability under 0.4 % (Poisson tail, common practice).
     m, e, days, keep = _with_found_day(*_cloudy_days(300, seed=3, limit=None), 0.6)
-    out = curtailment._recurring(m, e, days, keep, margin=0.05, alpha=1e-3)
+    out = _recurring(m, e, days, keep)
     assert len(np.unique(days[out])) < 3
 
 
@@ -471,3 +484,20 @@ def test_would_deliver_holds_the_cap():
     got = attribution.would_deliver(np.full(4, 0.9), np.array([100.0, 100.0, 100.0, 80.0]),
                                     np.array([100.0, 130.0, 105.0, np.nan]))
     np.testing.assert_allclose(got, [90.0, 100.0, 94.5, 72.0])
+
+
+def test_kept_takes_the_shares_one_after_another():
+    # derived from the definition (step 2 of the ledger): shares of 20 % and then 50 % of
+    # what is left leave 0.8 x 0.5 = 0.4 of the expected power where both apply; the
+    # relative error of what is left from a share f with relative error s is f s / (1 - f)
+    # (first-order error propagation), 0.5 x 0.1 / 0.5 = 0.1 for the second one
+    ev = common.Event(kind="soiling", scope="plant", start=pd.Timestamp("2024-01-01", tz="UTC"),
+                      end=pd.Timestamp("2024-01-02", tz="UTC"), energy_loss_kwh=0.0,
+                      energy_loss_kwh_low=0.0, energy_loss_kwh_high=0.0, method="", evidence={},
+                      detail={})
+    prints = [common.Footprint(ev, 0, 4, ["a", "b"], factor=np.full((4, 2), 0.2)),
+              common.Footprint(ev, 2, 4, ["b"], factor=np.full((2, 1), 0.5),
+                               factor_rel_sigma=0.1)]
+    kept, rel = attribution._kept((4, 2), prints, {"a": 0, "b": 1})
+    np.testing.assert_allclose(kept, [[0.8, 0.8], [0.8, 0.8], [0.8, 0.4], [0.8, 0.4]])
+    np.testing.assert_allclose(rel, [[0, 0], [0, 0], [0, 0.1], [0, 0.1]])

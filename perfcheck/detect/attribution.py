@@ -16,7 +16,11 @@ both, the shortfall is split in this order (each step works on what the steps be
    (:func:`perfcheck.detect.common.local_level`, on intervals like the event's), is what the
    plant delivered then, so the model's local bias stays unexplained instead of landing in
    the event; where the expected series stops at a cap (rating, export limit), the level
-   scales the unlimited power and the cap holds (:func:`would_deliver`).
+   scales the unlimited power and the cap holds (:func:`would_deliver`). The share-type
+   causes of step 2 found on the same intervals (a lost string, a stalled row, soiling)
+   lower what the inverter could deliver: L is taken against the expected power less them,
+   and they scale it at the event too (:func:`_kept`), so that a limit on a day with lost
+   strings does not take their loss, nor a stall in the days around lower L.
 2. Shares of the remaining intervals' expected power (class ``share``), one after another:
    ``degradation`` (beyond the site file's ageing allowance), ``soiling``, ``shading``,
    ``tracker_stall``, ``tracker_out_of_step``, ``partial_outage``: loss = share x (expected
@@ -33,7 +37,9 @@ both, the shortfall is split in this order (each step works on what the steps be
 
 An event found by a loss of class ``interval`` or in :data:`AT_LEVEL` takes its energy and its
 95 % band from here: the level's standard error (autocorrelation-aware) times the expected
-energy behind the loss, with the share's own error where there is one.
+energy behind the loss, with the share's own error where there is one, and for the whole
+intervals the interval noise of the event's days (:meth:`_Levels.scatter`), which weighs
+where an event takes few intervals.
 
 Clipping at the AC rating (class ``design``) lies inside the expected series; its energy, the
 unlimited expected power above the rating, is recorded beside the losses, never among them.
@@ -63,6 +69,7 @@ from perfcheck.detect.common import (
     daylight,
     energy_band,
     local_level,
+    robust_sigma,
     scope_of,
 )
 
@@ -176,13 +183,18 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
     free = both & ~taken & ~held
     local = w.index.tz_convert(w.tz)
     slot = np.asarray((local - local.normalize()).total_seconds(), dtype=np.int64)
-    levels = _Levels(led.measured_w, led.expected_w, valid & free, days, slot)
+    # the share-type causes found lower what the plant could deliver on the intervals they
+    # cover, in the days around an event as on its own intervals: its level is judged against
+    # the expected power less them, and they lower what it would have delivered
+    kept, kept_rel = _kept(led.expected_w.shape, prints, col_pos)
+    levels = _Levels(led.measured_w, led.expected_w * kept, valid & free, days, slot)
     potential = w.potential.reindex(columns=cols).to_numpy(dtype=float)
     for ev, sub in picked:
         rows, cc = np.nonzero(sub)
         lv, rel = levels.at(rows, cc)
-        would = would_deliver(lv, led.expected_w[rows, cc], potential[rows, cc])
-        _enter(led, Entry(ev, rows, cc, would - led.measured_w[rows, cc]), would * rel)
+        would = would_deliver(lv * kept[rows, cc], led.expected_w[rows, cc], potential[rows, cc])
+        _enter(led, Entry(ev, rows, cc, would - led.measured_w[rows, cc]),
+               would * np.hypot(rel, kept_rel[rows, cc]), would * levels.scatter(rows, cc))
     left = np.where(free, led.expected_w, 0.0)
     explained = np.zeros_like(left)
     for kind in (k.name for k in kinds.TABLE if k.ledger == "share"):
@@ -218,6 +230,22 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
     return led, under
 
 
+def _kept(shape: tuple[int, ...], prints: list[Footprint], col_pos: dict[str, int]
+          ) -> tuple[np.ndarray, np.ndarray]:
+    """Per interval and inverter, the share of the expected power that the share-type
+    footprints leave, taken one after another as in step 2 (the product of 1 - share), and
+    its relative standard error from the shares' own (share x its relative error over the
+    share left, in quadrature)."""
+    kept, var = np.ones(shape), np.zeros(shape)
+    for fp in prints:
+        if fp.factor is not None:
+            ci = [col_pos[c] for c in fp.cols]
+            f = np.clip(np.nan_to_num(fp.factor), 0.0, 0.99)
+            kept[fp.lo:fp.hi, ci] *= 1.0 - f
+            var[fp.lo:fp.hi, ci] += (f * fp.factor_rel_sigma / (1.0 - f)) ** 2
+    return kept, np.sqrt(var)
+
+
 def would_deliver(level: np.ndarray, expected: np.ndarray, potential: np.ndarray
                   ) -> np.ndarray:
     """What an inverter at the performance level ``level`` would deliver [W]: ``level`` times
@@ -241,43 +269,78 @@ class _Levels:
     days: np.ndarray  # site-local day of each row
     slot: np.ndarray  # site-local time of day of each row [s]
 
-    def daily(self, j: int, rows: np.ndarray) -> pd.Series:
+    def daily(self, j: int, rows: np.ndarray, like: int = 2) -> pd.Series:
         """Per day, inverter ``j``'s measured over reference energy on intervals like the
         event's ``rows``: at their times of day and with a reference power within theirs
-        (the model's bias depends on the sun's path and on the light: an event at a clear noon
-        is judged by the clear noons around it, not by cloudy ones); NaN on a day whose
-        reference energy there is under a quarter of the median day's (the
-        insolation-weighted index of :func:`perfcheck.detect.common.daily_pi`)."""
+        (``like`` 2; the model's bias depends on the sun's path and on the light: an event at
+        a clear noon is judged by the clear noons around it, not by cloudy ones), at their
+        times of day only (1), or on all intervals (0); NaN on a day whose reference energy
+        there is under a quarter of the median day's (the insolation-weighted index of
+        :func:`perfcheck.detect.common.daily_pi`)."""
         ref = self.reference[:, j]
         lo, hi = np.nanmin(ref[rows]), np.nanmax(ref[rows])
         with np.errstate(invalid="ignore"):
-            on = (self.sel[:, j] & np.isin(self.slot, np.unique(self.slot[rows]))
-                  & (ref >= lo) & (ref <= hi))
+            on = self.sel[:, j].copy()
+            if like >= 1:
+                on &= np.isin(self.slot, np.unique(self.slot[rows]))
+            if like >= 2:
+                on &= (ref >= lo) & (ref <= hi)
         m = pd.Series(np.where(on, self.measured[:, j], 0.0)).groupby(self.days).sum()
         r = pd.Series(np.where(on, ref, 0.0)).groupby(self.days).sum()
         with np.errstate(invalid="ignore", divide="ignore"):
             return (m / r).where(r > 0.25 * r[r > 0].median())
 
+    def scatter(self, rows: np.ndarray, cc: np.ndarray) -> np.ndarray:
+        """Per entry ``(rows, cc)``: the interval-scale relative error of the expected power
+        on the entry's day, the scale of that day's log measured/reference from one interval
+        to the next on the intervals ``sel`` of its inverter
+        (:func:`perfcheck.detect.common.robust_sigma`; 0 with fewer than 3 of them). Its
+        slow part, over the hours of the day, is the level's (:meth:`daily` judges the event
+        by the same times of day); the fast part is wide on a day of broken cloud, when a
+        sensor at one point and an array over a field see different light, and weighs where
+        an event takes few intervals."""
+        out = np.zeros(len(rows))
+        for j in np.unique(cc):
+            for day in np.unique(self.days[rows[cc == j]]):
+                on = self.sel[:, j] & (self.days == day)
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    sig = robust_sigma(np.log(self.measured[on, j] / self.reference[on, j]))
+                out[(cc == j) & (self.days[rows] == day)] = sig if math.isfinite(sig) else 0.0
+        return out
+
     def at(self, rows: np.ndarray, cc: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per entry ``(rows, cc)``: its inverter's local level around the entry's days on
         intervals like the entry's (:meth:`daily`, :func:`perfcheck.detect.common.local_level`;
-        1 with too few days around) and the level's relative standard error."""
+        where too few days around have such intervals, as for a few intervals at a rare
+        power, on the same times of day only, then on all intervals; 1 with too few days
+        around at all) and the level's relative standard error."""
         level, rel = np.ones(len(rows)), np.zeros(len(rows))
         for j in np.unique(cc):
             on = cc == j
             r = rows[on]
-            lv, s = local_level(self.daily(j, r), self.days[r].min(), self.days[r].max())
+            for like in (2, 1, 0):
+                lv, s = local_level(self.daily(j, r, like), self.days[r].min(),
+                                    self.days[r].max())
+                if math.isfinite(lv):
+                    break
             level[on], rel[on] = (lv if math.isfinite(lv) else 1.0), s
         return level, rel
 
 
-def _enter(led: Ledger, entry: Entry, sigma_w: np.ndarray) -> None:
+def _enter(led: Ledger, entry: Entry, sigma_w: np.ndarray,
+           noise_w: np.ndarray | None = None) -> None:
     """Add ``entry`` and state its event's energy as the entry's, with the 95 % band of the
     standard error ``sigma_w`` per row [W], added linearly over the rows (the level's error
-    is shared by the intervals of an inverter, and by the inverters through the weather)."""
+    is shared by the intervals of an inverter, and by the inverters through the weather),
+    and of the interval noise ``noise_w`` per row [W] (added linearly over the inverters of
+    an interval, which share the weather, and in quadrature over the intervals)."""
     led.entries.append(entry)
     e = led.energy_kwh(entry)
     s = float(np.sum(sigma_w * led.interval_s[entry.rows]) / 3.6e6)
+    if noise_w is not None:
+        per_row = pd.Series(noise_w * led.interval_s[entry.rows] / 3.6e6).groupby(
+            entry.rows).sum().to_numpy()
+        s = math.hypot(s, float(np.sqrt(np.sum(per_row ** 2))))
     entry.event.energy_loss_kwh = e
     entry.event.energy_loss_kwh_low = max(0.0, min(e, e - Z95 * s))
     entry.event.energy_loss_kwh_high = e + Z95 * s
