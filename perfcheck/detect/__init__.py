@@ -194,7 +194,10 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     # lost strings are judged on the power with the rows' share put back: during a stall they
     # are a level on top of its shape (the ledger takes the shares in this order)
     w_rows = dataclasses.replace(w, measured=_undo(w, prints))
-    ev, fp = partial.detect(w_rows, usable, strings, alpha=st.alpha)
+    # the edges of lost strings are placed on every daylight interval not explained: a flag
+    # on a weather reading (a stuck anemometer) leaves the power's step visible
+    ev, fp = partial.detect(w_rows, usable, strings, alpha=st.alpha,
+                            judged=daylight(w) & w.expected.notna() & ~excluded)
     events += ev
     prints += fp
     t = lap("partial", t)
