@@ -138,7 +138,8 @@ def _window_rows(index: pd.DatetimeIndex, ev: Event) -> slice:
 
 def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
           prints: list[Footprint], design: dict[int, pd.DataFrame], flagged: list[Flagged],
-          rel_sigma: float) -> tuple[Ledger, list[Event]]:
+          rel_sigma: float, absolute_rel: tuple[float, float] = (0.0, 0.0)
+          ) -> tuple[Ledger, list[Event]]:
     """The ledger of the corrected series ``w`` and the ``underperformance`` events.
 
     Parameters
@@ -151,6 +152,10 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
     design : per design event (by ``id``), the power it keeps out of the expected series [W]
     flagged : the baseline test's flagged periods
     rel_sigma : daily relative model error [-]
+    absolute_rel : relative standard uncertainty of the expected power's absolute level
+        where it comes from the plane-of-array sensor and where from modelled irradiance
+        [-]: an event with too few days around to read a local level is counted against the
+        expected power itself, whose irradiance calibration then no longer cancels
     """
     cols = w.inverters
     col_pos = {c: i for i, c in enumerate(cols)}
@@ -200,7 +205,9 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
     for fp in prints:
         if fp.event.kind in OFF_LEVEL:
             off[fp.lo:fp.hi, [col_pos[c] for c in fp.cols]] = True
-    levels = _Levels(led.measured_w, led.expected_w, valid & free & ~off, days, slot)
+    sensor = w.from_sensor.reindex(columns=cols).fillna(False).to_numpy(dtype=bool)
+    absolute = np.where(sensor, absolute_rel[0], absolute_rel[1])
+    levels = _Levels(led.measured_w, led.expected_w, valid & free & ~off, days, slot, absolute)
     potential = w.potential.reindex(columns=cols).to_numpy(dtype=float)
     carried: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
     for ev, sub in picked:
@@ -223,7 +230,7 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
             own = np.zeros_like(both)
             for fp in kind_prints:
                 own[fp.lo:fp.hi, [col_pos[c] for c in fp.cols]] = True
-            levels = _Levels(led.measured_w, left, valid & free & ~own, days, slot)
+            levels = _Levels(led.measured_w, left, valid & free & ~own, days, slot, absolute)
         for fp in kind_prints:
             ci = [col_pos[c] for c in fp.cols]
             sub = left[fp.lo:fp.hi][:, ci]
@@ -282,6 +289,7 @@ class _Levels:
     sel: np.ndarray
     days: np.ndarray  # site-local day of each row
     slot: np.ndarray  # site-local time of day of each row [s]
+    absolute: np.ndarray  # relative standard uncertainty of the reference's absolute level
 
     def daily(self, j: int, rows: np.ndarray) -> pd.Series:
         """Per day, inverter ``j``'s measured over reference energy on intervals like the
@@ -302,14 +310,20 @@ class _Levels:
 
     def at(self, rows: np.ndarray, cc: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per entry ``(rows, cc)``: its inverter's local level around the entry's days on
-        intervals like the entry's (:meth:`daily`, :func:`perfcheck.detect.common.local_level`;
-        1 with too few days around) and the level's relative standard error."""
+        intervals like the entry's (:meth:`daily`, :func:`perfcheck.detect.common.local_level`)
+        and the level's relative standard error. The level is read through the same irradiance
+        as the entry, days away, so the sensor's calibration cancels (its drift over a few
+        weeks is far below the 1 % floor); with too few days around, the level is 1 and the
+        reference's absolute uncertainty (``absolute``) joins the error in quadrature."""
         level, rel = np.ones(len(rows)), np.zeros(len(rows))
         for j in np.unique(cc):
             on = cc == j
             r = rows[on]
             lv, s = local_level(self.daily(j, r), self.days[r].min(), self.days[r].max())
-            level[on], rel[on] = (lv if math.isfinite(lv) else 1.0), s
+            if math.isfinite(lv):
+                level[on], rel[on] = lv, s
+            else:
+                rel[on] = np.hypot(s, self.absolute[r, j])
         return level, rel
 
 
