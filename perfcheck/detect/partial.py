@@ -16,8 +16,11 @@ of the segment inside the data is a step (the median of the ``min_days`` days on
 differs by at least half the segment's shift: a lost string is a step, a seasonal drift or a
 growing shade is not), and the loss is the same share in the morning and in the afternoon
 (half-day values within a factor two: a lost string takes its share all day, a shade takes it
-on one side of the day only). The share of DC lost, times the number of strings in the site
-file, gives the number of strings lost.
+on one side of the day only). The share lost is then measured on the fault's whole days
+against the days next to it (the mean of the level before and the level after, within two
+weeks: the inverter's level against its siblings wanders with the season, so the long
+reference segment that proves the fault would bias its size); times the number of strings in
+the site file it gives the number of strings lost.
 
 The false-alarm rate per inverter and series is bounded by about ``alpha`` per split tested
 (Bonferroni), default 1e-3.
@@ -87,9 +90,10 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
 
     The daily statistics are taken on 15-minute blocks (:func:`coarsen`), the energy on
     the series as given. The share's standard error takes the days' autocorrelation
-    (:func:`_mean_var`); the band here is the share's alone: the ledger counts the share
-    against the inverter's local level and widens the band by that level's error
-    (:mod:`perfcheck.detect.attribution`).
+    (:func:`_mean_var`, phi read on the long reference segment) and the level's drift
+    between the days before and after (rectangular over their range); the band here is the
+    share's alone: the ledger counts the share against the inverter's local level and
+    widens the band by that level's error (:mod:`perfcheck.detect.attribution`).
     """
     wc, uc = coarsen(w, usable)
     daily = daily_relative(wc, uc)
