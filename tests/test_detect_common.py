@@ -190,6 +190,17 @@ def test_local_level_known_answer():
     assert rel > 0.01
 
 
+def test_ar1_mean_factor_known_answer():
+    # derived from the definition (Hamilton 1994, eq. 7.2.6): the mean of two AR(1) values
+    # has variance s^2 (2 + 2 phi) / 4, so the factor is 1 + phi; for long series it tends
+    # to (1 + phi) / (1 - phi) (3 at phi 0.5; the finite-n shortfall is 2 phi/(n (1-phi)^2)
+    # = 4e-4 at n 10000); independent values and a single value give 1
+    assert common.ar1_mean_factor(2, 0.5) == pytest.approx(1.5)
+    assert common.ar1_mean_factor(10_000, 0.5) == pytest.approx(3.0, rel=2e-4)
+    assert common.ar1_mean_factor(30, 0.0) == 1.0
+    assert common.ar1_mean_factor(1, 0.8) == 1.0
+
+
 def test_shift_z_known_answer():
     # derived from the definition: a centred series at 0 with a period of 10 days at -0.05,
     # sigma_LR 0.02 and the months outside all at 0 (s_m = 0): z = 0.05 / (0.02 / sqrt(10))

@@ -333,6 +333,29 @@ def test_one_inverter_plant_reports_its_outage_on_the_inverter():
     assert ev.scope == "inverter:INV1"
 
 
+def test_outage_takes_a_dim_day_on_which_the_inverter_produced_nothing():
+    # Invented truth: INV2 off from 2024-04-20 00:00 to 2024-04-22 00:00; the 20th is so dim
+    # (5 % of a normal day: no interval judged) that only INV1's output shows it was a day
+    # of production; the outage starts on the 20th's first interval with light
+    site = make_site(n_inverters=2)
+    df = make_aligned(site, start="2024-04-15", days=10, seed=5, faults=[
+        {"kind": "outage", "inverter": "INV2", "start": "2024-04-20 00:00",
+         "end": "2024-04-22 00:00"}])
+    ts = pd.DatetimeIndex(df["ts"]).tz_convert("UTC")
+    dim = (ts >= local("2024-04-20 00:00")) & (ts < local("2024-04-21 00:00"))
+    for c in ("measured_ac_w", "expected_ac_w"):
+        df.loc[dim, c] = df.loc[dim, c] * 0.05
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    ev = one(outage.detect(w, 0.03)[0], "outage")
+    lit = w.index[(w.expected["INV2"] > 0) & (w.index >= local("2024-04-20 00:00"))]
+    assert ev.start == lit[0]
+    # without a producing sibling (both off that day) the dim day is not taken
+    df.loc[dim, "measured_ac_w"] = 0.0
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    ev = one(outage.detect(w, 0.03)[0], "outage")
+    assert ev.start >= local("2024-04-21 00:00")
+
+
 def test_outage_not_judged_with_the_sun_below_ten_degrees():
     # Invented truth: a healthy plant whose output is zero whenever the sun stands below
     # 10 deg (as a module whose spectral factor falls to zero at high air mass) while the

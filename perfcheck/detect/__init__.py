@@ -51,6 +51,7 @@ from perfcheck.detect import (
 )
 from perfcheck.detect.common import (
     MODEL_FLOOR,
+    Z95,
     Event,
     Footprint,
     Wide,
@@ -195,7 +196,10 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     # lost strings are judged on the power with the rows' share put back: during a stall they
     # are a level on top of its shape (the ledger takes the shares in this order)
     w_rows = dataclasses.replace(w, measured=_undo(w, prints))
-    ev, fp = partial.detect(w_rows, usable, strings, alpha=st.alpha)
+    # the edges of lost strings are placed on every daylight interval not explained: a flag
+    # on a weather reading (a stuck anemometer) leaves the power's step visible
+    ev, fp = partial.detect(w_rows, usable, strings, alpha=st.alpha,
+                            judged=daylight(w) & w.expected.notna() & ~excluded)
     events += ev
     prints += fp
     t = lap("partial", t)
@@ -233,7 +237,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     t = lap("baseline", t)
     ledger, under = attribution.build(
         w, events, {"outage": out_mask, "clipping": clip_mask, "curtailment": curt_mask},
-        prints, design, flagged, rel_sigma)
+        prints, design, flagged, rel_sigma, _absolute_rel(site))
     events += under
     lap("attribution", t)
     model = {
@@ -250,6 +254,17 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     return {"events": events, "ledger": ledger, "degradation": block, "model": model,
             "suspect_windows": suspects, "clock_shifts": shifts, "footprints": prints,
             "wide": w}
+
+
+def _absolute_rel(site: Site) -> tuple[float, float]:
+    """Relative standard uncertainty of the expected power's absolute level [-], where it
+    comes from the plane-of-array sensor (its calibration, ``[model] poa_uncertainty_pct``
+    or its class) and where from modelled irradiance (``[metrics]
+    modelled_poa_uncertainty_pct``): the expanded 95 % values over 1.96."""
+    from perfcheck import metrics
+
+    m = metrics.load_settings(site)
+    return m.poa_uncertainty_pct / 100 / Z95, m.modelled_poa_uncertainty_pct / 100 / Z95
 
 
 def _site_series(df: pd.DataFrame, column: str, w: Wide) -> pd.Series | None:

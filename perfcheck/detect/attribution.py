@@ -12,15 +12,19 @@ both, the shortfall is split in this order (each step works on what the steps be
    inverter's local level L: loss = L x expected - measured. The expected series of an
    inverter is off by a factor that persists for weeks (true mismatch, spectrum, incidence
    angle: model error, not noise); L, the measured over the expected energy of the days
-   around the event on the intervals no interval-class event takes
+   around the event on the intervals no interval-class event takes, outside the windows of
+   the faults that take the inverter off its own level for a while (:data:`OFF_LEVEL`)
    (:func:`perfcheck.detect.common.local_level`, on intervals like the event's), is what the
    plant delivered then, so the model's local bias stays unexplained instead of landing in
    the event; where the expected series stops at a cap (rating, export limit), the level
    scales the unlimited power and the cap holds (:func:`would_deliver`). The share-type
-   causes of step 2 found on the same intervals (a lost string, a stalled row, soiling)
-   lower what the inverter could deliver: L is taken against the expected power less them,
-   and they scale it at the event too (:func:`_kept`), so that a limit on a day with lost
-   strings does not take their loss, nor a stall in the days around lower L.
+   causes of step 2 found on the same intervals (a stalled row, soiling) lower what the
+   inverter could deliver: L is taken against the expected power less them, and they scale
+   it at the event too (:func:`_kept`), so that a limit on a stalled day does not take the
+   stall's loss. Inside the window of lost strings (:data:`AT_LEVEL`) the event costs what
+   the inverter would have delivered as it was, with the strings lost: the share lost of
+   L x expected is the strings' (entered under their event), the rest less the measured
+   power the event's.
 2. Shares of the remaining intervals' expected power (class ``share``), one after another:
    ``degradation`` (beyond the site file's ageing allowance), ``soiling``, ``shading``,
    ``tracker_stall``, ``tracker_out_of_step``, ``partial_outage``: loss = share x (expected
@@ -36,10 +40,12 @@ both, the shortfall is split in this order (each step works on what the steps be
 4. Unexplained: the rest (noise and model error, either sign).
 
 An event found by a loss of class ``interval`` or in :data:`AT_LEVEL` takes its energy and its
-95 % band from here: the level's standard error (autocorrelation-aware) times the expected
-energy behind the loss, with the share's own error where there is one, and for the whole
-intervals the interval noise of the event's days (:meth:`_Levels.scatter`), which weighs
-where an event takes few intervals.
+95 % band from here: the level's standard error (the spread of the days around the event,
+heavy tails and autocorrelation included: :func:`perfcheck.detect.common.local_level`) times
+the energy the inverter would have delivered, with the share's own error where there is one
+(taken as independent of the level's, added in quadrature), added linearly over the rows, and
+for the whole intervals the interval noise of the event's days (:meth:`_Levels.scatter`),
+which weighs where an event takes few intervals.
 
 Clipping at the AC rating (class ``design``) lies inside the expected series; its energy, the
 unlimited expected power above the rating, is recorded beside the losses, never among them.
@@ -77,6 +83,9 @@ Z_UNDER = 3.0  # one-sided 0.13 % per flagged period
 # share-class kinds whose share is measured against the inverter itself (its own level before
 # and after), so their loss is counted against its local level like the interval losses
 AT_LEVEL = ("partial_outage",)
+# share-class kinds that take an inverter off its own level for a while and end (lost strings,
+# a stalled tracker): the level an interval-class loss is counted against is read outside them
+OFF_LEVEL = (*AT_LEVEL, "tracker_stall", "tracker_out_of_step")
 
 
 @dataclass
@@ -136,7 +145,8 @@ def _window_rows(index: pd.DatetimeIndex, ev: Event) -> slice:
 
 def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
           prints: list[Footprint], design: dict[int, pd.DataFrame], flagged: list[Flagged],
-          rel_sigma: float) -> tuple[Ledger, list[Event]]:
+          rel_sigma: float, absolute_rel: tuple[float, float] = (0.0, 0.0)
+          ) -> tuple[Ledger, list[Event]]:
     """The ledger of the corrected series ``w`` and the ``underperformance`` events.
 
     Parameters
@@ -149,6 +159,10 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
     design : per design event (by ``id``), the power it keeps out of the expected series [W]
     flagged : the baseline test's flagged periods
     rel_sigma : daily relative model error [-]
+    absolute_rel : relative standard uncertainty of the expected power's absolute level
+        where it comes from the plane-of-array sensor and where from modelled irradiance
+        [-]: an event with too few days around to read a local level is counted against the
+        expected power itself, whose irradiance calibration then no longer cancels
     """
     cols = w.inverters
     col_pos = {c: i for i, c in enumerate(cols)}
@@ -183,18 +197,46 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
     free = both & ~taken & ~held
     local = w.index.tz_convert(w.tz)
     slot = np.asarray((local - local.normalize()).total_seconds(), dtype=np.int64)
-    # the share-type causes found lower what the plant could deliver on the intervals they
-    # cover, in the days around an event as on its own intervals: its level is judged against
-    # the expected power less them, and they lower what it would have delivered
-    kept, kept_rel = _kept(led.expected_w.shape, prints, col_pos)
-    levels = _Levels(led.measured_w, led.expected_w * kept, valid & free, days, slot)
+    # the shares judged against the inverter's own level (lost strings) hold on every interval
+    # of their window, those of an interval-class event too: where they lie, their share and
+    # its error
+    own_prints = [fp for fp in prints if fp.event.kind in AT_LEVEL]
+    which = np.full(both.shape, -1)
+    cut = np.zeros(both.shape)
+    for k, fp in enumerate(own_prints):
+        ci = [col_pos[c] for c in fp.cols]
+        which[fp.lo:fp.hi, ci] = k
+        cut[fp.lo:fp.hi, ci] = fp.factor
+    cut_sigma = np.array([fp.factor_rel_sigma for fp in own_prints] + [0.0])[which]
+    off = np.zeros_like(both)
+    for fp in prints:
+        if fp.event.kind in OFF_LEVEL:
+            off[fp.lo:fp.hi, [col_pos[c] for c in fp.cols]] = True
+    # the other share-type causes found lower what the plant could deliver on the intervals
+    # they cover, in the days around an event as on its own intervals: its level is judged
+    # against the expected power less them, and they lower what it would have delivered
+    kept, kept_rel = _kept(led.expected_w.shape,
+                           [fp for fp in prints if fp.event.kind not in AT_LEVEL], col_pos)
+    sensor = w.from_sensor.reindex(columns=cols).fillna(False).to_numpy(dtype=bool)
+    absolute = np.where(sensor, absolute_rel[0], absolute_rel[1])
+    levels = _Levels(led.measured_w, led.expected_w * kept, valid & free & ~off, days, slot,
+                     absolute)
     potential = w.potential.reindex(columns=cols).to_numpy(dtype=float)
+    carried: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
     for ev, sub in picked:
         rows, cc = np.nonzero(sub)
         lv, rel = levels.at(rows, cc)
-        would = would_deliver(lv * kept[rows, cc], led.expected_w[rows, cc], potential[rows, cc])
-        _enter(led, Entry(ev, rows, cc, would - led.measured_w[rows, cc]),
-               would * np.hypot(rel, kept_rel[rows, cc]), would * levels.scatter(rows, cc))
+        # the event costs what the inverter would have delivered as it was (its strings
+        # lost, if any): what the lost strings took of it is theirs (their event's entry)
+        s, s_rel = cut[rows, cc], cut_sigma[rows, cc]
+        exp, pot = led.expected_w[rows, cc], potential[rows, cc]
+        lk, k_rel = lv * kept[rows, cc], np.hypot(rel, kept_rel[rows, cc])
+        would = would_deliver(lk, exp, pot)
+        lost = would - would_deliver(lk * (1 - s), exp, pot)
+        _enter(led, Entry(ev, rows, cc, would - lost - led.measured_w[rows, cc]),
+               np.hypot((would - lost) * k_rel, lost * s_rel),
+               (would - lost) * levels.scatter(rows, cc))
+        carried.append((which[rows, cc], rows, cc, lost, lost * np.hypot(k_rel, s_rel)))
     left = np.where(free, led.expected_w, 0.0)
     explained = np.zeros_like(left)
     for kind in (k.name for k in kinds.TABLE if k.ledger == "share"):
@@ -203,7 +245,7 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
             own = np.zeros_like(both)
             for fp in kind_prints:
                 own[fp.lo:fp.hi, [col_pos[c] for c in fp.cols]] = True
-            levels = _Levels(led.measured_w, left, valid & free & ~own, days, slot)
+            levels = _Levels(led.measured_w, left, valid & free & ~own, days, slot, absolute)
         for fp in kind_prints:
             ci = [col_pos[c] for c in fp.cols]
             sub = left[fp.lo:fp.hi][:, ci]
@@ -211,11 +253,21 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
             rows, cc = np.nonzero(loss)
             r, c = rows + fp.lo, np.asarray(ci)[cc]
             if kind in AT_LEVEL:
-                basis = loss[rows, cc]
+                # what the strings take of the inverter's output at its level, held at the
+                # cap where the expected series stops at one (:func:`would_deliver`)
                 lv, rel = levels.at(r, c)
-                loss[rows, cc] = lv * basis
-                _enter(led, Entry(fp.event, r, c, loss[rows, cc]),
-                       lv * basis * np.hypot(rel, fp.factor_rel_sigma))
+                f, lf = fp.factor[rows, cc], left[r, c]
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    pot = potential[r, c] * lf / led.expected_w[r, c]
+                loss[rows, cc] = (would_deliver(lv, lf, pot)
+                                  - would_deliver(lv * (1 - f), lf, pot))
+                k = own_prints.index(fp)
+                parts = [(r, c, loss[rows, cc],
+                          loss[rows, cc] * np.hypot(rel, fp.factor_rel_sigma))]
+                parts += [(rr[on], cr[on], p[on], sg[on])
+                          for wh, rr, cr, p, sg in carried if (on := wh == k).any()]
+                r_all, c_all, p_all, s_all = (np.concatenate(x) for x in zip(*parts, strict=True))
+                _enter(led, Entry(fp.event, r_all, c_all, p_all), s_all)
             else:
                 led.entries.append(Entry(fp.event, r, c, loss[rows, cc]))
             left[fp.lo:fp.hi, ci] = sub - loss
@@ -268,6 +320,7 @@ class _Levels:
     sel: np.ndarray
     days: np.ndarray  # site-local day of each row
     slot: np.ndarray  # site-local time of day of each row [s]
+    absolute: np.ndarray  # relative standard uncertainty of the reference's absolute level
 
     def daily(self, j: int, rows: np.ndarray, like: int = 2) -> pd.Series:
         """Per day, inverter ``j``'s measured over reference energy on intervals like the
@@ -312,8 +365,11 @@ class _Levels:
         """Per entry ``(rows, cc)``: its inverter's local level around the entry's days on
         intervals like the entry's (:meth:`daily`, :func:`perfcheck.detect.common.local_level`;
         where too few days around have such intervals, as for a few intervals at a rare
-        power, on the same times of day only, then on all intervals; 1 with too few days
-        around at all) and the level's relative standard error."""
+        power, on the same times of day only, then on all intervals) and the level's relative
+        standard error. The level is read through the same irradiance as the entry, days away,
+        so the sensor's calibration cancels (its drift over a few weeks is far below the 1 %
+        floor); with too few days around at all, the level is 1 and the reference's absolute
+        uncertainty (``absolute``) joins the error in quadrature."""
         level, rel = np.ones(len(rows)), np.zeros(len(rows))
         for j in np.unique(cc):
             on = cc == j
@@ -323,7 +379,10 @@ class _Levels:
                                     self.days[r].max())
                 if math.isfinite(lv):
                     break
-            level[on], rel[on] = (lv if math.isfinite(lv) else 1.0), s
+            if math.isfinite(lv):
+                level[on], rel[on] = lv, s
+            else:
+                rel[on] = np.hypot(s, self.absolute[r, j])
         return level, rel
 
 

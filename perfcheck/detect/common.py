@@ -338,27 +338,53 @@ def local_level(x: pd.Series, first_day: pd.Timestamp, last_day: pd.Timestamp,
 
     ``x``: a daily level (measured over expected, as :func:`daily_pi`) on site-local days. The
     level is the median of the ``half_days`` days on either side of the event's days
-    ``[first_day, last_day]`` (those left out); its relative standard error, as the event's
-    days' level is judged by it, is the long-run scale of the log daily level
-    (:func:`long_run_sigma`, autocorrelation-aware, the event's days left out) over the
-    event's days and the reference days, sigma_LR sqrt(1/n_event + 1/n_ref), at least
-    ``MODEL_FLOOR``. With fewer than 5 reference days: NaN and that scale (or the floor).
+    ``[first_day, last_day]`` (those left out). Its relative standard error, as the event's
+    days' level is judged by it, is that of the mean log level of the event's days less the
+    median of the reference days: s sqrt(g(n_event)/n_event + (pi/2) g(n_ref)/n_ref), where
+    s is the plain standard deviation of the reference days' log level (the event's days
+    draw their level from the spread around them, the bad days of heavy tails included),
+    g the AR(1) factor of a mean of consecutive days (:func:`ar1_mean_factor`, phi from
+    :func:`long_run_sigma` over the days outside the event) and pi/2 the median's variance
+    over the mean's (normal values); never under the robust long-run scale
+    sigma_LR sqrt(1/n_event + 1/n_ref), nor under ``MODEL_FLOOR``. With fewer than 5
+    reference days: NaN and that scale (or the floor).
 
     References
     ----------
     Hamilton 1994, Time Series Analysis, sec. 7.2 (variance of a mean of autocorrelated
-    values); the local reference level is common practice (from memory).
+    values); Kendall & Stuart 1977, The Advanced Theory of Statistics, vol. 1 (large-sample
+    variance of the median, pi sigma^2 / 2n for the normal; from memory); the local
+    reference level is common practice (from memory).
     """
     x = x.where(x > 0)
     a, b = pd.Timestamp(first_day), pd.Timestamp(last_day)
     near = ((x.index >= a - pd.Timedelta(days=half_days)) & (x.index < a)) | (
         (x.index > b) & (x.index <= b + pd.Timedelta(days=half_days)))
     ref = x[near].dropna()
-    sig, _ = long_run_sigma(np.log(x[(x.index < a) | (x.index > b)]).to_numpy())
+    sig, phi = long_run_sigma(np.log(x[(x.index < a) | (x.index > b)]).to_numpy())
     if len(ref) < 5 or not math.isfinite(sig):
         return float("nan"), max(MODEL_FLOOR, sig if math.isfinite(sig) else 0.0)
-    n_ev = max(1, int(((x.index >= a) & (x.index <= b)).sum()))
-    return float(np.median(ref)), max(MODEL_FLOOR, sig * math.sqrt(1 / n_ev + 1 / len(ref)))
+    n_ev, n_ref = max(1, int(((x.index >= a) & (x.index <= b)).sum())), len(ref)
+    s = float(np.std(np.log(ref.to_numpy()), ddof=1))
+    rel = s * math.sqrt(ar1_mean_factor(n_ev, phi) / n_ev
+                        + math.pi / 2 * ar1_mean_factor(n_ref, phi) / n_ref)
+    return float(np.median(ref)), max(MODEL_FLOOR, rel, sig * math.sqrt(1 / n_ev + 1 / n_ref))
+
+
+def ar1_mean_factor(n: int, phi: float) -> float:
+    """Variance of the mean of ``n`` consecutive values of an AR(1) series with lag-1
+    autocorrelation ``phi`` over that of ``n`` independent ones:
+    1 + 2 sum_{k=1}^{n-1} (1 - k/n) phi^k (tends to (1 + phi)/(1 - phi) for large n).
+
+    References
+    ----------
+    Hamilton 1994, Time Series Analysis, Princeton, eq. 7.2.6 (variance of the sample mean
+    of a covariance-stationary process; from memory).
+    """
+    if n <= 1 or not phi > 0:
+        return 1.0
+    k = np.arange(1, n)
+    return float(1 + 2 * np.sum((1 - k / n) * phi ** k))
 
 
 # --------------------------------------------------------------------------------------------

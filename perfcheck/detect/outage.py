@@ -14,7 +14,10 @@ power; with normal operation at a ratio near 1 (spread a few %), a ratio under 0
 standard deviations away, so a false alarm from noise is practically impossible. A run of out
 intervals may bridge the night and unjudged low-light intervals, never a producing one, and
 is widened to the neighbouring low-light intervals where the inverter produced nothing, so
-start and end sit on the interval. Runs shorter than ``min_minutes`` are ignored.
+start and end sit on the interval; an inverter's run is widened over the night to a whole
+dim day next to it (no interval of it judged producing) on which it produced nothing while a
+sibling produced at least ``near_zero`` of its expected energy (the same test, on the day). Runs
+shorter than ``min_minutes`` are ignored.
 These limits are common practice (no published source). A plant of one inverter reports its
 stops on that inverter (the device that stopped). The energy and its band here are the
 whole shortfall's; the ledger counts it against the inverter's local level
@@ -50,10 +53,55 @@ def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
     return state, nothing
 
 
+def silent_days(w: Wide, state: pd.DataFrame, nothing: pd.DataFrame, near_zero: float = 0.05
+                ) -> pd.DataFrame:
+    """Per interval and inverter: its day is one on which the inverter produced nothing on
+    every interval with expected power, none was judged producing, and a sibling delivered at
+    least ``near_zero`` of its expected energy (an inverter alone: never)."""
+    days = w.day.to_numpy()
+    lit = w.expected.gt(0)
+    dark = (nothing | ~lit).groupby(days).all() & lit.groupby(days).any() & (
+        state.ne(0).groupby(days).all())
+    ratio = (w.measured.where(lit).groupby(days).sum(min_count=1)
+             / w.expected.where(lit & w.measured.notna()).groupby(days).sum(min_count=1))
+    out = pd.DataFrame(False, index=dark.index, columns=dark.columns)
+    for inv in w.inverters:
+        others = ratio.drop(columns=inv)
+        if others.shape[1]:
+            out[inv] = dark[inv] & others.ge(near_zero).any(axis=1)
+    return out.reindex(days).set_axis(w.index)
+
+
+def _whole_days(lo: int, hi: int, silent: np.ndarray, lit: np.ndarray, day: np.ndarray
+                ) -> tuple[int, int]:
+    """``[lo, hi)`` widened over the night to the silent days (``silent``) next to it, day by
+    day: to their first and last interval with expected power (``lit``); ``day`` numbers the
+    rows' days."""
+    def first_lit(j: int, step: int) -> int:
+        while 0 <= j < len(lit) and not lit[j]:
+            j += step
+        return j
+
+    while True:
+        j = first_lit(lo - 1, -1)
+        if j < 0 or not silent[j]:
+            break
+        on = np.flatnonzero(lit & (day == day[j]))
+        lo = int(on[0])
+    while True:
+        j = first_lit(hi, 1)
+        if j >= len(lit) or not silent[j]:
+            break
+        on = np.flatnonzero(lit & (day == day[j]))
+        hi = int(on[-1]) + 1
+    return lo, hi
+
+
 def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
-                scope: str, min_minutes: float, rel_sigma: float
-                ) -> tuple[list[Event], np.ndarray]:
-    """Runs of state 1 (bridging -1) to events; the mask of the intervals they cover."""
+                scope: str, min_minutes: float, rel_sigma: float,
+                silent: np.ndarray | None = None) -> tuple[list[Event], np.ndarray]:
+    """Runs of state 1 (bridging -1) to events; the mask of the intervals they cover
+    (widened over ``silent`` days, :func:`silent_days`, when given)."""
     pos = np.flatnonzero(state >= 0)
     mask = np.zeros(len(state), dtype=bool)
     events: list[Event] = []
@@ -67,6 +115,9 @@ def _events_for(state: np.ndarray, nothing: np.ndarray, w: Wide, col: list[str],
             lo -= 1
         while hi < len(state) and state[hi] != 0 and nothing[hi]:
             hi += 1
+        if silent is not None:
+            lo, hi = _whole_days(lo, hi, silent, w.expected[col[0]].to_numpy() > 0,
+                                 pd.factorize(w.day)[0])
         mask[lo:hi] = True
         sl = slice(lo, hi)
         gap = (w.expected.iloc[sl][col].to_numpy() - w.measured.iloc[sl][col].to_numpy())
@@ -133,10 +184,12 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
     events += ev
     mask.loc[pm, :] = True
     if len(ids) > 1:
+        quiet = silent_days(w, state, nothing, kw.get("near_zero", 0.05)).to_numpy()
         for j, inv in enumerate(ids):
             s = st[:, j].copy()
             s[pm & (s == 1)] = -1  # already part of a plant stop
-            ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma)
+            ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma,
+                                 quiet[:, j] & ~pm)
             events += ev
             mask.loc[im, inv] = True
     for e in events:

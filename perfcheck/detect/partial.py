@@ -16,8 +16,11 @@ of the segment inside the data is a step (the median of the ``min_days`` days on
 differs by at least half the segment's shift: a lost string is a step, a seasonal drift or a
 growing shade is not), and the loss is the same share in the morning and in the afternoon
 (half-day values within a factor two: a lost string takes its share all day, a shade takes it
-on one side of the day only). The share of DC lost, times the number of strings in the site
-file, gives the number of strings lost.
+on one side of the day only). The share lost is then measured on the fault's whole days
+against the days next to it (the mean of the level before and the level after, within two
+weeks: the inverter's level against its siblings wanders with the season, so the long
+reference segment that proves the fault would bias its size); times the number of strings in
+the site file it gives the number of strings lost.
 
 The false-alarm rate per inverter and series is bounded by about ``alpha`` per split tested
 (Bonferroni), default 1e-3.
@@ -39,6 +42,7 @@ from perfcheck.detect.common import (
     Footprint,
     Segment,
     Wide,
+    ar1_mean_factor,
     change_points,
     coarsen,
     despike,
@@ -76,15 +80,20 @@ def daily_relative(w: Wide, usable: pd.DataFrame, siblings: bool = True,
 
 
 def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float = 1e-3,
-           min_days: int = 3) -> tuple[list[Event], list[Footprint]]:
+           min_days: int = 3, judged: pd.DataFrame | None = None
+           ) -> tuple[list[Event], list[Footprint]]:
     """Partial-outage events with their footprints (share of expected power lost, with its
     relative standard error).
 
+    ``judged`` (default ``usable``): the intervals the edges of a fault are placed on, the
+    clipped ones among them (:func:`_edges`).
+
     The daily statistics are taken on 15-minute blocks (:func:`coarsen`), the energy on
     the series as given. The share's standard error takes the days' autocorrelation
-    (:func:`_mean_var`); the band here is the share's alone: the ledger counts the share
-    against the inverter's local level and widens the band by that level's error
-    (:mod:`perfcheck.detect.attribution`).
+    (:func:`_mean_var`, phi read on the long reference segment) and the level's drift
+    between the days before and after (rectangular over their range); the band here is the
+    share's alone: the ledger counts the share against the inverter's local level and
+    widens the band by that level's error (:mod:`perfcheck.detect.attribution`).
     """
     wc, uc = coarsen(w, usable)
     daily = daily_relative(wc, uc)
@@ -108,7 +117,11 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
         xr = x[ref.start:ref.stop]
         own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
         n_str = max(1, strings.get(inv, 1))
-        for g in merge_within(x, segs, ref, 0.5 / n_str):
+        merged = merge_within(x, segs, ref, 0.5 / n_str)
+        # the days' autocorrelation, read on the long reference segment (a few days next to
+        # a fault are too few to estimate it)
+        _, phi = long_run_sigma(xr)
+        for g in merged:
             if g is ref or g.mean >= ref.mean:
                 continue
             xs = x[g.start:g.stop]
@@ -129,11 +142,29 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
                     for h in halves]
             if not (min(half) >= 0.5 * max(half) and min(half) > 0):
                 continue
-            se = math.sqrt(_mean_var(xs) + _mean_var(xr))
-            share_lo = 1 - math.exp(g.mean - ref.mean + 1.96 * se)
-            share_hi = 1 - math.exp(g.mean - ref.mean - 1.96 * se)
+            # the share lost is measured against the days next to the fault: the inverter's
+            # level against its siblings wanders with the season, so a far reference biases
+            # it; the level before and the level after are averaged (a linear drift
+            # interpolated to the fault), each mean's variance autocorrelation-aware, and
+            # the level during the fault taken as anywhere between the two (rectangular,
+            # variance range^2 / 12: JCGM 100:2008, 4.3.7)
+            sides = [x[m] for m in _near(s.index, g, merged, ref, 0.5 / n_str)
+                     if m.sum() >= min_days] or [xr]
+            base = float(np.mean([np.mean(v) for v in sides]))
             d0, d1 = s.index[g.start], s.index[g.stop - 1]
-            lo, hi = _edges(w, usable, inv, d0, d1, math.exp(ref.mean), math.exp(g.mean))
+            lo, hi = _edges(w, usable if judged is None else judged, inv, d0, d1,
+                            math.exp(base), math.exp(g.mean))
+            # the days the strings were lost all day: a day holding an edge is partly healthy
+            whole = (s.index[g.start:g.stop] > w.day.iloc[lo]) & (
+                s.index[g.start:g.stop] < w.day.iloc[hi - 1])
+            if whole.sum() >= min_days:
+                xs = xs[whole]
+            share = 1 - math.exp(float(np.mean(xs)) - base)
+            between = (np.mean(sides[-1]) - np.mean(sides[0])) ** 2 / 12
+            se = math.sqrt(_mean_var(xs, phi) + sum(_mean_var(v, phi) for v in sides)
+                           / len(sides) ** 2 + between)
+            share_lo = 1 - math.exp(float(np.mean(xs)) - base + 1.96 * se)
+            share_hi = 1 - math.exp(float(np.mean(xs)) - base - 1.96 * se)
             exp = w.expected[inv].to_numpy()[lo:hi]
             step = w.interval_s.to_numpy()[lo:hi]
             energy = float(np.nansum(exp * share * step) / 3.6e6)
@@ -148,6 +179,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
                 method=METHOD,
                 evidence={"test": "Welch t", "p_value": float(t.pvalue), "t": float(t.statistic),
                           "days": int(len(xs)), "reference_days": int(len(xr)),
+                          "share_reference_days": int(sum(len(v) for v in sides)),
                           "share_of_dc_lost": share, "share_ci95": [share_lo, share_hi],
                           "own_ratio_p_value": float(t_own.pvalue),
                           "edge_steps_share": steps, "morning_afternoon_share": half,
@@ -161,13 +193,27 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
     return events, prints
 
 
-def _mean_var(x: np.ndarray) -> float:
-    """Variance of the mean of the daily values ``x``: the long-run variance over their
-    number (:func:`perfcheck.detect.common.long_run_sigma`, autocorrelation-aware), never
-    under the independent-sample one."""
-    lr, _ = long_run_sigma(x)
-    v = float(np.var(x, ddof=1))
-    return max(v, lr * lr if math.isfinite(lr) else v) / len(x)
+def _near(days: pd.Index, g: Segment, merged: list[Segment], ref: Segment, step: float,
+          half_days: int = 14) -> tuple[np.ndarray, np.ndarray]:
+    """Masks of the days within ``half_days`` before and after segment ``g`` that lie in no
+    segment below ``ref`` by ``step`` or more (another string fault, or ``g`` itself): the
+    local reference of the share lost, as :func:`perfcheck.detect.common.local_level` takes
+    the inverter's level."""
+    d = pd.DatetimeIndex(days)
+    a, b = d[g.start], d[g.stop - 1]
+    span = pd.Timedelta(days=half_days)
+    other = np.zeros(len(d), dtype=bool)
+    for h in merged:
+        if 1 - math.exp(h.mean - ref.mean) >= step:
+            other[h.start:h.stop] = True
+    return (d >= a - span) & (d < a) & ~other, (d > b) & (d <= b + span) & ~other
+
+
+def _mean_var(x: np.ndarray, phi: float) -> float:
+    """Variance of the mean of the consecutive daily values ``x`` with lag-1
+    autocorrelation ``phi``: their variance times the AR(1) factor over their number
+    (:func:`perfcheck.detect.common.ar1_mean_factor`)."""
+    return float(np.var(x, ddof=1)) * ar1_mean_factor(len(x), phi) / len(x)
 
 
 def merge_within(x: np.ndarray, segs: list[Segment], ref: Segment, step: float
@@ -199,7 +245,10 @@ def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Tim
     day before ``d0`` through ``d0``, and back between ``d1`` and the day after, each at the
     split with the least squared distance to the two known levels (a lost string is a step;
     least-squares change-point with known levels, Hinkley 1970, Biometrika 57:1, from
-    memory). Without usable intervals there, the days' edges."""
+    memory). ``usable`` should hold the intervals the model expects at the rating too: where
+    the inverter still reaches it the lost strings cost nothing and the ratio stays at the
+    upper level, where it falls short the step shows; without them an edge inside a clear
+    noon falls anywhere in it. Without usable intervals there, the days' edges."""
     days = w.day.to_numpy()
     r = (w.measured[inv] / w.expected[inv]).where(usable[inv])
     if len(w.inverters) > 1:
