@@ -22,7 +22,7 @@ import hashlib
 import json
 import math
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import duckdb
 import numpy as np
@@ -41,10 +41,12 @@ from perfcheck import (
     units,
     versions,
 )
-from perfcheck.detect.attribution import Ledger
 from perfcheck.detect.common import Event, _jsonable
 from perfcheck.errors import DataError
 from perfcheck.site import Site
+
+if TYPE_CHECKING:  # the detectors load only when an analysis is made (perfcheck.detect)
+    from perfcheck.detect.attribution import Ledger
 
 # A revised energy counts as changed beyond this share of the earlier value, or 1 kWh
 # (common practice: smaller changes are the rounding of a re-run, not a new verdict).
@@ -225,12 +227,11 @@ def _restate(events: list[Event], ledger: Ledger) -> list[Event]:
 
 
 def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame) -> None:
+    """Append the frame's columns of ``table`` to it. The frame is scanned as a relation, not
+    registered as a view: a view dropped inside the transaction keeps its frame alive until
+    the commit, so the ledger's rows would stay in memory through the daily sums."""
     cols = [r[0] for r in con.execute(f"DESCRIBE {table}").fetchall()]
-    con.register("_frame", frame[cols])
-    try:
-        con.execute(f"INSERT INTO {table} SELECT * FROM _frame")
-    finally:
-        con.unregister("_frame")
+    con.from_df(frame[cols]).insert_into(table)
 
 
 def _store_events(con: duckdb.DuckDBPyConnection, analysis_id: int, events: list[Event],
