@@ -425,7 +425,10 @@ def fig_power_scatter(aligned: pd.DataFrame, max_points: int = 20000) -> Figure:
         return fig
     if len(df) > max_points:
         df = df.sample(max_points, random_state=1)
-    flag = df["flags"].fillna("").astype(str).str.split(",").str[0].replace("", "no flag")
+    # the first flag of each distinct flag list, then per row (a few lists, many rows)
+    codes, lists = pd.factorize(df["flags"].fillna("").astype(str))
+    firsts = np.array([f.split(",")[0] or "no flag" for f in lists], dtype=object)
+    flag = pd.Series(firsts[codes], index=df.index, dtype=object)
     top = max(df["expected_ac_w"].max(), df["measured_ac_w"].max()) / 1e3
     order = ["no flag"] + sorted(set(flag) - {"no flag"})
     invs = sorted(df["inverter_id"].unique())
