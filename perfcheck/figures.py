@@ -495,8 +495,9 @@ FIGURES: list[tuple[str, str, Callable]] = [
 
 
 
-def png_bytes(fig: Figure) -> bytes:
-    """The figure as PNG bytes at ``DPI``.
+def png_bytes(fig: Figure) -> tuple[bytes, np.ndarray]:
+    """The figure as PNG bytes at ``DPI``, and its pixels (8-bit RGBA, rows from the top) as
+    the PNG holds them, for the PDF.
 
     The figure's layout (constrained) is run here, at the figure's own ``DPI``, and then left
     as it is: given a layout engine, ``savefig`` would draw the whole figure once with the
@@ -508,7 +509,8 @@ def png_bytes(fig: Figure) -> bytes:
         fig.set_layout_engine(None)  # the positions stay; savefig draws once
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=DPI, facecolor=fig.get_facecolor())
-    return buf.getvalue()
+    # the canvas keeps the drawing the PNG was encoded from: no need to decode it again
+    return buf.getvalue(), np.array(fig.canvas.buffer_rgba())
 
 
 def _num(v: object) -> float:
