@@ -219,7 +219,8 @@ def load_aligned(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp
     for c in ("measured_ac_w", "expected_ac_w", "potential_ac_w", "expected_dc_w",
               "expected_ac_modelled_w", "potential_ac_modelled_w"):
         df[c] = df[c].astype(float)
-    if not _in_order(df["ts"].to_numpy(), df["inverter_id"].to_numpy()):
+    # the instants as datetime64 (UTC): to_numpy() of zoned ones makes a Timestamp per row
+    if not _in_order(df["ts"].dt.tz_convert(None).to_numpy(), df["inverter_id"].to_numpy()):
         df = df.sort_values(["ts", "inverter_id"], ignore_index=True)
     return df[list(ALIGNED_COLUMNS)]
 

@@ -425,7 +425,10 @@ def fig_power_scatter(aligned: pd.DataFrame, max_points: int = 20000) -> Figure:
         return fig
     if len(df) > max_points:
         df = df.sample(max_points, random_state=1)
-    flag = df["flags"].fillna("").astype(str).str.split(",").str[0].replace("", "no flag")
+    # the first flag of each distinct flag list, then per row (a few lists, many rows)
+    codes, lists = pd.factorize(df["flags"].fillna("").astype(str))
+    firsts = np.array([f.split(",")[0] or "no flag" for f in lists], dtype=object)
+    flag = pd.Series(firsts[codes], index=df.index, dtype=object)
     top = max(df["expected_ac_w"].max(), df["measured_ac_w"].max()) / 1e3
     order = ["no flag"] + sorted(set(flag) - {"no flag"})
     invs = sorted(df["inverter_id"].unique())
@@ -492,8 +495,9 @@ FIGURES: list[tuple[str, str, Callable]] = [
 
 
 
-def png_bytes(fig: Figure) -> bytes:
-    """The figure as PNG bytes at ``DPI``.
+def png_bytes(fig: Figure) -> tuple[bytes, np.ndarray]:
+    """The figure as PNG bytes at ``DPI``, and its pixels (8-bit RGBA, rows from the top) as
+    the PNG holds them, for the PDF.
 
     The figure's layout (constrained) is run here, at the figure's own ``DPI``, and then left
     as it is: given a layout engine, ``savefig`` would draw the whole figure once with the
@@ -505,7 +509,8 @@ def png_bytes(fig: Figure) -> bytes:
         fig.set_layout_engine(None)  # the positions stay; savefig draws once
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=DPI, facecolor=fig.get_facecolor())
-    return buf.getvalue()
+    # the canvas keeps the drawing the PNG was encoded from: no need to decode it again
+    return buf.getvalue(), np.array(fig.canvas.buffer_rgba())
 
 
 def _num(v: object) -> float:

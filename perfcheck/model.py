@@ -620,14 +620,10 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     bounds = {"id": run_id, "start": start, "end": end}
     con.execute(db.sql("model_delete_expected"), bounds)
     con.execute(db.sql("model_delete_conditions"), bounds)
-    con.register("_expected_new", exp)
-    con.register("_conditions_new", cond)
-    try:
-        con.execute("INSERT INTO expected BY NAME SELECT * FROM _expected_new")
-        con.execute("INSERT INTO model_conditions BY NAME SELECT * FROM _conditions_new")
-    finally:
-        con.unregister("_expected_new")
-        con.unregister("_conditions_new")
+    # scanned as relations, not registered as views: a view dropped inside the transaction
+    # keeps its frame alive until the commit, and so every chunk's frames would stay in memory
+    con.from_df(exp).query("_new", "INSERT INTO expected BY NAME SELECT * FROM _new")
+    con.from_df(cond).query("_new", "INSERT INTO model_conditions BY NAME SELECT * FROM _new")
     daily = None
     if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
         ref = sensor_array(site)

@@ -7,7 +7,6 @@ captions, as in the HTML.
 
 from __future__ import annotations
 
-import io
 import textwrap
 from pathlib import Path
 from typing import Any
@@ -26,7 +25,6 @@ from matplotlib.backends.backend_pdf import PdfPages  # noqa: E402
 from matplotlib.colors import to_rgba  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.font_manager import FontProperties  # noqa: E402
-from PIL import Image  # noqa: E402
 
 from perfcheck import figures  # noqa: E402
 
@@ -172,11 +170,11 @@ def _table(pages: Pages, head: list[str], rows: list[list[str]]) -> None:
     pages.y -= LINE["table"] * 0.6
 
 
-def _figures(pages: Pages, pngs: dict[str, bytes]) -> None:
+def _figures(pages: Pages, pixels: dict[str, np.ndarray]) -> None:
     for n, (stem, caption, _) in enumerate(figures.FIGURES, 1):
         # the PNG's 8-bit channels as they are: matplotlib embeds them without normalising
         # a float image first
-        img = np.asarray(Image.open(io.BytesIO(pngs[stem])))
+        img = pixels[stem]
         width = (A4[0] - 2 * MARGIN) * FIGURE_WIDTH
         height = width * img.shape[0] / img.shape[1]
         left = (A4[0] - width) / 2
@@ -195,9 +193,10 @@ def _wrap(text: str, width: int) -> list[str]:
     return textwrap.wrap(text, width) or [""]
 
 
-def write_pdf(blocks: list[tuple[str, Any]], pngs: dict[str, bytes], path: Path,
+def write_pdf(blocks: list[tuple[str, Any]], pixels: dict[str, np.ndarray], path: Path,
               title: str) -> None:
-    """Write text blocks ``(kind, content)`` and the figures (PNG bytes) to ``path`` (A4 PDF).
+    """Write text blocks ``(kind, content)`` and the figures (their PNGs' pixels, 8-bit RGBA,
+    by stem: :func:`perfcheck.figures.png_bytes`) to ``path`` (A4 PDF).
 
     Kinds: ``title``, ``h``, ``lead``, ``para`` (a string each), ``pre`` (preformatted text),
     ``table`` (``(head, rows)``, months or items down), ``figures`` (all figures, numbered,
@@ -207,7 +206,7 @@ def write_pdf(blocks: list[tuple[str, Any]], pngs: dict[str, bytes], path: Path,
         pages = Pages(pdf, title)
         for kind, content in blocks:
             if kind == "figures":
-                _figures(pages, pngs)
+                _figures(pages, pixels)
             elif kind == "table":
                 _table(pages, *content)
             elif kind == "pre":

@@ -764,15 +764,15 @@ def render(site: Site, result: dict, aligned: pd.DataFrame, quality: dict,
     out_dir = Path(out_dir)
     (out_dir / "figures").mkdir(parents=True, exist_ok=True)
     ctx = context(site, result, aligned, quality)
-    pngs, paths = {}, {}
+    pngs, pixels, paths = {}, {}, {}
     for stem, _, build in figures.FIGURES:
-        pngs[stem] = figures.png_bytes(build(aligned, result, site.timezone))
+        pngs[stem], pixels[stem] = figures.png_bytes(build(aligned, result, site.timezone))
         paths[f"figure_{stem}"] = out_dir / "figures" / f"{stem}.png"
         paths[f"figure_{stem}"].write_bytes(pngs[stem])
     paths["html"] = out_dir / "report.html"
     paths["html"].write_text(render_html(ctx, pngs), encoding="utf-8")
     paths["pdf"] = out_dir / "report.pdf"
-    pdf.write_pdf(pdf_text_blocks(ctx), pngs, paths["pdf"], ctx["title"])
+    pdf.write_pdf(pdf_text_blocks(ctx), pixels, paths["pdf"], ctx["title"])
     paths["json"] = out_dir / "check.json"
     paths["json"].write_text(dump_json(result), encoding="utf-8")
     paths["events_csv"] = out_dir / "events.csv"

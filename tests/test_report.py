@@ -228,19 +228,21 @@ def test_demo_month_report(demo_db, tmp_path):
                                                        for e in doc["events"]]
 
 
-# Prints the modelling libraries a command really loaded (lazily bound ones do not count).
+# Prints the modelling libraries and detectors a command really loaded (lazily bound ones do
+# not count).
 LOADED_MODELLING = (
     "import sys\nfrom perfcheck.cli import main\ntry:\n"
     "    main(sys.argv[1:], prog_name='perfcheck')\nexcept SystemExit as exc:\n"
     "    assert not exc.code, exc.code\n"
-    "print(sorted(m for m in ('pvlib', 'statsmodels.api', 'scipy.stats') if m in sys.modules "
+    "print(sorted(m for m in ('pvlib', 'statsmodels.api', 'scipy.stats', "
+    "'perfcheck.detect.attribution', 'perfcheck.detect.soiling') if m in sys.modules "
     "and type(sys.modules[m]).__name__ != '_LazyModule'))")
 
 
 def test_report_of_a_stored_analysis_loads_no_modelling_library(demo_db, tmp_path):
-    """A report of an analysed period only reads stored results: pvlib, statsmodels and
-    scipy's statistics stay unloaded (about half a second of a report's start-up; the figures
-    of tests/benchmark.py)."""
+    """A report of an analysed period only reads stored results: pvlib, statsmodels,
+    scipy's statistics and the detectors stay unloaded (about half a second of a report's
+    start-up; the figures of tests/benchmark.py)."""
     out = subprocess.run(
         [sys.executable, "-c", LOADED_MODELLING, "report", str(demo_db.site.path), "--db",
          str(demo_db.db_path), "--month", "2025-06", "--out", str(tmp_path / "report")],

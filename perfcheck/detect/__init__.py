@@ -35,20 +35,6 @@ import numpy as np
 import pandas as pd
 
 from perfcheck import physics as ph
-from perfcheck.detect import (
-    attribution,
-    baseline,
-    clipping,
-    clock,
-    curtailment,
-    degradation,
-    outage,
-    partial,
-    sensor,
-    shading,
-    soiling,
-    tracker,
-)
 from perfcheck.detect.common import (
     MODEL_FLOOR,
     Z95,
@@ -63,8 +49,24 @@ from perfcheck.detect.common import (
     robust_sigma,
     wide,
 )
+from perfcheck.lazy import lazy_module
 from perfcheck.model import orientation, sensor_array, sensor_orientation
 from perfcheck.site import Site, Table
+
+# The detectors run only when an analysis is made: the commands that read a stored one
+# (report, evidence, check) take this package's events and settings without loading them.
+attribution = lazy_module("perfcheck.detect.attribution")
+baseline = lazy_module("perfcheck.detect.baseline")
+clipping = lazy_module("perfcheck.detect.clipping")
+clock = lazy_module("perfcheck.detect.clock")
+curtailment = lazy_module("perfcheck.detect.curtailment")
+degradation = lazy_module("perfcheck.detect.degradation")
+outage = lazy_module("perfcheck.detect.outage")
+partial = lazy_module("perfcheck.detect.partial")
+sensor = lazy_module("perfcheck.detect.sensor")
+shading = lazy_module("perfcheck.detect.shading")
+soiling = lazy_module("perfcheck.detect.soiling")
+tracker = lazy_module("perfcheck.detect.tracker")
 
 
 @dataclasses.dataclass(frozen=True)
