@@ -45,7 +45,9 @@ heavy tails and autocorrelation included: :func:`perfcheck.detect.common.local_l
 the energy the inverter would have delivered, with the share's own error where there is one
 (taken as independent of the level's, added in quadrature), added linearly over the rows, and
 for the whole intervals the interval noise of the event's days (:meth:`_Levels.scatter`),
-which weighs where an event takes few intervals.
+which weighs where an event takes few intervals; where lost strings were found to start on
+the event's day after some of its intervals, the band reaches down by what they would have
+taken there (:func:`_unseen`).
 
 Clipping at the AC rating (class ``design``) lies inside the expected series; its energy, the
 unlimited expected power above the rating, is recorded beside the losses, never among them.
@@ -75,9 +77,11 @@ from perfcheck.detect.common import (
     daylight,
     energy_band,
     local_level,
-    robust_sigma,
     scope_of,
 )
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 Z_UNDER = 3.0  # one-sided 0.13 % per flagged period
 # share-class kinds whose share is measured against the inverter itself (its own level before
@@ -235,7 +239,8 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
         lost = would - would_deliver(lk * (1 - s), exp, pot)
         _enter(led, Entry(ev, rows, cc, would - lost - led.measured_w[rows, cc]),
                np.hypot((would - lost) * k_rel, lost * s_rel),
-               (would - lost) * levels.scatter(rows, cc))
+               (would - lost) * levels.scatter(rows, cc),
+               _unseen(led, own_prints, col_pos, rows, cc, days, lk, exp, pot))
         carried.append((which[rows, cc], rows, cc, lost, lost * np.hypot(k_rel, s_rel)))
     left = np.where(free, led.expected_w, 0.0)
     explained = np.zeros_like(left)
@@ -345,20 +350,31 @@ class _Levels:
 
     def scatter(self, rows: np.ndarray, cc: np.ndarray) -> np.ndarray:
         """Per entry ``(rows, cc)``: the interval-scale relative error of the expected power
-        on the entry's day, the scale of that day's log measured/reference from one interval
-        to the next on the intervals ``sel`` of its inverter
-        (:func:`perfcheck.detect.common.robust_sigma`; 0 with fewer than 3 of them). Its
-        slow part, over the hours of the day, is the level's (:meth:`daily` judges the event
-        by the same times of day); the fast part is wide on a day of broken cloud, when a
-        sensor at one point and an array over a field see different light, and weighs where
-        an event takes few intervals."""
+        on the entry's day, from that day's log measured/reference on the intervals ``sel``
+        of its inverter, scaled so that ``Z95`` times it bounds the day's noise at 95 % (0
+        with fewer than 4 of them). Its slow part, over the hours of the day, is the level's
+        (:meth:`daily` judges the event by the same times of day), so the scale is read off
+        the differences from one interval to the next; the fast part is wide on a day of
+        broken cloud, when a sensor at one point and an array over a field see different
+        light, and weighs where an event takes few intervals. There it is heavy tailed, and
+        a sum over a few intervals carries the tail, so the scale is the root mean square of
+        the successive differences over sqrt 2 (von Neumann, Kent, Bellinson & Hart 1941,
+        Ann. Math. Stat. 12(2):153), not a robust one; being estimated from the day's m
+        intervals, it is widened by Student's t quantile over the normal one (Student 1908,
+        Biometrika 6(1):1) on m // 2 degrees of freedom, those of the disjoint pairs' squared
+        differences, which the overlapping ones estimate at least as well."""
         out = np.zeros(len(rows))
         for j in np.unique(cc):
             for day in np.unique(self.days[rows[cc == j]]):
                 on = self.sel[:, j] & (self.days == day)
                 with np.errstate(invalid="ignore", divide="ignore"):
-                    sig = robust_sigma(np.log(self.measured[on, j] / self.reference[on, j]))
-                out[(cc == j) & (self.days[rows] == day)] = sig if math.isfinite(sig) else 0.0
+                    x = np.log(self.measured[on, j] / self.reference[on, j])
+                x = x[np.isfinite(x)]
+                if len(x) < 4:
+                    continue
+                sig = math.sqrt(float(np.mean(np.diff(x) ** 2)) / 2)
+                t = float(stats.t.ppf(0.975, len(x) // 2)) / Z95
+                out[(cc == j) & (self.days[rows] == day)] = sig * t
         return out
 
     def at(self, rows: np.ndarray, cc: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -386,13 +402,37 @@ class _Levels:
         return level, rel
 
 
+def _unseen(led: Ledger, own_prints: list[Footprint], col_pos: dict[str, int],
+            rows: np.ndarray, cc: np.ndarray, days: np.ndarray, lk: np.ndarray,
+            exp: np.ndarray, pot: np.ndarray) -> float:
+    """What lost strings would take of an interval event's energy [kWh] on its intervals
+    before their window's found start on the same day: while the event holds an inverter
+    (off, or at its share of a set-point) it delivers the same with strings lost or not, so
+    the data cannot tell when in those intervals they went; that start is not identified,
+    and the event's energy lies anywhere from its estimate down to the estimate less
+    this."""
+    out = 0.0
+    for fp in own_prints:
+        share = np.broadcast_to(fp.factor, (fp.hi - fp.lo, len(fp.cols)))[0]
+        for k, col in enumerate(fp.cols):
+            on = (cc == col_pos[col]) & (rows < fp.lo) & (days[rows] == days[fp.lo])
+            lost = (would_deliver(lk[on], exp[on], pot[on])
+                    - would_deliver(lk[on] * (1 - share[k]), exp[on], pot[on]))
+            out += float(np.sum(lost * led.interval_s[rows[on]]) / 3.6e6)
+    return out
+
+
 def _enter(led: Ledger, entry: Entry, sigma_w: np.ndarray,
-           noise_w: np.ndarray | None = None) -> None:
+           noise_w: np.ndarray | None = None, unseen_kwh: float = 0.0) -> None:
     """Add ``entry`` and state its event's energy as the entry's, with the 95 % band of the
     standard error ``sigma_w`` per row [W], added linearly over the rows (the level's error
     is shared by the intervals of an inverter, and by the inverters through the weather),
     and of the interval noise ``noise_w`` per row [W] (added linearly over the inverters of
-    an interval, which share the weather, and in quadrature over the intervals)."""
+    an interval, which share the weather, and in quadrature over the intervals). Where the
+    data leave part of the energy unidentified (``unseen_kwh`` that may or may not belong to
+    it, :func:`_unseen`), the band spans the whole identified range and the statistical band
+    beyond each end (the bound of Imbens & Manski 2004, Econometrica 72(6):1845, taken at
+    its conservative, union form)."""
     led.entries.append(entry)
     e = led.energy_kwh(entry)
     s = float(np.sum(sigma_w * led.interval_s[entry.rows]) / 3.6e6)
@@ -401,7 +441,7 @@ def _enter(led: Ledger, entry: Entry, sigma_w: np.ndarray,
             entry.rows).sum().to_numpy()
         s = math.hypot(s, float(np.sqrt(np.sum(per_row ** 2))))
     entry.event.energy_loss_kwh = e
-    entry.event.energy_loss_kwh_low = max(0.0, min(e, e - Z95 * s))
+    entry.event.energy_loss_kwh_low = max(0.0, min(e, e - Z95 * s) - unseen_kwh)
     entry.event.energy_loss_kwh_high = e + Z95 * s
 
 
