@@ -99,9 +99,10 @@ def fit_e2848(poa: Any, temp_air: Any, wind_speed: Any, power: Any) -> Any:
     ----------
     ASTM E2848-13 (from memory, see :func:`e2848_design`).
     """
-    import statsmodels.api as sm
+    # the module called, not statsmodels.api (which loads its plots, time series and formulas)
+    from statsmodels.regression.linear_model import OLS
 
-    return sm.OLS(np.asarray(power, dtype=float), e2848_design(poa, temp_air, wind_speed)).fit()
+    return OLS(np.asarray(power, dtype=float), e2848_design(poa, temp_air, wind_speed)).fit()
 
 
 def capacity_at(fit: Any, rc: Mapping[str, float], confidence: float = 0.95) -> dict[str, float]:

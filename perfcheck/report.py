@@ -20,7 +20,6 @@ from pathlib import Path
 from typing import Any
 
 import duckdb
-import jinja2
 import numpy as np
 import pandas as pd
 
@@ -28,9 +27,10 @@ from perfcheck import analysis, db, guarantees, kinds, units, versions
 from perfcheck.lazy import lazy_module
 from perfcheck.site import Site, Table
 
-# matplotlib only when a report is drawn: validating [report] stays light
+# matplotlib and jinja2 only when a report is drawn: validating [report] stays light
 figures = lazy_module("perfcheck.figures")
 pdf = lazy_module("perfcheck.pdf")
+jinja2 = lazy_module("jinja2")
 
 # Each metric and detector with its published source (shown in the report and the bundle).
 METHODS: list[tuple[str, str]] = [

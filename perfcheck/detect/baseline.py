@@ -57,7 +57,9 @@ import pandas as pd
 from perfcheck.detect.common import Wide, long_run_sigma
 from perfcheck.lazy import lazy_module
 
-sm = lazy_module("statsmodels.api")
+# the two modules called, not statsmodels.api (which loads its plots, time series and formulas)
+norms = lazy_module("statsmodels.robust.norms")
+robust_linear_model = lazy_module("statsmodels.robust.robust_linear_model")
 
 
 @dataclass(frozen=True)
@@ -115,7 +117,7 @@ def fit(w: Wide, valid: pd.DataFrame, ref_first: pd.Timestamp, ref_days: int,
                     w.temp_cell[inv].to_numpy()[idx])
         y = w.measured[inv].to_numpy()[idx] / 1000.0
         keep = _independent_columns(x)
-        res = sm.RLM(y, x[:, keep], M=sm.robust.norms.HuberT()).fit()
+        res = robust_linear_model.RLM(y, x[:, keep], M=norms.HuberT()).fit()
         params = np.zeros(x.shape[1])
         params[keep] = res.params
         out[inv] = {"params": params.tolist(), "terms_used": [TERMS[i] for i in keep],

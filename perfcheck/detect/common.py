@@ -16,8 +16,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from perfcheck.lazy import lazy_module
+from perfcheck.lazy import lazy_module, package_parts
 
+pvlib = package_parts("pvlib")
 stats = lazy_module("scipy.stats")
 
 KINDS = (
@@ -578,8 +579,6 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
     Ineichen & Perez 2002 (Solar Energy 73(3):151); Remund et al. 2003 (Linke turbidity
     table); Hay & Davies 1980 (from memory).
     """
-    import pvlib
-
     zen = w.zenith.to_numpy(dtype=float)
     mid = w.index + pd.to_timedelta(w.interval_s.to_numpy() / 2, unit="s")
     up = zen < 90

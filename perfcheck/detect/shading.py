@@ -73,7 +73,9 @@ from perfcheck.detect.common import (
 )
 from perfcheck.lazy import lazy_module
 
-sm = lazy_module("statsmodels.api")
+# the two modules called, not statsmodels.api (which loads its plots, time series and formulas)
+linear_model = lazy_module("statsmodels.regression.linear_model")
+tools = lazy_module("statsmodels.tools.tools")
 stats = lazy_module("scipy.stats")
 
 METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, growth "
@@ -103,11 +105,11 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray, where: np.ndarray,
     weeks share their weather and sun path (autocorrelated), which HC3 takes as
     independent and so overstates the evidence of a trend. Returns the slope, its
     standard error and the one-sided p-value of growth."""
-    x = sm.add_constant(np.column_stack([t_years, where - where.mean(axis=0)]))
+    x = tools.add_constant(np.column_stack([t_years, where - where.mean(axis=0)]))
     if month is not None and len(np.unique(month)) >= MIN_MONTHS:
-        res = sm.OLS(y, x).fit(cov_type="cluster", cov_kwds={"groups": month}, use_t=True)
+        res = linear_model.OLS(y, x).fit(cov_type="cluster", cov_kwds={"groups": month}, use_t=True)
     else:
-        res = sm.OLS(y, x).fit(cov_type="HC3")
+        res = linear_model.OLS(y, x).fit(cov_type="HC3")
     slope, se = float(res.params[1]), float(res.bse[1])
     p_one = float(res.pvalues[1] / 2) if slope > 0 else 1.0
     return slope, se, p_one

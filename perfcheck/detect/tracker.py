@@ -83,10 +83,10 @@ from perfcheck.detect.common import (
     energy_band,
     scope_of,
 )
-from perfcheck.lazy import lazy_module
+from perfcheck.lazy import lazy_module, package_parts
 from perfcheck.site import Array, Site
 
-pvlib = lazy_module("pvlib")
+pvlib = package_parts("pvlib")
 special = lazy_module("scipy.special")
 stats = lazy_module("scipy.stats")
 
