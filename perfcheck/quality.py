@@ -192,17 +192,12 @@ def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.Dat
 def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
                       channels: pd.DataFrame) -> pd.DataFrame:
     frames = []
-    for interval in sorted(set(channels["interval_min"])):
-        chans = channels[channels["interval_min"] == interval]
-        con.register("_quality_sel", chans[["quantity", "device"]])
-        try:
-            ts = con.execute(  # every stored value, also those the unit check leaves out
-                "SELECT DISTINCT v.ts FROM channel_values v JOIN channels USING (channel_id) "
-                "JOIN _quality_sel s USING (quantity, device) ORDER BY v.ts").df()["ts"]
-        finally:
-            con.unregister("_quality_sel")
+    for interval, chans in channels.groupby("interval_min"):
+        ts = con.execute(  # every stored value, also those the unit check leaves out
+            "SELECT DISTINCT ts FROM channel_values WHERE list_contains($ids, channel_id) "
+            "ORDER BY ts", {"ids": chans["channel_id"].tolist()}).df()["ts"]
         if len(ts):
-            frames.append(sun_table(site, pd.DatetimeIndex(ts).tz_convert("UTC"), interval))
+            frames.append(sun_table(site, pd.DatetimeIndex(ts), int(interval)))
     if not frames:
         return sun_table(site, pd.DatetimeIndex([], tz="UTC"), 5)
     return pd.concat(frames, ignore_index=True)
@@ -241,7 +236,9 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     """Recompute the carried values, the unit check (:func:`perfcheck.units.run`) and all
     flags from the stored readings, in one transaction that also records the newest file they
     include (see :func:`stale`); returns the count per flag name."""
-    channels = channel_limits(site, ingest.channel_intervals(con))
+    channels = channel_limits(site, ingest.channel_intervals(con)).merge(
+        con.execute("SELECT quantity, device, channel_id FROM channels").df(),
+        on=["quantity", "device"])
     sun = _sun_for_readings(con, site, channels)
     params = {
         "stuck_minutes": STUCK_MINUTES,
