@@ -5,7 +5,7 @@ INSERT INTO flags
 WITH r AS (
     SELECT c.channel_id, c.interval_min, r.ts,
            lead(r.ts) OVER (PARTITION BY c.channel_id ORDER BY r.ts) AS next_ts
-    FROM readings r JOIN _quality_channels c USING (quantity, device)
+    FROM readings r JOIN _quality_channels c USING (channel_id)
 ),
 g AS (
     SELECT *, CAST(round((epoch(next_ts) - epoch(ts)) / (60 * interval_min)) AS BIGINT) - 1

@@ -15,7 +15,7 @@ WITH lim AS (
                WHEN 'poa_rear_wm2' THEN s.sa_wm2 * 1.5 * (s.mu0 > 0)::INTEGER + 100
                ELSE c.hi END AS hi
     FROM readings r
-    JOIN _quality_channels c USING (quantity, device)
+    JOIN _quality_channels c USING (channel_id)
     LEFT JOIN _quality_sun s ON s.ts = r.ts AND s.interval_min = c.interval_min
 )
 SELECT ts, quantity, device, 'out_of_range',

@@ -20,7 +20,7 @@ WITH r AS (
            CASE WHEN r.value IS DISTINCT FROM lag(r.value) OVER w THEN 1 ELSE 0 END AS starts,
            r.value IS NOT DISTINCT FROM lead(r.value) OVER w AS repeats_next
     FROM readings r
-    JOIN _quality_channels c USING (quantity, device)
+    JOIN _quality_channels c USING (channel_id)
     LEFT JOIN _quality_sun s ON s.ts = r.ts AND s.interval_min = c.interval_min
     WHERE NOT list_contains($never_stuck, r.quantity)
     WINDOW w AS (PARTITION BY c.channel_id ORDER BY r.ts)
