@@ -104,6 +104,8 @@ POWER_SHARE = 0.05  # of the AC rating (common practice)
 IRRADIANCE_FLOOR_WM2 = 10.0  # below this, DC output is about 1 % of nameplate
 
 FLAG_NAMES = ("out_of_range", "stuck", "gap", "night_offset", "power_without_irradiance")
+# The queries that write them (sql/quality_<name>.sql): stuck and gap share one sort.
+FLAG_QUERIES = ("out_of_range", "stuck_gap", "night_offset", "power_without_irradiance")
 IRRADIANCE = ("poa_wm2", "poa_rear_wm2", "ghi_wm2", "dhi_wm2", "dni_wm2")
 # Levels at or below which a quantity is at rest and may hold still: zero for power, energy and
 # irradiance; 0.5 m/s for wind, about the starting threshold of a cup anemometer (from memory).
@@ -261,7 +263,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
             carry_forward(con, site)
             units.run(con, site)  # before the flags: they read corrected values
             con.execute("DELETE FROM flags")
-            for name in FLAG_NAMES:
+            for name in FLAG_QUERIES:
                 query = db.sql(f"quality_{name}")
                 used = {k: v for k, v in params.items() if re.search(rf"\${k}\b", query)}
                 con.execute(query, used)
