@@ -101,6 +101,8 @@ POWER_SHARE = 0.05  # of the AC rating (common practice)
 IRRADIANCE_FLOOR_WM2 = 10.0  # below this, DC output is about 1 % of nameplate
 
 FLAG_NAMES = ("out_of_range", "stuck", "gap", "night_offset", "power_without_irradiance")
+# The queries that write them (sql/quality_<name>.sql): stuck and gap share one sort.
+FLAG_QUERIES = ("out_of_range", "stuck_gap", "night_offset", "power_without_irradiance")
 IRRADIANCE = ("poa_wm2", "poa_rear_wm2", "ghi_wm2", "dhi_wm2", "dni_wm2")
 # Levels at or below which a quantity is at rest and may hold still: zero for power, energy and
 # irradiance; 0.5 m/s for wind, about the starting threshold of a cup anemometer (from memory).
@@ -189,17 +191,12 @@ def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.Dat
 def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
                       channels: pd.DataFrame) -> pd.DataFrame:
     frames = []
-    for interval in sorted(set(channels["interval_min"])):
-        chans = channels[channels["interval_min"] == interval]
-        con.register("_quality_sel", chans[["quantity", "device"]])
-        try:
-            ts = con.execute(  # every stored value, also those the unit check leaves out
-                "SELECT DISTINCT v.ts FROM channel_values v JOIN channels USING (channel_id) "
-                "JOIN _quality_sel s USING (quantity, device) ORDER BY v.ts").df()["ts"]
-        finally:
-            con.unregister("_quality_sel")
+    for interval, chans in channels.groupby("interval_min"):
+        ts = con.execute(  # every stored value, also those the unit check leaves out
+            "SELECT DISTINCT ts FROM channel_values WHERE list_contains($ids, channel_id) "
+            "ORDER BY ts", {"ids": chans["channel_id"].tolist()}).df()["ts"]
         if len(ts):
-            frames.append(sun_table(site, pd.DatetimeIndex(ts).tz_convert("UTC"), interval))
+            frames.append(sun_table(site, pd.DatetimeIndex(ts), int(interval)))
     if not frames:
         return sun_table(site, pd.DatetimeIndex([], tz="UTC"), 5)
     return pd.concat(frames, ignore_index=True)
@@ -238,7 +235,9 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     """Recompute the carried values, the unit check (:func:`perfcheck.units.run`) and all
     flags from the stored readings, in one transaction that also records the newest file they
     include (see :func:`stale`); returns the count per flag name."""
-    channels = channel_limits(site, ingest.channel_intervals(con))
+    channels = channel_limits(site, ingest.channel_intervals(con)).merge(
+        con.execute("SELECT quantity, device, channel_id FROM channels").df(),
+        on=["quantity", "device"])
     sun = _sun_for_readings(con, site, channels)
     params = {
         "stuck_minutes": STUCK_MINUTES,
@@ -261,7 +260,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
             carry_forward(con, site)
             units.run(con, site)  # before the flags: they read corrected values
             con.execute("DELETE FROM flags")
-            for name in FLAG_NAMES:
+            for name in FLAG_QUERIES:
                 query = db.sql(f"quality_{name}")
                 used = {k: v for k, v in params.items() if re.search(rf"\${k}\b", query)}
                 con.execute(query, used)

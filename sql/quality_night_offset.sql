@@ -6,7 +6,7 @@ SELECT r.ts, r.quantity, r.device, 'night_offset',
        printf('%.1f W/m2 at night (sun %.1f deg below the horizon); allowance +-%g W/m2',
               r.value, -s.elevation_deg, $night_offset_wm2)
 FROM readings r
-JOIN _quality_channels c USING (quantity, device)
+JOIN _quality_channels c USING (channel_id)
 JOIN _quality_sun s ON s.ts = r.ts AND s.interval_min = c.interval_min
 WHERE list_contains($irradiance, r.quantity)
   AND s.elevation_deg < $night_elevation

@@ -3,9 +3,15 @@
 -- limits follow the sun, BSRN physically possible limits (Long & Dutton 2002, from memory):
 -- GHI < Sa*1.5*mu0^1.2 + 100, DHI < Sa*0.95*mu0^1.2 + 50, DNI < Sa; for POA the GHI form
 -- with the cosine at its maximum while the sun is up (a tilted plane can face the sun), for
--- the rear of a bifacial module too (it faces the sun at low sun).
+-- the rear of a bifacial module too (it faces the sun at low sun). Only irradiance readings
+-- join the sun.
 INSERT INTO flags
 WITH lim AS (
+    SELECT r.ts, r.quantity, r.device, r.value, c.lo, c.hi
+    FROM readings r
+    JOIN _quality_channels c USING (channel_id)
+    WHERE NOT list_contains($irradiance, r.quantity)
+    UNION ALL
     SELECT r.ts, r.quantity, r.device, r.value, c.lo,
            CASE r.quantity
                WHEN 'ghi_wm2' THEN s.sa_wm2 * 1.5 * pow(s.mu0, 1.2) + 100
@@ -13,10 +19,11 @@ WITH lim AS (
                WHEN 'dni_wm2' THEN s.sa_wm2
                WHEN 'poa_wm2' THEN s.sa_wm2 * 1.5 * (s.mu0 > 0)::INTEGER + 100
                WHEN 'poa_rear_wm2' THEN s.sa_wm2 * 1.5 * (s.mu0 > 0)::INTEGER + 100
-               ELSE c.hi END AS hi
+               END AS hi
     FROM readings r
-    JOIN _quality_channels c USING (quantity, device)
+    JOIN _quality_channels c USING (channel_id)
     LEFT JOIN _quality_sun s ON s.ts = r.ts AND s.interval_min = c.interval_min
+    WHERE list_contains($irradiance, r.quantity)
 )
 SELECT ts, quantity, device, 'out_of_range',
        printf('%.6g is outside %s to %s', value,

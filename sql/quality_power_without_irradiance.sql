@@ -10,13 +10,13 @@ WITH pick AS (
 irr AS (
     SELECT r.ts, r.quantity, r.value, c.interval_min
     FROM readings r
-    JOIN _quality_channels c USING (quantity, device)
+    JOIN _quality_channels c USING (channel_id)
     WHERE r.device = 'site' AND r.quantity = (SELECT quantity FROM pick)
 ),
 p AS (
     SELECT r.ts, r.device, r.value, c.interval_min
     FROM readings r
-    JOIN _quality_channels c USING (quantity, device)
+    JOIN _quality_channels c USING (channel_id)
     WHERE r.quantity = 'ac_power_w' AND r.value > $power_share * c.rating_w
 ),
 j AS (

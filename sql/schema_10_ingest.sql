@@ -116,10 +116,11 @@ CREATE TABLE IF NOT EXISTS carried_values (
 );
 
 -- What later stages read: one row per (instant, quantity, device), carried values included and
--- unit corrections applied.
+-- unit corrections applied; channel_id names (quantity, device) as a small integer, for
+-- joins and sorts over whole tables.
 CREATE OR REPLACE VIEW readings AS
 SELECT v.ts, c.quantity, c.device, v.value * unit_factor(v.file_id, v.channel_id) AS value,
-       v.file_id, v.line
+       v.file_id, v.line, v.channel_id
 FROM (SELECT ts, channel_id, value, file_id, line FROM channel_values
       UNION ALL
       SELECT ts, channel_id, value, file_id, line FROM carried_values) v
