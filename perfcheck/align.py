@@ -172,20 +172,20 @@ def refresh(con: duckdb.DuckDBPyConnection, site: Site, model_run_id: int, inter
     rows = 0
     if span is not None:
         end = span[1] + pd.Timedelta(seconds=interval_s)
+        energy_s = {d: float(v) for (q, d), v in ingest.channel_intervals(con).items()
+                    if q == "energy_interval_wh"}
         for a, b in chunks(span[0], end):
-            rows += _rebuild(con, site, model_run_id, interval_s, a, b)
+            rows += _rebuild(con, site, model_run_id, interval_s, energy_s, a, b)
     con.execute("DELETE FROM align_state")
     con.execute("INSERT INTO align_state VALUES (?, ?)", [model_run_id, latest_file_id])
     return rows
 
 
 def _rebuild(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, interval_s: int,
-             start: pd.Timestamp, end: pd.Timestamp) -> int:
+             energy_s: dict[str, float], start: pd.Timestamp, end: pd.Timestamp) -> int:
     span = {"start": start, "end": end}
     lookback = {"iv": interval_s, "start": start - pd.Timedelta(seconds=interval_s), "end": end}
     raw = con.execute(db.sql("align_measured"), lookback).df()
-    energy_s = {d: float(v) for (q, d), v in ingest.channel_intervals(con).items()
-                if q == "energy_interval_wh"}
     meas = measured_power(raw, site, interval_s, energy_s)
     meas = meas[meas["ts"] >= start]
     con.execute(db.sql("align_delete_span"), span)

@@ -491,9 +491,11 @@ def daily_irradiation(measured: pd.Series, modelled: pd.Series, solar_zenith: pd
     """
     ok = (solar_zenith < 70) & (clear_sky_index >= CLEAR_SKY_INDEX) & measured.notna() \
         & modelled.notna() & (modelled > 0)
-    frame = pd.DataFrame({"measured": measured.where(ok, 0.0), "modelled": modelled.where(ok, 0.0),
-                          "day": measured.index.tz_convert(tz).date})
-    return frame[ok.to_numpy()].groupby("day").sum()
+    keep = ok.to_numpy()  # the local date only of the intervals that count
+    frame = pd.DataFrame({"measured": measured.to_numpy()[keep],
+                          "modelled": modelled.to_numpy()[keep],
+                          "day": measured.index[keep].tz_convert(tz).date})
+    return frame.groupby("day").sum()
 
 
 def poa_plausibility(daily: pd.DataFrame) -> dict[str, Any]:

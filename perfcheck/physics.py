@@ -82,9 +82,11 @@ def _mean_sidereal_time(unixtime: np.ndarray) -> np.ndarray:
 
 
 def _delta_t(unixtime: np.ndarray) -> np.ndarray:
-    spa = pvlib.spa
+    """pvlib's ``spa.calculate_deltat`` by year and month, evaluated once per month of the axis
+    (the polynomial depends on nothing else)."""
     t = pd.DatetimeIndex(pd.to_datetime(unixtime, unit="s", utc=True))
-    return np.asarray(spa.calculate_deltat(t.year, t.month), dtype=float)
+    months, at = np.unique(t.year.to_numpy() * 12 + t.month.to_numpy() - 1, return_inverse=True)
+    return np.asarray(pvlib.spa.calculate_deltat(months // 12, months % 12 + 1), dtype=float)[at]
 
 
 def sun_time_terms(unixtime: np.ndarray, delta_t: float | None = None,
@@ -528,14 +530,21 @@ def iam_diffuse(surface_tilt: float | pd.Series, model: str = "physical"
     if model == "none":
         return {"sky": 1.0, "horizon": 1.0, "ground": 1.0}
     if np.ndim(surface_tilt) == 0:
-        out = pvlib.iam.marion_diffuse(model, surface_tilt)
-        return {k: float(np.nan_to_num(out[k], nan=1.0)) for k in ("sky", "horizon", "ground")}
+        return dict(_marion_fixed(model, float(surface_tilt)))
     tilt = np.asarray(surface_tilt, dtype=float)
     top = min(180, 10 * math.ceil(float(np.nanmax(tilt, initial=0.0)) / 10))  # tens of degrees
     grid, table = _marion_grid(model, top)
     return {k: pd.Series(np.interp(tilt, grid, table[k]),
                          index=surface_tilt.index).where(surface_tilt.notna())
             for k in ("sky", "horizon", "ground")}
+
+
+@functools.lru_cache(maxsize=64)
+def _marion_fixed(model: str, surface_tilt: float) -> dict[str, float]:
+    """Marion's diffuse modifiers of ``model`` for a fixed plane, integrated once per process
+    (the model runs month by month)."""
+    out = pvlib.iam.marion_diffuse(model, surface_tilt)
+    return {k: float(np.nan_to_num(out[k], nan=1.0)) for k in ("sky", "horizon", "ground")}
 
 
 @functools.lru_cache(maxsize=8)

@@ -46,6 +46,19 @@ def test_interpolated_time_terms_match_full_spa_over_a_year():
     assert np.abs(d_az).max() < 1e-5
 
 
+def test_default_delta_t_as_full_spa_across_years():
+    # Delta T by year and month (evaluated once per month of the axis) against pvlib's full
+    # SPA (numpy) with delta_t=None, which evaluates the same polynomial per instant: every
+    # 47 minutes over two years and a half, across year ends, same tolerance as above.
+    times = pd.date_range("2024-11-01", "2027-05-01", freq="47min", tz="UTC", inclusive="left")
+    ours = ph.solar_position(times, 47.5, 8.7, 450.0, pressure=96000.0)
+    ref = pvlib.solarposition.get_solarposition(times, 47.5, 8.7, 450.0, pressure=96000.0,
+                                                method="nrel_numpy", delta_t=None)
+    assert_allclose(ours["apparent_zenith"], ref["apparent_zenith"], atol=1e-5)
+    d_az = (ours["azimuth"] - ref["azimuth"] + 180) % 360 - 180
+    assert np.abs(d_az).max() < 1e-5
+
+
 @pytest.mark.parametrize("lat, lon, tz", [(47.5, 8.7, "Europe/Zurich"),
                                            (-33.9, 151.2, "Australia/Sydney"),
                                            (69.6, 18.9, "Europe/Oslo"),  # polar day and night
