@@ -23,6 +23,7 @@ import pandas as pd  # noqa: E402
 from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
+from PIL import Image  # noqa: E402
 
 from perfcheck import kinds  # noqa: E402
 
@@ -496,21 +497,20 @@ FIGURES: list[tuple[str, str, Callable]] = [
 
 
 def png_bytes(fig: Figure) -> tuple[bytes, np.ndarray]:
-    """The figure as PNG bytes at ``DPI``, and its pixels (8-bit RGBA, rows from the top) as
+    """The figure as PNG bytes at ``DPI``, and its pixels (8-bit RGB, rows from the top) as
     the PNG holds them, for the PDF.
 
-    The figure's layout (constrained) is run here, at the figure's own ``DPI``, and then left
-    as it is: given a layout engine, ``savefig`` would draw the whole figure once with the
-    drawing switched off only to run it, then draw it again for the pixels.
+    The canvas is drawn once (the layout engine runs inside that draw; ``savefig`` would first
+    draw the whole figure with the drawing switched off only to run it). The paper is opaque,
+    so the alpha channel is 255 everywhere and the PNG holds RGB only: a quarter less to
+    compress, the same picture. zlib's level 3 instead of its default 6 takes about a third
+    less time for some ten percent more bytes.
     """
-    engine = fig.get_layout_engine()
-    if engine is not None:
-        engine.execute(fig)
-        fig.set_layout_engine(None)  # the positions stay; savefig draws once
+    fig.canvas.draw()
+    pixels = np.ascontiguousarray(np.asarray(fig.canvas.buffer_rgba())[:, :, :3])
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, facecolor=fig.get_facecolor())
-    # the canvas keeps the drawing the PNG was encoded from: no need to decode it again
-    return buf.getvalue(), np.array(fig.canvas.buffer_rgba())
+    Image.fromarray(pixels).save(buf, format="png", compress_level=3, dpi=(DPI, DPI))
+    return buf.getvalue(), pixels
 
 
 def _num(v: object) -> float:

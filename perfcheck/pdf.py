@@ -195,7 +195,7 @@ def _wrap(text: str, width: int) -> list[str]:
 
 def write_pdf(blocks: list[tuple[str, Any]], pixels: dict[str, np.ndarray], path: Path,
               title: str) -> None:
-    """Write text blocks ``(kind, content)`` and the figures (their PNGs' pixels, 8-bit RGBA,
+    """Write text blocks ``(kind, content)`` and the figures (their PNGs' pixels, 8-bit RGB,
     by stem: :func:`perfcheck.figures.png_bytes`) to ``path`` (A4 PDF).
 
     Kinds: ``title``, ``h``, ``lead``, ``para`` (a string each), ``pre`` (preformatted text),
