@@ -25,6 +25,7 @@ from matplotlib.backends.backend_pdf import PdfPages  # noqa: E402
 from matplotlib.colors import to_rgba  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.font_manager import FontProperties  # noqa: E402
+from matplotlib.transforms import Affine2D  # noqa: E402
 
 from perfcheck import figures  # noqa: E402
 
@@ -58,6 +59,27 @@ class _Line(Artist):
         gc.set_foreground(to_rgba(self.colour), isRGBA=True)
         x, y = self.get_transform().transform(self.xy)
         renderer.draw_text(gc, x, y, self.line, self.font, 0.0)
+        gc.restore()
+
+
+class _Picture(Artist):
+    """Pixels (8-bit RGB, rows from the top) filling the box (x0, y0, x1, y1) in fractions of
+    the page, embedded as they are (not resampled).
+
+    ``imshow`` with ``interpolation="none"`` on an Axes spanning the box embeds them the same
+    way, at the cost of building and drawing a whole (hidden) Axes.
+    """
+
+    def __init__(self, box: tuple[float, float, float, float], pixels: np.ndarray):
+        super().__init__()
+        self.box, self.pixels = box, pixels
+
+    def draw(self, renderer: Any) -> None:
+        (x0, y0), (x1, y1) = self.get_transform().transform([self.box[:2], self.box[2:]])
+        gc = renderer.new_gc()
+        # the image spans the unit square; its first row goes to the top, as imshow puts it
+        renderer.draw_image(gc, x0, y0, self.pixels,
+                            Affine2D().scale(x1 - x0, y0 - y1).translate(0, y1 - y0))
         gc.restore()
 
 
@@ -179,10 +201,8 @@ def _figures(pages: Pages, pixels: dict[str, np.ndarray]) -> None:
         height = width * img.shape[0] / img.shape[1]
         left = (A4[0] - width) / 2
         pages.need(height + 0.55)
-        ax = pages.fig.add_axes([left / A4[0], (pages.y - height) / A4[1], width / A4[0],
-                                 height / A4[1]])
-        ax.imshow(img, interpolation="none")
-        ax.set_axis_off()
+        pages.fig.add_artist(_Picture((left / A4[0], (pages.y - height) / A4[1],
+                                       (left + width) / A4[0], pages.y / A4[1]), img))
         pages.y -= height + 0.05
         for line in _wrap(f"Figure {n}. {caption}", WRAP["para"] + 8):
             pages.text("para", line, x=left, size=7.5, colour=figures.MUTED, style="italic")
@@ -195,7 +215,7 @@ def _wrap(text: str, width: int) -> list[str]:
 
 def write_pdf(blocks: list[tuple[str, Any]], pixels: dict[str, np.ndarray], path: Path,
               title: str) -> None:
-    """Write text blocks ``(kind, content)`` and the figures (their PNGs' pixels, 8-bit RGBA,
+    """Write text blocks ``(kind, content)`` and the figures (their PNGs' pixels, 8-bit RGB,
     by stem: :func:`perfcheck.figures.png_bytes`) to ``path`` (A4 PDF).
 
     Kinds: ``title``, ``h``, ``lead``, ``para`` (a string each), ``pre`` (preformatted text),
