@@ -29,9 +29,10 @@ change's step inside the estimate's interval is set to the change exactly
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
 interval). A logger's clock labels every channel it records, so the correction follows the
-site file's loggers (:class:`Loggers`): the measured power of the logger's inverters and, where
-the POA sensor or the GHI sensor is recorded on the same logger, the expected power built from
-that sensor (:func:`follows`).
+site file's loggers (:class:`Loggers`): the measured power of the logger's inverters and the
+site weather it records, from which the model is run again over the window (:func:`rerun`:
+an array transposed from a shifted POA sensor takes the sun's position at the reading's true
+time, which shifting its expected power would not give).
 
 References
 ----------
@@ -44,15 +45,17 @@ formulation.
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from perfcheck import model
 from perfcheck.detect.common import Event, Wide, change_points, despike, window_change
 from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge, sensor_columns
 from perfcheck.lazy import lazy_module
-from perfcheck.site import DEVICE_QUANTITIES, Site
+from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Site
 
 stats = lazy_module("scipy.stats")
 
@@ -84,10 +87,12 @@ class Loggers:
     inverters: dict[str, tuple[str, ...]]
     poa: str | None = None
     ghi: str | None = None
+    weather: dict[str, str] = dataclasses.field(default_factory=dict)  # model name -> logger
 
 
 def loggers(site: Site) -> Loggers:
-    """The site file's loggers as :class:`Loggers`."""
+    """The site file's loggers as :class:`Loggers`; ``weather`` maps each site-weather
+    channel, by the model's name (:data:`perfcheck.model.WEATHER`), to its logger."""
     def of(quantity: str) -> str | None:
         return next((lg.name for lg in site.loggers for c in lg.columns
                      if c.quantity == quantity), None)
@@ -95,7 +100,10 @@ def loggers(site: Site) -> Loggers:
     ids = {i.id for i in site.inverters}
     return Loggers({lg.name: tuple(sorted({c.device for c in lg.columns if c.device in ids
                                            and c.quantity in DEVICE_QUANTITIES}))
-                    for lg in site.loggers}, of("poa"), of("ghi"))
+                    for lg in site.loggers}, of("poa"), of("ghi"),
+                   {model.WEATHER[QUANTITIES[c.quantity][0]]: lg.name
+                    for lg in site.loggers for c in lg.columns
+                    if QUANTITIES[c.quantity][0] in model.WEATHER})
 
 
 def follows(w: Wide, lg: Loggers, logger: str) -> tuple[list[str], bool]:
@@ -326,15 +334,20 @@ def daylight_saving(s: Shift, tz: Any, alpha: float) -> Shift:
                   "estimated_offset_min": s.offset_min})
 
 
-def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
+def corrected(w: Wide, shifts: list[Shift], lg: Loggers, site: Site | None = None,
+              weather: Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame] | None = None
+              ) -> Wide:
     """The series with every channel of the shifted logger moved back by the offset inside its
-    window: the measured power of its inverters and the expected series built from a sensor it
-    records (:func:`follows`; shifting the expected series stands for re-running the model on
-    the corrected readings)."""
+    window: the measured power of its inverters and the site weather it records, from which
+    the model is run again over the window (:func:`rerun`; ``weather``: the site weather the
+    model took between two instants, ``site`` the site it modelled). Without them the expected
+    series built from a sensor the logger records (:func:`follows`) are shifted instead: right
+    for an array in the sensor's plane, not for one transposed from it, whose expected power
+    depends on the sun's position at the true time."""
     if not shifts:
         return w
     names = ("measured", "expected", "potential", "poa", "temp_cell", "expected_modelled",
-             "potential_modelled", "poa_modelled")
+             "potential_modelled", "poa_modelled", "from_sensor", "ghi")
     new = {k: getattr(w, k).copy(deep=False) for k in names}  # copied when written
     step = float(np.median(w.interval_s))
     for s in shifts:
@@ -342,15 +355,57 @@ def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
         if n == 0:
             continue
         inside = (w.index >= s.start) & (w.index < s.end)
-        cols, modelled = follows(w, lg, s.logger)
         moved = [("measured", list(s.inverters))]
-        moved += [(k, cols) for k in ("expected", "potential", "poa", "temp_cell")]
-        if modelled:
-            moved += [(k, list(w.inverters)) for k in names[5:]]
+        recorded = [c for c, name in lg.weather.items() if name == s.logger]
+        if recorded and site is not None and weather is not None:
+            rerun(new, w, s, n * step, recorded, site, weather)
+        else:
+            cols, modelled = follows(w, lg, s.logger)
+            moved += [(k, cols) for k in ("expected", "potential", "poa", "temp_cell")]
+            if modelled:
+                moved += [(k, list(w.inverters)) for k in names[5:8]]
         for k, cs in moved:
             for c in cs:
                 new[k].loc[inside, c] = getattr(w, k)[c].shift(-n).to_numpy()[inside]
     return dataclasses.replace(w, **new)
+
+
+# the expected series of the model (long format, :func:`perfcheck.model.expected_power`) as
+# the detectors hold them
+MODEL_SERIES = {"expected": "ac_w", "potential": "ac_potential_w", "poa": "poa_global_wm2",
+                "temp_cell": "temp_cell_c", "expected_modelled": "ac_modelled_w",
+                "potential_modelled": "ac_potential_modelled_w",
+                "poa_modelled": "poa_modelled_wm2"}
+
+
+def rerun(new: dict[str, Any], w: Wide, s: Shift, lag_s: float, recorded: list[str],
+          site: Site, weather: Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame]) -> None:
+    """The model run again over the window of ``s`` on the site weather with the channels
+    ``recorded`` by the shifted logger moved back by ``lag_s`` (the reading of each interval
+    is the one labelled ``lag_s`` later), written into ``new`` (the :class:`Wide` fields by
+    name) inside the window. The sun's position, the transposition to the other planes, the
+    incidence angle and the cell temperature then follow the true time of each reading."""
+    lag = pd.Timedelta(seconds=lag_s)
+    wx = weather(s.start - abs(lag), s.end + abs(lag))
+    inside = (wx.index >= s.start) & (wx.index < s.end)
+    for c in recorded:
+        if c in wx:
+            wx.loc[inside, c] = wx[c].reindex(wx.index + lag).to_numpy()[inside]
+    wx = wx[inside]
+    if wx.empty or not any(c in wx and wx[c].notna().any() for c in ("poa_sensor", "ghi")):
+        return
+    step = float(np.median(w.interval_s))
+    exp = model.expected_power(wx, model.site_sun(wx.index, site, step), site)
+    at = (w.index >= s.start) & (w.index < s.end)
+    rows = w.index[at]
+    for k, col in MODEL_SERIES.items():
+        got = exp.pivot(index="ts", columns="inverter_id", values=col).reindex(rows)
+        new[k].loc[at, w.inverters] = got.reindex(columns=w.inverters).to_numpy()
+    src = exp.pivot(index="ts", columns="inverter_id", values="poa_source").reindex(rows)
+    new["from_sensor"].loc[at, w.inverters] = (src.reindex(columns=w.inverters) == "sensor"
+                                               ).to_numpy()
+    if "ghi" in recorded and "ghi" in wx:
+        new["ghi"].loc[at] = wx["ghi"].reindex(rows).to_numpy()
 
 
 def events(w_before: Wide, w_after: Wide, shifts: list[Shift], lg: Loggers,
