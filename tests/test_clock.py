@@ -117,6 +117,19 @@ def test_missed_change_set_to_the_change_exactly():
         assert clock.daylight_saving(s, TZ, 1e-3) == s
 
 
+def test_missed_change_kept_when_the_readings_moved_back_leave_no_offset():
+    # Invented estimate -57 +- 0.5 min, biased toward zero: its interval leaves out -60. The
+    # readings moved back by the change's hour leave an offset with p-value 0.4 (not rejected
+    # at alpha 1e-3): the change (no free parameter) is kept; with p 1e-5 the estimate stays.
+    s = clock.Shift(pd.Timestamp("2024-04-01", tz=TZ).tz_convert("UTC"),
+                    pd.Timestamp("2024-04-20", tz=TZ).tz_convert("UTC"), -57.0, ("INV1",),
+                    {"offset_standard_error_min": 0.5})
+    got = clock.daylight_saving(s, TZ, 1e-3, lambda c: 0.4 if c.offset_min == -60.0 else 0.0)
+    assert (got.start, got.offset_min) == (pd.Timestamp("2024-03-31 01:00", tz="UTC"), -60.0)
+    assert got.evidence["offset_left_p_value"] == 0.4
+    assert clock.daylight_saving(s, TZ, 1e-3, lambda c: 1e-5) == s
+
+
 def test_midspan_of_a_day_known_answer():
     # Worked by hand: on a 60-min grid from midnight, power above the floor from 06:00 to
     # 18:00 (intervals 6..18) has its span's midpoint at interval mid-points 6:30 and 18:30,

@@ -46,6 +46,7 @@ from __future__ import annotations
 
 import dataclasses
 from collections.abc import Callable
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -263,7 +264,8 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
         name = next((n for n, g in lg.inverters.items() if g and set(g) <= set(s.inverters)),
                     None)
         if name is not None:
-            out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha))
+            out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha,
+                                       partial(_left_after, w, reference, ind, lg)))
     return out
 
 
@@ -311,27 +313,60 @@ def changes(tz: Any, start: pd.Timestamp, end: pd.Timestamp) -> list[tuple[pd.Ti
     return [(hours[i], float(off[i - 1] - off[i])) for i in np.flatnonzero(np.diff(off)) + 1]
 
 
-def daylight_saving(s: Shift, tz: Any, alpha: float) -> Shift:
+def daylight_saving(s: Shift, tz: Any, alpha: float,
+                    left: Callable[[Shift], float] | None = None) -> Shift:
     """A shift that begins within ``EDGE_DAYS`` of a daylight-saving change of the site's zone
-    and whose offset is that change's (a logger left on the old time: -60 min in spring, +60
-    in autumn) within the two-sided ``1 - alpha`` normal interval of the estimate, set to that
-    change exactly: its start at the change's instant, its offset the change's step, and its
+    and is that change (a logger left on the old time: -60 min in spring, +60 in autumn), set
+    to it exactly: its start at the change's instant, its offset the change's step, and its
     end at the next change where it lies within ``EDGE_DAYS`` (a logger that keeps one time
-    all year is right again then). Common practice: a logger kept on local time that misses a
-    change is off by exactly that change's step from its instant on."""
+    all year is right again then). It is that change when the change's step lies within the
+    two-sided ``1 - alpha`` normal interval of the estimate, or when the readings moved back
+    by the change's step leave no offset: ``left`` gives the p-value of the offset that
+    remains (:func:`_left_after`), and a p-value of at least ``alpha`` does not reject the
+    change. The change has no free parameter (its instant and step are known), the estimate
+    three (start, end, offset); the simpler hypothesis is kept unless the data reject it.
+    The second test catches an estimate biased toward zero (a day's first hour of power
+    shifted before the reference's sunrise is cut off from the day's centre), whose small
+    standard error would reject the change's step. Common practice: a logger kept on local
+    time that misses a change is off by exactly that change's step from its instant on."""
     e = pd.Timedelta(days=EDGE_DAYS + 1)
     z = float(stats.norm.ppf(1 - alpha / 2))
     se = float(s.evidence.get("offset_standard_error_min", np.inf))
-    near = [(t, step) for t, step in changes(tz, s.start - e, s.start + e)
-            if abs(s.offset_min - step) <= z * se]
-    if not near:
-        return s
-    t0, step = near[0]
-    back = [t for t, st in changes(tz, s.end - e, s.end + e) if st == -step and t > t0]
-    return dataclasses.replace(
-        s, start=t0, end=back[0] if back else s.end, offset_min=step,
-        evidence={**s.evidence, "missed_daylight_saving_change": True,
-                  "estimated_offset_min": s.offset_min})
+    for t0, step in changes(tz, s.start - e, s.start + e):
+        back = [t for t, st in changes(tz, s.end - e, s.end + e) if st == -step and t > t0]
+        dst = dataclasses.replace(
+            s, start=t0, end=back[0] if back else s.end, offset_min=step,
+            evidence={**s.evidence, "missed_daylight_saving_change": True,
+                      "estimated_offset_min": s.offset_min})
+        if abs(s.offset_min - step) <= z * se:
+            return dst
+        p = left(dst) if left is not None else float("nan")
+        if p >= alpha:
+            return dataclasses.replace(dst, evidence={**dst.evidence,
+                                                      "offset_left_p_value": p})
+    return s
+
+
+def _left_after(w: Wide, reference: pd.DataFrame, ind: pd.DataFrame, lg: Loggers,
+                s: Shift) -> float:
+    """The p-value of the offset left when the readings of ``s`` are moved back by its
+    offset (:func:`corrected`): the daily centre difference of its inverters' power, averaged
+    over them, against the reference it was measured on (the expected power from another
+    logger's sensor where confirmed there, else the clear-sky irradiance), inside its window
+    against as many days either side (:func:`perfcheck.detect.common.window_change`), Welch
+    t test. NaN where either side has too few days."""
+    cols = list(s.inverters)
+    confirmed = "confirmed_against" in s.evidence and set(cols) <= set(ind.columns)
+    ref = ind[cols] if confirmed else reference[cols]
+    d = _daily_offsets(corrected(w, [s], lg), ref).mean(axis=1)
+
+    def day(ts: pd.Timestamp) -> pd.Timestamp:
+        return ts.tz_convert(w.tz).tz_localize(None).normalize()
+
+    ch = window_change(d, day(s.start), day(s.end))
+    if ch is None:
+        return float("nan")
+    return float(stats.ttest_ind(ch[1], ch[2], equal_var=False).pvalue)
 
 
 def corrected(w: Wide, shifts: list[Shift], lg: Loggers, site: Site | None = None,
