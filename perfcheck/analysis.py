@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import functools
 import hashlib
 import json
 import math
@@ -37,6 +38,7 @@ from perfcheck import (
     kinds,
     meter,
     metrics,
+    model,
     status,
     units,
     versions,
@@ -122,6 +124,16 @@ def tracker_angle(con: duckdb.DuckDBPyConnection) -> pd.Series | None:
     return pd.Series(df["value"].to_numpy(dtype=float), index=index).groupby(level=0).mean()
 
 
+def model_weather(con: duckdb.DuckDBPyConnection
+                  ) -> Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame]:
+    """The stored site weather as the model takes it, between two instants
+    (:func:`perfcheck.model.stored_weather`): the clock detector runs the model again on
+    readings it moved back."""
+    intervals = ingest.channel_intervals(con)
+    return functools.partial(model.stored_weather, con, model.interval_s(intervals),
+                             model.weather_intervals(intervals))
+
+
 def _measured_rows(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
     """The aligned rows of the whole history; DataError when none has a measured power."""
     df = align.load_aligned(con, site)
@@ -154,7 +166,7 @@ def _make(con: duckdb.DuckDBPyConnection, site: Site, spec: dict[str, Any], key:
     # the whole history's rows go to the detectors without a name here, so that they are
     # released once the detectors have their own series (the peak of memory is theirs)
     found = detect.analyse(_measured_rows(con, site), site, reported=status.reported(con, site),
-                           angle=tracker_angle(con))
+                           angle=tracker_angle(con), weather=model_weather(con))
     if progress:
         progress("detectors")
     ledger: Ledger = found["ledger"]

@@ -532,6 +532,17 @@ def load_weather(con: duckdb.DuckDBPyConnection, step_s: int, start: pd.Timestam
     return df.rename(columns=WEATHER).astype(float)
 
 
+def stored_weather(con: duckdb.DuckDBPyConnection, step_s: int, intervals: dict[str, int],
+                   start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
+    """The site weather as the model takes it for interval starts in [``start``, ``end``):
+    averaged into its intervals (:func:`load_weather`), coarser readings held over their own
+    interval (:func:`hold_coarse_weather`; ``intervals`` from :func:`weather_intervals`)."""
+    back = pd.Timedelta(seconds=max(intervals.values(), default=step_s))
+    weather = hold_coarse_weather(load_weather(con, step_s, start - back, end), step_s,
+                                  intervals)
+    return weather[weather.index >= start]
+
+
 def _run_record(con: duckdb.DuckDBPyConnection, params: dict[str, Any]) -> tuple[int, int]:
     """(model_run_id, last_file_id) of the run with these parameters, created if new."""
     h = parameters_hash(params)
@@ -602,9 +613,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
 def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
              intervals: dict[str, int], start: pd.Timestamp, end: pd.Timestamp
              ) -> dict[str, Any]:
-    back = pd.Timedelta(seconds=max(intervals.values(), default=step))
-    weather = hold_coarse_weather(load_weather(con, step, start - back, end), step, intervals)
-    weather = weather[weather.index >= start]
+    weather = stored_weather(con, step, intervals, start, end)
     if weather.empty:
         return {"rows": 0, "daily": None}
     sun = site_sun(weather.index, site, step)

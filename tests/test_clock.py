@@ -7,12 +7,14 @@ records with its one clock, so a clock error moves them all alike.
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pandas as pd
 import pytest
 from detect_synth import TZ, make_aligned, make_site
 
-from perfcheck import detect
+from perfcheck import detect, model
 from perfcheck.detect import clock, common
 
 CLOCK = {"kind": "clock", "start": "2024-04-10 00:00", "end": "2024-04-28 00:00",
@@ -115,6 +117,19 @@ def test_missed_change_set_to_the_change_exactly():
         assert clock.daylight_saving(s, TZ, 1e-3) == s
 
 
+def test_missed_change_kept_when_the_readings_moved_back_leave_no_offset():
+    # Invented estimate -57 +- 0.5 min, biased toward zero: its interval leaves out -60. The
+    # readings moved back by the change's hour leave an offset with p-value 0.4 (not rejected
+    # at alpha 1e-3): the change (no free parameter) is kept; with p 1e-5 the estimate stays.
+    s = clock.Shift(pd.Timestamp("2024-04-01", tz=TZ).tz_convert("UTC"),
+                    pd.Timestamp("2024-04-20", tz=TZ).tz_convert("UTC"), -57.0, ("INV1",),
+                    {"offset_standard_error_min": 0.5})
+    got = clock.daylight_saving(s, TZ, 1e-3, lambda c: 0.4 if c.offset_min == -60.0 else 0.0)
+    assert (got.start, got.offset_min) == (pd.Timestamp("2024-03-31 01:00", tz="UTC"), -60.0)
+    assert got.evidence["offset_left_p_value"] == 0.4
+    assert clock.daylight_saving(s, TZ, 1e-3, lambda c: 1e-5) == s
+
+
 def test_midspan_of_a_day_known_answer():
     # Worked by hand: on a 60-min grid from midnight, power above the floor from 06:00 to
     # 18:00 (intervals 6..18) has its span's midpoint at interval mid-points 6:30 and 18:30,
@@ -131,3 +146,47 @@ def test_midspan_of_a_day_known_answer():
     assert got == pytest.approx(750.0)
     later = clock.midspans(w, x.shift(2).fillna(0.0), pd.Series({"INV1": 100.0}))["INV1"]
     assert later.iloc[0] - got == pytest.approx(120.0)
+
+
+def test_model_run_again_on_the_readings_moved_back():
+    # Invented truth: a logger recording the POA sensor (30 deg south) and both inverters'
+    # power ran an hour early (a missed daylight-saving change) for a day; one inverter's
+    # array faces west and is transposed from the sensor. The rule is common practice: one
+    # clock per logger. After the correction the expected series of both inverters are those
+    # of the model on the readings at their true time. Shifting the west array's expected
+    # power instead leaves it off by more (its transposition took the sun of the wrong hour).
+    site = make_site(n_inverters=2, sensors={"poa": "synthetic"})
+    west = site.inverters[1]
+    west = dataclasses.replace(west, arrays=(dataclasses.replace(west.arrays[0],
+                                                                 azimuth_deg=270.0),))
+    site = dataclasses.replace(site, inverters=(site.inverters[0], west))
+    times = pd.date_range("2024-06-01", periods=3 * 96, freq="15min", tz="UTC")
+    sun = model.site_sun(times, site, 900)
+    true = pd.DataFrame({"poa_sensor": 0.9 * sun["clearsky_ghi"], "temp_air": 20.0,
+                         "wind_speed": 2.0}, index=times)
+    logged = true.shift(-4)  # the reading of true time t labelled t - 1 h
+
+    def rows(weather):
+        exp = model.expected_power(weather, sun, site)
+        return exp.rename(columns={"ac_w": "expected_ac_w", "ac_potential_w": "potential_ac_w",
+                                   "ac_modelled_w": "expected_ac_modelled_w",
+                                   "ac_potential_modelled_w": "potential_ac_modelled_w",
+                                   "poa_global_wm2": "poa_wm2"})
+
+    df = rows(logged).assign(
+        measured_ac_w=lambda d: d["expected_ac_w"], interval_s=900, flags="", ghi_wm2=np.nan,
+        clearsky_ghi_wm2=np.tile(sun["clearsky_ghi"].to_numpy(), 2), rain_mm=np.nan,
+        sun_zenith_deg=np.tile(sun["apparent_zenith"].to_numpy(), 2),
+        sun_azimuth_deg=np.tile(sun["azimuth"].to_numpy(), 2))
+    w = common.wide(df, {"INV1": 10e3, "INV2": 10e3}, None, TZ)
+    shift = clock.Shift(times[96], times[192], -60.0, ("INV1", "INV2"), {}, "synthetic")
+    lg = clock.loggers(site)
+    fixed = clock.corrected(w, [shift], lg, site, lambda a, b: logged[
+        (logged.index >= a) & (logged.index < b)].copy())
+    truth = rows(true).pivot(index="ts", columns="inverter_id", values="expected_ac_w")
+    inside = (w.index >= shift.start) & (w.index < shift.end)
+    np.testing.assert_allclose(fixed.expected.to_numpy()[inside], truth.to_numpy()[inside],
+                               atol=1e-6)
+    shifted = clock.corrected(w, [shift], lg)
+    err = np.abs(shifted.expected["INV2"] - truth["INV2"])[inside].sum()
+    assert err > 0.01 * truth["INV2"][inside].sum()

@@ -201,3 +201,16 @@ def test_a_derate_window_ends_on_the_last_day_that_shows_the_limit():
     up.iloc[[1, 11]] = True
     first, last, before, after = clipping._widen(d[5], d[8], at, up)
     assert (first, last, before, after) == (d[3], d[10], d[1], d[11])
+
+
+def test_a_derate_window_ends_midway_in_days_without_evidence():
+    # invented truth: held on days 5-8, days 9-12 cloudy (nothing either way), day 13 rose
+    # above the limit; the last held day is any of days 8-12 alike, and their median, day
+    # 10, is the edge with the least expected error (Laplace 1774, from memory). Before:
+    # day 4 cloudy, day 3 above: days 4 and 5 alike, the lower median is the held day 5.
+    d = pd.date_range("2024-03-01", periods=15, freq="D")
+    at = pd.Series(False, index=d)
+    at.iloc[[5, 6, 7, 8]] = True
+    up = pd.Series(False, index=d)
+    up.iloc[[3, 13]] = True
+    assert clipping._widen(d[5], d[8], at, up) == (d[5], d[10], d[3], d[13])

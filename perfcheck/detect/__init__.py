@@ -29,6 +29,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import time
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -129,10 +130,14 @@ def _model_sigma(pi: pd.DataFrame) -> float:
 def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
             timings: dict[str, float] | None = None,
             reported: pd.DataFrame | None = None,
-            angle: pd.Series | None = None) -> dict[str, Any]:
+            angle: pd.Series | None = None,
+            weather: Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame] | None = None
+            ) -> dict[str, Any]:
     """Run every detector over aligned rows; pure (no database). ``reported``: the states the
     status channels reported (:func:`perfcheck.status.reported`), if any; ``angle``: the
-    ``tracker_angle`` channel [deg] on UTC interval starts, if any.
+    ``tracker_angle`` channel [deg] on UTC interval starts, if any; ``weather``: the site
+    weather the model took between two instants (:func:`perfcheck.analysis.model_weather`),
+    to run it again inside a clock fault's window (:func:`perfcheck.detect.clock.corrected`).
 
     Returns ``{"events": [Event], "ledger": Ledger, "degradation": {...}, "model": {...},
     "suspect_windows": [...], "clock_shifts": [...], "footprints": [...], "wide": Wide}``
@@ -160,7 +165,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     lg = clock.loggers(site)
     shifts = clock.find(w0, cs[w0.inverters], lg, alpha=st.alpha,
                         min_offset_min=st.clock_min_offset_min)
-    w1 = clock.corrected(w0, shifts, lg)
+    w1 = clock.corrected(w0, shifts, lg, site, weather)
     events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
     t = lap("clock", t)
     suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=heat)
@@ -235,7 +240,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     t = lap("degradation", t)
     ref_first = _reference_start(w, site, st)
     fits = baseline.fit(w, valid & ~excluded, ref_first, st.reference_days)
-    flagged, info = baseline.flag(w, valid, fits, k=st.cusum_k, h=st.cusum_h)
+    flagged, info = baseline.flag(w, valid, fits, k=st.cusum_k, h=st.cusum_h,
+                                  unexplained=valid & ~excluded)
     t = lap("baseline", t)
     ledger, under = attribution.build(
         w, events, {"outage": out_mask, "clipping": clip_mask, "curtailment": curt_mask},

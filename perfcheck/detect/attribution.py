@@ -36,7 +36,8 @@ both, the shortfall is split in this order (each step works on what the steps be
    least 1 %) times the period's expected energy (model errors taken as fully correlated over
    the period, conservative; one-sided false-alarm probability 0.13 % per flagged period), and
    with the period's level shift at least 3 standard errors against the month-to-month
-   wandering of the level (:func:`perfcheck.detect.baseline.shift_z`).
+   wandering of the level, on the intervals no whole-interval event takes
+   (:func:`perfcheck.detect.baseline.shift_z`, :func:`perfcheck.detect.baseline.flag`).
 4. Unexplained: the rest (noise and model error, either sign).
 
 An event found by a loss of class ``interval`` or in :data:`AT_LEVEL` takes its energy and its

@@ -219,28 +219,43 @@ def _daily(w: Wide, valid: pd.DataFrame, fits: dict[str, dict]) -> dict[str, pd.
     return out
 
 
-def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5
-         ) -> tuple[list[Flagged], dict[str, dict]]:
-    """Flagged underperformance periods per inverter, and the statistics behind them."""
+def _relative(per: dict[str, pd.DataFrame]) -> dict[str, pd.Series]:
+    """Per inverter, the daily relative residual of :func:`_daily`, less the median of its
+    siblings' where it has any (a day's weather errs alike on all of them)."""
+    resid = pd.DataFrame({inv: d["r"] for inv, d in per.items()})
+    if resid.shape[1] < 2:
+        return {inv: resid[inv] for inv in resid}
+    return {inv: resid[inv] - resid.drop(columns=inv).median(axis=1) for inv in resid}
+
+
+def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5,
+         unexplained: pd.DataFrame | None = None) -> tuple[list[Flagged], dict[str, dict]]:
+    """Flagged underperformance periods per inverter, and the statistics behind them.
+
+    The CUSUM runs on the ``valid`` intervals; a period's level shift (:func:`shift_z`) is
+    measured on the ``unexplained`` ones (default: the same), those no event of a whole
+    interval takes: a shortfall that a derate or an outage explains is no shift of the level
+    of what remains."""
     flagged: list[Flagged] = []
     info: dict[str, dict] = {}
     per = _daily(w, valid, fits)
-    resid = pd.DataFrame({inv: d["r"] for inv, d in per.items()})
-    for inv, daily in per.items():
-        r = daily["r"]
-        if resid.shape[1] > 1:
-            r = r - resid.drop(columns=inv).median(axis=1)
+    left = _relative(per if unexplained is None else _daily(w, unexplained, fits))
+    for inv, r in _relative(per).items():
+        daily = per[inv]
         sigma, phi = long_run_sigma(r.to_numpy())
         center = float(np.nanmedian(r.to_numpy()))
         z = innovations(r.to_numpy() - center, sigma, phi)
         _, periods = cusum_lower(z, k, h)
+        r_left = left[inv]
+        sigma_left, _ = long_run_sigma(r_left.to_numpy())
+        centred = r_left - float(np.nanmedian(r_left.to_numpy()))
         for a, b in periods:
             seg = daily.iloc[a:b]
             flagged.append(Flagged(inv, daily.index[a], daily.index[b - 1],
                                    float(np.nanmin(np.cumsum(np.nan_to_num(z[a:b] + k)))),
                                    float((seg["p"] - seg["m"]).sum()),
-                                   shift_z(r - center, a, b, sigma)))
+                                   shift_z(centred, a, b, sigma_left)))
         info[inv] = {"sigma_long_run": sigma, "lag1_autocorrelation": phi, "center": center,
                      "periods": len(periods),
-                     "against_siblings": resid.shape[1] > 1}
+                     "against_siblings": len(per) > 1}
     return flagged, info

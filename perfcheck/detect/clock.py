@@ -29,9 +29,10 @@ change's step inside the estimate's interval is set to the change exactly
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
 interval). A logger's clock labels every channel it records, so the correction follows the
-site file's loggers (:class:`Loggers`): the measured power of the logger's inverters and, where
-the POA sensor or the GHI sensor is recorded on the same logger, the expected power built from
-that sensor (:func:`follows`).
+site file's loggers (:class:`Loggers`): the measured power of the logger's inverters and the
+site weather it records, from which the model is run again over the window (:func:`rerun`:
+an array transposed from a shifted POA sensor takes the sun's position at the reading's true
+time, which shifting its expected power would not give).
 
 References
 ----------
@@ -44,15 +45,18 @@ formulation.
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Callable
+from functools import partial
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from perfcheck import model
 from perfcheck.detect.common import Event, Wide, change_points, despike, window_change
 from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge, sensor_columns
 from perfcheck.lazy import lazy_module
-from perfcheck.site import DEVICE_QUANTITIES, Site
+from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Site
 
 stats = lazy_module("scipy.stats")
 
@@ -84,10 +88,12 @@ class Loggers:
     inverters: dict[str, tuple[str, ...]]
     poa: str | None = None
     ghi: str | None = None
+    weather: dict[str, str] = dataclasses.field(default_factory=dict)  # model name -> logger
 
 
 def loggers(site: Site) -> Loggers:
-    """The site file's loggers as :class:`Loggers`."""
+    """The site file's loggers as :class:`Loggers`; ``weather`` maps each site-weather
+    channel, by the model's name (:data:`perfcheck.model.WEATHER`), to its logger."""
     def of(quantity: str) -> str | None:
         return next((lg.name for lg in site.loggers for c in lg.columns
                      if c.quantity == quantity), None)
@@ -95,7 +101,10 @@ def loggers(site: Site) -> Loggers:
     ids = {i.id for i in site.inverters}
     return Loggers({lg.name: tuple(sorted({c.device for c in lg.columns if c.device in ids
                                            and c.quantity in DEVICE_QUANTITIES}))
-                    for lg in site.loggers}, of("poa"), of("ghi"))
+                    for lg in site.loggers}, of("poa"), of("ghi"),
+                   {model.WEATHER[QUANTITIES[c.quantity][0]]: lg.name
+                    for lg in site.loggers for c in lg.columns
+                    if QUANTITIES[c.quantity][0] in model.WEATHER})
 
 
 def follows(w: Wide, lg: Loggers, logger: str) -> tuple[list[str], bool]:
@@ -255,7 +264,8 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
         name = next((n for n, g in lg.inverters.items() if g and set(g) <= set(s.inverters)),
                     None)
         if name is not None:
-            out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha))
+            out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha,
+                                       partial(_left_after, w, reference, ind, lg)))
     return out
 
 
@@ -303,38 +313,76 @@ def changes(tz: Any, start: pd.Timestamp, end: pd.Timestamp) -> list[tuple[pd.Ti
     return [(hours[i], float(off[i - 1] - off[i])) for i in np.flatnonzero(np.diff(off)) + 1]
 
 
-def daylight_saving(s: Shift, tz: Any, alpha: float) -> Shift:
+def daylight_saving(s: Shift, tz: Any, alpha: float,
+                    left: Callable[[Shift], float] | None = None) -> Shift:
     """A shift that begins within ``EDGE_DAYS`` of a daylight-saving change of the site's zone
-    and whose offset is that change's (a logger left on the old time: -60 min in spring, +60
-    in autumn) within the two-sided ``1 - alpha`` normal interval of the estimate, set to that
-    change exactly: its start at the change's instant, its offset the change's step, and its
+    and is that change (a logger left on the old time: -60 min in spring, +60 in autumn), set
+    to it exactly: its start at the change's instant, its offset the change's step, and its
     end at the next change where it lies within ``EDGE_DAYS`` (a logger that keeps one time
-    all year is right again then). Common practice: a logger kept on local time that misses a
-    change is off by exactly that change's step from its instant on."""
+    all year is right again then). It is that change when the change's step lies within the
+    two-sided ``1 - alpha`` normal interval of the estimate, or when the readings moved back
+    by the change's step leave no offset: ``left`` gives the p-value of the offset that
+    remains (:func:`_left_after`), and a p-value of at least ``alpha`` does not reject the
+    change. The change has no free parameter (its instant and step are known), the estimate
+    three (start, end, offset); the simpler hypothesis is kept unless the data reject it.
+    The second test catches an estimate biased toward zero (a day's first hour of power
+    shifted before the reference's sunrise is cut off from the day's centre), whose small
+    standard error would reject the change's step. Common practice: a logger kept on local
+    time that misses a change is off by exactly that change's step from its instant on."""
     e = pd.Timedelta(days=EDGE_DAYS + 1)
     z = float(stats.norm.ppf(1 - alpha / 2))
     se = float(s.evidence.get("offset_standard_error_min", np.inf))
-    near = [(t, step) for t, step in changes(tz, s.start - e, s.start + e)
-            if abs(s.offset_min - step) <= z * se]
-    if not near:
-        return s
-    t0, step = near[0]
-    back = [t for t, st in changes(tz, s.end - e, s.end + e) if st == -step and t > t0]
-    return dataclasses.replace(
-        s, start=t0, end=back[0] if back else s.end, offset_min=step,
-        evidence={**s.evidence, "missed_daylight_saving_change": True,
-                  "estimated_offset_min": s.offset_min})
+    for t0, step in changes(tz, s.start - e, s.start + e):
+        back = [t for t, st in changes(tz, s.end - e, s.end + e) if st == -step and t > t0]
+        dst = dataclasses.replace(
+            s, start=t0, end=back[0] if back else s.end, offset_min=step,
+            evidence={**s.evidence, "missed_daylight_saving_change": True,
+                      "estimated_offset_min": s.offset_min})
+        if abs(s.offset_min - step) <= z * se:
+            return dst
+        p = left(dst) if left is not None else float("nan")
+        if p >= alpha:
+            return dataclasses.replace(dst, evidence={**dst.evidence,
+                                                      "offset_left_p_value": p})
+    return s
 
 
-def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
+def _left_after(w: Wide, reference: pd.DataFrame, ind: pd.DataFrame, lg: Loggers,
+                s: Shift) -> float:
+    """The p-value of the offset left when the readings of ``s`` are moved back by its
+    offset (:func:`corrected`): the daily centre difference of its inverters' power, averaged
+    over them, against the reference it was measured on (the expected power from another
+    logger's sensor where confirmed there, else the clear-sky irradiance), inside its window
+    against as many days either side (:func:`perfcheck.detect.common.window_change`), Welch
+    t test. NaN where either side has too few days."""
+    cols = list(s.inverters)
+    confirmed = "confirmed_against" in s.evidence and set(cols) <= set(ind.columns)
+    ref = ind[cols] if confirmed else reference[cols]
+    d = _daily_offsets(corrected(w, [s], lg), ref).mean(axis=1)
+
+    def day(ts: pd.Timestamp) -> pd.Timestamp:
+        return ts.tz_convert(w.tz).tz_localize(None).normalize()
+
+    ch = window_change(d, day(s.start), day(s.end))
+    if ch is None:
+        return float("nan")
+    return float(stats.ttest_ind(ch[1], ch[2], equal_var=False).pvalue)
+
+
+def corrected(w: Wide, shifts: list[Shift], lg: Loggers, site: Site | None = None,
+              weather: Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame] | None = None
+              ) -> Wide:
     """The series with every channel of the shifted logger moved back by the offset inside its
-    window: the measured power of its inverters and the expected series built from a sensor it
-    records (:func:`follows`; shifting the expected series stands for re-running the model on
-    the corrected readings)."""
+    window: the measured power of its inverters and the site weather it records, from which
+    the model is run again over the window (:func:`rerun`; ``weather``: the site weather the
+    model took between two instants, ``site`` the site it modelled). Without them the expected
+    series built from a sensor the logger records (:func:`follows`) are shifted instead: right
+    for an array in the sensor's plane, not for one transposed from it, whose expected power
+    depends on the sun's position at the true time."""
     if not shifts:
         return w
     names = ("measured", "expected", "potential", "poa", "temp_cell", "expected_modelled",
-             "potential_modelled", "poa_modelled")
+             "potential_modelled", "poa_modelled", "from_sensor", "ghi")
     new = {k: getattr(w, k).copy(deep=False) for k in names}  # copied when written
     step = float(np.median(w.interval_s))
     for s in shifts:
@@ -342,15 +390,57 @@ def corrected(w: Wide, shifts: list[Shift], lg: Loggers) -> Wide:
         if n == 0:
             continue
         inside = (w.index >= s.start) & (w.index < s.end)
-        cols, modelled = follows(w, lg, s.logger)
         moved = [("measured", list(s.inverters))]
-        moved += [(k, cols) for k in ("expected", "potential", "poa", "temp_cell")]
-        if modelled:
-            moved += [(k, list(w.inverters)) for k in names[5:]]
+        recorded = [c for c, name in lg.weather.items() if name == s.logger]
+        if recorded and site is not None and weather is not None:
+            rerun(new, w, s, n * step, recorded, site, weather)
+        else:
+            cols, modelled = follows(w, lg, s.logger)
+            moved += [(k, cols) for k in ("expected", "potential", "poa", "temp_cell")]
+            if modelled:
+                moved += [(k, list(w.inverters)) for k in names[5:8]]
         for k, cs in moved:
             for c in cs:
                 new[k].loc[inside, c] = getattr(w, k)[c].shift(-n).to_numpy()[inside]
     return dataclasses.replace(w, **new)
+
+
+# the expected series of the model (long format, :func:`perfcheck.model.expected_power`) as
+# the detectors hold them
+MODEL_SERIES = {"expected": "ac_w", "potential": "ac_potential_w", "poa": "poa_global_wm2",
+                "temp_cell": "temp_cell_c", "expected_modelled": "ac_modelled_w",
+                "potential_modelled": "ac_potential_modelled_w",
+                "poa_modelled": "poa_modelled_wm2"}
+
+
+def rerun(new: dict[str, Any], w: Wide, s: Shift, lag_s: float, recorded: list[str],
+          site: Site, weather: Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame]) -> None:
+    """The model run again over the window of ``s`` on the site weather with the channels
+    ``recorded`` by the shifted logger moved back by ``lag_s`` (the reading of each interval
+    is the one labelled ``lag_s`` later), written into ``new`` (the :class:`Wide` fields by
+    name) inside the window. The sun's position, the transposition to the other planes, the
+    incidence angle and the cell temperature then follow the true time of each reading."""
+    lag = pd.Timedelta(seconds=lag_s)
+    wx = weather(s.start - abs(lag), s.end + abs(lag))
+    inside = (wx.index >= s.start) & (wx.index < s.end)
+    for c in recorded:
+        if c in wx:
+            wx.loc[inside, c] = wx[c].reindex(wx.index + lag).to_numpy()[inside]
+    wx = wx[inside]
+    if wx.empty or not any(c in wx and wx[c].notna().any() for c in ("poa_sensor", "ghi")):
+        return
+    step = float(np.median(w.interval_s))
+    exp = model.expected_power(wx, model.site_sun(wx.index, site, step), site)
+    at = (w.index >= s.start) & (w.index < s.end)
+    rows = w.index[at]
+    for k, col in MODEL_SERIES.items():
+        got = exp.pivot(index="ts", columns="inverter_id", values=col).reindex(rows)
+        new[k].loc[at, w.inverters] = got.reindex(columns=w.inverters).to_numpy()
+    src = exp.pivot(index="ts", columns="inverter_id", values="poa_source").reindex(rows)
+    new["from_sensor"].loc[at, w.inverters] = (src.reindex(columns=w.inverters) == "sensor"
+                                               ).to_numpy()
+    if "ghi" in recorded and "ghi" in wx:
+        new["ghi"].loc[at] = wx["ghi"].reindex(rows).to_numpy()
 
 
 def events(w_before: Wide, w_after: Wide, shifts: list[Shift], lg: Loggers,
