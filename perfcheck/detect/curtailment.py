@@ -183,7 +183,10 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
     measured/expected (``ratio``, interval x inverter) lies below that of the hours around it
     by ``tol`` too (median; a set-point scales every inverter alike, one inverter at its own
     limit beside others that follow the sun is not one). Days with no found level are never
-    tested.
+    tested. One sitting interval alone passes only on a day of more than 1 / (2 ``alpha``)
+    intervals (the half landing bounds its chance from below); pooling the days around, each
+    drop in its own day's scale, does not lift that where drops of its size recur, as they do
+    on heavy-tailed days: such a day stays unfound rather than raise the rate.
 
     References
     ----------
@@ -256,7 +259,10 @@ def _shared(held: np.ndarray, ratio: np.ndarray, days: np.ndarray) -> np.ndarray
 def _whole_day(keep: np.ndarray, level: np.ndarray, exp_level: np.ndarray, days: np.ndarray,
                tol: float, margin: float) -> np.ndarray:
     """Extend each day's curtailed runs to every interval of that day held at the same level
-    (within the tolerance) while the expected power is above it by the margin."""
+    (within the tolerance) while the expected power is above it by the margin. Not by the
+    tolerance: an interval on the level whose expected power the interval noise raised by a
+    few per cent would then enter, its loss in the ledger that noise, and on days of broken
+    cloud that outweighs the limited intervals the margin leaves out."""
     out = keep.copy()
     for day in np.unique(days[keep]):
         sel = days == day
