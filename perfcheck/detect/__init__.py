@@ -151,8 +151,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
-    weather = _site_series(df, ("temp_module_c", "temp_air_c", "wind_speed_ms"), w0)
-    heat, wind = _module_heat(weather, site), weather["wind_speed_ms"]
+    heat, wind = _module_heat_and_wind(df, site, w0)
     del df  # the caller's rows are the one copy left (analysis.update keeps none)
     planes = _planes(site, w0)
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
@@ -271,24 +270,28 @@ def _absolute_rel(site: Site) -> tuple[float, float]:
 
 
 def _site_series(df: pd.DataFrame, columns: tuple[str, ...], w: Wide
-                 ) -> dict[str, pd.Series | None]:
+                 ) -> list[pd.Series | None]:
     """Site-wide columns of the aligned rows (each instant's first row) on the wide index;
     None for a column that is absent."""
     first = ~df["ts"].duplicated().to_numpy()
     index = pd.DatetimeIndex(df["ts"])[first].tz_convert("UTC")
-    return {c: pd.Series(pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)[first],
-                         index=index).reindex(w.index) if c in df else None for c in columns}
+    return [pd.Series(pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)[first],
+                      index=index).reindex(w.index) if c in df else None for c in columns]
 
 
-def _module_heat(weather: dict[str, pd.Series | None], site: Site) -> pd.Series | None:
+def _module_heat_and_wind(df: pd.DataFrame, site: Site, w: Wide
+                          ) -> tuple[pd.Series | None, pd.Series | None]:
     """The irradiance [W/m^2] the logged module temperature implies (SAPM eq. 11 with the
-    coefficients of the array carrying the sensor), None without a module temperature."""
-    series = [weather[c] for c in ("temp_module_c", "temp_air_c", "wind_speed_ms")]
+    coefficients of the array carrying the sensor), None without a module temperature; and
+    the logged wind speed [m/s] (None without one). The temperatures are released here: the
+    detectors keep these two series alone."""
+    series = _site_series(df, ("temp_module_c", "temp_air_c", "wind_speed_ms"), w)
+    wind = series[-1]
     if any(x is None or x.notna().sum() == 0 for x in series):
-        return None
+        return None, wind
     array = sensor_array(site)
     a, b, _ = ph.sapm_parameters(array.mounting, array.construction)
-    return ph.poa_from_module_temperature(*series, a, b)
+    return ph.poa_from_module_temperature(*series, a, b), wind
 
 
 def _in_windows(index: pd.DatetimeIndex, windows: list[tuple[pd.Timestamp, pd.Timestamp]]
