@@ -29,22 +29,27 @@
 WITH dc AS (
     SELECT ts, device, value AS dc_w FROM readings WHERE quantity = 'dc_power_w'
 ),
+-- the windows a row falls in: one range join that yields only the rows inside a window (a
+-- correlated EXISTS per action would materialise every aligned row, twice)
+inw AS (
+    SELECT a.ts, a.inverter_id, bool_or(x.action = 'exclude') AS excluded,
+           bool_or(x.action = 'model_poa') AS model_poa
+    FROM aligned_base a
+    JOIN _metrics_windows x
+      ON a.ts >= x.start_ts AND a.ts < x.end_ts
+     AND (x.scope = 'plant' OR x.scope = 'inverter:' || a.inverter_id)
+    WHERE a.ts >= $start AND a.ts < $end
+    GROUP BY a.ts, a.inverter_id
+),
 w AS (
-    SELECT
-        a.*,
-        EXISTS (
-            SELECT 1 FROM _metrics_windows x
-            WHERE x.action = 'exclude'
-              AND (x.scope = 'plant' OR x.scope = 'inverter:' || a.inverter_id)
-              AND a.ts >= x.start_ts AND a.ts < x.end_ts
-        ) AS excluded,
-        a.poa_modelled_wm2 IS NOT NULL AND a.expected_ac_modelled_w IS NOT NULL AND EXISTS (
-            SELECT 1 FROM _metrics_windows x
-            WHERE x.action = 'model_poa'
-              AND (x.scope = 'plant' OR x.scope = 'inverter:' || a.inverter_id)
-              AND a.ts >= x.start_ts AND a.ts < x.end_ts
-        ) AS fallback
+    SELECT a.ts, a.inverter_id, a.interval_s, a.measured_ac_w, a.expected_ac_w, a.poa_wm2,
+           a.poa_modelled_wm2, a.poa_source, a.temp_module_c, a.temp_cell_c, a.sun_zenith_deg,
+           a.flags, a.expected_ac_modelled_w, a.temp_cell_modelled_c,
+           coalesce(inw.excluded, false) AS excluded,
+           a.poa_modelled_wm2 IS NOT NULL AND a.expected_ac_modelled_w IS NOT NULL
+               AND coalesce(inw.model_poa, false) AS fallback
     FROM aligned a
+    LEFT JOIN inw ON inw.ts = a.ts AND inw.inverter_id = a.inverter_id
     WHERE a.ts >= $start AND a.ts < $end
 ),
 l AS (

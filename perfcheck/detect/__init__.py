@@ -156,7 +156,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
-    heat, wind = _module_heat(df, site, w0), _site_series(df, "wind_speed_ms", w0)
+    heat, wind = _module_heat_and_wind(df, site, w0)
     del df  # the caller's rows are the one copy left (analysis.update keeps none)
     planes = _planes(site, w0)
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
@@ -275,25 +275,29 @@ def _absolute_rel(site: Site) -> tuple[float, float]:
     return m.poa_uncertainty_pct / 100 / Z95, m.modelled_poa_uncertainty_pct / 100 / Z95
 
 
-def _site_series(df: pd.DataFrame, column: str, w: Wide) -> pd.Series | None:
-    """A site-wide column of the aligned rows on the wide index (None when absent)."""
-    if column not in df:
-        return None
-    first = df.drop_duplicates("ts")
-    values = pd.to_numeric(first[column], errors="coerce").to_numpy(dtype=float)
-    return pd.Series(values, index=pd.DatetimeIndex(first["ts"]).tz_convert("UTC")
-                     ).reindex(w.index)
+def _site_series(df: pd.DataFrame, columns: tuple[str, ...], w: Wide
+                 ) -> list[pd.Series | None]:
+    """Site-wide columns of the aligned rows (each instant's first row) on the wide index;
+    None for a column that is absent."""
+    first = ~df["ts"].duplicated().to_numpy()
+    index = pd.DatetimeIndex(df["ts"])[first].tz_convert("UTC")
+    return [pd.Series(pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)[first],
+                      index=index).reindex(w.index) if c in df else None for c in columns]
 
 
-def _module_heat(df: pd.DataFrame, site: Site, w: Wide) -> pd.Series | None:
+def _module_heat_and_wind(df: pd.DataFrame, site: Site, w: Wide
+                          ) -> tuple[pd.Series | None, pd.Series | None]:
     """The irradiance [W/m^2] the logged module temperature implies (SAPM eq. 11 with the
-    coefficients of the array carrying the sensor), None without a module temperature."""
-    series = [_site_series(df, c, w) for c in ("temp_module_c", "temp_air_c", "wind_speed_ms")]
+    coefficients of the array carrying the sensor), None without a module temperature; and
+    the logged wind speed [m/s] (None without one). The temperatures are released here: the
+    detectors keep these two series alone."""
+    series = _site_series(df, ("temp_module_c", "temp_air_c", "wind_speed_ms"), w)
+    wind = series[-1]
     if any(x is None or x.notna().sum() == 0 for x in series):
-        return None
+        return None, wind
     array = sensor_array(site)
     a, b, _ = ph.sapm_parameters(array.mounting, array.construction)
-    return ph.poa_from_module_temperature(*series, a, b)
+    return ph.poa_from_module_temperature(*series, a, b), wind
 
 
 def _in_windows(index: pd.DatetimeIndex, windows: list[tuple[pd.Timestamp, pd.Timestamp]]

@@ -76,6 +76,7 @@ from perfcheck.lazy import lazy_module
 # the two modules called, not statsmodels.api (which loads its plots, time series and formulas)
 linear_model = lazy_module("statsmodels.regression.linear_model")
 tools = lazy_module("statsmodels.tools.tools")
+special = lazy_module("scipy.special")
 stats = lazy_module("scipy.stats")
 
 METHOD = ("deficit against the day's median ratio binned by sun azimuth and elevation, growth "
@@ -115,6 +116,19 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray, where: np.ndarray,
     return slope, se, p_one
 
 
+def _growth_p(x: np.ndarray) -> float:
+    """One-sided p-value of a mean above 0: Student's one-sample t test, t = mean / (s /
+    sqrt(n)), s the sample standard deviation, n - 1 degrees of freedom. The sums are those of
+    ``scipy.stats.ttest_1samp(x, 0, alternative="greater")`` in its order, so the p-value is
+    the same to the digit, without that function's cost per call (a bin is tested each)."""
+    n = float(len(x))
+    mean = np.mean(x)
+    var = np.mean((x - mean) ** 2) * (n / (n - 1))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = mean / np.sqrt(var / n)
+    return float(special.stdtr(n - 1, -t))
+
+
 def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
     """Growth test of one bin's daily deficits: year-on-year pairs (the same sun path a
     year later, so the model's shape errors there cancel) where the data span more than a
@@ -133,9 +147,8 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
         delta = dv[near][ok] - dv[ok]
         if len(delta) < min_pairs:
             return None
-        res = stats.ttest_1samp(delta, 0.0, alternative="greater")
         return {"test": "year-on-year pairs, one-sided t", "growth_per_year": float(
-            np.mean(delta)), "p_value": float(res.pvalue), "pairs": int(len(delta))}
+            np.mean(delta)), "p_value": _growth_p(delta), "pairs": int(len(delta))}
     if np.ptp(t) < 0.25:
         return None
     slope, _, p = _bin_trend(t, d, g[["elv", "azv"]].to_numpy(), g["dayno"].to_numpy() // 30)
