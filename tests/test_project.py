@@ -70,20 +70,6 @@ def loaded_script(modules: tuple[str, ...]) -> str:
 LOADED = loaded_script(HEAVY)
 
 
-
-def test_package_parts_loads_a_module_when_first_named():
-    """lazy.package_parts: pvlib without its __init__; a module loads on first use, a name
-    that is no module is an AttributeError (so hasattr works), and `import pvlib` shares it."""
-    script = ("import sys\nfrom perfcheck.lazy import package_parts\n"
-              "pv = package_parts('pvlib')\nimport pvlib\nassert pvlib is pv\n"
-              "assert 'pvlib.spa' not in sys.modules\npvlib.spa.calculate_deltat(2025, 6)\n"
-              "assert not hasattr(pvlib, 'no_such_module')\n"
-              "print(sorted(m for m in ('pvlib.spa', 'pvlib.spectrum', 'pvlib.iotools', "
-              "'scipy') if m in sys.modules))")
-    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
-                         check=True)
-    assert out.stdout.split("\n")[-2] == "['pvlib.spa']", out.stdout
-
 def test_ingest_loads_neither_scipy_nor_pvlib_irradiance(tmp_path):
     """Ingest calls pvlib's solar position alone (the extraterrestrial irradiance of its
     checks comes from perfcheck.physics): pvlib's irradiance module, scipy's routines that it
