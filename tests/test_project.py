@@ -56,32 +56,12 @@ def test_the_command_table_names_every_command_of_every_module():
 
 
 HEAVY = ("pandas", "numpy", "duckdb", "pvlib", "matplotlib", "statsmodels", "jinja2", "scipy")
+# Prints the heavy libraries really loaded (a module the CLI names lazily is not loaded yet).
+LOADED = ("import sys\nfrom perfcheck.cli import main\ntry:\n"
+          "    main(sys.argv[1:], prog_name='perfcheck')\nexcept SystemExit:\n    pass\n"
+          f"print(sorted(m for m in {HEAVY!r} if m in sys.modules and "
+          "type(sys.modules[m]).__name__ != '_LazyModule'))")
 
-
-def loaded_script(modules: tuple[str, ...]) -> str:
-    """A script that runs the command of its arguments and prints which of ``modules`` it
-    really loaded (a module the CLI names lazily is not loaded yet)."""
-    return ("import sys\nfrom perfcheck.cli import main\ntry:\n"
-            "    main(sys.argv[1:], prog_name='perfcheck')\nexcept SystemExit:\n    pass\n"
-            f"print(sorted(m for m in {modules!r} if m in sys.modules and "
-            "type(sys.modules[m]).__name__ != '_LazyModule'))")
-
-
-LOADED = loaded_script(HEAVY)
-
-
-def test_ingest_loads_neither_scipy_nor_pvlib_irradiance(tmp_path):
-    """Ingest calls pvlib's solar position alone (the extraterrestrial irradiance of its
-    checks comes from perfcheck.physics): pvlib's irradiance module, scipy's routines that it
-    imports and the statistics stay unloaded (a third of a second of its start-up)."""
-    script = loaded_script(("pvlib.irradiance", "scipy.interpolate", "scipy.optimize",
-                            "scipy.stats", "statsmodels.api"))
-    out = subprocess.run(
-        [sys.executable, "-c", script, "ingest", str(ROOT / "demo_logs" / "site.toml"),
-         str(ROOT / "demo_logs" / "talbrunn_fl3_2024-06.csv"), "--db",
-         str(tmp_path / "site.duckdb")], capture_output=True, text=True, check=True)
-    assert "quality flags" in out.stdout
-    assert out.stdout.splitlines()[-1] == "[]", out.stdout
 
 def completing(words: str) -> dict[str, str]:
     return {"_PERFCHECK_COMPLETE": "bash_complete", "COMP_WORDS": words,
