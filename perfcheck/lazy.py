@@ -30,30 +30,3 @@ def lazy_module(name: str) -> ModuleType:
     if parent:
         setattr(sys.modules[parent], child, module)
     return module
-
-
-def package_parts(name: str) -> ModuleType:
-    """The package ``name`` with its ``__init__`` left unrun: ``package.part`` imports the
-    submodule ``name.part`` on first use (a module ``__getattr__``, PEP 562), and a name that
-    is no submodule is an ``AttributeError``. For a package whose ``__init__`` imports every
-    submodule when a command calls a few of them: pvlib's loads its spectral models (with
-    scipy's integration routines), its readers of web services (requests) and the rest, about
-    a third of its import time, which the solar position, the transposition and the clear sky
-    perfcheck calls do not need. Registered where the package is named, so every
-    ``import name`` of the process then shares it (an ``__init__`` already run is kept)."""
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.find_spec(name)
-    package = importlib.util.module_from_spec(spec)
-
-    def part(attr: str) -> ModuleType:
-        try:
-            return importlib.import_module(f"{name}.{attr}")
-        except ModuleNotFoundError as exc:
-            if exc.name != f"{name}.{attr}":
-                raise
-            raise AttributeError(f"module {name!r} has no attribute {attr!r}") from None
-
-    package.__getattr__ = part
-    sys.modules[name] = package
-    return package

@@ -18,11 +18,10 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from perfcheck.lazy import package_parts
+from perfcheck.lazy import lazy_module
 
-# pvlib's modules only when a physics function runs: a command reading stored results loads
-# none of them, and a model loads those it calls
-pvlib = package_parts("pvlib")
+# pvlib only when a physics function runs: a command reading stored results does not load it
+pvlib = lazy_module("pvlib")
 
 # --------------------------------------------------------------------------------------------
 # sun position
@@ -204,17 +203,6 @@ def declination_spencer71(dayofyear: np.ndarray) -> np.ndarray:
         0.006758 * np.cos(2.0 * day_angle) + 0.000907 * np.sin(2.0 * day_angle) -
         0.002697 * np.cos(3.0 * day_angle) + 0.00148 * np.sin(3.0 * day_angle)
     )
-
-
-def extra_radiation_spencer71(dayofyear: np.ndarray) -> np.ndarray:
-    """Extraterrestrial irradiance normal to the sun [W/m^2]: the solar constant 1366.1 W/m^2
-    times Spencer's Fourier series of the squared ratio of the mean to the actual sun-earth
-    distance (Spencer 1971, Search 2(5):172; Duffie & Beckman 2006, eq. 1.4.1b), as pvlib's
-    ``get_extra_radiation`` (its default method), without loading pvlib's irradiance module
-    and scipy with it where nothing else of it is needed."""
-    day_angle = (2.0 * np.pi / 365.0) * (dayofyear - 1)
-    return 1366.1 * (1.00011 + 0.034221 * np.cos(day_angle) + 0.00128 * np.sin(day_angle) +
-                     0.000719 * np.cos(2 * day_angle) + 7.7e-05 * np.sin(2 * day_angle))
 
 
 def equation_of_time_spencer71(dayofyear: np.ndarray) -> np.ndarray:

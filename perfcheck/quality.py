@@ -54,7 +54,10 @@ import numpy as np
 import pandas as pd
 
 from perfcheck import db, ingest, physics, units
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Site
+
+pvlib = lazy_module("pvlib")
 
 # Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
 # fixed limit on that side. Power and energy limits scale with the device's rating
@@ -170,7 +173,7 @@ def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.Dat
 
     Returns columns ts (interval start), interval_min, elevation_deg (apparent, refracted),
     mu0 (cosine of the zenith, 0 when the sun is down) and sa_wm2 (extraterrestrial normal
-    irradiance for the day of the UTC date, Spencer 1971).
+    irradiance for the day, pvlib's ``get_extra_radiation``, Spencer 1971).
     """
     mid = physics.interval_midpoints(starts, 60.0 * interval_min)
     if len(mid):  # delta_t: pvlib's default for get_solarposition (TT - UT1 [s])
@@ -184,7 +187,7 @@ def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.Dat
         "interval_min": np.int32(interval_min),
         "elevation_deg": pos["apparent_elevation"].to_numpy(),
         "mu0": np.clip(np.cos(np.radians(zenith)), 0.0, None),
-        "sa_wm2": physics.extra_radiation_spencer71(mid.day_of_year.to_numpy()),
+        "sa_wm2": pvlib.irradiance.get_extra_radiation(mid).to_numpy(),
     })
 
 

@@ -78,18 +78,6 @@ def test_geometric_sunrise_sunset_as_pvlib(lat, lon, tz):
     assert_allclose(ph.declination_spencer71(doy), pvlib.solarposition.declination_spencer71(doy))
 
 
-def test_extra_radiation_as_pvlib():
-    # pvlib's get_extra_radiation (the reference library, its default Spencer 1971 method),
-    # to the last bit over two years of minutes (a leap year in them): the quality stage's
-    # clearness checks read ours where pvlib's irradiance module is not loaded
-    t = pd.date_range("2024-01-01", "2026-01-01", freq="min", tz="UTC", inclusive="left")
-    ours = ph.extra_radiation_spencer71(t.day_of_year.to_numpy())
-    assert np.array_equal(ours, pvlib.irradiance.get_extra_radiation(t).to_numpy())
-    # Duffie & Beckman 2006, Fig. 1.4.1 (from memory): about 3.3 % above the mean in early
-    # January, 3.3 % below it in early July
-    assert_allclose(ours[[2 * 1440, 184 * 1440]] / 1366.1, [1.034, 0.967], atol=2e-3)
-
-
 def test_interval_midpoints():
     t = pd.date_range("2024-01-01", periods=3, freq="15min", tz="UTC")
     mid = ph.interval_midpoints(t, 900)

@@ -16,9 +16,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from perfcheck.lazy import lazy_module, package_parts
+from perfcheck.lazy import lazy_module
 
-pvlib = package_parts("pvlib")
+pvlib = lazy_module("pvlib")
 stats = lazy_module("scipy.stats")
 
 KINDS = (

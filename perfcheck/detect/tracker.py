@@ -83,10 +83,10 @@ from perfcheck.detect.common import (
     energy_band,
     scope_of,
 )
-from perfcheck.lazy import lazy_module, package_parts
+from perfcheck.lazy import lazy_module
 from perfcheck.site import Array, Site
 
-pvlib = package_parts("pvlib")
+pvlib = lazy_module("pvlib")
 special = lazy_module("scipy.special")
 stats = lazy_module("scipy.stats")
 
