@@ -199,8 +199,11 @@ def test_a_derate_window_ends_on_the_last_day_that_shows_the_limit():
     at.iloc[[3, 5, 6, 7, 8, 10, 12]] = True
     up = pd.Series(False, index=d)
     up.iloc[[1, 11]] = True
-    first, last, before, after = clipping._widen(d[5], d[8], at, up)
-    assert (first, last, before, after) == (d[3], d[10], d[1], d[11])
+    win = clipping._widen(d[5], d[8], at, up)
+    assert win[:4] == (d[3], d[10], d[1], d[11])
+    # before: day 2 lies without evidence between day 3 and the day above, two candidates
+    # alike, half a day of expected error; after: day 11 follows day 10, no error
+    assert (win.first_error_d, win.last_error_d) == (0.5, 0.0)
 
 
 def test_a_derate_window_ends_midway_in_days_without_evidence():
@@ -213,4 +216,10 @@ def test_a_derate_window_ends_midway_in_days_without_evidence():
     at.iloc[[5, 6, 7, 8]] = True
     up = pd.Series(False, index=d)
     up.iloc[[3, 13]] = True
-    assert clipping._widen(d[5], d[8], at, up) == (d[5], d[10], d[3], d[13])
+    win = clipping._widen(d[5], d[8], at, up)
+    assert win[:4] == (d[5], d[10], d[3], d[13])
+    # candidates 8-12 around day 10: distances 2, 1, 0, 1, 2, mean 1.2 d (worked by hand);
+    # days 4-5: 0 and 1, mean 0.5 d
+    assert (win.first_error_d, win.last_error_d) == (0.5, 1.2)
+    # without a day above the limit the edge is the data's, its error not stated
+    assert np.isnan(clipping._widen(d[5], d[8], at, pd.Series(False, index=d)).last_error_d)

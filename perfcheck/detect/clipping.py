@@ -27,7 +27,8 @@ farthest day that still *shows* the limit (:func:`days_at`: two readings on the 
 the expected power stands above it and moves), up to a day that rose above it. A day whose
 expected power never reaches the limit (cloud, low sun) shows nothing either way: the true
 boundary lies between the last day with evidence and the day above the limit, which the
-event's evidence names, and the window ends midway (:func:`_widen`). A day on which every
+event's evidence names, and the window ends midway (:func:`_widen`), the expected error of
+each such edge in days stated beside it (:func:`edge_error_days`). A day on which every
 sibling stood below its expected power by the margin while this inverter was held is left to
 the curtailment detector (a shared set-point). The design clipping is then estimated outside
 the derates.
@@ -44,6 +45,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from functools import partial
 from statistics import NormalDist
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -159,22 +161,43 @@ def _derate_runs(limit: pd.Series, above: Callable[[float], pd.Series], tol: flo
     return out
 
 
-def _widen(first: pd.Timestamp, last: pd.Timestamp, at: pd.Series, up: pd.Series
-           ) -> tuple[pd.Timestamp, pd.Timestamp, pd.Timestamp | None, pd.Timestamp | None]:
+class Window(NamedTuple):
+    """A derate's days: the first and last, the day above the limit before and after (None
+    where there is none) and the expected error of each edge [d] (NaN without a day above
+    the limit on that side: the edge is then bounded by the data, not by evidence)."""
+
+    first: pd.Timestamp
+    last: pd.Timestamp
+    before: pd.Timestamp | None
+    after: pd.Timestamp | None
+    first_error_d: float
+    last_error_d: float
+
+
+def edge_error_days(gap: int) -> float:
+    """Expected absolute error [d] of an edge placed at the lower median of ``gap + 1``
+    candidate days alike (the last day with evidence and the ``gap`` days without any after
+    it): the mean distance of the candidates from it, (gap + 1)^2 // 4 / (gap + 1)
+    (for the median of a discrete uniform law, from the sum of |i - k|)."""
+    n = gap + 1
+    return (n * n // 4) / n
+
+
+def _widen(first: pd.Timestamp, last: pd.Timestamp, at: pd.Series, up: pd.Series) -> Window:
     """A run's window widened to the farthest days on either side that show the limit
     (``at``: :func:`days_at`) before a day that rose above it (``up``: :func:`days_above`).
 
-    Returns (first day, last day, the day above the limit before, the one after; None where
-    there is none). A day on which the expected power never reached the limit shows
+    A day on which the expected power never reached the limit shows
     nothing either way: the true boundary lies between the last day with evidence and the
     day above the limit, on any of the days without evidence between them alike, and the
     window ends at the median of those candidates (the last day with evidence and the
     days after it up to the day above; the lower median where two are: the edge that
     minimises the expected error in days, Laplace 1774, from memory, when nothing tells the days
-    apart). Without a day above the limit on that side the window ends on the last day
-    with evidence."""
+    apart), with the expected error :func:`edge_error_days`. Without a day above the limit
+    on that side the window ends on the last day with evidence."""
     order = at.index
     bounds: list[pd.Timestamp | None] = []
+    errors: list[float] = []
     one = pd.Timedelta(days=1)
     for step, edge in ((-1, first), (1, last)):
         i, found = order.get_loc(edge) + step, None
@@ -185,11 +208,14 @@ def _widen(first: pd.Timestamp, last: pd.Timestamp, at: pd.Series, up: pd.Series
             if at.iloc[i]:
                 edge = order[i]
             i += step
+        error = float("nan")
         if found is not None:
             gap = abs((found - edge) // one) - 1  # days between without evidence
             edge = edge + step * (gap // 2) * one
+            error = edge_error_days(gap)
         bounds += [edge, found]
-    return bounds[0], bounds[2], bounds[1], bounds[3]
+        errors.append(error)
+    return Window(bounds[0], bounds[2], bounds[1], bounds[3], *errors)
 
 
 def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: float
@@ -207,8 +233,9 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: fl
         tol_p = plateau_tolerance(ms, limits[inv], days, tol, alpha)
         above = partial(days_above, ms, days, tol_p=tol_p)
         for first, last, lv in _derate_runs(limits[inv], above, tol):
-            first, last, before, after = _widen(
-                first, last, days_at(ms, w.expected[inv], days, lv, tol, tol_p), above(lv))
+            win = _widen(first, last, days_at(ms, w.expected[inv], days, lv, tol, tol_p),
+                         above(lv))
+            first, last = win.first, win.last
             inside = (days >= first) & (days <= last)
             m, e = w.measured[inv].to_numpy(), w.expected[inv].to_numpy()
             sel = inside & ~exclude[inv].to_numpy() & (np.abs(m - lv) <= tol * lv) & (e > lv)
@@ -227,8 +254,11 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: fl
                           "margin": margin, "plateau_tolerance": tol_p,
                           "held_days": n_held, "limited_intervals": int(sel.sum()),
                           **{f"day_above_limit_{k}": pd.Timestamp(d).date().isoformat()
-                             for k, d in (("before", before), ("after", after))
-                             if d is not None}},
+                             for k, d in (("before", win.before), ("after", win.after))
+                             if d is not None},
+                          **{f"{k}_expected_error_d": e
+                             for k, e in (("start", win.first_error_d),
+                                          ("end", win.last_error_d)) if np.isfinite(e)}},
                 detail={"cause": "inverter limited below its rating (derate)",
                         "limit_share_of_rating": lv / float(w.ac_w[inv])}))
     return events, mask
