@@ -258,3 +258,27 @@ def test_a_reading_on_the_plateau_weighs_by_the_censored_normal_likelihood():
     e3[5] = 1.5 * level
     assert clipping.plateau_log_lr(pd.Series(m, index=idx), pd.Series(e3, index=idx), days,
                                    level, tol_p, 1e-3).iloc[0] > 5
+
+
+def test_a_lost_string_starts_after_the_last_half_day_at_the_upper_level():
+    # invented truth: one inverter at ratio 1.0; from day 2 a fault on one side of the day
+    # (a stalled row's rest) lowers its mornings to 0.9; strings lost from day 5 10:00 take
+    # 15 % all day. The daily medians put the fault's first day on day 3; the afternoons of
+    # days 2-4 stand at the upper level, so the strings were there until day 4's evening and
+    # the start lies in day 5's morning (at or before 10:00: its earlier readings, lowered
+    # by the other fault, cannot tell)
+    idx = pd.date_range("2024-03-01 06:00", periods=10 * 96, freq="15min")
+    idx = idx[(idx.hour >= 6) & (idx.hour < 18)]
+    morning = idx.hour < 12
+    ratio = np.ones(len(idx))
+    ratio[(idx >= "2024-03-03") & morning] = 0.9
+    ratio[idx >= "2024-03-06 10:00"] *= 0.85
+    e = pd.DataFrame({"A": np.full(len(idx), 1000.0)}, index=idx)
+    w = types.SimpleNamespace(day=pd.Series(idx.normalize(), index=idx), inverters=["A"],
+                              measured=e * ratio[:, None], expected=e,
+                              azimuth=pd.Series(np.where(morning, 120.0, 240.0), index=idx))
+    usable = pd.DataFrame({"A": True}, index=idx)
+    lo, hi = partial._edges(w, usable, "A", pd.Timestamp("2024-03-04"),
+                            pd.Timestamp("2024-03-10"), 1.0, 0.85, 3)
+    assert pd.Timestamp("2024-03-06 06:00") <= idx[lo] <= pd.Timestamp("2024-03-06 10:00")
+    assert hi == len(idx)
