@@ -196,7 +196,7 @@ def plateau_log_lr(measured: pd.Series, expected: pd.Series, days: np.ndarray, l
     model, Tobin 1958, Econometrica 26:24, from memory)."""
     m, e = measured.to_numpy(dtype=float), expected.to_numpy(dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
-        on = np.abs(m / level - 1) <= tol_p
+        on = (np.abs(m / level - 1) <= tol_p) & (e > 0)
         free = (e > 0) & (e < level) & (m > 0)
         log_ratio = np.log(m / e)
     floor = tol_p / NormalDist().inv_cdf(1 - alpha / 2)
@@ -225,6 +225,8 @@ def posterior_edge(log_lr: np.ndarray) -> tuple[int, float]:
     logw = np.r_[0.0, np.cumsum(log_lr)]
     wt = np.exp(logw - logw.max())
     cum = np.cumsum(wt)
+    # the first candidate whose cumulative weight reaches half (the lower median where it
+    # meets half exactly, rounding aside)
     k = int(np.searchsorted(cum, 0.5 * cum[-1] * (1 - 1e-12)))
     return k, float(np.sum(wt * np.abs(np.arange(len(wt)) - k)) / cum[-1])
 
