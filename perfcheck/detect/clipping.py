@@ -200,18 +200,20 @@ def plateau_log_lr(measured: pd.Series, expected: pd.Series, days: np.ndarray, l
         free = (e > 0) & (e < level) & (m > 0)
         log_ratio = np.log(m / e)
     floor = tol_p / NormalDist().inv_cdf(1 - alpha / 2)
-    out = pd.Series(0.0, index=pd.Index(np.unique(days)))
-    for day in np.unique(days[on]):
-        today = days == day
-        x = log_ratio[today & free]
+    unique, which = np.unique(days, return_inverse=True)
+    out = np.zeros(len(unique))
+    rows = np.split(np.argsort(which, kind="stable"), np.cumsum(np.bincount(which))[:-1])
+    for j in np.unique(which[on]):
+        today = rows[j]
+        x = log_ratio[today[free[today]]]
         if len(x) < 3:
             continue
         mid = float(np.median(x))
         spread = max(1.4826 * float(np.median(np.abs(x - mid))), floor)
-        z = (np.log(level) - mid - np.log(e[today & on])) / spread
-        out[day] = float(np.sum(stats.norm.logsf(z) - stats.norm.logpdf(z) + np.log(spread)
-                                - np.log(2 * tol_p)))
-    return out
+        z = (np.log(level) - mid - np.log(e[today[on[today]]])) / spread
+        out[j] = float(np.sum(stats.norm.logsf(z) - stats.norm.logpdf(z) + np.log(spread)
+                              - np.log(2 * tol_p)))
+    return pd.Series(out, index=pd.Index(unique))
 
 
 def posterior_edge(log_lr: np.ndarray) -> tuple[int, float]:
