@@ -199,8 +199,11 @@ def test_a_derate_window_ends_on_the_last_day_that_shows_the_limit():
     at.iloc[[3, 5, 6, 7, 8, 10, 12]] = True
     up = pd.Series(False, index=d)
     up.iloc[[1, 11]] = True
-    first, last, before, after = clipping._widen(d[5], d[8], at, up)
-    assert (first, last, before, after) == (d[3], d[10], d[1], d[11])
+    win = clipping._widen(d[5], d[8], at, up, pd.Series(0.0, index=d))
+    assert win[:4] == (d[3], d[10], d[1], d[11])
+    # before: day 2 lies without evidence between day 3 and the day above, two candidates
+    # alike, half a day of expected error; after: day 11 follows day 10, no error
+    assert (win.first_error_d, win.last_error_d) == (0.5, 0.0)
 
 
 def test_a_derate_window_ends_midway_in_days_without_evidence():
@@ -213,4 +216,69 @@ def test_a_derate_window_ends_midway_in_days_without_evidence():
     at.iloc[[5, 6, 7, 8]] = True
     up = pd.Series(False, index=d)
     up.iloc[[3, 13]] = True
-    assert clipping._widen(d[5], d[8], at, up) == (d[5], d[10], d[3], d[13])
+    none = pd.Series(0.0, index=d)
+    win = clipping._widen(d[5], d[8], at, up, none)
+    assert win[:4] == (d[5], d[10], d[3], d[13])
+    # candidates 8-12 around day 10: distances 2, 1, 0, 1, 2, mean 1.2 d (worked by hand);
+    # days 4-5: 0 and 1, mean 0.5 d
+    assert (win.first_error_d, win.last_error_d) == (0.5, 1.2)
+    # without a day above the limit the edge is the data's, its error not stated
+    assert np.isnan(clipping._widen(d[5], d[8], at, pd.Series(False, index=d), none).last_error_d)
+    # a reading on the plateau on day 12 nine times likelier under the limit: candidates 8-12
+    # weigh 1, 1, 1, 1, 9 (the limit held through day 12 in the last only), the posterior
+    # median is day 12, its expected error (4 + 3 + 2 + 1) / 13 d (worked by hand)
+    lr = none.copy()
+    lr.iloc[12] = np.log(9.0)
+    win = clipping._widen(d[5], d[8], at, up, lr)
+    assert win.last == d[12]
+    assert win.last_error_d == pytest.approx(10 / 13)
+
+
+def test_a_reading_on_the_plateau_weighs_by_the_censored_normal_likelihood():
+    # invented truth: five readings the limit cannot touch at 0.9 of the expected power, log
+    # ratios spread by -0.02..0.02 (MAD 0.01), and one reading at the limit where the
+    # unlimited power is due exactly at it (z = 0): P(above) 1/2 under the limit against the
+    # normal density 1/(sqrt(2 pi) s) times the plateau's width 2 tol_p without (closed form)
+    level, tol_p = 10000.0, 0.005
+    idx = pd.date_range("2024-03-01 09:00", periods=6, freq="h")
+    e = np.array([2000.0, 3000.0, 4000.0, 5000.0, 6000.0, level / 0.9])
+    m = np.r_[0.9 * e[:5] * np.exp([-0.02, -0.01, 0.0, 0.01, 0.02]), level]
+    days = idx.normalize().to_numpy()
+    got = clipping.plateau_log_lr(pd.Series(m, index=idx), pd.Series(e, index=idx), days,
+                                  level, tol_p, 1e-3)
+    s = 1.4826 * 0.01
+    assert got.iloc[0] == pytest.approx(np.log(0.5 * np.sqrt(2 * np.pi) * s / (2 * tol_p)))
+    # a day with no reading on the plateau weighs nothing either way
+    m2 = m.copy()
+    m2[5] = 0.8 * level
+    assert clipping.plateau_log_lr(pd.Series(m2, index=idx), pd.Series(e, index=idx), days,
+                                   level, tol_p, 1e-3).iloc[0] == 0.0
+    # held where the unlimited power stands far above the limit: strong evidence of it
+    e3 = e.copy()
+    e3[5] = 1.5 * level
+    assert clipping.plateau_log_lr(pd.Series(m, index=idx), pd.Series(e3, index=idx), days,
+                                   level, tol_p, 1e-3).iloc[0] > 5
+
+
+def test_a_lost_string_starts_after_the_last_half_day_at_the_upper_level():
+    # invented truth: one inverter at ratio 1.0; from day 2 a fault on one side of the day
+    # (a stalled row's rest) lowers its mornings to 0.9; strings lost from day 5 10:00 take
+    # 15 % all day. The daily medians put the fault's first day on day 3; the afternoons of
+    # days 2-4 stand at the upper level, so the strings were there until day 4's evening and
+    # the start lies in day 5's morning (at or before 10:00: its earlier readings, lowered
+    # by the other fault, cannot tell)
+    idx = pd.date_range("2024-03-01 06:00", periods=10 * 96, freq="15min")
+    idx = idx[(idx.hour >= 6) & (idx.hour < 18)]
+    morning = idx.hour < 12
+    ratio = np.ones(len(idx))
+    ratio[(idx >= "2024-03-03") & morning] = 0.9
+    ratio[idx >= "2024-03-06 10:00"] *= 0.85
+    e = pd.DataFrame({"A": np.full(len(idx), 1000.0)}, index=idx)
+    w = types.SimpleNamespace(day=pd.Series(idx.normalize(), index=idx), inverters=["A"],
+                              measured=e * ratio[:, None], expected=e,
+                              azimuth=pd.Series(np.where(morning, 120.0, 240.0), index=idx))
+    usable = pd.DataFrame({"A": True}, index=idx)
+    lo, hi = partial._edges(w, usable, "A", pd.Timestamp("2024-03-04"),
+                            pd.Timestamp("2024-03-10"), 1.0, 0.85, 3)
+    assert pd.Timestamp("2024-03-06 06:00") <= idx[lo] <= pd.Timestamp("2024-03-06 10:00")
+    assert hi == len(idx)

@@ -25,9 +25,12 @@ quantile at the detectors' ``alpha`` times the noise of the readings on the held
 Held days need clear skies; the derate's window is then widened on either side to the
 farthest day that still *shows* the limit (:func:`days_at`: two readings on the plateau while
 the expected power stands above it and moves), up to a day that rose above it. A day whose
-expected power never reaches the limit (cloud, low sun) shows nothing either way: the true
-boundary lies between the last day with evidence and the day above the limit, which the
-event's evidence names, and the window ends midway (:func:`_widen`). A day on which every
+expected power never reaches the limit (cloud, low sun) shows nothing either way, a single
+reading on the plateau little: the true boundary lies between the last day with evidence
+and the day above the limit, which the event's evidence names, and the window ends at the
+posterior median of the days between, weighed by the likelihood ratio of their readings on
+the plateau (:func:`plateau_log_lr`; midway where none is), the expected error of each such
+edge in days stated beside it (:func:`_widen`). A day on which every
 sibling stood below its expected power by the margin while this inverter was held is left to
 the curtailment detector (a shared set-point). The design clipping is then estimated outside
 the derates.
@@ -44,11 +47,15 @@ from __future__ import annotations
 from collections.abc import Callable
 from functools import partial
 from statistics import NormalDist
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
 
 from perfcheck.detect.common import Event, Wide, energy_band, robust_sigma, scope_of
+from perfcheck.lazy import lazy_module
+
+stats = lazy_module("scipy.stats")
 
 METHOD = ("plateau at the inverter's AC limit while unlimited expected power exceeds it "
           "(in the spirit of Perry, Muller & Anderson 2021)")
@@ -159,22 +166,88 @@ def _derate_runs(limit: pd.Series, above: Callable[[float], pd.Series], tol: flo
     return out
 
 
-def _widen(first: pd.Timestamp, last: pd.Timestamp, at: pd.Series, up: pd.Series
-           ) -> tuple[pd.Timestamp, pd.Timestamp, pd.Timestamp | None, pd.Timestamp | None]:
+class Window(NamedTuple):
+    """A derate's days: the first and last, the day above the limit before and after (None
+    where there is none) and the expected error of each edge [d] (NaN without a day above
+    the limit on that side: the edge is then bounded by the data, not by evidence)."""
+
+    first: pd.Timestamp
+    last: pd.Timestamp
+    before: pd.Timestamp | None
+    after: pd.Timestamp | None
+    first_error_d: float
+    last_error_d: float
+
+
+def plateau_log_lr(measured: pd.Series, expected: pd.Series, days: np.ndarray, level: float,
+                   tol_p: float, alpha: float) -> pd.Series:
+    """Per day: the log likelihood ratio of its readings under a limit at ``level`` [W]
+    against none (0 where no reading lies on the plateau).
+
+    A limit censors the power: what would have been above it is read at it, what is below
+    it reads the same either way, so only the readings on the plateau (within ``tol_p`` of
+    it) tell the two apart (readings above it are the days above, :func:`days_above`). The
+    power the inverter would deliver unlimited is the expected power times the day's ratio,
+    log-normal about the median log ratio of its readings that no limit can touch (expected
+    power below it, at least three), with their robust spread (1.4826 MAD, Hampel 1974), at
+    least the plateau's own noise (``tol_p`` over the normal quantile at ``alpha``). A
+    reading on the plateau has probability P(unlimited > level) under the limit and the
+    unlimited density there times the plateau's width 2 ``tol_p`` without (a censored normal
+    model, Tobin 1958, Econometrica 26:24, from memory)."""
+    m, e = measured.to_numpy(dtype=float), expected.to_numpy(dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        on = (np.abs(m / level - 1) <= tol_p) & (e > 0)
+        free = (e > 0) & (e < level) & (m > 0)
+        log_ratio = np.log(m / e)
+    floor = tol_p / NormalDist().inv_cdf(1 - alpha / 2)
+    unique, which = np.unique(days, return_inverse=True)
+    out = np.zeros(len(unique))
+    rows = np.split(np.argsort(which, kind="stable"), np.cumsum(np.bincount(which))[:-1])
+    for j in np.unique(which[on]):
+        today = rows[j]
+        x = log_ratio[today[free[today]]]
+        if len(x) < 3:
+            continue
+        mid = float(np.median(x))
+        spread = max(1.4826 * float(np.median(np.abs(x - mid))), floor)
+        z = (np.log(level) - mid - np.log(e[today[on[today]]])) / spread
+        out[j] = float(np.sum(stats.norm.logsf(z) - stats.norm.logpdf(z) + np.log(spread)
+                              - np.log(2 * tol_p)))
+    return pd.Series(out, index=pd.Index(unique))
+
+
+def posterior_edge(log_lr: np.ndarray) -> tuple[int, float]:
+    """The edge among candidates 0..n (0: the last day with evidence of the limit, k: the
+    limit held on the k days after it too, whose log likelihood ratios are ``log_lr``,
+    :func:`plateau_log_lr`) and its expected absolute error [d]: the posterior median (the
+    lower one where two are) under a prior alike on every candidate, the estimate with the
+    least expected absolute error (Laplace 1774, from memory), and the posterior mean distance
+    from it. With no evidence on the days between, the median of n + 1 candidates alike, its
+    expected error (n + 1)^2 // 4 / (n + 1)."""
+    logw = np.r_[0.0, np.cumsum(log_lr)]
+    wt = np.exp(logw - logw.max())
+    cum = np.cumsum(wt)
+    # the first candidate whose cumulative weight reaches half (the lower median where it
+    # meets half exactly, rounding aside)
+    k = int(np.searchsorted(cum, 0.5 * cum[-1] * (1 - 1e-12)))
+    return k, float(np.sum(wt * np.abs(np.arange(len(wt)) - k)) / cum[-1])
+
+
+def _widen(first: pd.Timestamp, last: pd.Timestamp, at: pd.Series, up: pd.Series,
+           log_lr: pd.Series) -> Window:
     """A run's window widened to the farthest days on either side that show the limit
     (``at``: :func:`days_at`) before a day that rose above it (``up``: :func:`days_above`).
 
-    Returns (first day, last day, the day above the limit before, the one after; None where
-    there is none). A day on which the expected power never reached the limit shows
-    nothing either way: the true boundary lies between the last day with evidence and the
-    day above the limit, on any of the days without evidence between them alike, and the
-    window ends at the median of those candidates (the last day with evidence and the
-    days after it up to the day above; the lower median where two are: the edge that
-    minimises the expected error in days, Laplace 1774, from memory, when nothing tells the days
-    apart). Without a day above the limit on that side the window ends on the last day
+    Between the last day with evidence and the day above the limit, the days show little
+    or nothing: one whose expected power never reaches the limit (cloud, low sun) nothing
+    at all, one with a reading on the plateau a likelihood ratio (``log_lr``:
+    :func:`plateau_log_lr`). The true boundary lies on any of them; the window ends at the
+    posterior median, with its expected error (:func:`posterior_edge`; without evidence,
+    midway). Without a day above the limit on that side the window ends on the last day
     with evidence."""
     order = at.index
     bounds: list[pd.Timestamp | None] = []
+    errors: list[float] = []
     one = pd.Timedelta(days=1)
     for step, edge in ((-1, first), (1, last)):
         i, found = order.get_loc(edge) + step, None
@@ -185,11 +258,15 @@ def _widen(first: pd.Timestamp, last: pd.Timestamp, at: pd.Series, up: pd.Series
             if at.iloc[i]:
                 edge = order[i]
             i += step
+        error = float("nan")
         if found is not None:
             gap = abs((found - edge) // one) - 1  # days between without evidence
-            edge = edge + step * (gap // 2) * one
+            between = [edge + step * j * one for j in range(1, gap + 1)]
+            k, error = posterior_edge(log_lr.reindex(between).fillna(0.0).to_numpy())
+            edge = edge + step * k * one
         bounds += [edge, found]
-    return bounds[0], bounds[2], bounds[1], bounds[3]
+        errors.append(error)
+    return Window(bounds[0], bounds[2], bounds[1], bounds[3], *errors)
 
 
 def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: float
@@ -207,8 +284,10 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: fl
         tol_p = plateau_tolerance(ms, limits[inv], days, tol, alpha)
         above = partial(days_above, ms, days, tol_p=tol_p)
         for first, last, lv in _derate_runs(limits[inv], above, tol):
-            first, last, before, after = _widen(
-                first, last, days_at(ms, w.expected[inv], days, lv, tol, tol_p), above(lv))
+            win = _widen(first, last, days_at(ms, w.expected[inv], days, lv, tol, tol_p),
+                         above(lv),
+                         plateau_log_lr(ms, w.expected[inv], days, lv, tol_p, alpha))
+            first, last = win.first, win.last
             inside = (days >= first) & (days <= last)
             m, e = w.measured[inv].to_numpy(), w.expected[inv].to_numpy()
             sel = inside & ~exclude[inv].to_numpy() & (np.abs(m - lv) <= tol * lv) & (e > lv)
@@ -227,8 +306,11 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: fl
                           "margin": margin, "plateau_tolerance": tol_p,
                           "held_days": n_held, "limited_intervals": int(sel.sum()),
                           **{f"day_above_limit_{k}": pd.Timestamp(d).date().isoformat()
-                             for k, d in (("before", before), ("after", after))
-                             if d is not None}},
+                             for k, d in (("before", win.before), ("after", win.after))
+                             if d is not None},
+                          **{f"{k}_expected_error_d": e
+                             for k, e in (("start", win.first_error_d),
+                                          ("end", win.last_error_d)) if np.isfinite(e)}},
                 detail={"cause": "inverter limited below its rating (derate)",
                         "limit_share_of_rating": lv / float(w.ac_w[inv])}))
     return events, mask

@@ -153,7 +153,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             base = float(np.mean([np.mean(v) for v in sides]))
             d0, d1 = s.index[g.start], s.index[g.stop - 1]
             lo, hi = _edges(w, usable if judged is None else judged, inv, d0, d1,
-                            math.exp(base), math.exp(g.mean))
+                            math.exp(base), math.exp(g.mean), min_days)
             # the days the strings were lost all day: a day holding an edge is partly healthy
             whole = (s.index[g.start:g.stop] > w.day.iloc[lo]) & (
                 s.index[g.start:g.stop] < w.day.iloc[hi - 1])
@@ -239,25 +239,37 @@ def merge_within(x: np.ndarray, segs: list[Segment], ref: Segment, step: float
 
 
 def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Timestamp,
-           level_ok: float, level_low: float) -> tuple[int, int]:
+           level_ok: float, level_low: float, min_days: int = 3) -> tuple[int, int]:
     """Rows [lo, hi) of the lost strings, to the interval: the step from ``level_ok`` to
-    ``level_low`` of the interval ratio (to siblings, as the daily value) searched from the
-    day before ``d0`` through ``d0``, and back between ``d1`` and the day after, each at the
-    split with the least squared distance to the two known levels (a lost string is a step;
+    ``level_low`` of the interval ratio (to siblings, as the daily value) at the split with
+    the least squared distance to the two known levels (a lost string is a step;
     least-squares change-point with known levels, Hinkley 1970, Biometrika 57:1, from
-    memory). ``usable`` should hold the intervals the model expects at the rating too: where
-    the inverter still reaches it the lost strings cost nothing and the ratio stays at the
-    upper level, where it falls short the step shows; without them an edge inside a clear
-    noon falls anywhere in it. Without usable intervals there, the days' edges."""
+    memory), searched about the first and the last day of the fault ``d0`` and ``d1``.
+
+    A lost string lowers both halves of the day alike; a fault on the same days that the
+    detectors before left in the series (a stalled row's rest, a shade) one side of it,
+    and only lowers. So a half-day whose median ratio lies nearer the upper level shows the
+    strings still there, and the days' medians the fault's days were found by may be off
+    by the ``min_days`` the segmentation needs: the start is searched in the last such
+    half-day from the day before ``d0`` to ``min_days`` - 1 days after it and the half-day
+    that follows, the stop in the first from ``min_days`` - 1 days before ``d1`` to the day
+    after and the half-day before it (without one, from the day before ``d0`` through
+    ``d0``, and from ``d1`` through the day after). ``usable`` should hold the intervals the
+    model expects at the rating too: where the inverter still reaches it the lost strings
+    cost nothing and the ratio stays at the upper level, where it falls short the step
+    shows; without them an edge inside a clear noon falls anywhere in it. Without usable
+    intervals there, the days' edges."""
     days = w.day.to_numpy()
     r = (w.measured[inv] / w.expected[inv]).where(usable[inv])
     if len(w.inverters) > 1:
         r = r / (w.measured / w.expected).where(usable).drop(columns=inv).median(axis=1)
     r = r.to_numpy()
     one = pd.Timedelta(days=1)
+    # half-days: a number per row that grows with time (two per day)
+    half = 2 * (days - days.min()).astype("timedelta64[D]").astype(np.int64) + (
+        w.azimuth >= 180).to_numpy()
 
-    def split(a: pd.Timestamp, b: pd.Timestamp, first: float, then: float) -> int | None:
-        rows = np.flatnonzero((days >= a) & (days <= b))
+    def split(rows: np.ndarray, first: float, then: float) -> int | None:
         ok = rows[np.isfinite(r[rows])]
         if len(ok) < 2:
             return None
@@ -266,10 +278,31 @@ def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Tim
         k = int(np.argmax(total[-1] - total))  # maximises the fit of the 'then' tail
         return int(ok[k]) if k < len(ok) else None
 
+    def healthy(a: pd.Timestamp, b: pd.Timestamp) -> np.ndarray:
+        """The half-days between days a and b whose median ratio lies nearer the upper
+        level (in log)."""
+        on = (days >= a) & (days <= b) & np.isfinite(r)
+        med = pd.Series(r[on]).groupby(half[on]).median()
+        nearer = (np.log(med) - math.log(level_ok * level_low) / 2) * (level_ok - level_low)
+        return med.index[(nearer > 0).to_numpy()].to_numpy()
+
+    seen = half[np.isfinite(r)]
+
+    def with_next(h: int, step: int) -> np.ndarray:
+        """Rows of half-day ``h`` and of the next one with readings (``step`` 1) or the
+        one before (-1)."""
+        other = seen[seen > h] if step > 0 else seen[seen < h]
+        h2 = h if not len(other) else (other.min() if step > 0 else other.max())
+        return np.flatnonzero((half >= min(h, h2)) & (half <= max(h, h2)))
+
     rows = np.flatnonzero((days >= d0) & (days <= d1))
     lo, hi = int(rows[0]), int(rows[-1]) + 1
-    start = split(d0 - one, d0, level_ok, level_low)
-    stop = split(d1, d1 + one, level_low, level_ok)
+    ups = healthy(d0 - one, d0 + (min_days - 1) * one)
+    start = split(with_next(int(ups.max()), 1) if len(ups)
+                  else np.flatnonzero((days >= d0 - one) & (days <= d0)), level_ok, level_low)
+    ups = healthy(d1 - (min_days - 1) * one, d1 + one)
+    stop = split(with_next(int(ups.min()), -1) if len(ups)
+                 else np.flatnonzero((days >= d1) & (days <= d1 + one)), level_low, level_ok)
     if start is not None and start < hi:
         lo = start
     if stop is not None and stop > lo:
