@@ -106,6 +106,26 @@ def test_sawtooth_extent_places_the_washes_beside_an_episode():
                                        forward) == []
 
 
+def test_sawtooth_ignores_single_bad_days():
+    # invented truth: a clean index (noise 1 %) with a day 12 % low every 15 days (a dull day
+    # the model got wrong); Huber's psi (Huber 1964, k = 1.345) clips each to within 1.345
+    # sigma of its neighbours, and then no ramp ends on it (the Schwarz criterion, as above)
+    rng = np.random.default_rng(3)
+    n = 59
+    days = pd.date_range("2024-06-01", periods=n, freq="D")
+    y = rng.normal(1, 0.01, n)
+    y[14::15] -= 0.12
+    index = pd.Series(y, index=days)
+    clipped = soiling.huber_clipped(index)
+    assert np.all(clipped[14::15] > 0.95)
+    assert soiling.sawtooth_extent(clipped, np.ones(n), 0.002, 0.01 ** 2 * np.log(n),
+                                   True) == []
+    # a ramp's last day before its wash (a step up) is no outlier: it stays
+    ramp = pd.Series(np.r_[1 - 0.004 * np.arange(30), np.ones(29)]
+                     * rng.normal(1, 0.01, n), index=days)
+    assert soiling.huber_clipped(ramp)[29] == ramp.iloc[29]
+
+
 def test_recovery_cause_unknown_without_rain_readings():
     # a step up of 10 % on a quiet index: with no rain readings its cause is unknown, with
     # readings and no rain it is a cleaning (invented truth; alpha 1e-3)
