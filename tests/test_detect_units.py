@@ -126,6 +126,21 @@ def test_sawtooth_ignores_single_bad_days():
     assert soiling.huber_clipped(ramp)[29] == ramp.iloc[29]
 
 
+def test_precise_days_leave_out_the_noisy_dull_days():
+    # invented truth: 300 days, every fifth one dull (a third of the clear insolation) with
+    # a model error of sd 5 %, the others 0.5 %: the dull days are left out, the others kept
+    rng = np.random.default_rng(4)
+    days = pd.date_range("2024-01-01", periods=300, freq="D")
+    dull = np.arange(300) % 5 == 0
+    insolation = pd.Series(np.where(dull, 1.0, 3.0) * rng.uniform(0.95, 1.0, 300), index=days)
+    index = pd.Series(np.exp(rng.normal(0, np.where(dull, 0.05, 0.005))), index=days)
+    kept = soiling.precise_days(index, insolation, 1e-3)
+    assert kept[dull].isna().all() and kept[~dull].notna().all()
+    # the same noise on every day: the F test keeps them all (false-alarm rate 1e-3)
+    alike = pd.Series(np.exp(rng.normal(0, 0.01, 300)), index=days)
+    assert soiling.precise_days(alike, insolation, 1e-3).notna().all()
+
+
 def test_recovery_cause_unknown_without_rain_readings():
     # a step up of 10 % on a quiet index: with no rain readings its cause is unknown, with
     # readings and no rain it is a cleaning (invented truth; alpha 1e-3)
