@@ -76,7 +76,8 @@ from perfcheck.lazy import lazy_module
 
 stats = lazy_module("scipy.stats")
 
-METHOD = ("Theil-Sen decline of the daily performance index between recoveries (rain, "
+METHOD = ("Theil-Sen decline of the daily performance index (without the dull days where "
+          "they make it noisier) between recoveries (rain, "
           "detected steps up), in the spirit of Deceglie, Micheli & Muller 2018; carried into "
           "the days beside it as ramps at its rate placed by the Schwarz criterion")
 
