@@ -35,10 +35,10 @@ Detection limit. Without rain readings every wash must be found as a step of the
 ``alpha`` over the n days (Bonferroni): a step of z_(alpha/n) 1.2533 sigma sqrt(2/3), about
 4.6 sigma for a year of days at alpha = 1e-3, with sigma the daily scale of the kept days.
 A soiling whose washes come before the loss reaches that (0.3 %/day washed every two weeks
-is a 4 % tooth; sigma is 0.5 % on a plant with a plane-of-array sensor and 1.5-4 % on one
+is a 4 % tooth; sigma is about 0.5 % on a plant with a plane-of-array sensor and 1-4 % on one
 modelled from horizontal irradiance) is below what the daily index can show and is not
 reported; a found episode is carried into such teeth beside it only by the sawtooth fit
-below. With a rain gauge the washes are known and only each interval's decline is tested
+above. With a rain gauge the washes are known and only each interval's decline is tested
 (a least-squares slope over L days has a standard error of sigma sqrt(12 / L^3); the Theil-Sen
 slope's is close to it).
 
