@@ -25,11 +25,12 @@ form one soiling episode (one event) with its recoveries.
 Where rain washes the modules every week or two, most washes give back less than the day-to-
 day noise of the index and no test finds them one by one: a found episode is then only the
 longest dry spell of a longer one. So each episode is carried into the days beside it as a
-series of ramps at its own rate, each from a wash, placed by optimal partitioning under the
-Schwarz criterion (:func:`sawtooth_extent`): it reaches as far as ramps at that rate explain
-the index better than its clean level by more than the criterion's penalty per ramp. The days
-are first clipped by Huber's psi about their neighbours (:func:`huber_clipped`): in least
-squares one dull day the model got wrong would otherwise end a ramp of its own.
+series of ramps at its own rate, each from a wash, placed by optimal partitioning
+(:func:`sawtooth_extent`): it reaches as far as ramps at that rate explain the index better
+than its clean level by more than a penalty per ramp that noise alone exceeds with
+probability at most ``alpha`` over all the ramps the days could hold (:func:`ramp_penalty`).
+The days are first clipped by Huber's psi about their neighbours (:func:`huber_clipped`): in
+least squares one dull day the model got wrong would otherwise end a ramp of its own.
 
 Detection limit. Without rain readings every wash must be found as a step of the index, at
 ``alpha`` over the n days (Bonferroni): a step of z_(alpha/n) 1.2533 sigma sqrt(2/3), about
@@ -44,7 +45,8 @@ slope's is close to it).
 
 The false-alarm probability per interval tested is ``alpha`` (Kendall's test, one-sided
 decline; the run passes 1e-3), and per series ``alpha`` for the steps up (Bonferroni over
-the days). The extension adds no episode: it only widens a found one. ``rain_mm`` default
+the days), and per side of an episode ``alpha`` for the ramps placed beside it. The
+extension adds no episode: it only widens a found one. ``rain_mm`` default
 5 mm in 24 hours: common practice (Kimber et al. 2006 use a rain threshold of this order; no
 single source).
 
@@ -53,10 +55,9 @@ References
 Deceglie, Micheli & Muller 2018, "Quantifying soiling loss directly from PV yield", IEEE J.
 Photovolt. 8(2):547: the stochastic rate and recovery method (insolation-weighted daily index,
 recoveries from rain and from jumps, Theil-Sen rates per interval) (from memory); Kimber,
-Mitchell, Nogradi & Wenger 2006, IEEE 4th WCPEC, the rain-reset soiling model; Schwarz 1978,
-"Estimating the dimension of a model", Ann. Statist. 6(2):461; Jackson et al. 2005, "An
-algorithm for optimal partitioning of data on an interval", IEEE Signal Process. Lett.
-12(2):105 (both from memory).
+Mitchell, Nogradi & Wenger 2006, IEEE 4th WCPEC, the rain-reset soiling model; Jackson et
+al. 2005, "An algorithm for optimal partitioning of data on an interval", IEEE Signal
+Process. Lett. 12(2):105 (from memory).
 """
 
 from __future__ import annotations
@@ -79,7 +80,8 @@ stats = lazy_module("scipy.stats")
 METHOD = ("Theil-Sen decline of the daily performance index (without the dull days where "
           "they make it noisier) between recoveries (rain, "
           "detected steps up), in the spirit of Deceglie, Micheli & Muller 2018; carried into "
-          "the days beside it as ramps at its rate placed by the Schwarz criterion")
+          "the days beside it as ramps at its rate, each placed only where noise alone would "
+          "not explain it")
 
 
 def plant_index(pi: pd.DataFrame) -> pd.Series:
@@ -251,7 +253,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         f["clean_level"] = float(np.mean(ref))
         f["onset_at"] = int(np.flatnonzero(sel)[0]) + onset
         ratio[sel] = np.minimum(1.0, line / ref)
-    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling)
+    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha)
     events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma)
     return events, prints, ratio
 
@@ -377,7 +379,8 @@ def _groups(fits: list) -> list[list]:
 
 
 def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
-            rain_daily: pd.Series, soiled: np.ndarray, passes: int = 5) -> list:
+            rain_daily: pd.Series, soiled: np.ndarray, alpha: float, passes: int = 5
+            ) -> list:
     """Each found episode reaches as far as its rate explains the days beside it
     (:func:`sawtooth_extent`, backward from its onset to the previous episode and forward
     from its last recovery to the next one): the washes in between are too small to find
@@ -401,7 +404,7 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
     for _ in range(passes):
         level = pd.Series(base / ramp_ratio, index=days).rolling(
             61, center=True, min_periods=10).mean().to_numpy()
-        new = _cuts(y, level, groups, days, var)
+        new = _cuts(y, level, groups, days, var, alpha)
         if new == cuts:
             break
         cuts = new
@@ -425,7 +428,7 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
 
 
 def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex,
-          var: float) -> list[tuple[int, list[int], float]]:
+          var: float, alpha: float) -> list[tuple[int, list[int], float]]:
     """The ramps beside each episode (:func:`sawtooth_extent`): per episode, backward then
     forward, (first day's position, boundaries, rate as a share of the clean level)."""
     out: list = []
@@ -449,7 +452,8 @@ def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex
             cut: list[int] = []
             if hi > lo and np.isfinite(var):
                 lev = np.where(np.isfinite(level[lo:hi]), level[lo:hi], f["clean_level"])
-                cut = sawtooth_extent(y[lo:hi], lev, rel, var * np.log(hi - lo), forward)
+                cut = sawtooth_extent(y[lo:hi], lev, rel, var * ramp_penalty(hi - lo, alpha),
+                                      forward)
             out.append((lo, cut, rel))
             done = max(done, lo + (cut[-1] if cut else 0), end)
     return out
@@ -500,7 +504,7 @@ def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: fl
                               "whole_interval_theil_sen_pct_per_day":
                                   None if placed else 100 * f["slope"],
                               "kendall_p_value": None if placed else f["p_value"] / 2,
-                              "placed_by": "the episode's rate, Schwarz criterion" if placed
+                              "placed_by": "the episode's rate, optimal partitioning" if placed
                               else "Kendall test", "days": f["n"]})
             if r is not None:
                 recs.append({"at": b_i.date(), "cause": r["cause"], "rain_mm": r["rain_mm"],
@@ -565,14 +569,28 @@ def sawtooth_sums(y: np.ndarray, level: np.ndarray, rate: float):
     return clean, ramp
 
 
+def ramp_penalty(n: int, alpha: float) -> float:
+    """The least drop of the sum of squares, in units of the noise variance v, for which a
+    ramp is placed among ``n`` days: one that noise alone exceeds with probability at most
+    ``alpha`` over all n (n + 1) / 2 ramps the days hold (Bonferroni).
+
+    A ramp of fixed shape s lowers the sum of squares of noise u by 2 u.s - |s|^2; with u
+    normal of variance v this exceeds p v with probability Q((a^2 + p) / (2 a)), a =
+    |s| / sqrt(v), Q the normal tail. That is largest for a = sqrt(p), at Q(sqrt(p)); so p =
+    Q^-1(alpha / m)^2 holds the rate for ramps of every size. ``v`` is the long-run variance
+    (:func:`long_run_variance`): days in a row share their error."""
+    m = max(1.0, n * (n + 1) / 2)
+    return float(stats.norm.isf(alpha / m) ** 2)
+
+
 def sawtooth_extent(y: np.ndarray, level: np.ndarray, rate: float, penalty: float,
                     forward: bool) -> list[int]:
     """Where the soiling of a found episode reaches into the days ``y`` beside it, as washes
     of a ramp at the episode's ``rate`` (the episode's rate holds for the site's dust, Kimber
-    et al. 2006) chosen by the Schwarz criterion (optimal partitioning, Jackson et al. 2005):
-    each ramp costs ``penalty`` (the noise variance times ln n, Schwarz 1978) and must lower
-    the sum of squares (:func:`sawtooth_sums`) about the clean ``level`` (per day: the
-    model's error drifts with the season) by more than that.
+    et al. 2006) by optimal partitioning (Jackson et al. 2005): each ramp costs ``penalty``
+    (the noise variance times :func:`ramp_penalty`) and must lower the sum of squares
+    (:func:`sawtooth_sums`) about the clean ``level`` (per day: the model's error drifts with
+    the season) by more than that.
 
     ``forward``: the days follow the episode (a wash at day 0 started the first ramp; the
     soiling ends at a cleaning, clean after it); else they precede it (the soiling starts at
