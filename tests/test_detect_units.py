@@ -80,7 +80,7 @@ def test_ageing_removed_flattens_a_year_on_year_trend():
 def test_sawtooth_extent_places_the_washes_beside_an_episode():
     # invented truth (the rain-reset model of Kimber et al. 2006): after a found episode, the
     # soiling goes on at 0.4 %/day, washed at days 20 and 45, cleaned at day 60, clean after;
-    # noise 1 %, penalty the Schwarz criterion (variance times ln n). The washes are placed
+    # noise 1 %, penalty for a false-alarm rate of 1e-3 (ramp_penalty). The washes are placed
     # within a day (common practice: the daily index cannot place them closer)
     rng = np.random.default_rng(1)
     n = 90
@@ -89,7 +89,8 @@ def test_sawtooth_extent_places_the_washes_beside_an_episode():
     for a, b in ((0, 20), (20, 45), (45, 60)):
         age[a:b] = t[a:b] - a
     y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
-    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n), forward=True)
+    pen = 0.01 ** 2 * soiling.ramp_penalty(n, 1e-3)
+    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=True)
     assert len(cut) == 4
     np.testing.assert_allclose(cut, [0, 20, 45, 60], atol=1)
     # before an episode: clean until day 15, washed at 40, the episode's own wash at the end
@@ -97,13 +98,60 @@ def test_sawtooth_extent_places_the_washes_beside_an_episode():
     for a, b in ((15, 40), (40, 90)):
         age[a:b] = t[a:b] - a
     y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
-    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n), forward=False)
+    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=False)
     np.testing.assert_allclose(cut, [15, 40, 90], atol=1)
     # no soiling beside it: no ramp, either way
     for forward in (True, False):
         y = rng.normal(1, 0.01, n)
-        assert soiling.sawtooth_extent(y, np.ones(n), 0.004, 0.01 ** 2 * np.log(n),
-                                       forward) == []
+        assert soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward) == []
+
+
+def test_ramp_penalty_holds_its_false_alarm_rate():
+    # invented truth: 400 series of 60 clean days, noise sd 1 %, searched for ramps of
+    # 0.4 %/day at a false-alarm rate of 5 %: ramps are placed in at most 5 % of them (+3
+    # binomial standard errors); the Bonferroni bound is conservative (common practice)
+    rng = np.random.default_rng(5)
+    n, trials = 60, 400
+    pen = 0.01 ** 2 * soiling.ramp_penalty(n, 0.05)
+    hits = sum(bool(soiling.sawtooth_extent(rng.normal(1, 0.01, n), np.ones(n), 0.004, pen,
+                                            forward)) for forward in (True, False)
+               for _ in range(trials // 2))
+    assert hits / trials <= 0.05 + 3 * np.sqrt(0.05 * 0.95 / trials)
+
+
+def test_sawtooth_ignores_single_bad_days():
+    # invented truth: a clean index (noise 1 %) with a day 12 % low every 15 days (a dull day
+    # the model got wrong); Huber's psi (Huber 1964, k = 1.345) clips each to within 1.345
+    # sigma of its neighbours, and then no ramp ends on it (the penalty as above)
+    rng = np.random.default_rng(3)
+    n = 59
+    days = pd.date_range("2024-06-01", periods=n, freq="D")
+    y = rng.normal(1, 0.01, n)
+    y[14::15] -= 0.12
+    index = pd.Series(y, index=days)
+    clipped = soiling.huber_clipped(index)
+    assert np.all(clipped[14::15] > 0.95)
+    pen = 0.01 ** 2 * soiling.ramp_penalty(n, 1e-3)
+    assert soiling.sawtooth_extent(clipped, np.ones(n), 0.002, pen, True) == []
+    # a ramp's last day before its wash (a step up) is no outlier: it stays
+    ramp = pd.Series(np.r_[1 - 0.004 * np.arange(30), np.ones(29)]
+                     * rng.normal(1, 0.01, n), index=days)
+    assert soiling.huber_clipped(ramp)[29] == ramp.iloc[29]
+
+
+def test_precise_days_leave_out_the_noisy_dull_days():
+    # invented truth: 300 days, every fifth one dull (a third of the clear insolation) with
+    # a model error of sd 5 %, the others 0.5 %: the dull days are left out, the others kept
+    rng = np.random.default_rng(4)
+    days = pd.date_range("2024-01-01", periods=300, freq="D")
+    dull = np.arange(300) % 5 == 0
+    insolation = pd.Series(np.where(dull, 1.0, 3.0) * rng.uniform(0.95, 1.0, 300), index=days)
+    index = pd.Series(np.exp(rng.normal(0, np.where(dull, 0.05, 0.005))), index=days)
+    kept = soiling.precise_days(index, insolation, 1e-3)
+    assert kept[dull].isna().all() and kept[~dull].notna().all()
+    # the same noise on every day: the F test keeps them all (false-alarm rate 1e-3)
+    alike = pd.Series(np.exp(rng.normal(0, 0.01, 300)), index=days)
+    assert soiling.precise_days(alike, insolation, 1e-3).notna().all()
 
 
 def test_recovery_cause_unknown_without_rain_readings():

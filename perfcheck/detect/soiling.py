@@ -2,7 +2,10 @@
 
 The plant's daily performance index is the median over the inverters of each inverter's
 insolation-weighted daily measured/expected, divided by its own median (so inverters of other
-orientation or size count alike and one inverter's own fault does not move it). Recoveries are
+orientation or size count alike and one inverter's own fault does not move it). Dull days,
+whose index is several times noisier than a clear day's, are left out where that makes the
+index more precise (:func:`precise_days`); the soiling ratio found still applies to them.
+Recoveries are
 (a) days on which some 24-hour rain total reaches ``rain_mm`` in the readings and (b)
 significant local steps up of the index (:func:`local_steps_up`); a step up with at least 1 mm
 of rain on that day or the day before is a rain recovery, one on days with rain readings and
@@ -22,13 +25,28 @@ form one soiling episode (one event) with its recoveries.
 Where rain washes the modules every week or two, most washes give back less than the day-to-
 day noise of the index and no test finds them one by one: a found episode is then only the
 longest dry spell of a longer one. So each episode is carried into the days beside it as a
-series of ramps at its own rate, each from a wash, placed by optimal partitioning under the
-Schwarz criterion (:func:`sawtooth_extent`): it reaches as far as ramps at that rate explain
-the index better than its clean level by more than the criterion's penalty per ramp.
+series of ramps at its own rate, each from a wash, placed by optimal partitioning
+(:func:`sawtooth_extent`): it reaches as far as ramps at that rate explain the index better
+than its clean level by more than a penalty per ramp that noise alone exceeds with
+probability at most ``alpha`` over all the ramps the days could hold (:func:`ramp_penalty`).
+The days are first clipped by Huber's psi about their neighbours (:func:`huber_clipped`): in
+least squares one dull day the model got wrong would otherwise end a ramp of its own.
+
+Detection limit. Without rain readings every wash must be found as a step of the index, at
+``alpha`` over the n days (Bonferroni): a step of z_(alpha/n) 1.2533 sigma sqrt(2/3), about
+4.6 sigma for a year of days at alpha = 1e-3, with sigma the daily scale of the kept days.
+A soiling whose washes come before the loss reaches that (0.3 %/day washed every two weeks
+is a 4 % tooth; sigma is about 0.5 % on a plant with a plane-of-array sensor and 1-4 % on one
+modelled from horizontal irradiance) is below what the daily index can show and is not
+reported; a found episode is carried into such teeth beside it only by the sawtooth fit
+above. With a rain gauge the washes are known and only each interval's decline is tested
+(a least-squares slope over L days has a standard error of sigma sqrt(12 / L^3); the Theil-Sen
+slope's is close to it).
 
 The false-alarm probability per interval tested is ``alpha`` (Kendall's test, one-sided
 decline; the run passes 1e-3), and per series ``alpha`` for the steps up (Bonferroni over
-the days). The extension adds no episode: it only widens a found one. ``rain_mm`` default
+the days), and per side of an episode ``alpha`` for the ramps placed beside it. The
+extension adds no episode: it only widens a found one. ``rain_mm`` default
 5 mm in 24 hours: common practice (Kimber et al. 2006 use a rain threshold of this order; no
 single source).
 
@@ -37,10 +55,9 @@ References
 Deceglie, Micheli & Muller 2018, "Quantifying soiling loss directly from PV yield", IEEE J.
 Photovolt. 8(2):547: the stochastic rate and recovery method (insolation-weighted daily index,
 recoveries from rain and from jumps, Theil-Sen rates per interval) (from memory); Kimber,
-Mitchell, Nogradi & Wenger 2006, IEEE 4th WCPEC, the rain-reset soiling model; Schwarz 1978,
-"Estimating the dimension of a model", Ann. Statist. 6(2):461; Jackson et al. 2005, "An
-algorithm for optimal partitioning of data on an interval", IEEE Signal Process. Lett.
-12(2):105 (both from memory).
+Mitchell, Nogradi & Wenger 2006, IEEE 4th WCPEC, the rain-reset soiling model; Jackson et
+al. 2005, "An algorithm for optimal partitioning of data on an interval", IEEE Signal
+Process. Lett. 12(2):105 (from memory).
 """
 
 from __future__ import annotations
@@ -60,14 +77,58 @@ from perfcheck.lazy import lazy_module
 
 stats = lazy_module("scipy.stats")
 
-METHOD = ("Theil-Sen decline of the daily performance index between recoveries (rain, "
+METHOD = ("Theil-Sen decline of the daily performance index (without the dull days where "
+          "they make it noisier) between recoveries (rain, "
           "detected steps up), in the spirit of Deceglie, Micheli & Muller 2018; carried into "
-          "the days beside it as ramps at its rate placed by the Schwarz criterion")
+          "the days beside it as ramps at its rate, each placed only where noise alone would "
+          "not explain it")
 
 
 def plant_index(pi: pd.DataFrame) -> pd.Series:
     """Median over inverters of each inverter's daily index divided by its own median."""
     return (pi / pi.median()).median(axis=1, skipna=True)
+
+
+def precise_days(index: pd.Series, insolation: pd.Series, alpha: float, half_days: int = 7,
+                 bins: int = 5) -> pd.Series:
+    """The daily index on the days that make it most precise, NaN on the dull days left out.
+
+    A dull day's index is much noisier than a clear one's (the model's irradiance errs more
+    under broken cloud). The days fall into ``bins`` classes of equal size by their
+    clearness, the day's expected ``insolation`` over the largest within ``half_days`` days
+    either side (the clearest day nearby stands for a clear sky); each class's variance is
+    (1.4826 MAD)^2 of the log index about its centred rolling median (2 ``half_days`` + 1
+    days). From the dullest on, a class is left out while (a) that makes an unweighted mean
+    of the kept days more precise (its variance above 2 + 1/m times the mean variance of the
+    m clearer classes: mean(s^2) / n falls) and (b) its variance is larger than theirs by an
+    F test at ``alpha`` (degrees of freedom 0.37 n, the efficiency of the MAD at the normal,
+    Rousseeuw & Croux 1993, J. Amer. Statist. Assoc. 88:1273, from memory): classes alike
+    stay, whatever their sampling error. Weighting the days by 1 / s^2 would be better still,
+    but the tests here are rank and median tests on equal days."""
+    x = np.log(index)
+    dev = x - x.rolling(2 * half_days + 1, center=True, min_periods=half_days).median()
+    clear = insolation / insolation.rolling(2 * half_days + 1, center=True,
+                                            min_periods=1).max()
+    ok = dev.notna() & clear.notna()
+    if ok.sum() < 10 * bins:
+        return index
+    cls = pd.qcut(clear[ok].rank(method="first"), bins, labels=False).to_numpy()
+    d = dev[ok].to_numpy()
+    var = np.array([(1.4826 * np.median(np.abs(d[cls == k]))) ** 2 for k in range(bins)])
+    count = np.bincount(cls, minlength=bins)
+    first = 0
+    while first < bins - 1:
+        m = bins - 1 - first
+        rest = float(var[first + 1:].mean())
+        f_p = stats.f.sf(var[first] / rest, 0.37 * count[first],
+                         0.37 * count[first + 1:].sum()) if rest > 0 else 0.0
+        if not (var[first] > (2 + 1 / m) * rest and f_p < alpha):
+            break
+        first += 1
+    if first == 0:
+        return index
+    edge = float(clear[ok][cls == first].min())
+    return index.where(clear >= edge)
 
 
 def local_steps_up(index: pd.Series, alpha: float, k: int = 3) -> list[tuple[pd.Timestamp, float]]:
@@ -140,8 +201,9 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
            alpha: float = 0.01, min_days: int = 5) -> tuple[list[Event], list[Footprint],
                                                             pd.Series]:
     """Soiling episodes, their footprints, and the daily soiling ratio (1 where clean)."""
-    idx = plant_index(pi)
-    days = pd.DatetimeIndex(idx.index)
+    days = pd.DatetimeIndex(pi.index)
+    insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days)
+    idx = precise_days(plant_index(pi), insolation, alpha)
     # rain: the largest 24-hour total ending within the day
     step_s = float(np.median(w.interval_s))
     roll = w.rain.fillna(0.0).rolling(max(1, int(round(86400 / step_s))), min_periods=1).sum()
@@ -154,7 +216,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     x_all = ((days - days[0]) / pd.Timedelta(days=1)).to_numpy(dtype=float)
     soiling = np.zeros(len(days), dtype=bool)
     fits = []
-    insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days).to_numpy()
+    insolation = insolation.to_numpy()
     sigma = robust_sigma(np.log(idx.dropna().to_numpy()))
     for a, b in zip(bounds[:-1], bounds[1:], strict=True):
         sel = (days >= a) & (days < b)
@@ -191,7 +253,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         f["clean_level"] = float(np.mean(ref))
         f["onset_at"] = int(np.flatnonzero(sel)[0]) + onset
         ratio[sel] = np.minimum(1.0, line / ref)
-    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling)
+    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha)
     events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma)
     return events, prints, ratio
 
@@ -288,6 +350,23 @@ def long_run_variance(index: pd.Series, half_days: int = 7) -> float:
     return var * (1 + phi) / (1 - phi)
 
 
+def huber_clipped(index: pd.Series, k_days: int = 1, k: float = 1.345) -> np.ndarray:
+    """The daily index with each day clipped to within ``k`` times the index's scale
+    (:func:`perfcheck.detect.common.robust_sigma`) of the range of the medians of the
+    ``k_days`` days before it and of those after it: Huber's psi function (Huber 1964,
+    "Robust estimation of a location parameter", Ann. Math. Statist. 35(1):73; k = 1.345,
+    95 % efficiency at the normal, from memory) about a level that keeps steps, as one side
+    of a wash follows the day. A day the model got badly wrong (a dull day's irradiance) then
+    weighs no more than an ordinary one in a least-squares fit of ramps, while a ramp's last
+    day before its wash stays as it is."""
+    before = index.shift(1).rolling(k_days).median()
+    after = index[::-1].shift(1).rolling(k_days).median()[::-1]
+    lo = np.minimum(before, after).fillna(index)  # a day without both sides stays
+    hi = np.maximum(before, after).fillna(index)
+    band = k * robust_sigma(np.log(index.dropna().to_numpy()))
+    return np.clip(index, lo * (1 - band), hi * (1 + band)).to_numpy()
+
+
 def _groups(fits: list) -> list[list]:
     """Consecutive soiling intervals (one ends where the next begins) as one episode each."""
     groups: list[list] = []
@@ -300,7 +379,8 @@ def _groups(fits: list) -> list[list]:
 
 
 def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
-            rain_daily: pd.Series, soiled: np.ndarray, passes: int = 5) -> list:
+            rain_daily: pd.Series, soiled: np.ndarray, alpha: float, passes: int = 5
+            ) -> list:
     """Each found episode reaches as far as its rate explains the days beside it
     (:func:`sawtooth_extent`, backward from its onset to the previous episode and forward
     from its last recovery to the next one): the washes in between are too small to find
@@ -315,7 +395,7 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
     if not fits:
         return fits
     days = pd.DatetimeIndex(idx.index)
-    y = idx.to_numpy()
+    y = huber_clipped(idx)
     var = long_run_variance(idx)
     groups = _groups(fits)
     base = np.where(soiled, np.nan, y)
@@ -324,7 +404,7 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
     for _ in range(passes):
         level = pd.Series(base / ramp_ratio, index=days).rolling(
             61, center=True, min_periods=10).mean().to_numpy()
-        new = _cuts(y, level, groups, days, var)
+        new = _cuts(y, level, groups, days, var, alpha)
         if new == cuts:
             break
         cuts = new
@@ -348,24 +428,32 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
 
 
 def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex,
-          var: float) -> list[tuple[int, list[int], float]]:
+          var: float, alpha: float) -> list[tuple[int, list[int], float]]:
     """The ramps beside each episode (:func:`sawtooth_extent`): per episode, backward then
     forward, (first day's position, boundaries, rate as a share of the clean level)."""
     out: list = []
+    read = pd.Series(np.isfinite(y)).rolling(61, center=True, min_periods=1).sum().to_numpy() \
+        >= 10
     done = 0  # the first day no episode has taken
     for k, g in enumerate(groups):
         nxt = int(np.searchsorted(days, groups[k + 1][0][0])) if k + 1 < len(groups) \
             else len(days)
-        # the day of the last recovery is soiled until the wash and clean after it: the ramps
-        # after it begin the next day
-        end = int(np.searchsorted(days, g[-1][1])) + 1
+        # the last recovery is the first day of the recovered level: the ramps after it
+        # begin on it, so that they join the episode
+        end = int(np.searchsorted(days, g[-1][1]))
         for lo, hi, f, forward in ((done, g[0][3]["onset_at"], g[0][3], False),
                                    (end, nxt, g[-1][3], True)):
             rel = -f["rate"] / f["clean_level"]
+            # no farther than a clean level could be known (the days of the level's window):
+            # across a long gap in the readings a ramp would run on with nothing to hold it
+            gone = np.flatnonzero(~read[lo:hi])
+            if len(gone):
+                lo, hi = (lo, lo + gone[0]) if forward else (lo + gone[-1] + 1, hi)
             cut: list[int] = []
             if hi > lo and np.isfinite(var):
                 lev = np.where(np.isfinite(level[lo:hi]), level[lo:hi], f["clean_level"])
-                cut = sawtooth_extent(y[lo:hi], lev, rel, var * np.log(hi - lo), forward)
+                cut = sawtooth_extent(y[lo:hi], lev, rel, var * ramp_penalty(hi - lo, alpha),
+                                      forward)
             out.append((lo, cut, rel))
             done = max(done, lo + (cut[-1] if cut else 0), end)
     return out
@@ -416,7 +504,7 @@ def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: fl
                               "whole_interval_theil_sen_pct_per_day":
                                   None if placed else 100 * f["slope"],
                               "kendall_p_value": None if placed else f["p_value"] / 2,
-                              "placed_by": "the episode's rate, Schwarz criterion" if placed
+                              "placed_by": "the episode's rate, optimal partitioning" if placed
                               else "Kendall test", "days": f["n"]})
             if r is not None:
                 recs.append({"at": b_i.date(), "cause": r["cause"], "rain_mm": r["rain_mm"],
@@ -481,14 +569,28 @@ def sawtooth_sums(y: np.ndarray, level: np.ndarray, rate: float):
     return clean, ramp
 
 
+def ramp_penalty(n: int, alpha: float) -> float:
+    """The least drop of the sum of squares, in units of the noise variance v, for which a
+    ramp is placed among ``n`` days: one that noise alone exceeds with probability at most
+    ``alpha`` over all n (n + 1) / 2 ramps the days hold (Bonferroni).
+
+    A ramp of fixed shape s lowers the sum of squares of noise u by 2 u.s - |s|^2; with u
+    normal of variance v this exceeds p v with probability Q((a^2 + p) / (2 a)), a =
+    |s| / sqrt(v), Q the normal tail. That is largest for a = sqrt(p), at Q(sqrt(p)); so p =
+    Q^-1(alpha / m)^2 holds the rate for ramps of every size. ``v`` is the long-run variance
+    (:func:`long_run_variance`): days in a row share their error."""
+    m = max(1.0, n * (n + 1) / 2)
+    return float(stats.norm.isf(alpha / m) ** 2)
+
+
 def sawtooth_extent(y: np.ndarray, level: np.ndarray, rate: float, penalty: float,
                     forward: bool) -> list[int]:
     """Where the soiling of a found episode reaches into the days ``y`` beside it, as washes
     of a ramp at the episode's ``rate`` (the episode's rate holds for the site's dust, Kimber
-    et al. 2006) chosen by the Schwarz criterion (optimal partitioning, Jackson et al. 2005):
-    each ramp costs ``penalty`` (the noise variance times ln n, Schwarz 1978) and must lower
-    the sum of squares (:func:`sawtooth_sums`) about the clean ``level`` (per day: the
-    model's error drifts with the season) by more than that.
+    et al. 2006) by optimal partitioning (Jackson et al. 2005): each ramp costs ``penalty``
+    (the noise variance times :func:`ramp_penalty`) and must lower the sum of squares
+    (:func:`sawtooth_sums`) about the clean ``level`` (per day: the model's error drifts with
+    the season) by more than that.
 
     ``forward``: the days follow the episode (a wash at day 0 started the first ramp; the
     soiling ends at a cleaning, clean after it); else they precede it (the soiling starts at
