@@ -57,7 +57,7 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
     one is never overwritten: it is kept in the table conflicts and its row quarantined. A
     file already ingested changes nothing.
     The quality flags (they never delete a reading) and the unit check follow the sun, so
-    'perfcheck model' recomputes them for the new files before the model, and prints them.
+    the next 'perfcheck model' recomputes them, before the model, and prints them.
 
     \b
     Example:
