@@ -59,6 +59,7 @@ import tempfile
 import zipfile
 import zlib
 from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -608,13 +609,16 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
     data = _checked_bytes(chk)
     con.execute("BEGIN TRANSACTION")
     try:
-        with _readable(chk, data) as path:
-            row = _store_file(con, site, chk, _read_params(site, chk, path))
-        _checked_bytes(chk)  # DuckDB read the file itself: it must still be the copy's bytes
         # the ingested version's bytes, so that it stays verifiable when the file on disk
-        # later grows or changes under the same name (level 1: fast, about 4x on CSV)
-        con.execute(db.sql("ingest_copy"), {"sha256": chk.sha256,
-                                            "zlib_bytes": zlib.compress(data, 1)})
+        # later grows or changes under the same name (level 1: fast, about 4x on CSV),
+        # compressed in a thread while DuckDB reads the file (both release the GIL)
+        with ThreadPoolExecutor(1) as pool:
+            packed = pool.submit(zlib.compress, data, 1)
+            with _readable(chk, data) as path:
+                row = _store_file(con, site, chk, _read_params(site, chk, path))
+            _checked_bytes(chk)  # DuckDB read the file itself: it must still be the copy's bytes
+            con.execute(db.sql("ingest_copy"), {"sha256": chk.sha256,
+                                                "zlib_bytes": packed.result()})
         con.execute("COMMIT")
     except BaseException as exc:
         con.execute("ROLLBACK")
@@ -717,6 +721,22 @@ def channel_intervals(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], i
     return {(q, d): int(m) * 60 for q, d, m in rows}
 
 
+def channel_instants(con: duckdb.DuckDBPyConnection, ids: list[int]) -> pd.DatetimeIndex:
+    """The instants (UTC) with a stored value of any of the channels ``ids``, once each, in
+    time order: those of the view channel_values (not the carried values), read from the
+    wide logger tables a row per line rather than from the view a row per value."""
+    tables: dict[int, list[int]] = {}
+    for lid, ch in con.execute("SELECT logger_id, channel_id FROM logger_channels WHERE "
+                               "list_contains($ids, channel_id) ORDER BY ALL",
+                               {"ids": ids}).fetchall():
+        tables.setdefault(int(lid), []).append(int(ch))
+    unions = "".join(
+        f" UNION ALL SELECT ts FROM logger_rows_{lid} WHERE "
+        + " OR ".join(f"c{ch} IS NOT NULL" for ch in chs) for lid, chs in tables.items())
+    ts = con.execute(db.sql("ingest_instants").format(unions=unions), {"ids": ids}).df()["ts"]
+    return pd.DatetimeIndex(ts)
+
+
 def aged(con: duckdb.DuckDBPyConnection, site: Site) -> Site:
     """The site with its age reference (:meth:`Site.aged`) from the site-local day of the
     first stored reading; the site itself when it states ``commissioned``."""
@@ -749,6 +769,7 @@ __all__ = [
     "FileResult",
     "UNIT_TO_SI",
     "aged",
+    "channel_instants",
     "channel_intervals",
     "check_file",
     "coverage_summary",

@@ -182,12 +182,15 @@ def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.Dat
     else:  # physics.solar_position needs at least one instant
         pos = pd.DataFrame({"apparent_zenith": [], "apparent_elevation": []}, dtype=float)
     zenith = pos["apparent_zenith"].to_numpy()
+    # the extraterrestrial irradiance depends on the day only: once per UTC day
+    days, at = np.unique(physics.unix_seconds(mid) // 86400, return_inverse=True)
+    sa = pvlib.irradiance.get_extra_radiation(pd.to_datetime(days, unit="D", utc=True))
     return pd.DataFrame({
         "ts": starts,
         "interval_min": np.int32(interval_min),
         "elevation_deg": pos["apparent_elevation"].to_numpy(),
         "mu0": np.clip(np.cos(np.radians(zenith)), 0.0, None),
-        "sa_wm2": pvlib.irradiance.get_extra_radiation(mid).to_numpy(),
+        "sa_wm2": sa.to_numpy()[at],
     })
 
 
@@ -195,11 +198,10 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
                       channels: pd.DataFrame) -> pd.DataFrame:
     frames = []
     for interval, chans in channels.groupby("interval_min"):
-        ts = con.execute(  # every stored value, also those the unit check leaves out
-            "SELECT DISTINCT ts FROM channel_values WHERE list_contains($ids, channel_id) "
-            "ORDER BY ts", {"ids": chans["channel_id"].tolist()}).df()["ts"]
+        # every stored value, also those the unit check leaves out
+        ts = ingest.channel_instants(con, chans["channel_id"].tolist())
         if len(ts):
-            frames.append(sun_table(site, pd.DatetimeIndex(ts), int(interval)))
+            frames.append(sun_table(site, ts, int(interval)))
     if not frames:
         return sun_table(site, pd.DatetimeIndex([], tz="UTC"), 5)
     return pd.concat(frames, ignore_index=True)

@@ -18,12 +18,15 @@ from perfcheck.lazy import lazy_module
 from perfcheck.site import Site, load_site
 
 if TYPE_CHECKING:
+    import duckdb
     import pandas as pd
 
 
 db = lazy_module("perfcheck.db")
 periods = lazy_module("perfcheck.periods")
+quality = lazy_module("perfcheck.quality")
 sections = lazy_module("perfcheck.sections")
+units = lazy_module("perfcheck.units")
 
 EXIT_INPUT_ERROR = 2
 
@@ -115,6 +118,18 @@ def period_args(month: str | None, date_from: Any, date_to: Any) -> str:
     if month:
         return f"--month {month}"
     return f"--from {date_from:%Y-%m-%d} --to {date_to:%Y-%m-%d}"
+
+
+def refresh_quality(con: duckdb.DuckDBPyConnection, site: Site) -> None:
+    """Recompute the quality stage (flags and unit check) when it is stale: files ingested
+    since it last ran, or the site file's [[corrections]] or carry_forward_min changed. Print
+    the count per flag and each suspected unit error."""
+    if not quality.stale(con, site):
+        return
+    counts = quality.run(con, site)
+    click.echo("quality flags: " + ", ".join(f"{k} {v}" for k, v in counts.items()))
+    for line in units.words(units.report(con)):
+        click.echo(line)
 
 
 def utc_span(first: dt.datetime, last: dt.datetime) -> str:

@@ -18,8 +18,6 @@ if TYPE_CHECKING:
 
 db = lazy_module("perfcheck.db")
 ingest = lazy_module("perfcheck.ingest")
-quality = lazy_module("perfcheck.quality")
-units = lazy_module("perfcheck.units")
 
 
 def format_result(res: FileResult) -> str:
@@ -58,9 +56,8 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
     quarantine'); the accounting is printed per file. A value that differs from a stored
     one is never overwritten: it is kept in the table conflicts and its row quarantined. A
     file already ingested changes nothing.
-    After loading, the quality flags are recomputed (they never delete a reading); also
-    when an earlier run was stopped before its flags were stored, or the site file's
-    [[corrections]] or carry_forward_min changed. Each suspected unit error is printed.
+    The quality flags (they never delete a reading) and the unit check follow the sun, so
+    the next 'perfcheck model' recomputes them, before the model, and prints them.
 
     \b
     Example:
@@ -72,11 +69,6 @@ def ingest_command(site: Site, db_path: Path, files: tuple[str, ...]) -> None:
         results = ingest.ingest_files(con, site, paths,
                                       progress=lambda r: click.echo(format_result(r)))
         click.echo(format_totals(results))
-        if any(r.status == "loaded" for r in results) or quality.stale(con, site):
-            counts = quality.run(con, site)
-            click.echo("quality flags: " + ", ".join(f"{k} {v}" for k, v in counts.items()))
-            for line in units.words(units.report(con)):
-                click.echo(line)
     finally:
         con.close()
 

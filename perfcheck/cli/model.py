@@ -9,7 +9,7 @@ from typing import TYPE_CHECKING
 import click
 
 from perfcheck import progress
-from perfcheck.cli.common import lazy_module, site_argument, utc_span
+from perfcheck.cli.common import lazy_module, refresh_quality, site_argument, utc_span
 from perfcheck.site import Site
 
 if TYPE_CHECKING:
@@ -18,7 +18,6 @@ if TYPE_CHECKING:
 align = lazy_module("perfcheck.align")
 db = lazy_module("perfcheck.db")
 model = lazy_module("perfcheck.model")
-quality = lazy_module("perfcheck.quality")
 
 
 def _num(v: float, fmt: str) -> str:
@@ -44,6 +43,9 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
     design, align it with the measured power, and print expected against measured energy
     per inverter and month (site-local months).
 
+    First the quality flags and the unit check are recomputed, when files were ingested
+    since they last ran or the site file's [[corrections]] or carry_forward_min changed;
+    the count per flag and each suspected unit error are printed.
     Only intervals with readings that arrived since the last run are computed; a change of
     the design or the model settings in the site file starts a new, separately stored run.
     The ratio uses the intervals where both values exist; coverage is the share of the
@@ -55,8 +57,7 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
     """
     con = db.connect(db_path)
     try:
-        if quality.stale(con, site):  # an ingest stopped before its flags, or new corrections
-            quality.run(con, site)
+        refresh_quality(con, site)  # the flags of files ingested since, or new corrections
         with progress.bar("model", None, quiet) as bar:
             res = model.run(con, site, progress=bar.step)
         if res["computed_from"] is None:
