@@ -524,10 +524,15 @@ def poa_plausibility(daily: pd.DataFrame) -> dict[str, Any]:
 
 def load_weather(con: duckdb.DuckDBPyConnection, step_s: int, start: pd.Timestamp,
                  end: pd.Timestamp) -> pd.DataFrame:
-    """Site weather averaged into model intervals (rain summed), pvlib column names."""
-    df = con.execute(db.sql("model_weather"), {"iv": step_s, "start": start, "end": end}).df()
+    """Site weather averaged into model intervals (rain summed), pvlib column names (all of
+    :data:`WEATHER`; NaN for a quantity without a site channel)."""
+    stored = {q for (q,) in con.execute(db.sql("model_site_quantities")).fetchall()}
+    columns = "".join(f", {'fsum' if q == 'rain_mm' else 'favg'}(value) "
+                      f"FILTER (WHERE quantity = '{q}') AS {q}" for q in WEATHER if q in stored)
+    df = con.execute(db.sql("model_weather").format(columns=columns),
+                     {"iv": step_s, "start": start, "end": end}).df()
     df = df.set_index(pd.DatetimeIndex(df.pop("ts")).tz_convert("UTC"))
-    return df.rename(columns=WEATHER).astype(float)
+    return df.reindex(columns=list(WEATHER)).rename(columns=WEATHER).astype(float)
 
 
 def stored_weather(con: duckdb.DuckDBPyConnection, step_s: int, intervals: dict[str, int],
