@@ -174,18 +174,31 @@ def refresh(con: duckdb.DuckDBPyConnection, site: Site, model_run_id: int, inter
         end = span[1] + pd.Timedelta(seconds=interval_s)
         energy_s = {d: float(v) for (q, d), v in ingest.channel_intervals(con).items()
                     if q == "energy_interval_wh"}
-        for a, b in chunks(span[0], end):
-            rows += _rebuild(con, site, model_run_id, interval_s, energy_s, a, b)
+        spans = chunks(span[0], end)
+        # each month's inverter readings are read while the month before is built
+        raws = db.read_ahead(con, lambda cur, s: _inverter_readings(cur, interval_s, *s),
+                             spans)
+        for (a, b), raw in zip(spans, raws, strict=True):
+            rows += _rebuild(con, site, model_run_id, interval_s, energy_s, raw, a, b)
     con.execute("DELETE FROM align_state")
     con.execute("INSERT INTO align_state VALUES (?, ?)", [model_run_id, latest_file_id])
     return rows
 
 
+def _inverter_readings(con: duckdb.DuckDBPyConnection, interval_s: int, start: pd.Timestamp,
+                       end: pd.Timestamp) -> pd.DataFrame:
+    """The inverter readings per interval (``sql/align_measured.sql``) of the interval starts
+    in [``start``, ``end``), and of the interval before (for register steps)."""
+    return con.execute(db.sql("align_measured"), {
+        "iv": interval_s, "start": start - pd.Timedelta(seconds=interval_s), "end": end}).df()
+
+
 def _rebuild(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, interval_s: int,
-             energy_s: dict[str, float], start: pd.Timestamp, end: pd.Timestamp) -> int:
+             energy_s: dict[str, float], raw: pd.DataFrame, start: pd.Timestamp,
+             end: pd.Timestamp) -> int:
+    """Aligned rows of [``start``, ``end``) from the inverter readings ``raw``
+    (:func:`_inverter_readings`) and the stored expected rows of run ``run_id``."""
     span = {"start": start, "end": end}
-    lookback = {"iv": interval_s, "start": start - pd.Timedelta(seconds=interval_s), "end": end}
-    raw = con.execute(db.sql("align_measured"), lookback).df()
     meas = measured_power(raw, site, interval_s, energy_s)
     meas = meas[meas["ts"] >= start]
     con.execute(db.sql("align_delete_span"), span)

@@ -6,16 +6,21 @@ as ``perfcheck/sql``; an editable checkout reads them from the folder beside the
 
 from __future__ import annotations
 
+import concurrent.futures
 import contextlib
 import functools
 import importlib.resources
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
+from typing import TypeVar
 
 import duckdb
 
 from perfcheck.errors import DatabaseBusy, DataError
+
+K = TypeVar("K")
+R = TypeVar("R")
 
 
 def _sql_dir() -> Path:
@@ -84,13 +89,45 @@ def connect(path: str | Path, read_only: bool = False, wait_s: float = 0.0,
             time.sleep(poll_s)
         except duckdb.Error as exc:
             raise DataError(f"{path}: cannot open database ({exc})") from None
-    con.execute("SET TimeZone = 'UTC'")
-    con.execute("SET enable_progress_bar = false")
+    _session(con)
     con.execute(f"SET memory_limit = '{MEMORY_LIMIT}'")
     if not read_only:
         for name in schema_names():
             con.execute(sql(name))
     return con
+
+
+def _session(con: duckdb.DuckDBPyConnection) -> None:
+    """The settings of each connection (a cursor does not inherit them)."""
+    con.execute("SET TimeZone = 'UTC'")
+    con.execute("SET enable_progress_bar = false")
+
+
+def read_ahead(con: duckdb.DuckDBPyConnection,
+               read: Callable[[duckdb.DuckDBPyConnection, K], R], keys: Sequence[K]
+               ) -> Iterator[R]:
+    """``read(cursor, key)`` for each of ``keys`` in order, each read while the caller works
+    on the result before it.
+
+    The reads run in a worker thread on a second connection to the same database: DuckDB
+    works outside Python's global lock, so a query there runs beside the caller's numpy and
+    pandas work. That connection sees only what is committed: read only tables that the
+    caller's open transaction does not write.
+    """
+    if not keys:
+        return
+    cur = con.cursor()
+    try:
+        _session(cur)
+        with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
+            ahead = pool.submit(read, cur, keys[0])
+            for key in keys[1:]:
+                done = ahead.result()
+                ahead = pool.submit(read, cur, key)
+                yield done
+            yield ahead.result()
+    finally:
+        cur.close()
 
 
 def schema_names() -> list[str]:

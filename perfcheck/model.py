@@ -67,12 +67,12 @@ from perfcheck.versions import versions
 pvlib = lazy_module("pvlib")  # loaded when a model is built, not when a detector names it
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "3"
+MODEL_VERSION = "4"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
 WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
 
-# weather stored beside the sun in model_conditions, as the model used it
+# weather stored beside the sun in the expected rows, as the model used it
 CONDITION_COLUMNS = ("ghi_wm2", "temp_air_c", "wind_speed_ms", "temp_module_c", "rain_mm")
 # Stored names of the quantities that belong to an inverter or the plant (power, energy).
 DEVICE_STORED = tuple(QUANTITIES[q][0] for q in DEVICE_QUANTITIES)
@@ -524,10 +524,15 @@ def poa_plausibility(daily: pd.DataFrame) -> dict[str, Any]:
 
 def load_weather(con: duckdb.DuckDBPyConnection, step_s: int, start: pd.Timestamp,
                  end: pd.Timestamp) -> pd.DataFrame:
-    """Site weather averaged into model intervals (rain summed), pvlib column names."""
-    df = con.execute(db.sql("model_weather"), {"iv": step_s, "start": start, "end": end}).df()
+    """Site weather averaged into model intervals (rain summed), pvlib column names (all of
+    :data:`WEATHER`; NaN for a quantity without a site channel)."""
+    stored = {q for (q,) in con.execute(db.sql("model_site_quantities")).fetchall()}
+    columns = "".join(f", {'fsum' if q == 'rain_mm' else 'favg'}(value) "
+                      f"FILTER (WHERE quantity = '{q}') AS {q}" for q in WEATHER if q in stored)
+    df = con.execute(db.sql("model_weather").format(columns=columns),
+                     {"iv": step_s, "start": start, "end": end}).df()
     df = df.set_index(pd.DatetimeIndex(df.pop("ts")).tz_convert("UTC"))
-    return df.rename(columns=WEATHER).astype(float)
+    return df.reindex(columns=list(WEATHER)).rename(columns=WEATHER).astype(float)
 
 
 def stored_weather(con: duckdb.DuckDBPyConnection, step_s: int, intervals: dict[str, int],
@@ -587,8 +592,13 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
         if span is not None:
             start, end = span
             say(f"model: {start:%Y-%m-%d} to {end:%Y-%m-%d}")
-            parts = [_compute(con, site, run_id, step, weather_intervals(intervals), a, b)
-                     for a, b in align.chunks(start, end)]
+            held = weather_intervals(intervals)
+            spans = align.chunks(start, end)
+            # each month's weather is read while the month before is computed
+            weathers = db.read_ahead(con, lambda cur, s: stored_weather(cur, step, held, *s),
+                                     spans)
+            parts = [_compute(con, site, run_id, step, weather, a, b)
+                     for (a, b), weather in zip(spans, weathers, strict=True)]
             daily = [p["daily"] for p in parts if p["daily"] is not None]
             result.update(computed_from=start, computed_to=end,
                           rows=sum(p["rows"] for p in parts),
@@ -609,9 +619,10 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
 
 
 def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
-             intervals: dict[str, int], start: pd.Timestamp, end: pd.Timestamp
+             weather: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp
              ) -> dict[str, Any]:
-    weather = stored_weather(con, step, intervals, start, end)
+    """Expected rows and conditions of [``start``, ``end``) from ``weather``
+    (:func:`stored_weather`), stored under run ``run_id``."""
     if weather.empty:
         return {"rows": 0, "daily": None}
     sun = site_sun(weather.index, site, step)
@@ -620,21 +631,18 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]] = {}
     exp = expected_power(weather, sun, site, comps, planes)
     exp["model_run_id"] = run_id
-    cond = pd.DataFrame({
-        "ts": sun.index, "model_run_id": run_id,
-        "sun_zenith_deg": sun["apparent_zenith"].to_numpy(),
-        "sun_azimuth_deg": sun["azimuth"].to_numpy(),
-        "clearsky_ghi_wm2": sun["clearsky_ghi"].to_numpy(),
-        **{q: weather[name].to_numpy() for q, name in WEATHER.items()
-           if q in CONDITION_COLUMNS},
-    })
-    bounds = {"id": run_id, "start": start, "end": end}
-    con.execute(db.sql("model_delete_expected"), bounds)
-    con.execute(db.sql("model_delete_conditions"), bounds)
-    # scanned as relations, not registered as views: a view dropped inside the transaction
+    # the conditions of each interval beside every inverter's row (rows: inverter after
+    # inverter, each over the sun's index)
+    conditions = {"sun_zenith_deg": sun["apparent_zenith"], "sun_azimuth_deg": sun["azimuth"],
+                  "clearsky_ghi_wm2": sun["clearsky_ghi"],
+                  **{q: weather[name] for q, name in WEATHER.items() if q in CONDITION_COLUMNS}}
+    repeat = len(exp) // len(sun)
+    for q, values in conditions.items():
+        exp[q] = np.tile(values.to_numpy(), repeat)
+    con.execute(db.sql("model_delete_expected"), {"id": run_id, "start": start, "end": end})
+    # scanned as a relation, not registered as a view: a view dropped inside the transaction
     # keeps its frame alive until the commit, and so every chunk's frames would stay in memory
     con.from_df(exp).query("_new", "INSERT INTO expected BY NAME SELECT * FROM _new")
-    con.from_df(cond).query("_new", "INSERT INTO model_conditions BY NAME SELECT * FROM _new")
     daily = None
     if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
         ref = sensor_array(site)

@@ -4,16 +4,13 @@
 INSERT INTO aligned_base BY NAME
 WITH e AS (
     SELECT * FROM expected WHERE model_run_id = $id AND ts >= $start AND ts < $end
-), j AS (
-    SELECT coalesce(e.ts, m.ts) AS ts, coalesce(e.inverter_id, m.inverter_id) AS inverter_id,
-           m.measured_ac_w, e.ac_w AS expected_ac_w, e.ac_potential_w AS potential_ac_w,
-           e.dc_w AS expected_dc_w, e.poa_global_wm2 AS poa_wm2, e.poa_modelled_wm2,
-           e.poa_source, e.temp_cell_c, e.ac_modelled_w AS expected_ac_modelled_w,
-           e.ac_potential_modelled_w AS potential_ac_modelled_w, e.temp_cell_modelled_c
-    FROM e FULL JOIN _measured m ON m.ts = e.ts AND m.inverter_id = e.inverter_id
 )
-SELECT j.*, $iv AS interval_s, $id AS model_run_id, c.ghi_wm2, c.temp_air_c,
-       c.wind_speed_ms, c.temp_module_c, c.rain_mm, c.sun_zenith_deg, c.sun_azimuth_deg,
-       c.clearsky_ghi_wm2
-FROM j
-LEFT JOIN model_conditions c ON c.model_run_id = $id AND c.ts = j.ts;
+SELECT coalesce(e.ts, m.ts) AS ts, coalesce(e.inverter_id, m.inverter_id) AS inverter_id,
+       $iv AS interval_s, $id AS model_run_id,
+       m.measured_ac_w, e.ac_w AS expected_ac_w, e.ac_potential_w AS potential_ac_w,
+       e.dc_w AS expected_dc_w, e.poa_global_wm2 AS poa_wm2, e.poa_modelled_wm2,
+       e.poa_source, e.temp_cell_c, e.ac_modelled_w AS expected_ac_modelled_w,
+       e.ac_potential_modelled_w AS potential_ac_modelled_w, e.temp_cell_modelled_c,
+       e.ghi_wm2, e.temp_air_c, e.wind_speed_ms, e.temp_module_c, e.rain_mm,
+       e.sun_zenith_deg, e.sun_azimuth_deg, e.clearsky_ghi_wm2
+FROM e FULL JOIN _measured m ON m.ts = e.ts AND m.inverter_id = e.inverter_id;

@@ -36,20 +36,19 @@ ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_potential_modelled_w DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_modelled_w DOUBLE;
 
--- The conditions of each interval as the model used them: the sun at the interval's mid-point
--- and the site weather (coarser weather held over its own interval, finer weather averaged).
-CREATE TABLE IF NOT EXISTS model_conditions (
-    ts               TIMESTAMPTZ NOT NULL,
-    model_run_id     INTEGER NOT NULL,
-    sun_zenith_deg   DOUBLE,                -- apparent (refracted) zenith
-    sun_azimuth_deg  DOUBLE,                -- clockwise from north
-    clearsky_ghi_wm2 DOUBLE,
-    ghi_wm2          DOUBLE,
-    temp_air_c       DOUBLE,
-    wind_speed_ms    DOUBLE,
-    temp_module_c    DOUBLE,
-    rain_mm          DOUBLE
-);
+-- The conditions of each interval as the model used them, beside each inverter's row: the sun
+-- at the interval's mid-point and the site weather (coarser weather held over its own
+-- interval, finer weather averaged). They had a table of their own (model_conditions) before
+-- MODEL_VERSION 4, whose runs are not reused.
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS sun_zenith_deg DOUBLE;   -- apparent (refracted)
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS sun_azimuth_deg DOUBLE;  -- clockwise from north
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS clearsky_ghi_wm2 DOUBLE;
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS ghi_wm2 DOUBLE;
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_air_c DOUBLE;
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS wind_speed_ms DOUBLE;
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_module_c DOUBLE;
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS rain_mm DOUBLE;
+DROP TABLE IF EXISTS model_conditions;
 
 -- Measured and expected side by side, one row per (interval, inverter), for one model run.
 CREATE TABLE IF NOT EXISTS aligned_base (
