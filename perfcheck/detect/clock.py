@@ -433,9 +433,10 @@ def rerun(new: dict[str, Any], w: Wide, s: Shift, lag_s: float, recorded: list[s
     exp = model.expected_power(wx, model.site_sun(wx.index, site, step), site)
     at = (w.index >= s.start) & (w.index < s.end)
     rows = w.index[at]
+    got = exp.pivot(index="ts", columns="inverter_id", values=list(MODEL_SERIES.values())
+                    ).reindex(rows)  # the float columns in one pass, the source apart
     for k, col in MODEL_SERIES.items():
-        got = exp.pivot(index="ts", columns="inverter_id", values=col).reindex(rows)
-        new[k].loc[at, w.inverters] = got.reindex(columns=w.inverters).to_numpy()
+        new[k].loc[at, w.inverters] = got[col].reindex(columns=w.inverters).to_numpy()
     src = exp.pivot(index="ts", columns="inverter_id", values="poa_source").reindex(rows)
     new["from_sensor"].loc[at, w.inverters] = (src.reindex(columns=w.inverters) == "sensor"
                                                ).to_numpy()

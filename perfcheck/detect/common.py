@@ -493,6 +493,18 @@ def runs(mask: np.ndarray) -> list[tuple[int, int]]:
                     strict=True))
 
 
+def day_rows(days: np.ndarray, mask: np.ndarray) -> list[tuple[Any, np.ndarray]]:
+    """Each day of ``days`` (one per interval) with a True in ``mask``, in order, with the
+    positions of all its intervals (ascending): what ``np.unique(days[mask])`` and
+    ``np.flatnonzero(days == day)`` give, without a pass over every interval per day."""
+    order = np.argsort(days, kind="stable")
+    ordered = days[order]
+    first = np.flatnonzero(np.concatenate([[True], ordered[1:] != ordered[:-1]]))
+    bounds = np.append(first, len(days))
+    return [(ordered[a], rows) for a, b in zip(bounds[:-1], bounds[1:], strict=True)
+            if mask[rows := order[a:b]].any()]
+
+
 def mann_kendall_slope(y: np.ndarray, x: np.ndarray) -> dict[str, float]:
     """Theil-Sen slope with its 95 % interval and Kendall's tau test of a monotone trend.
 
