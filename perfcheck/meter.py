@@ -140,14 +140,14 @@ def spans(raw: pd.DataFrame, interval_s: float, rollover_wh: float | None,
     if raw["energy_interval_wh"].notna().any():
         keep = raw["energy_interval_wh"].notna().to_numpy()
         out = pd.DataFrame({"energy_wh": raw["energy_interval_wh"].to_numpy()[keep],
-                            "lo": ts[keep].to_numpy(), "hi": (ts[keep] + iv).to_numpy()})
+                            "lo": ts[keep].array, "hi": (ts[keep] + iv).array})
     else:
         reg = raw[raw["register_wh"].notna()]
         rts = pd.to_datetime(reg["ts"], utc=True).reset_index(drop=True)
         step = align.register_steps(reg["register_wh"].reset_index(drop=True), rts,
                                     rollover_wh, daily_reset_tz)
-        out = pd.DataFrame({"energy_wh": step.to_numpy(), "lo": (rts.shift() + iv).to_numpy(),
-                            "hi": (rts + iv).to_numpy()})
+        out = pd.DataFrame({"energy_wh": step.to_numpy(), "lo": (rts.shift() + iv).array,
+                            "hi": (rts + iv).array})  # instants kept as such, not as objects
     seconds = (out["hi"] - out["lo"]).dt.total_seconds()
     ok = out["energy_wh"].notna() & (seconds > 0) \
         & (out["energy_wh"] <= MAX_RATING_MULTIPLE * pac0 * seconds / 3600.0)

@@ -485,24 +485,51 @@ def daily_sums(
             "start_ts": pd.Series([], dtype="datetime64[us, UTC]"),
             "end_ts": pd.Series([], dtype="datetime64[us, UTC]"),
         })
+    step_s = shortest_interval(con)
     con.register("_metrics_inverters", _inverter_table(site, settings))
     con.register("_metrics_windows", windows[["action", "scope", "start_ts", "end_ts"]])
     try:
-        df = con.execute(db.sql("metrics_daily"), {
-            "tz": site.timezone, "start": start.to_pydatetime(), "end": end.to_pydatetime(),
+        parts = [con.execute(db.sql("metrics_daily"), {
+            "tz": site.timezone, "start": a.to_pydatetime(), "end": b.to_pydatetime(),
             "min_poa": settings.min_poa_wm2, "avail_min_poa": settings.availability_min_poa_wm2,
             "exclude_flags": list(settings.exclude_flags), "analysis": analysis_id,
             "downtime_kinds": [k.name for k in kinds.TABLE if k.downtime],
             "temp_basis": settings.pr_temp_basis, "basis": basis,
             "meter_factor": meter_factor,
-        }).df()
+        }).df() for a, b in _day_pieces(site, start, end, step_s)]
     except duckdb.CatalogException as exc:
         raise DataError(f"no aligned series in the database ({exc}); run the model first")\
             from None
     finally:
         con.unregister("_metrics_inverters")
         con.unregister("_metrics_windows")
-    return complete_calendar(df, site, start, end, shortest_interval(con))
+    kept = [p for p in parts if len(p)] or parts[:1]
+    df = kept[0] if len(kept) == 1 else pd.concat(kept, ignore_index=True)
+    return complete_calendar(df, site, start, end, step_s)
+
+
+# Aligned rows per piece of the daily sums' query: the join of a whole history's rows with the
+# ledger outgrows the analysis's DuckDB pool (db.ANALYSIS_MEMORY_LIMIT) and spills to disk,
+# which doubled the query's time on a site-year; pieces of whole days give the same sums (a
+# day's rows are all in one piece).
+DAILY_PIECE_ROWS = 2**18
+
+
+def _day_pieces(site: Site, start: pd.Timestamp, end: pd.Timestamp, step_s: float
+                ) -> list[tuple[pd.Timestamp, pd.Timestamp]]:
+    """``[start, end)`` cut at the first instant of site-local days into pieces of about
+    :data:`DAILY_PIECE_ROWS` aligned rows (``step_s``: the shortest logger interval [s])."""
+    per_day = len(site.inverters) * 86400.0 / step_s
+    if not math.isfinite(per_day) or per_day <= 0:
+        return [(start, end)]
+    days = max(1, int(DAILY_PIECE_ROWS // per_day))
+    first = start.tz_convert(site.tz).tz_localize(None).normalize()
+    naive = pd.date_range(first + pd.Timedelta(days=days),
+                          end.tz_convert(site.tz).tz_localize(None), freq=f"{days}D")
+    cuts = naive.tz_localize(site.tz, ambiguous=np.ones(len(naive), dtype=bool),
+                             nonexistent="shift_forward").tz_convert("UTC")
+    bounds = [start, *(c for c in cuts if start < c < end), end]
+    return list(zip(bounds[:-1], bounds[1:], strict=True))
 
 
 def shortest_interval(con: duckdb.DuckDBPyConnection) -> float:

@@ -211,3 +211,28 @@ def test_shift_z_known_answer():
     months = (x.index.month % 2 * 2 - 1) * 0.02
     y = x + pd.Series(months, index=x.index).where(np.arange(200) < 100, 0.0)
     assert baseline.shift_z(y, 100, 110, 0.02) < baseline.shift_z(x, 100, 110, 0.02)
+
+
+def test_row_median_is_numpys_nanmedian_to_the_bit():
+    # reference: numpy's np.nanmedian over rows (the library's own definition), on rows with
+    # ties, missing values, infinities and rows with nothing at all
+    rng = np.random.default_rng(3)
+    for k in (1, 2, 3, 5):
+        x = np.round(rng.normal(1.0, 0.1, (4000, k)), 2)
+        x[rng.random(x.shape) < 0.4] = np.nan
+        x[rng.random(x.shape) < 0.01] = np.inf
+        x[rng.random(x.shape) < 0.01] = -np.inf
+        with np.errstate(invalid="ignore"), pytest.warns(RuntimeWarning):
+            want = np.nanmedian(x, axis=1)
+        np.testing.assert_array_equal(common.row_median(x), want)
+
+
+def test_day_rows_are_each_days_positions():
+    # reference: np.unique and np.flatnonzero over the same labels (common practice)
+    rng = np.random.default_rng(4)
+    days = np.sort(rng.integers(0, 30, 500)).astype("datetime64[D]")
+    mask = rng.random(500) < 0.05
+    got = common.day_rows(days, mask)
+    assert [d for d, _ in got] == list(np.unique(days[mask]))
+    for d, rows in got:
+        np.testing.assert_array_equal(rows, np.flatnonzero(days == d))

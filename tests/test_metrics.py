@@ -413,3 +413,18 @@ def test_sensor_fault_window_takes_the_expected_power_from_the_modelled_poa():
     want_kwh = (frame.loc[inside, "expected_ac_modelled_w"] * 0.25).sum() / 1000.0
     assert_allclose(fixed["model_poa_expected_kwh"], want_kwh, rtol=1e-6)
     assert biased["model_poa_expected_kwh"] == 0
+
+
+def test_daily_sums_in_pieces_of_whole_days_are_the_sums_of_one_query(monkeypatch):
+    # the query run in pieces cut at local midnights (across both daylight-saving changes of
+    # Europe/Berlin) gives each day's sums exactly as one query over the whole period does
+    # (common practice: a day's rows are all in one piece)
+    site = make_site()
+    con = connect_with(synthetic_aligned(site, "2025-01-01", "2026-01-01", freq="1h"))
+    start, end = utc("2024-12-31 23:00"), utc("2025-12-31 23:00")
+    settings = metrics.load_settings(site)
+    monkeypatch.setattr(metrics, "shortest_interval", lambda con: 3600.0)
+    whole = metrics.daily_sums(con, site, start, end, settings)
+    monkeypatch.setattr(metrics, "DAILY_PIECE_ROWS", 24 * 10 * len(site.inverters))
+    assert len(metrics._day_pieces(site, start, end, 3600.0)) == 37
+    pd.testing.assert_frame_equal(metrics.daily_sums(con, site, start, end, settings), whole)

@@ -393,7 +393,7 @@ def corrected(w: Wide, shifts: list[Shift], lg: Loggers, site: Site | None = Non
         moved = [("measured", list(s.inverters))]
         recorded = [c for c, name in lg.weather.items() if name == s.logger]
         if recorded and site is not None and weather is not None:
-            rerun(new, w, s, n * step, recorded, site, weather)
+            rerun(new, w, s, inside, n, step, recorded, site, weather)
         else:
             cols, modelled = follows(w, lg, s.logger)
             moved += [(k, cols) for k in ("expected", "potential", "poa", "temp_cell")]
@@ -413,14 +413,16 @@ MODEL_SERIES = {"expected": "ac_w", "potential": "ac_potential_w", "poa": "poa_g
                 "poa_modelled": "poa_modelled_wm2"}
 
 
-def rerun(new: dict[str, Any], w: Wide, s: Shift, lag_s: float, recorded: list[str],
-          site: Site, weather: Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame]) -> None:
-    """The model run again over the window of ``s`` on the site weather with the channels
-    ``recorded`` by the shifted logger moved back by ``lag_s`` (the reading of each interval
-    is the one labelled ``lag_s`` later), written into ``new`` (the :class:`Wide` fields by
-    name) inside the window. The sun's position, the transposition to the other planes, the
-    incidence angle and the cell temperature then follow the true time of each reading."""
-    lag = pd.Timedelta(seconds=lag_s)
+def rerun(new: dict[str, Any], w: Wide, s: Shift, at: np.ndarray, n: int, step: float,
+          recorded: list[str], site: Site,
+          weather: Callable[[pd.Timestamp, pd.Timestamp], pd.DataFrame]) -> None:
+    """The model run again over the window of ``s`` (``at``: its rows of ``w``) on the site
+    weather with the channels ``recorded`` by the shifted logger moved back by ``n``
+    intervals of ``step`` seconds (the reading of each interval is the one labelled that
+    much later), written into ``new`` (the :class:`Wide` fields by name) inside the window.
+    The sun's position, the transposition to the other planes, the incidence angle and the
+    cell temperature then follow the true time of each reading."""
+    lag = pd.Timedelta(seconds=n * step)
     wx = weather(s.start - abs(lag), s.end + abs(lag))
     inside = (wx.index >= s.start) & (wx.index < s.end)
     for c in recorded:
@@ -429,13 +431,12 @@ def rerun(new: dict[str, Any], w: Wide, s: Shift, lag_s: float, recorded: list[s
     wx = wx[inside]
     if wx.empty or not any(c in wx and wx[c].notna().any() for c in ("poa_sensor", "ghi")):
         return
-    step = float(np.median(w.interval_s))
     exp = model.expected_power(wx, model.site_sun(wx.index, site, step), site)
-    at = (w.index >= s.start) & (w.index < s.end)
     rows = w.index[at]
+    got = exp.pivot(index="ts", columns="inverter_id", values=list(MODEL_SERIES.values())
+                    ).reindex(rows)  # the float columns in one pass, the source apart
     for k, col in MODEL_SERIES.items():
-        got = exp.pivot(index="ts", columns="inverter_id", values=col).reindex(rows)
-        new[k].loc[at, w.inverters] = got.reindex(columns=w.inverters).to_numpy()
+        new[k].loc[at, w.inverters] = got[col].reindex(columns=w.inverters).to_numpy()
     src = exp.pivot(index="ts", columns="inverter_id", values="poa_source").reindex(rows)
     new["from_sensor"].loc[at, w.inverters] = (src.reindex(columns=w.inverters) == "sensor"
                                                ).to_numpy()

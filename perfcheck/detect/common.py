@@ -493,6 +493,33 @@ def runs(mask: np.ndarray) -> list[tuple[int, int]]:
                     strict=True))
 
 
+def row_median(x: np.ndarray) -> np.ndarray:
+    """Median of each row of ``x`` (2-D) with NaN left out, NaN where a row has none: the
+    numbers of ``np.nanmedian(x, axis=1)`` (the two middle values' sum halved), without its
+    masked-array path, which warns once per empty row (each night's interval)."""
+    s = np.sort(x, axis=1)  # NaN last
+    n = (~np.isnan(s)).sum(axis=1)
+    if s.shape[1] == 0:
+        return np.full(len(s), np.nan)
+    rows = np.arange(len(s))
+    hi = np.minimum(n // 2, s.shape[1] - 1)
+    lo = np.where(n % 2 == 1, hi, np.maximum(hi - 1, 0))
+    with np.errstate(invalid="ignore"):
+        return np.where(n > 0, (s[rows, lo] + s[rows, hi]) / 2.0, np.nan)
+
+
+def day_rows(days: np.ndarray, mask: np.ndarray) -> list[tuple[Any, np.ndarray]]:
+    """Each day of ``days`` (one per interval) with a True in ``mask``, in order, with the
+    positions of all its intervals (ascending): what ``np.unique(days[mask])`` and
+    ``np.flatnonzero(days == day)`` give, without a pass over every interval per day."""
+    order = np.argsort(days, kind="stable")
+    ordered = days[order]
+    first = np.flatnonzero(np.concatenate([[True], ordered[1:] != ordered[:-1]]))
+    bounds = np.append(first, len(days))
+    return [(ordered[a], rows) for a, b in zip(bounds[:-1], bounds[1:], strict=True)
+            if mask[rows := order[a:b]].any()]
+
+
 def mann_kendall_slope(y: np.ndarray, x: np.ndarray) -> dict[str, float]:
     """Theil-Sen slope with its 95 % interval and Kendall's tau test of a monotone trend.
 

@@ -34,6 +34,7 @@ import pandas as pd
 from perfcheck.detect.common import (
     Event,
     Wide,
+    day_rows,
     energy_band,
     plateaus,
     runs,
@@ -55,17 +56,16 @@ def _events(mask: np.ndarray, w: Wide, energy: np.ndarray, gap: np.ndarray, rel_
     step = w.interval_s.to_numpy()
     days = w.day.to_numpy()
     out = []
-    for day in np.unique(days[mask]):
-        sel = mask & (days == day)
-        pos = np.flatnonzero(sel)
-        e = float(np.nansum(energy[sel] * step[sel]) / 3.6e6)
-        g = float(np.nansum(gap[sel] * step[sel]) / 3.6e6)
+    for _, today in day_rows(days, mask):
+        pos = today[mask[today]]
+        e = float(np.nansum(energy[pos] * step[pos]) / 3.6e6)
+        g = float(np.nansum(gap[pos] * step[pos]) / 3.6e6)
         low, high = energy_band(e, rel_sigma)
         held = evidence.get("_level")
         ev = {k: v for k, v in evidence.items() if k != "_level"}
         if held is not None:
-            ev["plateau_level_share_of_rating"] = float(np.nanmedian(held[sel]))
-        ev["intervals"] = int(sel.sum())
+            ev["plateau_level_share_of_rating"] = float(np.nanmedian(held[pos]))
+        ev["intervals"] = len(pos)
         out.append(Event(
             kind="curtailment", scope="plant", start=w.index[pos[0]],
             end=w.index[pos[-1]] + pd.Timedelta(seconds=float(step[pos[-1]])),
@@ -126,9 +126,8 @@ def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, tol:
         ratio = level / exp_level
     up = np.isfinite(ratio) & (level > 0.05) & (exp_level > 0.05)
     cand = up & (level < 0.98)
-    for day in np.unique(days[cand]):
-        today = days == day
-        sel = np.flatnonzero(cand & today)
+    for _, today in day_rows(days, cand):
+        sel = today[cand[today]]
         if len(sel) < min_count:
             continue
         v = np.sort(level[sel])
@@ -138,11 +137,11 @@ def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, tol:
         if counts[best] < min_count:
             continue
         centre = float(np.median(v[best:hi[best]]))
-        near = np.abs(level - centre)
-        held = sel[near[sel] <= HOLD * centre]
-        around = int((near[sel] <= 10 * HOLD * centre).sum())
-        rest = up & today & (near > HOLD * centre)
-        if not rest.any():
+        near = np.abs(level[sel] - centre)
+        held = sel[near <= HOLD * centre]
+        around = int((near <= 10 * HOLD * centre).sum())
+        rest = today[up[today] & (np.abs(level[today] - centre) > HOLD * centre)]
+        if not len(rest):
             continue
         dense = stats.binomtest(len(held), around, TOP_SHARE, alternative="greater").pvalue
         if (dense <= alpha and _flatter(level[held], exp_level[held], tol)
@@ -198,8 +197,8 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
     out = np.zeros(len(level), dtype=bool)
     found = np.unique(days[keep])
     centres: list[float] = []
-    for day in found:
-        c = float(np.median(level[keep & (days == day)]))
+    for _, today in day_rows(days, keep):
+        c = float(np.median(level[today[keep[today]]]))
         if all(abs(c - x) > HOLD * x for x in centres):
             centres.append(c)
     if not centres:
@@ -215,19 +214,19 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
             above = up & (would >= c * (1 + tol)) & ~done
             sits = above & at
             drop = ratio / _local(np.where(at[:, None], np.nan, ratio), index)
-            for day in np.unique(days[sits]):
-                today = days == day
+            for _, today in day_rows(days, sits):
                 # the day's own drops (measured/expected over that of the hours around) off
                 # the level: how often each interval that could lie above it lands on it
-                ref = np.sort((plant / local)[today & up & ~at & np.isfinite(local)])
-                rows = above & today
+                off = today[up[today] & ~at[today] & np.isfinite(local[today])]
+                ref = np.sort(plant[off] / local[off])
+                rows = today[above[today]]
                 hits = (np.searchsorted(ref, c * (1 + HOLD) / would[rows], side="right")
                         - np.searchsorted(ref, c * (1 - HOLD) / would[rows], side="left"))
                 chance = float(np.sum((hits + 0.5) / (len(ref) + 1)))
-                k = int((sits & today).sum())
-                if (_every_below(drop[sits & today], tol)
-                        and stats.poisson.sf(k - 1, chance) <= alpha):
-                    out |= sits & today
+                on = today[sits[today]]
+                if (_every_below(drop[on], tol)
+                        and stats.poisson.sf(len(on) - 1, chance) <= alpha):
+                    out[on] = True
     return out
 
 
@@ -245,12 +244,11 @@ def _shared(held: np.ndarray, ratio: np.ndarray, days: np.ndarray) -> np.ndarray
     intervals than on the rest of the day (median): a set-point is shared, one inverter at its
     own limit is the clipping detector's."""
     out = held.copy()
-    for day in np.unique(days[held]):
-        today = days == day
-        sel = held & today
+    for _, today in day_rows(days, held):
+        sel = today[held[today]]
         with np.errstate(invalid="ignore"):
             on = np.nanmedian(ratio[sel], axis=0)
-            off = np.nanmedian(ratio[today & ~sel], axis=0)
+            off = np.nanmedian(ratio[today[~held[today]]], axis=0)
         if not (on < off).all():
             out[sel] = False
     return out
@@ -264,11 +262,10 @@ def _whole_day(keep: np.ndarray, level: np.ndarray, exp_level: np.ndarray, days:
     few per cent would then enter, its loss in the ledger that noise, and on days of broken
     cloud that outweighs the limited intervals the margin leaves out."""
     out = keep.copy()
-    for day in np.unique(days[keep]):
-        sel = days == day
-        lv = float(np.median(level[keep & sel]))
-        near = sel & (np.abs(level - lv) <= tol * lv) & (exp_level >= lv * (1 + margin))
-        out |= near
+    for _, today in day_rows(days, keep):
+        lv = float(np.median(level[today[keep[today]]]))
+        out[today[(np.abs(level[today] - lv) <= tol * lv)
+                  & (exp_level[today] >= lv * (1 + margin))]] = True
     return out
 
 

@@ -47,6 +47,7 @@ from perfcheck.detect.common import (
     coarsen,
     despike,
     long_run_sigma,
+    row_median,
     scope_of,
 )
 from perfcheck.lazy import lazy_module
@@ -69,8 +70,7 @@ def daily_relative(w: Wide, usable: pd.DataFrame, siblings: bool = True,
     if siblings and len(w.inverters) > 1:
         rel = pd.DataFrame(index=r.index, columns=r.columns, dtype=float)
         for inv in r.columns:
-            sib = r.drop(columns=inv).median(axis=1)
-            rel[inv] = r[inv] / sib
+            rel[inv] = r[inv] / row_median(r.drop(columns=inv).to_numpy(dtype=float))
     else:
         rel = r
     days = w.day.to_numpy()
@@ -262,7 +262,8 @@ def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Tim
     days = w.day.to_numpy()
     r = (w.measured[inv] / w.expected[inv]).where(usable[inv])
     if len(w.inverters) > 1:
-        r = r / (w.measured / w.expected).where(usable).drop(columns=inv).median(axis=1)
+        r = r / row_median((w.measured / w.expected).where(usable).drop(columns=inv).to_numpy(
+            dtype=float))
     r = r.to_numpy()
     one = pd.Timedelta(days=1)
     # half-days: a number per row that grows with time (two per day)

@@ -165,14 +165,22 @@ def plane_poa(rotation: float | np.ndarray, array: Array, s: Sky) -> np.ndarray:
     plane = pvlib.tracking.calc_surface_orientation(rotation, t.axis_tilt_deg,
                                                     t.axis_azimuth_deg)
     up = s.zenith < 90.0
-    solpos = pd.DataFrame({"apparent_zenith": np.where(up, s.zenith, 90.0),
-                           "azimuth": s.azimuth})
-    rear = ph.poa_rear(np.asarray(plane["surface_tilt"], dtype=float),
-                       np.asarray(plane["surface_azimuth"], dtype=float), solpos,
-                       pd.Series(s.ghi), pd.Series(s.dhi), pd.Series(s.dni), array.albedo,
-                       array.gcr, array.bifacial.row_height_m, array.bifacial.row_pitch_m)
-    both = ph.bifacial_effective(front, rear.to_numpy(dtype=float),
-                                 array.bifacial.bifaciality)
+    # the rear at daylight intervals only (the night's is dropped below); the model works
+    # interval by interval, so each one's value is the same (two or more: a single interval
+    # would sum the rows' view factors in another order)
+    at = np.flatnonzero(up) if up.sum() >= 2 else np.arange(len(up))
+    tilt, azimuth = (np.asarray(plane[k], dtype=float) for k in ("surface_tilt",
+                                                                 "surface_azimuth"))
+    if tilt.ndim and tilt.size == len(up):  # one plane per interval (else one for all)
+        tilt, azimuth = tilt[at], azimuth[at]
+    rear = np.zeros(len(up))
+    solpos = pd.DataFrame({"apparent_zenith": np.where(up, s.zenith, 90.0)[at],
+                           "azimuth": s.azimuth[at]})
+    rear[at] = ph.poa_rear(tilt, azimuth, solpos, pd.Series(s.ghi[at]), pd.Series(s.dhi[at]),
+                           pd.Series(s.dni[at]), array.albedo, array.gcr,
+                           array.bifacial.row_height_m, array.bifacial.row_pitch_m
+                           ).to_numpy(dtype=float)
+    both = ph.bifacial_effective(front, rear, array.bifacial.bifaciality)
     return np.where(up, both, 0.0)
 
 
