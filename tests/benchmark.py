@@ -214,10 +214,10 @@ def site_year(start: pd.Timestamp, periods: int, seed: int = 0) -> pd.DataFrame:
     Sun from Cooper's declination (Cooper 1969) and the hour angle of apparent solar time
     (the equation of time of Spencer 1971, Duffie & Beckman 2013, eq. 1.5.3: without it the
     power runs up to 16 minutes off the true sun, which the analysis rightly takes for a
-    logger clock fault), clear-sky GHI from Haurwitz (1945), a random clearness per day, 80 % of GHI as beam onto
-    the south-facing plane (Duffie & Beckman 2013, eq. 1.6.7) and the rest isotropic, module
-    temperature from the SAPM open-rack glass/polymer coefficients (King et al. 2004), AC power
-    from PVWatts with the inverter's limit.
+    logger clock fault), clear-sky GHI from Haurwitz (1945), a random clearness per day,
+    80 % of GHI as beam onto the south-facing plane (Duffie & Beckman 2013, eq. 1.6.7) and
+    the rest isotropic, module temperature from the SAPM open-rack glass/polymer coefficients
+    (King et al. 2004), AC power from PVWatts with the inverter's limit.
     """
     rng = np.random.default_rng(seed)
     ts = pd.date_range(start, periods=periods, freq="min")
