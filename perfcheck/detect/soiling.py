@@ -2,25 +2,24 @@
 
 The plant's daily performance index is the median over the inverters of each inverter's
 insolation-weighted daily measured/expected, divided by its own median (so inverters of other
-orientation or size count alike and one inverter's own fault does not move it). Dull days,
-whose index is several times noisier than a clear day's, are left out where that makes the
-index more precise (:func:`precise_days`); the soiling ratio found still applies to them.
-Recoveries are
+orientation or size count alike and one inverter's own fault does not move it). Dull days, whose
+index is several times noisier than a clear day's, are left out where that makes the index more
+precise (:func:`precise_days`); the soiling ratio found still applies to them. Recoveries are
 (a) days on which some 24-hour rain total reaches ``rain_mm`` in the readings and (b)
 significant local steps up of the index (:func:`local_steps_up`); a step up with at least 1 mm
 of rain on that day or the day before is a rain recovery, one on days with rain readings and
 less rain a cleaning, and one on days without rain readings (no rain gauge, a gap) of unknown
-cause: rain and a cleaning look alike in the index. Between two
-recoveries the index is fitted by a Theil-Sen line; an interval whose slope is negative with
-Kendall's test p-value below ``alpha``, ended by a recovery that gives back at least half of
-its decline (:func:`_restored`), is a soiling interval; the interval still open at the end of
-the data counts when it declines like the confirmed ones (:func:`_like`). Soiling may start
-some days after the recovery (a grace period, as in Kimber et al. 2006): the onset is the hinge
-of the weighted least-squares fit of a level followed by a linear decline. Its soiling ratio is
-that fit over the clean level: the plateau before the onset where there is one, else the
-rolling median of the index outside the soiling intervals where that is above the line's start
-(a partial recovery), else the line's start (a full recovery). Consecutive soiling intervals
-form one soiling episode (one event) with its recoveries.
+cause: rain and a cleaning look alike in the index. Between two recoveries the index is fitted
+by a Theil-Sen line; an interval whose slope is negative with Kendall's test p-value below
+``alpha``, ended by a recovery that gives back at least half of its decline (:func:`_restored`),
+is a soiling interval; the interval still open at the end of the data counts when it declines
+like the confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
+period, as in Kimber et al. 2006): the onset is the hinge of the weighted least-squares fit of a
+level followed by a linear decline. Its soiling ratio is that fit over the clean level: the
+plateau before the onset where there is one, else the rolling median of the index outside the
+soiling intervals where that is above the line's start (a partial recovery), else the line's
+start (a full recovery). Consecutive soiling intervals form one soiling episode (one event) with
+its recoveries.
 
 Where rain washes the modules every week or two, most washes give back less than the day-to-
 day noise of the index and no test finds them one by one: a found episode is then only the
