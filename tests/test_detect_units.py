@@ -238,6 +238,22 @@ def test_a_day_shows_a_limit_only_when_the_power_stays_flat_below_a_moving_expec
     assert clipping.days_above(m, m.index.normalize().to_numpy(), 9500.0, 0.005).iloc[0]
 
 
+def test_one_reading_far_above_the_plateau_shows_the_day_rose_above_the_limit():
+    # invented truth: a day held at 10 kW under an arch to 14 kW, reading noise sd 0.1 %
+    # (plateau tolerance 0.5 %, sigma 0.5 % / 3.29); one reading 5 % above the limit is 33
+    # sigmas out, beyond the Bonferroni bound z(1 - alpha / 2n) = 4.5 sigmas for the day's
+    # 144 readings at alpha 1e-3 (standard normal tables), so the day rose above it; one
+    # reading 0.6 % above (3.9 sigmas) is within it and alone does not (common practice: two
+    # such readings), nor one far above where the expected power is below the limit (a spike)
+    m, e = _held_day(np.random.default_rng(4), 10000.0, 14000.0, 0.001)
+    days = m.index.normalize().to_numpy()
+    assert not clipping.days_above(m, days, 10000.0, 0.005, 1e-3, e).iloc[0]
+    for at, jump, rose in ((70, 1.05, True), (70, 1.006, False), (3, 1.05, False)):
+        hit = m.copy()
+        hit.iloc[at] = 10000.0 * jump
+        assert bool(clipping.days_above(hit, days, 10000.0, 0.005, 1e-3, e).iloc[0]) is rose
+
+
 def test_a_derate_window_ends_on_the_last_day_that_shows_the_limit():
     # invented truth: held on days 5-8; days 3 and 10 show the limit, days 2, 4 and 9 are
     # cloudy (nothing either way), days 1 and 11 rose above it and day 12 shows it again

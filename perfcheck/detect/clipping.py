@@ -20,7 +20,9 @@ not). The same limit held on at least two days, with no day between on which the
 rose above it, is one derate (a setting that persists, where a grid operator's order limits
 the plant on a day: common practice). A day *rose above* the limit when two of its readings
 exceed it by more than the plateau's tolerance (:func:`plateau_tolerance`: the normal
-quantile at the detectors' ``alpha`` times the noise of the readings on the held plateaus).
+quantile at the detectors' ``alpha`` times the noise of the readings on the held plateaus),
+or one exceeds it by more than any of the day's readings would under the limit at that
+rate (:func:`days_above`).
 
 Held days need clear skies; the derate's window is then widened on either side to the
 farthest day that still *shows* the limit (:func:`days_at`: two readings on the plateau while
@@ -121,12 +123,37 @@ def plateau_tolerance(measured: pd.Series, limit: pd.Series, days: np.ndarray, t
     return float(min(tol, max(z * robust_sigma(x), 0.005)))
 
 
-def days_above(measured: pd.Series, days: np.ndarray, level: float, tol_p: float) -> pd.Series:
-    """Per day: the inverter delivered more than a limit at ``level`` allows, at least two
-    intervals above it by more than the plateau tolerance ``tol_p`` (under the limit each
-    reading passes that bound with probability alpha/2, two in a day of n readings with
-    about (n alpha / 2)^2 / 2: a day that rose above the limit was not limited)."""
-    return (measured > level * (1 + tol_p)).groupby(days).sum() >= 2
+def days_above(measured: pd.Series, days: np.ndarray, level: float, tol_p: float,
+               alpha: float = 1e-3, expected: pd.Series | None = None) -> pd.Series:
+    """Per day: the inverter delivered more than a limit at ``level`` allows, either
+
+    - at least two intervals above it by more than the plateau tolerance ``tol_p`` (under
+      the limit each reading passes that bound with probability alpha/2, two in a day of n
+      readings with about (n alpha / 2)^2 / 2), or
+    - one interval above it by more than the bound that any of the day's n readings passes
+      under the limit with probability alpha/2 at most: z(1 - alpha / (2 n)) plateau noise
+      sigmas, sigma being ``tol_p`` over z(1 - alpha/2) (the Bonferroni bound; with
+      ``tol_p`` at its floor, sigma is overstated and the bound conservative), while the
+      ``expected`` power stands above the limit too (a spike of the logger where the plant
+      could not have delivered that much does not count; without ``expected`` the rule is
+      left out): one reading far above the plateau is as plain a sign as two just above it.
+
+    A day that rose above the limit was not limited.
+
+    References
+    ----------
+    Bonferroni 1936, Teoria statistica delle classi e calcolo delle probabilita (the union
+    bound over a day's readings; from memory).
+    """
+    over = measured / level - 1
+    two = (over > tol_p).groupby(days).sum() >= 2
+    if expected is None:
+        return two
+    n = measured.notna().groupby(days).sum().clip(lower=1)
+    sigma = tol_p / NormalDist().inv_cdf(1 - alpha / 2)
+    bound = pd.Series(stats.norm.isf(alpha / (2 * n.to_numpy())) * sigma, index=n.index)
+    far = over.where(expected > level).groupby(days).max() > bound
+    return two | far
 
 
 def days_at(measured: pd.Series, expected: pd.Series, days: np.ndarray, level: float,
@@ -282,7 +309,8 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: fl
     for inv in w.inverters:
         ms = w.measured[inv].where(~exclude[inv])
         tol_p = plateau_tolerance(ms, limits[inv], days, tol, alpha)
-        above = partial(days_above, ms, days, tol_p=tol_p)
+        above = partial(days_above, ms, days, tol_p=tol_p, alpha=alpha,
+                        expected=w.expected[inv])
         for first, last, lv in _derate_runs(limits[inv], above, tol):
             win = _widen(first, last, days_at(ms, w.expected[inv], days, lv, tol, tol_p),
                          above(lv),
