@@ -1011,14 +1011,14 @@ def run_record() -> dict[str, Any]:
     import importlib.metadata
     import platform
 
-    import statsmodels
-
     return {
         "tool_version": __version__,
         "created_at": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         "python": platform.python_version(),
-        # pvlib's version as pvlib reads it, from its metadata: a view need not import pvlib
+        # pvlib's and statsmodels' versions as they read them, from their metadata: a view
+        # need not import them
         "dependencies": {"pandas": pd.__version__, "numpy": np.__version__,
                          "pvlib": importlib.metadata.version("pvlib"),
-                         "duckdb": duckdb.__version__, "statsmodels": statsmodels.__version__},
+                         "duckdb": duckdb.__version__,
+                         "statsmodels": importlib.metadata.version("statsmodels")},
     }

@@ -234,7 +234,7 @@ LOADED_MODELLING = (
     "import sys\nfrom perfcheck.cli import main\ntry:\n"
     "    main(sys.argv[1:], prog_name='perfcheck')\nexcept SystemExit as exc:\n"
     "    assert not exc.code, exc.code\n"
-    "print(sorted(m for m in ('pvlib', 'statsmodels.api', "
+    "print(sorted(m for m in ('pvlib', 'statsmodels', 'statsmodels.api', "
     "'statsmodels.regression.linear_model', 'statsmodels.robust.norms', 'scipy.stats', "
     "'perfcheck.detect.attribution', 'perfcheck.detect.soiling') if m in sys.modules "
     "and type(sys.modules[m]).__name__ != '_LazyModule'))")

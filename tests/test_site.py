@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import datetime as dt
+import subprocess
+import sys
 
 import pytest
 from logger_files import DEFAULT_COLUMNS, logger_toml, run_ingest, write_case
@@ -13,6 +15,17 @@ from perfcheck.report import report_settings
 from perfcheck.site import load_site
 
 GOOD = "ts,P,G\n2024-06-01 10:00,1,100\n"
+
+# Prints the stages and libraries of those named a command really loaded (lazily bound ones do
+# not count).
+LOADED_STAGES = (
+    "import sys\nfrom perfcheck.cli import main\ntry:\n"
+    "    main(sys.argv[1:], prog_name='perfcheck')\nexcept SystemExit as exc:\n"
+    "    print('exit', exc.code)\n"
+    "print(sorted(m for m in ('perfcheck.detect', 'perfcheck.guarantees', 'perfcheck.meter', "
+    "'perfcheck.metrics', 'perfcheck.report', 'perfcheck.units', 'perfcheck.model', "
+    "'scipy.stats', 'pvlib', 'statsmodels', 'matplotlib') if m in sys.modules "
+    "and type(sys.modules[m]).__name__ != '_LazyModule'))")
 
 
 def _edit(site, old, new):
@@ -83,6 +96,23 @@ def test_site_file_errors(tmp_path, old, new, message):
         con = db.connect(dbp)
         assert con.execute("SELECT count(*) FROM source_files").fetchall() == [(0,)]
         con.close()
+
+
+def test_ingest_loads_the_stages_of_the_sections_written_only(tmp_path):
+    """A section the site file leaves out takes its stage's defaults: ingest does not load the
+    later stages for it (a share of the command's start-up; tests/benchmark.py), yet a typo in
+    a section written still fails the first command."""
+    site, log = write_case(tmp_path, GOOD)
+    command = [sys.executable, "-c", LOADED_STAGES, "ingest", str(site), str(log)]
+    out = subprocess.run(command, capture_output=True, text=True, check=True)
+    assert out.stdout.splitlines()[-1] == "[]", out.stdout
+    site.write_text(site.read_text() + "\n[detect]\nalpha = 0.01\n")
+    out = subprocess.run(command, capture_output=True, text=True, check=True)
+    assert out.stdout.splitlines()[-1] == "['perfcheck.detect', 'perfcheck.model']", out.stdout
+    _edit(site, "alpha = 0.01", "alfa = 0.01")
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr.startswith(f"perfcheck: error: {site}: detect.alfa: unknown key")
 
 
 def test_channel_mapped_twice(tmp_path):
