@@ -138,6 +138,18 @@ def test_edge_ranges_cover_the_soiling_energy_of_placed_ramps():
     np.testing.assert_allclose(edge, 0.0, atol=1e-6)
 
 
+def test_level_error_is_the_standard_error_of_a_mean():
+    # invented truth: independent daily noise of sd 1 % (no autocorrelation); the clean
+    # level is a mean of 61 days, so its standard error is 1 % / sqrt(61) (the standard error
+    # of a mean, any statistics text), within the sampling error of the robust scale
+    rng = np.random.default_rng(3)
+    index = pd.Series(1 + rng.normal(0, 0.01, 2000),
+                      index=pd.date_range("2020-01-01", periods=2000, freq="D"))
+    se = soiling.level_error(index)
+    assert se.iloc[1000] == pytest.approx(0.01 / np.sqrt(61), rel=0.1)
+    assert se.iloc[0] > se.iloc[1000]  # the first day's window holds only 31 days
+
+
 def test_days_of_other_findings_are_left_out_of_the_index():
     # invented case: a lost string on inverter "b" over days 3-4 (rows 72-119 of hourly rows);
     # its days leave that inverter's index, the other inverter keeps them (common practice:

@@ -274,7 +274,8 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     exp_daily = w.energy_kwh(w.expected).sum(axis=1).groupby(w.day.to_numpy()).sum()
     fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha,
                    exp_daily.reindex(days).fillna(0.0).to_numpy())
-    events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma, exp_daily)
+    events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma, exp_daily,
+                               level_error(idx))
     return events, prints, ratio
 
 
@@ -519,8 +520,27 @@ def _ramps(lo: int, cut: list[int], rel: float, f: dict, days: pd.DatetimeIndex,
     return segs
 
 
+def level_error(index: pd.Series, window: int = 61) -> pd.Series:
+    """Relative standard error of the clean level a day's soiling is measured from: the
+    mean of the index's days within the level's ``window``, sqrt(v / m) with v the
+    long-run variance of the index (:func:`long_run_variance`, autocorrelation counted) and
+    m the days read in the window."""
+    m = index.notna().astype(float).rolling(window, center=True, min_periods=1).sum()
+    return np.sqrt(long_run_variance(index) / m.where(m > 0))
+
+
+def _level_sigma_kwh(e_day: pd.Series, se: pd.Series, window: int = 61) -> float:
+    """Standard error of an episode's soiling energy from its clean level's error ``se``
+    (:func:`level_error`) on days of expected energy ``e_day`` [kWh]: the level is shared
+    by the days of a ``window`` (added linearly within each block of that many days) and
+    independent between blocks (in quadrature)."""
+    c = (e_day * se.reindex(e_day.index)).fillna(0.0).to_numpy()
+    block = np.arange(len(c)) // window
+    return float(np.sqrt(np.sum(np.bincount(block, weights=c) ** 2)))
+
+
 def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float,
-              exp_daily: pd.Series) -> tuple[list[Event], list[Footprint]]:
+              exp_daily: pd.Series, level_se: pd.Series) -> tuple[list[Event], list[Footprint]]:
     groups = _groups(fits)
     events, prints = [], []
     days_of = w.day.to_numpy()
@@ -551,11 +571,12 @@ def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: fl
                              "detected_step_pct": None if r["detected_step"] is None
                              else 100 * r["detected_step"]})
         # band: the fitted rates' 95 % intervals, scaled on the loss, plus the model error,
-        # and the placed ramps' edges (:func:`edge_ranges`), their 95 % half-widths added in
-        # quadrature
+        # the clean level's error (:func:`level_error`), and the placed ramps' edges
+        # (:func:`edge_ranges`), their 95 % half-widths added in quadrature
         rel = np.nanmean([abs((f["rate_high"] - f["rate_low"]) / (2 * 1.96 * f["rate"]))
                           for *_, f in g if f["rate"] != 0])
-        low, high = energy_band(energy, float(np.hypot(rel, rel_sigma)))
+        low, high = energy_band(energy, float(np.hypot(rel, rel_sigma)),
+                                _level_sigma_kwh(e_day, level_se))
         edges = np.array([f["edge_kwh"] for *_, f in g if "edge_kwh" in f]).reshape(-1, 2)
         low = energy - float(np.hypot(energy - low, np.sqrt(np.sum(edges[:, 0] ** 2))))
         high = energy + float(np.hypot(high - energy, np.sqrt(np.sum(edges[:, 1] ** 2))))
