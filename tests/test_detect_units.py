@@ -150,6 +150,20 @@ def test_level_error_is_the_standard_error_of_a_mean():
     assert se.iloc[0] > se.iloc[1000]  # the first day's window holds only 31 days
 
 
+def test_ar1_factor_of_independent_and_of_persistent_days():
+    # invented truth: independent days give 1; an AR(1) series with phi = 0.5 has a
+    # long-run variance 3 times its variance ((1 + phi) / (1 - phi), Hamilton 1994 sec. 7.2,
+    # from memory). The deviations from a 15-day rolling median lose part of the slow
+    # swings, so the factor found is lower: between that of phi = 0.3 and 3
+    rng = np.random.default_rng(4)
+    e = rng.normal(0, 0.01, 3000)
+    x = np.zeros_like(e)
+    for i in range(1, len(e)):
+        x[i] = 0.5 * x[i - 1] + e[i]
+    assert soiling.ar1_factor(pd.Series(1 + e)) == pytest.approx(1.0, abs=0.05)
+    assert 1.3 / 0.7 <= soiling.ar1_factor(pd.Series(1 + x)) <= 3.0
+
+
 def test_days_of_other_findings_are_left_out_of_the_index():
     # invented case: a lost string on inverter "b" over days 3-4 (rows 72-119 of hourly rows);
     # its days leave that inverter's index, the other inverter keeps them (common practice:

@@ -42,7 +42,8 @@ above. With a rain gauge the washes are known and only each interval's decline i
 (a least-squares slope over L days has a standard error of sigma sqrt(12 / L^3); the Theil-Sen
 slope's is close to it).
 
-Energy band (95 %): the rate's Theil-Sen interval and the model's daily error, relative to
+Energy band (95 %): the rate's Theil-Sen interval (widened for days in a row that share
+their error) and the model's daily error, relative to
 the loss; the clean level's standard error (a mean of the days of its window), on the
 expected energy; and, for each ramp, how far its energy moves over the wash days the data
 allow (the likelihood-ratio set of a change-point, Hinkley 1970) and with a wash inside it
@@ -284,7 +285,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha,
                    exp_daily.reindex(days).fillna(0.0).to_numpy())
     events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma, exp_daily,
-                               level_error(idx))
+                               level_error(idx), float(np.sqrt(ar1_factor(idx))))
     return events, prints, ratio
 
 
@@ -358,26 +359,39 @@ def cleaning_saving_kwh(ratio: pd.Series, expected_daily_kwh: pd.Series, clean_d
     return float(np.sum(e * (after - ratio[sel].to_numpy())))
 
 
-def long_run_variance(index: pd.Series, half_days: int = 7) -> float:
+def long_run_variance(index: pd.Series) -> float:
+    """Variance of the daily index about its local level times the factor of
+    :func:`ar1_factor`: the long-run variance of an AR(1) series (a fit to days in a row
+    gains that much more by chance than on independent days; Hamilton 1994, sec. 7.2, from
+    memory). Unlike the scale of the raw index, whose persistence includes the soiling ramps
+    themselves, this is the noise about the local level that a ramp competes with."""
+    var, factor = _local_noise(index)
+    return var * factor
+
+
+def ar1_factor(index: pd.Series) -> float:
+    """(1 + phi) / (1 - phi) for the lag-one autocorrelation phi of the daily index about
+    its local level (:func:`_local_noise`): how much a variance from days in a row exceeds
+    the same from independent days (an AR(1) series; Hamilton 1994, sec. 7.2, from memory)."""
+    return _local_noise(index)[1]
+
+
+def _local_noise(index: pd.Series, half_days: int = 7) -> tuple[float, float]:
     """Variance of the daily index about its centred rolling median (2 ``half_days`` + 1 days;
-    1.4826 MAD, robust to outliers), times (1 + phi) / (1 - phi) for the lag-one
-    autocorrelation phi of those deviations (the long-run variance of an AR(1) series: a
-    fit to days in a row gains that much more by chance than on independent days; Hamilton
-    1994, sec. 7.2, from memory; phi clipped to [0, 0.9] as in
-    :func:`perfcheck.detect.common.long_run_sigma`). Unlike that scale of the raw index,
-    whose persistence includes the soiling ramps themselves, this is the noise about the
-    local level that a ramp competes with."""
+    1.4826 MAD, robust to outliers) and (1 + phi) / (1 - phi) for the lag-one autocorrelation
+    phi of those deviations (clipped to [0, 0.9] as in
+    :func:`perfcheck.detect.common.long_run_sigma`)."""
     dev = (index - index.rolling(2 * half_days + 1, center=True, min_periods=half_days)
            .median()).to_numpy()
     ok = np.isfinite(dev)
     if ok.sum() < 10:
-        return float("nan")
+        return float("nan"), 1.0
     d = dev[ok]
     var = float((1.4826 * np.median(np.abs(d - np.median(d)))) ** 2)
     pair = ok[1:] & ok[:-1]
     phi = float(np.corrcoef(dev[1:][pair], dev[:-1][pair])[0, 1]) if pair.sum() > 3 else 0.0
     phi = min(max(phi if np.isfinite(phi) else 0.0, 0.0), 0.9)
-    return var * (1 + phi) / (1 - phi)
+    return var, (1 + phi) / (1 - phi)
 
 
 def huber_clipped(index: pd.Series, k_days: int = 1, k: float = 1.345) -> np.ndarray:
@@ -551,7 +565,11 @@ def _level_sigma_kwh(e_day: pd.Series, se: pd.Series, window: int = 61) -> float
 
 
 def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float,
-              exp_daily: pd.Series, level_se: pd.Series) -> tuple[list[Event], list[Footprint]]:
+              exp_daily: pd.Series, level_se: pd.Series, rate_widen: float
+              ) -> tuple[list[Event], list[Footprint]]:
+    """The soiling episodes as events and footprints. ``rate_widen``: the factor by which
+    the rates' Theil-Sen intervals (independent days, Sen 1968) widen for days in a row
+    that share their error (sqrt of :func:`ar1_factor`)."""
     groups = _groups(fits)
     events, prints = [], []
     days_of = w.day.to_numpy()
@@ -584,8 +602,9 @@ def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: fl
         # band: the fitted rates' 95 % intervals, scaled on the loss, plus the model error,
         # the clean level's error (:func:`level_error`), and the placed ramps' edges
         # (:func:`edge_ranges`), their 95 % half-widths added in quadrature
-        rel = np.nanmean([abs((f["rate_high"] - f["rate_low"]) / (2 * 1.96 * f["rate"]))
-                          for *_, f in g if f["rate"] != 0])
+        rel = rate_widen * np.nanmean([abs((f["rate_high"] - f["rate_low"])
+                                           / (2 * 1.96 * f["rate"]))
+                                       for *_, f in g if f["rate"] != 0])
         low, high = energy_band(energy, float(np.hypot(rel, rel_sigma)),
                                 _level_sigma_kwh(e_day, level_se))
         edges = np.array([f["edge_kwh"] for *_, f in g if "edge_kwh" in f]).reshape(-1, 2)
