@@ -210,7 +210,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     events += ev
     prints += fp
     t = lap("partial", t)
-    meas_fixed = _undo(w, prints)
+    undone = list(prints)  # the findings whose share the measured power gets back
+    meas_fixed = _undo(w, undone)
     w_fixed = dataclasses.replace(w, measured=meas_fixed)
     horizon = {i.id: i.arrays[0].horizon for i in site.inverters}
     ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded, rel_sigma, horizon,
@@ -226,7 +227,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     pi = degradation.ageing_removed(daily_pi(w_fixed, keep),
                                     _plant_pi(w, keep, w_fixed.measured))
     ev, fp, soil_ratio = soiling.detect(w_fixed, pi, rel_sigma, rain_mm=st.soiling_rain_mm,
-                                        alpha=st.alpha)
+                                        alpha=st.alpha, undone=undone)
     events += ev
     prints += fp
     t = lap("soiling", t)

@@ -42,6 +42,15 @@ above. With a rain gauge the washes are known and only each interval's decline i
 (a least-squares slope over L days has a standard error of sigma sqrt(12 / L^3); the Theil-Sen
 slope's is close to it).
 
+Energy band (95 %): the rate's Theil-Sen interval (widened for days in a row that share
+their error) and the model's daily error, relative to
+the loss; the clean level's standard error (a mean of the days of its window), on the
+expected energy; and, for each ramp, how far its energy moves over the wash days the data
+allow (the likelihood-ratio set of a change-point, Hinkley 1970) and with a wash inside it
+too small to place; added in quadrature. Days another finding explains (a lost string, a
+stalled row: their share is put back in the power) are left out of the index: their
+shortfall is not soiling's to take.
+
 The false-alarm probability per interval tested is ``alpha`` (Kendall's test, one-sided
 decline; the run passes 1e-3), and per series ``alpha`` for the steps up (Bonferroni over
 the days), and per side of an episode ``alpha`` for the ramps placed beside it. The
@@ -56,10 +65,13 @@ Photovolt. 8(2):547: the stochastic rate and recovery method (insolation-weighte
 recoveries from rain and from jumps, Theil-Sen rates per interval) (from memory); Kimber,
 Mitchell, Nogradi & Wenger 2006, IEEE 4th WCPEC, the rain-reset soiling model; Jackson et
 al. 2005, "An algorithm for optimal partitioning of data on an interval", IEEE Signal
-Process. Lett. 12(2):105 (from memory).
+Process. Lett. 12(2):105 (from memory); Hinkley 1970, "Inference about the change-point in
+a sequence of random variables", Biometrika 57(1):1 (from memory).
 """
 
 from __future__ import annotations
+
+from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
@@ -86,6 +98,19 @@ METHOD = ("Theil-Sen decline of the daily performance index (without the dull da
 def plant_index(pi: pd.DataFrame) -> pd.Series:
     """Median over inverters of each inverter's daily index divided by its own median."""
     return (pi / pi.median()).median(axis=1, skipna=True)
+
+
+def without_found(pi: pd.DataFrame, w: Wide, found: Sequence[Footprint]) -> pd.DataFrame:
+    """The daily index ``pi`` (days by inverter) with the days of each finding in ``found``
+    left out on its inverters: a shortfall another cause explains is not soiling's to take,
+    and the share put back for it (an estimate of a lost string's or a row's share, which
+    moves with the weather) would leave a drift of its own in the index."""
+    out = pi.copy()
+    for fp in found:
+        touched = pd.DatetimeIndex(np.unique(w.day.to_numpy()[fp.lo:fp.hi]))
+        cols = [c for c in fp.cols if c in out.columns]
+        out.loc[out.index.isin(touched), cols] = np.nan
+    return out
 
 
 def precise_days(index: pd.Series, insolation: pd.Series, alpha: float, half_days: int = 7,
@@ -197,12 +222,16 @@ def _cause(rain_daily: pd.Series, day: pd.Timestamp) -> dict:
 
 
 def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
-           alpha: float = 0.01, min_days: int = 5) -> tuple[list[Event], list[Footprint],
-                                                            pd.Series]:
-    """Soiling episodes, their footprints, and the daily soiling ratio (1 where clean)."""
+           alpha: float = 0.01, min_days: int = 5, undone: Sequence[Footprint] = ()
+           ) -> tuple[list[Event], list[Footprint], pd.Series]:
+    """Soiling episodes, their footprints, and the daily soiling ratio (1 where clean).
+
+    ``undone``: the findings whose share of the power ``w.measured`` has put back (lost
+    strings, stalled rows); their inverters' days are left out of the index
+    (:func:`without_found`)."""
     days = pd.DatetimeIndex(pi.index)
     insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days)
-    idx = precise_days(plant_index(pi), insolation, alpha)
+    idx = precise_days(plant_index(without_found(pi, w, undone)), insolation, alpha)
     # rain: the largest 24-hour total ending within the day
     step_s = float(np.median(w.interval_s))
     roll = w.rain.fillna(0.0).rolling(max(1, int(round(86400 / step_s))), min_periods=1).sum()
@@ -252,8 +281,11 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         f["clean_level"] = float(np.mean(ref))
         f["onset_at"] = int(np.flatnonzero(sel)[0]) + onset
         ratio[sel] = np.minimum(1.0, line / ref)
-    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha)
-    events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma)
+    exp_daily = w.energy_kwh(w.expected).sum(axis=1).groupby(w.day.to_numpy()).sum()
+    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha,
+                   exp_daily.reindex(days).fillna(0.0).to_numpy())
+    events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma, exp_daily,
+                               level_error(idx), float(np.sqrt(ar1_factor(idx))))
     return events, prints, ratio
 
 
@@ -327,26 +359,39 @@ def cleaning_saving_kwh(ratio: pd.Series, expected_daily_kwh: pd.Series, clean_d
     return float(np.sum(e * (after - ratio[sel].to_numpy())))
 
 
-def long_run_variance(index: pd.Series, half_days: int = 7) -> float:
+def long_run_variance(index: pd.Series) -> float:
+    """Variance of the daily index about its local level times the factor of
+    :func:`ar1_factor`: the long-run variance of an AR(1) series (a fit to days in a row
+    gains that much more by chance than on independent days; Hamilton 1994, sec. 7.2, from
+    memory). Unlike the scale of the raw index, whose persistence includes the soiling ramps
+    themselves, this is the noise about the local level that a ramp competes with."""
+    var, factor = _local_noise(index)
+    return var * factor
+
+
+def ar1_factor(index: pd.Series) -> float:
+    """(1 + phi) / (1 - phi) for the lag-one autocorrelation phi of the daily index about
+    its local level (:func:`_local_noise`): how much a variance from days in a row exceeds
+    the same from independent days (an AR(1) series; Hamilton 1994, sec. 7.2, from memory)."""
+    return _local_noise(index)[1]
+
+
+def _local_noise(index: pd.Series, half_days: int = 7) -> tuple[float, float]:
     """Variance of the daily index about its centred rolling median (2 ``half_days`` + 1 days;
-    1.4826 MAD, robust to outliers), times (1 + phi) / (1 - phi) for the lag-one
-    autocorrelation phi of those deviations (the long-run variance of an AR(1) series: a
-    fit to days in a row gains that much more by chance than on independent days; Hamilton
-    1994, sec. 7.2, from memory; phi clipped to [0, 0.9] as in
-    :func:`perfcheck.detect.common.long_run_sigma`). Unlike that scale of the raw index,
-    whose persistence includes the soiling ramps themselves, this is the noise about the
-    local level that a ramp competes with."""
+    1.4826 MAD, robust to outliers) and (1 + phi) / (1 - phi) for the lag-one autocorrelation
+    phi of those deviations (clipped to [0, 0.9] as in
+    :func:`perfcheck.detect.common.long_run_sigma`)."""
     dev = (index - index.rolling(2 * half_days + 1, center=True, min_periods=half_days)
            .median()).to_numpy()
     ok = np.isfinite(dev)
     if ok.sum() < 10:
-        return float("nan")
+        return float("nan"), 1.0
     d = dev[ok]
     var = float((1.4826 * np.median(np.abs(d - np.median(d)))) ** 2)
     pair = ok[1:] & ok[:-1]
     phi = float(np.corrcoef(dev[1:][pair], dev[:-1][pair])[0, 1]) if pair.sum() > 3 else 0.0
     phi = min(max(phi if np.isfinite(phi) else 0.0, 0.0), 0.9)
-    return var * (1 + phi) / (1 - phi)
+    return var, (1 + phi) / (1 - phi)
 
 
 def huber_clipped(index: pd.Series, k_days: int = 1, k: float = 1.345) -> np.ndarray:
@@ -378,8 +423,8 @@ def _groups(fits: list) -> list[list]:
 
 
 def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
-            rain_daily: pd.Series, soiled: np.ndarray, alpha: float, passes: int = 5
-            ) -> list:
+            rain_daily: pd.Series, soiled: np.ndarray, alpha: float, energy: np.ndarray,
+            passes: int = 5) -> list:
     """Each found episode reaches as far as its rate explains the days beside it
     (:func:`sawtooth_extent`, backward from its onset to the previous episode and forward
     from its last recovery to the next one): the washes in between are too small to find
@@ -390,7 +435,9 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
     The clean level beside an episode is the 61-day rolling mean of the index with the
     soiling taken out (the found intervals, ``soiled``, left out; the ramps divided by their
     ratio), fitted in turns with the ramps until they stay (at most ``passes``): soiling
-    beside an episode would pull a level of the raw index down and hide itself."""
+    beside an episode would pull a level of the raw index down and hide itself. Each ramp
+    carries how far its energy could move with the wash it was placed at
+    (:func:`edge_ranges`; ``energy``: the expected energy per day [kWh])."""
     if not fits:
         return fits
     days = pd.DatetimeIndex(idx.index)
@@ -408,28 +455,41 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
             break
         cuts = new
         ramp_ratio = np.ones(len(days))
-        for lo, cut, rel in cuts:
+        for lo, _hi, cut, rel in cuts:
             for a, b in zip(cut[:-1], cut[1:], strict=True):
                 ramp_ratio[lo + a:lo + b] = np.clip(1 - rel * (np.arange(b - a) + 0.5), 0, 1)
     out: list = []
     for g, (back, fwd) in zip(groups, zip(cuts[0::2], cuts[1::2], strict=True), strict=True):
         first = g[0][3]
-        segs = [_ramps(lo, cut, rel, f, days, y, level, rec_at, rain_daily)
-                for (lo, cut, rel), f in ((back, first), (fwd, g[-1][3]))]
+        segs = [_ramps(lo, cut, rel, f, days, y, level, rec_at, rain_daily,
+                       edge_ranges(y[lo:hi], _near(level, lo, hi, f), rel, cut, forward,
+                                   energy[lo:hi], var))
+                for (lo, hi, cut, rel), f, forward in ((back, first, False),
+                                                       (fwd, g[-1][3], True))]
         if segs[0]:  # the found interval now begins at its onset, a wash of the ramps before
             start = days[first["onset_at"]]
             a0, b0, sel0, f0 = g[0]
             f0["onset"] = start
             g[0] = (start, b0, sel0 & (days >= start), f0)
+        for k, (_a, _b, sel, f) in enumerate(g):  # the uncertain onset of each found one
+            on = np.flatnonzero(sel)
+            # its onset is a wash of the ramps before it, or the end of its clean plateau
+            lo, cut = (back[0], back[2]) if k == 0 and segs[0] else \
+                (int(on[0]), [f["onset_at"] - int(on[0])])
+            end = int(on[-1]) + 1
+            f["edge_kwh"] = edge_ranges(y[lo:end], _near(level, lo, end, f),
+                                        -f["rate"] / f["clean_level"], cut + [end - lo],
+                                        False, energy[lo:end], var)[-1]
         out += segs[0] + g + segs[1]
     ratio.iloc[:] = np.where(ramp_ratio < 1, ramp_ratio, ratio.to_numpy())
     return out
 
 
 def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex,
-          var: float, alpha: float) -> list[tuple[int, list[int], float]]:
+          var: float, alpha: float) -> list[tuple[int, int, list[int], float]]:
     """The ramps beside each episode (:func:`sawtooth_extent`): per episode, backward then
-    forward, (first day's position, boundaries, rate as a share of the clean level)."""
+    forward, (first and end positions of the days searched, boundaries from the first,
+    rate as a share of the clean level)."""
     out: list = []
     read = pd.Series(np.isfinite(y)).rolling(61, center=True, min_periods=1).sum().to_numpy() \
         >= 10
@@ -450,20 +510,26 @@ def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex
                 lo, hi = (lo, lo + gone[0]) if forward else (lo + gone[-1] + 1, hi)
             cut: list[int] = []
             if hi > lo and np.isfinite(var):
-                lev = np.where(np.isfinite(level[lo:hi]), level[lo:hi], f["clean_level"])
-                cut = sawtooth_extent(y[lo:hi], lev, rel, var * ramp_penalty(hi - lo, alpha),
-                                      forward)
-            out.append((lo, cut, rel))
+                cut = sawtooth_extent(y[lo:hi], _near(level, lo, hi, f), rel,
+                                      var * ramp_penalty(hi - lo, alpha), forward)
+            out.append((lo, hi, cut, rel))
             done = max(done, lo + (cut[-1] if cut else 0), end)
     return out
 
 
+def _near(level: np.ndarray, lo: int, hi: int, f: dict) -> np.ndarray:
+    """The clean level on the days [lo, hi) beside the interval ``f``, its own clean level
+    where the rolling level has too few days."""
+    return np.where(np.isfinite(level[lo:hi]), level[lo:hi], f["clean_level"])
+
+
 def _ramps(lo: int, cut: list[int], rel: float, f: dict, days: pd.DatetimeIndex,
-           y: np.ndarray, level: np.ndarray, rec_at: dict, rain_daily: pd.Series) -> list:
-    """The ramps [lo + cut[k], lo + cut[k + 1]) as soiling intervals of the rate of ``f``;
-    their washes join ``rec_at``."""
+           y: np.ndarray, level: np.ndarray, rec_at: dict, rain_daily: pd.Series,
+           edges: list[tuple[float, float]]) -> list:
+    """The ramps [lo + cut[k], lo + cut[k + 1]) as soiling intervals of the rate of ``f``,
+    each with its ``edges`` (:func:`edge_ranges`); their washes join ``rec_at``."""
     segs = []
-    for a, b in zip(cut[:-1], cut[1:], strict=True):
+    for (a, b), edge in zip(zip(cut[:-1], cut[1:], strict=True), edges, strict=True):
         sel = np.zeros(len(days), dtype=bool)
         sel[lo + a:lo + b] = True
         end = days[lo + b] if lo + b < len(days) else days[-1] + pd.Timedelta(days=1)
@@ -471,17 +537,40 @@ def _ramps(lo: int, cut: list[int], rel: float, f: dict, days: pd.DatetimeIndex,
              "rate_high": f["rate_high"], "slope": float("nan"), "p_value": float("nan"),
              "n": int(np.isfinite(y[lo + a:lo + b]).sum()),
              "clean_level": float(np.nanmean(level[lo + a:lo + b])) if
-             np.isfinite(level[lo + a:lo + b]).any() else f["clean_level"], "placed": True}
+             np.isfinite(level[lo + a:lo + b]).any() else f["clean_level"], "placed": True,
+             "edge_kwh": edge}
         segs.append((days[lo + a], end, sel, e))
         if end not in rec_at and lo + b < len(days):
             rec_at[end] = {"day": end, **_cause(rain_daily, end), "detected_step": None}
     return segs
 
 
-def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float
+def level_error(index: pd.Series, window: int = 61) -> pd.Series:
+    """Relative standard error of the clean level a day's soiling is measured from: the
+    mean of the index's days within the level's ``window``, sqrt(v / m) with v the
+    long-run variance of the index (:func:`long_run_variance`, autocorrelation counted) and
+    m the days read in the window."""
+    m = index.notna().astype(float).rolling(window, center=True, min_periods=1).sum()
+    return np.sqrt(long_run_variance(index) / m.where(m > 0))
+
+
+def _level_sigma_kwh(e_day: pd.Series, se: pd.Series, window: int = 61) -> float:
+    """Standard error of an episode's soiling energy from its clean level's error ``se``
+    (:func:`level_error`) on days of expected energy ``e_day`` [kWh]: the level is shared
+    by the days of a ``window`` (added linearly within each block of that many days) and
+    independent between blocks (in quadrature)."""
+    c = (e_day * se.reindex(e_day.index)).fillna(0.0).to_numpy()
+    block = np.arange(len(c)) // window
+    return float(np.sqrt(np.sum(np.bincount(block, weights=c) ** 2)))
+
+
+def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float,
+              exp_daily: pd.Series, level_se: pd.Series, rate_widen: float
               ) -> tuple[list[Event], list[Footprint]]:
+    """The soiling episodes as events and footprints. ``rate_widen``: the factor by which
+    the rates' Theil-Sen intervals (independent days, Sen 1968) widen for days in a row
+    that share their error (sqrt of :func:`ar1_factor`)."""
     groups = _groups(fits)
-    exp_daily = w.energy_kwh(w.expected).sum(axis=1).groupby(w.day.to_numpy()).sum()
     events, prints = [], []
     days_of = w.day.to_numpy()
     for g in groups:
@@ -510,10 +599,17 @@ def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: fl
                              "soiling_loss_pct_before": 100 * lo_r,
                              "detected_step_pct": None if r["detected_step"] is None
                              else 100 * r["detected_step"]})
-        # band: the fitted rates' 95 % intervals, scaled on the loss, plus the model error
-        rel = np.nanmean([abs((f["rate_high"] - f["rate_low"]) / (2 * 1.96 * f["rate"]))
-                          for *_, f in g if f["rate"] != 0])
-        low, high = energy_band(energy, float(np.hypot(rel, rel_sigma)))
+        # band: the fitted rates' 95 % intervals, scaled on the loss, plus the model error,
+        # the clean level's error (:func:`level_error`), and the placed ramps' edges
+        # (:func:`edge_ranges`), their 95 % half-widths added in quadrature
+        rel = rate_widen * np.nanmean([abs((f["rate_high"] - f["rate_low"])
+                                           / (2 * 1.96 * f["rate"]))
+                                       for *_, f in g if f["rate"] != 0])
+        low, high = energy_band(energy, float(np.hypot(rel, rel_sigma)),
+                                _level_sigma_kwh(e_day, level_se))
+        edges = np.array([f["edge_kwh"] for *_, f in g if "edge_kwh" in f]).reshape(-1, 2)
+        low = energy - float(np.hypot(energy - low, np.sqrt(np.sum(edges[:, 0] ** 2))))
+        high = energy + float(np.hypot(high - energy, np.sqrt(np.sum(edges[:, 1] ** 2))))
         savings = {}
         for a_i, b_i, _sel, f in g:
             for k in range(7, int((b_i - a_i).days), 7):
@@ -580,6 +676,67 @@ def ramp_penalty(n: int, alpha: float) -> float:
     (:func:`long_run_variance`): days in a row share their error."""
     m = max(1.0, n * (n + 1) / 2)
     return float(stats.norm.isf(alpha / m) ** 2)
+
+
+def edge_ranges(y: np.ndarray, level: np.ndarray, rate: float, cut: list[int], forward: bool,
+                energy: np.ndarray, var: float, level_95: float = 3.841
+                ) -> list[tuple[float, float]]:
+    """How far each ramp's soiling energy could move with the day it starts or ends, the
+    other boundaries held: per ramp [cut[k], cut[k + 1]) of :func:`sawtooth_extent` (same
+    ``y``, ``level``, ``rate``, ``forward``), (down, up) [kWh] of the energy of the ramps
+    beside its free boundary over the positions whose sum of squares (:func:`sawtooth_sums`)
+    is within ``level_95`` times the noise variance ``var`` of the least: the
+    likelihood-ratio set of a change-point, chi-square with 1 degree of freedom at 95 %
+    (Hinkley 1970, "Inference about the change-point in a sequence of random variables",
+    Biometrika 57(1):1; the chi-square is an approximation there, from memory).
+
+    The free boundary of a ramp is its start (a wash, or the soiling's first day when it is
+    the first) where the ramps precede the episode, its end where they follow it: the
+    boundary at the episode is the episode's own. A wash the data cannot rule out inside a
+    ramp (one more boundary, by the same set) lowers its energy too: (down) is the two
+    ranges' half-widths added in quadrature. ``energy``: the expected energy per day
+    [kWh]; a ramp loses ``rate`` (t - start + 0.5) of a day's."""
+    if len(cut) < 2:
+        return []
+    clean, ramp = sawtooth_sums(y, level, rate)
+    e = np.concatenate([[0.0], np.cumsum(energy)])
+    et = np.concatenate([[0.0], np.cumsum(energy * (np.arange(len(energy)) + 0.5))])
+
+    def lost(i, j):  # a ramp's soiling energy over [i, j), washed at the start of day i
+        i, j = np.asarray(i), np.asarray(j)
+        return rate * (et[j] - et[i] - i * (e[j] - e[i]))
+
+    n = len(y)
+    out = []
+    for k in range(len(cut) - 1):
+        b = k if not forward else k + 1  # the ramp's free boundary
+        prev = cut[b - 1] if b > 0 else 0
+        nxt = cut[b + 1] if b + 1 < len(cut) else n
+        lo_c, hi_c = (prev + (b > 0), nxt - (b + 1 < len(cut)))
+        c = np.arange(lo_c, hi_c + 1)
+        if len(c) == 0:
+            out.append((0.0, 0.0))
+            continue
+        if b == 0:  # clean before the first ramp
+            sse, en = clean(0, c) + ramp(c, nxt), lost(c, nxt)
+        elif b == len(cut) - 1:  # clean after the last ramp
+            sse, en = ramp(prev, c) + clean(c, n), lost(prev, c)
+        else:
+            sse, en = ramp(prev, c) + ramp(c, nxt), lost(prev, c) + lost(c, nxt)
+        ok = sse <= np.min(sse) + level_95 * var
+        here = float(en[c == cut[b]][0])
+        down, up = max(0.0, here - float(en[ok].min())), max(0.0, float(en[ok].max()) - here)
+        # a wash inside the ramp too small to place (it lowers the energy)
+        i, j = cut[k], cut[k + 1]
+        c = np.arange(i + 1, j)
+        if len(c):
+            sse, whole = ramp(i, c) + ramp(c, j), float(ramp(i, j))
+            ok = sse <= min(float(np.min(sse)), whole) + level_95 * var
+            if ok.any():
+                split = float(lost(i, j)) - float(np.min((lost(i, c) + lost(c, j))[ok]))
+                down = float(np.hypot(down, max(0.0, split)))
+        out.append((down, up))
+    return out
 
 
 def sawtooth_extent(y: np.ndarray, level: np.ndarray, rate: float, penalty: float,
