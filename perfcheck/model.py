@@ -7,7 +7,8 @@ result (:func:`run`, the only function here that touches DuckDB).
 Choices (all from the site file, ``[model]`` and ``[losses]``):
 
 * Sun position once per site and time axis, at interval mid-points (see
-  :func:`perfcheck.physics.interval_midpoints`), shared by every inverter.
+  :func:`perfcheck.physics.interval_midpoints`), shared by every inverter and with the quality
+  stage of the same command (:class:`perfcheck.physics.SunPositions`).
 * Irradiance source ``auto`` uses the plane-of-array sensor where one is logged, else GHI.
   The sensor plane defaults to the first array's plane. An array in the sensor's plane takes the
   sensor's reading (``poa_source = 'sensor'``; in ``auto`` intervals without a reading fall back
@@ -57,7 +58,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import align, db, ingest
+from perfcheck import align, db, ingest, quality
 from perfcheck import physics as ph
 from perfcheck.errors import DataError
 from perfcheck.lazy import lazy_module
@@ -222,14 +223,17 @@ def sensor_orientation(site: Site, sun: pd.DataFrame
 # the chain (pure)
 
 
-def site_sun(times: pd.DatetimeIndex, site: Site, step_s: float) -> pd.DataFrame:
+def site_sun(times: pd.DatetimeIndex, site: Site, step_s: float,
+             positions: ph.SunPositions | None = None) -> pd.DataFrame:
     """Sun position, air mass, extraterrestrial and clear-sky irradiance for interval starts.
 
-    Computed at the interval mid-points, indexed by the interval starts ``times``.
+    Computed at the interval mid-points, indexed by the interval starts ``times``; the sun's
+    position is taken from ``positions`` (those the quality stage of the command kept), else
+    computed.
     """
     pressure = float(pvlib.atmosphere.alt2pres(site.altitude_m))
     mid = ph.interval_midpoints(times, step_s)
-    sun = ph.solar_position(mid, site.latitude_deg, site.longitude_deg, site.altitude_m, pressure)
+    sun = (positions or quality.sun_positions(site)).at(mid)
     sun = sun.join(ph.atmosphere(sun, pressure))
     sun["clearsky_ghi"] = ph.clearsky_ghi(sun, site.latitude_deg, site.longitude_deg,
                                           site.altitude_m, sun["airmass_absolute"],
@@ -560,12 +564,15 @@ def _run_record(con: duckdb.DuckDBPyConnection, params: dict[str, Any]) -> tuple
 
 
 def run(con: duckdb.DuckDBPyConnection, site: Site,
-        progress: Callable[[str], None] | None = None) -> dict[str, Any]:
+        progress: Callable[[str], None] | None = None,
+        sun: ph.SunPositions | None = None) -> dict[str, Any]:
     """Build or refresh the expected series and the aligned table for the stored readings.
 
     Only intervals touched by readings that arrived since the last run with the same
-    parameters are computed. Returns a summary: ``model_run_id``, ``computed_from``,
-    ``computed_to`` (None when nothing was new), ``rows``, ``checks``.
+    parameters are computed. ``sun``: the sun's positions kept by the quality stage of the
+    same command (:func:`perfcheck.quality.run`), when it ran. Returns a summary:
+    ``model_run_id``, ``computed_from``, ``computed_to`` (None when nothing was new),
+    ``rows``, ``checks``.
 
     Raises DataError when there are no readings or no irradiance readings.
     """
@@ -597,7 +604,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
             # each month's weather is read while the month before is computed
             weathers = db.read_ahead(con, lambda cur, s: stored_weather(cur, step, held, *s),
                                      spans)
-            parts = [_compute(con, site, run_id, step, weather, a, b)
+            sun = sun or quality.sun_positions(site)
+            parts = [_compute(con, site, run_id, step, weather, a, b, sun)
                      for (a, b), weather in zip(spans, weathers, strict=True)]
             daily = [p["daily"] for p in parts if p["daily"] is not None]
             result.update(computed_from=start, computed_to=end,
@@ -619,13 +627,13 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
 
 
 def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
-             weather: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp
-             ) -> dict[str, Any]:
+             weather: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp,
+             positions: ph.SunPositions) -> dict[str, Any]:
     """Expected rows and conditions of [``start``, ``end``) from ``weather``
-    (:func:`stored_weather`), stored under run ``run_id``."""
+    (:func:`stored_weather`), stored under run ``run_id``, the sun from ``positions``."""
     if weather.empty:
         return {"rows": 0, "daily": None}
-    sun = site_sun(weather.index, site, step)
+    sun = site_sun(weather.index, site, step, positions)
     irradiance_source(site, weather)  # no irradiance in this span: its error, before any work
     comps = horizontal_components(weather, sun, site)  # decomposed once, used twice below
     planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]] = {}

@@ -126,6 +126,9 @@ def sun_time_terms(unixtime: np.ndarray, delta_t: float | None = None,
     return terms
 
 
+SOLAR_POSITION = ("apparent_zenith", "zenith", "apparent_elevation", "elevation", "azimuth")
+
+
 def solar_position(times: pd.DatetimeIndex, latitude: float, longitude: float,
                    altitude: float = 0.0, pressure: float | None = None,
                    temperature: float = 12.0, delta_t: float | None = None,
@@ -191,6 +194,45 @@ def solar_position(times: pd.DatetimeIndex, latitude: float, longitude: float,
         },
         index=times,
     )
+
+
+class SunPositions:
+    """The sun at one site (:func:`solar_position` with its defaults: delta_t by pvlib's
+    polynomial, pressure from the altitude), each time axis computed once per command.
+
+    The quality stage computes the sun at the mid-points of every stored reading's interval
+    and keeps them (:meth:`keep`); the model of the same command takes its instants from there
+    (:meth:`at`) and computes only those not kept. The kept values are the full algorithm's, so
+    both stages see the same sun. One object serves one site for one command.
+    """
+
+    def __init__(self, latitude: float, longitude: float, altitude: float = 0.0) -> None:
+        self.latitude, self.longitude, self.altitude = latitude, longitude, altitude
+        self._kept: pd.DataFrame | None = None
+
+    def compute(self, times: pd.DatetimeIndex) -> pd.DataFrame:
+        """:func:`solar_position` at ``times`` (none: an empty frame of its columns)."""
+        if not len(times):  # solar_position needs at least one instant
+            return pd.DataFrame({c: pd.Series([], dtype=float) for c in SOLAR_POSITION},
+                                index=times)
+        return solar_position(times, self.latitude, self.longitude, self.altitude)
+
+    def keep(self, times: pd.DatetimeIndex) -> pd.DataFrame:
+        """:meth:`compute` at ``times``, kept for :meth:`at`."""
+        pos = self.compute(times)
+        kept = pos if self._kept is None else pd.concat([self._kept, pos])
+        self._kept = kept[~kept.index.duplicated()].sort_index()
+        return pos
+
+    def at(self, times: pd.DatetimeIndex) -> pd.DataFrame:
+        """The sun at ``times``: kept instants looked up, the others computed."""
+        if self._kept is None:
+            return self.compute(times)
+        pos = self._kept.reindex(times)
+        missing = pos["azimuth"].isna().to_numpy()
+        if missing.any():
+            pos.loc[missing] = self.compute(times[missing]).to_numpy()
+        return pos
 
 
 def declination_spencer71(dayofyear: np.ndarray) -> np.ndarray:

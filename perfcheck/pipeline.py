@@ -26,9 +26,10 @@ def update(con: duckdb.DuckDBPyConnection, site: Site, paths: Iterable[str | Pat
     with progress.bar("ingest", len(paths), quiet) as b:
         results = ingest.ingest_files(con, site, paths, progress=lambda r: b.step(
             Path(r.path).name))
-    quality.run(con, site)
+    sun = quality.sun_positions(site)  # computed once, for the flags and the model
+    quality.run(con, site, sun)
     with progress.bar("model", None, quiet) as b:
-        model.run(con, site, progress=b.step)
+        model.run(con, site, progress=b.step, sun=sun)
     with progress.bar("analysis", None, quiet) as b:
         analysis.update(con, site, progress=b.step)
     return results

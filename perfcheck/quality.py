@@ -29,7 +29,8 @@ values of report-by-exception historians (:func:`carry_forward`) and the unit ch
 site file's corrections (:func:`perfcheck.units.run`).
 
 The sun position is computed once per distinct interval mid-point by the SPA of
-:func:`perfcheck.physics.solar_position` (the one the model uses).
+:func:`perfcheck.physics.solar_position`, and kept for the model of the same command
+(:class:`perfcheck.physics.SunPositions`): both stages see the same sun.
 
 References
 ----------
@@ -168,19 +169,17 @@ def _dc_w(site: Site, device: str) -> float:
     return 1e3 * site.inverter(device).dc_kwp
 
 
-def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.DataFrame:
-    """Sun at the mid-point of each interval starting at ``starts`` (UTC).
+def sun_table(sun: physics.SunPositions, starts: pd.DatetimeIndex, interval_min: int
+              ) -> pd.DataFrame:
+    """Sun at the mid-point of each interval starting at ``starts`` (UTC), kept in ``sun``
+    for the model of the same command.
 
     Returns columns ts (interval start), interval_min, elevation_deg (apparent, refracted),
     mu0 (cosine of the zenith, 0 when the sun is down) and sa_wm2 (extraterrestrial normal
     irradiance for the day, pvlib's ``get_extra_radiation``, Spencer 1971).
     """
     mid = physics.interval_midpoints(starts, 60.0 * interval_min)
-    if len(mid):  # delta_t: pvlib's default for get_solarposition (TT - UT1 [s])
-        pos = physics.solar_position(mid, site.latitude_deg, site.longitude_deg,
-                                     altitude=site.altitude_m, delta_t=67.0)
-    else:  # physics.solar_position needs at least one instant
-        pos = pd.DataFrame({"apparent_zenith": [], "apparent_elevation": []}, dtype=float)
+    pos = sun.keep(mid)
     zenith = pos["apparent_zenith"].to_numpy()
     # the extraterrestrial irradiance depends on the day only: once per UTC day
     days, at = np.unique(physics.unix_seconds(mid) // 86400, return_inverse=True)
@@ -194,16 +193,21 @@ def sun_table(site: Site, starts: pd.DatetimeIndex, interval_min: int) -> pd.Dat
     })
 
 
-def _sun_for_readings(con: duckdb.DuckDBPyConnection, site: Site,
+def sun_positions(site: Site) -> physics.SunPositions:
+    """The sun of ``site`` for one command (its quality stage and its model)."""
+    return physics.SunPositions(site.latitude_deg, site.longitude_deg, site.altitude_m)
+
+
+def _sun_for_readings(con: duckdb.DuckDBPyConnection, sun: physics.SunPositions,
                       channels: pd.DataFrame) -> pd.DataFrame:
     frames = []
     for interval, chans in channels.groupby("interval_min"):
         # every stored value, also those the unit check leaves out
         ts = ingest.channel_instants(con, chans["channel_id"].tolist())
         if len(ts):
-            frames.append(sun_table(site, ts, int(interval)))
+            frames.append(sun_table(sun, ts, int(interval)))
     if not frames:
-        return sun_table(site, pd.DatetimeIndex([], tz="UTC"), 5)
+        return sun_table(sun, pd.DatetimeIndex([], tz="UTC"), 5)
     return pd.concat(frames, ignore_index=True)
 
 
@@ -236,14 +240,16 @@ def stale(con: duckdb.DuckDBPyConnection, site: Site | None = None) -> bool:
         site is not None and not units.current(con, site)))
 
 
-def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
+def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | None = None
+        ) -> dict[str, int]:
     """Recompute the carried values, the unit check (:func:`perfcheck.units.run`) and all
     flags from the stored readings, in one transaction that also records the newest file they
-    include (see :func:`stale`); returns the count per flag name."""
+    include (see :func:`stale`); returns the count per flag name. The sun at the readings is
+    kept in ``sun`` (default: :func:`sun_positions` of ``site``)."""
     channels = channel_limits(site, ingest.channel_intervals(con)).merge(
         con.execute("SELECT quantity, device, channel_id FROM channels").df(),
         on=["quantity", "device"])
-    sun = _sun_for_readings(con, site, channels)
+    table = _sun_for_readings(con, sun or sun_positions(site), channels)
     params = {
         "stuck_minutes": STUCK_MINUTES,
         "stuck_min_intervals": STUCK_MIN_INTERVALS,
@@ -258,7 +264,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
         "irradiance_floor": IRRADIANCE_FLOOR_WM2,
     }
     con.register("_quality_channels", channels)
-    con.register("_quality_sun", sun)
+    con.register("_quality_sun", table)
     try:
         con.execute("BEGIN TRANSACTION")
         try:
@@ -282,4 +288,4 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
     return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
 
 
-__all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "stale", "sun_table"]
+__all__ = ["FLAG_NAMES", "LIMITS", "channel_limits", "run", "stale", "sun_positions", "sun_table"]

@@ -17,18 +17,22 @@
 -- only the channel id, the instant, the value and booleans; names and ratings join the few
 -- runs and gaps found.
 INSERT INTO flags
-WITH r AS (
+WITH v AS (  -- the booleans first: the sort of the window then carries no text
     SELECT r.ts, c.channel_id, r.value,
            list_contains($never_stuck, r.quantity) AS never_stuck,
            coalesce(s.elevation_deg > $day_elevation, false) AS day,
-           coalesce(abs(r.value) <= c.rest_level, false) AS at_rest,
-           CASE WHEN r.value IS DISTINCT FROM lag(r.value) OVER w THEN 1 ELSE 0 END AS starts,
-           r.value IS NOT DISTINCT FROM lead(r.value) OVER w AS repeats_next,
-           lead(r.ts) OVER w AS next_ts
+           coalesce(abs(r.value) <= c.rest_level, false) AS at_rest
     FROM readings r
     JOIN _quality_channels c USING (channel_id)
     LEFT JOIN _quality_sun s ON s.ts = r.ts AND s.interval_min = c.interval_min
-    WINDOW w AS (PARTITION BY c.channel_id ORDER BY r.ts)
+),
+r AS (
+    SELECT *,
+           CASE WHEN value IS DISTINCT FROM lag(value) OVER w THEN 1 ELSE 0 END AS starts,
+           value IS NOT DISTINCT FROM lead(value) OVER w AS repeats_next,
+           lead(ts) OVER w AS next_ts
+    FROM v
+    WINDOW w AS (PARTITION BY channel_id ORDER BY ts)
 ),
 -- Only the readings that can belong to a stuck run get a run id (never_stuck quantities
 -- only share the sort, for their gaps): at rest is a property of the

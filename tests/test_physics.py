@@ -59,6 +59,23 @@ def test_default_delta_t_as_full_spa_across_years():
     assert np.abs(d_az).max() < 1e-5
 
 
+def test_shared_sun_positions_as_full_spa():
+    # The sun kept by the quality stage (a year of 1-minute mid-points) and looked up by the
+    # model (a month at its interval, some instants kept and some not) against pvlib's full SPA
+    # (numpy, delta_t=None: the same polynomial); DESIGN asks for well under 0.001 deg.
+    kept = pd.date_range("2025-01-01 00:00:30", periods=525_600, freq="min", tz="UTC")
+    sun = ph.SunPositions(47.5, 8.7, 450.0)
+    sun.keep(kept)
+    asked = pd.date_range("2025-06-01 00:00:30", "2025-07-01", freq="150s", tz="UTC")
+    assert 0 < asked.isin(kept).sum() < len(asked)
+    got = sun.at(asked)
+    ref = pvlib.solarposition.get_solarposition(asked, 47.5, 8.7, 450.0, method="nrel_numpy",
+                                                delta_t=None)
+    assert_allclose(got["apparent_zenith"], ref["apparent_zenith"], atol=1e-5)
+    d_az = (got["azimuth"] - ref["azimuth"] + 180) % 360 - 180
+    assert np.abs(d_az).max() < 1e-5
+
+
 @pytest.mark.parametrize("lat, lon, tz", [(47.5, 8.7, "Europe/Zurich"),
                                            (-33.9, 151.2, "Australia/Sydney"),
                                            (69.6, 18.9, "Europe/Oslo"),  # polar day and night

@@ -8,7 +8,7 @@ import pytest
 from logger_files import write_case
 from numpy.testing import assert_allclose
 
-from perfcheck import db, quality
+from perfcheck import db, physics, quality
 from perfcheck.ingest import ingest_files
 from perfcheck.site import load_site
 
@@ -20,7 +20,7 @@ DAY = pd.date_range("2024-06-01 00:00", "2024-06-01 23:55", freq="5min", tz="UTC
 def clear_day():
     """A plausible 5-minute day for the test site: POA from the sun's height, power from POA."""
     rng = np.random.default_rng(7)
-    sun = quality.sun_table(_site_stub(48.0, 11.0), DAY, 5)  # the site of logger_files.SITE
+    sun = quality.sun_table(SUN, DAY, 5)
     poa = np.round(1000 * sun["mu0"].to_numpy() ** 1.1 + rng.normal(0, 3, len(DAY)), 1)
     poa = np.where(sun["elevation_deg"] < 0, np.round(rng.normal(-1, 0.3, len(DAY)), 1), poa)
     power_kw = np.round(np.clip(poa, 0, None) * 0.009 * rng.uniform(0.98, 1.0, len(DAY)), 3)
@@ -33,9 +33,7 @@ def clear_day():
     }), sun
 
 
-class _site_stub:  # noqa: N801 - the few attributes sun_table reads
-    def __init__(self, lat, lon):
-        self.latitude_deg, self.longitude_deg, self.altitude_m = lat, lon, 500.0
+SUN = physics.SunPositions(48.0, 11.0, 500.0)  # the site of logger_files.SITE
 
 
 def flagged(tmp_path, frame, drop=(), columns=COLUMNS):
@@ -156,9 +154,9 @@ def test_sun_table_matches_pvlib_at_midpoints(interval):
     import pvlib
 
     starts = pd.date_range("2024-06-01 10:00", periods=3, freq=f"{interval}min", tz="UTC")
-    got = quality.sun_table(_site_stub(48.0, 11.0), starts, interval)
+    got = quality.sun_table(physics.SunPositions(48.0, 11.0, 500.0), starts, interval)
     ref = pvlib.solarposition.get_solarposition(
-        starts + pd.Timedelta(minutes=interval / 2), 48.0, 11.0, altitude=500.0)
+        starts + pd.Timedelta(minutes=interval / 2), 48.0, 11.0, altitude=500.0, delta_t=None)
     assert_allclose(got["elevation_deg"], ref["apparent_elevation"], atol=1e-9)
 
 

@@ -21,6 +21,8 @@ if TYPE_CHECKING:
     import duckdb
     import pandas as pd
 
+    from perfcheck import physics
+
 
 db = lazy_module("perfcheck.db")
 periods = lazy_module("perfcheck.periods")
@@ -120,13 +122,15 @@ def period_args(month: str | None, date_from: Any, date_to: Any) -> str:
     return f"--from {date_from:%Y-%m-%d} --to {date_to:%Y-%m-%d}"
 
 
-def refresh_quality(con: duckdb.DuckDBPyConnection, site: Site) -> None:
+def refresh_quality(con: duckdb.DuckDBPyConnection, site: Site,
+                    sun: physics.SunPositions | None = None) -> None:
     """Recompute the quality stage (flags and unit check) when it is stale: files ingested
     since it last ran, or the site file's [[corrections]] or carry_forward_min changed. Print
-    the count per flag and each suspected unit error."""
+    the count per flag and each suspected unit error. The sun it computes is kept in ``sun``
+    (for the model of the same command)."""
     if not quality.stale(con, site):
         return
-    counts = quality.run(con, site)
+    counts = quality.run(con, site, sun)
     click.echo("quality flags: " + ", ".join(f"{k} {v}" for k, v in counts.items()))
     for line in units.words(units.report(con)):
         click.echo(line)

@@ -18,6 +18,7 @@ if TYPE_CHECKING:
 align = lazy_module("perfcheck.align")
 db = lazy_module("perfcheck.db")
 model = lazy_module("perfcheck.model")
+quality = lazy_module("perfcheck.quality")
 
 
 def _num(v: float, fmt: str) -> str:
@@ -57,9 +58,10 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
     """
     con = db.connect(db_path)
     try:
-        refresh_quality(con, site)  # the flags of files ingested since, or new corrections
+        sun = quality.sun_positions(site)  # computed once, for the flags and the model
+        refresh_quality(con, site, sun)  # the flags of files ingested since, or new corrections
         with progress.bar("model", None, quiet) as bar:
-            res = model.run(con, site, progress=bar.step)
+            res = model.run(con, site, progress=bar.step, sun=sun)
         if res["computed_from"] is None:
             click.echo(f"model run {res['model_run_id']}: no new readings, nothing recomputed")
         else:
