@@ -8,9 +8,9 @@ Order of the work (each step sees the corrections of the steps before):
 clock faults (readings shifted back) -> sensor faults (the expected power of the sensor-fed
 inverters rebuilt from modelled POA where the sensor is suspect) -> wind stow of trackers (in
 the expected series by design) -> outages -> clipping -> curtailment -> tracker stalls and
-rows out of step -> partial outages -> shading -> soiling -> degradation -> baseline
-regression and CUSUM -> ledger (:mod:`perfcheck.detect.attribution` documents the order of
-the losses).
+rows out of step -> partial outages -> shading (without the days of a tracker fault) ->
+soiling -> degradation -> baseline regression and CUSUM -> ledger
+(:mod:`perfcheck.detect.attribution` documents the order of the losses).
 
 Settings (optional ``[detect]`` table of the site file):
 
