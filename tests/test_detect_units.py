@@ -8,9 +8,10 @@ import types
 import numpy as np
 import pandas as pd
 import pytest
+from detect_synth import make_aligned, make_site
 
 from perfcheck.detect import clipping, degradation, partial, sensor, soiling
-from perfcheck.detect.common import Event, Footprint, Segment, change_points
+from perfcheck.detect.common import Event, Footprint, Segment, change_points, daylight, wide
 
 DAYS = pd.date_range("2024-01-01", periods=240, freq="D")
 
@@ -421,3 +422,26 @@ def test_a_lost_string_starts_after_the_last_half_day_at_the_upper_level():
                             pd.Timestamp("2024-03-10"), 1.0, 0.85, 3)
     assert pd.Timestamp("2024-03-06 06:00") <= idx[lo] <= pd.Timestamp("2024-03-06 10:00")
     assert hi == len(idx)
+
+
+def test_a_lost_string_seen_on_three_days_is_found():
+    # invented truth: one inverter of 6 strings, 2 lost (share 1/3) from 1 to 16 May; as in
+    # a winter at a high latitude the model expects enough power on three of those days only.
+    # The days' noise is the series' own, so the fault's mean is tested against the
+    # reference with the variance pooled (Student 1908); Welch's test, on the fault's own
+    # variance from three days (2 degrees of freedom), cannot reach alpha 1e-3 there (the
+    # interval noise of 15 % makes the days' noise a few per cent, as at such a plant)
+    site = make_site(n_inverters=1, strings=6)
+    fault = {"kind": "partial", "inverter": "INV1", "start": "2024-05-01 00:00",
+             "end": "2024-05-16 00:00", "share": 1 / 3}
+    df = make_aligned(site, start="2024-04-01", days=60, faults=[fault], seed=5,
+                      noise=0.15)
+    w = wide(df, {i.id: i.ac_kw * 1000.0 for i in site.inverters}, None, site.tz)
+    usable = daylight(w) & w.expected.ge(w.ac_w * 0.2, axis=1)
+    day = w.day.to_numpy()
+    seen = np.isin(day, pd.to_datetime(["2024-05-03", "2024-05-08", "2024-05-13"]).to_numpy())
+    inside = (day >= np.datetime64("2024-05-01")) & (day < np.datetime64("2024-05-16"))
+    usable = usable & ~(inside & ~seen)[:, None]
+    events, _ = partial.detect(w, usable, {"INV1": 6})
+    assert [e.detail["strings_lost"] for e in events] == [2]
+    assert events[0].evidence["days"] == 3

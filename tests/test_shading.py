@@ -7,10 +7,15 @@ no published reference values exist for these small pieces).
 
 from __future__ import annotations
 
+from types import SimpleNamespace
+
 import numpy as np
+import pandas as pd
 import pytest
 
+from perfcheck import detect
 from perfcheck.detect import shading
+from perfcheck.detect.common import Footprint
 
 
 def _column(rng: np.random.Generator, days: int = 120, per_day: int = 12,
@@ -82,3 +87,17 @@ def test_bin_trend_takes_the_place_in_the_bin_apart_from_time():
     y = 0.02 * (el - 10.0)
     slope, _, p = shading._bin_trend(t, y, np.column_stack([el, az]))
     assert slope == pytest.approx(0.0, abs=1e-9)
+
+
+def test_days_of_a_tracker_footprint_are_left_out_whole():
+    # invented truth: a footprint on inverter A from the middle of day 2 to the morning of
+    # day 3 of four; shading reads a day's shape against the day's own level, so both days
+    # are left out whole for A, nothing for B or the other days (common practice)
+    index = pd.date_range("2024-03-01", periods=96, freq="h", tz="UTC")
+    w = SimpleNamespace(index=index, inverters=["A", "B"],
+                        day=pd.Series(index.tz_localize(None).normalize(), index=index))
+    fp = Footprint(event=None, lo=36, hi=52, cols=["A"])
+    out = detect._days_of(w, [fp])
+    day = np.arange(96) // 24
+    assert out["A"].to_numpy().tolist() == ((day == 1) | (day == 2)).tolist()
+    assert not out["B"].any()

@@ -8,9 +8,9 @@ Order of the work (each step sees the corrections of the steps before):
 clock faults (readings shifted back) -> sensor faults (the expected power of the sensor-fed
 inverters rebuilt from modelled POA where the sensor is suspect) -> wind stow of trackers (in
 the expected series by design) -> outages -> clipping -> curtailment -> tracker stalls and
-rows out of step -> partial outages -> shading -> soiling -> degradation -> baseline
-regression and CUSUM -> ledger (:mod:`perfcheck.detect.attribution` documents the order of
-the losses).
+rows out of step -> partial outages -> shading (without the days of a tracker fault) ->
+soiling -> degradation -> baseline regression and CUSUM -> ledger
+(:mod:`perfcheck.detect.attribution` documents the order of the losses).
 
 Settings (optional ``[detect]`` table of the site file):
 
@@ -198,6 +198,10 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     usable = valid & ~excluded & unclipped & w.expected.ge(w.ac_w * 0.2, axis=1)
     ev, prints = tracker.detect(w, site, usable, rel_sigma, st.alpha, angle, sky)
     events += ev
+    # shading reads each day's shape against the day's own level: on the days of a tracker
+    # fault that shape is the tracker model's (its footprint put back), whose error is a shape
+    # too, so those days are left out of the shading tests
+    tracker_days = _days_of(w, prints)
     t = lap("tracker", t)
     strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
     # lost strings are judged on the power with the rows' share put back: during a stall they
@@ -214,8 +218,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     meas_fixed = _undo(w, undone)
     w_fixed = dataclasses.replace(w, measured=meas_fixed)
     horizon = {i.id: i.arrays[0].horizon for i in site.inverters}
-    ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded, rel_sigma, horizon,
-                                    cs[w.inverters], alpha=st.alpha,
+    ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded & ~tracker_days, rel_sigma,
+                                    horizon, cs[w.inverters], alpha=st.alpha,
                                     min_deficit=st.shading_min_deficit)
     events += ev
     prints += fp
@@ -306,6 +310,17 @@ def _in_windows(index: pd.DatetimeIndex, windows: list[tuple[pd.Timestamp, pd.Ti
     out = np.zeros(len(index), dtype=bool)
     for a, b in windows:
         out |= (index >= a) & (index < b)
+    return out
+
+
+def _days_of(w: Wide, prints: list[Footprint]) -> pd.DataFrame:
+    """Per inverter, the rows of the site-local days that a footprint of ``prints`` touches."""
+    out = pd.DataFrame(False, index=w.index, columns=w.inverters)
+    days = w.day.to_numpy()
+    for fp in prints:
+        touched = np.isin(days, np.unique(days[fp.lo:fp.hi]))
+        for c in fp.cols:
+            out[c] |= touched
     return out
 
 
