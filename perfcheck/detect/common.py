@@ -634,14 +634,16 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
     return out
 
 
-def coarsen(w: Wide, usable: pd.DataFrame, target_s: float = 900.0) -> tuple[Wide, pd.DataFrame]:
+def coarsen(w: Wide, *masks: pd.DataFrame, target_s: float = 900.0
+            ) -> tuple[Wide | pd.DataFrame, ...]:
     """The series on a coarser grid (blocks of ``target_s`` seconds), for statistics that need
     no finer resolution: means of power, irradiance, temperature and sun angles, sums of
-    ``interval_s`` and rain; a block is flagged if any interval is, usable only if all are.
-    Returns the input unchanged when its intervals are already that long."""
+    ``interval_s`` and rain; a block is flagged if any interval is; of each of ``masks``
+    (usable intervals, clear ones ...), true only if all its intervals are.
+    Returns ``(wide, *masks)``, the input unchanged when its intervals are already that long."""
     step = float(np.median(w.interval_s))
     if step >= target_s:
-        return w, usable
+        return (w, *masks)
     ns = w.index.as_unit("ns").asi8
     codes = ns // int(target_s * 1e9)
     starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])
@@ -682,7 +684,7 @@ def coarsen(w: Wide, usable: pd.DataFrame, target_s: float = 900.0) -> tuple[Wid
         azimuth=series(w.azimuth), rain=series(w.rain, "sum"),
         day=pd.Series(w.day.to_numpy()[starts], index=index), ac_w=w.ac_w,
         export_limit_w=w.export_limit_w, tz=w.tz)
-    return wc, frame(usable, "all")
+    return (wc, *(frame(m, "all") for m in masks))
 
 
 def despike(x: np.ndarray, window: int = 5, z: float = 5.0) -> np.ndarray:
