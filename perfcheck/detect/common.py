@@ -622,14 +622,25 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
     cs = pvlib.clearsky.ineichen(np.where(up, zen, 90.0), am, tl, altitude, extra)
     ghi, dni, dhi = (np.nan_to_num(np.asarray(cs[k], dtype=float)) * up
                      for k in ("ghi", "dni", "dhi"))
+    fixed: dict[tuple[float, float], np.ndarray] = {}  # a fixed plane shared by groups: once
+
+    def transposed(tilt: Any, az: Any) -> np.ndarray:
+        key = (float(tilt), float(az)) if np.ndim(tilt) == 0 and np.ndim(az) == 0 else None
+        if key not in fixed:
+            irr = pvlib.irradiance.get_total_irradiance(
+                tilt, az, np.where(up, zen, 90.0), w.azimuth.to_numpy(), dni, ghi, dhi,
+                dni_extra=extra, model="haydavies")
+            poa = np.nan_to_num(np.asarray(irr["poa_global"], dtype=float))
+            if key is None:
+                return poa
+            fixed[key] = poa
+        return fixed[key]
+
     out = pd.DataFrame(0.0, index=w.index, columns=list(planes))
     for name, parts in planes.items():
         total = np.zeros(len(zen))
         for tilt, az, weight in parts:
-            irr = pvlib.irradiance.get_total_irradiance(
-                tilt, az, np.where(up, zen, 90.0), w.azimuth.to_numpy(), dni, ghi, dhi,
-                dni_extra=extra, model="haydavies")
-            total += weight * np.nan_to_num(np.asarray(irr["poa_global"], dtype=float))
+            total += weight * transposed(tilt, az)
         out[name] = np.where(up, total, 0.0)
     return out
 
