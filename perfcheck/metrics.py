@@ -868,9 +868,11 @@ def compute(
     temp_ref = temp_refs[0]
     tz = site.tz
 
+    local_start, local_end = start.tz_convert(tz), end.tz_convert(tz)
+
     def bounds(first: dt.date, after: dt.date) -> dict[str, Any]:
-        lo = max(pd.Timestamp(first).tz_localize(tz), start.tz_convert(tz))
-        hi = min(pd.Timestamp(after).tz_localize(tz), end.tz_convert(tz))
+        lo = max(pd.Timestamp(first).tz_localize(tz), local_start)
+        hi = min(pd.Timestamp(after).tz_localize(tz), local_end)
         return {"start": lo.isoformat(), "end": hi.isoformat(),
                 "_key": (lo.toordinal(), hi.toordinal()),
                 "days": round((hi - lo) / pd.Timedelta(days=1))}
