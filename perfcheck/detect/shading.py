@@ -138,9 +138,8 @@ def _bin_test(t: np.ndarray, d: np.ndarray, dayno: np.ndarray, where: np.ndarray
     sun's position in the bin (:func:`_bin_trend`). One-sided p-value of growth and its
     size."""
     if np.ptp(t) >= 1.0 + 10 / 365.25:
-        dn = dayno
-        order = np.argsort(dn)
-        dn, dv = dn[order], d[order]
+        order = np.argsort(dayno)
+        dn, dv = dayno[order], d[order]
         pos = np.clip(np.searchsorted(dn, dn + 365), 1, len(dn) - 1)
         near = np.where(np.abs(dn[pos] - dn - 365) <= np.abs(dn[pos - 1] - dn - 365), pos,
                         pos - 1)
