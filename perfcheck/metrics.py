@@ -641,10 +641,8 @@ def summarise(
     s = _sums(cube.sum(axis=0), p0)
     vals = ratios(s, *temp_refs)
     reasons = _reasons(vals, s, settings)
-    ok = np.array([r is None for r in reasons])
-    ci = {k: (np.full(len(scopes), np.nan), np.full(len(scopes), np.nan)) for k in CI_METRICS}
-    ci["specific_yield_kwh_per_kwp"] = gap_band(s)
-    if with_ci and ok.any():
+    ci = _gap_bands(s)
+    if with_ci and any(r is None for r in reasons):
         rng = np.random.default_rng([settings.seed, *(int(x) for x in label["_key"])])
 
         def stat(summed: np.ndarray) -> np.ndarray:
@@ -658,6 +656,52 @@ def summarise(
         for j, k in enumerate(BOOTSTRAP_METRICS):
             lo, hi = low[:, j], high[:, j]
             ci[k] = combine_band(vals[k], lo, hi, u) if k in IRRADIANCE_METRICS else (lo, hi)
+    return _summary_row(s, vals, reasons, ci, scopes, label, ac_loss_pct)
+
+
+def summarise_days(
+    cube: np.ndarray,
+    p0: np.ndarray,
+    scopes: Sequence[str],
+    labels: Sequence[dict[str, Any]],
+    settings: Settings,
+    temp_refs: tuple[float, float],
+    ac_loss_pct: float | None = None,
+) -> list[dict[str, Any]]:
+    """:func:`summarise` of each day of ``cube`` alone (``labels``: one per day), without
+    intervals: the ratios of all days at once, each day's the same to the digit."""
+    # a day alone, as summarise sums it over its one day (a sum turns -0.0 into 0.0)
+    s = _sums(cube + 0.0, p0)
+    vals = ratios(s, *temp_refs)
+    bands = _gap_bands(s)
+    rows = []
+    for d, label in enumerate(labels):
+        sd, vd = _at(s, d), _at(vals, d)
+        ci = {k: (lo[d], hi[d]) for k, (lo, hi) in bands.items()}
+        rows.append(_summary_row(sd, vd, _reasons(vd, sd, settings), ci, scopes, label,
+                                 ac_loss_pct))
+    return rows
+
+
+def _at(x: Mapping[str, np.ndarray], d: int) -> dict[str, np.ndarray]:
+    return {k: v[d] for k, v in x.items()}
+
+
+def _gap_bands(s: Mapping[str, np.ndarray]) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """The intervals of :data:`CI_METRICS` before a bootstrap: NaN, and the specific yield's
+    band from its data gaps (:func:`gap_band`)."""
+    shape = np.shape(s["p0_w"])
+    ci = {k: (np.full(shape, np.nan), np.full(shape, np.nan)) for k in CI_METRICS}
+    ci["specific_yield_kwh_per_kwp"] = gap_band(s)
+    return ci
+
+
+def _summary_row(s: Mapping[str, np.ndarray], vals: Mapping[str, np.ndarray],
+                 reasons: list[str | None], ci: Mapping[str, tuple[np.ndarray, np.ndarray]],
+                 scopes: Sequence[str], label: dict[str, Any], ac_loss_pct: float | None
+                 ) -> dict[str, Any]:
+    """The summary row of :func:`summarise` from its sums, ratios, reasons and intervals."""
+    ok = [r is None for r in reasons]
     rows = []
     for i, scope in enumerate(scopes):
         row: dict[str, Any] = {"scope": scope, **_amounts(s, i)}
@@ -824,15 +868,17 @@ def compute(
     temp_ref = temp_refs[0]
     tz = site.tz
 
+    local_start, local_end = start.tz_convert(tz), end.tz_convert(tz)
+
     def bounds(first: dt.date, after: dt.date) -> dict[str, Any]:
-        lo = max(pd.Timestamp(first).tz_localize(tz), start.tz_convert(tz))
-        hi = min(pd.Timestamp(after).tz_localize(tz), end.tz_convert(tz))
+        lo = max(pd.Timestamp(first).tz_localize(tz), local_start)
+        hi = min(pd.Timestamp(after).tz_localize(tz), local_end)
         return {"start": lo.isoformat(), "end": hi.isoformat(),
                 "_key": (lo.toordinal(), hi.toordinal()),
                 "days": round((hi - lo) / pd.Timedelta(days=1))}
 
     def group(key: Callable[[dt.date], dt.date], name: str, fmt: Callable[[dt.date], str],
-              nxt: Callable[[dt.date], dt.date], with_ci: bool) -> list[dict[str, Any]]:
+              nxt: Callable[[dt.date], dt.date]) -> list[dict[str, Any]]:
         keys = [key(d) for d in days]
         out, i = [], 0
         while i < len(days):
@@ -840,17 +886,18 @@ def compute(
             while j < len(days) and keys[j] == keys[i]:
                 j += 1
             label = {name: fmt(keys[i]), **bounds(keys[i], nxt(keys[i]))}
-            out.append(summarise(cube[i:j], p0, scopes, label, settings, temp_refs, with_ci,
+            out.append(summarise(cube[i:j], p0, scopes, label, settings, temp_refs, True,
                                  ac_loss_pct))
             i = j
         return out
 
     monthly = group(lambda d: d.replace(day=1), "month", lambda d: d.strftime("%Y-%m"),
-                    _next_month, True)
+                    _next_month)
     yearly = group(lambda d: d.replace(month=1, day=1), "year", lambda d: str(d.year),
-                   lambda d: d.replace(year=d.year + 1), True)
-    daily_rows = group(lambda d: d, "date", lambda d: d.isoformat(),
-                       lambda d: d + dt.timedelta(days=1), False)
+                   lambda d: d.replace(year=d.year + 1))
+    daily_rows = summarise_days(
+        cube, p0, scopes, [{"date": d.isoformat(), **bounds(d, d + dt.timedelta(days=1))}
+                           for d in days], settings, temp_refs, ac_loss_pct)
     period = _period(cube, p0, scopes, start, end, site, settings, temp_refs, ac_loss_pct)
     return {
         "settings": settings_record(settings, temp_ref, t_typ_c, t_typ_source),

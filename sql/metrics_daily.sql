@@ -69,6 +69,7 @@ down AS (
 ),
 r AS (
     SELECT
+        w.ts,
         w.inverter_id,
         CAST(timezone($tz, w.ts) AS DATE) AS day,
         w.interval_s,
@@ -92,7 +93,6 @@ r AS (
         coalesce(w.poa_source = 'sensor', false) AND NOT w.fallback AS sensor,
         w.fallback,
         w.excluded,
-        dc.dc_w,
         coalesce(w.sun_zenith_deg < 90, false) AS daylight,
         m.wh IS NOT NULL AND (m.exp_wh IS NOT NULL OR w.fallback)
             AND (m.poa IS NOT NULL OR w.fallback)
@@ -116,7 +116,6 @@ r AS (
         mf.f * CASE WHEN l.ts IS NOT NULL THEN l.expected_wh
              WHEN w.fallback THEN w.expected_ac_modelled_w * w.interval_s / 3600.0
              ELSE w.expected_ac_w * w.interval_s / 3600.0 END AS exp_wh) m
-    LEFT JOIN dc ON dc.ts = w.ts AND dc.device = w.inverter_id
 ),
 u AS (
     SELECT *,
@@ -128,6 +127,16 @@ u AS (
         CASE WHEN $temp_basis = 'module' THEN coalesce(t_mod, t - delta_t_c * g / 1000.0)
              ELSE t END AS tb
     FROM r
+),
+-- the measured DC energy of the used rows, per day: their keys alone joined with the DC
+-- readings (joined to the rows themselves, the DC readings took a hash table of every row
+-- with all its columns, a third of this query's time, on sites without a DC channel too)
+dcs AS (
+    SELECT u.day, u.inverter_id, count(dc.dc_w) AS n_dc,
+           coalesce(fsum(dc.dc_w * u.dt_h), 0) AS e_dc_wh
+    FROM u JOIN dc ON dc.ts = u.ts AND dc.device = u.inverter_id
+    WHERE u.used
+    GROUP BY u.day, u.inverter_id
 )
 SELECT
     day,
@@ -138,11 +147,11 @@ SELECT
     count(*) FILTER (WHERE daylight AND valid AND excluded) AS n_excluded,
     count(*) FILTER (WHERE used) AS n_used,
     count(*) FILTER (WHERE used AND fallback) AS n_fallback,
-    count(dc_w) FILTER (WHERE used) AS n_dc,
+    coalesce(any_value(dcs.n_dc), 0) AS n_dc,
     coalesce(fsum(p * dt_h) FILTER (WHERE used), 0) AS e_meas_wh,
     coalesce(fsum(p_exp * dt_h) FILTER (WHERE used), 0) AS e_exp_wh,
     coalesce(fsum(p_exp * dt_h) FILTER (WHERE used AND fallback), 0) AS e_exp_fallback_wh,
-    coalesce(fsum(dc_w * dt_h) FILTER (WHERE used), 0) AS e_dc_wh,
+    coalesce(any_value(dcs.e_dc_wh), 0) AS e_dc_wh,
     coalesce(fsum(g * dt_h) FILTER (WHERE used), 0) AS h_whm2,
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND sensor), 0) AS h_sensor_whm2,
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS h_t_whm2,
@@ -162,5 +171,6 @@ SELECT
     coalesce(fsum(rec_inv_wh), 0) AS e_rec_inv_wh,
     coalesce(fsum(rec_meter_wh), 0) AS e_rec_meter_wh
 FROM u
+LEFT JOIN dcs USING (day, inverter_id)
 GROUP BY day, inverter_id
 ORDER BY day, inverter_id

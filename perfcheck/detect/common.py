@@ -622,26 +622,39 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
     cs = pvlib.clearsky.ineichen(np.where(up, zen, 90.0), am, tl, altitude, extra)
     ghi, dni, dhi = (np.nan_to_num(np.asarray(cs[k], dtype=float)) * up
                      for k in ("ghi", "dni", "dhi"))
+    fixed: dict[tuple[float, float], np.ndarray] = {}  # a fixed plane shared by groups: once
+
+    def transposed(tilt: Any, az: Any) -> np.ndarray:
+        key = (float(tilt), float(az)) if np.ndim(tilt) == 0 and np.ndim(az) == 0 else None
+        if key not in fixed:
+            irr = pvlib.irradiance.get_total_irradiance(
+                tilt, az, np.where(up, zen, 90.0), w.azimuth.to_numpy(), dni, ghi, dhi,
+                dni_extra=extra, model="haydavies")
+            poa = np.nan_to_num(np.asarray(irr["poa_global"], dtype=float))
+            if key is None:
+                return poa
+            fixed[key] = poa
+        return fixed[key]
+
     out = pd.DataFrame(0.0, index=w.index, columns=list(planes))
     for name, parts in planes.items():
         total = np.zeros(len(zen))
         for tilt, az, weight in parts:
-            irr = pvlib.irradiance.get_total_irradiance(
-                tilt, az, np.where(up, zen, 90.0), w.azimuth.to_numpy(), dni, ghi, dhi,
-                dni_extra=extra, model="haydavies")
-            total += weight * np.nan_to_num(np.asarray(irr["poa_global"], dtype=float))
+            total += weight * transposed(tilt, az)
         out[name] = np.where(up, total, 0.0)
     return out
 
 
-def coarsen(w: Wide, usable: pd.DataFrame, target_s: float = 900.0) -> tuple[Wide, pd.DataFrame]:
+def coarsen(w: Wide, *masks: pd.DataFrame, target_s: float = 900.0
+            ) -> tuple[Wide | pd.DataFrame, ...]:
     """The series on a coarser grid (blocks of ``target_s`` seconds), for statistics that need
     no finer resolution: means of power, irradiance, temperature and sun angles, sums of
-    ``interval_s`` and rain; a block is flagged if any interval is, usable only if all are.
-    Returns the input unchanged when its intervals are already that long."""
+    ``interval_s`` and rain; a block is flagged if any interval is; of each of ``masks``
+    (usable intervals, clear ones ...), true only if all its intervals are.
+    Returns ``(wide, *masks)``, the input unchanged when its intervals are already that long."""
     step = float(np.median(w.interval_s))
     if step >= target_s:
-        return w, usable
+        return (w, *masks)
     ns = w.index.as_unit("ns").asi8
     codes = ns // int(target_s * 1e9)
     starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])
@@ -682,7 +695,7 @@ def coarsen(w: Wide, usable: pd.DataFrame, target_s: float = 900.0) -> tuple[Wid
         azimuth=series(w.azimuth), rain=series(w.rain, "sum"),
         day=pd.Series(w.day.to_numpy()[starts], index=index), ac_w=w.ac_w,
         export_limit_w=w.export_limit_w, tz=w.tz)
-    return wc, frame(usable, "all")
+    return (wc, *(frame(m, "all") for m in masks))
 
 
 def despike(x: np.ndarray, window: int = 5, z: float = 5.0) -> np.ndarray:

@@ -129,17 +129,17 @@ def _growth_p(x: np.ndarray) -> float:
     return float(special.stdtr(n - 1, -t))
 
 
-def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
-    """Growth test of one bin's daily deficits: year-on-year pairs (the same sun path a
-    year later, so the model's shape errors there cancel) where the data span more than a
-    year, else the OLS trend over time given the sun's position in the bin
-    (:func:`_bin_trend`). One-sided p-value of growth and its size."""
-    t = g["t"].to_numpy()
-    d = g["d"].to_numpy()
+def _bin_test(t: np.ndarray, d: np.ndarray, dayno: np.ndarray, where: np.ndarray,
+              min_pairs: int = 5) -> dict | None:
+    """Growth test of one bin's daily deficits ``d`` (at years ``t`` and day numbers
+    ``dayno``; ``where``: columns of the day's mean sun elevation and azimuth in the bin):
+    year-on-year pairs (the same sun path a year later, so the model's shape errors there
+    cancel) where the data span more than a year, else the OLS trend over time given the
+    sun's position in the bin (:func:`_bin_trend`). One-sided p-value of growth and its
+    size."""
     if np.ptp(t) >= 1.0 + 10 / 365.25:
-        dn = g["dayno"].to_numpy()
-        order = np.argsort(dn)
-        dn, dv = dn[order], d[order]
+        order = np.argsort(dayno)
+        dn, dv = dayno[order], d[order]
         pos = np.clip(np.searchsorted(dn, dn + 365), 1, len(dn) - 1)
         near = np.where(np.abs(dn[pos] - dn - 365) <= np.abs(dn[pos - 1] - dn - 365), pos,
                         pos - 1)
@@ -151,9 +151,33 @@ def _bin_test(g: pd.DataFrame, min_pairs: int = 5) -> dict | None:
             np.mean(delta)), "p_value": _growth_p(delta), "pairs": int(len(delta))}
     if np.ptp(t) < 0.25:
         return None
-    slope, _, p = _bin_trend(t, d, g[["elv", "azv"]].to_numpy(), g["dayno"].to_numpy() // 30)
+    slope, _, p = _bin_trend(t, d, where, dayno // 30)
     return {"test": "OLS trend given the sun's place in the bin, clustered by month, "
                     "one-sided", "growth_per_year": slope, "p_value": p, "pairs": int(len(d))}
+
+
+def _bin_tests(daily: pd.DataFrame, min_days: int
+               ) -> tuple[dict[tuple[int, int], dict | None], dict[tuple[int, int], int]]:
+    """:func:`_bin_test` of every bin (``daily``: a row per bin and day, columns az, el,
+    dayno, t, d, elv, azv) with at least ``min_days`` days, in the order of the bins; and
+    the number of days of each. The rows of a bin keep their order (a stable sort)."""
+    az, el = daily["az"].to_numpy(), daily["el"].to_numpy()
+    order = np.lexsort((el, az))
+    az, el = az[order], el[order]
+    cols = {c: daily[c].to_numpy()[order] for c in ("t", "d", "dayno")}
+    where = daily[["elv", "azv"]].to_numpy()[order]
+    change = np.flatnonzero((az[1:] != az[:-1]) | (el[1:] != el[:-1])) + 1
+    bounds = np.r_[0, change, len(az)]
+    tested, days_in = {}, {}
+    for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
+        if hi - lo >= min_days:
+            key = (int(az[lo]), int(el[lo]))
+            days_in[key] = int(hi - lo)
+            # the sun's columns in Fortran order, as a frame's two columns give them (the
+            # order of a mean's sums)
+            tested[key] = _bin_test(cols["t"][lo:hi], cols["d"][lo:hi], cols["dayno"][lo:hi],
+                                    np.asfortranarray(where[lo:hi]))
+    return tested, days_in
 
 
 def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, tuple],
@@ -173,8 +197,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
     else:
         kt = w.poa / clearsky_plane[w.inverters].where(clearsky_plane[w.inverters] > 0)
     clear = (kt > 0.8) & (kt < 1.2) & w.zenith.lt(88).to_numpy()[:, None]
-    wc, uc = coarsen(w, usable, 600.0)
-    clear_c = coarsen(w, clear, 600.0)[1]
+    wc, uc, clear_c = coarsen(w, usable, clear, target_s=600.0)
     # the top reported at the end takes the labels under a steady clear sky alone (the
     # neighbours clear too): in the last weeks nothing later can outvote a label from a cloud
     # edge over the array that missed the irradiance sensor
@@ -207,8 +230,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         daily = frame.groupby(["az", "el", "dayno"], sort=False).agg(
             t=("t", "mean"), d=("d", "mean"), elv=("elv", "mean"), azv=("azv", "mean")
         ).reset_index()
-        groups = {k: g for k, g in daily.groupby(["az", "el"]) if len(g) >= min_days}
-        tested = {k: _bin_test(g) for k, g in groups.items()}
+        tested, days_in = _bin_tests(daily, min_days)
         tested = {k: v for k, v in tested.items() if v is not None}
         n_tests = max(1, len(tested))
         keys = {k for k, res in tested.items()
@@ -277,7 +299,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
             use & np.isfinite(d_all), est, 0.0), step, upper & ~region, column)
         hits = [{"az": int(a), "el": int(e), **tested[(a, e)],
                  "bonferroni": bool(tested[(a, e)]["p_value"] < alpha / n_tests),
-                 "days": int(len(groups[(a, e)]))} for a, e in sorted(keys)]
+                 "days": days_in[(a, e)]} for a, e in sorted(keys)]
         azs = sorted(tops)
         prof = {a * az_step: t["top_deg"] for a, t in tops.items() if t["top_deg"] > 0}
         proposal = _horizon_proposal(prof, az_step, horizon.get(inv, ()))
