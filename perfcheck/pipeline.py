@@ -26,13 +26,19 @@ def update(con: duckdb.DuckDBPyConnection, site: Site, paths: Iterable[str | Pat
     with progress.bar("ingest", len(paths), quiet) as b:
         results = ingest.ingest_files(con, site, paths, progress=lambda r: b.step(
             Path(r.path).name))
+    _flags_and_model(con, site, quiet)
+    with progress.bar("analysis", None, quiet) as b:
+        analysis.update(con, site, progress=b.step)
+    return results
+
+
+def _flags_and_model(con: duckdb.DuckDBPyConnection, site: Site, quiet: bool) -> None:
+    """The quality checks and the model, sharing one sun; it is freed before the analysis,
+    which loads the whole aligned series."""
     sun = quality.sun_positions(site)  # computed once, for the flags and the model
     quality.run(con, site, sun)
     with progress.bar("model", None, quiet) as b:
         model.run(con, site, progress=b.step, sun=sun)
-    with progress.bar("analysis", None, quiet) as b:
-        analysis.update(con, site, progress=b.step)
-    return results
 
 
 def view(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp,
