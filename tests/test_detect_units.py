@@ -78,6 +78,15 @@ def test_ageing_removed_flattens_a_year_on_year_trend():
     np.testing.assert_allclose(flat["inv1"].to_numpy(), 1.0, atol=2e-4)
 
 
+def _sawtooth_age(n: int, spans: tuple[tuple[int, int], ...]) -> np.ndarray:
+    """Days since the last wash at each day's mid-point, soiling over each [a, b) of ``spans``
+    and clean elsewhere (the rain-reset model of Kimber et al. 2006)."""
+    t, age = np.arange(n) + 0.5, np.zeros(n)
+    for a, b in spans:
+        age[a:b] = t[a:b] - a
+    return age
+
+
 def test_sawtooth_extent_places_the_washes_beside_an_episode():
     # invented truth (the rain-reset model of Kimber et al. 2006): after a found episode, the
     # soiling goes on at 0.4 %/day, washed at days 20 and 45, cleaned at day 60, clean after;
@@ -85,19 +94,14 @@ def test_sawtooth_extent_places_the_washes_beside_an_episode():
     # within a day (common practice: the daily index cannot place them closer)
     rng = np.random.default_rng(1)
     n = 90
-    t = np.arange(n) + 0.5
-    age = np.zeros(n)
-    for a, b in ((0, 20), (20, 45), (45, 60)):
-        age[a:b] = t[a:b] - a
+    age = _sawtooth_age(n, ((0, 20), (20, 45), (45, 60)))
     y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
     pen = 0.01 ** 2 * soiling.ramp_penalty(n, 1e-3)
     cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=True)
     assert len(cut) == 4
     np.testing.assert_allclose(cut, [0, 20, 45, 60], atol=1)
     # before an episode: clean until day 15, washed at 40, the episode's own wash at the end
-    age = np.zeros(n)
-    for a, b in ((15, 40), (40, 90)):
-        age[a:b] = t[a:b] - a
+    age = _sawtooth_age(n, ((15, 40), (40, 90)))
     y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
     cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=False)
     np.testing.assert_allclose(cut, [15, 40, 90], atol=1)
@@ -116,10 +120,7 @@ def test_edge_ranges_cover_the_soiling_energy_of_placed_ramps():
     # error); without noise the ranges are nil
     rng = np.random.default_rng(7)
     n = 90
-    t = np.arange(n) + 0.5
-    age = np.zeros(n)
-    for a, b in ((0, 20), (20, 45), (45, 60)):
-        age[a:b] = t[a:b] - a
+    age = _sawtooth_age(n, ((0, 20), (20, 45), (45, 60)))
     energy = np.full(n, 100.0)
     truth = float(np.sum(energy * 0.004 * age))
     pen = 0.01 ** 2 * soiling.ramp_penalty(n, 1e-3)

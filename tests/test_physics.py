@@ -112,6 +112,17 @@ def _sun(zenith: float, azimuth: float, n: int = 1) -> pd.DataFrame:
                          "azimuth": azimuth}, index=idx)
 
 
+def _typical_year(key: str) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """A typical-year file pvlib ships (perfcheck.scenario.suite.climate), hour-centred in its
+    standard time, and pvlib's solar position at its hours."""
+    from perfcheck.scenario.suite.climate import climate, read_typical_year
+    data, meta = read_typical_year(climate(key))
+    data.index = pd.date_range("2021-01-01 00:30", periods=len(data), freq="h",
+                               tz=f"Etc/GMT{-int(meta['TZ']):+d}")
+    return data, pvlib.solarposition.get_solarposition(data.index, meta["latitude"],
+                                                      meta["longitude"])
+
+
 @pytest.mark.parametrize("key", ["greensboro", "sand_point", "miami"])
 def test_default_decomposition_against_typical_year_components(key):
     # The typical-year files pvlib ships (TMY3 723170 Greensboro NC and 703165 Sand Point AK,
@@ -122,12 +133,8 @@ def test_default_decomposition_against_typical_year_components(key):
     # Tolerances (common practice for a monthly modelled POA): annual within 1 %, mean monthly
     # |error| within 1.5 %. Caveat (from memory): much of those files' DNI is itself modelled
     # (METSTAT), so this checks agreement with the files, not with a pyrheliometer.
-    from perfcheck.scenario.suite.climate import climate, read_typical_year
-    data, meta = read_typical_year(climate(key))
-    times = pd.date_range("2021-01-01 00:30", periods=len(data), freq="h",
-                          tz=f"Etc/GMT{-int(meta['TZ']):+d}")
-    data.index = times
-    sp = pvlib.solarposition.get_solarposition(times, meta["latitude"], meta["longitude"])
+    data, sp = _typical_year(key)
+    times = data.index
     day = sp["zenith"] < 87
     ghi = data["ghi"].where(day, 0.0)
     est = ph.decompose(ghi, sp["zenith"])
@@ -154,12 +161,8 @@ def test_default_decomposition_at_low_sun_on_a_tracker():
     # cos z at 0.065, air mass at 12, DNI 0 beyond 87 deg), so December's modelled POA runs
     # 5-10 % low, the other months within 4.5 %, and the other published models in pvlib run
     # lower still in December (the figures physics.decompose states; bands common practice).
-    from perfcheck.scenario.suite.climate import climate, read_typical_year
-    data, meta = read_typical_year(climate("sand_point"))
-    times = pd.date_range("2021-01-01 00:30", periods=len(data), freq="h",
-                          tz=f"Etc/GMT{-int(meta['TZ']):+d}")
-    data.index = times
-    sp = pvlib.solarposition.get_solarposition(times, meta["latitude"], meta["longitude"])
+    data, sp = _typical_year("sand_point")
+    times = data.index
     up = sp["zenith"] < 90
     ghi = data["ghi"].where(up, 0.0)
     cosz = np.cos(np.radians(sp["zenith"]))
