@@ -797,3 +797,29 @@ def test_historian_needs_point_and_value_columns_together(tmp_path):
     assert str(err.value) == (f"{site_path}: loggers[0].value_column: give point_column and "
                               "value_column together (a historian export: one row per time, "
                               "device and point)")
+
+
+def test_full_disk_is_one_line_and_keeps_what_was_stored(tmp_path, monkeypatch):
+    # A full disk surfaced as DuckDB's raw exception and a traceback; it is an input the user
+    # can fix (free space), so it gets the one-line error and exit code 2 (common practice).
+    import duckdb
+
+    import perfcheck.ingest
+
+    site, log = write_case(tmp_path, "ts,P,G\n2024-06-01 10:00,500,600\n")
+    assert run_ingest(site, log).exit_code == 0
+
+    def no_space(*args, **kwargs):
+        raise duckdb.IOException('Could not write file "x.duckdb.wal": No space left on device')
+
+    monkeypatch.setattr(perfcheck.ingest, "ingest_files", no_space)
+    result = run_ingest(site, log)
+    assert result.exit_code == 2
+    assert result.stderr == ("perfcheck: error: no space left on the disk; the write in "
+                             "progress was rolled back. Free some space and run the command "
+                             "again\n")
+    con = db.connect(site.with_suffix(".duckdb"), read_only=True)
+    try:
+        assert con.execute("SELECT count(*) FROM readings").fetchone()[0] > 0
+    finally:
+        con.close()

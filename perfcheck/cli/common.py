@@ -4,6 +4,7 @@ error handling."""
 from __future__ import annotations
 
 import datetime as dt
+import errno
 import functools
 import json
 import sys
@@ -55,8 +56,20 @@ def handle_errors(fn: Callable) -> Callable:
             click.echo("perfcheck: interrupted; the last file in progress was rolled back",
                        err=True)
             sys.exit(130)
+        except Exception as exc:
+            if not disk_full(exc):
+                raise
+            raise UserError("no space left on the disk; the write in progress was rolled back. "
+                            "Free some space and run the command again") from None
 
     return wrapper
+
+
+def disk_full(exc: BaseException) -> bool:
+    """True for an error of a full disk, from the OS or from DuckDB (which raises its own
+    exception types with the OS's message in the text)."""
+    return (isinstance(exc, OSError) and exc.errno == errno.ENOSPC) or (
+        "No space left on device" in str(exc))
 
 
 def site_argument(fn: Callable) -> Callable:
