@@ -13,7 +13,7 @@ import datetime as dt
 import functools
 import math
 import warnings
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -30,6 +30,32 @@ pvlib = lazy_module("pvlib")
 def unix_seconds(times: pd.DatetimeIndex) -> np.ndarray:
     """Seconds since 1970-01-01 UTC as float, whatever the index's time unit [s]."""
     return np.asarray(times.as_unit("ns").asi8, dtype=float) / 1e9
+
+
+def per_utc_day(times: pd.DatetimeIndex, daily: Callable[[pd.DatetimeIndex], pd.Series]
+                ) -> np.ndarray:
+    """``daily`` of the UTC day of each instant of ``times``, evaluated once per distinct day.
+
+    For quantities that depend on the UTC day alone (the extraterrestrial irradiance of
+    Spencer 1971 by day of year, the Linke turbidity interpolated by day of year): ``daily``
+    gets the UTC midnights of the days in ``times`` and returns a value for each; the value of
+    an instant is that of its day, the same number as ``daily(times)`` would give it.
+    """
+    days, at = np.unique(unix_seconds(times) // 86400, return_inverse=True)
+    values = daily(pd.DatetimeIndex(pd.to_datetime(days, unit="D", utc=True)))
+    return np.asarray(values, dtype=float)[at]
+
+
+def extra_radiation(times: pd.DatetimeIndex) -> pd.Series:
+    """Extraterrestrial normal irradiance [W/m^2] at ``times``, pvlib's ``get_extra_radiation``
+    (Spencer 1971, by the UTC day of year), computed once per day (:func:`per_utc_day`).
+
+    References
+    ----------
+    Spencer, J. W. (1971). Fourier series representation of the position of the sun. Search
+    2(5), 172.
+    """
+    return pd.Series(per_utc_day(times, pvlib.irradiance.get_extra_radiation), index=times)
 
 
 def interval_midpoints(times: pd.DatetimeIndex, interval_s: float) -> pd.DatetimeIndex:
@@ -853,7 +879,7 @@ def atmosphere(solpos: pd.DataFrame, pressure: float) -> pd.DataFrame:
     """
     am = pvlib.atmosphere.get_relative_airmass(solpos["apparent_zenith"], "kastenyoung1989")
     return pd.DataFrame({
-        "dni_extra": pvlib.irradiance.get_extra_radiation(solpos.index),
+        "dni_extra": extra_radiation(solpos.index),
         "airmass_relative": am,
         "airmass_absolute": pvlib.atmosphere.get_absolute_airmass(am, pressure),
     }, index=solpos.index)
@@ -1169,7 +1195,9 @@ def clearsky_ghi(solpos: pd.DataFrame, latitude: float, longitude: float, altitu
     """
     times = solpos.index
     try:
-        tl = pvlib.clearsky.lookup_linke_turbidity(times, latitude, longitude)
+        # the table is monthly, interpolated by UTC day of year: looked up once per day
+        tl = pd.Series(per_utc_day(times, lambda days: pvlib.clearsky.lookup_linke_turbidity(
+            days, latitude, longitude)), index=times)
     except (OSError, ImportError, KeyError):
         return pvlib.clearsky.haurwitz(solpos["apparent_zenith"])["ghi"]
     out = pvlib.clearsky.ineichen(solpos["apparent_zenith"], airmass_absolute, tl, altitude,

@@ -55,10 +55,7 @@ import numpy as np
 import pandas as pd
 
 from perfcheck import db, ingest, physics, units
-from perfcheck.lazy import lazy_module
 from perfcheck.site import Site
-
-pvlib = lazy_module("pvlib")
 
 # Fixed physical limits per stored quantity [unit of the quantity], lower and upper; None: no
 # fixed limit on that side. Power and energy limits scale with the device's rating
@@ -181,15 +178,12 @@ def sun_table(sun: physics.SunPositions, starts: pd.DatetimeIndex, interval_min:
     mid = physics.interval_midpoints(starts, 60.0 * interval_min)
     pos = sun.keep(mid)
     zenith = pos["apparent_zenith"].to_numpy()
-    # the extraterrestrial irradiance depends on the day only: once per UTC day
-    days, at = np.unique(physics.unix_seconds(mid) // 86400, return_inverse=True)
-    sa = pvlib.irradiance.get_extra_radiation(pd.to_datetime(days, unit="D", utc=True))
     return pd.DataFrame({
         "ts": starts,
         "interval_min": np.int32(interval_min),
         "elevation_deg": pos["apparent_elevation"].to_numpy(),
         "mu0": np.clip(np.cos(np.radians(zenith)), 0.0, None),
-        "sa_wm2": sa.to_numpy()[at],
+        "sa_wm2": physics.extra_radiation(mid).to_numpy(),
     })
 
 

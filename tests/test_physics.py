@@ -435,6 +435,19 @@ def test_export_limit_shared_pro_rata():
     pd.testing.assert_frame_equal(ph.export_limited(ac, None), ac)
 
 
+def test_per_utc_day_equals_pvlib_per_instant():
+    # pvlib's get_extra_radiation (Spencer 1971) and Linke turbidity table depend on the UTC day
+    # of year alone: looked up once per day they give the same numbers, bit for bit, as pvlib
+    # called on every instant (source: pvlib itself), across a leap day and a year's end
+    idx = pd.date_range("2023-12-30 23:57:30", "2024-03-02", freq="5min", tz="UTC")
+    assert np.array_equal(ph.extra_radiation(idx).to_numpy(),
+                          pvlib.irradiance.get_extra_radiation(idx).to_numpy())
+    linke = ph.per_utc_day(idx, lambda days: pvlib.clearsky.lookup_linke_turbidity(
+        days, 47.5, 8.7))
+    assert np.array_equal(linke,
+                          pvlib.clearsky.lookup_linke_turbidity(idx, 47.5, 8.7).to_numpy())
+
+
 def test_clearsky_ineichen_and_nan_passes():
     idx = pd.date_range("2024-06-21 00:00", periods=24, freq="h", tz="UTC")
     sp = ph.solar_position(idx, 48.0, 11.0, 500.0)
