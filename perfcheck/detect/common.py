@@ -173,13 +173,14 @@ def wide(df: pd.DataFrame, ac_w: dict[str, float], export_limit_w: float | None,
     def num(name: str) -> np.ndarray:
         return pd.to_numeric(df[name], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
-    first = ~pd.Series(ts).duplicated().to_numpy()
+    # each instant's first row (the stable sort of np.unique keeps the first of equal row
+    # numbers), in the order of ``index``
+    first = np.unique(rows, return_index=True)[1]
     site_rows = pd.DataFrame(index=index)
     for name in ("interval_s", "ghi_wm2", "clearsky_ghi_wm2", "sun_zenith_deg",
                  "sun_azimuth_deg", "rain_mm"):
         site_rows[name] = num(name)[first]
     flags = df["flags"].fillna("").astype(str).to_numpy()
-    local = index.tz_convert(tz)
     return Wide(
         measured=grid(num("measured_ac_w")),
         expected=grid(num("expected_ac_w")),
@@ -198,7 +199,9 @@ def wide(df: pd.DataFrame, ac_w: dict[str, float], export_limit_w: float | None,
         zenith=site_rows["sun_zenith_deg"],
         azimuth=site_rows["sun_azimuth_deg"],
         rain=site_rows["rain_mm"],
-        day=pd.Series(local.normalize().tz_localize(None), index=index),
+        # the local wall clock floored to midnight (normalising the zoned instants localises
+        # every midnight again, only for the zone to be dropped)
+        day=pd.Series(index.tz_convert(tz).tz_localize(None).normalize(), index=index),
         ac_w=pd.Series({i: ac_w[i] for i in ids}, dtype=float),
         export_limit_w=export_limit_w,
         tz=tz,
