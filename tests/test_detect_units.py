@@ -482,3 +482,32 @@ def test_soiling_intervals_join_across_days_without_an_index():
     assert len(soiling._groups(fits, index)) == 1
     index.iloc[11] = 1.0
     assert len(soiling._groups(fits, index)) == 2
+
+
+def _one_day(measured: np.ndarray, expected: np.ndarray, ac_w: float) -> types.SimpleNamespace:
+    """One inverter ``A`` on one day of 15-minute readings from 07:00 (the fields of a Wide
+    that :func:`clipping.derated_days` reads)."""
+    idx = pd.date_range("2024-02-01 07:00", periods=len(measured), freq="15min")
+    m, e = (pd.DataFrame({"A": v}, index=idx) for v in (measured, expected))
+    return types.SimpleNamespace(measured=m, expected=e, day=pd.Series(idx.normalize(), idx),
+                                 interval_s=pd.Series(900.0, idx), ac_w=pd.Series({"A": ac_w}),
+                                 inverters=["A"])
+
+
+def test_a_broad_peak_below_the_expected_power_is_not_a_held_day():
+    # invented truth (issue 11, a fault-free plant with a 15-minute logger): a clear winter
+    # day, the inverter (40 kW) at 0.91 of a smooth expected curve, the expected power with
+    # +-1 % irregular noise the measured power does not share. Around noon three readings
+    # lie within 1 % of the day's highest, flat while the expected power moves and stands
+    # above them by the 5 % margin: 45 minutes, the plateau test alone holds the day. The
+    # day's own ratio of measured to expected power predicts those readings: the likelihood
+    # ratio of a limit stays below 1/alpha and the day is not held.
+    bell = np.sin(np.pi * np.arange(41) / 40)
+    expected = 8500 / 0.91 * bell * (1 + 0.01 * np.sin(2.3 * np.arange(41)))
+    free = _one_day(8500 * bell, expected, 40000.0)
+    got = clipping.derated_days(free, free.measured < 0, 0.01, 0.05, 1e-3)
+    assert got["A"].isna().all()
+    # the same day limited at 6000 W (0.71 of its peak): held at the limit
+    limited = _one_day(np.minimum(8500 * bell, 6000.0), expected, 40000.0)
+    got = clipping.derated_days(limited, limited.measured < 0, 0.01, 0.05, 1e-3)
+    assert got["A"].iloc[0] == pytest.approx(6000.0)

@@ -16,13 +16,15 @@ highest power of the day is a plateau (at least ``min_minutes`` of intervals wit
 tolerance of it) below the rating while its expected power stands above it by the margin and
 moves (over those intervals the measured power's relative range at most half the expected
 power's: at a broad noon peak the power follows the expected curve, under a limit it does
-not). The same limit held on at least two days, with no day between on which the inverter
-rose above it, is one derate (a setting that persists, where a grid operator's order limits
-the plant on a day: common practice). A day *rose above* the limit when two of its readings
-exceed it by more than the plateau's tolerance (:func:`plateau_tolerance`: the normal
-quantile at the detectors' ``alpha`` times the noise of the readings on the held plateaus),
-or one exceeds it by more than any of the day's readings would under the limit at that
-rate (:func:`days_above`).
+not), and the day's other readings on the plateau are at least 1/``alpha`` times as likely
+under a limit there as without one (:func:`plateau_log_lr`; without a limit that happens
+with probability at most ``alpha``, whatever the logger's interval). The same limit held on
+at least two days, with no day between on which the inverter rose above it, is one derate
+(a setting that persists, where a grid operator's order limits the plant on a day: common
+practice). A day *rose above* the limit when two of its readings exceed it by more than the
+plateau's tolerance (:func:`plateau_tolerance`: the normal quantile at the detectors'
+``alpha`` times the noise of the readings on the held plateaus), or one exceeds it by more
+than any of the day's readings would under the limit at that rate (:func:`days_above`).
 
 Held days need clear skies; the derate's window is then widened on either side to the
 farthest day that still *shows* the limit (:func:`days_at`: two readings on the plateau while
@@ -81,12 +83,21 @@ def held_flat(measured: pd.DataFrame | pd.Series, expected: pd.DataFrame | pd.Se
 
 
 def derated_days(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
-                 min_minutes: float = 30.0) -> pd.DataFrame:
+                 alpha: float, min_minutes: float = 30.0) -> pd.DataFrame:
     """Per site-local day and inverter: the power limit held that day [W] (NaN: none).
 
     Held: at least ``min_minutes`` of intervals within ``tol`` of the day's highest power,
-    that power below the rating by more than ``tol`` and above a tenth of it, and the
-    expected power above it by ``margin`` on those intervals."""
+    that power below the rating by more than ``tol`` and above a tenth of it, the expected
+    power above it by ``margin`` on those intervals, and the day's other readings on that
+    plateau (:func:`plateau_log_lr`, half-width ``tol``) at least 1/``alpha`` times as likely
+    under a limit there as without one. The highest reading is left out of that ratio: the
+    level is chosen at it, so it lies on the plateau under either hypothesis. Without a limit
+    the likelihood ratio has expectation 1 (under its censored normal model), so it reaches
+    1/``alpha`` with probability at most ``alpha`` (Markov's inequality; Ville 1939, Etude
+    critique de la notion de collectif, from memory). A broad noon peak of a plant running
+    below its expected power puts a few readings within ``tol`` of the peak while the
+    expected power moves and stands above it by the margin; the day's own ratio of measured
+    to expected power then predicts those readings and the ratio stays near 1."""
     m = w.measured.where(~exclude)
     days = w.day.to_numpy()
     top = m.groupby(days).transform("max")
@@ -96,6 +107,10 @@ def derated_days(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
     moves = held_flat(w.measured, w.expected, held, days)
     ok = (minutes >= min_minutes) & moves & ceiling.lt(w.ac_w * (1 - tol), axis=1) & ceiling.gt(
         w.ac_w * 0.1, axis=1)
+    others = m.where(m.groupby(days).rank(method="first", ascending=False) > 1)
+    for inv in w.inverters:
+        lr = plateau_log_lr(others[inv], w.expected[inv], days, top[inv].to_numpy(), tol, alpha)
+        ok[inv] &= lr.reindex(ok.index).fillna(0.0) >= np.log(1 / alpha)
     if len(w.inverters) > 1:
         # a shared set-point: while this inverter is held, every sibling is below its
         # expected power by the margin too (the curtailment detector's case)
@@ -206,10 +221,10 @@ class Window(NamedTuple):
     last_error_d: float
 
 
-def plateau_log_lr(measured: pd.Series, expected: pd.Series, days: np.ndarray, level: float,
-                   tol_p: float, alpha: float) -> pd.Series:
-    """Per day: the log likelihood ratio of its readings under a limit at ``level`` [W]
-    against none (0 where no reading lies on the plateau).
+def plateau_log_lr(measured: pd.Series, expected: pd.Series, days: np.ndarray,
+                   level: float | np.ndarray, tol_p: float, alpha: float) -> pd.Series:
+    """Per day: the log likelihood ratio of its readings under a limit at ``level`` [W] (one
+    for all, or one per reading) against none (0 where no reading lies on the plateau).
 
     A limit censors the power: what would have been above it is read at it, what is below
     it reads the same either way, so only the readings on the plateau (within ``tol_p`` of
@@ -222,9 +237,10 @@ def plateau_log_lr(measured: pd.Series, expected: pd.Series, days: np.ndarray, l
     unlimited density there times the plateau's width 2 ``tol_p`` without (a censored normal
     model, Tobin 1958, Econometrica 26:24, from memory)."""
     m, e = measured.to_numpy(dtype=float), expected.to_numpy(dtype=float)
+    lv = np.broadcast_to(np.asarray(level, dtype=float), m.shape)
     with np.errstate(invalid="ignore", divide="ignore"):
-        on = (np.abs(m / level - 1) <= tol_p) & (e > 0)
-        free = (e > 0) & (e < level) & (m > 0)
+        on = (np.abs(m / lv - 1) <= tol_p) & (e > 0)
+        free = (e > 0) & (e < lv) & (m > 0)
         log_ratio = np.log(m / e)
     floor = tol_p / NormalDist().inv_cdf(1 - alpha / 2)
     unique, which = np.unique(days, return_inverse=True)
@@ -237,7 +253,8 @@ def plateau_log_lr(measured: pd.Series, expected: pd.Series, days: np.ndarray, l
             continue
         mid = float(np.median(x))
         spread = max(1.4826 * float(np.median(np.abs(x - mid))), floor)
-        z = (np.log(level) - mid - np.log(e[today[on[today]]])) / spread
+        held = today[on[today]]
+        z = (np.log(lv[held]) - mid - np.log(e[held])) / spread
         out[j] = float(np.sum(stats.norm.logsf(z) - stats.norm.logpdf(z) + np.log(spread)
                               - np.log(2 * tol_p)))
     return pd.Series(out, index=pd.Index(unique))
@@ -303,7 +320,7 @@ def derates(w: Wide, exclude: pd.DataFrame, tol: float, margin: float, alpha: fl
     level, :mod:`perfcheck.detect.attribution`)."""
     mask = pd.DataFrame(False, index=w.index, columns=w.inverters)
     events: list[Event] = []
-    limits = derated_days(w, exclude, tol, margin)
+    limits = derated_days(w, exclude, tol, margin, alpha)
     step = w.interval_s.to_numpy()
     days = w.day.to_numpy()
     for inv in w.inverters:
