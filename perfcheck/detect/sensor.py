@@ -562,7 +562,8 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         days = w.day[(w.index >= s.start) & (w.index < s.end)].unique()
         free[w.day.isin(days).to_numpy()] = np.nan
     others = [c for c in w.inverters if c not in driven]
-    pi = np.log(daily_pi(w, daylight(w)))
+    # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
+    pi = np.log(daily_pi(w, daylight(w)).where(lambda p: p > 0))
     index = pi[driven].median(axis=1)
     if others:
         # the driven inverters against the others: a sensor fault moves the first ones'
