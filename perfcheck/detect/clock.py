@@ -1,31 +1,31 @@
 """Clock faults: the logger's time labels off by a constant offset for a while.
 
-Every day with readings in at least 90 % of its daylight intervals, the centre
-(power-weighted mean time) of an inverter's measured power is compared with the centre of its
-clear-sky plane-of-array irradiance computed from the sun position
-(:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by DC
-rating). For a south-facing array this is the solar noon; for other orientations it is the
-same astronomy seen from their plane. Clouds move a day's centre by a few to some tens of
-minutes either way, a clock error moves every day of its window alike; clear days alone are
-too few (and a shifted logger's own irradiance makes its days look cloudy against the
-clear-sky curve, so a missed daylight-saving change hides from a clear-day test). The
-difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.common.despike`),
-is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
-segment whose level differs from the reference level (the longest segment) by at least
-``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
-size; its edges are then placed on the day by the midpoint of each day's span of production
-(:func:`midspans`: clouds shorten the span at both ends alike, so it moves by a few minutes
-where the centre moves by tens, while a clock moves it by the whole offset). Where an
-irradiance sensor on another logger feeds an expected power of the inverter
-(:func:`independent`), each such window is tested again on the centre of the power against
-that expected power, where clouds cancel (:func:`_confirm`): it is kept only when it holds
-there too, and its offset and edges are taken from that test (a season's weather, such as
-foggy mornings, moves the centre against the clear sky for weeks, but moves the irradiance
-with the power). Inverters whose windows agree form one event, reported only when it covers
-every inverter of a logger (a clock belongs to a logger); plant scope when it covers all
-inverters. A window that begins at a daylight-saving change of the site's zone with that
-change's step inside the estimate's interval is set to the change exactly
-(:func:`daylight_saving`).
+Every day with readings in at least 90 % of its daylight intervals, the centre (power-weighted
+mean time) of an inverter's measured power is compared with the centre of its clear-sky
+plane-of-array irradiance computed from the sun position
+(:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by DC rating).
+For a south-facing array this is the solar noon; for other orientations it is the same
+astronomy seen from their plane. Clouds move a day's centre by a few to some tens of minutes
+either way, a clock error moves every day of its window alike; clear days alone are too few
+(and a shifted logger's own irradiance makes its days look cloudy against the clear-sky curve,
+so a missed daylight-saving change hides from a clear-day test). The difference [min] per day,
+isolated outliers removed (:func:`perfcheck.detect.common.despike`), is segmented by circular
+binary segmentation (:func:`perfcheck.detect.common.change_points`); a segment whose level
+differs from the reference level (the longest segment) by at least ``min_offset_min`` (20 min)
+with a Welch t-test p-value below ``alpha`` (one-sided where it begins at a daylight-saving
+change in that change's direction: :func:`_p_value`) is a clock fault of that size; its edges
+are then placed on the day by the midpoint of each day's span of production (:func:`midspans`:
+clouds shorten the span at both ends alike, so it moves by a few minutes where the centre moves
+by tens, while a clock moves it by the whole offset). Where an irradiance sensor on another
+logger feeds an expected power of the inverter (:func:`independent`), each such window is
+tested again on the centre of the power against that expected power, where clouds cancel
+(:func:`_confirm`): it is kept only when it holds there too, and its offset and edges are taken
+from that test (a season's weather, such as foggy mornings, moves the centre against the clear
+sky for weeks, but moves the irradiance with the power). Inverters whose windows agree form one
+event, reported only when it covers every inverter of a logger (a clock belongs to a logger);
+plant scope when it covers all inverters. A window that begins at a daylight-saving change of
+the site's zone with that change's step inside the estimate's interval is set to the change
+exactly (:func:`daylight_saving`).
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
 interval). A logger's clock labels every channel it records, so the correction follows the
