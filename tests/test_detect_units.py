@@ -447,23 +447,3 @@ def test_a_lost_string_seen_on_three_days_is_found():
     assert [e.detail["strings_lost"] for e in events] == [2]
     assert events[0].evidence["days"] == 3
 
-
-def test_partial_weather_term_is_the_clearness_class_median():
-    # invented truth: 300 days whose daily log ratio reads 8 % low under overcast (clearness
-    # 0.3 to 0.4, 60 days) and right under a clear sky (240 days), days' noise 0.5 %; 5 days
-    # at clearness 0.15 (too few for a class: no term). The term is each class's median less
-    # the median of all days (common practice: a median per class of at least ten days), so
-    # a run of overcast days, less the term, lies at the clear days' level
-    rng = np.random.default_rng(11)
-    sky = np.r_[np.full(60, 0.35), np.full(240, 0.95), np.full(5, 0.15)]
-    x = np.where(sky < 0.5, np.log(0.92), 0.0) + rng.normal(0, 0.005, len(sky))
-    keep = np.ones(len(sky), dtype=bool)
-    term = partial.weather_term(x, sky, keep)
-    assert term[:60] == pytest.approx(np.log(0.92), abs=0.003)
-    assert term[60:300] == pytest.approx(0.0, abs=0.003)
-    assert (term[300:] == 0).all()
-    # days left out (a candidate fault) do not set their class's term
-    keep[:30] = False
-    x2 = x.copy()
-    x2[:30] -= 0.2
-    assert partial.weather_term(x2, sky, keep)[:60] == pytest.approx(np.log(0.92), abs=0.003)

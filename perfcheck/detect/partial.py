@@ -5,11 +5,8 @@ For each inverter the daily value is the median, over the day's usable intervals
 (measured/expected of this inverter) / (median of the same ratio over its siblings); with one
 inverter, its own measured/expected. The median over the day keeps the value robust to shading
 that touches only part of the day; dividing by the siblings removes what all arrays share
-(weather-model error, soiling, degradation). What the day's sky explains is taken out
-(:func:`weather_term`: the median of the days of its clearness class, :func:`clearness`,
-outside the candidate faults of a first segmentation): under overcast the model errs by a few %
-for days on end, a lost string takes its share whatever the sky. Changes of the mean of the log
-daily value are located by binary segmentation with a significance test at each split
+(weather-model error, soiling, degradation). Changes of the mean of the log daily value are
+located by binary segmentation with a significance test at each split
 (:func:`perfcheck.detect.common.change_points`), and neighbouring segments below the reference
 level that differ by less than half a string's share are joined (:func:`merge_within`: no
 string changed between them); a segment whose level is below the reference level (the highest
@@ -110,26 +107,20 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
               np.log(daily_relative(wc, uc & ~morning, min_intervals=2))]
     events: list[Event] = []
     prints: list[Footprint] = []
-    sky = clearness(wc)
     for inv in w.inverters:
         s = np.log(daily[inv].where(daily[inv] > 0)).dropna()
         if len(s) < 4 * min_days:
             continue
-        n_str = max(1, strings.get(inv, 1))
         x = despike(s.to_numpy())
-        # the model's error under cloud, read on the days of no candidate fault, taken out
-        segs = change_points(x, alpha=alpha, min_size=min_days)
-        keep = ~_low_days(segs, len(x), 0.5 / n_str, min_days)
-        x = x - weather_term(x, sky.reindex(s.index).to_numpy(), keep)
-        o = own[inv].reindex(s.index)
-        own_inv = o - weather_term(o.to_numpy(), sky.reindex(s.index).to_numpy(),
-                                   keep & o.notna().to_numpy())
         segs = change_points(x, alpha=alpha, min_size=min_days)
         if len(segs) < 2:
             continue
-        ref = _reference(segs, min_days)
+        longest = max(g.stop - g.start for g in segs)
+        ref = max((g for g in segs if g.stop - g.start >= max(2 * min_days, 0.2 * longest)),
+                  key=lambda g: g.mean)
         xr = x[ref.start:ref.stop]
-        own_r = own_inv.iloc[ref.start:ref.stop].dropna().to_numpy()
+        own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
+        n_str = max(1, strings.get(inv, 1))
         merged = merge_within(x, segs, ref, 0.5 / n_str)
         # the days' autocorrelation, read on the long reference segment (a few days next to
         # a fault are too few to estimate it)
@@ -149,7 +140,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
                 continue
             # the inverter's own ratio to expected must drop too (with two inverters the
             # sibling ratio alone cannot tell which one changed)
-            own_s = own_inv.iloc[g.start:g.stop].dropna().to_numpy()
+            own_s = own[inv].reindex(s.index[g.start:g.stop]).dropna().to_numpy()
             t_own = stats.ttest_ind(own_s, own_r, equal_var=False, alternative="less")
             if not t_own.pvalue < 0.05:
                 continue
@@ -218,55 +209,6 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share),
                                     factor_rel_sigma=(1 - share) * se / share))
     return events, prints
-
-
-def clearness(w: Wide) -> pd.Series:
-    """Per site-local day, the plant's expected energy over the largest of the days within
-    15 either side: near 1 on the season's clearest days, lower under cloud (the model's
-    own view of the day's sky, with or without a GHI channel)."""
-    e = w.expected.sum(axis=1, min_count=1).groupby(w.day.to_numpy()).sum(min_count=1)
-    return e / e.rolling(31, center=True, min_periods=1).max()
-
-
-def weather_term(x: np.ndarray, sky: np.ndarray, keep: np.ndarray, width: float = 0.1,
-                 min_n: int = 10) -> np.ndarray:
-    """Per day, the part of the daily log value ``x`` that its sky explains: the median of
-    the ``keep`` days of its clearness class (``sky`` in classes of ``width``) less the
-    median of all ``keep`` days; 0 in a class of fewer than ``min_n`` days.
-
-    Under overcast the model's decomposition, incidence-angle and low-light terms err
-    together (the expected power of a cloudy day is a few % off for days on end), and a
-    run of cloudy days then passes for a step; a lost string takes its share whatever the
-    sky. Classes of a tenth and at least ten days (a median's standard error then about
-    0.4 of the days' spread) are common practice."""
-    c = np.floor(sky / width)
-    ok = keep & np.isfinite(c) & np.isfinite(x)
-    if not ok.any():
-        return np.zeros(len(x))
-    v = pd.Series(x[ok]).groupby(c[ok])
-    med = v.median()[v.size() >= min_n] - float(np.median(x[ok]))
-    return pd.Series(c).map(med).fillna(0.0).to_numpy()
-
-
-def _reference(segs: list[Segment], min_days: int) -> Segment:
-    """The reference level: the highest of the long segments (at least twice ``min_days``
-    and a fifth of the longest)."""
-    longest = max(g.stop - g.start for g in segs)
-    return max((g for g in segs if g.stop - g.start >= max(2 * min_days, 0.2 * longest)),
-               key=lambda g: g.mean)
-
-
-def _low_days(segs: list[Segment], n: int, step: float, min_days: int) -> np.ndarray:
-    """Of ``n`` days, those in segments below the reference (:func:`_reference`) by ``step``
-    (a share of the power) or more: candidate faults."""
-    low = np.zeros(n, dtype=bool)
-    if len(segs) < 2:
-        return low
-    ref = _reference(segs, min_days)
-    for g in segs:
-        if 1 - math.exp(g.mean - ref.mean) >= step:
-            low[g.start:g.stop] = True
-    return low
 
 
 def _near(days: pd.Index, g: Segment, merged: list[Segment], ref: Segment, step: float,
