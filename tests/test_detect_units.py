@@ -446,4 +446,3 @@ def test_a_lost_string_seen_on_three_days_is_found():
     events, _ = partial.detect(w, usable, {"INV1": 6})
     assert [e.detail["strings_lost"] for e in events] == [2]
     assert events[0].evidence["days"] == 3
-
