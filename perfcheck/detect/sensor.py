@@ -421,7 +421,11 @@ def stuck_faults(w: Wide, sensor: pd.Series, reference: pd.Series,
     same &= telling
     step = w.interval_s.to_numpy()
     out = []
-    for a, b in runs(same):
+    # a run holds one value: two equal pairs side by side (95.7, 95.7, 93.1, 93.1) are none
+    cuts = np.flatnonzero(np.r_[False, v[1:] != v[:-1]])
+    pieces = [(int(p[0]), int(p[-1]) + 1) for a, b in runs(same)
+              for p in np.split(np.arange(a, b), cuts[(cuts > a) & (cuts < b)] - a) if len(p)]
+    for a, b in pieces:
         minutes = step[a:b].sum() / 60
         if minutes < min_stuck_minutes:
             continue
