@@ -100,6 +100,18 @@ def test_daylight_saving_changes_of_a_zone():
                    (pd.Timestamp("2024-10-27 01:00", tz="UTC"), 60.0)]
 
 
+def test_a_window_at_a_change_in_its_direction_is_tested_one_sided():
+    # EU Directive 2000/84/EC, art. 2: summer time from 31 March 2024, 01:00 UTC; a logger
+    # that missed it labels an hour early (-60 min). The calendar fixes that alternative
+    # beforehand, so a window starting then with a negative offset takes the one-sided
+    # p-value (half the two-sided one, Welch's t being symmetric); a positive offset, or a
+    # window a week away, keeps the two-sided p-value (common practice)
+    spring = pd.Timestamp("2024-03-31")
+    assert clock._p_value(0.002, spring, -55.0, TZ) == pytest.approx(0.001)
+    assert clock._p_value(0.002, spring, 55.0, TZ) == pytest.approx(0.002)
+    assert clock._p_value(0.002, pd.Timestamp("2024-04-08"), -55.0, TZ) == pytest.approx(0.002)
+
+
 def test_missed_change_set_to_the_change_exactly():
     # A window found a day after the spring change with -52 +- 6 min (a clear-sky estimate)
     # is the missed change: start at its instant, offset -60 (EU Directive 2000/84/EC). The

@@ -511,3 +511,18 @@ def test_a_broad_peak_below_the_expected_power_is_not_a_held_day():
     limited = _one_day(np.minimum(8500 * bell, 6000.0), expected, 40000.0)
     got = clipping.derated_days(limited, limited.measured < 0, 0.01, 0.05, 1e-3)
     assert got["A"].iloc[0] == pytest.approx(6000.0)
+
+
+def test_a_stuck_run_holds_one_value():
+    # common practice: a stuck sensor repeats one reading. Invented readings [W/m^2] at
+    # 15 min, the clear sky above 50 W/m^2 all along: two equal pairs side by side (95.7,
+    # 95.7, 93.1, 93.1) are no hour of one value; six readings of 598.4 are 90 min stuck
+    idx = pd.date_range("2024-10-17 10:00", periods=12, freq="15min", tz="UTC")
+    w = types.SimpleNamespace(interval_s=pd.Series(900.0, index=idx), index=idx)
+    v = pd.Series([121.1, 118.0, 101.2, 93.7, 95.7, 95.7, 93.1, 93.1, 99.1, 103.5, 108.8,
+                   112.1], index=idx)
+    sky = pd.Series(500.0, index=idx)
+    assert sensor.stuck_faults(w, v, sky) == []
+    v.iloc[3:9] = 598.4
+    (s,) = sensor.stuck_faults(w, v, sky)
+    assert (s.start, s.end, s.evidence["minutes"]) == (idx[3], idx[9], 90.0)

@@ -1,31 +1,31 @@
 """Clock faults: the logger's time labels off by a constant offset for a while.
 
-Every day with readings in at least 90 % of its daylight intervals, the centre
-(power-weighted mean time) of an inverter's measured power is compared with the centre of its
-clear-sky plane-of-array irradiance computed from the sun position
-(:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by DC
-rating). For a south-facing array this is the solar noon; for other orientations it is the
-same astronomy seen from their plane. Clouds move a day's centre by a few to some tens of
-minutes either way, a clock error moves every day of its window alike; clear days alone are
-too few (and a shifted logger's own irradiance makes its days look cloudy against the
-clear-sky curve, so a missed daylight-saving change hides from a clear-day test). The
-difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.common.despike`),
-is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`); a
-segment whose level differs from the reference level (the longest segment) by at least
-``min_offset_min`` (20 min) with a Welch t-test p-value below ``alpha`` is a clock fault of that
-size; its edges are then placed on the day by the midpoint of each day's span of production
-(:func:`midspans`: clouds shorten the span at both ends alike, so it moves by a few minutes
-where the centre moves by tens, while a clock moves it by the whole offset). Where an
-irradiance sensor on another logger feeds an expected power of the inverter
-(:func:`independent`), each such window is tested again on the centre of the power against
-that expected power, where clouds cancel (:func:`_confirm`): it is kept only when it holds
-there too, and its offset and edges are taken from that test (a season's weather, such as
-foggy mornings, moves the centre against the clear sky for weeks, but moves the irradiance
-with the power). Inverters whose windows agree form one event, reported only when it covers
-every inverter of a logger (a clock belongs to a logger); plant scope when it covers all
-inverters. A window that begins at a daylight-saving change of the site's zone with that
-change's step inside the estimate's interval is set to the change exactly
-(:func:`daylight_saving`).
+Every day with readings in at least 90 % of its daylight intervals, the centre (power-weighted
+mean time) of an inverter's measured power is compared with the centre of its clear-sky
+plane-of-array irradiance computed from the sun position
+(:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by DC rating).
+For a south-facing array this is the solar noon; for other orientations it is the same
+astronomy seen from their plane. Clouds move a day's centre by a few to some tens of minutes
+either way, a clock error moves every day of its window alike; clear days alone are too few
+(and a shifted logger's own irradiance makes its days look cloudy against the clear-sky curve,
+so a missed daylight-saving change hides from a clear-day test). The difference [min] per day,
+isolated outliers removed (:func:`perfcheck.detect.common.despike`), is segmented by circular
+binary segmentation (:func:`perfcheck.detect.common.change_points`); a segment whose level
+differs from the reference level (the longest segment) by at least ``min_offset_min`` (20 min)
+with a Welch t-test p-value below ``alpha`` (one-sided where it begins at a daylight-saving
+change in that change's direction: :func:`_p_value`) is a clock fault of that size; its edges
+are then placed on the day by the midpoint of each day's span of production (:func:`midspans`:
+clouds shorten the span at both ends alike, so it moves by a few minutes where the centre moves
+by tens, while a clock moves it by the whole offset). Where an irradiance sensor on another
+logger feeds an expected power of the inverter (:func:`independent`), each such window is
+tested again on the centre of the power against that expected power, where clouds cancel
+(:func:`_confirm`): it is kept only when it holds there too, and its offset and edges are taken
+from that test (a season's weather, such as foggy mornings, moves the centre against the clear
+sky for weeks, but moves the irradiance with the power). Inverters whose windows agree form one
+event, reported only when it covers every inverter of a logger (a clock belongs to a logger);
+plant scope when it covers all inverters. A window that begins at a daylight-saving change of
+the site's zone with that change's step inside the estimate's interval is set to the change
+exactly (:func:`daylight_saving`).
 
 :func:`corrected` shifts the readings of the window back by the offset (rounded to the
 interval). A logger's clock labels every channel it records, so the correction follows the
@@ -184,8 +184,9 @@ def _confirm(x: pd.Series, s: Shift, tz: Any, alpha: float, min_offset_min: floa
     (:func:`independent`), where clouds cancel. Its edges are placed again on ``x`` within
     ``EDGE_DAYS`` of the first ones (:func:`perfcheck.detect.sensor.refine_edge`); the window's
     median less the median of as many days either side
-    (:func:`perfcheck.detect.common.window_change`) is the offset, kept when at least
-    ``min_offset_min`` with a Welch t-test p-value below ``alpha``. None when not confirmed:
+    (:func:`perfcheck.detect.common.window_change`, isolated outliers removed as in the
+    first test: :func:`_despiked`) is the offset, kept when at least ``min_offset_min``
+    with a Welch t-test p-value below ``alpha``. None when not confirmed:
     a season's weather (morning fog, afternoon storms) moves the centre of power and
     irradiance alike, a clock moves the power's alone."""
     def day(ts: pd.Timestamp) -> pd.Timestamp:
@@ -195,7 +196,7 @@ def _confirm(x: pd.Series, s: Shift, tz: Any, alpha: float, min_offset_min: floa
     a, b = day(s.start), day(s.end)
     d0 = refine_edge(x, a - e - one, max(min(a + e, b - one), a))
     d1 = refine_edge(x, max(b - e - one, d0), b + e)
-    ch = window_change(x, d0, d1, min_n=min_days)
+    ch = window_change(_despiked(x), d0, d1, min_n=min_days)
     if ch is None:
         return None
     off, inside, around = ch
@@ -237,7 +238,7 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
             if g is ref or abs(off) < min_offset_min:
                 continue
             t = stats.ttest_ind(x[g.start:g.stop], x[ref.start:ref.stop], equal_var=False)
-            if not t.pvalue < alpha:
+            if not _p_value(t.pvalue, q.index[g.start], off, w.tz) < alpha:
                 continue
             allq = d_span[inv]
             # each edge may move by a day where a least-absolute-deviation split of the span
@@ -267,6 +268,27 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
             out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha,
                                        partial(_left_after, w, reference, ind, lg)))
     return out
+
+
+def _p_value(p_two: float, first_day: pd.Timestamp, off: float, tz: Any) -> float:
+    """The test's p-value for a window whose first day is ``first_day`` (site-local) and
+    offset ``off`` [min]: one-sided where the window begins within ``EDGE_DAYS`` of a
+    daylight-saving change whose missed step has the offset's sign (the zone's calendar fixes
+    that alternative, its time and direction, before the data are seen: a logger left on the
+    old time), else the two-sided ``p_two`` of the Welch test."""
+    day = pd.Timestamp(first_day).tz_localize(tz).tz_convert("UTC")
+    e = pd.Timedelta(days=EDGE_DAYS + 1)
+    if any(np.sign(step) == np.sign(off) for _, step in changes(tz, day - e, day + e)):
+        return p_two / 2
+    return p_two
+
+
+def _despiked(x: pd.Series) -> pd.Series:
+    """The days of ``x`` with a value, isolated outliers removed as in the first test (a day
+    whose readings were not written for hours moves its centre by hours: without this, one
+    such day inside a window inflates the Welch test's variance and hides the window)."""
+    q = x.dropna()
+    return pd.Series(despike(q.to_numpy()), index=q.index)
 
 
 def _merge(found: list[Shift]) -> list[Shift]:

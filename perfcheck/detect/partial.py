@@ -9,19 +9,21 @@ that touches only part of the day; dividing by the siblings removes what all arr
 located by binary segmentation with a significance test at each split
 (:func:`perfcheck.detect.common.change_points`), and neighbouring segments below the reference
 level that differ by less than half a string's share are joined (:func:`merge_within`: no
-string changed between them); a segment whose level is below the reference
-level (the highest of the long segments: at least twice ``min_days`` and a fifth of the
-longest) by a Student t-test p-value below ``alpha`` and by at least half a
-string's share of the DC power is a partial outage, when two physical checks hold: every edge
-of the segment inside the data is a step (the median of the ``min_days`` days on either side
-differs by at least half the segment's shift: a lost string is a step, a seasonal drift or a
-growing shade is not), and the loss is the same share in the morning and in the afternoon
-(half-day values within a factor two: a lost string takes its share all day, a shade takes it
-on one side of the day only). The share lost is then measured on the fault's whole days
-against the days next to it (the mean of the level before and the level after, within two
-weeks: the inverter's level against its siblings wanders with the season, so the long
-reference segment that proves the fault would bias its size); times the number of strings in
-the site file it gives the number of strings lost.
+string changed between them); a segment whose level is below the reference level (the highest
+of the long segments: at least twice ``min_days`` and a fifth of the longest) by a Student
+t-test p-value below ``alpha`` and by at least half a string's share of the DC power, and below
+the days next to it (those the share is measured against, below) by a Student t-test p-value
+below ``alpha`` with their own noise (a winter's days are noisier than the summer's that the
+long reference holds), is a partial outage, when two physical checks hold: every edge of the
+segment inside the data is a step (the median of the ``min_days`` days on either side differs
+by at least half the segment's shift: a lost string is a step, a seasonal drift or a growing
+shade is not), and the loss is the same share in the morning and in the afternoon (half-day
+values within a factor two: a lost string takes its share all day, a shade takes it on one side
+of the day only). The share lost is then measured on the fault's whole days against the days
+next to it (the mean of the level before and the level after, within two weeks: the inverter's
+level against its siblings wanders with the season, so the long reference segment that proves
+the fault would bias its size); times the number of strings in the site file it gives the
+number of strings lost.
 
 The false-alarm rate per inverter and series is bounded by about ``alpha`` per split tested
 (Bonferroni), default 1e-3.
@@ -157,6 +159,13 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             # variance range^2 / 12: JCGM 100:2008, 4.3.7)
             sides = [x[m] for m in _near(s.index, g, merged, ref, 0.5 / n_str)
                      if m.sum() >= min_days] or [xr]
+            # the same test against the days next to the fault, with their noise: the days'
+            # spread changes with the season (a winter's days, low sun and few intervals, are
+            # noisier than the summer's that the long reference holds), so the long
+            # reference's variance can make a run of poor winter days look certain
+            t_near = stats.ttest_ind(xs, np.concatenate(sides), equal_var=True)
+            if not t_near.pvalue < alpha:
+                continue
             base = float(np.mean([np.mean(v) for v in sides]))
             d0, d1 = s.index[g.start], s.index[g.stop - 1]
             lo, hi = _edges(w, usable if judged is None else judged, inv, d0, d1,
@@ -190,6 +199,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
                           "share_reference_days": int(sum(len(v) for v in sides)),
                           "share_of_dc_lost": share, "share_ci95": [share_lo, share_hi],
                           "own_ratio_p_value": float(t_own.pvalue),
+                          "near_days_p_value": float(t_near.pvalue),
                           "edge_steps_share": steps, "morning_afternoon_share": half,
                           "segments": len(segs)},
                 detail={"strings_lost": int(max(k, 1)), "strings_total": n_str,

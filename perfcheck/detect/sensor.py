@@ -421,7 +421,11 @@ def stuck_faults(w: Wide, sensor: pd.Series, reference: pd.Series,
     same &= telling
     step = w.interval_s.to_numpy()
     out = []
-    for a, b in runs(same):
+    # a run holds one value: two equal pairs side by side (95.7, 95.7, 93.1, 93.1) are none
+    cuts = np.flatnonzero(np.r_[False, v[1:] != v[:-1]])
+    pieces = [(int(p[0]), int(p[-1]) + 1) for a, b in runs(same)
+              for p in np.split(np.arange(a, b), cuts[(cuts > a) & (cuts < b)] - a) if len(p)]
+    for a, b in pieces:
         minutes = step[a:b].sum() / 60
         if minutes < min_stuck_minutes:
             continue
@@ -562,7 +566,8 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         days = w.day[(w.index >= s.start) & (w.index < s.end)].unique()
         free[w.day.isin(days).to_numpy()] = np.nan
     others = [c for c in w.inverters if c not in driven]
-    pi = np.log(daily_pi(w, daylight(w)))
+    # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
+    pi = np.log(daily_pi(w, daylight(w)).where(lambda p: p > 0))
     index = pi[driven].median(axis=1)
     if others:
         # the driven inverters against the others: a sensor fault moves the first ones'

@@ -589,8 +589,12 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
                 p_run = float(np.min(fits.p_value[own], initial=1.0)) * tested
             if not (seen or p_run < alpha):
                 continue
+            # rows the channel shows held away from the stow angle are a fault whatever the
+            # size of their loss; at the stow angle they may be the design's stow in wind
+            stowed = lab[0] == "stall" and abs(
+                lab[1] - arrays[inv].tracker.stow_angle_deg) <= ANGLE_TOLERANCE_DEG
             ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
-                            y, rel_sigma, z, fits, days, alpha)
+                            y, rel_sigma, z, fits, days, alpha, shown=seen and not stowed)
             if ev is not None:
                 events.append(ev)
                 prints.append(fp)
@@ -678,9 +682,11 @@ def _nearest(cand: Candidates, fam: str, val: float) -> int:
 
 def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[str, float],
            span: tuple[np.datetime64, np.datetime64], usable: pd.DataFrame, y_all: np.ndarray,
-           rel_sigma: float, z: float, fits: DayFits, days: np.ndarray, alpha: float
-           ) -> tuple[Event | None, Footprint | None]:
-    """The event of one run of days, its energy from the run's angle (or offset)."""
+           rel_sigma: float, z: float, fits: DayFits, days: np.ndarray, alpha: float,
+           shown: bool = False) -> tuple[Event | None, Footprint | None]:
+    """The event of one run of days, its energy from the run's angle (or offset); None when
+    that energy lies within the model's error (one-sided ``z``), unless the angle channel
+    ``shown`` the rows' angle: then the fault is seen, not inferred from the power's shape."""
     fam, val = lab
     first, last = span
     day = w.day.to_numpy()
@@ -712,7 +718,7 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     step = step_all[start:stop]
     exp = np.nan_to_num(e_all[lo:hi])
     e_kwh = float(loss_all[start:stop].sum())
-    if not e_kwh > z * rel_sigma * float(np.sum(exp * step) / 3.6e6):
+    if not (shown or e_kwh > z * rel_sigma * float(np.sum(exp * step) / 3.6e6)):
         return None, None  # within the model's error once the angle is refined
     # the shortfall measured against the inverter's usual performance index
     inside = u[lo:hi] & np.isfinite(m[lo:hi])
