@@ -690,6 +690,42 @@ def poa_components(surface_tilt: float | pd.Series, surface_azimuth: float | pd.
     })
 
 
+def poa_dni_sensitivity(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+                        solpos: pd.DataFrame, ghi: pd.Series, dni: pd.Series, dhi: pd.Series,
+                        dni_extra: pd.Series, airmass: pd.Series, albedo: float = 0.2,
+                        horizon: Sequence[tuple[float, float]] = (),
+                        transposition: str = "perez", rel_step: float = 0.1) -> pd.Series:
+    """Change of the plane-of-array irradiance per relative change of DNI with GHI held [W/m^2].
+
+    The error of a decomposition moves light between beam and diffuse: DNI becomes
+    DNI (1 + e) and DHI = GHI - DNI cos(z) moves the other way, DHI - e DNI cos(z) (true
+    zenith z, as :func:`decompose` closes it; clipped at zero). The sensitivity
+    c = d poa_global / d e is the central difference of :func:`poa_components` over
+    e = +-``rel_step``, a numerical sensitivity coefficient over the input's own uncertainty
+    (JCGM 100:2008, GUM, 5.1.3 note 2: from memory), so it follows the transposition, the
+    horizon and Perez's brightness bins as they are. A relative DNI error e changes the
+    plane's irradiance by c e; positive where the plane sees more of the beam than the
+    horizontal does (a tracker at low sun), near zero or negative where it sees less.
+
+    Parameters
+    ----------
+    surface_tilt, surface_azimuth, solpos, ghi, dni, dhi, dni_extra, airmass, albedo, horizon,
+    transposition : as :func:`poa_components`
+    rel_step : float
+        Relative change of DNI of the difference [-].
+    """
+    cosz = np.cos(np.radians(solpos["zenith"]))
+    shift = dni * cosz * rel_step
+
+    def poa(sign: float) -> pd.Series:
+        return poa_components(surface_tilt, surface_azimuth, solpos, ghi,
+                              dni * (1.0 + sign * rel_step), (dhi - sign * shift).clip(lower=0.0),
+                              dni_extra, airmass, albedo, horizon, transposition,
+                              "none")["poa_global"]
+
+    return (poa(1.0) - poa(-1.0)) / (2.0 * rel_step)
+
+
 # --------------------------------------------------------------------------------------------
 # trackers and bifacial modules
 

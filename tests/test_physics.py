@@ -191,6 +191,46 @@ def test_default_decomposition_at_low_sun_on_a_tracker():
         assert (monthly(o["dni"], o["dhi"]) / files - 1).iloc[11] < err.iloc[11]
 
 
+def test_dni_sensitivity_against_pvlib_difference_on_a_typical_year():
+    # TMY3 703165 Sand Point AK (55 deg N; Wilcox & Marion 2008, NREL/TP-581-43156), GHI
+    # split by DISC: the plane's change per relative change of DNI with GHI held (DHI moving
+    # the other way, DHI - e DNI cos z) against the same central difference taken with
+    # pvlib's own transposition (get_total_irradiance, Perez 1990), on a fixed 25 deg south
+    # plane and a horizontal tracker without backtracking: equal to rounding (1e-9 W/m^2).
+    # Then the physics the PR's interval rests on (Duffie & Beckman, Solar Engineering of
+    # Thermal Processes, 2.15-2.16, from memory: a plane gains from beam what it sees of it
+    # beyond the horizontal's share): over a month, the fixed plane's sensitivity per unit of
+    # its irradiance is small in summer and large in winter, the tracker's larger than the
+    # fixed plane's in summer (bands common practice).
+    data, sp = _typical_year("sand_point")
+    up = sp["zenith"] < 90
+    ghi = data["ghi"].where(up, 0.0)
+    est = ph.decompose(ghi, sp["zenith"])
+    dni_extra = pvlib.irradiance.get_extra_radiation(data.index)
+    airmass = pvlib.atmosphere.get_relative_airmass(sp["apparent_zenith"])
+    trk = pvlib.tracking.singleaxis(sp["apparent_zenith"], sp["azimuth"], 0, 180, 50, False)
+    cosz = np.cos(np.radians(sp["zenith"]))
+    ratio = {}
+    for name, (tilt, azimuth) in {"fixed": (25.0, 180.0),
+                                  "tracker": (trk["surface_tilt"].fillna(0.0),
+                                              trk["surface_azimuth"].fillna(90.0))}.items():
+        ours = ph.poa_dni_sensitivity(tilt, azimuth, sp, ghi, est["dni"], est["dhi"], dni_extra,
+                                      airmass, 0.2, (), "perez", rel_step=0.1)
+
+        def total(e, tilt=tilt, azimuth=azimuth):
+            return pvlib.irradiance.get_total_irradiance(
+                tilt, azimuth, sp["apparent_zenith"], sp["azimuth"], est["dni"] * (1 + e), ghi,
+                (est["dhi"] - e * est["dni"] * cosz).clip(lower=0.0), dni_extra=dni_extra,
+                airmass=airmass, model="perez", albedo=0.2)["poa_global"].fillna(0.0)
+
+        # (NaN where the sun is just below the horizon, as poa_global: pvlib gives 0)
+        assert_allclose(ours.fillna(0.0), (total(0.1) - total(-0.1)) / 0.2, rtol=0, atol=1e-9)
+        poa = total(0.0)
+        ratio[name] = ours.resample("MS").sum() / poa.resample("MS").sum()
+    assert ratio["fixed"].iloc[5] < 0.05 and ratio["fixed"].iloc[11] > 0.25
+    assert (ratio["tracker"].iloc[4:8] > ratio["fixed"].iloc[4:8] + 0.05).all()
+
+
 @pytest.mark.parametrize("kt", [0.1, 0.3, 0.5, 0.7, 0.9])
 def test_erbs_diffuse_fraction(kt):
     # Erbs, Klein & Duffie 1982, Solar Energy 28(4):293, the published polynomial:
