@@ -713,17 +713,32 @@ def poa_dni_sensitivity(surface_tilt: float | pd.Series, surface_azimuth: float 
     transposition : as :func:`poa_components`
     rel_step : float
         Relative change of DNI of the difference [-].
+
+    Returns
+    -------
+    pandas.Series
+        c [W/m^2] on the index of ``solpos``; 0 with the sun below the horizon (NaN where
+        poa_global is).
     """
-    cosz = np.cos(np.radians(solpos["zenith"]))
-    shift = dni * cosz * rel_step
+    # daylight only (apparent zenith below 90 degrees, as the metrics count it; 0 at night):
+    # the transposition is the model's costliest step, and half the intervals are night
+    day = (solpos["apparent_zenith"] < 90.0).to_numpy()
+
+    def at(x: float | pd.Series | pd.DataFrame) -> float | pd.Series | pd.DataFrame:
+        return x[day] if isinstance(x, pd.Series | pd.DataFrame) else x
+
+    sun, beam, diffuse = at(solpos), at(dni), at(dhi)
+    shift = beam * np.cos(np.radians(sun["zenith"])) * rel_step
 
     def poa(sign: float) -> pd.Series:
-        return poa_components(surface_tilt, surface_azimuth, solpos, ghi,
-                              dni * (1.0 + sign * rel_step), (dhi - sign * shift).clip(lower=0.0),
-                              dni_extra, airmass, albedo, horizon, transposition,
-                              "none")["poa_global"]
+        return poa_components(at(surface_tilt), at(surface_azimuth), sun, at(ghi),
+                              beam * (1.0 + sign * rel_step),
+                              (diffuse - sign * shift).clip(lower=0.0), at(dni_extra),
+                              at(airmass), albedo, horizon, transposition, "none")["poa_global"]
 
-    return (poa(1.0) - poa(-1.0)) / (2.0 * rel_step)
+    out = pd.Series(0.0, index=solpos.index)
+    out[day] = ((poa(1.0) - poa(-1.0)) / (2.0 * rel_step)).to_numpy()
+    return out
 
 
 # --------------------------------------------------------------------------------------------

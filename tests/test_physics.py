@@ -223,7 +223,7 @@ def test_dni_sensitivity_against_pvlib_difference_on_a_typical_year():
                 (est["dhi"] - e * est["dni"] * cosz).clip(lower=0.0), dni_extra=dni_extra,
                 airmass=airmass, model="perez", albedo=0.2)["poa_global"].fillna(0.0)
 
-        # (NaN where the sun is just below the horizon, as poa_global: pvlib gives 0)
+        # (NaN where poa_global is: the sun just below the horizon; pvlib gives 0 there)
         assert_allclose(ours.fillna(0.0), (total(0.1) - total(-0.1)) / 0.2, rtol=0, atol=1e-9)
         poa = total(0.0)
         ratio[name] = ours.resample("MS").sum() / poa.resample("MS").sum()
