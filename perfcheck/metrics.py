@@ -29,7 +29,8 @@ Rules (also written into every result's ``settings``):
   reported only when coverage is at least ``min_coverage``; otherwise it is null with a reason.
 - Irradiance uncertainty (:func:`irradiance_uncertainty`): the sensor's calibration where its
   reading is used; where the irradiance is modelled from GHI, the GHI sensor's calibration and
-  the decomposition's DNI bias carried through the transposition, month by month.
+  the decomposition's DNI bias carried through the transposition, month by month, plus the
+  range over the beam the decomposition cuts at low sun.
 - Sensor-fault windows (detected events): the reference yield uses the modelled irradiance
   there, with the modelled-irradiance uncertainty, and the expected power (EPI, energy-based
   availability, gap filling of the specific yield) the expected power computed from that
@@ -84,7 +85,7 @@ IRRADIANCE_METRICS = ("pr", "pr_temp_corrected", "pr_weather_corrected", "epi")
 SUM_COLUMNS = (
     "p0_w", "n_daylight", "n_nominal", "n_valid", "n_excluded", "n_used", "n_fallback", "n_dc",
     "e_meas_wh", "e_exp_wh", "e_exp_fallback_wh", "e_dc_wh", "ref_wh", "ref_sensor_wh",
-    "ref_dni_wh",
+    "ref_dni_wh", "ref_beam_wh",
     "refg_wh", "refgt_wh", "refgb_wh", "refgtb_wh", "w_base", "w_up", "e_base_exp_wh",
     "e_down_exp_wh", "e_meas_all_wh", "e_exp_all_wh", "e_exp_gap_wh", "e_ledger_meas_wh",
     "e_ledger_exp_wh", "e_delivered_wh", "e_rec_inv_wh", "e_rec_meter_wh",
@@ -602,6 +603,7 @@ def _scaled(daily: pd.DataFrame, site: Site) -> pd.DataFrame:
     d["ref_wh"] = d["p0_w"] * d["h_whm2"] / G_STC
     d["ref_sensor_wh"] = d["p0_w"] * d["h_sensor_whm2"] / G_STC
     d["ref_dni_wh"] = d["p0_w"] * d["h_dni_whm2"] / G_STC
+    d["ref_beam_wh"] = d["p0_w"] * d["h_beam_whm2"] / G_STC
     d["refg_wh"] = g * d["p0_w"] * d["h_t_whm2"] / G_STC
     d["refgt_wh"] = g * d["p0_w"] * d["ht_whm2c"] / G_STC
     d["refgb_wh"] = g * d["p0_w"] * d["h_tb_whm2"] / G_STC
@@ -626,8 +628,8 @@ def _sums(tot: np.ndarray, p0: np.ndarray) -> dict[str, np.ndarray]:
     return s
 
 
-def irradiance_uncertainty(ref_wh: Any, ref_sensor_wh: Any, ref_dni_wh: Any, u_sensor: float,
-                           dni_bias: float) -> np.ndarray:
+def irradiance_uncertainty(ref_wh: Any, ref_sensor_wh: Any, ref_dni_wh: Any, ref_beam_wh: Any,
+                           u_sensor: float, dni_bias: float) -> np.ndarray:
     r"""Relative expanded uncertainty of the reference irradiation of a period [-].
 
     Parameters
@@ -637,13 +639,16 @@ def irradiance_uncertainty(ref_wh: Any, ref_sensor_wh: Any, ref_dni_wh: Any, u_s
     ref_dni_wh : sum of P0 c_k tau_k / G_STC over the other rows (modelled from GHI), c_k the
         modelled irradiance's change per relative change of the decomposition's DNI with GHI
         held (:func:`perfcheck.physics.poa_dni_sensitivity`) [Wh]
+    ref_beam_wh : sum of P0 r_k tau_k / G_STC over the same rows, r_k the modelled
+        irradiance's range over the beam the decomposition cannot see at low sun
+        (:func:`perfcheck.physics.poa_low_sun_beam_range`) [Wh]
     u_sensor : relative expanded uncertainty of the irradiance sensor (plane-of-array or GHI) [-]
     dni_bias : relative expanded bias of the decomposition's DNI over the period [-]
 
     Returns
     -------
-    (u_sensor H_s + sqrt((u_sensor H_m)^2 + (dni_bias |C|)^2)) / H, with H = ``ref_wh``,
-    H_s = ``ref_sensor_wh``, H_m = H - H_s and C = ``ref_dni_wh``.
+    (u_sensor H_s + sqrt((u_sensor H_m)^2 + (dni_bias |C|)^2) + |R|) / H, with H = ``ref_wh``,
+    H_s = ``ref_sensor_wh``, H_m = H - H_s, C = ``ref_dni_wh`` and R = ``ref_beam_wh``.
 
     Notes
     -----
@@ -661,16 +666,23 @@ def irradiance_uncertainty(ref_wh: Any, ref_sensor_wh: Any, ref_dni_wh: Any, u_s
     and similar decomposition models is ``dni_bias_pct`` (Settings): the validations of
     Gueymard & Ruiz-Arias 2016 (Solar Energy 128:1) and Ineichen 2008 (Solar Energy 82:501)
     report station mean biases of the modelled DNI within about +-10 % (from memory).
+
+    Below the decomposition's range of validity (low sun, where DISC's beam is cut) the beam
+    is not biased but unknown, between nothing and a physical bound; R is the modelled
+    irradiance's range over it. The same cut acts in every such interval, so R too is summed
+    linearly, and as the estimate sits at the range's lower end, R is a limit of the error
+    rather than a standard deviation: it is added to the expanded uncertainty in full, not in
+    quadrature (a bound, so no independence is assumed).
     """
     h, h_s = np.asarray(ref_wh, dtype=float), np.asarray(ref_sensor_wh, dtype=float)
     modelled = np.hypot(u_sensor * (h - h_s), dni_bias * np.abs(np.asarray(ref_dni_wh)))
-    return _div(u_sensor * h_s + modelled, h)
+    return _div(u_sensor * h_s + modelled + np.abs(np.asarray(ref_beam_wh, dtype=float)), h)
 
 
 def _uncertainty(s: Mapping[str, np.ndarray], settings: Settings) -> np.ndarray:
     """:func:`irradiance_uncertainty` of the sums ``s`` with the settings' values."""
     return irradiance_uncertainty(s["ref_wh"], s["ref_sensor_wh"], s["ref_dni_wh"],
-                                  settings.poa_uncertainty_pct / 100.0,
+                                  s["ref_beam_wh"], settings.poa_uncertainty_pct / 100.0,
                                   settings.dni_bias_pct / 100.0)
 
 
@@ -1042,7 +1054,9 @@ def settings_record(
             "a month (published validations: Gueymard and Ruiz-Arias 2016, Ineichen 2008), "
             "carried through the transposition to the plane interval by interval, so it is "
             "small for a fixed plane in summer and large for a tracker in a high-latitude "
-            "winter"
+            "winter; plus, with the sun below about 86 degrees of zenith where the split "
+            "cuts the direct light, the whole range the plane's irradiance can take between "
+            "no direct light and the clear-sky direct light"
         ),
         "rules": rules(settings),
     })
@@ -1068,7 +1082,7 @@ def rules(settings: Settings) -> list[str]:
         f"outages: {grid}",
         "irradiance-sensor faults: the modelled plane-of-array irradiance replaces the "
         "sensor's for the reference yield, with the uncertainty of the modelled irradiance, "
-        "and and the expected power; the intervals and energy concerned are reported",
+        "and the expected power; the intervals and energy concerned are reported",
         "coverage: valid daylight intervals over the calendar's daylight intervals; below "
         f"{settings.min_coverage:.0%} a value is left out, with the reason",
         "plant reference yield: the mean of the inverters' plane-of-array irradiation, "

@@ -50,7 +50,8 @@ METHODS: list[tuple[str, str]] = [
      "is modelled from the horizontal reading, also the monthly bias of its split into direct "
      "and diffuse light (DISC, Maxwell 1987; size from the validations of Gueymard & "
      "Ruiz-Arias 2016 and Ineichen 2008) carried through the transposition to the plane, in "
-     "quadrature (GUM)"),
+     "quadrature (GUM), and at low sun, where the split drops the direct light, the range "
+     "between none and the clear-sky direct light (Ineichen & Perez 2002)"),
     ("Underperformance periods", "robust regression of measured on expected power (statsmodels) "
      "on a reference window; CUSUM (Page 1954) on the AR(1) innovations of the daily "
      "residuals, scaled by their long-run variance"),
