@@ -23,6 +23,11 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
   stand-in where the sensor is suspect (the metrics use it inside detected sensor-fault
   windows). Where no GHI is logged the modelled POA itself comes from the sensor (GTI-DIRINT),
   so it cannot stand in for a faulty sensor there.
+* Beside the modelled POA, its sensitivity to the decomposition's error
+  (``poa_dni_sensitivity_wm2``, :func:`perfcheck.physics.poa_dni_sensitivity`; zero where DNI
+  or DHI is measured) and its range over the beam cut at low sun (``poa_beam_range_wm2``,
+  :func:`perfcheck.physics.poa_low_sun_beam_range`): the metrics turn them into the modelled
+  irradiance's uncertainty.
 * A single-axis tracker array's plane moves (:func:`orientation`, pvlib's tracking with
   backtracking, flat at night); a POA sensor on a tracker (``poa_sensor_on_tracker``) moves
   with the first tracker array, and feeds the arrays on the same tracker. Bifacial arrays add
@@ -68,7 +73,7 @@ from perfcheck.versions import versions
 pvlib = lazy_module("pvlib")  # loaded when a model is built, not when a detector names it
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "4"
+MODEL_VERSION = "6"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
 WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
@@ -235,9 +240,9 @@ def site_sun(times: pd.DatetimeIndex, site: Site, step_s: float,
     mid = ph.interval_midpoints(times, step_s)
     sun = (positions or quality.sun_positions(site)).at(mid)
     sun = sun.join(ph.atmosphere(sun, pressure))
-    sun["clearsky_ghi"] = ph.clearsky_ghi(sun, site.latitude_deg, site.longitude_deg,
-                                          site.altitude_m, sun["airmass_absolute"],
-                                          sun["dni_extra"])
+    clear = ph.clearsky(sun, site.latitude_deg, site.longitude_deg, site.altitude_m,
+                        sun["airmass_absolute"], sun["dni_extra"])
+    sun["clearsky_ghi"], sun["clearsky_dni"] = clear["ghi"], clear["dni"]
     sun.index = times
     return sun
 
@@ -280,7 +285,9 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
     """POA (total, effective, modelled) and its source for one array.
 
     Returns ``poa_global``, ``poa_effective``, ``poa_modelled``, ``poa_effective_modelled``
-    [W/m^2] (the last two from the GHI path, whatever the source) and ``from_sensor`` (bool).
+    [W/m^2] (the last two from the GHI path, whatever the source), ``poa_dni_sensitivity``
+    [W/m^2] (of ``poa_modelled``), ``poa_beam_range`` [W/m^2] (of ``poa_modelled`` over the
+    beam the decomposition cannot see at low sun) and ``from_sensor`` (bool).
     The plane moves with a tracker. For bifacial modules the effective irradiance adds the
     rear's at the bifaciality: a rear sensor's reading for the arrays in the POA sensor's
     plane where it reads, else the infinite-sheds model's (:func:`perfcheck.physics.poa_rear`;
@@ -291,6 +298,15 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
     mod = ph.poa_components(tilt, azimuth, sun, comps["ghi"], comps["dni"], comps["dhi"],
                             sun["dni_extra"], sun["airmass_relative"], array.albedo,
                             array.horizon, m.transposition, m.iam)
+    sens = ph.poa_dni_sensitivity(tilt, azimuth, sun, comps["ghi"], comps["dni"], comps["dhi"],
+                                  sun["dni_extra"], sun["airmass_relative"], array.albedo,
+                                  array.horizon, m.transposition)
+    beam_range = ph.poa_low_sun_beam_range(tilt, azimuth, sun, comps["ghi"],
+                                           sun["clearsky_dni"], sun["dni_extra"],
+                                           sun["airmass_relative"], array.albedo,
+                                           array.horizon, m.transposition)
+    nan = pd.Series(np.nan, index=sun.index)
+    split = weather.get("dni", nan).notna() | weather.get("dhi", nan).notna()  # measured
     from_sensor = pd.Series(False, index=sun.index)
     glob, eff = mod["poa_global"], mod["poa_effective"]
     if source == "sensor" and in_sensor_plane(array, site):
@@ -319,6 +335,8 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
     return pd.DataFrame({"poa_global": glob, "poa_effective": eff,
                          "poa_modelled": mod["poa_global"],
                          "poa_effective_modelled": eff_modelled,
+                         "poa_dni_sensitivity": sens.where(~split, 0.0),
+                         "poa_beam_range": beam_range.where(~split, 0.0),
                          "from_sensor": from_sensor})
 
 
@@ -382,6 +400,8 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
             "poa_global": irr["poa_global"] * w,
             "poa_effective": irr["poa_effective"] * w,
             "poa_modelled": irr["poa_modelled"] * w,
+            "poa_dni_sensitivity": irr["poa_dni_sensitivity"] * w,
+            "poa_beam_range": irr["poa_beam_range"] * w,
             "temp_cell": temp_cell * w,
             "temp_cell_modelled": (temp_cell if temp_modelled is None else temp_modelled) * w,
             "dc": dc,
@@ -430,7 +450,10 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site,
         ``ac_w`` (AC rating and plant export limit applied), and ``temp_cell_modelled_c``,
         ``ac_potential_modelled_w``, ``ac_modelled_w``: the same three from the modelled POA
         alone (cell temperature, DC and AC rerun from it for arrays in the sensor's plane;
-        equal to the normal values for the others).
+        equal to the normal values for the others), and ``poa_dni_sensitivity_wm2``, that of
+        the modelled POA to the decomposition (:func:`perfcheck.physics.poa_dni_sensitivity`),
+        and ``poa_beam_range_wm2``, its range over the beam the decomposition cannot see at
+        low sun (:func:`perfcheck.physics.poa_low_sun_beam_range`).
     """
     source = irradiance_source(site, weather)
     if comps is None:
@@ -461,7 +484,9 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site,
     floats = {out: [per_inv[k][col] for k in ids] for out, col in (
         ("poa_global_wm2", "poa_global"), ("poa_effective_wm2", "poa_effective"),
         ("poa_modelled_wm2", "poa_modelled"), ("temp_cell_c", "temp_cell"), ("dc_w", "dc"),
-        ("ac_potential_w", "ac_potential"), ("temp_cell_modelled_c", "temp_cell_modelled"))}
+        ("ac_potential_w", "ac_potential"), ("temp_cell_modelled_c", "temp_cell_modelled"),
+        ("poa_dni_sensitivity_wm2", "poa_dni_sensitivity"),
+        ("poa_beam_range_wm2", "poa_beam_range"))}
     floats["ac_w"] = [limited[k] for k in ids]
     floats["ac_potential_modelled_w"] = [modelled[k]["ac_potential"] for k in ids]
     floats["ac_modelled_w"] = [limited_mod[k] for k in ids]

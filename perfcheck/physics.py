@@ -14,6 +14,7 @@ import functools
 import math
 import warnings
 from collections.abc import Callable, Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -716,6 +717,126 @@ def poa_components(surface_tilt: float | pd.Series, surface_azimuth: float | pd.
     })
 
 
+def poa_dni_sensitivity(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+                        solpos: pd.DataFrame, ghi: pd.Series, dni: pd.Series, dhi: pd.Series,
+                        dni_extra: pd.Series, airmass: pd.Series, albedo: float = 0.2,
+                        horizon: Sequence[tuple[float, float]] = (),
+                        transposition: str = "perez", rel_step: float = 0.1) -> pd.Series:
+    """Change of the plane-of-array irradiance per relative change of DNI with GHI held [W/m^2].
+
+    The error of a decomposition moves light between beam and diffuse: DNI becomes
+    DNI (1 + e) and DHI = GHI - DNI cos(z) moves the other way, DHI - e DNI cos(z) (true
+    zenith z, as :func:`decompose` closes it; clipped at zero). The sensitivity
+    c = d poa_global / d e is the central difference of :func:`poa_components` over
+    e = +-``rel_step``, a numerical sensitivity coefficient over the input's own uncertainty
+    (JCGM 100:2008, GUM, 5.1.3 note 2: from memory), so it follows the transposition, the
+    horizon and Perez's brightness bins as they are (the first-order form with Perez's
+    coefficients held, poa_direct - DNI cos z poa_sky_diffuse / DHI, runs 20-50 % below it in
+    the monthly sums on pvlib's TMY3 and TMY2 files: moving light into the beam also raises
+    the circumsolar share). A relative DNI error e changes the plane's irradiance by c e;
+    positive where the plane sees more of the beam than the horizontal does (a tracker at low
+    sun), near zero or negative where it sees less.
+
+    Parameters
+    ----------
+    surface_tilt, surface_azimuth, solpos, ghi, dni, dhi, dni_extra, airmass, albedo, horizon,
+    transposition : as :func:`poa_components`
+    rel_step : float
+        Relative change of DNI of the difference [-].
+
+    Returns
+    -------
+    pandas.Series
+        c [W/m^2] on the index of ``solpos``; 0 with the sun below the horizon (NaN where
+        poa_global is).
+    """
+    # daylight only (apparent zenith below 90 degrees, as the metrics count it; 0 at night):
+    # the transposition is the model's costliest step, and half the intervals are night
+    day = (solpos["apparent_zenith"] < 90.0).to_numpy()
+
+    def at(x: Any) -> Any:
+        return _rows(x, day)
+
+    sun, beam, diffuse = at(solpos), at(dni), at(dhi)
+    shift = beam * np.cos(np.radians(sun["zenith"])) * rel_step
+
+    def poa(sign: float) -> pd.Series:
+        return poa_components(at(surface_tilt), at(surface_azimuth), sun, at(ghi),
+                              beam * (1.0 + sign * rel_step),
+                              (diffuse - sign * shift).clip(lower=0.0), at(dni_extra),
+                              at(airmass), albedo, horizon, transposition, "none")["poa_global"]
+
+    out = pd.Series(0.0, index=solpos.index)
+    out[day] = ((poa(1.0) - poa(-1.0)) / (2.0 * rel_step)).to_numpy()
+    return out
+
+
+def _rows(x: Any, mask: np.ndarray) -> Any:
+    """The rows ``mask`` of a Series or DataFrame; a scalar as it is."""
+    return x[mask] if isinstance(x, pd.Series | pd.DataFrame) else x
+
+
+# pvlib.irradiance.disc's defaults: cos z bounded at 0.065 in the clearness index (zenith
+# 86.27 deg), DNI set to 0 beyond 87 deg (pvlib 0.16 docstring)
+DISC_MIN_COS_ZENITH = 0.065
+
+
+def poa_low_sun_beam_range(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+                           solpos: pd.DataFrame, ghi: pd.Series, clearsky_dni: pd.Series,
+                           dni_extra: pd.Series, airmass: pd.Series, albedo: float = 0.2,
+                           horizon: Sequence[tuple[float, float]] = (),
+                           transposition: str = "perez",
+                           min_cos_zenith: float = DISC_MIN_COS_ZENITH) -> pd.Series:
+    """Range of the plane-of-array irradiance over the beam a decomposition cannot see [W/m^2].
+
+    At low sun DISC (Maxwell 1987) is outside its data: pvlib bounds cos z at 0.065 in the
+    clearness index (zenith 86.3 deg) and the air mass at 12, and sets DNI to 0 beyond 87 deg
+    (:func:`decompose`), so the split of GHI there is unknown, not just biased, and a relative
+    DNI error (:func:`poa_dni_sensitivity`) cannot carry it. In those daylight intervals
+    (cos z below ``min_cos_zenith``, true zenith z) the beam lies anywhere between 0 and the
+    smaller of two physical bounds, the clear-sky DNI and the DNI that leaves no diffuse light,
+    GHI / cos z. The range is poa_global with that bound (DHI = GHI - DNI cos z) less
+    poa_global with no beam (DHI = GHI), both by :func:`poa_components` with GHI held (no IAM);
+    0 elsewhere. Positive where the plane faces the low sun (a tracker), negative where it
+    turns away. The estimate sits at or near the range's lower end (the cut beam), so the range
+    itself, not a symmetric distribution's standard deviation about its middle, bounds the error.
+
+    Parameters
+    ----------
+    surface_tilt, surface_azimuth, solpos, ghi, dni_extra, airmass, albedo, horizon,
+    transposition : as :func:`poa_components`
+    clearsky_dni : pandas.Series
+        Clear-sky DNI [W/m^2] (:func:`clearsky`; NaN leaves GHI / cos z as the bound).
+    min_cos_zenith : float
+        Below this cos z the decomposition's beam is taken as unknown [-].
+
+    Returns
+    -------
+    pandas.Series
+        [W/m^2] on the index of ``solpos``.
+    """
+    cosz = np.cos(np.radians(solpos["zenith"]))
+    low = ((solpos["apparent_zenith"] < 90.0) & (cosz < min_cos_zenith) & (ghi > 0)).to_numpy()
+    out = pd.Series(0.0, index=solpos.index)
+    if not low.any():
+        return out
+
+    def at(x: Any) -> Any:
+        return _rows(x, low)
+
+    sun, g, c = at(solpos), at(ghi), at(cosz).clip(lower=0.0)
+    bound = (g / c.where(c > 0)).clip(upper=at(clearsky_dni)).fillna(0.0)
+    bound = bound.where(c > 0, 0.0)
+
+    def poa(beam: pd.Series) -> pd.Series:
+        return poa_components(at(surface_tilt), at(surface_azimuth), sun, g, beam,
+                              (g - beam * c).clip(lower=0.0), at(dni_extra), at(airmass),
+                              albedo, horizon, transposition, "none")["poa_global"]
+
+    out[low] = (poa(bound) - poa(bound * 0.0)).fillna(0.0).to_numpy()
+    return out
+
+
 # --------------------------------------------------------------------------------------------
 # trackers and bifacial modules
 
@@ -1162,11 +1283,12 @@ def export_limited(ac: pd.DataFrame, limit: float | None) -> pd.DataFrame:
 # clear sky
 
 
-def clearsky_ghi(solpos: pd.DataFrame, latitude: float, longitude: float, altitude: float,
-                 airmass_absolute: pd.Series, dni_extra: pd.Series) -> pd.Series:
-    """Clear-sky GHI by Ineichen & Perez 2002 with the monthly Linke turbidity that pvlib ships.
+def clearsky(solpos: pd.DataFrame, latitude: float, longitude: float, altitude: float,
+                 airmass_absolute: pd.Series, dni_extra: pd.Series) -> pd.DataFrame:
+    """Clear-sky GHI and DNI by Ineichen & Perez 2002 with the monthly Linke turbidity that pvlib ships.
 
-    Falls back to Haurwitz (1945) when the turbidity table cannot be read.
+    Falls back to Haurwitz (1945) for GHI, with DNI unknown (NaN), when the turbidity table
+    cannot be read.
 
     Parameters
     ----------
@@ -1181,8 +1303,8 @@ def clearsky_ghi(solpos: pd.DataFrame, latitude: float, longitude: float, altitu
 
     Returns
     -------
-    pandas.Series
-        Clear-sky GHI [W/m^2].
+    pandas.DataFrame
+        ``ghi``, ``dni`` [W/m^2].
 
     References
     ----------
@@ -1199,7 +1321,9 @@ def clearsky_ghi(solpos: pd.DataFrame, latitude: float, longitude: float, altitu
         tl = pd.Series(per_utc_day(times, lambda days: pvlib.clearsky.lookup_linke_turbidity(
             days, latitude, longitude)), index=times)
     except (OSError, ImportError, KeyError):
-        return pvlib.clearsky.haurwitz(solpos["apparent_zenith"])["ghi"]
+        ghi = pvlib.clearsky.haurwitz(solpos["apparent_zenith"])["ghi"]
+        return pd.DataFrame({"ghi": ghi, "dni": np.nan}, index=times)
     out = pvlib.clearsky.ineichen(solpos["apparent_zenith"], airmass_absolute, tl, altitude,
                                   dni_extra)
-    return out["ghi"].fillna(0.0).where(solpos["apparent_zenith"].notna())
+    known = solpos["apparent_zenith"].notna()
+    return pd.DataFrame({k: out[k].fillna(0.0).where(known) for k in ("ghi", "dni")})

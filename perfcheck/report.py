@@ -46,7 +46,12 @@ METHODS: list[tuple[str, str]] = [
      "(King et al. 2004, SAND2004-3535), Dobos 2014 DC and inverter models"),
     ("Availability, time- and energy-based", "IEC TS 63019:2019"),  # clause from memory
     ("Intervals on PR and EPI", "day-block bootstrap (whole days resampled, seeded) plus the "
-     "irradiance sensor's stated uncertainty (IEC 61724-1 sensor class)"),
+     "irradiance sensor's stated uncertainty (IEC 61724-1 sensor class); where the irradiance "
+     "is modelled from the horizontal reading, also the monthly bias of its split into direct "
+     "and diffuse light (DISC, Maxwell 1987; size from the validations of Gueymard & "
+     "Ruiz-Arias 2016 and Ineichen 2008) carried through the transposition to the plane, in "
+     "quadrature (GUM), and at low sun, where the split drops the direct light, the range "
+     "between none and the clear-sky direct light (Ineichen & Perez 2002)"),
     ("Underperformance periods", "robust regression of measured on expected power (statsmodels) "
      "on a reference window; CUSUM (Page 1954) on the AR(1) innovations of the daily "
      "residuals, scaled by their long-run variance"),

@@ -23,7 +23,9 @@
 -- windows and its irradiance is at least $avail_min_poa. Energy sums are in Wh, irradiation in
 -- Wh/m2, irradiation times cell temperature in Wh/m2*C (h_t, ht: cell temperature, for the
 -- weather-corrected PR; h_tb, htb: the temperature of $temp_basis, for the
--- temperature-corrected PR). Sums are compensated (fsum), so they do
+-- temperature-corrected PR; h_dni: the modelled irradiance's sensitivity to the decomposition's
+-- DNI over the rows without the sensor's reading; h_beam: its range over the beam the
+-- decomposition cannot see at low sun, the same rows). Sums are compensated (fsum), so they do
 -- not depend on the order in which DuckDB's threads add the rows: a re-run from an evidence
 -- bundle must reproduce every digit.
 WITH dc AS (
@@ -44,7 +46,8 @@ inw AS (
 w AS (
     SELECT a.ts, a.inverter_id, a.interval_s, a.measured_ac_w, a.expected_ac_w, a.poa_wm2,
            a.poa_modelled_wm2, a.poa_source, a.temp_module_c, a.temp_cell_c, a.sun_zenith_deg,
-           a.flags, a.expected_ac_modelled_w, a.temp_cell_modelled_c,
+           a.flags, a.expected_ac_modelled_w, a.temp_cell_modelled_c, a.poa_dni_sensitivity_wm2,
+           a.poa_beam_range_wm2,
            coalesce(inw.excluded, false) AS excluded,
            a.poa_modelled_wm2 IS NOT NULL AND a.expected_ac_modelled_w IS NOT NULL
                AND coalesce(inw.model_poa, false) AS fallback
@@ -89,6 +92,8 @@ r AS (
         CASE WHEN w.fallback THEN coalesce(w.temp_cell_modelled_c, w.temp_cell_c)
              ELSE w.temp_cell_c END AS t,
         w.temp_module_c AS t_mod,
+        w.poa_dni_sensitivity_wm2 AS g_dni,
+        w.poa_beam_range_wm2 AS g_beam,
         i.delta_t_c,
         coalesce(w.poa_source = 'sensor', false) AND NOT w.fallback AS sensor,
         w.fallback,
@@ -154,6 +159,8 @@ SELECT
     coalesce(any_value(dcs.e_dc_wh), 0) AS e_dc_wh,
     coalesce(fsum(g * dt_h) FILTER (WHERE used), 0) AS h_whm2,
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND sensor), 0) AS h_sensor_whm2,
+    coalesce(fsum(g_dni * dt_h) FILTER (WHERE used AND NOT sensor), 0) AS h_dni_whm2,
+    coalesce(fsum(g_beam * dt_h) FILTER (WHERE used AND NOT sensor), 0) AS h_beam_whm2,
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS h_t_whm2,
     coalesce(fsum(g * t * dt_h) FILTER (WHERE used AND t IS NOT NULL), 0) AS ht_whm2c,
     coalesce(fsum(g * dt_h) FILTER (WHERE used AND tb IS NOT NULL), 0) AS h_tb_whm2,

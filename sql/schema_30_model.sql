@@ -35,6 +35,12 @@ CREATE TABLE IF NOT EXISTS expected (
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_potential_modelled_w DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_modelled_w DOUBLE;
+-- Change of poa_modelled_wm2 per relative change of the decomposition's DNI, GHI held [W/m2]
+-- (perfcheck.physics.poa_dni_sensitivity; from MODEL_VERSION 5).
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_dni_sensitivity_wm2 DOUBLE;
+-- Range of poa_modelled_wm2 over the beam the decomposition cannot see at low sun [W/m2]
+-- (perfcheck.physics.poa_low_sun_beam_range; from MODEL_VERSION 6).
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_beam_range_wm2 DOUBLE;
 
 -- The conditions of each interval as the model used them, beside each inverter's row: the sun
 -- at the interval's mid-point and the site weather (coarser weather held over its own
@@ -76,6 +82,8 @@ CREATE TABLE IF NOT EXISTS aligned_base (
 ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;
 ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS expected_ac_modelled_w DOUBLE;
 ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS potential_ac_modelled_w DOUBLE;
+ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS poa_dni_sensitivity_wm2 DOUBLE;
+ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS poa_beam_range_wm2 DOUBLE;
 
 -- Which model run and which source files aligned_base reflects (one row).
 CREATE TABLE IF NOT EXISTS align_state (
@@ -100,5 +108,6 @@ SELECT a.ts, a.inverter_id, a.interval_s, a.measured_ac_w, a.expected_ac_w, a.po
        a.expected_dc_w, a.poa_wm2, a.poa_modelled_wm2, a.poa_source, a.ghi_wm2,
        a.clearsky_ghi_wm2, a.temp_air_c, a.wind_speed_ms, a.temp_module_c, a.temp_cell_c,
        a.rain_mm, a.sun_zenith_deg, a.sun_azimuth_deg, coalesce(fa.flags, '') AS flags,
-       a.expected_ac_modelled_w, a.potential_ac_modelled_w, a.temp_cell_modelled_c
+       a.expected_ac_modelled_w, a.potential_ac_modelled_w, a.temp_cell_modelled_c,
+       a.poa_dni_sensitivity_wm2, a.poa_beam_range_wm2
 FROM aligned_base a LEFT JOIN fa USING (ts, inverter_id);

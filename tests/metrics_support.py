@@ -121,7 +121,9 @@ def connect_with(
     ``aligned_base`` (so the align stage's ``aligned`` view serves them) and optional quality
     ``flags`` rows (ts, quantity, device, flag)."""
     con = db.connect(path)
-    frame = aligned[[c for c in COLUMNS if c != "flags"]].assign(model_run_id=1)
+    # the modelled irradiance's sensitivity and range to the decomposition, where a test gives it
+    extra = [c for c in ("poa_dni_sensitivity_wm2", "poa_beam_range_wm2") if c in aligned]
+    frame = aligned[[c for c in COLUMNS if c != "flags"] + extra].assign(model_run_id=1)
     con.register("_aligned_frame", frame)
     cols = ", ".join(frame.columns)
     con.execute(f"INSERT INTO aligned_base ({cols}) SELECT {cols} FROM _aligned_frame")

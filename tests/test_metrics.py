@@ -185,6 +185,37 @@ def test_irradiance_uncertainty_is_added_in_quadrature():
     assert narrow["availability_ci_low"] == narrow["availability_ci_high"] == 1.0
 
 
+def test_modelled_irradiance_uncertainty_from_the_decomposition():
+    # Irradiance modelled from GHI: the GHI sensor's calibration and the decomposition's DNI
+    # bias carried by the transposition (c, summed linearly: a bias over the period) are
+    # independent and add in quadrature (JCGM 100:2008, GUM, 5.1.2); the sensor's share adds
+    # linearly, and so does the range over the beam cut at low sun (R: a limit, from an
+    # estimate at the range's end; common practice for a bound, no source). Sums invented: all
+    # from the sensor; all modelled with |C| = 0.4 H; 40 % from the sensor, the rest modelled
+    # with C = 0.3 H; the last again with |R| = 0.05 H.
+    u = metrics.irradiance_uncertainty([1000.0] * 4, [1000.0, 0.0, 400.0, 400.0],
+                                       [0.0, -400.0, 300.0, 300.0], [0.0, 0.0, 0.0, -50.0],
+                                       0.03, 0.10)
+    third = (0.03 * 400 + np.hypot(0.03 * 600, 0.10 * 300)) / 1000
+    assert_allclose(u, [0.03, np.hypot(0.03, 0.04), third, third + 0.05], rtol=1e-12)
+    # through the stored sums: a plant without a plane-of-array sensor whose plane gains 0.4
+    # of its irradiance per relative change of DNI gets at least that half-width
+    site = make_site(n_inverters=2)
+    frame = synthetic_aligned(site, "2025-06-01", "2025-07-01")
+    frame = frame.assign(poa_source="model", poa_dni_sensitivity_wm2=0.4 * frame["poa_wm2"])
+    con = connect_with(frame)
+    start, end = metrics.resolve_period(con, site, None, None)
+    p = metrics.period(con, site, start, end)["metrics"]["period"]
+    half = np.hypot(0.03, 0.10 * 0.4) * p["pr"]
+    assert p["pr_ci_high"] - p["pr"] >= half * 0.999
+    assert p["pr_ci_high"] - p["pr"] < half * 1.5
+    # and a range over the cut beam of 0.1 of the irradiance adds 0.1 PR linearly
+    con = connect_with(frame.assign(poa_beam_range_wm2=0.1 * frame["poa_wm2"]))
+    q = metrics.period(con, site, start, end)["metrics"]["period"]
+    assert q["pr"] == p["pr"]
+    assert q["pr_ci_high"] - q["pr"] >= (half + 0.1 * p["pr"]) * 0.999
+
+
 def test_coverage_below_the_minimum_gives_null_and_a_reason():
     site = make_site()
     frame = synthetic_aligned(site, "2025-06-01", "2025-07-01")
@@ -365,6 +396,8 @@ def _sensor_week(bias) -> tuple[dict, dict, dict, pd.DataFrame, pd.Series]:
     that week declared a sensor fault. Returns healthy, biased, fixed, the frame, the week."""
     site = make_site()
     frame = synthetic_aligned(site, "2025-06-01", "2025-07-01")
+    # the modelled POA's sensitivity to the decomposition (invented: 0.3 of it)
+    frame["poa_dni_sensitivity_wm2"] = 0.3 * frame["poa_modelled_wm2"]
     week = (frame["ts"] >= utc("2025-06-10")) & (frame["ts"] < utc("2025-06-17"))
     truth = connect_with(frame)
     frame.loc[week, "poa_wm2"] *= 0.9
@@ -386,7 +419,7 @@ def test_sensor_fault_window_falls_back_to_modelled_irradiance():
     assert biased["pr"] > healthy["pr"] * 1.01
     assert_allclose(fixed["pr"], healthy["pr"], rtol=1e-6)
     assert fixed["model_poa_intervals"] > 0 and biased["model_poa_intervals"] == 0
-    # the modelled share carries the larger modelled-irradiance uncertainty (5 % vs 3 %)
+    # the modelled share carries the decomposition's uncertainty besides the sensor's
     assert fixed["pr_ci_high"] - fixed["pr_ci_low"] > healthy["pr_ci_high"] - healthy["pr_ci_low"]
 
 
