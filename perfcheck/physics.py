@@ -1285,7 +1285,8 @@ def export_limited(ac: pd.DataFrame, limit: float | None) -> pd.DataFrame:
 
 def clearsky(solpos: pd.DataFrame, latitude: float, longitude: float, altitude: float,
                  airmass_absolute: pd.Series, dni_extra: pd.Series) -> pd.DataFrame:
-    """Clear-sky GHI and DNI by Ineichen & Perez 2002 with the monthly Linke turbidity that pvlib ships.
+    """Clear-sky GHI and DNI by Ineichen & Perez 2002 with the monthly Linke turbidity that
+    pvlib ships.
 
     Falls back to Haurwitz (1945) for GHI, with DNI unknown (NaN), when the turbidity table
     cannot be read.
