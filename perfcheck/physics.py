@@ -1284,7 +1284,7 @@ def export_limited(ac: pd.DataFrame, limit: float | None) -> pd.DataFrame:
 
 
 def clearsky(solpos: pd.DataFrame, latitude: float, longitude: float, altitude: float,
-                 airmass_absolute: pd.Series, dni_extra: pd.Series) -> pd.DataFrame:
+             airmass_absolute: pd.Series, dni_extra: pd.Series) -> pd.DataFrame:
     """Clear-sky GHI and DNI by Ineichen & Perez 2002 with the monthly Linke turbidity that
     pvlib ships.
 
