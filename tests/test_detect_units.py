@@ -448,42 +448,6 @@ def test_a_lost_string_seen_on_three_days_is_found():
     assert events[0].evidence["days"] == 3
 
 
-def test_clearness_adjusted_takes_out_the_error_that_follows_the_sky():
-    # invented truth: 300 days of clearness c uniform on [0.2, 1] (insolation over the
-    # clearest day nearby), a model error of 6 % (c - 0.6) (the dull days read low), noise
-    # sd 0.5 %, and a soiling sawtooth (washes every 15 days, 0.3 %/day) from day 100 to
-    # 190. The adjusted index loses the error (its noise near 0.5 %, from over 1.5 %) and
-    # keeps the sawtooth and the clean level (insolation-weighted mean of the error 0)
-    rng = np.random.default_rng(5)
-    days = pd.date_range("2024-01-01", periods=300, freq="D")
-    c = rng.uniform(0.2, 1.0, 300)
-    c[::7] = 1.0  # a clear day every week sets the scale
-    insolation = pd.Series(c, index=days)
-    t = np.arange(300)
-    soil = np.where((t >= 100) & (t < 190), 1 - 0.003 * ((t - 100) % 15 + 0.5), 1.0)
-    error = 0.06 * (c - 0.6)
-    noise = rng.normal(0, 0.005, 300)
-    index = pd.Series(soil * np.exp(error + noise), index=days)
-    adj = soiling.clearness_adjusted(index, insolation)
-    rest = np.log(adj.to_numpy() / soil)
-    level = float(np.average(error, weights=c))
-    assert np.std(np.log(index.to_numpy() / soil)) > 0.015
-    assert np.std(rest) < 0.007
-    assert abs(np.mean(rest) - level) < 0.003
-
-
-def test_soiling_intervals_join_across_days_without_an_index():
-    # invented truth: two soiling intervals, days 0-9 and 12-19; days 10 and 11 have no
-    # index (dull days left out): one episode. With day 11 read, two.
-    days = pd.date_range("2024-01-01", periods=20, freq="D")
-    fits = [(days[0], days[10], None, {}), (days[12], days[19], None, {})]
-    index = pd.Series(1.0, index=days)
-    index.iloc[10:12] = np.nan
-    assert len(soiling._groups(fits, index)) == 1
-    index.iloc[11] = 1.0
-    assert len(soiling._groups(fits, index)) == 2
-
-
 def _one_day(measured: np.ndarray, expected: np.ndarray, ac_w: float) -> types.SimpleNamespace:
     """One inverter ``A`` on one day of 15-minute readings from 07:00 (the fields of a Wide
     that :func:`clipping.derated_days` reads)."""

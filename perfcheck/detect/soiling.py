@@ -2,18 +2,15 @@
 
 The plant's daily performance index is the median over the inverters of each inverter's
 insolation-weighted daily measured/expected, divided by its own median (so inverters of other
-orientation or size count alike and one inverter's own fault does not move it). The model's
-error that follows the day's clearness (dull days read low or high as a class) is taken out of
-it (:func:`clearness_adjusted`). Dull days, whose index is several times noisier than a clear
-day's, are left out where that makes the index more precise (:func:`precise_days`); the
-soiling ratio found still applies to them. Recoveries are
+orientation or size count alike and one inverter's own fault does not move it). Dull days, whose
+index is several times noisier than a clear day's, are left out where that makes the index more
+precise (:func:`precise_days`); the soiling ratio found still applies to them. Recoveries are
 (a) days on which some 24-hour rain total reaches ``rain_mm`` in the readings and (b)
 significant local steps up of the index (:func:`local_steps_up`); a step up with at least 1 mm
 of rain on that day or the day before is a rain recovery, one on days with rain readings and
 less rain a cleaning, and one on days without rain readings (no rain gauge, a gap) of unknown
-cause: rain and a cleaning look alike in the index; a long gap in the readings
-(:func:`readable`) bounds the intervals too. Between two recoveries the index is fitted by a
-Theil-Sen line; an interval whose slope is negative with Kendall's test p-value below
+cause: rain and a cleaning look alike in the index. Between two recoveries the index is fitted
+by a Theil-Sen line; an interval whose slope is negative with Kendall's test p-value below
 ``alpha``, ended by a recovery that gives back at least half of its decline (:func:`_restored`),
 is a soiling interval; the interval still open at the end of the data counts when it declines
 like the confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
@@ -21,8 +18,8 @@ period, as in Kimber et al. 2006): the onset is the hinge of the weighted least-
 level followed by a linear decline. Its soiling ratio is that fit over the clean level: the
 plateau before the onset where there is one, else the rolling median of the index outside the
 soiling intervals where that is above the line's start (a partial recovery), else the line's
-start (a full recovery). Consecutive soiling intervals (only days without an index between
-them) form one soiling episode (one event) with its recoveries.
+start (a full recovery). Consecutive soiling intervals form one soiling episode (one event) with
+its recoveries.
 
 Where rain washes the modules every week or two, most washes give back less than the day-to-
 day noise of the index and no test finds them one by one: a found episode is then only the
@@ -132,7 +129,10 @@ def precise_days(index: pd.Series, insolation: pd.Series, alpha: float, half_day
     Rousseeuw & Croux 1993, J. Amer. Statist. Assoc. 88:1273, from memory): classes alike
     stay, whatever their sampling error. Weighting the days by 1 / s^2 would be better still,
     but the tests here are rank and median tests on equal days."""
-    clear, dev = _clearness(index, insolation, half_days)
+    x = np.log(index)
+    dev = x - x.rolling(2 * half_days + 1, center=True, min_periods=half_days).median()
+    clear = insolation / insolation.rolling(2 * half_days + 1, center=True,
+                                            min_periods=1).max()
     ok = dev.notna() & clear.notna()
     if ok.sum() < 10 * bins:
         return index
@@ -153,46 +153,6 @@ def precise_days(index: pd.Series, insolation: pd.Series, alpha: float, half_day
         return index
     edge = float(clear[ok][cls == first].min())
     return index.where(clear >= edge)
-
-
-def _clearness(index: pd.Series, insolation: pd.Series, half_days: int
-               ) -> tuple[pd.Series, pd.Series]:
-    """A day's clearness, its expected ``insolation`` over the largest within ``half_days``
-    days either side (the clearest day nearby stands for a clear sky), and the log of the
-    daily ``index`` less its centred rolling median (2 ``half_days`` + 1 days)."""
-    x = np.log(index)
-    dev = x - x.rolling(2 * half_days + 1, center=True, min_periods=half_days).median()
-    clear = insolation / insolation.rolling(2 * half_days + 1, center=True,
-                                            min_periods=1).max()
-    return clear, dev
-
-
-def clearness_adjusted(index: pd.Series, insolation: pd.Series, half_days: int = 7,
-                       bins: int = 5) -> pd.Series:
-    """The daily index with the model's error that follows the day's clearness taken out.
-
-    The expected power errs by the sky: its irradiance model reads a dull day otherwise than
-    a clear one, so the index of a day rises or falls with its clearness
-    (:func:`_clearness`) as much as a soiling tooth. The days fall into ``bins`` classes of
-    equal size by clearness; each class's offset is the median of its days' log index less
-    the centred rolling median (a soiling ramp, straight over a few weeks, and a wash, one
-    step among the window's days, leave that median in place), and the offset of a day is
-    interpolated linearly in clearness between the classes' mean clearness (held beyond the
-    ends), less its insolation-weighted mean over the days, so that the index keeps its
-    level. A covariate adjustment of the performance ratio as in ASTM E2848 (which regresses
-    the power on irradiance; here on the day's clearness)."""
-    clear, dev = _clearness(index, insolation, half_days)
-    ok = dev.notna() & clear.notna()
-    if ok.sum() < 10 * bins:
-        return index
-    cls = pd.qcut(clear[ok].rank(method="first"), bins, labels=False).to_numpy()
-    c, d = clear[ok].to_numpy(), dev[ok].to_numpy()
-    at = np.array([c[cls == k].mean() for k in range(bins)])
-    off = np.array([np.median(d[cls == k]) for k in range(bins)])
-    g = pd.Series(np.interp(clear.to_numpy(), at, off), index=index.index).where(clear.notna())
-    wt = insolation.where(index.notna() & g.notna())
-    g = g - float((g * wt).sum() / wt.sum())
-    return index * np.exp(-g.fillna(0.0))
 
 
 def local_steps_up(index: pd.Series, alpha: float, k: int = 3) -> list[tuple[pd.Timestamp, float]]:
@@ -271,19 +231,14 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     (:func:`without_found`)."""
     days = pd.DatetimeIndex(pi.index)
     insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days)
-    idx = precise_days(clearness_adjusted(plant_index(without_found(pi, w, undone)),
-                                          insolation), insolation, alpha)
+    idx = precise_days(plant_index(without_found(pi, w, undone)), insolation, alpha)
     # rain: the largest 24-hour total ending within the day
     step_s = float(np.median(w.interval_s))
     roll = w.rain.fillna(0.0).rolling(max(1, int(round(86400 / step_s))), min_periods=1).sum()
     read = w.rain.notna().groupby(w.day.to_numpy()).any().reindex(days, fill_value=False)
     rain_daily = roll.groupby(w.day.to_numpy()).max().reindex(days).where(read)
     recs = recoveries(idx, rain_daily, rain_mm, alpha)
-    # a long gap in the readings bounds the intervals too: a decline is not measured across
-    # it (the level after it is not known from the days before)
-    gaps = days[1:][np.diff(readable(idx.to_numpy()).astype(int)) != 0]
-    bounds = sorted({days[0], *gaps, *(r["day"] for r in recs
-                                       if days[0] < r["day"] <= days[-1])}) + \
+    bounds = [days[0]] + [r["day"] for r in recs if days[0] < r["day"] <= days[-1]] + \
         [days[-1] + pd.Timedelta(days=1)]
     rec_at = {r["day"]: r for r in recs}
     x_all = ((days - days[0]) / pd.Timedelta(days=1)).to_numpy(dtype=float)
@@ -327,10 +282,10 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         f["onset_at"] = int(np.flatnonzero(sel)[0]) + onset
         ratio[sel] = np.minimum(1.0, line / ref)
     exp_daily = w.energy_kwh(w.expected).sum(axis=1).groupby(w.day.to_numpy()).sum()
-    fits = _extend(idx, fits, ratio, rec_at, rain_daily, alpha,
+    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha,
                    exp_daily.reindex(days).fillna(0.0).to_numpy())
-    events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma, exp_daily, idx,
-                               float(np.sqrt(ar1_factor(idx))))
+    events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma, exp_daily,
+                               level_error(idx), float(np.sqrt(ar1_factor(idx))))
     return events, prints, ratio
 
 
@@ -456,13 +411,11 @@ def huber_clipped(index: pd.Series, k_days: int = 1, k: float = 1.345) -> np.nda
     return np.clip(index, lo * (1 - band), hi * (1 + band)).to_numpy()
 
 
-def _groups(fits: list, index: pd.Series) -> list[list]:
-    """Consecutive soiling intervals (one ends where the next begins, or only days without
-    a daily ``index`` lie between them) as one episode each."""
+def _groups(fits: list) -> list[list]:
+    """Consecutive soiling intervals (one ends where the next begins) as one episode each."""
     groups: list[list] = []
     for f in fits:
-        if groups and (groups[-1][-1][1] == f[0] or not index[
-                (index.index >= groups[-1][-1][1]) & (index.index < f[0])].notna().any()):
+        if groups and groups[-1][-1][1] == f[0]:
             groups[-1].append(f)
         else:
             groups.append([f])
@@ -470,7 +423,7 @@ def _groups(fits: list, index: pd.Series) -> list[list]:
 
 
 def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
-            rain_daily: pd.Series, alpha: float, energy: np.ndarray,
+            rain_daily: pd.Series, soiled: np.ndarray, alpha: float, energy: np.ndarray,
             passes: int = 5) -> list:
     """Each found episode reaches as far as its rate explains the days beside it
     (:func:`sawtooth_extent`, backward from its onset to the previous episode and forward
@@ -480,8 +433,8 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
     cause from the rain readings, :func:`_cause`); ``ratio`` takes their soiling.
 
     The clean level beside an episode is the 61-day rolling mean of the index with the
-    soiling taken out (the found intervals left out from their onsets; the ramps divided by
-    their ratio), fitted in turns with the ramps until they stay (at most ``passes``): soiling
+    soiling taken out (the found intervals, ``soiled``, left out; the ramps divided by their
+    ratio), fitted in turns with the ramps until they stay (at most ``passes``): soiling
     beside an episode would pull a level of the raw index down and hide itself. Each ramp
     carries how far its energy could move with the wash it was placed at
     (:func:`edge_ranges`; ``energy``: the expected energy per day [kWh])."""
@@ -490,11 +443,7 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
     days = pd.DatetimeIndex(idx.index)
     y = huber_clipped(idx)
     var = long_run_variance(idx)
-    groups = _groups(fits, idx)
-    # the found intervals from their onsets: the plateau before an onset is clean
-    soiled = np.zeros(len(days), dtype=bool)
-    for _a, _b, sel, f in fits:
-        soiled |= sel & (np.arange(len(days)) >= f["onset_at"])
+    groups = _groups(fits)
     base = np.where(soiled, np.nan, y)
     ramp_ratio = np.ones(len(days))
     cuts: list = []
@@ -536,21 +485,14 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
     return out
 
 
-def readable(y: np.ndarray, window: int = 61, least: int = 10) -> np.ndarray:
-    """Whether a clean level could be known on each day of the daily values ``y`` (NaN: not
-    read): at least ``least`` days read within the ``window`` days centred on it (the window
-    of the clean level, :func:`level_error`)."""
-    return pd.Series(np.isfinite(y)).rolling(window, center=True, min_periods=1).sum() \
-        .to_numpy() >= least
-
-
 def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex,
           var: float, alpha: float) -> list[tuple[int, int, list[int], float]]:
     """The ramps beside each episode (:func:`sawtooth_extent`): per episode, backward then
     forward, (first and end positions of the days searched, boundaries from the first,
     rate as a share of the clean level)."""
     out: list = []
-    read = readable(y)
+    read = pd.Series(np.isfinite(y)).rolling(61, center=True, min_periods=1).sum().to_numpy() \
+        >= 10
     done = 0  # the first day no episode has taken
     for k, g in enumerate(groups):
         nxt = int(np.searchsorted(days, groups[k + 1][0][0])) if k + 1 < len(groups) \
@@ -623,14 +565,12 @@ def _level_sigma_kwh(e_day: pd.Series, se: pd.Series, window: int = 61) -> float
 
 
 def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float,
-              exp_daily: pd.Series, index: pd.Series, rate_widen: float
+              exp_daily: pd.Series, level_se: pd.Series, rate_widen: float
               ) -> tuple[list[Event], list[Footprint]]:
-    """The soiling episodes as events and footprints (``index``: the daily index, for the
-    clean level's error, :func:`level_error`, and for :func:`_groups`). ``rate_widen``: the
-    factor by which the rates' Theil-Sen intervals (independent days, Sen 1968) widen for
-    days in a row that share their error (sqrt of :func:`ar1_factor`)."""
-    groups = _groups(fits, index)
-    level_se = level_error(index)
+    """The soiling episodes as events and footprints. ``rate_widen``: the factor by which
+    the rates' Theil-Sen intervals (independent days, Sen 1968) widen for days in a row
+    that share their error (sqrt of :func:`ar1_factor`)."""
+    groups = _groups(fits)
     events, prints = [], []
     days_of = w.day.to_numpy()
     for g in groups:
