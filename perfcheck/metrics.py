@@ -1054,9 +1054,9 @@ def settings_record(
             "a month (published validations: Gueymard and Ruiz-Arias 2016, Ineichen 2008), "
             "carried through the transposition to the plane interval by interval, so it is "
             "small for a fixed plane in summer and large for a tracker in a high-latitude "
-            "winter; plus, with the sun below about 86 degrees of zenith where the split "
-            "cuts the direct light, the whole range the plane's irradiance can take between "
-            "no direct light and the clear-sky direct light"
+            "winter; plus, with the sun within about 4 degrees of the horizon, where the "
+            "split cuts the direct light, the whole range the plane's irradiance can take "
+            "between no direct light and the clear-sky direct light"
         ),
         "rules": rules(settings),
     })
