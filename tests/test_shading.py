@@ -101,3 +101,23 @@ def test_days_of_a_tracker_footprint_are_left_out_whole():
     day = np.arange(96) // 24
     assert out["A"].to_numpy().tolist() == ((day == 1) | (day == 2)).tolist()
     assert not out["B"].any()
+
+
+def test_clear_day_start_is_the_first_day_the_region_passes_the_share():
+    # invented truth: four days of 24 hourly intervals under a flat clear-sky plane
+    # irradiance; the region holds 0, 1, 2 and 3 hours of each day, where half the expected
+    # power is lost. The clear-day loss share is 0, 1/48, 2/48, 3/48 of the day: the first
+    # day beyond 3 % is the third (derived from the definition; the share is common
+    # practice)
+    index = pd.date_range("2024-03-01", periods=96, freq="h", tz="UTC")
+    w = SimpleNamespace(index=index, tz=index.tz, interval_s=pd.Series(3600.0, index=index),
+                        day=pd.Series(index.tz_localize(None).normalize(), index=index))
+    hour, day = np.arange(96) % 24, np.arange(96) // 24
+    region = hour < day
+    level_e = np.full(96, 1000.0)
+    est = np.where(region, 500.0, 0.0)
+    start = shading._clear_day_start(w, region, np.full(96, 800.0), est, level_e, region,
+                                     0.03)
+    assert start == pd.Timestamp("2024-03-03", tz="UTC")
+    assert shading._clear_day_start(w, region, np.full(96, 800.0), est, level_e, region,
+                                    0.07) is None

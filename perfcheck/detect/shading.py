@@ -43,7 +43,11 @@ the energy and a proposed horizon profile. It starts on the first day its loss i
 the first day whose estimated loss exceeds ``material_share`` (1 %, common practice) of the
 inverter's expected energy of the day and is significant against the day's noise (one-sided,
 ``alpha``: the estimate's daily relative error on the unshaded intervals of the region's
-columns, scaled MAD, times the region's expected energy that day).
+columns, scaled MAD, times the region's expected energy that day). Where no day's loss stands
+out of its noise on its own (a small loss, or one that reaches the sun's path only late), the
+first day whose loss under a clear sky would exceed that share: the region's share of the
+day's clear-sky plane irradiance times the region's mean relative loss on its clear
+intervals; the first day of the region when neither does.
 
 ``min_deficit`` 5 % of the interval's power, common practice; ``alpha`` 0.01.
 
@@ -308,8 +312,12 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         scale = 1.4826 * float(np.median(np.abs(x - np.median(x)))) if len(x) else 0.0
         first = _material_start(w, loss, e_int, material_share,
                                 max(MODEL_FLOOR, scale) * e_day, noise["z"])
+        if first is None:  # no day's loss stands out of its noise: the clear-sky geometry
+            first = _clear_day_start(w, region, clearsky_plane[inv].to_numpy(dtype=float),
+                                     est, level_e, sel & clear_all, material_share)
         ev = Event(
-            kind="shading", scope=scope_of(inv), start=max(first, w.index[pos[0]]),
+            kind="shading", scope=scope_of(inv),
+            start=w.index[pos[0]] if first is None else max(first, w.index[pos[0]]),
             end=w.index[-1] + pd.Timedelta(seconds=float(step[-1])),
             energy_loss_kwh=energy, energy_loss_kwh_low=max(0.0, low),
             energy_loss_kwh_high=high, method=METHOD,
@@ -508,10 +516,10 @@ def _boundary_band(energy: float, rel_sigma: float, sigma_kwh: float, est_w: np.
 
 
 def _material_start(w: Wide, loss: np.ndarray, expected: np.ndarray, share: float,
-                    noise_kwh: pd.Series, z: float) -> pd.Timestamp:
+                    noise_kwh: pd.Series, z: float) -> pd.Timestamp | None:
     """Start (UTC) of the first site-local day whose loss exceeds ``share`` of the day's
     expected energy and ``z`` times the day's noise (``noise_kwh``, per day: one-sided
-    test of the day's loss); the first interval of the data when none does."""
+    test of the day's loss); None when none does."""
     days = w.day.to_numpy()
     step = w.interval_s.to_numpy()
     lost = pd.Series(loss * step / 3.6e6).groupby(days).sum()
@@ -520,7 +528,32 @@ def _material_start(w: Wide, loss: np.ndarray, expected: np.ndarray, share: floa
     over = lost.index[((lost > share * exp) & (lost > z * noise_kwh.reindex(lost.index)))
                       .to_numpy()]
     if not len(over):
-        return w.index[0]
+        return None
+    return pd.Timestamp(over[0]).tz_localize(w.tz).tz_convert("UTC")
+
+
+def _clear_day_start(w: Wide, region: np.ndarray, cs_plane: np.ndarray, est_w: np.ndarray,
+                     level_e: np.ndarray, clear_in: np.ndarray, share: float
+                     ) -> pd.Timestamp | None:
+    """Start (UTC) of the first site-local day whose loss under a clear sky exceeds ``share``
+    of the day's energy: the region's share of the day's clear-sky plane irradiance
+    (``cs_plane``) times the region's mean relative loss on its clear intervals
+    (``clear_in``: the loss estimate ``est_w`` over the expected power at the day's level
+    ``level_e``, energy-weighted). The region's top is fitted over the whole history, so the
+    day follows the obstruction's growth and the sun's path rather than a single day's
+    noise. None when no day does."""
+    days = w.day.to_numpy()
+    step = w.interval_s.to_numpy()
+    ok = clear_in & np.isfinite(est_w) & np.isfinite(level_e)
+    if not ok.any() or not np.sum(level_e[ok] * step[ok]) > 0:
+        return None
+    rel = float(np.sum(est_w[ok] * step[ok]) / np.sum(level_e[ok] * step[ok]))
+    cs = np.where(np.isfinite(cs_plane) & (cs_plane > 0), cs_plane, 0.0) * step
+    under = pd.Series(np.where(region, cs, 0.0)).groupby(days).sum()
+    whole = pd.Series(cs).groupby(days).sum()
+    over = under.index[(rel * under > share * whole).to_numpy()]
+    if not len(over):
+        return None
     return pd.Timestamp(over[0]).tz_localize(w.tz).tz_convert("UTC")
 
 
