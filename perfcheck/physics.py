@@ -826,7 +826,8 @@ def _poa_global_stacked(surface_tilt: float | pd.Series, surface_azimuth: float 
     def stack(k: int) -> pd.Series:
         return pd.Series(np.concatenate([case[k].to_numpy(dtype=float) for case in cases]))
 
-    poa = poa_components(at(surface_tilt), at(surface_azimuth), at(solpos), at(ghi), stack(1),
+    sun = solpos[["apparent_zenith", "azimuth", "apparent_elevation"]]  # what it reads
+    poa = poa_components(at(surface_tilt), at(surface_azimuth), at(sun), at(ghi), stack(1),
                          stack(2), at(dni_extra), at(airmass), albedo, horizon, transposition,
                          "none")["poa_global"].to_numpy()
     return np.split(poa, np.cumsum([int(mask.sum()) for mask, _, _ in cases])[:-1])
