@@ -638,10 +638,10 @@ def irradiance_uncertainty(ref_wh: Any, ref_sensor_wh: Any, ref_dni_wh: Any, ref
     ref_sensor_wh : the same over the rows where G_k is the plane-of-array sensor's reading [Wh]
     ref_dni_wh : sum of P0 c_k tau_k / G_STC over the other rows (modelled from GHI), c_k the
         modelled irradiance's change per relative change of the decomposition's DNI with GHI
-        held (:func:`perfcheck.physics.poa_dni_sensitivity`) [Wh]
+        held (:func:`perfcheck.physics.poa_decomposition_terms`) [Wh]
     ref_beam_wh : sum of P0 r_k tau_k / G_STC over the same rows, r_k the modelled
         irradiance's range over the beam the decomposition cannot see at low sun
-        (:func:`perfcheck.physics.poa_low_sun_beam_range`) [Wh]
+        (:func:`perfcheck.physics.poa_decomposition_terms`) [Wh]
     u_sensor : relative expanded uncertainty of the irradiance sensor (plane-of-array or GHI) [-]
     dni_bias : relative expanded bias of the decomposition's DNI over the period [-]
 

@@ -24,10 +24,10 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
   windows). Where no GHI is logged the modelled POA itself comes from the sensor (GTI-DIRINT),
   so it cannot stand in for a faulty sensor there.
 * Beside the modelled POA, its sensitivity to the decomposition's error
-  (``poa_dni_sensitivity_wm2``, :func:`perfcheck.physics.poa_dni_sensitivity`; zero where DNI
-  or DHI is measured) and its range over the beam cut at low sun (``poa_beam_range_wm2``,
-  :func:`perfcheck.physics.poa_low_sun_beam_range`): the metrics turn them into the modelled
-  irradiance's uncertainty.
+  (``poa_dni_sensitivity_wm2``) and its range over the beam cut at low sun
+  (``poa_beam_range_wm2``), both by :func:`perfcheck.physics.poa_decomposition_terms` and
+  zero where DNI or DHI is measured (not computed there): the metrics turn them into the
+  modelled irradiance's uncertainty.
 * A single-axis tracker array's plane moves (:func:`orientation`, pvlib's tracking with
   backtracking, flat at night); a POA sensor on a tracker (``poa_sensor_on_tracker``) moves
   with the first tracker array, and feeds the arrays on the same tracker. Bifacial arrays add
@@ -298,15 +298,12 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
     mod = ph.poa_components(tilt, azimuth, sun, comps["ghi"], comps["dni"], comps["dhi"],
                             sun["dni_extra"], sun["airmass_relative"], array.albedo,
                             array.horizon, m.transposition, m.iam)
-    sens = ph.poa_dni_sensitivity(tilt, azimuth, sun, comps["ghi"], comps["dni"], comps["dhi"],
-                                  sun["dni_extra"], sun["airmass_relative"], array.albedo,
-                                  array.horizon, m.transposition)
-    beam_range = ph.poa_low_sun_beam_range(tilt, azimuth, sun, comps["ghi"],
-                                           sun["clearsky_dni"], sun["dni_extra"],
-                                           sun["airmass_relative"], array.albedo,
-                                           array.horizon, m.transposition)
     nan = pd.Series(np.nan, index=sun.index)
     split = weather.get("dni", nan).notna() | weather.get("dhi", nan).notna()  # measured
+    terms = ph.poa_decomposition_terms(tilt, azimuth, sun, comps["ghi"], comps["dni"],
+                                       comps["dhi"], sun["clearsky_dni"], sun["dni_extra"],
+                                       sun["airmass_relative"], array.albedo, array.horizon,
+                                       m.transposition, rows=~split)
     from_sensor = pd.Series(False, index=sun.index)
     glob, eff = mod["poa_global"], mod["poa_effective"]
     if source == "sensor" and in_sensor_plane(array, site):
@@ -335,8 +332,8 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
     return pd.DataFrame({"poa_global": glob, "poa_effective": eff,
                          "poa_modelled": mod["poa_global"],
                          "poa_effective_modelled": eff_modelled,
-                         "poa_dni_sensitivity": sens.where(~split, 0.0),
-                         "poa_beam_range": beam_range.where(~split, 0.0),
+                         "poa_dni_sensitivity": terms["dni_sensitivity"],
+                         "poa_beam_range": terms["beam_range"],
                          "from_sensor": from_sensor})
 
 
@@ -451,9 +448,9 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site,
         ``ac_potential_modelled_w``, ``ac_modelled_w``: the same three from the modelled POA
         alone (cell temperature, DC and AC rerun from it for arrays in the sensor's plane;
         equal to the normal values for the others), and ``poa_dni_sensitivity_wm2``, that of
-        the modelled POA to the decomposition (:func:`perfcheck.physics.poa_dni_sensitivity`),
-        and ``poa_beam_range_wm2``, its range over the beam the decomposition cannot see at
-        low sun (:func:`perfcheck.physics.poa_low_sun_beam_range`).
+        the modelled POA to the decomposition, and ``poa_beam_range_wm2``, its range over the
+        beam the decomposition cannot see at low sun
+        (:func:`perfcheck.physics.poa_decomposition_terms`).
     """
     source = irradiance_source(site, weather)
     if comps is None:

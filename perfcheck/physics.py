@@ -717,13 +717,22 @@ def poa_components(surface_tilt: float | pd.Series, surface_azimuth: float | pd.
     })
 
 
-def poa_dni_sensitivity(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
-                        solpos: pd.DataFrame, ghi: pd.Series, dni: pd.Series, dhi: pd.Series,
-                        dni_extra: pd.Series, airmass: pd.Series, albedo: float = 0.2,
-                        horizon: Sequence[tuple[float, float]] = (),
-                        transposition: str = "perez", rel_step: float = 0.1) -> pd.Series:
-    """Change of the plane-of-array irradiance per relative change of DNI with GHI held [W/m^2].
+# pvlib.irradiance.disc's defaults: cos z bounded at 0.065 in the clearness index (zenith
+# 86.27 deg), DNI set to 0 beyond 87 deg (pvlib 0.16 docstring)
+DISC_MIN_COS_ZENITH = 0.065
 
+
+def poa_decomposition_terms(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+                            solpos: pd.DataFrame, ghi: pd.Series, dni: pd.Series,
+                            dhi: pd.Series, clearsky_dni: pd.Series, dni_extra: pd.Series,
+                            airmass: pd.Series, albedo: float = 0.2,
+                            horizon: Sequence[tuple[float, float]] = (),
+                            transposition: str = "perez", rel_step: float = 0.1,
+                            min_cos_zenith: float = DISC_MIN_COS_ZENITH,
+                            rows: pd.Series | None = None) -> pd.DataFrame:
+    """How the plane-of-array irradiance depends on a decomposition's split of GHI [W/m^2].
+
+    ``dni_sensitivity``: the change of poa_global per relative change of DNI with GHI held.
     The error of a decomposition moves light between beam and diffuse: DNI becomes
     DNI (1 + e) and DHI = GHI - DNI cos(z) moves the other way, DHI - e DNI cos(z) (true
     zenith z, as :func:`decompose` closes it; clipped at zero). The sensitivity
@@ -735,106 +744,93 @@ def poa_dni_sensitivity(surface_tilt: float | pd.Series, surface_azimuth: float 
     the monthly sums on pvlib's TMY3 and TMY2 files: moving light into the beam also raises
     the circumsolar share). A relative DNI error e changes the plane's irradiance by c e;
     positive where the plane sees more of the beam than the horizontal does (a tracker at low
-    sun), near zero or negative where it sees less.
+    sun), near zero or negative where it sees less. 0 with the sun below the horizon
+    (apparent zenith 90 degrees or more, as the metrics count daylight); NaN where
+    poa_global is.
+
+    ``beam_range``: the range of poa_global over the beam a decomposition cannot see. At low
+    sun DISC (Maxwell 1987) is outside its data: pvlib bounds cos z at 0.065 in the clearness
+    index (zenith 86.3 deg) and the air mass at 12, and sets DNI to 0 beyond 87 deg
+    (:func:`decompose`), so the split of GHI there is unknown, not just biased, and a relative
+    DNI error cannot carry it. In those daylight intervals (cos z below ``min_cos_zenith``,
+    GHI above 0) the beam lies anywhere between 0 and the smaller of two physical bounds, the
+    clear-sky DNI and the DNI that leaves no diffuse light, GHI / cos z. The range is
+    poa_global with that bound (DHI = GHI - DNI cos z) less poa_global with no beam
+    (DHI = GHI), both by :func:`poa_components` with GHI held (no IAM); 0 elsewhere.
+    Positive where the plane faces the low sun (a tracker), negative where it turns away. The
+    estimate sits at or near the range's lower end (the cut beam), so the range itself, not a
+    symmetric distribution's standard deviation about its middle, bounds the error.
+
+    The four transpositions (DNI shifted either way, the beam at its bound and at 0) are
+    taken in one call of :func:`poa_components` over the rows each needs, stacked: each row
+    is computed on its own, so the values are those of four calls, without pvlib's cost per
+    call four times over.
 
     Parameters
     ----------
     surface_tilt, surface_azimuth, solpos, ghi, dni, dhi, dni_extra, airmass, albedo, horizon,
     transposition : as :func:`poa_components`
-    rel_step : float
-        Relative change of DNI of the difference [-].
-
-    Returns
-    -------
-    pandas.Series
-        c [W/m^2] on the index of ``solpos``; 0 with the sun below the horizon (NaN where
-        poa_global is).
-    """
-    # daylight only (apparent zenith below 90 degrees, as the metrics count it; 0 at night):
-    # the transposition is the model's costliest step, and half the intervals are night
-    day = (solpos["apparent_zenith"] < 90.0).to_numpy()
-
-    def at(x: Any) -> Any:
-        return _rows(x, day)
-
-    sun, beam, diffuse = at(solpos), at(dni), at(dhi)
-    shift = beam * np.cos(np.radians(sun["zenith"])) * rel_step
-
-    def poa(sign: float) -> pd.Series:
-        return poa_components(at(surface_tilt), at(surface_azimuth), sun, at(ghi),
-                              beam * (1.0 + sign * rel_step),
-                              (diffuse - sign * shift).clip(lower=0.0), at(dni_extra),
-                              at(airmass), albedo, horizon, transposition, "none")["poa_global"]
-
-    out = pd.Series(0.0, index=solpos.index)
-    out[day] = ((poa(1.0) - poa(-1.0)) / (2.0 * rel_step)).to_numpy()
-    return out
-
-
-def _rows(x: Any, mask: np.ndarray) -> Any:
-    """The rows ``mask`` of a Series or DataFrame; a scalar as it is."""
-    return x[mask] if isinstance(x, pd.Series | pd.DataFrame) else x
-
-
-# pvlib.irradiance.disc's defaults: cos z bounded at 0.065 in the clearness index (zenith
-# 86.27 deg), DNI set to 0 beyond 87 deg (pvlib 0.16 docstring)
-DISC_MIN_COS_ZENITH = 0.065
-
-
-def poa_low_sun_beam_range(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
-                           solpos: pd.DataFrame, ghi: pd.Series, clearsky_dni: pd.Series,
-                           dni_extra: pd.Series, airmass: pd.Series, albedo: float = 0.2,
-                           horizon: Sequence[tuple[float, float]] = (),
-                           transposition: str = "perez",
-                           min_cos_zenith: float = DISC_MIN_COS_ZENITH) -> pd.Series:
-    """Range of the plane-of-array irradiance over the beam a decomposition cannot see [W/m^2].
-
-    At low sun DISC (Maxwell 1987) is outside its data: pvlib bounds cos z at 0.065 in the
-    clearness index (zenith 86.3 deg) and the air mass at 12, and sets DNI to 0 beyond 87 deg
-    (:func:`decompose`), so the split of GHI there is unknown, not just biased, and a relative
-    DNI error (:func:`poa_dni_sensitivity`) cannot carry it. In those daylight intervals
-    (cos z below ``min_cos_zenith``, true zenith z) the beam lies anywhere between 0 and the
-    smaller of two physical bounds, the clear-sky DNI and the DNI that leaves no diffuse light,
-    GHI / cos z. The range is poa_global with that bound (DHI = GHI - DNI cos z) less
-    poa_global with no beam (DHI = GHI), both by :func:`poa_components` with GHI held (no IAM);
-    0 elsewhere. Positive where the plane faces the low sun (a tracker), negative where it
-    turns away. The estimate sits at or near the range's lower end (the cut beam), so the range
-    itself, not a symmetric distribution's standard deviation about its middle, bounds the error.
-
-    Parameters
-    ----------
-    surface_tilt, surface_azimuth, solpos, ghi, dni_extra, airmass, albedo, horizon,
-    transposition : as :func:`poa_components`
     clearsky_dni : pandas.Series
         Clear-sky DNI [W/m^2] (:func:`clearsky`; NaN leaves GHI / cos z as the bound).
+    rel_step : float
+        Relative change of DNI of the difference [-].
     min_cos_zenith : float
         Below this cos z the decomposition's beam is taken as unknown [-].
+    rows : pandas.Series of bool, optional
+        The rows where the terms are wanted (0 elsewhere); all rows by default.
 
     Returns
     -------
-    pandas.Series
-        [W/m^2] on the index of ``solpos``.
+    pandas.DataFrame
+        ``dni_sensitivity`` and ``beam_range`` [W/m^2] on the index of ``solpos``.
     """
     cosz = np.cos(np.radians(solpos["zenith"]))
-    low = ((solpos["apparent_zenith"] < 90.0) & (cosz < min_cos_zenith) & (ghi > 0)).to_numpy()
-    out = pd.Series(0.0, index=solpos.index)
-    if not low.any():
+    day = (solpos["apparent_zenith"] < 90.0).to_numpy()
+    if rows is not None:
+        day = day & rows.to_numpy(dtype=bool)
+    low = day & (cosz < min_cos_zenith).to_numpy() & (ghi > 0).to_numpy()
+    out = pd.DataFrame({"dni_sensitivity": 0.0, "beam_range": 0.0}, index=solpos.index)
+    if not day.any():
         return out
+    beam, diffuse = dni[day], dhi[day]
+    shift = beam * np.cos(np.radians(solpos["zenith"][day])) * rel_step
+    g, c = ghi[low], cosz[low].clip(lower=0.0)
+    bound = (g / c.where(c > 0)).clip(upper=clearsky_dni[low]).fillna(0.0)
+    bound = bound.where(c > 0, 0.0)
+    cases = [(day, beam * (1.0 + sign * rel_step), (diffuse - sign * shift).clip(lower=0.0))
+             for sign in (1.0, -1.0)]
+    cases += [(low, b, (g - b * c).clip(lower=0.0)) for b in (bound, bound * 0.0)]
+    up, down, top, none = _poa_global_stacked(surface_tilt, surface_azimuth, solpos, ghi, cases,
+                                              dni_extra, airmass, albedo, horizon,
+                                              transposition)
+    out.loc[day, "dni_sensitivity"] = (up - down) / (2.0 * rel_step)
+    out.loc[low, "beam_range"] = np.nan_to_num(top - none, nan=0.0)
+    return out
+
+
+def _poa_global_stacked(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series,
+                        solpos: pd.DataFrame, ghi: pd.Series,
+                        cases: list[tuple[np.ndarray, pd.Series, pd.Series]],
+                        dni_extra: pd.Series, airmass: pd.Series, albedo: float,
+                        horizon: Sequence[tuple[float, float]], transposition: str
+                        ) -> list[np.ndarray]:
+    """poa_global of :func:`poa_components` (no IAM) for each case (rows mask, DNI and DHI on
+    those rows), in one call over the cases' rows stacked (on a plain row index)."""
+    pos = np.concatenate([np.flatnonzero(mask) for mask, _, _ in cases])
 
     def at(x: Any) -> Any:
-        return _rows(x, low)
+        if isinstance(x, pd.Series | pd.DataFrame):
+            return x.iloc[pos].reset_index(drop=True)
+        return x
 
-    sun, g, c = at(solpos), at(ghi), at(cosz).clip(lower=0.0)
-    bound = (g / c.where(c > 0)).clip(upper=at(clearsky_dni)).fillna(0.0)
-    bound = bound.where(c > 0, 0.0)
+    def stack(k: int) -> pd.Series:
+        return pd.Series(np.concatenate([case[k].to_numpy(dtype=float) for case in cases]))
 
-    def poa(beam: pd.Series) -> pd.Series:
-        return poa_components(at(surface_tilt), at(surface_azimuth), sun, g, beam,
-                              (g - beam * c).clip(lower=0.0), at(dni_extra), at(airmass),
-                              albedo, horizon, transposition, "none")["poa_global"]
-
-    out[low] = (poa(bound) - poa(bound * 0.0)).fillna(0.0).to_numpy()
-    return out
+    sun = solpos[["apparent_zenith", "azimuth", "apparent_elevation"]]  # what it reads
+    poa = poa_components(at(surface_tilt), at(surface_azimuth), at(sun), at(ghi), stack(1),
+                         stack(2), at(dni_extra), at(airmass), albedo, horizon, transposition,
+                         "none")["poa_global"].to_numpy()
+    return np.split(poa, np.cumsum([int(mask.sum()) for mask, _, _ in cases])[:-1])
 
 
 # --------------------------------------------------------------------------------------------

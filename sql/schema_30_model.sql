@@ -36,10 +36,10 @@ ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_potential_modelled_w DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_modelled_w DOUBLE;
 -- Change of poa_modelled_wm2 per relative change of the decomposition's DNI, GHI held [W/m2]
--- (perfcheck.physics.poa_dni_sensitivity; from MODEL_VERSION 5).
+-- (perfcheck.physics.poa_decomposition_terms; from MODEL_VERSION 5).
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_dni_sensitivity_wm2 DOUBLE;
 -- Range of poa_modelled_wm2 over the beam the decomposition cannot see at low sun [W/m2]
--- (perfcheck.physics.poa_low_sun_beam_range; from MODEL_VERSION 6).
+-- (perfcheck.physics.poa_decomposition_terms; from MODEL_VERSION 6).
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_beam_range_wm2 DOUBLE;
 
 -- The conditions of each interval as the model used them, beside each inverter's row: the sun

@@ -210,12 +210,14 @@ def test_dni_sensitivity_against_pvlib_difference_on_a_typical_year():
     airmass = pvlib.atmosphere.get_relative_airmass(sp["apparent_zenith"])
     trk = pvlib.tracking.singleaxis(sp["apparent_zenith"], sp["azimuth"], 0, 180, 50, False)
     cosz = np.cos(np.radians(sp["zenith"]))
+    nan = pd.Series(np.nan, index=sp.index)  # no clear-sky bound: the low-sun range not checked
     ratio = {}
     for name, (tilt, azimuth) in {"fixed": (25.0, 180.0),
                                   "tracker": (trk["surface_tilt"].fillna(0.0),
                                               trk["surface_azimuth"].fillna(90.0))}.items():
-        ours = ph.poa_dni_sensitivity(tilt, azimuth, sp, ghi, est["dni"], est["dhi"], dni_extra,
-                                      airmass, 0.2, (), "perez", rel_step=0.1)
+        ours = ph.poa_decomposition_terms(tilt, azimuth, sp, ghi, est["dni"], est["dhi"],
+                                          nan, dni_extra, airmass, 0.2, (), "perez",
+                                          rel_step=0.1)["dni_sensitivity"]
 
         def total(e, tilt=tilt, azimuth=azimuth):
             return pvlib.irradiance.get_total_irradiance(
@@ -241,7 +243,7 @@ def test_low_sun_beam_range_covers_the_cut_beam_on_a_typical_year():
     # is 0 above the bound and not negative on the tracker, which faces the low sun. December
     # on the file: DISC's plane-of-array sum runs 5-10 % low against the file's own DNI and
     # DHI (test_default_decomposition_at_low_sun_on_a_tracker); a 10 % relative DNI bias
-    # through the transposition (poa_dni_sensitivity) does not reach that deficit, adding the
+    # through the transposition (the DNI sensitivity) does not reach that deficit, adding the
     # range does.
     from perfcheck.scenario.suite.climate import climate, read_typical_year
     data, sp = _typical_year("sand_point")
@@ -255,8 +257,16 @@ def test_low_sun_beam_range_covers_the_cut_beam_on_a_typical_year():
                         pvlib.atmosphere.get_absolute_airmass(airmass), dni_extra)
     trk = pvlib.tracking.singleaxis(sp["apparent_zenith"], sp["azimuth"], 0, 180, 50, False)
     tilt, azimuth = trk["surface_tilt"].fillna(0.0), trk["surface_azimuth"].fillna(90.0)
-    r = ph.poa_low_sun_beam_range(tilt, azimuth, sp, ghi, clear["dni"], dni_extra, airmass,
-                                  0.2, (), "perez")
+    terms = ph.poa_decomposition_terms(tilt, azimuth, sp, ghi, est["dni"], est["dhi"],
+                                       clear["dni"], dni_extra, airmass, 0.2, (), "perez")
+    r = terms["beam_range"]
+    # only the rows asked for are computed, to the same values; 0 elsewhere
+    rows = pd.Series(data.index.month % 2 == 0, index=data.index)
+    some = ph.poa_decomposition_terms(tilt, azimuth, sp, ghi, est["dni"], est["dhi"],
+                                      clear["dni"], dni_extra, airmass, 0.2, (), "perez",
+                                      rows=rows)
+    assert_allclose(some[rows], terms[rows], rtol=0, atol=0)
+    assert (some[~rows] == 0).all().all()
     cosz = np.cos(np.radians(sp["zenith"]))
     low = up & (cosz < 0.065) & (ghi > 0)
     bound = np.minimum(clear["dni"], ghi / cosz.where(cosz > 0)).where(low, 0.0).fillna(0.0)
@@ -269,8 +279,7 @@ def test_low_sun_beam_range_covers_the_cut_beam_on_a_typical_year():
     ref = (total(bound, (ghi - bound * cosz).clip(lower=0.0)) - total(bound * 0.0, ghi))
     assert_allclose(r, ref.where(low, 0.0).fillna(0.0), rtol=0, atol=1e-9)
     assert (r[~low] == 0).all() and (r >= 0).all() and (r[low] > 0).any()
-    c = ph.poa_dni_sensitivity(tilt, azimuth, sp, ghi, est["dni"], est["dhi"], dni_extra,
-                               airmass, 0.2, (), "perez")
+    c = terms["dni_sensitivity"]
     poa = total(est["dni"], est["dhi"]).fillna(0.0).resample("MS").sum()
     files = total(data["dni"].where(up, 0.0), data["dhi"].where(up, 0.0)).fillna(0.0)
     deficit = files.resample("MS").sum() - poa
