@@ -475,6 +475,52 @@ def test_recurring_level_false_alarm_rate():
     assert len(np.unique(days[out])) < 3
 
 
+def _cloud_edges(n_days: int, seed: int, limit: float | None = None):
+    """:func:`_cloudy_days` with a heavy-tailed interval noise of measured/expected (Student t,
+    3 degrees of freedom, scale 1 %: the sensor and the array see a cloud edge apart), the
+    plant total capped at ``limit`` with 0.2 % logger noise."""
+    m, e, days = _cloudy_days(n_days, seed=seed, limit=None)
+    rng = np.random.default_rng(seed + 100)
+    m = 0.97 * e * (1 + 0.01 * rng.standard_t(3, len(e)))
+    if limit is not None:
+        m = np.where(m > limit, limit * (1 + 0.002 * rng.standard_normal(len(e))), m)
+    return m, e, days
+
+
+def test_held_run_chance_keeps_a_set_point_drops_a_cloud_edge():
+    # Invented truth: 300 days with no limit, then a day capped at 60 % (P = min(P_available,
+    # P_set), common practice). Its long run at the cap (1.5 h while the expected power moves)
+    # is beyond chance at alpha = 1e-3 per day; its first one, three intervals long, is not
+    # (steps of its size are common in the history's own noise).
+    m, e, days = _cloud_edges(300, seed=3)
+    m1, e1, d1 = _cloud_edges(1, seed=9, limit=0.6)
+    m, e, days = np.r_[m, m1], np.r_[e, e1], np.r_[days, d1 + 300]
+    at = (days == 300) & (np.abs(m - 0.6) <= curtailment.HOLD * 0.6)
+    found = [(b - a, curtailment._held_by_chance(m, e, np.ones(len(m), bool), a, b, len(m1)))
+             for a, b in common.runs(at) if b - a >= 3]
+    assert [n for n, _ in found] == [3, 9]
+    assert found[0][1] > 1e-3 and found[1][1] <= 1e-3
+
+
+def test_held_run_chance_false_alarm_rate():
+    # Invented truth: 300 days with no limit; every run of at least three intervals whose
+    # plant total stays within the hold while the expected power moves by 5 % or more (the
+    # shared-run candidates): at alpha = 1e-3 per day about 0.3 false days are expected;
+    # 3 or more would have probability under 0.4 % (Poisson tail, common practice).
+    m, e, days = _cloud_edges(300, seed=3)
+    steps = np.abs(np.diff(np.log(m))) <= 2 * curtailment.HOLD
+    false = set()
+    for a, b in common.runs(steps):
+        b += 1  # steps a .. b - 1 join the intervals a .. b
+        if (b - a >= 3 and days[a] == days[b - 1]
+                and curtailment._spread(m[a:b]) <= 2 * curtailment.HOLD
+                and curtailment._spread(e[a:b]) >= 0.05
+                and curtailment._held_by_chance(m, e, np.ones(len(m), bool), a, b,
+                                                int((days == days[a]).sum())) <= 1e-3):
+            false.add(days[a])
+    assert len(false) < 3
+
+
 def test_top_share_of_a_smooth_maximum():
     # derived from the parabola p = 1 - t^2: the time within depth d of the top is
     # 2 sqrt(d), so the top tenth of a band holds sqrt(0.1) of its time (calculus)

@@ -62,18 +62,22 @@ def test_day_fits_finds_the_shape_it_was_given() -> None:
 
 def test_angle_channel_days() -> None:
     # invented channel: the rows follow the design on day 1, hold 20 deg on day 2, turn 10 deg
-    # behind on day 3; the design sweeps +-55 deg each day
+    # behind on day 3, 25 deg ahead on day 4, stopping at the +-55 deg limit the design sweeps
+    # to each day (so that on much of day 4 the channel and the design agree at the limit)
     site = make_site(1, tracker=TRACKER)
-    w = wide(make_aligned(site, start="2024-05-01", days=3, noise=0.0), {"INV1": 1e4}, None,
+    w = wide(make_aligned(site, start="2024-05-01", days=4, noise=0.0), {"INV1": 1e4}, None,
              site.tz)
-    theta = tracker.designed_rotation(w, site.inverters[0].arrays[0])
+    array = site.inverters[0].arrays[0]
+    theta = tracker.designed_rotation(w, array)
     angle = theta.copy()
     day = w.day.to_numpy()
     days = np.unique(day)
     angle[day == days[1]] = 20.0
-    angle[day == days[2]] += 10.0
-    found = tracker.angle_days(w, pd.Series(angle, index=w.index), theta)
-    assert found == {days[0]: ("track", 0.0), days[1]: ("stall", 20.0), days[2]: ("step", 10.0)}
+    angle[day == days[2]] = np.clip(angle[day == days[2]] - 10.0, -55.0, 55.0)
+    angle[day == days[3]] = np.clip(angle[day == days[3]] + 25.0, -55.0, 55.0)
+    found = tracker.angle_days(w, pd.Series(angle, index=w.index), theta, array)
+    assert found == {days[0]: ("track", 0.0), days[1]: ("stall", 20.0), days[2]: ("step", -10.0),
+                     days[3]: ("step", 25.0)}
 
 
 def test_run_p_value_by_hand() -> None:

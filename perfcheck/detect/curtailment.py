@@ -5,14 +5,15 @@ plant total at its export limit. Kept apart from clipping (one inverter at its o
 Shared plateau: in the same intervals every producing inverter holds a flat level (relative
 change to a neighbouring interval within the plateau tolerance, three times the interval noise)
 while its expected power is above that level by more than ``margin`` (three times the
-interval-level spread of measured/expected), for at least ``min_minutes``, with the plant
-total within the hold of a set-point (+-0.5 %). Held level: a limit at the grid point holds
-the plant total, not each inverter, and on a cloudy day or with a limit near the plant's
-output it bites only now and then; a day on which the plant total comes back to one level
-more often than power that follows the sun can (a binomial test with its false-alarm rate,
-:func:`_held_level`) while the expected power moves and the plant delivers less of it there
-is held too. A level held on one day is looked for on the others: a day whose power lands on
-it, where it would deliver more, more often than its own scatter gives by chance (a Poisson
+interval-level spread of measured/expected), for at least ``min_minutes``, with the plant total
+within the hold of a set-point (+-0.5 %) for longer than chance holds power with no limit
+(:func:`_held_by_chance`, the false-alarm rate per day ``alpha``). Held level: a limit at the
+grid point holds the plant total, not each inverter, and on a cloudy day or with a limit near
+the plant's output it bites only now and then; a day on which the plant total comes back to one
+level more often than power that follows the sun can (a binomial test with its false-alarm
+rate, :func:`_held_level`) while the expected power moves and the plant delivers less of it
+there is held too. A level held on one day is looked for on the others: a day whose power lands
+on it, where it would deliver more, more often than its own scatter gives by chance (a Poisson
 bound at the same rate, :func:`_recurring`) is held there too, however few its intervals.
 Either way every interval of that day at the level counts. Export limit: the plant total
 within the tolerance of ``export_limit_kw`` while the sum of the unlimited expected powers
@@ -148,6 +149,40 @@ def _held_level(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, tol:
                 and np.median(ratio[held]) < np.median(ratio[rest])):
             out[held] = True
     return out
+
+
+def _held_by_chance(tot_m: np.ndarray, tot_e: np.ndarray, up: np.ndarray, a: int, b: int,
+                    per_day: int) -> float:
+    """Chance that power with no limit holds the plant total of rows ``a:b`` as flat as it is
+    there, somewhere in a day of ``per_day`` steps (a bound; the false-alarm probability per
+    day of a shared run).
+
+    Held within +-``HOLD``, each step's change of ln(total) is within +-2 ``HOLD``: the step
+    of ln(measured/expected) has to land within +-2 ``HOLD`` of minus the expected's own step.
+    The chance of each is read off the plant's own steps of ln(measured/expected) between
+    producing intervals (``up``) at a like light level (expected total within a factor of two
+    of the run's median: at dawn and dusk the model's error jumps more), with half a landing
+    added so that it is never zero (the Jeffreys prior); the steps are taken as independent,
+    so the run's chance is their product, and a run could start at any step of its day
+    (Bonferroni over ``per_day`` starts). A run of a few intervals at a cloud edge, where the
+    sensor sees a jump the array does not, is within chance; a set-point held for an hour
+    while the expected power moves is not.
+
+    References
+    ----------
+    Jeffreys 1946, Proc. R. Soc. Lond. A 186:453 (the prior that adds half an event; from
+    memory); Bonferroni bound over the start positions: Glaz, Naus & Wallenstein 2001, Scan
+    Statistics, ch. 1 (from memory).
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lr, le = np.log(tot_m / tot_e), np.log(tot_e)
+    both = up[1:] & up[:-1] & np.isfinite(lr[1:]) & np.isfinite(lr[:-1])
+    mid = 0.5 * (le[1:] + le[:-1])
+    ref = np.sort(np.diff(lr)[both & (np.abs(mid - np.median(le[a:b])) <= np.log(2.0))])
+    de = np.diff(le[a:b])
+    hits = (np.searchsorted(ref, -de + 2 * HOLD, side="right")
+            - np.searchsorted(ref, -de - 2 * HOLD, side="left"))
+    return float(min(1.0, per_day * np.prod((hits + 0.5) / (len(ref) + 1))))
 
 
 def _local(x: np.ndarray, index: pd.DatetimeIndex) -> np.ndarray:
@@ -293,20 +328,25 @@ def detect(w: Wide, rel_sigma: float, step_noise: float, spread: float, exclude:
     tot_e = e.where(producing).sum(axis=1).to_numpy()
     n_flat = (flat & producing).sum(axis=1).to_numpy()
     need = min(2, len(w.inverters))
-    # and the plant total within the hold of a set-point (+-HOLD) over the run
+    # and the plant total within the hold of a set-point (+-HOLD) over the run, held longer
+    # than chance holds power with no limit (false-alarm rate alpha per day)
+    up = producing.all(axis=1).to_numpy() & (tot_e > 0)
+    days = w.day.to_numpy()
     for a, b in runs(shared_np & (n_flat >= need)):
         if (b - a >= min_len and _flatter(tot_m[a:b], tot_e[a:b], margin)
-                and _spread(tot_m[a:b]) <= 2 * HOLD):
+                and _spread(tot_m[a:b]) <= 2 * HOLD
+                and _held_by_chance(tot_m, tot_e, up, a, b,
+                                    int(np.sum(up[days == days[a]]))) <= alpha):
             keep[a:b] = True
     level, exp_level = tot_m / w.ac_w.sum(), tot_e / w.ac_w.sum()
-    held = _held_level(level, exp_level, w.day.to_numpy(), tol, min_len, alpha)
+    held = _held_level(level, exp_level, days, tol, min_len, alpha)
     # shared: on a held day every producing inverter delivers less of its expected power on
     # the held intervals than on the rest of the day (one inverter at its own limit is the
     # clipping detector's)
     ratio = (m / e).where(producing & e.gt(0)).to_numpy()
-    keep |= _shared(held, ratio, w.day.to_numpy())
-    keep |= _recurring(level, exp_level, w.day.to_numpy(), keep, ratio, tol, alpha, w.index)
-    keep = _whole_day(keep, level, exp_level, w.day.to_numpy(), tol, margin)
+    keep |= _shared(held, ratio, days)
+    keep |= _recurring(level, exp_level, days, keep, ratio, tol, alpha, w.index)
+    keep = _whole_day(keep, level, exp_level, days, tol, margin)
     mask = producing & pd.DataFrame(
         np.repeat(keep[:, None], len(w.inverters), axis=1), index=w.index, columns=w.inverters)
     gap = (e - m).where(mask).sum(axis=1).to_numpy()

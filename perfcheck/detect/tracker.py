@@ -28,9 +28,11 @@ placed within their days by the split that fits best (:func:`_split`). Where the
 other tracker inverters, a day on which more than half of them show a significant shape (any
 candidate) is taken as the sky's or the model's, not the rows' (rows out of step differ from
 their neighbours; a plant-wide stall is therefore found from the angle channel only), and an
-event is reported when its most significant day of its own (not such a shared day) is
-significant over all the inverter's days tested (its p-value times their
-number below alpha, Bonferroni). An inverter with no sibling has no such reference, and its
+event is reported when its most significant day of its own (not such a shared day, and one
+on which a sibling was tested too) is significant over all the inverter's days tested (its
+p-value times their number below alpha, Bonferroni). An inverter with no sibling, or a run on
+none of whose days a sibling was tested (too few usable intervals there: low winter sun,
+snow), has no such reference, and its
 day gains have a tail far heavier than the normal one: its event is reported when the run's
 days rank so high among its days, so persistently, that chance would place them there with
 probability below alpha (:func:`run_p_value`). Either way an event is also reported when the
@@ -498,23 +500,31 @@ def candidates(array: Array, s: Sky, theta: np.ndarray, rows: np.ndarray) -> Can
     return Candidates(labels, logr)
 
 
-def angle_days(w: Wide, angle: pd.Series | None, theta: np.ndarray
+def angle_days(w: Wide, angle: pd.Series | None, theta: np.ndarray, array: Array
                ) -> dict[np.datetime64, tuple[str, float]]:
     """Days the ``tracker_angle`` channel shows a stall (its angle), an offset, or the rows
-    following the design (``("track", 0.0)``: within the pointing tolerance all day)."""
+    following the design (``("track", 0.0)``: within the pointing tolerance all day).
+
+    Rows turned by an offset still stop at the rotation limit: the offset is read where the
+    design stays clear of the limit by ``MAX_OFFSET_DEG`` (the median difference there; the
+    whole day where no such interval is logged), and the day is an out-of-step day when the
+    channel follows the design so turned, and stopped at the limit, within the tolerance."""
     if angle is None or angle.dropna().empty:
         return {}
     a = angle.reindex(w.index).to_numpy(dtype=float)
     up = (w.zenith.to_numpy() < 80) & np.isfinite(a)
+    clear = np.abs(theta[up]) <= array.tracker.max_angle_deg - MAX_OFFSET_DEG
     frame = pd.DataFrame({"day": w.day.to_numpy()[up], "a": a[up], "d": a[up] - theta[up],
-                          "t": theta[up]})
+                          "t": theta[up], "clear": clear})
     out = {}
     for day, g in frame.groupby("day"):
         if len(g) < 6 or np.ptp(g["t"]) < MIN_SWEEP_DEG:
             continue
         lo, hi = np.percentile(g["a"], [5, 95])
-        off = float(np.median(g["d"]))
-        spread = float(np.percentile(g["d"], 90) - np.percentile(g["d"], 10))
+        mid = g["d"][g["clear"]] if g["clear"].sum() >= 3 else g["d"]
+        off = float(np.median(mid))
+        rest = g["a"].to_numpy() - _turned(g["t"].to_numpy(), off, array)
+        spread = float(np.percentile(rest, 90) - np.percentile(rest, 10))
         if float(np.percentile(np.abs(g["d"]), 90)) <= ANGLE_TOLERANCE_DEG:
             out[np.datetime64(day)] = ("track", 0.0)
         elif hi - lo <= 2 * ANGLE_TOLERANCE_DEG:
@@ -566,27 +576,33 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
         found[inv] = (theta, cand, y, fits, seed)
     _drop_shared({inv: f[4] for inv, f in found.items()},
                  {inv: days[f[3].p_value < alpha] for inv, f in found.items()})
-    channel = angle_days(w, angle, found[first][0])
+    channel = angle_days(w, angle, found[first][0], arrays[first])
     tracking = [d for d, lab in channel.items() if lab[0] == "track"]
     shown = {d: lab for d, lab in channel.items() if lab[0] != "track"}
     for d in tracking:  # the logged rows turned as designed: no shape makes them stalled
         found[first][4].pop(d, None)
     found[first][4].update(shown)
-    alone = len(found) == 1  # no sibling: the days' ranks, not their z-scores, are the test
     events: list[Event] = []
     prints: list[Footprint] = []
     for inv, (theta, cand, y, fits, seed) in found.items():
         tested = max(int(np.isfinite(fits.gain).sum()), 1)
+        # days on which a sibling was tested too: only there can its shapes show the sky's
+        # or the model's; on the others the inverter is judged alone
+        beside = np.zeros(len(days), dtype=bool)
+        for other, f in found.items():
+            if other != inv:
+                beside |= np.isfinite(f[3].gain)
         blocked = tracking if inv == first else []
         for lab, first_day, last_day in _group(seed, days, cand, fits, blocked):
             run = (days >= first_day) & (days <= last_day)
             own = run & np.isin(days, list(seed))  # not the days its neighbours share
             seen = inv == first and any(first_day <= d <= last_day for d in shown)
-            if alone:
+            # no sibling tested on its days: the days' ranks, not their z-scores, are the test
+            if not (own & beside).any():
                 span = int((last_day - first_day) / np.timedelta64(1, "D")) + 1
                 p_run = run_p_value(fits.gain, own, span)
             else:  # its most significant own day over the inverter's days (Bonferroni)
-                p_run = float(np.min(fits.p_value[own], initial=1.0)) * tested
+                p_run = float(np.min(fits.p_value[own & beside], initial=1.0)) * tested
             if not (seen or p_run < alpha):
                 continue
             # rows the channel shows held away from the stow angle are a fault whatever the
@@ -753,7 +769,10 @@ def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray,
            ) -> int:
     """Where the fault began (``onset``) or ended, within the run's edge day and the day
     beyond it: the split of their usable rows, tracked on one side and the candidate's shape
-    on the other, with the least squares about one constant. A position in ``y``."""
+    on the other, with the least squares about one constant. A position in ``y``. A split
+    between the two days' usable rows says only that the change came between them (a night,
+    and the low sun about it, where the shapes cannot tell): the edge day is then taken
+    whole, as it is when too few rows are usable to place it."""
     rows = np.flatnonzero(edge | outside)
     ok = rows[np.isfinite(y[rows]) & np.isfinite(lr[rows])]
     edge_rows = np.flatnonzero(edge)
@@ -765,9 +784,10 @@ def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray,
         z = y[ok] - np.where(pos >= k if onset else pos < k, lr[ok], 0.0)
         sse.append(float(np.sum((z - z.mean()) ** 2)))
     k = int(np.argmin(sse))
+    between = int(np.sum(outside[ok])) if onset else int(np.sum(edge[ok]))
     if onset:
-        return int(ok[k]) if k < len(ok) else int(edge_rows[0])
-    return int(ok[k - 1]) + 1 if k > 0 else int(edge_rows[-1]) + 1
+        return int(ok[k]) if k not in (between, len(ok)) else int(edge_rows[0])
+    return int(ok[k - 1]) + 1 if k not in (between, 0) else int(edge_rows[-1]) + 1
 
 
 def _take(s: Sky, at: slice | np.ndarray) -> Sky:
