@@ -92,9 +92,22 @@ def connect(path: str | Path, read_only: bool = False, wait_s: float = 0.0,
     _session(con)
     con.execute(f"SET memory_limit = '{MEMORY_LIMIT}'")
     if not read_only:
-        for name in schema_names():
-            con.execute(sql(name))
+        with transaction(con):  # one commit, not one per statement (a new database: 4x faster)
+            for name in schema_names():
+                con.execute(sql(name))
     return con
+
+
+@contextlib.contextmanager
+def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
+    """The block as one transaction: committed at its end, rolled back when it raises."""
+    con.execute("BEGIN TRANSACTION")
+    try:
+        yield
+        con.execute("COMMIT")
+    except BaseException:
+        con.execute("ROLLBACK")
+        raise
 
 
 def _session(con: duckdb.DuckDBPyConnection) -> None:

@@ -63,13 +63,16 @@ from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import duckdb
-import pandas as pd
 
 from perfcheck import __version__, db
 from perfcheck.errors import LoggerFileError, SiteFileError
 from perfcheck.site import Column, Logger, Site, name_matches
+
+if TYPE_CHECKING:  # the summaries return frames; storing a file needs no pandas
+    import pandas as pd
 
 _NOT_BLANK = re.compile(rb"[^\s\xef\xbb\xbf]")
 _ESCAPED = re.compile("[\udc80-\udcff]")  # bytes that are not UTF-8, decoded surrogateescape
@@ -607,26 +610,23 @@ def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> Fi
     if known is not None:
         return FileResult(chk.given, int(known[0]), "already ingested", 0, 0, 0, 0, 0, None, None)
     data = _checked_bytes(chk)
-    con.execute("BEGIN TRANSACTION")
     try:
-        # the ingested version's bytes, so that it stays verifiable when the file on disk
-        # later grows or changes under the same name (level 1: fast, about 4x on CSV),
-        # compressed in a thread while DuckDB reads the file (both release the GIL)
-        with ThreadPoolExecutor(1) as pool:
-            packed = pool.submit(zlib.compress, data, 1)
-            with _readable(chk, data) as path:
-                row = _store_file(con, site, chk, _read_params(site, chk, path))
-            _checked_bytes(chk)  # DuckDB read the file itself: it must still be the copy's bytes
-            con.execute(db.sql("ingest_copy"), {"sha256": chk.sha256,
-                                                "zlib_bytes": packed.result()})
-        con.execute("COMMIT")
-    except BaseException as exc:
-        con.execute("ROLLBACK")
-        if isinstance(exc, duckdb.Error):
-            reason = str(exc).splitlines()[0]
-            raise LoggerFileError(f"{chk.given}: cannot be read ({reason}); nothing of this "
-                                  "file was stored") from None
-        raise
+        with db.transaction(con):
+            # the ingested version's bytes, so that it stays verifiable when the file on disk
+            # later grows or changes under the same name (level 1: fast, about 4x on CSV),
+            # compressed in a thread while DuckDB reads the file (both release the GIL)
+            with ThreadPoolExecutor(1) as pool:
+                packed = pool.submit(zlib.compress, data, 1)
+                with _readable(chk, data) as path:
+                    row = _store_file(con, site, chk, _read_params(site, chk, path))
+                _checked_bytes(chk)  # DuckDB read the file itself: still the copy's bytes?
+                if _one(con, "SELECT 1 FROM source_copies WHERE sha256 = ?", [chk.sha256]) is None:
+                    con.execute(db.sql("ingest_copy"), {"sha256": chk.sha256,
+                                                        "zlib_bytes": packed.result()})
+    except duckdb.Error as exc:
+        reason = str(exc).splitlines()[0]
+        raise LoggerFileError(f"{chk.given}: cannot be read ({reason}); nothing of this "
+                              "file was stored") from None
     return FileResult(chk.given, int(row[0]), "loaded", *(int(v) for v in row[1:6]),
                       row[6], row[7])
 
@@ -733,8 +733,8 @@ def channel_instants(con: duckdb.DuckDBPyConnection, ids: list[int]) -> pd.Datet
     unions = "".join(
         f" UNION ALL SELECT ts FROM logger_rows_{lid} WHERE "
         + " OR ".join(f"c{ch} IS NOT NULL" for ch in chs) for lid, chs in tables.items())
-    ts = con.execute(db.sql("ingest_instants").format(unions=unions), {"ids": ids}).df()["ts"]
-    return pd.DatetimeIndex(ts)
+    found = con.execute(db.sql("ingest_instants").format(unions=unions), {"ids": ids}).df()
+    return found.set_index("ts").index
 
 
 def aged(con: duckdb.DuckDBPyConnection, site: Site) -> Site:
@@ -743,7 +743,7 @@ def aged(con: duckdb.DuckDBPyConnection, site: Site) -> Site:
     if site.commissioned is not None:
         return site
     first = _one(con, "SELECT min(ts) FROM readings")[0]
-    return site.aged(None if first is None else pd.Timestamp(first).tz_convert(site.tz).date())
+    return site.aged(None if first is None else first.astimezone(site.tz).date())
 
 
 def quarantined(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:

@@ -24,7 +24,7 @@ LOADED_STAGES = (
     "    print('exit', exc.code)\n"
     "print(sorted(m for m in ('perfcheck.detect', 'perfcheck.guarantees', 'perfcheck.meter', "
     "'perfcheck.metrics', 'perfcheck.report', 'perfcheck.units', 'perfcheck.model', "
-    "'scipy.stats', 'pvlib', 'statsmodels', 'matplotlib') if m in sys.modules "
+    "'scipy.stats', 'pvlib', 'statsmodels', 'matplotlib', 'pandas') if m in sys.modules "
     "and type(sys.modules[m]).__name__ != '_LazyModule'))")
 
 
@@ -100,15 +100,17 @@ def test_site_file_errors(tmp_path, old, new, message):
 
 def test_ingest_loads_the_stages_of_the_sections_written_only(tmp_path):
     """A section the site file leaves out takes its stage's defaults: ingest does not load the
-    later stages for it (a share of the command's start-up; tests/benchmark.py), yet a typo in
-    a section written still fails the first command."""
+    later stages for it, nor pandas (DuckDB reads and stores the file; a share of the command's
+    start-up, tests/benchmark.py), yet a typo in a section written still fails the first
+    command."""
     site, log = write_case(tmp_path, GOOD)
     command = [sys.executable, "-c", LOADED_STAGES, "ingest", str(site), str(log)]
     out = subprocess.run(command, capture_output=True, text=True, check=True)
     assert out.stdout.splitlines()[-1] == "[]", out.stdout
     site.write_text(site.read_text() + "\n[detect]\nalpha = 0.01\n")
     out = subprocess.run(command, capture_output=True, text=True, check=True)
-    assert out.stdout.splitlines()[-1] == "['perfcheck.detect', 'perfcheck.model']", out.stdout
+    loaded = "['pandas', 'perfcheck.detect', 'perfcheck.model']"
+    assert out.stdout.splitlines()[-1] == loaded, out.stdout
     _edit(site, "alpha = 0.01", "alfa = 0.01")
     result = run_ingest(site, log)
     assert result.exit_code == 2
