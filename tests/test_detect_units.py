@@ -512,3 +512,22 @@ def test_a_stuck_run_holds_one_value():
     v.iloc[3:9] = 598.4
     (s,) = sensor.stuck_faults(w, v, sky)
     assert (s.start, s.end, s.evidence["minutes"]) == (idx[3], idx[9], 90.0)
+
+
+def test_declining_finds_a_late_decline_and_holds_its_false_alarm_rate():
+    # invented truth (Kimber et al. 2006 rain-reset model): an index drifting up 0.01 %/day
+    # for 300 days (the model's seasonal error), then soiling at 0.4 %/day for 30 days, noise
+    # 1 %; the whole interval rises by Kendall's test, the test from the hinge's onset finds
+    # the decline, the true rate inside its Theil-Sen 95 % interval. On clean noise the
+    # onset's Bonferroni correction holds the one-sided rate at alpha = 5 % (+3 binomial
+    # standard errors; common practice)
+    rng = np.random.default_rng(6)
+    x = np.arange(330.0)
+    y = (1 + 0.0001 * np.minimum(x, 300) - 0.004 * np.maximum(0.0, x + 0.5 - 300)
+         + rng.normal(0, 0.01, 330))
+    f = soiling.declining(y, x, np.ones(330), 1e-3)
+    assert f is not None and f["low"] <= -0.004 <= f["high"]
+    trials = 100
+    hits = sum(soiling.declining(rng.normal(1, 0.01, 60), x[:60], np.ones(60), 0.05)
+               is not None for _ in range(trials))
+    assert hits / trials <= 0.05 + 3 * np.sqrt(0.05 * 0.95 / trials)

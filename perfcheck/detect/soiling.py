@@ -11,7 +11,8 @@ of rain on that day or the day before is a rain recovery, one on days with rain 
 less rain a cleaning, and one on days without rain readings (no rain gauge, a gap) of unknown
 cause: rain and a cleaning look alike in the index. Between two recoveries the index is fitted
 by a Theil-Sen line; an interval whose slope is negative with Kendall's test p-value below
-``alpha``, ended by a recovery that gives back at least half of its decline (:func:`_restored`),
+``alpha`` (or whose days from the onset of a hinge fit decline so, at ``alpha`` over the days
+the onset could be: a late decline in a long interval, :func:`declining`), ended by a recovery that gives back at least half of its decline (:func:`_restored`),
 is a soiling interval; the interval still open at the end of the data counts when it declines
 like the confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
 period, as in Kimber et al. 2006): the onset is the hinge of the weighted least-squares fit of a
@@ -256,8 +257,8 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         y = idx.to_numpy()[sel]
         if np.isfinite(y).sum() < min_days:
             continue
-        f = mann_kendall_slope(y, x_all[sel])
-        if not (f["slope"] < 0 and f["p_value"] / 2 < alpha):
+        f = declining(y, x_all[sel], insolation[sel], alpha)
+        if f is None:
             continue
         line = _hinge(x_all[sel] + 0.5, y, insolation[sel])[0]
         before = idx[sel].dropna().iloc[-min_days:].to_numpy()
@@ -292,6 +293,26 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     events, prints = _episodes(w, groups, ratio, rec_at, rel_sigma, exp_daily,
                                level_error(idx), float(np.sqrt(ar1_factor(idx))))
     return events, prints, ratio
+
+
+def declining(y: np.ndarray, x: np.ndarray, weight: np.ndarray, alpha: float
+              ) -> dict | None:
+    """The Theil-Sen fit (:func:`perfcheck.detect.common.mann_kendall_slope`) of an interval
+    between two recoveries whose index ``y`` (days ``x``) declines by Kendall's test,
+    one-sided at ``alpha``; None where it does not. A decline that starts late in a long
+    interval (the modules stayed clean for months, or the wash before it was too small to
+    find) is lost in the whole interval's test: then the days from the onset of the hinge
+    fit (:func:`_hinge`, ``weight`` the day's expected energy) on are tested, at ``alpha``
+    over the m days the onset could be (Bonferroni: the p-value times m)."""
+    f = mann_kendall_slope(y, x)
+    if f["slope"] < 0 and f["p_value"] / 2 < alpha:
+        return f
+    onset = _hinge(x + 0.5, y, weight)[1]
+    if onset == 0:
+        return None
+    post = mann_kendall_slope(y[onset:], x[onset:])
+    post["p_value"] = min(1.0, post["p_value"] * int(np.isfinite(y).sum()))
+    return post if post["slope"] < 0 and post["p_value"] / 2 < alpha else None
 
 
 def _restored(clean: float, before: np.ndarray, after: np.ndarray, sigma: float,
