@@ -12,9 +12,10 @@ less rain a cleaning, and one on days without rain readings (no rain gauge, a ga
 cause: rain and a cleaning look alike in the index. Between two recoveries the index is fitted
 by a Theil-Sen line; an interval whose slope is negative with Kendall's test p-value below
 ``alpha`` (or whose days from the onset of a hinge fit decline so, at ``alpha`` over the days
-the onset could be: a late decline in a long interval, :func:`declining`), ended by a recovery that gives back at least half of its decline (:func:`_restored`),
-is a soiling interval; the interval still open at the end of the data counts when it declines
-like the confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
+the onset could be: a late decline in a long interval, :func:`declining`), ended by a
+recovery that gives back at least half of its decline (:func:`_restored`), is a soiling
+interval; the interval still open at the end of the data counts when it declines like the
+confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
 period, as in Kimber et al. 2006): the onset is the hinge of the weighted least-squares fit of a
 level followed by a linear decline. Its soiling ratio is that fit over the clean level: the
 plateau before the onset where there is one, else the rolling median of the index outside the
