@@ -78,6 +78,10 @@ def test_ageing_removed_flattens_a_year_on_year_trend():
     np.testing.assert_allclose(flat["inv1"].to_numpy(), 1.0, atol=2e-4)
 
 
+# a clean stretch's cost at a noise of 1 % (sawtooth_extent): chi-square, 1 df, 95 %
+LR = 0.01 ** 2 * soiling.LR_95
+
+
 def _sawtooth_age(n: int, spans: tuple[tuple[int, int], ...]) -> np.ndarray:
     """Days since the last wash at each day's mid-point, soiling over each [a, b) of ``spans``
     and clean elsewhere (the rain-reset model of Kimber et al. 2006)."""
@@ -97,18 +101,34 @@ def test_sawtooth_extent_places_the_washes_beside_an_episode():
     age = _sawtooth_age(n, ((0, 20), (20, 45), (45, 60)))
     y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
     pen = 0.01 ** 2 * soiling.ramp_penalty(n, 1e-3)
-    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=True)
-    assert len(cut) == 4
-    np.testing.assert_allclose(cut, [0, 20, 45, 60], atol=1)
+    spans = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=True, gap_cost=LR)
+    assert len(spans) == 3
+    np.testing.assert_allclose(spans, [(0, 20), (20, 45), (45, 60)], atol=1)
     # before an episode: clean until day 15, washed at 40, the episode's own wash at the end
     age = _sawtooth_age(n, ((15, 40), (40, 90)))
     y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
-    cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=False)
-    np.testing.assert_allclose(cut, [15, 40, 90], atol=1)
+    spans = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward=False, gap_cost=LR)
+    np.testing.assert_allclose(spans, [(15, 40), (40, 90)], atol=1)
     # no soiling beside it: no ramp, either way
     for forward in (True, False):
         y = rng.normal(1, 0.01, n)
-        assert soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward) == []
+        assert soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward, gap_cost=LR) == []
+
+
+def test_sawtooth_extent_steps_over_a_clean_stretch():
+    # invented truth (Kimber et al. 2006 rain-reset model): after a found episode the
+    # modules stay clean for 20 days (washes too close together to let the dust show), then
+    # soil at 0.4 %/day for 25 days until a wash, clean after; noise 1 %. The ramp is
+    # placed beyond the clean stretch within a day (common practice, as above), either side
+    rng = np.random.default_rng(2)
+    n = 120
+    pen = 0.01 ** 2 * soiling.ramp_penalty(n, 1e-3)
+    for forward in (True, False):
+        spans = ((20, 45),) if forward else ((n - 45, n - 20),)
+        y = 1 - 0.004 * _sawtooth_age(n, spans) + rng.normal(0, 0.01, n)
+        found = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, forward, gap_cost=LR)
+        assert len(found) == 1
+        np.testing.assert_allclose(found, spans, atol=1)
 
 
 def test_edge_ranges_cover_the_soiling_energy_of_placed_ramps():
@@ -127,16 +147,17 @@ def test_edge_ranges_cover_the_soiling_energy_of_placed_ramps():
     hits = 0
     for _ in range(100):
         y = 1 - 0.004 * age + rng.normal(0, 0.01, n)
-        cut = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, True)
+        spans = soiling.sawtooth_extent(y, np.ones(n), 0.004, pen, True, gap_cost=LR)
         found = sum(float(np.sum(energy[a:b] * 0.004 * (np.arange(b - a) + 0.5)))
-                    for a, b in zip(cut[:-1], cut[1:], strict=True))
-        edge = np.array(soiling.edge_ranges(y, np.ones(n), 0.004, cut, True, energy,
+                    for a, b in spans)
+        edge = np.array(soiling.edge_ranges(y, np.ones(n), 0.004, spans, True, energy,
                                             0.01 ** 2)).reshape(-1, 2)
         hits += bool(found - np.sqrt(np.sum(edge[:, 0] ** 2)) <= truth
                      <= found + np.sqrt(np.sum(edge[:, 1] ** 2)))
     assert hits >= 90
     y = 1 - 0.004 * age
-    edge = soiling.edge_ranges(y, np.ones(n), 0.004, [0, 20, 45, 60], True, energy, 1e-12)
+    edge = soiling.edge_ranges(y, np.ones(n), 0.004, [(0, 20), (20, 45), (45, 60)], True,
+                               energy, 1e-12)
     np.testing.assert_allclose(edge, 0.0, atol=1e-6)
 
 
@@ -191,7 +212,8 @@ def test_ramp_penalty_holds_its_false_alarm_rate():
     n, trials = 60, 400
     pen = 0.01 ** 2 * soiling.ramp_penalty(n, 0.05)
     hits = sum(bool(soiling.sawtooth_extent(rng.normal(1, 0.01, n), np.ones(n), 0.004, pen,
-                                            forward)) for forward in (True, False)
+                                            forward, gap_cost=LR))
+               for forward in (True, False)
                for _ in range(trials // 2))
     assert hits / trials <= 0.05 + 3 * np.sqrt(0.05 * 0.95 / trials)
 
@@ -209,7 +231,7 @@ def test_sawtooth_ignores_single_bad_days():
     clipped = soiling.huber_clipped(index)
     assert np.all(clipped[14::15] > 0.95)
     pen = 0.01 ** 2 * soiling.ramp_penalty(n, 1e-3)
-    assert soiling.sawtooth_extent(clipped, np.ones(n), 0.002, pen, True) == []
+    assert soiling.sawtooth_extent(clipped, np.ones(n), 0.002, pen, True, gap_cost=LR) == []
     # a ramp's last day before its wash (a step up) is no outlier: it stays
     ramp = pd.Series(np.r_[1 - 0.004 * np.arange(30), np.ones(29)]
                      * rng.normal(1, 0.01, n), index=days)
@@ -490,3 +512,22 @@ def test_a_stuck_run_holds_one_value():
     v.iloc[3:9] = 598.4
     (s,) = sensor.stuck_faults(w, v, sky)
     assert (s.start, s.end, s.evidence["minutes"]) == (idx[3], idx[9], 90.0)
+
+
+def test_declining_finds_a_late_decline_and_holds_its_false_alarm_rate():
+    # invented truth (Kimber et al. 2006 rain-reset model): an index drifting up 0.01 %/day
+    # for 300 days (the model's seasonal error), then soiling at 0.4 %/day for 30 days, noise
+    # 1 %; the whole interval rises by Kendall's test, the test from the hinge's onset finds
+    # the decline, the true rate inside its Theil-Sen 95 % interval. On clean noise the
+    # onset's Bonferroni correction holds the one-sided rate at alpha = 5 % (+3 binomial
+    # standard errors; common practice)
+    rng = np.random.default_rng(6)
+    x = np.arange(330.0)
+    y = (1 + 0.0001 * np.minimum(x, 300) - 0.004 * np.maximum(0.0, x + 0.5 - 300)
+         + rng.normal(0, 0.01, 330))
+    f = soiling.declining(y, x, np.ones(330), 1e-3)
+    assert f is not None and f["low"] <= -0.004 <= f["high"]
+    trials = 100
+    hits = sum(soiling.declining(rng.normal(1, 0.01, 60), x[:60], np.ones(60), 0.05)
+               is not None for _ in range(trials))
+    assert hits / trials <= 0.05 + 3 * np.sqrt(0.05 * 0.95 / trials)

@@ -11,9 +11,11 @@ of rain on that day or the day before is a rain recovery, one on days with rain 
 less rain a cleaning, and one on days without rain readings (no rain gauge, a gap) of unknown
 cause: rain and a cleaning look alike in the index. Between two recoveries the index is fitted
 by a Theil-Sen line; an interval whose slope is negative with Kendall's test p-value below
-``alpha``, ended by a recovery that gives back at least half of its decline (:func:`_restored`),
-is a soiling interval; the interval still open at the end of the data counts when it declines
-like the confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
+``alpha`` (or whose days from the onset of a hinge fit decline so, at ``alpha`` over the days
+the onset could be: a late decline in a long interval, :func:`declining`), ended by a
+recovery that gives back at least half of its decline (:func:`_restored`), is a soiling
+interval; the interval still open at the end of the data counts when it declines like the
+confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
 period, as in Kimber et al. 2006): the onset is the hinge of the weighted least-squares fit of a
 level followed by a linear decline. Its soiling ratio is that fit over the clean level: the
 plateau before the onset where there is one, else the rolling median of the index outside the
@@ -28,7 +30,10 @@ series of ramps at its own rate, each from a wash, placed by optimal partitionin
 (:func:`sawtooth_extent`): it reaches as far as ramps at that rate explain the index better
 than its clean level by more than a penalty per ramp that noise alone exceeds with
 probability at most ``alpha`` over all the ramps the days could hold (:func:`ramp_penalty`).
-The days are first clipped by Huber's psi about their neighbours (:func:`huber_clipped`): in
+Clean stretches may lie between the ramps (a run of washes too close together for the dust
+to show), each at most half the clean level's window long: the ramps no longer need to run
+on from the episode without a break, so a clear tooth beyond a few clean-looking weeks joins
+it. The days are first clipped by Huber's psi about their neighbours (:func:`huber_clipped`): in
 least squares one dull day the model got wrong would otherwise end a ramp of its own.
 
 Detection limit. Without rain readings every wash must be found as a step of the index, at
@@ -87,6 +92,8 @@ from perfcheck.detect.common import (
 from perfcheck.lazy import lazy_module
 
 stats = lazy_module("scipy.stats")
+
+LR_95 = 3.841  # chi-square, 1 degree of freedom, 95 % (any chi-square table)
 
 METHOD = ("Theil-Sen decline of the daily performance index (without the dull days where "
           "they make it noisier) between recoveries (rain, "
@@ -251,8 +258,8 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         y = idx.to_numpy()[sel]
         if np.isfinite(y).sum() < min_days:
             continue
-        f = mann_kendall_slope(y, x_all[sel])
-        if not (f["slope"] < 0 and f["p_value"] / 2 < alpha):
+        f = declining(y, x_all[sel], insolation[sel], alpha)
+        if f is None:
             continue
         line = _hinge(x_all[sel] + 0.5, y, insolation[sel])[0]
         before = idx[sel].dropna().iloc[-min_days:].to_numpy()
@@ -282,11 +289,31 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         f["onset_at"] = int(np.flatnonzero(sel)[0]) + onset
         ratio[sel] = np.minimum(1.0, line / ref)
     exp_daily = w.energy_kwh(w.expected).sum(axis=1).groupby(w.day.to_numpy()).sum()
-    fits = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha,
-                   exp_daily.reindex(days).fillna(0.0).to_numpy())
-    events, prints = _episodes(w, fits, ratio, rec_at, rel_sigma, exp_daily,
+    groups = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha,
+                     exp_daily.reindex(days).fillna(0.0).to_numpy())
+    events, prints = _episodes(w, groups, ratio, rec_at, rel_sigma, exp_daily,
                                level_error(idx), float(np.sqrt(ar1_factor(idx))))
     return events, prints, ratio
+
+
+def declining(y: np.ndarray, x: np.ndarray, weight: np.ndarray, alpha: float
+              ) -> dict | None:
+    """The Theil-Sen fit (:func:`perfcheck.detect.common.mann_kendall_slope`) of an interval
+    between two recoveries whose index ``y`` (days ``x``) declines by Kendall's test,
+    one-sided at ``alpha``; None where it does not. A decline that starts late in a long
+    interval (the modules stayed clean for months, or the wash before it was too small to
+    find) is lost in the whole interval's test: then the days from the onset of the hinge
+    fit (:func:`_hinge`, ``weight`` the day's expected energy) on are tested, at ``alpha``
+    over the m days the onset could be (Bonferroni: the p-value times m)."""
+    f = mann_kendall_slope(y, x)
+    if f["slope"] < 0 and f["p_value"] / 2 < alpha:
+        return f
+    onset = _hinge(x + 0.5, y, weight)[1]
+    if onset == 0:
+        return None
+    post = mann_kendall_slope(y[onset:], x[onset:])
+    post["p_value"] = min(1.0, post["p_value"] * int(np.isfinite(y).sum()))
+    return post if post["slope"] < 0 and post["p_value"] / 2 < alpha else None
 
 
 def _restored(clean: float, before: np.ndarray, after: np.ndarray, sigma: float,
@@ -424,22 +451,24 @@ def _groups(fits: list) -> list[list]:
 
 def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
             rain_daily: pd.Series, soiled: np.ndarray, alpha: float, energy: np.ndarray,
-            passes: int = 5) -> list:
-    """Each found episode reaches as far as its rate explains the days beside it
-    (:func:`sawtooth_extent`, backward from its onset to the previous episode and forward
-    from its last recovery to the next one): the washes in between are too small to find
-    one by one (a step as large as the noise), but the ramps they end fit together. The
-    ramps join the episode as intervals of its rate, their washes as recoveries (the
-    cause from the rain readings, :func:`_cause`); ``ratio`` takes their soiling.
+            passes: int = 5) -> list[list]:
+    """The episodes (:func:`_groups`), each found one reaching as far as its rate explains
+    the days beside it (:func:`sawtooth_extent`, backward from its onset to the previous
+    episode and forward from its last recovery to the next one): the washes in between are
+    too small to find one by one (a step as large as the noise), but the ramps they end fit
+    together. The ramps join the episode as intervals of its rate, their washes as
+    recoveries (the cause from the rain readings, :func:`_cause`); ``ratio`` takes their
+    soiling.
 
     The clean level beside an episode is the 61-day rolling mean of the index with the
     soiling taken out (the found intervals, ``soiled``, left out; the ramps divided by their
     ratio), fitted in turns with the ramps until they stay (at most ``passes``): soiling
     beside an episode would pull a level of the raw index down and hide itself. Each ramp
     carries how far its energy could move with the wash it was placed at
-    (:func:`edge_ranges`; ``energy``: the expected energy per day [kWh])."""
+    (:func:`edge_ranges`; ``energy``: the expected energy per day [kWh]). An episode's
+    intervals need not meet: clean days may lie between its ramps."""
     if not fits:
-        return fits
+        return []
     days = pd.DatetimeIndex(idx.index)
     y = huber_clipped(idx)
     var = long_run_variance(idx)
@@ -455,16 +484,16 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
             break
         cuts = new
         ramp_ratio = np.ones(len(days))
-        for lo, _hi, cut, rel in cuts:
-            for a, b in zip(cut[:-1], cut[1:], strict=True):
+        for lo, _hi, spans, rel in cuts:
+            for a, b in spans:
                 ramp_ratio[lo + a:lo + b] = np.clip(1 - rel * (np.arange(b - a) + 0.5), 0, 1)
     out: list = []
     for g, (back, fwd) in zip(groups, zip(cuts[0::2], cuts[1::2], strict=True), strict=True):
         first = g[0][3]
-        segs = [_ramps(lo, cut, rel, f, days, y, level, rec_at, rain_daily,
-                       edge_ranges(y[lo:hi], _near(level, lo, hi, f), rel, cut, forward,
+        segs = [_ramps(lo, spans, rel, f, days, y, level, rec_at, rain_daily,
+                       edge_ranges(y[lo:hi], _near(level, lo, hi, f), rel, spans, forward,
                                    energy[lo:hi], var))
-                for (lo, hi, cut, rel), f, forward in ((back, first, False),
+                for (lo, hi, spans, rel), f, forward in ((back, first, False),
                                                        (fwd, g[-1][3], True))]
         if segs[0]:  # the found interval now begins at its onset, a wash of the ramps before
             start = days[first["onset_at"]]
@@ -474,13 +503,13 @@ def _extend(idx: pd.Series, fits: list, ratio: pd.Series, rec_at: dict,
         for k, (_a, _b, sel, f) in enumerate(g):  # the uncertain onset of each found one
             on = np.flatnonzero(sel)
             # its onset is a wash of the ramps before it, or the end of its clean plateau
-            lo, cut = (back[0], back[2]) if k == 0 and segs[0] else \
-                (int(on[0]), [f["onset_at"] - int(on[0])])
+            lo, spans = (back[0], back[2]) if k == 0 and segs[0] else (int(on[0]), [])
             end = int(on[-1]) + 1
             f["edge_kwh"] = edge_ranges(y[lo:end], _near(level, lo, end, f),
-                                        -f["rate"] / f["clean_level"], cut + [end - lo],
+                                        -f["rate"] / f["clean_level"],
+                                        spans + [(f["onset_at"] - lo, end - lo)],
                                         False, energy[lo:end], var)[-1]
-        out += segs[0] + g + segs[1]
+        out.append(segs[0] + g + segs[1])
     ratio.iloc[:] = np.where(ramp_ratio < 1, ramp_ratio, ratio.to_numpy())
     return out
 
@@ -508,12 +537,13 @@ def _cuts(y: np.ndarray, level: np.ndarray, groups: list, days: pd.DatetimeIndex
             gone = np.flatnonzero(~read[lo:hi])
             if len(gone):
                 lo, hi = (lo, lo + gone[0]) if forward else (lo + gone[-1] + 1, hi)
-            cut: list[int] = []
+            spans: list[tuple[int, int]] = []
             if hi > lo and np.isfinite(var):
-                cut = sawtooth_extent(y[lo:hi], _near(level, lo, hi, f), rel,
-                                      var * ramp_penalty(hi - lo, alpha), forward)
-            out.append((lo, hi, cut, rel))
-            done = max(done, lo + (cut[-1] if cut else 0), end)
+                spans = sawtooth_extent(y[lo:hi], _near(level, lo, hi, f), rel,
+                                        var * ramp_penalty(hi - lo, alpha), forward,
+                                        var * LR_95)
+            out.append((lo, hi, spans, rel))
+            done = max(done, lo + (spans[-1][1] if spans else 0), end)
     return out
 
 
@@ -523,13 +553,13 @@ def _near(level: np.ndarray, lo: int, hi: int, f: dict) -> np.ndarray:
     return np.where(np.isfinite(level[lo:hi]), level[lo:hi], f["clean_level"])
 
 
-def _ramps(lo: int, cut: list[int], rel: float, f: dict, days: pd.DatetimeIndex,
+def _ramps(lo: int, spans: list[tuple[int, int]], rel: float, f: dict, days: pd.DatetimeIndex,
            y: np.ndarray, level: np.ndarray, rec_at: dict, rain_daily: pd.Series,
            edges: list[tuple[float, float]]) -> list:
-    """The ramps [lo + cut[k], lo + cut[k + 1]) as soiling intervals of the rate of ``f``,
-    each with its ``edges`` (:func:`edge_ranges`); their washes join ``rec_at``."""
+    """The ramps (start, end) of ``spans``, from day ``lo``, as soiling intervals of the
+    rate of ``f``, each with its ``edges`` (:func:`edge_ranges`); their washes join ``rec_at``."""
     segs = []
-    for (a, b), edge in zip(zip(cut[:-1], cut[1:], strict=True), edges, strict=True):
+    for (a, b), edge in zip(spans, edges, strict=True):
         sel = np.zeros(len(days), dtype=bool)
         sel[lo + a:lo + b] = True
         end = days[lo + b] if lo + b < len(days) else days[-1] + pd.Timedelta(days=1)
@@ -564,13 +594,13 @@ def _level_sigma_kwh(e_day: pd.Series, se: pd.Series, window: int = 61) -> float
     return float(np.sqrt(np.sum(np.bincount(block, weights=c) ** 2)))
 
 
-def _episodes(w: Wide, fits: list, ratio: pd.Series, rec_at: dict, rel_sigma: float,
+def _episodes(w: Wide, groups: list[list], ratio: pd.Series, rec_at: dict, rel_sigma: float,
               exp_daily: pd.Series, level_se: pd.Series, rate_widen: float
               ) -> tuple[list[Event], list[Footprint]]:
-    """The soiling episodes as events and footprints. ``rate_widen``: the factor by which
+    """The soiling episodes (``groups`` of intervals, :func:`_extend`) as events and
+    footprints. ``rate_widen``: the factor by which
     the rates' Theil-Sen intervals (independent days, Sen 1968) widen for days in a row
     that share their error (sqrt of :func:`ar1_factor`)."""
-    groups = _groups(fits)
     events, prints = [], []
     days_of = w.day.to_numpy()
     for g in groups:
@@ -678,25 +708,39 @@ def ramp_penalty(n: int, alpha: float) -> float:
     return float(stats.norm.isf(alpha / m) ** 2)
 
 
-def edge_ranges(y: np.ndarray, level: np.ndarray, rate: float, cut: list[int], forward: bool,
-                energy: np.ndarray, var: float, level_95: float = 3.841
-                ) -> list[tuple[float, float]]:
-    """How far each ramp's soiling energy could move with the day it starts or ends, the
-    other boundaries held: per ramp [cut[k], cut[k + 1]) of :func:`sawtooth_extent` (same
-    ``y``, ``level``, ``rate``, ``forward``), (down, up) [kWh] of the energy of the ramps
-    beside its free boundary over the positions whose sum of squares (:func:`sawtooth_sums`)
-    is within ``level_95`` times the noise variance ``var`` of the least: the
-    likelihood-ratio set of a change-point, chi-square with 1 degree of freedom at 95 %
-    (Hinkley 1970, "Inference about the change-point in a sequence of random variables",
-    Biometrika 57(1):1; the chi-square is an approximation there, from memory).
+def _segments(spans: list[tuple[int, int]], n: int) -> list[tuple[int, int, bool]]:
+    """The days [0, n) as segments (start, end, is a ramp): the ramps ``spans`` and the clean
+    days between and beside them (a clean segment may be empty at either end)."""
+    out, at = [], 0
+    for a, b in spans:
+        if a > at or not out:
+            out.append((at, a, False))
+        out.append((a, b, True))
+        at = b
+    out.append((at, n, False))
+    return out
 
-    The free boundary of a ramp is its start (a wash, or the soiling's first day when it is
-    the first) where the ramps precede the episode, its end where they follow it: the
-    boundary at the episode is the episode's own. A wash the data cannot rule out inside a
-    ramp (one more boundary, by the same set) lowers its energy too: (down) is the two
-    ranges' half-widths added in quadrature. ``energy``: the expected energy per day
-    [kWh]; a ramp loses ``rate`` (t - start + 0.5) of a day's."""
-    if len(cut) < 2:
+
+def edge_ranges(y: np.ndarray, level: np.ndarray, rate: float, spans: list[tuple[int, int]],
+                forward: bool, energy: np.ndarray, var: float, level_95: float = LR_95
+                ) -> list[tuple[float, float]]:
+    """How far each ramp's soiling energy could move with the days it starts or ends, the
+    other boundaries held: per ramp (start, end) of ``spans`` (:func:`sawtooth_extent`, same
+    ``y``, ``level``, ``rate``, ``forward``), (down, up) [kWh] of the energy of the two
+    segments beside each of its free boundaries over the positions whose sum of squares
+    (:func:`sawtooth_sums`) is within ``level_95`` times the noise variance ``var`` of the
+    least: the likelihood-ratio set of a change-point, chi-square with 1 degree of freedom
+    at 95 % (Hinkley 1970, "Inference about the change-point in a sequence of random
+    variables", Biometrika 57(1):1; the chi-square is an approximation there, from memory).
+
+    Every boundary between two segments (:func:`_segments`) is free but the one at the
+    episode (day 0 where the ramps follow it, day n where they precede it): it belongs to
+    the ramp beside it, and between two ramps to the one farther from the episode (the
+    earlier where they follow it, the later where they precede it). A ramp's ranges from
+    its boundaries add in quadrature. A wash the data cannot rule out inside a ramp (one
+    more boundary, by the same set) lowers its energy too. ``energy``: the expected energy
+    per day [kWh]; a ramp loses ``rate`` (t - start + 0.5) of a day's."""
+    if not spans:
         return []
     clean, ramp = sawtooth_sums(y, level, rate)
     e = np.concatenate([[0.0], np.cumsum(energy)])
@@ -706,29 +750,30 @@ def edge_ranges(y: np.ndarray, level: np.ndarray, rate: float, cut: list[int], f
         i, j = np.asarray(i), np.asarray(j)
         return rate * (et[j] - et[i] - i * (e[j] - e[i]))
 
+    def seg(i, j, is_ramp):  # (sum of squares, soiling energy) of a segment
+        return (ramp(i, j), lost(i, j)) if is_ramp else (clean(i, j), 0.0 * np.asarray(j))
+
     n = len(y)
-    out = []
-    for k in range(len(cut) - 1):
-        b = k if not forward else k + 1  # the ramp's free boundary
-        prev = cut[b - 1] if b > 0 else 0
-        nxt = cut[b + 1] if b + 1 < len(cut) else n
-        lo_c, hi_c = (prev + (b > 0), nxt - (b + 1 < len(cut)))
-        c = np.arange(lo_c, hi_c + 1)
-        if len(c) == 0:
-            out.append((0.0, 0.0))
+    segs = _segments(spans, n)
+    ramp_at = {(a, b): k for k, (a, b) in enumerate(spans)}
+    parts: list[list[tuple[float, float]]] = [[] for _ in spans]
+    for (p, x, left), (_x, q, right) in zip(segs[:-1], segs[1:], strict=True):
+        if x == (0 if forward else n):
             continue
-        if b == 0:  # clean before the first ramp
-            sse, en = clean(0, c) + ramp(c, nxt), lost(c, nxt)
-        elif b == len(cut) - 1:  # clean after the last ramp
-            sse, en = ramp(prev, c) + clean(c, n), lost(prev, c)
-        else:
-            sse, en = ramp(prev, c) + ramp(c, nxt), lost(prev, c) + lost(c, nxt)
+        owner = ramp_at[(p, x)] if left and (forward or not right) else ramp_at[(x, q)]
+        c = np.arange(p + left, q - right + 1)
+        s1, e1 = seg(p, c, left)
+        s2, e2 = seg(c, q, right)
+        sse, en = s1 + s2, e1 + e2
         ok = sse <= np.min(sse) + level_95 * var
-        here = float(en[c == cut[b]][0])
-        down, up = max(0.0, here - float(en[ok].min())), max(0.0, float(en[ok].max()) - here)
-        # a wash inside the ramp too small to place (it lowers the energy)
-        i, j = cut[k], cut[k + 1]
-        c = np.arange(i + 1, j)
+        here = float(en[c == x][0])
+        parts[owner].append((max(0.0, here - float(en[ok].min())),
+                             max(0.0, float(en[ok].max()) - here)))
+    out = []
+    for k, (i, j) in enumerate(spans):
+        down = float(np.sqrt(sum(d * d for d, _ in parts[k])))
+        up = float(np.sqrt(sum(u * u for _, u in parts[k])))
+        c = np.arange(i + 1, j)  # a wash inside the ramp too small to place
         if len(c):
             sse, whole = ramp(i, c) + ramp(c, j), float(ramp(i, j))
             ok = sse <= min(float(np.min(sse)), whole) + level_95 * var
@@ -740,50 +785,77 @@ def edge_ranges(y: np.ndarray, level: np.ndarray, rate: float, cut: list[int], f
 
 
 def sawtooth_extent(y: np.ndarray, level: np.ndarray, rate: float, penalty: float,
-                    forward: bool) -> list[int]:
-    """Where the soiling of a found episode reaches into the days ``y`` beside it, as washes
-    of a ramp at the episode's ``rate`` (the episode's rate holds for the site's dust, Kimber
-    et al. 2006) by optimal partitioning (Jackson et al. 2005): each ramp costs ``penalty``
-    (the noise variance times :func:`ramp_penalty`) and must lower the sum of squares
-    (:func:`sawtooth_sums`) about the clean ``level`` (per day: the model's error drifts with
-    the season) by more than that.
+                    forward: bool, gap_cost: float, max_gap: int = 30
+                    ) -> list[tuple[int, int]]:
+    """Where the soiling of a found episode reaches into the days ``y`` beside it, as ramps
+    at the episode's ``rate`` (the episode's rate holds for the site's dust, Kimber et al.
+    2006), each from a wash, with clean days between them where a wash left the modules
+    clean for a while or a ramp too small to see: optimal partitioning (Jackson et al. 2005)
+    into ramps and clean stretches, each ramp costing ``penalty`` (the noise variance times
+    :func:`ramp_penalty`, which holds the false-alarm rate over every ramp the days could
+    hold) and lowering the sum of squares (:func:`sawtooth_sums`) about the clean ``level``
+    (per day: the model's error drifts with the season) by more than that. Two clean
+    stretches never meet (they are one); one between ramps, or between the episode and a
+    ramp, costs ``gap_cost`` (its end is one more change-point: the noise variance times
+    3.841, the chi-square of 1 degree of freedom at 95 %, stands a clean stretch only where
+    the data rule out the ramps without it, as in :func:`edge_ranges`; a clean stretch does
+    not add to the false alarms, which ``penalty`` holds over every ramp's position) and
+    is at most ``max_gap`` days: half the window of the clean level (61 days,
+    :func:`_extend`), so that the ramps on both sides of it are held to a level of the same
+    days (a season away the model's own seasonal error could pass for a ramp).
 
-    ``forward``: the days follow the episode (a wash at day 0 started the first ramp; the
-    soiling ends at a cleaning, clean after it); else they precede it (the soiling starts at
-    some day, clean before it, and a wash at the end of ``y`` started the episode). Returns
-    the ramps' boundaries [s, ..., e] (positions in ``y``), an empty list for none.
+    ``forward``: the days follow the episode (day 0 is its last recovery; clean after the
+    last ramp); else they precede it (day n is its onset; clean before the first ramp).
+    Returns the ramps as (start, end) positions in ``y``, in order; an empty list for none.
     """
     n = len(y)
     if n == 0 or not rate > 0:
         return []
     clean, ramp = sawtooth_sums(y, level, rate)
-    cost = np.full(n + 1, np.inf)
-    link = np.zeros(n + 1, dtype=int)
+    # best[s][x]: the least cost of the days on the episode's side of boundary x, the segment
+    # at x on that side a ramp (s = 0; the episode itself counts as one) or clean (s = 1)
+    best = np.full((2, n + 1), np.inf)
+    link = np.zeros((2, n + 1), dtype=int)
+    state = np.zeros(n + 1, dtype=int)
     pos = np.arange(n + 1)
-    if forward:  # cost[j]: ramps over [0, j)
-        cost[0] = 0.0
+    if forward:
+        best[0, 0] = 0.0
         for j in range(1, n + 1):
-            c = cost[:j] + ramp(pos[:j], j) + penalty
-            link[j] = int(np.argmin(c))
-            cost[j] = c[link[j]]
-        total = cost + clean(pos, n)
-        e = int(np.argmin(total))
-        if e == 0:
-            return []
-        out = [e]
-        while out[-1] > 0:
-            out.append(int(link[out[-1]]))
-        return out[::-1]
-    cost[n] = 0.0  # cost[i]: ramps over [i, n)
+            either = np.minimum(best[0, :j], best[1, :j])
+            c = either + ramp(pos[:j], j) + penalty
+            link[0, j] = int(np.argmin(c))
+            best[0, j] = c[link[0, j]]
+            state[j] = int(best[1, link[0, j]] < best[0, link[0, j]])
+            g = max(0, j - max_gap)
+            c = best[0, g:j] + clean(pos[g:j], j) + gap_cost
+            link[1, j] = g + int(np.argmin(c))
+            best[1, j] = c[link[1, j] - g]
+        x = int(np.argmin(best[0] + clean(pos, n)))
+        spans: list[tuple[int, int]] = []
+        s = 0
+        while x > 0:
+            i = int(link[s, x])
+            if s == 0:
+                spans.append((i, x))
+            s, x = (state[x] if s == 0 else 0), i
+        return spans[::-1]
+    best[0, n] = 0.0
     for i in range(n - 1, -1, -1):
-        c = cost[i + 1:] + ramp(i, pos[i + 1:]) + penalty
-        link[i] = i + 1 + int(np.argmin(c))
-        cost[i] = float(np.min(c))
-    total = clean(0, pos) + cost
-    st = int(np.argmin(total))
-    if st == n:
-        return []
-    out = [st]
-    while out[-1] < n:
-        out.append(int(link[out[-1]]))
-    return out
+        either = np.minimum(best[0, i + 1:], best[1, i + 1:])
+        c = ramp(i, pos[i + 1:]) + penalty + either
+        k = int(np.argmin(c))
+        link[0, i], best[0, i] = i + 1 + k, c[k]
+        state[i] = int(best[1, i + 1 + k] < best[0, i + 1 + k])
+        g = min(n, i + max_gap) + 1
+        c = clean(i, pos[i + 1:g]) + gap_cost + best[0, i + 1:g]
+        k = int(np.argmin(c))
+        link[1, i], best[1, i] = i + 1 + k, c[k]
+    x = int(np.argmin(clean(0, pos) + best[0]))
+    spans = []
+    s = 0
+    while x < n:
+        j = int(link[s, x])
+        if s == 0:
+            spans.append((x, j))
+        s, x = (state[x] if s == 0 else 0), j
+    return spans
