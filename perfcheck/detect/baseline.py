@@ -85,6 +85,12 @@ def arl0(k: float, h: float) -> float:
     return (math.exp(2 * k * hp) - 2 * k * hp - 1) / (2 * k * k)
 
 
+# Plane-of-array irradiance [W/m^2] above which a ratio to expected is read as the array's
+# level: below it the model's low-light and diffuse errors, which differ by the plane's tilt
+# and azimuth, weigh as much as a fault. The floor of the reporting irradiance of the capacity
+# test (ASTM E2939-13, from memory; as in perfcheck.capacity).
+MEASURABLE_WM2 = 400.0
+
 TERMS = ("const", "expected_kw", "poa_kwm2", "temp_cell_c", "poa_x_temp")
 
 
@@ -219,8 +225,8 @@ def shift_z(x: pd.Series, a: int, b: int, sigma_lr: float, block_days: int = 30,
 
 def _ratio(gap: pd.Series, reference: pd.Series) -> pd.Series:
     """Daily relative residual gap / reference, NaN on days whose reference is under a
-    quarter of its median (a dark day's ratio is mostly noise)."""
-    return (gap / reference).where(reference >= 0.25 * reference.median())
+    quarter of its median over the days with any (a dark day's ratio is mostly noise)."""
+    return (gap / reference).where(reference >= 0.25 * reference[reference > 0].median())
 
 
 def _daily(w: Wide, valid: pd.DataFrame, fits: dict[str, dict]) -> dict[str, pd.DataFrame]:
@@ -253,9 +259,12 @@ def remaining_levels(w: Wide, shortfall_w: np.ndarray, expected_w: np.ndarray
                      ) -> dict[str, pd.Series]:
     """Per inverter, the daily relative level of what the detectors leave unexplained
     (``shortfall_w``: expected less measured less the losses found [W], per interval and
-    inverter), less its siblings' (:func:`_relative`) and centred at its median: the series
+    inverter) on the intervals of measurable light (plane-of-array irradiance at least
+    :data:`MEASURABLE_WM2`: a dim day's model error is no level of
+    the array), less its siblings' (:func:`_relative`) and centred at its median: the series
     :func:`shift_z` judges."""
-    step = w.interval_s.to_numpy()[:, None] / 3.6e6
+    lit = (w.poa[w.inverters].to_numpy() >= MEASURABLE_WM2) & np.isfinite(expected_w)
+    step = np.where(lit, w.interval_s.to_numpy()[:, None] / 3.6e6, 0.0)
     days = w.day.to_numpy()
     gap = pd.DataFrame(-shortfall_w * step, columns=w.inverters).groupby(days).sum()
     ref = pd.DataFrame(expected_w * step, columns=w.inverters).groupby(days).sum()
