@@ -33,16 +33,18 @@ practice in fleet comparisons, e.g. the sibling ratio of :mod:`perfcheck.detect.
 A plant of one inverter has only its own residual, where a season's model error looks like a
 fault, and siblings of another tilt or azimuth keep the part of it that depends on the plane.
 Each flagged period is therefore also judged as a level shift (:func:`shift_z`) on what the
-detectors leave unexplained (:func:`remaining_levels`: a shortfall an event explains is no
-shift of the level of what remains): its mean shortfall against the standard error of a mean
-of n autocorrelated days (sigma_LR^2 / n) plus the mean square of the 30-day means outside
-the period about the series' centre. The latter measures how far the model's seasonal error
+detectors leave unexplained on the intervals of measurable light (:func:`remaining_levels`:
+a shortfall an event explains is no shift of the level of what remains, a dim day's model
+error none of the array): its mean shortfall against the standard error of a mean of n
+autocorrelated days (sigma_LR^2 / n) plus the mean square of the 30-day means outside the
+period about the series' centre. The latter measures how far the model's seasonal error
 carries the level from its centre in the other seasons of the record; where the record holds
 no other year, the period's own season is judged by how far the other seasons stray. The
 mean of a period of a zero-mean slow error has a variance of at most that of its 30-day means
-(a mean of positively correlated values varies no more than one of them), so the test is
-conservative; the attribution reports a period only when z >= 3 (one-sided 0.13 % for a
-normal level).
+(a mean of positively correlated values varies no more than one of them); resting on a few
+months, the ratio is read against Student's t. The attribution reports a period only when
+its normal-equivalent z >= 3 (one-sided 0.13 %). A season with no interval of measurable
+light (a high-latitude winter) has no level to judge, and no period in it is reported.
 
 References
 ----------
