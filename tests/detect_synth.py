@@ -81,6 +81,9 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
     - ``{"kind": "fog", "start": ts, "end": ts, "until_hour": 11, "kt": 0.3}`` (weather, not
       a fault: every morning of the window the clearness index is ``kt`` until that local
       hour, in the irradiance and the power alike)
+    - ``{"kind": "lowlight", "inverter": id, "below_wm2": 250, "share": 0.15}`` (no fault:
+      the array's efficiency ``share`` lower wherever its irradiance is below ``below_wm2``,
+      a low-light behaviour the model does not know)
     - ``{"kind": "shading", "inverter": id, "azimuth": (a0, a1), "elevation_start": e0,
       "elevation_end": e1}`` (an obstruction whose top grows linearly over the period)
     - tracker sites: ``{"kind": "stall", "inverter": id, "start": ts, "end": ts, "angle": a}``
@@ -190,6 +193,8 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
                     rain[(idx >= c) & (idx < c + pd.Timedelta(hours=2))] = f.get("rain_mm", 0)
             elif k == "partial" and f["inverter"] == inv.id:
                 true_factor[window(f)] *= 1 - f["share"]
+            elif k == "lowlight" and f["inverter"] == inv.id:
+                true_factor[poa < f["below_wm2"]] *= 1 - f["share"]
             elif k == "shading" and f["inverter"] == inv.id:
                 a0, a1 = f["azimuth"]
                 top = f["elevation_start"] + (f["elevation_end"] - f["elevation_start"]) * (

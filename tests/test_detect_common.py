@@ -213,6 +213,23 @@ def test_shift_z_known_answer():
     assert baseline.shift_z(y, 100, 110, 0.02) < baseline.shift_z(x, 100, 110, 0.02)
 
 
+def test_shift_z_reads_the_monthly_spread_against_student_t():
+    # reference: Student's t table, t(0.99, 10 df) = 2.764, and the normal table,
+    # z(0.99) = 2.326 (NIST/SEMATECH e-Handbook of Statistical Methods, 1.3.6.7.2 and
+    # 1.3.6.7.1). Ten 30-day blocks outside the period with means +-0.02 about the centre
+    # (their mean square 0.02^2, 10 degrees of freedom), no day-to-day noise (sigma_LR 0),
+    # a period 2.764 of their root mean square below the centre: one-sided 1 %
+    x = pd.Series(np.repeat(np.tile([0.02, -0.02], 5), 30), dtype=float)
+    x = pd.concat([x, pd.Series(np.full(10, -2.764 * 0.02))], ignore_index=True)
+    x.index = pd.date_range("2024-01-01", periods=len(x), freq="D")
+    assert baseline.shift_z(x, 300, 310, 0.0) == pytest.approx(2.326, abs=2e-3)
+    # a season the other months do not reach counts in their spread, not their own spread
+    # about their mean: months all at +0.02 hold the level as far from the centre as above
+    y = x.copy()
+    y.iloc[:300] = 0.02
+    assert baseline.shift_z(y, 300, 310, 0.0) == pytest.approx(2.326, abs=2e-3)
+
+
 def test_row_median_is_numpys_nanmedian_to_the_bit():
     # reference: numpy's np.nanmedian over rows (the library's own definition), on rows with
     # ties, missing values, infinities and rows with nothing at all

@@ -96,6 +96,23 @@ def test_partial_outage_share_and_strings(plant_a):
     assert ev.evidence["p_value"] < 1e-3
 
 
+def test_dim_days_alone_are_no_lost_string():
+    # invented truth: INV1's array 15 % less efficient below 250 W/m^2 (a low-light
+    # behaviour the model does not know, no fault), and five whole days of overcast (clearness
+    # 0.3) in a record of clear days: on those days INV1 reads 15 % low against its
+    # siblings, more than half of one of its 4 strings (25 % each) and a step on either side,
+    # but no whole number of strings (derived from the definition of a lost string; without
+    # that check the five days are reported as one)
+    site = make_site(n_inverters=3, strings=4)
+    faults = [{"kind": "lowlight", "inverter": "INV1", "below_wm2": 250.0, "share": 0.15},
+              {"kind": "fog", "start": "2024-05-10 00:00", "end": "2024-05-15 00:00",
+               "until_hour": 24, "kt": 0.3}]
+    df = make_aligned(site, faults=faults, start="2024-04-01", days=70, freq_min=15, seed=3,
+                      clear_share=1.0)
+    res = detect.analyse(df, site)
+    assert not [e for e in res["events"] if e.kind == "partial_outage"]
+
+
 def test_sensor_level_fault_and_fallback(plant_a):
     site, df, res = plant_a
     ev = one(res["events"], "sensor_fault")

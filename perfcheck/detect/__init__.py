@@ -245,8 +245,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     t = lap("degradation", t)
     ref_first = _reference_start(w, site, st)
     fits = baseline.fit(w, valid & ~excluded, ref_first, st.reference_days)
-    flagged, info = baseline.flag(w, valid, fits, k=st.cusum_k, h=st.cusum_h,
-                                  unexplained=valid & ~excluded)
+    flagged, info = baseline.flag(w, valid, fits, k=st.cusum_k, h=st.cusum_h)
     t = lap("baseline", t)
     ledger, under = attribution.build(
         w, events, {"outage": out_mask, "clipping": clip_mask, "curtailment": curt_mask},

@@ -35,9 +35,9 @@ both, the shortfall is split in this order (each step works on what the steps be
    steps 1-2 leave, when it is significant: above 3 times the daily relative model error (at
    least 1 %) times the period's expected energy (model errors taken as fully correlated over
    the period, conservative; one-sided false-alarm probability 0.13 % per flagged period), and
-   with the period's level shift at least 3 standard errors against the month-to-month
-   wandering of the level, on the intervals no whole-interval event takes
-   (:func:`perfcheck.detect.baseline.shift_z`, :func:`perfcheck.detect.baseline.flag`).
+   with the period's level shift at least 3 standard errors against the model's seasonal
+   error, on what steps 1-2 leave unexplained (:func:`perfcheck.detect.baseline.shift_z`,
+   :func:`perfcheck.detect.baseline.remaining_levels`).
 4. Unexplained: the rest (noise and model error, either sign).
 
 An event found by a loss of class ``interval`` or in :data:`AT_LEVEL` takes its energy and its
@@ -68,7 +68,7 @@ import numpy as np
 import pandas as pd
 
 from perfcheck import kinds
-from perfcheck.detect.baseline import Flagged
+from perfcheck.detect.baseline import Flagged, remaining_levels, shift_z
 from perfcheck.detect.common import (
     MODEL_FLOOR,
     Z95,
@@ -78,6 +78,7 @@ from perfcheck.detect.common import (
     daylight,
     energy_band,
     local_level,
+    long_run_sigma,
     scope_of,
 )
 from perfcheck.lazy import lazy_module
@@ -456,15 +457,20 @@ def _underperformance(w: Wide, led: Ledger, residual: np.ndarray, expected: np.n
                       free: np.ndarray) -> list[Event]:
     days = w.day.to_numpy()
     step = led.interval_s
+    levels = remaining_levels(w, residual, expected) if flagged else {}
+    sigmas = {inv: long_run_sigma(x.to_numpy())[0] for inv, x in levels.items()}
     out = []
     for f in flagged:
         j = col_pos[f.inverter]
         sel = (days >= np.datetime64(f.first_day)) & (days <= np.datetime64(f.last_day))
+        x = levels[f.inverter]
+        a, b = x.index.searchsorted(f.first_day), x.index.searchsorted(f.last_day, "right")
+        z_shift = shift_z(x, a, b, sigmas[f.inverter])
         u = float(np.sum(residual[sel, j] * step[sel]) / 3.6e6)
         # model errors persist over days (season, weather regime): the period's relative error
         # is taken as large as a single day's (fully correlated), a conservative bound
         sigma = max(rel_sigma, MODEL_FLOOR) * float(np.sum(expected[sel, j] * step[sel]) / 3.6e6)
-        if not (u > Z_UNDER * sigma and u > 0 and f.shift_z >= Z_UNDER):
+        if not (u > Z_UNDER * sigma and u > 0 and z_shift >= Z_UNDER):
             continue
         low, high = energy_band(u, 0.0, sigma)
         ev = Event(
@@ -477,7 +483,7 @@ def _underperformance(w: Wide, led: Ledger, residual: np.ndarray, expected: np.n
                    "do not explain",
             evidence={"test": "lower CUSUM of standardised daily residuals",
                       "cusum_min": f.cusum_min, "baseline_shortfall_kwh": f.shortfall_kwh,
-                      "z": u / sigma if sigma > 0 else None, "shift_z": f.shift_z},
+                      "z": u / sigma if sigma > 0 else None, "shift_z": z_shift},
             detail={"cause": "unknown"})
         rows = np.flatnonzero(sel & free[:, j])
         led.entries.append(Entry(ev, rows, np.full(len(rows), j), residual[rows, j]))

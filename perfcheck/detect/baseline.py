@@ -31,11 +31,20 @@ siblings, the CUSUM therefore runs on each inverter's residual less the median o
 siblings' residuals that day (a difference of paired series: what they share cancels; common
 practice in fleet comparisons, e.g. the sibling ratio of :mod:`perfcheck.detect.partial`).
 A plant of one inverter has only its own residual, where a season's model error looks like a
-fault. Each flagged period is therefore also judged as a level shift (:func:`shift_z`): its
-mean shortfall on the series the CUSUM ran on, against the standard error of a mean of n
-autocorrelated days (sigma_LR^2 / n) plus the variance of the series' 30-day means outside
-the period (how much the level wanders from month to month without the period: the model's
-seasonal error); the attribution reports it only when z >= 3 (one-sided 0.13 %).
+fault, and siblings of another tilt or azimuth keep the part of it that depends on the plane.
+Each flagged period is therefore also judged as a level shift (:func:`shift_z`) on what the
+detectors leave unexplained on the intervals of measurable light (:func:`remaining_levels`:
+a shortfall an event explains is no shift of the level of what remains, a dim day's model
+error none of the array): its mean shortfall against the standard error of a mean of n
+autocorrelated days (sigma_LR^2 / n) plus the mean square of the 30-day means outside the
+period about the series' centre. The latter measures how far the model's seasonal error
+carries the level from its centre in the other seasons of the record; where the record holds
+no other year, the period's own season is judged by how far the other seasons stray. The
+mean of a period of a zero-mean slow error has a variance of at most that of its 30-day means
+(a mean of positively correlated values varies no more than one of them); resting on a few
+months, the ratio is read against Student's t. The attribution reports a period only when
+its normal-equivalent z >= 3 (one-sided 0.13 %). A season with no interval of measurable
+light (a high-latitude winter) has no level to judge, and no period in it is reported.
 
 References
 ----------
@@ -59,6 +68,7 @@ from perfcheck.lazy import lazy_module
 
 # the two modules called, not statsmodels.api (which loads its plots, time series and formulas)
 norms = lazy_module("statsmodels.robust.norms")
+stats = lazy_module("scipy.stats")
 robust_linear_model = lazy_module("statsmodels.robust.robust_linear_model")
 
 
@@ -69,7 +79,6 @@ class Flagged:
     last_day: pd.Timestamp
     cusum_min: float
     shortfall_kwh: float  # predicted - measured over the period
-    shift_z: float = math.inf  # the period's level shift in standard errors (shift_z)
 
 
 def arl0(k: float, h: float) -> float:
@@ -77,6 +86,12 @@ def arl0(k: float, h: float) -> float:
     hp = h + 1.166
     return (math.exp(2 * k * hp) - 2 * k * hp - 1) / (2 * k * k)
 
+
+# Plane-of-array irradiance [W/m^2] above which a ratio to expected is read as the array's
+# level: below it the model's low-light and diffuse errors, which differ by the plane's tilt
+# and azimuth, weigh as much as a fault. The floor of the reporting irradiance of the capacity
+# test (ASTM E2939-13, from memory; as in perfcheck.capacity).
+MEASURABLE_WM2 = 400.0
 
 TERMS = ("const", "expected_kw", "poa_kwm2", "temp_cell_c", "poa_x_temp")
 
@@ -174,35 +189,51 @@ def innovations(x: np.ndarray, sigma_lr: float, phi: float) -> np.ndarray:
 def shift_z(x: pd.Series, a: int, b: int, sigma_lr: float, block_days: int = 30,
             min_days: int = 10) -> float:
     """Mean shortfall of the centred daily series ``x`` over positions ``a:b``, in standard
-    errors: -mean / sqrt(sigma_LR^2 / n + s_m^2), with n the period's days with a value and
-    s_m the standard deviation of the means of consecutive ``block_days`` blocks of the
-    days outside the period (blocks with at least ``min_days`` of them; s_m = 0 with fewer
-    than three blocks). NaN without a value in the period.
+    errors, as the standard normal quantile of its one-sided probability: t = -mean /
+    sqrt(v_n + v_m), v_n = sigma_LR^2 / n with n the period's days with a value, v_m = s_m^2
+    the mean square, about the centre 0, of the means of the K consecutive ``block_days``
+    blocks of the days outside the period (blocks with at least ``min_days`` of them; v_m = 0
+    with fewer than three blocks). v_m rests on K values only: t is read against Student's t
+    with Welch-Satterthwaite's degrees of freedom K (1 + v_n / v_m)^2 (sigma_LR, from hundreds
+    of days, taken as known), a normal where v_m = 0. NaN without a value in the period.
 
     References
     ----------
     Hamilton 1994, Time Series Analysis, sec. 7.2 (variance of a mean of autocorrelated
-    values); the month-to-month variance of the level as the model's slow error, and the
-    month as its block, are common practice.
+    values); Satterthwaite 1946, Biometrics Bull. 2(6):110, and Welch 1947, Biometrika
+    34:28, the degrees of freedom of a sum of variance estimates (from memory); the spread of
+    the level's monthly means as the model's slow error, and the month as its block, are
+    common practice.
     """
     inside = x.iloc[a:b].dropna()
     if inside.empty:
         return float("nan")
     out = x.drop(x.index[a:b]).dropna()
-    s_m = 0.0
+    means = np.empty(0)
     if len(out):
         block = ((out.index - x.index[0]).days // block_days).to_numpy()
         g = out.groupby(block)
         means = g.mean()[g.count() >= min_days].to_numpy()
-        if len(means) >= 3:
-            s_m = float(np.std(means, ddof=1))
-    se = math.sqrt((sigma_lr if math.isfinite(sigma_lr) else 0.0) ** 2 / len(inside) + s_m**2)
-    return -float(inside.mean()) / se if se > 0 else math.inf
+    v_m = float(np.mean(means**2)) if len(means) >= 3 else 0.0
+    v_n = (sigma_lr if math.isfinite(sigma_lr) else 0.0) ** 2 / len(inside)
+    if not v_n + v_m > 0:
+        return math.inf
+    t = -float(inside.mean()) / math.sqrt(v_n + v_m)
+    if v_m == 0:
+        return t
+    dof = len(means) * (1 + v_n / v_m) ** 2
+    return float(stats.norm.isf(stats.t.sf(t, dof)))
+
+
+def _ratio(gap: pd.Series, reference: pd.Series) -> pd.Series:
+    """Daily relative residual gap / reference, NaN on days whose reference is under a
+    quarter of its median over the days with any (a dark day's ratio is mostly noise)."""
+    return (gap / reference).where(reference >= 0.25 * reference[reference > 0].median())
 
 
 def _daily(w: Wide, valid: pd.DataFrame, fits: dict[str, dict]) -> dict[str, pd.DataFrame]:
     """Per inverter, the daily measured and predicted energy [kWh] (columns m, p) and the
-    relative residual r (NaN on days with under a quarter of the median prediction)."""
+    relative residual r (:func:`_ratio`)."""
     days = w.day.to_numpy()
     step = w.interval_s.to_numpy()
     out = {}
@@ -213,48 +244,55 @@ def _daily(w: Wide, valid: pd.DataFrame, fits: dict[str, dict]) -> dict[str, pd.
         p = np.where(ok & np.isfinite(m), pred, np.nan)
         frame = pd.DataFrame({"m": m * step / 3.6e6, "p": p * step / 3.6e6})
         daily = frame.groupby(days).sum(min_count=1)
-        big = daily["p"] >= 0.25 * daily["p"].median()
-        daily["r"] = ((daily["m"] - daily["p"]) / daily["p"]).where(big)
+        daily["r"] = _ratio(daily["m"] - daily["p"], daily["p"])
         out[inv] = daily
     return out
 
 
-def _relative(per: dict[str, pd.DataFrame]) -> dict[str, pd.Series]:
-    """Per inverter, the daily relative residual of :func:`_daily`, less the median of its
-    siblings' where it has any (a day's weather errs alike on all of them)."""
-    resid = pd.DataFrame({inv: d["r"] for inv, d in per.items()})
+def _relative(resid: pd.DataFrame) -> dict[str, pd.Series]:
+    """Per inverter (column), the daily relative residual less the median of its siblings'
+    where it has any (a day's weather errs alike on all of them)."""
     if resid.shape[1] < 2:
         return {inv: resid[inv] for inv in resid}
     return {inv: resid[inv] - resid.drop(columns=inv).median(axis=1) for inv in resid}
 
 
-def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5,
-         unexplained: pd.DataFrame | None = None) -> tuple[list[Flagged], dict[str, dict]]:
-    """Flagged underperformance periods per inverter, and the statistics behind them.
+def remaining_levels(w: Wide, shortfall_w: np.ndarray, expected_w: np.ndarray
+                     ) -> dict[str, pd.Series]:
+    """Per inverter, the daily relative level of what the detectors leave unexplained
+    (``shortfall_w``: expected less measured less the losses found [W], per interval and
+    inverter) on the intervals of measurable light (plane-of-array irradiance at least
+    :data:`MEASURABLE_WM2`: a dim day's model error is no level of
+    the array), less its siblings' (:func:`_relative`) and centred at its median: the series
+    :func:`shift_z` judges."""
+    lit = (w.poa[w.inverters].to_numpy() >= MEASURABLE_WM2) & np.isfinite(expected_w)
+    step = np.where(lit, w.interval_s.to_numpy()[:, None] / 3.6e6, 0.0)
+    days = w.day.to_numpy()
+    gap = pd.DataFrame(-shortfall_w * step, columns=w.inverters).groupby(days).sum()
+    ref = pd.DataFrame(expected_w * step, columns=w.inverters).groupby(days).sum()
+    rel = _relative(pd.DataFrame({inv: _ratio(gap[inv], ref[inv]) for inv in w.inverters}))
+    return {inv: r - float(np.nanmedian(r.to_numpy())) for inv, r in rel.items()}
 
-    The CUSUM runs on the ``valid`` intervals; a period's level shift (:func:`shift_z`) is
-    measured on the ``unexplained`` ones (default: the same), those no event of a whole
-    interval takes: a shortfall that a derate or an outage explains is no shift of the level
-    of what remains."""
+
+def flag(w: Wide, valid: pd.DataFrame, fits: dict[str, dict], k: float = 0.5, h: float = 5.5
+         ) -> tuple[list[Flagged], dict[str, dict]]:
+    """Flagged underperformance periods per inverter (on the ``valid`` intervals), and the
+    statistics behind them."""
     flagged: list[Flagged] = []
     info: dict[str, dict] = {}
     per = _daily(w, valid, fits)
-    left = _relative(per if unexplained is None else _daily(w, unexplained, fits))
-    for inv, r in _relative(per).items():
+    resid = pd.DataFrame({inv: d["r"] for inv, d in per.items()})
+    for inv, r in _relative(resid).items():
         daily = per[inv]
         sigma, phi = long_run_sigma(r.to_numpy())
         center = float(np.nanmedian(r.to_numpy()))
         z = innovations(r.to_numpy() - center, sigma, phi)
         _, periods = cusum_lower(z, k, h)
-        r_left = left[inv]
-        sigma_left, _ = long_run_sigma(r_left.to_numpy())
-        centred = r_left - float(np.nanmedian(r_left.to_numpy()))
         for a, b in periods:
             seg = daily.iloc[a:b]
             flagged.append(Flagged(inv, daily.index[a], daily.index[b - 1],
                                    float(np.nanmin(np.cumsum(np.nan_to_num(z[a:b] + k)))),
-                                   float((seg["p"] - seg["m"]).sum()),
-                                   shift_z(centred, a, b, sigma_left)))
+                                   float((seg["p"] - seg["m"]).sum())))
         info[inv] = {"sigma_long_run": sigma, "lag1_autocorrelation": phi, "center": center,
                      "periods": len(periods),
                      "against_siblings": len(per) > 1}

@@ -18,12 +18,16 @@ long reference holds), is a partial outage, when two physical checks hold: every
 segment inside the data is a step (the median of the ``min_days`` days on either side differs
 by at least half the segment's shift: a lost string is a step, a seasonal drift or a growing
 shade is not), and the loss is the same share in the morning and in the afternoon (half-day
-values within a factor two: a lost string takes its share all day, a shade takes it on one side
-of the day only). The share lost is then measured on the fault's whole days against the days
-next to it (the mean of the level before and the level after, within two weeks: the inverter's
-level against its siblings wanders with the season, so the long reference segment that proves
-the fault would bias its size); times the number of strings in the site file it gives the
-number of strings lost.
+values within a factor two: a lost string takes its share all day, a shade takes it on one
+side of the day only). The share lost is then measured on the fault's whole days against
+the days next to it (the mean of the level before and the level after, within two weeks: the
+inverter's level against its siblings wanders with the season, so the long reference segment
+that proves the fault would bias its size); times the number of strings in the site file it
+gives the number of strings lost, which must be whole within the share's error (floored at
+the model's error over weeks, :data:`perfcheck.detect.common.MODEL_FLOOR`) at two-sided
+``alpha``: a run of dim, diffuse days on which the model errs for one plane (low-light
+efficiency, the sky's brightness by tilt and azimuth, which the siblings do not share) takes
+some share, not a string's.
 
 The false-alarm rate per inverter and series is bounded by about ``alpha`` per split tested
 (Bonferroni), default 1e-3.
@@ -42,6 +46,7 @@ import numpy as np
 import pandas as pd
 
 from perfcheck.detect.common import (
+    MODEL_FLOOR,
     Event,
     Footprint,
     Segment,
@@ -179,12 +184,20 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             between = (np.mean(sides[-1]) - np.mean(sides[0])) ** 2 / 12
             se = math.sqrt(_mean_var(xs, phi) + sum(_mean_var(v, phi) for v in sides)
                            / len(sides) ** 2 + between)
+            # a lost string takes a whole string's share: the share must lie within its
+            # error of a whole number of the site file's strings (taken as alike, as for the
+            # number reported), the error floored at the model's over weeks (MODEL_FLOOR);
+            # two-sided alpha (a run of dim days on which the model errs for one plane takes
+            # whatever share that error is)
+            k = min(max(round(share * n_str), 1), n_str)
+            if abs(share - k / n_str) > stats.norm.isf(alpha / 2) * math.hypot(
+                    se, MODEL_FLOOR) * (1 - share):
+                continue
             share_lo = 1 - math.exp(float(np.mean(xs)) - base + 1.96 * se)
             share_hi = 1 - math.exp(float(np.mean(xs)) - base - 1.96 * se)
             exp = w.expected[inv].to_numpy()[lo:hi]
             step = w.interval_s.to_numpy()[lo:hi]
             energy = float(np.nansum(exp * share * step) / 3.6e6)
-            k = round(share * n_str)
             ev = Event(
                 kind="partial_outage", scope=scope_of(inv),
                 start=w.index[lo],
@@ -202,7 +215,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
                           "near_days_p_value": float(t_near.pvalue),
                           "edge_steps_share": steps, "morning_afternoon_share": half,
                           "segments": len(segs)},
-                detail={"strings_lost": int(max(k, 1)), "strings_total": n_str,
+                detail={"strings_lost": int(k), "strings_total": n_str,
                         "share_of_dc_lost": share},
             )
             events.append(ev)
