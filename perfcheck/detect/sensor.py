@@ -3,8 +3,11 @@
 The inverters the sensor drives (:func:`driven_columns`: those it feeds and, where no GHI is
 logged, every inverter, their plane irradiance being the sensor's decomposed and transposed)
 see a sensor that reads a factor f off all together: their expected power moves by f, their
-daily performance index by 1/f. A plant fault moves one inverter, or builds up (soiling), or
-is left to its own detector; the sensor is blamed only where an independent reference agrees.
+daily performance index by 1/f. Where GHI is logged and the sensor feeds only some arrays of
+each inverter (arrays in several planes, e.g. east-west), the inverters it feeds in part stand
+for them, their index moving by about f to the power of the sensor's share (see :func:`find`).
+A plant fault moves one inverter, or builds up (soiling), or is left to its own detector; the
+sensor is blamed only where an independent reference agrees.
 
 * Step or drift ending in a reset, against the module temperature (:func:`reset_faults`):
   the sensor against the irradiance its module temperature implies (King et al. 2004 eq. 11
