@@ -5,9 +5,10 @@ readings, from its interval energy (divided by the logging interval), or from di
 its energy register (:func:`register_power`). Expected values, sun position and site weather
 are joined on the same interval (with the expected power and cell temperature from the
 modelled POA alone, ``expected_ac_modelled_w``, ``potential_ac_modelled_w`` and
-``temp_cell_modelled_c``, the stand-in where the POA sensor is suspect); the quality flags of
-the readings behind each row come from the ``flags`` table through the ``aligned`` view
-(see ``sql/schema_30_model.sql``).
+``temp_cell_modelled_c``, the stand-in where the POA sensor is suspect, and the POA sensor's
+own reading ``poa_sensor_wm2``, which is only part of an inverter's plane irradiance where its
+arrays face several planes); the quality flags of the readings behind each row come from the
+``flags`` table through the ``aligned`` view (see ``sql/schema_30_model.sql``).
 
 :func:`refresh` is called by :func:`perfcheck.model.run`; later stages read
 :func:`load_aligned`.
@@ -28,7 +29,7 @@ ALIGNED_COLUMNS = (
     "expected_dc_w", "poa_wm2", "poa_modelled_wm2", "poa_source", "ghi_wm2", "clearsky_ghi_wm2",
     "temp_air_c", "wind_speed_ms", "temp_module_c", "temp_cell_c", "rain_mm", "sun_zenith_deg",
     "sun_azimuth_deg", "flags", "expected_ac_modelled_w", "potential_ac_modelled_w",
-    "temp_cell_modelled_c",
+    "temp_cell_modelled_c", "poa_sensor_wm2",
 )
 # A register step above this multiple of the inverter's AC rating times the elapsed time is a
 # reset or a replaced meter, not energy (physical bound with margin; common practice).

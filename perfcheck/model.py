@@ -73,13 +73,16 @@ from perfcheck.versions import versions
 pvlib = lazy_module("pvlib")  # loaded when a model is built, not when a detector names it
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "6"
+MODEL_VERSION = "7"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
 WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
 
-# weather stored beside the sun in the expected rows, as the model used it
-CONDITION_COLUMNS = ("ghi_wm2", "temp_air_c", "wind_speed_ms", "temp_module_c", "rain_mm")
+# weather stored beside the sun in the expected rows, as the model used it: stored name ->
+# name in the weather frame (the POA sensor's own reading under a name of its own, apart from
+# each inverter's plane irradiance; from MODEL_VERSION 7)
+CONDITIONS = {"ghi_wm2": "ghi", "temp_air_c": "temp_air", "wind_speed_ms": "wind_speed",
+              "temp_module_c": "temp_module", "rain_mm": "rain", "poa_sensor_wm2": "poa_sensor"}
 # Stored names of the quantities that belong to an inverter or the plant (power, energy).
 DEVICE_STORED = tuple(QUANTITIES[q][0] for q in DEVICE_QUANTITIES)
 # readings quantity -> pvlib name in the weather frame
@@ -665,7 +668,7 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     # inverter, each over the sun's index)
     conditions = {"sun_zenith_deg": sun["apparent_zenith"], "sun_azimuth_deg": sun["azimuth"],
                   "clearsky_ghi_wm2": sun["clearsky_ghi"],
-                  **{q: weather[name] for q, name in WEATHER.items() if q in CONDITION_COLUMNS}}
+                  **{q: weather[name] for q, name in CONDITIONS.items()}}
     repeat = len(exp) // len(sun)
     for q, values in conditions.items():
         exp[q] = np.tile(values.to_numpy(), repeat)

@@ -12,6 +12,6 @@ SELECT coalesce(e.ts, m.ts) AS ts, coalesce(e.inverter_id, m.inverter_id) AS inv
        e.poa_source, e.temp_cell_c, e.ac_modelled_w AS expected_ac_modelled_w,
        e.ac_potential_modelled_w AS potential_ac_modelled_w, e.temp_cell_modelled_c,
        e.poa_dni_sensitivity_wm2, e.poa_beam_range_wm2,
-       e.ghi_wm2, e.temp_air_c, e.wind_speed_ms, e.temp_module_c, e.rain_mm,
+       e.ghi_wm2, e.temp_air_c, e.wind_speed_ms, e.temp_module_c, e.rain_mm, e.poa_sensor_wm2,
        e.sun_zenith_deg, e.sun_azimuth_deg, e.clearsky_ghi_wm2
 FROM e FULL JOIN _measured m ON m.ts = e.ts AND m.inverter_id = e.inverter_id;

@@ -54,6 +54,8 @@ ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_air_c DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS wind_speed_ms DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_module_c DOUBLE;
 ALTER TABLE expected ADD COLUMN IF NOT EXISTS rain_mm DOUBLE;
+-- the POA sensor's reading [W/m2] (from MODEL_VERSION 7)
+ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_sensor_wm2 DOUBLE;
 DROP TABLE IF EXISTS model_conditions;
 
 -- Measured and expected side by side, one row per (interval, inverter), for one model run.
@@ -84,6 +86,7 @@ ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS expected_ac_modelled_w DOUBLE;
 ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS potential_ac_modelled_w DOUBLE;
 ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS poa_dni_sensitivity_wm2 DOUBLE;
 ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS poa_beam_range_wm2 DOUBLE;
+ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS poa_sensor_wm2 DOUBLE;
 
 -- Which model run and which source files aligned_base reflects (one row).
 CREATE TABLE IF NOT EXISTS align_state (
@@ -109,5 +112,5 @@ SELECT a.ts, a.inverter_id, a.interval_s, a.measured_ac_w, a.expected_ac_w, a.po
        a.clearsky_ghi_wm2, a.temp_air_c, a.wind_speed_ms, a.temp_module_c, a.temp_cell_c,
        a.rain_mm, a.sun_zenith_deg, a.sun_azimuth_deg, coalesce(fa.flags, '') AS flags,
        a.expected_ac_modelled_w, a.potential_ac_modelled_w, a.temp_cell_modelled_c,
-       a.poa_dni_sensitivity_wm2, a.poa_beam_range_wm2
+       a.poa_dni_sensitivity_wm2, a.poa_beam_range_wm2, a.poa_sensor_wm2
 FROM aligned_base a LEFT JOIN fa USING (ts, inverter_id);

@@ -51,7 +51,7 @@ from perfcheck.detect.common import (
     wide,
 )
 from perfcheck.lazy import lazy_module
-from perfcheck.model import orientation, sensor_array, sensor_orientation
+from perfcheck.model import in_sensor_plane, orientation, sensor_array, sensor_orientation
 from perfcheck.site import Site, Table
 
 # The detectors run only when an analysis is made: the commands that read a stored one
@@ -157,6 +157,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
     heat, wind = _module_heat_and_wind(df, site, w0)
+    reading = _site_series(df, ("poa_sensor_wm2",), w0)[0]
     del df  # the caller's rows are the one copy left (analysis.update keeps none)
     planes = _planes(site, w0)
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)
@@ -168,7 +169,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     w1 = clock.corrected(w0, shifts, lg, site, weather)
     events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
     t = lap("clock", t)
-    suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=heat)
+    suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=heat, reading=reading,
+                           shares=_sensor_shares(site))
     w = sensor.corrected(w1, suspects)
     events += sensor.events(w1, w, suspects)
     del w0, w1  # the series before the repairs
@@ -287,6 +289,15 @@ def _site_series(df: pd.DataFrame, columns: tuple[str, ...], w: Wide
     index = pd.DatetimeIndex(df["ts"])[first].tz_convert("UTC")
     return [pd.Series(pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)[first],
                       index=index).reindex(w.index) if c in df else None for c in columns]
+
+
+def _sensor_shares(site: Site) -> pd.Series | None:
+    """Per inverter, the share of its DC rating in arrays whose plane irradiance is the POA
+    sensor's reading (None where the site's model takes the irradiance from GHI alone)."""
+    if site.model.irradiance_source == "ghi":
+        return None
+    return pd.Series({i.id: sum(a.dc_kwp for a in i.arrays if in_sensor_plane(a, site))
+                      / i.dc_kwp for i in site.inverters}, dtype=float)
 
 
 def _module_heat_and_wind(df: pd.DataFrame, site: Site, w: Wide

@@ -3,8 +3,11 @@
 The inverters the sensor drives (:func:`driven_columns`: those it feeds and, where no GHI is
 logged, every inverter, their plane irradiance being the sensor's decomposed and transposed)
 see a sensor that reads a factor f off all together: their expected power moves by f, their
-daily performance index by 1/f. A plant fault moves one inverter, or builds up (soiling), or
-is left to its own detector; the sensor is blamed only where an independent reference agrees.
+daily performance index by 1/f. Where GHI is logged and the sensor feeds only some arrays of
+each inverter (arrays in several planes, e.g. east-west), the inverters it feeds in part stand
+for them, their index moving by about f to the power of the sensor's share (see :func:`find`).
+A plant fault moves one inverter, or builds up (soiling), or is left to its own detector; the
+sensor is blamed only where an independent reference agrees.
 
 * Step or drift ending in a reset, against the module temperature (:func:`reset_faults`):
   the sensor against the irradiance its module temperature implies (King et al. 2004 eq. 11
@@ -100,6 +103,9 @@ class Suspect:
     factor: float  # sensor / reference over the window (level), nan for stuck
     evidence: dict[str, Any]
     daily_factor: pd.Series | None = None  # sensor / truth per site-local day (from the power)
+    # inverter -> share of its plane irradiance that is the sensor's reading, where the sensor
+    # feeds only some of its arrays (None: the inverters of driven_columns, whole)
+    shares: dict[str, float] | None = None
 
 
 def sensor_columns(w: Wide) -> list[str]:
@@ -539,7 +545,8 @@ def sensor_series(w: Wide) -> pd.Series | None:
 
 
 def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1e-3,
-         heat: pd.Series | None = None) -> list[Suspect]:
+         heat: pd.Series | None = None, reading: pd.Series | None = None,
+         shares: pd.Series | None = None) -> list[Suspect]:
     """All suspect windows of the POA sensor (empty when no inverter depends on a sensor).
 
     ``planes_clear`` is the clear-sky irradiance [W/m^2] in each inverter's planes and, as
@@ -548,19 +555,37 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     sensor-driven inverters' plane irradiance stands for the sensor. ``heat`` is the
     irradiance [W/m^2] that the logged module temperature implies
     (:func:`perfcheck.physics.poa_from_module_temperature`) on the rows of ``w``, if any: an
-    every-day reference for :func:`reset_faults`. Overlapping windows: the first found in the
-    order reset faults, power faults, clear-sky level faults is kept.
+    every-day reference for :func:`reset_faults`. ``reading`` is the sensor's own reading
+    [W/m^2] on the rows of ``w``, if logged: the stuck test runs on it where the sensor feeds
+    no inverter's plane irradiance whole (arrays in several planes, the sensor in one of
+    them), else on the sensor's reading as the inverters it feeds see it. ``shares`` gives
+    per inverter the share of its DC rating in arrays that the sensor's reading feeds
+    (:func:`perfcheck.model.in_sensor_plane`). Where GHI is logged and the sensor feeds no
+    inverter whole, the inverters it feeds in part stand for the driven ones, each one's
+    daily log index divided by its share (a sensor reading a factor f off moves an inverter
+    fed in the share s by about s log f, to first order), and the sensor is its reading.
+    Overlapping windows: the first found in the order reset faults, power faults, clear-sky
+    level faults is kept.
     """
     driven = driven_columns(w)
+    part: dict[str, float] | None = None
+    if not driven and reading is not None and reading.notna().any() and shares is not None:
+        part = {c: float(v) for c, v in shares.items() if c in w.inverters and v > 0}
+        driven = list(part)
     if not driven:
         return []
+    scale = pd.Series(1.0, index=driven) if part is None else pd.Series(part)
     cols = sensor_columns(w)
     if cols:
         sensor, sensor_clear = sensor_series(w), planes_clear["_sensor"]
+    elif part:
+        sensor, sensor_clear = reading, planes_clear["_sensor"]
     else:
         sensor, sensor_clear = w.poa[driven].mean(axis=1), planes_clear[driven].mean(axis=1)
     assert sensor is not None
-    stuck = stuck_faults(w, sensor, sensor_clear) if cols else []
+    raw = sensor if cols else reading
+    stuck = ([] if raw is None or raw.isna().all()
+             else stuck_faults(w, raw, planes_clear["_sensor"]))
     free = sensor.copy()
     for s in stuck:  # the level tests ignore the days touched by a stuck run
         days = w.day[(w.index >= s.start) & (w.index < s.end)].unique()
@@ -568,7 +593,8 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     others = [c for c in w.inverters if c not in driven]
     # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
     pi = np.log(daily_pi(w, daylight(w)).where(lambda p: p > 0))
-    index = pi[driven].median(axis=1)
+    pi_fed = (pi[driven] / scale).median(axis=1)
+    index = pi_fed
     if others:
         # the driven inverters against the others: a sensor fault moves the first ones'
         # expected power only, a fault of the weather or the whole plant moves both
@@ -578,7 +604,7 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         w, _daily_log_ratio(w, free, heat.where(heat > 0)), index, alpha=alpha)
     found += power_faults(w, index, q[clear.reindex(q.index).fillna(False).astype(bool)],
                           alpha=alpha)
-    if others:
+    if others or part:
         every_day = index
     elif has_ghi(w) and cols:
         every_day = _daily_log_ratio(w, free, w.poa_modelled[cols[0]])
@@ -588,7 +614,6 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # cross-check: the inverters driven by the sensor move together against their expected
     # power (by about the sensor's change, the other way); a level change that the power does
     # not mirror is the reference's seasonal error, not the sensor
-    pi_fed = pi[driven].median(axis=1)
     kept: list[Suspect] = []
     for s in found + [s for s in levels if _mirrored(pi_fed, s, w.tz)]:
         if not any(s.start < f.end and f.start < s.end for f in kept):
@@ -604,7 +629,9 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
             moves[c] = float(100 * (a / b - 1)) if np.isfinite(a) and b else None
         ev = {**s.evidence, "inverters_on_sensor": driven,
               "ratio_to_expected_change_pct": moves}
-        out.append(dataclasses.replace(s, evidence=ev))
+        if part:
+            ev["sensor_share_of_plane_irradiance"] = part
+        out.append(dataclasses.replace(s, evidence=ev, shares=part))
     return out
 
 
@@ -646,12 +673,14 @@ def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
     models, no source checked). Otherwise (a stuck sensor, a level found on clear days only)
     from the model stage's series built on the POA transposed from GHI (its own cell
     temperature, part-load efficiency and limits), and their irradiance from that modelled
-    POA."""
+    POA. An inverter that the sensor feeds in part (:attr:`Suspect.shares`) takes the error
+    in its share, or the modelled series on all its rows."""
     if not suspects:
         return w
     exp, pot, poa = w.expected.copy(), w.potential.copy(), w.poa.copy()
-    driven = driven_columns(w)
     for s in suspects:
+        fed = s.shares or dict.fromkeys(driven_columns(w), 1.0)
+        driven = list(fed)
         inside = (w.index >= s.start) & (w.index < s.end)
         if _scaled(w, s):
             if s.daily_factor is not None:
@@ -659,11 +688,15 @@ def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
             else:
                 f = np.full(len(w.index), s.factor)
             use = inside & np.isfinite(f)
+            # an inverter fed by the sensor in the share k sees 1 + k (f - 1) of the error
+            k = np.array([fed[c] for c in driven])
+            div = 1 + k[None, :] * (f[use, None] - 1)
             for frame in (exp, pot, poa):
-                frame.loc[use, driven] = frame.loc[use, driven].to_numpy() / f[use, None]
+                frame.loc[use, driven] = frame.loc[use, driven].to_numpy() / div
             continue
         for c in w.inverters:
-            use = inside & w.from_sensor[c].to_numpy()
+            # an inverter fed in part: its series from the modelled POA alone, all its rows
+            use = inside & (w.from_sensor[c].to_numpy() | (fed.get(c, 0.0) > 0))
             if not use.any():
                 continue
             pot.loc[use, c] = w.potential_modelled[c].to_numpy()[use]
