@@ -37,4 +37,4 @@ def load(module: ModuleType) -> None:
     attribute access executes it). Not safe while another thread may touch the same module:
     the loader of Python 3.11 marks it loaded before it has run, so the caller waits for the
     loading thread before using the module itself."""
-    getattr(module, "__name__")
+    _ = module.__name__
