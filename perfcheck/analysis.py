@@ -23,7 +23,6 @@ import hashlib
 import json
 import math
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
 from typing import TYPE_CHECKING, Any
 
 import duckdb
@@ -136,13 +135,8 @@ def model_weather(con: duckdb.DuckDBPyConnection
 
 
 def _measured_rows(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
-    """The aligned rows of the whole history; DataError when none has a measured power.
-    The detectors' modules load in a second thread meanwhile (:func:`perfcheck.detect.
-    load_modules`), done when this returns."""
-    with ThreadPoolExecutor(1) as pool:
-        loading = pool.submit(detect.load_modules)
-        df = align.load_aligned(con, site)
-        loading.result()
+    """The aligned rows of the whole history; DataError when none has a measured power."""
+    df = align.load_aligned(con, site)
     if df.empty or df["measured_ac_w"].notna().sum() == 0:
         raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
                         "files with AC power and run 'perfcheck model' first")

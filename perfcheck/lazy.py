@@ -30,11 +30,3 @@ def lazy_module(name: str) -> ModuleType:
     if parent:
         setattr(sys.modules[parent], child, module)
     return module
-
-
-def load(module: ModuleType) -> None:
-    """Execute ``module`` now if it is bound by :func:`lazy_module` and not yet executed (any
-    attribute access executes it). Not safe while another thread may touch the same module:
-    the loader of Python 3.11 marks it loaded before it has run, so the caller waits for the
-    loading thread before using the module itself."""
-    _ = module.__name__

@@ -30,7 +30,6 @@ import dataclasses
 import datetime as dt
 import time
 from collections.abc import Callable
-from types import ModuleType
 from typing import Any
 
 import numpy as np
@@ -51,7 +50,7 @@ from perfcheck.detect.common import (
     robust_sigma,
     wide,
 )
-from perfcheck.lazy import lazy_module, load
+from perfcheck.lazy import lazy_module
 from perfcheck.model import in_sensor_plane, orientation, sensor_array, sensor_orientation
 from perfcheck.site import Site, Table
 
@@ -69,20 +68,6 @@ sensor = lazy_module("perfcheck.detect.sensor")
 shading = lazy_module("perfcheck.detect.shading")
 soiling = lazy_module("perfcheck.detect.soiling")
 tracker = lazy_module("perfcheck.detect.tracker")
-DETECTORS = (attribution, baseline, clipping, clock, curtailment, degradation, outage, partial,
-             sensor, shading, soiling, tracker)
-
-
-def load_modules() -> None:
-    """Execute the detectors' modules and every module they bind lazily (scipy's statistics,
-    statsmodels, pvlib): some two seconds of imports, which :func:`perfcheck.analysis.update`
-    runs in a thread of its own while DuckDB reads the history (it releases the interpreter's
-    lock while it works)."""
-    for detector in DETECTORS:
-        load(detector)
-        for value in list(vars(detector).values()):
-            if isinstance(value, ModuleType):
-                load(value)
 
 
 @dataclasses.dataclass(frozen=True)
