@@ -185,8 +185,7 @@ def _make(con: duckdb.DuckDBPyConnection, site: Site, spec: dict[str, Any], key:
     record = {"inputs": spec, "t_cell_typ_avg": list(t_typ),
               "meter_unplaced_kwh": None if delivered is None
               else delivered.unplaced_wh / 1000.0}
-    con.begin()
-    try:
+    with db.transaction(con):
         con.execute(db.sql("analysis_drop_current_detail"))
         con.execute(db.sql("analysis_insert"), {
             "id": new_id, "hash": key, "inputs": json.dumps(record, sort_keys=True),
@@ -204,10 +203,6 @@ def _make(con: duckdb.DuckDBPyConnection, site: Site, spec: dict[str, Any], key:
         if now is not None:
             _revise(con, now, new_id, spec)
         con.execute(db.sql("analysis_make_current"), {"id": new_id})
-        con.commit()
-    except BaseException:
-        con.rollback()
-        raise
     if progress:
         progress("stored")
     return Stored(int(new_id), key, start_day, end_day, True)

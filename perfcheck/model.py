@@ -615,8 +615,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
         raise DataError(f"{site.path}: no irradiance readings (poa_wm2 or ghi_wm2) in the "
                         "database: the expected series needs one (map a 'poa' or 'ghi' column "
                         "in [[loggers]])")
-    con.begin()
-    try:
+    with db.transaction(con):
         run_id, last_file = _run_record(con, params)
         span = align.changed_span(con, last_file, step)
         result: dict[str, Any] = {"model_run_id": run_id, "computed_from": None,
@@ -644,10 +643,6 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
                                                   if result["checks"] is not None else None})
         say("align")
         align.refresh(con, site, run_id, step, int(latest))
-        con.commit()
-    except BaseException:
-        con.rollback()
-        raise
     return result
 
 

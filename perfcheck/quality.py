@@ -260,8 +260,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
     con.register("_quality_channels", channels)
     con.register("_quality_sun", table)
     try:
-        con.execute("BEGIN TRANSACTION")
-        try:
+        with db.transaction(con):
             carry_forward(con, site)
             units.run(con, site)  # before the flags: they read corrected values
             con.execute("DELETE FROM flags")
@@ -271,10 +270,6 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
                 con.execute(query, used)
             con.execute("DELETE FROM quality_state")
             con.execute("INSERT INTO quality_state SELECT max(file_id) FROM source_files")
-            con.execute("COMMIT")
-        except BaseException:
-            con.execute("ROLLBACK")
-            raise
         counts = dict(con.execute("SELECT flag, count(*) FROM flags GROUP BY flag").fetchall())
     finally:
         con.unregister("_quality_channels")
