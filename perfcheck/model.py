@@ -66,11 +66,12 @@ import pandas as pd
 from perfcheck import align, db, ingest, quality
 from perfcheck import physics as ph
 from perfcheck.errors import DataError
-from perfcheck.lazy import lazy_module
+from perfcheck.lazy import PVLIB_WITH_INIT, lazy_package
 from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Array, Inverter, Site
 from perfcheck.versions import versions
 
-pvlib = lazy_module("pvlib")  # loaded when a model is built, not when a detector names it
+# loaded when a model is built, not when a detector names it
+pvlib = lazy_package("pvlib", PVLIB_WITH_INIT)
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
 MODEL_VERSION = "7"

@@ -19,10 +19,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from perfcheck.lazy import lazy_module
+from perfcheck.lazy import PVLIB_WITH_INIT, lazy_package
 
 # pvlib only when a physics function runs: a command reading stored results does not load it
-pvlib = lazy_module("pvlib")
+pvlib = lazy_package("pvlib", PVLIB_WITH_INIT)
 
 # --------------------------------------------------------------------------------------------
 # sun position

@@ -87,6 +87,26 @@ def test_help_version_and_completion_import_no_heavy_library(args, env):
         assert "plain,--json" in out.stdout and "plain,--from" in out.stdout
 
 
+# Loads every pvlib module perfcheck uses through its binding, then prints the package's class,
+# pvlib's version and whether the modules only pvlib's __init__ loads were loaded.
+PVLIB_USED = (
+    "import importlib.metadata, sys\nfrom perfcheck import model, physics\n"
+    "for m in ('atmosphere', 'bifacial', 'clearsky', 'iam', 'irradiance', 'spa', 'temperature',"
+    " 'tracking'):\n    getattr(physics.pvlib, m)\n"
+    "print(type(physics.pvlib).__name__, physics.pvlib.__version__ == "
+    "importlib.metadata.version('pvlib'), any(m in sys.modules for m in "
+    "('pvlib.spectrum', 'pvlib.modelchain', 'scipy.integrate')))\n"
+    "print(physics.pvlib.pvsystem.PVSystem.__name__, type(physics.pvlib).__name__)")
+
+
+def test_the_pvlib_modules_in_use_load_without_pvlib_s_init():
+    """pvlib's __init__ loads all its modules (scipy's integration with them): the modules the
+    physics, the model and the detectors use load alone, and anything else still loads."""
+    out = subprocess.run([sys.executable, "-c", PVLIB_USED], capture_output=True, text=True,
+                         check=True, cwd=ROOT)
+    assert out.stdout.splitlines() == ["_Package True False", "PVSystem module"], out.stdout
+
+
 def test_sql_files_are_found_and_every_schema_runs(tmp_path):
     con = db.connect(tmp_path / "x.duckdb")
     tables = {r[0] for r in con.execute("SELECT table_name FROM duckdb_tables()").fetchall()}

@@ -16,9 +16,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from perfcheck.lazy import lazy_module
+from perfcheck.lazy import PVLIB_WITH_INIT, lazy_module, lazy_package
 
-pvlib = lazy_module("pvlib")
+pvlib = lazy_package("pvlib", PVLIB_WITH_INIT)
 stats = lazy_module("scipy.stats")
 
 KINDS = (
