@@ -1,7 +1,8 @@
 """Quality: flags stored beside the readings, never deletions.
 
 ``run(con, site)`` recomputes the table ``flags(ts, quantity, device, flag, detail)`` from all
-stored readings, in DuckDB SQL (window functions over each channel in time order):
+stored readings, in DuckDB SQL (stuck runs and gaps from each channel's readings in time order,
+followed in NumPy by :func:`runs_and_gaps`):
 
 ``out_of_range``
     A value outside the physically possible range of its quantity (table ``LIMITS`` below and
@@ -205,6 +206,74 @@ def _sun_for_readings(con: duckdb.DuckDBPyConnection, sun: physics.SunPositions,
     return pd.concat(frames, ignore_index=True)
 
 
+def runs_and_gaps(con: duckdb.DuckDBPyConnection, channels: pd.DataFrame, sun: pd.DataFrame
+                  ) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """What the stuck and gap flags (``sql/quality_stuck_gap.sql``) need from each channel's
+    readings in time order: (runs, rates, gaps).
+
+    ``runs``: the readings that can belong to a stuck run (ts, channel_id, value, day: the sun
+    above :data:`DAY_ELEVATION_DEG` at the interval's mid-point, run_id: equal for a stretch of
+    equal values), that is those neither at rest (at or below the channel's rest_level, a
+    property of the value and so of a whole run) nor of a quantity that is never stuck, and
+    not a run of one reading unless :data:`STUCK_MIN_INTERVALS` allows it. ``rates``: per
+    channel that can be stuck, its daylight readings not at rest (steps) and those of them
+    equal to the reading before (repeats). ``gaps``: each reading followed by a gap of more
+    than 1.5 intervals (ts, next_ts, channel_id).
+
+    ``channels``: :func:`channel_limits` with the channel ids; ``sun``: :func:`sun_table` of
+    the readings' instants. One channel's readings at a time, in NumPy: one pass over each
+    channel instead of a sort of all readings by channel and time.
+    """
+    runs, rates, gaps = [], [], []
+    sun_us = sun["ts"].to_numpy(dtype="datetime64[us]").view(np.int64)
+    for c in channels.itertuples(index=False):
+        got = con.execute("SELECT ts, value FROM readings WHERE channel_id = ?",
+                          [int(c.channel_id)]).fetchnumpy()
+        ts = got["ts"].astype("datetime64[us]").view(np.int64)
+        value = np.asarray(got["value"], dtype=float)
+        if not len(ts):
+            continue
+        if (ts[1:] < ts[:-1]).any():
+            order = np.argsort(ts, kind="stable")
+            ts, value = ts[order], value[order]
+        step = ts[1:] - ts[:-1]
+        after = np.flatnonzero(step > 90_000_000 * int(c.interval_min))  # 1.5 intervals [us]
+        gaps.append(pd.DataFrame({"ts": ts[after], "next_ts": ts[after + 1],
+                                  "channel_id": c.channel_id}))
+        if c.quantity in NEVER_STUCK:
+            continue
+        # IS NOT DISTINCT FROM: NaN equals NaN
+        same = (value[1:] == value[:-1]) | (np.isnan(value[1:]) & np.isnan(value[:-1]))
+        starts = np.concatenate(([True], ~same))
+        repeats_next = np.concatenate((same, [False]))
+        at_rest = np.zeros(len(value), dtype=bool) if pd.isna(c.rest_level) \
+            else np.abs(value) <= float(c.rest_level)
+        mine = (sun["interval_min"] == c.interval_min).to_numpy()
+        own, elevation = sun_us[mine], sun["elevation_deg"].to_numpy()[mine]
+        at = np.minimum(np.searchsorted(own, ts), max(len(own) - 1, 0))
+        day = (own[at] == ts) & (elevation[at] > DAY_ELEVATION_DEG) if len(own) \
+            else np.zeros(len(ts), dtype=bool)
+        steps = day & ~at_rest
+        rates.append((c.channel_id, int((steps & ~starts).sum()), int(steps.sum())))
+        keep = ~at_rest & (~starts | repeats_next | (STUCK_MIN_INTERVALS < 2))
+        runs.append(pd.DataFrame({
+            "ts": ts[keep], "channel_id": c.channel_id, "value": value[keep], "day": day[keep],
+            "run_id": np.cumsum(starts)[keep]}))
+    frames = []
+    for parts, columns in ((runs, {"ts": np.int64, "channel_id": np.int64, "value": float,
+                                   "day": bool, "run_id": np.int64}),
+                           (gaps, {"ts": np.int64, "next_ts": np.int64, "channel_id": np.int64})):
+        frame = pd.concat(parts, ignore_index=True) if parts \
+            else pd.DataFrame({k: pd.Series([], dtype=t) for k, t in columns.items()})
+        for k in ("ts", "next_ts"):
+            if k in frame:
+                frame[k] = pd.to_datetime(frame[k], unit="us", utc=True)
+        frames.append(frame)
+    rates_frame = pd.DataFrame(rates, columns=["channel_id", "repeats", "steps"]).astype(
+        {"channel_id": channels["channel_id"].dtype, "repeats": np.int64, "steps": np.int64})
+    return frames[0], rates_frame, frames[1]
+
+
 def carry_forward(con: duckdb.DuckDBPyConnection, site: Site) -> None:
     """Rebuild ``carried_values`` (sql/quality_carry.sql) for the historian loggers with
     ``carry_forward_min`` (report-by-exception data), inside the caller's transaction; when
@@ -247,9 +316,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
     params = {
         "stuck_minutes": STUCK_MINUTES,
         "stuck_min_intervals": STUCK_MIN_INTERVALS,
-        "day_elevation": DAY_ELEVATION_DEG,
         "clipping_share": CLIPPING_SHARE,
-        "never_stuck": list(NEVER_STUCK),
         "stuck_chance": STUCK_CHANCE,
         "night_elevation": NIGHT_ELEVATION_DEG,
         "night_offset_wm2": NIGHT_OFFSET_WM2[site.model.sensor_class],
@@ -257,8 +324,12 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
         "power_share": POWER_SHARE,
         "irradiance_floor": IRRADIANCE_FLOOR_WM2,
     }
+    runs, rates, gaps = runs_and_gaps(con, channels, table)
     con.register("_quality_channels", channels)
     con.register("_quality_sun", table)
+    con.register("_quality_runs", runs)
+    con.register("_quality_rates", rates)
+    con.register("_quality_gaps", gaps)
     try:
         with db.transaction(con):
             carry_forward(con, site)
@@ -272,8 +343,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
             con.execute("INSERT INTO quality_state SELECT max(file_id) FROM source_files")
         counts = dict(con.execute("SELECT flag, count(*) FROM flags GROUP BY flag").fetchall())
     finally:
-        con.unregister("_quality_channels")
-        con.unregister("_quality_sun")
+        for name in ("channels", "sun", "runs", "rates", "gaps"):
+            con.unregister(f"_quality_{name}")
     return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
 
 
