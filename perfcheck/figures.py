@@ -52,7 +52,7 @@ NEAR_PLACE = {"left": 0.075, "right": 0.99, "bottom": 0.15, "top": 0.935}
 
 def _figure(height: float = HEIGHT_IN, ncols: int = 1,
             layout: str | None = None) -> tuple[Figure, list]:
-    """A figure of ``ncols`` panels in a row. Without a ``layout`` engine, :func:`png_bytes`
+    """A figure of ``ncols`` panels in a row. Without a ``layout`` engine, :func:`pixels`
     places the panel once with :func:`_place` (one panel, its twin, figure legends below)."""
     fig = Figure(figsize=(WIDTH_IN, height), dpi=DPI, facecolor=PAPER, layout=layout)
     FigureCanvasAgg(fig)
@@ -537,23 +537,29 @@ def _place(fig: Figure) -> None:
         ax.set_position([x0 / width, y0 / height, (x1 - x0) / width, (y1 - y0) / height])
 
 
-def png_bytes(fig: Figure) -> tuple[bytes, np.ndarray]:
-    """The figure as PNG bytes at ``DPI``, and its pixels (8-bit RGB, rows from the top) as
-    the PNG holds them, for the PDF.
+def pixels(fig: Figure) -> np.ndarray:
+    """The figure's pixels at ``DPI`` (8-bit RGB, rows from the top): what its PNG
+    (:func:`png`) holds and what the PDF embeds.
 
     The canvas is drawn once (the layout engine runs inside that draw; ``savefig`` would first
     draw the whole figure with the drawing switched off only to run it). The paper is opaque,
-    so the alpha channel is 255 everywhere and the PNG holds RGB only: a quarter less to
-    compress, the same picture. zlib's level 3 instead of its default 6 takes about a third
-    less time for some ten percent more bytes.
+    so the alpha channel is 255 everywhere and is left out.
     """
     if fig.get_layout_engine() is None:
         _place(fig)
     fig.canvas.draw()
-    pixels = np.ascontiguousarray(np.asarray(fig.canvas.buffer_rgba())[:, :, :3])
+    return np.ascontiguousarray(np.asarray(fig.canvas.buffer_rgba())[:, :, :3])
+
+
+def png(rgb: np.ndarray) -> bytes:
+    """PNG bytes of a figure's pixels (:func:`pixels`), RGB only: a quarter less to compress
+    than RGBA, the same picture. zlib's level 3 instead of its default 6 takes about a third
+    less time for some ten percent more bytes. Pillow compresses without the interpreter's
+    lock, so a second thread can encode one figure while the next is drawn.
+    """
     buf = io.BytesIO()
-    Image.fromarray(pixels).save(buf, format="png", compress_level=3, dpi=(DPI, DPI))
-    return buf.getvalue(), pixels
+    Image.fromarray(rgb).save(buf, format="png", compress_level=3, dpi=(DPI, DPI))
+    return buf.getvalue()
 
 
 def _num(v: object) -> float:

@@ -15,6 +15,7 @@ import datetime as dt
 import io
 import json
 import math
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -769,15 +770,22 @@ def render(site: Site, result: dict, aligned: pd.DataFrame, quality: dict,
     out_dir = Path(out_dir)
     (out_dir / "figures").mkdir(parents=True, exist_ok=True)
     ctx = context(site, result, aligned, quality)
-    pngs, pixels, paths = {}, {}, {}
-    for stem, _, build in figures.FIGURES:
-        pngs[stem], pixels[stem] = figures.png_bytes(build(aligned, result, site.timezone))
+    pixels, encoding, paths = {}, {}, {}
+    # each figure drawn once, for the PDF and for its PNG; a second thread encodes the PNGs
+    # while the next figure is drawn and the PDF written
+    with ThreadPoolExecutor(1) as pool:
+        for stem, _, build in figures.FIGURES:
+            pixels[stem] = figures.pixels(build(aligned, result, site.timezone))
+            encoding[stem] = pool.submit(figures.png, pixels[stem])
+        pdf_path = out_dir / "report.pdf"
+        pdf.write_pdf(pdf_text_blocks(ctx), pixels, pdf_path, ctx["title"])
+        pngs = {stem: done.result() for stem, done in encoding.items()}
+    for stem in pngs:
         paths[f"figure_{stem}"] = out_dir / "figures" / f"{stem}.png"
         paths[f"figure_{stem}"].write_bytes(pngs[stem])
     paths["html"] = out_dir / "report.html"
     paths["html"].write_text(render_html(ctx, pngs), encoding="utf-8")
-    paths["pdf"] = out_dir / "report.pdf"
-    pdf.write_pdf(pdf_text_blocks(ctx), pixels, paths["pdf"], ctx["title"])
+    paths["pdf"] = pdf_path
     paths["json"] = out_dir / "check.json"
     paths["json"].write_text(dump_json(result), encoding="utf-8")
     paths["events_csv"] = out_dir / "events.csv"
