@@ -8,6 +8,7 @@ records with its one clock, so a clock error moves them all alike.
 from __future__ import annotations
 
 import dataclasses
+import types
 
 import numpy as np
 import pandas as pd
@@ -202,3 +203,21 @@ def test_model_run_again_on_the_readings_moved_back():
     shifted = clock.corrected(w, [shift], lg)
     err = np.abs(shifted.expected["INV2"] - truth["INV2"])[inside].sum()
     assert err > 0.01 * truth["INV2"][inside].sum()
+
+
+def test_a_reference_on_the_shifted_logger_moves_back_with_it():
+    # common practice: one clock per logger. A series built from a channel of the logger
+    # whose labels ran 45 min late (the module temperature, a reference for the POA sensor)
+    # is moved back by three 15-min rows inside the window, as the wide series are; a series
+    # of another logger, or none, is left as it is
+    idx = pd.date_range("2024-04-01", periods=96 * 4, freq="15min", tz="UTC")
+    w = types.SimpleNamespace(index=idx, interval_s=pd.Series(900.0, index=idx))
+    x = pd.Series(np.arange(len(idx), dtype=float), index=idx)
+    s = clock.Shift(start=idx[96], end=idx[192], offset_min=45.0, inverters=(), evidence={},
+                    logger="dl")
+    moved = clock.moved_back(x, w, [s], "dl")
+    inside = (idx >= idx[96]) & (idx < idx[192])
+    np.testing.assert_array_equal(moved[inside].to_numpy(), x[inside].to_numpy() + 3)
+    np.testing.assert_array_equal(moved[~inside].to_numpy(), x[~inside].to_numpy())
+    assert clock.moved_back(x, w, [s], "met") is x
+    assert clock.moved_back(None, w, [s], "dl") is None

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from detect_synth import make_aligned, make_site
 
 from perfcheck.detect import baseline, common
 
@@ -253,3 +254,21 @@ def test_day_rows_are_each_days_positions():
     assert [d for d, _ in got] == list(np.unique(days[mask]))
     for d, rows in got:
         np.testing.assert_array_equal(rows, np.flatnonzero(days == d))
+
+
+def test_remaining_levels_judge_no_level_where_the_expected_is_left_out():
+    # invented truth (issue 11): one inverter, what the detectors leave unexplained is 20 % of
+    # the expected power on three days (a repaired sensor's fallback error), none elsewhere;
+    # with those days' expected power given as NaN (a correction rebuilt them) they carry no
+    # level, and no other day moves
+    site = make_site(n_inverters=1)
+    df = make_aligned(site, start="2024-04-01", days=20, seed=2)
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    exp = w.expected.to_numpy(dtype=float)
+    bad = np.isin(w.day.to_numpy(), pd.date_range("2024-04-08", periods=3).to_numpy())
+    short = np.where(bad[:, None], 0.2 * exp, 0.0)
+    seen = baseline.remaining_levels(w, short, exp)["INV1"]
+    assert seen.loc["2024-04-08":"2024-04-10"].to_numpy() == pytest.approx(-0.2, abs=1e-9)
+    left = baseline.remaining_levels(w, short, np.where(bad[:, None], np.nan, exp))["INV1"]
+    assert left.loc["2024-04-08":"2024-04-10"].isna().all()
+    assert left.drop(pd.date_range("2024-04-08", periods=3)).abs().max() < 1e-12

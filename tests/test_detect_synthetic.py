@@ -463,7 +463,7 @@ def _recurring(m: np.ndarray, e: np.ndarray, days: np.ndarray, keep: np.ndarray,
         days * 1440 + np.tile(np.arange(6 * 60, 18 * 60, step_min), days.max() + 1)[:len(days)],
         unit="min")
     with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = (m / e)[:, None]
+        ratio = np.where(m > 0.02, m / e, np.nan)[:, None]  # on producing intervals only
     return curtailment._recurring(m, e, days, keep, ratio, tol=0.01, alpha=1e-3,
                                   index=pd.DatetimeIndex(index))
 
@@ -481,6 +481,25 @@ def test_recurring_level_finds_a_short_hold():
     m, e, days, keep = _with_found_day(m, e, days, 0.6)
     out = _recurring(m, e, days, keep)
     assert out[at].all() and not out[~np.isin(np.arange(len(m)), at)].any()
+
+
+def test_recurring_level_after_an_outage():
+    # Invented truth: a set-point of 60 % found on one day comes back on a day on which the
+    # plant is down until 13:00 and then held at 60 % for an hour of clear sky while it would
+    # deliver 97 % of a falling expected power (P = min(P_available, P_set), common
+    # practice). The hours around the held intervals have almost no free power to read the
+    # plant's level from; the day's free afternoon gives it, and the hour passes at
+    # alpha = 1e-3.
+    m, e, days = _cloudy_days(60, seed=4, limit=None)
+    t = np.arange(6 * 60, 18 * 60, 10) / 60.0
+    day = np.flatnonzero(days == 30)
+    held = day[(t >= 13) & (t < 14)]
+    e[held] = 0.95 * np.sin(np.pi * (t[(t >= 13) & (t < 14)] - 6) / 12) ** 1.3
+    m[day[t < 13]] = 0.0
+    m[held] = 0.6
+    m, e, days, keep = _with_found_day(m, e, days, 0.6)
+    out = _recurring(m, e, days, keep)
+    assert out[held].all() and not out[~np.isin(np.arange(len(m)), held)].any()
 
 
 def test_recurring_level_false_alarm_rate():
@@ -587,3 +606,26 @@ def test_kept_takes_the_shares_one_after_another():
     kept, rel = attribution._kept((4, 2), prints, {"a": 0, "b": 1})
     np.testing.assert_allclose(kept, [[0.8, 0.8], [0.8, 0.8], [0.8, 0.4], [0.8, 0.4]])
     np.testing.assert_allclose(rel, [[0, 0], [0, 0], [0, 0.1], [0, 0.1]])
+
+
+def test_output_under_a_twentieth_of_expected_but_above_nothing_is_no_outage():
+    # Invented truth: the only inverter of a plant delivers 4 % of its expected power (a
+    # stalled tracker turned from a low sun sees the diffuse light alone), above 1 % of its
+    # rating, for two hours each morning of a day; it runs, so no outage (issue 11). The
+    # same hours at zero are one (the rule's other side).
+    site = make_site(n_inverters=1)
+    df = make_aligned(site, start="2024-04-15", days=10, seed=5)
+    ts = pd.DatetimeIndex(df["ts"]).tz_convert("UTC")
+    hours = (ts >= local("2024-04-20 09:00")) & (ts < local("2024-04-20 11:00"))
+    ac = site.inverters[0].ac_kw * 1000
+    df.loc[hours, "measured_ac_w"] = np.maximum(0.04 * df.loc[hours, "expected_ac_w"],
+                                                0.015 * ac)
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    state, _ = outage.states(w)
+    low = w.measured["INV1"] < 0.05 * w.expected["INV1"]
+    assert (low & w.expected["INV1"].ge(0.1 * ac)).sum() >= 4  # judged but for the power
+    assert not state["INV1"][low].eq(1).any()
+    assert not [e for e in outage.detect(w, 0.03)[0] if e.kind == "outage"]
+    df.loc[hours, "measured_ac_w"] = 0.0
+    w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+    assert one(outage.detect(w, 0.03)[0], "outage").scope == "inverter:INV1"

@@ -51,7 +51,13 @@ from perfcheck.detect.common import (
     wide,
 )
 from perfcheck.lazy import lazy_module
-from perfcheck.model import in_sensor_plane, orientation, sensor_array, sensor_orientation
+from perfcheck.model import (
+    WEATHER,
+    in_sensor_plane,
+    orientation,
+    sensor_array,
+    sensor_orientation,
+)
 from perfcheck.site import Site, Table
 
 # The detectors run only when an analysis is made: the commands that read a stored one
@@ -68,6 +74,16 @@ sensor = lazy_module("perfcheck.detect.sensor")
 shading = lazy_module("perfcheck.detect.shading")
 soiling = lazy_module("perfcheck.detect.soiling")
 tracker = lazy_module("perfcheck.detect.tracker")
+
+# The aligned columns (perfcheck.align.ALIGNED_COLUMNS) that the detectors read
+# (:func:`perfcheck.detect.common.wide`, the site series of :func:`analyse`).
+COLUMNS = (
+    "ts", "inverter_id", "interval_s", "measured_ac_w", "expected_ac_w", "potential_ac_w",
+    "poa_wm2", "poa_modelled_wm2", "poa_source", "ghi_wm2", "clearsky_ghi_wm2", "temp_air_c",
+    "wind_speed_ms", "temp_module_c", "temp_cell_c", "rain_mm", "sun_zenith_deg",
+    "sun_azimuth_deg", "flags", "expected_ac_modelled_w", "potential_ac_modelled_w",
+    "poa_sensor_wm2",
+)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -156,7 +172,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
-    heat, wind = _module_heat_and_wind(df, site, w0)
+    temps = _site_series(df, HEAT_COLUMNS, w0)
     reading = _site_series(df, ("poa_sensor_wm2",), w0)[0]
     del df  # the caller's rows are the one copy left (analysis.update keeps none)
     planes = _planes(site, w0)
@@ -167,6 +183,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     shifts = clock.find(w0, cs[w0.inverters], lg, alpha=st.alpha,
                         min_offset_min=st.clock_min_offset_min)
     w1 = clock.corrected(w0, shifts, lg, site, weather)
+    heat, wind = _module_heat_and_wind(temps, site, w0, shifts, lg)
+    del temps
     events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
     t = lap("clock", t)
     suspects = sensor.find(w1, clear, cs, alpha=st.alpha, heat=heat, reading=reading,
@@ -251,7 +269,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     t = lap("baseline", t)
     ledger, under = attribution.build(
         w, events, {"outage": out_mask, "clipping": clip_mask, "curtailment": curt_mask},
-        prints, design, flagged, rel_sigma, _absolute_rel(site))
+        prints, design, flagged, rel_sigma, _absolute_rel(site), repaired)
     events += under
     lap("attribution", t)
     model = {
@@ -300,13 +318,21 @@ def _sensor_shares(site: Site) -> pd.Series | None:
                       / i.dc_kwp for i in site.inverters}, dtype=float)
 
 
-def _module_heat_and_wind(df: pd.DataFrame, site: Site, w: Wide
+# the site columns the module-temperature reference is built from (the wind last)
+HEAT_COLUMNS = ("temp_module_c", "temp_air_c", "wind_speed_ms")
+
+
+def _module_heat_and_wind(series: list[pd.Series | None], site: Site, w: Wide,
+                          shifts: list[clock.Shift], lg: clock.Loggers
                           ) -> tuple[pd.Series | None, pd.Series | None]:
     """The irradiance [W/m^2] the logged module temperature implies (SAPM eq. 11 with the
     coefficients of the array carrying the sensor), None without a module temperature; and
-    the logged wind speed [m/s] (None without one). The temperatures are released here: the
-    detectors keep these two series alone."""
-    series = _site_series(df, ("temp_module_c", "temp_air_c", "wind_speed_ms"), w)
+    the logged wind speed [m/s] (None without one). ``series`` are the site columns of
+    :data:`HEAT_COLUMNS`, each moved back by the clock shifts of its logger as the wide series
+    are (:func:`perfcheck.detect.clock.moved_back`): a reference on a shifted clock would
+    step against the corrected sensor."""
+    series = [clock.moved_back(x, w, shifts, lg.weather.get(WEATHER[c]))
+              for x, c in zip(series, HEAT_COLUMNS, strict=True)]
     wind = series[-1]
     if any(x is None or x.notna().sum() == 0 for x in series):
         return None, wind

@@ -151,8 +151,8 @@ def _window_rows(index: pd.DatetimeIndex, ev: Event) -> slice:
 
 def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
           prints: list[Footprint], design: dict[int, pd.DataFrame], flagged: list[Flagged],
-          rel_sigma: float, absolute_rel: tuple[float, float] = (0.0, 0.0)
-          ) -> tuple[Ledger, list[Event]]:
+          rel_sigma: float, absolute_rel: tuple[float, float] = (0.0, 0.0),
+          repaired: np.ndarray | None = None) -> tuple[Ledger, list[Event]]:
     """The ledger of the corrected series ``w`` and the ``underperformance`` events.
 
     Parameters
@@ -169,6 +169,9 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
         where it comes from the plane-of-array sensor and where from modelled irradiance
         [-]: an event with too few days around to read a local level is counted against the
         expected power itself, whose irradiance calibration then no longer cancels
+    repaired : per interval, inside a window whose data a correction rebuilt (sensor, clock):
+        the expected power there carries the repair's error, not the array's level, so the
+        underperformance test judges no level on it (as the other slow statistics)
     """
     cols = w.inverters
     col_pos = {c: i for i, c in enumerate(cols)}
@@ -284,8 +287,9 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
             d = design[id(ev)].reindex(columns=cols).fillna(0.0).to_numpy(dtype=float)
             _add(led, ev, d != 0, d)
     residual = np.where(free, gap - explained, 0.0)
+    judged = free if repaired is None else free & ~repaired[:, None]
     under = _underperformance(w, led, residual, np.where(free, led.expected_w, 0.0), flagged,
-                              rel_sigma, col_pos, free)
+                              rel_sigma, col_pos, free, judged)
     return led, under
 
 
@@ -454,10 +458,10 @@ def _add(led: Ledger, ev: Event, sel: np.ndarray, power: np.ndarray) -> None:
 
 def _underperformance(w: Wide, led: Ledger, residual: np.ndarray, expected: np.ndarray,
                       flagged: list[Flagged], rel_sigma: float, col_pos: dict[str, int],
-                      free: np.ndarray) -> list[Event]:
+                      free: np.ndarray, judged: np.ndarray) -> list[Event]:
     days = w.day.to_numpy()
     step = led.interval_s
-    levels = remaining_levels(w, residual, expected) if flagged else {}
+    levels = remaining_levels(w, residual, np.where(judged, expected, np.nan)) if flagged else {}
     sigmas = {inv: long_run_sigma(x.to_numpy())[0] for inv, x in levels.items()}
     out = []
     for f in flagged:

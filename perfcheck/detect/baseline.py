@@ -262,9 +262,9 @@ def remaining_levels(w: Wide, shortfall_w: np.ndarray, expected_w: np.ndarray
     """Per inverter, the daily relative level of what the detectors leave unexplained
     (``shortfall_w``: expected less measured less the losses found [W], per interval and
     inverter) on the intervals of measurable light (plane-of-array irradiance at least
-    :data:`MEASURABLE_WM2`: a dim day's model error is no level of
-    the array), less its siblings' (:func:`_relative`) and centred at its median: the series
-    :func:`shift_z` judges."""
+    :data:`MEASURABLE_WM2`: a dim day's model error is no level of the array) where
+    ``expected_w`` is finite (NaN: no level judged there), less its siblings'
+    (:func:`_relative`) and centred at its median: the series :func:`shift_z` judges."""
     lit = (w.poa[w.inverters].to_numpy() >= MEASURABLE_WM2) & np.isfinite(expected_w)
     step = np.where(lit, w.interval_s.to_numpy()[:, None] / 3.6e6, 0.0)
     days = w.day.to_numpy()

@@ -107,6 +107,25 @@ def loggers(site: Site) -> Loggers:
                     if QUANTITIES[c.quantity][0] in model.WEATHER})
 
 
+def moved_back(x: pd.Series | None, w: Wide, shifts: list[Shift], logger: str | None
+               ) -> pd.Series | None:
+    """A series on the rows of ``w`` derived from the channels of ``logger`` moved back by
+    each shift of that logger inside its window, as :func:`corrected` moves the channels of
+    the wide series (None and a series of another logger as they are)."""
+    if x is None or logger is None:
+        return x
+    step = float(np.median(w.interval_s))
+    out = x
+    for s in shifts:
+        n = int(round(s.offset_min * 60 / step))
+        if s.logger != logger or n == 0:
+            continue
+        inside = (w.index >= s.start) & (w.index < s.end)
+        out = out.copy() if out is x else out
+        out.loc[inside] = x.shift(-n).to_numpy()[inside]
+    return out
+
+
 def follows(w: Wide, lg: Loggers, logger: str) -> tuple[list[str], bool]:
     """Which expected series are built from readings that ``logger`` records: the inverters
     whose expected power follows a sensor on it (the POA sensor drives

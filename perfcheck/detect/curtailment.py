@@ -185,12 +185,16 @@ def _held_by_chance(tot_m: np.ndarray, tot_e: np.ndarray, up: np.ndarray, a: int
     return float(min(1.0, per_day * np.prod((hits + 0.5) / (len(ref) + 1))))
 
 
-def _local(x: np.ndarray, index: pd.DatetimeIndex) -> np.ndarray:
+def _local(x: np.ndarray, index: pd.DatetimeIndex, days: np.ndarray) -> np.ndarray:
     """Per interval, the median of ``x`` (NaN left out) over the :data:`LOCAL` window centred
     on it (at least three values; for a 2-D ``x`` per column): the level of the hours around
-    it."""
-    return pd.DataFrame(x, index=index).rolling(LOCAL, center=True, min_periods=3).median(
-    ).to_numpy().reshape(np.shape(x))
+    it; where those hours have fewer (a limit held for hours, or the plant down for part of
+    the day), the median of its site-local day (again at least three values)."""
+    frame = pd.DataFrame(x, index=index)
+    near = frame.rolling(LOCAL, center=True, min_periods=3).median()
+    by_day = frame.groupby(days)
+    whole = by_day.transform("median").where(by_day.transform("count") >= 3)
+    return near.fillna(whole).to_numpy().reshape(np.shape(x))
 
 
 def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep: np.ndarray,
@@ -244,11 +248,11 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
         up = np.isfinite(plant) & (level > 0.05) & (exp_level > 0.05)
         for c in centres:
             at = np.abs(level - c) <= HOLD * c
-            local = _local(np.where(up & ~at, plant, np.nan), index)
+            local = _local(np.where(up & ~at, plant, np.nan), index, days)
             would = local * exp_level
             above = up & (would >= c * (1 + tol)) & ~done
             sits = above & at
-            drop = ratio / _local(np.where(at[:, None], np.nan, ratio), index)
+            drop = ratio / _local(np.where(at[:, None], np.nan, ratio), index, days)
             for _, today in day_rows(days, sits):
                 # the day's own drops (measured/expected over that of the hours around) off
                 # the level: how often each interval that could lie above it lands on it

@@ -10,8 +10,12 @@ air masses up to about 5 and some modules' fall to zero near sunrise; from memor
 healthy plant may produce nothing while the model expects a tenth of its rating (common
 practice, as in the sun-elevation filters of performance-ratio analyses).
 A judged interval is *out* when the measured power is below ``near_zero`` of the expected
-power; with normal operation at a ratio near 1 (spread a few %), a ratio under 0.05 is many
-standard deviations away, so a false alarm from noise is practically impossible. A run of out
+power and the inverter produced nothing (under 1 % of its rating); with normal operation at a
+ratio near 1 (spread a few %), a ratio under 0.05 is many standard deviations away, so a false
+alarm from noise is practically impossible. An inverter that delivers more than that while
+under ``near_zero`` of the expected power runs with its modules turned from the sun (a
+stalled or stowed tracker in low sun sees the diffuse light alone) or some other cause the
+model does not know: not an outage, and the interval is not judged. A run of out
 intervals may bridge the night and unjudged low-light intervals, never a producing one, and
 is widened to the neighbouring low-light intervals where the inverter produced nothing, so
 start and end sit on the interval; an inverter's run is widened over the night to a whole
@@ -31,9 +35,9 @@ import pandas as pd
 
 from perfcheck.detect.common import Event, Wide, energy_band, runs, scope_of
 
-METHOD = ("interval state: measured/expected below 5 % with at least 10 % of rating expected "
-          "and the sun above 10 deg; siblings producing (inverter) or all stopped (plant); "
-          "common practice")
+METHOD = ("interval state: measured/expected below 5 % and measured below 1 % of rating, with "
+          "at least 10 % of rating expected and the sun above 10 deg; siblings producing "
+          "(inverter) or all stopped (plant); common practice")
 
 
 def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
@@ -41,15 +45,17 @@ def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
     """Per interval and inverter: 1 out, 0 producing, -1 not judged; and 'produced nothing'.
 
     Returns ``(state, nothing)``; ``nothing`` marks intervals with expected > 0 where the
-    inverter's measured power is below 1 % of its rating (used to widen a run).
+    inverter's measured power is below 1 % of its rating (an out interval is one of them;
+    used to widen a run too).
     """
     e, m = w.expected, w.measured
     high = (w.zenith <= 90.0 - min_elevation_deg).to_numpy()[:, None]
     judged = e.ge(w.ac_w * min_expected_share, axis=1) & m.notna() & high
     ratio = m / e
-    state = pd.DataFrame(-1, index=e.index, columns=e.columns, dtype=np.int8)
-    state = state.mask(judged & (ratio >= near_zero), 0).mask(judged & (ratio < near_zero), 1)
     nothing = (e > 0) & m.le(w.ac_w * 0.01, axis=1)
+    state = pd.DataFrame(-1, index=e.index, columns=e.columns, dtype=np.int8)
+    state = state.mask(judged & (ratio >= near_zero), 0).mask(
+        judged & (ratio < near_zero) & nothing, 1)
     return state, nothing
 
 
