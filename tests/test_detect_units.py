@@ -66,6 +66,17 @@ def test_soiling_recovery_must_give_back_the_decline():
         assert soiling._restored(1.0, before, after, 0.005, 1e-3) is want
 
 
+def test_soiling_decline_must_show_on_the_days_from_its_onset():
+    # invented truth (issue 11): daily scale 0.5 %; 30 days losing 0.3 %/day is a decline
+    # (True); 20 clean days then two dull days read 12 % low (the model's error on little
+    # light, no loss) is none (False), whatever the widening for autocorrelation
+    rng = np.random.default_rng(3)
+    x = np.arange(30.0)
+    assert soiling._declines_after(1 - 0.003 * x + rng.normal(0, 0.005, 30), x, 1.5)
+    y = np.r_[1 + rng.normal(0, 0.005, 20), 0.88, 0.89]
+    assert not soiling._declines_after(y, np.arange(22.0), 1.0)
+
+
 def test_ageing_removed_flattens_a_year_on_year_trend():
     # invented truth: an index falling 1 %/yr for two years, one inverter, no noise; the
     # year-on-year median is exactly -1 %, so the index divided by (1 - 0.01)^years is flat
@@ -293,6 +304,34 @@ def test_partial_string_changes_stay_apart():
     assert partial.merge_within(x, segs, segs[0], 0.1) == segs
     near = [Segment(0, 10, 0.0), Segment(10, 20, -0.01)]
     assert partial.merge_within(x, near, near[0], 0.1) == near
+
+
+def test_partial_noisy_days_inside_a_lost_string_are_joined():
+    # invented truth: one string of 6 lost (log(5/6)) for 20 days, its last 6 days few-interval
+    # winter days, their noise 0.1 and their level 12 % lower still by chance; the rest
+    # 1 % noise. The two pieces differ by less than a string's share (1/6) and Welch's test
+    # (Welch 1947) on their own days cannot tell them apart at alpha 1e-3: one segment. A
+    # lost string seen on three days beside a long segment lower by 1.6 strings of 12 stays
+    # apart, however few its days
+    rng = np.random.default_rng(11)
+    lost = np.log(5 / 6)
+    x = np.r_[rng.normal(lost, 0.01, 14), rng.normal(lost - 0.13, 0.1, 6)]
+    segs = [Segment(0, 14, float(x[:14].mean())), Segment(14, 20, float(x[14:].mean()))]
+    ref = Segment(20, 40, 0.0)
+    joined = partial.merge_within(x, [*segs, ref], ref, 0.5 / 6, alpha=1e-3)
+    assert [(g.start, g.stop) for g in joined] == [(0, 20), (20, 40)]
+    assert partial.merge_within(x, [*segs, ref], ref, 0.5 / 6) == [*segs, ref]  # no alpha
+    y = np.r_[np.full(3, np.log(0.83)) + rng.normal(0, 0.01, 3), rng.normal(np.log(0.95), 0.03,
+                                                                          169)]
+    apart = [Segment(0, 3, float(y[:3].mean())), Segment(3, 172, float(y[3:].mean()))]
+    top = Segment(172, 200, 0.0)
+    assert partial.merge_within(y, [*apart, top], top, 0.5 / 12, alpha=1e-3) == [*apart, top]
+    # three healthy days (1 % below the reference: no string lost) before a lost string of 7,
+    # 13 % below: under a string's share apart, but a healthy level is never joined to a fault
+    h = np.r_[rng.normal(-0.01, 0.01, 3), rng.normal(np.log(1 - 0.13), 0.01, 25)]
+    pieces = [Segment(0, 3, float(h[:3].mean())), Segment(3, 28, float(h[3:].mean()))]
+    top = Segment(28, 60, 0.0)
+    assert partial.merge_within(h, [*pieces, top], top, 0.5 / 7, alpha=1e-3) == [*pieces, top]
 
 
 def _held_day(rng: np.random.Generator, level: float, peak: float, sd: float

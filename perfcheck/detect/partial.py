@@ -8,8 +8,9 @@ that touches only part of the day; dividing by the siblings removes what all arr
 (weather-model error, soiling, degradation). Changes of the mean of the log daily value are
 located by binary segmentation with a significance test at each split
 (:func:`perfcheck.detect.common.change_points`), and neighbouring segments below the reference
-level that differ by less than half a string's share are joined (:func:`merge_within`: no
-string changed between them); a segment whose level is below the reference level (the highest
+level that differ by less than half a string's share, or by less than a whole string's that
+their own days cannot tell apart (Welch), are joined (:func:`merge_within`: no string changed
+between them); a segment whose level is below the reference level (the highest
 of the long segments: at least twice ``min_days`` and a fifth of the longest) by a Student
 t-test p-value below ``alpha`` and by at least half a string's share of the DC power, and below
 the days next to it (those the share is measured against, below) by a Student t-test p-value
@@ -28,6 +29,10 @@ the model's error over weeks, :data:`perfcheck.detect.common.MODEL_FLOOR`) at tw
 ``alpha``: a run of dim, diffuse days on which the model errs for one plane (low-light
 efficiency, the sky's brightness by tilt and azimuth, which the siblings do not share) takes
 some share, not a string's.
+
+The share's band carries, beside the days' error (autocorrelated), the model's error over
+weeks (:data:`perfcheck.detect.common.MODEL_FLOOR`) and the distance between the share and
+the whole strings' share (rectangular).
 
 The false-alarm rate per inverter and series is bounded by about ``alpha`` per split tested
 (Bonferroni), default 1e-3.
@@ -126,7 +131,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
         xr = x[ref.start:ref.stop]
         own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
         n_str = max(1, strings.get(inv, 1))
-        merged = merge_within(x, segs, ref, 0.5 / n_str)
+        merged = merge_within(x, segs, ref, 0.5 / n_str, alpha)
         # the days' autocorrelation, read on the long reference segment (a few days next to
         # a fault are too few to estimate it)
         _, phi = long_run_sigma(xr)
@@ -193,6 +198,13 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             if abs(share - k / n_str) > stats.norm.isf(alpha / 2) * math.hypot(
                     se, MODEL_FLOOR) * (1 - share):
                 continue
+            # the share's error for its band: the days' (above), the model's over weeks
+            # (MODEL_FLOOR: no model tracks a plane's ratio better over the weeks between
+            # the fault and the days next to it), and the whole strings' share as a value the
+            # share may take (rectangular of half-width the distance to it, JCGM 100:2008,
+            # 4.3.7): the strings are taken as alike, which the site file does not promise
+            to_whole = math.log((1 - k / n_str) / (1 - share)) if k < n_str else 0.0
+            se = math.sqrt(se ** 2 + MODEL_FLOOR ** 2 + to_whole ** 2 / 3)
             share_lo = 1 - math.exp(float(np.mean(xs)) - base + 1.96 * se)
             share_hi = 1 - math.exp(float(np.mean(xs)) - base - 1.96 * se)
             exp = w.expected[inv].to_numpy()[lo:hi]
@@ -247,26 +259,49 @@ def _mean_var(x: np.ndarray, phi: float) -> float:
     return float(np.var(x, ddof=1)) * ar1_mean_factor(len(x), phi) / len(x)
 
 
-def merge_within(x: np.ndarray, segs: list[Segment], ref: Segment, step: float
-                 ) -> list[Segment]:
+def merge_within(x: np.ndarray, segs: list[Segment], ref: Segment, step: float,
+                 alpha: float | None = None) -> list[Segment]:
     """Neighbouring segments below ``ref`` whose levels differ by less than ``step`` (a share
-    of the power; half a string's) joined into one, its mean over the joined values.
+    of the power; half a string's), or (with ``alpha``) by less than ``2 step`` (a whole
+    string's) and not significantly at ``alpha`` by Welch's t test on their own days, joined
+    into one, its mean over the joined values.
 
     The segmentation's t test takes days as independent, so a slow drift of the ratio inside
     one fault (a shade that grows or wanes over the weeks of a lost string) splits it at
     shifts far smaller than a string; the pieces' inner edges are then no steps and each
     would fail the edge check. A change smaller than half a string's share is no change of
     the number of strings lost, so the pieces are one fault (``ref`` itself is never joined).
+    The segmentation also pools the days' noise over the series, while days with few usable
+    intervals (low winter sun) are far noisier than the rest: a run of them inside a fault is
+    cut off as a level of its own, off by up to a string's share. Between two segments that
+    each lie half a string or more below ``ref`` (both lost strings), a difference under a
+    whole string's share that their own days cannot tell, each with its own variance (Welch
+    1947), is no change of the strings lost either; a level within half a string of ``ref``
+    (no string lost) is never joined to a fault so, and a whole string's or more stays a
+    change however few its days (Welch's test leaves a fault seen on three days about two
+    degrees of freedom, and could never keep it apart at ``alpha``).
     """
     out: list[Segment] = []
     for g in segs:
         prev = out[-1] if out else None
         if (prev is not None and prev is not ref and g is not ref and prev.mean < ref.mean
-                and g.mean < ref.mean and abs(1 - math.exp(g.mean - prev.mean)) < step):
+                and g.mean < ref.mean and _same_strings(x, prev, g, ref, step, alpha)):
             out[-1] = Segment(prev.start, g.stop, float(np.mean(x[prev.start:g.stop])))
         else:
             out.append(g)
     return out
+
+
+def _same_strings(x: np.ndarray, a: Segment, b: Segment, ref: Segment, step: float,
+                  alpha: float | None) -> bool:
+    """Whether the neighbouring segments ``a`` and ``b`` hold the same strings lost, as
+    :func:`merge_within` judges it."""
+    shift = abs(1 - math.exp(b.mean - a.mean))
+    if shift < step:
+        return True
+    lost = min(1 - math.exp(g.mean - ref.mean) for g in (a, b))
+    return alpha is not None and shift < 2 * step and lost >= step and not stats.ttest_ind(
+        x[a.start:a.stop], x[b.start:b.stop], equal_var=False).pvalue < alpha
 
 
 def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Timestamp,

@@ -13,9 +13,10 @@ cause: rain and a cleaning look alike in the index. Between two recoveries the i
 by a Theil-Sen line; an interval whose slope is negative with Kendall's test p-value below
 ``alpha`` (or whose days from the onset of a hinge fit decline so, at ``alpha`` over the days
 the onset could be: a late decline in a long interval, :func:`declining`), ended by a
-recovery that gives back at least half of its decline (:func:`_restored`), is a soiling
-interval; the interval still open at the end of the data counts when it declines like the
-confirmed ones (:func:`_like`). Soiling may start some days after the recovery (a grace
+recovery that gives back at least half of its decline (:func:`_restored`), with its days
+from the onset declining themselves (:func:`_declines_after`), is a soiling interval; the
+interval still open at the end of the data counts when it declines like the confirmed ones
+(:func:`_like`). Soiling may start some days after the recovery (a grace
 period, as in Kimber et al. 2006): the onset is the hinge of the weighted least-squares fit of a
 level followed by a linear decline. Its soiling ratio is that fit over the clean level: the
 plateau before the onset where there is one, else the rolling median of the index outside the
@@ -253,6 +254,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     fits = []
     insolation = insolation.to_numpy()
     sigma = robust_sigma(np.log(idx.dropna().to_numpy()))
+    rate_widen = float(np.sqrt(ar1_factor(idx)))
     for a, b in zip(bounds[:-1], bounds[1:], strict=True):
         sel = (days >= a) & (days < b)
         y = idx.to_numpy()[sel]
@@ -261,7 +263,9 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
         f = declining(y, x_all[sel], insolation[sel], alpha)
         if f is None:
             continue
-        line = _hinge(x_all[sel] + 0.5, y, insolation[sel])[0]
+        line, onset, _x0 = _hinge(x_all[sel] + 0.5, y, insolation[sel])
+        if not _declines_after(y[onset:], x_all[sel][onset:], rate_widen):
+            continue
         before = idx[sel].dropna().iloc[-min_days:].to_numpy()
         after = idx[(days >= b)].dropna().iloc[:min_days].to_numpy()
         if _restored(line[0], before, after, sigma, alpha) or (
@@ -292,7 +296,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     groups = _extend(idx, fits, ratio, rec_at, rain_daily, soiling, alpha,
                      exp_daily.reindex(days).fillna(0.0).to_numpy())
     events, prints = _episodes(w, groups, ratio, rec_at, rel_sigma, exp_daily,
-                               level_error(idx), float(np.sqrt(ar1_factor(idx))))
+                               level_error(idx), rate_widen)
     return events, prints, ratio
 
 
@@ -314,6 +318,18 @@ def declining(y: np.ndarray, x: np.ndarray, weight: np.ndarray, alpha: float
     post = mann_kendall_slope(y[onset:], x[onset:])
     post["p_value"] = min(1.0, post["p_value"] * int(np.isfinite(y).sum()))
     return post if post["slope"] < 0 and post["p_value"] / 2 < alpha else None
+
+
+def _declines_after(y: np.ndarray, x: np.ndarray, widen: float) -> bool:
+    """Whether the days from an interval's onset (``y`` on days ``x``), the decline its soiling
+    ratio is drawn from, decline themselves: the upper end of their Theil-Sen slope's 95 %
+    interval (Sen 1968), widened by ``widen`` for days in a row that share their error
+    (:func:`ar1_factor`), below zero. A long interval can pass Kendall's test on the model's
+    seasonal error (its days drift for months) while the hinge puts the loss in a few dull
+    days at its end; those do not measure a loss. One-sided 2.5 % on top of the test that found
+    the interval."""
+    f = mann_kendall_slope(y, x)
+    return bool(f["slope"] + widen * (f["high"] - f["slope"]) < 0)
 
 
 def _restored(clean: float, before: np.ndarray, after: np.ndarray, sigma: float,
