@@ -121,3 +121,14 @@ def test_clear_day_start_is_the_first_day_the_region_passes_the_share():
     assert start == pd.Timestamp("2024-03-03", tz="UTC")
     assert shading._clear_day_start(w, region, np.full(96, 800.0), est, level_e, region,
                                     0.07) is None
+
+
+def test_sibling_growth_dismisses_a_bin_only_when_as_large():
+    # derived from the definition (common practice: a one-sided z test of a difference):
+    # growth 0.40/yr (se 0.05) against a flat sibling (se 0.05) gives z = 0.40 / 0.0707 = 5.7,
+    # p = 8e-9, beyond; against a sibling growing 0.35/yr, z = 0.71, p = 0.24, not beyond
+    res = {"growth_per_year": 0.40, "se": 0.05}
+    assert shading._beyond(res, None, 0.001)
+    assert shading._beyond(res, {"growth_per_year": 0.0, "se": 0.05}, 0.001)
+    assert not shading._beyond(res, {"growth_per_year": 0.35, "se": 0.05}, 0.001)
+    assert shading._beyond(res, {"growth_per_year": 0.0, "se": float("nan")}, 0.001)

@@ -15,8 +15,14 @@ bin's days span four months or more, HC3 otherwise): the sun crosses a bin elsew
 other seasons, and the model's error at low sun or at a grazing angle changes across a bin,
 which a trend alone takes as growth. A bin whose one-sided p-value is below ``alpha``
 divided by the number of bins tested (Bonferroni) and whose growth is at least
-``min_deficit`` per year is shaded by a growing obstruction; its neighbouring bins join at
-the plain level ``alpha`` (an obstruction is one connected piece).
+``min_deficit`` per year is shaded by a growing obstruction, unless a sibling inverter of the
+plant shows as much growth in the same bin (one-sided z test of the difference of the two
+growths, level ``alpha``; without a sibling, or where the sibling has no test of the bin, the
+bin stands): the model's error at low sun and a change of the sky through the seasons (the
+irradiance sensor's or the weather's) reach every inverter, an obstruction of a few rows
+one; the price is a bin of a single obstruction that shades the whole plant, which this
+step cannot tell from the sky. Its neighbouring bins join at the plain level ``alpha`` (an
+obstruction is one connected piece).
 
 Region. A bin is too coarse for the energy: the obstruction's top crosses it over months.
 Each clear interval is labelled shaded when its deficit exceeds the clear-sky noise at its
@@ -152,12 +158,14 @@ def _bin_test(t: np.ndarray, d: np.ndarray, dayno: np.ndarray, where: np.ndarray
         if len(delta) < min_pairs:
             return None
         return {"test": "year-on-year pairs, one-sided t", "growth_per_year": float(
-            np.mean(delta)), "p_value": _growth_p(delta), "pairs": int(len(delta))}
+            np.mean(delta)), "se": float(np.std(delta, ddof=1) / np.sqrt(len(delta))),
+                "p_value": _growth_p(delta), "pairs": int(len(delta))}
     if np.ptp(t) < 0.25:
         return None
-    slope, _, p = _bin_trend(t, d, where, dayno // 30)
+    slope, se, p = _bin_trend(t, d, where, dayno // 30)
     return {"test": "OLS trend given the sun's place in the bin, clustered by month, "
-                    "one-sided", "growth_per_year": slope, "p_value": p, "pairs": int(len(d))}
+                    "one-sided", "growth_per_year": slope, "se": se, "p_value": p,
+            "pairs": int(len(d))}
 
 
 def _bin_tests(daily: pd.DataFrame, min_days: int
@@ -182,6 +190,25 @@ def _bin_tests(daily: pd.DataFrame, min_days: int
             tested[key] = _bin_test(cols["t"][lo:hi], cols["d"][lo:hi], cols["dayno"][lo:hi],
                                     np.asfortranarray(where[lo:hi]))
     return tested, days_in
+
+
+def _beyond(res: dict, sibling: dict | None, alpha: float) -> bool:
+    """Whether a bin's growth (``res``: :func:`_bin_test`) exceeds a sibling inverter's in
+    the same bin (``sibling``; True without one): one-sided z test of the difference of the
+    two growths over the root sum of squares of their standard errors, level ``alpha``. The
+    two estimates share the sky, so their errors are positively correlated and the root sum
+    of squares overstates the difference's error: the test dismisses a bin more readily than
+    its level says (conservative towards no finding), never less.
+
+    References
+    ----------
+    Two-sample z test of a difference of independent estimates (common practice).
+    """
+    if sibling is None or not np.isfinite(sibling["se"]):
+        return True
+    z = (res["growth_per_year"] - sibling["growth_per_year"]) / np.hypot(res["se"],
+                                                                         sibling["se"])
+    return bool(stats.norm.sf(z) < alpha)
 
 
 def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, tuple],
@@ -225,6 +252,7 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
     prints: list[Footprint] = []
     shaded_mask = pd.DataFrame(False, index=w.index, columns=w.inverters)
     step = w.interval_s.to_numpy()
+    bins: dict[str, tuple[dict, dict]] = {}  # per inverter: its bins' tests, days per bin
     for inv in w.inverters:
         d = dfc[inv].to_numpy()
         ok = np.isfinite(d) & clear_c[inv].to_numpy() & (elev_c > 0)
@@ -235,10 +263,17 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
             t=("t", "mean"), d=("d", "mean"), elv=("elv", "mean"), azv=("azv", "mean")
         ).reset_index()
         tested, days_in = _bin_tests(daily, min_days)
-        tested = {k: v for k, v in tested.items() if v is not None}
+        bins[inv] = ({k: v for k, v in tested.items() if v is not None}, days_in)
+    for inv in w.inverters:
+        tested, days_in = bins[inv]
         n_tests = max(1, len(tested))
+        # growth that a sibling inverter shows as much of in the same bin is the sky's or the
+        # model's, not an obstruction of this inverter's (:func:`_beyond`)
+        common = {k for other in w.inverters if other != inv
+                  for k, res in tested.items() if not _beyond(res, bins[other][0].get(k), alpha)}
         keys = {k for k, res in tested.items()
-                if res["p_value"] < alpha / n_tests and res["growth_per_year"] >= min_deficit}
+                if res["p_value"] < alpha / n_tests and res["growth_per_year"] >= min_deficit
+                and k not in common}
         # an obstruction is one piece: neighbours of a shaded bin join at the plain level
         grown = True
         while grown and keys:
