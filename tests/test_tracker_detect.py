@@ -3,6 +3,8 @@ whose truth is stated here (tests/detect_synth.py), and its statistic on known a
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pandas as pd
 import pvlib
@@ -224,3 +226,33 @@ def test_a_day_most_inverters_show_a_shape_on_is_shared() -> None:
     shaped = {"A": np.array([d1, d2]), "B": np.array([d1]), "C": np.array([], dtype=d1.dtype)}
     tracker._drop_shared(seeds, shaped)
     assert seeds["A"] == {d2: ("stall", 10.0)}
+
+
+def test_held_rows_take_the_models_incidence_losses() -> None:
+    # reference library: pvlib's Hay & Davies sky diffuse (return_components), ASHRAE beam
+    # modifier (Souka & Safwat 1966, b0 0.05) and Marion's integrated diffuse modifiers
+    # (Marion 2017) of the rows held 45 deg to the east at 4 pm with the sun in the south-west:
+    # the stall's share is judged on the effective irradiance the model's expected power
+    # comes from, beam near grazing incidence taking the modifier's loss
+    site = make_site(1, tracker=TRACKER)
+    array = site.inverters[0].arrays[0]
+    chain = dataclasses.replace(site.model, transposition="haydavies", iam="ashrae")
+    zen, az = np.array([70.0, 40.0]), np.array([245.0, 180.0])
+    dni, dhi = np.array([600.0, 850.0]), np.array([120.0, 110.0])
+    ghi = dni * np.cos(np.radians(zen)) + dhi
+    extra = np.full(2, 1361.0)
+    s = tracker.Sky(zen, az, ghi, dni, dhi, extra)
+    plane = pvlib.tracking.calc_surface_orientation(-45.0, 0.0, 180.0)
+    tilt, azimuth = float(np.ravel(plane["surface_tilt"])[0]), float(
+        np.ravel(plane["surface_azimuth"])[0])
+    aoi = pvlib.irradiance.aoi(tilt, azimuth, zen, az)
+    sky = pvlib.irradiance.haydavies(tilt, azimuth, dhi, dni, extra, zen, az,
+                                     return_components=True)
+    k_d = pvlib.iam.marion_diffuse("ashrae", tilt)
+    beam = dni * np.clip(np.cos(np.radians(aoi)), 0.0, None)
+    ground = pvlib.irradiance.get_ground_diffuse(tilt, ghi, array.albedo)
+    want = ((beam + np.asarray(sky["poa_circumsolar"])) * pvlib.iam.ashrae(aoi)
+            + np.asarray(sky["poa_isotropic"]) * k_d["sky"] + ground * k_d["ground"])
+    np.testing.assert_allclose(tracker.plane_poa(-45.0, array, s, chain), want, rtol=1e-6)
+    # without the chain, the global irradiance of the plane (Hay & Davies, no modifier)
+    assert (tracker.plane_poa(-45.0, array, s) > want).all()

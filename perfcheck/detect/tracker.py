@@ -44,10 +44,15 @@ out-of-step day, and a day on which it followed the design within the tolerance 
 or out-of-step day of that inverter, whatever the power's shape.
 
 The energy is a share of the expected power (ledger class ``share``): 1 - r of the event's
-angle, interval by interval (for rows out of step, whose loss is mostly a level, scaled to the
-shortfall measured against the inverter's usual performance index); its band adds to the
-model error the difference between the shape's share and that measured shortfall, and the
-share of the onset and end days left outside the event.
+angle, interval by interval, r here the model's own effective irradiance of the held (or
+turned) plane over the tracked one (its transposition and incidence-angle losses: the expected
+power the share scales is the model's, and a held row takes its beam at angles the tracked
+rows never see); for rows out of step, whose loss is mostly a level, scaled to the shortfall
+measured against the inverter's usual performance index. Its band adds to the model error
+the difference between the shape's share and that measured shortfall, the share of the onset
+and end days left outside the event, and, where the share is scaled to the measured
+shortfall, that shortfall's error (the model's error of the level over the event's days,
+autocorrelation included: :func:`perfcheck.detect.common.local_level`).
 
 Wind stow: rows laid at their stow angle (``stow_angle_deg``, flat by default) while the wind
 is at or above the tracker array's ``stow_wind_speed_ms`` are designed behaviour. The limit is
@@ -83,12 +88,13 @@ from perfcheck.detect.common import (
     Footprint,
     Wide,
     energy_band,
+    local_level,
     scope_of,
 )
-from perfcheck.lazy import lazy_module
-from perfcheck.site import Array, Site
+from perfcheck.lazy import PVLIB_WITH_INIT, lazy_module, lazy_package
+from perfcheck.site import Array, Model, Site
 
-pvlib = lazy_module("pvlib")
+pvlib = lazy_package("pvlib", PVLIB_WITH_INIT)
 special = lazy_module("scipy.special")
 stats = lazy_module("scipy.stats")
 
@@ -154,14 +160,23 @@ def designed_rotation(w: Wide, array: Array) -> np.ndarray:
                          t.backtrack, array.gcr)["tracker_theta"].to_numpy(dtype=float)
 
 
-def plane_poa(rotation: float | np.ndarray, array: Array, s: Sky) -> np.ndarray:
-    """Irradiance of the array's rows at ``rotation`` [W/m^2]: the front's global irradiance,
-    and for bifacial modules the rear's at the bifaciality, as in the model's effective
-    irradiance (:func:`perfcheck.physics.bifacial_effective`). A row held facing away from the
-    sun takes much of its light on the rear: without it the shape of a stall is too deep."""
+def plane_poa(rotation: float | np.ndarray, array: Array, s: Sky,
+              chain: Model | None = None) -> np.ndarray:
+    """Irradiance of the array's rows at ``rotation`` [W/m^2]: the front's global irradiance
+    (Hay & Davies), or with the model's settings ``chain`` the front's effective irradiance as
+    the model takes it (its transposition, horizon and incidence-angle losses:
+    :func:`perfcheck.physics.poa_components`), and for bifacial modules the rear's at the
+    bifaciality, as in the model's effective irradiance
+    (:func:`perfcheck.physics.bifacial_effective`). A row held facing away from the sun takes
+    much of its light on the rear: without it the shape of a stall is too deep; and it takes
+    its beam at angles of incidence the tracked rows never see, where the glass reflects much
+    of it: without the model's losses there the stall's energy is too small."""
     t = array.tracker
-    front = ph.poa_at_rotation(rotation, t.axis_tilt_deg, t.axis_azimuth_deg, s.zenith,
-                               s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra, array.albedo)
+    if chain is None:
+        front = ph.poa_at_rotation(rotation, t.axis_tilt_deg, t.axis_azimuth_deg, s.zenith,
+                                   s.azimuth, s.ghi, s.dni, s.dhi, s.dni_extra, array.albedo)
+    else:
+        front = _effective_front(rotation, array, s, chain)
     if array.bifacial is None:
         return front
     plane = pvlib.tracking.calc_surface_orientation(rotation, t.axis_tilt_deg,
@@ -184,6 +199,34 @@ def plane_poa(rotation: float | np.ndarray, array: Array, s: Sky) -> np.ndarray:
                            ).to_numpy(dtype=float)
     both = ph.bifacial_effective(front, rear, array.bifacial.bifaciality)
     return np.where(up, both, 0.0)
+
+
+def _effective_front(rotation: float | np.ndarray, array: Array, s: Sky,
+                     chain: Model) -> np.ndarray:
+    """The front's effective irradiance of the rows at ``rotation`` [W/m^2], by the model's
+    chain (:func:`perfcheck.physics.poa_components`, air mass by Kasten & Young 1989 as in
+    :func:`perfcheck.physics.atmosphere`); 0 where the sun is down."""
+    t = array.tracker
+    plane = pvlib.tracking.calc_surface_orientation(rotation, t.axis_tilt_deg,
+                                                    t.axis_azimuth_deg)
+    up = s.zenith < 90.0
+    index = pd.RangeIndex(len(up))
+
+    def series(x: np.ndarray) -> pd.Series:
+        return pd.Series(np.asarray(x, dtype=float), index=index)
+
+    # one plane for all intervals (rows held at an angle) or one per interval
+    tilt, azimuth = (float(np.ravel(plane[k])[0]) if np.size(plane[k]) == 1
+                     else series(plane[k]) for k in ("surface_tilt", "surface_azimuth"))
+    zenith = np.where(up, s.zenith, 90.0)
+    solpos = pd.DataFrame({"apparent_zenith": zenith, "azimuth": s.azimuth,
+                           "apparent_elevation": 90.0 - zenith}, index=index)
+    airmass = pvlib.atmosphere.get_relative_airmass(solpos["apparent_zenith"],
+                                                    "kastenyoung1989")
+    out = ph.poa_components(tilt, azimuth, solpos, series(s.ghi), series(s.dni),
+                            series(s.dhi), series(s.dni_extra), airmass, array.albedo,
+                            array.horizon, chain.transposition, chain.iam)
+    return np.where(up, out["poa_effective"].fillna(0.0).to_numpy(dtype=float), 0.0)
 
 
 def log_ratio(poa: np.ndarray, tracked: np.ndarray) -> np.ndarray:
@@ -610,7 +653,8 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
             stowed = lab[0] == "stall" and abs(
                 lab[1] - arrays[inv].tracker.stow_angle_deg) <= ANGLE_TOLERANCE_DEG
             ev, fp = _event(w, inv, arrays[inv], s, theta, lab, (first_day, last_day), usable,
-                            y, rel_sigma, z, fits, days, alpha, shown=seen and not stowed)
+                            y, rel_sigma, z, fits, days, alpha, site.model,
+                            shown=seen and not stowed)
             if ev is not None:
                 events.append(ev)
                 prints.append(fp)
@@ -699,7 +743,7 @@ def _nearest(cand: Candidates, fam: str, val: float) -> int:
 def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[str, float],
            span: tuple[np.datetime64, np.datetime64], usable: pd.DataFrame, y_all: np.ndarray,
            rel_sigma: float, z: float, fits: DayFits, days: np.ndarray, alpha: float,
-           shown: bool = False) -> tuple[Event | None, Footprint | None]:
+           chain: Model, shown: bool = False) -> tuple[Event | None, Footprint | None]:
     """The event of one run of days, its energy from the run's angle (or offset); None when
     that energy lies within the model's error (one-sided ``z``), unless the angle channel
     ``shown`` the rows' angle: then the fault is seen, not inferred from the power's shape."""
@@ -715,8 +759,10 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     pi0 = float(np.sum(m[far]) / np.sum(e_all[far])) if far.any() else 1.0
     y = y_all[lo:hi]  # about the usual day shape, whose level is the usual one
     sk = _take(s, slice(lo, hi))
-    tracked = plane_poa(theta[lo:hi], a, sk)
-    held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk)
+    # the share from the model's own chain at the two planes: the expected power it scales
+    # is the model's (its transposition and its incidence-angle losses)
+    tracked = plane_poa(theta[lo:hi], a, sk, chain)
+    held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk, chain)
     lr = log_ratio(held, tracked)
     d = day[lo:hi]
     start = _split(y, lr, d == first, d == first - one, onset=True)
@@ -740,12 +786,21 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     inside = u[lo:hi] & np.isfinite(m[lo:hi])
     seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
     pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
+    spread = math.hypot(seen - pred, edge_kwh)
     if fam == "step" and seen > 0 and pred > 0:
         # an offset's loss is mostly a level, which the shape alone places poorly: its share
-        # is scaled to the shortfall measured against the usual performance index
+        # is scaled to the shortfall measured against the usual performance index, and takes
+        # that shortfall's error: the model's error of the level over the event's days
+        # against the days around them, autocorrelation included (:func:`local_level`)
         factor = np.clip(factor * seen / pred, 0.0, 1.0)
         e_kwh = float(np.sum(exp * factor * step) / 3.6e6)
-    low, high = energy_band(e_kwh, rel_sigma, math.hypot(seen - pred, edge_kwh))
+        on = np.where(u & np.isfinite(m), 1.0, np.nan)
+        daily = pd.Series(m * on).groupby(day).sum(min_count=1) / pd.Series(
+            np.nan_to_num(e_all) * on).groupby(day).sum(min_count=1)
+        _, rel = local_level(daily, pd.Timestamp(first), pd.Timestamp(last))
+        expected_in = float(np.sum((pi0 * exp)[inside] * step[inside]) / 3.6e6)
+        spread = math.hypot(spread, rel * expected_in)
+    low, high = energy_band(e_kwh, rel_sigma, spread)
     kind = "tracker_stall" if fam == "stall" else "tracker_out_of_step"
     in_run = (days >= first) & (days <= last)
     ev = Event(
