@@ -135,8 +135,9 @@ def model_weather(con: duckdb.DuckDBPyConnection
 
 
 def _measured_rows(con: duckdb.DuckDBPyConnection, site: Site) -> pd.DataFrame:
-    """The aligned rows of the whole history; DataError when none has a measured power."""
-    df = align.load_aligned(con, site)
+    """The aligned rows of the whole history, the columns the detectors read; DataError when
+    none has a measured power."""
+    df = align.load_aligned(con, site, columns=detect.COLUMNS)
     if df.empty or df["measured_ac_w"].notna().sum() == 0:
         raise DataError(f"{site.path}: no measured power in the aligned series; ingest logger "
                         "files with AC power and run 'perfcheck model' first")

@@ -175,14 +175,16 @@ def test_cli_model(tmp_path):
 
 def test_fetch_shared_equals_duckdb_df():
     # The pieces must give what DuckDB's own .df() gives (the reference: DuckDB's conversion),
-    # also where a whole piece of a column is NULL (DuckDB then hands over objects).
+    # also where a whole piece of a column is NULL (DuckDB then hands over objects) and where
+    # an integer column has NULLs in the last pieces only.
     con = duckdb.connect()
     query = ("SELECT i, CASE WHEN i >= 40000 THEN 'INV' || (i % 3) END AS inverter_id, "
-             "CASE WHEN i < 70000 THEN i / 7 END AS x, NULL::VARCHAR AS flags, "
+             "CASE WHEN i < 70000 THEN i / 7 END AS x, CASE WHEN i < 70000 THEN i END AS k, "
+             "NULL::VARCHAR AS flags, "
              "CASE WHEN i % 5 = 0 THEN 'sensor' END AS poa_source FROM range(80000) t(i)")
     expected = con.execute(query).df()
-    got = align.fetch_shared(con.execute(query))
+    got = align.fetch_shared(con.execute(query), 80000)
     pd.testing.assert_frame_equal(got, expected)
     ids = got["inverter_id"].dropna().to_numpy(dtype=object)
     assert len({id(v) for v in ids}) == 3  # one string object per distinct value
-    assert align.fetch_shared(con.execute(query + " WHERE i < 0")).empty
+    assert align.fetch_shared(con.execute(query + " WHERE i < 0"), 0).empty
