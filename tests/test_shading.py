@@ -132,3 +132,68 @@ def test_sibling_growth_dismisses_a_bin_only_when_as_large():
     assert shading._beyond(res, {"growth_per_year": 0.0, "se": 0.05}, 0.001)
     assert not shading._beyond(res, {"growth_per_year": 0.35, "se": 0.05}, 0.001)
     assert shading._beyond(res, {"growth_per_year": 0.0, "se": float("nan")}, 0.001)
+
+
+def _sky(rng: np.random.Generator, days: int = 200, sigma: float = 0.03):
+    """Clear intervals of an invented sky: azimuth columns 0-17, elevation bands 1-3 (5-20
+    deg), six intervals a day in every cell, deficits normal around 0 with ``sigma``."""
+    cols, bands = np.arange(18), np.arange(1, 4)
+    day_pos = np.repeat(np.arange(days), len(cols) * len(bands) * 6)
+    column = np.tile(np.repeat(cols, len(bands) * 6), days)
+    band = np.tile(np.repeat(bands, 6), days * len(cols))
+    elev = band * 5.0 + rng.uniform(0.0, 5.0, len(day_pos))
+    d = rng.normal(0.0, sigma, len(day_pos))
+    return day_pos, column, band, elev, d
+
+
+def test_grown_cells_are_the_raised_and_rising_ones():
+    # invented truth: in band 1 an obstruction reaches column 5 on day 100 (its beam lost,
+    # deficit 0.7 from then on); column 9 stands 0.3 above the rest on every day (the
+    # model's error there, steady); everything else is noise. Only column 5 is raised
+    # beyond the band's spread and rising (Kendall's tau one-sided, level 0.01); derived
+    # from the definitions (common practice)
+    rng = np.random.default_rng(11)
+    day_pos, column, band, _, d = _sky(rng)
+    d[(band == 1) & (column == 5) & (day_pos >= 100)] += 0.7
+    d[(band == 1) & (column == 9)] += 0.3
+    ref = np.ones(len(d), dtype=bool)
+    judged, grown = shading._grown_cells(d, band, column, day_pos, ref, 2.326, 0.01)
+    assert grown == [(1, 5)]
+    assert len(judged) == 18 * 3
+    # a cell seen on fewer than MIN_CELL intervals is not judged
+    ref[(band == 2) & (column == 3) & (day_pos >= 1)] = False
+    judged, _ = shading._grown_cells(d, band, column, day_pos, ref, 2.326, 0.01)
+    assert (2, 3) not in judged and len(judged) == 18 * 3 - 1
+
+
+def test_labels_keep_the_clear_sky_noise_beside_a_wide_obstruction():
+    # invented truth: clear-sky deficits normal with sigma 0.03 everywhere; a wide
+    # obstruction takes the beam (deficit +0.7) in band 1 of columns 8-16 from day 60, and
+    # only column 12 is a candidate (its neighbours 11 and 13 left out with it, as the
+    # detector does): six shaded cells lie in the reference sky, which would widen band 1's
+    # noise by four fifths (scaled MAD 0.054). Column 17 of band 1 is a cell the sun
+    # crosses on a single day at the sky's edge, shaded. The noise of band 1 must stay that
+    # of the clear sky: the scaled MAD of 1,800+ normal values has a relative standard
+    # error of about 2.8 % (1.67 / sqrt(2 n), Hampel 1974, from memory), so 15 % is more
+    # than five of them; the label rate of the clear sky at level 0.01 (threshold
+    # max(2.326 sigma, 0.05) = 0.07 above the centre: 1.0e-2 of a normal) stays within
+    # binomial chance of it
+    rng = np.random.default_rng(12)
+    day_pos, column, band, elev, d = _sky(rng)
+    shaded = (band == 1) & (column >= 8) & (column <= 16) & (day_pos >= 60)
+    d[shaded] += 0.7
+    edge = (band == 1) & (column == 17)
+    clear = ~edge | (day_pos == 150)
+    d[edge & (day_pos == 150)] += 0.7
+    outside = (column < 11) | (column > 13)
+    labels, noise = shading._shaded_labels(d, clear, outside, column, elev, day_pos, 10.0,
+                                           5.0, 0.01, 0.05)
+    band1 = next(b for b in noise["bands"] if b["elevation_from_deg"] == 5.0)
+    assert band1["sigma"] == pytest.approx(0.03, rel=0.15)
+    assert band1["median_deficit"] == pytest.approx(0.0, abs=0.01)
+    assert {c["azimuth_from_deg"] for c in noise["grown_cells"]} == {
+        80.0, 90.0, 100.0, 140.0, 150.0, 160.0}
+    assert labels[shaded].mean() > 0.99
+    free = clear & ~shaded & ~edge
+    # binomial: 0.01 of ~19,000 intervals is 190 +- 14; four standard errors
+    assert labels[free].mean() < 0.01 + 4 * np.sqrt(0.01 * 0.99 / free.sum())

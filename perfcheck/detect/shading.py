@@ -27,7 +27,9 @@ obstruction is one connected piece).
 Region. A bin is too coarse for the energy: the obstruction's top crosses it over months.
 Each clear interval is labelled shaded when its deficit exceeds the clear-sky noise at its
 sun elevation (median and scaled MAD per elevation band, from the sky outside the candidate
-columns) by the one-sided normal quantile of ``alpha``. Per azimuth column, the top of the
+columns, in the sky cells seen on enough intervals that the obstruction has not reached:
+raised beyond the band's spread of cells and rising with the days, Kendall's tau at
+``alpha``) by the one-sided normal quantile of ``alpha``. Per azimuth column, the top of the
 obstruction on each day is the never-falling step that disagrees with the fewest labels
 (dynamic programming); a column counts when, cross-fitted (the top fitted on even days
 judged on odd days' intervals under it, and back), its shaded labels beat the column's own
@@ -295,8 +297,8 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
         e_int = w.expected[inv].to_numpy()
         near = np.isin(column, sorted({a + k for a, _ in keys for k in (-1, 0, 1)}))
         d_out, _ = _interval_deficits(w, inv, use & ~near, days)
-        labels, noise = _shaded_labels(d_out, use & clear_all, ~near, elev, el_step, alpha,
-                                       min_deficit)
+        labels, noise = _shaded_labels(d_out, use & clear_all, ~near, column, elev, day_pos,
+                                       az_step, el_step, alpha, min_deficit)
         region = np.zeros(len(w.index), dtype=bool)
         highs: dict[int, np.ndarray] = {}  # per column the highest top that fits as well
         tops: dict[int, dict] = {}
@@ -394,25 +396,78 @@ def _interval_deficits(w: Wide, inv: str, ref: np.ndarray, days: np.ndarray
         return 1 - m / level_e, level_e
 
 
-def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray, elev: np.ndarray,
-                   el_step: float, alpha: float, min_deficit: float
+MIN_CELL = 10  # least clear intervals for a sky cell's own median (common practice)
+MIN_BAND = 30  # least clear intervals for a band's noise (common practice)
+
+
+def _grown_cells(d: np.ndarray, band: np.ndarray, column: np.ndarray, day_pos: np.ndarray,
+                 ref: np.ndarray, z: float, alpha: float
+                 ) -> tuple[pd.MultiIndex, list[tuple[int, int]]]:
+    """The sky cells (elevation ``band``, azimuth ``column``) with at least ``MIN_CELL``
+    ``ref`` intervals, and those of them that an obstruction has reached: the cell's median
+    deficit lies above its band's median of cell medians by more than ``z`` times their
+    spread (scaled MAD across the band's cells; one-sided: an obstruction only raises a
+    deficit), and the cell's daily mean deficits rise with the day (Kendall's tau,
+    one-sided, level ``alpha``). A cell raised but steady is the model's error at that place
+    in the sky, not an obstruction.
+
+    References
+    ----------
+    Median and scaled median absolute deviation (Hampel 1974, J. Amer. Statist. Assoc.
+    69:383); Kendall's rank correlation as a test of trend (Mann 1945, Econometrica 13:245;
+    Kendall 1938, Biometrika 30:81) (all from memory).
+    """
+    frame = pd.DataFrame({"band": band[ref], "col": column[ref], "d": d[ref],
+                          "day": day_pos[ref]})
+    g = frame.groupby(["band", "col"])["d"]
+    med = g.median()[g.size() >= MIN_CELL]
+    centre = med.groupby(level="band").transform("median")
+    spread = 1.4826 * (med - centre).abs().groupby(level="band").transform("median")
+    grown = []
+    for cell in med.index[(med - centre > z * spread).to_numpy()]:
+        sub = frame[(frame["band"] == cell[0]) & (frame["col"] == cell[1])]
+        daily = sub.groupby("day")["d"].mean()
+        if len(daily) > 1 and stats.kendalltau(daily.index, daily.to_numpy(),
+                                                alternative="greater").pvalue < alpha:
+            grown.append((int(cell[0]), int(cell[1])))
+    return med.index, grown
+
+
+def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray,
+                   column: np.ndarray, elev: np.ndarray, day_pos: np.ndarray,
+                   az_step: float, el_step: float, alpha: float, min_deficit: float
                    ) -> tuple[np.ndarray, dict]:
     """Clear intervals whose deficit is beyond the clear-sky noise at their sun elevation
     (one-sided, level ``alpha``) and at least ``min_deficit``: the sun's beam was lost. The
     noise (median and scaled MAD per ``el_step`` band of elevation) is taken from the clear
-    intervals outside the
-    candidate columns (``outside``); a band with few of them takes the nearest band's. The
-    share of those intervals labelled (at least ``alpha``) is the false-label rate."""
+    intervals outside the candidate columns (``outside``) in sky cells (band x azimuth
+    ``column``) of at least ``MIN_CELL`` intervals that an obstruction has not reached
+    (:func:`_grown_cells`): an obstruction of several columns reaches beyond the candidate
+    ones, and where the sun passes on a few days only (the sky's low edges) a cell cannot
+    show whether it is shaded; either would widen the noise that judges the obstruction. A
+    band whose judged cells hold fewer than ``MIN_BAND`` intervals keeps all of its own
+    (none of its cells can be judged), a band with fewer in all the nearest band's. The
+    share of the reference intervals labelled (at least ``alpha``) is the false-label
+    rate."""
     z = float(stats.norm.isf(alpha))
     band = np.floor(np.clip(elev, 0, None) / el_step).astype(int)
     ref = clear & outside & np.isfinite(d)
+    judged, grown = _grown_cells(d, band, column, day_pos, ref, z, alpha)
+    cell = pd.MultiIndex.from_arrays([band, column])
+    kept = ref & cell.isin(judged) & ~cell.isin(grown)
+    # a band whose judged cells are too few to give its noise keeps all its intervals
+    few = pd.Series(kept).groupby(band).transform("sum").to_numpy() < MIN_BAND
+    ref &= kept | few
     frame = pd.DataFrame({"band": band[ref], "d": d[ref]})
     g = frame.groupby("band")["d"]
     n = g.size()
-    centre = g.median()[n >= 30]
-    scale = (1.4826 * g.apply(lambda x: np.median(np.abs(x - np.median(x)))))[n >= 30]
+    centre = g.median()[n >= MIN_BAND]
+    scale = (1.4826 * g.apply(lambda x: np.median(np.abs(x - np.median(x)))))[n >= MIN_BAND]
+    left_out = [{"azimuth_from_deg": a * az_step, "elevation_from_deg": b * el_step}
+                for b, a in grown]
     if centre.empty:
-        return np.zeros(len(d), dtype=bool), {"z": z, "false_label_rate": alpha, "bands": []}
+        return np.zeros(len(d), dtype=bool), {"z": z, "false_label_rate": alpha, "bands": [],
+                                              "grown_cells": left_out}
     mid = np.interp(band, centre.index, centre.to_numpy())
     sig = np.interp(band, scale.index, scale.to_numpy())
     with np.errstate(invalid="ignore"):
@@ -420,7 +475,7 @@ def _shaded_labels(d: np.ndarray, clear: np.ndarray, outside: np.ndarray, elev: 
     rate = max(alpha, float(np.mean(labels[ref])))
     return labels, {"z": z, "false_label_rate": rate, "bands": [
         {"elevation_from_deg": float(b * el_step), "median_deficit": float(centre[b]),
-         "sigma": float(scale[b])} for b in centre.index]}
+         "sigma": float(scale[b])} for b in centre.index], "grown_cells": left_out}
 
 
 def _column_top(in_col: np.ndarray, labels: np.ndarray, clear: np.ndarray, elev: np.ndarray,
@@ -501,7 +556,7 @@ def _fit_top(obs: np.ndarray, labels: np.ndarray, elev: np.ndarray, day_pos: np.
 
 
 def _unshaded_level(d: np.ndarray, ref: np.ndarray, key: np.ndarray, elev: np.ndarray,
-                    el_step: float, min_n: int = 10) -> np.ndarray:
+                    el_step: float, min_n: int = MIN_CELL) -> np.ndarray:
     """Per interval, the deficit its sky bin shows unshaded (the model's shape error there):
     the median over the bin's ``ref`` intervals, or over the elevation band's in every
     azimuth where the bin has fewer than ``min_n``."""
