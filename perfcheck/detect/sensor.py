@@ -69,7 +69,6 @@ from perfcheck.detect.common import (
     daylight,
     despike,
     long_run_sigma,
-    robust_sigma,
     runs,
     window_change,
 )
@@ -225,10 +224,16 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
 
     ``mirror``, if given, is a second daily series that the same error moves by -d (the
     sensor-fed inverters' log index): it is fitted jointly with a course of its own and
-    -d h(t), each series weighted by its inverse robust variance
-    (:func:`perfcheck.detect.common.robust_sigma`), so that two pieces of evidence with
-    errors of their own place the onset together. Every onset at least ``min_days`` days
-    inside the span is tried (the profile of the residual sum of squares over t0).
+    -d h(t), each series weighted by its inverse long-run variance over the span
+    (:func:`perfcheck.detect.common.long_run_sigma`), so that two pieces of evidence with
+    errors of their own place the onset together. The long-run variance, not the day-to-day
+    one, because what moves a kink is an error that persists over weeks: the inverters' index
+    wanders with the season and the sky (the power model's own errors), and weighted by its
+    daily scatter alone it would bend the onset towards its own wander as much as the
+    sensor's steadier reference fixes it (weighted least squares with the noise's variance at
+    the frequencies that matter; Hamilton 1994, sec. 7.2, from memory). Every onset at least
+    ``min_days`` days inside the span is tried (the profile of the residual sum of squares
+    over t0).
 
     Returns the shape, the course (``"level"`` or ``"slope"``), the onset, c (the level of
     ``x``'s course at the reset), d, the standard error of d from the standardised
@@ -270,7 +275,7 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
         return None
     cut = [c if len(c) >= 3 * min_days else c.iloc[:0] for c in cut]
     t = [((c.index - reset) / pd.Timedelta(days=1)).to_numpy(dtype=float) for c in cut]
-    wt = [1 / max(robust_sigma(c.to_numpy()), 1e-6) if len(c) else 0.0 for c in cut]
+    wt = [1 / max(long_run_sigma(c.to_numpy())[0], 1e-6) if len(c) else 0.0 for c in cut]
     v = np.concatenate([c.to_numpy() * k for c, k in zip(cut, wt, strict=True)])
     n = len(v)
     # per series a level and a slope in days before the reset, each on its own rows
@@ -586,10 +591,16 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     raw = sensor if cols else reading
     stuck = ([] if raw is None or raw.isna().all()
              else stuck_faults(w, raw, planes_clear["_sensor"]))
-    free = sensor.copy()
-    for s in stuck:  # the level tests ignore the days touched by a stuck run
-        days = w.day[(w.index >= s.start) & (w.index < s.end)].unique()
-        free[w.day.isin(days).to_numpy()] = np.nan
+    # the level tests ignore the days touched by a stuck run
+    touched = np.zeros(len(w.index), dtype=bool)
+    for s in stuck:
+        touched |= w.day.isin(w.day[(w.index >= s.start) & (w.index < s.end)].unique()).to_numpy()
+    free = sensor.where(~touched)
+    # the module temperature is read on the array that carries the sensor, in its plane: it is
+    # compared with the sensor's own reading where that is logged, not with the irradiance the
+    # reading gives in other planes (decomposed and transposed, with the seasonal error of
+    # those models)
+    own = free if raw is None or raw.isna().all() else raw.where(~touched)
     others = [c for c in w.inverters if c not in driven]
     # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
     pi = np.log(daily_pi(w, daylight(w)).where(lambda p: p > 0))
@@ -601,7 +612,7 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         index = index - pi[others].median(axis=1)
     q = _daily_log_ratio(w, free, sensor_clear)
     found = [] if heat is None else reset_faults(
-        w, _daily_log_ratio(w, free, heat.where(heat > 0)), index, alpha=alpha)
+        w, _daily_log_ratio(w, own, heat.where(heat > 0)), index, alpha=alpha)
     found += power_faults(w, index, q[clear.reindex(q.index).fillna(False).astype(bool)],
                           alpha=alpha)
     if others or part:
