@@ -253,7 +253,9 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     pi = degradation.ageing_removed(daily_pi(w_fixed, keep),
                                     _plant_pi(w, keep, w_fixed.measured))
     ev, fp, soil_ratio = soiling.detect(w_fixed, pi, rel_sigma, rain_mm=st.soiling_rain_mm,
-                                        alpha=st.alpha, undone=undone)
+                                        alpha=st.alpha, undone=undone,
+                                        repaired=pd.DatetimeIndex(np.unique(
+                                            w.day.to_numpy()[repaired])))
     events += ev
     prints += fp
     t = lap("soiling", t)

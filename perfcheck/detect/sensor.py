@@ -69,6 +69,7 @@ from perfcheck.detect.common import (
     daylight,
     despike,
     long_run_sigma,
+    robust_sigma,
     runs,
     window_change,
 )
@@ -341,16 +342,18 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     it may have left it slowly (a drift), so the faults are looked for behind each reset: a
     step between two segments of circular binary segmentation (:func:`change_points`,
     false-alarm probability ``alpha`` per split) of at least ``min_shift``, towards the usual
-    level (the series' median) from a level further off. Over the days since the last fault
+    level (the series' median), reaching it or going past it: the reference may read off the
+    other way for a few days just after the reset (snow or frost on the modules), and such a
+    spell, a segment of its own, must not hide the reset. Over the days since the last fault
     found (or the first day), :func:`reset_fit` places the onset and chooses the shape. The
     fault is kept when its size d is significant (two-sided normal p-value of d over its
     long-run standard error below ``alpha``), its fitted error reaches ``min_shift`` on some
     day, and the sensor-fed inverters' daily index ``pi_fed`` steps the other way at the
-    reset by half to twice d (medians of ``min_days`` days either side; the band as in
-    :func:`power_faults`, common practice): a reference that errs with the season has no
-    such step in the power. The false-alarm probability is at most that of the
-    segmentation's split, ``alpha`` (independent noise; day-to-day persistence raises it),
-    and the mirrored step can only lower it.
+    reset by half to twice d, within its noise (medians of ``min_days`` days either side,
+    :func:`_mirror_step`): a reference that errs with the season has no such step in the
+    power. The false-alarm probability is at most that of the segmentation's split,
+    ``alpha`` (independent noise; day-to-day persistence raises it), and the mirrored step
+    can only lower it.
 
     The window runs from the fitted onset (for a drift, where the fitted line leaves the
     usual level) to the reset; the evidence gives the first day the fitted error reaches
@@ -368,12 +371,15 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     usual, big = float(np.median(v)), np.log1p(min_shift)
     y = pi_fed.dropna()
     y_clean = pd.Series(despike(y.to_numpy()), index=y.index)
+    # the standard error of the index's step at a reset: the difference of two medians of
+    # min_days days, each of variance about pi sigma^2 / (2 n) (the median's asymptotic
+    # efficiency; Kendall & Stuart, from memory), sigma the index's day-to-day scale
+    se_step = robust_sigma(y_clean.to_numpy()) * np.sqrt(np.pi / min_days)
     out = []
     since = b.index[0]
     for k in range(len(segs) - 1):
         before, after = segs[k].mean - usual, segs[k + 1].mean - usual
-        if not (abs(before - after) >= big and abs(after) < abs(before)
-                and np.sign(before - after) == np.sign(before)):
+        if not (abs(before - after) >= big and np.sign(before - after) == np.sign(before)):
             continue
         reset = b.index[segs[k + 1].start]
         fit = reset_fit(xs, since, reset, min_days, mirror=y_clean)
@@ -389,7 +395,7 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
         if len(pre) < min_days or len(post) < min_days:
             continue
         fed = float(np.median(pre) - np.median(post))
-        if not (np.sign(fed) == -np.sign(d) and 0.5 * abs(d) <= abs(fed) <= 2 * abs(d)):
+        if not _mirror_step(fed, d, se_step):
             continue
         every = pd.date_range(fit["onset"], reset - pd.Timedelta(days=1), freq="D")
         h = np.ones(len(every))
@@ -415,6 +421,22 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
                       "detectable_pct": 100 * min_shift,
                       "fed_inverters_index_step_pct": 100 * float(np.expm1(fed))}))
     return out
+
+
+def _mirror_step(fed: float, d: float, se: float) -> bool:
+    """Whether the sensor-fed inverters' index steps at a reset as a sensor fault of size
+    ``d`` (log) makes it: the other way, by at least half of d and at most twice d (common
+    practice, as in :func:`power_faults`), the upper bound allowing for the step's own
+    standard error ``se`` (one-sided at ``CONFIRM_ALPHA``).
+
+    The lower bound is the confirmation and stays as it is. The upper one only turns away a
+    step too large to be the sensor's (another fault on the same day); on a noisy index (a
+    low winter sun, arrays of which the sensor feeds a share, the index divided by it) a
+    step that the noise alone could have carried past it is no such contradiction.
+    """
+    toward = -np.sign(d) * fed  # the step in the direction the fault makes it
+    lift = stats.norm.isf(CONFIRM_ALPHA) * se if np.isfinite(se) else 0.0
+    return bool(0.5 * abs(d) <= toward <= 2 * abs(d) + lift)
 
 
 def stuck_faults(w: Wide, sensor: pd.Series, reference: pd.Series,
