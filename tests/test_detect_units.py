@@ -277,6 +277,24 @@ def test_recovery_cause_unknown_without_rain_readings():
         assert rec[0]["day"] == days[20]
 
 
+def test_no_recovery_is_read_across_days_left_out():
+    # invented truth: a quiet index (0.3 % a day) that stands 8 % higher after 20 days whose
+    # data were rebuilt and left out (a clock fault's window) than before them: the season
+    # and the model's error move it over weeks, and the step test (medians of 3 days either
+    # side, alpha 1e-3) assumes days close together. Read across the hole it is a step;
+    # told of the hole, none. A 10 % step on days in a row later on is still found
+    days = pd.date_range("2024-01-01", periods=120, freq="D")
+    rng = np.random.default_rng(5)
+    level = np.r_[np.full(40, 0.92), np.full(50, 1.0), np.full(30, 1.1)]
+    index = pd.Series(level * np.exp(rng.normal(0, 0.003, 120)), index=days)
+    hole = days[40:60]
+    index[hole] = np.nan
+    across = {d for d, _ in soiling.local_steps_up(index, 1e-3)}
+    told = {d for d, _ in soiling.local_steps_up(index, 1e-3, repaired=hole)}
+    assert days[60] in across and days[60] not in told
+    assert told and all(abs((d - days[90]).days) <= 1 for d in told)
+
+
 def test_partial_pieces_of_one_lost_string_are_joined():
     # invented truth: a 5-string inverter at its usual level (log 0) for 60 days, then one
     # string lost (share 0.2) for 30 days while a shade waxes 0 -> 3 % over them, then back;

@@ -183,6 +183,8 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     shifts = clock.find(w0, cs[w0.inverters], lg, alpha=st.alpha,
                         min_offset_min=st.clock_min_offset_min)
     w1 = clock.corrected(w0, shifts, lg, site, weather)
+    # the sensor's own reading on the corrected clock, as the series it is compared with
+    reading = clock.moved_back(reading, w0, shifts, lg.poa)
     heat, wind = _module_heat_and_wind(temps, site, w0, shifts, lg)
     del temps
     events: list[Event] = clock.events(w0, w1, shifts, lg, len(site.inverters))
@@ -251,7 +253,9 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     pi = degradation.ageing_removed(daily_pi(w_fixed, keep),
                                     _plant_pi(w, keep, w_fixed.measured))
     ev, fp, soil_ratio = soiling.detect(w_fixed, pi, rel_sigma, rain_mm=st.soiling_rain_mm,
-                                        alpha=st.alpha, undone=undone)
+                                        alpha=st.alpha, undone=undone,
+                                        repaired=pd.DatetimeIndex(np.unique(
+                                            w.day.to_numpy()[repaired])))
     events += ev
     prints += fp
     t = lap("soiling", t)

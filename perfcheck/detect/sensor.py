@@ -225,10 +225,16 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
 
     ``mirror``, if given, is a second daily series that the same error moves by -d (the
     sensor-fed inverters' log index): it is fitted jointly with a course of its own and
-    -d h(t), each series weighted by its inverse robust variance
-    (:func:`perfcheck.detect.common.robust_sigma`), so that two pieces of evidence with
-    errors of their own place the onset together. Every onset at least ``min_days`` days
-    inside the span is tried (the profile of the residual sum of squares over t0).
+    -d h(t), each series weighted by its inverse long-run variance over the span
+    (:func:`perfcheck.detect.common.long_run_sigma`), so that two pieces of evidence with
+    errors of their own place the onset together. The long-run variance, not the day-to-day
+    one, because what moves a kink is an error that persists over weeks: the inverters' index
+    wanders with the season and the sky (the power model's own errors), and weighted by its
+    daily scatter alone it would bend the onset towards its own wander as much as the
+    sensor's steadier reference fixes it (weighted least squares with the noise's variance at
+    the frequencies that matter; Hamilton 1994, sec. 7.2, from memory). Every onset at least
+    ``min_days`` days inside the span is tried (the profile of the residual sum of squares
+    over t0).
 
     Returns the shape, the course (``"level"`` or ``"slope"``), the onset, c (the level of
     ``x``'s course at the reset), d, the standard error of d from the standardised
@@ -270,7 +276,7 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
         return None
     cut = [c if len(c) >= 3 * min_days else c.iloc[:0] for c in cut]
     t = [((c.index - reset) / pd.Timedelta(days=1)).to_numpy(dtype=float) for c in cut]
-    wt = [1 / max(robust_sigma(c.to_numpy()), 1e-6) if len(c) else 0.0 for c in cut]
+    wt = [1 / max(long_run_sigma(c.to_numpy())[0], 1e-6) if len(c) else 0.0 for c in cut]
     v = np.concatenate([c.to_numpy() * k for c, k in zip(cut, wt, strict=True)])
     n = len(v)
     # per series a level and a slope in days before the reset, each on its own rows
@@ -336,16 +342,18 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     it may have left it slowly (a drift), so the faults are looked for behind each reset: a
     step between two segments of circular binary segmentation (:func:`change_points`,
     false-alarm probability ``alpha`` per split) of at least ``min_shift``, towards the usual
-    level (the series' median) from a level further off. Over the days since the last fault
+    level (the series' median), reaching it or going past it: the reference may read off the
+    other way for a few days just after the reset (snow or frost on the modules), and such a
+    spell, a segment of its own, must not hide the reset. Over the days since the last fault
     found (or the first day), :func:`reset_fit` places the onset and chooses the shape. The
     fault is kept when its size d is significant (two-sided normal p-value of d over its
     long-run standard error below ``alpha``), its fitted error reaches ``min_shift`` on some
     day, and the sensor-fed inverters' daily index ``pi_fed`` steps the other way at the
-    reset by half to twice d (medians of ``min_days`` days either side; the band as in
-    :func:`power_faults`, common practice): a reference that errs with the season has no
-    such step in the power. The false-alarm probability is at most that of the
-    segmentation's split, ``alpha`` (independent noise; day-to-day persistence raises it),
-    and the mirrored step can only lower it.
+    reset by half to twice d, within its noise (medians of ``min_days`` days either side,
+    :func:`_mirror_step`): a reference that errs with the season has no such step in the
+    power. The false-alarm probability is at most that of the segmentation's split,
+    ``alpha`` (independent noise; day-to-day persistence raises it), and the mirrored step
+    can only lower it.
 
     The window runs from the fitted onset (for a drift, where the fitted line leaves the
     usual level) to the reset; the evidence gives the first day the fitted error reaches
@@ -363,12 +371,15 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     usual, big = float(np.median(v)), np.log1p(min_shift)
     y = pi_fed.dropna()
     y_clean = pd.Series(despike(y.to_numpy()), index=y.index)
+    # the standard error of the index's step at a reset: the difference of two medians of
+    # min_days days, each of variance about pi sigma^2 / (2 n) (the median's asymptotic
+    # efficiency; Kendall & Stuart, from memory), sigma the index's day-to-day scale
+    se_step = robust_sigma(y_clean.to_numpy()) * np.sqrt(np.pi / min_days)
     out = []
     since = b.index[0]
     for k in range(len(segs) - 1):
         before, after = segs[k].mean - usual, segs[k + 1].mean - usual
-        if not (abs(before - after) >= big and abs(after) < abs(before)
-                and np.sign(before - after) == np.sign(before)):
+        if not (abs(before - after) >= big and np.sign(before - after) == np.sign(before)):
             continue
         reset = b.index[segs[k + 1].start]
         fit = reset_fit(xs, since, reset, min_days, mirror=y_clean)
@@ -384,7 +395,7 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
         if len(pre) < min_days or len(post) < min_days:
             continue
         fed = float(np.median(pre) - np.median(post))
-        if not (np.sign(fed) == -np.sign(d) and 0.5 * abs(d) <= abs(fed) <= 2 * abs(d)):
+        if not _mirror_step(fed, d, se_step):
             continue
         every = pd.date_range(fit["onset"], reset - pd.Timedelta(days=1), freq="D")
         h = np.ones(len(every))
@@ -410,6 +421,22 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
                       "detectable_pct": 100 * min_shift,
                       "fed_inverters_index_step_pct": 100 * float(np.expm1(fed))}))
     return out
+
+
+def _mirror_step(fed: float, d: float, se: float) -> bool:
+    """Whether the sensor-fed inverters' index steps at a reset as a sensor fault of size
+    ``d`` (log) makes it: the other way, by at least half of d and at most twice d (common
+    practice, as in :func:`power_faults`), the upper bound allowing for the step's own
+    standard error ``se`` (one-sided at ``CONFIRM_ALPHA``).
+
+    The lower bound is the confirmation and stays as it is. The upper one only turns away a
+    step too large to be the sensor's (another fault on the same day); on a noisy index (a
+    low winter sun, arrays of which the sensor feeds a share, the index divided by it) a
+    step that the noise alone could have carried past it is no such contradiction.
+    """
+    toward = -np.sign(d) * fed  # the step in the direction the fault makes it
+    lift = stats.norm.isf(CONFIRM_ALPHA) * se if np.isfinite(se) else 0.0
+    return bool(0.5 * abs(d) <= toward <= 2 * abs(d) + lift)
 
 
 def stuck_faults(w: Wide, sensor: pd.Series, reference: pd.Series,
@@ -586,10 +613,16 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     raw = sensor if cols else reading
     stuck = ([] if raw is None or raw.isna().all()
              else stuck_faults(w, raw, planes_clear["_sensor"]))
-    free = sensor.copy()
-    for s in stuck:  # the level tests ignore the days touched by a stuck run
-        days = w.day[(w.index >= s.start) & (w.index < s.end)].unique()
-        free[w.day.isin(days).to_numpy()] = np.nan
+    # the level tests ignore the days touched by a stuck run
+    touched = np.zeros(len(w.index), dtype=bool)
+    for s in stuck:
+        touched |= w.day.isin(w.day[(w.index >= s.start) & (w.index < s.end)].unique()).to_numpy()
+    free = sensor.where(~touched)
+    # the module temperature is read on the array that carries the sensor, in its plane: it is
+    # compared with the sensor's own reading where that is logged, not with the irradiance the
+    # reading gives in other planes (decomposed and transposed, with the seasonal error of
+    # those models)
+    own = free if raw is None or raw.isna().all() else raw.where(~touched)
     others = [c for c in w.inverters if c not in driven]
     # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
     pi = np.log(daily_pi(w, daylight(w)).where(lambda p: p > 0))
@@ -601,7 +634,7 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         index = index - pi[others].median(axis=1)
     q = _daily_log_ratio(w, free, sensor_clear)
     found = [] if heat is None else reset_faults(
-        w, _daily_log_ratio(w, free, heat.where(heat > 0)), index, alpha=alpha)
+        w, _daily_log_ratio(w, own, heat.where(heat > 0)), index, alpha=alpha)
     found += power_faults(w, index, q[clear.reindex(q.index).fillna(False).astype(bool)],
                           alpha=alpha)
     if others or part:

@@ -163,12 +163,19 @@ def precise_days(index: pd.Series, insolation: pd.Series, alpha: float, half_day
     return index.where(clear >= edge)
 
 
-def local_steps_up(index: pd.Series, alpha: float, k: int = 3) -> list[tuple[pd.Timestamp, float]]:
+def local_steps_up(index: pd.Series, alpha: float, k: int = 3,
+                   repaired: pd.DatetimeIndex | None = None) -> list[tuple[pd.Timestamp, float]]:
     """Days where the index steps up: the median of the ``k`` values from that day on exceeds
     the median of the ``k`` values before it by more than the one-sided normal quantile of
     ``alpha / n`` (Bonferroni over the n days) times the difference's standard error
     (1.2533 sigma sqrt(2 / k) for medians of k values, sigma from
-    :func:`perfcheck.detect.common.robust_sigma`). Local maxima only; (day, relative step)."""
+    :func:`perfcheck.detect.common.robust_sigma`). Local maxima only; (day, relative step).
+
+    ``repaired``: days whose data were rebuilt and left out (a clock or sensor fault's
+    window). A step whose 2 k values lie on either side of such days is not taken: the test
+    compares days close together, and across weeks left out the index moves with the
+    season and the model's own error, which the difference's standard error does not hold.
+    """
     s = index.dropna()
     x = np.log(s.to_numpy())
     n = len(x)
@@ -186,16 +193,19 @@ def local_steps_up(index: pd.Series, alpha: float, k: int = 3) -> list[tuple[pd.
     out = []
     for j in np.flatnonzero(z > crit):
         lo, hi = max(0, j - k), min(len(z), j + k + 1)
+        first, last = s.index[i[j] - k], s.index[i[j] + k - 1]
+        if repaired is not None and ((repaired > first) & (repaired < last)).any():
+            continue
         if z[j] == z[lo:hi].max():
             out.append((s.index[i[j]], float(np.exp(delta[j]) - 1)))
     return out
 
 
 def recoveries(index: pd.Series, rain_daily: pd.Series, rain_mm: float, alpha: float,
-               min_days: int = 3) -> list[dict]:
+               min_days: int = 3, repaired: pd.DatetimeIndex | None = None) -> list[dict]:
     """Recovery days (the first day of the recovered level), with cause ("rain", "cleaning",
     or "unknown" where ``rain_daily`` is NaN on the day and the day before: no rain readings)
-    and step size."""
+    and step size; ``repaired`` as in :func:`local_steps_up`."""
     s = index.dropna()
     out: dict[pd.Timestamp, dict] = {}
     rain = rain_daily.reindex(index.index)
@@ -203,7 +213,7 @@ def recoveries(index: pd.Series, rain_daily: pd.Series, rain_mm: float, alpha: f
         nxt = day + pd.Timedelta(days=1)
         out[nxt] = {"day": nxt, "cause": "rain", "rain_mm": float(rain.loc[day]),
                     "detected_step": None}
-    for day, step in local_steps_up(s, alpha, min_days):
+    for day, step in local_steps_up(s, alpha, min_days, repaired):
         near = [d for d in out if abs((d - day).days) <= 1]
         if near:
             out[near[0]]["detected_step"] = step
@@ -230,13 +240,16 @@ def _cause(rain_daily: pd.Series, day: pd.Timestamp) -> dict:
 
 
 def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
-           alpha: float = 0.01, min_days: int = 5, undone: Sequence[Footprint] = ()
+           alpha: float = 0.01, min_days: int = 5, undone: Sequence[Footprint] = (),
+           repaired: pd.DatetimeIndex | None = None
            ) -> tuple[list[Event], list[Footprint], pd.Series]:
     """Soiling episodes, their footprints, and the daily soiling ratio (1 where clean).
 
     ``undone``: the findings whose share of the power ``w.measured`` has put back (lost
     strings, stalled rows); their inverters' days are left out of the index
-    (:func:`without_found`)."""
+    (:func:`without_found`). ``repaired``: the site-local days whose data were rebuilt and
+    left out of ``pi`` (clock and sensor faults): no step of the index is read across them
+    (:func:`local_steps_up`)."""
     days = pd.DatetimeIndex(pi.index)
     insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days)
     idx = precise_days(plant_index(without_found(pi, w, undone)), insolation, alpha)
@@ -245,7 +258,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     roll = w.rain.fillna(0.0).rolling(max(1, int(round(86400 / step_s))), min_periods=1).sum()
     read = w.rain.notna().groupby(w.day.to_numpy()).any().reindex(days, fill_value=False)
     rain_daily = roll.groupby(w.day.to_numpy()).max().reindex(days).where(read)
-    recs = recoveries(idx, rain_daily, rain_mm, alpha)
+    recs = recoveries(idx, rain_daily, rain_mm, alpha, repaired=repaired)
     bounds = [days[0]] + [r["day"] for r in recs if days[0] < r["day"] <= days[-1]] + \
         [days[-1] + pd.Timedelta(days=1)]
     rec_at = {r["day"]: r for r in recs}
