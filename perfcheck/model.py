@@ -12,10 +12,16 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
 * Irradiance source ``auto`` uses the plane-of-array sensor where one is logged, else GHI.
   The sensor plane defaults to the first array's plane. An array in the sensor's plane takes the
   sensor's reading (``poa_source = 'sensor'``; in ``auto`` intervals without a reading fall back
-  to the model); an array in another plane is transposed from GHI (+ DHI/DNI where measured) when
-  GHI is logged, else from the components that explain the sensor's reading (GTI-DIRINT, Marion
-  2015), i.e. decomposed and transposed again. The modelled POA is kept beside the sensor's,
-  and their daily ratio is summarised in the run's checks.
+  to the model); an array in another plane, when GHI is logged, takes the sensor's reading
+  times the modelled ratio of its plane's POA to the sensor plane's (both transposed from GHI
+  + DHI/DNI where measured) in the intervals where that ratio depends less on the
+  decomposition's split of GHI than its own transposed POA does, and that POA in the others
+  (``poa_source = 'translated'`` where every array of an inverter follows the sensor so; not
+  from a sensor on a tracker, nor where an inverter has arrays in and out of the sensor's
+  plane: :func:`translatable`); without GHI it is transposed from the components that explain
+  the sensor's reading (GTI-DIRINT, Marion 2015), i.e. decomposed and transposed again. The
+  modelled POA is kept beside the sensor's, and their daily ratio is summarised in the run's
+  checks.
 * Beside the expected series from the irradiance used, the same chain is run from the
   modelled POA alone (``ac_modelled_w``, ``ac_potential_modelled_w``, and the cell
   temperature ``temp_cell_modelled_c``, which depends on the POA unless a module temperature
@@ -74,7 +80,7 @@ from perfcheck.versions import versions
 pvlib = lazy_package("pvlib", PVLIB_WITH_INIT)
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "7"
+MODEL_VERSION = "8"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
 WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
@@ -208,6 +214,23 @@ def in_sensor_plane(array: Array, site: Site) -> bool:
     return array.tracker is None and in_plane(array, sensor_plane(site))
 
 
+def translatable(site: Site, weather: pd.DataFrame) -> bool:
+    """Whether an array in another plane than the sensor's takes the sensor's reading
+    translated to its plane (:func:`perfcheck.physics.poa_translated`): where GHI is logged
+    (without it the other planes are already transposed from the components that explain the
+    sensor's reading), the sensor is fixed (one on a tracker leaves the design's plane when
+    its tracker stows or stalls, and the translation would carry that to other planes), and
+    no inverter has arrays both in the sensor's plane and in another (east and west halves,
+    say): the sensor-fault detector takes such an inverter's dependence on the sensor from
+    the design's share in its plane (:func:`in_sensor_plane`) and the inverters off its plane
+    as the reference apart from it, which the reading carried to the other planes would
+    blur."""
+    if site.model.poa_sensor_on_tracker or "ghi" not in weather or weather["ghi"].isna().all():
+        return False
+    return all(len({in_sensor_plane(a, site) for a in inv.arrays}) == 1
+               for inv in site.inverters)
+
+
 def orientation(array: Array, sun: pd.DataFrame
                 ) -> tuple[float | pd.Series, float | pd.Series]:
     """(surface_tilt, surface_azimuth) of an array [deg]: constants for a fixed array, Series
@@ -284,14 +307,57 @@ def horizontal_components(weather: pd.DataFrame, sun: pd.DataFrame, site: Site
                                   sensor_array(site).albedo)
 
 
+def sensor_plane_model(sun: pd.DataFrame, comps: pd.DataFrame, weather: pd.DataFrame,
+                       site: Site) -> pd.DataFrame:
+    """The sensor's plane as modelled from the horizontal components: ``poa_global``,
+    ``reading`` (what the sensor reads: ``poa_global`` for a pyranometer, ``poa_effective``
+    for a reference cell), and ``dni_sensitivity`` and ``beam_range`` of ``poa_global``
+    (:func:`perfcheck.physics.poa_decomposition_terms`) [W/m^2]."""
+    m = site.model
+    tilt, azimuth = sensor_orientation(site, sun)
+    twin = sensor_array(site)
+    mod = ph.poa_components(tilt, azimuth, sun, comps["ghi"], comps["dni"], comps["dhi"],
+                            sun["dni_extra"], sun["airmass_relative"], twin.albedo, twin.horizon,
+                            m.transposition, m.iam)
+    nan = pd.Series(np.nan, index=sun.index)
+    split = weather.get("dni", nan).notna() | weather.get("dhi", nan).notna()
+    terms = ph.poa_decomposition_terms(tilt, azimuth, sun, comps["ghi"], comps["dni"],
+                                       comps["dhi"], sun["clearsky_dni"], sun["dni_extra"],
+                                       sun["airmass_relative"], twin.albedo, twin.horizon,
+                                       m.transposition, rows=~split)
+    reading = "poa_effective" if m.poa_sensor_kind == "reference_cell" else "poa_global"
+    return pd.DataFrame({"poa_global": mod["poa_global"], "reading": mod[reading],
+                         "dni_sensitivity": terms["dni_sensitivity"],
+                         "beam_range": terms["beam_range"]})
+
+
+def decomposition_error(terms: pd.DataFrame) -> pd.Series:
+    """How far a plane irradiance may move with the decomposition's split of GHI [W/m^2]:
+    its sensitivity to the DNI's relative error plus its range over the beam the
+    decomposition cannot see at low sun, in absolute value (both from
+    :func:`perfcheck.physics.poa_decomposition_terms` or carried by
+    :func:`perfcheck.physics.poa_translated`). Compares two estimates of one plane's
+    irradiance, not an uncertainty. NaN where either term is."""
+    return terms["dni_sensitivity"].abs() + terms["beam_range"].abs()
+
+
 def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
-                     weather: pd.DataFrame, site: Site, source: str) -> pd.DataFrame:
+                     weather: pd.DataFrame, site: Site, source: str,
+                     sensor_model: pd.DataFrame | None = None) -> pd.DataFrame:
     """POA (total, effective, modelled) and its source for one array.
 
     Returns ``poa_global``, ``poa_effective``, ``poa_modelled``, ``poa_effective_modelled``
     [W/m^2] (the last two from the GHI path, whatever the source), ``poa_dni_sensitivity``
     [W/m^2] (of ``poa_modelled``), ``poa_beam_range`` [W/m^2] (of ``poa_modelled`` over the
-    beam the decomposition cannot see at low sun) and ``from_sensor`` (bool).
+    beam the decomposition cannot see at low sun), ``from_sensor`` (bool: the sensor's reading)
+    and ``translated`` (bool: the sensor's reading carried to this plane).
+    ``sensor_model`` (:func:`sensor_plane_model`), given where the sensor's reading may be
+    carried to other planes (:func:`translatable`): an array in another plane takes the
+    reading carried by the modelled ratio of the planes
+    (:func:`perfcheck.physics.poa_translated`) in the intervals where that depends less on
+    the decomposition's split of GHI than its own transposed POA does
+    (:func:`decomposition_error`), the transposed POA in the others (east and west planes in
+    the morning, say, or with DNI or DHI measured).
     The plane moves with a tracker. For bifacial modules the effective irradiance adds the
     rear's at the bifaciality: a rear sensor's reading for the arrays in the POA sensor's
     plane where it reads, else the infinite-sheds model's (:func:`perfcheck.physics.poa_rear`;
@@ -309,6 +375,7 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
                                        sun["airmass_relative"], array.albedo, array.horizon,
                                        m.transposition, rows=~split)
     from_sensor = pd.Series(False, index=sun.index)
+    translated = from_sensor
     glob, eff = mod["poa_global"], mod["poa_effective"]
     if source == "sensor" and in_sensor_plane(array, site):
         sensor = weather["poa_sensor"]
@@ -322,6 +389,14 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
             glob, eff = sensor.fillna(glob), sensor_eff.fillna(eff)
         else:
             glob, eff = sensor, sensor_eff
+    elif sensor_model is not None:
+        trans = ph.poa_translated(weather["poa_sensor"], sensor_model["reading"],
+                                  mod["poa_global"], mod["poa_effective"],
+                                  sensor_model["poa_global"], terms, sensor_model)
+        # the reading carried over where that depends less on the decomposition's split
+        translated = decomposition_error(trans) < decomposition_error(terms)
+        glob = trans["poa_global"].where(translated, glob)
+        eff = trans["poa_effective"].where(translated, eff)
     eff_modelled = mod["poa_effective"]
     if array.bifacial is not None:
         rear = ph.poa_rear(tilt, azimuth, sun, comps["ghi"], comps["dhi"], comps["dni"],
@@ -338,7 +413,7 @@ def array_irradiance(array: Array, sun: pd.DataFrame, comps: pd.DataFrame,
                          "poa_effective_modelled": eff_modelled,
                          "poa_dni_sensitivity": terms["dni_sensitivity"],
                          "poa_beam_range": terms["beam_range"],
-                         "from_sensor": from_sensor})
+                         "from_sensor": from_sensor, "translated": translated})
 
 
 def array_temperature(array: Array, poa_global: pd.Series, weather: pd.DataFrame, site: Site
@@ -371,25 +446,29 @@ def array_temperature(array: Array, poa_global: pd.Series, weather: pd.DataFrame
 
 def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: pd.DataFrame,
                 site: Site, source: str, loss_factor: np.ndarray,
-                planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]]
-                ) -> pd.DataFrame:
+                planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]],
+                sensor_model: pd.DataFrame | None = None) -> pd.DataFrame:
     """DC power of an inverter (sum over its arrays) and DC-rating-weighted plane quantities.
 
     ``dc`` from the irradiance used, ``dc_modelled`` from the modelled POA alone (the same
     values for arrays the sensor does not feed). ``planes`` caches irradiance and cell
     temperature (from the irradiance used, and from the modelled POA) per distinct plane and
-    mounting, so arrays that share them are computed once.
+    mounting, so arrays that share them are computed once. ``poa_source``: ``sensor`` where
+    every array takes the sensor's reading, ``translated`` where every array takes it or the
+    reading carried to its plane (``sensor_model``, see :func:`array_irradiance`), else
+    ``model``.
     """
     total = inv.dc_kwp
     out: pd.DataFrame | None = None
     sensor_all = pd.Series(True, index=sun.index)
+    via_sensor = sensor_all.copy()
     for array in inv.arrays:
         key = plane_key(array)
         if key not in planes:
-            irr = array_irradiance(array, sun, comps, weather, site, source)
+            irr = array_irradiance(array, sun, comps, weather, site, source, sensor_model)
             temp_cell = array_temperature(array, irr["poa_global"], weather, site)
             temp_modelled = (array_temperature(array, irr["poa_modelled"], weather, site)
-                             if irr["from_sensor"].any() else None)
+                             if (irr["from_sensor"] | irr["translated"]).any() else None)
             planes[key] = irr, temp_cell, temp_modelled
         irr, temp_cell, temp_modelled = planes[key]
         pdc0, gamma = array.dc_kwp * 1000.0, array.gamma_pct_per_c / 100.0
@@ -410,8 +489,9 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
         })
         out = frame if out is None else out + frame
         sensor_all &= irr["from_sensor"]
+        via_sensor &= irr["from_sensor"] | irr["translated"]
     assert out is not None
-    out["poa_source"] = np.where(sensor_all, "sensor", "model")
+    out["poa_source"] = np.select([sensor_all, via_sensor], ["sensor", "translated"], "model")
     return out
 
 
@@ -461,12 +541,16 @@ def expected_power(weather: pd.DataFrame, sun: pd.DataFrame, site: Site,
         comps = horizontal_components(weather, sun, site)
     loss = site.losses.dc_factor * ph.age_factor(
         sun.index, site.commissioned, site.losses.degradation_pct_per_year)
+    arrays = [a for inv in site.inverters for a in inv.arrays]
+    sensor_model = (sensor_plane_model(sun, comps, weather, site)
+                    if source == "sensor" and translatable(site, weather)
+                    and not all(in_sensor_plane(a, site) for a in arrays) else None)
     per_inv: dict[str, pd.DataFrame] = {}
     # AC power from the modelled POA alone, where it differs (an array fed by the sensor)
     per_mod: dict[str, pd.DataFrame] = {}
     planes = {} if planes is None else planes
     for inv in site.inverters:
-        d = inverter_dc(inv, sun, comps, weather, site, source, loss, planes)
+        d = inverter_dc(inv, sun, comps, weather, site, source, loss, planes, sensor_model)
         ac = ph.ac_power(d["dc"], inv.ac_kw * 1000.0, inv.efficiency_pct / 100.0,
                          inv.night_tare_w)
         per_inv[inv.id] = d.join(ac)

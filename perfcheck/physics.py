@@ -717,6 +717,55 @@ def poa_components(surface_tilt: float | pd.Series, surface_azimuth: float | pd.
     })
 
 
+def poa_translated(reading: pd.Series, reading_modelled: pd.Series, poa_global: pd.Series,
+                   poa_effective: pd.Series, sensor_poa_global: pd.Series, terms: pd.DataFrame,
+                   sensor_terms: pd.DataFrame) -> pd.DataFrame:
+    """A plane-of-array sensor's reading carried to another plane by the modelled ratio of the
+    two planes' irradiance, and how much that still depends on the decomposition of GHI.
+
+    G_t = G_s · G_o / G_s,model: the other plane's modelled irradiance G_o scaled by the
+    sensor's reading G_s over its own modelled value (both modelled values from the same
+    horizontal components). The errors the two modelled values share cancel in the ratio
+    (the GHI sensor's calibration wholly; a decomposition's error in the beam fraction as far
+    as both planes see the beam alike) and what the sensor measured is kept. A relative error
+    e of the decomposition's DNI moves G_o by c_o e and G_s,model by c_s e
+    (``dni_sensitivity`` of :func:`poa_decomposition_terms`), so G_t by, to first order,
+    c_t e = (G_s / G_s,model) (c_o - (G_o / G_s,model) c_s) e: near 0 on planes that face
+    the sun alike, larger than c_o where one plane sees the beam and the other does not (east
+    and west planes in the morning). The range over the beam the decomposition cannot see at
+    low sun (``beam_range``) carries over alike. First-order propagation of a ratio (JCGM
+    100:2008, GUM, 5.1.2, from memory); the plane-to-plane ratio itself is common practice
+    (no published comparison checked). ``poa_effective`` is scaled as ``poa_global``.
+
+    Parameters
+    ----------
+    reading : pandas.Series
+        The sensor's reading [W/m^2].
+    reading_modelled : pandas.Series
+        The same reading as the model sees it in the sensor's plane [W/m^2]: the modelled
+        ``poa_global`` for a pyranometer, ``poa_effective`` for a reference cell.
+    poa_global, poa_effective : pandas.Series
+        Modelled irradiance of the other plane (:func:`poa_components`) [W/m^2].
+    sensor_poa_global : pandas.Series
+        Modelled ``poa_global`` of the sensor's plane [W/m^2].
+    terms, sensor_terms : pandas.DataFrame
+        :func:`poa_decomposition_terms` of the other plane and of the sensor's plane.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``poa_global``, ``poa_effective``, ``dni_sensitivity`` (c_t), ``beam_range`` [W/m^2]
+        of the other plane; NaN where the reading is missing or the sensor's plane gets no
+        modelled light (the ratio is undefined).
+    """
+    scale = (reading / reading_modelled).where(reading_modelled > 0)
+    ratio = (poa_global / sensor_poa_global).where(sensor_poa_global > 0)
+    out = pd.DataFrame({"poa_global": poa_global * scale, "poa_effective": poa_effective * scale})
+    for k in ("dni_sensitivity", "beam_range"):
+        out[k] = scale * (terms[k] - ratio * sensor_terms[k])
+    return out
+
+
 # pvlib.irradiance.disc's defaults: cos z bounded at 0.065 in the clearness index (zenith
 # 86.27 deg), DNI set to 0 beyond 87 deg (pvlib 0.16 docstring)
 DISC_MIN_COS_ZENITH = 0.065

@@ -473,7 +473,8 @@ def quality_summary(aligned: pd.DataFrame, tz: str) -> list[dict]:
             "days_with_data": int(day[g.index][has].nunique()),
             "daylight_coverage": float(has[lit].mean()) if lit.any() else float("nan"),
             "rows_flagged": int((g["flags"].fillna("") != "").sum()),
-            "poa_from_sensor": float((g["poa_source"] == "sensor").mean()),
+            # the sensor's reading, in its own plane or carried to the others
+            "poa_from_sensor": float(g["poa_source"].isin(("sensor", "translated")).mean()),
         })
     return rows
 

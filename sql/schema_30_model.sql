@@ -21,7 +21,7 @@ CREATE TABLE IF NOT EXISTS expected (
     poa_global_wm2    DOUBLE,   -- irradiance in the inverter's plane(s) used (DC-weighted)
     poa_effective_wm2 DOUBLE,   -- after horizon and incidence-angle losses
     poa_modelled_wm2  DOUBLE,   -- modelled from GHI (or from the sensor's components)
-    poa_source        VARCHAR,  -- 'sensor' or 'model'
+    poa_source        VARCHAR,  -- 'sensor', 'translated' (carried from it) or 'model'
     temp_cell_c       DOUBLE,
     dc_w              DOUBLE,
     ac_potential_w    DOUBLE,   -- without AC rating and export limit

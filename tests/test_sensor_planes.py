@@ -60,3 +60,25 @@ def test_correction_takes_the_error_in_the_sensor_share(mixed):
     out = sensor.corrected(w, [s])
     ratio = (out.expected["INV1"] / w.expected["INV1"]).dropna()
     np.testing.assert_allclose(ratio.to_numpy(), 1 / 0.95)
+
+
+def test_reading_carried_to_another_plane_drives_the_inverter(mixed):
+    # An inverter whose arrays take the sensor's reading carried to their planes (model:
+    # poa_source 'translated') moves with a sensor fault as one in the sensor's plane does:
+    # it is driven, though its plane irradiance is not the sensor's own reading. Where its
+    # irradiance was transposed from GHI instead (here the mornings), a sensor error found
+    # from the power leaves the series alone (first order: power proportional to irradiance,
+    # common practice).
+    w, _, _, _ = mixed
+    assert sensor.has_ghi(w)
+    assert sensor.driven_columns(w) == []
+    morning = (w.index.tz_convert(TZ).hour < 10)[:, None]
+    w = dataclasses.replace(w, translated=w.translated | ~morning)
+    assert sensor.sensor_columns(w) == [] and sensor.driven_columns(w) == ["INV1"]
+    s = sensor.Suspect(start=w.index[0], end=w.index[-1], mode="level", factor=0.9,
+                       evidence={}, daily_factor=pd.Series(0.9, index=w.day.unique()))
+    out = sensor.corrected(w, [s])
+    ratio = out.expected["INV1"] / w.expected["INV1"]
+    day = w.expected["INV1"] > 0
+    np.testing.assert_allclose(ratio[day & ~morning[:, 0]], 1 / 0.9)
+    np.testing.assert_allclose(ratio[day & morning[:, 0]], 1.0)

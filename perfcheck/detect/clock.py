@@ -54,7 +54,7 @@ import pandas as pd
 
 from perfcheck import model
 from perfcheck.detect.common import Event, Wide, change_points, despike, window_change
-from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge, sensor_columns
+from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge
 from perfcheck.lazy import lazy_module
 from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Site
 
@@ -135,7 +135,7 @@ def follows(w: Wide, lg: Loggers, logger: str) -> tuple[list[str], bool]:
     ghi = has_ghi(w)
     out = set(driven_columns(w)) if lg.poa == logger else set()
     if ghi and lg.ghi == logger:
-        out |= set(w.inverters) - set(sensor_columns(w))
+        out |= set(w.inverters) - set(driven_columns(w))
     modelled = (lg.ghi if ghi else lg.poa) == logger
     return [c for c in w.inverters if c in out], modelled
 
@@ -423,7 +423,7 @@ def corrected(w: Wide, shifts: list[Shift], lg: Loggers, site: Site | None = Non
     if not shifts:
         return w
     names = ("measured", "expected", "potential", "poa", "temp_cell", "expected_modelled",
-             "potential_modelled", "poa_modelled", "from_sensor", "ghi")
+             "potential_modelled", "poa_modelled", "from_sensor", "translated", "ghi")
     new = {k: getattr(w, k).copy(deep=False) for k in names}  # copied when written
     step = float(np.median(w.interval_s))
     for s in shifts:
@@ -479,8 +479,9 @@ def rerun(new: dict[str, Any], w: Wide, s: Shift, at: np.ndarray, n: int, step: 
     for k, col in MODEL_SERIES.items():
         new[k].loc[at, w.inverters] = got[col].reindex(columns=w.inverters).to_numpy()
     src = exp.pivot(index="ts", columns="inverter_id", values="poa_source").reindex(rows)
-    new["from_sensor"].loc[at, w.inverters] = (src.reindex(columns=w.inverters) == "sensor"
-                                               ).to_numpy()
+    src = src.reindex(columns=w.inverters).to_numpy()
+    new["from_sensor"].loc[at, w.inverters] = src == "sensor"
+    new["translated"].loc[at, w.inverters] = src == "translated"
     if "ghi" in recorded and "ghi" in wx:
         new["ghi"].loc[at] = wx["ghi"].reindex(rows).to_numpy()
 

@@ -128,6 +128,9 @@ class Wide:
     temp_cell: pd.DataFrame
     flagged: pd.DataFrame  # bool: a quality flag sits on a reading behind this row
     from_sensor: pd.DataFrame  # bool: the plane irradiance of this row is the POA sensor's
+    # bool: the plane irradiance of this row follows the POA sensor's reading, carried to
+    # another plane for some of the inverter's arrays (perfcheck.physics.poa_translated)
+    translated: pd.DataFrame
     interval_s: pd.Series
     ghi: pd.Series
     clearsky_ghi: pd.Series
@@ -181,6 +184,7 @@ def wide(df: pd.DataFrame, ac_w: dict[str, float], export_limit_w: float | None,
                  "sun_azimuth_deg", "rain_mm"):
         site_rows[name] = num(name)[first]
     flags = df["flags"].fillna("").astype(str).to_numpy()
+    source = df["poa_source"].astype(str).to_numpy()
     return Wide(
         measured=grid(num("measured_ac_w")),
         expected=grid(num("expected_ac_w")),
@@ -191,8 +195,8 @@ def wide(df: pd.DataFrame, ac_w: dict[str, float], export_limit_w: float | None,
         poa_modelled=grid(num("poa_modelled_wm2")),
         temp_cell=grid(num("temp_cell_c")),
         flagged=grid(flags != "", fill=False, dtype=bool),
-        from_sensor=grid(df["poa_source"].astype(str).to_numpy() == "sensor", fill=False,
-                         dtype=bool),
+        from_sensor=grid(source == "sensor", fill=False, dtype=bool),
+        translated=grid(source == "translated", fill=False, dtype=bool),
         interval_s=site_rows["interval_s"].fillna(site_rows["interval_s"].median()),
         ghi=site_rows["ghi_wm2"],
         clearsky_ghi=site_rows["clearsky_ghi_wm2"],
@@ -693,6 +697,7 @@ def coarsen(w: Wide, *masks: pd.DataFrame, target_s: float = 900.0
         potential_modelled=frame(w.potential_modelled),
         poa=frame(w.poa), poa_modelled=frame(w.poa_modelled), temp_cell=frame(w.temp_cell),
         flagged=frame(w.flagged, "any"), from_sensor=frame(w.from_sensor, "all"),
+        translated=frame(w.translated, "all"),
         interval_s=series(w.interval_s, "sum"), ghi=series(w.ghi),
         clearsky_ghi=series(w.clearsky_ghi), zenith=series(w.zenith),
         azimuth=series(w.azimuth), rain=series(w.rain, "sum"),

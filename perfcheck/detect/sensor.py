@@ -476,10 +476,15 @@ def has_ghi(w: Wide) -> bool:
 
 
 def driven_columns(w: Wide) -> list[str]:
-    """Inverters whose expected power follows the POA sensor: those it feeds and, where no GHI
-    is logged, every inverter (their plane irradiance is the sensor's, decomposed and
-    transposed: GTI-DIRINT, see :mod:`perfcheck.model`)."""
-    return list(w.inverters) if not has_ghi(w) else sensor_columns(w)
+    """Inverters whose expected power follows the POA sensor: those it feeds, its reading
+    itself or carried to their other planes (:func:`perfcheck.physics.poa_translated`), and,
+    where no GHI is logged, every inverter (their plane irradiance is the sensor's, decomposed
+    and transposed: GTI-DIRINT, see :mod:`perfcheck.model`)."""
+    if not has_ghi(w):
+        return list(w.inverters)
+    day = w.zenith < 80
+    share = (w.from_sensor | w.translated)[day.to_numpy()].mean()
+    return [c for c in w.inverters if share.get(c, 0) > 0.5]
 
 
 def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 1e-3,
@@ -605,7 +610,7 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     cols = sensor_columns(w)
     if cols:
         sensor, sensor_clear = sensor_series(w), planes_clear["_sensor"]
-    elif part:
+    elif part or w.translated.to_numpy().any():
         sensor, sensor_clear = reading, planes_clear["_sensor"]
     else:
         sensor, sensor_clear = w.poa[driven].mean(axis=1), planes_clear[driven].mean(axis=1)
@@ -707,7 +712,9 @@ def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
     from the model stage's series built on the POA transposed from GHI (its own cell
     temperature, part-load efficiency and limits), and their irradiance from that modelled
     POA. An inverter that the sensor feeds in part (:attr:`Suspect.shares`) takes the error
-    in its share, or the modelled series on all its rows."""
+    in its share, or the modelled series on all its rows; where GHI is logged, a driven
+    inverter's rows whose irradiance was transposed from GHI (not the sensor's reading, nor
+    carried from it) keep their series."""
     if not suspects:
         return w
     exp, pot, poa = w.expected.copy(), w.potential.copy(), w.poa.copy()
@@ -722,14 +729,17 @@ def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
                 f = np.full(len(w.index), s.factor)
             use = inside & np.isfinite(f)
             # an inverter fed by the sensor in the share k sees 1 + k (f - 1) of the error
-            k = np.array([fed[c] for c in driven])
-            div = 1 + k[None, :] * (f[use, None] - 1)
+            k = np.array([fed[c] for c in driven])[None, :]
+            if s.shares is None and has_ghi(w):  # rows transposed from GHI do not follow it
+                k = k * (w.from_sensor | w.translated)[driven].to_numpy()[use]
+            div = 1 + k * (f[use, None] - 1)
             for frame in (exp, pot, poa):
                 frame.loc[use, driven] = frame.loc[use, driven].to_numpy() / div
             continue
         for c in w.inverters:
             # an inverter fed in part: its series from the modelled POA alone, all its rows
-            use = inside & (w.from_sensor[c].to_numpy() | (fed.get(c, 0.0) > 0))
+            use = inside & ((w.from_sensor[c] | w.translated[c]).to_numpy()
+                            | (fed.get(c, 0.0) > 0))
             if not use.any():
                 continue
             pot.loc[use, c] = w.potential_modelled[c].to_numpy()[use]
