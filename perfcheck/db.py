@@ -110,6 +110,27 @@ def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
         raise
 
 
+@contextlib.contextmanager
+def registered(con: duckdb.DuckDBPyConnection, **frames: object) -> Iterator[None]:
+    """The frames (pandas objects) readable under their names inside the block.
+
+    When the block fails inside a transaction, DuckDB has aborted the transaction and refuses
+    to unregister them ("Current transaction is aborted"); the rollback drops them anyway, so
+    the block's own error is raised (an out-of-memory error, say), not that one.
+    """
+    for name, frame in frames.items():
+        con.register(name, frame)
+    try:
+        yield
+    except BaseException:
+        for name in frames:
+            with contextlib.suppress(duckdb.Error):
+                con.unregister(name)
+        raise
+    for name in frames:
+        con.unregister(name)
+
+
 def _session(con: duckdb.DuckDBPyConnection) -> None:
     """The settings of each connection (a cursor does not inherit them)."""
     con.execute("SET TimeZone = 'UTC'")
