@@ -214,11 +214,8 @@ def _rebuild(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, interval_s
     meas = measured_power(raw, site, interval_s, energy_s)
     meas = meas[meas["ts"] >= start]
     con.execute(db.sql("align_delete_span"), span)
-    con.register("_measured", meas)
-    try:
+    with db.registered(con, _measured=meas):
         rows = first_row(con, db.sql("align_build"), {"id": run_id, "iv": interval_s, **span})
-    finally:
-        con.unregister("_measured")
     return int(rows[0]) if rows else 0
 
 

@@ -499,23 +499,21 @@ def daily_sums(
             "end_ts": pd.Series([], dtype="datetime64[us, UTC]"),
         })
     step_s = shortest_interval(con)
-    con.register("_metrics_inverters", _inverter_table(site, settings))
-    con.register("_metrics_windows", windows[["action", "scope", "start_ts", "end_ts"]])
+    params = {"tz": site.timezone, "min_poa": settings.min_poa_wm2,
+              "avail_min_poa": settings.availability_min_poa_wm2,
+              "exclude_flags": list(settings.exclude_flags), "analysis": analysis_id,
+              "downtime_kinds": [k.name for k in kinds.TABLE if k.downtime],
+              "temp_basis": settings.pr_temp_basis, "basis": basis,
+              "meter_factor": meter_factor}
     try:
-        parts = [con.execute(db.sql("metrics_daily"), {
-            "tz": site.timezone, "start": a.to_pydatetime(), "end": b.to_pydatetime(),
-            "min_poa": settings.min_poa_wm2, "avail_min_poa": settings.availability_min_poa_wm2,
-            "exclude_flags": list(settings.exclude_flags), "analysis": analysis_id,
-            "downtime_kinds": [k.name for k in kinds.TABLE if k.downtime],
-            "temp_basis": settings.pr_temp_basis, "basis": basis,
-            "meter_factor": meter_factor,
-        }).df() for a, b in _day_pieces(site, start, end, step_s)]
+        with db.registered(con, _metrics_inverters=_inverter_table(site, settings),
+                           _metrics_windows=windows[["action", "scope", "start_ts", "end_ts"]]):
+            parts = [con.execute(db.sql("metrics_daily"), {
+                **params, "start": a.to_pydatetime(), "end": b.to_pydatetime()}).df()
+                for a, b in _day_pieces(site, start, end, step_s)]
     except duckdb.CatalogException as exc:
         raise DataError(f"no aligned series in the database ({exc}); run the model first")\
             from None
-    finally:
-        con.unregister("_metrics_inverters")
-        con.unregister("_metrics_windows")
     kept = [p for p in parts if len(p)] or parts[:1]
     df = kept[0] if len(kept) == 1 else pd.concat(kept, ignore_index=True)
     return complete_calendar(df, site, start, end, step_s)

@@ -163,8 +163,8 @@ def solar_position(times: pd.DatetimeIndex, latitude: float, longitude: float,
     """Topocentric sun position by the SPA of Reda & Andreas (2004), vectorised.
 
     The site-independent terms come from :func:`sun_time_terms` (computed once per time axis,
-    hourly and interpolated); the topocentric part (steps 3.9-3.15) uses pvlib's ``spa``
-    functions elementwise.
+    hourly and interpolated); the topocentric part (steps 3.9-3.15) is :func:`topocentric`,
+    elementwise.
 
     Parameters
     ----------
@@ -194,33 +194,54 @@ def solar_position(times: pd.DatetimeIndex, latitude: float, longitude: float,
     Reda, I., Andreas, A. (2004). Solar position algorithm for solar radiation applications.
     Solar Energy 76(5), 577-589; NREL/TP-560-34302 (rev. 2008), eqs. 33-47.
     """
-    spa = pvlib.spa
     if pressure is None:
         pressure = float(pvlib.atmosphere.alt2pres(altitude))
     t = sun_time_terms(unix_seconds(times), delta_t)
-    H = spa.local_hour_angle(t["v"], longitude, t["alpha"])
-    xi = spa.equatorial_horizontal_parallax(t["R"])
+    return pd.DataFrame(topocentric(t, latitude, longitude, altitude, pressure / 100.0,
+                                    temperature, atmos_refract), index=times)
+
+
+def topocentric(terms: dict[str, np.ndarray], latitude: float, longitude: float,
+                altitude: float, pressure: float, temperature: float,
+                atmos_refract: float) -> dict[str, np.ndarray]:
+    """The topocentric sun (SPA steps 3.9-3.15) from the site-independent terms of
+    :func:`sun_time_terms`: the arithmetic of pvlib's ``spa`` functions of those steps, each
+    sine and cosine of an angle taken once where pvlib takes it in several functions (the
+    same numbers: tests compare them to the last bit).
+
+    ``pressure`` [mbar], ``temperature`` [C] and ``atmos_refract`` [deg] for the refraction;
+    returns the columns of :func:`solar_position` as arrays.
+
+    References
+    ----------
+    Reda, I., Andreas, A. (2004). Solar position algorithm for solar radiation applications.
+    Solar Energy 76(5), 577-589; NREL/TP-560-34302 (rev. 2008), eqs. 33-47.
+    """
+    spa = pvlib.spa
     u = spa.uterm(latitude)
     x = spa.xterm(u, latitude, altitude)
     y = spa.yterm(u, latitude, altitude)
-    d_alpha = spa.parallax_sun_right_ascension(x, xi, H, t["delta"])
-    delta_p = spa.topocentric_sun_declination(t["delta"], x, y, xi, d_alpha, H)
-    H_p = spa.topocentric_local_hour_angle(H, d_alpha)
-    e0 = spa.topocentric_elevation_angle_without_atmosphere(latitude, delta_p, H_p)
-    d_e = spa.atmospheric_refraction_correction(pressure / 100.0, temperature, e0,
-                                                atmos_refract)
-    e = spa.topocentric_elevation_angle(e0, d_e)
-    gamma = spa.topocentric_astronomers_azimuth(H_p, delta_p, latitude)
-    return pd.DataFrame(
-        {
-            "apparent_zenith": 90.0 - e,
-            "zenith": 90.0 - e0,
-            "apparent_elevation": e,
-            "elevation": e0,
-            "azimuth": spa.topocentric_azimuth_angle(gamma),
-        },
-        index=times,
-    )
+    lat = np.radians(latitude)
+    sin_lat, cos_lat = np.sin(lat), np.cos(lat)
+    H = spa.local_hour_angle(terms["v"], longitude, terms["alpha"])  # eq. 32
+    H_rad = np.radians(H)
+    sin_xi = np.sin(np.radians(spa.equatorial_horizontal_parallax(terms["R"])))  # eq. 33
+    delta = np.radians(terms["delta"])
+    denom = np.cos(delta) - x * sin_xi * np.cos(H_rad)
+    d_alpha = np.degrees(np.arctan2(-x * sin_xi * np.sin(H_rad), denom))  # eq. 38
+    delta_p = np.degrees(np.arctan2(  # eq. 40
+        (np.sin(delta) - y * sin_xi) * np.cos(np.radians(d_alpha)), denom))
+    Hp_rad = np.radians(H - d_alpha)  # eq. 41
+    delta_p_rad = np.radians(delta_p)
+    cos_Hp = np.cos(Hp_rad)
+    e0 = np.degrees(np.arcsin(  # eq. 42
+        sin_lat * np.sin(delta_p_rad) + cos_lat * np.cos(delta_p_rad) * cos_Hp))
+    e = e0 + spa.atmospheric_refraction_correction(pressure, temperature, e0,  # eqs. 43-44
+                                                   atmos_refract)
+    gamma = np.degrees(np.arctan2(  # eq. 45
+        np.sin(Hp_rad), cos_Hp * sin_lat - np.tan(delta_p_rad) * cos_lat)) % 360
+    return {"apparent_zenith": 90.0 - e, "zenith": 90.0 - e0, "apparent_elevation": e,
+            "elevation": e0, "azimuth": (gamma + 180) % 360}
 
 
 class SunPositions:

@@ -325,12 +325,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
         "irradiance_floor": IRRADIANCE_FLOOR_WM2,
     }
     runs, rates, gaps = runs_and_gaps(con, channels, table)
-    con.register("_quality_channels", channels)
-    con.register("_quality_sun", table)
-    con.register("_quality_runs", runs)
-    con.register("_quality_rates", rates)
-    con.register("_quality_gaps", gaps)
-    try:
+    with db.registered(con, _quality_channels=channels, _quality_sun=table, _quality_runs=runs,
+                       _quality_rates=rates, _quality_gaps=gaps):
         with db.transaction(con):
             carry_forward(con, site)
             units.run(con, site)  # before the flags: they read corrected values
@@ -342,9 +338,6 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
             con.execute("DELETE FROM quality_state")
             con.execute("INSERT INTO quality_state SELECT max(file_id) FROM source_files")
         counts = dict(con.execute("SELECT flag, count(*) FROM flags GROUP BY flag").fetchall())
-    finally:
-        for name in ("channels", "sun", "runs", "rates", "gaps"):
-            con.unregister(f"_quality_{name}")
     return {name: int(counts.get(name, 0)) for name in FLAG_NAMES}
 
 

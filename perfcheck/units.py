@@ -369,11 +369,8 @@ def run(con: duckdb.DuckDBPyConnection, site: Site) -> dict[str, int]:
         [(d, _rating(site, "ac_power_w", d, 60)) for d in
          [inv.id for inv in site.inverters] + ["plant"]], columns=["device", "rating_w"])
     levels = con.execute(db.sql("units_levels")).df()
-    con.register("_units_ratings", ratings)
-    try:
+    with db.registered(con, _units_ratings=ratings):
         pairs = con.execute(db.sql("units_energy"), {"min_share": MIN_SHARE}).df()
-    finally:
-        con.unregister("_units_ratings")
     logger_of = {int(f): lg for f, _, lg in files.itertuples(index=False)}
     found = findings(site, levels, pairs, {(f, c) for f, c, *_ in fixed}, logger_of)
     before = con.execute("SELECT file_id, channel_id, factor FROM unit_adjust "

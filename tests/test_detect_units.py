@@ -571,6 +571,26 @@ def test_a_stuck_run_holds_one_value():
     assert (s.start, s.end, s.evidence["minutes"]) == (idx[3], idx[9], 90.0)
 
 
+def test_stuck_runs_of_many_values_as_read_one_by_one():
+    # common practice, as above: each stretch of identical consecutive readings is one run.
+    # Invented readings at 1 min, the clear sky above 50 W/m^2 all along, drawn from few
+    # values (so runs and value changes are many, as in a sensor logged in whole W/m^2),
+    # checked against a plain reading of the series one value at a time
+    rng = np.random.default_rng(7)
+    idx = pd.date_range("2024-06-01", periods=20_000, freq="min", tz="UTC")
+    w = types.SimpleNamespace(interval_s=pd.Series(60.0, index=idx), index=idx)
+    v = rng.choice([210.0, 211.0, 212.0], 8_000).repeat(rng.integers(1, 6, 8_000))[:len(idx)]
+    got = [(s.start, s.end) for s in sensor.stuck_faults(
+        w, pd.Series(v, index=idx), pd.Series(500.0, index=idx), min_stuck_minutes=4.0)]
+    want, a = [], 0
+    for i in range(1, len(v) + 1):
+        if i == len(v) or v[i] != v[a]:
+            if i - a >= 4:  # 4 readings of one minute
+                want.append((idx[a], idx[i - 1] + pd.Timedelta(minutes=1)))
+            a = i
+    assert len(want) > 100 and got == want
+
+
 def test_declining_finds_a_late_decline_and_holds_its_false_alarm_rate():
     # invented truth (Kimber et al. 2006 rain-reset model): an index drifting up 0.01 %/day
     # for 300 days (the model's seasonal error), then soiling at 0.4 %/day for 30 days, noise

@@ -4,13 +4,14 @@ from __future__ import annotations
 
 import datetime as dt
 
+import duckdb
 import numpy as np
 import pandas as pd
 import pytest
 from metrics_support import connect_with, make_site, synthetic_aligned, utc
 from numpy.testing import assert_allclose
 
-from perfcheck import metrics, periods
+from perfcheck import db, metrics, periods
 from perfcheck.errors import SiteFileError
 
 
@@ -461,3 +462,22 @@ def test_daily_sums_in_pieces_of_whole_days_are_the_sums_of_one_query(monkeypatc
     monkeypatch.setattr(metrics, "DAILY_PIECE_ROWS", 24 * 10 * len(site.inverters))
     assert len(metrics._day_pieces(site, start, end, 3600.0)) == 37
     pd.testing.assert_frame_equal(metrics.daily_sums(con, site, start, end, settings), whole)
+
+
+def test_daily_sums_failing_inside_a_transaction_raises_its_own_error(monkeypatch):
+    # a query that fails inside a transaction aborts it, and DuckDB then refuses every other
+    # statement, the unregistering of the query's frames too: the error raised must be the
+    # query's own (an out-of-memory error on a large site, forced here by DuckDB's error()),
+    # not "Current transaction is aborted" (common practice: report the first failure)
+    site = make_site()
+    con = connect_with(synthetic_aligned(site, "2025-06-15", "2025-06-16", freq="1h"))
+    start, end = utc("2025-06-14 22:00"), utc("2025-06-15 22:00")
+    settings = metrics.load_settings(site)
+    sql = db.sql
+    monkeypatch.setattr(db, "sql", lambda name: "SELECT error('Out of Memory Error: forced') "
+                        f"FROM ({sql(name)})" if name == "metrics_daily" else sql(name))
+    with pytest.raises(duckdb.Error, match="forced"), db.transaction(con):
+        metrics.daily_sums(con, site, start, end, settings)
+    # the rollback dropped the frames: the names are free for the next call
+    monkeypatch.setattr(db, "sql", sql)
+    assert len(metrics.daily_sums(con, site, start, end, settings)) == len(site.inverters)

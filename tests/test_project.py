@@ -115,6 +115,22 @@ def test_sql_files_are_found_and_every_schema_runs(tmp_path):
     assert db.schema_names() == sorted(db.schema_names())
 
 
+def test_schema_runs_again_only_when_its_text_changed(tmp_path, monkeypatch):
+    # an up-to-date database skips the schema files (their digest is stored); a changed text
+    # runs them again and stores the new digest (common practice: a schema version stamp)
+    db.connect(tmp_path / "x.duckdb").close()
+    read = []
+    sql = db.sql
+    monkeypatch.setattr(db, "sql", lambda name: read.append(name) or sql(name))
+    con = db.connect(tmp_path / "x.duckdb")
+    assert read == []
+    con.close()
+    monkeypatch.setattr(db, "schema_digest", lambda: "changed")
+    con = db.connect(tmp_path / "x.duckdb")
+    assert read == db.schema_names()
+    assert con.execute("SELECT digest FROM schema_state").fetchall() == [("changed",)]
+
+
 def test_user_names_are_quoted_as_identifiers():
     assert db.quote_ident('P "WR1"') == '"P ""WR1"""'
 

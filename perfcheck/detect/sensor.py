@@ -456,8 +456,11 @@ def stuck_faults(w: Wide, sensor: pd.Series, reference: pd.Series,
     out = []
     # a run holds one value: two equal pairs side by side (95.7, 95.7, 93.1, 93.1) are none
     cuts = np.flatnonzero(np.r_[False, v[1:] != v[:-1]])
-    pieces = [(int(p[0]), int(p[-1]) + 1) for a, b in runs(same)
-              for p in np.split(np.arange(a, b), cuts[(cuts > a) & (cuts < b)] - a) if len(p)]
+    pieces = []
+    for a, b in runs(same):  # each run of pairs cut where the value changes inside it
+        inner = cuts[np.searchsorted(cuts, a, "right"):np.searchsorted(cuts, b, "left")]
+        edges = [a, *inner.tolist(), b]
+        pieces += zip(edges[:-1], edges[1:], strict=True)
     for a, b in pieces:
         minutes = step[a:b].sum() / 60
         if minutes < min_stuck_minutes:
