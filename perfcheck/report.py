@@ -598,6 +598,7 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "stats_rows": stats_table(events, tz),
         "guarantees": [guarantee_row(g) for g in result.get("guarantees", [])],
         "degradation_text": degradation_text(result.get("degradation") or {}),
+        "soiling_limit_text": soiling_limit_text(result.get("losses", {})),
         "revisions": [revision_text(r, tz) for r in result.get("revisions", [])],
         "losses_rows": losses_rows(result.get("losses", {})),
         "losses_lead": LOSSES_LEAD,
@@ -672,6 +673,29 @@ def degradation_text(d: dict) -> str:
         return f"Degradation: {d.get('status', 'not enough data')} ({method})."
     return (f"Degradation: {d['rate_pct_per_year']:+.2f} %/yr (interval {d['ci_low']:+.2f} to "
             f"{d['ci_high']:+.2f}), {method}.")
+
+
+def soiling_limit_text(losses: dict) -> str:
+    """The least soiling loss per cycle the analysis could have found on this plant, in
+    words (the losses block's ``soiling_detection_limit``, from
+    :func:`perfcheck.detect.soiling.detection_limit`); empty where the analysis stored none."""
+    lim = losses.get("soiling_detection_limit")
+    if not lim:
+        return ""
+    if lim["loss_pct"] is None:
+        return ("Soiling: too few days of the daily measured/expected index to say how small a "
+                "soiling loss it could show.")
+    where = (" where no rain reading marks the wash that ends it (a cleaning, or rain the "
+             "gauge missed); between the washes the rain readings mark, a smaller decline can "
+             "be found" if lim["washes_known_from_rain"] else "")
+    return (f"Soiling losses below {lim['loss_pct']:.1f} % per cycle (the loss reached by the "
+            "time a wash ends it) cannot be told from this plant's day-to-day noise" + where
+            + f": the daily measured/expected index scatters by {lim['daily_sigma_pct']:.1f} % "
+            "from day to day, and a wash is found only as a step up of that index (a one-sided "
+            f"normal test over the {lim['days']} days, false-alarm rate "
+            f"{np.format_float_positional(lim['alpha'], trim='-')} in "
+            "all). Smaller soiling may be present unreported, unless it continues a soiling "
+            "episode found above that size; its energy is then part of the unexplained rest.")
 
 
 def _as_shown(g: dict) -> dict:
@@ -880,6 +904,8 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
     else:
         b.append(("para", "No events were found in this period."))
     b.append(("para", ctx["degradation_text"]))
+    if ctx["soiling_limit_text"]:
+        b.append(("para", ctx["soiling_limit_text"]))
     if ctx["revisions"]:
         b.append(("para", "Revised findings:"))
         b += [("para", r) for r in ctx["revisions"]]
