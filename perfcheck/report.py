@@ -598,7 +598,7 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "stats_rows": stats_table(events, tz),
         "guarantees": [guarantee_row(g) for g in result.get("guarantees", [])],
         "degradation_text": degradation_text(result.get("degradation") or {}),
-        "soiling_limit_text": soiling_limit_text(result.get("losses", {})),
+        "figure_notes": {"soiling": soiling_limit_text(result.get("losses", {}))},
         "revisions": [revision_text(r, tz) for r in result.get("revisions", [])],
         "losses_rows": losses_rows(result.get("losses", {})),
         "losses_lead": LOSSES_LEAD,
@@ -685,17 +685,20 @@ def soiling_limit_text(losses: dict) -> str:
     if lim["loss_pct"] is None:
         return ("Soiling: too few days of the daily measured/expected index to say how small a "
                 "soiling loss it could show.")
-    where = (" where no rain reading marks the wash that ends it (a cleaning, or rain the "
-             "gauge missed); between the washes the rain readings mark, a smaller decline can "
-             "be found" if lim["washes_known_from_rain"] else "")
-    return (f"Soiling losses below {lim['loss_pct']:.1f} % per cycle (the loss reached by the "
-            "time a wash ends it) cannot be told from this plant's day-to-day noise" + where
-            + f": the daily measured/expected index scatters by {lim['daily_sigma_pct']:.1f} % "
-            "from day to day, and a wash is found only as a step up of that index (a one-sided "
-            f"normal test over the {lim['days']} days, false-alarm rate "
-            f"{np.format_float_positional(lim['alpha'], trim='-')} in "
-            "all). Smaller soiling may be present unreported, unless it continues a soiling "
-            "episode found above that size; its energy is then part of the unexplained rest.")
+    rain = lim["washes_known_from_rain"]
+    return (f"Soiling losses below {number(lim['loss_pct'])} % per cycle (the loss reached by "
+            "the time a wash ends it) cannot be told from this plant's day-to-day noise"
+            + (" when no rain reading marks the wash (a cleaning, or rain the gauge missed)"
+               if rain else "")
+            + f": the daily measured/expected index scatters by {number(lim['daily_sigma_pct'])}"
+            f" % from day to day, and {'such a' if rain else 'a'} wash is found only as a step up "
+            "of that index (a one-sided normal test over the "
+            f"{lim['days']} days, false-alarm rate "
+            f"{np.format_float_positional(lim['alpha'], trim='-')} in all). "
+            + ("Between the washes the rain readings mark, a smaller decline can be found. "
+               if rain else "")
+            + "Smaller soiling may be present unreported, unless it continues a soiling episode "
+            "found above that size; its energy is then part of the unexplained rest.")
 
 
 def _as_shown(g: dict) -> dict:
@@ -782,7 +785,7 @@ def _range(p: dict, key: str, spec: str) -> str:
 def render_html(ctx: dict, pngs: dict[str, bytes]) -> str:
     env = jinja2.Environment(loader=jinja2.PackageLoader("perfcheck", "templates"),
                              autoescape=True, trim_blocks=True, lstrip_blocks=True)
-    figs = [{"stem": stem, "caption": caption,
+    figs = [{"stem": stem, "caption": caption, "note": ctx["figure_notes"].get(stem, ""),
              "data": base64.b64encode(pngs[stem]).decode("ascii")}
             for stem, caption, _ in figures.FIGURES]
     return env.get_template("report.html.j2").render(**ctx, figures=figs)
@@ -888,7 +891,7 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
         b.append(("para", ctx["meter_lead"]))
         b.append(("table", (ctx["meter_head"], ctx["meter_rows"])))
     b.append(("h", "3  Figures"))
-    b.append(("figures", None))
+    b.append(("figures", ctx["figure_notes"]))
     b.append(("h", "4  Events"))
     if ctx["losses_rows"]:
         b.append(("para", ctx["losses_lead"]))
@@ -904,8 +907,6 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
     else:
         b.append(("para", "No events were found in this period."))
     b.append(("para", ctx["degradation_text"]))
-    if ctx["soiling_limit_text"]:
-        b.append(("para", ctx["soiling_limit_text"]))
     if ctx["revisions"]:
         b.append(("para", "Revised findings:"))
         b += [("para", r) for r in ctx["revisions"]]
