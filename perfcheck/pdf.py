@@ -227,7 +227,9 @@ def _table(pages: Pages, head: list[str], rows: list[list[str]]) -> None:
     pages.y -= LINE["table"] * 0.6
 
 
-def _figures(pages: Pages, pixels: dict[str, np.ndarray]) -> None:
+def _figures(pages: Pages, pixels: dict[str, np.ndarray], notes: dict[str, str]) -> None:
+    """Every figure, numbered, with its caption and, where ``notes`` has one for its stem,
+    the note on it that the data of this report call for."""
     for n, (stem, caption, _) in enumerate(figures.FIGURES, 1):
         # the PNG's 8-bit channels as they are: matplotlib embeds them without normalising
         # a float image first
@@ -235,12 +237,16 @@ def _figures(pages: Pages, pixels: dict[str, np.ndarray]) -> None:
         width = (A4[0] - 2 * MARGIN) * FIGURE_WIDTH
         height = width * img.shape[0] / img.shape[1]
         left = (A4[0] - width) / 2
-        pages.need(height + 0.55)
+        note = notes.get(stem)
+        lines = _wrap(note, WRAP["para"] + 8) if note else []
+        pages.need(height + 0.55 + len(lines) * LINE["para"])  # the note stays with it
         pages.fig.add_artist(_Picture((left / A4[0], (pages.y - height) / A4[1],
                                        (left + width) / A4[0], pages.y / A4[1]), img))
         pages.y -= height + 0.05
         for line in _wrap(f"Figure {n}. {caption}", WRAP["para"] + 8):
             pages.text("para", line, x=left, size=7.5, colour=figures.MUTED, style="italic")
+        for line in lines:
+            pages.text("para", line, x=left, size=7.5)
         pages.y -= 0.15
 
 
@@ -255,14 +261,14 @@ def write_pdf(blocks: list[tuple[str, Any]], pixels: dict[str, np.ndarray], path
 
     Kinds: ``title``, ``h``, ``lead``, ``para`` (a string each), ``pre`` (preformatted text),
     ``table`` (``(head, rows)``, months or items down), ``figures`` (all figures, numbered,
-    with their captions).
+    with their captions; the content a dict of notes by figure stem, or None).
     """
     with (_glyph_positions_only(),
           PdfPages(path, metadata={"Title": title, "Creator": "perfcheck"}) as pdf):
         pages = Pages(pdf, title)
         for kind, content in blocks:
             if kind == "figures":
-                _figures(pages, pixels)
+                _figures(pages, pixels, content or {})
             elif kind == "table":
                 _table(pages, *content)
             elif kind == "pre":

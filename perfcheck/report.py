@@ -599,6 +599,7 @@ def context(site: Site, result: dict, aligned: pd.DataFrame, quality: dict) -> d
         "stats_rows": stats_table(events, tz),
         "guarantees": [guarantee_row(g) for g in result.get("guarantees", [])],
         "degradation_text": degradation_text(result.get("degradation") or {}),
+        "figure_notes": {"soiling": soiling_limit_text(result.get("losses", {}))},
         "revisions": [revision_text(r, tz) for r in result.get("revisions", [])],
         "losses_rows": losses_rows(result.get("losses", {})),
         "losses_lead": LOSSES_LEAD,
@@ -673,6 +674,32 @@ def degradation_text(d: dict) -> str:
         return f"Degradation: {d.get('status', 'not enough data')} ({method})."
     return (f"Degradation: {d['rate_pct_per_year']:+.2f} %/yr (interval {d['ci_low']:+.2f} to "
             f"{d['ci_high']:+.2f}), {method}.")
+
+
+def soiling_limit_text(losses: dict) -> str:
+    """The least soiling loss per cycle the analysis could have found on this plant, in
+    words (the losses block's ``soiling_detection_limit``, from
+    :func:`perfcheck.detect.soiling.detection_limit`); empty where the analysis stored none."""
+    lim = losses.get("soiling_detection_limit")
+    if not lim:
+        return ""
+    if lim["loss_pct"] is None:
+        return ("Soiling: too few days of the daily measured/expected index to say how small a "
+                "soiling loss it could show.")
+    rain = lim["washes_known_from_rain"]
+    return (f"Soiling losses below {number(lim['loss_pct'])} % per cycle (the loss reached by "
+            "the time a wash ends it) cannot be told from this plant's day-to-day noise"
+            + (" when no rain reading marks the wash (a cleaning, or rain the gauge missed)"
+               if rain else "")
+            + f": the daily measured/expected index scatters by {number(lim['daily_sigma_pct'])}"
+            f" % from day to day, and {'such a' if rain else 'a'} wash is found only as a step up "
+            "of that index (a one-sided normal test over the "
+            f"{lim['days']} days, false-alarm rate "
+            f"{np.format_float_positional(lim['alpha'], trim='-')} in all). "
+            + ("Between the washes the rain readings mark, a smaller decline can be found. "
+               if rain else "")
+            + "Smaller soiling may be present unreported, unless it continues a soiling episode "
+            "found above that size; its energy is then part of the unexplained rest.")
 
 
 def _as_shown(g: dict) -> dict:
@@ -759,7 +786,7 @@ def _range(p: dict, key: str, spec: str) -> str:
 def render_html(ctx: dict, pngs: dict[str, bytes]) -> str:
     env = jinja2.Environment(loader=jinja2.PackageLoader("perfcheck", "templates"),
                              autoescape=True, trim_blocks=True, lstrip_blocks=True)
-    figs = [{"stem": stem, "caption": caption,
+    figs = [{"stem": stem, "caption": caption, "note": ctx["figure_notes"].get(stem, ""),
              "data": base64.b64encode(pngs[stem]).decode("ascii")}
             for stem, caption, _ in figures.FIGURES]
     return env.get_template("report.html.j2").render(**ctx, figures=figs)
@@ -865,7 +892,7 @@ def pdf_text_blocks(ctx: dict) -> list[tuple[str, Any]]:
         b.append(("para", ctx["meter_lead"]))
         b.append(("table", (ctx["meter_head"], ctx["meter_rows"])))
     b.append(("h", "3  Figures"))
-    b.append(("figures", None))
+    b.append(("figures", ctx["figure_notes"]))
     b.append(("h", "4  Events"))
     if ctx["losses_rows"]:
         b.append(("para", ctx["losses_lead"]))

@@ -173,7 +173,10 @@ def example_check(start="2025-06-01T00:00:00+02:00", end="2025-07-01T00:00:00+02
         "losses": {"expected_kwh": 14200.0, "measured_kwh": 13404.8,
                    "by_cause_kwh": {"partial_outage": 412.0, "soiling": 210.0,
                                     "clipping": 95.0},
-                   "unexplained_kwh": 14200.0 - 13404.8 - 412.0 - 210.0 - 95.0},
+                   "unexplained_kwh": 14200.0 - 13404.8 - 412.0 - 210.0 - 95.0,
+                   "soiling_detection_limit": {
+                       "loss_pct": 4.1, "daily_sigma_pct": 0.87, "days": 341, "alpha": 1e-3,
+                       "washes_known_from_rain": False}},
         "degradation": {"rate_pct_per_year": None, "ci_ci_low": None, "ci_ci_high": None,
                         "method": "year-on-year (Jordan et al. 2018)",
                         "status": "not enough data"},

@@ -38,6 +38,8 @@ def test_check_prints_the_monthly_table(checked):
     assert any(line.startswith("2025-06 ") for line in lines)
     assert any(line.startswith("period ") for line in lines)
     assert "PR T-corr %" in result.output and "coverage" in result.output
+    # the least soiling the analysis could have seen, in words (as in the report)
+    assert "Soiling losses below " in result.output and " % per cycle" in result.output
 
 
 def test_check_prints_the_findings_in_words_and_local_time():
@@ -90,6 +92,9 @@ def test_check_json_follows_its_schema(checked):
         assert june[f"{key}_ci_low"] <= june[key] <= june[f"{key}_ci_high"]
     assert len(doc["metrics"]["daily"]) == 30
     assert doc["site"]["site_file"] == "hollerbach.toml"  # no absolute paths
+    # stored by the analysis, whole history: the step a wash must make, as a loss per cycle
+    lim = doc["losses"]["soiling_detection_limit"]
+    assert lim["days"] > 0 and lim["alpha"] == 1e-3 and 0 < lim["loss_pct"] < 100
 
 
 def test_check_schema_refuses_a_broken_document(checked):

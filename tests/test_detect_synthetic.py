@@ -511,6 +511,43 @@ def test_recurring_level_false_alarm_rate():
     assert len(np.unique(days[out])) < 3
 
 
+def test_recurring_level_finds_a_single_interval():
+    # Invented truth: a set-point of 60 % found on one day touches another, hazy day (expected
+    # power at most 55 %) in the one 10-minute interval of a sunny spell, at which the plant
+    # would deliver 8 % more (P = min(P_available, P_set), common practice). None of that
+    # day's 72 intervals drops so far below its hours around (noise 0.2 %), so the day alone
+    # cannot put the chance below 1 / (2 * 73), above alpha = 1e-3; the record's intervals at
+    # a like light level and hour can, and the day passes.
+    m, e, days = _cloudy_days(60, seed=4, limit=None)
+    day = np.flatnonzero(days == 30)
+    e[day] = np.minimum(e[day], 0.55)
+    at = day[36:37]
+    e[at] = 0.6 * 1.08 / 0.97
+    m[day] = 0.97 * e[day] * (1 + 0.002 * np.random.default_rng(8).standard_normal(len(day)))
+    m[at] = 0.6
+    m, e, days, keep = _with_found_day(m, e, days, 0.6)
+    out = _recurring(m, e, days, keep)
+    assert out[at].all() and not out[~np.isin(np.arange(len(m)), at)].any()
+
+
+def test_recurring_level_false_alarm_rate_at_cloud_edges():
+    # Invented truth: 300 days with no limit whose measured/expected has heavy tails (Student
+    # t, 3 degrees of freedom: drops of several per cent are common at every light level),
+    # and 300 calm days of which 30 have such tails (the record at a like light level then
+    # says less about those 30 than about the rest), each with one day found at 60 %: at
+    # alpha = 1e-3 per day about 0.3 false days are expected in each; 3 or more would have
+    # probability under 0.4 % (Poisson tail, common practice).
+    m, e, days = _cloud_edges(300, seed=5)
+    m, e, days, keep = _with_found_day(m, e, days, 0.6)
+    assert len(np.unique(days[_recurring(m, e, days, keep)])) < 3
+    m, e, days = _cloudy_days(300, seed=8, limit=None)
+    rng = np.random.default_rng(58)
+    heavy = np.isin(days, rng.choice(300, 30, replace=False))
+    m = np.where(heavy, 0.97 * e * (1 + 0.01 * rng.standard_t(3, len(e))), m)
+    m, e, days, keep = _with_found_day(m, e, days, 0.5)
+    assert len(np.unique(days[_recurring(m, e, days, keep)])) < 3
+
+
 def _cloud_edges(n_days: int, seed: int, limit: float | None = None):
     """:func:`_cloudy_days` with a heavy-tailed interval noise of measured/expected (Student t,
     3 degrees of freedom, scale 1 %: the sensor and the array see a cloud edge apart), the

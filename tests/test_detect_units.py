@@ -264,6 +264,52 @@ def test_precise_days_leave_out_the_noisy_dull_days():
     assert soiling.precise_days(alike, insolation, 1e-3).notna().all()
 
 
+def test_step_limit_is_the_normal_test_of_two_medians():
+    # derived from a normal table: z(0.025) = 1.95996; medians of k = 2 days either side,
+    # standard error of their difference 1.2533 sigma sqrt(2 / 2) (sqrt(pi / 2) sigma /
+    # sqrt(k) per median, Kendall & Stuart, from memory); one day (n = 1), no Bonferroni
+    assert soiling.step_limit(0.01, 1, 0.025, 2) == pytest.approx(0.0195996 * 1.2533, rel=1e-5)
+    # Bonferroni over the days: 365 days at alpha 1e-3 is z(2.74e-6) = 4.546 (normal table,
+    # between z(1e-5) = 4.265 and z(1e-6) = 4.753), times 1.2533 sqrt(2/3): 4.65 sigma
+    assert soiling.step_limit(1.0, 365, 1e-3) == pytest.approx(4.546 * 1.2533 * np.sqrt(2 / 3),
+                                                               rel=1e-3)
+
+
+def test_detection_limit_is_where_a_wash_begins_to_be_found():
+    # invented truth: a year of daily index, noise sd 1 %, soiled at a loss L until a wash on
+    # day 180. The stored limit is a loss per cycle, 1 - exp(-step), from the index's own
+    # scale (within 15 % of the true sd's limit); a wash ending a loss at the limit is found
+    # in at least half of 200 runs (the median's standard error 1.2533 sigma / sqrt(k) is
+    # the large-k one, above the exact one for k = 3, so the limit errs on the safe side),
+    # one of half the limit almost never (the limit as the size found half the time: common
+    # practice for a detection limit)
+    rng = np.random.default_rng(11)
+    days = pd.date_range("2024-01-01", periods=365, freq="D")
+    lim = soiling.detection_limit(pd.Series(np.exp(rng.normal(0, 0.01, 365)), index=days),
+                                  1e-3, rain_read=False)
+    assert lim["days"] == 365 and lim["washes_known_from_rain"] is False
+    assert lim["daily_sigma_pct"] == pytest.approx(1.0, rel=0.15)
+    assert 100 * -np.expm1(-soiling.step_limit(lim["daily_sigma_pct"] / 100, 365, 1e-3)) \
+        == pytest.approx(lim["loss_pct"])
+
+    def found(loss_pct: float) -> float:
+        hits = 0
+        for _ in range(200):
+            level = np.where(np.arange(365) < 180, np.log1p(-loss_pct / 100), 0.0)
+            index = pd.Series(np.exp(level + rng.normal(0, 0.01, 365)), index=days)
+            hits += any(d == days[180] or abs((d - days[180]).days) <= 1
+                        for d, _ in soiling.local_steps_up(index, 1e-3))
+        return hits / 200
+
+    at_sigma = 100 * -np.expm1(-soiling.step_limit(0.01, 365, 1e-3))  # the true sd's limit
+    assert lim["loss_pct"] == pytest.approx(at_sigma, rel=0.15)
+    assert found(at_sigma) >= 0.5
+    assert found(at_sigma / 2) <= 0.02
+    # too few days for the test: no limit to state
+    short = soiling.detection_limit(pd.Series(1.0, index=days[:6]), 1e-3, rain_read=True)
+    assert short["loss_pct"] is None
+
+
 def test_recovery_cause_unknown_without_rain_readings():
     # a step up of 10 % on a quiet index: with no rain readings its cause is unknown, with
     # readings and no rain it is a cleaning (invented truth; alpha 1e-3)

@@ -171,6 +171,29 @@ def test_event_paragraph_says_what_the_inverter_reported():
     assert " Meanwhile the inverter reported: stopped by the grid. We think so because " in text
 
 
+def test_soiling_limit_said_in_words_with_its_unit(written):
+    # the limit the analysis stored (invented in the example check: 4.1 % per cycle, daily
+    # scale 0.87 %, 341 days, alpha 0.001) is said under the soiling figure, in the HTML and
+    # the PDF (test_pdf_carries_every_number_of_the_html checks the numbers)
+    page = written[1]["html"].read_text(encoding="utf-8")
+    figure = page.split('<figure id="fig-soiling">', 1)[1].split("</figure>", 1)[0]
+    assert '<p class="fig-note" id="soiling-note">Soiling losses below 4.10 %' in figure
+    html = _visible_text(page)
+    assert ("Soiling losses below 4.10 % per cycle (the loss reached by the time a wash ends "
+            "it) cannot be told from this plant's day-to-day noise: the daily "
+            "measured/expected index scatters by 0.870 % from day to day, and a wash is found "
+            "only as a step up of that index") in html
+    assert "over the 341 days, false-alarm rate 0.001 in all" in html
+    lim = example_check()["losses"]["soiling_detection_limit"]
+    rain = report.soiling_limit_text({"soiling_detection_limit": {
+        **lim, "washes_known_from_rain": True, "alpha": 1e-5}})
+    assert "noise when no rain reading marks the wash" in rain and "rate 0.00001 in all" in rain
+    assert "Between the washes the rain readings mark, a smaller decline" in rain
+    unknown = report.soiling_limit_text({"soiling_detection_limit": {**lim, "loss_pct": None}})
+    assert unknown.startswith("Soiling: too few days")
+    assert report.soiling_limit_text({}) == ""
+
+
 def test_events_csv_stable_columns(written):
     rows = list(csv.DictReader(io.StringIO(written[1]["events_csv"].read_text())))
     assert list(rows[0]) == report.EVENT_FIELDS

@@ -87,6 +87,8 @@ def format_table(doc: dict[str, Any], site: Site) -> str:
               f"{report.kwh(losses['unexplained_kwh'])} kWh; guarantees checked: "
               f"{len(doc['guarantees'])}"]
     lines += meter_lines(losses.get("meter", {}), s.get("plant_basis"))
+    limit = report.soiling_limit_text(losses)
+    lines += [limit] if limit else []
     notes = units.words(doc.get("data_quality", {}))
     return "\n".join(lines + ([""] + notes if notes else []))
 

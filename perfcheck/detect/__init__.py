@@ -252,10 +252,9 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     keep = valid & ~excluded & ~shaded & ~repaired[:, None]
     pi = degradation.ageing_removed(daily_pi(w_fixed, keep),
                                     _plant_pi(w, keep, w_fixed.measured))
-    ev, fp, soil_ratio = soiling.detect(w_fixed, pi, rel_sigma, rain_mm=st.soiling_rain_mm,
-                                        alpha=st.alpha, undone=undone,
-                                        repaired=pd.DatetimeIndex(np.unique(
-                                            w.day.to_numpy()[repaired])))
+    ev, fp, soil_ratio, soil_limit = soiling.detect(
+        w_fixed, pi, rel_sigma, rain_mm=st.soiling_rain_mm, alpha=st.alpha, undone=undone,
+        repaired=pd.DatetimeIndex(np.unique(w.day.to_numpy()[repaired])))
     events += ev
     prints += fp
     t = lap("soiling", t)
@@ -278,6 +277,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     lap("attribution", t)
     model = {
         "model_relative_sigma_daily": rel_sigma,
+        "soiling_detection_limit": soil_limit,
         "baseline": {
             "reference_from": ref_first.date().isoformat(),
             "reference_days": st.reference_days, "cusum_k": st.cusum_k, "cusum_h": st.cusum_h,

@@ -221,10 +221,17 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
     measured/expected (``ratio``, interval x inverter) lies below that of the hours around it
     by ``tol`` too (median; a set-point scales every inverter alike, one inverter at its own
     limit beside others that follow the sun is not one). Days with no found level are never
-    tested. One sitting interval alone passes only on a day of more than 1 / (2 ``alpha``)
-    intervals (the half landing bounds its chance from below); pooling the days around, each
-    drop in its own day's scale, does not lift that where drops of its size recur, as they do
-    on heavy-tailed days: such a day stays unfound rather than raise the rate.
+    tested. Where none of the day's own intervals lands in an interval's band, its chance is
+    below what the day's few intervals can resolve (the half landing alone would hold it at
+    1 / (2 (n + 1)), so that one sitting interval could pass only on a day of more than
+    1 / (2 ``alpha``) intervals): it is then read off every interval of the record at a like
+    light level and hour of the day (:func:`_like_light`, again with half a landing), whose
+    drops near noon are far smaller than at dawn and dusk; where the day has drops in the
+    band, the larger of the two chances counts. (At a like light level alone, a tracker
+    plant whose measured/expected sags every evening passed two evening intervals on a
+    found level.) (Pooling the days, each drop in its own day's scale, was tried:
+    on heavy-tailed days drops of many times their scale recur, and it did not lift the
+    floor; at a like light level the drops of such days are in the record as they are.)
 
     References
     ----------
@@ -243,6 +250,7 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
     if not centres:
         return out
     done = np.isin(days, found)
+    hour = ((index - index.normalize()) / pd.Timedelta(hours=1)).to_numpy(dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
         plant = level / exp_level
         up = np.isfinite(plant) & (level > 0.05) & (exp_level > 0.05)
@@ -253,20 +261,51 @@ def _recurring(level: np.ndarray, exp_level: np.ndarray, days: np.ndarray, keep:
             above = up & (would >= c * (1 + tol)) & ~done
             sits = above & at
             drop = ratio / _local(np.where(at[:, None], np.nan, ratio), index, days)
+            pooled = _like_light(plant / local, exp_level, up & ~at & np.isfinite(local),
+                                 hour)
             for _, today in day_rows(days, sits):
                 # the day's own drops (measured/expected over that of the hours around) off
                 # the level: how often each interval that could lie above it lands on it
                 off = today[up[today] & ~at[today] & np.isfinite(local[today])]
                 ref = np.sort(plant[off] / local[off])
                 rows = today[above[today]]
-                hits = (np.searchsorted(ref, c * (1 + HOLD) / would[rows], side="right")
-                        - np.searchsorted(ref, c * (1 - HOLD) / would[rows], side="left"))
-                chance = float(np.sum((hits + 0.5) / (len(ref) + 1)))
+                lo, hi = c * (1 - HOLD) / would[rows], c * (1 + HOLD) / would[rows]
+                hits = (np.searchsorted(ref, hi, side="right")
+                        - np.searchsorted(ref, lo, side="left"))
+                # none of the day's own lands there: the whole record's at a like light
+                # level tells how rare that is (never below the day's own where it has some)
+                own = np.where(hits > 0, (hits + 0.5) / (len(ref) + 1), 0.0)
+                chance = float(np.sum(np.maximum(own, pooled(exp_level[rows], hour[rows], lo, hi))))
                 on = today[sits[today]]
                 if (_every_below(drop[on], tol)
                         and stats.poisson.sf(len(on) - 1, chance) <= alpha):
                     out[on] = True
     return out
+
+
+def _like_light(drop: np.ndarray, exp_level: np.ndarray, ok: np.ndarray, hour: np.ndarray):
+    """The chance that an interval's ``drop`` (measured/expected over that of the hours
+    around it) lands in a band, read off every interval ``ok`` of the record whose expected
+    power ``exp_level`` is within a factor of two of the one asked about (at dawn and dusk
+    the model's error jumps more than near noon, as in :func:`_held_by_chance`) and whose
+    ``hour`` of the day (UTC) is within an hour of its own (the model's error follows the
+    sun's path: rows that shade each other in the evening drop every evening), with half a
+    landing added so that it is never zero (the Jeffreys prior). Returns ``chance(light,
+    hour, lo, hi)`` over arrays of intervals."""
+    light = np.log(exp_level[ok])
+    order = np.argsort(light)
+    light, d, h = light[order], drop[ok][order], hour[ok][order]
+
+    def chance(at: np.ndarray, when: np.ndarray, lo: np.ndarray, hi: np.ndarray
+               ) -> np.ndarray:
+        a = np.searchsorted(light, np.log(at) - np.log(2.0), side="left")
+        b = np.searchsorted(light, np.log(at) + np.log(2.0), side="right")
+        near = [np.abs(h[i:j] - t) <= 1.0 for i, j, t in zip(a, b, when, strict=True)]
+        hits = np.array([np.count_nonzero(k & (d[i:j] >= x) & (d[i:j] <= y))
+                         for k, i, j, x, y in zip(near, a, b, lo, hi, strict=True)])
+        return (hits + 0.5) / (np.array([k.sum() for k in near]) + 1)
+
+    return chance
 
 
 def _every_below(drop: np.ndarray, tol: float) -> bool:

@@ -44,9 +44,11 @@ A soiling whose washes come before the loss reaches that (0.3 %/day washed every
 is a 4 % tooth; sigma is about 0.5 % on a plant with a plane-of-array sensor and 1-4 % on one
 modelled from horizontal irradiance) is below what the daily index can show and is not
 reported; a found episode is carried into such teeth beside it only by the sawtooth fit
-above. With a rain gauge the washes are known and only each interval's decline is tested
-(a least-squares slope over L days has a standard error of sigma sqrt(12 / L^3); the Theil-Sen
-slope's is close to it).
+above. The analysis stores that limit as a loss per cycle (:func:`detection_limit`) and the
+report says it, so that a reader knows which soiling could be there unseen. With a rain
+gauge the washes are known and only each interval's decline is tested (a least-squares
+slope over L days has a standard error of sigma sqrt(12 / L^3); the Theil-Sen slope's is
+close to it).
 
 Energy band (95 %): the rate's Theil-Sen interval (widened for days in a row that share
 their error) and the model's daily error, relative to
@@ -95,6 +97,7 @@ from perfcheck.lazy import lazy_module
 stats = lazy_module("scipy.stats")
 
 LR_95 = 3.841  # chi-square, 1 degree of freedom, 95 % (any chi-square table)
+STEP_DAYS = 3  # the days either side of a wash whose medians a step up compares
 
 METHOD = ("Theil-Sen decline of the daily performance index (without the dull days where "
           "they make it noisier) between recoveries (rain, "
@@ -163,13 +166,22 @@ def precise_days(index: pd.Series, insolation: pd.Series, alpha: float, half_day
     return index.where(clear >= edge)
 
 
-def local_steps_up(index: pd.Series, alpha: float, k: int = 3,
+def step_limit(sigma: float, n: int, alpha: float, k: int = STEP_DAYS) -> float:
+    """The least step of the log daily index that :func:`local_steps_up` finds among ``n``
+    days: the one-sided normal quantile of ``alpha / n`` (Bonferroni over the days) times the
+    standard error of the difference of two medians of ``k`` days, 1.2533 ``sigma``
+    sqrt(2 / k) (the median of k normal values has a standard error of sqrt(pi / 2) sigma /
+    sqrt(k) for large k, Kendall & Stuart, The Advanced Theory of Statistics, vol. 1, from
+    memory; for k = 3 the exact one is smaller, so the limit errs on the safe side)."""
+    return float(stats.norm.isf(alpha / n) * 1.2533 * sigma * np.sqrt(2.0 / k))
+
+
+def local_steps_up(index: pd.Series, alpha: float, k: int = STEP_DAYS,
                    repaired: pd.DatetimeIndex | None = None) -> list[tuple[pd.Timestamp, float]]:
     """Days where the index steps up: the median of the ``k`` values from that day on exceeds
-    the median of the ``k`` values before it by more than the one-sided normal quantile of
-    ``alpha / n`` (Bonferroni over the n days) times the difference's standard error
-    (1.2533 sigma sqrt(2 / k) for medians of k values, sigma from
-    :func:`perfcheck.detect.common.robust_sigma`). Local maxima only; (day, relative step).
+    the median of the ``k`` values before it by more than :func:`step_limit` (sigma from
+    :func:`perfcheck.detect.common.robust_sigma`, n the days). Local maxima only; (day,
+    relative step).
 
     ``repaired``: days whose data were rebuilt and left out (a clock or sensor fault's
     window). A step whose 2 k values lie on either side of such days is not taken: the test
@@ -188,21 +200,42 @@ def local_steps_up(index: pd.Series, alpha: float, k: int = 3,
     med = np.median(win, axis=1)  # med[i] = median of x[i:i+k]
     i = np.arange(k, n - k + 1)
     delta = med[i] - med[i - k]
-    z = delta / (1.2533 * sigma * np.sqrt(2.0 / k))
-    crit = stats.norm.isf(alpha / n)
     out = []
-    for j in np.flatnonzero(z > crit):
-        lo, hi = max(0, j - k), min(len(z), j + k + 1)
+    for j in np.flatnonzero(delta > step_limit(sigma, n, alpha, k)):
+        lo, hi = max(0, j - k), min(len(delta), j + k + 1)
         first, last = s.index[i[j] - k], s.index[i[j] + k - 1]
         if repaired is not None and ((repaired > first) & (repaired < last)).any():
             continue
-        if z[j] == z[lo:hi].max():
+        if delta[j] == delta[lo:hi].max():
             out.append((s.index[i[j]], float(np.exp(delta[j]) - 1)))
     return out
 
 
+def detection_limit(index: pd.Series, alpha: float, rain_read: bool, k: int = STEP_DAYS
+                    ) -> dict:
+    """The least soiling loss per cycle (the loss reached when a wash ends it) that the daily
+    ``index`` can show: a wash must step the index up by :func:`step_limit` to be found as a
+    recovery, and a clean/soiled ratio of exp(limit) is a loss of 1 - exp(-limit) of the
+    clean output. Below it a soiling is not told from the day-to-day noise (the sawtooth fit
+    carries a found episode into smaller teeth beside it, but finds none of its own). With
+    rain readings (``rain_read``) the rain washes are known without a step, and a smaller
+    decline between them can be found; the limit then holds for washes no rain reading marks
+    (a cleaning, rain the gauge missed). The loss [%], the index's daily scale [%]
+    (:func:`perfcheck.detect.common.robust_sigma` of its log), the days and ``alpha``."""
+    x = np.log(index.dropna().to_numpy())
+    sigma = robust_sigma(x)
+    limit = step_limit(sigma, len(x), alpha, k) if len(x) >= 2 * k + 1 else float("nan")
+    return {"loss_pct": 100 * float(-np.expm1(-limit)) if np.isfinite(limit) else None,
+            "daily_sigma_pct": 100 * sigma if np.isfinite(sigma) else None,
+            "days": len(x), "alpha": alpha, "washes_known_from_rain": rain_read,
+            "statistic": "one-sided normal test of the step between the medians of the "
+                         f"{k} days either side of a wash, at alpha over the days "
+                         "(Bonferroni)"}
+
+
 def recoveries(index: pd.Series, rain_daily: pd.Series, rain_mm: float, alpha: float,
-               min_days: int = 3, repaired: pd.DatetimeIndex | None = None) -> list[dict]:
+               min_days: int = STEP_DAYS, repaired: pd.DatetimeIndex | None = None
+               ) -> list[dict]:
     """Recovery days (the first day of the recovered level), with cause ("rain", "cleaning",
     or "unknown" where ``rain_daily`` is NaN on the day and the day before: no rain readings)
     and step size; ``repaired`` as in :func:`local_steps_up`."""
@@ -242,8 +275,9 @@ def _cause(rain_daily: pd.Series, day: pd.Timestamp) -> dict:
 def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
            alpha: float = 0.01, min_days: int = 5, undone: Sequence[Footprint] = (),
            repaired: pd.DatetimeIndex | None = None
-           ) -> tuple[list[Event], list[Footprint], pd.Series]:
-    """Soiling episodes, their footprints, and the daily soiling ratio (1 where clean).
+           ) -> tuple[list[Event], list[Footprint], pd.Series, dict]:
+    """Soiling episodes, their footprints, the daily soiling ratio (1 where clean) and the
+    least loss per cycle the index can show (:func:`detection_limit`).
 
     ``undone``: the findings whose share of the power ``w.measured`` has put back (lost
     strings, stalled rows); their inverters' days are left out of the index
@@ -310,7 +344,7 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
                      exp_daily.reindex(days).fillna(0.0).to_numpy())
     events, prints = _episodes(w, groups, ratio, rec_at, rel_sigma, exp_daily,
                                level_error(idx), rate_widen)
-    return events, prints, ratio
+    return events, prints, ratio, detection_limit(idx, alpha, bool(read.any()))
 
 
 def declining(y: np.ndarray, x: np.ndarray, weight: np.ndarray, alpha: float
