@@ -150,6 +150,11 @@ class Wide:
     def index(self) -> pd.DatetimeIndex:
         return self.measured.index
 
+    @property
+    def follows_sensor(self) -> pd.DataFrame:
+        """bool: the row's plane irradiance is the POA sensor's reading, or carried from it."""
+        return self.from_sensor | self.translated
+
     def energy_kwh(self, power_w: pd.DataFrame | pd.Series) -> pd.DataFrame | pd.Series:
         """Interval energy [kWh] of a power [W] frame on this index."""
         return power_w.mul(self.interval_s.to_numpy() / 3.6e6, axis=0)

@@ -486,7 +486,7 @@ def driven_columns(w: Wide) -> list[str]:
     if not has_ghi(w):
         return list(w.inverters)
     day = w.zenith < 80
-    share = (w.from_sensor | w.translated)[day.to_numpy()].mean()
+    share = w.follows_sensor[day.to_numpy()].mean()
     return [c for c in w.inverters if share.get(c, 0) > 0.5]
 
 
@@ -734,14 +734,14 @@ def corrected(w: Wide, suspects: list[Suspect]) -> Wide:
             # an inverter fed by the sensor in the share k sees 1 + k (f - 1) of the error
             k = np.array([fed[c] for c in driven])[None, :]
             if s.shares is None and has_ghi(w):  # rows transposed from GHI do not follow it
-                k = k * (w.from_sensor | w.translated)[driven].to_numpy()[use]
+                k = k * w.follows_sensor[driven].to_numpy()[use]
             div = 1 + k * (f[use, None] - 1)
             for frame in (exp, pot, poa):
                 frame.loc[use, driven] = frame.loc[use, driven].to_numpy() / div
             continue
         for c in w.inverters:
             # an inverter fed in part: its series from the modelled POA alone, all its rows
-            use = inside & ((w.from_sensor[c] | w.translated[c]).to_numpy()
+            use = inside & (w.follows_sensor[c].to_numpy()
                             | (fed.get(c, 0.0) > 0))
             if not use.any():
                 continue
