@@ -137,6 +137,17 @@ def test_targets_and_table(scored: dict) -> None:
     assert "FAIL  faults found with the right kind and scope (>= 90 %): 3/4" in text
 
 
+def test_pr_months_split_by_irradiance_input(scored: dict) -> None:
+    # the invented plant logs no POA sensor: its two healthy months (0 % and +1.0 %, which
+    # floating point puts a hair outside; the third month is the outage's) count under GHI
+    # only, a plant with a sensor and a month 2 % off under the other
+    assert scored["irradiance"] == "GHI only"
+    sensor = {**scored, "irradiance": "in-plane sensor",
+              "pr": [{"month": "2023-04", "pr_error_pct": 2.0, "covered": True}]}
+    text = score.format_report([scored, sensor])
+    assert "within +-1 % by irradiance input: GHI only 1/2, in-plane sensor 0/1" in text
+
+
 def test_tracker_stall_scored_and_stow_called_fault_counted() -> None:
     # invented truth: a stall of wr1 for two days and a wind stow (design) on 1 June; the
     # check finds the stall 6 h late with 10 % more energy, shows the stow as wind_stow and
