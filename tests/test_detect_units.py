@@ -323,6 +323,28 @@ def test_recovery_cause_unknown_without_rain_readings():
         assert rec[0]["day"] == days[20]
 
 
+def test_wash_on_dull_days_is_placed_on_its_day():
+    # invented truth: a 10 % step up on day 20 of a quiet index (0.3 % a day), days 18-23
+    # dull and left out of the kept index (their index, noisier, 1.5 % a day, still on the
+    # level of its side). The step test on the kept days names the first kept day after
+    # the wash (day 24, or a kept day beside it); the every-day index puts the wash back on
+    # day 20 (alpha 1e-3; common practice: a change-point is placed where the data split)
+    days = pd.date_range("2024-01-01", periods=50, freq="D")
+    rng = np.random.default_rng(7)
+    level = np.r_[np.full(20, 0.9), np.full(30, 1.0)]
+    sd = np.where((np.arange(50) >= 18) & (np.arange(50) < 24), 0.015, 0.003)
+    every = pd.Series(level * np.exp(rng.normal(0, 1, 50) * sd), index=days)
+    kept = every.copy()
+    kept[days[18:24]] = np.nan
+    rain = pd.Series(np.nan, index=days)
+    (told,) = [d for d, _ in soiling.local_steps_up(kept, 1e-3)]
+    assert told >= days[24]
+    rec = soiling.recoveries(kept, rain, 5.0, 1e-3, every_day=every)
+    assert [r["day"] for r in rec] == [days[20]]
+    # without the every-day index the recovery stays on the kept day
+    assert [r["day"] for r in soiling.recoveries(kept, rain, 5.0, 1e-3)] == [told]
+
+
 def test_no_recovery_is_read_across_days_left_out():
     # invented truth: a quiet index (0.3 % a day) that stands 8 % higher after 20 days whose
     # data were rebuilt and left out (a clock fault's window) than before them: the season

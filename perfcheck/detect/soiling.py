@@ -6,7 +6,9 @@ orientation or size count alike and one inverter's own fault does not move it). 
 index is several times noisier than a clear day's, are left out where that makes the index more
 precise (:func:`precise_days`); the soiling ratio found still applies to them. Recoveries are
 (a) days on which some 24-hour rain total reaches ``rain_mm`` in the readings and (b)
-significant local steps up of the index (:func:`local_steps_up`); a step up with at least 1 mm
+significant local steps up of the index (:func:`local_steps_up`), each placed on its day by
+every day's index, the dull days too (:func:`wash_day`: a wash on a dull day is otherwise
+put on the next clear one, days late); a step up with at least 1 mm
 of rain on that day or the day before is a rain recovery, one on days with rain readings and
 less rain a cleaning, and one on days without rain readings (no rain gauge, a gap) of unknown
 cause: rain and a cleaning look alike in the index. Between two recoveries the index is fitted
@@ -233,12 +235,40 @@ def detection_limit(index: pd.Series, alpha: float, rain_read: bool, k: int = ST
                          "(Bonferroni)"}
 
 
+def wash_day(index: pd.Series, every_day: pd.Series, day: pd.Timestamp,
+             k: int = STEP_DAYS) -> pd.Timestamp:
+    """The day a step up of the kept ``index`` (:func:`local_steps_up`) happened. ``day``
+    is the first kept day of the recovered level by the medians of ``k`` kept days either
+    side, but the wash may have come on a day left out as dull (:func:`precise_days`), and
+    where kept days are few the medians either side of two neighbouring days differ alike.
+    Every day's index over the 2 ``k`` kept days the test compared (``every_day``: the index
+    before the dull days were left out) shows the level each day was on: the wash is the
+    split of those days into the soiled level (the median of the ``k`` kept days before
+    ``day``) and the recovered one (the median of the ``k`` from it) with the least sum of
+    absolute log deviations (the least-absolute-deviation change-point, robust to a dull day
+    the model got wrong; Bai 1995, "Least absolute deviation estimation of a shift",
+    Econometric Theory 11(3):403, from memory); ties go to the later day."""
+    s = index.dropna()
+    at = int(s.index.searchsorted(day))
+    if at < k or at + k > len(s):
+        return day
+    low = float(np.log(np.median(s.iloc[at - k:at])))
+    high = float(np.log(np.median(s.iloc[at:at + k])))
+    span = every_day[(every_day.index >= s.index[at - k])
+                     & (every_day.index <= s.index[at + k - 1])].dropna()
+    x = np.log(span.to_numpy())
+    cost = [np.abs(x[:c] - low).sum() + np.abs(x[c:] - high).sum()
+            for c in range(1, len(x))]
+    return span.index[len(cost) - int(np.argmin(cost[::-1]))]
+
+
 def recoveries(index: pd.Series, rain_daily: pd.Series, rain_mm: float, alpha: float,
-               min_days: int = STEP_DAYS, repaired: pd.DatetimeIndex | None = None
-               ) -> list[dict]:
+               min_days: int = STEP_DAYS, repaired: pd.DatetimeIndex | None = None,
+               every_day: pd.Series | None = None) -> list[dict]:
     """Recovery days (the first day of the recovered level), with cause ("rain", "cleaning",
     or "unknown" where ``rain_daily`` is NaN on the day and the day before: no rain readings)
-    and step size; ``repaired`` as in :func:`local_steps_up`."""
+    and step size; ``repaired`` as in :func:`local_steps_up`; ``every_day``: the index with
+    the dull days too, where a step's wash is placed (:func:`wash_day`)."""
     s = index.dropna()
     out: dict[pd.Timestamp, dict] = {}
     rain = rain_daily.reindex(index.index)
@@ -247,6 +277,8 @@ def recoveries(index: pd.Series, rain_daily: pd.Series, rain_mm: float, alpha: f
         out[nxt] = {"day": nxt, "cause": "rain", "rain_mm": float(rain.loc[day]),
                     "detected_step": None}
     for day, step in local_steps_up(s, alpha, min_days, repaired):
+        if every_day is not None:
+            day = wash_day(s, every_day, day, min_days)
         near = [d for d in out if abs((d - day).days) <= 1]
         if near:
             out[near[0]]["detected_step"] = step
@@ -286,13 +318,14 @@ def detect(w: Wide, pi: pd.DataFrame, rel_sigma: float, rain_mm: float = 5.0,
     (:func:`local_steps_up`)."""
     days = pd.DatetimeIndex(pi.index)
     insolation = w.expected.sum(axis=1).groupby(w.day.to_numpy()).sum().reindex(days)
-    idx = precise_days(plant_index(without_found(pi, w, undone)), insolation, alpha)
+    every_day = plant_index(without_found(pi, w, undone))
+    idx = precise_days(every_day, insolation, alpha)
     # rain: the largest 24-hour total ending within the day
     step_s = float(np.median(w.interval_s))
     roll = w.rain.fillna(0.0).rolling(max(1, int(round(86400 / step_s))), min_periods=1).sum()
     read = w.rain.notna().groupby(w.day.to_numpy()).any().reindex(days, fill_value=False)
     rain_daily = roll.groupby(w.day.to_numpy()).max().reindex(days).where(read)
-    recs = recoveries(idx, rain_daily, rain_mm, alpha, repaired=repaired)
+    recs = recoveries(idx, rain_daily, rain_mm, alpha, repaired=repaired, every_day=every_day)
     bounds = [days[0]] + [r["day"] for r in recs if days[0] < r["day"] <= days[-1]] + \
         [days[-1] + pd.Timedelta(days=1)]
     rec_at = {r["day"]: r for r in recs}
