@@ -24,7 +24,9 @@ candidate explains exceeds the one-sided 1 - alpha quantile of the daily model e
 alone, inside the model's error, is not reported). Consecutive such days with one angle (or
 offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
 inside, join it while the event's angle fits them better than tracking; its onset and end are
-placed within their days by the split that fits best (:func:`_split`). Where the plant has
+placed by the split that fits best (:func:`_split`) within the run's edge day and the nearest
+day beyond it with usable intervals (an overcast day between can tell neither: a row that
+stalled on the afternoon before it is found there). Where the plant has
 other tracker inverters, a day on which more than half of them show a significant shape (any
 candidate) is taken as the sky's or the model's, not the rows' (rows out of step differ from
 their neighbours; a plant-wide stall is therefore found from the angle channel only), and an
@@ -751,7 +753,13 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     first, last = span
     day = w.day.to_numpy()
     one = np.timedelta64(1, "D")
-    near = (day >= first - one) & (day <= last + one)
+    # the days beyond the run that can place its onset and end: the nearest ones with usable
+    # intervals (a day without any, overcast or in low sun, can tell neither)
+    tested = days[fits.n > 0]
+    before, after = tested[tested < first], tested[tested > last]
+    prev = before[-1] if len(before) else first - one
+    nxt = after[0] if len(after) else last + one
+    near = (day >= prev) & (day <= nxt)
     lo, hi = int(np.flatnonzero(near)[0]), int(np.flatnonzero(near)[-1]) + 1
     u = usable[inv].to_numpy()
     m, e_all = w.measured[inv].to_numpy(), w.expected[inv].to_numpy()
@@ -765,8 +773,8 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk, chain)
     lr = log_ratio(held, tracked)
     d = day[lo:hi]
-    start = _split(y, lr, d == first, d == first - one, onset=True)
-    stop = _split(y, lr, d == last, d == last + one, onset=False)
+    start = _split(y, lr, d == first, d == prev, onset=True)
+    stop = _split(y, lr, d == last, d == nxt, onset=False)
     with np.errstate(invalid="ignore", divide="ignore"):
         share = np.where(tracked > 1.0, np.clip(1 - held / tracked, 0.0, 1.0), 0.0)
     step_all = w.interval_s.to_numpy()[lo:hi]
