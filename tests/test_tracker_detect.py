@@ -260,13 +260,15 @@ def test_held_rows_take_the_models_incidence_losses() -> None:
 
 def test_stall_onset_found_across_an_overcast_day() -> None:
     # invented truth: INV2 held at -20 deg from 11 May 10:00 to 17 May 14:00, the whole of
-    # 12 May so dark (clearness index 0.05) that no interval is usable; the onset lies on the
-    # day before it, and the window must still start within a day of it (issue 11's target)
+    # 12 May so dark (clearness index 0.05) that no interval is usable, the other days clear;
+    # the onset lies on the day before it, and the window must still start within a day of it
+    # (issue 11's target)
     fault = {**STALL, "start": "2024-05-11 10:00"}
     fog = {"kind": "fog", "start": "2024-05-12 00:00", "end": "2024-05-13 00:00",
            "until_hour": 24, "kt": 0.05}
     site = make_site(3, tracker=TRACKER)
-    events = _events(make_aligned(site, start="2024-05-01", days=40, faults=[fault, fog]), site)
+    events = _events(make_aligned(site, start="2024-05-01", days=40, faults=[fault, fog],
+                                  clear_share=1.0), site)
     stall = [e for e in events if e.kind == "tracker_stall" and e.scope == "inverter:INV2"]
     assert len(stall) == 1
     assert abs(stall[0].start - pd.Timestamp(fault["start"], tz="Europe/Zurich")) <= pd.Timedelta(

@@ -773,8 +773,10 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     held = plane_poa(val if fam == "stall" else _turned(theta[lo:hi], val, a), a, sk, chain)
     lr = log_ratio(held, tracked)
     d = day[lo:hi]
-    start = _split(y, lr, d == first, d == prev, onset=True)
-    stop = _split(y, lr, d == last, d == nxt, onset=False)
+    weight = np.nan_to_num(e_all[lo:hi])
+    start = _split(y, lr, d == first, d == prev, True, weight, z * rel_sigma,
+                   prev < first - one)
+    stop = _split(y, lr, d == last, d == nxt, False, weight, z * rel_sigma, nxt > last + one)
     with np.errstate(invalid="ignore", divide="ignore"):
         share = np.where(tracked > 1.0, np.clip(1 - held / tracked, 0.0, 1.0), 0.0)
     step_all = w.interval_s.to_numpy()[lo:hi]
@@ -828,26 +830,39 @@ def _turned(theta: np.ndarray, offset: float, array: Array) -> np.ndarray:
     return np.clip(theta + offset, -lim, lim)
 
 
-def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray, onset: bool
-           ) -> int:
+def _split(y: np.ndarray, lr: np.ndarray, edge: np.ndarray, outside: np.ndarray, onset: bool,
+           weight: np.ndarray, material: float, far: bool) -> int:
     """Where the fault began (``onset``) or ended, within the run's edge day and the day
     beyond it: the split of their usable rows, tracked on one side and the candidate's shape
-    on the other, with the least squares about one constant. A position in ``y``. A split
+    on the other, with the least squares about a constant per day (each day has its own
+    level: cloud, model error). A position in ``y``. A split
     between the two days' usable rows says only that the change came between them (a night,
     and the low sun about it, where the shapes cannot tell): the edge day is then taken
-    whole, as it is when too few rows are usable to place it."""
+    whole, as it is when too few rows are usable to place it, or, the day beyond lying
+    ``far`` (days without usable rows between), when the part of it that the split gives the
+    fault would lose no more than ``material`` of its expected power (``weight``) by the
+    candidate's shape."""
     rows = np.flatnonzero(edge | outside)
     ok = rows[np.isfinite(y[rows]) & np.isfinite(lr[rows])]
     edge_rows = np.flatnonzero(edge)
     if len(ok) < 4:
         return int(edge_rows[0]) if onset else int(edge_rows[-1]) + 1
     pos = np.arange(len(ok))
+    groups = [edge[ok], outside[ok]]
     sse = []
     for k in range(len(ok) + 1):
         z = y[ok] - np.where(pos >= k if onset else pos < k, lr[ok], 0.0)
-        sse.append(float(np.sum((z - z.mean()) ** 2)))
+        sse.append(sum(float(np.sum((z[g] - z[g].mean()) ** 2)) for g in groups if g.any()))
     k = int(np.argmin(sse))
     between = int(np.sum(outside[ok])) if onset else int(np.sum(edge[ok]))
+    # across days without usable rows, the part of the day beyond that the split gives the
+    # fault must show it: the share of its expected power the candidate takes there above
+    # ``material``, as for a seed day (:func:`_seed_days`); a few rows of low sun that fit a
+    # little better do not carry the fault over the days between
+    part = ok[k:between] if onset else ok[between:k]
+    if far and len(part) and not float(
+            np.sum(weight[part] * -np.expm1(lr[part]))) > material * float(np.sum(weight[part])):
+        k = between
     if onset:
         return int(ok[k]) if k not in (between, len(ok)) else int(edge_rows[0])
     return int(ok[k - 1]) + 1 if k not in (between, 0) else int(edge_rows[-1]) + 1
