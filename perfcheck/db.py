@@ -147,6 +147,30 @@ def registered(con: duckdb.DuckDBPyConnection, **frames: object) -> Iterator[Non
         con.unregister(name)
 
 
+# DuckDB stores a table in row groups of this many rows. An INSERT of a row group or more
+# writes its full groups straight to the file and leaves its remainder as a short group of its
+# own; the checkpoint when the database closes merges those short groups and writes them
+# again. Inserts of fewer rows are appended to one growing group instead. Measured on the
+# expected rows of a 1-minute site-year (525,600 rows, 25 columns) inserted in one transaction:
+# in pieces of 131,040 rows 0.46 s of CPU and 0.31 s more in the checkpoint at close, the
+# database 76 MB; in pieces of 122,400 rows 0.51 s, 0.01 s at close, 52 MB.
+ROW_GROUP_ROWS = 122_880
+
+
+def insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: object) -> None:
+    """Insert the pandas ``frame`` into ``table`` by column name, in slices of fewer rows than
+    a row group (:data:`ROW_GROUP_ROWS`) of about equal size.
+
+    Each slice is scanned as a relation, not registered as a view: a view dropped inside a
+    transaction keeps its frame alive until the commit."""
+    n = len(frame)
+    slices = max(1, -(-n // (ROW_GROUP_ROWS - 1)))  # rounded up
+    size = max(1, -(-n // slices))
+    for start in range(0, n, size):
+        con.from_df(frame.iloc[start:start + size]).query(
+            "_new", f"INSERT INTO {quote_ident(table)} BY NAME SELECT * FROM _new")
+
+
 def _session(con: duckdb.DuckDBPyConnection) -> None:
     """The settings of each connection (a cursor does not inherit them)."""
     con.execute("SET TimeZone = 'UTC'")

@@ -753,9 +753,7 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     for q, values in conditions.items():
         exp[q] = np.tile(values.to_numpy(), repeat)
     con.execute(db.sql("model_delete_expected"), {"id": run_id, "start": start, "end": end})
-    # scanned as a relation, not registered as a view: a view dropped inside the transaction
-    # keeps its frame alive until the commit, and so every chunk's frames would stay in memory
-    con.from_df(exp).query("_new", "INSERT INTO expected BY NAME SELECT * FROM _new")
+    db.insert_frame(con, "expected", exp)  # released once written, not at the commit
     daily = None
     if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
         ref = sensor_array(site)

@@ -652,25 +652,29 @@ def sky_view(surface_tilt: float | pd.Series, surface_azimuth: float | pd.Series
     """:func:`sky_view_ratio` of a fixed plane, or of a moving plane (Series, a tracker).
 
     A moving plane's orientations are rounded to whole degrees and each distinct one is
-    integrated once (the ratio changes smoothly with the orientation).
+    integrated once (the ratio changes smoothly with the orientation); a plane or orientation
+    met again in the same process is not integrated again (:func:`_sky_view_of`).
     """
-    if np.ndim(surface_tilt) == 0:
-        return sky_view_ratio(surface_tilt, surface_azimuth, horizon, band_deg)
     if not has_horizon(horizon):
         return 1.0
-    keys = pd.DataFrame({"tilt": surface_tilt.round(), "az": surface_azimuth.round() % 360.0})
     profile = tuple((float(a), float(e)) for a, e in horizon)
-    ratio = {(t, a): _sky_view_of(float(t), float(a), profile, band_deg)
-             for t, a in keys.dropna().drop_duplicates().itertuples(index=False)}
-    return pd.Series([ratio.get((t, a), np.nan) for t, a in keys.itertuples(index=False)],
+    if np.ndim(surface_tilt) == 0:
+        return _sky_view_of(float(surface_tilt), float(surface_azimuth), profile, band_deg)
+    keys = pd.DataFrame({"tilt": surface_tilt.round(), "az": surface_azimuth.round() % 360.0})
+    distinct = keys.dropna().drop_duplicates()
+    ratio = [_sky_view_of(float(t), float(a), profile, band_deg)
+             for t, a in distinct.itertuples(index=False)]
+    at = pd.MultiIndex.from_frame(distinct).get_indexer(pd.MultiIndex.from_frame(keys))
+    # an orientation not integrated (a NaN one) takes the NaN appended at position -1
+    return pd.Series(np.append(np.asarray(ratio, dtype=float), np.nan)[at],
                      index=surface_tilt.index)
 
 
 @functools.lru_cache(maxsize=4096)
 def _sky_view_of(surface_tilt: float, surface_azimuth: float,
                  horizon: tuple[tuple[float, float], ...], band_deg: float) -> float:
-    """:func:`sky_view_ratio`, kept for the orientations a moving plane passes again (the
-    model runs month by month)."""
+    """:func:`sky_view_ratio`, kept for the planes and orientations met again (the model runs
+    month by month, and takes each plane's ratios in several of its terms)."""
     return sky_view_ratio(surface_tilt, surface_azimuth, horizon, band_deg)
 
 

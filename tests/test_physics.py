@@ -495,6 +495,22 @@ def test_sky_view_of_a_uniform_horizon():
     assert ph.sky_view_ratio(30.0, 180.0, []) == 1.0
 
 
+def test_sky_view_of_a_moving_plane_takes_each_rounded_orientation():
+    # A tracker's plane: each interval takes the ratio of its orientation rounded to whole
+    # degrees, NaN where the plane is unknown; the same number as the fixed plane's integral
+    # (Duffie & Beckman 2013 sec. 2.16 for the integral, checked above).
+    prof = [(0.0, 5.0), (90.0, 12.5), (180.0, 3.0), (270.0, 20.0)]
+    idx = pd.date_range("2025-06-01", periods=5, freq="h", tz="UTC")
+    tilt = pd.Series([30.2, np.nan, 29.8, 45.0, 30.0], index=idx)
+    az = pd.Series([90.4, 180.0, 450.0, np.nan, 89.6], index=idx)
+    got = ph.sky_view(tilt, az, prof)
+    want = [ph.sky_view_ratio(30.0, 90.0, prof), np.nan, ph.sky_view_ratio(30.0, 90.0, prof),
+            np.nan, ph.sky_view_ratio(30.0, 90.0, prof)]
+    assert_allclose(got.to_numpy(), want, rtol=0, atol=0)
+    assert ph.sky_view(30.0, 90.0, prof) == want[0]
+    assert ph.sky_view(tilt, az, []) == 1.0
+
+
 def test_sun_behind_obstruction_loses_beam_only():
     # A narrow obstruction (20 deg wide, 60 deg high; the sun at 50 deg elevation) in front of
     # the plane: beam gone, isotropic sky reduced only by the solid angle blocked (about 6 %
