@@ -7,6 +7,7 @@ validates the site file through it, or reads a stored result, does not pay for t
 
 from __future__ import annotations
 
+import functools
 import importlib
 import importlib.abc
 import importlib.machinery
@@ -22,9 +23,14 @@ def lazy_module(name: str) -> ModuleType:
     library's ``importlib.util.LazyLoader``): the command modules name the stages they call at
     the top, yet a command's ``--help`` and shell completion load none of pandas, DuckDB,
     pvlib or matplotlib; the detectors name scipy's statistics and statsmodels, and the
-    report its figures, the same way."""
+    report its figures, the same way. A module of a package that is not loaded yet is bound
+    through a :class:`_Deferred` stand-in instead: finding its file would run the package's
+    ``__init__`` (scipy's takes some 30 ms, which a view of stored results would pay for
+    nothing)."""
     if name in sys.modules:
         return sys.modules[name]
+    if "." in name and name.partition(".")[0] not in sys.modules:
+        return _deferred(name)
     spec = importlib.util.find_spec(name)
     loader = importlib.util.LazyLoader(spec.loader)
     spec.loader = loader
@@ -35,6 +41,21 @@ def lazy_module(name: str) -> ModuleType:
     if parent:
         setattr(sys.modules[parent], child, module)
     return module
+
+
+class _Deferred(ModuleType):
+    """Stands for a module of a package not loaded yet (:func:`lazy_module`): the first
+    attribute read imports the module the usual way, its packages first (a package whose
+    ``__init__`` imports its own modules breaks when one of them runs before it), and every
+    read is passed on to it."""
+
+    def __getattr__(self, attr: str) -> object:
+        return getattr(importlib.import_module(self.__name__), attr)
+
+
+@functools.cache
+def _deferred(name: str) -> _Deferred:
+    return _Deferred(name)
 
 
 # pvlib's modules that import each other and load only inside the whole package (found by

@@ -172,8 +172,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     ac = {i.id: i.ac_kw * 1000.0 for i in site.inverters}
     limit = None if site.export_limit_kw is None else site.export_limit_kw * 1000.0
     w0 = wide(df, ac, limit, site.tz)
-    temps = _site_series(df, HEAT_COLUMNS, w0)
-    reading = _site_series(df, ("poa_sensor_wm2",), w0)[0]
+    *temps, reading = _site_series(df, (*HEAT_COLUMNS, "poa_sensor_wm2"), w0)
     del df  # the caller's rows are the one copy left (analysis.update keeps none)
     planes = _planes(site, w0)
     cs = clearsky_poa(w0, site.latitude_deg, site.longitude_deg, site.altitude_m, planes)

@@ -107,7 +107,8 @@ def derated_days(w: Wide, exclude: pd.DataFrame, tol: float, margin: float,
     moves = held_flat(w.measured, w.expected, held, days)
     ok = (minutes >= min_minutes) & moves & ceiling.lt(w.ac_w * (1 - tol), axis=1) & ceiling.gt(
         w.ac_w * 0.1, axis=1)
-    others = m.where(m.groupby(days).rank(method="first", ascending=False) > 1)
+    at_top = m.eq(top)  # the day's highest reading left out: its first interval
+    others = m.where(~(at_top & at_top.groupby(days).cumsum().eq(1)))
     for inv in w.inverters:
         lr = plateau_log_lr(others[inv], w.expected[inv], days, top[inv].to_numpy(), tol, alpha)
         ok[inv] &= lr.reindex(ok.index).fillna(0.0) >= np.log(1 / alpha)

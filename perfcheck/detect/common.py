@@ -623,14 +623,13 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
     up = zen < 90
     am_rel = pvlib.atmosphere.get_relative_airmass(np.where(up, zen, 90.0))
     am = pvlib.atmosphere.get_absolute_airmass(am_rel, pvlib.atmosphere.alt2pres(altitude))
-    # the turbidity table is monthly (interpolated by day): look it up once per day
+    # the turbidity table is monthly (interpolated by day) and the extraterrestrial
+    # irradiance a function of the day of year: both looked up once per (UTC) day
     day = mid.floor("D")
-    uniq, inv = np.unique(day.asi8, return_inverse=True)
-    tl_days = pvlib.clearsky.lookup_linke_turbidity(
-        pd.DatetimeIndex(day[np.unique(day.asi8, return_index=True)[1]]), latitude, longitude)
-    tl = tl_days.to_numpy()[inv]
-    del uniq
-    extra = pvlib.irradiance.get_extra_radiation(mid).to_numpy()
+    first, inv = np.unique(day.asi8, return_index=True, return_inverse=True)[1:]
+    days = pd.DatetimeIndex(day[first])
+    tl = pvlib.clearsky.lookup_linke_turbidity(days, latitude, longitude).to_numpy()[inv]
+    extra = pvlib.irradiance.get_extra_radiation(days).to_numpy()[inv]
     cs = pvlib.clearsky.ineichen(np.where(up, zen, 90.0), am, tl, altitude, extra)
     ghi, dni, dhi = (np.nan_to_num(np.asarray(cs[k], dtype=float)) * up
                      for k in ("ghi", "dni", "dhi"))
