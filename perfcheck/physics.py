@@ -1083,7 +1083,12 @@ def components_from_poa(poa_global: pd.Series, surface_tilt: float, surface_azim
     Used when the array's plane differs from the sensor's and no GHI is measured: the sensor's
     irradiance is decomposed here and transposed again into the array's plane. GTI-DIRINT
     needs some times with the sun in front of the sensor (AOI < 90); without any (a stray
-    night-time row) every component is NaN.
+    night-time row) every component is NaN. DIRINT's coefficients end at a zenith-independent
+    clearness index of 1, so a reading above that, as under the bright edge of a cloud, has
+    no DNI or DHI from it: there the GHI is the one whose DISC split (Maxwell 1987, on which
+    DIRINT builds), transposed as GTI-DIRINT does (Perez), gives the reading back within
+    GTI-DIRINT's own tolerance (1 W/m^2) at a clearness index within DISC's bound
+    (:func:`_components_beyond_dirint`; NaN where none does).
 
     Parameters
     ----------
@@ -1109,7 +1114,56 @@ def components_from_poa(poa_global: pd.Series, surface_tilt: float, surface_azim
         out = pvlib.irradiance.gti_dirint(poa_global, aoi, solpos["apparent_zenith"],
                                           solpos["azimuth"], poa_global.index, surface_tilt,
                                           surface_azimuth, pressure=pressure, albedo=albedo)
-    return pd.DataFrame({k: out[k].clip(lower=0.0) for k in ("ghi", "dni", "dhi")})
+    out = pd.DataFrame({k: out[k].clip(lower=0.0) for k in ("ghi", "dni", "dhi")})
+    beyond = (aoi < 90) & (poa_global > 0) & (out["dni"].isna() | out["dhi"].isna())
+    if beyond.any():
+        def at(x: Any) -> Any:  # a plane that turns (a tracker's sensor) at those rows
+            return x[beyond] if isinstance(x, pd.Series) else x
+
+        sun = solpos.loc[beyond].assign(i0=pvlib.irradiance.get_extra_radiation(
+            poa_global.index[beyond], 1370, "spencer"))
+        alt = _components_beyond_dirint(poa_global[beyond], at(surface_tilt),
+                                        at(surface_azimuth), sun, pressure, albedo)
+        back = _perez_global(alt["ghi"], alt["dni"], alt["dhi"], at(surface_tilt),
+                             at(surface_azimuth), sun, pressure, albedo)
+        # kept where it gives the reading back within GTI-DIRINT's own tolerance (1 W/m^2)
+        # at a clearness index within DISC's bound (2, pvlib's max_clearness_index; the
+        # horizontal extraterrestrial irradiance taken at cos z >= 0.065 as there)
+        cosz = np.maximum(np.cos(np.radians(sun["apparent_zenith"])), 0.065)
+        good = ((back - poa_global[beyond]).abs() <= 1.0) & (alt["ghi"] <= 2.0 * sun["i0"] * cosz)
+        out.loc[good[good].index] = alt[good].to_numpy()
+    return out
+
+
+def _perez_global(ghi: pd.Series, dni: pd.Series, dhi: pd.Series, surface_tilt: float,
+                  surface_azimuth: float, sun: pd.DataFrame, pressure: float,
+                  albedo: float) -> pd.Series:
+    """Plane-of-array global irradiance by Perez as GTI-DIRINT transposes (its extra-
+    terrestrial irradiance ``sun["i0"]`` and Kasten's 1966 air mass at the site's pressure)."""
+    zen = sun["apparent_zenith"]
+    airmass = pvlib.atmosphere.get_absolute_airmass(
+        pvlib.atmosphere.get_relative_airmass(zen, model="kasten1966"), pressure)
+    return pvlib.irradiance.get_total_irradiance(
+        surface_tilt, surface_azimuth, zen, sun["azimuth"], dni, ghi, dhi, dni_extra=sun["i0"],
+        airmass=airmass, albedo=albedo, model="perez")["poa_global"]
+
+
+def _components_beyond_dirint(poa_global: pd.Series, surface_tilt: float,
+                              surface_azimuth: float, sun: pd.DataFrame, pressure: float,
+                              albedo: float, iterations: int = 20) -> pd.DataFrame:
+    """GHI, DNI and DHI whose plane irradiance, DISC split and Perez transposed as in
+    GTI-DIRINT (:func:`_perez_global`), is ``poa_global``: the GHI scaled by the reading over
+    the transposed value until they agree (the transposition is nearly proportional to the
+    GHI at a given sun; the split moves slowly with it), starting from the reading itself."""
+    zen = sun["apparent_zenith"]
+    ghi = poa_global.astype(float)
+    for _ in range(iterations):
+        split = decompose(ghi, zen, "disc", pressure)
+        poa = _perez_global(ghi, split["dni"], split["dhi"], surface_tilt, surface_azimuth, sun,
+                            pressure, albedo)
+        ghi = (ghi * poa_global / poa).where(poa > 0, ghi)
+    split = decompose(ghi, zen, "disc", pressure)
+    return pd.DataFrame({"ghi": ghi, "dni": split["dni"], "dhi": split["dhi"]})
 
 
 # --------------------------------------------------------------------------------------------

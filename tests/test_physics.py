@@ -476,6 +476,30 @@ def test_tmy3_annual_poa_against_straight_pvlib():
     assert_allclose(ours_kwh, ref_kwh, rtol=0.005)
 
 
+def test_plane_irradiance_above_dirints_range_is_explained():
+    # A sensor at 11 deg tilt facing 105 deg, 55.3 N, on a February midday when the bright
+    # edge of a cloud lifts its reading to 510-545 W/m^2 with the sun 18 deg high (invented
+    # readings): the zenith-independent clearness index exceeds 1, where DIRINT's coefficients
+    # end (Perez et al. 1992; pvlib bins it out and GTI-DIRINT, Marion 2015, returns no DNI).
+    # The components must be finite and, transposed by Perez as GTI-DIRINT does (pvlib), give
+    # the reading back within GTI-DIRINT's own tolerance of 1 W/m^2 (Marion 2015, from memory;
+    # pvlib's implementation stops at it).
+    times = pd.date_range("2024-02-18 20:40", periods=7, freq="5min", tz="UTC")
+    poa = pd.Series([511.2, 516.3, 525.3, 530.0, 532.5, 534.2, 542.5], index=times)
+    sp = pvlib.solarposition.get_solarposition(times, 55.317, -160.517, 7.0)
+    pressure = pvlib.atmosphere.alt2pres(7.0)
+    out = ph.components_from_poa(poa, 11.0, 105.0, sp, pressure, 0.2)
+    assert out.notna().all().all()
+    airmass = pvlib.atmosphere.get_absolute_airmass(
+        pvlib.atmosphere.get_relative_airmass(sp["apparent_zenith"], model="kasten1966"),
+        pressure)
+    back = pvlib.irradiance.get_total_irradiance(
+        11.0, 105.0, sp["apparent_zenith"], sp["azimuth"], out["dni"], out["ghi"], out["dhi"],
+        dni_extra=pvlib.irradiance.get_extra_radiation(times, 1370, "spencer"),
+        airmass=airmass, albedo=0.2, model="perez")["poa_global"]
+    assert_allclose(back, poa, atol=1.0)
+
+
 # --------------------------------------------------------------------------------------------
 # horizon
 
