@@ -197,3 +197,14 @@ def test_labels_keep_the_clear_sky_noise_beside_a_wide_obstruction():
     free = clear & ~shaded & ~edge
     # binomial: 0.01 of ~19,000 intervals is 190 +- 14; four standard errors
     assert labels[free].mean() < 0.01 + 4 * np.sqrt(0.01 * 0.99 / free.sum())
+
+
+def test_steady_clear_needs_clear_neighbours():
+    # derived from the definition (common practice): an interval clear between cloudy ones
+    # (a cloud's bright edge) is not steady, nor are the ends of a clear run; its inner
+    # intervals are, per inverter
+    clear = pd.DataFrame({"A": [False, True, False, True, True, True, True],
+                          "B": [True, True, True, False, True, True, False]})
+    out = shading.steady_clear(clear)
+    assert out["A"].tolist() == [False, False, False, False, True, True, False]
+    assert out["B"].tolist() == [False, True, False, False, False, False, False]

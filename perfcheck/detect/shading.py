@@ -7,7 +7,9 @@ channel the plane irradiance within ±20 % of its clear-sky value) are binned by
 1 - (measured/expected) / (the day's median of measured/expected), so what the whole day
 shares (soiling, degradation, a lost string, model bias of the day) cancels.
 
-Detection. Per bin, growth is tested on the daily mean deficits: with more than a year of
+Detection. Per bin, growth is tested on the daily mean deficits of the steady clear
+intervals (their neighbours clear too: an interval at a cloud's bright edge passes the band
+around the clear sky, but its deficit is the cloud's): with more than a year of
 data, year-on-year pairs (the same sun path a year later; the model's own shape errors there
 repeat and cancel) with a one-sided t test; with less, the trend over time given the day's
 mean sun position in the bin (statsmodels OLS; standard errors clustered by month where the
@@ -95,6 +97,14 @@ METHOD = ("deficit against the day's median ratio binned by sun azimuth and elev
           "per bin (year-on-year pairs, or OLS trend given the sun's place in the bin), "
           "Bonferroni over bins; per azimuth column a monotone top fitted to the shaded clear "
           "intervals (cross-fitted binomial test); the loss summed under it")
+
+
+def steady_clear(clear: pd.DataFrame) -> pd.DataFrame:
+    """Clear intervals (``clear``, per inverter) whose neighbours before and after are clear
+    too: a steady clear sky. An interval at the bright edge of a cloud passes the band around
+    the clear sky, but its deficit is the cloud's (the sensor and the array see the edge at
+    different moments); between clouds it has a cloudy neighbour (common practice)."""
+    return clear & clear.shift(1, fill_value=False) & clear.shift(-1, fill_value=False)
 
 
 def deficits(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
@@ -230,11 +240,11 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
     else:
         kt = w.poa / clearsky_plane[w.inverters].where(clearsky_plane[w.inverters] > 0)
     clear = (kt > 0.8) & (kt < 1.2) & w.zenith.lt(88).to_numpy()[:, None]
-    wc, uc, clear_c = coarsen(w, usable, clear, target_s=600.0)
-    # the top reported at the end takes the labels under a steady clear sky alone (the
-    # neighbours clear too): in the last weeks nothing later can outvote a label from a cloud
-    # edge over the array that missed the irradiance sensor
-    steady = clear & clear.shift(1, fill_value=False) & clear.shift(-1, fill_value=False)
+    # the bins are tested on a steady clear sky alone (:func:`steady_clear`), and the top
+    # reported at the end takes the labels under it alone: in the last weeks nothing later
+    # can outvote a label from a cloud edge over the array that missed the irradiance sensor
+    steady = steady_clear(clear)
+    wc, uc, clear_c = coarsen(w, usable, steady, target_s=600.0)
 
     def grid(x: Wide) -> tuple[np.ndarray, np.ndarray]:
         el = 90 - x.zenith.to_numpy()
