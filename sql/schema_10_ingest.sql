@@ -155,10 +155,11 @@ CREATE TABLE IF NOT EXISTS conflicts (
 
 -- A wall-clock time read with a strptime format, else with the spaces around it trimmed. '24:00',
 -- which loggers that label the end of an interval write for the end of a day, is read as 00:00
--- of the next day. (Each fallback is evaluated only where the reading before it failed.)
+-- of the next day. (Each fallback is evaluated only where the reading before it failed; trim(t)
+-- is written once, as DuckDB would otherwise compute a repeated trim(t) for every row first.)
 CREATE OR REPLACE MACRO wall_clock(t, fmt) AS
     coalesce(try_strptime(t, fmt),
              try_strptime(trim(t), fmt),
              CASE WHEN contains(t, '24:00')
-                  THEN try_strptime(replace(trim(t), '24:00', '00:00'), fmt) + INTERVAL 1 DAY
+                  THEN try_strptime(trim(replace(t, '24:00', '00:00')), fmt) + INTERVAL 1 DAY
              END);
