@@ -41,9 +41,10 @@ comparison with stored values), so there is no Python loop over data rows; Pytho
 what must hold for the whole file before any of it is read: it exists, is not empty, has a
 UTF-8 header it can split with the mapped columns in it, and a units row that agrees with the
 site file. A line cut short anywhere, the last line included (a file still being written), or
-holding bytes that are not UTF-8 (DuckDB then reads a UTF-8 copy) is quarantined with its
-reason. Each file is stored
-in one transaction: an error or a kill mid-file leaves the database as it was before that file.
+holding bytes that are not UTF-8 (DuckDB then reads the text with them replaced) is
+quarantined with its reason. DuckDB reads the bytes that were hashed (bound as a parameter),
+not the file again. Each file is stored in one transaction: an error or a kill mid-file
+leaves the database as it was before that file.
 """
 
 from __future__ import annotations
@@ -55,12 +56,10 @@ import gzip
 import hashlib
 import io
 import re
-import tempfile
 import zipfile
 import zlib
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable
 from concurrent.futures import ThreadPoolExecutor
-from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -311,6 +310,11 @@ def _check_units_row(path: Path, lg: Logger, units: str | None, positions: dict[
 
 def check_file(site: Site, path: str | Path) -> _Checked:
     """Whole-file checks; raises LoggerFileError (one line, naming file and line) on failure."""
+    return _check(site, path)[0]
+
+
+def _check(site: Site, path: str | Path) -> tuple[_Checked, bytes]:
+    """:func:`check_file`, and the bytes it checked."""
     path = Path(path)
     lg = site.logger_for(str(path))
     raw = _read_bytes(path)
@@ -350,7 +354,7 @@ def check_file(site: Site, path: str | Path) -> _Checked:
         open_line=0 if data.endswith(b"\n") else data.count(b"\n") + 1,
         not_utf8=not_utf8,
         compressed=data is not raw,
-    )
+    ), raw
 
 
 # --------------------------------------------------------------------------------------------
@@ -526,13 +530,6 @@ def _numeric(sentinels: tuple[str, ...]) -> list[float]:
     return [v for v in out if v == v]
 
 
-def _literal_glob(path: Path) -> str:
-    """``path`` as a DuckDB file glob that matches that one file: each glob character
-    (``*``, ``?``, ``[``) is put in a character class of its own, so ``x_[a].csv`` reads
-    ``x_[a].csv`` and never ``x_a.csv``."""
-    return re.sub(r"([*?\[])", r"[\1]", str(path))
-
-
 def _quoted_patterns(delimiter: str) -> tuple[str, str]:
     d = re.escape(delimiter)
     field = f'"(?:[^"]|"")*"|[^{d}"]*'
@@ -543,23 +540,16 @@ def _quoted_patterns(delimiter: str) -> tuple[str, str]:
 # one file, one transaction
 
 
-@contextmanager
-def _readable(chk: _Checked, data: bytes) -> Iterator[Path]:
-    """The path DuckDB reads for a checked file: the file itself, or a temporary copy of its
-    text, made from ``data`` (the file's bytes as checked) and removed afterwards, when the
-    file is compressed (``.gz``, ``.zip``: the copy is decompressed) or when data lines hold
-    bytes that are not UTF-8 (they are quarantined; the copy has them replaced by U+FFFD, so
-    that the other lines can be read)."""
-    if not chk.not_utf8 and not chk.compressed:
-        yield chk.path
-        return
+def _text(chk: _Checked, data: bytes) -> bytes:
+    """The text DuckDB reads for a checked file, made from ``data`` (the file's bytes as
+    checked): decompressed when the file is compressed (``.gz``, ``.zip``), and with bytes
+    that are not UTF-8 replaced by U+FFFD when data lines hold any (those lines are
+    quarantined; the others can then be read). It is bound as a parameter, so DuckDB reads
+    the very bytes that were hashed, never the file on disk, which may change meanwhile."""
     text = _content(chk.path, data)
     if chk.not_utf8:
         text = text.decode("utf-8", errors="replace").encode("utf-8")
-    with tempfile.TemporaryDirectory() as tmp:
-        copy = Path(tmp) / "text.csv"
-        copy.write_bytes(text)
-        yield copy
+    return text
 
 
 def _checked_bytes(chk: _Checked) -> bytes:
@@ -571,13 +561,13 @@ def _checked_bytes(chk: _Checked) -> bytes:
     return data
 
 
-def _read_params(site: Site, chk: _Checked, path: Path) -> dict[str, object]:
-    """The bound parameters of sql/ingest_rows.sql (and its time fragment) for one file, read
-    from ``path`` (see :func:`_readable`)."""
+def _read_params(site: Site, chk: _Checked, text: bytes) -> dict[str, object]:
+    """The bound parameters of sql/ingest_rows.sql (and its time fragment) for one file whose
+    text is ``text`` (see :func:`_text`)."""
     lg = chk.logger
     quoted_line, quoted_field = _quoted_patterns(lg.delimiter)
     params: dict[str, object] = {
-        "path": _literal_glob(path),
+        "text": text,
         # line 0 is never a data line: it keeps the lists typed when no line is bad
         "not_utf8_lines": [0, *chk.not_utf8],
         "not_utf8_reasons": ["", *chk.not_utf8.values()],
@@ -605,21 +595,22 @@ def _read_params(site: Site, chk: _Checked, path: Path) -> dict[str, object]:
     return params
 
 
-def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked) -> FileResult:
+def _ingest_one(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
+                kept: bytes | None) -> FileResult:
+    """Store one checked file; ``kept`` is the bytes that were checked, when they were kept
+    (else the file is read again and must still hash to them)."""
     known = _one(con, "SELECT file_id FROM source_files WHERE sha256 = ?", [chk.sha256])
     if known is not None:
         return FileResult(chk.given, int(known[0]), "already ingested", 0, 0, 0, 0, 0, None, None)
-    data = _checked_bytes(chk)
+    data = _checked_bytes(chk) if kept is None else kept
     try:
         with db.transaction(con):
             # the ingested version's bytes, so that it stays verifiable when the file on disk
             # later grows or changes under the same name (level 1: fast, about 4x on CSV),
-            # compressed in a thread while DuckDB reads the file (both release the GIL)
+            # compressed in a thread while DuckDB reads them (both release the GIL)
             with ThreadPoolExecutor(1) as pool:
                 packed = pool.submit(zlib.compress, data, 1)
-                with _readable(chk, data) as path:
-                    row = _store_file(con, site, chk, _read_params(site, chk, path))
-                _checked_bytes(chk)  # DuckDB read the file itself: still the copy's bytes?
+                row = _store_file(con, site, chk, _read_params(site, chk, _text(chk, data)))
                 if _one(con, "SELECT 1 FROM source_copies WHERE sha256 = ?", [chk.sha256]) is None:
                     con.execute(db.sql("ingest_copy"), {"sha256": chk.sha256,
                                                         "zlib_bytes": packed.result()})
@@ -658,7 +649,7 @@ def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
                             "WHERE outcome = 'quarantined' AND raw IS NULL")[0]
     if missing_raw:
         con.execute(db.sql("ingest_raw").format(lines=db.sql("ingest_lines")),
-                    {k: params[k] for k in ("path", "header_end", "crlf")})
+                    {k: params[k] for k in ("text", "header_end", "crlf")})
     file_id = int(_one(con, "SELECT nextval('source_file_id')")[0])
     store = db.sql("ingest_store").format(
         unions=unions,
@@ -683,6 +674,17 @@ def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
     return row
 
 
+def _check_all(site: Site, paths: Iterable[str | Path]) -> tuple[list[_Checked], bytes | None]:
+    """Every file checked, and the first one's bytes: it is stored next, so it need not be
+    read and hashed again (the others' are not kept, to hold one file in memory at most)."""
+    checked, first = [], None
+    for p in paths:
+        chk, raw = _check(site, p)
+        checked.append(chk)
+        first = raw if first is None else first
+    return checked, first
+
+
 def ingest_files(
     con: duckdb.DuckDBPyConnection,
     site: Site,
@@ -699,10 +701,11 @@ def ingest_files(
     for lg in site.loggers:  # a database written before intervals were stored
         con.execute("UPDATE loggers SET interval_min = ? WHERE name = ? AND interval_min IS NULL",
                     [lg.interval_min, lg.name])
-    checked = [check_file(site, p) for p in paths]
+    checked, kept = _check_all(site, paths)
     results = []
     for chk in checked:
-        res = _ingest_one(con, site, chk)
+        res = _ingest_one(con, site, chk, kept)
+        kept = None
         results.append(res)
         if progress is not None:
             progress(res)

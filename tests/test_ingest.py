@@ -14,7 +14,7 @@ from logger_files import logger_toml, run_ingest, write_case
 from numpy.testing import assert_allclose
 
 from perfcheck import db, quality, status
-from perfcheck.errors import SiteFileError
+from perfcheck.errors import LoggerFileError, SiteFileError
 from perfcheck.ingest import (
     channel_intervals,
     coverage_summary,
@@ -280,6 +280,41 @@ def test_same_file_again_changes_nothing(tmp_path):
     assert {r.file_id for r in again} == {first.file_id}
     after = {t: con.execute(f"SELECT count(*) FROM {t}").fetchall() for t in before}
     assert after == before
+
+
+def test_what_is_stored_is_the_version_that_was_checked(tmp_path, monkeypatch):
+    # A logger file still being written can change between its check and its storing: the
+    # stored readings, copy and sha256 are of one version (the one checked), or the file is
+    # refused whole with its one-line error (common practice for provenance).
+    import hashlib
+    import zlib
+
+    import perfcheck.ingest
+
+    site_path, first = write_case(tmp_path, "ts,P,G\n2024-06-01 10:00,1,100\n")
+    second = tmp_path / "second.csv"
+    second.write_text("ts,P,G\n2024-06-01 10:05,2,200\n")
+    checked = first.read_bytes()
+    check = perfcheck.ingest._check
+
+    def check_then_append(site, path):  # the first file grows just after its check
+        out = check(site, path)
+        if path == first:
+            first.write_text(checked.decode() + "2024-06-01 10:10,9,900\n")
+        return out
+
+    def rewrite_second(res):  # the second file changes once the first is stored
+        second.write_text("ts,P,G\n2024-06-01 10:05,3,300\n")
+
+    monkeypatch.setattr(perfcheck.ingest, "_check", check_then_append)
+    con = db.connect(tmp_path / "site.duckdb")
+    with pytest.raises(LoggerFileError, match=f"^{second}: changed while being ingested; "
+                                              "nothing of this file was stored$"):
+        ingest_files(con, load_site(site_path), [first, second], progress=rewrite_second)
+    assert_allclose(series(con, "ac_power_w").to_numpy(), [1000.0])
+    (sha, copy), = con.execute("SELECT sha256, zlib_bytes FROM source_copies").fetchall()
+    assert (sha, zlib.decompress(copy)) == (hashlib.sha256(checked).hexdigest(), checked)
+    assert con.execute("SELECT sha256, rows_read FROM source_files").fetchall() == [(sha, 1)]
 
 
 def test_overlapping_exports_duplicates_and_conflicts(tmp_path):
