@@ -226,6 +226,7 @@ def runs_and_gaps(con: duckdb.DuckDBPyConnection, channels: pd.DataFrame, sun: p
     """
     runs, rates, gaps = [], [], []
     sun_us = sun["ts"].to_numpy(dtype="datetime64[us]").view(np.int64)
+    last: tuple[int, np.ndarray, np.ndarray] | None = None  # interval, instants, their day
     for c in channels.itertuples(index=False):
         got = con.execute("SELECT ts, value FROM readings WHERE channel_id = ?",
                           [int(c.channel_id)]).fetchnumpy()
@@ -248,11 +249,14 @@ def runs_and_gaps(con: duckdb.DuckDBPyConnection, channels: pd.DataFrame, sun: p
         repeats_next = np.concatenate((same, [False]))
         at_rest = np.zeros(len(value), dtype=bool) if pd.isna(c.rest_level) \
             else np.abs(value) <= float(c.rest_level)
-        mine = (sun["interval_min"] == c.interval_min).to_numpy()
-        own, elevation = sun_us[mine], sun["elevation_deg"].to_numpy()[mine]
-        at = np.minimum(np.searchsorted(own, ts), max(len(own) - 1, 0))
-        day = (own[at] == ts) & (elevation[at] > DAY_ELEVATION_DEG) if len(own) \
-            else np.zeros(len(ts), dtype=bool)
+        # the channels of one logger share their instants: their sun is looked up once
+        if last is None or last[0] != c.interval_min or not np.array_equal(last[1], ts):
+            mine = (sun["interval_min"] == c.interval_min).to_numpy()
+            own, elevation = sun_us[mine], sun["elevation_deg"].to_numpy()[mine]
+            at = np.minimum(np.searchsorted(own, ts), max(len(own) - 1, 0))
+            last = c.interval_min, ts, (own[at] == ts) & (elevation[at] > DAY_ELEVATION_DEG) \
+                if len(own) else np.zeros(len(ts), dtype=bool)
+        day = last[2]
         steps = day & ~at_rest
         rates.append((c.channel_id, int((steps & ~starts).sum()), int(steps.sum())))
         keep = ~at_rest & (~starts | repeats_next | (STUCK_MIN_INTERVALS < 2))
