@@ -168,14 +168,22 @@ def wide(df: pd.DataFrame, ac_w: dict[str, float], export_limit_w: float | None,
     """Pivot the aligned rows (``perfcheck.align.load_aligned``) to a :class:`Wide`."""
     ts = pd.DatetimeIndex(df["ts"]).tz_convert("UTC")
     inv = df["inverter_id"].astype(str).to_numpy()
-    ids = sorted(set(inv), key=list(ac_w).index if set(inv) <= set(ac_w) else str)
+    found = set(inv)
+    ids = sorted(found, key=list(ac_w).index if found <= set(ac_w) else str)
     index = pd.DatetimeIndex(ts.unique()).sort_values()
     rows = index.get_indexer(ts)
     cols = pd.Index(ids).get_indexer(inv)
+    # the rows already in the grid's order, one per instant and inverter (as load_aligned
+    # gives them): each column is the rows' values reshaped
+    in_order = len(ts) == len(index) * len(ids) and np.array_equal(
+        rows * len(ids) + cols, np.arange(len(ts)))
 
     def grid(values: np.ndarray, fill: Any = np.nan, dtype: Any = float) -> pd.DataFrame:
-        out = np.full((len(index), len(ids)), fill, dtype=dtype)
-        out[rows, cols] = values
+        if in_order:
+            out = np.asarray(values, dtype=dtype).reshape(len(index), len(ids))
+        else:
+            out = np.full((len(index), len(ids)), fill, dtype=dtype)
+            out[rows, cols] = values
         return pd.DataFrame(out, index=index, columns=ids)
 
     def num(name: str) -> np.ndarray:
