@@ -933,10 +933,17 @@ def compute(
     tz = site.tz
 
     local_start, local_end = start.tz_convert(tz), end.tz_convert(tz)
+    # the local midnights that begin and end the days, put in the zone all at once (one at a
+    # time, the daily rows' 2 per day took a tenth of a site-year's check)
+    edges = sorted({*days, *(d + dt.timedelta(days=1) for d in days)})
+    local = dict(zip(edges, pd.DatetimeIndex(edges).tz_localize(tz), strict=True))
+
+    def midnight(day: dt.date) -> pd.Timestamp:
+        return local[day] if day in local else pd.Timestamp(day).tz_localize(tz)
 
     def bounds(first: dt.date, after: dt.date) -> dict[str, Any]:
-        lo = max(pd.Timestamp(first).tz_localize(tz), local_start)
-        hi = min(pd.Timestamp(after).tz_localize(tz), local_end)
+        lo = max(midnight(first), local_start)
+        hi = min(midnight(after), local_end)
         return {"start": lo.isoformat(), "end": hi.isoformat(),
                 "_key": (lo.toordinal(), hi.toordinal()),
                 "days": round((hi - lo) / pd.Timedelta(days=1))}

@@ -272,3 +272,24 @@ def test_remaining_levels_judge_no_level_where_the_expected_is_left_out():
     left = baseline.remaining_levels(w, short, np.where(bad[:, None], np.nan, exp))["INV1"]
     assert left.loc["2024-04-08":"2024-04-10"].isna().all()
     assert left.drop(pd.date_range("2024-04-08", periods=3)).abs().max() < 1e-12
+
+
+def test_wide_gives_the_same_grid_whatever_the_order_of_the_rows():
+    # invented rows of two inverters: in the grid's order (each column the rows reshaped),
+    # shuffled, and with one row missing (its cell NaN, its flags False); the grids agree
+    # cell by cell (a property of the pivot, no outside source)
+    site = make_site(n_inverters=2)
+    df = make_aligned(site, start="2024-04-01", days=3, seed=4)
+    ac = {i.id: i.ac_kw * 1000 for i in site.inverters}
+    ordered = df.sort_values(["ts", "inverter_id"], ignore_index=True)
+    shuffled = ordered.sample(frac=1.0, random_state=5, ignore_index=True)
+    a, b = (common.wide(x, ac, None, site.tz) for x in (ordered, shuffled))
+    for name in ("measured", "expected", "poa", "flagged", "from_sensor", "ghi", "zenith"):
+        pd.testing.assert_frame_equal(pd.DataFrame(getattr(a, name)),
+                                      pd.DataFrame(getattr(b, name)))
+    gap = common.wide(ordered.drop(index=7), ac, None, site.tz)
+    row, col = divmod(7, 2)
+    expect = a.measured.copy()
+    expect.iloc[row, col] = np.nan
+    pd.testing.assert_frame_equal(gap.measured, expect)
+    assert not gap.flagged.iloc[row, col] and gap.measured.shape == a.measured.shape

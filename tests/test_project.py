@@ -87,6 +87,21 @@ def test_help_version_and_completion_import_no_heavy_library(args, env):
         assert "plain,--json" in out.stdout and "plain,--from" in out.stdout
 
 
+
+def test_the_command_line_runs_numpy_s_matrix_products_on_one_thread():
+    """perfcheck.cli sets OpenBLAS to one thread before numpy loads (the command's small
+    products ran slower on threads, and a long dot product's last digits followed the core
+    count); a value the user set is kept."""
+    probe = ("import os, sys\nimport perfcheck.cli\n"
+             "print('numpy' in sys.modules, os.environ['OPENBLAS_NUM_THREADS'])")
+    env = {k: v for k, v in os.environ.items() if k != "OPENBLAS_NUM_THREADS"}
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                         env=env, check=True)
+    assert out.stdout.split() == ["False", "1"], out.stdout
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                         env={**env, "OPENBLAS_NUM_THREADS": "2"}, check=True)
+    assert out.stdout.split() == ["False", "2"], out.stdout
+
 # Loads every pvlib module perfcheck uses through its binding, then prints the package's class,
 # pvlib's version and whether the modules only pvlib's __init__ loads were loaded.
 PVLIB_USED = (

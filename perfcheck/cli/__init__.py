@@ -12,6 +12,7 @@ from __future__ import annotations
 import atexit
 import gc
 import importlib
+import os
 from pathlib import Path
 from typing import Any
 
@@ -26,6 +27,14 @@ from perfcheck import __version__, progress
 # handler runs after those registered later, such as the removal of temporary folders), they
 # are left to it.
 atexit.register(gc.freeze)
+
+# numpy's OpenBLAS spreads a matrix product over every core. A command's products are small
+# (the bootstrap's resampled sums, the regressions' normal equations): on a busy two-core
+# machine handing them to threads took more than computing them (check of a 1-minute
+# site-year: 0.25 s of 0.8 s of CPU), and a long dot product, summed in one piece per thread,
+# changed in its last digits with the machine's core count. One thread, unless the user sets
+# it; OpenBLAS reads it when numpy loads, which no module loaded so far does.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 # name: (module in this package, one-line help shown by ``perfcheck --help``), in pipeline order
 COMMANDS: dict[str, tuple[str, str]] = {

@@ -204,8 +204,12 @@ def build(w: Wide, events: list[Event], masks: dict[str, pd.DataFrame],
             sl, ci = _window_rows(w.index, ev), _scope_cols(ev, col_pos)
             held[sl, ci] = clip[sl][:, ci]
     free = both & ~taken & ~held
-    local = w.index.tz_convert(w.tz)
-    slot = np.asarray((local - local.normalize()).total_seconds(), dtype=np.int64)
+    # seconds since the local midnight: each run of a day's rows takes its midnight put in the
+    # zone once (as DatetimeIndex.normalize puts every row's)
+    days = w.day.to_numpy()
+    first = np.r_[True, days[1:] != days[:-1]]
+    midnight = pd.DatetimeIndex(days[first]).tz_localize(w.tz)[np.cumsum(first) - 1]
+    slot = np.asarray((w.index.tz_convert(w.tz) - midnight).total_seconds(), dtype=np.int64)
     # the shares judged against the inverter's own level (lost strings) hold on every interval
     # of their window, those of an interval-class event too: where they lie, their share and
     # its error

@@ -243,7 +243,7 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
     d_all = _daily_offsets(w, reference)
     d_span = _daily_offsets(w, reference, spans=True)
     ind = independent(w, lg)
-    d_ind = _daily_offsets(w, ind)
+    d_ind = _daily_offsets(w, ind) if len(ind.columns) else ind  # none: nothing to confirm on
     found: list[Shift] = []
     for inv in w.inverters:
         q = d_all[inv].dropna()

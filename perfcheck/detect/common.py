@@ -168,14 +168,22 @@ def wide(df: pd.DataFrame, ac_w: dict[str, float], export_limit_w: float | None,
     """Pivot the aligned rows (``perfcheck.align.load_aligned``) to a :class:`Wide`."""
     ts = pd.DatetimeIndex(df["ts"]).tz_convert("UTC")
     inv = df["inverter_id"].astype(str).to_numpy()
-    ids = sorted(set(inv), key=list(ac_w).index if set(inv) <= set(ac_w) else str)
+    found = set(inv)
+    ids = sorted(found, key=list(ac_w).index if found <= set(ac_w) else str)
     index = pd.DatetimeIndex(ts.unique()).sort_values()
     rows = index.get_indexer(ts)
     cols = pd.Index(ids).get_indexer(inv)
+    # the rows already in the grid's order, one per instant and inverter (as load_aligned
+    # gives them): each column is the rows' values reshaped
+    in_order = len(ts) == len(index) * len(ids) and np.array_equal(
+        rows * len(ids) + cols, np.arange(len(ts)))
 
     def grid(values: np.ndarray, fill: Any = np.nan, dtype: Any = float) -> pd.DataFrame:
-        out = np.full((len(index), len(ids)), fill, dtype=dtype)
-        out[rows, cols] = values
+        if in_order:
+            out = np.asarray(values, dtype=dtype).reshape(len(index), len(ids))
+        else:
+            out = np.full((len(index), len(ids)), fill, dtype=dtype)
+            out[rows, cols] = values
         return pd.DataFrame(out, index=index, columns=ids)
 
     def num(name: str) -> np.ndarray:
@@ -618,10 +626,15 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
     Ineichen & Perez 2002 (Solar Energy 73(3):151); Remund et al. 2003 (Linke turbidity
     table); Hay & Davies 1980 (from memory).
     """
-    zen = w.zenith.to_numpy(dtype=float)
-    mid = w.index + pd.to_timedelta(w.interval_s.to_numpy() / 2, unit="s")
-    up = zen < 90
-    am_rel = pvlib.atmosphere.get_relative_airmass(np.where(up, zen, 90.0))
+    zen_all = w.zenith.to_numpy(dtype=float)
+    out = pd.DataFrame(0.0, index=w.index, columns=list(planes))
+    # the sun's rows alone (at night every plane takes 0): each function is one of the instant
+    up = np.flatnonzero(zen_all < 90)
+    if not len(up):
+        return out
+    zen = zen_all[up]
+    mid = w.index[up] + pd.to_timedelta(w.interval_s.to_numpy()[up] / 2, unit="s")
+    am_rel = pvlib.atmosphere.get_relative_airmass(zen)
     am = pvlib.atmosphere.get_absolute_airmass(am_rel, pvlib.atmosphere.alt2pres(altitude))
     # the turbidity table is monthly (interpolated by day) and the extraterrestrial
     # irradiance a function of the day of year: both looked up once per (UTC) day
@@ -630,16 +643,18 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
     days = pd.DatetimeIndex(day[first])
     tl = pvlib.clearsky.lookup_linke_turbidity(days, latitude, longitude).to_numpy()[inv]
     extra = pvlib.irradiance.get_extra_radiation(days).to_numpy()[inv]
-    cs = pvlib.clearsky.ineichen(np.where(up, zen, 90.0), am, tl, altitude, extra)
-    ghi, dni, dhi = (np.nan_to_num(np.asarray(cs[k], dtype=float)) * up
+    cs = pvlib.clearsky.ineichen(zen, am, tl, altitude, extra)
+    ghi, dni, dhi = (np.nan_to_num(np.asarray(cs[k], dtype=float))
                      for k in ("ghi", "dni", "dhi"))
+    azimuth = w.azimuth.to_numpy()[up]
     fixed: dict[tuple[float, float], np.ndarray] = {}  # a fixed plane shared by groups: once
 
     def transposed(tilt: Any, az: Any) -> np.ndarray:
         key = (float(tilt), float(az)) if np.ndim(tilt) == 0 and np.ndim(az) == 0 else None
         if key not in fixed:
             irr = pvlib.irradiance.get_total_irradiance(
-                tilt, az, np.where(up, zen, 90.0), w.azimuth.to_numpy(), dni, ghi, dhi,
+                tilt if np.ndim(tilt) == 0 else np.asarray(tilt)[up],
+                az if np.ndim(az) == 0 else np.asarray(az)[up], zen, azimuth, dni, ghi, dhi,
                 dni_extra=extra, model="haydavies")
             poa = np.nan_to_num(np.asarray(irr["poa_global"], dtype=float))
             if key is None:
@@ -647,12 +662,11 @@ def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
             fixed[key] = poa
         return fixed[key]
 
-    out = pd.DataFrame(0.0, index=w.index, columns=list(planes))
     for name, parts in planes.items():
-        total = np.zeros(len(zen))
+        total = np.zeros(len(up))
         for tilt, az, weight in parts:
             total += weight * transposed(tilt, az)
-        out[name] = np.where(up, total, 0.0)
+        out.iloc[up, out.columns.get_loc(name)] = total
     return out
 
 
