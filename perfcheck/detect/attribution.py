@@ -16,8 +16,12 @@ both, the shortfall is split in this order (each step works on what the steps be
    the faults that take the inverter off its own level for a while (:data:`OFF_LEVEL`)
    (:func:`perfcheck.detect.common.local_level`, on intervals like the event's), is what the
    plant delivered then, so the model's local bias stays unexplained instead of landing in
-   the event; where the expected series stops at a cap (rating, export limit), the level
-   scales the unlimited power and the cap holds (:func:`would_deliver`). The share-type
+   the event; where the other inverters are free on most of the event's intervals and this
+   one's level relative to theirs is read more closely than its own (they share the sky's
+   and the season's model error), L is what they delivered there times that relative level
+   (:meth:`_Levels.beside`); where the expected series stops at a cap (rating, export
+   limit), the level scales the unlimited power and the cap holds (:func:`would_deliver`).
+   The share-type
    causes of step 2 found on the same intervals (a stalled row, soiling) lower what the
    inverter could deliver: L is taken against the expected power less them, and they scale
    it at the event too (:func:`_kept`), so that a limit on a stalled day does not take the
@@ -345,18 +349,22 @@ class _Levels:
         times of day only (1), or on all intervals (0); NaN on a day whose reference energy
         there is under a quarter of the median day's (the insolation-weighted index of
         :func:`perfcheck.detect.common.daily_pi`)."""
+        return _day_ratio(*self._sums(j, rows, like))
+
+    def _sums(self, j: int, rows: np.ndarray, like: int) -> tuple[pd.Series, pd.Series]:
+        """Per day, inverter ``j``'s measured and reference energy on the intervals
+        :meth:`daily` takes."""
         ref = self.reference[:, j]
-        lo, hi = np.nanmin(ref[rows]), np.nanmax(ref[rows])
-        with np.errstate(invalid="ignore"):
-            on = self.sel[:, j].copy()
-            if like >= 1:
-                on &= np.isin(self.slot, np.unique(self.slot[rows]))
-            if like >= 2:
-                on &= (ref >= lo) & (ref <= hi)
+        on = self.sel[:, j].copy()
+        if like >= 2:
+            with np.errstate(invalid="ignore"):
+                on &= ((ref >= np.nanmin(ref[rows])) & (ref <= np.nanmax(ref[rows]))
+                       if np.isfinite(ref[rows]).any() else False)
+        if like >= 1:
+            on &= np.isin(self.slot, np.unique(self.slot[rows]))
         m = pd.Series(np.where(on, self.measured[:, j], 0.0)).groupby(self.days).sum()
         r = pd.Series(np.where(on, ref, 0.0)).groupby(self.days).sum()
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return (m / r).where(r > 0.25 * r[r > 0].median())
+        return m, r
 
     def scatter(self, rows: np.ndarray, cc: np.ndarray) -> np.ndarray:
         """Per entry ``(rows, cc)``: the interval-scale relative error of the expected power
@@ -392,10 +400,11 @@ class _Levels:
         intervals like the entry's (:meth:`daily`, :func:`perfcheck.detect.common.local_level`;
         where too few days around have such intervals, as for a few intervals at a rare
         power, on the same times of day only, then on all intervals) and the level's relative
-        standard error. The level is read through the same irradiance as the entry, days away,
-        so the sensor's calibration cancels (its drift over a few weeks is far below the 1 %
-        floor); with too few days around at all, the level is 1 and the reference's absolute
-        uncertainty (``absolute``) joins the error in quadrature."""
+        standard error; or, where the other inverters read it more closely, that level
+        through theirs (:meth:`beside`). The level is read through the same irradiance as the
+        entry, days away, so the sensor's calibration cancels (its drift over a few weeks is
+        far below the 1 % floor); with too few days around at all, the level is 1 and the
+        reference's absolute uncertainty (``absolute``) joins the error in quadrature."""
         level, rel = np.ones(len(rows)), np.zeros(len(rows))
         for j in np.unique(cc):
             on = cc == j
@@ -406,10 +415,45 @@ class _Levels:
                 if math.isfinite(lv):
                     break
             if math.isfinite(lv):
-                level[on], rel[on] = lv, s
+                level[on], rel[on] = min((lv, s), self.beside(j, r, like), key=lambda x: x[1])
             else:
                 rel[on] = np.hypot(s, self.absolute[r, j])
         return level, rel
+
+    def beside(self, j: int, rows: np.ndarray, like: int) -> tuple[float, float]:
+        """Inverter ``j``'s level on its ``rows`` read through the other inverters: what they
+        delivered of their reference on those rows, times ``j``'s level relative to theirs
+        on the days around (the local level, :func:`perfcheck.detect.common.local_level`, of
+        the ratio of the daily levels, :meth:`daily`, on intervals like the rows), and that
+        relative level's standard error; (NaN, inf) where the others are free on no more than
+        half of the rows (most of the event's own intervals must be read, not inferred) or the
+        ratio has too few days. Inverters under one sky share the weather's and the season's
+        model error (cloud, low sun, spectrum), which the ratio cancels: where they do, its
+        error is far below that of the inverter's own level (a month-long derate in winter,
+        judged by a handful of clear noons around it), and :meth:`at` takes the reading with
+        the smaller error (the comparison with neighbouring inverters: common practice).
+        """
+        others = [k for k in range(self.measured.shape[1]) if k != j]
+        free = self.sel[np.ix_(rows, others)]
+        if not others or not free.any(axis=1).mean() > 0.5:
+            return float("nan"), math.inf
+        sums = [self._sums(k, rows, like) for k in others]
+        x = self.daily(j, rows, like) / _day_ratio(sum(m for m, _ in sums),
+                                                   sum(r for _, r in sums))
+        ratio, s = local_level(x.where(np.isfinite(x)), self.days[rows].min(),
+                               self.days[rows].max())
+        if not math.isfinite(ratio):
+            return float("nan"), math.inf
+        m = self.measured[np.ix_(rows, others)][free]
+        ref = self.reference[np.ix_(rows, others)][free]
+        return ratio * float(np.sum(m) / np.sum(ref)), s
+
+
+def _day_ratio(m: pd.Series, r: pd.Series) -> pd.Series:
+    """Measured over reference energy per day; NaN on a day whose reference energy is under a
+    quarter of the median day's (:meth:`_Levels.daily`)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (m / r).where(r > 0.25 * r[r > 0].median())
 
 
 def _unseen(led: Ledger, own_prints: list[Footprint], col_pos: dict[str, int],
