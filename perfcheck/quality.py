@@ -328,17 +328,19 @@ def run(con: duckdb.DuckDBPyConnection, site: Site, sun: physics.SunPositions | 
         "power_share": POWER_SHARE,
         "irradiance_floor": IRRADIANCE_FLOOR_WM2,
     }
-    runs, rates, gaps = runs_and_gaps(con, channels, table)
-    with db.registered(con, _quality_channels=channels, _quality_sun=table, _quality_runs=runs,
-                       _quality_rates=rates, _quality_gaps=gaps):
+    with db.registered(con, _quality_channels=channels, _quality_sun=table):
         with db.transaction(con):
             carry_forward(con, site)
             units.run(con, site)  # before the flags: they read corrected values
+            # the readings as the flags read them: carried and corrected in this transaction
+            runs, rates, gaps = runs_and_gaps(con, channels, table)
             con.execute("DELETE FROM flags")
-            for name in FLAG_QUERIES:
-                query = db.sql(f"quality_{name}")
-                used = {k: v for k, v in params.items() if re.search(rf"\${k}\b", query)}
-                con.execute(query, used)
+            with db.registered(con, _quality_runs=runs, _quality_rates=rates,
+                               _quality_gaps=gaps):
+                for name in FLAG_QUERIES:
+                    query = db.sql(f"quality_{name}")
+                    used = {k: v for k, v in params.items() if re.search(rf"\${k}\b", query)}
+                    con.execute(query, used)
             con.execute("DELETE FROM quality_state")
             con.execute("INSERT INTO quality_state SELECT max(file_id) FROM source_files")
         counts = dict(con.execute("SELECT flag, count(*) FROM flags GROUP BY flag").fetchall())

@@ -78,3 +78,18 @@ def test_carry_forward_needs_a_historian(tmp_path):
         load_site(site_path)
     assert str(err.value) == (f"{site_path}: loggers[0].carry_forward_min: only a historian "
                               "export (point_column) writes a value only when it changed")
+
+
+def test_gaps_follow_the_carried_values_of_the_same_run(tmp_path):
+    # The flags of the run that carries the values see them: 2.0 kW holds to 10:27:30, so the
+    # only gap of the power channel starts at 10:30 (up to 11:00), not at 10:05 and 10:17:30
+    # where the written values alone leave holes (the rule stated in the module docstring).
+    site_path, log = write_case(tmp_path, BODY, filename="scada_06.csv",
+                                loggers=HISTORIAN.format(carry="carry_forward_min = 15"))
+    site = load_site(site_path)
+    con = db.connect(tmp_path / "site.duckdb")
+    ingest_files(con, site, [log])
+    quality.run(con, site)
+    gaps = con.execute("SELECT strftime(ts, '%H:%M:%S'), detail FROM flags WHERE flag = 'gap' "
+                       "AND quantity = 'ac_power_w' ORDER BY ts").fetchall()
+    assert gaps == [("10:30:00", "6 missing interval(s) of 5 min, up to 2024-06-01 10:55 UTC")]
