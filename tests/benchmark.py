@@ -314,7 +314,11 @@ def run_process(argv: list[str]) -> Run:
             lines = (err_path.read_text(errors="replace").strip().splitlines()
                      or ["(no output)"])
             error = f"exit {code}: {lines[-1]}"
-        measured = json.loads(result.read_text()) if result.exists() else {}
+        try:
+            measured = json.loads(result.read_text())
+        except (OSError, ValueError):  # not written, or cut short (a full disk)
+            measured = {}
+            error = error or "its timing was not written (is the disk full?)"
     return Run(measured.get("wall_s", float("nan")), measured.get("peak_kb", 0), error)
 
 

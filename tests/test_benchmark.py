@@ -8,6 +8,7 @@ from __future__ import annotations
 import sys
 from types import SimpleNamespace
 
+import benchmark
 import numpy as np
 import pandas as pd
 import pytest
@@ -117,6 +118,13 @@ def test_run_process_reports_the_error_line():
     assert ok.error == "" and ok.wall_s > 0 and ok.peak_kb > 0
     bad = run_process([sys.executable, "-c", "import sys; sys.exit('no such file')"])
     assert bad.error == "exit 1: no such file"
+
+
+def test_run_process_reports_a_timing_cut_short(monkeypatch):
+    # a full disk leaves the launcher's result file empty: an error line, not a traceback
+    monkeypatch.setattr(benchmark, "LAUNCH", "import sys; open(sys.argv[1], 'w').close()")
+    run = run_process([sys.executable, "-c", "pass"])
+    assert run.error == "its timing was not written (is the disk full?)"
 
 
 def test_run_process_peak_is_the_command_s_own():
