@@ -16,7 +16,10 @@ with a Welch t-test p-value below ``alpha`` (one-sided where it begins at a dayl
 change in that change's direction: :func:`_p_value`) is a clock fault of that size; its edges
 are then placed on the day by the midpoint of each day's span of production (:func:`midspans`:
 clouds shorten the span at both ends alike, so it moves by a few minutes where the centre moves
-by tens, while a clock moves it by the whole offset). Where an irradiance sensor on another
+by tens, while a clock moves it by the whole offset). That midpoint must move with the centre
+over the window (:func:`_span_change`): a loss on one side of the day, such as a tracker
+stalled facing east or west, moves the centre by as much as an hour but leaves the production
+starting and ending with the sun. Where an irradiance sensor on another
 logger feeds an expected power of the inverter (:func:`independent`), each such window is
 tested again on the centre of the power against that expected power, where clouds cancel
 (:func:`_confirm`): it is kept only when it holds there too, and its offset and edges are taken
@@ -54,7 +57,7 @@ import pandas as pd
 
 from perfcheck import model
 from perfcheck.detect.common import Event, Wide, change_points, despike, window_change
-from perfcheck.detect.sensor import driven_columns, has_ghi, refine_edge
+from perfcheck.detect.sensor import CONFIRM_ALPHA, driven_columns, has_ghi, refine_edge
 from perfcheck.lazy import lazy_module
 from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Site
 
@@ -65,8 +68,9 @@ stats = lazy_module("scipy.stats")
 # is its start (a cloudy day next to an edge moves it by a day or two: common practice)
 EDGE_DAYS = 2
 METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
-          "position; segmentation and Welch t test; confirmed against the expected power from "
-          "another logger's irradiance sensor where there is one")
+          "position; segmentation and Welch t test; the span of production moving with it; "
+          "confirmed against the expected power from another logger's irradiance sensor "
+          "where there is one")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -269,12 +273,18 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
             nxt = q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q) else allq.index[-1]
             d0 = refine_edge(allq, prev, q.index[min(g.start + 1, g.stop - 1)])
             d1 = refine_edge(allq, q.index[max(g.stop - 2, g.start)], nxt)
+            # a clock moves the day's span of production with its centre; a loss on one side
+            # of the day (a tracker stalled facing one way, a shade) moves the centre alone
+            span = _span_change(allq, d0, d1, off, min_days)
+            if span is None:
+                continue
             one: Shift | None = Shift(
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
                  "offset_min": float(off), "reference_centre_bias_min": float(ref.mean),
-                 "offset_standard_error_min": _se(x[g.start:g.stop], x[ref.start:ref.stop])})
+                 "offset_standard_error_min": _se(x[g.start:g.stop], x[ref.start:ref.stop]),
+                 "production_span_shift_min": span})
             if inv in d_ind:
                 one = _confirm(d_ind[inv], one, w.tz, alpha, min_offset_min, min_days)
             if one is not None:
@@ -287,6 +297,38 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
             out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha,
                                        partial(_left_after, w, reference, ind, lg)))
     return out
+
+
+def _span_change(spans: pd.Series, d0: pd.Timestamp, d1: pd.Timestamp, off: float,
+                 min_days: int) -> float | None:
+    """The change [min] of the midpoint of the day's span of production (:func:`midspans`,
+    less the reference's: :func:`_daily_offsets`) over the window [d0, d1) against as many
+    days either side (:func:`perfcheck.detect.common.window_change`, isolated outliers
+    removed as in the first test); None when it moved significantly less than half the
+    centre's offset ``off`` the same way (one-sided Welch t test at
+    :data:`perfcheck.detect.sensor.CONFIRM_ALPHA`), or when the days do not allow the test.
+
+    A clock moves the first and the last interval of production by its offset, and the end
+    that falls outside the reference's day is cut, so the midpoint moves by half the offset
+    at least. A loss on one side of the day (a tracker stalled facing east or west, a shade)
+    moves the power's centre by as much as an hour or two while the sun still starts and
+    ends the production at nearly the same times; clouds shorten the span at both ends
+    alike. The half is the bound of that geometry; the level the usual 5 % of a
+    confirmation (common practice, as for the sensor's): the centre's own test bounds the
+    false alarms.
+    """
+    ch = window_change(_despiked(spans), d0, d1, min_n=min_days)
+    if ch is None:
+        return None
+    change, inside, around = ch
+    half = off / 2
+    if np.ptp(inside) == 0 and np.ptp(around) == 0:  # whole intervals every day: no spread
+        short = abs(change) < abs(half) or np.sign(change) != np.sign(off)
+    else:
+        short = stats.ttest_ind(inside - half, around, equal_var=False,
+                                alternative="less" if off > 0 else "greater"
+                                ).pvalue < CONFIRM_ALPHA
+    return None if short else float(change)
 
 
 def _p_value(p_two: float, first_day: pd.Timestamp, off: float, tz: Any) -> float:
