@@ -22,8 +22,11 @@ for a test on their number, while days are many and mostly healthy. A day is a s
 out-of-step day when the one-sided p-value is below ``[detect] alpha`` and the day's loss the
 candidate explains exceeds the one-sided 1 - alpha quantile of the daily model error (a shape
 alone, inside the model's error, is not reported). Consecutive such days with one angle (or
-offset, within ``JOIN_DEG``) make one event; the days on either side, and overcast days
-inside, join it while the event's angle fits them better than tracking; its onset and end are
+offset, within ``JOIN_DEG``) make one event, kept only where the power measured over it falls
+short of the inverter's usual performance index by half the shape's loss or more, within its
+error (a fault of the rows costs energy; a shape that costs none is the sky's or the model's);
+the days on either side, and overcast days inside, join it while the event's angle fits them
+better than tracking; its onset and end are
 placed by the split that fits best (:func:`_split`) within the run's edge day and the nearest
 day beyond it with usable intervals (an overcast day between can tell neither: a row that
 stalled on the afternoon before it is found there). Where the plant has
@@ -93,6 +96,7 @@ from perfcheck.detect.common import (
     local_level,
     scope_of,
 )
+from perfcheck.detect.sensor import CONFIRM_ALPHA
 from perfcheck.lazy import PVLIB_WITH_INIT, lazy_module, lazy_package
 from perfcheck.site import Array, Model, Site
 
@@ -747,8 +751,11 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
            rel_sigma: float, z: float, fits: DayFits, days: np.ndarray, alpha: float,
            chain: Model, shown: bool = False) -> tuple[Event | None, Footprint | None]:
     """The event of one run of days, its energy from the run's angle (or offset); None when
-    that energy lies within the model's error (one-sided ``z``), unless the angle channel
-    ``shown`` the rows' angle: then the fault is seen, not inferred from the power's shape."""
+    that energy lies within the model's error (one-sided ``z``), or when the shortfall
+    measured against the inverter's usual performance index is none, or short of half the
+    shape's beyond its error (a fault of the rows costs energy, so a day shape that costs
+    none is the sky's or the model's), unless the angle channel ``shown`` the rows' angle:
+    then the fault is seen, not inferred from the power's shape."""
     fam, val = lab
     first, last = span
     day = w.day.to_numpy()
@@ -796,20 +803,26 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     inside = u[lo:hi] & np.isfinite(m[lo:hi])
     seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
     pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
+    # the measured shortfall's error: the model's error of the level over the event's days
+    # against the days around them, autocorrelation included (:func:`local_level`)
+    on = np.where(u & np.isfinite(m), 1.0, np.nan)
+    daily = pd.Series(m * on).groupby(day).sum(min_count=1) / pd.Series(
+        np.nan_to_num(e_all) * on).groupby(day).sum(min_count=1)
+    _, rel = local_level(daily, pd.Timestamp(first), pd.Timestamp(last))
+    se_seen = rel * float(np.sum((pi0 * exp)[inside] * step[inside]) / 3.6e6)
+    # a fault of the rows costs energy: the shortfall measured must be there, and not below
+    # half the shape's (one-sided, at the confirmations' level: the half-to-twice rule of
+    # the sensor's confirmations, common practice)
+    if not (shown or (seen > 0 and seen >= pred / 2 - stats.norm.isf(CONFIRM_ALPHA) * se_seen)):
+        return None, None  # the shape without its loss
     spread = math.hypot(seen - pred, edge_kwh)
     if fam == "step" and seen > 0 and pred > 0:
         # an offset's loss is mostly a level, which the shape alone places poorly: its share
         # is scaled to the shortfall measured against the usual performance index, and takes
-        # that shortfall's error: the model's error of the level over the event's days
-        # against the days around them, autocorrelation included (:func:`local_level`)
+        # that shortfall's error
         factor = np.clip(factor * seen / pred, 0.0, 1.0)
         e_kwh = float(np.sum(exp * factor * step) / 3.6e6)
-        on = np.where(u & np.isfinite(m), 1.0, np.nan)
-        daily = pd.Series(m * on).groupby(day).sum(min_count=1) / pd.Series(
-            np.nan_to_num(e_all) * on).groupby(day).sum(min_count=1)
-        _, rel = local_level(daily, pd.Timestamp(first), pd.Timestamp(last))
-        expected_in = float(np.sum((pi0 * exp)[inside] * step[inside]) / 3.6e6)
-        spread = math.hypot(spread, rel * expected_in)
+        spread = math.hypot(spread, se_seen)
     low, high = energy_band(e_kwh, rel_sigma, spread)
     kind = "tracker_stall" if fam == "stall" else "tracker_out_of_step"
     in_run = (days >= first) & (days <= last)
