@@ -1,13 +1,18 @@
-"""One helper for the tests: a small site file plus a logger file written in tmp_path.
+"""Helpers for the tests: a small site file plus a logger file written in tmp_path.
 
 ``write_case`` writes ``site.toml`` with one inverter ``INV1`` and one ``[[loggers]]`` entry
 built from keyword arguments, and a logger file whose body is given as text (or bytes, to test
-encodings and line ends). Tests change only what their habit needs.
+encodings and line ends). Tests change only what their habit needs. ``checked`` ingests such a
+case into a fresh database and runs the quality stage on it.
 """
 
 from __future__ import annotations
 
 from pathlib import Path
+
+from perfcheck import db, quality
+from perfcheck.ingest import ingest_files
+from perfcheck.site import load_site
 
 SITE = """\
 [site]
@@ -107,3 +112,12 @@ def run_ingest(site: Path, *files: Path | str, db: Path | None = None):
 
     args = ["ingest", str(site), *map(str, files)] + (["--db", str(db)] if db else [])
     return CliRunner().invoke(main, args)
+
+
+def checked(tmp_path: Path, site_path: Path, log: Path) -> tuple:
+    """The case of ``write_case`` ingested into ``tmp_path/site.duckdb`` and passed through the
+    quality stage: (the ingest results, the quality stage's counts, the connection, the site)."""
+    site = load_site(site_path)
+    con = db.connect(tmp_path / "site.duckdb")
+    results = ingest_files(con, site, [log])
+    return results, quality.run(con, site), con, site

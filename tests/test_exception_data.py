@@ -6,11 +6,9 @@ from __future__ import annotations
 
 import pandas as pd
 import pytest
-from logger_files import write_case
+from logger_files import checked, write_case
 
-from perfcheck import db, quality
 from perfcheck.errors import SiteFileError
-from perfcheck.ingest import ingest_files
 from perfcheck.site import load_site
 
 HISTORIAN = """\
@@ -47,11 +45,8 @@ BODY = ("time,device,point,value\n"
 def _power(tmp_path, carry: str) -> list[tuple[str, float, int]]:
     site_path, log = write_case(tmp_path, BODY, filename="scada_06.csv",
                                 loggers=HISTORIAN.format(carry=carry))
-    site = load_site(site_path)
-    con = db.connect(tmp_path / "site.duckdb")
-    (res,) = ingest_files(con, site, [log])
+    (res,), _, con, _ = checked(tmp_path, site_path, log)
     assert (res.rows_read, res.rows_loaded) == (4, 4)  # carried values are not lines
-    quality.run(con, site)
     rows = con.execute("SELECT ts, value, line FROM readings WHERE quantity = 'ac_power_w' "
                        "ORDER BY ts").fetchall()
     return [(pd.Timestamp(t).tz_convert("UTC").strftime("%H:%M:%S"), v, n) for t, v, n in rows]
@@ -86,10 +81,7 @@ def test_gaps_follow_the_carried_values_of_the_same_run(tmp_path):
     # where the written values alone leave holes (the rule stated in the module docstring).
     site_path, log = write_case(tmp_path, BODY, filename="scada_06.csv",
                                 loggers=HISTORIAN.format(carry="carry_forward_min = 15"))
-    site = load_site(site_path)
-    con = db.connect(tmp_path / "site.duckdb")
-    ingest_files(con, site, [log])
-    quality.run(con, site)
+    _, _, con, _ = checked(tmp_path, site_path, log)
     gaps = con.execute("SELECT strftime(ts, '%H:%M:%S'), detail FROM flags WHERE flag = 'gap' "
                        "AND quantity = 'ac_power_w' ORDER BY ts").fetchall()
     assert gaps == [("10:30:00", "6 missing interval(s) of 5 min, up to 2024-06-01 10:55 UTC")]

@@ -5,11 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from logger_files import write_case
+from logger_files import checked, write_case
 from numpy.testing import assert_allclose
 
 from perfcheck import db, physics, quality
-from perfcheck.ingest import ingest_files
 from perfcheck.site import load_site
 
 COLUMNS = (("P", "ac_power", "kW", "INV1"), ("G", "poa", "W/m2", None),
@@ -39,10 +38,7 @@ SUN = physics.SunPositions(48.0, 11.0, 500.0)  # the site of logger_files.SITE
 def flagged(tmp_path, frame, drop=(), columns=COLUMNS):
     frame = frame.drop(index=list(drop))
     site_path, log = write_case(tmp_path, frame.to_csv(index=False), columns=columns)
-    site = load_site(site_path)
-    con = db.connect(tmp_path / "site.duckdb")
-    ingest_files(con, site, [log])
-    counts = quality.run(con, site)
+    _, counts, con, site = checked(tmp_path, site_path, log)
     flags = con.execute("SELECT ts, quantity, device, flag, detail FROM flags ORDER BY ts").df()
     flags["ts"] = pd.DatetimeIndex(flags["ts"]).tz_convert("UTC")
     return counts, flags, con, site
@@ -84,10 +80,7 @@ def test_bsrn_limits_follow_the_sun(tmp_path):
     frame.loc[noon + 1, "H"] = round(limit - 30, 1)
     cols = (*COLUMNS, ("H", "ghi", "W/m2", None))
     site_path, log = write_case(tmp_path, frame.to_csv(index=False), columns=cols)
-    site = load_site(site_path)
-    con = db.connect(tmp_path / "site.duckdb")
-    ingest_files(con, site, [log])
-    quality.run(con, site)
+    _, _, con, _ = checked(tmp_path, site_path, log)
     rows = con.execute("SELECT ts FROM flags WHERE flag = 'out_of_range' AND quantity = "
                        "'ghi_wm2'").fetchall()
     assert [pd.Timestamp(r[0]).tz_convert("UTC") for r in rows] == [DAY[noon]]
