@@ -21,14 +21,13 @@ both, the shortfall is split in this order (each step works on what the steps be
    and the season's model error), L is what they delivered there times that relative level
    (:meth:`_Levels.beside`); where the expected series stops at a cap (rating, export
    limit), the level scales the unlimited power and the cap holds (:func:`would_deliver`).
-   The share-type
-   causes of step 2 found on the same intervals (a stalled row, soiling) lower what the
-   inverter could deliver: L is taken against the expected power less them, and they scale
-   it at the event too (:func:`_kept`), so that a limit on a stalled day does not take the
-   stall's loss. Inside the window of lost strings (:data:`AT_LEVEL`) the event costs what
-   the inverter would have delivered as it was, with the strings lost: the share lost of
-   L x expected is the strings' (entered under their event), the rest less the measured
-   power the event's.
+   The share-type causes of step 2 found on the same intervals (a stalled row, soiling) lower
+   what the inverter could deliver: L is taken against the expected power less them, and they
+   scale it at the event too (:func:`_kept`), so that a limit on a stalled day does not take
+   the stall's loss. Inside the window of lost strings (:data:`AT_LEVEL`) the event costs
+   what the inverter would have delivered as it was, with the strings lost: the share lost of
+   L x expected is the strings' (entered under their event), the rest less the measured power
+   the event's.
 2. Shares of the remaining intervals' expected power (class ``share``), one after another:
    ``degradation`` (beyond the site file's ageing allowance), ``soiling``, ``shading``,
    ``tracker_stall``, ``tracker_out_of_step``, ``partial_outage``: loss = share x (expected
