@@ -208,3 +208,45 @@ def test_steady_clear_needs_clear_neighbours():
     out = shading.steady_clear(clear)
     assert out["A"].tolist() == [False, False, False, False, True, True, False]
     assert out["B"].tolist() == [False, True, False, False, False, False, False]
+
+
+def test_unshaded_level_error_takes_days_as_the_draws():
+    # invented truth: in band 2 (10-15 deg), bins 1-4 seen 6 times a day on 20 days; each
+    # day's deficit shares a day offset (the day's sky and model error) and the intervals
+    # differ by 1e-4 only. The level's standard error is the daily means' standard deviation
+    # over sqrt(20), not the intervals' over sqrt(120); bin 5, seen on 4 intervals, takes
+    # the band's median and the spread of the four bin levels as its error (derived from
+    # the definitions; common practice)
+    rng = np.random.default_rng(3)
+    day_pos = np.repeat(np.arange(20), 6)
+    rows = []
+    for az in range(1, 5):
+        offset = rng.normal(0.05 * az, 0.02, 20)
+        rows.append((np.full(len(day_pos), az * 1000 + 2), day_pos,
+                     offset[day_pos] + rng.normal(0.0, 1e-4, len(day_pos))))
+    rows.append((np.full(4, 5002), np.arange(4), np.full(4, 0.9)))
+    key, days, d = (np.concatenate(x) for x in zip(*rows, strict=True))
+    elev = np.full(len(d), 12.0)
+    level, se = shading._unshaded_level(d, np.ones(len(d), dtype=bool), key, elev, 5.0, days)
+    own = []
+    for az in range(1, 5):
+        sel = key == az * 1000 + 2
+        daily = pd.Series(d[sel]).groupby(days[sel]).mean()
+        assert level[sel][0] == pytest.approx(np.median(d[sel]))
+        assert se[sel][0] == pytest.approx(daily.std(ddof=1) / np.sqrt(20))
+        own.append(np.median(d[sel]))
+    few = key == 5002
+    assert level[few][0] == pytest.approx(np.median(d))
+    assert se[few][0] == pytest.approx(np.std(own, ddof=1))
+
+
+def test_base_error_adds_in_each_bin_and_in_quadrature_across():
+    # invented numbers: bin A holds 10 kWh of the region's expected energy with a level error
+    # of 0.01, bin B 5 kWh with 0.02: 0.1 kWh each, in quadrature 0.1414 kWh (arithmetic)
+    step = np.full(4, 3600.0)
+    level_e = np.array([5000.0, 5000.0, 5000.0, 1000.0])
+    key = np.array([1001, 1001, 2001, 2001])
+    se = np.array([0.01, 0.01, 0.02, 0.02])
+    sel = np.array([True, True, True, False])
+    assert shading._base_sigma_kwh(se, level_e, sel, key, step) == pytest.approx(
+        np.hypot(0.1, 0.1))

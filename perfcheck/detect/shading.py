@@ -42,10 +42,11 @@ under its column's top that day.
 Energy. Each interval of the region loses its expected power at the day's level (median
 ratio of the intervals outside the region) times its deficit less its bin's unshaded
 deficit (the model's shape error there, from the bin's clear intervals outside the region).
-The 95 % band: the model's relative daily error, the long-run (autocorrelation-aware) noise
-of the same estimate on the unshaded intervals of the region's columns, and upwards the loss
-under the highest top that fits the labels as well as the lowest (the data cannot place the
-boundary closer).
+The 95 % band: the model's relative daily error; the long-run (autocorrelation-aware) noise
+of the same estimate on the unshaded intervals of the region's sky bins; the standard error
+of the unshaded deficits subtracted (each bin's, from its days, times the region's expected
+energy in it: the same on every day); and upwards the loss under the highest top that fits
+the labels as well as the lowest (the data cannot place the boundary closer).
 
 The event (one per inverter) gives the azimuth range, the top elevation at the end, the first
 day of the region (the event lasts to the end of the data: the obstruction is still there),
@@ -53,7 +54,7 @@ the energy and a proposed horizon profile. It starts on the first day its loss i
 the first day whose estimated loss exceeds ``material_share`` (1 %, common practice) of the
 inverter's expected energy of the day and is significant against the day's noise (one-sided,
 ``alpha``: the estimate's daily relative error on the unshaded intervals of the region's
-columns, scaled MAD, times the region's expected energy that day). Where no day's loss stands
+sky bins, scaled MAD, times the region's expected energy that day). Where no day's loss stands
 out of its noise on its own (a small loss, or one that reaches the sun's path only late), the
 first day whose loss under a clear sky would exceed that share: the region's share of the
 day's clear-sky plane irradiance times the region's mean relative loss on its clear
@@ -335,17 +336,20 @@ def detect(w: Wide, usable: pd.DataFrame, rel_sigma: float, horizon: dict[str, t
                 elev < high_top[day_pos])
         d_all, level_e = _interval_deficits(w, inv, use & ~region, days)
         sel = region & np.isfinite(d_all)
-        base = _unshaded_level(d_all, use & clear_all & ~region, key_all, elev, el_step)
+        base, base_se = _unshaded_level(d_all, use & clear_all & ~region, key_all, elev,
+                                        el_step, days)
         est = level_e * (d_all - base)
         loss = np.where(sel, est, 0.0)
         energy = float(np.sum(loss * step) / 3.6e6)
         if not energy > 0:  # a region, but no loss: no finding
             continue
         shaded_mask[inv] = sel
-        x = _daily_error(est, level_e, use & ~region & np.isin(column, list(tops))
+        # the estimate's error where it is taken: the region's sky bins, unshaded
+        x = _daily_error(est, level_e, use & ~region & np.isin(key_all, key_all[sel])
                          & np.isfinite(d_all), days, step)
         e_day = pd.Series(np.where(sel, level_e, 0.0) * step / 3.6e6).groupby(days).sum()
-        sigma = _loss_sigma_kwh(x, e_day.to_numpy())
+        sigma = float(np.hypot(_loss_sigma_kwh(x, e_day.to_numpy()),
+                               _base_sigma_kwh(base_se, level_e, sel, key_all, step)))
         low, high = _boundary_band(energy, rel_sigma, sigma, np.where(
             use & np.isfinite(d_all), est, 0.0), step, upper & ~region, column)
         hits = [{"az": int(a), "el": int(e), **tested[(a, e)],
@@ -566,24 +570,53 @@ def _fit_top(obs: np.ndarray, labels: np.ndarray, elev: np.ndarray, day_pos: np.
 
 
 def _unshaded_level(d: np.ndarray, ref: np.ndarray, key: np.ndarray, elev: np.ndarray,
-                    el_step: float, min_n: int = MIN_CELL) -> np.ndarray:
-    """Per interval, the deficit its sky bin shows unshaded (the model's shape error there):
-    the median over the bin's ``ref`` intervals, or over the elevation band's in every
-    azimuth where the bin has fewer than ``min_n``."""
+                    el_step: float, days: np.ndarray, min_n: int = MIN_CELL
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Per interval, the deficit its sky bin shows unshaded (the model's shape error there)
+    and that level's standard error.
+
+    The level is the median over the bin's ``ref`` intervals. Its standard error takes the
+    days as the independent draws (the intervals of one day share its sky and its model
+    error): the standard deviation of the bin's daily mean deficits over the root of their
+    number. A bin with fewer than ``min_n`` intervals or 3 days takes the median of its
+    elevation band in every azimuth, and as error the spread (standard deviation) of the
+    band's own bin levels around it: the bin's own level differs from the band's by that
+    much. A band without two such bins takes 0 and the largest spread of the other bands.
+    """
     band = np.floor(np.clip(elev, 0, None) / el_step).astype(int)
     ok = ref & np.isfinite(d)
-    by_bin = pd.Series(d[ok]).groupby(key[ok])
+    frame = pd.DataFrame({"key": key[ok], "day": days[ok], "d": d[ok]})
+    g = frame.groupby("key")["d"]
+    daily = frame.groupby(["key", "day"])["d"].mean().groupby(level="key")
+    own = (g.size() >= min_n) & (daily.size() >= 3)
+    level = g.median()[own]
+    se = (daily.std(ddof=1) / np.sqrt(daily.size()))[own]
     by_band = pd.Series(d[ok]).groupby(band[ok]).median()
-    level = by_bin.median()[by_bin.size() >= min_n]
+    spread = level.groupby(level.index.to_numpy() % 1000).std(ddof=1).dropna()
+    worst = float(spread.max()) if len(spread) else 0.0
     out = pd.Series(key).map(level).to_numpy(dtype=float)
+    out_se = pd.Series(key).map(se).to_numpy(dtype=float)
     fallback = pd.Series(band).map(by_band).fillna(0.0).to_numpy(dtype=float)
-    return np.where(np.isfinite(out), out, fallback)
+    fallback_se = pd.Series(band).map(spread).fillna(worst).to_numpy(dtype=float)
+    own_bin = np.isfinite(out)
+    return np.where(own_bin, out, fallback), np.where(own_bin, out_se, fallback_se)
+
+
+def _base_sigma_kwh(base_se: np.ndarray, level_e: np.ndarray, sel: np.ndarray,
+                    key: np.ndarray, step: np.ndarray) -> float:
+    """Standard error [kWh] of the region's loss from the unshaded levels it subtracts
+    (``base_se``, :func:`_unshaded_level`): a bin's level is wrong by the same amount on
+    every interval of the region in it, so its error times the region's expected energy
+    in the bin; the bins' levels come from different intervals, so root sum of squares."""
+    per_bin = pd.Series(np.where(sel, base_se * level_e * step / 3.6e6, 0.0)).groupby(
+        key).sum()
+    return float(np.sqrt(np.sum(per_bin.to_numpy() ** 2)))
 
 
 def _daily_error(est_w: np.ndarray, level_e: np.ndarray, ref: np.ndarray, days: np.ndarray,
                  step: np.ndarray) -> np.ndarray:
     """The loss estimate's daily relative error: the estimate ``est_w`` summed over the
-    unshaded intervals ``ref`` of the region's columns (true value zero) over their
+    unshaded intervals ``ref`` of the region's sky bins (true value zero) over their
     expected energy at the day's level, one value per day with such intervals."""
     kwh = step / 3.6e6
     err = pd.Series(np.where(ref, est_w * kwh, 0.0)).groupby(days).sum()
