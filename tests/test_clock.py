@@ -100,7 +100,7 @@ def test_offset_and_edges_measured_against_another_loggers_sensor():
     df = make_aligned(site, faults=[{**CLOCK, "sensor": True}], days=60, seed=3)
     ev = _clock_event(detect.analyse(df, site))
     assert ev.detail["offset_min"] == pytest.approx(45, abs=5)
-    assert ev.evidence["confirmed_against"]
+    assert ev.evidence["measured_against"].startswith("expected power")
     assert ev.start == pd.Timestamp(CLOCK["start"], tz=TZ)
     assert ev.end == pd.Timestamp(CLOCK["end"], tz=TZ)
 
@@ -234,3 +234,19 @@ def test_a_reference_on_the_shifted_logger_moves_back_with_it():
     np.testing.assert_array_equal(moved[~inside].to_numpy(), x[~inside].to_numpy())
     assert clock.moved_back(x, w, [s], "met") is x
     assert clock.moved_back(None, w, [s], "dl") is None
+
+
+def test_segments_of_one_offset_form_one_window():
+    # invented segmentation: a steady reference at 0 min, then 55, 53 and 55 min for 7, 3 and
+    # 18 days (a clean reference splits one offset where it wanders by two minutes), the
+    # reference again, and later a clock 60 then 30 min late: the first three are one window
+    # (they differ by less than the least offset reported, 20 min), the last two are two
+    # (derived from the definition; common practice)
+    levels = [(100, 0.0), (7, 55.0), (3, 53.0), (18, 55.0), (50, 0.0), (10, 60.0), (10, 30.0),
+              (20, 0.0)]
+    x = np.concatenate([np.full(n, v) for n, v in levels])
+    stops = np.cumsum([n for n, _ in levels])
+    segs = [common.Segment(int(b - n), int(b), v) for (n, v), b in zip(levels, stops, strict=True)]
+    found = clock._windows(x, segs, segs[0], 20.0)
+    assert [(g.start, g.stop) for g in found] == [(100, 128), (178, 188), (188, 198)]
+    assert found[0].mean == pytest.approx((7 * 55 + 3 * 53 + 18 * 55) / 28)

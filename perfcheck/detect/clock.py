@@ -1,12 +1,17 @@
 """Clock faults: the logger's time labels off by a constant offset for a while.
 
 Every day with readings in at least 90 % of its daylight intervals, the centre (power-weighted
-mean time) of an inverter's measured power is compared with the centre of its clear-sky
-plane-of-array irradiance computed from the sun position
+mean time) of an inverter's measured power is compared with the centre of a reference. Where
+an irradiance sensor on another logger (another clock) feeds an expected power of the
+inverter (:func:`independent`), the reference is that expected power: clouds move it as they
+move the power, so the two centres differ by the model's small bias alone, and a season's
+weather (foggy mornings, afternoon storms) moves both alike. Otherwise it is the inverter's
+clear-sky plane-of-array irradiance computed from the sun position
 (:func:`perfcheck.detect.common.clearsky_poa`, summed over the inverter's arrays by DC rating).
 For a south-facing array this is the solar noon; for other orientations it is the same
-astronomy seen from their plane. Clouds move a day's centre by a few to some tens of minutes
-either way, a clock error moves every day of its window alike; clear days alone are too few
+astronomy seen from their plane. Clouds move a day's centre against it by a few to some
+tens of minutes either way, a clock error moves every day of its window alike; clear days
+alone are too few
 (and a shifted logger's own irradiance makes its days look cloudy against the clear-sky curve,
 so a missed daylight-saving change hides from a clear-day test). The difference [min] per day,
 isolated outliers removed (:func:`perfcheck.detect.common.despike`), is segmented by circular
@@ -19,12 +24,7 @@ clouds shorten the span at both ends alike, so it moves by a few minutes where t
 by tens, while a clock moves it by the whole offset). That midpoint must move with the centre
 over the window (:func:`_span_change`): a loss on one side of the day, such as a tracker
 stalled facing east or west, moves the centre by as much as an hour but leaves the production
-starting and ending with the sun. Where an irradiance sensor on another
-logger feeds an expected power of the inverter (:func:`independent`), each such window is
-tested again on the centre of the power against that expected power, where clouds cancel
-(:func:`_confirm`): it is kept only when it holds there too, and its offset and edges are taken
-from that test (a season's weather, such as foggy mornings, moves the centre against the clear
-sky for weeks, but moves the irradiance with the power). Inverters whose windows agree form one
+starting and ending with the sun. Inverters whose windows agree form one
 event, reported only when it covers every inverter of a logger (a clock belongs to a logger);
 plant scope when it covers all inverters. A window that begins at a daylight-saving change of
 the site's zone with that change's step inside the estimate's interval is set to the change
@@ -56,21 +56,28 @@ import numpy as np
 import pandas as pd
 
 from perfcheck import model
-from perfcheck.detect.common import Event, Wide, change_points, despike, window_change
+from perfcheck.detect.common import (
+    Event,
+    Segment,
+    Wide,
+    change_points,
+    despike,
+    window_change,
+)
 from perfcheck.detect.sensor import CONFIRM_ALPHA, driven_columns, has_ghi, refine_edge
 from perfcheck.lazy import lazy_module
 from perfcheck.site import DEVICE_QUANTITIES, QUANTITIES, Site
 
 stats = lazy_module("scipy.stats")
 
-# the edges of a window found against the clear sky are searched again within this many days
-# when confirmed on another logger's sensor, and a daylight-saving change this near its start
-# is its start (a cloudy day next to an edge moves it by a day or two: common practice)
+# a window's edges are searched again within this many days, and a daylight-saving change
+# this near its start is its start (a cloudy day next to an edge moves it by a day or two:
+# common practice)
 EDGE_DAYS = 2
-METHOD = ("daily power centre against the clear-sky plane irradiance centre from the sun "
-          "position; segmentation and Welch t test; the span of production moving with it; "
-          "confirmed against the expected power from another logger's irradiance sensor "
-          "where there is one")
+METHOD = ("daily power centre against that of the expected power from another logger's "
+          "irradiance sensor where there is one, else of the clear-sky plane irradiance from "
+          "the sun position; segmentation and Welch t test; the span of production moving "
+          "with it")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -200,95 +207,63 @@ def _daily_offsets(w: Wide, reference: pd.DataFrame, spans: bool = False) -> pd.
     return d.where(ok_day > 0.9)
 
 
-def _confirm(x: pd.Series, s: Shift, tz: Any, alpha: float, min_offset_min: float,
-             min_days: int) -> Shift | None:
-    """A window found against the clear sky, tested again on ``x``: the daily centre
-    difference of the power against an expected power from another logger's sensor
-    (:func:`independent`), where clouds cancel. Its edges are placed again on ``x`` within
-    ``EDGE_DAYS`` of the first ones (:func:`perfcheck.detect.sensor.refine_edge`); the window's
-    median less the median of as many days either side
-    (:func:`perfcheck.detect.common.window_change`, isolated outliers removed as in the
-    first test: :func:`_despiked`) is the offset, kept when at least ``min_offset_min``
-    with a Welch t-test p-value below ``alpha``. None when not confirmed:
-    a season's weather (morning fog, afternoon storms) moves the centre of power and
-    irradiance alike, a clock moves the power's alone."""
-    def day(ts: pd.Timestamp) -> pd.Timestamp:
-        return ts.tz_convert(tz).tz_localize(None).normalize()
-
-    one, e = pd.Timedelta(days=1), pd.Timedelta(days=EDGE_DAYS)
-    a, b = day(s.start), day(s.end)
-    d0 = refine_edge(x, a - e - one, max(min(a + e, b - one), a))
-    d1 = refine_edge(x, max(b - e - one, d0), b + e)
-    ch = window_change(_despiked(x), d0, d1, min_n=min_days)
-    if ch is None:
-        return None
-    off, inside, around = ch
-    t = stats.ttest_ind(inside, around, equal_var=False)
-    if abs(off) < min_offset_min or not t.pvalue < alpha:
-        return None
-    return dataclasses.replace(
-        s, start=d0.tz_localize(tz).tz_convert("UTC"), end=d1.tz_localize(tz).tz_convert("UTC"),
-        offset_min=off, evidence={**s.evidence, "offset_min": off, "days": len(inside),
-                                  "offset_standard_error_min": _se(inside, around),
-                                  "confirmed_against": "expected power from another logger's "
-                                  "irradiance sensor", "confirmation_p_value": float(t.pvalue)})
-
-
 def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
          alpha: float = 1e-3, min_offset_min: float = 20.0, min_days: int = 3) -> list[Shift]:
     """Clock shifts of the measured power (see module docstring).
 
     A clock belongs to a logger (``lg``), so a shift is reported only when every inverter
     whose power that logger records shows it (this keeps a shade on one side of the day, which
-    also moves the centre, from passing as a clock fault). Where an inverter has an expected
-    power from another logger's sensor (:func:`independent`), each window is confirmed and
-    measured again on it (:func:`_confirm`).
+    also moves the centre, from passing as a clock fault). An inverter with an expected power
+    from another logger's sensor (:func:`independent`) is measured against it, else against
+    the clear sky (``reference``).
     """
     d_all = _daily_offsets(w, reference)
     d_span = _daily_offsets(w, reference, spans=True)
     ind = independent(w, lg)
-    d_ind = _daily_offsets(w, ind) if len(ind.columns) else ind  # none: nothing to confirm on
+    d_ind = _daily_offsets(w, ind) if len(ind.columns) else ind
     found: list[Shift] = []
     for inv in w.inverters:
-        q = d_all[inv].dropna()
+        against = "expected power from another logger's irradiance sensor" if inv in d_ind \
+            else "clear-sky plane irradiance from the sun position"
+        q = (d_ind[inv] if inv in d_ind else d_all[inv]).dropna()
         if len(q) < 4 * min_days:
             continue
         x = despike(q.to_numpy())
         segs = change_points(x, alpha=alpha, min_size=min_days)
         ref = max(segs, key=lambda g: g.stop - g.start)
-        for g in segs:
+        for g in _windows(x, segs, ref, min_offset_min):
             off = g.mean - ref.mean
-            if g is ref or abs(off) < min_offset_min:
-                continue
             t = stats.ttest_ind(x[g.start:g.stop], x[ref.start:ref.stop], equal_var=False)
             if not _p_value(t.pvalue, q.index[g.start], off, w.tz) < alpha:
                 continue
             allq = d_span[inv]
-            # each edge may move by a day where a least-absolute-deviation split of the span
-            # midpoints says so: a cloudy day next to an edge can pull the segmentation's edge
-            # by a day; clouds shorten the day's span of production at both ends alike, a clock
-            # moves both ends, and the medians of the split are not moved by one odd day
-            prev = (q.index[max(g.start - 2, 0)] if g.start > 0
-                    else allq.index[0] - pd.Timedelta(days=1))
-            nxt = q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q) else allq.index[-1]
-            d0 = refine_edge(allq, prev, q.index[min(g.start + 1, g.stop - 1)])
-            d1 = refine_edge(allq, q.index[max(g.stop - 2, g.start)], nxt)
+            # each edge may move by up to EDGE_DAYS where a least-absolute-deviation split
+            # says so: a cloudy day next to an edge can pull the segmentation's edge by a day.
+            # The split is of the centres against another logger's sensor where clouds cancel
+            # there, else of the span midpoints: clouds shorten the day's span of production at
+            # both ends alike, a clock moves both ends, and the medians of the split are not
+            # moved by one odd day
+            edges = d_ind[inv] if inv in d_ind else allq
+            e = pd.Timedelta(days=EDGE_DAYS)
+            first, last = q.index[g.start], q.index[g.stop - 1]
+            prev = max(q.index[max(g.start - 2, 0)] if g.start > 0
+                       else allq.index[0] - pd.Timedelta(days=1), first - e)
+            nxt = min(q.index[min(g.stop + 1, len(q) - 1)] if g.stop < len(q)
+                      else allq.index[-1], last + e)
+            d0 = refine_edge(edges, prev, q.index[min(g.start + 1, g.stop - 1)])
+            d1 = refine_edge(edges, q.index[max(g.stop - 2, g.start)], nxt)
             # a clock moves the day's span of production with its centre; a loss on one side
             # of the day (a tracker stalled facing one way, a shade) moves the centre alone
             span = _span_change(allq, d0, d1, off, min_days)
             if span is None:
                 continue
-            one: Shift | None = Shift(
+            found.append(Shift(
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
                  "offset_min": float(off), "reference_centre_bias_min": float(ref.mean),
                  "offset_standard_error_min": _se(x[g.start:g.stop], x[ref.start:ref.stop]),
-                 "production_span_shift_min": span})
-            if inv in d_ind:
-                one = _confirm(d_ind[inv], one, w.tz, alpha, min_offset_min, min_days)
-            if one is not None:
-                found.append(one)
+                 "production_span_shift_min": span, "measured_against": against}))
     out = []
     for s in _merge(found):
         name = next((n for n, g in lg.inverters.items() if g and set(g) <= set(s.inverters)),
@@ -296,6 +271,26 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
         if name is not None:
             out.append(daylight_saving(dataclasses.replace(s, logger=name), w.tz, alpha,
                                        partial(_left_after, w, reference, ind, lg)))
+    return out
+
+
+def _windows(x: np.ndarray, segs: list[Segment], ref: Segment, min_offset: float
+             ) -> list[Segment]:
+    """The windows off the reference level ``ref`` by at least ``min_offset``: runs of
+    consecutive segments each that far off whose levels differ from the one before by less
+    than ``min_offset``, joined. Against another logger's sensor the centres are so steady
+    that the segmentation splits one offset where it wanders by a minute or two; a change
+    smaller than the least offset reported is no new window."""
+    out: list[Segment] = []
+    last: Segment | None = None  # the last segment joined
+    for g in segs:
+        if g is ref or abs(g.mean - ref.mean) < min_offset:
+            continue
+        if last is not None and last.stop == g.start and abs(g.mean - last.mean) < min_offset:
+            out[-1] = Segment(out[-1].start, g.stop, float(np.mean(x[out[-1].start:g.stop])))
+        else:
+            out.append(g)
+        last = g
     return out
 
 
@@ -435,12 +430,11 @@ def _left_after(w: Wide, reference: pd.DataFrame, ind: pd.DataFrame, lg: Loggers
     """The p-value of the offset left when the readings of ``s`` are moved back by its
     offset (:func:`corrected`): the daily centre difference of its inverters' power, averaged
     over them, against the reference it was measured on (the expected power from another
-    logger's sensor where confirmed there, else the clear-sky irradiance), inside its window
+    logger's sensor where they have one, else the clear-sky irradiance), inside its window
     against as many days either side (:func:`perfcheck.detect.common.window_change`), Welch
     t test. NaN where either side has too few days."""
     cols = list(s.inverters)
-    confirmed = "confirmed_against" in s.evidence and set(cols) <= set(ind.columns)
-    ref = ind[cols] if confirmed else reference[cols]
+    ref = ind[cols] if set(cols) <= set(ind.columns) else reference[cols]
     d = _daily_offsets(corrected(w, [s], lg), ref).mean(axis=1)
 
     def day(ts: pd.Timestamp) -> pd.Timestamp:
