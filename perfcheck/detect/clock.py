@@ -11,12 +11,14 @@ clear-sky plane-of-array irradiance computed from the sun position
 For a south-facing array this is the solar noon; for other orientations it is the same
 astronomy seen from their plane. Clouds move a day's centre against it by a few to some
 tens of minutes either way, a clock error moves every day of its window alike; clear days
-alone are too few
-(and a shifted logger's own irradiance makes its days look cloudy against the clear-sky curve,
-so a missed daylight-saving change hides from a clear-day test). The difference [min] per day,
-isolated outliers removed (:func:`perfcheck.detect.common.despike`), is segmented by circular
-binary segmentation (:func:`perfcheck.detect.common.change_points`); a segment whose level
-differs from the reference level (the longest segment) by at least ``min_offset_min`` (20 min)
+alone are too few (and a shifted logger's own irradiance makes its days look cloudy against
+the clear-sky curve, so a missed daylight-saving change hides from a clear-day test). The
+difference [min] per day, isolated outliers removed (:func:`perfcheck.detect.common.despike`),
+is segmented by circular binary segmentation (:func:`perfcheck.detect.common.change_points`;
+against the clear sky the daily midpoints of the span of production are segmented too, and
+their windows tested on the centre as the centre's own are: :func:`_span_windows`); a window
+whose level differs from the reference level (the longest segment) by at least
+``min_offset_min`` (20 min)
 with a Welch t-test p-value below ``alpha`` (one-sided where it begins at a daylight-saving
 change in that change's direction: :func:`_p_value`) is a clock fault of that size; its edges
 are then placed on the day by the midpoint of each day's span of production (:func:`midspans`:
@@ -24,8 +26,8 @@ clouds shorten the span at both ends alike, so it moves by a few minutes where t
 by tens, while a clock moves it by the whole offset). That midpoint must move with the centre
 over the window (:func:`_span_change`): a loss on one side of the day, such as a tracker
 stalled facing east or west, moves the centre by as much as an hour but leaves the production
-starting and ending with the sun. Inverters whose windows agree form one
-event, reported only when it covers every inverter of a logger (a clock belongs to a logger);
+starting and ending with the sun. Inverters whose windows agree form one event, reported
+only when it covers every inverter of a logger (a clock belongs to a logger);
 plant scope when it covers all inverters. A window that begins at a daylight-saving change of
 the site's zone with that change's step inside the estimate's interval is set to the change
 exactly (:func:`daylight_saving`).
@@ -231,9 +233,20 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
         x = despike(q.to_numpy())
         segs = change_points(x, alpha=alpha, min_size=min_days)
         ref = max(segs, key=lambda g: g.stop - g.start)
-        for g in _windows(x, segs, ref, min_offset_min):
-            off = g.mean - ref.mean
-            t = stats.ttest_ind(x[g.start:g.stop], x[ref.start:ref.stop], equal_var=False)
+        cands = _windows(x, segs, ref, min_offset_min)
+        if inv not in d_ind:  # against the clear sky the span proposes windows too
+            cands += _span_windows(q.index, x, d_span[inv], cands, alpha, min_offset_min / 2,
+                                   min_days)
+        for g in cands:
+            # the window against the reference segment's other days
+            around = np.zeros(len(x), dtype=bool)
+            around[ref.start:ref.stop] = True
+            around[g.start:g.stop] = False
+            inside, outside = x[g.start:g.stop], x[around]
+            off = float(np.mean(inside) - np.mean(outside))
+            if abs(off) < min_offset_min:
+                continue
+            t = stats.ttest_ind(inside, outside, equal_var=False)
             if not _p_value(t.pvalue, q.index[g.start], off, w.tz) < alpha:
                 continue
             allq = d_span[inv]
@@ -261,8 +274,8 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
                 pd.Timestamp(d0).tz_localize(w.tz).tz_convert("UTC"),
                 pd.Timestamp(d1).tz_localize(w.tz).tz_convert("UTC"), float(off), (inv,),
                 {"test": "Welch t", "p_value": float(t.pvalue), "days": g.stop - g.start,
-                 "offset_min": float(off), "reference_centre_bias_min": float(ref.mean),
-                 "offset_standard_error_min": _se(x[g.start:g.stop], x[ref.start:ref.stop]),
+                 "offset_min": off, "reference_centre_bias_min": float(np.mean(outside)),
+                 "offset_standard_error_min": _se(inside, outside),
                  "production_span_shift_min": span, "measured_against": against}))
     out = []
     for s in _merge(found):
@@ -291,6 +304,32 @@ def _windows(x: np.ndarray, segs: list[Segment], ref: Segment, min_offset: float
         else:
             out.append(g)
         last = g
+    return out
+
+
+def _span_windows(days: pd.DatetimeIndex, x: np.ndarray, spans: pd.Series,
+                  taken: list[Segment], alpha: float, min_shift: float, min_days: int
+                  ) -> list[Segment]:
+    """Windows proposed by the midpoints of the day's span of production (``spans``, against
+    the clear sky: :func:`midspans`), as positions in ``days`` (those of the centres ``x``):
+    segmented as the centres are, the runs off their reference by at least ``min_shift``
+    (:func:`_windows`; half the least offset: a clock moves the midpoint by half its offset at
+    least), less those that overlap a window of the centres (``taken``). Under a cloudy sky
+    the span scatters by minutes where the centre scatters by tens, so it shows an offset
+    of a few days that the centre's segmentation does not; the centre's own test still
+    decides."""
+    s = spans.dropna()
+    if len(s) < 4 * min_days:
+        return []
+    xs = despike(s.to_numpy())
+    segs = change_points(xs, alpha=alpha, min_size=min_days)
+    ref = max(segs, key=lambda g: g.stop - g.start)
+    out = []
+    for g in _windows(xs, segs, ref, min_shift):
+        a = int(days.searchsorted(s.index[g.start]))
+        b = int(days.searchsorted(s.index[g.stop - 1], side="right"))
+        if b - a >= min_days and not any(a < t.stop and t.start < b for t in taken):
+            out.append(Segment(a, b, float(np.mean(x[a:b]))))
     return out
 
 
