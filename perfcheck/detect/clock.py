@@ -62,8 +62,8 @@ from perfcheck.detect.common import (
     Event,
     Segment,
     Wide,
-    change_points,
     despike,
+    segmented,
     window_change,
 )
 from perfcheck.detect.sensor import CONFIRM_ALPHA, driven_columns, has_ghi, refine_edge
@@ -228,11 +228,10 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
         against = "expected power from another logger's irradiance sensor" if inv in d_ind \
             else "clear-sky plane irradiance from the sun position"
         q = (d_ind[inv] if inv in d_ind else d_all[inv]).dropna()
-        if len(q) < 4 * min_days:
+        cut = segmented(q, alpha, min_days)
+        if cut is None:
             continue
-        x = despike(q.to_numpy())
-        segs = change_points(x, alpha=alpha, min_size=min_days)
-        ref = max(segs, key=lambda g: g.stop - g.start)
+        x, segs, ref = cut
         cands = _windows(x, segs, ref, min_offset_min)
         if inv not in d_ind:  # against the clear sky the span proposes windows too
             cands += _span_windows(q.index, x, d_span[inv], cands, alpha, min_offset_min / 2,
@@ -319,11 +318,10 @@ def _span_windows(days: pd.DatetimeIndex, x: np.ndarray, spans: pd.Series,
     of a few days that the centre's segmentation does not; the centre's own test still
     decides."""
     s = spans.dropna()
-    if len(s) < 4 * min_days:
+    cut = segmented(s, alpha, min_days)
+    if cut is None:
         return []
-    xs = despike(s.to_numpy())
-    segs = change_points(xs, alpha=alpha, min_size=min_days)
-    ref = max(segs, key=lambda g: g.stop - g.start)
+    xs, segs, ref = cut
     out = []
     for g in _windows(xs, segs, ref, min_shift):
         a = int(days.searchsorted(s.index[g.start]))

@@ -740,3 +740,17 @@ def despike(x: np.ndarray, window: int = 5, z: float = 5.0) -> np.ndarray:
     if not s > 0:
         return x
     return np.where(np.abs(x - med) > z * s, med, x)
+
+
+def segmented(q: pd.Series, alpha: float, min_days: int
+              ) -> tuple[np.ndarray, list[Segment], Segment] | None:
+    """A daily series ``q`` (no NaN) cut about its usual level: its values with isolated
+    outliers removed (:func:`despike`), their segments of constant mean
+    (:func:`change_points` at ``alpha``, at least ``min_days`` long) and the reference among
+    them, the longest (the level most days share). None with fewer than 4 ``min_days``
+    values: too few to tell a window from the level around it."""
+    if len(q) < 4 * min_days:
+        return None
+    x = despike(q.to_numpy())
+    segs = change_points(x, alpha=alpha, min_size=min_days)
+    return x, segs, max(segs, key=lambda g: g.stop - g.start)

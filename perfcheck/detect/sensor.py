@@ -71,6 +71,7 @@ from perfcheck.detect.common import (
     long_run_sigma,
     robust_sigma,
     runs,
+    segmented,
     window_change,
 )
 from perfcheck.lazy import lazy_module
@@ -156,11 +157,10 @@ def level_faults(w: Wide, sensor: pd.Series, reference: pd.Series, clear: pd.Ser
     against the POA modelled from GHI), used to place the window's edges."""
     q_all = _daily_log_ratio(w, sensor, reference)
     q = q_all[clear.reindex(q_all.index).fillna(False).astype(bool)].dropna()
-    if len(q) < 4 * min_days:
+    cut = segmented(q, alpha, min_days)
+    if cut is None:
         return []
-    x = despike(q.to_numpy())
-    segs = change_points(x, alpha=alpha, min_size=min_days)
-    ref = max(segs, key=lambda g: g.stop - g.start)
+    x, segs, ref = cut
     out = []
     for g in segs:
         if g is ref:
