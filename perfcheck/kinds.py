@@ -43,7 +43,9 @@ class Kind:
 
 TABLE: tuple[Kind, ...] = (
     Kind("clock_fault", "logger clock fault", "#5f9ea0", "correction", "none", None,
-         "the daily centre of the measured power is shifted from solar noon",
+         "the daily centre of the measured power, and its span of production, moved by the "
+         "same offset on every day of the window, against the sun's position or against the "
+         "irradiance another logger recorded",
          "the logger's clock, its time zone and daylight-saving setting"),
     Kind("sensor_fault", "irradiance sensor fault", "#c27c9e", "correction", "model_poa",
          "sensor_fault_fallback",
