@@ -54,10 +54,11 @@ turned) plane over the tracked one (its transposition and incidence-angle losses
 power the share scales is the model's, and a held row takes its beam at angles the tracked
 rows never see); for rows out of step, whose loss is mostly a level, scaled to the shortfall
 measured against the inverter's usual performance index. Its band adds to the model error
-the difference between the shape's share and that measured shortfall, the share of the onset
-and end days left outside the event, and, where the share is scaled to the measured
-shortfall, that shortfall's error (the model's error of the level over the event's days,
-autocorrelation included: :func:`perfcheck.detect.common.local_level`).
+the share's error as the usable intervals check it: its relative difference from the shortfall
+measured there and that shortfall's own error (the model's error of the level over the
+event's days, autocorrelation included: :func:`perfcheck.detect.common.local_level`), both
+applied to the whole energy, the intervals not checked (low sun, clipped) included; and the
+share of the onset and end days left outside the event.
 
 Wind stow: rows laid at their stow angle (``stow_angle_deg``, flat by default) while the wind
 is at or above the tracker array's ``stow_wind_speed_ms`` are designed behaviour. The limit is
@@ -815,14 +816,17 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     # the sensor's confirmations, common practice)
     if not (shown or (seen > 0 and seen >= pred / 2 - stats.norm.isf(CONFIRM_ALPHA) * se_seen)):
         return None, None  # the shape without its loss
-    spread = math.hypot(seen - pred, edge_kwh)
+    # the share is checked on the usable intervals only, and there only to within the
+    # measured shortfall's error: its relative disagreement with that shortfall, and that
+    # error, hold for the share's whole energy (the intervals at low sun or clipped, often a
+    # third of it, are not checked at all)
+    checked = math.hypot(seen - pred, se_seen) / pred if pred > 0 else 0.0
+    spread = math.hypot(checked * e_kwh, edge_kwh)
     if fam == "step" and seen > 0 and pred > 0:
         # an offset's loss is mostly a level, which the shape alone places poorly: its share
-        # is scaled to the shortfall measured against the usual performance index, and takes
-        # that shortfall's error
+        # is scaled to the shortfall measured against the usual performance index
         factor = np.clip(factor * seen / pred, 0.0, 1.0)
         e_kwh = float(np.sum(exp * factor * step) / 3.6e6)
-        spread = math.hypot(spread, se_seen)
     low, high = energy_band(e_kwh, rel_sigma, spread)
     kind = "tracker_stall" if fam == "stall" else "tracker_out_of_step"
     in_run = (days >= first) & (days <= last)
