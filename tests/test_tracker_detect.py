@@ -85,11 +85,20 @@ def test_angle_channel_days() -> None:
 def test_run_p_value_by_hand() -> None:
     # hypergeometric law (Feller 1968, sec. II.6), worked by hand: 365 tested days, a run of 3
     # days that are the 3 highest gains of all: P = 1 / C(365, 3) = 1 / 8 038 030 per window,
-    # times 365 start days and 3 lengths (Bonferroni) = 1095 / 8 038 030
+    # times 365 start days, 3 lengths and the counts 2 and 3 (Bonferroni) = 2190 / 8 038 030
+    # (the count of 2 gives a larger tail: 363 / 8 038 030)
     gain = np.arange(365, dtype=float)
     seeds = np.zeros(365, dtype=bool)
     seeds[-3:] = True
-    assert tracker.run_p_value(gain, seeds, 3) == pytest.approx(1095 / 8_038_030, rel=1e-9)
+    assert tracker.run_p_value(gain, seeds, 3) == pytest.approx(2190 / 8_038_030, rel=1e-9)
+    # a fourth day of the run ranked 100th (a last day stalled only in its morning) does not
+    # hide the three before it: the tail of its three best days is taken, now over windows of
+    # 4 days and counts 2 to 4: P(X >= 3) = C(3, 3) C(362, 1) / C(365, 4) per window (the
+    # top 3 of 365 among 4 drawn), smaller than the tails of 2 of the top 2 and 4 of the top 100
+    weak = seeds.copy()
+    weak[265] = True
+    c4 = 365 * 364 * 363 * 362 / 24
+    assert tracker.run_p_value(gain, weak, 4) == pytest.approx(365 * 4 * 3 * 362 / c4, rel=1e-9)
     # one day alone, even the highest of all, is never significant on its own: n * 1 * 1/n
     one = np.zeros(365, dtype=bool)
     one[-1] = True

@@ -312,14 +312,16 @@ def run_p_value(gain: np.ndarray, seeds: np.ndarray, span_days: int) -> float:
     it says. A stall holds its angle day after day, while the sky's shapes come and go: the
     test is the persistence of high-ranked days. Under the null the days' gains are
     exchangeable, so the chance that a window of ``span_days`` days holds at least m of the
-    top k days of n is the hypergeometric tail; m is the number of ``seeds`` (the run's
-    significant days), k the worst rank among them (1 = highest gain). Bonferroni over the
-    windows that could have been picked (n start days times ``span_days`` lengths) bounds the
-    false alarms at ``alpha`` per inverter and period. One day alone is never an event this
-    way (the bound is at least k); over a year at alpha = 1e-3, the three highest-ranked days
-    in a row are enough (365 x 3 / C(365, 3) = 1.4e-4), over sixty days four (60 x 4 /
-    C(60, 4) = 4.9e-4). Weather that lasts for days (snow lying on the modules) breaks the
-    exchangeability: the bound holds for the days the usual day shape describes.
+    top k days of n is the hypergeometric tail; for each m, the run's m best ``seeds`` (its
+    significant days) and k the rank of the m-th (1 = highest gain): a stall's last,
+    partly stalled day ranks low and must not hide the days before it. The least tail is
+    taken, and Bonferroni over the windows that could have been picked (n start days times
+    ``span_days`` lengths) and over the counts m from 2 to ``span_days`` bounds the false
+    alarms at ``alpha`` per inverter and period (m = 1 is left out of the family: one day
+    alone is never an event, its bound being at least k). Over a year at alpha = 1e-3, the
+    three highest-ranked days in a row are enough (365 x 3 x 2 / C(365, 3) = 2.7e-4).
+    Weather that lasts for days (snow lying on the modules) breaks the exchangeability: the
+    bound holds for the days the usual day shape describes.
 
     Parameters
     ----------
@@ -335,13 +337,15 @@ def run_p_value(gain: np.ndarray, seeds: np.ndarray, span_days: int) -> float:
     Statistics, ch. 1 (from memory).
     """
     ok = np.isfinite(gain)
-    n, m = int(ok.sum()), int((seeds & ok).sum())
-    if m == 0:
-        return 1.0
+    n = int(ok.sum())
     rank = stats.rankdata(-gain[ok], method="max")  # ties count against the run
-    k = int(rank[seeds[ok]].max())
+    ks = np.sort(rank[seeds[ok]]).astype(int)  # the seeds' ranks, best first
+    if len(ks) < 2:
+        return 1.0  # one day alone: its tail times the windows is at least 1
     span = min(span_days, n)
-    return min(1.0, n * span * float(stats.hypergeom.sf(m - 1, n, k, span)))
+    m = np.arange(2, len(ks) + 1)
+    tail = stats.hypergeom.sf(m - 1, n, ks[1:], span)
+    return min(1.0, n * span * max(1, span - 1) * float(np.min(tail)))
 
 
 def typical_shape(y: np.ndarray, index: pd.DatetimeIndex, interval_s: float,
