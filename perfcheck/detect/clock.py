@@ -219,10 +219,12 @@ def find(w: Wide, reference: pd.DataFrame, lg: Loggers,
     from another logger's sensor (:func:`independent`) is measured against it, else against
     the clear sky (``reference``).
     """
-    d_all = _daily_offsets(w, reference)
     d_span = _daily_offsets(w, reference, spans=True)
     ind = independent(w, lg)
     d_ind = _daily_offsets(w, ind) if len(ind.columns) else ind
+    # the centres against the clear sky, of the inverters without another logger's sensor
+    free = [c for c in w.inverters if c not in d_ind]
+    d_all = _daily_offsets(w, reference[free]) if free else reference[free]
     found: list[Shift] = []
     for inv in w.inverters:
         against = "expected power from another logger's irradiance sensor" if inv in d_ind \
