@@ -420,6 +420,34 @@ def test_partial_noisy_days_inside_a_lost_string_are_joined():
     assert partial.merge_within(h, [*pieces, top], top, 0.5 / 7, alpha=1e-3) == [*pieces, top]
 
 
+
+def test_partial_light_dependence_of_healthy_days_is_removed():
+    # invented truth: a lone inverter whose ratio to expected falls by 0.05 per unit of the
+    # log of the day's mean plane irradiance (a low-light behaviour the model does not know),
+    # noise 1 %; the reference holds days from 200 to 700 W/m^2. The slope and its variance
+    # are those of ordinary least squares (statsmodels' OLS as the reference; Draper & Smith
+    # 1998, ch. 1); a day dimmer than any of the reference is taken at the reference's
+    # dimmest; the level of the reference is kept
+    from statsmodels.regression.linear_model import OLS
+    from statsmodels.tools.tools import add_constant
+
+    rng = np.random.default_rng(5)
+    light = np.log(rng.uniform(200.0, 700.0, 120))
+    light[100:105] = np.log(80.0)  # five dull days outside the reference
+    x = 0.05 * (light - np.log(400.0)) + rng.normal(0.0, 0.01, 120)
+    ref = Segment(0, 100, float(x[:100].mean()))
+    xa, slope_var, _ = partial.light_adjusted(x, light, ref)
+    fit = OLS(x[:100], add_constant(light[:100])).fit()
+    assert slope_var == pytest.approx(fit.bse[1] ** 2, rel=1e-9)
+    assert np.mean(xa[:100]) == pytest.approx(np.mean(x[:100]), abs=1e-12)
+    assert np.std(xa[:100]) < 0.012  # the light's share of the spread removed
+    dimmest = light[:100].min()
+    np.testing.assert_allclose(
+        xa[100:105], x[100:105] - fit.params[1] * (dimmest - light[:100].mean()), rtol=1e-9)
+    # without light values (no plane irradiance that day) a day stays as it is
+    light[110] = np.nan
+    assert partial.light_adjusted(x, light, ref)[0][110] == x[110]
+
 def _held_day(rng: np.random.Generator, level: float, peak: float, sd: float
               ) -> tuple[pd.Series, pd.Series]:
     """Invented truth: one day of 5-minute intervals, expected power a sine arch peaking at

@@ -30,6 +30,10 @@ the model's error over weeks, :data:`perfcheck.detect.common.MODEL_FLOOR`) at tw
 efficiency, the sky's brightness by tilt and azimuth, which the siblings do not share) takes
 some share, not a string's.
 
+The daily values are taken less what the day's light explains on the healthy days
+(:func:`light_adjusted`), and segmented again: without siblings, a run of dull days on which the
+model errs at low light would otherwise read as a lost string, or set a lost string's edges.
+
 The share's band carries, beside the days' error (autocorrelated), the model's error over
 weeks (:data:`perfcheck.detect.common.MODEL_FLOOR`) and the distance between the share and
 the whole strings' share (rectangular).
@@ -69,6 +73,7 @@ from perfcheck.lazy import lazy_module
 stats = lazy_module("scipy.stats")
 
 METHOD = ("binary segmentation of the daily median ratio to expected and to sibling inverters, "
+          "less what the day's light explains on the healthy days (least squares), "
           "Bonferroni-bounded t test per split and Student t test against the reference level "
           "(Scott & Knott 1974; Student 1908)")
 
@@ -117,6 +122,8 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
               np.log(daily_relative(wc, uc & ~morning, min_intervals=2))]
     events: list[Event] = []
     prints: list[Footprint] = []
+    # the day's light: the log of the mean plane irradiance of its usable blocks
+    light = np.log(wc.poa.where(uc & (wc.poa > 0)).groupby(wc.day.to_numpy()).mean())
     for inv in w.inverters:
         s = np.log(daily[inv].where(daily[inv] > 0)).dropna()
         if len(s) < 4 * min_days:
@@ -125,9 +132,14 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
         segs = change_points(x, alpha=alpha, min_size=min_days)
         if len(segs) < 2:
             continue
-        longest = max(g.stop - g.start for g in segs)
-        ref = max((g for g in segs if g.stop - g.start >= max(2 * min_days, 0.2 * longest)),
-                  key=lambda g: g.mean)
+        # what the day's light does to the ratio on the healthy days removed, and the days
+        # segmented again
+        x, slope_var, lit = light_adjusted(x, light[inv].reindex(s.index).to_numpy(),
+                                           _reference(segs, min_days))
+        segs = change_points(x, alpha=alpha, min_size=min_days)
+        if len(segs) < 2:
+            continue
+        ref = _reference(segs, min_days)
         xr = x[ref.start:ref.stop]
         own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
         n_str = max(1, strings.get(inv, 1))
@@ -167,8 +179,9 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             # interpolated to the fault), each mean's variance autocorrelation-aware, and
             # the level during the fault taken as anywhere between the two (rectangular,
             # variance range^2 / 12: JCGM 100:2008, 4.3.7)
-            sides = [x[m] for m in _near(s.index, g, merged, ref, 0.5 / n_str)
-                     if m.sum() >= min_days] or [xr]
+            near = [m for m in _near(s.index, g, merged, ref, 0.5 / n_str)
+                    if m.sum() >= min_days] or [np.arange(ref.start, ref.stop)]
+            sides = [x[m] for m in near]
             # the same test against the days next to the fault, with their noise: the days'
             # spread changes with the season (a winter's days, low sun and few intervals, are
             # noisier than the summer's that the long reference holds), so the long
@@ -183,12 +196,17 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             # the days the strings were lost all day: a day holding an edge is partly healthy
             whole = (s.index[g.start:g.stop] > w.day.iloc[lo]) & (
                 s.index[g.start:g.stop] < w.day.iloc[hi - 1])
+            fault = np.arange(g.start, g.stop)
             if whole.sum() >= min_days:
-                xs = xs[whole]
+                xs, fault = xs[whole], fault[whole]
             share = 1 - math.exp(float(np.mean(xs)) - base)
             between = (np.mean(sides[-1]) - np.mean(sides[0])) ** 2 / 12
+            # the light slope's error, carried by the difference of light between the fault's
+            # days and those next to it
+            dlight = np.nanmean(lit[fault]) - np.mean([np.nanmean(lit[m]) for m in near])
             se = math.sqrt(_mean_var(xs, phi) + sum(_mean_var(v, phi) for v in sides)
-                           / len(sides) ** 2 + between)
+                           / len(sides) ** 2 + between
+                           + (slope_var * dlight ** 2 if np.isfinite(dlight) else 0.0))
             # a lost string takes a whole string's share: the share must lie within its
             # error of a whole number of the site file's strings (taken as alike, as for the
             # number reported), the error floored at the model's over weeks (MODEL_FLOOR);
@@ -234,6 +252,45 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share),
                                     factor_rel_sigma=(1 - share) * se / share))
     return events, prints
+
+
+def _reference(segs: list[Segment], min_days: int) -> Segment:
+    """The reference level: the highest of the long segments (at least twice ``min_days``
+    and a fifth of the longest)."""
+    longest = max(g.stop - g.start for g in segs)
+    return max((g for g in segs if g.stop - g.start >= max(2 * min_days, 0.2 * longest)),
+               key=lambda g: g.mean)
+
+
+def light_adjusted(x: np.ndarray, light: np.ndarray, ref: Segment
+                   ) -> tuple[np.ndarray, float, np.ndarray]:
+    """The daily log ratios ``x`` less what the day's light explains on the healthy days of
+    ``ref``; the variance of that slope; the light as the fit takes it.
+
+    The model's error is not the same on every day: on dull, overcast days (a low mean plane
+    irradiance over the usable intervals) real modules lose efficiency at low light and to a
+    bluer spectrum that the model may not follow, and the sky's diffuse light is transposed
+    worst. Without siblings to divide it out, a run of such days lowers the ratio like a lost
+    string, which scales the power whatever the light. So the ratio's dependence on ``light``
+    (the log of the day's mean plane irradiance) is fitted by least squares on the days of
+    ``ref`` and removed from every day, centred on their mean light (the reference's level
+    is kept). The fit is not carried beyond the light the reference saw: a day dimmer
+    (brighter) than all of its days is taken at its dimmest (brightest); days without a light
+    value are left as they are (their light NaN).
+
+    Ordinary least squares and the slope's variance: Draper & Smith 1998, Applied Regression
+    Analysis, 3rd ed., ch. 1 (from memory).
+    """
+    lr, xr = light[ref.start:ref.stop], x[ref.start:ref.stop]
+    ok = np.isfinite(lr)
+    if ok.sum() < 3 or np.ptp(lr[ok]) == 0:
+        return x, 0.0, light
+    c = lr[ok] - lr[ok].mean()
+    slope = float(np.sum(c * (xr[ok] - xr[ok].mean())) / np.sum(c * c))
+    resid = xr[ok] - xr[ok].mean() - slope * c
+    slope_var = float(np.sum(resid ** 2) / (ok.sum() - 2) / np.sum(c * c))
+    seen = np.clip(light, lr[ok].min(), lr[ok].max())
+    return x - np.where(np.isfinite(seen), slope * (seen - lr[ok].mean()), 0.0), slope_var, seen
 
 
 def _near(days: pd.Index, g: Segment, merged: list[Segment], ref: Segment, step: float,
