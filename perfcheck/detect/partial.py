@@ -20,15 +20,17 @@ segment inside the data is a step (the median of the ``min_days`` days on either
 by at least half the segment's shift: a lost string is a step, a seasonal drift or a growing
 shade is not), and the loss is the same share in the morning and in the afternoon (half-day
 values within a factor two: a lost string takes its share all day, a shade takes it on one
-side of the day only). The share lost is then measured on the fault's whole days against
-the days next to it (the mean of the level before and the level after, within two weeks: the
+side of the day only). Its edges are then placed to the interval (:func:`_edges`); a fault that
+touches fewer than ``min_days`` days so is dropped (the intervals and the days' medians disagree
+on when the strings were lost). The share lost is measured on the fault's whole days against the
+days next to it (the mean of the level before and the level after, within two weeks: the
 inverter's level against its siblings wanders with the season, so the long reference segment
 that proves the fault would bias its size); times the number of strings in the site file it
-gives the number of strings lost, which must be whole within the share's error (floored at
-the model's error over weeks, :data:`perfcheck.detect.common.MODEL_FLOOR`) at two-sided
-``alpha``: a run of dim, diffuse days on which the model errs for one plane (low-light
-efficiency, the sky's brightness by tilt and azimuth, which the siblings do not share) takes
-some share, not a string's.
+gives the number of strings lost, which must be whole within the share's error (floored at the
+model's error over weeks, :data:`perfcheck.detect.common.MODEL_FLOOR`) at two-sided ``alpha``: a
+run of dim, diffuse days on which the model errs for one plane (low-light efficiency, the sky's
+brightness by tilt and azimuth, which the siblings do not share) takes some share, not a
+string's.
 
 The daily values are taken less what the day's light explains on the healthy days
 (:func:`light_adjusted`), and segmented again: without siblings, a run of dull days on which the
@@ -193,6 +195,12 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             d0, d1 = s.index[g.start], s.index[g.stop - 1]
             lo, hi = _edges(w, usable if judged is None else judged, inv, d0, d1,
                             math.exp(base), math.exp(g.mean), min_days)
+            # placed to the interval, the fault must still touch the days the segmentation
+            # needs to tell a level (min_days): where the intervals put its edges so that fewer
+            # remain, they and the days' medians disagree on when the strings were lost, and
+            # what is left lies below the method's resolution
+            if (w.day.iloc[hi - 1] - w.day.iloc[lo]).days + 1 < min_days:
+                continue
             # the days the strings were lost all day: a day holding an edge is partly healthy
             whole = (s.index[g.start:g.stop] > w.day.iloc[lo]) & (
                 s.index[g.start:g.stop] < w.day.iloc[hi - 1])
