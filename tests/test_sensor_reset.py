@@ -249,3 +249,27 @@ def test_the_mirrored_step_band_allows_for_the_index_noise():
     assert not sensor._mirror_step(0.11, -0.05, 0.0)  # more than twice on a quiet index
     assert sensor._mirror_step(0.11, -0.05, 0.01)  # within its noise of twice
     assert not sensor._mirror_step(0.13, -0.05, 0.01)
+
+
+def test_a_drift_is_mirrored_against_the_same_surrounding_days():
+    # invented truth: the sensor drifts linearly from 1 on day 100 to 0.96 on day 200, then is
+    # reset; the sensor-fed index moves by -log of the sensor (noise 0.3 %). The level test
+    # found the drift's low end, days 160-200, at 0.945 against the long healthy reference
+    # (the clear-sky reference's seasonal error adds to the drift there). Against the 40 days
+    # either side, the first of them already drifting, the index rises by about 2.8 %, under
+    # half of the 5.7 % that factor implies; the sensor's own ratio over the same days fell
+    # by as much, so the index mirrors it (half to twice, common practice)
+    rng = np.random.default_rng(3)
+    t = np.arange(len(DAYS))
+    log_sensor = np.where((t >= 100) & (t < 200), np.log(1 - 0.04 * (t - 100) / 100), 0.0)
+    q = pd.Series(log_sensor + rng.normal(0.0, 0.003, len(DAYS)), index=DAYS)
+    index = pd.Series(-log_sensor + rng.normal(0.0, 0.003, len(DAYS)), index=DAYS)
+    s = sensor.Suspect(start=DAYS[160].tz_localize("UTC"), end=DAYS[200].tz_localize("UTC"),
+                       mode="level", factor=0.945, evidence={})
+    assert sensor._mirrored(index, q, s, "UTC")
+    # an index that does not move (the clear-sky ratio's seasonal error alone) is no mirror
+    flat = pd.Series(rng.normal(0.0, 0.003, len(DAYS)), index=DAYS)
+    assert not sensor._mirrored(flat, q, s, "UTC")
+    # with fewer than three clear days around, the factor against the long reference counts
+    assert not sensor._mirrored(index, q[(q.index >= DAYS[160]) & (q.index < DAYS[200])], s,
+                                "UTC")

@@ -656,7 +656,8 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # power (by about the sensor's change, the other way); a level change that the power does
     # not mirror is the reference's seasonal error, not the sensor
     kept: list[Suspect] = []
-    for s in found + [s for s in levels if _mirrored(pi_fed, s, w.tz)]:
+    q_clear = q[clear.reindex(q.index).fillna(False).astype(bool)]
+    for s in found + [s for s in levels if _mirrored(pi_fed, q_clear, s, w.tz)]:
         if not any(s.start < f.end and f.start < s.end for f in kept):
             kept.append(s)
     found = sorted(kept, key=lambda s: s.start) + stuck
@@ -676,20 +677,30 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     return out
 
 
-def _mirrored(pi_fed: pd.Series, s: Suspect, tz: Any) -> bool:
+def _mirrored(pi_fed: pd.Series, q: pd.Series, s: Suspect, tz: Any) -> bool:
     """The sensor-fed inverters' daily index moves against the sensor's change in the window,
-    by at least half of it, compared with as many days on either side."""
+    by at least half of it and at most twice, both compared with as many days on either side.
+
+    The sensor's change is that of its daily log ratio to the clear sky on clear days ``q``
+    over the same days (the segment's factor against the long reference where fewer than
+    three clear days lie inside or around): a drift has already moved the sensor on the days
+    before the window, and the index is measured against those days too."""
     d0 = s.start.tz_convert(tz).tz_localize(None).normalize()
     d1 = s.end.tz_convert(tz).tz_localize(None).normalize()
     span = d1 - d0
-    x = pi_fed.dropna()
-    inside = x[(x.index >= d0) & (x.index < d1)]
-    around = x[((x.index >= d0 - span) & (x.index < d0)) | ((x.index >= d1) &
-                                                            (x.index < d1 + span))]
+
+    def inside_around(x: pd.Series) -> tuple[pd.Series, pd.Series]:
+        x = x.dropna()
+        return x[(x.index >= d0) & (x.index < d1)], x[
+            ((x.index >= d0 - span) & (x.index < d0)) | ((x.index >= d1) & (x.index < d1 + span))]
+
+    inside, around = inside_around(pi_fed)
     if len(inside) < 3 or len(around) < 3:
         return False
     move = float(inside.median() - around.median())
-    want = -float(np.log(s.factor))
+    q_in, q_around = inside_around(q)
+    want = (-float(q_in.median() - q_around.median()) if min(len(q_in), len(q_around)) >= 3
+            else -float(np.log(s.factor)))
     s.evidence["fed_inverters_index_change_pct"] = 100 * (np.exp(move) - 1)
     return bool(np.sign(move) == np.sign(want) and 0.5 * abs(want) <= abs(move) <= 2 * abs(want))
 
