@@ -641,10 +641,10 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         # expected power only, a fault of the weather or the whole plant moves both
         index = index - pi[others].median(axis=1)
     q = _daily_log_ratio(w, free, sensor_clear)
+    q_clear = q[clear.reindex(q.index).fillna(False).astype(bool)]
     found = [] if heat is None else reset_faults(
         w, _daily_log_ratio(w, own, heat.where(heat > 0)), index, alpha=alpha)
-    found += power_faults(w, index, q[clear.reindex(q.index).fillna(False).astype(bool)],
-                          alpha=alpha)
+    found += power_faults(w, index, q_clear, alpha=alpha)
     if others or part:
         every_day = index
     elif has_ghi(w) and cols:
@@ -656,7 +656,6 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # power (by about the sensor's change, the other way); a level change that the power does
     # not mirror is the reference's seasonal error, not the sensor
     kept: list[Suspect] = []
-    q_clear = q[clear.reindex(q.index).fillna(False).astype(bool)]
     for s in found + [s for s in levels if _mirrored(pi_fed, q_clear, s, w.tz)]:
         if not any(s.start < f.end and f.start < s.end for f in kept):
             kept.append(s)
