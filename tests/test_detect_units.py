@@ -11,7 +11,15 @@ import pytest
 from detect_synth import make_aligned, make_site
 
 from perfcheck.detect import clipping, degradation, partial, sensor, soiling
-from perfcheck.detect.common import Event, Footprint, Segment, change_points, daylight, wide
+from perfcheck.detect.common import (
+    Event,
+    Footprint,
+    Segment,
+    change_points,
+    daylight,
+    light_adjusted,
+    wide,
+)
 
 DAYS = pd.date_range("2024-01-01", periods=240, freq="D")
 
@@ -421,7 +429,7 @@ def test_partial_noisy_days_inside_a_lost_string_are_joined():
 
 
 
-def test_partial_light_dependence_of_healthy_days_is_removed():
+def test_light_dependence_of_healthy_days_is_removed():
     # invented truth: a lone inverter whose ratio to expected falls by 0.05 per unit of the
     # log of the day's mean plane irradiance (a low-light behaviour the model does not know),
     # noise 1 %; the reference holds days from 200 to 700 W/m^2. The slope and its variance
@@ -435,8 +443,8 @@ def test_partial_light_dependence_of_healthy_days_is_removed():
     light = np.log(rng.uniform(200.0, 700.0, 120))
     light[100:105] = np.log(80.0)  # five dull days outside the reference
     x = 0.05 * (light - np.log(400.0)) + rng.normal(0.0, 0.01, 120)
-    ref = Segment(0, 100, float(x[:100].mean()))
-    xa, slope_var, _ = partial.light_adjusted(x, light, ref)
+    ref = slice(0, 100)
+    xa, slope_var, _ = light_adjusted(x, light, ref)
     fit = OLS(x[:100], add_constant(light[:100])).fit()
     assert slope_var == pytest.approx(fit.bse[1] ** 2, rel=1e-9)
     assert np.mean(xa[:100]) == pytest.approx(np.mean(x[:100]), abs=1e-12)
@@ -446,7 +454,12 @@ def test_partial_light_dependence_of_healthy_days_is_removed():
         xa[100:105], x[100:105] - fit.params[1] * (dimmest - light[:100].mean()), rtol=1e-9)
     # without light values (no plane irradiance that day) a day stays as it is
     light[110] = np.nan
-    assert partial.light_adjusted(x, light, ref)[0][110] == x[110]
+    assert light_adjusted(x, light, ref)[0][110] == x[110]
+    # the healthy days given as a mask fit alike
+    mask = np.zeros(120, dtype=bool)
+    mask[:100] = True
+    np.testing.assert_array_equal(light_adjusted(x, light, mask)[0],
+                                  light_adjusted(x, light, ref)[0])
 
 def _held_day(rng: np.random.Generator, level: float, peak: float, sd: float
               ) -> tuple[pd.Series, pd.Series]:

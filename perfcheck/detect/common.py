@@ -742,6 +742,44 @@ def despike(x: np.ndarray, window: int = 5, z: float = 5.0) -> np.ndarray:
     return np.where(np.abs(x - med) > z * s, med, x)
 
 
+def day_light(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
+    """The day's light per inverter: the log of the mean plane irradiance [W/m^2] over the
+    day's ``usable`` intervals (NaN on a day without one)."""
+    return np.log(w.poa.where(usable & (w.poa > 0)).groupby(w.day.to_numpy()).mean())
+
+
+def light_adjusted(x: np.ndarray, light: np.ndarray, fit: slice | np.ndarray
+                   ) -> tuple[np.ndarray, float, np.ndarray]:
+    """The daily log ratios ``x`` less what the day's light explains on the healthy days
+    ``fit`` (a slice or a mask of the days); the variance of that slope; the light as the fit
+    takes it.
+
+    The model's error is not the same on every day: on dull, overcast days (a low mean plane
+    irradiance over the usable intervals, :func:`day_light`) real modules lose efficiency at
+    low light and to a bluer spectrum that the model may not follow, and the sky's diffuse
+    light is transposed worst. Without siblings to divide it out, a run of such days moves an
+    inverter's ratio like a fault that scales the power whatever the light (a lost string, a
+    sensor reading off). So the ratio's dependence on ``light`` (the log of the day's mean
+    plane irradiance) is fitted by least squares on the days ``fit`` and removed from every
+    day, centred on their mean light (their level is kept). The fit is not carried beyond the
+    light those days saw: a day dimmer (brighter) than all of them is taken at their dimmest
+    (brightest); days without a light value are left as they are (their light NaN).
+
+    Ordinary least squares and the slope's variance: Draper & Smith 1998, Applied Regression
+    Analysis, 3rd ed., ch. 1 (from memory).
+    """
+    lr, xr = light[fit], x[fit]
+    ok = np.isfinite(lr) & np.isfinite(xr)
+    if ok.sum() < 3 or np.ptp(lr[ok]) == 0:
+        return x, 0.0, light
+    c = lr[ok] - lr[ok].mean()
+    slope = float(np.sum(c * (xr[ok] - xr[ok].mean())) / np.sum(c * c))
+    resid = xr[ok] - xr[ok].mean() - slope * c
+    slope_var = float(np.sum(resid ** 2) / (ok.sum() - 2) / np.sum(c * c))
+    seen = np.clip(light, lr[ok].min(), lr[ok].max())
+    return x - np.where(np.isfinite(seen), slope * (seen - lr[ok].mean()), 0.0), slope_var, seen
+
+
 def segmented(q: pd.Series, alpha: float, min_days: int
               ) -> tuple[np.ndarray, list[Segment], Segment] | None:
     """A daily series ``q`` (no NaN) cut about its usual level: its values with isolated

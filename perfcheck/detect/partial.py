@@ -33,8 +33,9 @@ brightness by tilt and azimuth, which the siblings do not share) takes some shar
 string's.
 
 The daily values are taken less what the day's light explains on the healthy days
-(:func:`light_adjusted`), and segmented again: without siblings, a run of dull days on which the
-model errs at low light would otherwise read as a lost string, or set a lost string's edges.
+(:func:`perfcheck.detect.common.light_adjusted`), and segmented again: without siblings, a run
+of dull days on which the model errs at low light would otherwise read as a lost string, or
+set a lost string's edges.
 
 The share's band carries, beside the days' error (autocorrelated), the model's error over
 weeks (:data:`perfcheck.detect.common.MODEL_FLOOR`) and the distance between the share and
@@ -65,7 +66,9 @@ from perfcheck.detect.common import (
     ar1_mean_factor,
     change_points,
     coarsen,
+    day_light,
     despike,
+    light_adjusted,
     long_run_sigma,
     row_median,
     scope_of,
@@ -125,7 +128,7 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
     events: list[Event] = []
     prints: list[Footprint] = []
     # the day's light: the log of the mean plane irradiance of its usable blocks
-    light = np.log(wc.poa.where(uc & (wc.poa > 0)).groupby(wc.day.to_numpy()).mean())
+    light = day_light(wc, uc)
     for inv in w.inverters:
         s = np.log(daily[inv].where(daily[inv] > 0)).dropna()
         if len(s) < 4 * min_days:
@@ -136,8 +139,9 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
             continue
         # what the day's light does to the ratio on the healthy days removed, and the days
         # segmented again
+        ref = _reference(segs, min_days)
         x, slope_var, lit = light_adjusted(x, light[inv].reindex(s.index).to_numpy(),
-                                           _reference(segs, min_days))
+                                           slice(ref.start, ref.stop))
         segs = change_points(x, alpha=alpha, min_size=min_days)
         if len(segs) < 2:
             continue
@@ -268,37 +272,6 @@ def _reference(segs: list[Segment], min_days: int) -> Segment:
     longest = max(g.stop - g.start for g in segs)
     return max((g for g in segs if g.stop - g.start >= max(2 * min_days, 0.2 * longest)),
                key=lambda g: g.mean)
-
-
-def light_adjusted(x: np.ndarray, light: np.ndarray, ref: Segment
-                   ) -> tuple[np.ndarray, float, np.ndarray]:
-    """The daily log ratios ``x`` less what the day's light explains on the healthy days of
-    ``ref``; the variance of that slope; the light as the fit takes it.
-
-    The model's error is not the same on every day: on dull, overcast days (a low mean plane
-    irradiance over the usable intervals) real modules lose efficiency at low light and to a
-    bluer spectrum that the model may not follow, and the sky's diffuse light is transposed
-    worst. Without siblings to divide it out, a run of such days lowers the ratio like a lost
-    string, which scales the power whatever the light. So the ratio's dependence on ``light``
-    (the log of the day's mean plane irradiance) is fitted by least squares on the days of
-    ``ref`` and removed from every day, centred on their mean light (the reference's level
-    is kept). The fit is not carried beyond the light the reference saw: a day dimmer
-    (brighter) than all of its days is taken at its dimmest (brightest); days without a light
-    value are left as they are (their light NaN).
-
-    Ordinary least squares and the slope's variance: Draper & Smith 1998, Applied Regression
-    Analysis, 3rd ed., ch. 1 (from memory).
-    """
-    lr, xr = light[ref.start:ref.stop], x[ref.start:ref.stop]
-    ok = np.isfinite(lr)
-    if ok.sum() < 3 or np.ptp(lr[ok]) == 0:
-        return x, 0.0, light
-    c = lr[ok] - lr[ok].mean()
-    slope = float(np.sum(c * (xr[ok] - xr[ok].mean())) / np.sum(c * c))
-    resid = xr[ok] - xr[ok].mean() - slope * c
-    slope_var = float(np.sum(resid ** 2) / (ok.sum() - 2) / np.sum(c * c))
-    seen = np.clip(light, lr[ok].min(), lr[ok].max())
-    return x - np.where(np.isfinite(seen), slope * (seen - lr[ok].mean()), 0.0), slope_var, seen
 
 
 def _near(days: pd.Index, g: Segment, merged: list[Segment], ref: Segment, step: float,
