@@ -273,3 +273,42 @@ def test_a_drift_is_mirrored_against_the_same_surrounding_days():
     # with fewer than three clear days around, the factor against the long reference counts
     assert not sensor._mirrored(index, q[(q.index >= DAYS[160]) & (q.index < DAYS[200])], s,
                                 "UTC")
+
+
+def test_dull_days_after_the_reset_do_not_hide_its_mirror():
+    # invented truth: a lone inverter whose index falls by 0.06 per unit of the log of the
+    # day's mean plane irradiance (a low-light behaviour the model does not know; 0.045 to
+    # 0.066 measured on suite plants), days between 300 and 700 W/m^2, and the five days after
+    # a reset on 1 August overcast at 120 W/m^2; the sensor drifts to +4 % before the reset.
+    # On the index as it is, those dull days lower it by about 10 % and its step at the reset
+    # goes the wrong way; on the index less what the day's light explains (least squares on
+    # all the days, Draper & Smith 1998, from memory) the step is the fault's mirror
+    rng = np.random.default_rng(4)
+    err = _error("drift", np.log(1.04), "2024-06-01", "2024-08-01")
+    light = np.log(rng.uniform(300.0, 700.0, len(DAYS)))
+    dull = (DAYS >= pd.Timestamp("2024-08-01")) & (DAYS < pd.Timestamp("2024-08-06"))
+    light[dull] = np.log(120.0)
+    x, y = _pair(rng, err)
+    y = y + 0.06 * (light - np.log(500.0))
+    assert sensor.reset_faults(W, x, y) == []
+    steps = sensor._light_adjusted(y.to_frame("wr1"), pd.DataFrame({"wr1": light}, index=DAYS))
+    (s,) = sensor.reset_faults(W, x, y, pi_steps=steps["wr1"])
+    # a drift's reset is placed by the segmentation of a noisy end: within a day
+    assert abs((s.end - pd.Timestamp("2024-08-01", tz="UTC")).days) <= 1
+    assert s.factor == pytest.approx(1.04, abs=0.015)
+
+
+def test_a_step_out_from_the_usual_level_is_no_reset(monkeypatch):
+    # a fault's onset (the sensor from its usual level to 5 % high on 1 August) is a step away
+    # from the usual level, a reset one back to it (22 August): only the second is fitted as
+    # the end of a fault (on this seed the onset, a step past the usual level from just
+    # under it, used to be fitted as a reset too)
+    rng = np.random.default_rng(2)
+    x, y = _pair(rng, _error("step", np.log(1.05), "2024-08-01", "2024-08-22"))
+    fitted = []
+    fit = sensor.reset_fit
+    monkeypatch.setattr(sensor, "reset_fit", lambda x, lo, reset, *a, **k: (
+        fitted.append(reset), fit(x, lo, reset, *a, **k))[1])
+    (s,) = sensor.reset_faults(W, x, y)
+    assert fitted == [pd.Timestamp("2024-08-22")]
+    assert s.start == pd.Timestamp("2024-08-01", tz="UTC")

@@ -18,7 +18,8 @@ sensor is blamed only where an independent reference agrees.
   and slope, the Schwarz criterion choosing; the onset with its profile-likelihood
   interval and, for a drift, its standard error: a slow drift's onset is a kink that the
   daily noise places to within days, not to the day), kept when significant and mirrored
-  by the index at the reset. A sensor reading a few % low for a month is found so even
+  by the index at the reset (the index there less what the day's light explains,
+  :func:`_light_adjusted`). A sensor reading a few % low for a month is found so even
   without a clear day.
 * Level, from the power (:func:`power_faults`): the driven inverters' daily log index (less
   the other inverters' where some do not depend on the sensor) is segmented every day by
@@ -66,8 +67,10 @@ from perfcheck.detect.common import (
     Wide,
     change_points,
     daily_pi,
+    day_light,
     daylight,
     despike,
+    light_adjusted,
     long_run_sigma,
     robust_sigma,
     runs,
@@ -334,7 +337,8 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
 
 
 def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
-                 min_shift: float = 0.02, min_days: int = 3) -> list[Suspect]:
+                 min_shift: float = 0.02, min_days: int = 3,
+                 pi_steps: pd.Series | None = None) -> list[Suspect]:
     """Steps and drifts of the sensor against an every-day reference, each ending in a reset.
 
     ``x`` is the daily log ratio of the sensor to an independent reference. A faulty sensor
@@ -344,16 +348,22 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     false-alarm probability ``alpha`` per split) of at least ``min_shift``, towards the usual
     level (the series' median), reaching it or going past it: the reference may read off the
     other way for a few days just after the reset (snow or frost on the modules), and such a
-    spell, a segment of its own, must not hide the reset. Over the days since the last fault
-    found (or the first day), :func:`reset_fit` places the onset and chooses the shape. The
-    fault is kept when its size d is significant (two-sided normal p-value of d over its
-    long-run standard error below ``alpha``), its fitted error reaches ``min_shift`` on some
-    day, and the sensor-fed inverters' daily index ``pi_fed`` steps the other way at the
-    reset by half to twice d, within its noise (medians of ``min_days`` days either side,
-    :func:`_mirror_step`): a reference that errs with the season has no such step in the
-    power. The false-alarm probability is at most that of the segmentation's split,
-    ``alpha`` (independent noise; day-to-day persistence raises it), and the mirrored step
-    can only lower it.
+    spell, a segment of its own, must not hide the reset. The segment before the reset must
+    lie off the usual level by at least half of ``min_shift``: it holds the fault's last days,
+    and a fault counts only where it reaches ``min_shift`` (the last stretch of a straight
+    drift averages at least half its end value). A step from the usual level out past it is
+    a fault's onset, not a reset. Over the days since the last fault found (or the first
+    day), :func:`reset_fit` places the onset and chooses the shape. The fault is kept when its
+    size d is significant (two-sided normal p-value of d over its long-run standard error
+    below ``alpha``), its fitted error reaches ``min_shift`` on some day, and the sensor-fed
+    inverters' daily index steps the other way at the reset by half to twice d, within its
+    noise (medians of ``min_days`` days either side, :func:`_mirror_step`): a reference that
+    errs with the season has no such step in the power. The step is read on ``pi_steps``
+    (default ``pi_fed``), the index less what the day's light explains
+    (:func:`_light_adjusted`): over so few days, a run of dull days beside the reset moves a
+    lone inverter's index by as much as the sensor's fault. The false-alarm probability is at
+    most that of the segmentation's split, ``alpha`` (independent noise; day-to-day
+    persistence raises it), and the mirrored step can only lower it.
 
     The window runs from the fitted onset (for a drift, where the fitted line leaves the
     usual level) to the reset; the evidence gives the first day the fitted error reaches
@@ -371,15 +381,18 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     usual, big = float(np.median(v)), np.log1p(min_shift)
     y = pi_fed.dropna()
     y_clean = pd.Series(despike(y.to_numpy()), index=y.index)
+    if pi_steps is not None:
+        y = pi_steps.dropna()
     # the standard error of the index's step at a reset: the difference of two medians of
     # min_days days, each of variance about pi sigma^2 / (2 n) (the median's asymptotic
     # efficiency; Kendall & Stuart, from memory), sigma the index's day-to-day scale
-    se_step = robust_sigma(y_clean.to_numpy()) * np.sqrt(np.pi / min_days)
+    se_step = robust_sigma(despike(y.to_numpy())) * np.sqrt(np.pi / min_days)
     out = []
     since = b.index[0]
     for k in range(len(segs) - 1):
         before, after = segs[k].mean - usual, segs[k + 1].mean - usual
-        if not (abs(before - after) >= big and np.sign(before - after) == np.sign(before)):
+        if not (abs(before - after) >= big and np.sign(before - after) == np.sign(before)
+                and abs(before) >= big / 2):
             continue
         reset = b.index[segs[k + 1].start]
         fit = reset_fit(xs, since, reset, min_days, mirror=y_clean)
@@ -633,17 +646,20 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     own = free if raw is None or raw.isna().all() else raw.where(~touched)
     others = [c for c in w.inverters if c not in driven]
     # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
-    pi = np.log(daily_pi(w, daylight(w)).where(lambda p: p > 0))
+    valid = daylight(w)
+    pi = np.log(daily_pi(w, valid).where(lambda p: p > 0))
+    lit = _light_adjusted(pi, day_light(w, valid))
     pi_fed = (pi[driven] / scale).median(axis=1)
-    index = pi_fed
+    index, steps = pi_fed, (lit[driven] / scale).median(axis=1)
     if others:
         # the driven inverters against the others: a sensor fault moves the first ones'
         # expected power only, a fault of the weather or the whole plant moves both
         index = index - pi[others].median(axis=1)
+        steps = steps - lit[others].median(axis=1)
     q = _daily_log_ratio(w, free, sensor_clear)
     q_clear = q[clear.reindex(q.index).fillna(False).astype(bool)]
     found = [] if heat is None else reset_faults(
-        w, _daily_log_ratio(w, own, heat.where(heat > 0)), index, alpha=alpha)
+        w, _daily_log_ratio(w, own, heat.where(heat > 0)), index, alpha=alpha, pi_steps=steps)
     found += power_faults(w, index, q_clear, alpha=alpha)
     if others or part:
         every_day = index
@@ -673,6 +689,27 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
         if part:
             ev["sensor_share_of_plane_irradiance"] = part
         out.append(dataclasses.replace(s, evidence=ev, shares=part))
+    return out
+
+
+def _light_adjusted(pi: pd.DataFrame, light: pd.DataFrame) -> pd.DataFrame:
+    """Each inverter's daily log index ``pi`` less what the day's light (:func:`day_light`)
+    explains (:func:`perfcheck.detect.common.light_adjusted`, fitted on all its days but
+    isolated outliers, :func:`despike`).
+
+    A lone inverter's index moves with the day's light by several per cent per halving where
+    the model does not follow the modules at low light. A sensor reading a factor f off moves
+    the day's light by log f as well, which the fit takes back at its slope only (about 0.05
+    to 0.07 on the suite's plants), a fifteenth or less of the fault's mirror in the index.
+    """
+    out = pi.copy()
+    for c in pi.columns:
+        v = pi[c].dropna()
+        if len(v) < 3:
+            continue
+        x = v.to_numpy()
+        out.loc[v.index, c] = light_adjusted(x, light[c].reindex(v.index).to_numpy(),
+                                             despike(x) == x)[0]
     return out
 
 
