@@ -212,7 +212,9 @@ def _edges(x: np.ndarray, start: int, stop: int, k: int) -> list[float]:
 
 
 def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int = 3,
-              mirror: pd.Series | None = None, level: float = 0.95) -> dict[str, Any] | None:
+              mirror: pd.Series | None = None, level: float = 0.95,
+              onset: pd.Timestamp | None = None, shape: str | None = None
+              ) -> dict[str, Any] | None:
     """Least-squares fit of a sensor error that ends in a reset: ``x`` (one value per day)
     over the days [lo, reset) as the reference's own course b(t) plus d h(t) with an onset t0,
     h 0 before t0 and from it either 1 (a step) or (t - t0) / (reset - t0) (a drift: a
@@ -237,7 +239,8 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
     sensor's steadier reference fixes it (weighted least squares with the noise's variance at
     the frequencies that matter; Hamilton 1994, sec. 7.2, from memory). Every onset at least
     ``min_days`` days inside the span is tried (the profile of the residual sum of squares
-    over t0).
+    over t0). Given ``onset`` and ``shape`` (a fault placed already), only they are fitted:
+    the size of that fault against one series alone.
 
     Returns the shape, the course (``"level"`` or ``"slope"``), the onset, c (the level of
     ``x``'s course at the reset), d, the standard error of d from the standardised
@@ -297,21 +300,27 @@ def reset_fit(x: pd.Series, lo: pd.Timestamp, reset: pd.Timestamp, min_days: int
                                                                          strict=True)])
     tt = np.concatenate(t)
     onsets = list(range(min_days, len(cut[0]) - min_days + 1))
+    if onset is not None:
+        onsets = [k for k in onsets if cut[0].index[k] == onset]
+        if not onsets:
+            return None
     fits = {}
     for course, base in courses.items():
         best: dict[str, Any] = {"sse": np.inf}
         profile = {"drift": np.full(len(onsets), np.inf), "step": np.full(len(onsets), np.inf)}
         for j, k in enumerate(onsets):
             t0 = t[0][k]
-            for shape, h in (("drift", np.clip((tt - t0) / -t0, 0.0, None)),
-                             ("step", (tt >= t0).astype(float))):
+            for form, h in (("drift", np.clip((tt - t0) / -t0, 0.0, None)),
+                            ("step", (tt >= t0).astype(float))):
+                if shape is not None and form != shape:
+                    continue
                 a = np.column_stack([base, sign * h])
                 coef, *_ = np.linalg.lstsq(a, v, rcond=None)
                 resid = v - a @ coef
                 sse = float(resid @ resid)
-                profile[shape][j] = sse
+                profile[form][j] = sse
                 if sse < best["sse"]:
-                    best = {"sse": sse, "shape": shape, "onset": cut[0].index[k],
+                    best = {"sse": sse, "shape": form, "onset": cut[0].index[k],
                             "c": float(coef[0] / wt[0]), "d": float(coef[-1]), "a": a,
                             "resid": resid, "t0": t0}
         best["course"], best["profile"] = course, profile[best["shape"]]
@@ -398,8 +407,14 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
         fit = reset_fit(xs, since, reset, min_days, mirror=y_clean)
         if fit is None:
             continue
-        d = fit["d"]
-        p = float(2 * stats.norm.sf(abs(d) / fit["se_d"])) if fit["se_d"] > 0 else 0.0
+        # the fault's size against the sensor's own reference alone, at the onset and in the
+        # shape the two series placed together: the index's own course over the season
+        # (the power model's errors) must not bend it
+        own = reset_fit(xs, since, reset, min_days, onset=fit["onset"], shape=fit["shape"])
+        if own is None:
+            continue
+        d = own["d"]
+        p = float(2 * stats.norm.sf(abs(d) / own["se_d"])) if own["se_d"] > 0 else 0.0
         if not (np.sign(d) == np.sign(before) and p < alpha):
             continue
         # the index's change across the reset (before less after), against the sensor's d
