@@ -212,6 +212,8 @@ def plain_value(key: str, v: Any, tz: str) -> str | None:
     _, unit, factor = label_unit(key)
     if v is None:
         return "from the data"
+    if key.endswith("p_value") and v == 0:  # underflowed: as the least a float holds
+        return number(math.ulp(0.0))
     if isinstance(v, bool):
         return "yes" if v else "no"
     if isinstance(v, (int, float)):
@@ -411,12 +413,13 @@ def event_paragraph(ev: dict, tz: str) -> str:
 
 
 def stat_rows(ev: dict, tz: str) -> list[tuple[str, str]]:
-    """The detector's statistics of one event as (label, value with unit) rows."""
+    """The detector's statistics of one event as (label, value with unit) rows; a statistic
+    without a value (one that does not apply to this finding) is left out."""
     skip = set(EVENT_FIELDS) | {"evidence", "found_start", "found_end"}
     fields = {**ev.get("evidence", {}), **{k: v for k, v in ev.items() if k not in skip}}
     rows = []
     for key, v in fields.items():
-        text = plain_value(key, v, tz)
+        text = None if v is None else plain_value(key, v, tz)
         if text is not None and key != "note":
             rows.append((label_unit(key)[0], text))
     return rows

@@ -128,6 +128,7 @@ def test_interval_shown_only_when_wider_than_the_rounding():
     ("design", True, "Design", "yes"),
     ("attributed_kwh", 1440.0, "Attributed", "1,440 kWh"),
     ("p_value", 4.63e-105, "P-value", "< 0.0001"),
+    ("p_value", 0.0, "P-value", "< 0.0001"),  # underflowed: a probability is never 0
     ("exclude_flags", ["out_of_range", "stuck"], "Exclude flags", "out of range, stuck"),
     ("t_cell_typ_avg_c", None, "T cell typical average", "from the data"),
     ("t_cell_typ_avg_used_c", 29.61059, "T cell typical average used", "29.6 °C"),
@@ -136,6 +137,13 @@ def test_interval_shown_only_when_wider_than_the_rounding():
 def test_plain_values(key, value, label, text):
     assert report.label_unit(key)[0] == label
     assert report.plain_value(key, value, "Europe/Zurich") == text
+
+
+def test_a_statistic_that_does_not_apply_is_left_out():
+    # a step's onset has no standard error (only a drift's has): no row, not "from the data"
+    ev = {"kind": "sensor_fault", "evidence": {"shape": "step", "onset_se_days": None,
+                                               "p_value": 0.0}}
+    assert report.stat_rows(ev, "Europe/Zurich") == [("Shape", "step"), ("P-value", "< 0.0001")]
 
 
 def test_verdict_without_enough_data():
