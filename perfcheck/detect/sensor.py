@@ -663,18 +663,16 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
     valid = daylight(w)
     pi = np.log(daily_pi(w, valid).where(lambda p: p > 0))
-    lit = _light_adjusted(pi, day_light(w, valid))
     pi_fed = (pi[driven] / scale).median(axis=1)
-    index, steps = pi_fed, (lit[driven] / scale).median(axis=1)
-    if others:
-        # the driven inverters against the others: a sensor fault moves the first ones'
-        # expected power only, a fault of the weather or the whole plant moves both
-        index = index - pi[others].median(axis=1)
-        steps = steps - lit[others].median(axis=1)
+    index = _against_others(pi_fed, pi, others)
     q = _daily_log_ratio(w, free, sensor_clear)
     q_clear = q[clear.reindex(q.index).fillna(False).astype(bool)]
-    found = [] if heat is None else reset_faults(
-        w, _daily_log_ratio(w, own, heat.where(heat > 0)), index, alpha=alpha, pi_steps=steps)
+    found = []
+    if heat is not None:
+        lit = _light_adjusted(pi, day_light(w, valid))
+        steps = _against_others((lit[driven] / scale).median(axis=1), lit, others)
+        found = reset_faults(w, _daily_log_ratio(w, own, heat.where(heat > 0)), index,
+                             alpha=alpha, pi_steps=steps)
     found += power_faults(w, index, q_clear, alpha=alpha)
     if others or part:
         every_day = index
@@ -705,6 +703,13 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
             ev["sensor_share_of_plane_irradiance"] = part
         out.append(dataclasses.replace(s, evidence=ev, shares=part))
     return out
+
+
+def _against_others(fed: pd.Series, pi: pd.DataFrame, others: list[str]) -> pd.Series:
+    """The sensor-driven inverters' daily log index ``fed`` less the median of the other
+    inverters' (``pi``), where there are any: a sensor fault moves the first ones' expected
+    power only, a fault of the weather or of the whole plant moves both."""
+    return fed - pi[others].median(axis=1) if others else fed
 
 
 def _light_adjusted(pi: pd.DataFrame, light: pd.DataFrame) -> pd.DataFrame:
