@@ -1,16 +1,17 @@
 """Measured beside expected: the ``aligned`` table, one row per (interval, inverter).
 
 Stage "align". Measured AC power of an inverter comes, in this order, from its mean AC power
-readings, from its interval energy (divided by the logging interval), or from differences of
-its energy register (:func:`register_power`). Expected values, sun position and site weather
-are joined on the same interval (with the expected power and cell temperature from the
-modelled POA alone, ``expected_ac_modelled_w``, ``potential_ac_modelled_w`` and
-``temp_cell_modelled_c``, the stand-in where the POA sensor is suspect, and the POA sensor's
-own reading ``poa_sensor_wm2``, which is only part of an inverter's plane irradiance where its
-arrays face several planes); the quality flags of the readings behind each row come from the
-``flags`` table through the ``aligned`` view (see ``sql/schema_30_model.sql``).
+readings, from its interval energy (divided by the logging interval), or from differences of its
+energy register (:func:`register_power`). The model stores its expected values, with the sun
+position and site weather, beside it, piece by piece (:func:`store`; with the expected power and
+cell temperature from the modelled POA alone, ``expected_ac_modelled_w``,
+``potential_ac_modelled_w`` and ``temp_cell_modelled_c``, the stand-in where the POA sensor is
+suspect, and the POA sensor's own reading ``poa_sensor_wm2``, which is only part of an
+inverter's plane irradiance where its arrays face several planes); the quality flags of the
+readings behind each row come from the ``flags`` table through the ``aligned`` view (see
+``sql/schema_30_model.sql``).
 
-:func:`refresh` is called by :func:`perfcheck.model.run`; later stages read
+:func:`store` is called by :func:`perfcheck.model.run`; later stages read
 :func:`load_aligned`.
 """
 
@@ -22,7 +23,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from perfcheck import db, ingest
+from perfcheck import db
 from perfcheck.errors import DataError
 from perfcheck.site import Site
 
@@ -36,12 +37,11 @@ ALIGNED_COLUMNS = (
 # A register step above this multiple of the inverter's AC rating times the elapsed time is a
 # reset or a replaced meter, not energy (physical bound with margin; common practice).
 REGISTER_MAX_RATING_MULTIPLE = 1.5
-CHUNK_DAYS = 31  # the model computes a month at a time, which bounds the memory used
-# The aligned rows hold only the measured power in Python: they are built in pieces of whole
-# days of fewer rows (interval x inverter) than a DuckDB row group (db.ROW_GROUP_ROWS: a larger
-# INSERT leaves short row groups that the checkpoint at close writes again), and at least a
-# day; for a site-year of 1-minute rows of one inverter a piece is 85 days (measured there:
-# the aligned rows written and checkpointed in 0.52 s of CPU in 85-day pieces, 0.78 s in
+# The model and the aligned rows go in pieces of whole days of fewer rows (interval x inverter)
+# than a DuckDB row group (db.ROW_GROUP_ROWS: a larger INSERT leaves short row groups that the
+# checkpoint at close writes again), and at least a day (:func:`piece_days`), which bounds the
+# memory used; for a site-year of 1-minute rows of one inverter a piece is 85 days (measured
+# there: the aligned rows written and checkpointed in 0.52 s of CPU in 85-day pieces, 0.78 s in
 # 91-day ones, of which 0.31 s in the checkpoint at close; 0.57 s in 31-day ones).
 # load_aligned fetches the rows in pieces of this many DuckDB vectors (2,048 rows each) and keeps
 # one string object per distinct value of its text columns: a site-year of 1-minute rows holds
@@ -159,63 +159,45 @@ def changed_span(con: duckdb.DuckDBPyConnection, last_file_id: int, interval_s: 
     return start, end
 
 
-def chunks(start: pd.Timestamp, end: pd.Timestamp, days: int = CHUNK_DAYS
+def chunks(start: pd.Timestamp, end: pd.Timestamp, days: int
            ) -> list[tuple[pd.Timestamp, pd.Timestamp]]:
     """[start, end) cut into consecutive pieces of at most ``days`` days (bounded memory)."""
     edges = list(pd.date_range(start, end, freq=f"{days}D")) + [end]
     return [(a, b) for a, b in zip(edges[:-1], edges[1:], strict=True) if b > a]
 
 
-def refresh(con: duckdb.DuckDBPyConnection, site: Site, model_run_id: int, interval_s: int,
-            latest_file_id: int) -> int:
-    """Bring ``aligned_base`` up to date with model run ``model_run_id``; returns rows written.
-
-    Rebuilds everything when the table holds another run, else only the intervals touched by
-    readings that arrived since the last refresh (one interval more, for register steps).
-    """
-    state = first_row(con, "SELECT model_run_id, last_file_id FROM align_state")
-    same = state is not None and state[0] == model_run_id
-    if not same:
-        con.execute("DELETE FROM aligned_base")
-    span = changed_span(con, state[1] if same else 0, interval_s)
-    rows = 0
-    if span is not None:
-        end = span[1] + pd.Timedelta(seconds=interval_s)
-        energy_s = {d: float(v) for (q, d), v in ingest.channel_intervals(con).items()
-                    if q == "energy_interval_wh"}
-        days = max(1, (db.ROW_GROUP_ROWS - 1) * interval_s
-                   // (86400 * max(len(site.inverters), 1)))
-        spans = chunks(span[0], end, days)
-        # each piece's inverter readings are read while the piece before is built
-        raws = db.read_ahead(con, lambda cur, s: _inverter_readings(cur, interval_s, *s),
-                             spans)
-        for (a, b), raw in zip(spans, raws, strict=True):
-            rows += _rebuild(con, site, model_run_id, interval_s, energy_s, raw, a, b)
-    con.execute("DELETE FROM align_state")
-    con.execute("INSERT INTO align_state VALUES (?, ?)", [model_run_id, latest_file_id])
-    return rows
+def piece_days(site: Site, interval_s: int) -> int:
+    """Days per piece of the model and the aligned rows: whole days of fewer rows (interval x
+    inverter) than a DuckDB row group, at least one."""
+    return max(1, (db.ROW_GROUP_ROWS - 1) * interval_s // (86400 * max(len(site.inverters), 1)))
 
 
-def _inverter_readings(con: duckdb.DuckDBPyConnection, interval_s: int, start: pd.Timestamp,
-                       end: pd.Timestamp) -> pd.DataFrame:
+def inverter_readings(con: duckdb.DuckDBPyConnection, interval_s: int, start: pd.Timestamp,
+                      end: pd.Timestamp) -> pd.DataFrame:
     """The inverter readings per interval (``sql/align_measured.sql``) of the interval starts
     in [``start``, ``end``), and of the interval before (for register steps)."""
     return con.execute(db.sql("align_measured"), {
         "iv": interval_s, "start": start - pd.Timedelta(seconds=interval_s), "end": end}).df()
 
 
-def _rebuild(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, interval_s: int,
-             energy_s: dict[str, float], raw: pd.DataFrame, start: pd.Timestamp,
-             end: pd.Timestamp) -> int:
-    """Aligned rows of [``start``, ``end``) from the inverter readings ``raw``
-    (:func:`_inverter_readings`) and the stored expected rows of run ``run_id``."""
-    span = {"start": start, "end": end}
+def store(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, interval_s: int,
+          energy_s: dict[str, float], expected: pd.DataFrame | None, raw: pd.DataFrame,
+          start: pd.Timestamp, end: pd.Timestamp) -> None:
+    """Replace the aligned rows of [``start``, ``end``) by the expected rows of run ``run_id``
+    (columns ``ts``, ``inverter_id`` and those of :data:`ALIGNED_COLUMNS` that the model
+    gives; None: no weather there) beside the measured power from the inverter readings
+    ``raw`` (:func:`inverter_readings`; ``energy_s``: the logging interval of each inverter's
+    interval energy [s])."""
     meas = measured_power(raw, site, interval_s, energy_s)
     meas = meas[meas["ts"] >= start]
-    con.execute(db.sql("align_delete_span"), span)
+    con.execute(db.sql("align_delete_span"), {"start": start, "end": end})
+    if expected is None:
+        expected = meas[["ts", "inverter_id"]].iloc[:0]
+    # the expected frame scanned as a relation, not registered: a view dropped inside the
+    # model's transaction would keep it alive until the commit (the measured one is small)
     with db.registered(con, _measured=meas):
-        rows = first_row(con, db.sql("align_build"), {"id": run_id, "iv": interval_s, **span})
-    return int(rows[0]) if rows else 0
+        con.from_df(expected).query(
+            "_expected", db.sql("align_build").format(iv=int(interval_s), id=int(run_id)))
 
 
 def load_aligned(con: duckdb.DuckDBPyConnection, site: Site, start: pd.Timestamp | None = None,

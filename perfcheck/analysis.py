@@ -175,7 +175,7 @@ def _make(con: duckdb.DuckDBPyConnection, site: Site, spec: dict[str, Any], key:
     model_json = json.dumps(_jsonable(found["model"]), sort_keys=True)
     degradation_json = json.dumps(_jsonable(found["degradation"]), sort_keys=True)
     del found  # the detectors' series: released before the storing queries need memory
-    first = pd.Timestamp(ledger.index[0])  # one interval length per site (align.refresh)
+    first = pd.Timestamp(ledger.index[0])  # one interval length per site (model.run)
     end = pd.Timestamp(ledger.index[-1]) + pd.Timedelta(seconds=float(ledger.interval_s[-1]))
     start_day, end_day = _whole_days(site, first, end)
     t_typ = metrics.typical_cell_temperature(con, site, end_day, settings)

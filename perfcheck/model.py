@@ -51,9 +51,10 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
 * Intervals: the model runs at the interval of the loggers that record inverter power (the
   shortest, if several); finer weather readings are averaged into it, coarser ones held over
   their own interval (:func:`hold_coarse_weather`).
-* Long spans are computed a month at a time (bounded memory); only intervals touched by new
-  readings are recomputed, per parameter set (``model_runs``, keyed by the hash of
-  :func:`parameters`).
+* Long spans are computed in pieces of whole days (bounded memory), each stored at once beside
+  the measured power (:func:`perfcheck.align.store`); only intervals touched by new readings
+  are recomputed while the parameters stay the same (``model_runs``, keyed by the hash of
+  :func:`parameters`), everything when they change.
 """
 
 from __future__ import annotations
@@ -80,7 +81,7 @@ from perfcheck.versions import versions
 pvlib = lazy_package("pvlib", PVLIB_WITH_INIT)
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "9"
+MODEL_VERSION = "10"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
 WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
@@ -90,6 +91,11 @@ PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this til
 # each inverter's plane irradiance; from MODEL_VERSION 7)
 CONDITIONS = {"ghi_wm2": "ghi", "temp_air_c": "temp_air", "wind_speed_ms": "wind_speed",
               "temp_module_c": "temp_module", "rain_mm": "rain", "poa_sensor_wm2": "poa_sensor"}
+# the aligned rows' names of the expected series' columns (perfcheck.align.ALIGNED_COLUMNS)
+ALIGNED_NAMES = {"ac_w": "expected_ac_w", "ac_potential_w": "potential_ac_w",
+                 "dc_w": "expected_dc_w", "poa_global_wm2": "poa_wm2",
+                 "ac_modelled_w": "expected_ac_modelled_w",
+                 "ac_potential_modelled_w": "potential_ac_modelled_w"}
 # Stored names of the quantities that belong to an inverter or the plant (power, energy).
 DEVICE_STORED = tuple(QUANTITIES[q][0] for q in DEVICE_QUANTITIES)
 # readings quantity -> pvlib name in the weather frame
@@ -676,13 +682,14 @@ def _run_record(con: duckdb.DuckDBPyConnection, params: dict[str, Any]) -> tuple
 def run(con: duckdb.DuckDBPyConnection, site: Site,
         progress: Callable[[str], None] | None = None,
         sun: ph.SunPositions | None = None) -> dict[str, Any]:
-    """Build or refresh the expected series and the aligned table for the stored readings.
+    """Build or refresh the expected series, stored beside the measured power (the aligned
+    rows, :func:`perfcheck.align.store`), for the stored readings.
 
-    Only intervals touched by readings that arrived since the last run with the same
-    parameters are computed. ``sun``: the sun's positions kept by the quality stage of the
-    same command (:func:`perfcheck.quality.run`), when it ran. Returns a summary:
-    ``model_run_id``, ``computed_from``, ``computed_to`` (None when nothing was new),
-    ``rows``, ``checks``.
+    Only intervals touched by readings that arrived since the aligned rows were built are computed,
+    when they hold a run of the same parameters; else everything. ``sun``: the sun's positions
+    kept by the quality stage of the same command (:func:`perfcheck.quality.run`), when it ran.
+    Returns a summary: ``model_run_id``, ``computed_from``, ``computed_to`` (None when nothing
+    was new), ``rows``, ``checks``.
 
     Raises DataError when there are no readings or no irradiance readings.
     """
@@ -701,21 +708,32 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
                         "database: the expected series needs one (map a 'poa' or 'ghi' column "
                         "in [[loggers]])")
     with db.transaction(con):
-        run_id, last_file = _run_record(con, params)
-        span = align.changed_span(con, last_file, step)
+        run_id, _ = _run_record(con, params)
+        # the aligned rows hold one run: another run's are replaced by this one's everywhere
+        state = align.first_row(con, "SELECT model_run_id, last_file_id FROM align_state")
+        same = state is not None and state[0] == run_id
+        if not same:
+            con.execute("DELETE FROM aligned_base")
+        span = align.changed_span(con, state[1] if same else 0, step)
         result: dict[str, Any] = {"model_run_id": run_id, "computed_from": None,
                                   "computed_to": None, "rows": 0, "checks": None}
         if span is not None:
             start, end = span
             say(f"model: {start:%Y-%m-%d} to {end:%Y-%m-%d}")
             held = weather_intervals(intervals)
-            spans = align.chunks(start, end)
-            # each month's weather is read while the month before is computed
-            weathers = db.read_ahead(con, lambda cur, s: stored_weather(cur, step, held, *s),
-                                     spans)
+            energy_s = {d: float(v) for (q, d), v in intervals.items()
+                        if q == "energy_interval_wh"}
+            # one interval more: its register step starts in the span
+            spans = align.chunks(start, end + pd.Timedelta(seconds=step),
+                                 align.piece_days(site, step))
+            # each piece's weather and inverter readings are read while the piece before is
+            # computed
+            inputs = db.read_ahead(con, lambda cur, s: (
+                stored_weather(cur, step, held, *s), align.inverter_readings(cur, step, *s)),
+                spans)
             sun = sun or quality.sun_positions(site)
-            parts = [_compute(con, site, run_id, step, weather, a, b, sun)
-                     for (a, b), weather in zip(spans, weathers, strict=True)]
+            parts = [_compute(con, site, run_id, step, weather, raw, energy_s, a, b, sun)
+                     for (a, b), (weather, raw) in zip(spans, inputs, strict=True)]
             daily = [p["daily"] for p in parts if p["daily"] is not None]
             result.update(computed_from=start, computed_to=end,
                           rows=sum(p["rows"] for p in parts),
@@ -726,24 +744,27 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
                                                   "now": dt.datetime.now(dt.UTC),
                                                   "checks": json.dumps(result["checks"])
                                                   if result["checks"] is not None else None})
-        say("align")
-        align.refresh(con, site, run_id, step, int(latest))
+        con.execute("DELETE FROM align_state")
+        con.execute("INSERT INTO align_state VALUES (?, ?)", [run_id, int(latest)])
     return result
 
 
 def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
-             weather: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp,
-             positions: ph.SunPositions) -> dict[str, Any]:
+             weather: pd.DataFrame, raw: pd.DataFrame, energy_s: dict[str, float],
+             start: pd.Timestamp, end: pd.Timestamp, positions: ph.SunPositions
+             ) -> dict[str, Any]:
     """Expected rows and conditions of [``start``, ``end``) from ``weather``
-    (:func:`stored_weather`), stored under run ``run_id``, the sun from ``positions``."""
+    (:func:`stored_weather`), the sun from ``positions``, stored under run ``run_id`` beside
+    the measured power from the inverter readings ``raw``
+    (:func:`perfcheck.align.inverter_readings`)."""
     if weather.empty:
+        align.store(con, site, run_id, step, energy_s, None, raw, start, end)
         return {"rows": 0, "daily": None}
     sun = site_sun(weather.index, site, step, positions)
     irradiance_source(site, weather)  # no irradiance in this span: its error, before any work
     comps = horizontal_components(weather, sun, site)  # decomposed once, used twice below
     planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]] = {}
     exp = expected_power(weather, sun, site, comps, planes)
-    exp["model_run_id"] = run_id
     # the conditions of each interval beside every inverter's row (rows: inverter after
     # inverter, each over the sun's index)
     conditions = {"sun_zenith_deg": sun["apparent_zenith"], "sun_azimuth_deg": sun["azimuth"],
@@ -752,8 +773,9 @@ def _compute(con: duckdb.DuckDBPyConnection, site: Site, run_id: int, step: int,
     repeat = len(exp) // len(sun)
     for q, values in conditions.items():
         exp[q] = np.tile(values.to_numpy(), repeat)
-    con.execute(db.sql("model_delete_expected"), {"id": run_id, "start": start, "end": end})
-    db.insert_frame(con, "expected", exp)  # released once written, not at the commit
+    align.store(con, site, run_id, step, energy_s,
+                exp.drop(columns="poa_effective_wm2").rename(columns=ALIGNED_NAMES),
+                raw, start, end)
     daily = None
     if all(c in weather and weather[c].notna().any() for c in ("poa_sensor", "ghi")):
         ref = sensor_array(site)

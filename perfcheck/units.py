@@ -158,10 +158,9 @@ def current(con: duckdb.DuckDBPyConnection, site: Site) -> bool:
 
 
 def recompute_from(con: duckdb.DuckDBPyConnection, file_id: int) -> None:
-    """Make the model recompute the intervals of the readings of files from ``file_id`` on,
-    and the alignment everything (the values of a file read differently changed)."""
-    con.execute("UPDATE model_runs SET last_file_id = least(last_file_id, ?)", [file_id - 1])
-    con.execute("DELETE FROM align_state")
+    """Make the model recompute the intervals of the readings of files from ``file_id`` on
+    (the values of a file read differently changed)."""
+    con.execute("UPDATE align_state SET last_file_id = least(last_file_id, ?)", [file_id - 1])
 
 
 # --------------------------------------------------------------------------------------------

@@ -2,8 +2,8 @@
 -- aligned measured-vs-expected table. All instants UTC, labelling the start of the interval.
 CREATE SEQUENCE IF NOT EXISTS model_run_seq START 1;
 
--- One row per set of model parameters (hash of their canonical JSON). last_file_id: readings
--- of source files up to this id have been modelled with these parameters.
+-- One row per set of model parameters (hash of their canonical JSON). last_file_id: the newest
+-- source file when the model last ran with these parameters.
 CREATE TABLE IF NOT EXISTS model_runs (
     model_run_id    INTEGER PRIMARY KEY,
     params_hash     VARCHAR NOT NULL UNIQUE,
@@ -15,61 +15,24 @@ CREATE TABLE IF NOT EXISTS model_runs (
     checks_json     VARCHAR                -- plausibility of the POA sensor against the model
 );
 
-CREATE TABLE IF NOT EXISTS expected (
-    ts                TIMESTAMPTZ NOT NULL,
-    inverter_id       VARCHAR NOT NULL,
-    poa_global_wm2    DOUBLE,   -- irradiance in the inverter's plane(s) used (DC-weighted)
-    poa_effective_wm2 DOUBLE,   -- after horizon and incidence-angle losses
-    poa_modelled_wm2  DOUBLE,   -- modelled from GHI (or from the sensor's components)
-    poa_source        VARCHAR,  -- 'sensor', 'translated' (carried from it) or 'model'
-    temp_cell_c       DOUBLE,
-    dc_w              DOUBLE,
-    ac_potential_w    DOUBLE,   -- without AC rating and export limit
-    ac_w              DOUBLE,   -- with AC rating (clipping) and plant export limit
-    model_run_id      INTEGER NOT NULL
-);
--- Cell temperature and the AC powers from the modelled POA alone (equal to the above for
--- arrays the POA sensor does not feed): the stand-in where the sensor is suspect. Added by
--- ALTER so that databases made before these columns existed get them too (their runs are not
--- reused: perfcheck.model.MODEL_VERSION is part of the run's parameters).
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_potential_modelled_w DOUBLE;
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS ac_modelled_w DOUBLE;
--- Change of poa_modelled_wm2 per relative change of the decomposition's DNI, GHI held [W/m2]
--- (perfcheck.physics.poa_decomposition_terms; from MODEL_VERSION 5).
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_dni_sensitivity_wm2 DOUBLE;
--- Range of poa_modelled_wm2 over the beam the decomposition cannot see at low sun [W/m2]
--- (perfcheck.physics.poa_decomposition_terms; from MODEL_VERSION 6).
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_beam_range_wm2 DOUBLE;
-
--- The conditions of each interval as the model used them, beside each inverter's row: the sun
--- at the interval's mid-point and the site weather (coarser weather held over its own
--- interval, finer weather averaged). They had a table of their own (model_conditions) before
--- MODEL_VERSION 4, whose runs are not reused.
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS sun_zenith_deg DOUBLE;   -- apparent (refracted)
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS sun_azimuth_deg DOUBLE;  -- clockwise from north
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS clearsky_ghi_wm2 DOUBLE;
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS ghi_wm2 DOUBLE;
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_air_c DOUBLE;
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS wind_speed_ms DOUBLE;
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS temp_module_c DOUBLE;
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS rain_mm DOUBLE;
--- the POA sensor's reading [W/m2] (from MODEL_VERSION 7)
-ALTER TABLE expected ADD COLUMN IF NOT EXISTS poa_sensor_wm2 DOUBLE;
+-- The expected series had a table of its own (expected), copied into aligned_base, before
+-- MODEL_VERSION 10, whose runs are not reused: the model now writes its rows there directly.
+DROP TABLE IF EXISTS expected;
 DROP TABLE IF EXISTS model_conditions;
 
--- Measured and expected side by side, one row per (interval, inverter), for one model run.
+-- Measured and expected side by side, one row per (interval, inverter), for one model run: the
+-- model writes its expected rows here beside the measured power (perfcheck.align.store).
 CREATE TABLE IF NOT EXISTS aligned_base (
     ts               TIMESTAMPTZ NOT NULL,
     inverter_id      VARCHAR NOT NULL,
     interval_s       INTEGER NOT NULL,
     measured_ac_w    DOUBLE,
-    expected_ac_w    DOUBLE,
-    potential_ac_w   DOUBLE,
+    expected_ac_w    DOUBLE,  -- with AC rating (clipping) and plant export limit
+    potential_ac_w   DOUBLE,  -- without AC rating and export limit
     expected_dc_w    DOUBLE,
-    poa_wm2          DOUBLE,
-    poa_modelled_wm2 DOUBLE,
-    poa_source       VARCHAR,
+    poa_wm2          DOUBLE,  -- irradiance in the inverter's plane(s) used (DC-weighted)
+    poa_modelled_wm2 DOUBLE,  -- modelled from GHI (or from the sensor's components)
+    poa_source       VARCHAR, -- 'sensor', 'translated' (carried from it) or 'model'
     ghi_wm2          DOUBLE,
     clearsky_ghi_wm2 DOUBLE,
     temp_air_c       DOUBLE,
@@ -77,8 +40,8 @@ CREATE TABLE IF NOT EXISTS aligned_base (
     temp_module_c    DOUBLE,
     temp_cell_c      DOUBLE,
     rain_mm          DOUBLE,
-    sun_zenith_deg   DOUBLE,
-    sun_azimuth_deg  DOUBLE,
+    sun_zenith_deg   DOUBLE,  -- apparent (refracted), at the interval's mid-point
+    sun_azimuth_deg  DOUBLE,  -- clockwise from north
     model_run_id     INTEGER NOT NULL
 );
 ALTER TABLE aligned_base ADD COLUMN IF NOT EXISTS temp_cell_modelled_c DOUBLE;

@@ -164,7 +164,7 @@ def test_run_stores_and_computes_only_what_is_new(tmp_path):
     store(con, w, "site", file_id=1)
     first = model.run(con, site)
     assert first["rows"] == 2 * 96 * 2
-    n = con.execute("SELECT count(*) FROM expected").fetchall()[0][0]
+    n = con.execute("SELECT count(*) FROM aligned_base").fetchall()[0][0]
     assert n == 2 * 96 * 2
     again = model.run(con, site)
     assert again["computed_from"] is None and again["rows"] == 0
@@ -173,12 +173,13 @@ def test_run_stores_and_computes_only_what_is_new(tmp_path):
     third = model.run(con, site)
     assert third["computed_from"] == pd.Timestamp("2024-06-03", tz="UTC")
     assert third["rows"] == 96 * 2
-    assert con.execute("SELECT count(*) FROM expected").fetchall()[0][0] == 3 * 96 * 2
-    # Other parameters: a new run over everything; back to the first: nothing recomputed.
+    assert con.execute("SELECT count(*) FROM aligned_base").fetchall()[0][0] == 3 * 96 * 2
+    # Other parameters: a new run over everything; back to the first: the same run, over
+    # everything again (the aligned rows hold one run)
     other = make_site(tmp_path, losses="wiring_pct = 3.0")
     assert model.run(con, other)["model_run_id"] != first["model_run_id"]
     back = model.run(con, site)
-    assert back["model_run_id"] == first["model_run_id"] and back["rows"] == 0
+    assert back["model_run_id"] == first["model_run_id"] and back["rows"] == 3 * 96 * 2
     row = con.execute("SELECT parameters_json, versions_json FROM model_runs "
                       "WHERE model_run_id = ?", [first["model_run_id"]]).fetchall()[0]
     params, versions = json.loads(row[0]), json.loads(row[1])
@@ -199,7 +200,8 @@ def _expected_dc(folder, commissioned_line: str) -> pd.DataFrame:
     con = open_db(folder)
     store(con, clear_days("2024-06-01", 2), "site", file_id=1)
     model.run(con, site)
-    return con.execute("SELECT ts, inverter_id, dc_w FROM expected ORDER BY ALL").df()
+    return con.execute("SELECT ts, inverter_id, expected_dc_w AS dc_w FROM aligned_base "
+                       "ORDER BY ALL").df()
 
 
 def test_age_allowance_without_commissioned_starts_at_the_first_data(tmp_path):
@@ -232,14 +234,15 @@ def test_run_failure_keeps_what_was_stored(tmp_path):
     con = open_db(tmp_path)
     store(con, clear_days("2024-06-01", 1), "site", file_id=1)
     model.run(con, site)
-    before = con.execute("SELECT count(*), sum(ac_w) FROM expected").fetchall()[0]
+    totals = "SELECT count(*), sum(expected_ac_w) FROM aligned_base"
+    before = con.execute(totals).fetchall()[0]
     store(con, pd.DataFrame({"temp_air_c": [20.0]},
                             index=pd.DatetimeIndex([pd.Timestamp("2024-06-05", tz="UTC")])),
           "site", file_id=2)
     bad = make_site(tmp_path, model='irradiance_source = "poa_sensor"')
     with pytest.raises(DataError):
         model.run(con, bad)
-    assert con.execute("SELECT count(*), sum(ac_w) FROM expected").fetchall()[0] == before
+    assert con.execute(totals).fetchall()[0] == before
 
 
 def test_model_interval_and_coarse_weather_held(tmp_path):

@@ -392,7 +392,7 @@ def test_model_stage_stores_the_tracker_plant(tmp_path):
     store(con, week.rename(columns=stored), "site", interval_min=60)
     store(con, pd.DataFrame({"ac_power_w": 0.0}, index=week.index), "INV1", interval_min=60)
     model.run(con, site)
-    got = con.execute("SELECT ts, ac_w FROM expected ORDER BY ts").df()
+    got = con.execute("SELECT ts, expected_ac_w AS ac_w FROM aligned_base ORDER BY ts").df()
     pure = model.expected_power(week, model.site_sun(week.index, site, 3600), site)
     assert_allclose(got["ac_w"].to_numpy(), pure["ac_w"].to_numpy(), rtol=1e-9, atol=1e-6)
     assert pure["ac_w"].max() > 700_000  # the week has full sun on the trackers
