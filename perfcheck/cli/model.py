@@ -48,7 +48,7 @@ def model_command(site: Site, db_path: Path, quiet: bool) -> None:
     since they last ran or the site file's [[corrections]] or carry_forward_min changed;
     the count per flag and each suspected unit error are printed.
     Only intervals with readings that arrived since the last run are computed; a change of
-    the design or the model settings in the site file starts a new, separately stored run.
+    the design or the model settings in the site file recomputes the whole history.
     The ratio uses the intervals where both values exist; coverage is the share of the
     expected energy that has a measurement.
 
