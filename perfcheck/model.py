@@ -666,17 +666,17 @@ def stored_weather(con: duckdb.DuckDBPyConnection, step_s: int, intervals: dict[
     return weather[weather.index >= start]
 
 
-def _run_record(con: duckdb.DuckDBPyConnection, params: dict[str, Any]) -> tuple[int, int]:
-    """(model_run_id, last_file_id) of the run with these parameters, created if new."""
+def _run_record(con: duckdb.DuckDBPyConnection, params: dict[str, Any]) -> int:
+    """The model_run_id of the run with these parameters, created if new."""
     h = parameters_hash(params)
     row = align.first_row(con, db.sql("model_run_find"), [h])
     if row:
-        return int(row[0]), int(row[1])
+        return int(row[0])
     run_id = align.first_row(con, db.sql("model_run_insert"), {
         "hash": h, "params": json.dumps(params, sort_keys=True),
         "versions": json.dumps({**versions(), "model": MODEL_VERSION}, sort_keys=True),
         "now": dt.datetime.now(dt.UTC)})[0]
-    return int(run_id), 0
+    return int(run_id)
 
 
 def run(con: duckdb.DuckDBPyConnection, site: Site,
@@ -708,7 +708,7 @@ def run(con: duckdb.DuckDBPyConnection, site: Site,
                         "database: the expected series needs one (map a 'poa' or 'ghi' column "
                         "in [[loggers]])")
     with db.transaction(con):
-        run_id, _ = _run_record(con, params)
+        run_id = _run_record(con, params)
         # the aligned rows hold one run: another run's are replaced by this one's everywhere
         state = align.first_row(con, "SELECT model_run_id, last_file_id FROM align_state")
         same = state is not None and state[0] == run_id

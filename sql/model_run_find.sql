@@ -1,2 +1,2 @@
--- The run with this parameter hash: (model_run_id, last_file_id).
-SELECT model_run_id, last_file_id FROM model_runs WHERE params_hash = ?;
+-- The model_run_id of the run with this parameter hash.
+SELECT model_run_id FROM model_runs WHERE params_hash = ?;
