@@ -104,15 +104,22 @@ def test_aligned_rows_columns_and_flags(tmp_path):
 def test_aligned_carries_the_modelled_poa_expected_power(tmp_path):
     # Synthetic truth (invented readings): a POA sensor in INV1's plane reading 10 % below a
     # plain 1.1 x GHI. The aligned rows carry the expected power from the modelled POA beside
-    # the normal one: for INV1 (fed by the sensor) above the sensor's
-    # expected power at midday; for INV2 (other planes, which take the sensor's reading carried
-    # to them where that depends less on the split of GHI) the same as the normal expected
-    # power wherever its irradiance is the modelled one.
+    # the normal one: as the model's pure chain gives them from the stored weather; for INV1
+    # (fed by the sensor) above the sensor's expected power at midday; for INV2 (other planes,
+    # which take the sensor's reading carried to them where that depends less on the split of
+    # GHI) the same as the normal expected power wherever its irradiance is the modelled one.
     site, con = _stored_site(tmp_path)
     w = clear_days("2024-06-30", 2)
     store(con, pd.DataFrame({"poa_wm2": w["ghi_wm2"] * 1.1 * 0.9}, index=w.index), "site", 1)
     model.run(con, site)
     df = align.load_aligned(con, site).set_index(["inverter_id", "ts"])
+    weather = model.load_weather(con, 900, w.index[0], w.index[-1] + pd.Timedelta(minutes=15))
+    pure = model.expected_power(weather, model.site_sun(weather.index, site, 900), site)
+    pure = pure.set_index(["inverter_id", "ts"]).reindex(df.index)
+    for stored, name in (("expected_ac_modelled_w", "ac_modelled_w"),
+                         ("potential_ac_modelled_w", "ac_potential_modelled_w"),
+                         ("temp_cell_modelled_c", "temp_cell_modelled_c")):
+        assert_allclose(df[stored], pure[name], rtol=1e-12)
     inv1, inv2 = df.loc["INV1"], df.loc["INV2"]
     assert (inv1["poa_source"][inv1["poa_wm2"] > 100] == "sensor").all()
     noon = inv1.index.hour == 11
@@ -122,6 +129,22 @@ def test_aligned_carries_the_modelled_poa_expected_power(tmp_path):
     for col in ("expected_ac", "potential_ac"):
         assert_allclose(inv2.loc[same, f"{col}_modelled_w"], inv2.loc[same, f"{col}_w"], rtol=0,
                         atol=0)
+
+
+def test_inverter_readings_without_weather_are_aligned_alone(tmp_path):
+    # Invented truth: a third day of INV1's AC power, in a file of its own, with no site
+    # weather logged that day. Its rows (a piece of the model with no weather at all) carry the
+    # measured power and no expected power (nothing to model it from).
+    site, con = _stored_site(tmp_path)
+    model.run(con, site)
+    day3 = pd.date_range("2024-07-02", periods=96, freq="15min", tz="UTC")
+    store(con, pd.DataFrame({"ac_power_w": 500.0}, index=day3), "INV1", 2)
+    assert model.run(con, site)["rows"] == 0
+    df = align.load_aligned(con, site).set_index(["inverter_id", "ts"])
+    alone = df.loc["INV1"].loc[day3]
+    assert (alone["measured_ac_w"] == 500.0).all()
+    assert alone["expected_ac_w"].isna().all() and (alone["interval_s"] == 900).all()
+    assert df.loc["INV1"]["expected_ac_w"].notna().sum() == 2 * 96
 
 
 def test_load_aligned_bounds(tmp_path):
