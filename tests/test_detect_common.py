@@ -214,6 +214,19 @@ def test_shift_z_known_answer():
     assert baseline.shift_z(y, 100, 110, 0.02) < baseline.shift_z(x, 100, 110, 0.02)
 
 
+def test_shift_z_needs_three_months_outside_the_period():
+    # from the definition: the model's slow error is read on the 30-day blocks outside the
+    # period; a period that leaves two of them (a reference window in the best season, the
+    # rest of a one-year record flagged) has nothing to be judged against, whatever its size
+    x = pd.Series(0.0, index=pd.date_range("2024-01-01", periods=365, freq="D"))
+    x.iloc[60:] = -0.08
+    assert np.isnan(baseline.shift_z(x, 60, 365, 0.02))
+    # three blocks outside, all at the centre: judged, far beyond the reporting level
+    y = pd.Series(0.0, index=x.index)
+    y.iloc[90:] = -0.08
+    assert baseline.shift_z(y, 90, 365, 0.02) > 3
+
+
 def test_shift_z_reads_the_monthly_spread_against_student_t():
     # reference: Student's t table, t(0.99, 10 df) = 2.764, and the normal table,
     # z(0.99) = 2.326 (NIST/SEMATECH e-Handbook of Statistical Methods, 1.3.6.7.2 and

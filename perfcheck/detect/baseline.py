@@ -44,7 +44,9 @@ mean of a period of a zero-mean slow error has a variance of at most that of its
 (a mean of positively correlated values varies no more than one of them); resting on a few
 months, the ratio is read against Student's t. The attribution reports a period only when
 its normal-equivalent z >= 3 (one-sided 0.13 %). A season with no interval of measurable
-light (a high-latitude winter) has no level to judge, and no period in it is reported.
+light (a high-latitude winter) has no level to judge, and no period in it is reported; nor
+is a period that leaves fewer than three months of the record outside it (nothing to judge it
+against: its shortfall stays in what the detectors leave unexplained).
 
 References
 ----------
@@ -192,10 +194,13 @@ def shift_z(x: pd.Series, a: int, b: int, sigma_lr: float, block_days: int = 30,
     errors, as the standard normal quantile of its one-sided probability: t = -mean /
     sqrt(v_n + v_m), v_n = sigma_LR^2 / n with n the period's days with a value, v_m = s_m^2
     the mean square, about the centre 0, of the means of the K consecutive ``block_days``
-    blocks of the days outside the period (blocks with at least ``min_days`` of them; v_m = 0
-    with fewer than three blocks). v_m rests on K values only: t is read against Student's t
-    with Welch-Satterthwaite's degrees of freedom K (1 + v_n / v_m)^2 (sigma_LR, from hundreds
-    of days, taken as known), a normal where v_m = 0. NaN without a value in the period.
+    blocks of the days outside the period (blocks with at least ``min_days`` of them). v_m
+    rests on K values only: t is read against Student's t with Welch-Satterthwaite's degrees
+    of freedom K (1 + v_n / v_m)^2 (sigma_LR, from hundreds of days, taken as known), a normal
+    where v_m = 0. NaN without a value in the period, and NaN with fewer than three blocks
+    outside it: a period that takes nearly the whole record leaves nothing to tell how far the
+    model's slow error carries the level, and taking that error as none would make a season
+    the model handles worse (or a reference window in its best season) a certain shortfall.
 
     References
     ----------
@@ -214,7 +219,9 @@ def shift_z(x: pd.Series, a: int, b: int, sigma_lr: float, block_days: int = 30,
         block = ((out.index - x.index[0]).days // block_days).to_numpy()
         g = out.groupby(block)
         means = g.mean()[g.count() >= min_days].to_numpy()
-    v_m = float(np.mean(means**2)) if len(means) >= 3 else 0.0
+    if len(means) < 3:
+        return float("nan")
+    v_m = float(np.mean(means**2))
     v_n = (sigma_lr if math.isfinite(sigma_lr) else 0.0) ** 2 / len(inside)
     if not v_n + v_m > 0:
         return math.inf
