@@ -117,11 +117,11 @@ ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS e_delivered_wh DOUBLE DEFAUL
 ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS e_rec_inv_wh DOUBLE DEFAULT 0;
 ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS e_rec_meter_wh DOUBLE DEFAULT 0;
 -- The modelled irradiance's sensitivity to the decomposition's DNI, summed like h_whm2 over the
--- used rows without the sensor's reading [Wh/m2] (expected.poa_dni_sensitivity_wm2; 0 in the
+-- used rows without the sensor's reading [Wh/m2] (aligned_base.poa_dni_sensitivity_wm2; 0 in the
 -- analyses stored before it).
 ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS h_dni_whm2 DOUBLE DEFAULT 0;
 -- The modelled irradiance's range over the beam cut at low sun, summed the same way [Wh/m2]
--- (expected.poa_beam_range_wm2; 0 in the analyses stored before it).
+-- (aligned_base.poa_beam_range_wm2; 0 in the analyses stored before it).
 ALTER TABLE analysis_daily ADD COLUMN IF NOT EXISTS h_beam_whm2 DOUBLE DEFAULT 0;
 
 -- Which earlier findings a new analysis changed, and why.
