@@ -44,6 +44,13 @@ Choices (all from the site file, ``[model]`` and ``[losses]``):
 * Incidence-angle losses apply to modelled irradiance and to a pyranometer's reading (scaled by
   the modelled ratio of effective to total POA); a reference cell's reading is taken as the
   effective irradiance.
+* What the module's datasheet states about its response, per array: its cell technology
+  (``technology``) scales the effective irradiance by that technology's spectral factor at the
+  interval's air mass and the site's precipitable water (Lee & Panchula 2016; a reference
+  cell's reading by the module's factor over a silicon cell's, :func:`spectral_factors`), and
+  its efficiency loss at 200 W/m^2 (``low_light_loss_pct``) sets a logarithmic fall of the
+  efficiency below 1000 W/m^2 (:func:`perfcheck.physics.relative_efficiency_low_light`). Neither
+  stated: neither applies (the linear model of Dobos 2014 alone).
 * Cell temperature: a logged back-of-module temperature applies to every array (the site
   file maps one per site); intervals without it, and sites without one, use the site's
   ``temperature_model`` (SAPM by mounting and construction, or Faiman) from ambient
@@ -81,7 +88,7 @@ from perfcheck.versions import versions
 pvlib = lazy_package("pvlib", PVLIB_WITH_INIT)
 
 # Bump when a change of the code changes the expected series: cached runs are then not reused.
-MODEL_VERSION = "10"
+MODEL_VERSION = "11"
 DEFAULT_WIND_SPEED = 1.0  # [m/s] where no wind is logged (common practice, no source)
 WIND_GAP_BRIDGED_S = 3600  # wind gaps up to this long are interpolated (common practice)
 PLANE_TOLERANCE_DEG = 1.0  # an array is "in the sensor's plane" within this tilt/azimuth
@@ -450,6 +457,23 @@ def array_temperature(array: Array, poa_global: pd.Series, weather: pd.DataFrame
                                array.construction, site.model.temperature_model, measured)
 
 
+def spectral_factors(array: Array, sun: pd.DataFrame, irr: pd.DataFrame, site: Site
+                     ) -> tuple[pd.Series | float, pd.Series | float]:
+    """The array's spectral factor [-] for the irradiance used and for the modelled one
+    (:func:`perfcheck.physics.spectral_factor_lee_panchula`); 1 where the site file names no
+    cell technology. A reference cell's reading already holds its own cell's response to the
+    spectrum: where the irradiance used is (or is carried from) such a reading, the factor is
+    the module's relative to a monocrystalline silicon cell's, the usual reference cell."""
+    if array.technology is None:
+        return 1.0, 1.0
+    am, w = sun["airmass_absolute"], site.model.precipitable_water_cm
+    f = ph.spectral_factor_lee_panchula(am, array.technology, w)
+    if site.model.poa_sensor_kind != "reference_cell":
+        return f, f
+    read = irr["from_sensor"] | irr["translated"]
+    return f.where(~read, f / ph.spectral_factor_lee_panchula(am, "mono_si", w)), f
+
+
 def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: pd.DataFrame,
                 site: Site, source: str, loss_factor: np.ndarray,
                 planes: dict[tuple, tuple[pd.DataFrame, pd.Series, pd.Series | None]],
@@ -478,9 +502,14 @@ def inverter_dc(inv: Inverter, sun: pd.DataFrame, comps: pd.DataFrame, weather: 
             planes[key] = irr, temp_cell, temp_modelled
         irr, temp_cell, temp_modelled = planes[key]
         pdc0, gamma = array.dc_kwp * 1000.0, array.gamma_pct_per_c / 100.0
-        dc = ph.dc_power(irr["poa_effective"], temp_cell, pdc0, gamma, loss_factor)
+        spectral, spectral_modelled = spectral_factors(array, sun, irr, site)
+        dc = ph.dc_power(ph.stc_equivalent_irradiance(irr["poa_effective"], spectral,
+                                                      array.low_light_loss_pct),
+                         temp_cell, pdc0, gamma, loss_factor)
         dc_modelled = dc if temp_modelled is None else ph.dc_power(
-            irr["poa_effective_modelled"], temp_modelled, pdc0, gamma, loss_factor)
+            ph.stc_equivalent_irradiance(irr["poa_effective_modelled"], spectral_modelled,
+                                         array.low_light_loss_pct),
+            temp_modelled, pdc0, gamma, loss_factor)
         w = array.dc_kwp / total
         frame = pd.DataFrame({
             "poa_global": irr["poa_global"] * w,

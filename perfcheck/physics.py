@@ -1,7 +1,8 @@
 """Physics of the expected series: small pure functions over pandas objects.
 
 Sun position, irradiance in the plane of an array (decomposition, transposition, horizon,
-incidence-angle losses), cell temperature, DC and AC power, clear-sky irradiance. Quantities
+incidence-angle losses), cell temperature, the module's spectral and low-light response, DC
+and AC power, clear-sky irradiance. Quantities
 carry pvlib's names (``ghi``, ``dni``, ``dhi``, ``poa_global``, ``temp_air``, ``temp_cell``,
 ``wind_speed``, ``surface_tilt``, ``surface_azimuth``, ``pdc0``, ``gamma_pdc``); every input is a
 Series or DataFrame on a UTC DatetimeIndex (or a scalar), NaN passes through, nothing prints.
@@ -1322,6 +1323,86 @@ def dc_power(effective_irradiance: pd.Series, temp_cell: pd.Series, pdc0: float,
     """
     return pdc0 * effective_irradiance / 1000.0 * (1.0 + gamma_pdc * (temp_cell - 25.0)) \
         * loss_factor
+
+
+# cell technologies with a spectral correction: the site file's name -> pvlib's module type
+SPECTRAL_TECHNOLOGIES = {"mono_si": "monosi", "multi_si": "multisi", "cdte": "cdte",
+                         "cigs": "cigs", "a_si": "asi"}
+# precipitable water of the reference spectrum, ASTM G173-03 (1.42 cm)
+REFERENCE_PRECIPITABLE_WATER_CM = 1.42
+LOW_LIGHT_IRRADIANCE = 200.0  # [W/m^2] where a datasheet states the low-light efficiency
+
+
+def spectral_factor_lee_panchula(airmass_absolute: pd.Series, technology: str,
+                                 precipitable_water: float = REFERENCE_PRECIPITABLE_WATER_CM
+                                 ) -> pd.Series:
+    """Spectral factor of a cell technology against the AM1.5 reference spectrum [-].
+
+    M = c0 + c1 AMa + c2 W + c3 sqrt(AMa) + c4 sqrt(W) + c5 AMa/sqrt(W), with the technology's
+    coefficients (pvlib's ``spectral_factor_firstsolar``, air mass limited to 10); 1 where the
+    sun is down (air mass NaN).
+
+    Parameters
+    ----------
+    airmass_absolute : pandas.Series
+        Pressure-corrected air mass [-].
+    technology : str
+        A key of :data:`SPECTRAL_TECHNOLOGIES`.
+    precipitable_water : float
+        Atmospheric precipitable water [cm].
+
+    References
+    ----------
+    Lee, M., Panchula, A. (2016). Spectral correction for photovoltaic module performance based
+    on air mass and precipitable water. Proc. 43rd IEEE PVSC, 1351-1356.
+    """
+    am = airmass_absolute.to_numpy(dtype=float)
+    day = np.isfinite(am)
+    out = np.ones(len(am))
+    if day.any():
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # pvlib warns when it limits the air mass
+            out[day] = pvlib.spectrum.spectral_factor_firstsolar(
+                np.full(int(day.sum()), precipitable_water), am[day],
+                SPECTRAL_TECHNOLOGIES[technology])
+    return pd.Series(out, index=airmass_absolute.index)
+
+
+def relative_efficiency_low_light(effective_irradiance: pd.Series, low_light_loss_pct: float
+                                  ) -> pd.Series:
+    """Module efficiency relative to its value at 1000 W/m^2 [-], logarithmic in irradiance.
+
+    eta_rel = 1 + k ln(G/1000), k = (L/100)/ln(1000/200), so that the efficiency at 200 W/m^2
+    is L percent below its STC value (the figure module datasheets state, EN 50380); 1 at and
+    above 1000 W/m^2, never below 0.
+
+    Parameters
+    ----------
+    effective_irradiance : pandas.Series
+        Irradiance reaching the cells [W/m^2].
+    low_light_loss_pct : float
+        Relative efficiency loss at 200 W/m^2 and 25 C [%].
+
+    References
+    ----------
+    Evans, D. L. (1981). Simplified method for predicting photovoltaic array output. Solar
+    Energy 27(6), 555-560 (the logarithmic irradiance term; from memory).
+    """
+    k = low_light_loss_pct / 100.0 / math.log(1000.0 / LOW_LIGHT_IRRADIANCE)
+    g = effective_irradiance.clip(lower=1e-9, upper=1000.0)
+    return (1.0 + k * np.log(g / 1000.0)).clip(lower=0.0)
+
+
+def stc_equivalent_irradiance(effective_irradiance: pd.Series, spectral_factor: pd.Series | float,
+                              low_light_loss_pct: float) -> pd.Series:
+    """The irradiance at which the module, at its STC efficiency, makes the power it makes
+    under ``effective_irradiance`` [W/m^2]: the spectral factor, then the relative
+    efficiency at the irradiance that reaches the cells (:func:`relative_efficiency_low_light`).
+    """
+    g = effective_irradiance * spectral_factor
+    if low_light_loss_pct == 0:
+        return g
+    return g * relative_efficiency_low_light(g, low_light_loss_pct)
 
 
 def part_load_efficiency(pdc: pd.Series | np.ndarray, pdc0: float, eta_inv_nom: float,

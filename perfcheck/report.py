@@ -44,7 +44,10 @@ METHODS: list[tuple[str, str]] = [
      "Dierauf et al. 2013, NREL/TP-5200-57991"),
     ("Energy performance index EPI = measured / expected energy",
      "expected energy from the site model: Perez et al. 1990 transposition, SAPM cell temperature "
-     "(King et al. 2004, SAND2004-3535), Dobos 2014 DC and inverter models"),
+     "(King et al. 2004, SAND2004-3535), Dobos 2014 DC and inverter models; where the site "
+     "file states the modules' cell technology, its spectral factor at the sun's air mass "
+     "(Lee & Panchula 2016), and where it states their efficiency at 200 W/m2, an efficiency "
+     "falling with the logarithm of the irradiance through that point (Evans 1981)"),
     ("Availability, time- and energy-based", "IEC TS 63019:2019"),  # clause from memory
     ("Intervals on PR and EPI", "day-block bootstrap (whole days resampled, seeded) plus the "
      "irradiance sensor's stated uncertainty (IEC 61724-1 sensor class); where the irradiance "

@@ -51,6 +51,8 @@ STATES = ("running", "stopped by the grid", "stopped by a fault", "derated", "ma
 
 MOUNTINGS = ("open_rack", "close_roof", "insulated_back")
 CONSTRUCTIONS = ("glass_glass", "glass_polymer")
+# cell technologies the model has a spectral correction for (perfcheck.physics)
+CELL_TECHNOLOGIES = ("mono_si", "multi_si", "cdte", "cigs", "a_si")
 DECOMPOSITIONS = ("disc", "erbs", "boland")
 TRANSPOSITIONS = ("perez", "haydavies", "isotropic")
 TEMPERATURE_MODELS = ("sapm", "faiman")
@@ -104,6 +106,8 @@ class Array:
     gcr: float | None = None  # ground coverage ratio (trackers and bifacial rows)
     tracker: Tracker | None = None  # None: fixed
     bifacial: Bifacial | None = None  # None: monofacial
+    technology: str | None = None  # cell technology (CELL_TECHNOLOGIES); None: no spectral term
+    low_light_loss_pct: float = 0.0  # efficiency at 200 W/m^2 below its STC value [%]
 
 
 @dataclass(frozen=True)
@@ -162,6 +166,7 @@ class Model:
     poa_uncertainty_pct: float | None = None  # default from the sensor class
     sensor_class: str = "A"
     sensor_stability_pct_per_year: float | None = None  # default from the sensor class
+    precipitable_water_cm: float = 1.42  # for the spectral term: the reference spectrum's
 
 
 @dataclass(frozen=True)
@@ -449,6 +454,8 @@ def _array(t: Table, albedo: float, horizon: tuple) -> Array:
         gcr=gcr,
         tracker=tracker,
         bifacial=None if bifaciality is None else _bifacial(t, bifaciality),
+        technology=t.get("technology", str, None, CELL_TECHNOLOGIES),
+        low_light_loss_pct=t.number("low_light_loss_pct", 0.0, lo=0, hi=50),
     )
     if a.strings < 1:
         raise t._err("strings", "expected at least 1")
@@ -736,6 +743,7 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         sensor_class=mt.get("sensor_class", str, "A", ("A", "B", "C")),
         sensor_stability_pct_per_year=mt.number("sensor_stability_pct_per_year", None, lo=0,
                                                 hi=20),
+        precipitable_water_cm=mt.number("precipitable_water_cm", 1.42, lo=0.1, hi=8),
     )
     mt.done()
 

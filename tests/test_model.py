@@ -44,6 +44,56 @@ def test_stc_sanity_through_the_chain(tmp_path):
     assert out.loc["INV2", "poa_source"] == "model"
 
 
+def _with_module(tmp_path, keys: str, model_keys: str = ""):
+    """The test site with ``keys`` added to INV1's array."""
+    make_site(tmp_path, model=model_keys)  # writes site.toml
+    path = tmp_path / "site.toml"
+    path.write_text(path.read_text().replace('construction = "glass_glass"\n',
+                                             f'construction = "glass_glass"\n{keys}\n', 1))
+    return load_site(path)
+
+
+def test_cell_technology_and_low_light_scale_the_dc_power(tmp_path):
+    # The same GHI hour at low sun, with and without what the module's datasheet states: the
+    # DC power scales by the technology's spectral factor (Lee & Panchula 2016) at the hour's
+    # air mass, then by the low-light efficiency at the irradiance reaching the cells.
+    idx = pd.DatetimeIndex([pd.Timestamp("2024-12-15 08:00", tz="UTC")])
+    w = _weather(idx, ghi=150.0, temp_air=0.0, wind_speed=1.0, poa_sensor=np.nan,
+                 temp_module=np.nan)
+    plain = make_site(tmp_path)
+    sun = model.site_sun(idx, plain, 900)
+    base = model.expected_power(w, sun, plain).set_index("inverter_id")
+    site = _with_module(tmp_path, 'technology = "cdte"\nlow_light_loss_pct = 5.0')
+    out = model.expected_power(w, model.site_sun(idx, site, 900), site).set_index("inverter_id")
+    f = ph.spectral_factor_lee_panchula(sun["airmass_absolute"], "cdte").iloc[0]
+    assert sun["airmass_absolute"].iloc[0] > 3 and f < 0.99
+    g = base.loc["INV1", "poa_effective_wm2"] * f
+    eta = ph.relative_efficiency_low_light(pd.Series([g]), 5.0).iloc[0]
+    assert_allclose(out.loc["INV1", "dc_w"], base.loc["INV1", "dc_w"] * f * eta, rtol=1e-9)
+    assert_allclose(out.loc["INV2", "dc_w"], base.loc["INV2", "dc_w"], rtol=1e-12)  # unstated
+
+
+def test_reference_cell_reading_takes_the_spectral_factor_against_silicon(tmp_path):
+    # A reference cell (crystalline silicon) already reads the spectrum as silicon sees it: a
+    # monocrystalline module under it takes no spectral factor, a CdTe module the ratio of
+    # the two technologies' factors (Lee & Panchula 2016).
+    idx = pd.DatetimeIndex([pd.Timestamp("2024-12-15 08:00", tz="UTC")])
+    w = _weather(idx, poa_sensor=300.0, temp_module=5.0, temp_air=0.0, wind_speed=1.0,
+                 ghi=np.nan)
+    refcell = 'irradiance_source = "poa_sensor"\npoa_sensor_kind = "reference_cell"'
+    dc = {}
+    for tech in (None, "mono_si", "cdte"):
+        site = _with_module(tmp_path, "" if tech is None else f'technology = "{tech}"', refcell)
+        sun = model.site_sun(idx, site, 900)
+        dc[tech] = model.expected_power(w, sun, site).set_index("inverter_id").loc["INV1", "dc_w"]
+    am = sun["airmass_absolute"]
+    ratio = (ph.spectral_factor_lee_panchula(am, "cdte")
+             / ph.spectral_factor_lee_panchula(am, "mono_si")).iloc[0]
+    assert_allclose(dc["mono_si"], dc[None], rtol=1e-12)
+    assert_allclose(dc["cdte"], dc[None] * ratio, rtol=1e-9)
+    assert ratio < 0.97
+
+
 def test_source_errors_name_the_key(tmp_path):
     site = make_site(tmp_path, model='irradiance_source = "poa_sensor"')
     idx = pd.date_range("2024-06-01 10:00", periods=2, freq="15min", tz="UTC")

@@ -58,6 +58,11 @@ def _edit(site, old, new):
          "site.module_age_years_at_first_data: -1.0 is outside the range 0 to 60"),
         ("strings = 2", "strings = 2.5",
          "inverters[0].arrays[0].strings: expected an integer, got float 2.5"),
+        ("strings = 2", 'strings = 2\ntechnology = "perovskite"',
+         "inverters[0].arrays[0].technology: 'perovskite' is not one of 'mono_si', 'multi_si', "
+         "'cdte', 'cigs', 'a_si'"),
+        ("strings = 2", "strings = 2\nlow_light_loss_pct = -3",
+         "inverters[0].arrays[0].low_light_loss_pct: -3.0 is outside the range 0 to 50"),
         ('unit = "kW"', 'unit = "kV"',
          "loggers[0].columns[0].unit: unit 'kV' not recognised for ac_power (use one of W, kW, "
          "MW)"),
