@@ -42,6 +42,9 @@ LEAD_DAYS = 45  # no fault in the first days: the detectors' reference window (c
 # SAPM spectral coefficients A0..A4 of two module technologies, from the Sandia module
 # database that pvlib ships (sam-library-sandia-modules-2015-6-30.csv).
 SPECTRAL_MODULES = ("Canadian_Solar_CS5P_220M___2009_", "First_Solar_FS_272___2009_")
+# the cell technology each one's datasheet states, as the site file names it
+MODULE_TECHNOLOGY = {"Canadian_Solar_CS5P_220M___2009_": "mono_si",
+                     "First_Solar_FS_272___2009_": "cdte"}
 
 
 @dataclass(frozen=True)

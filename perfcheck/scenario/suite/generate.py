@@ -37,12 +37,12 @@ from perfcheck.scenario.plant import (
 from perfcheck.scenario.sitefile import METER_AC_LOSS_PCT
 from perfcheck.scenario.suite import physics as truth_physics
 from perfcheck.scenario.suite.climate import climate, make_weather, read_typical_year
-from perfcheck.scenario.suite.design import PlantSpec, draw_plant
+from perfcheck.scenario.suite.design import MODULE_TECHNOLOGY, PlantSpec, draw_plant
 from perfcheck.scenario.truth import energy_truth
 from perfcheck.scenario.weather import Weather
 from perfcheck.site import Site, load_site
 
-GENERATOR_VERSION = "1"
+GENERATOR_VERSION = "2"
 MAIN_LOGGER = "dl"
 STATION = "met"
 SITE_MISMATCH_PCT = 1.0  # what every suite site file states
@@ -67,7 +67,8 @@ def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str,
         for a in inv.arrays:
             lines += ["  [[inverters.arrays]]", f"  dc_kwp = {a.dc_kwp}",
                       *_plane_keys(spec, a, stow_ms),
-                      f"  gamma_pct_per_c = {a.gamma_pct_per_c}", '  mounting = "open_rack"',
+                      f"  gamma_pct_per_c = {a.gamma_pct_per_c}", *_module_keys(spec),
+                      '  mounting = "open_rack"',
                       '  construction = "glass_polymer"', f"  strings = {a.strings}", ""]
     first = spec.inverters[0].arrays[0]
     lines += ["[losses]", "wiring_pct = 1.5", f"mismatch_pct = {SITE_MISMATCH_PCT}",
@@ -102,6 +103,15 @@ def site_text(spec: PlantSpec, lat: float, lon: float, alt: float, tz: str,
         lines += ["  [[loggers.columns]]", f'  name = "{name}"', f'  quantity = "{q}"',
                   f'  unit = "{unit}"', ""]
     return "\n".join(lines)
+
+
+def _module_keys(spec: PlantSpec) -> list[str]:
+    """What the module's datasheet states: its cell technology, and how far its efficiency at
+    200 W/m^2 (and 25 C) falls below its STC value [%], read off the plant's true curve."""
+    p = spec.physics
+    eta = truth_physics.relative_efficiency_adr(200.0, p.adr_k_d, p.adr_k_rs, p.adr_k_rsh)
+    return [f'  technology = "{MODULE_TECHNOLOGY[p.spectral_module]}"',
+            f"  low_light_loss_pct = {round(100.0 * (1.0 - float(eta)), 1)}"]
 
 
 def _plane_keys(spec: PlantSpec, a: Any, stow_ms: float | None) -> list[str]:
