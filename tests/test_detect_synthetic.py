@@ -701,3 +701,27 @@ def test_output_under_a_twentieth_of_expected_but_above_nothing_is_no_outage():
     df.loc[hours, "measured_ac_w"] = 0.0
     w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
     assert one(outage.detect(w, 0.03)[0], "outage").scope == "inverter:INV1"
+
+
+def test_a_silent_day_in_dim_light_is_an_outage():
+    # Invented truth: 12 kWp on 150 kW inverters, so the model never expects a tenth of the
+    # rating (as on a winter day at a high latitude) and no interval is judged; INV2 gives
+    # nothing for a whole day while INV1 delivers what is expected: INV2 was out that day.
+    # With INV1 itself down to 40 % (under half its expected energy) the day's light is not
+    # shown, and nothing is reported.
+    site = make_site(n_inverters=2, ac_kw=150.0)
+    out = {"kind": "outage", "inverter": "INV2", "start": "2024-04-20 00:00",
+           "end": "2024-04-21 00:00"}
+    dim = {"kind": "partial", "inverter": "INV1", "start": "2024-04-19 00:00",
+           "end": "2024-04-22 00:00", "share": 0.6}
+    for faults, found in (([out], True), ([out, dim], False)):
+        df = make_aligned(site, start="2024-04-15", days=10, seed=5, faults=faults)
+        w = common.wide(df, {i.id: i.ac_kw * 1000 for i in site.inverters}, None, site.tz)
+        assert (w.expected.max() < 0.1 * w.ac_w).all()
+        events = [e for e in outage.detect(w, 0.03)[0] if e.kind == "outage"]
+        assert bool(events) == found
+        if found:
+            (ev,) = events
+            assert ev.scope == "inverter:INV2"
+            assert local("2024-04-20 05:00") <= ev.start <= local("2024-04-20 09:00")
+            assert local("2024-04-20 16:00") <= ev.end <= local("2024-04-20 21:00")

@@ -20,8 +20,12 @@ intervals may bridge the night and unjudged low-light intervals, never a produci
 is widened to the neighbouring low-light intervals where the inverter produced nothing, so
 start and end sit on the interval; an inverter's run is widened over the night to a whole
 dim day next to it (no interval of it judged producing) on which it produced nothing while a
-sibling produced at least ``near_zero`` of its expected energy (the same test, on the day). Runs
-shorter than ``min_minutes`` are ignored.
+sibling produced at least ``near_zero`` of its expected energy (the same test, on the day). A
+whole day on which an inverter produced nothing while a sibling delivered at least half its
+expected energy (``SIBLING_LIT``: the light was there) is out however low the sun stood: its
+intervals where the model expects at least 5 % of the rating (the detectors' daylight) are
+judged out, as on a winter day at a high latitude where the model never expects a tenth of the
+rating. Runs shorter than ``min_minutes`` are ignored.
 These limits are common practice (no published source). A plant of one inverter reports its
 stops on that inverter (the device that stopped). The energy and its band here are the
 whole shortfall's; the ledger counts it against the inverter's local level
@@ -33,11 +37,15 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from perfcheck.detect.common import Event, Wide, energy_band, runs, scope_of
+from perfcheck.detect.common import Event, Wide, daylight, energy_band, runs, scope_of
 
 METHOD = ("interval state: measured/expected below 5 % and measured below 1 % of rating, with "
-          "at least 10 % of rating expected and the sun above 10 deg; siblings producing "
+          "at least 10 % of rating expected and the sun above 10 deg, or a whole day without "
+          "output while a sibling delivered half its expected energy; siblings producing "
           "(inverter) or all stopped (plant); common practice")
+# a sibling that delivered at least this share of its expected energy on a day shows the light
+# was there (common practice)
+SIBLING_LIT = 0.5
 
 
 def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
@@ -59,11 +67,11 @@ def states(w: Wide, min_expected_share: float = 0.10, near_zero: float = 0.05,
     return state, nothing
 
 
-def silent_days(w: Wide, state: pd.DataFrame, nothing: pd.DataFrame, near_zero: float = 0.05
+def silent_days(w: Wide, state: pd.DataFrame, nothing: pd.DataFrame, sibling_share: float = 0.05
                 ) -> pd.DataFrame:
     """Per interval and inverter: its day is one on which the inverter produced nothing on
     every interval with expected power, none was judged producing, and a sibling delivered at
-    least ``near_zero`` of its expected energy (an inverter alone: never)."""
+    least ``sibling_share`` of its expected energy (an inverter alone: never)."""
     days = w.day.to_numpy()
     lit = w.expected.gt(0)
     dark = (nothing | ~lit).groupby(days).all() & lit.groupby(days).any() & (
@@ -74,7 +82,7 @@ def silent_days(w: Wide, state: pd.DataFrame, nothing: pd.DataFrame, near_zero: 
     for inv in w.inverters:
         others = ratio.drop(columns=inv)
         if others.shape[1]:
-            out[inv] = dark[inv] & others.ge(near_zero).any(axis=1)
+            out[inv] = dark[inv] & others.ge(sibling_share).any(axis=1)
     return out.reindex(days).set_axis(w.index)
 
 
@@ -191,8 +199,10 @@ def detect(w: Wide, rel_sigma: float, min_minutes: float = 15.0,
     mask.loc[pm, :] = True
     if len(ids) > 1:
         quiet = silent_days(w, state, nothing, kw.get("near_zero", 0.05)).to_numpy()
+        off = silent_days(w, state, nothing, SIBLING_LIT).to_numpy() & no & daylight(w).to_numpy()
         for j, inv in enumerate(ids):
             s = st[:, j].copy()
+            s[off[:, j] & (s == -1)] = 1  # a silent day in the light: out however low the sun
             s[pm & (s == 1)] = -1  # already part of a plant stop
             ev, im = _events_for(s, no[:, j], w, [inv], scope_of(inv), min_minutes, rel_sigma,
                                  quiet[:, j] & ~pm)
