@@ -3,9 +3,12 @@
 -- Two valid candidates: the repeated hour when clocks go back. Its lines are read with the
 -- summer offset until the wall clock steps back within that hour (order of lines), then with
 -- the winter offset. No valid candidate: the wall time was skipped when clocks went forward;
--- the line is quarantined, never shifted. In a tall file each device's lines are ordered apart
--- (dev: the row's device; NULL in a wide file). Times are microseconds since 1970 (wall times as if
--- they were UTC); only timezone() consults the zone rules.
+-- the line is quarantined, never shifted. A tall file (dev: the row's device; NULL in a wide
+-- file) written device by device, each device's lines of the repeated hour in one block, has
+-- each device's lines ordered apart; one whose devices' lines interleave there is ordered in
+-- time as a whole, so a device seen only in the second pass (its first-pass values missing) is
+-- read in it. Times are microseconds since 1970 (wall times as if they were UTC); only
+-- timezone() consults the zone rules.
 local_wall AS (
     SELECT *, epoch_us(naive) AS wall
     FROM (SELECT *, wall_clock(time_text, $time_format) AS naive FROM typed)
@@ -26,19 +29,33 @@ local_ok AS (
                AS ok_after
     FROM local_cand
 ),
+local_amb AS (
+    SELECT *, ok_before AND ok_after AND cand_before <> cand_after AS ambiguous
+    FROM local_ok
+),
+local_pass AS (
+    -- the repeated hour's lines change device more often than there are devices: interleaved
+    SELECT *,
+           CASE WHEN (SELECT count(*) FILTER (WHERE dev IS DISTINCT FROM prev)
+                             > count(DISTINCT dev)
+                      FROM (SELECT dev, lag(dev) OVER (ORDER BY line) AS prev
+                            FROM local_amb WHERE ambiguous))
+                THEN NULL ELSE dev END AS pass_dev
+    FROM local_amb
+),
 local_step AS (
     SELECT *,
            coalesce(naive < lag(naive) OVER w, false) AS stepped_back
-    FROM (SELECT *, ok_before AND ok_after AND cand_before <> cand_after AS ambiguous
-          FROM local_ok)
-    WINDOW w AS (PARTITION BY CASE WHEN ambiguous THEN naive::DATE END, dev ORDER BY line)
+    FROM local_pass
+    WINDOW w AS (PARTITION BY CASE WHEN ambiguous THEN naive::DATE END, pass_dev ORDER BY line)
 ),
 timed AS (
     SELECT *,
            make_timestamptz(
                CASE WHEN ambiguous THEN
                         CASE WHEN sum(stepped_back::INTEGER) OVER (
-                                      PARTITION BY CASE WHEN ambiguous THEN naive::DATE END, dev
+                                      PARTITION BY CASE WHEN ambiguous THEN naive::DATE END,
+                                                   pass_dev
                                       ORDER BY line) > 0
                              THEN greatest(cand_before, cand_after)
                              ELSE least(cand_before, cand_after) END

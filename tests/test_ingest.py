@@ -763,6 +763,37 @@ def test_tall_export_one_row_per_time_and_device(tmp_path):
     assert (res2.rows_loaded, res2.rows_duplicate, res2.rows_quarantined) == (2, 2, 0)
 
 
+def test_tall_local_times_of_the_repeated_hour_by_device_or_by_file(tmp_path):
+    # Directive 2000/84/EC, art. 2-3: in Europe/Berlin local 02:00-02:59 of 27 October 2024
+    # repeats, UTC+2 then UTC+1 (summer time ends at 01:00 UTC). Invented tall exports:
+    # written device by device, each device's lines step back on their own; written in time
+    # order with WR 2's first-pass values missing, WR 2's one line comes after the file has
+    # stepped back, so it is read in the second pass.
+    local = TALL.replace('kind = "utc"', 'kind = "local"')
+    passes = [utc(2024, 10, 27, 0, 0), utc(2024, 10, 27, 0, 30), utc(2024, 10, 27, 1, 0),
+              utc(2024, 10, 27, 1, 30)]
+    blocked = "ts,Device,P,G\n" + "".join(
+        f"2024-10-27 {t},{dev},{p + k},\n" for dev, p in (("WR 1", 1), ("WR 2", 5))
+        for k, t in enumerate(("02:00", "02:30", "02:00", "02:30")))
+    (tmp_path / "a").mkdir()
+    con, _, (res,) = ingest(tmp_path / "a", blocked, filename="park_10.csv", loggers=local)
+    assert (res.rows_loaded, res.rows_quarantined) == (8, 0)
+    for inv, p in (("INV1", 1), ("INV2", 5)):
+        s = series(con, "ac_power_w", inv)
+        assert list(s.index) == passes
+        assert_allclose(s.to_numpy(), 1000.0 * (p + np.arange(4)))
+    in_time = ("ts,Device,P,G\n2024-10-27 02:00,WR 1,1,\n2024-10-27 02:00,Meteo,,500\n"
+               "2024-10-27 02:30,WR 1,2,\n2024-10-27 02:30,Meteo,,510\n"
+               "2024-10-27 02:00,WR 1,3,\n2024-10-27 02:00,WR 2,5,\n"
+               "2024-10-27 02:00,Meteo,,520\n")
+    (tmp_path / "b").mkdir()
+    con, _, (res,) = ingest(tmp_path / "b", in_time, filename="park_10.csv", loggers=local)
+    assert (res.rows_loaded, res.rows_quarantined) == (7, 0)
+    assert list(series(con, "ac_power_w", "INV2").index) == [passes[2]]
+    assert list(series(con, "ac_power_w", "INV1").index) == passes[:3]
+    assert list(series(con, "poa_wm2", "site").index) == passes[:3]
+
+
 def test_tall_logger_needs_its_devices(tmp_path):
     site_path, _ = write_case(tmp_path, "x\n", filename="park_06.csv",
                               loggers=TALL.replace('"Meteo" = "site"\n', ""))
