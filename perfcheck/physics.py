@@ -1328,14 +1328,11 @@ def dc_power(effective_irradiance: pd.Series, temp_cell: pd.Series, pdc0: float,
 # cell technologies with a spectral correction: the site file's name -> pvlib's module type
 SPECTRAL_TECHNOLOGIES = {"mono_si": "monosi", "multi_si": "multisi", "cdte": "cdte",
                          "cigs": "cigs", "a_si": "asi"}
-# precipitable water of the reference spectrum, ASTM G173-03 (1.42 cm)
-REFERENCE_PRECIPITABLE_WATER_CM = 1.42
 LOW_LIGHT_IRRADIANCE = 200.0  # [W/m^2] where a datasheet states the low-light efficiency
 
 
 def spectral_factor_lee_panchula(airmass_absolute: pd.Series, technology: str,
-                                 precipitable_water: float = REFERENCE_PRECIPITABLE_WATER_CM
-                                 ) -> pd.Series:
+                                 precipitable_water: float) -> pd.Series:
     """Spectral factor of a cell technology against the AM1.5 reference spectrum [-].
 
     M = c0 + c1 AMa + c2 W + c3 sqrt(AMa) + c4 sqrt(W) + c5 AMa/sqrt(W), with the technology's

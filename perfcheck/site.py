@@ -53,6 +53,8 @@ MOUNTINGS = ("open_rack", "close_roof", "insulated_back")
 CONSTRUCTIONS = ("glass_glass", "glass_polymer")
 # cell technologies the model has a spectral correction for (perfcheck.physics)
 CELL_TECHNOLOGIES = ("mono_si", "multi_si", "cdte", "cigs", "a_si")
+# precipitable water of the reference spectrum, ASTM G173-03 [cm]: the spectral term's default
+REFERENCE_PRECIPITABLE_WATER_CM = 1.42
 DECOMPOSITIONS = ("disc", "erbs", "boland")
 TRANSPOSITIONS = ("perez", "haydavies", "isotropic")
 TEMPERATURE_MODELS = ("sapm", "faiman")
@@ -166,7 +168,7 @@ class Model:
     poa_uncertainty_pct: float | None = None  # default from the sensor class
     sensor_class: str = "A"
     sensor_stability_pct_per_year: float | None = None  # default from the sensor class
-    precipitable_water_cm: float = 1.42  # for the spectral term: the reference spectrum's
+    precipitable_water_cm: float = REFERENCE_PRECIPITABLE_WATER_CM  # for the spectral term
 
 
 @dataclass(frozen=True)
@@ -743,7 +745,8 @@ def parse_site(raw: dict[str, Any], path: Path) -> Site:
         sensor_class=mt.get("sensor_class", str, "A", ("A", "B", "C")),
         sensor_stability_pct_per_year=mt.number("sensor_stability_pct_per_year", None, lo=0,
                                                 hi=20),
-        precipitable_water_cm=mt.number("precipitable_water_cm", 1.42, lo=0.1, hi=8),
+        precipitable_water_cm=mt.number("precipitable_water_cm", REFERENCE_PRECIPITABLE_WATER_CM,
+                                        lo=0.1, hi=8),
     )
     mt.done()
 

@@ -15,6 +15,7 @@ from numpy.testing import assert_allclose
 from perfcheck import model
 from perfcheck import physics as ph
 from perfcheck.errors import DataError
+from perfcheck.site import REFERENCE_PRECIPITABLE_WATER_CM as W_REF
 from perfcheck.site import load_site
 
 
@@ -65,7 +66,7 @@ def test_cell_technology_and_low_light_scale_the_dc_power(tmp_path):
     base = model.expected_power(w, sun, plain).set_index("inverter_id")
     site = _with_module(tmp_path, 'technology = "cdte"\nlow_light_loss_pct = 5.0')
     out = model.expected_power(w, model.site_sun(idx, site, 900), site).set_index("inverter_id")
-    f = ph.spectral_factor_lee_panchula(sun["airmass_absolute"], "cdte").iloc[0]
+    f = ph.spectral_factor_lee_panchula(sun["airmass_absolute"], "cdte", W_REF).iloc[0]
     assert sun["airmass_absolute"].iloc[0] > 3 and f < 0.99
     g = base.loc["INV1", "poa_effective_wm2"] * f
     eta = ph.relative_efficiency_low_light(pd.Series([g]), 5.0).iloc[0]
@@ -87,8 +88,8 @@ def test_reference_cell_reading_takes_the_spectral_factor_against_silicon(tmp_pa
         sun = model.site_sun(idx, site, 900)
         dc[tech] = model.expected_power(w, sun, site).set_index("inverter_id").loc["INV1", "dc_w"]
     am = sun["airmass_absolute"]
-    ratio = (ph.spectral_factor_lee_panchula(am, "cdte")
-             / ph.spectral_factor_lee_panchula(am, "mono_si")).iloc[0]
+    ratio = (ph.spectral_factor_lee_panchula(am, "cdte", W_REF)
+             / ph.spectral_factor_lee_panchula(am, "mono_si", W_REF)).iloc[0]
     assert_allclose(dc["mono_si"], dc[None], rtol=1e-12)
     assert_allclose(dc["cdte"], dc[None] * ratio, rtol=1e-9)
     assert ratio < 0.97

@@ -12,6 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from perfcheck import physics as ph
+from perfcheck.site import CELL_TECHNOLOGIES
 
 # --------------------------------------------------------------------------------------------
 # sun position
@@ -625,14 +626,18 @@ def test_dc_at_stc_is_rating_times_losses():
     assert_allclose(p, [9630.0], rtol=1e-12)
 
 
+W_REF = 1.42  # precipitable water of the reference spectrum, ASTM G173-03 [cm]
+
+
 def test_spectral_factor_is_one_at_the_reference_spectrum():
     # Lee & Panchula 2016 normalise each technology's factor to the AM1.5 reference spectrum,
     # ASTM G173-03 (air mass 1.5, precipitable water 1.42 cm): 1 there within 1 % (the fits'
     # residual; the amorphous silicon fit, the loosest, reads 1.023 there); 1 at night (no air
     # mass).
     am = pd.Series([1.5, np.nan])
+    assert list(ph.SPECTRAL_TECHNOLOGIES) == list(CELL_TECHNOLOGIES)  # what a site file names
     for technology in ph.SPECTRAL_TECHNOLOGIES:
-        f = ph.spectral_factor_lee_panchula(am, technology)
+        f = ph.spectral_factor_lee_panchula(am, technology, W_REF)
         assert_allclose(f.iloc[0], 1.0, atol=0.025 if technology == "a_si" else 0.01)
         assert f.iloc[1] == 1.0
 
@@ -648,10 +653,10 @@ def test_spectral_factor_follows_the_sandia_modules_of_its_technology():
     for module, technology in (("First_Solar_FS_272___2009_", "cdte"),
                                ("Canadian_Solar_CS5P_220M___2009_", "mono_si")):
         f1 = pvlib.spectrum.spectral_factor_sapm(am, sandia[module])
-        ours = ph.spectral_factor_lee_panchula(am, technology)
+        ours = ph.spectral_factor_lee_panchula(am, technology, W_REF)
         assert_allclose(ours, f1, rtol=0.03)
-    cdte = ph.spectral_factor_lee_panchula(pd.Series([5.0]), "cdte").iloc[0]
-    mono = ph.spectral_factor_lee_panchula(pd.Series([5.0]), "mono_si").iloc[0]
+    cdte = ph.spectral_factor_lee_panchula(pd.Series([5.0]), "cdte", W_REF).iloc[0]
+    mono = ph.spectral_factor_lee_panchula(pd.Series([5.0]), "mono_si", W_REF).iloc[0]
     assert cdte < 0.97 and mono > 1.02
 
 
