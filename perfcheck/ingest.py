@@ -497,13 +497,17 @@ def _rows_sql(chk: _Checked) -> str:
         any_bad += " OR NOT list_contains($device_names, dev)"
         errors = ("CASE WHEN NOT list_contains($device_names, dev) THEN 'device ''' || dev || "
                   "''' is not in the devices of [[loggers]] ' || $logger_name END, " + errors)
+    time_ctes = db.sql(f"ingest_time_{lg.time.kind}")
+    if lg.time.kind == "local":
+        time_ctes = time_ctes.format(pass_dev=(
+            "dev" if chk.device_position is None else db.sql("ingest_time_local_pass")))
     return db.sql("ingest_rows").format(
         lines=db.sql("ingest_lines"),
         time_text=time_text,
         field_texts=", ".join(texts),
         numbers=", ".join(p[0] for p in parts) + ", dev" + (
             ", point" if chk.point_position is not None else ""),
-        time_ctes=db.sql(f"ingest_time_{lg.time.kind}"),
+        time_ctes=time_ctes,
         values=", ".join(p[1] for p in parts) + tall,
         any_bad=any_bad,
         value_errors=errors,

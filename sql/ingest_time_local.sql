@@ -34,13 +34,9 @@ local_amb AS (
     FROM local_ok
 ),
 local_pass AS (
-    -- the repeated hour's lines change device more often than there are devices: interleaved
-    SELECT *,
-           CASE WHEN (SELECT count(*) FILTER (WHERE dev IS DISTINCT FROM prev)
-                             > count(DISTINCT dev)
-                      FROM (SELECT dev, lag(dev) OVER (ORDER BY line) AS prev
-                            FROM local_amb WHERE ambiguous))
-                THEN NULL ELSE dev END AS pass_dev
+    -- the lines read as one pass: in a tall file as sql/ingest_time_local_pass.sql decides, in
+    -- a wide one all lines (dev is NULL)
+    SELECT *, {pass_dev} AS pass_dev
     FROM local_amb
 ),
 local_step AS (
