@@ -89,6 +89,34 @@ def test_bin_trend_takes_the_place_in_the_bin_apart_from_time():
     assert slope == pytest.approx(0.0, abs=1e-9)
 
 
+def test_screen_keeps_the_bins_that_lost_light_on_average():
+    # derived from the definition: the screen's level is half the least growth per year
+    tested = {(1, 1): {"mean_deficit": 0.30}, (1, 2): {"mean_deficit": 0.025},
+              (2, 1): {"mean_deficit": 0.024}, (2, 2): {"mean_deficit": -0.10}}
+    assert sorted(shading._screened(tested, 0.05)) == [(1, 1), (1, 2)]
+
+
+def test_screen_is_independent_of_the_growth_test_under_no_growth():
+    # derived from OLS with a constant (the mean of the values and the slope are uncorrelated,
+    # independent under normal errors; Bourgon et al. 2010 require this of a screen): over
+    # 2000 invented bins without growth, a bin's mean deficit tells nothing of its p-value,
+    # and the p-values of the bins screened in stay uniform (as many below 0.05 as expected)
+    rng = np.random.default_rng(7)
+    t = np.sort(rng.uniform(0.0, 0.9, 40))
+    el = 10.0 + 4.0 * t + rng.normal(0.0, 0.5, 40)
+    az = 120.0 + rng.normal(0.0, 2.0, 40)
+    means, ps = [], []
+    for _ in range(2000):
+        y = 0.03 + 0.02 * (el - 10.0) + rng.normal(0.0, 0.05, 40)
+        _, _, p = shading._bin_trend(t, y, np.column_stack([el, az]))
+        means.append(y.mean())
+        ps.append(p)
+    means, ps = np.array(means), np.array(ps)
+    assert abs(np.corrcoef(means, ps)[0, 1]) < 0.06
+    kept = means >= np.median(means)
+    assert np.mean(ps[kept] < 0.05) == pytest.approx(0.05, abs=0.02)
+
+
 def test_days_of_a_tracker_footprint_are_left_out_whole():
     # invented truth: a footprint on inverter A from the middle of day 2 to the morning of
     # day 3 of four; shading reads a day's shape against the day's own level, so both days
