@@ -85,7 +85,8 @@ def test_bin_trend_takes_the_place_in_the_bin_apart_from_time():
     el = 10.0 + 4.0 * t + np.sin(9 * t)  # the season moves the path across the bin
     az = 120.0 + np.cos(7 * t)
     y = 0.02 * (el - 10.0)
-    slope, _, p = shading._bin_trend(t, y, np.column_stack([el, az]))
+    slope, _, p, errors = shading._bin_trend(t, y, np.column_stack([el, az]))
+    assert errors == "HC3 errors"  # no months given
     assert slope == pytest.approx(0.0, abs=1e-9)
 
 
@@ -108,7 +109,7 @@ def test_screen_is_independent_of_the_growth_test_under_no_growth():
     means, ps = [], []
     for _ in range(2000):
         y = 0.03 + 0.02 * (el - 10.0) + rng.normal(0.0, 0.05, 40)
-        _, _, p = shading._bin_trend(t, y, np.column_stack([el, az]))
+        _, _, p, _ = shading._bin_trend(t, y, np.column_stack([el, az]))
         means.append(y.mean())
         ps.append(p)
     means, ps = np.array(means), np.array(ps)

@@ -122,7 +122,7 @@ MIN_MONTHS = 4  # least blocks for clustered errors (common practice: a few clus
 
 
 def _bin_trend(t_years: np.ndarray, y: np.ndarray, where: np.ndarray,
-               month: np.ndarray | None = None) -> tuple[float, float, float]:
+               month: np.ndarray | None = None) -> tuple[float, float, float, str]:
     """OLS trend of a bin's daily deficits, with the day's mean sun position in the bin
     (``where``: columns of elevation and azimuth) as covariates: the sun crosses a bin at
     other places in other seasons, where the model's shape error differs, which a trend
@@ -131,15 +131,17 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray, where: np.ndarray,
     block with Student's t on blocks - 1 degrees of freedom: deficits of days in the same
     weeks share their weather and sun path (autocorrelated), which HC3 takes as
     independent and so overstates the evidence of a trend. Returns the slope, its
-    standard error and the one-sided p-value of growth."""
+    standard error, the one-sided p-value of growth and the errors' name."""
     x = tools.add_constant(np.column_stack([t_years, where - where.mean(axis=0)]))
     if month is not None and len(np.unique(month)) >= MIN_MONTHS:
         res = linear_model.OLS(y, x).fit(cov_type="cluster", cov_kwds={"groups": month}, use_t=True)
+        errors = "clustered by month"
     else:
         res = linear_model.OLS(y, x).fit(cov_type="HC3")
+        errors = "HC3 errors"
     slope, se = float(res.params[1]), float(res.bse[1])
     p_one = float(res.pvalues[1] / 2) if slope > 0 else 1.0
-    return slope, se, p_one
+    return slope, se, p_one, errors
 
 
 def _growth_p(x: np.ndarray) -> float:
@@ -179,9 +181,9 @@ def _bin_test(t: np.ndarray, d: np.ndarray, dayno: np.ndarray, where: np.ndarray
                 "mean_deficit": float(np.mean(d))}
     if np.ptp(t) < 0.25:
         return None
-    slope, se, p = _bin_trend(t, d, where, dayno // 30)
-    return {"test": "OLS trend given the sun's place in the bin, clustered by month, "
-                    "one-sided", "growth_per_year": slope, "se": se, "p_value": p,
+    slope, se, p, errors = _bin_trend(t, d, where, dayno // 30)
+    return {"test": f"OLS trend given the sun's place in the bin, {errors}, one-sided",
+            "growth_per_year": slope, "se": se, "p_value": p,
             "pairs": int(len(d)), "mean_deficit": float(np.mean(d))}
 
 
