@@ -474,7 +474,10 @@ def _value_sql(k: int, col: Column, decimal: str, numeric_sentinels: bool) -> tu
     return number, value, error, bad
 
 
-def _rows_sql(chk: _Checked) -> str:
+def _rows_sql(chk: _Checked, one_pass: bool = False) -> str:
+    """sql/ingest_rows.sql for one file. Naive local times of a tall file are resolved with
+    each device's lines apart, or with all lines as one pass (``one_pass``: the file is in
+    time order, sql/ingest_time_local_order.sql)."""
     lg = chk.logger
     numeric = bool(_numeric(lg.sentinels))
     parts = [_value_sql(k, c, lg.decimal, numeric) for k, c in enumerate(lg.columns, start=1)]
@@ -499,8 +502,9 @@ def _rows_sql(chk: _Checked) -> str:
                   "''' is not in the devices of [[loggers]] ' || $logger_name END, " + errors)
     time_ctes = db.sql(f"ingest_time_{lg.time.kind}")
     if lg.time.kind == "local":
-        time_ctes = time_ctes.format(pass_dev=(
-            "dev" if chk.device_position is None else db.sql("ingest_time_local_pass")))
+        time_ctes = time_ctes.format(pass_dev="NULL::VARCHAR" if one_pass else "dev")
+        if tall:
+            tall += ", ambiguous"  # read by sql/ingest_time_local_order.sql
     return db.sql("ingest_rows").format(
         lines=db.sql("ingest_lines"),
         time_text=time_text,
@@ -634,6 +638,9 @@ def _store_file(con: duckdb.DuckDBPyConnection, site: Site, chk: _Checked,
     channels = _channel_ids(con, chk.logger)
     logger_id = _logger_table(con, chk.logger, channels)
     con.execute(_rows_sql(chk), params)
+    if chk.logger.time.kind == "local" and chk.device_position is not None and \
+            _one(con, db.sql("ingest_time_local_order"))[0]:
+        con.execute(_rows_sql(chk, one_pass=True), params)
     for k, col in enumerate(chk.logger.columns, start=1):
         if col.quantity == "status":
             for stmt in db.sql("ingest_status_codes").format(k=k).split("\n;\n"):

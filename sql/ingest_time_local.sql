@@ -34,8 +34,8 @@ local_amb AS (
     FROM local_ok
 ),
 local_pass AS (
-    -- the lines read as one pass: in a tall file as sql/ingest_time_local_pass.sql decides, in
-    -- a wide one all lines (dev is NULL)
+    -- the lines read as one pass: each device's (pass_dev is dev; in a wide file NULL), or all
+    -- lines of a tall file in time order (NULL; sql/ingest_time_local_order.sql tells which)
     SELECT *, {pass_dev} AS pass_dev
     FROM local_amb
 ),
