@@ -12,6 +12,7 @@ from types import SimpleNamespace
 import numpy as np
 import pandas as pd
 import pytest
+from scipy import stats
 
 from perfcheck import detect
 from perfcheck.detect import shading
@@ -88,6 +89,18 @@ def test_bin_trend_takes_the_place_in_the_bin_apart_from_time():
     slope, _, p, errors = shading._bin_trend(t, y, np.column_stack([el, az]))
     assert errors == "HC3 errors"  # no months given
     assert slope == pytest.approx(0.0, abs=1e-9)
+
+
+def test_bin_trend_reads_hc3_errors_against_t_on_its_residual_degrees_of_freedom():
+    # derived from the t statistic's definition (small samples: Student's t on n - k degrees
+    # of freedom, common practice): 20 days, a constant, time and two covariates leave 16
+    rng = np.random.default_rng(3)
+    t = np.linspace(0.0, 0.2, 20)
+    where = np.column_stack([10.0 + rng.normal(0, 1, 20), 120.0 + rng.normal(0, 2, 20)])
+    y = 0.3 * t + rng.normal(0.0, 0.02, 20)
+    slope, se, p, errors = shading._bin_trend(t, y, where)
+    assert errors == "HC3 errors"
+    assert p == pytest.approx(stats.t.sf(slope / se, 16), rel=1e-9)
 
 
 def test_screen_keeps_the_bins_that_lost_light_on_average():

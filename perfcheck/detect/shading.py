@@ -126,7 +126,9 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray, where: np.ndarray,
     """OLS trend of a bin's daily deficits, with the day's mean sun position in the bin
     (``where``: columns of elevation and azimuth) as covariates: the sun crosses a bin at
     other places in other seasons, where the model's shape error differs, which a trend
-    alone would take as growth. Standard errors robust to heteroscedasticity (HC3), or,
+    alone would take as growth. Standard errors robust to heteroscedasticity (HC3) with
+    Student's t on values - coefficients degrees of freedom (a bin holds a few tens of
+    days, where the normal distribution would overstate the evidence), or,
     with ``month`` (a block number per value) spanning at least four blocks, clustered by
     block with Student's t on blocks - 1 degrees of freedom: deficits of days in the same
     weeks share their weather and sun path (autocorrelated), which HC3 takes as
@@ -137,7 +139,7 @@ def _bin_trend(t_years: np.ndarray, y: np.ndarray, where: np.ndarray,
         res = linear_model.OLS(y, x).fit(cov_type="cluster", cov_kwds={"groups": month}, use_t=True)
         errors = "clustered by month"
     else:
-        res = linear_model.OLS(y, x).fit(cov_type="HC3")
+        res = linear_model.OLS(y, x).fit(cov_type="HC3", use_t=True)
         errors = "HC3 errors"
     slope, se = float(res.params[1]), float(res.bse[1])
     p_one = float(res.pvalues[1] / 2) if slope > 0 else 1.0
