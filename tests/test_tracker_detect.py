@@ -198,6 +198,37 @@ def test_stow_change_point_false_alarm_rate_is_at_most_alpha() -> None:
     assert alarms < 36
 
 
+def test_rows_out_of_step_for_weeks_judged_on_the_level_error_of_their_days() -> None:
+    # invented truth: INV3's rows turned 28 deg off the design for two weeks of a hundred
+    # days, every inverter's day off the model by a log-normal 3 % (so a day's model error,
+    # one-sided at alpha, is some 8.7 % of its energy, more than the share the offset costs
+    # over the two weeks, overcast days and low sun included). A loss
+    # within one day's error is not one within two weeks': the run is judged on the error of
+    # the level over its days (autocorrelation included, common.local_level), and found
+    fault = {**STEP, "start": "2024-06-10 00:00", "end": "2024-06-24 00:00", "offset": 28.0}
+    site = make_site(3, tracker=TRACKER)
+    kw = {"start": "2024-05-01", "days": 100}
+    df = make_aligned(site, faults=[fault], **kw)
+    day = df.ts.dt.tz_convert("Europe/Zurich").dt.date
+    days = sorted(set(day))
+    error = dict(zip(days, np.exp(0.03 * np.random.default_rng(5).standard_normal(len(days))),
+                     strict=True))
+    df["measured_ac_w"] *= day.map(error).to_numpy()
+    found = detect.analyse(df, site)
+    steps = [e for e in found["events"] if e.kind.startswith("tracker_")]
+    assert [(e.kind, e.scope) for e in steps] == [("tracker_out_of_step", "inverter:INV3")]
+    e = steps[0]
+    w = found["wide"]
+    inside = (w.index >= e.start) & (w.index < e.end)
+    expected_kwh = float(w.expected["INV3"][inside].sum()) * 0.25 / 1000
+    assert e.energy_loss_kwh / expected_kwh < 3.09 * found["model"]["model_relative_sigma_daily"]
+    for at, true in ((e.start, fault["start"]), (e.end, fault["end"])):
+        assert abs(at - pd.Timestamp(true, tz="Europe/Zurich")) <= pd.Timedelta(days=1)
+    truth = _truth_kwh(site, [fault], "INV3", **kw)
+    assert e.energy_loss_kwh == pytest.approx(truth, rel=0.2)
+    assert e.energy_loss_kwh_low <= truth <= e.energy_loss_kwh_high
+
+
 def test_single_inverter_stall_found_by_its_persistence() -> None:
     # invented truth: the plant's only inverter held at -20 deg for eight days of sixty (no
     # sibling to compare with, no angle channel); window within a day as the suite's targets

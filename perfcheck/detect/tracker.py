@@ -22,9 +22,12 @@ for a test on their number, while days are many and mostly healthy. A day is a s
 out-of-step day when the one-sided p-value is below ``[detect] alpha`` and the day's loss the
 candidate explains exceeds the one-sided 1 - alpha quantile of the daily model error (a shape
 alone, inside the model's error, is not reported). Consecutive such days with one angle (or
-offset, within ``JOIN_DEG``) make one event, kept only where the power measured over it falls
-short of the inverter's usual performance index by half the shape's loss or more, within its
-error (a fault of the rows costs energy; a shape that costs none is the sky's or the model's);
+offset, within ``JOIN_DEG``) make one event, kept only where its loss exceeds the one-sided
+1 - alpha quantile of the model's error of the level over its days (a day's error for a run of
+one day, far less over weeks: :func:`perfcheck.detect.common.local_level`, autocorrelation
+included), and where the power measured over it falls short of the inverter's usual
+performance index by half the shape's loss or more, within its error (a fault of the rows
+costs energy; a shape that costs none is the sky's or the model's);
 the days on either side, and overcast days inside, join it while the event's angle fits them
 better than tracking; its onset and end are
 placed by the split that fits best (:func:`_split`) within the run's edge day and the nearest
@@ -756,7 +759,8 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
            rel_sigma: float, z: float, fits: DayFits, days: np.ndarray, alpha: float,
            chain: Model, shown: bool = False) -> tuple[Event | None, Footprint | None]:
     """The event of one run of days, its energy from the run's angle (or offset); None when
-    that energy lies within the model's error (one-sided ``z``), or when the shortfall
+    that energy lies within the model's error of the level over the run's days (one-sided
+    ``z``), or when the shortfall
     measured against the inverter's usual performance index is none, or short of half the
     shape's beyond its error (a fault of the rows costs energy, so a day shape that costs
     none is the sky's or the model's), unless the angle channel ``shown`` the rows' angle:
@@ -802,18 +806,19 @@ def _event(w: Wide, inv: str, a: Array, s: Sky, theta: np.ndarray, lab: tuple[st
     step = step_all[start:stop]
     exp = np.nan_to_num(e_all[lo:hi])
     e_kwh = float(loss_all[start:stop].sum())
-    if not (shown or e_kwh > z * rel_sigma * float(np.sum(exp * step) / 3.6e6)):
-        return None, None  # within the model's error once the angle is refined
-    # the shortfall measured against the inverter's usual performance index
-    inside = u[lo:hi] & np.isfinite(m[lo:hi])
-    seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
-    pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
-    # the measured shortfall's error: the model's error of the level over the event's days
-    # against the days around them, autocorrelation included (:func:`local_level`)
+    # the model's error of the level over the event's days against the days around them,
+    # autocorrelation included (:func:`local_level`): a day's error for a one-day run, less
+    # for a run of many days
     on = np.where(u & np.isfinite(m), 1.0, np.nan)
     daily = pd.Series(m * on).groupby(day).sum(min_count=1) / pd.Series(
         np.nan_to_num(e_all) * on).groupby(day).sum(min_count=1)
     _, rel = local_level(daily, pd.Timestamp(first), pd.Timestamp(last))
+    if not (shown or e_kwh > z * rel * float(np.sum(exp * step) / 3.6e6)):
+        return None, None  # within the model's error over its days, the angle refined
+    # the shortfall measured against the inverter's usual performance index, and its error
+    inside = u[lo:hi] & np.isfinite(m[lo:hi])
+    seen = float(np.sum((pi0 * exp - np.nan_to_num(m[lo:hi]))[inside] * step[inside]) / 3.6e6)
+    pred = float(np.sum((pi0 * exp * factor)[inside] * step[inside]) / 3.6e6)
     se_seen = rel * float(np.sum((pi0 * exp)[inside] * step[inside]) / 3.6e6)
     # a fault of the rows costs energy: the shortfall measured must be there, and not below
     # half the shape's (one-sided, at the confirmations' level: the half-to-twice rule of
