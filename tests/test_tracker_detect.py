@@ -229,6 +229,32 @@ def test_rows_out_of_step_for_weeks_judged_on_the_level_error_of_their_days() ->
     assert e.energy_loss_kwh_low <= truth <= e.energy_loss_kwh_high
 
 
+@pytest.mark.parametrize(("beyond", "joined"), [(("step", 24.0), True),
+                                               (("step", 8.0), False),
+                                               (("stall", 20.0), False)])
+def test_a_run_bridges_one_odd_day_to_a_significant_day_of_its_shape(beyond, joined) -> None:
+    # invented day fits: a seed day turned 20 deg off (day 2), a day that fits it (3), an
+    # odd day that fits tracking better (4), then a day whose best shape is significant but
+    # whose loss was too small for a seed (5), and tracking again (6-9). Day 5 joins the run
+    # when its best shape is of the run's family within JOIN_DEG (10 deg) of its offset
+    labels = [("stall", 20.0), ("step", 8.0), ("step", 20.0), ("step", 24.0)]
+    cand = tracker.Candidates(labels, np.zeros((len(labels), 1)))
+    n_days = 10
+    days = np.arange("2024-06-01", "2024-06-11", dtype="datetime64[D]")
+    sse0 = np.full(n_days, 1.0)
+    sse_all = np.full((n_days, len(labels)), 2.0)  # tracking fits best ...
+    sse_all[2:4, :] = 0.5  # ... except on the seed day and the day after it
+    sse_all[5, labels.index(beyond)] = 0.2
+    best = np.argmin(sse_all, axis=1)
+    p = np.full(n_days, 0.5)
+    p[[2, 5]] = 1e-6
+    fits = tracker.DayFits(np.full(n_days, 30.0), sse0, sse_all[np.arange(n_days), best],
+                           best, np.log(sse0 / np.minimum(sse_all.min(axis=1), sse0)), p,
+                           sse_all)
+    runs = tracker._group({days[2]: ("step", 20.0)}, days, cand, fits, [], alpha=1e-3)
+    assert runs == [(("step", 20.0), days[2], days[5] if joined else days[3])]
+
+
 def test_single_inverter_stall_found_by_its_persistence() -> None:
     # invented truth: the plant's only inverter held at -20 deg for eight days of sixty (no
     # sibling to compare with, no angle channel); window within a day as the suite's targets

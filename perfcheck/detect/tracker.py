@@ -650,7 +650,7 @@ def detect(w: Wide, site: Site, usable: pd.DataFrame, rel_sigma: float, alpha: f
             if other != inv:
                 beside |= np.isfinite(f[3].gain)
         blocked = tracking if inv == first else []
-        for lab, first_day, last_day in _group(seed, days, cand, fits, blocked):
+        for lab, first_day, last_day in _group(seed, days, cand, fits, blocked, alpha):
             run = (days >= first_day) & (days <= last_day)
             own = run & np.isin(days, list(seed))  # not the days its neighbours share
             seen = inv == first and any(first_day <= d <= last_day for d in shown)
@@ -708,13 +708,16 @@ def _drop_shared(seeds: dict[str, dict], shaped: dict[str, np.ndarray]) -> None:
 
 
 def _group(seed: dict, days: np.ndarray, cand: Candidates, fits: DayFits,
-           blocked: list[np.datetime64]
+           blocked: list[np.datetime64], alpha: float
            ) -> list[tuple[tuple[str, float], np.datetime64, np.datetime64]]:
     """Runs of seed days of one family, joined over the days between them that the run's
     candidate fits better than tracking (or that have no test), or single odd days, and
     extended by such days on either side; no day in two runs nor in ``blocked`` (days the
-    angle channel shows the rows turning as designed). The run's angle (or offset) is the
-    median of its seed days' (a day only partly stalled fits an angle between)."""
+    angle channel shows the rows turning as designed). A single odd day is also bridged to a
+    day whose best candidate is significant (p below ``alpha``), of the run's family and
+    within ``JOIN_DEG`` of its angle, though not a seed (a duller day shows the shape
+    before its loss is material). The run's angle (or offset) is the median of its seed
+    days' (a day only partly stalled fits an angle between)."""
     out: list = []
     pos = {d: i for i, d in enumerate(days)}
     used = np.isin(np.arange(len(days)), [pos[d] for d in blocked if d in pos])
@@ -727,8 +730,13 @@ def _group(seed: dict, days: np.ndarray, cand: Candidates, fits: DayFits,
         def fits_day(i: int, k: int = k) -> bool:
             return not used[i] and (fits.n[i] == 0 or fits.sse_all[i, k] < fits.sse0[i])
 
-        def mine(i: int, fam: str = fam) -> bool:
-            return not used[i] and days[i] in seed and seed[days[i]][0] == fam
+        def mine(i: int, fam: str = fam, val: float = val) -> bool:
+            if used[i]:
+                return False
+            if days[i] in seed:
+                return seed[days[i]][0] == fam
+            f, v = cand.labels[fits.best[i]]
+            return bool(fits.p_value[i] < alpha) and f == fam and abs(v - val) <= JOIN_DEG
 
         i0 = i1 = pos[d]
         while i1 + 1 < len(days) and not used[i1 + 1]:
