@@ -21,21 +21,23 @@ robust z-score (median, MAD): intervals within a day are too correlated (clouds,
 for a test on their number, while days are many and mostly healthy. A day is a stall or
 out-of-step day when the one-sided p-value is below ``[detect] alpha`` and the day's loss the
 candidate explains exceeds the one-sided 1 - alpha quantile of the daily model error (a shape
-alone, inside the model's error, is not reported). Consecutive such days with one angle (or
-offset, within ``JOIN_DEG``) make one event, kept only where its loss exceeds the one-sided
-1 - alpha quantile of the model's error of the level over its days (a day's error for a run of
-one day, far less over weeks: :func:`perfcheck.detect.common.local_level`, autocorrelation
-included), and where the power measured over it falls short of the inverter's usual
-performance index by half the shape's loss or more, within its error (a fault of the rows
-costs energy; a shape that costs none is the sky's or the model's);
-the days on either side, and overcast days inside, join it while the event's angle fits them
-better than tracking; its onset and end are
-placed by the split that fits best (:func:`_split`) within the run's edge day and the nearest
-day beyond it with usable intervals (an overcast day between can tell neither: a row that
-stalled on the afternoon before it is found there). Where the plant has
-other tracker inverters, a day on which more than half of them show a significant shape (any
-candidate) is taken as the sky's or the model's, not the rows' (rows out of step differ from
-their neighbours; a plant-wide stall is therefore found from the angle channel only), and an
+alone, inside the model's error, is not reported). Consecutive such days of one kind (rows
+held, or turned by an offset) make one event, with a single odd day between them, or between
+one of them and a significant day of that kind whose loss alone is not material, its angle
+within ``JOIN_DEG`` of the event's (:func:`_group`); the event is kept only where its loss
+exceeds the one-sided 1 - alpha quantile of the model's error of the level over its days (a
+day's error for a run of one day, far less over weeks:
+:func:`perfcheck.detect.common.local_level`, autocorrelation included), and where the power
+measured over it falls short of the inverter's usual performance index by half the shape's
+loss or more, within its error (a fault of the rows costs energy; a shape that costs none is
+the sky's or the model's); the days on either side, and overcast days inside, join it while
+the event's angle fits them better than tracking; its onset and end are placed by the split
+that fits best (:func:`_split`) within the run's edge day and the nearest day beyond it with
+usable intervals (an overcast day between can tell neither: a row that stalled on the
+afternoon before it is found there). Where the plant has other tracker inverters, a day on
+which more than half of them show a significant shape (any candidate) is taken as the sky's
+or the model's, not the rows' (rows out of step differ from their neighbours; a plant-wide
+stall is therefore found from the angle channel only), and an
 event is reported when its most significant day of its own (not such a shared day, and one
 on which a sibling was tested too) is significant over all the inverter's days tested (its
 p-value times their number below alpha, Bonferroni). An inverter with no sibling, or a run on
