@@ -96,6 +96,24 @@ def test_partial_outage_share_and_strings(plant_a):
     assert ev.evidence["p_value"] < 1e-3
 
 
+@pytest.mark.parametrize("drift_per_day", [0.0, 0.0005])
+def test_a_siblings_lost_strings_are_no_fault_of_the_others(drift_per_day):
+    # invented truth: INV2 of three loses half its strings for a month of 150 days, nothing
+    # else; the model drifts by drift_per_day on every inverter alike (the siblings share
+    # it, each inverter's own ratio to expected sees it). The median of the other two is
+    # their mean, so INV1 and INV3 rise against their siblings by a third while INV2 is down:
+    # a whole string's share of theirs. Found: INV2's fault alone, the others' days judged
+    # with INV2's share put back
+    site = make_site(n_inverters=3, strings=4)
+    fault = {"kind": "partial", "inverter": "INV2", "start": "2024-05-20",
+             "end": "2024-06-20", "share": 0.5}
+    df = make_aligned(site, start="2024-03-01", days=150, faults=[fault])
+    df["measured_ac_w"] *= 1 + drift_per_day * (df.ts - df.ts.min()).dt.days.to_numpy()
+    found = [e for e in detect.analyse(df, site)["events"] if e.kind == "partial_outage"]
+    assert [e.scope for e in found] == ["inverter:INV2"]
+    assert found[0].detail["strings_lost"] == 2
+
+
 def test_dim_days_alone_are_no_lost_string():
     # invented truth: INV1's array 15 % less efficient below 250 W/m^2 (a low-light
     # behaviour the model does not know, no fault), and five whole days of overcast (clearness

@@ -48,6 +48,7 @@ from perfcheck.detect.common import (
     daylight,
     ratio_noise,
     robust_sigma,
+    shares_put_back,
     wide,
 )
 from perfcheck.lazy import lazy_module
@@ -227,7 +228,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     strings = {i.id: sum(a.strings for a in i.arrays) for i in site.inverters}
     # lost strings are judged on the power with the rows' share put back: during a stall they
     # are a level on top of its shape (the ledger takes the shares in this order)
-    w_rows = dataclasses.replace(w, measured=_undo(w, prints))
+    w_rows = dataclasses.replace(w, measured=shares_put_back(w, prints))
     # the edges of lost strings are placed on every daylight interval not explained: a flag
     # on a weather reading (a stuck anemometer) leaves the power's step visible
     ev, fp = partial.detect(w_rows, usable, strings, alpha=st.alpha,
@@ -236,7 +237,7 @@ def analyse(df: pd.DataFrame, site: Site, settings: Settings | None = None,
     prints += fp
     t = lap("partial", t)
     undone = list(prints)  # the findings whose share the measured power gets back
-    meas_fixed = _undo(w, undone)
+    meas_fixed = shares_put_back(w, undone)
     w_fixed = dataclasses.replace(w, measured=meas_fixed)
     horizon = {i.id: i.arrays[0].horizon for i in site.inverters}
     ev, fp, shaded = shading.detect(w_fixed, valid & ~excluded & ~tracker_days, rel_sigma,
@@ -361,17 +362,6 @@ def _days_of(w: Wide, prints: list[Footprint]) -> pd.DataFrame:
         for c in fp.cols:
             out[c] |= touched
     return out
-
-
-def _undo(w: Wide, prints: list[Footprint]) -> pd.DataFrame:
-    """Measured power with the partial outages' shares put back (for the shared detectors)."""
-    m = w.measured.copy()
-    for fp in prints:
-        for j, c in enumerate(fp.cols):
-            pos = m.columns.get_loc(c)
-            m.iloc[fp.lo:fp.hi, pos] = m.iloc[fp.lo:fp.hi, pos].to_numpy() / (
-                1 - fp.factor[:, j])
-    return m
 
 
 def _plant_pi(w: Wide, keep: pd.DataFrame, measured: pd.DataFrame) -> pd.Series:

@@ -612,6 +612,19 @@ class Footprint:
     factor_rel_sigma: float = 0.0  # relative standard error of ``factor`` [-]
 
 
+def shares_put_back(w: Wide, prints: list[Footprint]) -> pd.DataFrame:
+    """Measured power with the shares of the footprints ``prints`` (lost strings, a stalled
+    row's plane: a ``factor`` each) put back: what the inverters would have delivered
+    without those faults."""
+    m = w.measured.copy()
+    for fp in prints:
+        for j, c in enumerate(fp.cols):
+            pos = m.columns.get_loc(c)
+            m.iloc[fp.lo:fp.hi, pos] = m.iloc[fp.lo:fp.hi, pos].to_numpy() / (
+                1 - fp.factor[:, j])
+    return m
+
+
 def clearsky_poa(w: Wide, latitude: float, longitude: float, altitude: float,
                  planes: dict[str, list[tuple[float, float, float]]]) -> pd.DataFrame:
     """Clear-sky plane-of-array irradiance [W/m^2] per named plane group.

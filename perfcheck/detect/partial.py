@@ -5,8 +5,16 @@ For each inverter the daily value is the median, over the day's usable intervals
 (measured/expected of this inverter) / (median of the same ratio over its siblings); with one
 inverter, its own measured/expected. The median over the day keeps the value robust to shading
 that touches only part of the day; dividing by the siblings removes what all arrays share
-(weather-model error, soiling, degradation). Changes of the mean of the log daily value are
-located by binary segmentation with a significance test at each split
+(weather-model error, soiling, degradation). A sibling's own lost strings move that median too
+(of two siblings it is their mean): the other inverters then rise against it by up to the
+sibling's share, and that rise, the highest long level, would become their reference and
+everything else a loss. So the inverters are searched in turn: the faults of the one whose
+own ratio to expected shows its fault the most (the test that tells which inverter changed;
+then by the test against its siblings) are kept, their shares put back in its power where it
+serves as a sibling, and the others searched again, until
+none shows a fault (one outlier taken out before the next is looked for). Changes of the
+mean of the log daily value are located by binary segmentation with a significance test at
+each split
 (:func:`perfcheck.detect.common.change_points`), and neighbouring segments below the reference
 level that differ by less than half a string's share, or by less than a whole string's that
 their own days cannot tell apart (Welch), are joined (:func:`merge_within`: no string changed
@@ -52,6 +60,7 @@ test with the variance pooled; Welch 1947 (Biometrika 34:28) (all from memory).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -72,6 +81,7 @@ from perfcheck.detect.common import (
     long_run_sigma,
     row_median,
     scope_of,
+    shares_put_back,
 )
 from perfcheck.lazy import lazy_module
 
@@ -84,17 +94,19 @@ METHOD = ("binary segmentation of the daily median ratio to expected and to sibl
 
 
 def daily_relative(w: Wide, usable: pd.DataFrame, siblings: bool = True,
-                   min_intervals: int = 3) -> pd.DataFrame:
+                   min_intervals: int = 3, ref: Wide | None = None) -> pd.DataFrame:
     """Daily median of each inverter's ratio to expected, divided by its siblings' median
     (``siblings=False``: the inverter's own ratio to expected).
 
-    ``usable`` marks the intervals to use (daylight, unclipped, not already explained).
+    ``usable`` marks the intervals to use (daylight, unclipped, not already explained);
+    ``ref`` (default ``w``) the series the siblings' ratios are read from.
     """
-    r = (w.measured / w.expected).where(usable)
+    r = _ratio(w, usable)
     if siblings and len(w.inverters) > 1:
+        sib = r if ref is None else _ratio(ref, usable)
         rel = pd.DataFrame(index=r.index, columns=r.columns, dtype=float)
         for inv in r.columns:
-            rel[inv] = r[inv] / row_median(r.drop(columns=inv).to_numpy(dtype=float))
+            rel[inv] = r[inv] / row_median(sib.drop(columns=inv).to_numpy(dtype=float))
     else:
         rel = r
     days = w.day.to_numpy()
@@ -107,7 +119,8 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
            min_days: int = 3, judged: pd.DataFrame | None = None
            ) -> tuple[list[Event], list[Footprint]]:
     """Partial-outage events with their footprints (share of expected power lost, with its
-    relative standard error).
+    relative standard error), the inverters searched in turn (see the module: each
+    inverter's faults found against siblings whose faults found before are put back).
 
     ``judged`` (default ``usable``): the intervals the edges of a fault are placed on, the
     clipped ones among them (:func:`_edges`).
@@ -120,149 +133,182 @@ def detect(w: Wide, usable: pd.DataFrame, strings: dict[str, int], alpha: float 
     widens the band by that level's error (:mod:`perfcheck.detect.attribution`).
     """
     wc, uc = coarsen(w, usable)
-    daily = daily_relative(wc, uc)
     own = np.log(daily_relative(wc, uc, siblings=False))
     morning = (wc.azimuth < 180).to_numpy()[:, None]
-    halves = [np.log(daily_relative(wc, uc & morning, min_intervals=2)),
-              np.log(daily_relative(wc, uc & ~morning, min_intervals=2))]
-    events: list[Event] = []
-    prints: list[Footprint] = []
     # the day's light: the log of the mean plane irradiance of its usable blocks
     light = day_light(wc, uc)
-    for inv in w.inverters:
-        s = np.log(daily[inv].where(daily[inv] > 0)).dropna()
-        if len(s) < 4 * min_days:
+    found: dict[str, tuple[list[Event], list[Footprint]]] = {}
+    put_back: list[Footprint] = []  # the faults found so far, for the siblings' ratio
+    while len(found) < len(w.inverters):
+        ref = dataclasses.replace(w, measured=shares_put_back(w, put_back)) if put_back else w
+        ref_c = coarsen(ref)[0] if put_back else wc
+        daily = daily_relative(wc, uc, ref=ref_c)
+        halves = [np.log(daily_relative(wc, uc & morning, min_intervals=2, ref=ref_c)),
+                  np.log(daily_relative(wc, uc & ~morning, min_intervals=2, ref=ref_c))]
+        new = {inv: _faults(inv, w, usable if judged is None else judged, ref, daily, own,
+                            halves, light, strings, alpha, min_days)
+               for inv in w.inverters if inv not in found}
+        new = {inv: f for inv, f in new.items() if f[0]}
+        if not new:
+            break
+        # the inverter whose own ratio to expected shows its fault the most (the test that
+        # tells which inverter changed), the fault's test against its siblings next
+        first = min(new, key=lambda inv: min((e.evidence["own_ratio_p_value"],
+                                              e.evidence["p_value"]) for e in new[inv][0]))
+        found[first] = new[first]
+        put_back += new[first][1]
+    events = [e for inv in w.inverters if inv in found for e in found[inv][0]]
+    prints = [p for inv in w.inverters if inv in found for p in found[inv][1]]
+    return events, prints
+
+
+def _ratio(w: Wide, usable: pd.DataFrame) -> pd.DataFrame:
+    """Each inverter's measured over expected power on the ``usable`` intervals."""
+    return (w.measured / w.expected).where(usable)
+
+
+def _faults(inv: str, w: Wide, judged: pd.DataFrame, ref_w: Wide, daily: pd.DataFrame,
+            own: pd.DataFrame, halves: list[pd.DataFrame], light: pd.DataFrame,
+            strings: dict[str, int], alpha: float, min_days: int
+            ) -> tuple[list[Event], list[Footprint]]:
+    """The lost strings of inverter ``inv`` (:func:`detect`), from its daily value
+    ``daily`` against its siblings' (in ``ref_w``), its own ratio ``own``, the half-days'
+    ``halves`` (logs) and the days' ``light``."""
+    events: list[Event] = []
+    prints: list[Footprint] = []
+    s = np.log(daily[inv].where(daily[inv] > 0)).dropna()
+    if len(s) < 4 * min_days:
+        return events, prints
+    x = despike(s.to_numpy())
+    segs = change_points(x, alpha=alpha, min_size=min_days)
+    if len(segs) < 2:
+        return events, prints
+    # what the day's light does to the ratio on the healthy days removed, and the days
+    # segmented again
+    ref = _reference(segs, min_days)
+    x, slope_var, lit = light_adjusted(x, light[inv].reindex(s.index).to_numpy(),
+                                       slice(ref.start, ref.stop))
+    segs = change_points(x, alpha=alpha, min_size=min_days)
+    if len(segs) < 2:
+        return events, prints
+    ref = _reference(segs, min_days)
+    xr = x[ref.start:ref.stop]
+    own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
+    n_str = max(1, strings.get(inv, 1))
+    merged = merge_within(x, segs, ref, 0.5 / n_str, alpha)
+    # the days' autocorrelation, read on the long reference segment (a few days next to
+    # a fault are too few to estimate it)
+    _, phi = long_run_sigma(xr)
+    for g in merged:
+        if g is ref or g.mean >= ref.mean:
             continue
-        x = despike(s.to_numpy())
-        segs = change_points(x, alpha=alpha, min_size=min_days)
-        if len(segs) < 2:
+        xs = x[g.start:g.stop]
+        # the days' noise pooled over the fault and the reference, as the segmentation
+        # takes it: a lost string scales the power, and the log of a scaled power keeps
+        # its noise; Welch's test would estimate the fault's variance from its own days
+        # alone, about n - 1 degrees of freedom, and cannot reach alpha on a fault seen
+        # on three days (a winter at a high latitude, few intervals the model expects)
+        t = stats.ttest_ind(xs, xr, equal_var=True)
+        share = 1 - math.exp(g.mean - ref.mean)
+        if not (t.pvalue < alpha and share >= 0.5 / n_str):
             continue
-        # what the day's light does to the ratio on the healthy days removed, and the days
-        # segmented again
-        ref = _reference(segs, min_days)
-        x, slope_var, lit = light_adjusted(x, light[inv].reindex(s.index).to_numpy(),
-                                           slice(ref.start, ref.stop))
-        segs = change_points(x, alpha=alpha, min_size=min_days)
-        if len(segs) < 2:
+        # the inverter's own ratio to expected must drop too (with two inverters the
+        # sibling ratio alone cannot tell which one changed)
+        own_s = own[inv].reindex(s.index[g.start:g.stop]).dropna().to_numpy()
+        t_own = stats.ttest_ind(own_s, own_r, equal_var=False, alternative="less")
+        if not t_own.pvalue < 0.05:
             continue
-        ref = _reference(segs, min_days)
-        xr = x[ref.start:ref.stop]
-        own_r = own[inv].reindex(s.index[ref.start:ref.stop]).dropna().to_numpy()
-        n_str = max(1, strings.get(inv, 1))
-        merged = merge_within(x, segs, ref, 0.5 / n_str, alpha)
-        # the days' autocorrelation, read on the long reference segment (a few days next to
-        # a fault are too few to estimate it)
-        _, phi = long_run_sigma(xr)
-        for g in merged:
-            if g is ref or g.mean >= ref.mean:
-                continue
-            xs = x[g.start:g.stop]
-            # the days' noise pooled over the fault and the reference, as the segmentation
-            # takes it: a lost string scales the power, and the log of a scaled power keeps
-            # its noise; Welch's test would estimate the fault's variance from its own days
-            # alone, about n - 1 degrees of freedom, and cannot reach alpha on a fault seen
-            # on three days (a winter at a high latitude, few intervals the model expects)
-            t = stats.ttest_ind(xs, xr, equal_var=True)
-            share = 1 - math.exp(g.mean - ref.mean)
-            if not (t.pvalue < alpha and share >= 0.5 / n_str):
-                continue
-            # the inverter's own ratio to expected must drop too (with two inverters the
-            # sibling ratio alone cannot tell which one changed)
-            own_s = own[inv].reindex(s.index[g.start:g.stop]).dropna().to_numpy()
-            t_own = stats.ttest_ind(own_s, own_r, equal_var=False, alternative="less")
-            if not t_own.pvalue < 0.05:
-                continue
-            steps = _edge_steps(x, g.start, g.stop, min_days)
-            if any(st < 0.5 * share for st in steps):
-                continue
-            half = [_share(h[inv], s.index[g.start:g.stop], s.index[ref.start:ref.stop])
-                    for h in halves]
-            if not (min(half) >= 0.5 * max(half) and min(half) > 0):
-                continue
-            # the share lost is measured against the days next to the fault: the inverter's
-            # level against its siblings wanders with the season, so a far reference biases
-            # it; the level before and the level after are averaged (a linear drift
-            # interpolated to the fault), each mean's variance autocorrelation-aware, and
-            # the level during the fault taken as anywhere between the two (rectangular,
-            # variance range^2 / 12: JCGM 100:2008, 4.3.7)
-            near = [m for m in _near(s.index, g, merged, ref, 0.5 / n_str)
-                    if m.sum() >= min_days] or [np.arange(ref.start, ref.stop)]
-            sides = [x[m] for m in near]
-            # the same test against the days next to the fault, with their noise: the days'
-            # spread changes with the season (a winter's days, low sun and few intervals, are
-            # noisier than the summer's that the long reference holds), so the long
-            # reference's variance can make a run of poor winter days look certain
-            t_near = stats.ttest_ind(xs, np.concatenate(sides), equal_var=True)
-            if not t_near.pvalue < alpha:
-                continue
-            base = float(np.mean([np.mean(v) for v in sides]))
-            d0, d1 = s.index[g.start], s.index[g.stop - 1]
-            lo, hi = _edges(w, usable if judged is None else judged, inv, d0, d1,
-                            math.exp(base), math.exp(g.mean), min_days)
-            # placed to the interval, the fault must still touch the days the segmentation
-            # needs to tell a level (min_days): where the intervals put its edges so that fewer
-            # remain, they and the days' medians disagree on when the strings were lost, and
-            # what is left lies below the method's resolution
-            if (w.day.iloc[hi - 1] - w.day.iloc[lo]).days + 1 < min_days:
-                continue
-            # the days the strings were lost all day: a day holding an edge is partly healthy
-            whole = (s.index[g.start:g.stop] > w.day.iloc[lo]) & (
-                s.index[g.start:g.stop] < w.day.iloc[hi - 1])
-            fault = np.arange(g.start, g.stop)
-            if whole.sum() >= min_days:
-                xs, fault = xs[whole], fault[whole]
-            share = 1 - math.exp(float(np.mean(xs)) - base)
-            between = (np.mean(sides[-1]) - np.mean(sides[0])) ** 2 / 12
-            # the light slope's error, carried by the difference of light between the fault's
-            # days and those next to it
-            dlight = np.nanmean(lit[fault]) - np.mean([np.nanmean(lit[m]) for m in near])
-            se = math.sqrt(_mean_var(xs, phi) + sum(_mean_var(v, phi) for v in sides)
-                           / len(sides) ** 2 + between
-                           + (slope_var * dlight ** 2 if np.isfinite(dlight) else 0.0))
-            # a lost string takes a whole string's share: the share must lie within its
-            # error of a whole number of the site file's strings (taken as alike, as for the
-            # number reported), the error floored at the model's over weeks (MODEL_FLOOR);
-            # two-sided alpha (a run of dim days on which the model errs for one plane takes
-            # whatever share that error is)
-            k = min(max(round(share * n_str), 1), n_str)
-            if abs(share - k / n_str) > stats.norm.isf(alpha / 2) * math.hypot(
-                    se, MODEL_FLOOR) * (1 - share):
-                continue
-            # the share's error for its band: the days' (above), the model's over weeks
-            # (MODEL_FLOOR: no model tracks a plane's ratio better over the weeks between
-            # the fault and the days next to it), and the whole strings' share as a value the
-            # share may take (rectangular of half-width the distance to it, JCGM 100:2008,
-            # 4.3.7): the strings are taken as alike, which the site file does not promise
-            to_whole = math.log((1 - k / n_str) / (1 - share)) if k < n_str else 0.0
-            se = math.sqrt(se ** 2 + MODEL_FLOOR ** 2 + to_whole ** 2 / 3)
-            share_lo = 1 - math.exp(float(np.mean(xs)) - base + 1.96 * se)
-            share_hi = 1 - math.exp(float(np.mean(xs)) - base - 1.96 * se)
-            exp = w.expected[inv].to_numpy()[lo:hi]
-            step = w.interval_s.to_numpy()[lo:hi]
-            energy = float(np.nansum(exp * share * step) / 3.6e6)
-            ev = Event(
-                kind="partial_outage", scope=scope_of(inv),
-                start=w.index[lo],
-                end=w.index[hi - 1] + pd.Timedelta(seconds=float(w.interval_s.iloc[hi - 1])),
-                energy_loss_kwh=energy,
-                energy_loss_kwh_low=max(0.0, energy * share_lo / share),
-                energy_loss_kwh_high=energy * share_hi / share,
-                method=METHOD,
-                evidence={"test": "Student t, pooled variance", "p_value": float(t.pvalue),
-                          "t": float(t.statistic), "days": int(len(xs)),
-                          "reference_days": int(len(xr)),
-                          "share_reference_days": int(sum(len(v) for v in sides)),
-                          "share_of_dc_lost": share, "share_ci95": [share_lo, share_hi],
-                          "own_ratio_p_value": float(t_own.pvalue),
-                          "near_days_p_value": float(t_near.pvalue),
-                          "edge_steps_share": steps, "morning_afternoon_share": half,
-                          "segments": len(segs)},
-                detail={"strings_lost": int(k), "strings_total": n_str,
-                        "share_of_dc_lost": share},
-            )
-            events.append(ev)
-            prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share),
-                                    factor_rel_sigma=(1 - share) * se / share))
+        steps = _edge_steps(x, g.start, g.stop, min_days)
+        if any(st < 0.5 * share for st in steps):
+            continue
+        half = [_share(h[inv], s.index[g.start:g.stop], s.index[ref.start:ref.stop])
+                for h in halves]
+        if not (min(half) >= 0.5 * max(half) and min(half) > 0):
+            continue
+        # the share lost is measured against the days next to the fault: the inverter's
+        # level against its siblings wanders with the season, so a far reference biases
+        # it; the level before and the level after are averaged (a linear drift
+        # interpolated to the fault), each mean's variance autocorrelation-aware, and
+        # the level during the fault taken as anywhere between the two (rectangular,
+        # variance range^2 / 12: JCGM 100:2008, 4.3.7)
+        near = [m for m in _near(s.index, g, merged, ref, 0.5 / n_str)
+                if m.sum() >= min_days] or [np.arange(ref.start, ref.stop)]
+        sides = [x[m] for m in near]
+        # the same test against the days next to the fault, with their noise: the days'
+        # spread changes with the season (a winter's days, low sun and few intervals, are
+        # noisier than the summer's that the long reference holds), so the long
+        # reference's variance can make a run of poor winter days look certain
+        t_near = stats.ttest_ind(xs, np.concatenate(sides), equal_var=True)
+        if not t_near.pvalue < alpha:
+            continue
+        base = float(np.mean([np.mean(v) for v in sides]))
+        d0, d1 = s.index[g.start], s.index[g.stop - 1]
+        lo, hi = _edges(w, judged, inv, d0, d1, math.exp(base), math.exp(g.mean), min_days,
+                        ref_w)
+        # placed to the interval, the fault must still touch the days the segmentation
+        # needs to tell a level (min_days): where the intervals put its edges so that fewer
+        # remain, they and the days' medians disagree on when the strings were lost, and
+        # what is left lies below the method's resolution
+        if (w.day.iloc[hi - 1] - w.day.iloc[lo]).days + 1 < min_days:
+            continue
+        # the days the strings were lost all day: a day holding an edge is partly healthy
+        whole = (s.index[g.start:g.stop] > w.day.iloc[lo]) & (
+            s.index[g.start:g.stop] < w.day.iloc[hi - 1])
+        fault = np.arange(g.start, g.stop)
+        if whole.sum() >= min_days:
+            xs, fault = xs[whole], fault[whole]
+        share = 1 - math.exp(float(np.mean(xs)) - base)
+        between = (np.mean(sides[-1]) - np.mean(sides[0])) ** 2 / 12
+        # the light slope's error, carried by the difference of light between the fault's
+        # days and those next to it
+        dlight = np.nanmean(lit[fault]) - np.mean([np.nanmean(lit[m]) for m in near])
+        se = math.sqrt(_mean_var(xs, phi) + sum(_mean_var(v, phi) for v in sides)
+                       / len(sides) ** 2 + between
+                       + (slope_var * dlight ** 2 if np.isfinite(dlight) else 0.0))
+        # a lost string takes a whole string's share: the share must lie within its
+        # error of a whole number of the site file's strings (taken as alike, as for the
+        # number reported), the error floored at the model's over weeks (MODEL_FLOOR);
+        # two-sided alpha (a run of dim days on which the model errs for one plane takes
+        # whatever share that error is)
+        k = min(max(round(share * n_str), 1), n_str)
+        if abs(share - k / n_str) > stats.norm.isf(alpha / 2) * math.hypot(
+                se, MODEL_FLOOR) * (1 - share):
+            continue
+        # the share's error for its band: the days' (above), the model's over weeks
+        # (MODEL_FLOOR: no model tracks a plane's ratio better over the weeks between
+        # the fault and the days next to it), and the whole strings' share as a value the
+        # share may take (rectangular of half-width the distance to it, JCGM 100:2008,
+        # 4.3.7): the strings are taken as alike, which the site file does not promise
+        to_whole = math.log((1 - k / n_str) / (1 - share)) if k < n_str else 0.0
+        se = math.sqrt(se ** 2 + MODEL_FLOOR ** 2 + to_whole ** 2 / 3)
+        share_lo = 1 - math.exp(float(np.mean(xs)) - base + 1.96 * se)
+        share_hi = 1 - math.exp(float(np.mean(xs)) - base - 1.96 * se)
+        exp = w.expected[inv].to_numpy()[lo:hi]
+        step = w.interval_s.to_numpy()[lo:hi]
+        energy = float(np.nansum(exp * share * step) / 3.6e6)
+        ev = Event(
+            kind="partial_outage", scope=scope_of(inv),
+            start=w.index[lo],
+            end=w.index[hi - 1] + pd.Timedelta(seconds=float(w.interval_s.iloc[hi - 1])),
+            energy_loss_kwh=energy,
+            energy_loss_kwh_low=max(0.0, energy * share_lo / share),
+            energy_loss_kwh_high=energy * share_hi / share,
+            method=METHOD,
+            evidence={"test": "Student t, pooled variance", "p_value": float(t.pvalue),
+                      "t": float(t.statistic), "days": int(len(xs)),
+                      "reference_days": int(len(xr)),
+                      "share_reference_days": int(sum(len(v) for v in sides)),
+                      "share_of_dc_lost": share, "share_ci95": [share_lo, share_hi],
+                      "own_ratio_p_value": float(t_own.pvalue),
+                      "near_days_p_value": float(t_near.pvalue),
+                      "edge_steps_share": steps, "morning_afternoon_share": half,
+                      "segments": len(segs)},
+            detail={"strings_lost": int(k), "strings_total": n_str,
+                    "share_of_dc_lost": share},
+        )
+        events.append(ev)
+        prints.append(Footprint(ev, lo, hi, [inv], factor=np.full((hi - lo, 1), share),
+                                factor_rel_sigma=(1 - share) * se / share))
     return events, prints
 
 
@@ -343,7 +389,8 @@ def _same_strings(x: np.ndarray, a: Segment, b: Segment, ref: Segment, step: flo
 
 
 def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Timestamp,
-           level_ok: float, level_low: float, min_days: int = 3) -> tuple[int, int]:
+           level_ok: float, level_low: float, min_days: int = 3, ref: Wide | None = None
+           ) -> tuple[int, int]:
     """Rows [lo, hi) of the lost strings, to the interval: the step from ``level_ok`` to
     ``level_low`` of the interval ratio (to siblings, as the daily value) at the split with
     the least squared distance to the two known levels (a lost string is a step;
@@ -358,7 +405,8 @@ def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Tim
     half-day from the day before ``d0`` to ``min_days`` - 1 days after it and the half-day
     that follows, the stop in the first from ``min_days`` - 1 days before ``d1`` to the day
     after and the half-day before it (without one, from the day before ``d0`` through
-    ``d0``, and from ``d1`` through the day after). ``usable`` should hold the intervals the
+    ``d0``, and from ``d1`` through the day after). The siblings' ratios are read from
+    ``ref`` (default ``w``). ``usable`` should hold the intervals the
     model expects at the rating too: where the inverter still reaches it the lost strings
     cost nothing and the ratio stays at the upper level, where it falls short the step
     shows; without them an edge inside a clear noon falls anywhere in it. Without usable
@@ -366,8 +414,8 @@ def _edges(w: Wide, usable: pd.DataFrame, inv: str, d0: pd.Timestamp, d1: pd.Tim
     days = w.day.to_numpy()
     r = (w.measured[inv] / w.expected[inv]).where(usable[inv])
     if len(w.inverters) > 1:
-        r = r / row_median((w.measured / w.expected).where(usable).drop(columns=inv).to_numpy(
-            dtype=float))
+        r = r / row_median(_ratio(w if ref is None else ref, usable).drop(columns=inv)
+                           .to_numpy(dtype=float))
     r = r.to_numpy()
     one = pd.Timedelta(days=1)
     # half-days: a number per row that grows with time (two per day)
