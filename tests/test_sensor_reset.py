@@ -333,3 +333,23 @@ def test_the_size_is_the_sensors_own_whatever_the_index_does_over_the_season():
     (s,) = sensor.reset_faults(W, x, y + sag)
     assert s.factor == pytest.approx(0.95, abs=0.01)
     assert s.start == pd.Timestamp("2024-06-01", tz="UTC")
+
+
+def test_a_drift_is_found_behind_heavy_soiling_of_the_inverters():
+    # invented truth: the sensor drifts from 0 to +4.5 % between 1 March and a recalibration
+    # on 20 July, while the modules soil at 0.5 %/day from 10 January to a wash on 5 March
+    # (-27 %) and again to a cleaning on 20 March; the sensor is not soiled. The index
+    # carries both faults, the reference the sensor's alone: the joint fit follows the wash,
+    # where the reference shows nothing, and the reference alone must place the drift (onset
+    # within 15 days as above, size within 1.5 %)
+    rng = np.random.default_rng(5)
+    err = _error("drift", np.log(1.045), "2024-03-01", "2024-07-20")
+    t = ((DAYS - pd.Timestamp("2024-01-10")) / pd.Timedelta(days=1)).to_numpy(dtype=float)
+    soil = np.where((DAYS >= "2024-01-10") & (DAYS < "2024-03-05"), 0.005 * t, 0.0)
+    t2 = ((DAYS - pd.Timestamp("2024-03-05")) / pd.Timedelta(days=1)).to_numpy(dtype=float)
+    soil += np.where((DAYS >= "2024-03-05") & (DAYS < "2024-03-20"), 0.005 * t2, 0.0)
+    x, y = _pair(rng, err)
+    (s,) = sensor.reset_faults(W, x, y + np.log1p(-soil))
+    assert s.end == pd.Timestamp("2024-07-20", tz="UTC")
+    assert abs((s.start - pd.Timestamp("2024-03-01", tz="UTC")).days) <= 15
+    assert s.factor == pytest.approx(1.045, abs=0.015)

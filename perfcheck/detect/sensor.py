@@ -362,17 +362,19 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
     and a fault counts only where it reaches ``min_shift`` (the last stretch of a straight
     drift averages at least half its end value). A step from the usual level out past it is
     a fault's onset, not a reset. Over the days since the last fault found (or the first
-    day), :func:`reset_fit` places the onset and chooses the shape. The fault is kept when its
-    size d is significant (two-sided normal p-value of d over its long-run standard error
-    below ``alpha``), its fitted error reaches ``min_shift`` on some day, and the sensor-fed
-    inverters' daily index steps the other way at the reset by half to twice d, within its
-    noise (medians of ``min_days`` days either side, :func:`_mirror_step`): a reference that
-    errs with the season has no such step in the power. The step is read on ``pi_steps``
-    (default ``pi_fed``), the index less what the day's light explains
-    (:func:`_light_adjusted`): over so few days, a run of dull days beside the reset moves a
-    lone inverter's index by as much as the sensor's fault. The false-alarm probability is at
-    most that of the segmentation's split, ``alpha`` (independent noise; day-to-day
-    persistence raises it), and the mirrored step can only lower it.
+    day), :func:`reset_fit` places the onset and chooses the shape, with the inverters' index
+    or, where another fault moves the index, on the reference alone (:func:`_placed`). The
+    fault is kept when its size d is significant (two-sided normal p-value of d over its
+    long-run standard error below ``alpha``), its fitted error reaches ``min_shift`` on some
+    day, and the sensor-fed inverters' daily index steps the other way at the reset by half
+    to twice d, within its noise (medians of ``min_days`` days either side,
+    :func:`_mirror_step`): a reference that errs with the season has no such step in the
+    power. The step is read on ``pi_steps`` (default ``pi_fed``), the index less what the
+    day's light explains (:func:`_light_adjusted`): over so few days, a run of dull days
+    beside the reset moves a lone inverter's index by as much as the sensor's fault. The
+    false-alarm probability is at most that of the segmentation's split, ``alpha``
+    (independent noise; day-to-day persistence raises it), and the mirrored step can only
+    lower it.
 
     The window runs from the fitted onset (for a drift, where the fitted line leaves the
     usual level) to the reset; the evidence gives the first day the fitted error reaches
@@ -404,19 +406,10 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
                 and abs(before) >= big / 2):
             continue
         reset = b.index[segs[k + 1].start]
-        fit = reset_fit(xs, since, reset, min_days, mirror=y_clean)
-        if fit is None:
+        placed = _placed(xs, y_clean, since, reset, min_days, before, alpha)
+        if placed is None:
             continue
-        # the fault's size against the sensor's own reference alone, at the onset and in the
-        # shape the two series placed together: the index's own course over the season
-        # (the power model's errors) must not bend it
-        own = reset_fit(xs, since, reset, min_days, onset=fit["onset"], shape=fit["shape"])
-        if own is None:
-            continue
-        d = own["d"]
-        p = float(2 * stats.norm.sf(abs(d) / own["se_d"])) if own["se_d"] > 0 else 0.0
-        if not (np.sign(d) == np.sign(before) and p < alpha):
-            continue
+        fit, d, p = placed
         # the index's change across the reset (before less after), against the sensor's d
         pre = y[y.index < reset].to_numpy()[-min_days:]
         post = y[y.index >= reset].to_numpy()[:min_days]
@@ -449,6 +442,37 @@ def reset_faults(w: Wide, x: pd.Series, pi_fed: pd.Series, alpha: float = 1e-3,
                       "detectable_pct": 100 * min_shift,
                       "fed_inverters_index_step_pct": 100 * float(np.expm1(fed))}))
     return out
+
+
+def _placed(xs: pd.Series, mirror: pd.Series, since: pd.Timestamp, reset: pd.Timestamp,
+            min_days: int, before: float, alpha: float
+            ) -> tuple[dict[str, Any], float, float] | None:
+    """The fault behind a reset: the fit that places it (:func:`reset_fit`), its size d (log)
+    against the sensor's reference ``xs`` alone, and d's two-sided p-value; None when no
+    fault of the sign of ``before`` (the segment before the reset) is significant at
+    ``alpha``.
+
+    The onset and shape are placed by the reference and the inverters' index ``mirror``
+    together, and d is then read on the reference alone, at that onset and in that shape:
+    the index's own course over the season (the power model's errors) must not bend it.
+    The joint fit assumes that nothing but the sensor moves the index over the span; where
+    another fault does (heavy soiling and the rain that washes it), the joint onset follows
+    that fault instead, and the reference shows no fault of the right sign there. The
+    reference alone then places the fault, under the same tests.
+    """
+    for joint in (True, False):
+        fit = reset_fit(xs, since, reset, min_days, mirror=mirror if joint else None)
+        if fit is None:
+            return None
+        own = (fit if not joint else
+               reset_fit(xs, since, reset, min_days, onset=fit["onset"], shape=fit["shape"]))
+        if own is None:
+            continue
+        d = own["d"]
+        p = float(2 * stats.norm.sf(abs(d) / own["se_d"])) if own["se_d"] > 0 else 0.0
+        if np.sign(d) == np.sign(before) and p < alpha:
+            return fit, d, p
+    return None
 
 
 def _mirror_step(fed: float, d: float, se: float) -> bool:
