@@ -143,7 +143,10 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
         if f["kind"] == "wind":
             s0, e0 = (pd.Timestamp(f[k], tz=TZ) for k in ("start", "end"))
             wind[(idx >= s0) & (idx < e0)] = f["speed"]
-    tcell = pvlib.temperature.sapm_cell(poa, temp_air, wind, -3.56, -0.075, 3)
+    # back-of-module and cell temperature by SAPM (King et al. 2004, SAND2004-3535, eqs. 11
+    # and 12; glass/polymer open rack), as a logged module temperature would read
+    tmod = pvlib.temperature.sapm_module(poa, temp_air, wind, -3.56, -0.075)
+    tcell = pvlib.temperature.sapm_cell_from_module(tmod, poa, 3)
     years = ((idx - pd.Timestamp(site.commissioned, tz="UTC")).total_seconds() / 3.15576e7
              ).to_numpy()
     rain = np.zeros(len(idx))
@@ -230,7 +233,7 @@ def make_aligned(site: Site, start: str = "2024-03-01", days: int = 60, freq_min
             # a tracker plant's expected power comes from its GHI (no sensor on a tracker)
             "poa_source": "sensor" if theta_design is None else "model",
             "clearsky_ghi_wm2": cs["ghi"].to_numpy(), "temp_air_c": temp_air,
-            "wind_speed_ms": wind, "temp_module_c": tcell - 3, "temp_cell_c": tcell,
+            "wind_speed_ms": wind, "temp_module_c": tmod, "temp_cell_c": tcell,
             "rain_mm": rain, "sun_zenith_deg": sp["apparent_zenith"].to_numpy(),
             "sun_azimuth_deg": sp["azimuth"].to_numpy(), "flags": "",
         }))

@@ -143,6 +143,21 @@ def test_sensor_level_fault_and_fallback(plant_a):
     assert s.factor == pytest.approx(0.9, abs=0.02)
 
 
+@pytest.mark.parametrize("scale, inverters", [(1.06, 3), (0.94, 1)])
+def test_a_sensor_recalibrated_near_the_end_is_one_fault(scale, inverters):
+    # invented truth: the plane-of-array sensor reads 6 % off from 10 June to a recalibration
+    # on 15 July, three weeks before the record ends (a monthly run's usual case). The days
+    # after the reset, against the fault's days beside them, look like a fault of the other
+    # sign (and with no days beyond them, they once passed as one): one fault, to the day
+    site = make_site(n_inverters=inverters)
+    faults = [{"kind": "sensor", "start": "2024-06-10 00:00", "end": "2024-07-15 00:00",
+               "scale": scale}]
+    df = make_aligned(site, faults=faults, start="2024-05-01", days=100, freq_min=15, seed=5)
+    ev = one(detect.analyse(df, site)["events"], "sensor_fault")
+    assert abs(ev.start - local("2024-06-10")) <= pd.Timedelta(days=1)
+    assert abs(ev.end - local("2024-07-15")) <= pd.Timedelta(days=1)
+
+
 def test_clock_fault_size(plant_a):
     site, df, res = plant_a
     ev = one(res["events"], "clock_fault")

@@ -651,8 +651,9 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     inverter whole, the inverters it feeds in part stand for the driven ones, each one's
     daily log index divided by its share (a sensor reading a factor f off moves an inverter
     fed in the share s by about s log f, to first order), and the sensor is its reading.
-    Overlapping windows: the first found in the order reset faults, power faults, clear-sky
-    level faults is kept.
+    The tests run in the order reset faults, power faults, clear-sky level faults, the last
+    without the days of the faults found before it; of overlapping windows the first found
+    is kept.
     """
     driven = driven_columns(w)
     part: dict[str, float] | None = None
@@ -674,9 +675,7 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     stuck = ([] if raw is None or raw.isna().all()
              else stuck_faults(w, raw, planes_clear["_sensor"]))
     # the level tests ignore the days touched by a stuck run
-    touched = np.zeros(len(w.index), dtype=bool)
-    for s in stuck:
-        touched |= w.day.isin(w.day[(w.index >= s.start) & (w.index < s.end)].unique()).to_numpy()
+    touched = _days_of(w, stuck)
     free = sensor.where(~touched)
     # the module temperature is read on the array that carries the sensor, in its plane: it is
     # compared with the sensor's own reading where that is logged, not with the irradiance the
@@ -689,17 +688,33 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     pi = np.log(daily_pi(w, valid).where(lambda p: p > 0))
     pi_fed = (pi[driven] / scale).median(axis=1)
     index = _against_others(pi_fed, pi, others)
-    q = _daily_log_ratio(w, free, sensor_clear)
-    q_clear = q[clear.reindex(q.index).fillna(False).astype(bool)]
     found = []
     if heat is not None:
         lit = _light_adjusted(pi, day_light(w, valid))
         steps = _against_others((lit[driven] / scale).median(axis=1), lit, others)
         found = reset_faults(w, _daily_log_ratio(w, own, heat.where(heat > 0)), index,
                              alpha=alpha, pi_steps=steps)
-    found += power_faults(w, index, q_clear, alpha=alpha)
+
+    def without(faults: list[Suspect]) -> tuple[pd.Series, pd.Series, pd.Series, pd.Series,
+                                                 pd.Series]:
+        """The sensor, the fed inverters' index, the index less the others', the sensor
+        against the clear sky on every day and on clear days, without the days of
+        ``faults``."""
+        gone = touched | _days_of(w, faults)
+        keep = ~pi.index.isin(pd.DatetimeIndex(np.unique(w.day.to_numpy()[gone])))
+        rest = sensor.where(~gone)
+        q = _daily_log_ratio(w, rest, sensor_clear)
+        return (rest, pi_fed.where(keep), index.where(keep), q,
+                q[clear.reindex(q.index).fillna(False).astype(bool)])
+
+    # the power test leaves out a neighbouring fault's segment itself (power_faults)
+    found += power_faults(w, index, without([])[4], alpha=alpha)
+    # the clear-sky level test leaves out the days of the faults found above: compared with a
+    # fault's days, those after its reset read as a fault of the other sign (at the end of
+    # the record, with no other days beyond them, they passed every test)
+    free, fed, rest_index, q, q_clear = without(found)
     if others or part:
-        every_day = index
+        every_day = rest_index
     elif has_ghi(w) and cols:
         every_day = _daily_log_ratio(w, free, w.poa_modelled[cols[0]])
     else:
@@ -709,7 +724,7 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # power (by about the sensor's change, the other way); a level change that the power does
     # not mirror is the reference's seasonal error, not the sensor
     kept: list[Suspect] = []
-    for s in found + [s for s in levels if _mirrored(pi_fed, q_clear, s, w.tz)]:
+    for s in found + [s for s in levels if _mirrored(fed, q_clear, s, w.tz)]:
         if not any(s.start < f.end and f.start < s.end for f in kept):
             kept.append(s)
     found = sorted(kept, key=lambda s: s.start) + stuck
@@ -727,6 +742,14 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
             ev["sensor_share_of_plane_irradiance"] = part
         out.append(dataclasses.replace(s, evidence=ev, shares=part))
     return out
+
+
+def _days_of(w: Wide, suspects: list[Suspect]) -> np.ndarray:
+    """Per interval of ``w``: whether its site-local day is touched by one of ``suspects``."""
+    inside = np.zeros(len(w.index), dtype=bool)
+    for s in suspects:
+        inside |= (w.index >= s.start) & (w.index < s.end)
+    return w.day.isin(w.day[inside].unique()).to_numpy()
 
 
 def _against_others(fed: pd.Series, pi: pd.DataFrame, others: list[str]) -> pd.Series:
