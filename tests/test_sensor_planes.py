@@ -82,3 +82,34 @@ def test_reading_carried_to_another_plane_drives_the_inverter(mixed):
     day = w.expected["INV1"] > 0
     np.testing.assert_allclose(ratio[day & ~morning[:, 0]], 1 / 0.9)
     np.testing.assert_allclose(ratio[day & morning[:, 0]], 1.0)
+
+
+def test_an_inverter_carried_from_the_sensor_in_part_is_no_reference():
+    # invented truth: three inverters, the sensor 6 % high from 10 June to 15 July; INV3's
+    # arrays lie in another plane, whose irradiance the model carries from the sensor's
+    # reading in the afternoons (4 of 10 daylight hours or so: not driven) and transposes from
+    # GHI in the mornings. Taken as a reference of what moves every inverter but the sensor,
+    # INV3 would take back a good part of the fault from the driven inverters' index; it is
+    # neither, and the fault is found from the power with its window
+    site = make_site(n_inverters=3)
+    df = make_aligned(site, start="2024-05-01", days=100, seed=5, faults=[
+        {"kind": "sensor", "start": "2024-06-10 00:00", "end": "2024-07-15 00:00",
+         "scale": 1.06}])
+    w = common.wide(df, {c: 10e3 for c in ("INV1", "INV2", "INV3")}, None, site.tz)
+    hour = w.index.tz_convert(TZ).hour.to_numpy()
+    morning = hour < 14
+    own = w.from_sensor.copy()
+    own["INV3"] = False
+    carried = w.translated.copy()
+    carried["INV3"] = ~morning
+    exp, pot = w.expected.copy(), w.potential.copy()
+    for frame, modelled in ((exp, w.expected_modelled), (pot, w.potential_modelled)):
+        frame.loc[morning, "INV3"] = modelled["INV3"].to_numpy()[morning]
+    w = dataclasses.replace(w, from_sensor=own, translated=carried, expected=exp, potential=pot)
+    assert sensor.driven_columns(w) == ["INV1", "INV2"]
+    cs = common.clearsky_poa(w, site.latitude_deg, site.longitude_deg, site.altitude_m,
+                             detect._planes(site, w))
+    (s,) = sensor.find(w, common.clear_days(w, cs[w.inverters]), cs)
+    assert abs(s.start - pd.Timestamp("2024-06-10", tz=TZ)) <= pd.Timedelta(days=1)
+    assert abs(s.end - pd.Timestamp("2024-07-15", tz=TZ)) <= pd.Timedelta(days=1)
+    assert s.factor == pytest.approx(1.06, abs=0.015)

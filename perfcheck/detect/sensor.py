@@ -682,7 +682,12 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # reading gives in other planes (decomposed and transposed, with the seasonal error of
     # those models)
     own = free if raw is None or raw.isna().all() else raw.where(~touched)
-    others = [c for c in w.inverters if c not in driven]
+    # the others stand for what moves every inverter but the sensor's: an inverter whose
+    # expected power follows the sensor in some intervals (its planes' irradiance carried
+    # from the reading) but not most is neither driven nor one of them
+    daytime = (w.zenith < 80).to_numpy()
+    others = [c for c in w.inverters
+              if c not in driven and not w.follows_sensor[c].to_numpy()[daytime].any()]
     # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
     valid = daylight(w)
     pi = np.log(daily_pi(w, valid).where(lambda p: p > 0))
