@@ -537,9 +537,14 @@ def driven_columns(w: Wide) -> list[str]:
     and transposed: GTI-DIRINT, see :mod:`perfcheck.model`)."""
     if not has_ghi(w):
         return list(w.inverters)
-    day = w.zenith < 80
-    share = w.follows_sensor[day.to_numpy()].mean()
+    share = _following(w)
     return [c for c in w.inverters if share.get(c, 0) > 0.5]
+
+
+def _following(w: Wide) -> pd.Series:
+    """Per inverter, the share of its daylight intervals (sun 10 deg up or more) whose expected
+    power follows the POA sensor (:attr:`perfcheck.detect.common.Wide.follows_sensor`)."""
+    return w.follows_sensor[(w.zenith < 80).to_numpy()].mean()
 
 
 def power_faults(w: Wide, index: pd.Series, evidence: pd.Series, alpha: float = 1e-3,
@@ -685,9 +690,8 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
     # the others stand for what moves every inverter but the sensor's: an inverter whose
     # expected power follows the sensor in some intervals (its planes' irradiance carried
     # from the reading) but not most is neither driven nor one of them
-    daytime = (w.zenith < 80).to_numpy()
-    others = [c for c in w.inverters
-              if c not in driven and not w.follows_sensor[c].to_numpy()[daytime].any()]
+    share = _following(w)
+    others = [c for c in w.inverters if c not in driven and not share.get(c, 0) > 0]
     # a day an inverter produced nothing (an outage) has no log; it says nothing of the sensor
     valid = daylight(w)
     pi = np.log(daily_pi(w, valid).where(lambda p: p > 0))
@@ -713,7 +717,8 @@ def find(w: Wide, clear: pd.Series, planes_clear: pd.DataFrame, alpha: float = 1
                 q[clear.reindex(q.index).fillna(False).astype(bool)])
 
     # the power test leaves out a neighbouring fault's segment itself (power_faults)
-    found += power_faults(w, index, without([])[4], alpha=alpha)
+    *_, q_clear = without([])
+    found += power_faults(w, index, q_clear, alpha=alpha)
     # the clear-sky level test leaves out the days of the faults found above: compared with a
     # fault's days, those after its reset read as a fault of the other sign (at the end of
     # the record, with no other days beyond them, they passed every test)
